@@ -1,0 +1,602 @@
+"""The analysis pipeline: a recording in, every mode of every hit out.
+
+read -> condition -> find hits -> find modes -> extract each band -> estimate -> combine.
+
+``analyze`` takes an array, ``analyze_file`` a path, ``analyze_many`` a batch of paths (a file
+that cannot be analysed gives an ``Analysis`` whose ``error`` is set; the others still run).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Callable, Iterable, Sequence
+
+import numpy as np
+
+from . import condition
+from .bands import Band, Spectrum, extract_band, settling_time_s, spectrum_of
+from .errors import FitError, InputError, NoRingdownError, ParameterError, RingdownError
+from .estimators import ESTIMATORS, Window, method_names
+from .estimators.decrement import band_peaks
+from .peaks import Peak, find_peaks, group_bands
+from .quantities import DB_PER_NEPER, derive
+from .recording import Recording
+from .results import Analysis, Estimate, Hit, Mode, ModeTrace, Notice
+
+__all__ = ["analyze", "analyze_recording", "analyze_file", "analyze_many", "AnalysisOptions"]
+
+#: Fewest samples a recording may have.
+MIN_SAMPLES = 64
+#: Estimators that resolve several modes in one band jointly.
+_MULTI_MODE = frozenset({"pencil"})
+
+
+@dataclass(frozen=True, slots=True)
+class AnalysisOptions:
+    """Options of one analysis, validated once (see :func:`analyze` for their meaning)."""
+
+    method: str = "auto"
+    bands: tuple[tuple[float, float], ...] | None = None
+    max_modes: int | None = None
+    min_snr_db: float = 10.0
+    min_hit_snr_db: float = 20.0
+    keep_double_hits: bool = False
+
+    def __post_init__(self) -> None:
+        if self.method not in method_names():
+            raise ParameterError(f"unknown method {self.method!r}; choose one of {', '.join(method_names())}")
+        if self.max_modes is not None and (not isinstance(self.max_modes, (int, np.integer)) or self.max_modes < 1):
+            raise ParameterError(f"max_modes must be a whole number >= 1; got {self.max_modes!r}")
+        if not (math.isfinite(self.min_snr_db) and self.min_snr_db >= 0):
+            raise ParameterError(f"min_snr_db must be >= 0 dB; got {self.min_snr_db!r}")
+        if self.bands is not None:
+            clean = []
+            for b in self.bands:
+                try:
+                    lo, hi = (float(v) for v in b)
+                except (TypeError, ValueError):
+                    raise ParameterError(f"a band is two frequencies low:high in Hz; got {b!r}") from None
+                if not (math.isfinite(lo) and math.isfinite(hi) and 0 <= lo < hi):
+                    raise ParameterError(f"band {lo:g}:{hi:g} Hz must have 0 <= low < high")
+                clean.append((lo, hi))
+            object.__setattr__(self, "bands", tuple(sorted(clean)))
+
+    @property
+    def primary(self) -> str:
+        """The estimator whose figures a mode reports."""
+        if self.method != "auto":
+            return self.method
+        return "pencil" if "pencil" in ESTIMATORS else "envelope"
+
+    def to_dict(self) -> dict:
+        return {
+            "method": self.method,
+            "primary_method": self.primary,
+            "bands": None if self.bands is None else [list(b) for b in self.bands],
+            "max_modes": self.max_modes,
+            "min_snr_db": self.min_snr_db,
+            "min_hit_snr_db": self.min_hit_snr_db,
+            "keep_double_hits": self.keep_double_hits,
+        }
+
+
+# ----------------------------------------------------------------------------------------------
+# public entry points
+
+
+def analyze(
+    x,
+    sample_rate: float,
+    *,
+    method: str = "auto",
+    bands: Sequence[tuple[float, float]] | None = None,
+    max_modes: int | None = None,
+    min_snr_db: float = 10.0,
+    min_hit_snr_db: float = 20.0,
+    keep_double_hits: bool = False,
+) -> Analysis:
+    """Measure every mode of a ring-down record given as an array.
+
+    Parameters
+    ----------
+    x : (n_samples,) array_like of float
+        One channel, any unit (the unit of amplitudes in the result).
+    sample_rate : float, > 0, Hz
+    method : {"auto", "envelope", "decrement", "half_power", "pencil"}
+        Estimator whose figures each mode reports; the others are kept in ``cross_checks``.
+        ``"auto"`` is the parametric (matrix pencil) fit when available.
+    bands : sequence of (low_hz, high_hz) or None
+        Analyse these bands instead of searching for spectral peaks.
+    max_modes : int >= 1 or None
+        Keep at most this many modes (the strongest).
+    min_snr_db : float, dB, default 10
+        A fit window ends where the mode's envelope falls to this margin above its band noise
+        (ISO 3382-2 keeps 10 dB above the noise; FIELD notes: the log-envelope bias is ~0 there).
+    min_hit_snr_db : float, dB, default 20
+        A hit must rise this far above the broadband noise floor (common practice, no source).
+    keep_double_hits : bool
+        Combine hits flagged ``double_hit`` (hammer bounce) with the others instead of leaving
+        them out.
+
+    Returns
+    -------
+    Analysis
+
+    Raises
+    ------
+    InputError
+        Non-finite samples, too few samples, or a silent record.
+    NoRingdownError
+        Nothing rises above the noise and decays.
+    ParameterError
+        An option out of range (a band above Nyquist, an unknown method, ...).
+    """
+    rec = Recording(np.asarray(x, dtype=np.float64), sample_rate)
+    return analyze_recording(
+        rec, method=method, bands=bands, max_modes=max_modes, min_snr_db=min_snr_db,
+        min_hit_snr_db=min_hit_snr_db, keep_double_hits=keep_double_hits,
+    )
+
+
+def analyze_file(
+    path,
+    *,
+    channel=None,
+    column=None,
+    sample_rate: float | None = None,
+    **options,
+) -> Analysis:
+    """Read a recording (see :func:`ringdown.read_recording`) and analyse it.
+
+    ``channel`` (audio), ``column`` and ``sample_rate`` (delimited text) go to the reader;
+    the other keyword options are those of :func:`analyze`.
+    """
+    from .io import read_recording
+
+    rec = read_recording(path, channel=channel, column=column, sample_rate=sample_rate)
+    reader = {"channel": channel, "column": column, "sample_rate": sample_rate}
+    return analyze_recording(rec, reader_settings=reader, **options)
+
+
+def analyze_many(
+    paths: Iterable,
+    *,
+    jobs: int = 1,
+    progress: Callable[[Analysis], None] | None = None,
+    **options,
+) -> list[Analysis]:
+    """Analyse several files; a file that fails gets ``Analysis.error`` and the rest go on.
+
+    Parameters
+    ----------
+    paths : iterable of str or path
+    jobs : int >= 1
+        Worker processes (``concurrent.futures.ProcessPoolExecutor``) when > 1.
+    progress : callable or None
+        Called with each finished Analysis (in completion order).
+    **options
+        As for :func:`analyze_file`.
+
+    Returns
+    -------
+    list of Analysis, in the order of ``paths``.
+    """
+    paths = [str(p) for p in paths]
+    AnalysisOptions(**{k: v for k, v in options.items() if k in AnalysisOptions.__slots__})
+    if jobs is None or jobs < 1:
+        raise ParameterError(f"jobs must be >= 1; got {jobs!r}")
+    results: list[Analysis | None] = [None] * len(paths)
+    if jobs == 1 or len(paths) <= 1:
+        for i, p in enumerate(paths):
+            results[i] = _analyze_or_fail(p, options)
+            if progress:
+                progress(results[i])
+    else:
+        from concurrent.futures import ProcessPoolExecutor, as_completed
+
+        with ProcessPoolExecutor(max_workers=min(jobs, len(paths))) as pool:
+            futs = {pool.submit(_analyze_or_fail, p, options): i for i, p in enumerate(paths)}
+            for fut in as_completed(futs):
+                results[futs[fut]] = fut.result()
+                if progress:
+                    progress(results[futs[fut]])
+    return [r for r in results if r is not None]
+
+
+def _analyze_or_fail(path: str, options: dict) -> Analysis:
+    try:
+        return analyze_file(path, **options)
+    except RingdownError as exc:
+        return Analysis.failed(path, exc, settings=dict(options))
+
+
+# ----------------------------------------------------------------------------------------------
+# the pipeline
+
+
+def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **options) -> Analysis:
+    """Analyse a :class:`Recording` (the common path of :func:`analyze` and :func:`analyze_file`).
+
+    Keyword options are those of :func:`analyze`.
+    """
+    opts = AnalysisOptions(**options)
+    settings = opts.to_dict()
+    if reader_settings:
+        settings.update(reader_settings)
+    name = repr(rec.path) if rec.path else "the array"
+    fs = rec.sample_rate
+    if rec.n_samples < MIN_SAMPLES:
+        raise InputError(f"{name} has {rec.n_samples} samples; at least {MIN_SAMPLES} are needed")
+    nyq = fs / 2.0
+    for lo, hi in opts.bands or ():
+        if hi > nyq:
+            raise ParameterError(
+                f"band {lo:g}-{hi:g} Hz lies above Nyquist ({nyq:g} Hz) for {name}; lower the band or resample"
+            )
+    raw = rec.samples
+    if float(np.ptp(raw)) == 0.0:
+        raise InputError(f"{name} is constant (every sample is {raw[0]:g}): nothing rings down")
+    x = condition.remove_drift(raw, fs)
+    scale = float(np.max(np.abs(x)))
+    if scale == 0.0 or scale < 1e-12 * max(float(np.max(np.abs(raw))), 1e-300):
+        raise InputError(f"{name} holds only a constant offset or a straight drift: nothing rings down")
+
+    level = condition.envelope_db(x, fs)
+    noise_db = condition.noise_floor_db(level)
+    spans = condition.find_hits(level, fs, noise_db=noise_db, min_hit_snr_db=opts.min_hit_snr_db,
+                                smoothing=condition.envelope_smoothing(x, fs))
+    if not spans:
+        peak_db = float(level.max() - noise_db)
+        raise NoRingdownError(
+            f"no ring-down found in {name}: the envelope never rises {opts.min_hit_snr_db:g} dB above its "
+            f"noise floor (highest {peak_db:.1f} dB); check the gain, the trigger or the file"
+        )
+    clipped = condition.find_clipping(raw, full_scale=rec.full_scale)
+    rec_warnings: list[Notice] = []
+    if rec.timing_jitter is not None and rec.timing_jitter > 1e-6:
+        rec_warnings.append(Notice("timing_jitter", f"time steps jitter by {100 * rec.timing_jitter:.3g} % RMS (accepted)"))
+
+    noise_f, noise_p = _noise_spectrum(x, fs, spans)
+
+    hits: list[Hit] = []
+    for j, span in enumerate(spans):
+        hits.append(_analyze_hit(x, fs, span, j, spans, clipped, noise_f, noise_p, opts, noise_db, level))
+
+    used = [h for h in hits if h.used and h.modes]
+    if not used:
+        reasons = "; ".join(sorted({w.message for h in hits for w in h.warnings})) or "no mode stood above the noise"
+        raise NoRingdownError(f"no mode could be measured in {name}: {reasons}")
+    modes = _combine_hits(used)
+    for h in hits:
+        rec_warnings.extend(w for w in h.warnings if w.code in ("double_hit", "clipped"))
+    return Analysis(
+        path=rec.path,
+        sha256=rec.sha256,
+        channel=rec.channel,
+        sample_rate_hz=fs,
+        n_samples=rec.n_samples,
+        hits=tuple(hits),
+        modes=tuple(modes),
+        warnings=tuple(_unique(rec_warnings)),
+        error=None,
+        settings=settings,
+        noise_floor=float(10 ** (noise_db / 20.0)),
+        recording=rec,
+    )
+
+
+def _unique(notices: Iterable[Notice]) -> list[Notice]:
+    seen, out = set(), []
+    for n in notices:
+        if (n.code, n.message) not in seen:
+            seen.add((n.code, n.message))
+            out.append(n)
+    return out
+
+
+def _noise_spectrum(x: np.ndarray, fs: float, spans) -> tuple[np.ndarray, np.ndarray]:
+    """Noise PSD from the pre-trigger part, else from the record's last 10 %."""
+    guard = max(2, int(round(0.002 * fs)))
+    pre_end = spans[0].onset - guard
+    min_len = max(MIN_SAMPLES, int(round(0.01 * fs)))
+    if pre_end >= min_len:
+        seg = x[:pre_end]
+    else:
+        n_tail = max(min_len, x.shape[0] // 10)
+        seg = x[-n_tail:]
+    return condition.noise_psd(seg, fs)
+
+
+def _band_noise_rms(band: Band, noise_f: np.ndarray, noise_p: np.ndarray) -> float:
+    """RMS of ``|z|`` that the noise alone gives in this band: sqrt(2 S B_noise)."""
+    lo = band.f_lo_hz - band.skirt_hz
+    hi = band.f_hi_hz + band.skirt_hz
+    sel = (noise_f >= lo) & (noise_f <= hi)
+    if sel.any():
+        s = float(np.mean(noise_p[sel]))
+    else:
+        s = float(np.interp(0.5 * (lo + hi), noise_f, noise_p))
+    b_noise = (band.f_hi_hz - band.f_lo_hz) + 0.75 * band.skirt_hz  # integral of mask^2
+    return math.sqrt(max(2.0 * s * b_noise, 1e-300))
+
+
+def _analyze_hit(x, fs, span, j, spans, clipped, noise_f, noise_p, opts, noise_db, level) -> Hit:
+    warnings: list[Notice] = []
+    prev_end = spans[j - 1].end if j > 0 else 0
+    pre = int(round(0.02 * fs))
+    seg_start = max(prev_end, span.onset - pre, 0)
+    seg_end = span.end
+    onset_s = span.onset / fs
+    used = True
+    if span.bounce is not None:
+        warnings.append(Notice("double_hit", f"hit at {onset_s:.3f} s has a second onset {1e3 * (span.bounce - span.onset) / fs:.1f} ms later (hammer bounce?)"
+                               + ("" if opts.keep_double_hits else "; left out of the combined result")))
+        used = opts.keep_double_hits
+    clip_in = clipped[(clipped >= span.onset) & (clipped < seg_end)] if clipped.size else clipped
+    clip_end = None
+    if clip_in.size:
+        clip_end = int(clip_in[-1]) + 1
+        warnings.append(Notice("clipped", f"{clip_in.size} samples clipped between {clip_in[0] / fs:.3f} and {clip_end / fs:.3f} s; "
+                                          "fits start after the clipping ends"))
+    decay_from = max(span.peak, clip_end or 0)
+    peak_value = float(np.max(np.abs(x[span.onset:seg_end])))
+    hit_snr = float(level[span.peak] - noise_db)
+    if seg_end - decay_from < MIN_SAMPLES:
+        warnings.append(Notice("short_decay", f"hit at {onset_s:.3f} s leaves {seg_end - decay_from} samples of decay"))
+        return Hit(onset_s, span.peak / fs, peak_value, hit_snr, seg_end / fs, False, tuple(warnings), ())
+
+    spec = spectrum_of(x[seg_start:seg_end], fs, t0_s=seg_start / fs)
+    decay = x[decay_from:seg_end]
+    if opts.bands is not None:
+        groups = [([], lo, hi) for lo, hi in opts.bands]
+    else:
+        from .peaks import spectrum_db
+
+        f_bins, _ = spectrum_db(decay, fs)
+        n = decay.shape[0]
+        w = np.ones(n)
+        q = max(n // 4, 1)
+        w[n - q:] = 0.5 * (1 + np.cos(np.pi * np.arange(q) / q))
+        noise_level = 10 * np.log10(np.interp(f_bins, noise_f, noise_p) * fs * np.sum(w**2) / (2 * n**2) + 1e-300)
+        peaks = find_peaks(decay, fs, max_peaks=opts.max_modes, noise_level_db=noise_level)
+        groups = group_bands(peaks, sample_rate=fs, resolution_hz=fs / n)
+    modes: list[Mode] = []
+    for peaks_g, lo, hi in groups:
+        try:
+            modes.extend(_measure_group(spec, peaks_g, lo, hi, onset_s, clip_end, seg_end, fs, noise_f, noise_p, opts, warnings))
+        except FitError as exc:
+            where = f"{lo:.1f}-{hi:.1f} Hz"
+            warnings.append(Notice("fit_failed", f"band {where} in hit at {onset_s:.3f} s: {exc}"))
+    modes.sort(key=lambda m: m.f_d_hz)
+    if opts.max_modes is not None and len(modes) > opts.max_modes:
+        modes = sorted(modes, key=lambda m: -(m.amplitude or 0.0))[: opts.max_modes]
+        modes.sort(key=lambda m: m.f_d_hz)
+    modes = [m.with_updates(index=i + 1) for i, m in enumerate(modes)]
+    return Hit(onset_s, span.peak / fs, peak_value, hit_snr, seg_end / fs, used, tuple(warnings), tuple(modes))
+
+
+def _window_for(band: Band, onset_s: float, clip_end, seg_end: int, fs: float, min_snr_db: float) -> Window:
+    settle = settling_time_s(band)
+    start = onset_s + settle
+    if clip_end is not None:
+        start = max(start, clip_end / fs + settle)
+    env = np.abs(band.z)
+    i0 = band.index_of(start)
+    # never before the band envelope's own maximum after the onset
+    i_on = band.index_of(onset_s)
+    i_pk = i_on + int(np.argmax(env[i_on: max(i0 + 1, i_on + 1)]))
+    i0 = max(i0, i_pk)
+    i_last = band.index_of(seg_end / fs - settle)
+    if band.noise_rms is None:
+        raise FitError("band noise level unknown")
+    thr = band.noise_rms * 10 ** (min_snr_db / 20.0)
+    k = max(1, int(round(band.sample_rate / band.width_hz)))
+    smooth = np.convolve(env, np.ones(k) / k, mode="same")
+    below = np.flatnonzero(smooth[i0: i_last + 1] < thr)
+    i1 = i0 + int(below[0]) - 1 if below.size else i_last
+    if i1 - i0 < 5:
+        snr = 20 * math.log10(max(env[i0], 1e-300) / band.noise_rms)
+        raise FitError(
+            f"the mode is {snr:.1f} dB above its band noise after the filter settles; "
+            f"a fit needs {min_snr_db:g} dB over several samples"
+        )
+    return Window(start_s=float(band.t_s[i0]), end_s=float(band.t_s[i1]), onset_s=onset_s)
+
+
+def _extract(spec: Spectrum, lo: float, hi: float, noise_f, noise_p) -> Band:
+    skirt = 0.25 * (hi - lo)
+    band = extract_band(spec, lo + skirt, hi - skirt, skirt_hz=skirt, real=True)
+    return band.with_noise(_band_noise_rms(band, noise_f, noise_p))
+
+
+def _measure_group(spec, peaks_g: list[Peak], lo, hi, onset_s, clip_end, seg_end, fs, noise_f, noise_p, opts, hit_warnings) -> list[Mode]:
+    primary = opts.primary
+    group_band = _extract(spec, lo, hi, noise_f, noise_p)
+    group_window = _window_for(group_band, onset_s, clip_end, seg_end, fs, opts.min_snr_db)
+    # single-mode sub-bands: one per peak, split at the midpoints
+    if len(peaks_g) > 1:
+        edges = [lo] + [0.5 * (a.f_hz + b.f_hz) for a, b in zip(peaks_g, peaks_g[1:])] + [hi]
+        subs = []
+        for a, b in zip(edges, edges[1:]):
+            sb = _extract(spec, a, b, noise_f, noise_p)
+            try:
+                subs.append((sb, _window_for(sb, onset_s, clip_end, seg_end, fs, opts.min_snr_db)))
+            except FitError:
+                continue
+    else:
+        subs = [(group_band, group_window)]
+    cross: list[tuple[float, dict[str, Estimate]]] = []
+    for sb, sw in subs:
+        found: dict[str, Estimate] = {}
+        for name, fn in ESTIMATORS.items():
+            if name in _MULTI_MODE and len(peaks_g) > 1:
+                continue
+            try:
+                ests = fn(sb, sw)
+            except FitError:
+                continue
+            if ests:
+                centre = 0.5 * (sb.f_lo_hz + sb.f_hi_hz)
+                found[name] = min(ests, key=lambda e: abs(e.f_d_hz - centre))
+        cross.append((0.5 * (sb.f_lo_hz + sb.f_hi_hz), found, sb, sw))
+    extra: list[Notice] = []
+    if primary in _MULTI_MODE:
+        primaries = [(e, group_band, group_window) for e in ESTIMATORS[primary](group_band, group_window)]
+    else:
+        primaries = [(c[1][primary], c[2], c[3]) for c in cross if primary in c[1]]
+        if len(peaks_g) > 1:
+            extra.append(Notice("close_modes", f"modes at {', '.join(f'{p.f_hz:.1f}' for p in peaks_g)} Hz are too close "
+                                               "for band filters to separate; estimates may be biased (method 'auto' fits them jointly)"))
+    modes = []
+    for est, band, window in primaries:
+        if not cross:
+            others = {}
+        else:
+            _, found, sb, sw = min(cross, key=lambda c: abs(c[0] - est.f_d_hz))
+            others = {k: v for k, v in found.items() if k != est.method}
+        modes.append(_make_mode(est, others, band, window, extra))
+    return modes
+
+
+def _make_mode(est: Estimate, others: dict[str, Estimate], band: Band, window: Window, extra: list[Notice]) -> Mode:
+    warnings = list(est.warnings) + list(extra)
+    derived = derive(est.f_d_hz, est.beta_per_s, f_d_hz_u=est.f_d_hz_u, beta_per_s_u=est.beta_per_s_u,
+                     cov_f_beta=est.cov_f_beta)
+    start = est.fit_start_s if est.fit_start_s is not None else window.start_s
+    end = est.fit_end_s if est.fit_end_s is not None else window.end_s
+    amp = est.amplitude
+    snr = None
+    if amp is not None and band.noise_rms:
+        snr = 20 * math.log10(max(amp, 1e-300) / band.noise_rms)
+    cycles = est.f_d_hz * (end - start)
+    decay_db = DB_PER_NEPER * est.beta_per_s * (end - start)
+    if cycles < 10:
+        warnings.append(Notice("few_cycles", f"fit spans {cycles:.1f} cycles; 10 or more are advised"))
+    if decay_db < 20:
+        warnings.append(Notice("short_decay", f"fit spans {decay_db:.1f} dB of decay; 20 dB or more are advised"))
+    # the zero-phase band filter biases decay unless its bandwidth exceeds ~1.8x beta/pi
+    # (Jacobsen & Rindel 1987, FIELD notes)
+    if band.width_hz < 1.8 * est.beta_per_s / math.pi:
+        warnings.append(Notice("filter_bias", f"band {band.width_hz:.3g} Hz is narrower than 1.8x the mode's half-power "
+                                              f"bandwidth {est.beta_per_s / math.pi:.3g} Hz; the decay rate may be biased"))
+    warnings.extend(_disagreements(est, others))
+    env_est = others.get("envelope") if est.method != "envelope" else est
+    trace = _trace(est, band, window, env_est)
+    return Mode(
+        index=0,
+        derived=derived,
+        amplitude=amp,
+        snr_db=snr,
+        method=est.method,
+        fit_start_s=start,
+        fit_end_s=end,
+        cycles_fitted=float(cycles),
+        n_hits=1,
+        band_hz=(band.f_lo_hz - band.skirt_hz, band.f_hi_hz + band.skirt_hz),
+        warnings=tuple(_unique(warnings)),
+        cross_checks=dict(others),
+        trace=trace,
+    )
+
+
+def _disagreements(est: Estimate, others: dict[str, Estimate]) -> list[Notice]:
+    """Cross-checks that differ from the chosen estimate by more than 3 combined standard
+    uncertainties (coverage factor 3: common practice, no source)."""
+    out = []
+    for name, o in others.items():
+        if any(w.code == "insufficient_resolution" for w in o.warnings):
+            continue
+        for q, unit in (("beta_per_s", "1/s"), ("f_d_hz", "Hz")):
+            a, b = getattr(est, q), getattr(o, q)
+            ua, ub = getattr(est, q + "_u"), getattr(o, q + "_u")
+            if ua is None or ub is None:
+                continue
+            uc = math.hypot(ua, ub)
+            if uc > 0 and abs(a - b) > 3 * uc:
+                out.append(Notice("methods_disagree", f"{name} gives {q} = {b:.6g} {unit}, {est.method} {a:.6g} {unit} "
+                                                      f"(difference {abs(a - b) / uc:.1f} combined standard uncertainties)"))
+    return out
+
+
+def _trace(est: Estimate, band: Band, window: Window, env_est: Estimate | None) -> ModeTrace:
+    if est.trace is not None:
+        base = est.trace
+    else:
+        amp = est.amplitude if est.amplitude is not None else float(np.abs(band.z[band.index_of(window.start_s)]))
+        base = ModeTrace(t_s=band.t_s, envelope=np.abs(band.z), fit_start_s=window.start_s, fit_end_s=window.end_s,
+                         noise_floor=float(band.noise_rms or 0.0), fit_amplitude=float(amp),
+                         fit_beta_per_s=float(est.beta_per_s), fit_t0_s=float(est.fit_start_s or window.start_s))
+    try:
+        pt, pv = band_peaks(band, window)
+    except FitError:
+        pt, pv = None, None
+    return ModeTrace(base.t_s, base.envelope, base.fit_start_s, base.fit_end_s, base.noise_floor, base.fit_amplitude,
+                     base.fit_beta_per_s, base.fit_t0_s, pt, pv)
+
+
+# ----------------------------------------------------------------------------------------------
+# combining hits
+
+
+def _combine_hits(hits: Sequence[Hit]) -> list[Mode]:
+    """Match modes across hits by frequency and combine them.
+
+    Modes of different hits are the same mode when their frequencies differ by less than
+    ``max(0.5 %, 3 beta / pi)`` (common practice, no source). The combined frequency and decay
+    rate are inverse-variance weighted means; their uncertainty is the internal one scaled by
+    the Birge ratio ``sqrt(chi2 / (n - 1))`` when that exceeds 1, which folds the between-hit
+    scatter in (R. T. Birge, Phys. Rev. 40, 207, 1932).
+    """
+    ref = max(hits, key=lambda h: h.peak_value)
+    clusters: list[list[Mode]] = [[m] for m in ref.modes]
+    for h in hits:
+        if h is ref:
+            continue
+        for m in h.modes:
+            best, best_d = None, None
+            for c in clusters:
+                f0 = c[0].f_d_hz
+                tol = max(0.005 * f0, 3 * c[0].beta_per_s / math.pi)
+                d = abs(m.f_d_hz - f0)
+                if d <= tol and (best_d is None or d < best_d) and all(x is not m for x in c):
+                    best, best_d = c, d
+            if best is None:
+                clusters.append([m])
+            else:
+                best.append(m)
+    out = [_combine_modes(c) for c in clusters]
+    out.sort(key=lambda m: m.f_d_hz)
+    return [m.with_updates(index=i + 1) for i, m in enumerate(out)]
+
+
+def _weighted(values: np.ndarray, us: np.ndarray) -> tuple[float, float]:
+    if np.any(~np.isfinite(us)) or np.any(us <= 0):
+        mean = float(np.mean(values))
+        u = float(np.std(values, ddof=1) / math.sqrt(len(values))) if len(values) > 1 else float("nan")
+        return mean, u
+    w = 1.0 / us**2
+    mean = float(np.sum(w * values) / np.sum(w))
+    u_int = float(1.0 / math.sqrt(np.sum(w)))
+    n = len(values)
+    if n > 1:
+        chi2 = float(np.sum(w * (values - mean) ** 2))
+        birge = math.sqrt(chi2 / (n - 1))
+        u_int *= max(1.0, birge)
+    return mean, u_int
+
+
+def _combine_modes(ms: list[Mode]) -> Mode:
+    if len(ms) == 1:
+        return ms[0]
+    f = np.array([m.f_d_hz for m in ms])
+    b = np.array([m.beta_per_s for m in ms])
+    uf = np.array([m.f_d_hz_u if m.f_d_hz_u is not None else np.nan for m in ms])
+    ub = np.array([m.beta_per_s_u if m.beta_per_s_u is not None else np.nan for m in ms])
+    f_m, f_u = _weighted(f, uf)
+    b_m, b_u = _weighted(b, ub)
+    strongest = max(ms, key=lambda m: m.amplitude or 0.0)
+    derived = derive(f_m, b_m, f_d_hz_u=None if not math.isfinite(f_u) else f_u,
+                     beta_per_s_u=None if not math.isfinite(b_u) else b_u)
+    warnings = _unique([w for m in ms for w in m.warnings])
+    return strongest.with_updates(derived=derived, n_hits=len(ms), warnings=tuple(warnings))

@@ -1,0 +1,71 @@
+"""Helpers shared by every command: error reporting, JSON output, path expansion."""
+
+from __future__ import annotations
+
+import glob
+import json
+import os
+import sys
+from pathlib import Path
+from typing import Any, Callable, Iterable, TypeVar
+
+import typer
+
+from ..errors import RingdownError
+
+T = TypeVar("T")
+
+#: Exit status when every input was handled.
+EXIT_OK = 0
+#: Exit status when any part failed its limits (``check``).
+EXIT_FAIL = 1
+#: Exit status when any input could not be handled (errors win over failures).
+EXIT_ERROR = 2
+
+DEBUG_OPTION = typer.Option(False, "--debug", help="Show the full traceback of an error.")
+
+_AUDIO_AND_TEXT = (".wav", ".flac", ".ogg", ".oga", ".aiff", ".aif", ".au", ".caf", ".w64", ".rf64",
+                   ".csv", ".txt", ".tsv", ".dat")
+
+
+def error_line(message: str) -> None:
+    """Print one error line on stderr (never a traceback)."""
+    typer.echo(f"ringdown: error: {message}", err=True)
+
+
+def guarded(fn: Callable[[], T], *, debug: bool) -> T:
+    """Run ``fn``; a ``RingdownError`` becomes one stderr line and exit status 2."""
+    try:
+        return fn()
+    except RingdownError as exc:
+        if debug:
+            raise
+        error_line(str(exc))
+        raise typer.Exit(EXIT_ERROR) from None
+
+
+def print_json(document: Any) -> None:
+    """Write a JSON document to stdout (NaN is never produced: missing values are null)."""
+    sys.stdout.write(json.dumps(document, indent=2, allow_nan=False) + "\n")
+
+
+def expand_inputs(items: Iterable[str]) -> list[str]:
+    """Expand folders (their recordings, sorted) and glob patterns; keep other names as given.
+
+    A name that matches nothing is kept, so that the analysis reports it as a missing file.
+    """
+    out: list[str] = []
+    for item in items:
+        p = Path(item)
+        if p.is_dir():
+            out.extend(sorted(str(q) for q in p.iterdir() if q.is_file() and q.suffix.lower() in _AUDIO_AND_TEXT))
+        elif any(ch in item for ch in "*?[") and not p.exists():
+            matches = sorted(glob.glob(item, recursive=True))
+            out.extend(matches if matches else [item])
+        else:
+            out.append(item)
+    return out
+
+
+def default_jobs() -> int:
+    return max(os.cpu_count() or 1, 1)

@@ -1,0 +1,263 @@
+"""Conditioning: offset and drift, the broadband envelope, the noise floor, hits and clipping.
+
+Everything here works on one channel of samples (``(n_samples,) ndarray of float``) and returns
+indices or levels; nothing reads files or plots.
+
+Hit detection follows common tap-test practice (no single published source): a hit is a sharp
+rise of the smoothed broadband envelope, ``rise_db`` within a few milliseconds, to at least
+``min_hit_snr_db`` above the noise floor; a second sharp rise shortly after a hit, before its
+decay has set in, is a hammer bounce (double hit).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import signal
+
+__all__ = [
+    "HitSpan",
+    "remove_drift",
+    "envelope_db",
+    "envelope_smoothing",
+    "noise_floor_db",
+    "find_hits",
+    "find_clipping",
+    "noise_psd",
+]
+
+_EPS = 1e-300
+
+
+@dataclass(frozen=True, slots=True)
+class HitSpan:
+    """Sample indices of one hit: onset, envelope peak, end of its decay (exclusive).
+
+    ``bounce`` is the index of a second onset within the hit's first milliseconds (a hammer
+    bounce), or ``None``. ``clip_end`` is the index just after the last clipped sample of the
+    hit, or ``None`` when the hit is not clipped.
+    """
+
+    onset: int
+    peak: int
+    end: int
+    bounce: int | None = None
+    clip_end: int | None = None
+
+
+def remove_drift(x: np.ndarray, sample_rate: float) -> np.ndarray:
+    """Remove offset and slow drift by subtracting a least-squares straight line.
+
+    A straight line (``scipy.signal.detrend``) over the whole record removes DC and linear
+    drift while leaving any oscillation with more than a few cycles in the record essentially
+    untouched (its projection on a line falls as 1/cycles), so low modes are not biased.
+    The band extraction then rejects what is left near 0 Hz.
+
+    Parameters
+    ----------
+    x : (n_samples,) ndarray of float
+    sample_rate : float, Hz (unused; kept so every conditioning step has one signature)
+    """
+    return signal.detrend(np.asarray(x, dtype=np.float64), type="linear")
+
+
+def _smoothing_samples(sample_rate: float, f_dom_hz: float | None = None) -> int:
+    # about 1 ms, at least one period of the dominant frequency and 3 samples
+    # (common practice, no source)
+    t = 1e-3 if not f_dom_hz else max(1e-3, 1.0 / f_dom_hz)
+    return max(3, int(round(t * sample_rate)))
+
+
+def envelope_smoothing(x: np.ndarray, sample_rate: float) -> int:
+    """Width in samples of the moving average :func:`envelope_db` uses for ``x``."""
+    return _smoothing_samples(sample_rate, dominant_frequency(x, sample_rate))
+
+
+def dominant_frequency(x: np.ndarray, sample_rate: float) -> float | None:
+    """Frequency of the largest spectral magnitude away from DC, Hz (None for silence)."""
+    n = x.shape[0]
+    spec = np.abs(np.fft.rfft(x))
+    k0 = min(3, spec.shape[0] - 1)
+    if spec.shape[0] <= k0 + 1 or not np.any(spec[k0:] > 0):
+        return None
+    k = k0 + int(np.argmax(spec[k0:]))
+    return k * sample_rate / n
+
+
+def envelope_db(x: np.ndarray, sample_rate: float) -> np.ndarray:
+    """Smoothed broadband power in dB (re 1 unit^2), free of pre-ringing.
+
+    ``x^2`` averaged over a centred window of about 1 ms, or one period of the record's
+    dominant frequency when that is longer, so that the level does not swing with the
+    oscillation itself. A centred moving average spreads an onset by half its width and no
+    further (an FFT Hilbert envelope would ring well before the onset).
+
+    Returns
+    -------
+    (n_samples,) ndarray of float, dB
+    """
+    w = envelope_smoothing(x, sample_rate)
+    c = np.concatenate(([0.0], np.cumsum(x * x)))
+    n = x.shape[0]
+    lo = np.clip(np.arange(n) - w // 2, 0, n)
+    hi = np.clip(np.arange(n) - w // 2 + w, 0, n)
+    p = (c[hi] - c[lo]) / np.maximum(hi - lo, 1)
+    return 10.0 * np.log10(p + _EPS)
+
+
+def noise_floor_db(level_db: np.ndarray) -> float:
+    """Broadband noise floor: the 5th percentile of the envelope level, dB.
+
+    Robust when at least a few percent of the record is noise only (pre-trigger or the tail
+    after the decay); otherwise it is the quietest part of the decay, an upper bound.
+    """
+    return float(np.percentile(level_db, 5.0))
+
+
+def find_hits(
+    level_db: np.ndarray,
+    sample_rate: float,
+    *,
+    noise_db: float,
+    min_hit_snr_db: float = 20.0,
+    rise_db: float = 12.0,
+    rise_time_s: float = 3e-3,
+    hold_off_s: float = 0.05,
+    bounce_window_s: float = 0.03,
+    bounce_rise_db: float = 10.0,
+    smoothing: int = 3,
+) -> list[HitSpan]:
+    """Find every hit in a recording from its envelope level.
+
+    A hit starts where the level rises at least ``rise_db`` within ``rise_time_s``, ends up
+    at least ``min_hit_snr_db`` above the noise, and exceeds everything in the preceding
+    ``hold_off_s`` by 3 dB (so that beating of modes in a decay is not taken for a new hit).
+    Hits closer than ``hold_off_s`` are one hit. Within ``bounce_window_s`` after the first
+    maximum, a rise of ``bounce_rise_db`` above the lowest level since, back to within 10 dB of
+    that maximum, marks a bounce (a second contact of the hammer). Defaults are
+    common practice for hand-held hammer taps, no source.
+
+    Parameters
+    ----------
+    level_db : (n_samples,) ndarray of float
+        From :func:`envelope_db`.
+    sample_rate : float, Hz
+    noise_db : float
+        From :func:`noise_floor_db`.
+    smoothing : int
+        Width in samples of the smoothing that made ``level_db`` (see :func:`envelope_smoothing`).
+
+    Returns
+    -------
+    list of HitSpan, in time order; empty when nothing rises above the noise.
+    """
+    n = level_db.shape[0]
+    w = max(2, int(round(rise_time_s * sample_rate)))
+    hold = max(w + 1, int(round(hold_off_s * sample_rate)))
+    # minimum of the level over the preceding w samples (sliding window minimum)
+    from scipy.ndimage import maximum_filter1d, minimum_filter1d
+
+    prev_min = np.empty(n)
+    prev_min[:] = np.inf
+    m = minimum_filter1d(level_db, size=w, origin=(w - 1) // 2)  # min over [k - w + 1, k]
+    prev_min[1:] = m[:-1]
+    prev_max = np.full(n, -np.inf)
+    span = hold - w
+    if span > 0:
+        mx = maximum_filter1d(level_db, size=span, origin=(span - 1) // 2)  # max over [k - span + 1, k]
+        prev_max[w:] = mx[: n - w]
+    threshold = noise_db + min_hit_snr_db
+    cand = (level_db - prev_min >= rise_db) & (level_db >= threshold) & (level_db >= prev_max + 3.0)
+    # The first rise from a quiet start has nothing before it; take the first crossing too.
+    idx = np.flatnonzero(cand)
+    onsets: list[int] = []
+    for k in idx:
+        if onsets and k - onsets[-1] < hold:
+            continue
+        onsets.append(int(k))
+    if not onsets:
+        above = np.flatnonzero(level_db >= threshold)
+        if above.size == 0:
+            return []
+        onsets = [int(above[0])]
+    # The centred smoothing spreads a step over its width: the rise begins half a width earlier.
+    half = smoothing // 2
+    spans: list[HitSpan] = []
+    for j, k in enumerate(onsets):
+        onset = max(0, k - half)
+        end = onsets[j + 1] - max(1, int(round(0.002 * sample_rate))) if j + 1 < len(onsets) else n
+        stop = min(end, onset + hold + int(round(bounce_window_s * sample_rate)))
+        peak = onset + int(np.argmax(level_db[onset:stop]))
+        bounce = _find_bounce(level_db, k, sample_rate, bounce_window_s, bounce_rise_db, end)
+        spans.append(HitSpan(onset=onset, peak=peak, end=end, bounce=bounce))
+    return spans
+
+
+def _find_bounce(level_db, onset, sample_rate, window_s, rise_db, end) -> int | None:
+    """Index of a second sharp onset shortly after ``onset``, or None.
+
+    After the first local maximum of the level that follows the onset, a bounce is a rise of
+    ``rise_db`` above the lowest level reached since that maximum.
+    """
+    b = min(end, onset + int(round(window_s * sample_rate)))
+    d = max(2, int(round(2e-3 * sample_rate)))
+    if onset + d >= b:
+        return None
+    k = onset + int(np.argmax(level_db[onset : onset + d]))
+    seg = level_db[k:b]
+    running_min = np.minimum.accumulate(seg)
+    hits = np.flatnonzero((seg - running_min >= rise_db) & (seg >= level_db[k] - 10.0))
+    return int(k + hits[0]) if hits.size else None
+
+
+def find_clipping(x: np.ndarray, *, full_scale: float | None, min_run: int = 3) -> np.ndarray:
+    """Indices of samples that sit on a clipping level, in runs of at least ``min_run``.
+
+    With a known ``full_scale`` (integer audio) a sample within 0.1 % of it counts; otherwise
+    (float audio, text) samples equal to the record's extreme value within 1e-9 relative
+    count, which catches the flat tops that an overloaded analogue stage leaves. Three
+    samples in a row is common practice, no source.
+
+    Returns
+    -------
+    (m,) ndarray of int, sorted; empty when nothing is clipped.
+    """
+    ax = np.abs(x)
+    peak = float(ax.max()) if ax.size else 0.0
+    if peak <= 0:
+        return np.empty(0, dtype=int)
+    if full_scale is not None:
+        level = 0.999 * min(full_scale, peak) if peak >= 0.999 * full_scale else np.inf
+        on = ax >= level
+    else:
+        on = ax >= peak * (1.0 - 1e-9)
+    if not on.any():
+        return np.empty(0, dtype=int)
+    # keep runs of length >= min_run
+    d = np.diff(np.concatenate(([0], on.astype(np.int8), [0])))
+    starts = np.flatnonzero(d == 1)
+    ends = np.flatnonzero(d == -1)
+    keep = (ends - starts) >= min_run
+    if not keep.any():
+        return np.empty(0, dtype=int)
+    return np.concatenate([np.arange(s, e) for s, e in zip(starts[keep], ends[keep])])
+
+
+def noise_psd(x_noise: np.ndarray, sample_rate: float) -> tuple[np.ndarray, np.ndarray]:
+    """One-sided noise power spectral density of a noise-only segment (Welch 1967).
+
+    Parameters
+    ----------
+    x_noise : (m,) ndarray of float, m >= 16
+    sample_rate : float, Hz
+
+    Returns
+    -------
+    f_hz : (k,) ndarray of float
+    psd : (k,) ndarray of float, units^2/Hz
+    """
+    nper = int(min(x_noise.shape[0], max(256, 2 ** int(math.floor(math.log2(max(x_noise.shape[0] // 4, 16)))))))
+    f, p = signal.welch(x_noise, fs=sample_rate, nperseg=nper, detrend="constant")
+    return f, p
