@@ -451,12 +451,79 @@ def _measure_group(spec, peaks_g: list[Peak], lo, hi, onset_s, clip_end, seg_end
     modes = []
     for est, band, window in primaries:
         if not cross:
-            others = {}
+            others, sb, sw = {}, band, window
         else:
             _, found, sb, sw = min(cross, key=lambda c: abs(c[0] - est.f_d_hz))
             others = {k: v for k, v in found.items() if k != est.method}
-        modes.append(_make_mode(est, others, band, window, extra))
+        if _is_stationary(est, sb, sw, seg_end / fs):
+            hit_warnings.append(Notice("stationary_tone", f"steady tone at {est.f_d_hz:.1f} Hz does not decay (mains hum or "
+                                                          "another running source?); not reported as a mode"))
+            continue
+        mode = _make_mode(est, others, band, window, extra)
+        if len(peaks_g) <= 1:
+            mode = _amplitude_dependence(mode, sb, sw)
+        modes.append(mode)
     return modes
+
+
+def _is_stationary(est: Estimate, band: Band, window: Window, seg_end_s: float) -> bool:
+    """A tone that keeps its level: less than 6 dB of decay over the whole hit segment, or a
+    tail level within 6 dB of the level at the window start (common practice, no source)."""
+    span = max(seg_end_s - window.onset_s, 1e-12)
+    if DB_PER_NEPER * est.beta_per_s * span < 6.0:
+        return True
+    env = np.abs(band.z)
+    i0 = band.index_of(window.start_s)
+    n = env.shape[0]
+    tail = env[max(i0 + 1, n - max(n // 5, 1)):]
+    return bool(tail.size and np.median(tail) > env[i0] * 10 ** (-6 / 20))
+
+
+#: Local decay rates in the two halves of the fit window that differ by more than this ratio ...
+AMPLITUDE_RATIO_LIMIT = 1.25
+#: ... and by more than this many combined standard uncertainties mark a non-exponential decay.
+AMPLITUDE_Z_LIMIT = 5.0
+
+
+def _amplitude_dependence(mode: Mode, band: Band, window: Window) -> Mode:
+    """Test the decay for amplitude-dependent damping and, if found, tabulate it.
+
+    Statistic: the local decay rates ``beta_1``, ``beta_2`` fitted (weighted log-linear, as the
+    envelope estimator) to the first and second half of the fit window. The decay is called
+    non-exponential when ``max(beta_2/beta_1, beta_1/beta_2) > 1.25`` and
+    ``|beta_2 - beta_1| > 5 sqrt(u_1^2 + u_2^2)`` (thresholds: common practice, no source).
+    Viscous damping gives equal rates; dry friction raises the rate as the amplitude falls
+    (Feldman 2011, ch. 4: instantaneous damping against amplitude). The table has eight
+    sliding windows across the fit window, half overlapping.
+    """
+    from .estimators import envelope
+
+    mid = 0.5 * (window.start_s + window.end_s)
+    try:
+        a = envelope.estimate(band, Window(window.start_s, mid, window.onset_s))[0]
+        b = envelope.estimate(band, Window(mid, window.end_s, window.onset_s))[0]
+    except FitError:
+        return mode
+    ratio = b.beta_per_s / a.beta_per_s
+    uc = math.hypot(a.beta_per_s_u or 0.0, b.beta_per_s_u or 0.0)
+    if not (max(ratio, 1 / ratio) > AMPLITUDE_RATIO_LIMIT and uc > 0 and abs(b.beta_per_s - a.beta_per_s) > AMPLITUDE_Z_LIMIT * uc):
+        return mode
+    rows = []
+    n_win = 8
+    length = (window.end_s - window.start_s) * 2 / (n_win + 1)
+    for i in range(n_win):
+        s0 = window.start_s + i * length / 2
+        try:
+            e = envelope.estimate(band, Window(s0, s0 + length, window.onset_s))[0]
+        except FitError:
+            continue
+        seg = np.abs(band.z[Window(s0, s0 + length, window.onset_s).indices(band)])
+        rows.append({"amplitude": float(np.mean(seg)), "f_d_hz": e.f_d_hz, "beta_per_s": e.beta_per_s,
+                     "beta_per_s_u": e.beta_per_s_u})
+    note = Notice("amplitude_dependent", f"decay is not exponential: local decay rate {a.beta_per_s:.4g} 1/s in the first "
+                                          f"half of the fit, {b.beta_per_s:.4g} 1/s in the second (ratio {ratio:.2f}); "
+                                          "damping depends on amplitude (friction?), see damping_vs_amplitude")
+    return mode.with_updates(warnings=mode.warnings + (note,), damping_vs_amplitude=tuple(rows))
 
 
 def _make_mode(est: Estimate, others: dict[str, Estimate], band: Band, window: Window, extra: list[Notice]) -> Mode:
