@@ -5,7 +5,7 @@
 
 from __future__ import annotations
 
-from . import decrement, envelope, half_power
+from . import decrement, envelope, half_power, pencil
 from .base import EstimatorFn, Window
 
 __all__ = ["ESTIMATORS", "EstimatorFn", "Window", "method_names"]
@@ -14,6 +14,7 @@ ESTIMATORS: dict[str, EstimatorFn] = {
     "envelope": envelope.estimate,
     "decrement": decrement.estimate,
     "half_power": half_power.estimate,
+    "pencil": pencil.estimate,
 }
 
 
