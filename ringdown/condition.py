@@ -47,20 +47,32 @@ class HitSpan:
     clip_end: int | None = None
 
 
-def remove_drift(x: np.ndarray, sample_rate: float) -> np.ndarray:
-    """Remove offset and slow drift by subtracting a least-squares straight line.
+#: Degree of the Legendre polynomial removed as offset and drift.
+DRIFT_DEGREE = 5
 
-    A straight line (``scipy.signal.detrend``) over the whole record removes DC and linear
-    drift while leaving any oscillation with more than a few cycles in the record essentially
-    untouched (its projection on a line falls as 1/cycles), so low modes are not biased.
-    The band extraction then rejects what is left near 0 Hz.
+
+def remove_drift(x: np.ndarray, sample_rate: float) -> np.ndarray:
+    """Remove offset and slow drift by subtracting a least-squares polynomial of degree 5.
+
+    A Legendre series of degree ``DRIFT_DEGREE`` over the whole record
+    (``numpy.polynomial.legendre.legfit``) follows offset, linear and slow curved drift (less
+    than about one cycle over the record) but cannot follow an oscillation with more than a
+    few cycles in the record: its projection on the polynomial falls off quickly with the
+    number of cycles, so low modes are not biased. The band extraction rejects what is left
+    near 0 Hz.
 
     Parameters
     ----------
     x : (n_samples,) ndarray of float
     sample_rate : float, Hz (unused; kept so every conditioning step has one signature)
     """
-    return signal.detrend(np.asarray(x, dtype=np.float64), type="linear")
+    x = np.asarray(x, dtype=np.float64)
+    n = x.shape[0]
+    if n < 4 * (DRIFT_DEGREE + 1):
+        return x - x.mean()
+    u = np.linspace(-1.0, 1.0, n)
+    coef = np.polynomial.legendre.legfit(u, x, DRIFT_DEGREE)
+    return x - np.polynomial.legendre.legval(u, coef)
 
 
 def _smoothing_samples(sample_rate: float, f_dom_hz: float | None = None) -> int:
@@ -86,7 +98,7 @@ def dominant_frequency(x: np.ndarray, sample_rate: float) -> float | None:
     return k * sample_rate / n
 
 
-def envelope_db(x: np.ndarray, sample_rate: float) -> np.ndarray:
+def envelope_db(x: np.ndarray, sample_rate: float, *, window_s: float | None = None) -> np.ndarray:
     """Smoothed broadband power in dB (re 1 unit^2), free of pre-ringing.
 
     ``x^2`` averaged over a centred window of about 1 ms, or one period of the record's
@@ -99,6 +111,8 @@ def envelope_db(x: np.ndarray, sample_rate: float) -> np.ndarray:
     (n_samples,) ndarray of float, dB
     """
     w = envelope_smoothing(x, sample_rate)
+    if window_s is not None:
+        w = max(w, int(round(window_s * sample_rate)))
     c = np.concatenate(([0.0], np.cumsum(x * x)))
     n = x.shape[0]
     lo = np.clip(np.arange(n) - w // 2, 0, n)
@@ -128,6 +142,7 @@ def find_hits(
     bounce_window_s: float = 0.03,
     bounce_rise_db: float = 10.0,
     smoothing: int = 3,
+    slow_level_db: np.ndarray | None = None,
 ) -> list[HitSpan]:
     """Find every hit in a recording from its envelope level.
 
@@ -135,8 +150,10 @@ def find_hits(
     at least ``min_hit_snr_db`` above the noise, and exceeds everything in the preceding
     ``hold_off_s`` by 3 dB (so that beating of modes in a decay is not taken for a new hit).
     Hits closer than ``hold_off_s`` are one hit. Within ``bounce_window_s`` after the first
-    maximum, a rise of ``bounce_rise_db`` above the lowest level since, back to within 10 dB of
-    that maximum, marks a bounce (a second contact of the hammer). Defaults are
+    maximum, a rise of ``bounce_rise_db`` within ``rise_time_s`` (as fast as an onset), back to
+    within 6 dB of that maximum, marks a bounce (a second contact of the hammer). Two modes of
+    similar amplitude some 100 Hz apart can beat deeply enough to look like one; a recording
+    whose only hits are flagged is still analysed, with the warning. Defaults are
     common practice for hand-held hammer taps, no source.
 
     Parameters
@@ -148,6 +165,10 @@ def find_hits(
         From :func:`noise_floor_db`.
     smoothing : int
         Width in samples of the smoothing that made ``level_db`` (see :func:`envelope_smoothing`).
+    slow_level_db : (n_samples,) ndarray or None
+        The level smoothed over about 3 ms. When given, a bounce must also raise it by 3 dB:
+        a second contact adds energy, while modes beating faster than the 3 ms window only
+        move the energy between them.
 
     Returns
     -------
@@ -165,7 +186,7 @@ def find_hits(
     prev_min[1:] = m[:-1]
     prev_max = np.full(n, -np.inf)
     span = hold - w
-    if span > 0:
+    if span > 0 and n > w:
         mx = maximum_filter1d(level_db, size=span, origin=(span - 1) // 2)  # max over [k - span + 1, k]
         prev_max[w:] = mx[: n - w]
     threshold = noise_db + min_hit_snr_db
@@ -190,26 +211,44 @@ def find_hits(
         end = onsets[j + 1] - max(1, int(round(0.002 * sample_rate))) if j + 1 < len(onsets) else n
         stop = min(end, onset + hold + int(round(bounce_window_s * sample_rate)))
         peak = onset + int(np.argmax(level_db[onset:stop]))
-        bounce = _find_bounce(level_db, k, sample_rate, bounce_window_s, bounce_rise_db, end)
+        bounce = _find_bounce(level_db, k, sample_rate, bounce_window_s, bounce_rise_db, end, smoothing + w)
+        if bounce is not None and slow_level_db is not None and not _energy_step(slow_level_db, k, bounce, sample_rate):
+            bounce = None
         spans.append(HitSpan(onset=onset, peak=peak, end=end, bounce=bounce))
     return spans
 
 
-def _find_bounce(level_db, onset, sample_rate, window_s, rise_db, end) -> int | None:
+def _find_bounce(level_db, onset, sample_rate, window_s, rise_db, end, settle=0) -> int | None:
     """Index of a second sharp onset shortly after ``onset``, or None.
 
     After the first local maximum of the level that follows the onset, a bounce is a rise of
     ``rise_db`` above the lowest level reached since that maximum.
     """
     b = min(end, onset + int(round(window_s * sample_rate)))
-    d = max(2, int(round(2e-3 * sample_rate)))
+    # the level reaches its first maximum within the smoothing width plus the rise window
+    d = max(2, int(round(2e-3 * sample_rate)), int(settle))
     if onset + d >= b:
         return None
     k = onset + int(np.argmax(level_db[onset : onset + d]))
+    r = max(2, int(round(3e-3 * sample_rate)))  # a bounce rises as fast as an onset
+    if b - k <= r:
+        return None
     seg = level_db[k:b]
-    running_min = np.minimum.accumulate(seg)
-    hits = np.flatnonzero((seg - running_min >= rise_db) & (seg >= level_db[k] - 10.0))
+    from scipy.ndimage import minimum_filter1d
+
+    prev_min = minimum_filter1d(seg, size=r, origin=(r - 1) // 2)  # min over [i - r + 1, i]
+    rise = np.full(seg.shape[0], -np.inf)
+    rise[r:] = seg[r:] - prev_min[r - 1 : -1]
+    hits = np.flatnonzero((rise >= rise_db) & (seg >= level_db[k] - 6.0))
     return int(k + hits[0]) if hits.size else None
+
+
+def _energy_step(slow_db: np.ndarray, onset: int, bounce: int, sample_rate: float) -> bool:
+    """Whether the slow level rises 3 dB around ``bounce`` above its lowest since ``onset``."""
+    a = onset + int(np.argmax(slow_db[onset:bounce + 1]))
+    lo = float(np.min(slow_db[a : bounce + 1]))
+    hi = float(np.max(slow_db[bounce : min(slow_db.shape[0], bounce + int(round(6e-3 * sample_rate)) + 1)]))
+    return hi - lo >= 3.0
 
 
 def find_clipping(x: np.ndarray, *, full_scale: float | None, min_run: int = 3) -> np.ndarray:

@@ -74,7 +74,10 @@ def find_peaks(
         f_min_hz = 3.0 * sample_rate / n
     width_bins = max(9, (f.shape[0] // 32) | 1)
     floor = ndimage.median_filter(p_db, size=width_bins, mode="nearest")
-    height = floor + min_prominence_db
+    # the running-median floor is a lower bound only for narrow peaks; a peak wider than the
+    # median window lifts its own floor, so it is held to half the prominence there and to
+    # scipy's topographic prominence in full
+    height = floor + 0.5 * min_prominence_db
     if noise_level_db is not None:
         height = np.maximum(height, noise_level_db + noise_margin_db)
     idx, props = signal.find_peaks(p_db, height=height, prominence=min_prominence_db)

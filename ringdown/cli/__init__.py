@@ -14,7 +14,7 @@ import typer
 
 __all__ = ["app", "main"]
 
-_COMMAND_MODULES = ("analyze",)
+_COMMAND_MODULES = ("analyze", "compare", "limits", "history")
 
 app = typer.Typer(
     name="ringdown",
@@ -25,15 +25,20 @@ app = typer.Typer(
 )
 
 
-@app.callback()
-def _root(
-    version: bool = typer.Option(False, "--version", help="Print the version and exit.", is_eager=True),
-) -> None:
-    if version:
+def _version_callback(value: bool) -> None:
+    if value:
         from .._version import __version__
 
         typer.echo(f"ringdown {__version__}")
         raise typer.Exit(0)
+
+
+@app.callback()
+def _root(
+    version: bool = typer.Option(False, "--version", help="Print the version and exit.", is_eager=True,
+                                 callback=_version_callback),
+) -> None:
+    """Measure the modes of ring-down recordings: frequency, decay rate, damping ratio, Q."""
 
 
 for _name in _COMMAND_MODULES:
