@@ -1,0 +1,219 @@
+"""``ringdown compare``: each mode's frequency and damping before and after a treatment.
+
+Inputs: ``--before`` and ``--after`` are repeatable, one value each
+(``--before b1.wav --before b2.wav --after a1.wav``); each value may also be a folder (its
+recordings, sorted) or a quoted glob pattern (``--before 'bare_*.wav'``). Several paths after a
+single ``--before`` are not accepted: click options take one value each, and an unquoted
+pattern that the shell expands would otherwise leave stray arguments whose side is unknown; such
+stray arguments are refused with a one-line hint.
+
+Exit status: 0 when done, 2 when any input file could not be analysed (the rest are still
+compared and reported) or when the comparison itself cannot be made.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+from pathlib import Path
+from typing import List, Optional
+
+import typer
+
+from ..errors import RingdownError
+from ._common import DEBUG_OPTION, EXIT_ERROR, EXIT_OK, error_line, expand_inputs, guarded, print_json
+
+__all__ = ["register", "format_table"]
+
+
+def _sig(v, digits: int = 4) -> str:
+    if v is None or (isinstance(v, float) and not math.isfinite(v)):
+        return "-"
+    return f"{v:.{digits}g}"
+
+
+def _pm(v, u, digits: int = 4) -> str:
+    """Value with its standard uncertainty, the value rounded to the uncertainty's 2nd digit."""
+    if v is None:
+        return "-"
+    if u is None or u <= 0 or not math.isfinite(u):
+        return _sig(v, digits)
+    decimals = max(0, 1 - int(math.floor(math.log10(u))))
+    if decimals > 8:
+        return f"{v:.{digits}g} ± {u:.2g}"
+    return f"{v:.{decimals}f} ± {u:.{decimals}f}"
+
+
+def format_table(comparison) -> str:
+    """The readable summary ``ringdown compare`` prints by default."""
+    s = comparison.settings
+    conf = 100.0 * s["confidence"]
+    lines = [
+        f"repeats: before {comparison.n_repeats_before}, after {comparison.n_repeats_after}; "
+        f"modes paired within ±{100 * s['tolerance']:g} %; damping tested on ln(zeta), "
+        f"{conf:g} % intervals",
+        "",
+    ]
+    head = ("mode", "f_d before Hz", "f_d after Hz", f"shift % [{conf:g} %]", "zeta before",
+            "zeta after", f"zeta after/before [{conf:g} %]", "test", "p", "verdict")
+    rows = []
+    for m in comparison.modes:
+        b, a, d, f = m.before, m.after, m.damping, m.frequency
+        f0 = b.values["f_d_hz"]
+        shift = f"{100 * f.relative:+.2f}"
+        if f.low_hz is not None:
+            shift += f" [{100 * f.low_hz / f0:+.2f}, {100 * f.high_hz / f0:+.2f}]"
+        ratio = f"x{d.ratio:.3g}"
+        if d.ratio_low is not None:
+            ratio += f" [{d.ratio_low:.3g}, {d.ratio_high:.3g}]"
+        rows.append((str(m.index), _pm(b.f_d_hz, b.f_d_hz_u), _pm(a.f_d_hz, a.f_d_hz_u), shift,
+                     _pm(b.zeta, b.zeta_u), _pm(a.zeta, a.zeta_u), ratio, d.test,
+                     _sig(d.p_value, 2), d.verdict))
+    widths = [max(len(r[k]) for r in [head, *rows]) for k in range(len(head))]
+    fmt = lambda r: "  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip()  # noqa: E731
+    lines.append(fmt(head))
+    lines.extend(fmt(r) for r in rows)
+    if not rows:
+        lines.append("(no mode found on both sides)")
+    for label, ms in (("before only", comparison.unmatched_before), ("after only", comparison.unmatched_after)):
+        for cm in ms:
+            lines.append(f"unmatched, {label}: {_pm(cm.f_d_hz, cm.f_d_hz_u)} Hz, "
+                         f"zeta {_pm(cm.zeta, cm.zeta_u)} ({cm.n_repeats} repeats)")
+    notes = [f"mode {m.index}: {w.code}: {w.message}" for m in comparison.modes for w in m.warnings]
+    notes += [f"{n.code}: {n.message}" for n in comparison.notices]
+    if notes:
+        lines.append("")
+        lines.append("notes:")
+        lines.extend(f"  {n}" for n in notes)
+    return "\n".join(lines)
+
+
+def _write_csv(comparison, out: Path) -> None:
+    from ..compare import comparison_rows
+
+    rows = comparison_rows(comparison)
+    if not rows:
+        return
+    try:
+        with open(out, "w", newline="", encoding="utf-8") as fh:
+            w = csv.DictWriter(fh, fieldnames=list(rows[0].keys()))
+            w.writeheader()
+            for r in rows:
+                w.writerow({k: "" if v is None else v for k, v in r.items()})
+    except OSError as exc:
+        raise _OutputError(
+            f"cannot write CSV file '{out}': {exc.strerror or exc}; check the folder and permissions"
+        ) from exc
+
+
+def _write_plot(comparison, out_dir: Path) -> Path:
+    from ..compare_plot import plot_comparison
+    from ..plots import figure_bytes
+
+    path = out_dir / "comparison.png"
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+        ax = plot_comparison(comparison)
+        path.write_bytes(figure_bytes(ax.figure, fmt="png"))
+    except OSError as exc:
+        raise _OutputError(
+            f"cannot write plot '{path}': {exc.strerror or exc}; check the folder and permissions"
+        ) from exc
+    return path
+
+
+def _report_html(comparison) -> str:
+    """The report: the shared report with a comparison section when available, else standalone."""
+    from ..compare_report import SECTION_TITLE, comparison_html, comparison_page
+
+    try:
+        from ..report import Section, render_report  # the shared report, when present
+    except ImportError:
+        return comparison_page(comparison)
+    analyses = [*comparison.before_analyses, *comparison.after_analyses]
+    s = comparison.settings
+    return render_report(
+        analyses,
+        title="Before/after comparison",
+        settings={"command": "compare", "tolerance": s["tolerance"], "confidence": s["confidence"],
+                  "damping_scale": s["damping_scale"]},
+        extra_sections=[Section(SECTION_TITLE, comparison_html(comparison), anchor="comparison")],
+        figures=False,  # per-recording figures: see 'ringdown analyze --report'; keeps this fast
+    )
+
+
+def _write_report(comparison, out: Path) -> None:
+    text = _report_html(comparison)
+    try:
+        out.write_text(text, encoding="utf-8")
+    except OSError as exc:
+        raise _OutputError(
+            f"cannot write report '{out}': {exc.strerror or exc}; check the folder and permissions"
+        ) from exc
+
+
+class _OutputError(RingdownError):
+    """An output file that cannot be written (CLI only)."""
+
+    code = "output"
+
+
+def register(app: typer.Typer) -> None:
+    """Add the ``compare`` command to ``app``."""
+
+    @app.command(
+        "compare",
+        context_settings={"allow_extra_args": True},
+        help=(
+            "Compare each mode's frequency and damping before and after a treatment. "
+            "Repeat --before/--after per file, or give a folder or a quoted pattern. "
+            "Every used hit is one repeat; damping is tested on ln(zeta) (Welch t with >= 2 "
+            "repeats a side). Exit 0 when done, 2 when an input could not be analysed."
+        ),
+    )
+    def compare_cmd(
+        ctx: typer.Context,
+        before: List[str] = typer.Option(
+            ..., "--before", "-b",
+            help="Recording(s) before the treatment (repeatable; file, folder or quoted pattern).",
+        ),
+        after: List[str] = typer.Option(
+            ..., "--after", "-a",
+            help="Recording(s) after the treatment (repeatable; file, folder or quoted pattern).",
+        ),
+        json_out: bool = typer.Option(False, "--json", help="Print the JSON document instead of the table."),
+        csv_out: Optional[Path] = typer.Option(None, "--csv", help="Also write one row per mode to this CSV file."),
+        plot_dir: Optional[Path] = typer.Option(None, "--plot", help="Also write comparison.png into this folder."),
+        report_out: Optional[Path] = typer.Option(None, "--report", help="Also write a self-contained HTML report."),
+        confidence: float = typer.Option(
+            0.95, "--confidence", help="Two-sided confidence level of intervals and verdicts."
+        ),
+        tolerance: float = typer.Option(
+            0.1, "--tolerance", help="Relative frequency tolerance for pairing modes (0.1 = 10 %)."
+        ),
+        debug: bool = DEBUG_OPTION,
+    ) -> None:
+        if ctx.args:
+            error_line(
+                f"unexpected argument '{ctx.args[0]}': give each file its own --before/--after, "
+                "a folder, or a quoted pattern (--before 'bare_*.wav')"
+            )
+            raise typer.Exit(EXIT_ERROR)
+        from ..compare import compare
+
+        b = expand_inputs(before)
+        a = expand_inputs(after)
+        comparison = guarded(lambda: compare(b, a, tolerance=tolerance, confidence=confidence), debug=debug)
+        if json_out:
+            print_json(comparison.to_dict())
+        else:
+            typer.echo(format_table(comparison))
+        if csv_out is not None:
+            guarded(lambda: _write_csv(comparison, csv_out), debug=debug)
+        if plot_dir is not None:
+            guarded(lambda: _write_plot(comparison, plot_dir), debug=debug)
+        if report_out is not None:
+            guarded(lambda: _write_report(comparison, report_out), debug=debug)
+        for i in comparison.failed_inputs:
+            error_line(f"{i.side}: {i.error.message}")
+        raise typer.Exit(EXIT_OK if comparison.ok else EXIT_ERROR)
