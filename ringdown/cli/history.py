@@ -1,0 +1,130 @@
+"""``ringdown history``: the stored results of checked (and analysed) parts, as a table, JSON, CSV or run chart."""
+
+from __future__ import annotations
+
+import csv
+from pathlib import Path
+from typing import Optional
+
+import typer
+
+from ._common import DEBUG_OPTION, EXIT_ERROR, error_line, guarded, print_json
+
+__all__ = ["register", "format_history"]
+
+
+def _f(v, fmt: str) -> str:
+    return "-" if v is None else format(v, fmt)
+
+
+def _n_modes(records) -> int:
+    seen = [m.get("ref_index") or (m.get("mode_index") if r.kind == "analysis" else 0) or 0
+            for r in records for m in r.modes]
+    return min(max(seen or [0]), 6)
+
+
+def format_history(records) -> str:
+    """A text table: one line per stored test."""
+    n = _n_modes(records)
+    head = ["id", "tested (UTC)", "part", "verdict", "station", "operator"] + [f"f{j} [Hz]" for j in range(1, n + 1)] \
+        + ["first reason"]
+    rows = []
+    for r in records:
+        fs = []
+        for j in range(1, n + 1):
+            m = r.mode_for(j)
+            fs.append(_f(None if m is None else m.get("f_d_hz"), ".1f"))
+        reason = r.reasons[0]["message"] if r.reasons else (r.error or "")
+        rows.append([str(r.id), r.tested_utc[:19].replace("T", " "), r.part_id, (r.verdict or r.kind).upper(),
+                     r.station or "-", r.operator or "-", *fs, reason])
+    widths = [max(len(h), *(len(x[i]) for x in rows)) if rows else len(h) for i, h in enumerate(head)]
+    lines = ["  ".join(h.ljust(w) for h, w in zip(head, widths)).rstrip()]
+    for x in rows:
+        lines.append("  ".join(v.ljust(w) for v, w in zip(x, widths)).rstrip())
+    return "\n".join(lines) + "\n"
+
+
+def _write_csv(records, path: str) -> None:
+    n = _n_modes(records)
+    head = ["id", "kind", "part_id", "path", "sha256", "tested_utc", "station", "operator", "tool_version",
+            "limits_sha256", "verdict", "mahalanobis", "uniform_shift", "reasons", "error"]
+    for j in range(1, n + 1):
+        head += [f"mode{j}_f_d_hz", f"mode{j}_f_d_hz_u", f"mode{j}_zeta", f"mode{j}_zeta_u", f"mode{j}_q"]
+    try:
+        with open(path, "w", newline="", encoding="utf-8") as fh:
+            w = csv.writer(fh)
+            w.writerow(head)
+            for r in records:
+                row = [r.id, r.kind, r.part_id, r.path, r.sha256, r.tested_utc, r.station, r.operator,
+                       r.tool_version, r.limits_sha256, r.verdict, r.mahalanobis, r.uniform_shift,
+                       "; ".join(x["message"] for x in r.reasons), r.error]
+                for j in range(1, n + 1):
+                    m = r.mode_for(j) or {}
+                    row += [m.get("f_d_hz"), m.get("f_d_hz_u"), m.get("zeta"), m.get("zeta_u"), m.get("q")]
+                w.writerow(["" if v is None else v for v in row])
+    except OSError as exc:
+        from ..errors import ParameterError
+
+        raise ParameterError(f"cannot write CSV '{path}': {exc.strerror or exc}; choose a writable path") from exc
+
+
+def register(app: typer.Typer) -> None:
+    @app.command("history")
+    def history(
+        db: Optional[str] = typer.Option(None, "--db", help="Results database (default $RINGDOWN_DB or ringdown.sqlite)."),
+        part: Optional[str] = typer.Option(None, "--part", help="Only this part id."),
+        since: Optional[str] = typer.Option(None, "--since", help="From this date or date-time (ISO, UTC)."),
+        until: Optional[str] = typer.Option(None, "--until", help="Up to this date (whole day) or date-time."),
+        verdict: Optional[str] = typer.Option(None, "--verdict", help="Only pass, fail or error."),
+        kind: Optional[str] = typer.Option(None, "--kind", help="Only 'check' or 'analysis' records."),
+        json_out: bool = typer.Option(False, "--json", help="Print the records as JSON."),
+        csv_out: Optional[str] = typer.Option(None, "--csv", help="Write the records to this CSV file."),
+        plot: Optional[str] = typer.Option(None, "--plot", help="Write a run chart (PNG, SVG or PDF)."),
+        limits_path: Optional[str] = typer.Option(None, "--limits", help="Draw these limits on the run chart "
+                                                  "(default: the limits each part was checked with)."),
+        debug: bool = DEBUG_OPTION,
+    ) -> None:
+        """Show stored results: a table, JSON, CSV, or a run chart of every mode in test order."""
+        from ..store import ResultStore
+        from .limits import resolve_db
+
+        path = resolve_db(db)
+        if json_out and csv_out:
+            error_line("--json and --csv are exclusive; choose one")
+            raise typer.Exit(EXIT_ERROR)
+        if not Path(path).exists():
+            error_line(f"no results database at '{path}'; run 'ringdown check' first or give --db")
+            raise typer.Exit(EXIT_ERROR)
+
+        def run():
+            with ResultStore(path) as store:
+                recs = store.query(part=part, since=since, until=until, verdict=verdict, kind=kind)
+                docs = store.limits_documents()
+            return recs, docs
+
+        records, docs = guarded(run, debug=debug)
+        if csv_out:
+            guarded(lambda: _write_csv(records, csv_out), debug=debug)
+        if plot:
+            def draw():
+                from ..history_plot import plot_run_chart
+
+                lim = None
+                if limits_path:
+                    from ..limits import read_limits
+
+                    lim = read_limits(limits_path)
+                fig = plot_run_chart(records, limits_by_sha=docs, limits=lim)
+                try:
+                    fig.savefig(plot, dpi=110)
+                except (OSError, ValueError) as exc:
+                    from ..errors import ParameterError
+
+                    raise ParameterError(f"cannot write the run chart to '{plot}': {exc}; choose a writable .png") from exc
+
+            guarded(draw, debug=debug)
+        if json_out:
+            print_json({"database": path, "records": [r.to_dict() for r in records]})
+        elif not csv_out:
+            typer.echo(format_history(records), nl=False)
+            typer.echo(f"{len(records)} record(s) in {path}")
