@@ -1,6 +1,7 @@
 """ringdown: measure the modes of ring-down recordings.
 
-The public API is re-exported here; everything else is internal.
+The public API is re-exported here; everything else is internal. Plotting functions import
+matplotlib only when they draw.
 """
 
 from ._version import __version__
@@ -15,24 +16,72 @@ from .errors import (
 )
 from .quantities import Derived, derive
 from .recording import Recording
-from .results import Analysis, Estimate, Hit, Mode, Notice, results_document
+from .results import Analysis, Estimate, Hit, Mode, ModeTrace, Notice, results_document
+from .io import read_recording
+from .crlb import CramerRao, crlb_damped_sinusoid
+from .analyze import AnalysisOptions, analyze, analyze_file, analyze_many, analyze_recording
+from .compare import Comparison, compare
+from .compare_plot import plot_comparison
+from .limits import Limits, learn_limits, read_limits, write_limits
+from .check import CheckResult, check
+from .store import ResultStore, store_analysis
+from .plots import (
+    plot_damping_vs_amplitude,
+    plot_decay,
+    plot_mode,
+    plot_overview,
+    plot_recording,
+    plot_spectrum,
+)
+from .history_plot import plot_run_chart
+from .report import Section, render_report, write_report
 
 __all__ = [
     "__version__",
     "Analysis",
+    "AnalysisOptions",
+    "CheckResult",
+    "Comparison",
+    "CramerRao",
     "Derived",
     "Estimate",
     "FitError",
     "Hit",
     "InputError",
+    "Limits",
     "LimitsError",
     "Mode",
+    "ModeTrace",
     "NoRingdownError",
     "Notice",
     "ParameterError",
     "Recording",
+    "ResultStore",
+    "Section",
     "RingdownError",
     "StoreError",
+    "analyze",
+    "analyze_file",
+    "analyze_many",
+    "analyze_recording",
+    "check",
+    "compare",
+    "crlb_damped_sinusoid",
     "derive",
+    "learn_limits",
+    "plot_comparison",
+    "plot_damping_vs_amplitude",
+    "plot_decay",
+    "plot_mode",
+    "plot_overview",
+    "plot_recording",
+    "plot_run_chart",
+    "plot_spectrum",
+    "read_limits",
+    "read_recording",
+    "render_report",
     "results_document",
+    "store_analysis",
+    "write_limits",
+    "write_report",
 ]
