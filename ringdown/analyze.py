@@ -373,12 +373,15 @@ def _analyze_hit(x, fs, span, j, spans, clipped, noise_f, noise_p, opts, noise_d
         peaks = find_peaks(decay, fs, max_peaks=opts.max_modes, noise_level_db=noise_level)
         groups = group_bands(peaks, sample_rate=fs, resolution_hz=fs / n)
     modes: list[Mode] = []
+    failed: list[str] = []
     for peaks_g, lo, hi in groups:
         try:
             modes.extend(_measure_group(spec, peaks_g, lo, hi, onset_s, clip_end, seg_end, fs, noise_f, noise_p, opts, warnings))
         except FitError as exc:
-            where = f"{lo:.1f}-{hi:.1f} Hz"
-            warnings.append(Notice("fit_failed", f"band {where} in hit at {onset_s:.3f} s: {exc}"))
+            failed.append(f"{lo:.1f}-{hi:.1f} Hz ({exc})")
+    if failed:
+        shown = "; ".join(failed[:3]) + (f"; and {len(failed) - 3} more" if len(failed) > 3 else "")
+        warnings.append(Notice("fit_failed", f"{len(failed)} band(s) in the hit at {onset_s:.3f} s could not be fitted: {shown}"))
     modes.sort(key=lambda m: m.f_d_hz)
     if opts.max_modes is not None and len(modes) > opts.max_modes:
         modes = sorted(modes, key=lambda m: -(m.amplitude or 0.0))[: opts.max_modes]

@@ -47,7 +47,8 @@ def find_peaks(
 
     The segment (onset to end of the decay) gets a half-Hann taper over its last quarter to
     cut truncation side lobes and is zero-padded 4x. The local floor is a running median of
-    the dB spectrum over 1/32 of the band; a peak must stand ``min_prominence_db`` above
+    the dB spectrum over 1/8 of the band (wide, so that a moderately damped
+    mode does not lift its own floor); a peak must stand ``min_prominence_db`` above
     it (15 dB: common practice, no source) and, when given, ``noise_margin_db`` above the
     noise spectrum.
 
@@ -72,12 +73,9 @@ def find_peaks(
     n = x.shape[0]
     if f_min_hz is None:
         f_min_hz = 3.0 * sample_rate / n
-    width_bins = max(9, (f.shape[0] // 32) | 1)
+    width_bins = max(9, (f.shape[0] // 8) | 1)
     floor = ndimage.median_filter(p_db, size=width_bins, mode="nearest")
-    # the running-median floor is a lower bound only for narrow peaks; a peak wider than the
-    # median window lifts its own floor, so it is held to half the prominence there and to
-    # scipy's topographic prominence in full
-    height = floor + 0.5 * min_prominence_db
+    height = floor + min_prominence_db
     if noise_level_db is not None:
         height = np.maximum(height, noise_level_db + noise_margin_db)
     idx, props = signal.find_peaks(p_db, height=height, prominence=min_prominence_db)

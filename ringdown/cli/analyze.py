@@ -107,6 +107,11 @@ def register(app: typer.Typer) -> None:
         plot: Optional[Path] = typer.Option(None, "--plot", help="Write figures for each file into this folder."),
         plot_format: str = typer.Option("png", "--plot-format", help="Figure format: png or svg."),
         report: Optional[Path] = typer.Option(None, "--report", help="Write one self-contained HTML report."),
+        store: bool = typer.Option(False, "--store", help="Also store every result in the results history (SQLite)."),
+        db: Optional[str] = typer.Option(None, "--db", help="History database (default $RINGDOWN_DB, else ringdown.sqlite here)."),
+        part_id: Optional[str] = typer.Option(None, "--part-id", help="Regex taking the part id from the file name (first group)."),
+        station: Optional[str] = typer.Option(None, "--station", help="Test station, stored with each result."),
+        operator: Optional[str] = typer.Option(None, "--operator", help="Operator, stored with each result."),
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Measure every mode of each recording: f_d, beta, f_n, zeta, Q, loss factor, dB/s, T60."""
@@ -139,7 +144,21 @@ def register(app: typer.Typer) -> None:
         if csv_out is not None:
             guarded(lambda: write_csv(analyses, str(csv_out)), debug=debug)
         _render(analyses, plot, plot_format, report, options, debug)
+        if store:
+            guarded(lambda: _store(analyses, db, part_id, station, operator), debug=debug)
         raise typer.Exit(EXIT_ERROR if any(a.error is not None for a in analyses) else EXIT_OK)
+
+
+def _store(analyses, db, part_id, station, operator) -> None:
+    from ..store import ResultStore, part_id_from_path
+    from .limits import resolve_db
+
+    path = resolve_db(db)
+    with ResultStore(path) as st:
+        for a in analyses:
+            st.record_analysis(a, part_id=part_id_from_path(a.path or "array", part_id), station=station,
+                               operator=operator)
+    typer.echo(f"stored {len(analyses)} result(s) in {path}", err=True)
 
 
 def _render(analyses, plot, plot_format, report, options, debug) -> None:
