@@ -328,8 +328,7 @@ def _band_noise_rms(band: Band, noise_f: np.ndarray, noise_p: np.ndarray) -> flo
         s = float(np.mean(noise_p[sel]))
     else:
         s = float(np.interp(0.5 * (lo + hi), noise_f, noise_p))
-    b_noise = (band.f_hi_hz - band.f_lo_hz) + 0.75 * band.skirt_hz  # integral of mask^2
-    return math.sqrt(max(2.0 * s * b_noise, 1e-300))
+    return math.sqrt(max(2.0 * s * band.width_hz, 1e-300))  # width_hz = integral of mask^2
 
 
 def _analyze_hit(x, fs, span, j, spans, clipped, noise_f, noise_p, opts, noise_db, level) -> Hit:
@@ -390,8 +389,9 @@ def _analyze_hit(x, fs, span, j, spans, clipped, noise_f, noise_p, opts, noise_d
     return Hit(onset_s, span.peak / fs, peak_value, hit_snr, seg_end / fs, used, tuple(warnings), tuple(modes))
 
 
-def _window_for(band: Band, onset_s: float, clip_end, seg_end: int, fs: float, min_snr_db: float) -> Window:
-    settle = settling_time_s(band)
+def _window_for(band: Band, onset_s: float, clip_end, seg_end: int, fs: float, min_snr_db: float,
+                beta_hint: float = 0.0) -> Window:
+    settle = settling_time_s(band, beta_per_s=beta_hint)
     start = onset_s + settle
     if clip_end is not None:
         start = max(start, clip_end / fs + settle)
@@ -427,7 +427,9 @@ def _extract(spec: Spectrum, lo: float, hi: float, noise_f, noise_p) -> Band:
 def _measure_group(spec, peaks_g: list[Peak], lo, hi, onset_s, clip_end, seg_end, fs, noise_f, noise_p, opts, hit_warnings) -> list[Mode]:
     primary = opts.primary
     group_band = _extract(spec, lo, hi, noise_f, noise_p)
-    group_window = _window_for(group_band, onset_s, clip_end, seg_end, fs, opts.min_snr_db)
+    # first guess of the decay rate from the spectral peaks' half-power width (beta ~ pi width)
+    beta_hint = max((math.pi * p.width_hz for p in peaks_g), default=0.0)
+    group_window = _window_for(group_band, onset_s, clip_end, seg_end, fs, opts.min_snr_db, beta_hint)
     # single-mode sub-bands: one per peak, split at the midpoints
     if len(peaks_g) > 1:
         edges = [lo] + [0.5 * (a.f_hz + b.f_hz) for a, b in zip(peaks_g, peaks_g[1:])] + [hi]
@@ -435,7 +437,7 @@ def _measure_group(spec, peaks_g: list[Peak], lo, hi, onset_s, clip_end, seg_end
         for a, b in zip(edges, edges[1:]):
             sb = _extract(spec, a, b, noise_f, noise_p)
             try:
-                subs.append((sb, _window_for(sb, onset_s, clip_end, seg_end, fs, opts.min_snr_db)))
+                subs.append((sb, _window_for(sb, onset_s, clip_end, seg_end, fs, opts.min_snr_db, beta_hint)))
             except FitError:
                 continue
     else:
@@ -496,7 +498,7 @@ def _is_stationary(est: Estimate, band: Band, window: Window, seg_end_s: float) 
 #: Local decay rates in the two halves of the fit window that differ by more than this ratio ...
 AMPLITUDE_RATIO_LIMIT = 1.25
 #: ... and by more than this many combined standard uncertainties mark a non-exponential decay.
-AMPLITUDE_Z_LIMIT = 5.0
+AMPLITUDE_Z_LIMIT = 3.0
 
 
 def _amplitude_dependence(mode: Mode, band: Band, window: Window) -> Mode:
@@ -505,7 +507,7 @@ def _amplitude_dependence(mode: Mode, band: Band, window: Window) -> Mode:
     Statistic: the local decay rates ``beta_1``, ``beta_2`` fitted (weighted log-linear, as the
     envelope estimator) to the first and second half of the fit window. The decay is called
     non-exponential when ``max(beta_2/beta_1, beta_1/beta_2) > 1.25`` and
-    ``|beta_2 - beta_1| > 5 sqrt(u_1^2 + u_2^2)`` (thresholds: common practice, no source).
+    ``|beta_2 - beta_1| > 3 sqrt(u_1^2 + u_2^2)`` (thresholds: common practice, no source).
     Viscous damping gives equal rates; dry friction raises the rate as the amplitude falls
     (Feldman 2011, ch. 4: instantaneous damping against amplitude). The table has eight
     sliding windows across the fit window, half overlapping.

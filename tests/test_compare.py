@@ -505,14 +505,6 @@ def test_simulated_treatment(chain_analyses):
         assert m.frequency.relative == pytest.approx(f_a[k] / f_b[k] - 1.0, abs=1e-3)
 
 
-@pytest.mark.xfail(
-    strict=True,
-    raises=AssertionError,
-    reason="the pipeline's zeta is biased beyond its stated uncertainty on this record (+1.7 % on "
-    "the treated third mode against a per-hit u of 0.3 %; the record itself is exact, see "
-    "test_chain_simulation_is_exact); intervals built from the repeat scatter then miss the "
-    "truth. Remove this mark when the analysis is fixed.",
-)
 def test_simulated_treatment_intervals_cover_truth(chain_analyses):
     (f_b, z_b), before = chain_analyses["before"]
     (f_a, z_a), after = chain_analyses["after"]

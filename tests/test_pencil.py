@@ -280,3 +280,12 @@ def test_never_raises_anything_but_fit_error(f, beta, snr_db, seed):
     for e in ests:
         assert band.f_lo_hz - band.skirt_hz <= e.f_d_hz <= band.f_hi_hz + band.skirt_hz
         assert e.beta_per_s > 0 and e.beta_per_s_u >= 0 and e.f_d_hz_u >= 0
+
+
+def test_non_finite_envelope_raises_fit_error():
+    z = np.exp((-1.0 + 2j * np.pi * 2.0) * np.arange(200) / 100.0)
+    z[50] = np.nan
+    band = Band(z=z, sample_rate=100.0, t0_s=0.0, f_shift_hz=1000.0, f_lo_hz=990.0, f_hi_hz=1010.0,
+                skirt_hz=5.0, noise_rms=1e-3)
+    with pytest.raises(FitError, match="NaN"):
+        pencil.estimate(band, Window(start_s=0.1, end_s=1.9, onset_s=0.0))

@@ -29,6 +29,15 @@ Steps
    (noise power spectrum proportional to the squared mask) and scaled by the residual variance.
    This keeps the uncertainty honest without guessing an "effective number of samples".
 
+Choosing the band
+-----------------
+The fit is only as good as its window, and a band-based window starts after the band filter has
+settled (``ringdown.bands.settling_time_s``, a few 1 / (2 pi sigma) for the Gaussian mask). That start costs a factor of
+about ``exp(beta * settling time)`` in standard deviation against the Cramer-Rao bound of the whole
+decay. A wide band costs nothing else here (the least-squares fit weighs the noise density at the
+mode, not the band's total noise), so give this estimator a band of half-width ~20 beta or more
+(skirts ~10 beta), with neighbouring modes either outside it or fitted jointly inside it.
+
 Model-order rule
 ----------------
 With complex noise variance ``s2`` per sample (``band.noise_rms ** 2`` when set, otherwise the
@@ -72,7 +81,7 @@ MAX_MODES = 4
 SV_MARGIN = 4.0
 #: Most samples the pencil's SVD uses (the first ones of the window, where the SNR is highest);
 #: the least-squares refinement uses the whole window. Keeps the SVD at a few milliseconds.
-MAX_PENCIL_SAMPLES = 400
+MAX_PENCIL_SAMPLES = 256
 #: Significance a fitted mode needs, |c| / u(|c|) (common practice, no source: a 5-sigma amplitude).
 MIN_AMPLITUDE_SIGNIFICANCE = 5.0
 #: Dynamic range inside one band, dB (common practice, no source): a component weaker than the
@@ -82,19 +91,6 @@ MIN_AMPLITUDE_SIGNIFICANCE = 5.0
 DYNAMIC_RANGE_DB = 45.0
 #: Fewest samples (after decimation) per fitted mode, common practice, no source.
 MIN_SAMPLES_PER_MODE = 6
-
-
-def _mask(band: Band, f_abs: np.ndarray) -> np.ndarray:
-    """The band's weighting mask at absolute frequencies (flat pass band, raised-cosine skirts)."""
-    f_abs = np.asarray(f_abs, dtype=np.float64)
-    sk = band.skirt_hz
-    m = np.zeros_like(f_abs)
-    m[(f_abs >= band.f_lo_hz) & (f_abs <= band.f_hi_hz)] = 1.0
-    lo = (f_abs < band.f_lo_hz) & (f_abs > band.f_lo_hz - sk)
-    m[lo] = 0.5 * (1.0 - np.cos(np.pi * (f_abs[lo] - (band.f_lo_hz - sk)) / sk))
-    hi = (f_abs > band.f_hi_hz) & (f_abs < band.f_hi_hz + sk)
-    m[hi] = 0.5 * (1.0 - np.cos(np.pi * ((band.f_hi_hz + sk) - f_abs[hi]) / sk))
-    return m
 
 
 def _noise_acf(band: Band, fs: float, n: int) -> tuple[np.ndarray, float]:
@@ -107,7 +103,7 @@ def _noise_acf(band: Band, fs: float, n: int) -> tuple[np.ndarray, float]:
     nu = np.fft.fftfreq(m_grid, d=1.0 / fs)
     s = np.zeros(m_grid)
     for q in (-2, -1, 0, 1, 2):  # fold any part of the mask beyond +-fs/2 (none when fs >= width)
-        s += _mask(band, band.f_shift_hz + nu + q * fs) ** 2
+        s += band.mask(band.f_shift_hz + nu + q * fs) ** 2
     mean_s = float(np.mean(s))
     if mean_s <= 0.0:
         return np.r_[1.0, np.zeros(n - 1)], 1.0
@@ -265,7 +261,9 @@ def estimate(band: Band, window: Window) -> list[Estimate]:
     i0 = sl.start if sl.start is not None else 0
     t_first = band.t0_s + i0 / fs_b
     where = f"band {band.f_lo_hz:g}-{band.f_hi_hz:g} Hz, window {window.start_s:g}-{window.end_s:g} s"
-    if n < 2 * MIN_SAMPLES_PER_MODE or not np.all(np.isfinite(zd)):
+    if not np.all(np.isfinite(z_w)):
+        raise FitError(f"{where}: the envelope holds NaN or infinite samples; clean the recording first")
+    if n < 2 * MIN_SAMPLES_PER_MODE:
         raise FitError(
             f"{where}: {n} usable envelope samples, need at least {2 * MIN_SAMPLES_PER_MODE}; lengthen the window"
         )
@@ -279,7 +277,6 @@ def estimate(band: Band, window: Window) -> list[Estimate]:
     if poles.size == 0:
         raise FitError(f"{where}: no decaying mode above the noise inside the band; check the band and the window")
 
-    notices: list[Notice] = []
     while True:
         try:
             poles_f, c, res = _fit(zd, t, poles)
@@ -333,7 +330,7 @@ def estimate(band: Band, window: Window) -> list[Estimate]:
         beta = float(-poles_f[i].real)
         f_hz = float(f_all[i])
         amp = float(abs(c[i]) * math.exp(-beta * (window.start_s - t_first)))
-        warn = list(notices)
+        warn: list[Notice] = []
         if i in unresolved:
             others = ", ".join(f"{f_all[j]:.6g}" for j in sorted(unresolved) if j != i)
             warn.append(Notice("unresolved_modes",
