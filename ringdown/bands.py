@@ -120,6 +120,11 @@ class Band:
         """Equivalent noise bandwidth of the mask, ``integral of mask^2 df = sigma sqrt(pi)``, Hz."""
         return self.sigma_hz * math.sqrt(math.pi)
 
+    def noise_correlation(self, lag_s) -> np.ndarray:
+        """Correlation coefficient of the band's noise at a time lag (s): the Fourier
+        transform of the squared Gaussian mask, ``exp(-(pi sigma lag)^2)`` [derived]."""
+        return np.exp(-((math.pi * self.sigma_hz * np.asarray(lag_s, dtype=np.float64)) ** 2))
+
     def mask(self, f_hz) -> np.ndarray:
         """The weight the band gives each absolute frequency (1 at the centre)."""
         return _gauss(np.asarray(f_hz, dtype=np.float64), self.centre_hz, self.sigma_hz)

@@ -4,8 +4,10 @@ The positive peaks of the band-passed real signal inside the fit window are loca
 parabolic interpolation; ``ln(peak)`` is regressed on peak time (``ln x_m = c - beta t_m``) and
 peak time on peak number (the period). Regressing over all cycles rather than using two peaks
 is the robust form of the decrement (Rao, *Mechanical Vibrations*, 2.6: delta = ln(x_0/x_m)/m;
-FIELD notes). Uncertainties are ordinary least-squares standard errors, inflated by the number
-of cycles per independent noise sample (``f_d / bandwidth``) when the band is narrow.
+FIELD notes). The log regression is weighted by ``peak^2`` (the variance of ``ln x`` in additive
+noise is ``sigma^2 / x^2``); standard errors come from the residual variance and are inflated by
+``sum_k rho(k / f_d)``, the band noise's correlation summed over peak spacings, since
+neighbouring peaks share noise when the band is narrower than the frequency.
 """
 
 from __future__ import annotations
@@ -70,14 +72,14 @@ def estimate(band: Band, window: Window) -> list[Estimate]:
     keep = np.concatenate(([True], dt > 0.6 * med))
     t, h = t[keep], h[keep]
     m = np.arange(t.shape[0], dtype=float)
-    f_guess = 1.0 / med
-    infl = max(1.0, f_guess / band.width_hz)
+    lags = np.arange(-t.shape[0] + 1, t.shape[0]) * med
+    infl = max(1.0, float(np.sum(band.noise_correlation(lags))))
     t0 = float(t[0])
-    ln_a, slope, cov, rms = weighted_line(t - t0, np.log(h), np.ones_like(t), inflation=infl)
+    ln_a, slope, cov, rms = weighted_line(t - t0, np.log(h), (h / h.max()) ** 2, inflation=infl)
     beta = -slope
     if not beta > 0:
         raise FitError(f"peaks do not decay in the window (fitted beta = {beta:.4g} 1/s)")
-    _, period, cov_t, _ = weighted_line(m, t - t0, np.ones_like(t), inflation=infl)
+    _, period, cov_t, _ = weighted_line(m, t - t0, (h / h.max()) ** 2, inflation=infl)
     f_d = 1.0 / period
     f_u = math.sqrt(cov_t[1, 1]) / period**2
     return [

@@ -4,8 +4,8 @@ On the band's complex envelope ``z`` inside the fit window, ``ln|z| = ln A - bet
 by least squares with weights ``|z|^2`` (the variance of ``ln|z|`` in additive noise is
 ``sigma^2 / (2 |z|^2)``), and the unwrapped phase ``arg z = phi + 2 pi (f_d - f_shift) t`` with
 the same weights. Standard uncertainties are the least-squares covariances scaled by the
-residual variance and inflated by the number of samples per independent noise sample
-(``band.sample_rate / band.width_hz``), since ``z`` is oversampled.
+residual variance and inflated by ``sum_k rho(k / fs)``, the band noise's correlation summed
+over sample lags (about ``fs / bandwidth``), since ``z`` is oversampled.
 
 References
 ----------
@@ -57,7 +57,8 @@ def estimate(band: Band, window: Window) -> list[Estimate]:
     amp = np.abs(z)
     if np.any(amp <= 0):
         raise FitError("envelope is zero inside the fit window")
-    infl = max(1.0, band.sample_rate / band.width_hz)
+    lags = np.arange(-z.shape[0] + 1, z.shape[0]) / band.sample_rate
+    infl = max(1.0, float(np.sum(band.noise_correlation(lags))))
     w = amp**2 / np.max(amp) ** 2
     t0 = float(t[0])
     ln_a, slope, cov, rms = weighted_line(t - t0, np.log(amp), w, inflation=infl)
