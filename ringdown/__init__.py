@@ -19,7 +19,7 @@ from .recording import Recording
 from .results import Analysis, Estimate, Hit, Mode, ModeTrace, Notice, results_document
 from .io import read_recording
 from .crlb import CramerRao, crlb_damped_sinusoid
-from .analyze import AnalysisOptions, analyze, analyze_file, analyze_many, analyze_recording
+from .pipeline import AnalysisOptions, analyze, analyze_file, analyze_many, analyze_recording
 from .compare import Comparison, compare
 from .compare_plot import plot_comparison
 from .limits import Limits, learn_limits, read_limits, write_limits

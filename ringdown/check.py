@@ -358,7 +358,7 @@ def check_file(path: str, limits: Limits, **options) -> CheckResult:
     Never raises for a bad recording: that part's result is an ERROR. The analysis options
     stored in the limits are used unless ``options`` overrides them.
     """
-    from .analyze import analyze_file  # the pipeline; imported late so limits load without it
+    from .pipeline import analyze_file  # the pipeline; imported late so limits load without it
 
     opts = {**limits.analysis_options(), **options}
     try:

@@ -665,7 +665,7 @@ def _as_analyses(items, side: str, analysis_options: dict) -> list[Analysis]:
             )
     out: list[Any] = list(items)
     if paths:
-        from .analyze import analyze_many  # imported here: the pipeline is only needed for paths
+        from .pipeline import analyze_many  # imported here: the pipeline is only needed for paths
 
         analysed = analyze_many([p for _, p in paths], **analysis_options)
         for (k, _), a in zip(paths, analysed):

@@ -27,7 +27,7 @@ import pytest
 from scipy import integrate, linalg
 
 from conftest import ringdown_modes, write_wav
-from ringdown.analyze import analyze, analyze_many
+from ringdown.pipeline import analyze, analyze_many
 from ringdown.errors import InputError, NoRingdownError, ParameterError
 from ringdown.results import mode_keys
 

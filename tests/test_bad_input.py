@@ -19,7 +19,7 @@ from hypothesis import strategies as st
 from hypothesis.extra import numpy as hnp
 from typer.testing import CliRunner
 
-from ringdown.analyze import analyze
+from ringdown.pipeline import analyze
 from ringdown.cli import app
 from ringdown.errors import RingdownError
 

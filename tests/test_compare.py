@@ -474,7 +474,7 @@ def test_chain_simulation_is_exact():
 
 @pytest.fixture(scope="module")
 def chain_analyses():
-    from ringdown.analyze import analyze
+    from ringdown.pipeline import analyze
 
     out = {}
     for name, (m, c), seed in (("before", UNTREATED, 101), ("again", UNTREATED, 102), ("after", TREATED, 103)):

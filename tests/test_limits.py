@@ -15,7 +15,7 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy.spatial.distance import mahalanobis as scipy_mahalanobis
 
-from ringdown.analyze import analyze as rd_analyze
+from ringdown.pipeline import analyze as rd_analyze
 from ringdown.check import check
 from ringdown.errors import LimitsError, ParameterError
 from ringdown.limits import (Limits, MahalanobisLimits, ModeLimits, learn_limits, limits_to_toml, parse_limits,

@@ -324,9 +324,7 @@ def test_cli_write_report(tmp_path):
 # --------------------------------------------------------------------------------------------
 
 def test_report_of_a_real_analysis():
-    analyze = getattr(ringdown, "analyze", None)
-    if analyze is None:
-        pytest.skip("ringdown.analyze is not exported yet")
+    analyze = ringdown.analyze
     fs = 8000.0
     rng = np.random.default_rng(11)
     t = np.arange(int(2.0 * fs)) / fs

@@ -115,7 +115,7 @@ def register(app: typer.Typer) -> None:
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Measure every mode of each recording: f_d, beta, f_n, zeta, Q, loss factor, dB/s, T60."""
-        from ..analyze import AnalysisOptions, analyze_many
+        from ..pipeline import AnalysisOptions, analyze_many
 
         def run():
             bands = [parse_band(b) for b in band] if band else None
@@ -128,7 +128,7 @@ def register(app: typer.Typer) -> None:
         if debug:
             for a in analyses:
                 if a.error is not None:
-                    from ..analyze import analyze_file
+                    from ..pipeline import analyze_file
 
                     analyze_file(a.path, **options)  # raises with the traceback
         for a in analyses:

@@ -41,7 +41,7 @@ def _analysis_options(method, min_snr_db, max_modes, bands) -> dict:
     if max_modes is not None:
         opts["max_modes"] = max_modes
     if bands:
-        from .analyze import parse_band
+        from .pipeline import parse_band
 
         opts["bands"] = [parse_band(b) for b in bands]
     return opts
@@ -148,7 +148,7 @@ def register(app: typer.Typer) -> None:
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Learn acceptance limits from recordings of known-good parts and write them as TOML."""
-        from ..analyze import analyze_many
+        from ..pipeline import analyze_many
         from ..limits import learn_limits, write_limits
 
         def run():
