@@ -15,7 +15,6 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import signal
 
 __all__ = [
     "HitSpan",
@@ -297,6 +296,8 @@ def noise_psd(x_noise: np.ndarray, sample_rate: float) -> tuple[np.ndarray, np.n
     f_hz : (k,) ndarray of float
     psd : (k,) ndarray of float, units^2/Hz
     """
+    from scipy import signal
+
     nper = int(min(x_noise.shape[0], max(256, 2 ** int(math.floor(math.log2(max(x_noise.shape[0] // 4, 16)))))))
     f, p = signal.welch(x_noise, fs=sample_rate, nperseg=nper, detrend="constant")
     return f, p

@@ -6,7 +6,6 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import ndimage, signal
 
 __all__ = ["Peak", "find_peaks", "group_bands"]
 
@@ -68,6 +67,8 @@ def find_peaks(
     -------
     list of Peak, ascending in frequency.
     """
+    from scipy import ndimage, signal
+
     f, p_db = spectrum_db(x, sample_rate)
     df = f[1] - f[0]
     n = x.shape[0]

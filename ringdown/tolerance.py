@@ -40,7 +40,12 @@ import math
 from functools import lru_cache
 
 import numpy as np
-from scipy import integrate, optimize, stats
+from ._lazy import lazy_module
+
+# scipy.stats alone takes about 0.4 s to import: load it when a limit is first computed
+integrate = lazy_module("scipy.integrate")
+optimize = lazy_module("scipy.optimize")
+stats = lazy_module("scipy.stats")
 
 from .errors import ParameterError
 

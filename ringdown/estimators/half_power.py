@@ -16,7 +16,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy.optimize import curve_fit
 
 from ..bands import Band
 from ..errors import FitError
@@ -70,6 +69,8 @@ def estimate(band: Band, window: Window) -> list[Estimate]:
     sel = (f >= f[k] - 5 * g0) & (f <= f[k] + 5 * g0)
     if sel.sum() < 6:
         raise FitError("too few spectrum bins across the peak for a half-power fit")
+    from scipy.optimize import curve_fit
+
     try:
         popt, pcov = curve_fit(
             _lorentz, f[sel], p[sel], p0=(p[k], f[k], g0, float(np.min(p[sel]))), maxfev=4000

@@ -18,7 +18,7 @@ Steps
    Poles are the eigenvalues of the shift-invariance matrix of the signal subspace.
 3. Poles that grow (``beta <= 0``), lie outside ``[f_lo - skirt, f_hi + skirt]`` or decay so fast
    that their half-power bandwidth ``beta / pi`` exceeds the band's width are rejected.
-4. All kept poles are refined jointly by nonlinear least squares (``scipy.optimize.least_squares``)
+4. All kept poles are refined jointly by nonlinear least squares (``scipy_optimize.least_squares``)
    with the complex amplitudes solved inside (variable projection, Golub & Pereyra 1973 [from
    memory]). A mode whose fitted amplitude is not significant (``|c| < 5 u(|c|)``), or that left
    the band, is dropped and the rest refitted.
@@ -64,13 +64,15 @@ from __future__ import annotations
 import math
 
 import numpy as np
-import scipy.linalg
-import scipy.optimize
 
+from .._lazy import lazy_module
 from ..bands import Band
 from ..errors import FitError
 from ..results import Estimate, ModeTrace, Notice
 from .base import Window
+
+scipy_linalg = lazy_module("scipy.linalg")
+scipy_optimize = lazy_module("scipy.optimize")
 
 __all__ = ["estimate", "MAX_MODES", "SV_MARGIN", "MAX_PENCIL_SAMPLES", "DYNAMIC_RANGE_DB"]
 
@@ -122,11 +124,11 @@ def _pencil(zd: np.ndarray, fs: float, noise_var: float | None, g: float) -> np.
     n = y.shape[0]
     lp = max(n // 3, 1)
     rows = n - lp
-    hank = scipy.linalg.hankel(y[:rows], y[rows - 1 :])  # (rows, lp + 1), H[i, j] = y[i + j]
+    hank = scipy_linalg.hankel(y[:rows], y[rows - 1 :])  # (rows, lp + 1), H[i, j] = y[i + j]
     try:
-        _, sv, vh = scipy.linalg.svd(hank, full_matrices=False, lapack_driver="gesdd")
+        _, sv, vh = scipy_linalg.svd(hank, full_matrices=False, lapack_driver="gesdd")
     except (np.linalg.LinAlgError, ValueError):
-        _, sv, vh = scipy.linalg.svd(hank, full_matrices=False, lapack_driver="gesvd")
+        _, sv, vh = scipy_linalg.svd(hank, full_matrices=False, lapack_driver="gesvd")
     max_order = min(MAX_MODES, lp - 1, rows - 1)
     if max_order < 1:
         return np.zeros(0, dtype=complex)
@@ -179,7 +181,7 @@ def _fit(zd: np.ndarray, t: np.ndarray, poles0: np.ndarray):
         r = zd - phi @ c
         return np.concatenate([r.real, r.imag])
 
-    res = scipy.optimize.least_squares(resid, x0, method="lm", x_scale="jac", xtol=1e-12, ftol=1e-12,
+    res = scipy_optimize.least_squares(resid, x0, method="lm", x_scale="jac", xtol=1e-12, ftol=1e-12,
                                        gtol=1e-12, max_nfev=200 * (2 * k + 1))
     poles = poles_of(res.x)
     phi = _basis(poles, t)
@@ -210,7 +212,7 @@ def _covariance(zd, t, poles, c, r_acf, g):
     if dof <= 0:
         raise FitError(f"{n} envelope samples cannot fit {k} mode(s); lengthen the window or narrow the band")
     s2 = float(np.sum(np.abs(resid) ** 2)) / dof
-    rj = scipy.linalg.matmul_toeplitz((r_acf, r_acf.conj()), jc)
+    rj = scipy_linalg.matmul_toeplitz((r_acf, r_acf.conj()), jc)
     b = 0.5 * s2 * (jc.conj().T @ rj).real
     cond = float(np.linalg.cond(a))
     try:
