@@ -202,11 +202,14 @@ def find_hits(
         if above.size == 0:
             return []
         onsets = [int(above[0])]
-    # The centred smoothing spreads a step over its width: the rise begins half a width earlier.
-    half = smoothing // 2
+    # The centred smoothing turns a step in power into a ramp one smoothing width long, centred
+    # on the step: the onset is where the ramp reaches half (-3 dB) of the level just after it.
     spans: list[HitSpan] = []
     for j, k in enumerate(onsets):
-        onset = max(0, k - half)
+        top = float(np.max(level_db[k : min(n, k + smoothing + 1)]))
+        lo_i = max(0, k - smoothing)
+        reach = np.flatnonzero(level_db[lo_i : k + smoothing + 1] >= top - 3.0103)
+        onset = lo_i + int(reach[0]) if reach.size else k
         end = onsets[j + 1] - max(1, int(round(0.002 * sample_rate))) if j + 1 < len(onsets) else n
         stop = min(end, onset + hold + int(round(bounce_window_s * sample_rate)))
         peak = onset + int(np.argmax(level_db[onset:stop]))
