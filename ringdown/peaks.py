@@ -127,29 +127,35 @@ def group_bands(
     *,
     sample_rate: float,
     resolution_hz: float,
-    width_factor: float = 30.0,
+    min_factor: float = 8.0,
+    want_factor: float = 80.0,
 ) -> list[tuple[list[Peak], float, float]]:
     """Give each peak a band, merging peaks too close to be filtered apart.
 
-    Each peak wants a half-band ``h = max(width_factor * width_hz / 2, 4 * resolution_hz)``;
-    ``width_factor`` 30 keeps the zero-phase filter's bandwidth well above the 1.8x the mode's
-    half-power bandwidth that Jacobsen & Rindel (1987) give as the limit for negligible bias.
-    Peaks whose wanted bands overlap by more than half are one group, extracted together
-    (the parametric estimator separates them). Groups split the gap between them, and each
-    band is then made symmetric about its outer peaks (the narrower margin on both sides).
+    Each peak needs a half-band of at least ``m = max(min_factor * width_hz, 4 * resolution_hz)``
+    and would like ``h = max(want_factor * width_hz, m)``, ``width_hz`` being its half-power
+    width (about ``beta / pi``). ``m`` (8 widths) keeps the band well above the 1.8x the mode's
+    half-power bandwidth that Jacobsen & Rindel (1987) give for negligible filter bias. ``h``
+    (80 widths, about 25 beta) makes the band filter settle within about 0.1 / beta, so that
+    the fit loses almost none of the decay to the settling (common practice, no source;
+    measured in tests/benchmarks/accuracy.py). Peaks closer than the sum of their ``m`` are one
+    group, extracted together (the parametric estimator separates them). A group's band
+    reaches ``h`` beyond its outer peaks but never past the midpoint to the next group, and is
+    symmetric about its outer peaks (the narrower margin on both sides), since an uneven band
+    weights a mode's spectrum unevenly.
 
     Returns
     -------
     list of (peaks, f_lo_hz, f_hi_hz), ascending.
     """
     nyq = sample_rate / 2.0
-    want = [max(width_factor * p.width_hz / 2.0, 4.0 * resolution_hz) for p in peaks]
+    need = [max(min_factor * p.width_hz, 4.0 * resolution_hz) for p in peaks]
+    want = [max(want_factor * p.width_hz, n) for p, n in zip(peaks, need)]
     groups: list[list[int]] = []
     for i, p in enumerate(peaks):
         if groups:
             j = groups[-1][-1]
-            gap = p.f_hz - peaks[j].f_hz
-            if gap < 0.5 * (want[i] + want[j]):
+            if p.f_hz - peaks[j].f_hz < need[i] + need[j]:
                 groups[-1].append(i)
                 continue
         groups.append([i])
@@ -165,8 +171,6 @@ def group_bands(
             hi = min(hi, 0.5 * (peaks[g[-1]].f_hz + peaks[nxt].f_hz))
         lo = max(lo, 0.0)
         hi = min(hi, nyq)
-        # symmetric about the group's outer peaks: a skirt closer on one side than the other
-        # weights the mode's spectrum unevenly and biases its decay rate (seen as +2 % in zeta)
         margin = min(peaks[g[0]].f_hz - lo, hi - peaks[g[-1]].f_hz)
         out.append(([peaks[i] for i in g], peaks[g[0]].f_hz - margin, peaks[g[-1]].f_hz + margin))
     return out

@@ -391,31 +391,38 @@ def _analyze_hit(x, fs, span, j, spans, clipped, noise_f, noise_p, opts, noise_d
 
 def _window_for(band: Band, onset_s: float, clip_end, seg_end: int, fs: float, min_snr_db: float,
                 beta_hint: float = 0.0) -> Window:
-    settle = settling_time_s(band, beta_per_s=beta_hint)
+    env = np.abs(band.z)
+    if band.noise_rms is None:
+        raise FitError("band noise level unknown")
+    # the filter's leftover transient need only fall to a third of the noise relative to the
+    # mode's peak (no further: every bit of settling costs decay, common practice, no source)
+    i_on = band.index_of(onset_s)
+    peak = float(np.max(env[i_on:])) if env[i_on:].size else float(np.max(env))
+    level = min(1e-2, max(1e-8, 0.3 * band.noise_rms / max(peak, 1e-300)))
+    settle = settling_time_s(band, beta_per_s=beta_hint, level=level)
     start = onset_s + settle
     if clip_end is not None:
         start = max(start, clip_end / fs + settle)
-    env = np.abs(band.z)
     i0 = band.index_of(start)
     # never before the band envelope's own maximum after the onset
-    i_on = band.index_of(onset_s)
     i_pk = i_on + int(np.argmax(env[i_on: max(i0 + 1, i_on + 1)]))
     i0 = max(i0, i_pk)
     i_last = band.index_of(seg_end / fs - settle)
-    if band.noise_rms is None:
-        raise FitError("band noise level unknown")
     thr = band.noise_rms * 10 ** (min_snr_db / 20.0)
     k = max(1, int(round(band.sample_rate / band.width_hz)))
     smooth = np.convolve(env, np.ones(k) / k, mode="same")
     below = np.flatnonzero(smooth[i0: i_last + 1] < thr)
     i1 = i0 + int(below[0]) - 1 if below.size else i_last
+    at_noise = np.flatnonzero(smooth[i0: i_last + 1] < band.noise_rms)
+    i_model = i0 + int(at_noise[0]) - 1 if at_noise.size else i_last
     if i1 - i0 < 5:
         snr = 20 * math.log10(max(env[i0], 1e-300) / band.noise_rms)
         raise FitError(
             f"the mode is {snr:.1f} dB above its band noise after the filter settles; "
             f"a fit needs {min_snr_db:g} dB over several samples"
         )
-    return Window(start_s=float(band.t_s[i0]), end_s=float(band.t_s[i1]), onset_s=onset_s)
+    return Window(start_s=float(band.t_s[i0]), end_s=float(band.t_s[i1]), onset_s=onset_s,
+                  model_end_s=float(band.t_s[max(i_model, i1)]))
 
 
 def _extract(spec: Spectrum, lo: float, hi: float, noise_f, noise_p) -> Band:

@@ -34,11 +34,23 @@ class Window:
         filter's settling, ``end_s`` where the mode is still ``min_snr_db`` above the noise.
     onset_s : float
         Time of the hit (amplitudes are referred to the window start, not the onset).
+    model_end_s : float or None
+        A later end for estimators that fit the complex envelope itself (no logarithm, so no
+        low-SNR bias): where the mode falls to its band noise (0 dB), or the end of the decay.
+        Samples down there still carry information to a least-squares fit. ``None``: use
+        ``end_s``.
     """
 
     start_s: float
     end_s: float
     onset_s: float
+    model_end_s: float | None = None
+
+    def for_model_fit(self) -> "Window":
+        """The window a direct (non-logarithmic) fit of the envelope may use."""
+        if self.model_end_s is None or self.model_end_s <= self.end_s:
+            return self
+        return Window(self.start_s, self.model_end_s, self.onset_s, None)
 
     def indices(self, band: Band) -> slice:
         """Slice of ``band.z`` inside the window (end inclusive)."""

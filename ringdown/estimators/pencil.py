@@ -252,6 +252,7 @@ def estimate(band: Band, window: Window) -> list[Estimate]:
     Hua & Sarkar, IEEE Trans. ASSP 38(5):814-824, 1990; Sarkar & Pereira, IEEE Antennas Propag.
     Mag. 37(1):48-55, 1995; Kay 1993 (covariance of least-squares estimates).
     """
+    window = window.for_model_fit()
     sl = window.indices(band)
     z_w = np.asarray(band.z[sl], dtype=np.complex128)
     fs_b = float(band.sample_rate)

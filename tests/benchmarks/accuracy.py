@@ -14,12 +14,20 @@ not the pipeline's choice of band.
 
 Run: ``python tests/benchmarks/accuracy.py [TRIALS]``. Prints a markdown table; asserts nothing.
 A ratio of 1 is the best any unbiased estimator can do. Every band-based fit discards the start
-of the decay while the band filter settles (``settling_time_s``: 3 / (pi B) + 1 / skirt); that
-costs a factor of about exp(beta * settling time) in standard deviation, so narrow bands around a
-mode (settling ~ 0.5 / beta) end near 1.6 x the bound however good the estimator is.
+of the decay while the band filter settles (``settling_time_s``, about 0.7 / sigma for the
+Gaussian mask of standard deviation sigma); that costs a factor of about exp(beta * settling time)
+in standard deviation, so a narrow band around a mode (settling ~ 0.5 / beta) ends near 1.6 x the
+bound however good the estimator is. The pipeline's bands reach about 25 beta on either side.
 """
 
 from __future__ import annotations
+
+import os
+
+# One BLAS thread: the matrices here are small, and OpenBLAS's thread pool on a shared machine made
+# the same run up to ~9x slower (measured while writing this benchmark). Must precede numpy's import.
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
 
 import math
 import sys
@@ -77,8 +85,9 @@ def _one(rng, beta, snr_db):
     # the matrix pencil alone on a band sized for it, window from settling to settling before the end
     half = WIDE * beta
     band = extract_band(spectrum_of(x, FS), F_HZ - half, F_HZ + half, skirt_hz=half)
-    # noise_rms of |z| = sqrt(2 S B) with S = 2 sigma^2 / FS the one-sided density, B = pass + 0.75 skirt
-    band = band.with_noise(math.sqrt(2.0 * 2.0 * sigma**2 / FS * (2.0 * half + 0.75 * half)))
+    # noise_rms of |z| = sqrt(2 S B) with S = 2 sigma^2 / FS the one-sided density and B the
+    # mask's equivalent noise bandwidth
+    band = band.with_noise(math.sqrt(2.0 * 2.0 * sigma**2 / FS * band.width_hz))
     ts = settling_time_s(band)
     try:
         ests = pencil.estimate(band, Window(PRE_S + ts, PRE_S + dur - ts, PRE_S))

@@ -11,6 +11,13 @@ Run: ``python tests/benchmarks/speed.py [REPEATS]``.
 
 from __future__ import annotations
 
+import os
+
+# One BLAS thread: the matrices here are small, and OpenBLAS's thread pool on a shared machine made
+# the same run up to ~9x slower (measured while writing this benchmark). Must precede numpy's import.
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
+
 import statistics
 import sys
 import tempfile
