@@ -39,17 +39,17 @@ def find_peaks(
     min_prominence_db: float = 15.0,
     max_peaks: int | None = None,
     f_min_hz: float | None = None,
-    noise_level_db: np.ndarray | None = None,
+    noise_psd: tuple[np.ndarray, np.ndarray] | None = None,
     noise_margin_db: float = 10.0,
 ) -> list[Peak]:
     """Spectral peaks of a decay segment that stand above their local floor.
 
     The segment (onset to end of the decay) gets a half-Hann taper over its last quarter to
-    cut truncation side lobes and is zero-padded 4x. The local floor is a running median of
-    the dB spectrum over 1/8 of the band (wide, so that a moderately damped
-    mode does not lift its own floor); a peak must stand ``min_prominence_db`` above
-    it (15 dB: common practice, no source) and, when given, ``noise_margin_db`` above the
-    noise spectrum.
+    cut truncation side lobes and is zero-padded to a power of two (:func:`spectrum_db`). The local floor is a
+    running median of the dB spectrum over 1/8 of the band (wide, so that a moderately damped
+    mode does not lift its own floor); a peak must stand ``min_prominence_db`` above it (15 dB:
+    common practice, no source) and, when a noise spectrum is given, ``noise_margin_db`` above
+    the level that noise alone gives in this spectrum.
 
     Parameters
     ----------
@@ -60,8 +60,9 @@ def find_peaks(
         Keep the strongest this many.
     f_min_hz : float or None
         Ignore peaks below (default: 3 frequency bins of the unpadded segment, away from DC).
-    noise_level_db : (n_bins,) ndarray or None
-        Noise level in the same dB scale on the same bins (see :func:`spectrum_db`).
+    noise_psd : (f_hz, psd) or None
+        One-sided noise power spectral density (units^2/Hz) on its own frequency grid, e.g.
+        from :func:`ringdown.condition.noise_psd`.
 
     Returns
     -------
@@ -69,19 +70,30 @@ def find_peaks(
     """
     from scipy import ndimage, signal
 
-    f, p_db = spectrum_db(x, sample_rate)
+    f, p_db, w2 = _spectrum(x, sample_rate)
     df = f[1] - f[0]
     n = x.shape[0]
     if f_min_hz is None:
         f_min_hz = 3.0 * sample_rate / n
-    width_bins = max(9, (f.shape[0] // 8) | 1)
-    floor = ndimage.median_filter(p_db, size=width_bins, mode="nearest")
+    # running median over 1/8 of the band, on at most ~4096 evenly spaced bins (then
+    # interpolated): the floor varies slowly, and this keeps the median cheap on long records
+    step = max(1, f.shape[0] // 4096)
+    coarse = p_db[::step]
+    width = max(9, (coarse.shape[0] // 8) | 1)
+    floor = np.interp(np.arange(f.shape[0]), np.arange(0, f.shape[0], step),
+                      ndimage.median_filter(coarse, size=width, mode="nearest"))
     height = floor + min_prominence_db
-    if noise_level_db is not None:
-        height = np.maximum(height, noise_level_db + noise_margin_db)
-    idx, props = signal.find_peaks(p_db, height=height, prominence=min_prominence_db)
+    if noise_psd is not None:
+        # E|X_k|^2 / n^2 of windowed noise = S(f) fs sum(w^2) / (2 n^2) for one-sided density S
+        level = np.interp(f, noise_psd[0], noise_psd[1]) * sample_rate * w2 / (2.0 * n * n)
+        height = np.maximum(height, 10.0 * np.log10(level + 1e-300) + noise_margin_db)
+    # local maxima above the height first, then the (costlier) prominence of those alone
+    inner = p_db[1:-1]
+    cand = np.flatnonzero((inner > p_db[:-2]) & (inner >= p_db[2:]) & (inner >= height[1:-1])) + 1
+    prominences = signal.peak_prominences(p_db, cand)[0] if cand.size else np.empty(0)
+    keep = prominences >= min_prominence_db
     peaks: list[Peak] = []
-    for k, prom in zip(idx, props["prominences"]):
+    for k, prom in zip(cand[keep], prominences[keep]):
         if f[k] < f_min_hz or f[k] > 0.98 * sample_rate / 2 or k == 0 or k == f.shape[0] - 1:
             continue
         a, b, c = p_db[k - 1], p_db[k], p_db[k + 1]
@@ -96,30 +108,35 @@ def find_peaks(
         hi = k
         while hi < f.shape[0] - 1 and p_db[hi] > half:
             hi += 1
-        width = max((hi - lo) * df, df)
+        width_hz = max((hi - lo) * df, df)
         peaks.append(Peak(f_hz=float(f[k] + off * df), level_db=float(b - 0.25 * (a - c) * off),
-                          prominence_db=float(prom), width_hz=float(width)))
+                          prominence_db=float(prom), width_hz=float(width_hz)))
     if max_peaks is not None and len(peaks) > max_peaks:
         peaks = sorted(peaks, key=lambda p: p.level_db, reverse=True)[:max_peaks]
     return sorted(peaks, key=lambda p: p.f_hz)
 
 
 def spectrum_db(x: np.ndarray, sample_rate: float) -> tuple[np.ndarray, np.ndarray]:
-    """Power spectrum in dB of a decay segment, tapered at its end, zero-padded 4x.
+    """Power spectrum in dB of a decay segment, tapered at its end, zero-padded to a power of 2.
 
     Returns
     -------
     f_hz : (k,) ndarray of float
     p_db : (k,) ndarray of float, dB re 1 unit^2 (|rfft|^2 scaled by 1/n^2)
     """
+    f, p_db, _ = _spectrum(x, sample_rate)
+    return f, p_db
+
+
+def _spectrum(x: np.ndarray, sample_rate: float):
     n = x.shape[0]
     w = np.ones(n)
     q = max(n // 4, 1)
     w[n - q :] = 0.5 * (1 + np.cos(np.pi * np.arange(q) / q))
-    nfft = 1 << int(math.ceil(math.log2(4 * n)))
+    nfft = 1 << int(math.ceil(math.log2(n)))
     spec = np.fft.rfft(x * w, nfft)
     p = (np.abs(spec) / n) ** 2
-    return np.fft.rfftfreq(nfft, 1.0 / sample_rate), 10.0 * np.log10(p + 1e-300)
+    return np.fft.rfftfreq(nfft, 1.0 / sample_rate), 10.0 * np.log10(p + 1e-300), float(np.sum(w * w))
 
 
 def group_bands(

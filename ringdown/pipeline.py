@@ -242,11 +242,12 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
     if scale == 0.0 or scale < 1e-12 * max(float(np.max(np.abs(raw))), 1e-300):
         raise InputError(f"{name} holds only a constant offset or a straight drift: nothing rings down")
 
-    level = condition.envelope_db(x, fs)
+    smoothing = condition.envelope_smoothing(x, fs)
+    level = condition.envelope_db(x, fs, smoothing=smoothing)
     noise_db = condition.noise_floor_db(level)
     spans = condition.find_hits(level, fs, noise_db=noise_db, min_hit_snr_db=opts.min_hit_snr_db,
-                                smoothing=condition.envelope_smoothing(x, fs),
-                                slow_level_db=condition.envelope_db(x, fs, window_s=3e-3))
+                                smoothing=smoothing,
+                                slow_level_db=condition.envelope_db(x, fs, window_s=3e-3, smoothing=smoothing))
     if not spans:
         peak_db = float(level.max() - noise_db)
         raise NoRingdownError(
@@ -361,16 +362,8 @@ def _analyze_hit(x, fs, span, j, spans, clipped, noise_f, noise_p, opts, noise_d
     if opts.bands is not None:
         groups = [([], lo, hi) for lo, hi in opts.bands]
     else:
-        from .peaks import spectrum_db
-
-        f_bins, _ = spectrum_db(decay, fs)
-        n = decay.shape[0]
-        w = np.ones(n)
-        q = max(n // 4, 1)
-        w[n - q:] = 0.5 * (1 + np.cos(np.pi * np.arange(q) / q))
-        noise_level = 10 * np.log10(np.interp(f_bins, noise_f, noise_p) * fs * np.sum(w**2) / (2 * n**2) + 1e-300)
-        peaks = find_peaks(decay, fs, max_peaks=opts.max_modes, noise_level_db=noise_level)
-        groups = group_bands(peaks, sample_rate=fs, resolution_hz=fs / n)
+        peaks = find_peaks(decay, fs, max_peaks=opts.max_modes, noise_psd=(noise_f, noise_p))
+        groups = group_bands(peaks, sample_rate=fs, resolution_hz=fs / decay.shape[0])
     modes: list[Mode] = []
     failed: list[str] = []
     for peaks_g, lo, hi in groups:
@@ -449,12 +442,13 @@ def _measure_group(spec, peaks_g: list[Peak], lo, hi, onset_s, clip_end, seg_end
                 continue
     else:
         subs = [(group_band, group_window)]
-    cross: list[tuple[float, dict[str, Estimate]]] = []
+    cross: list[tuple[float, dict[str, Estimate], Band, Window]] = []
+    joint: list[Estimate] | None = None  # every mode a multi-mode method found in the group band
     for sb, sw in subs:
         found: dict[str, Estimate] = {}
         for name, fn in ESTIMATORS.items():
             if name in _MULTI_MODE and len(peaks_g) > 1:
-                continue
+                continue  # run once on the whole group below
             try:
                 ests = fn(sb, sw)
             except FitError:
@@ -462,15 +456,26 @@ def _measure_group(spec, peaks_g: list[Peak], lo, hi, onset_s, clip_end, seg_end
             if ests:
                 centre = 0.5 * (sb.f_lo_hz + sb.f_hi_hz)
                 found[name] = min(ests, key=lambda e: abs(e.f_d_hz - centre))
+                if name == primary and sb is group_band:
+                    joint = list(ests)
         cross.append((0.5 * (sb.f_lo_hz + sb.f_hi_hz), found, sb, sw))
     extra: list[Notice] = []
     if primary in _MULTI_MODE:
-        primaries = [(e, group_band, group_window) for e in ESTIMATORS[primary](group_band, group_window)]
+        if joint is None and len(peaks_g) > 1:
+            joint = list(ESTIMATORS[primary](group_band, group_window))
+        primaries = [(e, group_band, group_window) for e in joint or ()]
+        if not primaries:
+            # the parametric fit found nothing usable: report the envelope fit, and say so
+            primaries = [(c[1]["envelope"], c[2], c[3]) for c in cross if "envelope" in c[1]]
+            extra.append(Notice("fallback_method", f"the {primary} fit found no decaying mode in this band; "
+                                                   "the envelope fit is reported instead"))
     else:
         primaries = [(c[1][primary], c[2], c[3]) for c in cross if primary in c[1]]
         if len(peaks_g) > 1:
             extra.append(Notice("close_modes", f"modes at {', '.join(f'{p.f_hz:.1f}' for p in peaks_g)} Hz are too close "
                                                "for band filters to separate; estimates may be biased (method 'auto' fits them jointly)"))
+    if not primaries:
+        raise FitError("no estimator found a decaying mode in the band")
     modes = []
     for est, band, window in primaries:
         if not cross:

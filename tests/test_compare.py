@@ -509,14 +509,18 @@ def test_simulated_treatment_intervals_cover_truth(chain_analyses):
     (f_b, z_b), before = chain_analyses["before"]
     (f_a, z_a), after = chain_analyses["after"]
     c = compare(before, after)
+    checks = []
     for k, m in enumerate(c.modes):
-        # each side's 95 % interval of zeta holds the eigenvalue truth, and so does the interval
-        # of the ratio
-        lo, hi = m.before.zeta_interval
-        assert lo <= z_b[k] <= hi, (k, "before", lo, z_b[k], hi)
-        lo, hi = m.after.zeta_interval
-        assert lo <= z_a[k] <= hi, (k, "after", lo, z_a[k], hi)
-        assert m.damping.ratio_low <= z_a[k] / z_b[k] <= m.damping.ratio_high
+        # each side's 95 % interval of zeta should hold the eigenvalue truth, and so should the
+        # interval of the ratio
+        checks.append((k, "before", *m.before.zeta_interval, z_b[k]))
+        checks.append((k, "after", *m.after.zeta_interval, z_a[k]))
+        checks.append((k, "ratio", m.damping.ratio_low, m.damping.ratio_high, z_a[k] / z_b[k]))
+    misses = [c for c in checks if not (c[2] <= c[4] <= c[3])]
+    # 9 intervals at 95 % coverage: misses ~ Binomial(9, 0.05) if the intervals are honest, and
+    # P(misses >= 3) = 0.008 (binomial tail). More than 2 misses means the intervals are too
+    # narrow or the estimates biased.
+    assert len(misses) <= 2, misses
 
 
 def test_simulated_no_treatment(chain_analyses):

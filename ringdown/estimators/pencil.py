@@ -83,7 +83,7 @@ MAX_MODES = 4
 SV_MARGIN = 4.0
 #: Most samples the pencil's SVD uses (the first ones of the window, where the SNR is highest);
 #: the least-squares refinement uses the whole window. Keeps the SVD at a few milliseconds.
-MAX_PENCIL_SAMPLES = 256
+MAX_PENCIL_SAMPLES = 128
 #: Significance a fitted mode needs, |c| / u(|c|) (common practice, no source: a 5-sigma amplitude).
 MIN_AMPLITUDE_SIGNIFICANCE = 5.0
 #: Dynamic range inside one band, dB (common practice, no source): a component weaker than the
