@@ -176,3 +176,38 @@ def test_version():
     r = run("--version")
     assert r.exit_code == 0
     assert r.stdout.strip() == f"ringdown {__version__}"
+
+
+def test_folder_batch_prints_a_summary(two_mode_wav, tmp_path):
+    # issue: analyze accepts folders and prints a summary (files, analysed, errors, time)
+    import shutil
+
+    folder = tmp_path / "batch"
+    folder.mkdir()
+    for i in range(3):
+        shutil.copy(two_mode_wav, folder / f"part_{i}.wav")
+    (folder / "broken.wav").write_bytes(b"RIFF\x00\x00")
+    r = run("analyze", folder, "--jobs", "2")
+    assert r.exit_code == 2
+    assert len(table_rows(r.stdout)) == 3 * 2  # two modes in each good file
+    assert re.search(r"^4 files: 3 analysed, 1 errors, 6 modes in [\d.]+ s$", r.stdout, re.M)
+
+
+def test_store_writes_the_history(two_mode_wav, tmp_path, monkeypatch):
+    # analyze --store keeps every result in the SQLite history; RINGDOWN_DB chooses the file
+    db = tmp_path / "hist.sqlite"
+    monkeypatch.setenv("RINGDOWN_DB", str(db))
+    r = run("analyze", two_mode_wav, "--store", "--station", "S1")
+    assert r.exit_code == 0, r.output
+    h = run("history", "--json")
+    assert h.exit_code == 0, h.output
+    rows = json.loads(h.stdout)["records"]
+    assert len(rows) == 1 and rows[0]["station"] == "S1" and rows[0]["kind"] == "analysis"
+
+
+def test_limits_learn_accepts_bands(two_mode_wav, tmp_path):
+    # --band is parsed by the same helper in every command (a broken import once hid here)
+    out = tmp_path / "limits.toml"
+    r = run("limits", "learn", two_mode_wav, two_mode_wav, two_mode_wav, "--band", "400:480", "-o", out)
+    assert r.exit_code == 0, r.output
+    assert out.exists()

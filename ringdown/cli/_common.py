@@ -7,7 +7,7 @@ import json
 import os
 import sys
 from pathlib import Path
-from typing import Any, Callable, Iterable, TypeVar
+from typing import Any, Callable, Iterable, Optional, TypeVar
 
 import typer
 
@@ -69,3 +69,45 @@ def expand_inputs(items: Iterable[str]) -> list[str]:
 
 def default_jobs() -> int:
     return max(os.cpu_count() or 1, 1)
+
+
+#: Environment variable naming the results database (read here, in the CLI layer only).
+DB_ENV = "RINGDOWN_DB"
+
+
+def resolve_db(db: Optional[str]) -> str:
+    """The database path: ``--db``, else ``$RINGDOWN_DB``, else ``ringdown.sqlite`` here."""
+    from ..store import DEFAULT_DB
+
+    return db or os.environ.get(DB_ENV) or DEFAULT_DB
+
+
+def on_terminal(json_out: bool) -> bool:
+    """Whether a progress bar may be shown: a terminal on both streams and no JSON on stdout."""
+    return not json_out and sys.stdout.isatty() and sys.stderr.isatty()
+
+
+def progress_bar(enabled: bool, total: int, label: str):
+    """A rich progress bar on stderr when enabled, else a no-op with the same interface.
+
+    Returns ``(context_manager, task_id)``; call ``cm.advance(task_id)`` per finished item.
+    """
+    if enabled:
+        from rich.console import Console
+        from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
+
+        prog = Progress(TextColumn(label), BarColumn(), MofNCompleteColumn(), TimeRemainingColumn(),
+                        console=Console(stderr=True), transient=True)
+        return prog, prog.add_task(label, total=total)
+
+    class _Null:
+        def __enter__(self):
+            return self
+
+        def __exit__(self, *exc):
+            return False
+
+        def advance(self, *a, **k):
+            pass
+
+    return _Null(), None

@@ -5,12 +5,14 @@ from __future__ import annotations
 import csv
 import math
 import sys
+import time
 from pathlib import Path
 from typing import List, Optional
 
 import typer
 
-from ._common import DEBUG_OPTION, EXIT_ERROR, EXIT_OK, error_line, expand_inputs, guarded, print_json
+from ._common import (DEBUG_OPTION, EXIT_ERROR, EXIT_OK, default_jobs, error_line, expand_inputs, guarded,
+                      on_terminal, print_json, progress_bar)
 
 __all__ = ["register", "parse_band", "format_table"]
 
@@ -103,7 +105,7 @@ def register(app: typer.Typer) -> None:
         max_modes: Optional[int] = typer.Option(None, "--max-modes", help="Keep at most this many modes (the strongest)."),
         min_snr_db: float = typer.Option(10.0, "--min-snr-db", help="Fits end where a mode is this far above its band noise, dB."),
         keep_double_hits: bool = typer.Option(False, "--keep-double-hits", help="Combine hits flagged as hammer bounces too."),
-        jobs: int = typer.Option(1, "--jobs", help="Worker processes for a batch."),
+        jobs: Optional[int] = typer.Option(None, "--jobs", help="Worker processes for a batch (default: the number of cores)."),
         plot: Optional[Path] = typer.Option(None, "--plot", help="Write figures for each file into this folder."),
         plot_format: str = typer.Option("png", "--plot-format", help="Figure format: png or svg."),
         report: Optional[Path] = typer.Option(None, "--report", help="Write one self-contained HTML report."),
@@ -117,12 +119,18 @@ def register(app: typer.Typer) -> None:
         """Measure every mode of each recording: f_d, beta, f_n, zeta, Q, loss factor, dB/s, T60."""
         from ..pipeline import AnalysisOptions, analyze_many
 
+        started = time.perf_counter()
+
         def run():
             bands = [parse_band(b) for b in band] if band else None
             options = dict(channel=channel, column=column, sample_rate=sample_rate, method=method, bands=bands,
                            max_modes=max_modes, min_snr_db=min_snr_db, keep_double_hits=keep_double_hits)
             AnalysisOptions(method=method, bands=bands, max_modes=max_modes, min_snr_db=min_snr_db)
-            return options, analyze_many(expand_inputs(files), jobs=jobs, **options)
+            paths = expand_inputs(files)
+            bar, task = progress_bar(on_terminal(json_out) and len(paths) > 1, len(paths), "analysing")
+            with bar:
+                done = analyze_many(paths, jobs=jobs or default_jobs(), progress=lambda _a: bar.advance(task), **options)
+            return options, done
 
         options, analyses = guarded(run, debug=debug)
         if debug:
@@ -146,12 +154,16 @@ def register(app: typer.Typer) -> None:
         _render(analyses, plot, plot_format, report, options, debug)
         if store:
             guarded(lambda: _store(analyses, db, part_id, station, operator), debug=debug)
-        raise typer.Exit(EXIT_ERROR if any(a.error is not None for a in analyses) else EXIT_OK)
+        errors = sum(1 for a in analyses if a.error is not None)
+        if len(analyses) > 1 and not json_out:
+            typer.echo(f"{len(analyses)} files: {len(analyses) - errors} analysed, {errors} errors, "
+                       f"{sum(len(a.modes) for a in analyses)} modes in {time.perf_counter() - started:.1f} s")
+        raise typer.Exit(EXIT_ERROR if errors else EXIT_OK)
 
 
 def _store(analyses, db, part_id, station, operator) -> None:
     from ..store import ResultStore, part_id_from_path
-    from .limits import resolve_db
+    from ._common import resolve_db
 
     path = resolve_db(db)
     with ResultStore(path) as st:

@@ -86,7 +86,7 @@ def register(app: typer.Typer) -> None:
     ) -> None:
         """Show stored results: a table, JSON, CSV, or a run chart of every mode in test order."""
         from ..store import ResultStore
-        from .limits import resolve_db
+        from ._common import resolve_db
 
         path = resolve_db(db)
         if json_out and csv_out:

@@ -7,8 +7,6 @@ analysed or the command could not run (errors win over failures).
 from __future__ import annotations
 
 import csv
-import os
-import sys
 import time
 from dataclasses import replace
 from pathlib import Path
@@ -17,20 +15,9 @@ from typing import List, Optional
 import typer
 
 from ._common import (DEBUG_OPTION, EXIT_ERROR, EXIT_FAIL, EXIT_OK, default_jobs, error_line, expand_inputs,
-                      guarded, print_json)
+                      guarded, on_terminal, print_json, progress_bar, resolve_db, DB_ENV)
 
-__all__ = ["register", "resolve_db", "format_check"]
-
-#: Environment variable naming the results database (read here, in the CLI layer only).
-DB_ENV = "RINGDOWN_DB"
-
-
-def resolve_db(db: Optional[str]) -> str:
-    """The database path: ``--db``, else ``$RINGDOWN_DB``, else ``ringdown.sqlite`` here."""
-    from ..store import DEFAULT_DB
-
-    return db or os.environ.get(DB_ENV) or DEFAULT_DB
-
+__all__ = ["register", "format_check"]
 
 def _analysis_options(method, min_snr_db, max_modes, bands) -> dict:
     opts: dict = {}
@@ -41,37 +28,10 @@ def _analysis_options(method, min_snr_db, max_modes, bands) -> dict:
     if max_modes is not None:
         opts["max_modes"] = max_modes
     if bands:
-        from .pipeline import parse_band
+        from .analyze import parse_band
 
         opts["bands"] = [parse_band(b) for b in bands]
     return opts
-
-
-def _progress(enabled: bool, total: int, label: str):
-    """A rich progress bar on stderr when enabled, else a no-op with the same interface."""
-    if enabled:
-        from rich.console import Console
-        from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
-
-        prog = Progress(TextColumn(label), BarColumn(), MofNCompleteColumn(), TimeRemainingColumn(),
-                        console=Console(stderr=True), transient=True)
-        return prog, prog.add_task(label, total=total)
-
-    class _Null:
-        def __enter__(self):
-            return self
-
-        def __exit__(self, *exc):
-            return False
-
-        def advance(self, *a, **k):
-            pass
-
-    return _Null(), None
-
-
-def _on_terminal(json_out: bool) -> bool:
-    return not json_out and sys.stdout.isatty() and sys.stderr.isatty()
 
 
 def format_check(row: dict) -> str:
@@ -236,7 +196,7 @@ def register(app: typer.Typer) -> None:
                                "uniform_shift": old.uniform_shift}
                 else:
                     todo.append(i)
-            prog, task = _progress(_on_terminal(json_out) and len(todo) > 1, len(todo), "checking")
+            prog, task = progress_bar(on_terminal(json_out) and len(todo) > 1, len(todo), "checking")
             with prog:
                 it = iter_check_files([paths[i] for i in todo], lim, jobs=max(1, jobs))
                 for pos, res in it:
