@@ -61,7 +61,7 @@ from __future__ import annotations
 import math
 import os
 import statistics
-from dataclasses import dataclass, field
+from dataclasses import asdict, dataclass, field
 from typing import Any, Sequence
 
 import numpy as np
@@ -243,19 +243,7 @@ class DampingChange:
     verdict: str
 
     def to_dict(self) -> dict:
-        return {
-            "scale": self.scale,
-            "ratio": self.ratio,
-            "ratio_low": self.ratio_low,
-            "ratio_high": self.ratio_high,
-            "log_ratio": self.log_ratio,
-            "log_ratio_u": self.log_ratio_u,
-            "dof": self.dof,
-            "p_value": self.p_value,
-            "test": self.test,
-            "confidence": self.confidence,
-            "verdict": self.verdict,
-        }
+        return asdict(self)
 
 
 @dataclass(frozen=True, slots=True)
@@ -286,18 +274,7 @@ class FrequencyShift:
     verdict: str
 
     def to_dict(self) -> dict:
-        return {
-            "shift_hz": self.shift_hz,
-            "shift_hz_u": self.shift_hz_u,
-            "low_hz": self.low_hz,
-            "high_hz": self.high_hz,
-            "relative": self.relative,
-            "dof": self.dof,
-            "p_value": self.p_value,
-            "test": self.test,
-            "confidence": self.confidence,
-            "verdict": self.verdict,
-        }
+        return asdict(self)
 
 
 @dataclass(frozen=True, slots=True, eq=False)
