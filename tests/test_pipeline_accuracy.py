@@ -1,0 +1,107 @@
+"""Accuracy targets of the whole pipeline (``ringdown.analyze``), not just one estimator.
+
+References: analytic damped cosines with seeded noise (FIELD.md section 1) and the eigenvalues
+of a state matrix computed with scipy.linalg.eig (an exact reference for a simulated system).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy import linalg
+
+import ringdown
+from conftest import ringdown_modes
+
+
+def _match(modes, f_true):
+    return min(modes, key=lambda m: abs(m.f_d_hz - f_true))
+
+
+def test_close_pair_and_a_far_mode_come_out_as_three_modes():
+    # issue target: two modes 8 Hz apart near 1 kHz (beta 5 and 8 1/s) plus a far mode -> three
+    # modes, f within 0.05 %, beta within 10 %. 2 s at 48 kHz, 50 dB (invented test signal).
+    truth = [(1000.0, 5.0, 1.0, 0.3), (1008.0, 8.0, 0.8, 1.9), (2700.0, 20.0, 0.5, -0.8)]
+    x = ringdown_modes(truth, sample_rate=48000.0, duration_s=2.0, snr_db=50.0, seed=21)
+    a = ringdown.analyze(x, 48000.0)
+    assert len(a.modes) == 3, [m.f_d_hz for m in a.modes]
+    for f, beta, *_ in truth:
+        m = _match(a.modes, f)
+        assert m.f_d_hz == pytest.approx(f, rel=5e-4)
+        assert m.beta_per_s == pytest.approx(beta, rel=0.10)
+        assert m.method == "pencil"
+
+
+def test_close_pair_carries_the_disagreement_of_the_band_filter_methods():
+    # the envelope and decrement fits on sub-bands split at the midpoint cannot separate the pair;
+    # their figures stay in cross_checks and the disagreement is flagged with a stable code
+    truth = [(1000.0, 5.0, 1.0, 0.3), (1008.0, 8.0, 0.8, 1.9)]
+    x = ringdown_modes(truth, sample_rate=48000.0, duration_s=2.0, snr_db=50.0, seed=22)
+    a = ringdown.analyze(x, 48000.0)
+    assert len(a.modes) == 2
+    assert any("methods_disagree" in m.warning_codes for m in a.modes)
+    for m in a.modes:
+        assert {"envelope", "decrement"} <= set(m.cross_checks)
+
+
+def test_clean_single_mode_has_no_disagreement():
+    x = ringdown_modes([(1234.5, 10.0, 1.0, 0.4)], sample_rate=16000.0, duration_s=1.0, snr_db=40.0, seed=23)
+    (m,) = ringdown.analyze(x, 16000.0).modes
+    assert "methods_disagree" not in m.warning_codes
+    assert set(m.cross_checks) == {"envelope", "decrement", "half_power"}
+
+
+def test_high_q_ringdown_within_one_percent():
+    # Q 20 000 at 30 kHz: beta = pi f / Q = 4.712 1/s (FIELD.md section 1, Q = omega_0 / 2 beta),
+    # sampled at 192 kHz for 2 s, 40 dB
+    f, q = 30000.0, 20000.0
+    beta = math.pi * f / q
+    x = ringdown_modes([(f, beta, 1.0)], sample_rate=192000.0, duration_s=2.0, snr_db=40.0, seed=24)
+    (m,) = ringdown.analyze(x, 192000.0).modes
+    assert m.beta_per_s == pytest.approx(beta, rel=0.01)
+    assert m.q == pytest.approx(q, rel=0.01)
+
+
+def test_slow_ringdown_within_one_percent():
+    # 1.5 Hz, zeta 2 %, sampled at 100 Hz for a minute, 40 dB: beta = zeta omega_0 and
+    # f_d = f_0 sqrt(1 - zeta^2) (FIELD.md section 1)
+    f0, zeta = 1.5, 0.02
+    beta = zeta * 2 * math.pi * f0
+    f_d = f0 * math.sqrt(1 - zeta**2)
+    x = ringdown_modes([(f_d, beta, 1.0, 0.7)], sample_rate=100.0, duration_s=60.0, pre_s=2.0, snr_db=40.0, seed=25)
+    (m,) = ringdown.analyze(x, 100.0).modes
+    assert m.beta_per_s == pytest.approx(beta, rel=0.01)
+    assert m.zeta == pytest.approx(zeta, rel=0.01)
+
+
+def test_three_dof_chain_with_modal_damping_within_two_percent():
+    # 3-DOF fixed-free chain with modal (proportional) damping C = M Phi diag(2 zeta w) Phi^T M;
+    # truth = eigenvalues of the state matrix [[0, I], [-M^-1 K, -M^-1 C]] (scipy.linalg.eig);
+    # impulse response by modal superposition of the state-matrix eigenvectors (exact)
+    m = np.diag([1.0, 0.8, 0.6])
+    k1, k2, k3 = 4e6, 3e6, 2e6
+    K = np.array([[k1 + k2, -k2, 0], [-k2, k2 + k3, -k3], [0, -k3, k3]])
+    w2, phi = linalg.eigh(K, m)  # mass-normalised modes
+    zetas = np.array([0.004, 0.006, 0.009])
+    C = m @ phi @ np.diag(2 * zetas * np.sqrt(w2)) @ phi.T @ m
+    A = np.block([[np.zeros((3, 3)), np.eye(3)], [-np.linalg.solve(m, K), -np.linalg.solve(m, C)]])
+    lam, V = linalg.eig(A)
+    up = lam[lam.imag > 0]
+    up = up[np.argsort(up.imag)]
+    fs = 16000.0
+    x0 = np.zeros(6)
+    x0[3] = 1.0  # unit velocity of mass 1 (impulse)
+    coef = np.linalg.solve(V, x0)
+    n_pre = 800
+    t = np.arange(int(1.5 * fs)) / fs
+    y = (V[5, :] * coef * np.exp(np.outer(t, lam))).sum(axis=1).real  # velocity of mass 3
+    x = np.concatenate([np.zeros(n_pre), y])
+    x = x / np.abs(x).max() + 1e-4 * np.random.default_rng(26).standard_normal(x.size)
+    a = ringdown.analyze(x, fs)
+    assert len(a.modes) == 3
+    for s in up:
+        mm = _match(a.modes, s.imag / (2 * math.pi))
+        assert mm.f_d_hz == pytest.approx(s.imag / (2 * math.pi), rel=5e-4)
+        assert mm.beta_per_s == pytest.approx(-s.real, rel=0.02)
