@@ -433,7 +433,8 @@ def render_report(analyses, *, settings: dict | None = None, title: str | None =
     title : str or None
         Document title; "Ring-down report" when None.
     extra_sections : iterable of Section or (title, html_fragment)
-        Added after the recordings, before the definitions (fragments are inserted as given).
+        Added after the summary, before the recordings' own sections (fragments are inserted as
+        given): a comparison or a pass/fail table is what the reader came for.
     figures : bool
         Embed figures (True) or leave them out (faster, smaller).
     figure_format : {"png", "svg"}
@@ -486,11 +487,12 @@ def render_report(analyses, *, settings: dict | None = None, title: str | None =
         parts.append(_summary(analyses, anchors))
     else:
         parts.append('<p class="note">No recordings were given.</p>')
-    for n, (a, anchor) in enumerate(zip(analyses, anchors), 1):
-        parts.append(_file_section(a, n, anchor, figure_format, figures))
+    # the conclusions of a comparison or a check come before the per-file detail
     for s in sections:
         anchor = s.anchor or _slug(s.title, used)
         parts.append(f'<section class="extra" id="{_e(anchor)}"><h2>{_e(s.title)}</h2>{s.html}</section>')
+    for n, (a, anchor) in enumerate(zip(analyses, anchors), 1):
+        parts.append(_file_section(a, n, anchor, figure_format, figures))
     parts.append(_DEFINITIONS)
     parts.append(_CAUTION)
     parts.append(f'<footer><p class="meta">Made by ringdown {_e(__version__)}.</p></footer></body></html>\n')
