@@ -655,7 +655,13 @@ def plot_damping_vs_amplitude(mode, *, ax=None):
     ax.set_xlabel("amplitude, recording units")
     ax.set_ylabel("decay rate β, 1/s", color=_OI_BLUE)
     if np.all(amp > 0) and amp.max() / amp.min() > 20:
+        from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+
         ax.set_xscale("log")
+        # labels at 1-2-5 steps in plain numbers: default minor labels crowd a short log axis
+        ax.xaxis.set_major_locator(LogLocator(base=10.0, subs=(1.0, 2.0, 5.0)))
+        ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _pos: f"{v:g}"))
+        ax.xaxis.set_minor_formatter(NullFormatter())
     tw = ax.twinx()
     tw.plot(amp, fd, color=_OI_VERMILLION, marker="s", markersize=4.5, linestyle=(0, (5, 2)), linewidth=1.2,
             label="damped frequency")
