@@ -155,3 +155,15 @@ def test_csv_plot_report(files, tmp_path):
     assert "tap&lt;1&gt;&amp;.wav" in html_text
     assert "tap<1>" not in html_text
     assert "data:image/png;base64," in html_text
+
+
+def test_analysis_options_reach_the_analysis(files):
+    # --method / --band are passed to every analysis and recorded in the settings
+    _, b, a = files
+    r = CliRunner().invoke(_app(), ["compare", *_args("before", b), *_args("after", a), "--json",
+                                    "--method", "envelope", "--band", "400:600"])
+    assert r.exit_code == 0, r.output
+    doc = json.loads(r.stdout)
+    assert doc["settings"]["analysis_options"]["method"] == "envelope"
+    assert doc["settings"]["analysis_options"]["bands"] == [[400.0, 600.0]]
+    assert [round(m["before"]["f_d_hz"]) for m in doc["modes"]] == [500]  # only the band given

@@ -104,6 +104,7 @@ def register(app: typer.Typer) -> None:
         band: Optional[List[str]] = typer.Option(None, "--band", help="Analyse this band LOW:HIGH in Hz instead of searching (repeatable)."),
         max_modes: Optional[int] = typer.Option(None, "--max-modes", help="Keep at most this many modes (the strongest)."),
         min_snr_db: float = typer.Option(10.0, "--min-snr-db", help="Fits end where a mode is this far above its band noise, dB."),
+        min_hit_snr_db: float = typer.Option(20.0, "--min-hit-snr-db", help="A hit must rise this far above the noise floor, dB."),
         keep_double_hits: bool = typer.Option(False, "--keep-double-hits", help="Combine hits flagged as hammer bounces too."),
         jobs: Optional[int] = typer.Option(None, "--jobs", help="Worker processes for a batch (default: the number of cores)."),
         plot: Optional[Path] = typer.Option(None, "--plot", help="Write figures for each file into this folder."),
@@ -124,8 +125,10 @@ def register(app: typer.Typer) -> None:
         def run():
             bands = [parse_band(b) for b in band] if band else None
             options = dict(channel=channel, column=column, sample_rate=sample_rate, method=method, bands=bands,
-                           max_modes=max_modes, min_snr_db=min_snr_db, keep_double_hits=keep_double_hits)
-            AnalysisOptions(method=method, bands=bands, max_modes=max_modes, min_snr_db=min_snr_db)
+                           max_modes=max_modes, min_snr_db=min_snr_db, min_hit_snr_db=min_hit_snr_db,
+                           keep_double_hits=keep_double_hits)
+            AnalysisOptions(method=method, bands=bands, max_modes=max_modes, min_snr_db=min_snr_db,
+                            min_hit_snr_db=min_hit_snr_db)
             paths = expand_inputs(files)
             bar, task = progress_bar(on_terminal(json_out) and len(paths) > 1, len(paths), "analysing")
             with bar:

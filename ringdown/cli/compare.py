@@ -191,6 +191,11 @@ def register(app: typer.Typer) -> None:
         tolerance: float = typer.Option(
             0.1, "--tolerance", help="Relative frequency tolerance for pairing modes (0.1 = 10 %)."
         ),
+        method: str = typer.Option("auto", "--method", help="Estimator (as for analyze)."),
+        channel: Optional[str] = typer.Option(None, "--channel", help="Audio channel (as for analyze)."),
+        band: Optional[List[str]] = typer.Option(None, "--band", help="Band LOW:HIGH in Hz (repeatable, as for analyze)."),
+        min_hit_snr_db: float = typer.Option(20.0, "--min-hit-snr-db", help="A hit must rise this far above the noise, dB."),
+        keep_double_hits: bool = typer.Option(False, "--keep-double-hits", help="Count bounced hits as repeats too."),
         debug: bool = DEBUG_OPTION,
     ) -> None:
         if ctx.args:
@@ -203,7 +208,16 @@ def register(app: typer.Typer) -> None:
 
         b = expand_inputs(before)
         a = expand_inputs(after)
-        comparison = guarded(lambda: compare(b, a, tolerance=tolerance, confidence=confidence), debug=debug)
+        def run():
+            from .analyze import parse_band
+
+            options = dict(method=method, channel=channel, min_hit_snr_db=min_hit_snr_db,
+                           keep_double_hits=keep_double_hits)
+            if band:
+                options["bands"] = [parse_band(x) for x in band]
+            return compare(b, a, tolerance=tolerance, confidence=confidence, **options)
+
+        comparison = guarded(run, debug=debug)
         if json_out:
             print_json(comparison.to_dict())
         else:
