@@ -28,6 +28,8 @@ __all__ = ["analyze", "analyze_recording", "analyze_file", "analyze_many", "Anal
 
 #: Fewest samples a recording may have.
 MIN_SAMPLES = 64
+#: Largest sample magnitude accepted: power sums of larger values overflow float64.
+MAX_ABS_SAMPLE = 1e100
 #: Estimators that resolve several modes in one band jointly.
 _MULTI_MODE = frozenset({"pencil"})
 
@@ -235,6 +237,10 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
                 f"band {lo:g}-{hi:g} Hz lies above Nyquist ({nyq:g} Hz) for {name}; lower the band or resample"
             )
     raw = rec.samples
+    peak_abs = float(np.max(np.abs(raw)))
+    if peak_abs > MAX_ABS_SAMPLE:
+        raise InputError(f"{name} holds values up to {peak_abs:.3g}, beyond the {MAX_ABS_SAMPLE:g} that can be squared "
+                         "without overflow; rescale the signal (e.g. to volts or m/s^2)")
     if float(np.ptp(raw)) == 0.0:
         raise InputError(f"{name} is constant (every sample is {raw[0]:g}): nothing rings down")
     x = condition.remove_drift(raw, fs)

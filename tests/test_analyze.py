@@ -411,3 +411,11 @@ def test_moderately_damped_mode_measured_in_a_given_band():
 def test_moderately_damped_mode_is_found():
     x, f_d, beta = moderately_damped_record()
     assert_modes_match(analyze(x, 10000.0), [f_d], [beta])
+
+
+def test_values_too_large_to_square_are_refused():
+    # float64 overflows past ~1.8e308, so sums of squares of samples beyond ~1e154 overflow;
+    # the pipeline refuses samples above 1e100 with a message that says what to do
+    x = ringdown_modes([(440.0, 12.0, 1.0)], sample_rate=8000.0, duration_s=0.5, seed=3) * 1e120
+    with pytest.raises(InputError, match="rescale"):
+        analyze(x, 8000.0)
