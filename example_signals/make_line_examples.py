@@ -33,8 +33,8 @@ MASS_KG = np.array([0.05, 0.05, 0.05])
 STIFFNESS_N_PER_M = np.full(3, 0.05 * (2 * np.pi * 1500.0) ** 2 / 0.1981)
 #: Modal damping ratios of a good part (invented; sintered steel damps more than wrought steel).
 ZETA = np.array([8e-4, 6e-4, 5e-4])
-#: Modal amplitudes seen by the microphone, full scale = 1 (one strong mode: the broadband envelope
-#: of comparable modes beats by more than 10 dB, which a hit detector may take for a bounce).
+#: Modal amplitudes seen by the microphone, full scale = 1 (invented: one strong mode, as a
+#: microphone near an antinode of the first mode would hear it).
 AMPLITUDE = np.array([0.5, 0.12, 0.06])
 #: Relative frequency change of steel per kelvin (FIELD.md section 4, from memory).
 STEEL_PER_K = -0.014e-2
