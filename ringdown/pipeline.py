@@ -281,7 +281,7 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
         raise NoRingdownError(f"no mode could be measured in {name}: {reasons}")
     modes = _combine_hits(used)
     for h in hits:
-        rec_warnings.extend(w for w in h.warnings if w.code in ("double_hit", "clipped"))
+        rec_warnings.extend(w for w in h.warnings if w.code in ("double_hit", "clipped", "stationary_tone"))
     return Analysis(
         path=rec.path,
         sha256=rec.sha256,
@@ -341,7 +341,9 @@ def _band_noise_rms(band: Band, noise_f: np.ndarray, noise_p: np.ndarray) -> flo
 def _analyze_hit(x, fs, span, j, spans, clipped, noise_f, noise_p, opts, noise_db, level) -> Hit:
     warnings: list[Notice] = []
     prev_end = spans[j - 1].end if j > 0 else 0
-    pre = int(round(0.02 * fs))
+    # up to 0.1 s before the onset: room for the band filter to settle, then a look at what the
+    # band held before the hit (a steady tone is there already, a mode is not)
+    pre = int(round(0.1 * fs))
     seg_start = max(prev_end, span.onset - pre, 0)
     seg_end = span.end
     onset_s = span.onset / fs
@@ -435,6 +437,11 @@ def _measure_group(spec, peaks_g: list[Peak], lo, hi, onset_s, clip_end, seg_end
     group_band = _extract(spec, lo, hi, noise_f, noise_p)
     # first guess of the decay rate from the spectral peaks' half-power width (beta ~ pi width)
     beta_hint = max((math.pi * p.width_hz for p in peaks_g), default=0.0)
+    if peaks_g and _steady_before_onset(group_band, onset_s, beta_hint):
+        where = ", ".join(f"{p.f_hz:.1f}" for p in peaks_g)
+        hit_warnings.append(Notice("stationary_tone", f"steady tone at {where} Hz was already there before the hit "
+                                                      "(mains hum or another running source?); not reported as a mode"))
+        return []
     group_window = _window_for(group_band, onset_s, clip_end, seg_end, fs, opts.min_snr_db, beta_hint)
     # single-mode sub-bands: one per peak, split at the midpoints
     if len(peaks_g) > 1:
@@ -500,14 +507,40 @@ def _measure_group(spec, peaks_g: list[Peak], lo, hi, onset_s, clip_end, seg_end
     return modes
 
 
+def _steady_before_onset(band: Band, onset_s: float, beta_hint: float) -> bool:
+    """Whether the band held, before the hit, a level within 10 dB of its peak after the hit:
+    then the hit did not start it, and it is a steady tone, not a mode (common practice, no
+    source). False when there are fewer than 3 samples clear of the filter's settling."""
+    env = np.abs(band.z)
+    settle = settling_time_s(band, beta_per_s=beta_hint, level=1e-2)
+    t = band.t_s
+    before = env[(t >= band.t0_s + settle) & (t <= onset_s - settle)]
+    after = env[t >= onset_s]
+    if before.size < 3 or after.size == 0:
+        return False
+    return bool(np.median(before) > float(np.max(after)) * 10 ** (-10 / 20))
+
+
 def _is_stationary(est: Estimate, band: Band, window: Window, seg_end_s: float) -> bool:
-    """A tone that keeps its level: less than 6 dB of decay over the whole hit segment, or a
-    tail level within 6 dB of the level at the window start (common practice, no source)."""
+    """Whether a component is a steady tone (hum, a running drive) rather than a mode.
+
+    A mode starts with the hit. When the band holds at least 3 samples before the onset (clear
+    of the filter's settling), a tone is steady if it was already there within 10 dB of its
+    level at the window start. Without such samples, it is steady if it decays less than 6 dB
+    over the whole hit, or its tail stays within 6 dB of the level at the window start
+    (thresholds: common practice, no source). A lightly damped mode in a short record is
+    therefore kept (with ``short_decay``) when the record shows it start.
+    """
+    env = np.abs(band.z)
+    i0 = band.index_of(window.start_s)
+    settle = window.start_s - window.onset_s
+    t = band.t_s
+    before = env[(t >= band.t0_s + settle) & (t <= window.onset_s - settle)]
+    if before.size >= 3:
+        return bool(np.median(before) > env[i0] * 10 ** (-10 / 20))
     span = max(seg_end_s - window.onset_s, 1e-12)
     if DB_PER_NEPER * est.beta_per_s * span < 6.0:
         return True
-    env = np.abs(band.z)
-    i0 = band.index_of(window.start_s)
     n = env.shape[0]
     tail = env[max(i0 + 1, n - max(n // 5, 1)):]
     return bool(tail.size and np.median(tail) > env[i0] * 10 ** (-6 / 20))
