@@ -269,7 +269,7 @@ def match_modes(freqs_hz: Sequence[float], ref_hz: Sequence[float], *, tolerance
     ref_hz : sequence of float, Hz
         Reference frequencies.
     tolerance : float, > 0
-        Largest relative distance ``|f / f_ref - 1|`` of a pair.
+        A pair's higher frequency exceeds its lower one by at most this fraction.
 
     Returns
     -------
@@ -278,21 +278,19 @@ def match_modes(freqs_hz: Sequence[float], ref_hz: Sequence[float], *, tolerance
 
     Notes
     -----
-    One-to-one assignment minimising the summed relative distances (Hungarian method,
-    :func:`scipy.optimize.linear_sum_assignment`), so two close reference modes never claim the
-    same measured mode.
+    One-to-one and in frequency order (no crossing), closest in log frequency
+    (:func:`ringdown.matching.match_frequencies`), so two close reference modes never claim the
+    same measured mode and a missing mode never shifts its neighbours' pairs.
     """
-    from scipy.optimize import linear_sum_assignment
+    from .matching import match_frequencies
 
     f = np.asarray(list(freqs_hz), dtype=float)
     r = np.asarray(list(ref_hz), dtype=float)
     if f.size == 0 or r.size == 0:
         return {}
-    cost = np.abs(f[None, :] / r[:, None] - 1.0)
-    big = 1e6
-    masked = np.where(cost <= tolerance, cost, big)
-    rows, cols = linear_sum_assignment(masked)
-    return {int(i): int(j) for i, j in zip(rows, cols) if masked[i, j] < big}
+    fo, ro = np.argsort(f), np.argsort(r)
+    pairs = match_frequencies(r[ro], f[fo], tolerance=tolerance)
+    return {int(ro[i]): int(fo[j]) for i, j in pairs}
 
 
 # --------------------------------------------------------------------------------------------
