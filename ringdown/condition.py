@@ -25,6 +25,7 @@ __all__ = [
     "find_hits",
     "find_clipping",
     "noise_psd",
+    "steady_tones",
 ]
 
 _EPS = 1e-300
@@ -310,3 +311,36 @@ def noise_psd(x_noise: np.ndarray, sample_rate: float) -> tuple[np.ndarray, np.n
     nper = int(min(x_noise.shape[0], max(256, 2 ** int(math.floor(math.log2(max(x_noise.shape[0] // 4, 16)))))))
     f, p = signal.welch(x_noise, fs=sample_rate, nperseg=nper, detrend="constant")
     return f, p
+
+
+def steady_tones(f_hz: np.ndarray, psd: np.ndarray, *, min_prominence_db: float = 15.0) -> list[float]:
+    """Frequencies of narrow lines in a noise-only spectrum: tones that run whatever the part
+    does (mains hum and its harmonics, a running machine), Hz.
+
+    A line is a local maximum of the Welch spectrum at least ``min_prominence_db`` above the
+    running median of the spectrum over 9 bins (common practice, no source); its frequency is
+    refined by parabolic interpolation of the dB spectrum.
+
+    Parameters
+    ----------
+    f_hz, psd : (k,) ndarray of float
+        From :func:`noise_psd`.
+    """
+    from scipy import ndimage
+
+    if psd.shape[0] < 9:
+        return []
+    db = 10.0 * np.log10(psd + 1e-300)
+    floor = ndimage.median_filter(db, size=9, mode="nearest")
+    inner = db[1:-1]
+    k = np.flatnonzero((inner > db[:-2]) & (inner >= db[2:]) & (inner - floor[1:-1] >= min_prominence_db)) + 1
+    out = []
+    df = f_hz[1] - f_hz[0]
+    for i in k:
+        if i < 2:  # DC and the bin next to it hold what is left of the offset
+            continue
+        a, b, c = db[i - 1], db[i], db[i + 1]
+        den = a - 2 * b + c
+        off = float(np.clip(0.5 * (a - c) / den, -0.5, 0.5)) if den != 0 else 0.0
+        out.append(float(f_hz[i] + off * df))
+    return out

@@ -40,7 +40,7 @@ def find_peaks(
     max_peaks: int | None = None,
     f_min_hz: float | None = None,
     noise_psd: tuple[np.ndarray, np.ndarray] | None = None,
-    noise_margin_db: float = 10.0,
+    noise_margin_db: float | None = None,
 ) -> list[Peak]:
     """Spectral peaks of a decay segment that stand above their local floor.
 
@@ -49,7 +49,10 @@ def find_peaks(
     running median of the dB spectrum over 1/8 of the band (wide, so that a moderately damped
     mode does not lift its own floor); a peak must stand ``min_prominence_db`` above it (15 dB:
     common practice, no source) and, when a noise spectrum is given, ``noise_margin_db`` above
-    the level that noise alone gives in this spectrum.
+    the level that noise alone gives in this spectrum. By default that margin is
+    ``10 log10(ln m + 7) + 2`` dB for m bins (about 14 dB): noise periodogram bins are
+    exponentially distributed about their mean, so the largest of m sits near ``ln m`` times
+    it, and a fixed 10 dB margin lets noise maxima through as false modes [derived].
 
     Parameters
     ----------
@@ -85,7 +88,13 @@ def find_peaks(
     height = floor + min_prominence_db
     if noise_psd is not None:
         # E|X_k|^2 / n^2 of windowed noise = S(f) fs sum(w^2) / (2 n^2) for one-sided density S
-        level = np.interp(f, noise_psd[0], noise_psd[1]) * sample_rate * w2 / (2.0 * n * n)
+        # the Welch DC bin is emptied by its detrending: hold the first real bin's level below it
+        level = np.interp(f, noise_psd[0][1:], noise_psd[1][1:]) * sample_rate * w2 / (2.0 * n * n)
+        if noise_margin_db is None:
+            # periodogram bins of noise are exponentially distributed about their mean: the chance
+            # that any of the m bins exceeds (ln m + 7) times the mean is about e^-7 = 1e-3
+            # [derived]; 2 dB more for the scatter of the Welch estimate of that mean
+            noise_margin_db = 10.0 * math.log10(math.log(f.shape[0]) + 7.0) + 2.0
         height = np.maximum(height, 10.0 * np.log10(level + 1e-300) + noise_margin_db)
     # local maxima above the height first, then the (costlier) prominence of those alone
     inner = p_db[1:-1]
@@ -146,6 +155,7 @@ def group_bands(
     resolution_hz: float,
     min_factor: float = 8.0,
     want_factor: float = 80.0,
+    barriers_hz=(),
 ) -> list[tuple[list[Peak], float, float]]:
     """Give each peak a band, merging peaks too close to be filtered apart.
 
@@ -159,7 +169,8 @@ def group_bands(
     group, extracted together (the parametric estimator separates them). A group's band
     reaches ``h`` beyond its outer peaks but never past the midpoint to the next group, and is
     symmetric about its outer peaks (the narrower margin on both sides), since an uneven band
-    weights a mode's spectrum unevenly.
+    weights a mode's spectrum unevenly. ``barriers_hz`` (steady tones found before the hit)
+    bound bands like neighbouring peaks do, so that no tone sits inside a mode's band.
 
     Returns
     -------
@@ -186,6 +197,11 @@ def group_bands(
         if g_i + 1 < len(groups):
             nxt = groups[g_i + 1][0]
             hi = min(hi, 0.5 * (peaks[g[-1]].f_hz + peaks[nxt].f_hz))
+        for b in barriers_hz:
+            if b < peaks[g[0]].f_hz:
+                lo = max(lo, 0.5 * (b + peaks[g[0]].f_hz))
+            elif b > peaks[g[-1]].f_hz:
+                hi = min(hi, 0.5 * (b + peaks[g[-1]].f_hz))
         lo = max(lo, 0.0)
         hi = min(hi, nyq)
         margin = min(peaks[g[0]].f_hz - lo, hi - peaks[g[-1]].f_hz)

@@ -265,11 +265,16 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
     if rec.timing_jitter is not None and rec.timing_jitter > 1e-6:
         rec_warnings.append(Notice("timing_jitter", f"time steps jitter by {100 * rec.timing_jitter:.3g} % RMS (accepted)"))
 
-    noise_f, noise_p = _noise_spectrum(x, fs, spans)
+    noise_f, noise_p, noise_is_pre = _noise_spectrum(x, fs, spans)
+    tones = condition.steady_tones(noise_f, noise_p) if noise_is_pre else []
+    if tones:
+        for f_tone in tones:
+            rec_warnings.append(Notice("stationary_tone", f"steady tone near {f_tone:.1f} Hz before the hit (mains hum or "
+                                                          "another running source?); not a mode"))
 
     hits: list[Hit] = []
     for j, span in enumerate(spans):
-        hits.append(_analyze_hit(x, fs, span, j, spans, clipped, noise_f, noise_p, opts, noise_db, level))
+        hits.append(_analyze_hit(x, fs, span, j, spans, clipped, noise_f, noise_p, opts, noise_db, level, tones))
 
     used = [h for h in hits if h.used and h.modes]
     if not used and any(h.modes for h in hits):
@@ -313,32 +318,35 @@ def _unique(notices: Iterable[Notice]) -> list[Notice]:
     return out
 
 
-def _noise_spectrum(x: np.ndarray, fs: float, spans) -> tuple[np.ndarray, np.ndarray]:
-    """Noise PSD from the pre-trigger part, else from the record's last 10 %."""
+def _noise_spectrum(x: np.ndarray, fs: float, spans) -> tuple[np.ndarray, np.ndarray, bool]:
+    """Noise PSD from the pre-trigger part, else from the record's last 10 %; and whether it
+    came from the pre-trigger."""
     guard = max(2, int(round(0.002 * fs)))
     pre_end = spans[0].onset - guard
     min_len = max(MIN_SAMPLES, int(round(0.01 * fs)))
     if pre_end >= min_len:
-        seg = x[:pre_end]
-    else:
-        n_tail = max(min_len, x.shape[0] // 10)
-        seg = x[-n_tail:]
-    return condition.noise_psd(seg, fs)
+        return (*condition.noise_psd(x[:pre_end], fs), True)
+    n_tail = max(min_len, x.shape[0] // 10)
+    return (*condition.noise_psd(x[-n_tail:], fs), False)
 
 
 def _band_noise_rms(band: Band, noise_f: np.ndarray, noise_p: np.ndarray) -> float:
-    """RMS of ``|z|`` that the noise alone gives in this band: sqrt(2 S B_noise)."""
-    lo = band.f_lo_hz - band.skirt_hz
-    hi = band.f_hi_hz + band.skirt_hz
-    sel = (noise_f >= lo) & (noise_f <= hi)
-    if sel.any():
-        s = float(np.mean(noise_p[sel]))
+    """RMS of ``|z|`` that the noise alone gives in this band: ``sqrt(2 S B)``, with ``S`` the
+    noise density weighted by the squared mask and ``B`` the mask's noise bandwidth.
+
+    The Welch DC bin is left out (its detrending empties it); a band narrower than two Welch
+    bins takes the density interpolated at its centre.
+    """
+    f_w, p_w = noise_f[1:], noise_p[1:]
+    weight = band.mask(f_w) ** 2
+    if weight.sum() >= 2.0:
+        s = float(np.sum(weight * p_w) / np.sum(weight))
     else:
-        s = float(np.interp(0.5 * (lo + hi), noise_f, noise_p))
+        s = float(np.interp(band.centre_hz, f_w, p_w))
     return math.sqrt(max(2.0 * s * band.width_hz, 1e-300))  # width_hz = integral of mask^2
 
 
-def _analyze_hit(x, fs, span, j, spans, clipped, noise_f, noise_p, opts, noise_db, level) -> Hit:
+def _analyze_hit(x, fs, span, j, spans, clipped, noise_f, noise_p, opts, noise_db, level, tones=()) -> Hit:
     warnings: list[Notice] = []
     prev_end = spans[j - 1].end if j > 0 else 0
     # up to 0.1 s before the onset: room for the band filter to settle, then a look at what the
@@ -371,7 +379,7 @@ def _analyze_hit(x, fs, span, j, spans, clipped, noise_f, noise_p, opts, noise_d
         groups = [([], lo, hi) for lo, hi in opts.bands]
     else:
         peaks = find_peaks(decay, fs, max_peaks=opts.max_modes, noise_psd=(noise_f, noise_p))
-        groups = group_bands(peaks, sample_rate=fs, resolution_hz=fs / decay.shape[0])
+        groups = group_bands(peaks, sample_rate=fs, resolution_hz=fs / decay.shape[0], barriers_hz=tones)
     modes: list[Mode] = []
     failed: list[str] = []
     for peaks_g, lo, hi in groups:
