@@ -36,15 +36,13 @@ class HitSpan:
     """Sample indices of one hit: onset, envelope peak, end of its decay (exclusive).
 
     ``bounce`` is the index of a second onset within the hit's first milliseconds (a hammer
-    bounce), or ``None``. ``clip_end`` is the index just after the last clipped sample of the
-    hit, or ``None`` when the hit is not clipped.
+    bounce), or ``None``.
     """
 
     onset: int
     peak: int
     end: int
     bounce: int | None = None
-    clip_end: int | None = None
 
 
 #: Degree of the Legendre polynomial removed as offset and drift.
