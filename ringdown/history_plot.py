@@ -13,7 +13,9 @@ from typing import Sequence
 __all__ = ["plot_run_chart"]
 
 _FEATURES = {"f_d_hz": ("f_d [Hz]", "f_hz"), "zeta": ("damping ratio", "zeta")}
-_COLOURS = {"pass": "#1f77b4", "fail": "#d62728", "error": "#7f7f7f", None: "#2ca02c"}
+# Okabe-Ito colours (Wong, Nature Methods 8:441, 2011), as in plots.py; markers differ too, so
+# the chart reads in greyscale
+_COLOURS = {"pass": "#0072B2", "fail": "#D55E00", "error": "#000000", None: "#009E73"}
 _MARKERS = {"pass": "o", "fail": "X", "error": "s", None: "D"}
 
 
