@@ -386,7 +386,7 @@ def _read_sound(name, info, *, channel, column, sample_rate, limit, max_bytes) -
     _check_length(samples.shape[0], name)
     return Recording(samples=samples, sample_rate=rate, channel=str(index), path=name,
                      sha256=_sha256_file(name), full_scale=_full_scale(str(info.subtype)),
-                     timing_jitter=None)
+                     timing_jitter=None, n_channels=n_channels)
 
 
 def _parse_index(choice: object) -> int | None:
@@ -859,4 +859,4 @@ def _read_text(name, size, *, channel, column, sample_rate, limit, max_bytes) ->
     samples = np.ascontiguousarray(arr[:, j])
     del arr
     return Recording(samples=samples, sample_rate=rate, channel=label, path=name, sha256=digest,
-                     full_scale=None, timing_jitter=jitter)
+                     full_scale=None, timing_jitter=jitter, n_channels=len(data_cols))

@@ -256,9 +256,11 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
                                 slow_level_db=condition.envelope_db(x, fs, window_s=3e-3, smoothing=smoothing))
     if not spans:
         peak_db = float(level.max() - noise_db)
+        hint = (f"; it holds {rec.n_channels} channels (this is {rec.channel!r}): try another with --channel"
+                if rec.n_channels > 1 else "")
         raise NoRingdownError(
             f"no ring-down found in {name}: the envelope never rises {opts.min_hit_snr_db:g} dB above its "
-            f"noise floor (highest {peak_db:.1f} dB); check the gain, the trigger or the file"
+            f"noise floor (highest {peak_db:.1f} dB); check the gain, the trigger or the file{hint}"
         )
     clipped = condition.find_clipping(raw, full_scale=rec.full_scale)
     rec_warnings: list[Notice] = []

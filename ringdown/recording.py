@@ -33,6 +33,8 @@ class Recording:
     timing_jitter : float or None
         For text files with a time column: RMS deviation of the time steps from their mean,
         as a fraction of the mean step.
+    n_channels : int
+        How many channels (audio) or data columns (text) the source holds; 1 for an array.
     """
 
     samples: np.ndarray
@@ -42,6 +44,7 @@ class Recording:
     sha256: str | None = None
     full_scale: float | None = None
     timing_jitter: float | None = None
+    n_channels: int = 1
 
     def __post_init__(self) -> None:
         x = np.asarray(self.samples, dtype=np.float64)

@@ -419,3 +419,21 @@ def test_values_too_large_to_square_are_refused():
     x = ringdown_modes([(440.0, 12.0, 1.0)], sample_rate=8000.0, duration_s=0.5, seed=3) * 1e120
     with pytest.raises(InputError, match="rescale"):
         analyze(x, 8000.0)
+
+
+def test_silent_first_channel_points_to_the_channel_option(tmp_path):
+    # a stereo file whose ring-down is on channel 2 only: the error says which channel was read
+    # and that there are others (soundfile writes the file; the signal is invented)
+    import soundfile as sf
+
+    from ringdown.pipeline import analyze_file
+
+    fs = 16000
+    x = ringdown_modes([(700.0, 9.0, 0.5)], sample_rate=fs, duration_s=1.0, seed=5)
+    quiet = 1e-4 * np.random.default_rng(6).standard_normal(x.size)
+    path = tmp_path / "stereo.wav"
+    sf.write(str(path), np.c_[quiet, x], fs, subtype="PCM_16")
+    with pytest.raises(NoRingdownError, match=r"2 channels .*--channel"):
+        analyze_file(path)
+    (m,) = analyze_file(path, channel=2).modes
+    assert m.f_d_hz == pytest.approx(700.0, rel=1e-4)
