@@ -23,7 +23,7 @@ from .pipeline import AnalysisOptions, analyze, analyze_file, analyze_many, anal
 from .compare import Comparison, compare
 from .compare_plot import plot_comparison
 from .limits import Limits, learn_limits, read_limits, write_limits
-from .check import CheckResult, check
+from .check import CheckResult, check, check_file
 from .store import ResultStore, store_analysis
 from .plots import (
     plot_damping_vs_amplitude,
@@ -65,6 +65,7 @@ __all__ = [
     "analyze_many",
     "analyze_recording",
     "check",
+    "check_file",
     "compare",
     "crlb_damped_sinusoid",
     "derive",

@@ -64,6 +64,15 @@ class AnalysisOptions:
                 clean.append((lo, hi))
             object.__setattr__(self, "bands", tuple(sorted(clean)))
 
+    @classmethod
+    def from_kwargs(cls, options: dict) -> "AnalysisOptions":
+        """Validated options from keyword arguments; an unknown name is a ParameterError."""
+        unknown = sorted(set(options) - set(cls.__slots__))
+        if unknown:
+            raise ParameterError(f"unknown analysis option(s) {', '.join(map(repr, unknown))}; "
+                                 f"known: {', '.join(cls.__slots__)}")
+        return cls(**options)
+
     @property
     def primary(self) -> str:
         """The estimator whose figures a mode reports."""
@@ -185,7 +194,7 @@ def analyze_many(
     list of Analysis, in the order of ``paths``.
     """
     paths = [str(p) for p in paths]
-    AnalysisOptions(**{k: v for k, v in options.items() if k in AnalysisOptions.__slots__})
+    AnalysisOptions.from_kwargs({k: v for k, v in options.items() if k not in ("channel", "column", "sample_rate")})
     if jobs is None or jobs < 1:
         raise ParameterError(f"jobs must be >= 1; got {jobs!r}")
     results: list[Analysis | None] = [None] * len(paths)
@@ -222,7 +231,7 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
 
     Keyword options are those of :func:`analyze`.
     """
-    opts = AnalysisOptions(**options)
+    opts = AnalysisOptions.from_kwargs(options)
     settings = opts.to_dict()
     if reader_settings:
         settings.update(reader_settings)

@@ -437,3 +437,14 @@ def test_silent_first_channel_points_to_the_channel_option(tmp_path):
         analyze_file(path)
     (m,) = analyze_file(path, channel=2).modes
     assert m.f_d_hz == pytest.approx(700.0, rel=1e-4)
+
+
+def test_unknown_option_is_a_parameter_error():
+    # the keyword-passing entry points (analyze_file, analyze_recording, analyze_many) name a
+    # misspelt or foreign option instead of raising a raw TypeError
+    from ringdown import Recording
+    from ringdown.pipeline import analyze_recording
+
+    x = ringdown_modes([(440.0, 12.0, 1.0)], sample_rate=8000.0, duration_s=0.5, seed=4)
+    with pytest.raises(ParameterError, match="unknown analysis option.*'min_snr'"):
+        analyze_recording(Recording(x, 8000.0), min_snr=5)
