@@ -278,10 +278,9 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
 
     noise_f, noise_p, noise_is_pre = _noise_spectrum(x, fs, spans)
     tones = condition.steady_tones(noise_f, noise_p) if noise_is_pre else []
-    if tones:
-        for f_tone in tones:
-            rec_warnings.append(Notice("stationary_tone", f"steady tone near {f_tone:.1f} Hz before the hit (mains hum or "
-                                                          "another running source?); not a mode"))
+    for f_tone in tones:
+        rec_warnings.append(Notice("stationary_tone", f"steady tone near {f_tone:.1f} Hz before the hit (mains hum or "
+                                                      "another running source?); not a mode"))
 
     hits: list[Hit] = []
     for j, span in enumerate(spans):
@@ -395,7 +394,8 @@ def _analyze_hit(x, fs, span, j, spans, clipped, noise_f, noise_p, opts, noise_d
     failed: list[str] = []
     for peaks_g, lo, hi in groups:
         try:
-            modes.extend(_measure_group(spec, peaks_g, lo, hi, onset_s, clip_end, seg_end, fs, noise_f, noise_p, opts, warnings))
+            modes.extend(_measure_group(spec, peaks_g, lo, hi, onset_s, clip_end, seg_end, fs, noise_f, noise_p, opts,
+                                        warnings, tones))
         except FitError as exc:
             failed.append(f"{lo:.1f}-{hi:.1f} Hz ({exc})")
     if failed:
@@ -451,12 +451,16 @@ def _extract(spec: Spectrum, lo: float, hi: float, noise_f, noise_p) -> Band:
     return band.with_noise(_band_noise_rms(band, noise_f, noise_p))
 
 
-def _measure_group(spec, peaks_g: list[Peak], lo, hi, onset_s, clip_end, seg_end, fs, noise_f, noise_p, opts, hit_warnings) -> list[Mode]:
+def _measure_group(spec, peaks_g: list[Peak], lo, hi, onset_s, clip_end, seg_end, fs, noise_f, noise_p, opts, hit_warnings,
+                   tones=()) -> list[Mode]:
     primary = opts.primary
     group_band = _extract(spec, lo, hi, noise_f, noise_p)
     # first guess of the decay rate from the spectral peaks' half-power width (beta ~ pi width)
     beta_hint = max((math.pi * p.width_hz for p in peaks_g), default=0.0)
     if peaks_g and _steady_before_onset(group_band, onset_s, beta_hint):
+        near = 2.0 * (noise_f[1] - noise_f[0])  # two Welch bins
+        if all(any(abs(p.f_hz - f) <= near for f in tones) for p in peaks_g):
+            return []  # already named at the recording level
         where = ", ".join(f"{p.f_hz:.1f}" for p in peaks_g)
         hit_warnings.append(Notice("stationary_tone", f"steady tone at {where} Hz was already there before the hit "
                                                       "(mains hum or another running source?); not reported as a mode"))
