@@ -198,9 +198,10 @@ def group_bands(
             nxt = groups[g_i + 1][0]
             hi = min(hi, 0.5 * (peaks[g[-1]].f_hz + peaks[nxt].f_hz))
         for b in barriers_hz:
-            if b < peaks[g[0]].f_hz:
+            # a tone closer than a peak's minimum half-band cannot be filtered away: ignore it
+            if b < peaks[g[0]].f_hz - need[g[0]]:
                 lo = max(lo, 0.5 * (b + peaks[g[0]].f_hz))
-            elif b > peaks[g[-1]].f_hz:
+            elif b > peaks[g[-1]].f_hz + need[g[-1]]:
                 hi = min(hi, 0.5 * (b + peaks[g[-1]].f_hz))
         lo = max(lo, 0.0)
         hi = min(hi, nyq)
