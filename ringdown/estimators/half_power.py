@@ -25,7 +25,7 @@ from .base import Window
 __all__ = ["estimate"]
 
 METHOD = "half_power"
-_PAD = 8
+_PAD = 4
 
 
 def _lorentz(f, p0, f0, g, floor):
