@@ -263,6 +263,15 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
     spans = condition.find_hits(level, fs, noise_db=noise_db, min_hit_snr_db=opts.min_hit_snr_db,
                                 smoothing=smoothing,
                                 slow_level_db=condition.envelope_db(x, fs, window_s=3e-3, smoothing=smoothing))
+    band_note = None
+    if not spans:
+        # a narrowband mode can stand far above its band's noise while the broadband level does
+        # not rise min_hit_snr_db: look for the hits in the band of the strongest spectral peak
+        found = _hits_in_strongest_band(x, fs, opts.min_hit_snr_db)
+        if found is not None:
+            spans, f_band = found
+            band_note = Notice("hits_in_band", f"the broadband level does not rise {opts.min_hit_snr_db:g} dB above its "
+                                               f"noise; hits were found in the band around {f_band:.1f} Hz")
     if not spans:
         peak_db = float(level.max() - noise_db)
         hint = (f"; it holds {rec.n_channels} channels (this is {rec.channel!r}): try another with --channel"
@@ -272,7 +281,7 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
             f"noise floor (highest {peak_db:.1f} dB); check the gain, the trigger or the file{hint}"
         )
     clipped = condition.find_clipping(raw, full_scale=rec.full_scale)
-    rec_warnings: list[Notice] = []
+    rec_warnings: list[Notice] = [band_note] if band_note is not None else []
     if rec.timing_jitter is not None and rec.timing_jitter > 1e-6:
         rec_warnings.append(Notice("timing_jitter", f"time steps jitter by {100 * rec.timing_jitter:.3g} % RMS (accepted)"))
 
@@ -311,6 +320,33 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
         noise_floor=float(10 ** (noise_db / 20.0)),
         recording=rec,
     )
+
+
+def _hits_in_strongest_band(x: np.ndarray, fs: float, min_hit_snr_db: float):
+    """Hits found in the level of the band around the record's strongest spectral peak.
+
+    Returns ``(spans, f_hz)`` or ``None`` when there is no clear peak or no hit in its band. The
+    peak must stand 20 dB above the running median of the spectrum; the band is ±20 half-power
+    widths of the peak (at least 4 frequency bins); its envelope level is interpolated to the
+    record's rate, and a hit must rise 12 dB within twice the band filter's settling time (at
+    least 3 ms) to ``min_hit_snr_db`` above the band level's median.
+    """
+    found = find_peaks(x, fs, max_peaks=1, min_prominence_db=20.0)
+    if not found:
+        return None
+    p = found[0]
+    half = max(20.0 * p.width_hz, 4.0 * fs / x.shape[0])
+    lo, hi = max(p.f_hz - half, 0.0), min(p.f_hz + half, fs / 2.0)
+    band = extract_band(spectrum_of(x, fs), lo + 0.25 * (hi - lo), hi - 0.25 * (hi - lo), skirt_hz=0.25 * (hi - lo))
+    t = np.arange(x.shape[0]) / fs
+    level = np.interp(t, band.t_s, 20.0 * np.log10(np.abs(band.z) + 1e-300))
+    rise = max(3e-3, 2.0 * settling_time_s(band, beta_per_s=math.pi * p.width_hz, level=1e-2))
+    # the median, not the 5th percentile: an unsmoothed narrowband level dips far below its mean
+    # (|z|^2 of noise is exponential: 5th percentile -13 dB, median -1.6 dB re the mean)
+    spans = condition.find_hits(level, fs, noise_db=float(np.median(level)), min_hit_snr_db=min_hit_snr_db,
+                                rise_time_s=rise, hold_off_s=max(0.05, 2.0 * rise),
+                                smoothing=max(3, int(round(rise * fs))))
+    return (spans, p.f_hz) if spans else None
 
 
 def _keep(hit: Hit) -> Hit:
