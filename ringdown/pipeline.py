@@ -566,18 +566,28 @@ def _measure_group(spec, peaks_g: list[Peak], lo, hi, onset_s, clip_end, seg_end
     return modes
 
 
+def _level_before_onset(band: Band, onset_s: float, settle_s: float) -> float | None:
+    """Median of ``|z|`` before the hit, clear of the filter's settling on both sides (the
+    segment start and the onset); ``None`` with fewer than 3 such samples."""
+    t = band.t_s
+    before = np.abs(band.z[(t >= band.t0_s + settle_s) & (t <= onset_s - settle_s)])
+    return float(np.median(before)) if before.size >= 3 else None
+
+
+#: A band whose level before the hit is within this many dB of its level after the hit was
+#: already ringing: a steady tone, not a mode (common practice, no source).
+STEADY_MARGIN_DB = 10.0
+
+
 def _steady_before_onset(band: Band, onset_s: float, beta_hint: float) -> bool:
     """Whether the band held, before the hit, a level within 10 dB of its peak after the hit:
-    then the hit did not start it, and it is a steady tone, not a mode (common practice, no
-    source). False when there are fewer than 3 samples clear of the filter's settling."""
-    env = np.abs(band.z)
-    settle = settling_time_s(band, beta_per_s=beta_hint, level=1e-2)
-    t = band.t_s
-    before = env[(t >= band.t0_s + settle) & (t <= onset_s - settle)]
-    after = env[t >= onset_s]
-    if before.size < 3 or after.size == 0:
+    then the hit did not start it, and it is a steady tone, not a mode. False when the band
+    holds too few samples before the onset to tell."""
+    before = _level_before_onset(band, onset_s, settling_time_s(band, beta_per_s=beta_hint, level=1e-2))
+    after = np.abs(band.z[band.t_s >= onset_s])
+    if before is None or after.size == 0:
         return False
-    return bool(np.median(before) > float(np.max(after)) * 10 ** (-10 / 20))
+    return bool(before > float(np.max(after)) * 10 ** (-STEADY_MARGIN_DB / 20))
 
 
 def _is_stationary(est: Estimate, band: Band, window: Window, seg_end_s: float) -> bool:
@@ -592,11 +602,9 @@ def _is_stationary(est: Estimate, band: Band, window: Window, seg_end_s: float) 
     """
     env = np.abs(band.z)
     i0 = band.index_of(window.start_s)
-    settle = window.start_s - window.onset_s
-    t = band.t_s
-    before = env[(t >= band.t0_s + settle) & (t <= window.onset_s - settle)]
-    if before.size >= 3:
-        return bool(np.median(before) > env[i0] * 10 ** (-10 / 20))
+    before = _level_before_onset(band, window.onset_s, window.start_s - window.onset_s)
+    if before is not None:
+        return bool(before > env[i0] * 10 ** (-STEADY_MARGIN_DB / 20))
     span = max(seg_end_s - window.onset_s, 1e-12)
     if DB_PER_NEPER * est.beta_per_s * span < 6.0:
         return True
