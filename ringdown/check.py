@@ -370,6 +370,11 @@ def check_file(path: str, limits: Limits, **options) -> CheckResult:
     return check(lighten(analysis), limits)
 
 
+def _check_failed(path: str, exc: Exception, *, limits: Limits, options: dict) -> CheckResult:
+    """The ERROR result of a part whose check could not run (e.g. its cluster worker was lost)."""
+    return check(Analysis.failed(path, exc, settings={**limits.analysis_options(), **options}), limits)
+
+
 def _worker(args):
     pos, path, limits, options = args
     return pos, check_file(path, limits, **options)
@@ -381,6 +386,7 @@ def iter_check_files(
     *,
     jobs: int | None = None,
     options: dict | None = None,
+    client=None,
 ) -> Iterator[tuple[int, CheckResult]]:
     """Check many recordings, on several processes; yield ``(position, result)`` as each finishes.
 
@@ -393,6 +399,8 @@ def iter_check_files(
         Worker processes (default: the number of CPU cores; 1 runs in this process).
     options : dict, optional
         Analysis options overriding the ones stored in the limits.
+    client : distributed.Client, optional
+        Run one task per file on this Dask cluster's workers instead (:mod:`ringdown.cluster`).
 
     Yields
     ------
@@ -404,6 +412,14 @@ def iter_check_files(
     jobs = (os.cpu_count() or 1) if jobs is None else int(jobs)
     if jobs < 1:
         raise ParameterError(f"jobs must be >= 1, got {jobs}")
+    if client is not None:
+        from functools import partial
+
+        from .cluster import iter_results
+
+        yield from iter_results(client, partial(check_file, limits=limits, **options), list(paths),
+                                on_error=partial(_check_failed, limits=limits, options=options))
+        return
     if jobs == 1 or n <= 1:
         for i, p in enumerate(paths):
             yield i, check_file(p, limits, **options)

@@ -175,6 +175,7 @@ def analyze_many(
     *,
     jobs: int = 1,
     progress: Callable[[Analysis], None] | None = None,
+    client=None,
     **options,
 ) -> list[Analysis]:
     """Analyse several files; a file that fails gets ``Analysis.error`` and the rest go on.
@@ -186,6 +187,9 @@ def analyze_many(
         Worker processes (``concurrent.futures.ProcessPoolExecutor``) when > 1.
     progress : callable or None
         Called with each finished Analysis (in completion order).
+    client : distributed.Client or None
+        Run one task per file on this Dask cluster's workers instead (``jobs`` is then unused;
+        :mod:`ringdown.cluster`, extra ``ringdown[cluster]``). The paths must be readable there.
     **options
         As for :func:`analyze_file`.
 
@@ -198,7 +202,17 @@ def analyze_many(
     if jobs is None or jobs < 1:
         raise ParameterError(f"jobs must be >= 1; got {jobs!r}")
     results: list[Analysis | None] = [None] * len(paths)
-    if jobs == 1 or len(paths) <= 1:
+    if client is not None:
+        from functools import partial
+
+        from .cluster import iter_results
+
+        for i, a in iter_results(client, partial(analyze_file, **options), paths,
+                                 on_error=partial(Analysis.failed, settings=dict(options))):
+            results[i] = a
+            if progress:
+                progress(a)
+    elif jobs == 1 or len(paths) <= 1:
         for i, p in enumerate(paths):
             results[i] = _analyze_or_fail(p, options)
             if progress:

@@ -115,6 +115,10 @@ def register(app: typer.Typer) -> None:
         part_id: Optional[str] = typer.Option(None, "--part-id", help="Regex taking the part id from the file name (first group)."),
         station: Optional[str] = typer.Option(None, "--station", help="Test station, stored with each result."),
         operator: Optional[str] = typer.Option(None, "--operator", help="Operator, stored with each result."),
+        scheduler: Optional[str] = typer.Option(None, "--scheduler", help="Run on a Dask cluster: scheduler ADDRESS "
+                                                "(tcp://HOST:8786) or local:N worker processes (extra ringdown[cluster])."),
+        parquet_out: Optional[Path] = typer.Option(None, "--parquet", help="Also append one row per mode to this Parquet "
+                                                   "dataset folder, as results arrive (extra ringdown[cluster])."),
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Measure every mode of each recording: f_d, beta, f_n, zeta, Q, loss factor, dB/s, T60."""
@@ -131,8 +135,17 @@ def register(app: typer.Typer) -> None:
                             min_hit_snr_db=min_hit_snr_db)
             paths = expand_inputs(files)
             bar, task = progress_bar(on_terminal(json_out) and len(paths) > 1, len(paths), "analysing")
-            with bar:
-                done = analyze_many(paths, jobs=jobs or default_jobs(), progress=lambda _a: bar.advance(task), **options)
+            from ..cluster import connect
+            from ..parquet import open_sink
+            from ..store import part_id_from_path
+
+            with connect(scheduler) as client, open_sink(parquet_out) as sink, bar:
+                def progress(a):
+                    bar.advance(task)
+                    sink.add_analysis(a, part_id=part_id_from_path(a.path or "array", part_id), station=station,
+                                      operator=operator)
+
+                done = analyze_many(paths, jobs=jobs or default_jobs(), progress=progress, client=client, **options)
             return options, done
 
         options, analyses = guarded(run, debug=debug)

@@ -164,6 +164,10 @@ def register(app: typer.Typer) -> None:
                                               "(first group, or the whole match); default the file stem."),
         force: bool = typer.Option(False, "--force", help="Re-check files already stored with the same limits."),
         jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
+        scheduler: Optional[str] = typer.Option(None, "--scheduler", help="Run on a Dask cluster: scheduler ADDRESS "
+                                                "(tcp://HOST:8786) or local:N worker processes (extra ringdown[cluster])."),
+        parquet_out: Optional[str] = typer.Option(None, "--parquet", help="Also append one row per mode to this Parquet "
+                                                  "dataset folder, as results arrive (extra ringdown[cluster])."),
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Check parts against limits: PASS or FAIL with every reason; store each result."""
@@ -197,12 +201,19 @@ def register(app: typer.Typer) -> None:
                 else:
                     todo.append(i)
             prog, task = progress_bar(on_terminal(json_out) and len(todo) > 1, len(todo), "checking")
-            with prog:
-                it = iter_check_files([paths[i] for i in todo], lim, jobs=max(1, jobs))
+            from ..cluster import connect
+            from ..parquet import open_sink
+
+            cluster = guarded(lambda: connect(scheduler), debug=debug)
+            sink = guarded(lambda: open_sink(parquet_out), debug=debug)
+            with cluster as client, sink, prog:
+                it = iter_check_files([paths[i] for i in todo], lim, jobs=max(1, jobs), client=client)
                 for pos, res in it:
                     i = todo[pos]
                     if res.sha256 is None and shas[i] is not None:
                         res = replace(res, sha256=shas[i])
+                    r_ = res  # to the dataset before the database: whatever is stored is in the dataset too
+                    guarded(lambda: sink.add_check(r_, part_id=ids[i], station=station, operator=operator), debug=debug)
                     stored = None
                     if store is not None:
                         r_ = res
@@ -211,6 +222,7 @@ def register(app: typer.Typer) -> None:
                     results[i] = res
                     rows[i] = {"part_id": ids[i], "skipped": False, "stored_id": stored, **res.to_dict()}
                     prog.advance(task)
+                guarded(sink.close, debug=debug)
         finally:
             if store is not None:
                 store.close()
