@@ -221,20 +221,16 @@ def iter_results(
     try:
         for fut in ac:
             pos, _ = running.pop(fut.key)
-            if fut.status == "finished":
+            try:
+                # waits when the result was lost with its worker after finishing: Dask computes it again
                 res = fut.result()
-            else:
-                exc = fut.exception() if fut.status == "error" else None
-                if isinstance(exc, KilledWorker):
-                    err: RingdownError = ClusterError(
-                        "the Dask workers running it died each time it was tried (killed, out of memory or their "
-                        "machine lost); check the file and the workers' memory")
-                elif exc is not None:
-                    err = ClusterError(f"the cluster could not run it: {type(exc).__name__}: "
-                                       f"{' '.join(str(exc).split())}")
-                else:
-                    err = ClusterError(f"its task ended as {fut.status!r} on the cluster (scheduler restarted?)")
-                res = on_error(items[pos], err)
+            except KilledWorker:
+                res = on_error(items[pos], ClusterError(
+                    "the Dask workers running it died each time it was tried (killed, out of memory or their "
+                    "machine lost); check the file and the workers' memory"))
+            except Exception as exc:  # cancelled, or a result that could not be sent back
+                res = on_error(items[pos], ClusterError(f"the cluster could not run it: {type(exc).__name__}: "
+                                                        f"{' '.join(str(exc).split()) or fut.status}"))
             fut.release()
             if nxt < len(items):
                 ac.add(submit_next())
