@@ -70,7 +70,7 @@ def open_client(scheduler: str):
     ----------
     scheduler : str
         ``"local:N"`` starts a ``distributed.LocalCluster`` of N worker processes with one thread
-        each (no dashboard) on this machine; anything else is the address of a running scheduler,
+        each on this machine (its HTTP server on a free loopback port); anything else is the address of a running scheduler,
         e.g. ``"tcp://10.0.0.5:8786"`` (``dask scheduler`` prints it).
 
     Returns
@@ -90,7 +90,8 @@ def open_client(scheduler: str):
     scheduler = str(scheduler).strip()
     if scheduler.lower().startswith("local:"):
         n = _local_workers(scheduler)
-        cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None)
+        # The scheduler's HTTP server on a free loopback port: Dask's default 8787 may be taken.
+        cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address="127.0.0.1:0")
         return Client(cluster), cluster
     if not scheduler:
         raise ParameterError("--scheduler is empty; give a scheduler address (tcp://HOST:8786) or local:N")
@@ -152,9 +153,11 @@ def _run_task(fn: Callable, on_error: Callable, item: Any):
         path = os.fspath(item)
         if not os.path.exists(path) or not os.access(path, os.R_OK):
             why = "does not exist" if not os.path.exists(path) else "cannot be read (permissions)"
+            hint = "" if os.path.isabs(path) else " and given as absolute paths (a worker resolves a relative one " \
+                                                  "from its own working folder)"
             return on_error(item, InputError(
                 f"{path!r} {why} on the {_where()}; the recordings must be readable by every worker "
-                "(a shared file system mounted at the same path on each machine)"))
+                f"(a shared file system mounted at the same path on each machine){hint}"))
     try:
         return fn(item)
     except RingdownError as exc:
