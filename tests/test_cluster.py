@@ -185,3 +185,12 @@ def test_a_file_that_kills_every_worker_is_its_own_error(client, local_results):
     assert "workers running it died each time" in got[bad[0]]["error"]["message"]
     for i in set(range(4)) - set(bad):
         assert got[i] == local_results[paths[i]]
+
+
+def test_missing_extra_is_one_line(monkeypatch):
+    monkeypatch.setitem(sys.modules, "distributed", None)  # as if dask[distributed] were not installed
+    r = runner.invoke(app, ["analyze", LINE[0], "--scheduler", "local:1"])
+    assert r.exit_code == 2
+    assert r.stderr.strip().splitlines() == ["ringdown: error: --scheduler needs the optional 'cluster' extra "
+                                             "(dask[distributed], pyarrow); install it with: pip install "
+                                             "'ringdown[cluster]'"]

@@ -288,3 +288,12 @@ def test_interrupted_check_keeps_every_finished_part(parts, tmp_path):
     assert not list(out.rglob(".*.tmp"))
     assert all(r["kind"] == "check" and r["verdict"] in ("pass", "fail") for r in rows)
     assert not any(math.isnan(r["f_d_hz"]) for r in rows)
+
+
+def test_missing_extra_is_one_line(monkeypatch, tmp_path):
+    monkeypatch.setitem(sys.modules, "pyarrow", None)  # as if pyarrow were not installed
+    r = runner.invoke(app, ["analyze", THREE[0], "--parquet", str(tmp_path / "ds")])
+    assert r.exit_code == 2
+    assert r.stderr.strip().splitlines() == ["ringdown: error: --parquet needs the optional 'cluster' extra (pyarrow); "
+                                             "install it with: pip install 'ringdown[cluster]'"]
+    assert not (tmp_path / "ds").exists()
