@@ -24,6 +24,7 @@ only when a batch runs on a cluster.
 
 from __future__ import annotations
 
+import logging
 import os
 import uuid
 from typing import Any, Callable, Iterable, Iterator, Sequence
@@ -91,7 +92,9 @@ def open_client(scheduler: str):
     if scheduler.lower().startswith("local:"):
         n = _local_workers(scheduler)
         # The scheduler's HTTP server on a free loopback port: Dask's default 8787 may be taken.
-        cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address="127.0.0.1:0")
+        # Dask's own warnings (e.g. on cancelling tasks after Ctrl-C) stay off the terminal.
+        cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address="127.0.0.1:0",
+                               silence_logs=logging.ERROR)
         return Client(cluster), cluster
     if not scheduler:
         raise ParameterError("--scheduler is empty; give a scheduler address (tcp://HOST:8786) or local:N")
