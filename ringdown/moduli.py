@@ -302,9 +302,12 @@ def _solve(spec, x: dict, guess: float) -> dict:
         e, t1 = _e_of(spec, x, x["f_flex_hz"], mu)
         return {"e": e, "g": None, "mu": mu, "rho": rho, "t1": t1, "r": None, "iterations": 0}
     g, r = _g_of(spec, x, x["f_tors_hz"])
+    # T1 is evaluated with mu kept inside (-1, 0.5], the range of isotropic solids: a wrong mode
+    # assignment can give mu far outside it, where mu -> E(T1(mu)) / 2G - 1 would run away
+    clip = lambda v: min(max(v, -0.99), POISSON_RANGE[1])  # noqa: E731
     mu = guess
     for k in range(1, _MAX_ITER + 1):
-        e, t1 = _e_of(spec, x, x["f_flex_hz"], mu)
+        e, t1 = _e_of(spec, x, x["f_flex_hz"], clip(mu))
         new = e / (2.0 * g) - 1.0
         if abs(new - mu) <= 1e-12 * max(1.0, abs(mu)):
             mu = new
@@ -312,7 +315,7 @@ def _solve(spec, x: dict, guess: float) -> dict:
         mu = new
     else:
         k = _MAX_ITER
-    e, t1 = _e_of(spec, x, x["f_flex_hz"], mu)
+    e, t1 = _e_of(spec, x, x["f_flex_hz"], clip(mu))
     return {"e": e, "g": g, "mu": e / (2.0 * g) - 1.0, "rho": rho, "t1": t1, "r": r, "iterations": k}
 
 

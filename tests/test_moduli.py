@@ -324,6 +324,16 @@ def test_mode_overrides_and_their_checks():
         moduli(bar, ff, tors, torsional_mode=7)
 
 
+def test_wrong_assignment_does_not_run_away():
+    # a torsional frequency far too low gives mu ~ 5: the loop must stop and say so, not overflow
+    rod = CylindricalRod(0.2, 0.01, 0.04241)
+    res = moduli(rod, 1250.0, 4000.0)
+    assert res.poisson > 0.5 and math.isfinite(res.e_pa)
+    assert "poisson_implausible" in res.warning_codes
+    assert "torsional_outside_prediction" in res.warning_codes
+    assert res.t1 == pytest.approx(t1_rod(0.5, 0.05))  # T1 taken at the edge of the physical range
+
+
 def test_no_mode_in_the_window_is_said():
     bar, ff, ft = _steel_bar()
     res = moduli(bar, ff, _analysis("tors.wav", [ff, 1.5 * ft]))
