@@ -598,9 +598,9 @@ def moduli_section(result) -> Section:
     out += ["<h4>Predicted modes</h4>",
             html_table(("mode", "predicted, Hz", "window, Hz", "found, Hz"), pred_rows,
                        numeric=[False, True, True, True])]
-    unit = {"e_pa": "Pa", "g_pa": "Pa", "poisson": "1", "density_kg_per_m3": "kg/m³"}
+    unit = {"e_pa": "Pa", "g_pa": "Pa", "poisson": "", "density_kg_per_m3": "kg/m³"}
     b_rows = [(b.quantity, b.input, _num(b.input_value), _num(b.input_u, 3), _num(b.sensitivity, 4),
-               f"{_num(b.contribution, 3)} {unit.get(b.quantity, '')}", f"{100 * b.share:.1f} %")
+               f"{_num(b.contribution, 3)} {unit.get(b.quantity, '')}".rstrip(), f"{100 * b.share:.1f} %")
               for b in result.budget if b.input_u > 0]
     out += ["<h3>Uncertainty budget</h3>",
             html_table(("quantity", "input", "value (SI)", "u (SI)", "sensitivity", "contribution", "share"),
