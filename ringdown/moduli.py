@@ -519,6 +519,15 @@ def _by_index(cands: list[_Candidate], index: int, role: str) -> _Candidate:
     raise ParameterError(f"{role} mode {index} is not in '{cands[0].source}'; its modes are {have}")
 
 
+def _users_choice(cands: list[_Candidate], given: bool, index: int | None, role: str):
+    """(candidate, rule) the user chose, by mode index or by giving one frequency; (None, None) if neither."""
+    if index is not None and not given:
+        return _by_index(cands, index, role), f"given: mode {index} chosen by the user"
+    if given:
+        return cands[0], "given: frequency or mode given by the user"
+    return None, None
+
+
 # --------------------------------------------------------------------------------------------
 # predictions
 # --------------------------------------------------------------------------------------------
@@ -662,13 +671,8 @@ def moduli(
     f_cands, f_given, f_an = _candidates(flexural, "flexural", flexural_hz_u, opts)
     if f_an is not None:
         analyses.append(f_an)
-    if flexural_mode is not None and not f_given:
-        fc = _by_index(f_cands, flexural_mode, "flexural")
-        f_rule = f"given: mode {flexural_mode} chosen by the user"
-    elif f_given:
-        fc = f_cands[0]
-        f_rule = "given: frequency or mode given by the user"
-    else:
+    fc, f_rule = _users_choice(f_cands, f_given, flexural_mode, "flexural")
+    if fc is None:
         fc = min(f_cands, key=lambda c: c.f_hz)
         f_rule = "lowest: the lowest mode of the flexural record is the fundamental flexural mode"
 
@@ -693,13 +697,8 @@ def moduli(
         if t_an is not None:
             analyses.append(t_an)
         w = preds["torsional_1"]
-        if torsional_mode is not None and not t_given:
-            tc = _by_index(t_cands, torsional_mode, "torsional")
-            t_rule = f"given: mode {torsional_mode} chosen by the user"
-        elif t_given:
-            tc = t_cands[0]
-            t_rule = "given: frequency or mode given by the user"
-        else:
+        tc, t_rule = _users_choice(t_cands, t_given, torsional_mode, "torsional")
+        if tc is None:
             inside = [c for c in t_cands if _inside(c.f_hz, w)]
             if t_an is f_an:
                 inside = [c for c in inside if c is not fc]

@@ -322,6 +322,11 @@ def test_mode_overrides_and_their_checks():
     assert "poisson_implausible" in res.warning_codes  # mu far outside 0..0.5
     with pytest.raises(ParameterError, match="torsional mode 7 is not in 'tors.wav'"):
         moduli(bar, ff, tors, torsional_mode=7)
+    flex = _analysis("flex.wav", [0.5 * ff, ff])  # a low spurious peak (a support resonance, say)
+    assert moduli(bar, flex, poisson=0.29).flexural.f_hz == pytest.approx(0.5 * ff)  # rule "lowest"
+    res = moduli(bar, flex, tors, flexural_mode=2)
+    assert res.flexural.f_hz == pytest.approx(ff) and res.flexural.rule.startswith("given: mode 2")
+    assert res.torsional.f_hz == pytest.approx(ft)
 
 
 def test_wrong_assignment_does_not_run_away():
