@@ -46,12 +46,15 @@ def _timoshenko_f1(E, G, kappa, rho, A, I, L, n=1):
         p = expm(a * L)
         return np.linalg.det(p[2:4, 0:2])  # free ends: Q = M = 0 at both
 
-    w_eb = LAMBDA_1**2 * math.sqrt(E * I / (rho * A * L**4))
-    grid = np.linspace(0.3 * w_eb, 1.05 * w_eb * (2.8 if n == 2 else 1.0), 600)
+    # shear and rotary inertia only lower a frequency, and by less than half for L/t >= 3: the
+    # n-th root lies between 0.5 and 1 times the Euler-Bernoulli value (Blevins' lambda_n)
+    lam = {1: LAMBDA_1, 2: 7.85320462}[n]
+    w_eb = lam**2 * math.sqrt(E * I / (rho * A * L**4))
+    grid = np.linspace(0.5 * w_eb, 1.001 * w_eb, 60)
     vals = [det(w) for w in grid]
     roots = [brentq(det, a, b, xtol=1e-12) for a, b, va, vb in zip(grid[:-1], grid[1:], vals[:-1], vals[1:])
              if np.sign(va) != np.sign(vb)]
-    return roots[n - 1] / (2 * math.pi)
+    return roots[-1] / (2 * math.pi)  # the highest root below the Euler-Bernoulli value
 
 
 def _cowper_rect(mu):
