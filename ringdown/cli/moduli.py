@@ -147,7 +147,7 @@ def register(app: typer.Typer) -> None:
     )
     def moduli_cmd(
         flexural_file: Optional[str] = typer.Argument(None, metavar="FLEX", help="Recording of the flexural tap."),
-        torsional_file: Optional[str] = typer.Argument(None, metavar="[TORSION]",
+        torsional_file: Optional[str] = typer.Argument(None, metavar="TORSION",
                                                         help="Recording of the torsional tap."),
         shape: str = typer.Option("bar", "--shape", help="Specimen: 'bar' (rectangular) or 'rod' (cylindrical)."),
         length_mm: Optional[float] = typer.Option(None, "--length-mm", help="Length, mm."),
