@@ -740,6 +740,14 @@ def moduli(
                         "they cannot be told apart reliably")))
             x["f_tors_hz"], u["f_tors_hz"] = tc.f_hz, tc.f_hz_u
 
+    if tc is None and torsional is None and f_an is not None:
+        w = preds["torsional_1"]
+        seen = [c for c in f_cands if c is not fc and _inside(c.f_hz, w)]
+        if seen:
+            warnings.append(Notice("torsional_in_flexural_record", (
+                f"the flexural record has a mode at {seen[0].f_hz:.6g} Hz inside the torsional window "
+                f"({w['low_hz']:.6g}-{w['high_hz']:.6g} Hz); give the same recording as the torsional one too "
+                "to use it for G")))
     if tc is None:
         x["f_tors_hz"] = None
         if poisson is None:

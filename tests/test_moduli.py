@@ -342,6 +342,15 @@ def test_wrong_assignment_does_not_run_away():
     assert res.t1 == pytest.approx(t1_rod(0.5, 0.05))  # T1 taken at the edge of the physical range
 
 
+def test_torsional_mode_seen_in_the_flexural_record_is_pointed_out():
+    bar, ff, ft = _steel_bar()
+    flex = _analysis("flex.wav", [ff, ft])
+    res = moduli(bar, flex)
+    assert res.g_pa is None and "torsional_in_flexural_record" in res.warning_codes
+    both = moduli(bar, flex, flex)  # the same record for both: the flexural mode is not reused
+    assert both.flexural.f_hz == pytest.approx(ff) and both.torsional.f_hz == pytest.approx(ft)
+
+
 def test_no_mode_in_the_window_is_said():
     bar, ff, ft = _steel_bar()
     res = moduli(bar, ff, _analysis("tors.wav", [ff, 1.5 * ft]))
@@ -401,3 +410,32 @@ def test_to_dict_keys_do_not_depend_on_the_inputs():
 
     json.dumps(a, allow_nan=False)
     json.dumps(b, allow_nan=False)
+
+
+def test_report_section_escapes_and_lists_the_budget():
+    from ringdown.report import moduli_section, render_report
+
+    bar, ff, ft = _steel_bar()
+    bar = RectangularBar(bar.length_m, bar.width_m, bar.thickness_m, bar.mass_kg, 1e-5, 1e-5, 5e-6, 1e-6)
+    res = moduli(bar, ff, _analysis("<i>&tors.wav", [ff, ft]))
+    sec = moduli_section(res)
+    assert "<i>" not in sec.html and "&lt;i&gt;&amp;tors.wav" in sec.html
+    assert "Uncertainty budget" in sec.html and "thickness_m" in sec.html
+    html = render_report(list(res.analyses), extra_sections=[sec], figures=False, generated="2026-01-01")
+    assert 'id="moduli"' in html and "ASTM E1876" in html
+
+
+@pytest.mark.parametrize("k", [0.5, 1.7, 3.0])
+def test_scaling_with_frequency_and_mass(k):
+    # E and G are proportional to m f^2 (every relation above): scaling f by k scales them by k^2,
+    # scaling the mass scales them and the density alike; Poisson's ratio does not change
+    bar, ff, ft = _steel_bar()
+    a = moduli(bar, ff, ft)
+    b = moduli(bar, k * ff, k * ft)
+    assert b.e_pa == pytest.approx(k**2 * a.e_pa, rel=1e-9)
+    assert b.g_pa == pytest.approx(k**2 * a.g_pa, rel=1e-9)
+    assert b.poisson == pytest.approx(a.poisson, abs=1e-9)
+    heavy = RectangularBar(bar.length_m, bar.width_m, bar.thickness_m, k * bar.mass_kg)
+    c = moduli(heavy, ff, ft)
+    assert c.e_pa == pytest.approx(k * a.e_pa, rel=1e-9)
+    assert c.density_kg_per_m3 == pytest.approx(k * a.density_kg_per_m3, rel=1e-12)
