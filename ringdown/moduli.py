@@ -34,11 +34,12 @@ Where each coefficient was verified
 The standard's text was not at hand; FIELD.md section 6 lists these relations as recalled. Each was
 checked against a published reproduction or against independent physics before any test relied on it:
 
-* 0.9465 and 1.6067: public reproductions of the E1876 equations in Python (GitHub code that
-  computes E from f_f for bars and rods, e.g. ``E = 0.9465*(m f^2/b)(L/t)^3 T`` and
-  ``E = 1.6067 (L^3/D^4) m f^2 T`` with ``T = 1 + 6.585 (t/L)^2`` and ``T = 1 + 4.939 (D/L)^2``),
-  and Húlan et al., Appl. Sci. 11 (2021) 10802, whose K = 0.97286 (prism) and 1.12336 (cylinder)
-  square to 0.94646 and, times 4/pi, 1.6067. Both equal the Euler-Bernoulli free-free result
+* 0.9465 and 1.6067: public Python reproductions of the E1876 equations on GitHub, found by a
+  code search of stored public repositories (repository names were not shown; the files compute
+  ``E = 0.9465 (m f^2 / b)(L/t)^3 T`` and ``E = 1.6067 (L^3/D^4) m f^2 T`` with
+  ``T = 1 + 6.585 (t/L)^2`` and ``T = 1 + 4.939 (D/L)^2``), and Húlan et al., Appl. Sci. 11 (2021)
+  10802, whose constants K = 0.97286 (prism) and 1.12336 (cylinder) are consistent with them
+  (0.97286^2 = 0.94646; 1.12336^2 x 4/pi = 1.6067). Both equal the Euler-Bernoulli free-free result
   48 pi^2 / (4.73004)^4 = 0.94642 and 256 pi / (4.73004)^4 = 1.6067 (Blevins, Formulas for Natural
   Frequency and Mode Shape); ``tests/test_moduli.py`` checks the Euler-Bernoulli limit.
 * 6.585 and 4.939 (leading T1 terms): the same public reproductions; 4.939 = 0.75 x 6.585 because
@@ -52,8 +53,8 @@ checked against a published reproduction or against independent physics before a
   for L/t >= 3.3; at mu = 0.45 within 0.3 % at L/t = 10 and 1 % at L/t = 5. The rod's T1' is the
   bar's T1 with (t/L)^2 replaced by 0.75 (D/L)^2 (0.4883 = 0.5625 x 0.868, 4.691 = 0.5625 x 8.340,
   4.754 = 0.75 x 6.338), and agrees with Timoshenko theory within 0.07 % at L/D = 10, mu <= 0.3.
-* R (2.521, 1.991, 0.00851, 0.060): two independent public Python reproductions of the E1876
-  shear-modulus equation agree term by term. Its slender-bar part (1 + (b/t)^2) / (4 - ...) equals
+* R (2.521, 1.991, 0.00851, 0.060): two separate public Python reproductions of the E1876
+  shear-modulus equation (the same code search) agree with it term by term. Its slender-bar part (1 + (b/t)^2) / (4 - ...) equals
   I_p / K_t with Saint-Venant's torsion constant of a rectangle (series solution, Timoshenko &
   Goodier, Theory of Elasticity, sec. 109) to 3e-6 relative for 1 <= b/t <= 20; the length
   terms (0.00851, 0.060) are empirical (Spinner & Valore 1958) and are checked only against the
@@ -143,8 +144,36 @@ def _check_u(name: str, value: float) -> float:
     return v
 
 
+_SPECIMEN_KEYS = ("length_m", "width_m", "thickness_m", "diameter_m", "mass_kg")
+
+
+class _Specimen:
+    """What both specimen types share: validation, the inputs with their uncertainties, to_dict."""
+
+    __slots__ = ()
+    _inputs: ClassVar[tuple[str, ...]] = ()
+
+    def __post_init__(self) -> None:
+        for n in self._inputs:
+            what, unit = n.split("_")
+            object.__setattr__(self, n, _check_positive(f"{what} ({unit})", getattr(self, n)))
+            object.__setattr__(self, n + "_u", _check_u(f"uncertainty of {what}", getattr(self, n + "_u")))
+
+    def inputs(self) -> dict[str, tuple[float, float]]:
+        """Input name -> (value, standard uncertainty), SI."""
+        return {n: (getattr(self, n), getattr(self, n + "_u")) for n in self._inputs}
+
+    def to_dict(self) -> dict:
+        """Every dimension key for every shape (None where the shape has no such dimension)."""
+        d: dict[str, Any] = {"shape": self.shape}
+        for k in _SPECIMEN_KEYS:
+            d[k] = getattr(self, k, None)
+            d[k + "_u"] = getattr(self, k + "_u", None)
+        return d
+
+
 @dataclass(frozen=True, slots=True)
-class RectangularBar:
+class RectangularBar(_Specimen):
     """A uniform bar of rectangular section (ASTM E1876 rectangular bar).
 
     Attributes
@@ -166,25 +195,11 @@ class RectangularBar:
     mass_kg_u: float = 0.0
     shape: ClassVar[str] = "bar"
 
-    def __post_init__(self) -> None:
-        for n in ("length_m", "width_m", "thickness_m", "mass_kg"):
-            object.__setattr__(self, n, _check_positive(f"{n.split('_')[0]} ({n.split('_')[1]})", getattr(self, n)))
-            object.__setattr__(self, n + "_u", _check_u(f"uncertainty of {n.split('_')[0]}", getattr(self, n + "_u")))
-
-    def inputs(self) -> dict[str, tuple[float, float]]:
-        """Input name -> (value, standard uncertainty), SI."""
-        return {"length_m": (self.length_m, self.length_m_u), "width_m": (self.width_m, self.width_m_u),
-                "thickness_m": (self.thickness_m, self.thickness_m_u), "mass_kg": (self.mass_kg, self.mass_kg_u)}
-
-    def to_dict(self) -> dict:
-        return {"shape": self.shape, "length_m": self.length_m, "length_m_u": self.length_m_u,
-                "width_m": self.width_m, "width_m_u": self.width_m_u, "thickness_m": self.thickness_m,
-                "thickness_m_u": self.thickness_m_u, "diameter_m": None, "diameter_m_u": None,
-                "mass_kg": self.mass_kg, "mass_kg_u": self.mass_kg_u}
+    _inputs: ClassVar[tuple[str, ...]] = ("length_m", "width_m", "thickness_m", "mass_kg")
 
 
 @dataclass(frozen=True, slots=True)
-class CylindricalRod:
+class CylindricalRod(_Specimen):
     """A uniform solid rod of circular section (ASTM E1876 cylindrical rod).
 
     Attributes
@@ -203,20 +218,7 @@ class CylindricalRod:
     mass_kg_u: float = 0.0
     shape: ClassVar[str] = "rod"
 
-    def __post_init__(self) -> None:
-        for n in ("length_m", "diameter_m", "mass_kg"):
-            object.__setattr__(self, n, _check_positive(f"{n.split('_')[0]} ({n.split('_')[1]})", getattr(self, n)))
-            object.__setattr__(self, n + "_u", _check_u(f"uncertainty of {n.split('_')[0]}", getattr(self, n + "_u")))
-
-    def inputs(self) -> dict[str, tuple[float, float]]:
-        return {"length_m": (self.length_m, self.length_m_u), "diameter_m": (self.diameter_m, self.diameter_m_u),
-                "mass_kg": (self.mass_kg, self.mass_kg_u)}
-
-    def to_dict(self) -> dict:
-        return {"shape": self.shape, "length_m": self.length_m, "length_m_u": self.length_m_u,
-                "width_m": None, "width_m_u": None, "thickness_m": None, "thickness_m_u": None,
-                "diameter_m": self.diameter_m, "diameter_m_u": self.diameter_m_u,
-                "mass_kg": self.mass_kg, "mass_kg_u": self.mass_kg_u}
+    _inputs: ClassVar[tuple[str, ...]] = ("length_m", "diameter_m", "mass_kg")
 
 
 # --------------------------------------------------------------------------------------------
