@@ -31,7 +31,7 @@ from typing import Any, Callable, Iterable, Iterator, Sequence
 
 from .errors import ClusterError, InputError, ParameterError, RingdownError
 
-__all__ = ["connect", "open_client", "iter_results", "check_versions", "require_extra"]
+__all__ = ["connect", "open_client", "iter_results", "ClusterExecutor", "check_versions", "require_extra"]
 
 #: Tasks submitted to the scheduler at once; each finished task lets the next one in. Bounds the
 #: scheduler's and this process's memory for a batch of millions of files. A task costs the
@@ -230,10 +230,8 @@ def iter_results(
             try:
                 # waits when the result was lost with its worker after finishing: Dask computes it again
                 res = fut.result()
-            except KilledWorker:
-                res = on_error(items[pos], ClusterError(
-                    "the Dask workers running it died each time it was tried (killed, out of memory or their "
-                    "machine lost); check the file and the workers' memory"))
+            except KilledWorker as exc:
+                res = on_error(items[pos], _as_cluster_error(exc))
             except Exception as exc:  # cancelled, or a result that could not be sent back
                 res = on_error(items[pos], ClusterError(f"the cluster could not run it: {type(exc).__name__}: "
                                                         f"{' '.join(str(exc).split()) or fut.status}"))
@@ -244,6 +242,59 @@ def iter_results(
     finally:
         if running:  # interrupted, or the consumer stopped early: drop the rest
             client.cancel([f for _, f in running.values()], force=True)
+
+
+class ClusterExecutor:
+    """A Dask client behind the executor interface of a generic batch runner.
+
+    ``submit(fn, *args)`` returns a :class:`concurrent.futures.Future`; ``as_completed(futures)``
+    yields them as they finish; ``shutdown(cancel=True)`` cancels what has not finished. A task
+    Dask gave up after losing its workers fails with a :class:`~ringdown.errors.ClusterError`
+    (not Dask's ``KilledWorker``). Unlike :func:`iter_results`, it neither bounds the tasks in
+    flight nor checks paths on the worker; it is for runners that bring their own loop.
+    """
+
+    def __init__(self, client, *, retries: int = 1) -> None:
+        self.client = client
+        self.retries = retries
+        self._dask: list = []
+
+    def submit(self, fn: Callable, /, *args):
+        from concurrent.futures import Future
+
+        out: Future = Future()
+        fut = self.client.submit(fn, *args, pure=False, retries=self.retries)
+        self._dask.append(fut)
+
+        def done(f) -> None:  # runs on the client's callback thread
+            if out.cancelled():
+                return
+            try:
+                out.set_result(f.result())
+            except BaseException as exc:
+                out.set_exception(_as_cluster_error(exc))
+
+        fut.add_done_callback(done)
+        return out
+
+    def as_completed(self, futures):
+        from concurrent.futures import as_completed
+
+        return as_completed(list(futures))
+
+    def shutdown(self, *, cancel: bool = False) -> None:
+        if cancel and self._dask:
+            self.client.cancel(self._dask, force=True)
+        self._dask = []
+
+
+def _as_cluster_error(exc: BaseException) -> BaseException:
+    from distributed.scheduler import KilledWorker
+
+    if isinstance(exc, KilledWorker):
+        return ClusterError("the Dask workers running it died each time it was tried (killed, out of memory or their "
+                            "machine lost); check the file and the workers' memory")
+    return exc
 
 
 def worker_versions(client) -> dict[str, str]:

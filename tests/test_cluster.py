@@ -12,6 +12,7 @@ from __future__ import annotations
 import json
 import os
 import sys
+import time
 from functools import partial
 from pathlib import Path
 
@@ -25,7 +26,7 @@ from typer.testing import CliRunner
 import ringdown
 from ringdown.check import iter_check_files
 from ringdown.cli import analyze as analyze_cli
-from ringdown.cluster import connect, iter_results, open_client
+from ringdown.cluster import ClusterExecutor, connect, iter_results, open_client
 from ringdown.errors import ClusterError
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "example_signals"
@@ -108,6 +109,35 @@ def test_any_exception_is_that_items_result(client):
     got = dict(iter_results(client, _boom, [0, 1, 2, 3], on_error=_failed))
     assert got == {0: 0, 1: 10, 3: 30, 2: ("failed", 2, "error", "internal error ZeroDivisionError: division by zero "
                                                                "in a test task")}
+
+
+def _slow(seconds):
+    import time
+
+    time.sleep(seconds)
+    return seconds
+
+
+def test_cluster_executor_interface(client):
+    # the interface a generic batch runner drives: submit, as_completed, result, shutdown
+    ex = ClusterExecutor(client, retries=0)
+    futs = {ex.submit(_boom, i): i for i in range(4)}
+    got = {}
+    for f in ex.as_completed(futs):
+        try:
+            got[futs[f]] = f.result()
+        except ZeroDivisionError as exc:
+            got[futs[f]] = str(exc)
+    ex.shutdown()
+    assert got == {0: 0, 1: 10, 2: "division by zero in a test task", 3: 30}
+    # shutdown(cancel=True) drops what has not finished, without waiting for it
+    slow = [ex.submit(_slow, 4.0) for _ in range(4)]  # 2 workers: 8 s if they all ran
+    t0 = time.monotonic()
+    ex.shutdown(cancel=True)
+    for f in slow:
+        with pytest.raises(BaseException):  # cancelled: no result
+            f.result(timeout=4.0)
+    assert time.monotonic() - t0 < 4.0  # sooner than one task would have taken
 
 
 def test_check_on_cluster_matches_local(client, local, tmp_path):
