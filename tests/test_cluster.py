@@ -26,6 +26,7 @@ from typer.testing import CliRunner
 import ringdown
 from ringdown.check import iter_check_files
 from ringdown.cli import analyze as analyze_cli
+from ringdown.cli import limits as limits_cli
 from ringdown.cluster import ClusterExecutor, connect, iter_results, open_client
 from ringdown.errors import ClusterError
 
@@ -40,6 +41,7 @@ FILES = sorted([str(EXAMPLES / "bracket_tap.csv"), str(EXAMPLES / "lc_tank.wav")
 app = typer.Typer()
 app.callback()(lambda: None)  # a group, so that "analyze" is a subcommand as in ringdown's CLI
 analyze_cli.register(app)
+limits_cli.register(app)
 runner = CliRunner()
 # The workers cannot import this test module: send its functions by value.
 cloudpickle.register_pickle_by_value(sys.modules[__name__])
@@ -152,6 +154,18 @@ def test_check_on_cluster_matches_local(client, local, tmp_path):
     # README "Parts off a line": crack and soft_heat_treat fail, good_01 and good_08 pass
     assert [remote[i].verdict for i in range(len(parts))] == ["fail", "pass", "pass", "fail"]
     assert remote[len(parts)].verdict == "error" and "on the Dask worker" in remote[len(parts)].reasons[0].message
+    # the same through the CLI, on the scheduler's address, into a Parquet dataset
+    lim_path = tmp_path / "limits.toml"
+    ringdown.write_limits(lim, str(lim_path))
+    r = runner.invoke(app, ["check", "--limits", str(lim_path), *parts, "--json", "--no-store", "--scheduler",
+                            client.scheduler.address, "--parquet", str(tmp_path / "ds")])
+    assert r.exit_code == 1, r.output  # failures, no error
+    doc = json.loads(r.stdout)
+    assert [res["verdict"] for res in doc["results"]] == ["fail", "pass", "pass", "fail"]
+    from ringdown.parquet import read_dataset
+
+    rows = read_dataset(tmp_path / "ds").to_pylist()
+    assert {(x["file"], x["verdict"]) for x in rows} == {(res["path"], res["verdict"]) for res in doc["results"]}
 
 
 def test_cli_analyze_on_a_scheduler_address(client, local_results):
