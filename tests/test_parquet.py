@@ -297,3 +297,11 @@ def test_missing_extra_is_one_line(monkeypatch, tmp_path):
     assert r.stderr.strip().splitlines() == ["ringdown: error: --parquet needs the optional 'cluster' extra (pyarrow); "
                                              "install it with: pip install 'ringdown[cluster]'"]
     assert not (tmp_path / "ds").exists()
+
+
+def test_the_extras_load_only_when_used():
+    # issue 19: dask and pyarrow are imported lazily, so `ringdown --help` and plain analyses stay fast
+    code = ("import sys, ringdown, ringdown.cli, ringdown.cluster, ringdown.parquet; "
+            "print(','.join(m for m in ('dask', 'distributed', 'pyarrow', 'pandas') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout.strip()
+    assert out == ""
