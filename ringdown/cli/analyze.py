@@ -116,9 +116,9 @@ def register(app: typer.Typer) -> None:
         station: Optional[str] = typer.Option(None, "--station", help="Test station, stored with each result."),
         operator: Optional[str] = typer.Option(None, "--operator", help="Operator, stored with each result."),
         scheduler: Optional[str] = typer.Option(None, "--scheduler", help="Run on a Dask cluster: scheduler ADDRESS "
-                                                "(tcp://HOST:8786) or local:N worker processes (extra ringdown[cluster])."),
+                                                "(tcp://HOST:8786) or local:N worker processes (needs the 'cluster' extra)."),
         parquet_out: Optional[Path] = typer.Option(None, "--parquet", help="Also append one row per mode to this Parquet "
-                                                   "dataset folder, as results arrive (extra ringdown[cluster])."),
+                                                   "dataset folder, as results arrive (needs the 'cluster' extra)."),
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Measure every mode of each recording: f_d, beta, f_n, zeta, Q, loss factor, dB/s, T60."""

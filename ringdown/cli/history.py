@@ -83,7 +83,7 @@ def register(app: typer.Typer) -> None:
         limits_path: Optional[str] = typer.Option(None, "--limits", help="Draw these limits on the run chart "
                                                   "(default: the limits each part was checked with)."),
         parquet_out: Optional[str] = typer.Option(None, "--parquet", help="Write the records, one row per mode, to "
-                                                  "this Parquet dataset folder (extra ringdown[cluster])."),
+                                                  "this Parquet dataset folder (needs the 'cluster' extra)."),
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Show stored results: a table, JSON, CSV, or a run chart of every mode in test order."""

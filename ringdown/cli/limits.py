@@ -165,9 +165,9 @@ def register(app: typer.Typer) -> None:
         force: bool = typer.Option(False, "--force", help="Re-check files already stored with the same limits."),
         jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
         scheduler: Optional[str] = typer.Option(None, "--scheduler", help="Run on a Dask cluster: scheduler ADDRESS "
-                                                "(tcp://HOST:8786) or local:N worker processes (extra ringdown[cluster])."),
+                                                "(tcp://HOST:8786) or local:N worker processes (needs the 'cluster' extra)."),
         parquet_out: Optional[str] = typer.Option(None, "--parquet", help="Also append one row per mode to this Parquet "
-                                                  "dataset folder, as results arrive (extra ringdown[cluster])."),
+                                                  "dataset folder, as results arrive (needs the 'cluster' extra)."),
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Check parts against limits: PASS or FAIL with every reason; store each result."""
