@@ -197,6 +197,11 @@ def read_recording(
     with _open(name) as fh:
         head = fh.read(4096)
     magic = _AUDIO_MAGIC.get(head[:4])
+    from .formats import find_reader
+
+    reader = find_reader(name, head, other_format=magic is not None)
+    if reader is not None:
+        return reader.read(name, channel=_selection(channel, column, name), sample_rate=sample_rate, limit=limit)
     is_text_name = name.lower().endswith(TEXT_SUFFIXES)
 
     if magic is not None or not is_text_name:

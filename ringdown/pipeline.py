@@ -310,6 +310,7 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
         path=rec.path,
         sha256=rec.sha256,
         channel=rec.channel,
+        unit=rec.unit,
         sample_rate_hz=fs,
         n_samples=rec.n_samples,
         hits=tuple(hits),

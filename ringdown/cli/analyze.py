@@ -49,7 +49,8 @@ def format_table(analysis) -> str:
     if analysis.error is not None:
         return f"{head}\n  error: {analysis.error.message}\n"
     used = sum(1 for h in analysis.hits if h.used)
-    head += (f"  ({analysis.sample_rate_hz:g} Hz, {analysis.duration_s:.3g} s, channel {analysis.channel}, "
+    unit = f" [{analysis.unit}]" if analysis.unit else ""
+    head += (f"  ({analysis.sample_rate_hz:g} Hz, {analysis.duration_s:.3g} s, channel {analysis.channel}{unit}, "
              f"{len(analysis.hits)} hit(s), {used} used)")
     lines.append(head)
     cols = ("#", "f_d [Hz]", "beta [1/s]", "f_n [Hz]", "zeta", "Q", "dB/s", "T60 [s]", "SNR dB", "method", "warnings")

@@ -1,0 +1,110 @@
+"""TDMS files (the file format of many data-acquisition systems), read with npTDMS.
+
+A TDMS file holds groups of channels. Each channel is offered as ``"group/channel"``; a plain
+channel name works when only one group has it. The sample rate is ``1 / wf_increment`` (the
+waveform property in seconds per sample, looked up on the channel, then its group, then the
+file); the unit is the channel's ``unit_string`` property.
+"""
+
+from __future__ import annotations
+
+from ..errors import InputError
+from ._common import check_size, need, pick, real_samples, reason, recording, resolve_rate
+
+__all__ = ["read"]
+
+_NUMERIC = "iuf"
+
+
+def read(name: str, *, channel=None, sample_rate: float | None = None, limit: int):
+    """Read one channel of a TDMS file as a :class:`~ringdown.recording.Recording`.
+
+    Parameters
+    ----------
+    name : str
+        The ``.tdms`` file (its ``.tdms_index`` beside it is used by npTDMS when present).
+    channel : int, str or None
+        1-based index over every channel of every group in file order, ``"group/channel"``, or a
+        channel name that only one group has. Default: the first numeric channel.
+    sample_rate : float or None, Hz
+        Used when the file has no ``wf_increment``; must agree within 0.1 % when it has one.
+    limit : int, bytes
+        Largest decoded size (float64) accepted for the channel.
+
+    Raises
+    ------
+    InputError
+        npTDMS missing, the file is damaged or not TDMS, the channel is empty or not numeric,
+        or no rate is known.
+    ParameterError
+        Unknown or ambiguous channel, or a sample rate that contradicts ``wf_increment``.
+    """
+    with open(name, "rb") as fh:
+        if fh.read(4) == b"TDSh":
+            raise InputError(
+                f"{name!r} is a TDMS index file (.tdms_index), which holds no samples; give the .tdms file beside it")
+    nptdms = need("nptdms", "TDMS", name)
+    try:
+        tdms = nptdms.TdmsFile.open(name)
+    except Exception as exc:  # npTDMS raises ValueError, struct.error, EOFError, KeyError... on damage
+        raise InputError(
+            f"{name!r} cannot be read as TDMS ({reason(exc)}); export or copy the file again") from exc
+    with tdms:
+        channels = [(g, c) for g in tdms.groups() for c in g.channels()]
+        if not channels:
+            raise InputError(f"{name!r} is a TDMS file with no channels; export the measurement again")
+        labels = [f"{g.name}/{c.name}" for g, c in channels]
+        aliases: dict[str, list[int]] = {}
+        for i, (_, c) in enumerate(channels):
+            aliases.setdefault(c.name.lower(), []).append(i)
+        if channel is None:
+            numeric = [i for i, (_, c) in enumerate(channels) if _dtype_kind(c) in _NUMERIC and len(c) > 0]
+            if not numeric:
+                raise InputError(
+                    f"{name!r} has no channel of numbers (its channels are {', '.join(map(repr, labels[:12]))}); "
+                    "export the measurement again")
+            index = numeric[0]
+        else:
+            index = pick(channel, labels, name, aliases=aliases)
+        group, chan = channels[index]
+        label = labels[index]
+        if len(chan) == 0:
+            raise InputError(f"channel {label!r} of {name!r} holds no samples; pick another channel")
+        increment, where = _property(tdms, group, chan, "wf_increment")
+        x_unit, _ = _property(tdms, group, chan, "wf_xunit_string")
+        if x_unit is not None and str(x_unit).strip().lower() not in ("s", "sec", "seconds", ""):
+            raise InputError(
+                f"channel {label!r} of {name!r} has its x axis in {str(x_unit).strip()!r}, not seconds: "
+                "it is not a time record; pick a time channel")
+        file_rate = None
+        if increment is not None:
+            try:
+                file_rate = 1.0 / float(increment) if float(increment) != 0 else float("inf")
+            except (TypeError, ValueError):
+                file_rate = float("nan")
+        rate = resolve_rate(file_rate, f"wf_increment = {increment!r} s on the {where}", sample_rate, name, label)
+        check_size(len(chan), name, label, limit)
+        try:
+            data = chan.read_data()
+        except Exception as exc:
+            raise InputError(
+                f"channel {label!r} of {name!r} cannot be decoded ({reason(exc)}); export the file again") from exc
+        samples = real_samples(data, name, label, limit)
+        return recording(samples, rate, label, chan.properties.get("unit_string"), name, len(channels))
+
+
+def _dtype_kind(chan) -> str:
+    try:
+        return chan.dtype.kind
+    except Exception:  # DAQmx raw data or unknown types may have no plain dtype
+        return "?"
+
+
+def _property(tdms, group, chan, key: str):
+    """(value, where) of a property on the channel, else its group, else the file; (None, None)."""
+    for obj, where in ((chan, "channel"), (group, "group"), (tdms, "file")):
+        value = obj.properties.get(key)
+        if value is not None:
+            return value, where
+    return None, None
+
