@@ -123,11 +123,13 @@ def resolve_rate(file_rate: float | None, source: str | None, given: float | Non
     return float(file_rate)
 
 
-def rate_from_time(t: np.ndarray, name: str, label: str) -> float:
+def rate_from_time(t: np.ndarray, name: str, label: str, *, resolution: float | None = None) -> float:
     """Sample rate (Hz) of a time vector in seconds: ``(n - 1) / (t[-1] - t[0])``.
 
     The steps must increase and be uniform within :data:`ringdown.io.MAX_TIMING_JITTER` (relative
-    RMS deviation from the mean step), as for a text file's time column.
+    RMS deviation from the mean step), as for a text file's time column; with ``resolution`` (s,
+    the step the values were printed to), steps uneven only through that printing (each within
+    one resolution of the mean step, the resolution below half a step) are accepted too.
     """
     t = np.asarray(t, dtype=np.float64).ravel()
     steps = np.diff(t)
@@ -136,7 +138,9 @@ def rate_from_time(t: np.ndarray, name: str, label: str) -> float:
             f"time vector {label!r} in {name!r} does not increase steadily; fix it or pass --sample-rate")
     mean = (t[-1] - t[0]) / (t.size - 1)
     jitter = float(np.sqrt(np.mean((steps - mean) ** 2)) / mean)
-    if jitter > MAX_TIMING_JITTER:
+    printed = (resolution is not None and resolution < 0.5 * mean
+               and float(np.max(np.abs(steps - mean))) <= 1.001 * resolution)
+    if jitter > MAX_TIMING_JITTER and not printed:
         raise InputError(
             f"time vector {label!r} in {name!r} has steps varying by {100 * jitter:.2g} % RMS (at most "
             f"{100 * MAX_TIMING_JITTER:g} % is accepted); resample to a uniform step")

@@ -34,7 +34,7 @@ def read(name: str, *, channel=None, sample_rate: float | None = None, limit: in
     """
     with open(name, "rb") as fh:
         head = fh.read(520)
-    if head[512:520] == _HDF5_MAGIC:
+    if head[512:520] == _HDF5_MAGIC or head[:10] == b"MATLAB 7.3":
         from .hdf5 import read_hdf5
 
         return read_hdf5(name, channel=channel, sample_rate=sample_rate, limit=limit, matlab=True)

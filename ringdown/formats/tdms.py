@@ -8,6 +8,9 @@ file); the unit is the channel's ``unit_string`` property.
 
 from __future__ import annotations
 
+import logging
+import re
+
 from ..errors import InputError
 from ._common import check_size, need, pick, real_samples, reason, recording, resolve_rate
 
@@ -44,53 +47,99 @@ def read(name: str, *, channel=None, sample_rate: float | None = None, limit: in
             raise InputError(
                 f"{name!r} is a TDMS index file (.tdms_index), which holds no samples; give the .tdms file beside it")
     nptdms = need("nptdms", "TDMS", name)
-    try:
-        tdms = nptdms.TdmsFile.open(name)
-    except Exception as exc:  # npTDMS raises ValueError, struct.error, EOFError, KeyError... on damage
-        raise InputError(
-            f"{name!r} cannot be read as TDMS ({reason(exc)}); export or copy the file again") from exc
-    with tdms:
-        channels = [(g, c) for g in tdms.groups() for c in g.channels()]
-        if not channels:
-            raise InputError(f"{name!r} is a TDMS file with no channels; export the measurement again")
-        labels = [f"{g.name}/{c.name}" for g, c in channels]
-        aliases: dict[str, list[int]] = {}
-        for i, (_, c) in enumerate(channels):
-            aliases.setdefault(c.name.lower(), []).append(i)
-        if channel is None:
-            numeric = [i for i, (_, c) in enumerate(channels) if _dtype_kind(c) in _NUMERIC and len(c) > 0]
-            if not numeric:
-                raise InputError(
-                    f"{name!r} has no channel of numbers (its channels are {', '.join(map(repr, labels[:12]))}); "
-                    "export the measurement again")
-            index = numeric[0]
-        else:
-            index = pick(channel, labels, name, aliases=aliases)
-        group, chan = channels[index]
-        label = labels[index]
-        if len(chan) == 0:
-            raise InputError(f"channel {label!r} of {name!r} holds no samples; pick another channel")
-        increment, where = _property(tdms, group, chan, "wf_increment")
-        x_unit, _ = _property(tdms, group, chan, "wf_xunit_string")
-        if x_unit is not None and str(x_unit).strip().lower() not in ("s", "sec", "seconds", ""):
-            raise InputError(
-                f"channel {label!r} of {name!r} has its x axis in {str(x_unit).strip()!r}, not seconds: "
-                "it is not a time record; pick a time channel")
-        file_rate = None
-        if increment is not None:
-            try:
-                file_rate = 1.0 / float(increment) if float(increment) != 0 else float("inf")
-            except (TypeError, ValueError):
-                file_rate = float("nan")
-        rate = resolve_rate(file_rate, f"wf_increment = {increment!r} s on the {where}", sample_rate, name, label)
-        check_size(len(chan), name, label, limit)
+    with _LibraryWarnings() as damage:
         try:
-            data = chan.read_data()
-        except Exception as exc:
+            try:
+                tdms = nptdms.TdmsFile.open(name)
+            except Exception as exc:  # npTDMS raises ValueError, struct.error, EOFError, KeyError... on damage
+                raise InputError(
+                    f"{name!r} cannot be read as TDMS ({reason(exc)}); export or copy the file again") from exc
+            with tdms:
+                rec = _read_channel(tdms, name, channel, sample_rate, limit)
+        except InputError:
+            if not damage.messages:
+                raise
+    if damage.messages:
+        # npTDMS reads what it can of a truncated or damaged file and logs a warning: refuse the
+        # file rather than analyse part of it without saying so
+        raise InputError(
+            f"{name!r} is damaged or truncated (npTDMS: {damage.messages[0].rstrip('.')}); export or copy the file "
+            "again")
+    return rec
+
+
+class _LibraryWarnings(logging.Handler):
+    """Collects (and keeps off stderr) what npTDMS logs at WARNING or above while reading."""
+
+    def __init__(self) -> None:
+        super().__init__(level=logging.WARNING)
+        self.messages: list[str] = []
+
+    def emit(self, record: logging.LogRecord) -> None:
+        # "..., will attempt to read to the end": what npTDMS tries, not what ringdown does
+        self.messages.append(reason(re.split(r"[,.]\s*[Ww]ill attempt", record.getMessage())[0]))
+
+    def __enter__(self):
+        # npTDMS gives each module logger its own console handler: mute it while we listen
+        from nptdms.log import log_manager
+
+        self._console = log_manager.console_handler
+        self._console_level = self._console.level
+        self._console.setLevel(logging.CRITICAL + 1)
+        logging.getLogger("nptdms").addHandler(self)
+        return self
+
+    def __exit__(self, *exc_info) -> None:
+        logging.getLogger("nptdms").removeHandler(self)
+        self._console.setLevel(self._console_level)
+
+
+def _read_channel(tdms, name: str, channel, sample_rate: float | None, limit: int):
+    """The chosen channel of an open TdmsFile as a Recording (see :func:`read`)."""
+    channels = [(g, c) for g in tdms.groups() for c in g.channels()]
+    if not channels:
+        raise InputError(f"{name!r} is a TDMS file with no channels; export the measurement again")
+    labels = [f"{g.name}/{c.name}" for g, c in channels]
+    aliases: dict[str, list[int]] = {}
+    for i, (_, c) in enumerate(channels):
+        aliases.setdefault(c.name.lower(), []).append(i)
+    if channel is None:
+        numeric = [i for i, (_, c) in enumerate(channels) if _dtype_kind(c) in _NUMERIC and len(c) > 0]
+        if not numeric:
             raise InputError(
-                f"channel {label!r} of {name!r} cannot be decoded ({reason(exc)}); export the file again") from exc
-        samples = real_samples(data, name, label, limit)
-        return recording(samples, rate, label, chan.properties.get("unit_string"), name, len(channels))
+                f"{name!r} has no channel of numbers (its channels are {', '.join(map(repr, labels[:12]))}); "
+                "export the measurement again")
+        index = numeric[0]
+    else:
+        index = pick(channel, labels, name, aliases=aliases)
+    group, chan = channels[index]
+    label = labels[index]
+    if len(chan) == 0:
+        raise InputError(f"channel {label!r} of {name!r} holds no samples; pick another channel")
+    if _dtype_kind(chan) not in _NUMERIC:
+        raise InputError(
+            f"channel {label!r} of {name!r} holds {_dtype_name(chan)} values, not numbers; pick a numeric channel")
+    increment, where = _property(tdms, group, chan, "wf_increment")
+    x_unit, _ = _property(tdms, group, chan, "wf_xunit_string")
+    if x_unit is not None and str(x_unit).strip().lower() not in ("s", "sec", "seconds", ""):
+        raise InputError(
+            f"channel {label!r} of {name!r} has its x axis in {str(x_unit).strip()!r}, not seconds: "
+            "it is not a time record; pick a time channel")
+    file_rate = None
+    if increment is not None:
+        try:
+            file_rate = 1.0 / float(increment) if float(increment) != 0 else float("inf")
+        except (TypeError, ValueError):
+            file_rate = float("nan")
+    rate = resolve_rate(file_rate, f"wf_increment = {increment!r} s on the {where}", sample_rate, name, label)
+    check_size(len(chan), name, label, limit)
+    try:
+        data = chan.read_data()
+    except Exception as exc:
+        raise InputError(
+            f"channel {label!r} of {name!r} cannot be decoded ({reason(exc)}); export the file again") from exc
+    samples = real_samples(data, name, label, limit)
+    return recording(samples, rate, label, chan.properties.get("unit_string"), name, len(channels))
 
 
 def _dtype_kind(chan) -> str:
@@ -98,6 +147,13 @@ def _dtype_kind(chan) -> str:
         return chan.dtype.kind
     except Exception:  # DAQmx raw data or unknown types may have no plain dtype
         return "?"
+
+
+def _dtype_name(chan) -> str:
+    try:
+        return str(chan.dtype)
+    except Exception:
+        return "unreadable"
 
 
 def _property(tdms, group, chan, key: str):

@@ -16,10 +16,12 @@ within that rounding of ``1 / increment``, it is taken as the rate (so 2.08333e-
 from __future__ import annotations
 
 import math
+import re
 
 import numpy as np
 
 from ..errors import InputError
+from . import _UFF_START
 from ._common import check_size, need, pick, rate_from_time, real_samples, reason, recording, resolve_rate
 
 __all__ = ["read"]
@@ -35,6 +37,8 @@ _FUNCTION_NAMES = {
     21: "partial coherence", 22: "eigenvalue", 23: "eigenvector", 24: "shock response spectrum",
     25: "finite impulse response filter", 26: "multiple coherence", 27: "order function",
 }
+# A delimiter line as pyuff finds them: "    -1" alone on its line (blanks may follow).
+_DELIMITER = re.compile(rb"(?m)^    -1 *\r?$")
 # Abscissa specific data types (record 8, field 1) that can be time: 0 unknown, 17 time.
 _TIME_ABSCISSA = (0, 17)
 
@@ -68,8 +72,21 @@ def read(name: str, *, channel=None, sample_rate: float | None = None, limit: in
     except Exception as exc:  # pyuff raises bare Exception on damage
         raise InputError(f"{name!r} cannot be read as a Universal File ({reason(exc)}); export it again") from exc
     if not types:
+        with open(name, "rb") as fh:
+            opened = _UFF_START.match(fh.read(4096)) is not None
+        if opened:
+            raise InputError(
+                f"{name!r} starts like a Universal File but holds no complete dataset (each is closed by a "
+                "'    -1' line): it is truncated or damaged; export it again")
         raise InputError(
-            f"{name!r} holds no Universal File dataset (no '    -1' delimiter lines); export it again as UFF 58")
+            f"{name!r} holds no Universal File dataset (none opened and closed by '    -1' lines); export it "
+            "again as UFF 58")
+    with open(name, "rb") as fh:
+        delimiters = len(_DELIMITER.findall(fh.read()))
+    if delimiters % 2:
+        # pyuff pairs the delimiter lines and would drop an unclosed last dataset without a word
+        raise InputError(
+            f"the last dataset of {name!r} is not closed by a '    -1' line: the file is truncated; export it again")
     sets58 = [i for i, t in enumerate(types) if t == 58]
     if not sets58:
         raise InputError(
@@ -112,7 +129,9 @@ def read(name: str, *, channel=None, sample_rate: float | None = None, limit: in
         if x.shape != samples.shape:
             raise InputError(f"dataset {label!r} of {name!r} has {x.size} abscissa values for {samples.size} "
                              "samples; export it again")
-        file_rate = rate_from_time(x, name, label)
+        # record 12 prints the abscissa as E13.5: six significant digits
+        printed = 10.0 ** (math.floor(math.log10(max(float(np.max(np.abs(x))), 1e-300))) - 5)
+        file_rate = rate_from_time(x, name, label, resolution=printed)
         source = "uneven abscissa values"
     rate = resolve_rate(file_rate, source, sample_rate, name, label)
     return recording(samples, rate, label, head.get("ordinate_axis_units_lab"), name, len(sets58))
