@@ -372,8 +372,11 @@ def test_complex_and_short_arrays(folder, signal):
     assert read_recording(p).channel == "x"  # the first real signal
     with pytest.raises(InputError, match=r"'z' in .* holds complex values"):
         read_recording(p, channel="z")
-    with pytest.raises(ParameterError, match=r"no signal named 'few'"):  # 10 samples: not a signal
+    with pytest.raises(InputError, match=r"'few' in .* has 10 values, fewer than the 64 samples needed"):
         read_recording(p, channel="few")
+    p = write_h5(folder / "cube.h5", lambda f: f.create_dataset("cube", data=np.zeros((100, 3, 2))))
+    with pytest.raises(InputError, match=r"'cube' in .* is a 3-D array 100x3x2; ringdown reads vectors and 2-D"):
+        read_recording(p, channel="cube")
     p = write_h5(folder / "empty.h5", lambda f: f.create_dataset("few", data=signal[:10]))
     with pytest.raises(InputError, match=r"is a HDF5 file with no numeric vector or matrix of at least 64 samples"):
         read_recording(p)
@@ -483,3 +486,27 @@ def test_cli_channel_by_name(multi_tdms):
 def test_parse_channel():
     assert parse_channel(None) is None and parse_channel(" 3 ") == 3 and parse_channel("run1/accel") == "run1/accel"
     assert parse_channel("-1") == "-1"  # not digits: a name (and then unknown), never a negative index
+
+
+def test_limits_learn_keeps_the_channel_for_check(tmp_path):
+    # four invented good parts, each a TDMS file with a force channel first and the response
+    # second: without --channel the force channel (first) would be analysed
+    import json
+
+    parts = []
+    for k in range(4):
+        x = ringdown_modes([(612.0 * (1 + 1e-3 * k), 11.5, 1.0), (1587.0 * (1 + 1e-3 * k), 22.0, 0.5)],
+                           sample_rate=FS, duration_s=0.3, seed=100 + k)
+        inc = {"wf_increment": 1 / FS}
+        parts.append(write_tdms(tmp_path / f"good_{k}.tdms", [("p", "force", np.zeros_like(x), inc),
+                                                               ("p", "response", x, {**inc, "unit_string": UNIT})]))
+    lim = tmp_path / "lim.toml"
+    r = CliRunner().invoke(app, ["limits", "learn", *parts[:3], "-o", str(lim), "--channel", "response", "--jobs", "1"])
+    assert r.exit_code == 0, r.output
+    assert 'channel = "response"' in lim.read_text()
+    r = CliRunner().invoke(app, ["check", "--limits", str(lim), parts[3], "--json", "--no-store", "--jobs", "1"])
+    # the part passes: its response was analysed (the all-zero force channel would be an error)
+    assert r.exit_code == 0, r.output
+    assert json.loads(r.stdout)["summary"]["passed"] == 1
+    r = CliRunner().invoke(app, ["limits", "learn", *parts[:3], "-o", str(tmp_path / "x.toml"), "--jobs", "1"])
+    assert r.exit_code == 2 and "constant" in r.output  # without --channel: the force channel

@@ -7,7 +7,7 @@ this registry picks the module for a file, by content signature first and by nam
 module     content signature (first 4096 bytes)          name endings
 =========  ===========================================  ==================================
 ``tdms``   ``TDSm`` (``TDSh``: an index file)            ``.tdms``
-``matlab`` ``MATLAB`` header text (v5, and v7.3 = HDF5)  ``.mat`` (also v4, no signature)
+``matlab`` ``MATLAB`` text, ``IM``/``MI`` at byte 126     ``.mat`` (also v4, no signature)
 ``hdf5``   ``\\x89HDF\\r\\n\\x1a\\n`` at 0, 512, 1024, 2048  ``.h5``, ``.hdf5``, ``.hdf``, ``.he5``
 ``uff``    a ``-1`` line then a dataset number line      ``.uff``, ``.unv``, ``.uf``
 =========  ===========================================  ==================================
@@ -60,7 +60,9 @@ class Reader:
 #: files with a MATLAB header, so MATLAB comes first).
 READERS: tuple[Reader, ...] = (
     Reader("TDMS", "tdms", (".tdms", ".tdms_index"), lambda h: h[:4] in (b"TDSm", b"TDSh")),
-    Reader("MATLAB", "matlab", (".mat",), lambda h: h[:6] == b"MATLAB"),
+    # MAT-File Format (MathWorks): 116 bytes of text starting "MATLAB", then at byte 126 the
+    # endian indicator "IM" or "MI"; v7.3 keeps that header in the HDF5 user block
+    Reader("MATLAB", "matlab", (".mat",), lambda h: h[:6] == b"MATLAB" and h[126:128] in (b"IM", b"MI")),
     Reader("HDF5", "hdf5", (".h5", ".hdf5", ".hdf", ".he5"), _is_hdf5),
     Reader("UFF", "uff", (".uff", ".unv", ".uf"), lambda h: _UFF_START.match(h) is not None),
 )

@@ -14,6 +14,7 @@ Recognised names (case-insensitive):
 * unit: an attribute ``unit``/``units`` of the dataset, else a text variable or field
   ``NAME_unit``/``NAME_units`` or ``unit``/``units`` beside the signal ``NAME``.
 
+Without a choice the first floating-point channel is read, else the first integer one.
 A 2-D array is several channels along its longer axis: ``NAME:1``, ``NAME:2``... (samples on
 the longer axis, as a MATLAB column per channel or a row per channel both give).
 """
@@ -87,8 +88,10 @@ def _scalar(value) -> float | None:
     return float(arr.reshape(-1)[0])
 
 
-def _entries(root: Node, sep: str) -> list[_Entry]:
+def _entries(root: Node, sep: str) -> tuple[list[_Entry], dict[str, str]]:
+    """The channels of the tree, and why each other numeric array is not one (lower-case path -> reason)."""
     out: list[_Entry] = []
+    skipped: dict[str, str] = {}
 
     def walk(node: Node, prefix: str, chain: list) -> None:
         chain = [node, *chain]
@@ -98,18 +101,23 @@ def _entries(root: Node, sep: str) -> list[_Entry]:
             shape = tuple(int(s) for s in arr.shape)
             dims = [s for s in shape if s != 1]
             path = f"{prefix}{key}"
-            if len(dims) == 1 and dims[0] >= MIN_SAMPLES:
+            if max(shape, default=0) < MIN_SAMPLES:
+                skipped[path.lower()] = f"has {int(np.prod(shape))} values, fewer than the {MIN_SAMPLES} samples needed"
+            elif len(dims) == 1:
                 out.append(_Entry(path, str(key), arr, (), dims[0], chain))
-            elif len(shape) == 2 and len(dims) == 2 and max(shape) >= MIN_SAMPLES:
+            elif len(shape) == 2 and len(dims) == 2:
                 long_axis = 0 if shape[0] >= shape[1] else 1
                 for j in range(shape[1 - long_axis]):
                     index = (slice(None), j) if long_axis == 0 else (j, slice(None))
                     out.append(_Entry(f"{path}:{j + 1}", str(key), arr, index, shape[long_axis], chain))
+            else:
+                skipped[path.lower()] = (f"is a {len(dims)}-D array {'x'.join(map(str, shape))}; ringdown reads "
+                                         "vectors and 2-D arrays (a channel per column or row)")
         for key, child in node.children.items():
             walk(child, f"{prefix}{key}{sep}", chain)
 
     walk(root, "", [])
-    return out
+    return out, skipped
 
 
 def _rate(entry: _Entry, name: str, sep: str) -> tuple[float | None, str | None]:
@@ -174,7 +182,9 @@ def read_signal(root: Node, name: str, *, channel, sample_rate: float | None, li
     what : str
         The kind of file for messages ("MATLAB file", "HDF5 file").
     """
-    entries = _entries(root, sep)
+    entries, skipped = _entries(root, sep)
+    if isinstance(channel, str) and channel.strip().lower() in skipped:
+        raise InputError(f"{channel.strip()!r} in {name!r} {skipped[channel.strip().lower()]}; pick another signal")
     if not entries:
         raise InputError(
             f"{name!r} is a {what} with no numeric vector or matrix of at least {MIN_SAMPLES} samples; "
@@ -186,8 +196,11 @@ def read_signal(root: Node, name: str, *, channel, sample_rate: float | None, li
         aliases.setdefault(base, []).append(i)
         if e.leaf.lower() != base:
             aliases.setdefault(e.leaf.lower(), []).append(i)
-    if channel is None:  # the first real channel (a complex one is refused only when asked for)
-        i = next((k for k, e in enumerate(entries) if e.array.dtype.kind != "c"), 0)
+    if channel is None:
+        # the first floating-point channel, else the first integer one (flags and counters are
+        # often small integer arrays); a complex one is refused only when asked for
+        i = next((k for k, e in enumerate(entries) if e.array.dtype.kind == "f"),
+                 next((k for k, e in enumerate(entries) if e.array.dtype.kind in "iu"), 0))
     else:
         i = pick(channel, labels, name, what="signal", aliases=aliases)
     entry = entries[i]
