@@ -510,3 +510,45 @@ def test_limits_learn_keeps_the_channel_for_check(tmp_path):
     assert json.loads(r.stdout)["summary"]["passed"] == 1
     r = CliRunner().invoke(app, ["limits", "learn", *parts[:3], "-o", str(tmp_path / "x.toml"), "--jobs", "1"])
     assert r.exit_code == 2 and "constant" in r.output  # without --channel: the force channel
+
+
+def test_tdms_daqmx_raw_data_is_scaled(signal, tmp_path):
+    # DAQmx raw data (int16 counts plus a linear scale in the properties): TdmsWriter cannot write
+    # it, so the file is built with the helpers of npTDMS's own DAQmx tests (nptdms.test), which
+    # lay out the segment as NI's DAQmx format does
+    util = pytest.importorskip("nptdms.test.util")
+    daqmx = pytest.importorskip("nptdms.test.test_daqmx")
+    hexv, text = util.hexlify_value, util.string_hexlify
+
+    def string(v):
+        return hexv("<I", len(v.encode())) + text(v)
+
+    counts = np.round(signal / np.abs(signal).max() * 30000).astype("<i2")
+    slope = 2.5 / 30000  # V per count, invented
+    # property type ids: 7 uint32, 10 double, 0x20 string (TDMS file format, data types)
+    props = {
+        "NI_Number_Of_Scales": (7, hexv("<I", 2)),
+        "NI_Scale[1]_Scale_Type": (0x20, string("Linear")),
+        "NI_Scale[1]_Linear_Slope": (10, hexv("<d", slope)),
+        "NI_Scale[1]_Linear_Y_Intercept": (10, hexv("<d", 0.0)),
+        "NI_Scale[1]_Linear_Input_Source": (7, hexv("<I", 0)),
+        "wf_increment": (10, hexv("<d", 1 / FS)),
+        "unit_string": (0x20, string("V")),
+    }
+    meta = util.segment_objects_metadata(
+        util.root_metadata(), util.group_metadata(),
+        daqmx.daqmx_channel_metadata("ai0", counts.size, [2], [daqmx.daqmx_scaler_metadata(0, 3, 0)],
+                                     properties=props))
+    f = util.GeneratedFile()
+    f.add_segment(daqmx.segment_toc(), meta, counts.tobytes(), binary_data=True)
+    path = tmp_path / "daqmx.tdms"
+    path.write_bytes(f.get_bytes_io_file().getvalue())
+    rec = read_recording(str(path))
+    assert rec.channel == "Group/ai0" and rec.unit == "V" and rec.sample_rate == FS
+    np.testing.assert_allclose(rec.samples, counts * slope, rtol=1e-15)  # the linear scale, applied
+    wav = tmp_path / "daqmx.wav"
+    sf.write(str(wav), counts * slope, int(FS), subtype="DOUBLE")
+    a, ref = analyze_file(str(path)), analyze_file(str(wav))
+    assert len(a.modes) == len(ref.modes) == 2
+    for m, r in zip(a.modes, ref.modes):
+        np.testing.assert_allclose([m.f_d_hz, m.beta_per_s], [r.f_d_hz, r.beta_per_s], rtol=1e-12)

@@ -8,7 +8,7 @@ sample rate and unit come from the names listed in :mod:`ringdown.formats._tree`
 In a MATLAB v7.3 file (MATLAB's own layout: a 512-byte header, then HDF5 with every variable a
 dataset carrying a ``MATLAB_class`` attribute and structs as groups), struct fields are named
 ``s.field`` as in a v5 file, ``char`` variables are read as text, and the ``#refs#`` and
-``#subsystem#`` groups (cell arrays, objects) are skipped.
+``#subsystem#`` groups (cell arrays, objects), sparse, logical and complex variables are skipped.
 """
 
 from __future__ import annotations
@@ -96,6 +96,8 @@ def _node(group, h5py, matlab: bool) -> Node:
         if obj is None:
             continue  # a dangling link holds nothing to read
         if isinstance(obj, h5py.Group):
+            if matlab and "MATLAB_sparse" in obj.attrs:
+                continue  # a sparse matrix (data/ir/jc datasets), not a struct of signals
             node.children[key] = _node(obj, h5py, matlab)
             continue
         if not isinstance(obj, h5py.Dataset):
