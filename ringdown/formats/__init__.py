@@ -3,14 +3,14 @@
 One module per format, each with ``read(name, *, channel, sample_rate, limit) -> Recording``;
 this registry picks the module for a file, by content signature first and by name ending second:
 
-=========  ===========================================  ==================================
-module     content signature (first 4096 bytes)          name endings
-=========  ===========================================  ==================================
-``tdms``   ``TDSm`` (``TDSh``: an index file)            ``.tdms``
-``matlab`` ``MATLAB`` text, ``IM``/``MI`` at byte 126     ``.mat`` (also v4, no signature)
-``hdf5``   ``\\x89HDF\\r\\n\\x1a\\n`` at 0, 512, 1024, 2048  ``.h5``, ``.hdf5``, ``.hdf``, ``.he5``
-``uff``    a ``-1`` line then a dataset number line      ``.uff``, ``.unv``, ``.uf``
-=========  ===========================================  ==================================
+==========  ==============================================  ==========================================
+module      content signature (first 4096 bytes)            name endings
+==========  ==============================================  ==========================================
+``tdms``    ``TDSm`` (``TDSh``: an index file)              ``.tdms`` (``.tdms_index``)
+``matlab``  ``MATLAB`` text, ``IM``/``MI`` at byte 126      ``.mat`` (also v4, which has no signature)
+``hdf5``    ``\\x89HDF\\r\\n\\x1a\\n`` at 0, 512, 1024, 2048  ``.h5``, ``.hdf5``, ``.hdf``, ``.he5``
+``uff``     ``    -1`` then a dataset number, both I6       ``.uff``, ``.unv``, ``.uf``
+==========  ==============================================  ==========================================
 
 The format modules import their third-party library (npTDMS, pyuff, h5py, scipy.io) only when
 they read, so importing ringdown stays fast; a missing library gives one line naming the

@@ -21,12 +21,14 @@ the longer axis, as a MATLAB column per channel or a row per channel both give).
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from typing import Callable
 
 import numpy as np
 
 from ..errors import InputError
+from ..io import _RATE_RTOL
 from ..recording import Recording
 from ._common import MIN_SAMPLES, check_size, clean_unit, pick, rate_from_time, real_samples, reason, recording, \
     resolve_rate
@@ -120,7 +122,7 @@ def _entries(root: Node, sep: str) -> tuple[list[_Entry], dict[str, str]]:
     return out, skipped
 
 
-def _rate(entry: _Entry, name: str, sep: str) -> tuple[float | None, str | None]:
+def _rate(entry: _Entry, name: str) -> tuple[float | None, str | None]:
     """(rate Hz, where it came from) for one channel, or (None, None)."""
     levels = [(entry.array.attrs, f"attribute of {entry.label.split(':')[0]!r}")]
     for node in entry.chain:
@@ -136,7 +138,7 @@ def _rate(entry: _Entry, name: str, sep: str) -> tuple[float | None, str | None]
             dt = _scalar(hit[1])
             found.append((1.0 / dt if dt else float("inf"), f"{kind} {hit[0]!r} = {dt:g} s"))
         if found:
-            if len(found) == 2 and not np.isclose(found[0][0], found[1][0], rtol=1e-3):
+            if len(found) == 2 and not math.isclose(found[0][0], found[1][0], rel_tol=_RATE_RTOL):
                 raise InputError(
                     f"{name!r} states two sample rates for {entry.label!r}: {found[0][1]} and {found[1][1]}; "
                     "fix the file")
@@ -204,7 +206,7 @@ def read_signal(root: Node, name: str, *, channel, sample_rate: float | None, li
     else:
         i = pick(channel, labels, name, what="signal", aliases=aliases)
     entry = entries[i]
-    file_rate, source = _rate(entry, name, sep)
+    file_rate, source = _rate(entry, name)
     rate = resolve_rate(file_rate, source, sample_rate, name, entry.label)
     check_size(entry.n, name, entry.label, limit)
     try:
