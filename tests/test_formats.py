@@ -552,3 +552,23 @@ def test_tdms_daqmx_raw_data_is_scaled(signal, tmp_path):
     assert len(a.modes) == len(ref.modes) == 2
     for m, r in zip(a.modes, ref.modes):
         np.testing.assert_allclose([m.f_d_hz, m.beta_per_s], [r.f_d_hz, r.beta_per_s], rtol=1e-12)
+
+
+def test_decoded_size_is_checked_before_reading(tmp_path):
+    # a compressed dataset far larger decoded than on disk: refused by its decoded size
+    x = np.zeros(200_000)
+    x[:1000] = np.sin(np.arange(1000))
+
+    def build(f):
+        f.create_dataset("x", data=x, compression="gzip").attrs["fs"] = FS
+
+    p = write_h5(tmp_path / "packed.h5", build)
+    size = os.path.getsize(p)
+    assert size < 100_000 < x.nbytes
+    with pytest.raises(InputError, match=r"'x' in .* decodes to 1.5 MiB, more than the 97.7 KiB allowed"):
+        read_recording(p, max_bytes=100_000)
+    p = str(tmp_path / "big.mat")
+    scipy_io.savemat(p, {"x": x, "fs": FS}, do_compression=True)
+    assert os.path.getsize(p) < 100_000
+    with pytest.raises(InputError, match=r"holds 1.5 MiB of numbers, more than the 97.7 KiB allowed"):
+        read_recording(p, max_bytes=100_000)

@@ -12,6 +12,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import InputError
+from ..io import _fmt_bytes
 from ._common import reason
 from ._tree import Array, Node, read_signal
 
@@ -44,10 +45,10 @@ def read(name: str, *, channel=None, sample_rate: float | None = None, limit: in
         listed = scipy.io.whosmat(name)
     except Exception as exc:  # ValueError "Unknown mat file type", MatReadError, zlib errors...
         raise InputError(f"{name!r} cannot be read as a MATLAB file ({reason(exc)}); save it again") from exc
-    need = sum(int(np.prod(shape)) * 8 for _, shape, cls in listed if cls not in ("struct", "cell", "char"))
-    if need > limit:
+    decoded = sum(int(np.prod(shape)) * 8 for _, shape, cls in listed if cls not in ("struct", "cell", "char"))
+    if decoded > limit:
         raise InputError(
-            f"{name!r} holds {need / 2**20:.1f} MiB of numbers, more than the {limit / 2**20:.1f} MiB allowed; "
+            f"{name!r} holds {_fmt_bytes(decoded)} of numbers, more than the {_fmt_bytes(limit)} allowed; "
             "save the one signal alone or pass a larger max_bytes")
     try:
         content = scipy.io.loadmat(name, simplify_cells=True)
