@@ -572,3 +572,34 @@ def test_decoded_size_is_checked_before_reading(tmp_path):
     assert os.path.getsize(p) < 100_000
     with pytest.raises(InputError, match=r"holds 1.5 MiB of numbers, more than the 97.7 KiB allowed"):
         read_recording(p, max_bytes=100_000)
+
+
+_PREFIXES = {
+    "tdms": b"TDSm",
+    "mat": b"MATLAB 5.0 MAT-file, invented".ljust(124) + b"\x00\x01IM",
+    "h5": b"\x89HDF\r\n\x1a\n",
+    "uff": b"    -1\n    58\n",
+}
+
+
+@pytest.mark.parametrize("ext", sorted(_PREFIXES))
+def test_random_content_after_a_signature_gives_one_line_errors(ext, tmp_path):
+    # a property over arbitrary bytes (Hypothesis): whatever follows a format's signature,
+    # read_recording raises only ringdown's own one-line errors
+    from hypothesis import HealthCheck, given, settings
+    from hypothesis import strategies as st
+
+    from ringdown.errors import RingdownError
+
+    @settings(max_examples=25, deadline=None, derandomize=True,
+              suppress_health_check=[HealthCheck.function_scoped_fixture])
+    @given(tail=st.binary(min_size=0, max_size=600))
+    def check(tail):
+        p = tmp_path / f"x.{ext}"
+        p.write_bytes(_PREFIXES[ext] + tail)
+        try:
+            read_recording(str(p), sample_rate=FS)
+        except RingdownError as exc:
+            assert str(exc) and "\n" not in str(exc)
+
+    check()
