@@ -603,3 +603,15 @@ def test_random_content_after_a_signature_gives_one_line_errors(ext, tmp_path):
             assert str(exc) and "\n" not in str(exc)
 
     check()
+
+
+def test_truncated_tdms_is_refused_quietly(folder, signal, capfd):
+    # npTDMS logs a warning and reads what is left of a truncated file; ringdown refuses the file
+    # in its one line and keeps npTDMS's console output off stderr
+    p = _broken("tdms", folder, signal, "truncated")
+    capfd.readouterr()
+    with pytest.raises(InputError, match=r"is damaged or truncated \(npTDMS: Last segment of file has less data "
+                                         r"than expected\); export or copy the file again"):
+        read_recording(p)
+    out, err = capfd.readouterr()
+    assert "nptdms" not in err.lower() and out == ""

@@ -80,18 +80,23 @@ class _LibraryWarnings(logging.Handler):
         self.messages.append(reason(re.split(r"[,.]\s*[Ww]ill attempt", record.getMessage())[0]))
 
     def __enter__(self):
-        # npTDMS gives each module logger its own console handler: mute it while we listen
-        from nptdms.log import log_manager
+        # npTDMS (1.x) gives each module logger its own console handler: mute it while we listen
+        try:
+            from nptdms.log import log_manager
 
-        self._console = log_manager.console_handler
-        self._console_level = self._console.level
-        self._console.setLevel(logging.CRITICAL + 1)
+            self._console = log_manager.console_handler
+        except (ImportError, AttributeError):  # another layout: its messages then reach stderr too
+            self._console = None
+        if self._console is not None:
+            self._console_level = self._console.level
+            self._console.setLevel(logging.CRITICAL + 1)
         logging.getLogger("nptdms").addHandler(self)
         return self
 
     def __exit__(self, *exc_info) -> None:
         logging.getLogger("nptdms").removeHandler(self)
-        self._console.setLevel(self._console_level)
+        if self._console is not None:
+            self._console.setLevel(self._console_level)
 
 
 def _read_channel(tdms, name: str, channel, sample_rate: float | None, limit: int):
