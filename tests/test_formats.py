@@ -615,3 +615,16 @@ def test_truncated_tdms_is_refused_quietly(folder, signal, capfd):
         read_recording(p)
     out, err = capfd.readouterr()
     assert "nptdms" not in err.lower() and out == ""
+
+
+def test_tdms_rate_from_a_time_channel(tmp_path, signal):
+    t = np.arange(signal.size) / FS
+    p = write_tdms(tmp_path / "timed.tdms", [("g", "Time", t, {"unit_string": "s"}), ("g", "accel", signal, {})])
+    rec = read_recording(p)  # the default skips the time channel
+    assert rec.channel == "g/accel" and rec.sample_rate == pytest.approx(FS, rel=1e-9)
+    # timestamps: npTDMS's writer keeps whole microseconds, so a rate of 50 kHz (20 us steps)
+    fs = 50000.0
+    x = ringdown_modes(MODES, sample_rate=fs, duration_s=0.2, seed=5)
+    stamps = np.datetime64("2026-01-01T00:00:00", "us") + np.arange(x.size) * np.timedelta64(20, "us")
+    p = write_tdms(tmp_path / "stamped.tdms", [("g", "time", stamps, {}), ("g", "accel", x, {})])
+    assert read_recording(p).sample_rate == pytest.approx(fs, rel=1e-12)

@@ -16,6 +16,9 @@ from ..recording import Recording
 #: How many names an error message lists before it says how many more there are.
 _LISTED = 12
 
+#: Names of a time vector or time channel, s (matched case-insensitively).
+TIME_NAMES = ("t", "time", "time_s", "times")
+
 
 def need(module: str, what: str, name: str):
     """Import an optional library, or raise one line naming the ``formats`` extra."""
@@ -194,6 +197,6 @@ def clean_unit(unit) -> str | None:
     return text if text and text.upper() != "NONE" else None
 
 
-__all__ = ["need", "reason", "listing", "pick", "resolve_rate", "rate_from_time", "real_samples", "check_size",
+__all__ = ["TIME_NAMES", "need", "reason", "listing", "pick", "resolve_rate", "rate_from_time", "real_samples", "check_size",
            "recording",
            "clean_unit", "MIN_SAMPLES"]

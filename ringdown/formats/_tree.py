@@ -30,15 +30,13 @@ import numpy as np
 from ..errors import InputError
 from ..io import _RATE_RTOL
 from ..recording import Recording
-from ._common import MIN_SAMPLES, check_size, clean_unit, pick, rate_from_time, real_samples, reason, recording, \
+from ._common import MIN_SAMPLES, TIME_NAMES, check_size, clean_unit, pick, rate_from_time, real_samples, reason, recording, \
     resolve_rate
 
 #: Names of a scalar sample rate, Hz.
 RATE_NAMES = ("fs", "sample_rate", "samplerate", "sampling_rate", "sampling_frequency", "sample_rate_hz", "fs_hz")
 #: Names of a scalar sample interval, s.
 INTERVAL_NAMES = ("dt", "sample_interval", "sampling_interval", "time_step", "wf_increment")
-#: Names of a time vector, s.
-TIME_NAMES = ("t", "time", "time_s", "times")
 _UNIT_NAMES = ("unit", "units")
 
 

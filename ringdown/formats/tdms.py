@@ -3,7 +3,9 @@
 A TDMS file holds groups of channels. Each channel is offered as ``"group/channel"``; a plain
 channel name works when only one group has it. The sample rate is ``1 / wf_increment`` (the
 waveform property in seconds per sample, looked up on the channel, then its group, then the
-file); the unit is the channel's ``unit_string`` property.
+file); without it, from a channel of the same group and length named ``t``, ``time``,
+``time_s`` or ``times`` (seconds, or timestamps), whose steps must be uniform as for a text time
+column. The unit is the channel's ``unit_string`` property.
 """
 
 from __future__ import annotations
@@ -11,8 +13,11 @@ from __future__ import annotations
 import logging
 import re
 
+import numpy as np
+
 from ..errors import InputError
-from ._common import check_size, need, pick, real_samples, reason, recording, resolve_rate
+from ._common import TIME_NAMES, check_size, need, pick, rate_from_time, real_samples, reason, recording, \
+    resolve_rate
 
 __all__ = ["read"]
 
@@ -50,7 +55,8 @@ def read(name: str, *, channel=None, sample_rate: float | None = None, limit: in
     with _LibraryWarnings() as damage:
         try:
             try:
-                tdms = nptdms.TdmsFile.open(name)
+                # raw timestamps: seconds and 2^-64 s fractions as stored, not rounded to microseconds
+                tdms = nptdms.TdmsFile.open(name, raw_timestamps=True)
             except Exception as exc:  # npTDMS raises ValueError, struct.error, EOFError, KeyError... on damage
                 raise InputError(
                     f"{name!r} cannot be read as TDMS ({reason(exc)}); export or copy the file again") from exc
@@ -109,7 +115,8 @@ def _read_channel(tdms, name: str, channel, sample_rate: float | None, limit: in
     for i, (_, c) in enumerate(channels):
         aliases.setdefault(c.name.lower(), []).append(i)
     if channel is None:
-        numeric = [i for i, (_, c) in enumerate(channels) if _dtype_kind(c) in _NUMERIC and len(c) > 0]
+        numeric = [i for i, (_, c) in enumerate(channels)
+                   if _dtype_kind(c) in _NUMERIC and len(c) > 0 and c.name.lower() not in TIME_NAMES]
         if not numeric:
             raise InputError(
                 f"{name!r} has no channel of numbers (its channels are {', '.join(map(repr, labels[:12]))}); "
@@ -130,13 +137,15 @@ def _read_channel(tdms, name: str, channel, sample_rate: float | None, limit: in
         raise InputError(
             f"channel {label!r} of {name!r} has its x axis in {str(x_unit).strip()!r}, not seconds: "
             "it is not a time record; pick a time channel")
-    file_rate = None
+    file_rate, source = None, f"wf_increment = {increment!r} s on the {where}"
     if increment is not None:
         try:
             file_rate = 1.0 / float(increment) if float(increment) != 0 else float("inf")
         except (TypeError, ValueError):
             file_rate = float("nan")
-    rate = resolve_rate(file_rate, f"wf_increment = {increment!r} s on the {where}", sample_rate, name, label)
+    else:
+        file_rate, source = _time_channel_rate(group, chan, name, limit)
+    rate = resolve_rate(file_rate, source, sample_rate, name, label)
     check_size(len(chan), name, label, limit)
     try:
         data = chan.read_data()
@@ -145,6 +154,30 @@ def _read_channel(tdms, name: str, channel, sample_rate: float | None, limit: in
             f"channel {label!r} of {name!r} cannot be decoded ({reason(exc)}); export the file again") from exc
     samples = real_samples(data, name, label, limit)
     return recording(samples, rate, label, chan.properties.get("unit_string"), name, len(channels))
+
+
+def _time_channel_rate(group, chan, name: str, limit: int) -> tuple[float | None, str | None]:
+    """Rate from a time channel of the same group and length (seconds, or timestamps), else (None, None)."""
+    for other in group.channels():
+        if other is chan or other.name.lower() not in TIME_NAMES or len(other) != len(chan):
+            continue
+        label = f"{group.name}/{other.name}"
+        check_size(len(other), name, label, limit)
+        try:
+            t = other.read_data()
+        except Exception as exc:
+            raise InputError(
+                f"time channel {label!r} of {name!r} cannot be decoded ({reason(exc)}); export the file again") from exc
+        if _dtype_kind(other) == "M":
+            # TDMS timestamps: whole seconds and 2^-64 s fractions (TDMS file format, data types);
+            # seconds since the first
+            seconds = np.asarray(t["seconds"], dtype=np.int64)
+            fractions = np.asarray(t["second_fractions"], dtype=np.float64)
+            t = (seconds - seconds[0]) + (fractions - fractions[0]) / 2.0**64
+        elif _dtype_kind(other) not in _NUMERIC:
+            continue
+        return rate_from_time(t, name, label), f"time channel {label!r}"
+    return None, None
 
 
 def _dtype_kind(chan) -> str:
