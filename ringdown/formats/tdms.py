@@ -146,14 +146,18 @@ def _read_channel(tdms, name: str, channel, sample_rate: float | None, limit: in
     else:
         file_rate, source = _time_channel_rate(group, chan, name, limit)
     rate = resolve_rate(file_rate, source, sample_rate, name, label)
+    samples = real_samples(_decode(chan, label, name, limit), name, label, limit)
+    return recording(samples, rate, label, chan.properties.get("unit_string"), name, len(channels))
+
+
+def _decode(chan, label: str, name: str, limit: int):
+    """All values of a channel (its size checked first); a decoding failure is one line."""
     check_size(len(chan), name, label, limit)
     try:
-        data = chan.read_data()
-    except Exception as exc:
+        return chan.read_data()
+    except Exception as exc:  # npTDMS raises ValueError, EOFError, struct.error... on damaged data
         raise InputError(
             f"channel {label!r} of {name!r} cannot be decoded ({reason(exc)}); export the file again") from exc
-    samples = real_samples(data, name, label, limit)
-    return recording(samples, rate, label, chan.properties.get("unit_string"), name, len(channels))
 
 
 def _time_channel_rate(group, chan, name: str, limit: int) -> tuple[float | None, str | None]:
@@ -162,12 +166,7 @@ def _time_channel_rate(group, chan, name: str, limit: int) -> tuple[float | None
         if other is chan or other.name.lower() not in TIME_NAMES or len(other) != len(chan):
             continue
         label = f"{group.name}/{other.name}"
-        check_size(len(other), name, label, limit)
-        try:
-            t = other.read_data()
-        except Exception as exc:
-            raise InputError(
-                f"time channel {label!r} of {name!r} cannot be decoded ({reason(exc)}); export the file again") from exc
+        t = _decode(other, label, name, limit)
         if _dtype_kind(other) == "M":
             # TDMS timestamps: whole seconds and 2^-64 s fractions (TDMS file format, data types);
             # seconds since the first
