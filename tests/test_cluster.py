@@ -192,6 +192,15 @@ def test_cli_scheduler_errors_are_one_line(monkeypatch):
         connect("tcp://127.0.0.1:9")
 
 
+def test_workers_of_another_version_are_refused(client, monkeypatch):
+    monkeypatch.setattr("ringdown.cluster.worker_versions", lambda c: {"tcp://worker-a:4000": "0.0.1",
+                                                                      "tcp://worker-b:4000": ringdown.__version__})
+    with pytest.raises(ClusterError) as info:
+        connect(client.scheduler.address)
+    assert str(info.value) == (f"1 Dask worker(s) run ringdown 0.0.1 (first tcp://worker-a:4000), this process "
+                               f"{ringdown.__version__}; install the same version everywhere so results agree")
+
+
 def _dies_once(marker: str, path: str) -> dict:
     """Kills its own worker process the first time it sees the middle file, then analyses normally."""
     if path.endswith("good_03.wav") and not os.path.exists(marker):
