@@ -39,7 +39,8 @@ __all__ = ["connect", "open_client", "iter_results", "ClusterExecutor", "check_v
 #: tasks of ~0.1 s in flight keep every worker of a cluster of some dozen cores busy.
 MAX_IN_FLIGHT = 1000
 
-#: Seconds to wait for a scheduler at an address before saying it cannot be reached.
+#: Seconds to wait for a scheduler at an address before saying it cannot be reached (our choice:
+#: long enough for a scheduler on a busy network, short enough to fail a mistyped address soon).
 CONNECT_TIMEOUT_S = 20.0
 
 
