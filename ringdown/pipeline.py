@@ -302,6 +302,7 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
         )
     clipped = condition.find_clipping(raw, full_scale=rec.full_scale)
     rec_warnings: list[Notice] = [band_note] if band_note is not None else []
+    rec_warnings.extend(Notice(code, message) for code, message in getattr(rec, "notes", ()))
     if rec.timing_jitter is not None and rec.timing_jitter > 1e-6:
         rec_warnings.append(Notice("timing_jitter", f"time steps jitter by {100 * rec.timing_jitter:.3g} % RMS (accepted)"))
 

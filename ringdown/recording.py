@@ -35,6 +35,8 @@ class Recording:
         as a fraction of the mean step.
     n_channels : int
         How many channels (audio) or data columns (text) the source holds; 1 for an array.
+    notes : tuple of (code, message)
+        Warnings the reader found about the file (e.g. ``truncated``); the analysis reports them.
     """
 
     samples: np.ndarray
@@ -45,6 +47,7 @@ class Recording:
     full_scale: float | None = None
     timing_jitter: float | None = None
     n_channels: int = 1
+    notes: tuple = ()
 
     def __post_init__(self) -> None:
         x = np.asarray(self.samples, dtype=np.float64)
