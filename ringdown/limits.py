@@ -635,11 +635,15 @@ def write_limits(limits: Limits, path: str | Path) -> str:
     LimitsError
         When the file cannot be written.
     """
+    from .errors import RingdownError
+    from .outputs import atomic_write
+
     text = limits_to_toml(limits)
     try:
-        Path(path).write_text(text, encoding="utf-8")
-    except OSError as exc:
-        raise LimitsError(f"cannot write limits file '{path}': {exc.strerror or exc}; check the folder") from exc
+        with atomic_write(path, "wb", what="limits file") as fh:  # never a 0-byte or half file
+            fh.write(text.encode("utf-8"))
+    except RingdownError as exc:
+        raise LimitsError(str(exc)) from None
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 

@@ -274,21 +274,32 @@ class ResultStore:
     ...     db.record_check(result, part_id="A-17", station="EOL-2")
     """
 
-    def __init__(self, path: str | os.PathLike, *, timeout_s: float = 30.0) -> None:
+    def __init__(self, path: str | os.PathLike, *, timeout_s: float = 30.0, read_only: bool = False) -> None:
         self.path = str(path)
         p = Path(self.path)
         if p.exists() and not p.is_file():
             raise StoreError(f"results database '{self.path}' is not a regular file; use another --db")
         try:
-            self._conn = sqlite3.connect(self.path, timeout=timeout_s, isolation_level=None)
+            if read_only:
+                from urllib.parse import quote
+
+                if not p.is_file():
+                    raise StoreError(f"no results database at '{self.path}'; check the path or give --db")
+                uri = "file:" + quote(str(p.resolve())) + "?mode=ro"
+                self._conn = sqlite3.connect(uri, uri=True, timeout=timeout_s, isolation_level=None)
+            else:
+                self._conn = sqlite3.connect(self.path, timeout=timeout_s, isolation_level=None)
         except sqlite3.Error as exc:
             raise StoreError(f"cannot use results database '{self.path}': {exc}; check the path or use another --db") from None
         try:
             self._conn.row_factory = sqlite3.Row
             self._conn.execute(f"PRAGMA busy_timeout = {int(timeout_s * 1000)}")
-            self._conn.execute("PRAGMA journal_mode = WAL")
-            self._conn.execute("PRAGMA foreign_keys = ON")
-            self._migrate()
+            if read_only:
+                self._check_version(self.schema_version)
+            else:
+                self._conn.execute("PRAGMA journal_mode = WAL")
+                self._conn.execute("PRAGMA foreign_keys = ON")
+                self._migrate()
             self._check_schema()
         except StoreError:
             self._conn.close()
@@ -296,6 +307,19 @@ class ResultStore:
         except sqlite3.Error as exc:
             self._conn.close()
             raise StoreError(f"cannot use results database '{self.path}': {_why(exc)}") from None
+
+    def _check_version(self, version: int) -> None:
+        if version > SCHEMA_VERSION:
+            raise StoreError(f"results database '{self.path}' has schema version {version}, newer than this "
+                             f"ringdown writes ({SCHEMA_VERSION}); upgrade ringdown")
+        if version < 0:
+            raise StoreError(f"'{self.path}' has schema version {version}: not a ringdown results database; "
+                             "use another --db")
+        if version == 0:
+            tables = self._conn.execute("SELECT count(*) FROM sqlite_master WHERE type = 'table'").fetchone()[0]
+            if tables:
+                raise StoreError(f"'{self.path}' is an SQLite database but not a ringdown results database; "
+                                 "use another --db")
 
     def _check_schema(self) -> None:
         """Every table and column this module uses must be there (a dropped or altered table fails here)."""
@@ -316,14 +340,7 @@ class ResultStore:
         with conn:
             conn.execute("BEGIN IMMEDIATE")
             version = conn.execute("PRAGMA user_version").fetchone()[0]
-            if version > SCHEMA_VERSION:
-                raise StoreError(f"results database '{self.path}' has schema version {version}, newer than this "
-                                 f"ringdown writes ({SCHEMA_VERSION}); upgrade ringdown")
-            if version == 0:
-                tables = conn.execute("SELECT count(*) FROM sqlite_master WHERE type = 'table'").fetchone()[0]
-                if tables:
-                    raise StoreError(f"'{self.path}' is an SQLite database but not a ringdown results database; "
-                                     "use another --db")
+            self._check_version(version)
             for v in range(version, SCHEMA_VERSION):
                 for stmt in MIGRATIONS[v].split(";"):
                     if stmt.strip():
@@ -499,7 +516,7 @@ class ResultStore:
                 v = json.loads(row[col])
             except (TypeError, ValueError):
                 v = None
-            if not isinstance(v, kind):
+            if not isinstance(v, kind) or (kind is list and not all(isinstance(x, dict) for x in v)):
                 raise StoreError(f"results database '{self.path}': row {row['id']} holds invalid {col}; the file "
                                  "is damaged or was edited; restore a backup or use another --db")
             return v

@@ -90,20 +90,20 @@ def format_table(comparison) -> str:
 
 def _write_csv(comparison, out: Path) -> None:
     from ..compare import comparison_rows
+    from ..errors import RingdownError
+    from ..outputs import atomic_write, csv_row
 
     rows = comparison_rows(comparison)
     if not rows:
         return
     try:
-        with open(out, "w", newline="", encoding="utf-8") as fh:
-            w = csv.DictWriter(fh, fieldnames=list(rows[0].keys()))
-            w.writeheader()
+        with atomic_write(out, newline="", what="CSV file") as fh:
+            w = csv.writer(fh)
+            w.writerow(list(rows[0].keys()))
             for r in rows:
-                w.writerow({k: "" if v is None else v for k, v in r.items()})
-    except OSError as exc:
-        raise _OutputError(
-            f"cannot write CSV file '{out}': {exc.strerror or exc}; check the folder and permissions"
-        ) from exc
+                w.writerow(csv_row(r.values()))
+    except RingdownError as exc:
+        raise _OutputError(str(exc)) from None
 
 
 def _write_plot(comparison, out_dir: Path) -> Path:
