@@ -24,6 +24,7 @@ for ``jobs == 1``.
 
 from __future__ import annotations
 
+import os
 import signal
 from concurrent.futures import Future
 from typing import Any, Callable, Iterable, Iterator, Protocol, Sequence, TypeVar
@@ -75,8 +76,22 @@ class SerialExecutor:
         self._pending.clear()
 
 
-def _ignore_sigint() -> None:  # worker initializer: Ctrl-C is the parent's to handle
+def _init_worker(parent_pid: int) -> None:
+    """Worker initializer: Ctrl-C is the parent's to handle; a worker dies with its parent.
+
+    Without the second rule a ``kill -9`` of the command leaves its workers waiting forever
+    on a queue nobody writes (Linux ``prctl(PR_SET_PDEATHSIG)``; elsewhere best effort).
+    """
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        import ctypes
+
+        libc = ctypes.CDLL(None, use_errno=True)
+        libc.prctl(1, int(signal.SIGKILL), 0, 0, 0)  # 1 = PR_SET_PDEATHSIG
+    except (OSError, AttributeError):
+        pass
+    if os.getppid() != parent_pid:  # the parent died before the line above
+        os._exit(1)
 
 
 class ProcessExecutor:
@@ -86,7 +101,8 @@ class ProcessExecutor:
     def __init__(self, max_workers: int) -> None:
         from concurrent.futures import ProcessPoolExecutor
 
-        self._pool = ProcessPoolExecutor(max_workers=max_workers, initializer=_ignore_sigint)
+        self._pool = ProcessPoolExecutor(max_workers=max_workers, initializer=_init_worker,
+                                         initargs=(os.getpid(),))
 
     def submit(self, fn, /, *args) -> Future:
         return self._pool.submit(fn, *args)

@@ -235,6 +235,12 @@ class StoredResult:
         }
 
 
+def _read_only(p: Path) -> bool:
+    """Whether the database file or its folder cannot be written (modes or a read-only mount)."""
+    folder = p.parent if str(p.parent) else Path(".")
+    return (p.exists() and not os.access(p, os.W_OK)) or not os.access(folder, os.W_OK)
+
+
 def _why(exc: BaseException) -> str:
     """A one-line reason with the fix for an sqlite3 error."""
     text = " ".join(str(exc).split()) or type(exc).__name__
@@ -287,6 +293,13 @@ class ResultStore:
                     raise StoreError(f"no results database at '{self.path}'; check the path or give --db")
                 uri = "file:" + quote(str(p.resolve())) + "?mode=ro"
                 self._conn = sqlite3.connect(uri, uri=True, timeout=timeout_s, isolation_level=None)
+                try:
+                    self._conn.execute("PRAGMA user_version").fetchone()
+                except sqlite3.OperationalError:
+                    # a WAL database on read-only media cannot make its -shm file: read it as immutable
+                    self._conn.close()
+                    self._conn = sqlite3.connect(uri + "&immutable=1", uri=True, timeout=timeout_s,
+                                                 isolation_level=None)
             else:
                 self._conn = sqlite3.connect(self.path, timeout=timeout_s, isolation_level=None)
         except sqlite3.Error as exc:
@@ -306,7 +319,10 @@ class ResultStore:
             raise
         except sqlite3.Error as exc:
             self._conn.close()
-            raise StoreError(f"cannot use results database '{self.path}': {_why(exc)}") from None
+            why = _why(exc)
+            if "read-only" not in why and not read_only and _read_only(p):
+                why = f"{' '.join(str(exc).split())}; the file or its folder is read-only: make them writable or use another --db"
+            raise StoreError(f"cannot use results database '{self.path}': {why}") from None
 
     def _check_version(self, version: int) -> None:
         if version > SCHEMA_VERSION:
