@@ -5,7 +5,9 @@ unwritable folder, a full disk simulated with RLIMIT_FSIZE, which makes writes f
 as a full disk makes them fail with ENOSPC). Recordings are invented gear-blank taps written by
 example_signals/make_line_examples.py (numpy/soundfile), never by the code under test; the
 limits file is written by hand (frequency windows around the invented modes, which lie at about
-1500, 4203 and 6073 Hz: see that script).
+1500, 4203 and 6073 Hz: see that script). Faults that need no process of their own run in this
+process through typer's CliRunner (:func:`run`). The tests that kill or interrupt batches are
+marked ``slow``: ``.ci/run`` runs them, a plain ``pytest`` leaves them out.
 """
 
 from __future__ import annotations
@@ -46,6 +48,27 @@ def cli(*args, timeout=120, **kw) -> subprocess.CompletedProcess:
     """The installed command line, in a fresh process."""
     return subprocess.run([sys.executable, "-c", "from ringdown.cli import main; main()", *map(str, args)],
                           capture_output=True, text=True, timeout=timeout, **kw)
+
+
+class _Ran:
+    def __init__(self, r):
+        self.returncode, self.stdout, self.stderr = r.exit_code, r.stdout, r.stderr
+
+
+def run(*args, cwd=None) -> _Ran:
+    """The command line in this process (typer's CliRunner, same app and exit statuses as the
+    installed command), for faults that need no process of their own; much faster than :func:`cli`."""
+    from typer.testing import CliRunner
+
+    from ringdown.cli import app
+
+    old = os.getcwd()
+    try:
+        if cwd is not None:
+            os.chdir(cwd)
+        return _Ran(CliRunner().invoke(app, [str(a) for a in args]))
+    finally:
+        os.chdir(old)
 
 
 def popen(*args, **kw) -> subprocess.Popen:
@@ -175,7 +198,7 @@ def test_unwritable_csv_folder_fails_before_analysing_and_stores_nothing(parts, 
 
 def test_bad_report_path_is_refused_before_the_analysis(parts, tmp_path):
     (tmp_path / "report.html").mkdir()
-    res = cli("analyze", parts[0], "--report", tmp_path / "report.html")
+    res = run("analyze", parts[0], "--report", tmp_path / "report.html")
     assert res.returncode == 2 and res.stdout == ""
     assert_one_line_error(res, "is a folder")
 
@@ -198,6 +221,7 @@ def _worker_kill_run(tmp_path, command):
     return files, db, killed, proc.returncode, out, err
 
 
+@pytest.mark.slow
 def test_killed_worker_during_analyze_jobs_2_loses_no_result(tmp_path):
     files, db, killed, rc, out, err = _worker_kill_run(
         tmp_path, lambda files, db: ("analyze", *files, "--jobs", "2", "--json", "--store", "--db", db))
@@ -210,6 +234,7 @@ def test_killed_worker_during_analyze_jobs_2_loses_no_result(tmp_path):
     assert "Traceback" not in err
 
 
+@pytest.mark.slow
 def test_killed_worker_during_check_jobs_2_loses_no_result(tmp_path, limits_file):
     files, db, killed, rc, out, err = _worker_kill_run(
         tmp_path, lambda files, db: ("check", "--limits", limits_file, *files, "--jobs", "2", "--json", "--db", db))
@@ -239,6 +264,7 @@ def test_worker_dying_twice_is_reported_for_that_item_only():
     assert out[1].startswith("error worker_died:") and "died twice" in out[1]
 
 
+@pytest.mark.slow
 def test_sigint_in_check_exits_promptly_with_finished_results_stored_and_written(tmp_path, limits_file):
     files = make_parts(tmp_path / "many", 12, seed=31, duration_s=1.0)
     db, out_csv = tmp_path / "h.sqlite", tmp_path / "out.csv"
@@ -262,6 +288,7 @@ def test_sigint_in_check_exits_promptly_with_finished_results_stored_and_written
     assert doc["summary"]["skipped"] == done
 
 
+@pytest.mark.slow
 def test_sigint_in_analyze_writes_the_partial_csv(tmp_path):
     files = make_parts(tmp_path / "many", 10, seed=41, duration_s=1.0)
     db, out_csv = tmp_path / "h.sqlite", tmp_path / "out.csv"
@@ -277,6 +304,7 @@ def test_sigint_in_analyze_writes_the_partial_csv(tmp_path):
     assert len(paths) == done
 
 
+@pytest.mark.slow
 def test_killed_analyze_store_rerun_does_not_duplicate_rows(tmp_path):
     files = make_parts(tmp_path / "many", 8, seed=51, duration_s=1.0)
     db = tmp_path / "h.sqlite"
@@ -295,6 +323,7 @@ def test_killed_analyze_store_rerun_does_not_duplicate_rows(tmp_path):
     assert f"({first} already stored, skipped)" in res.stderr
 
 
+@pytest.mark.slow
 def test_killed_check_csv_leaves_no_stale_csv(tmp_path, limits_file):
     files = make_parts(tmp_path / "many", 8, seed=61, duration_s=1.0)
     out_csv = tmp_path / "out.csv"
@@ -314,6 +343,7 @@ def _full_disk(limit_bytes: int):
     return pre
 
 
+@pytest.mark.slow
 def test_limits_learn_on_a_full_disk_leaves_no_empty_file_that_blocks_the_retry(parts, tmp_path):
     out = tmp_path / "limits.toml"
     res = cli("limits", "learn", *parts[:3], "-o", out, "--jobs", "1", preexec_fn=_full_disk(200))
@@ -353,10 +383,10 @@ def test_analyze_csv_on_a_full_disk_keeps_the_stored_results(parts, tmp_path):
 
 def test_resumed_check_reports_skipped_parts_in_full(parts, tmp_path, limits_file):
     db = tmp_path / "h.sqlite"
-    first = cli("check", "--limits", limits_file, *parts, "--db", db, "--json", "--jobs", "1")
+    first = run("check", "--limits", limits_file, *parts, "--db", db, "--json", "--jobs", "1")
     assert first.returncode == 0, first.stderr
     out_csv, report = tmp_path / "out.csv", tmp_path / "r.html"
-    res = cli("check", "--limits", limits_file, *parts, "--db", db, "--json", "--csv", out_csv,
+    res = run("check", "--limits", limits_file, *parts, "--db", db, "--json", "--csv", out_csv,
               "--report", report, "--jobs", "1")
     assert res.returncode == 0, res.stderr
     a, b = json.loads(first.stdout)["results"], json.loads(res.stdout)["results"]
@@ -382,12 +412,12 @@ def test_analyze_folder_twice_does_not_read_its_own_csv(parts, tmp_path):
     for p in parts[:2]:
         shutil.copy(p, folder)
     for _ in range(2):
-        res = cli("analyze", folder, "--csv", folder / "out.csv", "--jobs", "1")
+        res = run("analyze", folder, "--csv", folder / "out.csv", "--jobs", "1")
         assert res.returncode == 0, res.stderr
     assert "2 files: 2 analysed, 0 errors" in res.stdout
     # a ringdown CSV from another run, named anything, is skipped too, saying so
     shutil.copy(folder / "out.csv", folder / "older_results.csv")
-    res = cli("analyze", folder, "--jobs", "1")
+    res = run("analyze", folder, "--jobs", "1")
     assert res.returncode == 0 and "2 files: 2 analysed" in res.stdout
     assert "skipped 2 file(s) written by ringdown" in res.stderr  # this run's own CSV and the older one
 
@@ -434,11 +464,11 @@ def hostile_parts(tmp_path_factory, parts):
 def test_csv_formula_injection_in_check_history_and_analyze_csv(hostile_parts, tmp_path, limits_file):
     db = tmp_path / "h.sqlite"
     c1, c2, c3 = tmp_path / "check.csv", tmp_path / "history.csv", tmp_path / "analyze.csv"
-    r = cli("check", "--limits", limits_file, *hostile_parts, "--db", db, "--csv", c1, "--station", "=1+1",
+    r = run("check", "--limits", limits_file, *hostile_parts, "--db", db, "--csv", c1, "--station", "=1+1",
             "--operator", "@cmd", "--jobs", "1")
     assert r.returncode == 0, r.stderr
-    assert cli("history", "--db", db, "--csv", c2).returncode == 0
-    assert cli("analyze", *hostile_parts, "--csv", c3, "--jobs", "1").returncode == 0
+    assert run("history", "--db", db, "--csv", c2).returncode == 0
+    assert run("analyze", *hostile_parts, "--csv", c3, "--jobs", "1").returncode == 0
     for p in (c1, c2, c3):
         _assert_no_formula(p)
     # the quote prefix is the documented neutralisation; the text after it is unchanged
@@ -454,11 +484,11 @@ def test_newline_in_a_file_name_cannot_forge_a_pass_line(parts, tmp_path, limits
     forged = tmp_path / "x\nPASS   forged  good.wav"
     shutil.copy(parts[0], forged)
     missing = tmp_path / "gone\nPASS   forged2.wav"
-    r = cli("check", "--limits", limits_file, forged, missing, "--no-store", "--jobs", "1")
+    r = run("check", "--limits", limits_file, forged, missing, "--no-store", "--jobs", "1")
     lines = (r.stdout + r.stderr).splitlines()
     assert not any(ln.startswith("PASS   forged") for ln in lines), lines
     assert any("x\\nPASS   forged  good" in ln for ln in lines)
-    r = cli("analyze", missing)
+    r = run("analyze", missing)
     errs = r.stderr.splitlines()
     assert len(errs) == 1 and "gone\\nPASS" in errs[0]  # analyze's one-line error stays one line
 
@@ -469,9 +499,9 @@ def test_right_to_left_override_is_shown_escaped_in_terminal_csv_and_html(parts,
     rlo = tmp_path / "part\u202egnp.wav"
     shutil.copy(parts[0], rlo)
     csv_out, html = tmp_path / "a.csv", tmp_path / "a.html"
-    r = cli("analyze", rlo, "--csv", csv_out, "--report", html, "--jobs", "1")
+    r = run("analyze", rlo, "--csv", csv_out, "--report", html, "--jobs", "1")
     assert r.returncode == 0, r.stderr
-    c = cli("check", "--limits", limits_file, rlo, "--no-store", "--jobs", "1")
+    c = run("check", "--limits", limits_file, rlo, "--no-store", "--jobs", "1")
     for text in (r.stdout, c.stdout, csv_out.read_text(encoding="utf-8"), html.read_text(encoding="utf-8")):
         assert "\u202e" not in text and "\\u202e" in text
 
@@ -510,7 +540,7 @@ def test_analyze_names_a_fifo_as_a_fifo_not_empty(fifo):
 
 def _history(tmp_path, parts) -> Path:
     db = tmp_path / "h.sqlite"
-    r = cli("analyze", *parts[:2], "--store", "--db", db, "--jobs", "1")
+    r = run("analyze", *parts[:2], "--store", "--db", db, "--jobs", "1")
     assert r.returncode == 0, r.stderr
     con = sqlite3.connect(db)
     con.execute("PRAGMA wal_checkpoint(TRUNCATE)")
@@ -525,7 +555,7 @@ def test_corrupt_history_page_is_one_line(parts, tmp_path, limits_file):
     data[page: 3 * page] = os.urandom(2 * page)  # pages 2 and 3 (tables and rows) overwritten
     db.write_bytes(bytes(data))
     for args in (("history", "--db", db), ("check", "--limits", limits_file, parts[0], "--db", db)):
-        r = cli(*args)
+        r = run(*args)
         assert r.returncode == 2, r.stderr
         assert_one_line_error(r, str(db))
 
@@ -536,7 +566,7 @@ def test_invalid_json_in_a_stored_row_is_one_line(parts, tmp_path):
     con.execute("UPDATE results SET settings_json = '{not json' WHERE id = 1")
     con.commit()
     con.close()
-    r = cli("history", "--db", db)
+    r = run("history", "--db", db)
     assert r.returncode == 2
     assert_one_line_error(r, "row 1 holds invalid settings_json")
 
@@ -549,7 +579,7 @@ def test_dropped_table_in_the_history_is_one_line(parts, tmp_path, limits_file):
     con.close()
     for args in (("history", "--db", db), ("check", "--limits", limits_file, parts[0], "--db", db),
                  ("analyze", parts[0], "--store", "--db", db)):
-        r = cli(*args)
+        r = run(*args)
         assert r.returncode == 2 and r.stdout == "", r.stderr
         assert_one_line_error(r, "table modes is missing")
 
@@ -565,7 +595,7 @@ def test_future_and_foreign_history_are_one_line(tmp_path, parts):
     con.close()
     for db, needle in ((future, "newer than this ringdown"), (foreign, "not a ringdown results database")):
         for args in (("history", "--db", db), ("analyze", parts[0], "--store", "--db", db)):
-            r = cli(*args)
+            r = run(*args)
             assert r.returncode == 2
             assert_one_line_error(r, needle)
 
@@ -608,7 +638,7 @@ def _read_only_checks(db: Path, parts) -> None:
 def test_limits_deep_nesting_is_one_line(tmp_path, parts):
     p = tmp_path / "deep.toml"
     p.write_text("x = " + "[" * 5000 + "]" * 5000 + "\n" + LIMITS.replace("format_version = 1\n", ""))
-    r = cli("check", "--limits", p, parts[0], "--no-store")
+    r = run("check", "--limits", p, parts[0], "--no-store")
     assert r.returncode == 2
     assert_one_line_error(r, "deep.toml")
 
@@ -628,7 +658,7 @@ def test_limits_deep_nesting_is_one_line(tmp_path, parts):
 def test_limits_nan_wrong_types_and_bad_analysis_keys_fail_closed(tmp_path, parts, text, needle):
     p = tmp_path / "bad.toml"
     p.write_text(text, encoding="utf-8")
-    r = cli("check", "--limits", p, parts[0], "--no-store")
+    r = run("check", "--limits", p, parts[0], "--no-store")
     assert r.returncode == 2, r.stdout
     assert_one_line_error(r, needle)
     assert "bad.toml" in r.stderr and "PASS" not in r.stdout  # never a silent pass
@@ -637,7 +667,7 @@ def test_limits_nan_wrong_types_and_bad_analysis_keys_fail_closed(tmp_path, part
 def test_limits_file_with_a_utf8_bom_is_accepted(tmp_path, parts):
     p = tmp_path / "bom.toml"
     p.write_bytes(b"\xef\xbb\xbf" + LIMITS.encode("utf-8"))
-    r = cli("check", "--limits", p, parts[0], "--no-store")
+    r = run("check", "--limits", p, parts[0], "--no-store")
     assert r.returncode == 0, r.stderr
     assert r.stdout.startswith("PASS")
 
@@ -647,16 +677,16 @@ def test_empty_folder_and_folder_named_like_a_wav(tmp_path, parts):
 
     empty = tmp_path / "empty"
     empty.mkdir()
-    r = cli("analyze", empty)
+    r = run("analyze", empty)
     assert r.returncode == 2
     assert_one_line_error(r, "holds no recordings")
     named = tmp_path / "x.wav"
     named.mkdir()
-    r = cli("analyze", named)
+    r = run("analyze", named)
     assert r.returncode == 2
     assert_one_line_error(r, "'" + str(named) + "' holds no recordings")
     shutil.copy(parts[0], named / "a.wav")
-    r = cli("analyze", named, "--json")
+    r = run("analyze", named, "--json")
     assert r.returncode == 0 and len(json.loads(r.stdout)["recordings"]) == 1
 
 
@@ -665,9 +695,9 @@ def test_recursive_finds_recordings_in_sub_folders(tmp_path, parts):
 
     (tmp_path / "top" / "day1").mkdir(parents=True)
     shutil.copy(parts[0], tmp_path / "top" / "day1" / "a.wav")
-    r = cli("analyze", tmp_path / "top")
+    r = run("analyze", tmp_path / "top")
     assert r.returncode == 2 and "--recursive" in r.stderr
-    r = cli("analyze", tmp_path / "top", "--recursive", "--json")
+    r = run("analyze", tmp_path / "top", "--recursive", "--json")
     assert r.returncode == 0
     assert [Path(x["path"]).name for x in json.loads(r.stdout)["recordings"]] == ["a.wav"]
 
@@ -676,7 +706,7 @@ def test_truncated_wav_is_analysed_with_a_warning(tmp_path, parts):
     data = Path(parts[0]).read_bytes()
     cut = tmp_path / "cut.wav"
     cut.write_bytes(data[: len(data) * 3 // 4])  # the header still claims every frame
-    r = cli("analyze", cut, "--json")
+    r = run("analyze", cut, "--json")
     assert r.returncode == 0, r.stderr
     rec = json.loads(r.stdout)["recordings"][0]
     codes = [w["code"] for w in rec["warnings"]]
@@ -696,14 +726,14 @@ def test_truncated_wav_is_analysed_with_a_warning(tmp_path, parts):
     (("analyze", "missing.wav"), 2),
 ])
 def test_usage_errors_exit_64_input_errors_exit_2(args, status, tmp_path):
-    r = cli(*args, cwd=tmp_path)
+    r = run(*args, cwd=tmp_path)
     assert r.returncode == status, r.stderr
     assert "Traceback" not in r.stderr
 
 
 def test_help_documents_the_exit_statuses():
     for cmd in (("analyze",), ("check",), ("history",), ("limits", "learn")):
-        r = cli(*cmd, "--help")
+        r = run(*cmd, "--help")
         assert r.returncode == 0
         text = " ".join(r.stdout.split())
         assert "64 usage error" in text and "130 interrupted" in text, cmd
