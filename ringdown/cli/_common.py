@@ -135,8 +135,9 @@ def expand_inputs(items: Iterable[str], *, recursive: bool = False, exclude: Ite
         if p.is_dir():
             found = sorted(str(q) for q in (p.rglob("*") if recursive else p.iterdir()) if keep(q))
             if not found:
+                subs = not recursive and any(q.is_dir() for q in p.iterdir())
                 error_line(f"folder {item!r} holds no recordings ({', '.join(_AUDIO_AND_TEXT)})"
-                           + ("" if recursive else "; add --recursive to look in its sub-folders"))
+                           + ("; add --recursive to look in its sub-folders" if subs else ""))
                 out.problems += 1
             out.extend(found)
         elif any(ch in item for ch in "*?[") and not p.exists():
