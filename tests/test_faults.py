@@ -12,6 +12,7 @@ marked ``slow``: ``.ci/run`` runs them, a plain ``pytest`` leaves them out.
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import importlib.util
 import json
@@ -355,14 +356,22 @@ def test_limits_learn_on_a_full_disk_leaves_no_empty_file_that_blocks_the_retry(
     assert "[[modes]]" in out.read_text(encoding="utf-8")
 
 
-def test_analyze_csv_on_a_full_disk_keeps_the_stored_results(parts, tmp_path):
-    # the CSV goes to a small file system filled up first; the history is elsewhere
-    small = tmp_path / "small"
-    small.mkdir()
-    if subprocess.run(["mount", "-t", "tmpfs", "-o", "size=64k", "tmpfs", str(small)],
+@contextlib.contextmanager
+def small_fs(path: Path, size: str):
+    """A tmpfs of ``size`` mounted at ``path`` (root only; the test skips otherwise)."""
+    path.mkdir()
+    if subprocess.run(["mount", "-t", "tmpfs", "-o", f"size={size}", "tmpfs", str(path)],
                       capture_output=True).returncode != 0:
         pytest.skip("cannot mount a small file system here (needs root)")
     try:
+        yield path
+    finally:
+        subprocess.run(["umount", str(path)], capture_output=True)
+
+
+def test_analyze_csv_on_a_full_disk_keeps_the_stored_results(parts, tmp_path):
+    # the CSV goes to a small file system filled up first; the history is elsewhere
+    with small_fs(tmp_path / "small", "64k") as small:
         try:
             with open(small / "filler", "wb") as fh:
                 while True:
@@ -377,8 +386,6 @@ def test_analyze_csv_on_a_full_disk_keeps_the_stored_results(parts, tmp_path):
         assert_one_line_error(res, "out.csv")
         assert "No space left on device" in res.stderr
         assert not out_csv.exists() and not list(small.glob(".out.csv.*"))
-    finally:
-        subprocess.run(["umount", str(small)], capture_output=True)
 
 
 def test_resumed_check_reports_skipped_parts_in_full(parts, tmp_path, limits_file):
@@ -604,18 +611,11 @@ def test_read_only_history_is_one_line_for_writers_and_readable_for_history(part
     db = _history(tmp_path, parts)
     if os.geteuid() == 0:
         # root ignores file modes: mount a small file system and remount it read-only
-        mnt = tmp_path / "ro"
-        mnt.mkdir()
-        if subprocess.run(["mount", "-t", "tmpfs", "-o", "size=4m", "tmpfs", str(mnt)],
-                          capture_output=True).returncode != 0:
-            pytest.skip("running as root without permission to mount a read-only file system")
-        try:
+        with small_fs(tmp_path / "ro", "4m") as mnt:
             ro_db = mnt / "h.sqlite"
             ro_db.write_bytes(db.read_bytes())
             subprocess.run(["mount", "-o", "remount,ro", str(mnt)], check=True)
             _read_only_checks(ro_db, parts)
-        finally:
-            subprocess.run(["umount", str(mnt)], capture_output=True)
     else:
         db.chmod(stat.S_IRUSR)
         db.parent.chmod(stat.S_IRUSR | stat.S_IXUSR)

@@ -54,13 +54,7 @@ def note_line(message: str) -> None:
 
 def usage_guarded(fn: Callable[[], T], *, debug: bool) -> T:
     """Run ``fn`` (option parsing); a ``RingdownError`` is a usage error: one line, exit 64."""
-    try:
-        return fn()
-    except RingdownError as exc:
-        if debug:
-            raise
-        error_line(str(exc))
-        raise typer.Exit(EXIT_USAGE) from None
+    return guarded(fn, debug=debug, status=EXIT_USAGE)
 
 
 def usage_error(message: str) -> None:
@@ -69,15 +63,15 @@ def usage_error(message: str) -> None:
     raise typer.Exit(EXIT_USAGE)
 
 
-def guarded(fn: Callable[[], T], *, debug: bool) -> T:
-    """Run ``fn``; a ``RingdownError`` becomes one stderr line and exit status 2."""
+def guarded(fn: Callable[[], T], *, debug: bool, status: int = EXIT_ERROR) -> T:
+    """Run ``fn``; a ``RingdownError`` becomes one stderr line and exit ``status`` (2)."""
     try:
         return fn()
     except RingdownError as exc:
         if debug:
             raise
         error_line(str(exc))
-        raise typer.Exit(EXIT_ERROR) from None
+        raise typer.Exit(status) from None
 
 
 def print_json(document: Any) -> None:
