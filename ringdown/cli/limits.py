@@ -137,7 +137,11 @@ def register(app: typer.Typer) -> None:
             if Path(output).exists() and not force:
                 raise ParameterError(f"'{output}' exists; use --force to overwrite it or -o to choose another file")
             check_writable(output, "limits file")
-            analyses = analyze_many(paths, jobs=max(1, jobs), **opts)
+            try:
+                analyses = analyze_many(paths, jobs=max(1, jobs), **opts)
+            except KeyboardInterrupt:
+                error_line(f"interrupted: no limits written to '{output}'; rerun to learn them")
+                raise typer.Exit(EXIT_INTERRUPTED) from None
             bad = [a for a in analyses if a.error is not None]
             if bad:
                 from ..errors import ParameterError
