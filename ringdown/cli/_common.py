@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 import glob
 import json
 import os
@@ -72,6 +73,26 @@ def guarded(fn: Callable[[], T], *, debug: bool, status: int = EXIT_ERROR) -> T:
             raise
         error_line(str(exc))
         raise typer.Exit(status) from None
+
+
+@contextlib.contextmanager
+def sigint_deferred():
+    """Hold Ctrl-C back while one result is being stored, so it is stored whole or not at all
+    and "done (stored)" is true; the interrupt is raised as soon as the block ends."""
+    import signal
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    caught: list[int] = []
+    old = signal.signal(signal.SIGINT, lambda signum, frame: caught.append(signum))
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, old)
+        if caught:
+            raise KeyboardInterrupt
 
 
 def print_json(document: Any) -> None:

@@ -258,10 +258,12 @@ class _Storer:
             return
         from ..errors import StoreError
         from ..store import part_id_from_path
+        from ._common import sigint_deferred
 
         try:
-            rid = self.history.record_analysis(a, part_id=part_id_from_path(a.path or "array", self.part_id),
-                                               station=self.station, operator=self.operator, skip_stored=True)
+            with sigint_deferred():
+                rid = self.history.record_analysis(a, part_id=part_id_from_path(a.path or "array", self.part_id),
+                                                   station=self.station, operator=self.operator, skip_stored=True)
         except StoreError as exc:
             error_line(f"{exc}; results from here on are not stored")
             self.failed = True

@@ -16,7 +16,7 @@ import typer
 
 from ._common import (DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_FAIL, EXIT_INTERRUPTED, EXIT_OK,
                       RECURSIVE_OPTION, default_jobs, error_line, expand_inputs, guarded, on_terminal, print_json,
-                      progress_bar, resolve_db, usage_guarded, DB_ENV)
+                      progress_bar, resolve_db, sigint_deferred, usage_guarded, DB_ENV)
 
 __all__ = ["register", "format_check"]
 
@@ -246,16 +246,17 @@ def register(app: typer.Typer) -> None:
                     i = todo[pos]
                     if res.sha256 is None and shas[i] is not None:
                         res = replace(res, sha256=shas[i])
-                    stored = None
-                    if store is not None and not store_failed:
-                        try:
-                            stored = store.record_check(res, part_id=ids[i], station=station, operator=operator,
-                                                        force=force)
-                        except RingdownError as exc:
-                            error_line(f"{exc}; results from here on are not stored")
-                            store_failed = True
-                    results[i] = res
-                    rows[i] = {"part_id": ids[i], "skipped": False, "stored_id": stored, **res.to_dict()}
+                    with sigint_deferred():  # stored and counted whole, or not at all
+                        stored = None
+                        if store is not None and not store_failed:
+                            try:
+                                stored = store.record_check(res, part_id=ids[i], station=station,
+                                                            operator=operator, force=force)
+                            except RingdownError as exc:
+                                error_line(f"{exc}; results from here on are not stored")
+                                store_failed = True
+                        results[i] = res
+                        rows[i] = {"part_id": ids[i], "skipped": False, "stored_id": stored, **res.to_dict()}
                     prog.advance(task)
         except KeyboardInterrupt:
             interrupted = True
