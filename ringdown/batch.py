@@ -170,6 +170,7 @@ def run_batch(
     jobs: int = 1,
     on_result: Callable[[int, R], None] | None = None,
     executor: Callable[[int], BatchExecutor] | None = None,
+    on_notice: Callable[[str], None] | None = None,
 ) -> Iterator[tuple[int, R]]:
     """Apply ``fn`` to every item; yield ``(position, result)`` in completion order.
 
@@ -189,6 +190,8 @@ def run_batch(
         Called with ``(position, result)`` as each item finishes, before it is yielded.
     executor : callable, optional
         ``executor(max_workers) -> BatchExecutor``; default :func:`default_executor`.
+    on_notice : callable, optional
+        Called with a plain-words line when a worker died and items are run again.
 
     Yields
     ------
@@ -237,6 +240,9 @@ def run_batch(
     # A worker died: every unfinished item once more, each in a fresh process of its own, so
     # that the item that kills its process takes only itself down.
     retry.sort()
+    if retry and on_notice is not None:
+        on_notice(f"a worker process died (killed by the system?); {len(retry)} item(s) not finished are run "
+                  "again, each in a fresh process")
     while retry:
         chunk, retry = retry[: max(jobs, 1)], retry[max(jobs, 1):]
         pools = []

@@ -390,6 +390,7 @@ def iter_check_files(
     jobs: int | None = None,
     options: dict | None = None,
     executor=None,
+    on_notice=None,
 ) -> Iterator[tuple[int, CheckResult]]:
     """Check many recordings, on several processes; yield ``(position, result)`` as each finishes.
 
@@ -402,8 +403,8 @@ def iter_check_files(
         Worker processes (default: the number of CPU cores; 1 runs in this process).
     options : dict, optional
         Analysis options overriding the ones stored in the limits.
-    executor : callable, optional
-        ``executor(max_workers)``, see :func:`ringdown.batch.run_batch`.
+    executor, on_notice : callable, optional
+        See :func:`ringdown.batch.run_batch`.
 
     Yields
     ------
@@ -417,4 +418,4 @@ def iter_check_files(
     if jobs < 1:
         raise ParameterError(f"jobs must be >= 1, got {jobs}")
     task = _CheckTask(limits, dict(options or {}))
-    yield from run_batch(task, list(paths), on_error=task.failed, jobs=jobs, executor=executor)
+    yield from run_batch(task, list(paths), on_error=task.failed, jobs=jobs, executor=executor, on_notice=on_notice)

@@ -207,12 +207,13 @@ def analyze_many(
     return [r for r in results if r is not None]
 
 
-def iter_analyze_files(paths: Sequence[str], *, jobs: int = 1, executor=None,
+def iter_analyze_files(paths: Sequence[str], *, jobs: int = 1, executor=None, on_notice=None,
                        **options) -> Iterator[tuple[int, Analysis]]:
     """Analyse several files; yield ``(position, Analysis)`` as each finishes.
 
     The batch runner of every command (:func:`ringdown.batch.run_batch`): a file whose analysis
-    fails in any way yields ``Analysis.failed`` with the reason; ``executor`` is passed on.
+    fails in any way yields ``Analysis.failed`` with the reason; ``executor`` and ``on_notice``
+    are passed on.
 
     Raises
     ------
@@ -226,7 +227,7 @@ def iter_analyze_files(paths: Sequence[str], *, jobs: int = 1, executor=None,
     if jobs is None or isinstance(jobs, bool) or not isinstance(jobs, int) or jobs < 1:
         raise ParameterError(f"jobs must be >= 1; got {jobs!r}")
     task = _FileTask(dict(options))
-    yield from run_batch(task, paths, on_error=task.failed, jobs=jobs, executor=executor)
+    yield from run_batch(task, paths, on_error=task.failed, jobs=jobs, executor=executor, on_notice=on_notice)
 
 
 class _FileTask:

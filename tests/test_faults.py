@@ -228,6 +228,7 @@ def test_killed_worker_during_analyze_jobs_2_loses_no_result(tmp_path):
         tmp_path, lambda files, db: ("analyze", *files, "--jobs", "2", "--json", "--store", "--db", db))
     assert killed is not None, "the workers never started"
     assert rc == 0, err  # the killed worker's files were retried in a fresh process
+    assert "a worker process died" in err and "run again, each in a fresh process" in err
     doc = json.loads(out)
     assert [r["path"] for r in doc["recordings"]] == files
     assert all(r["error"] is None and len(r["modes"]) >= 2 for r in doc["recordings"])
@@ -241,6 +242,7 @@ def test_killed_worker_during_check_jobs_2_loses_no_result(tmp_path, limits_file
         tmp_path, lambda files, db: ("check", "--limits", limits_file, *files, "--jobs", "2", "--json", "--db", db))
     assert killed is not None
     assert rc == 0, err
+    assert "a worker process died" in err
     doc = json.loads(out)
     assert sorted(r["path"] for r in doc["results"]) == sorted(files)
     assert all(r["verdict"] == "pass" for r in doc["results"])

@@ -12,8 +12,8 @@ from typing import List, Optional
 import typer
 
 from ._common import (DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_INTERRUPTED, EXIT_OK, RECURSIVE_OPTION,
-                      default_jobs, error_line, expand_inputs, guarded, on_terminal, print_json, progress_bar,
-                      usage_guarded)
+                      default_jobs, error_line, expand_inputs, guarded, note_line, on_terminal, print_json,
+                      progress_bar, usage_guarded)
 
 __all__ = ["register", "parse_band", "format_table"]
 
@@ -166,7 +166,7 @@ def register(app: typer.Typer) -> None:
         bar, task = progress_bar(on_terminal(json_out) and len(paths) > 1, len(paths), "analysing")
         try:
             with bar:
-                for i, a in iter_analyze_files(paths, jobs=jobs or default_jobs(), **options):
+                for i, a in iter_analyze_files(paths, jobs=jobs or default_jobs(), on_notice=note_line, **options):
                     results[i] = a
                     storer.add(a)  # durable before anything else is written
                     bar.advance(task)

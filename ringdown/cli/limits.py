@@ -16,7 +16,7 @@ import typer
 
 from ._common import (DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_FAIL, EXIT_INTERRUPTED, EXIT_OK,
                       RECURSIVE_OPTION, default_jobs, error_line, expand_inputs, guarded, on_terminal, print_json,
-                      progress_bar, resolve_db, sigint_deferred, usage_guarded, DB_ENV)
+                      note_line, progress_bar, resolve_db, sigint_deferred, usage_guarded, DB_ENV)
 
 __all__ = ["register", "format_check"]
 
@@ -241,7 +241,7 @@ def register(app: typer.Typer) -> None:
                     todo.append(i)
             prog, task = progress_bar(on_terminal(json_out) and len(todo) > 1, len(todo), "checking")
             with prog:
-                it = iter_check_files([paths[i] for i in todo], lim, jobs=max(1, jobs))
+                it = iter_check_files([paths[i] for i in todo], lim, jobs=max(1, jobs), on_notice=note_line)
                 for pos, res in it:
                     i = todo[pos]
                     if res.sha256 is None and shas[i] is not None:
