@@ -117,13 +117,20 @@ def register(app: typer.Typer) -> None:
                     from ..limits import read_limits
 
                     lim = read_limits(limits_path)
+                import io
+
+                from ..outputs import atomic_write
+
                 fig = plot_run_chart(records, limits_by_sha=docs, limits=lim)
+                buf = io.BytesIO()
                 try:
-                    fig.savefig(plot, dpi=110)
+                    fig.savefig(buf, dpi=110, format=Path(plot).suffix.lstrip(".").lower() or "png")
                 except (OSError, ValueError) as exc:
                     from ..errors import ParameterError
 
                     raise ParameterError(f"cannot write the run chart to '{plot}': {exc}; choose a writable .png") from exc
+                with atomic_write(plot, "wb", what="the run chart to") as fh:  # never half a figure
+                    fh.write(buf.getvalue())
 
             guarded(draw, debug=debug)
         if json_out:
