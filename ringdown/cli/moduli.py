@@ -16,7 +16,7 @@ from typing import Optional
 import typer
 
 from ..errors import ParameterError, RingdownError
-from ._common import DEBUG_OPTION, EXIT_EPILOG, EXIT_OK, guarded, print_json
+from ._common import CHANNEL_HELP, DEBUG_OPTION, EXIT_EPILOG, EXIT_OK, guarded, parse_channel, print_json
 
 __all__ = ["register", "format_table"]
 
@@ -178,7 +178,7 @@ def register(app: typer.Typer) -> None:
                                                 help="Poisson's ratio: used for T1 without a torsional mode; "
                                                      "otherwise the loop's first guess."),
         u_poisson: Optional[float] = typer.Option(None, "--u-poisson", help="Standard uncertainty of --poisson."),
-        channel: Optional[str] = typer.Option(None, "--channel", help="Audio channel (as for analyze)."),
+        channel: Optional[str] = typer.Option(None, "--channel", help=CHANNEL_HELP),
         json_out: bool = typer.Option(False, "--json", help="Print the JSON document instead of the table."),
         csv_out: Optional[Path] = typer.Option(None, "--csv", help="Also write one row per quantity to this CSV file."),
         report_out: Optional[Path] = typer.Option(None, "--report", help="Also write a self-contained HTML report."),
@@ -217,7 +217,7 @@ def register(app: typer.Typer) -> None:
             tors = torsional_file if torsional_file is not None else torsional_hz
             return moduli(spec, flex, tors, flexural_hz_u=u_flexural_hz, torsional_hz_u=u_torsional_hz,
                           flexural_mode=flexural_mode, torsional_mode=torsional_mode, poisson=poisson,
-                          poisson_u=u_poisson, analysis_options={"channel": channel})
+                          poisson_u=u_poisson, analysis_options={"channel": parse_channel(channel)})
 
         result = guarded(run, debug=debug)
         if json_out:
