@@ -87,6 +87,7 @@ def open_client(scheduler: str):
         No scheduler answers at the address.
     """
     require_extra()
+    import dask
     from distributed import Client, LocalCluster
 
     scheduler = str(scheduler).strip()
@@ -94,8 +95,12 @@ def open_client(scheduler: str):
         n = _local_workers(scheduler)
         # The scheduler's HTTP server on a free loopback port: Dask's default 8787 may be taken.
         # Dask's own warnings (e.g. on cancelling tasks after Ctrl-C) stay off the terminal.
-        cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address="127.0.0.1:0",
-                               silence_logs=logging.ERROR)
+        # worker-saturation 1.0: a worker holds only the task it runs. Dask counts a worker's death
+        # against every task assigned to it (Scheduler.remove_worker), so with tasks queued on
+        # workers (Dask's default 1.1) a file that kills its worker could take an innocent one down.
+        with dask.config.set({"distributed.scheduler.worker-saturation": 1.0}):
+            cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address="127.0.0.1:0",
+                                   silence_logs=logging.ERROR)
         return Client(cluster), cluster
     if not scheduler:
         raise ParameterError("--scheduler is empty; give a scheduler address (tcp://HOST:8786) or local:N")
@@ -164,10 +169,10 @@ def _run_task(fn: Callable, on_error: Callable, item: Any):
                 f"(a shared file system mounted at the same path on each machine){hint}"))
     try:
         return fn(item)
-    except RingdownError as exc:
-        return on_error(item, exc)
     except Exception as exc:  # any failure on one file is that file's error, as in the local batch
-        return on_error(item, RingdownError(f"internal error {type(exc).__name__}: {' '.join(str(exc).split())}"))
+        from .batch import as_ringdown_error
+
+        return on_error(item, as_ringdown_error(exc))
 
 
 def iter_results(

@@ -10,7 +10,9 @@ Every error the library raises on purpose derives from :class:`RingdownError`, s
      ├── FitError          (also RuntimeError) a fit that could not converge
      ├── LimitsError       (also ValueError)   a limits file that is missing or malformed
      ├── StoreError                            the results database cannot be used
-     └── ClusterError                          a Dask scheduler or its workers cannot run a batch
+     ├── ClusterError                          a Dask scheduler or its workers cannot run a batch
+     └── InternalError                         anything else that went wrong on one input
+          └── WorkerError                      the worker process handling it died (twice)
 
 Each class has a stable ``code`` that the JSON output carries in ``error.code``.
 Messages name the thing, the limit, the value received and the fix, on one line.
@@ -27,6 +29,8 @@ __all__ = [
     "LimitsError",
     "StoreError",
     "ClusterError",
+    "InternalError",
+    "WorkerError",
 ]
 
 
@@ -76,3 +80,15 @@ class ClusterError(RingdownError):
     """A Dask scheduler that cannot be reached or used, or a task its workers kept dying on."""
 
     code = "cluster"
+
+
+class InternalError(RingdownError):
+    """An unexpected failure on one input (MemoryError, OverflowError, a bug), as that input's error."""
+
+    code = "internal"
+
+
+class WorkerError(InternalError):
+    """The worker process handling one input died twice (e.g. killed for memory)."""
+
+    code = "worker_died"
