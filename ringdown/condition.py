@@ -344,17 +344,18 @@ def free_decay_start(x: np.ndarray, level_db: np.ndarray, span: HitSpan, *, smoo
     plateau (or to within 6 dB of the noise). Then the free decay starts two smoothing widths
     after the last sample within 1 dB of the plateau's median level: never before the drive
     stopped (the centred smoothing starts to fall one width early), at the cost of a little of
-    the decay. The start is a ``"release"`` when the plateau is a static deflection (its
-    variance about its mean is less than half its mean square) and a ``"switch-off"``
-    otherwise. An impulse whose rise is the first sample of the record is marked uncertain: the
+    the decay. The start is a ``"release"`` when the plateau is a static deflection (the
+    variance of the raw samples about their mean there is less than a tenth of that of the
+    first two smoothing widths of the free decay: common practice, no source) and a
+    ``"switch-off"`` (a forced oscillation stopped) otherwise. An impulse whose rise is the first sample of the record is marked uncertain: the
     record may start after the decay did.
 
     Parameters
     ----------
     x : (n_samples,) ndarray of float
-        Conditioned samples.
+        The samples before offset and drift removal (a held deflection is an offset there).
     level_db : (n_samples,) ndarray of float
-        The level smoothed over twice ``smoothing`` (:func:`envelope_db`).
+        The level of the conditioned samples smoothed over twice ``smoothing`` (:func:`envelope_db`).
     span : HitSpan
         From :func:`find_hits`.
     smoothing : int
@@ -401,8 +402,9 @@ def free_decay_start(x: np.ndarray, level_db: np.ndarray, span: HitSpan, *, smoo
     if start >= b - 4 * sm:
         return _start_doubt(span)
     xp = x[a:a + k_off + 1]
-    ms = float(np.mean(xp * xp)) if xp.size else 0.0
-    kind = "release" if ms > 0 and float(np.var(xp)) < 0.5 * ms else "switch-off"
+    xd = x[start:min(b, start + 2 * sm)]
+    p_decay = float(np.var(xd)) if xd.size > 1 else 0.0
+    kind = "release" if xp.size > 1 and float(np.var(xp)) < 0.1 * p_decay else "switch-off"
     doubt = None
     scatter = float(np.std(plateau))
     if scatter > 3.0:

@@ -187,9 +187,14 @@ def analyze_file(
     """
     from .io import read_recording
 
-    rec = read_recording(path, channel=channel, column=column, sample_rate=sample_rate)
-    reader = {"channel": channel, "column": column, "sample_rate": sample_rate}
-    return analyze_recording(rec, reader_settings=reader, **options)
+    try:
+        rec = read_recording(path, channel=channel, column=column, sample_rate=sample_rate)
+        reader = {"channel": channel, "column": column, "sample_rate": sample_rate}
+        return analyze_recording(rec, reader_settings=reader, **options)
+    except MemoryError as exc:
+        # one line for this file; a batch keeps the other files' results
+        raise InputError(f"{str(path)!r} needs more memory than is available to read or analyse it; "
+                         "cut it shorter (--start/--end) or split it") from exc
 
 
 def analyze_many(
@@ -303,7 +308,7 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
             f"noise floor (highest {peak_db:.1f} dB); check the gain, the trigger or the file{hint}"
         )
     # where each free decay starts: at the hit, or where a steady drive stops
-    spans = [condition.free_decay_start(x, slow, sp, smoothing=smoothing, noise_db=noise_db) for sp in spans]
+    spans = [condition.free_decay_start(raw, slow, sp, smoothing=smoothing, noise_db=noise_db) for sp in spans]
     clipped = condition.find_clipping(raw, full_scale=rec.full_scale)
     rec_warnings: list[Notice] = [band_note] if band_note is not None else []
     if rec.timing_jitter is not None and rec.timing_jitter > 1e-6:
@@ -318,7 +323,7 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
                                                       "another running source?); not a mode"))
 
     ctx = _RecordContext(x=x, fs=fs, opts=opts, noise_f=noise_f, noise_p=noise_p, noise_db=noise_db, level=level,
-                         clipped=clipped, tones=tuple(tones), i0=i0)
+                         clipped=clipped, tones=tuple(tones), i0=i0, smoothing=smoothing)
     hits: list[Hit] = []
     for j, span in enumerate(spans):
         hits.append(_analyze_hit(ctx, span, prev_end=spans[j - 1].end if j > 0 else 0))
@@ -428,9 +433,8 @@ def _noise_spectrum(x: np.ndarray, fs: float, spans, level: np.ndarray, noise_db
     1. ``"pre_trigger"``: the samples before the first hit's rise (the tap, or the start of a
        drive), less one smoothing width, when they are at least :data:`MIN_NOISE_SAMPLES` and
        4 smoothing widths long;
-    2. ``"tail"``: else the record's end after the last block (of
-       :func:`condition.noise_floor_db`'s length) whose median level is more than 4 dB above
-       the noise floor, when that long;
+    2. ``"tail"``: else the record's end after the last block (4 smoothing widths, at least 32
+       samples) whose median level is more than 4 dB above the noise floor, when that long;
     3. ``"record_end"``: else the record's last 10 % (at least :data:`MIN_NOISE_SAMPLES`),
        which still holds the decay: the noise is over-estimated, fit windows end early and
        uncertainties (scaled by each fit's residual) grow; the warning ``noise_uncertain`` says so.
@@ -442,7 +446,7 @@ def _noise_spectrum(x: np.ndarray, fs: float, spans, level: np.ndarray, noise_db
     pre_end = first - sm
     if pre_end >= min_len:
         return (*condition.noise_psd(x[:pre_end], fs), "pre_trigger", None)
-    blk = max(32, condition.NOISE_BLOCK_WIDTHS * sm)
+    blk = max(32, 4 * sm)
     last = spans[-1].peak
     m = (n - last) // blk
     loud = last
@@ -493,6 +497,7 @@ class _RecordContext:
     clipped: np.ndarray  #: indices of clipped samples
     tones: tuple[float, ...]  #: steady tones found before the first hit, Hz
     i0: int = 0  #: index in the recording of ``x[0]`` (the start of the time window)
+    smoothing: int = 3  #: width of the level's smoothing, samples
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -504,6 +509,7 @@ class _HitContext:
     onset_s: float  #: start of the free decay, s from the recording's first sample
     clip_end: int | None  #: first sample (index in the recording) after the last clipped one in the hit, or None
     seg_end: int  #: index in the recording where the hit's segment ends
+    pre_rms: float | None = None  #: RMS of the samples before the hit's rise (None: too few), recording units
 
 
 def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
@@ -551,8 +557,14 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
         warnings.append(Notice("short_decay", f"hit at {onset_s:.6g} s leaves {seg_end - decay_from} samples of decay"))
         return hit(False)
 
+    # what the record held before the hit's rise (at least 4 smoothing widths of it): bounds the
+    # amplitude any steady tone could have had there
+    rise = span.rise if span.rise is not None else span.onset
+    pre_x = x[prev_end:max(prev_end, rise - ctx.smoothing)]
+    pre_rms = float(np.sqrt(np.mean(pre_x**2))) if span.kind == "impulse" and pre_x.size >= 4 * ctx.smoothing else None
     hctx = _HitContext(record=ctx, spec=spectrum_of(x[seg_start:seg_end], fs, t0_s=(seg_start + i0) / fs),
-                       onset_s=onset_s, clip_end=None if clip_end is None else clip_end + i0, seg_end=seg_end + i0)
+                       onset_s=onset_s, clip_end=None if clip_end is None else clip_end + i0, seg_end=seg_end + i0,
+                       pre_rms=pre_rms)
     decay = x[decay_from:seg_end]
     if opts.bands is not None:
         groups = [([], lo, hi) for lo, hi in opts.bands]
@@ -691,7 +703,7 @@ def _measure_group(hctx: _HitContext, peaks_g: list[Peak], lo: float, hi: float,
         else:
             _, found, sb, sw = min(cross, key=lambda c: abs(c[0] - est.f_d_hz))
             others = {k: v for k, v in found.items() if k != est.method}
-        if _is_stationary(est, sb, sw, seg_end / fs):
+        if _is_stationary(est, sb, sw, seg_end / fs, pre_rms=hctx.pre_rms):
             hit_warnings.append(Notice("stationary_tone", f"steady tone at {est.f_d_hz:.1f} Hz does not decay (mains hum or "
                                                           "another running source?); not reported as a mode"))
             continue
@@ -726,7 +738,7 @@ def _steady_before_onset(band: Band, onset_s: float, beta_hint: float) -> bool:
     return bool(before > float(np.max(after)) * 10 ** (-STEADY_MARGIN_DB / 20))
 
 
-def _is_stationary(est: Estimate, band: Band, window: Window, seg_end_s: float) -> bool:
+def _is_stationary(est: Estimate, band: Band, window: Window, seg_end_s: float, *, pre_rms: float | None = None) -> bool:
     """Whether a component is a steady tone (hum, a running drive) rather than a mode.
 
     A mode starts with the hit. When the band holds at least 3 samples before the onset (clear
@@ -735,12 +747,21 @@ def _is_stationary(est: Estimate, band: Band, window: Window, seg_end_s: float) 
     over the whole hit, or its tail stays within 6 dB of the level at the window start
     (thresholds: common practice, no source). A lightly damped mode in a short record is
     therefore kept (with ``short_decay``) when the record shows it start.
+
+    ``pre_rms`` is the RMS of the broadband samples before the hit (``None`` when there are
+    too few): a steady tone of amplitude ``a`` there would give an RMS of at least
+    ``a / sqrt(2)``, so a component whose amplitude exceeds ``sqrt(2) pre_rms`` by 10 dB was
+    not there before the hit, and is a mode however little it decays in the record (a very
+    lightly damped resonator whose band filter is too narrow to settle in a short pre-trigger).
     """
     env = np.abs(band.z)
     i0 = band.index_of(window.start_s)
     before = _level_before_onset(band, window.onset_s, window.start_s - window.onset_s)
     if before is not None:
         return bool(before > env[i0] * 10 ** (-STEADY_MARGIN_DB / 20))
+    if pre_rms is not None and est.amplitude is not None and \
+            est.amplitude > math.sqrt(2.0) * pre_rms * 10 ** (STEADY_MARGIN_DB / 20):
+        return False
     span = max(seg_end_s - window.onset_s, 1e-12)
     if DB_PER_NEPER * est.beta_per_s * span < 6.0:
         return True

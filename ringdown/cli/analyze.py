@@ -11,8 +11,8 @@ from typing import List, Optional
 
 import typer
 
-from ._common import (DEBUG_OPTION, EXIT_ERROR, EXIT_OK, default_jobs, error_line, expand_inputs, guarded,
-                      on_terminal, print_json, progress_bar)
+from ._common import (DEBUG_OPTION, END_OPTION, START_OPTION, EXIT_ERROR, EXIT_OK, default_jobs, error_line, expand_inputs, guarded,
+                      on_terminal, print_json, progress_bar, time_window)
 
 __all__ = ["register", "parse_band", "format_table"]
 
@@ -69,6 +69,10 @@ def format_table(analysis) -> str:
     for m in analysis.modes:
         for w in m.warnings:
             lines.append(f"  mode {m.index} [{w.code}]: {w.message}")
+    for h in analysis.hits:
+        if h.start_kind != "impulse":
+            before = "the drive before it is not a mode" if h.start_kind == "switch-off" else "a held deflection let go"
+            lines.append(f"  hit at {h.start_s:.6g} s: free decay from a {h.start_kind} ({before})")
     lines.append("  (± standard uncertainty, k = 1; Q = 1/(2 zeta))")
     return "\n".join(lines) + "\n"
 
@@ -106,6 +110,8 @@ def register(app: typer.Typer) -> None:
         min_snr_db: float = typer.Option(10.0, "--min-snr-db", help="Fits end where a mode is this far above its band noise, dB."),
         min_hit_snr_db: float = typer.Option(20.0, "--min-hit-snr-db", help="A hit must rise this far above the noise floor, dB."),
         keep_double_hits: bool = typer.Option(False, "--keep-double-hits", help="Combine hits flagged as hammer bounces too."),
+        start: Optional[float] = START_OPTION,
+        end: Optional[float] = END_OPTION,
         jobs: Optional[int] = typer.Option(None, "--jobs", help="Worker processes for a batch (default: the number of cores)."),
         plot: Optional[Path] = typer.Option(None, "--plot", help="Write figures for each file into this folder."),
         plot_format: str = typer.Option("png", "--plot-format", help="Figure format: png or svg."),
@@ -126,9 +132,9 @@ def register(app: typer.Typer) -> None:
             bands = [parse_band(b) for b in band] if band else None
             options = dict(channel=channel, column=column, sample_rate=sample_rate, method=method, bands=bands,
                            max_modes=max_modes, min_snr_db=min_snr_db, min_hit_snr_db=min_hit_snr_db,
-                           keep_double_hits=keep_double_hits)
+                           keep_double_hits=keep_double_hits, **time_window(start, end))
             AnalysisOptions(method=method, bands=bands, max_modes=max_modes, min_snr_db=min_snr_db,
-                            min_hit_snr_db=min_hit_snr_db)
+                            min_hit_snr_db=min_hit_snr_db, **time_window(start, end))
             paths = expand_inputs(files)
             bar, task = progress_bar(on_terminal(json_out) and len(paths) > 1, len(paths), "analysing")
             with bar:

@@ -14,13 +14,13 @@ from typing import List, Optional
 
 import typer
 
-from ._common import (DEBUG_OPTION, EXIT_ERROR, EXIT_FAIL, EXIT_OK, default_jobs, error_line, expand_inputs,
-                      guarded, on_terminal, print_json, progress_bar, resolve_db, DB_ENV)
+from ._common import (DEBUG_OPTION, END_OPTION, START_OPTION, EXIT_ERROR, EXIT_FAIL, EXIT_OK, default_jobs, error_line, expand_inputs,
+                      guarded, on_terminal, print_json, progress_bar, resolve_db, DB_ENV, time_window)
 
 __all__ = ["register", "format_check"]
 
-def _analysis_options(method, min_snr_db, max_modes, bands) -> dict:
-    opts: dict = {}
+def _analysis_options(method, min_snr_db, max_modes, bands, start=None, end=None) -> dict:
+    opts: dict = time_window(start, end)
     if method is not None:
         opts["method"] = method
     if min_snr_db is not None:
@@ -102,6 +102,8 @@ def register(app: typer.Typer) -> None:
         min_snr_db: Optional[float] = typer.Option(None, help="Smallest mode SNR, dB (as for analyze)."),
         max_modes: Optional[int] = typer.Option(None, help="Most modes per recording (as for analyze)."),
         band: Optional[List[str]] = typer.Option(None, "--band", help="Band LOW:HIGH in Hz (repeatable)."),
+        start: Optional[float] = START_OPTION,
+        end: Optional[float] = END_OPTION,
         jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
         force: bool = typer.Option(False, "--force", help="Overwrite an existing limits file."),
         json_out: bool = typer.Option(False, "--json", help="Print the limits as JSON."),
@@ -117,7 +119,7 @@ def register(app: typer.Typer) -> None:
                 from ..errors import ParameterError
 
                 raise ParameterError(f"'{output}' exists; use --force to overwrite it or -o to choose another file")
-            opts = _analysis_options(method, min_snr_db, max_modes, band)
+            opts = _analysis_options(method, min_snr_db, max_modes, band, start, end)
             analyses = analyze_many(paths, jobs=max(1, jobs), **opts)
             bad = [a for a in analyses if a.error is not None]
             if bad:
@@ -163,6 +165,9 @@ def register(app: typer.Typer) -> None:
         part_id: Optional[str] = typer.Option(None, "--part-id", help="Regex taking the part id from the file name "
                                               "(first group, or the whole match); default the file stem."),
         force: bool = typer.Option(False, "--force", help="Re-check files already stored with the same limits."),
+        start: Optional[float] = typer.Option(None, "--start", help="Analyse from this time on, s from the record's "
+                                              "first sample (default: the window the limits were learned with)."),
+        end: Optional[float] = typer.Option(None, "--end", help="Analyse up to this time, s (default: as learned)."),
         jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
         debug: bool = DEBUG_OPTION,
     ) -> None:
@@ -198,7 +203,7 @@ def register(app: typer.Typer) -> None:
                     todo.append(i)
             prog, task = progress_bar(on_terminal(json_out) and len(todo) > 1, len(todo), "checking")
             with prog:
-                it = iter_check_files([paths[i] for i in todo], lim, jobs=max(1, jobs))
+                it = iter_check_files([paths[i] for i in todo], lim, jobs=max(1, jobs), options=time_window(start, end))
                 for pos, res in it:
                     i = todo[pos]
                     if res.sha256 is None and shas[i] is not None:
