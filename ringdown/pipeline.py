@@ -405,7 +405,7 @@ def _hits_in_strongest_band(x: np.ndarray, fs: float, min_hit_snr_db: float, smo
 
 
 def _keep(hit: Hit) -> Hit:
-    note = Notice("flagged_hit_used", f"hit at {hit.start_s:.3f} s was flagged but is the only measurable one; "
+    note = Notice("flagged_hit_used", f"hit at {hit.start_s:.6g} s was flagged but is the only measurable one; "
                                       "its modes are reported anyway")
     return replace(hit, used=True, warnings=hit.warnings + (note,))
 
@@ -535,7 +535,7 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
     if span.doubt is not None:
         warnings.append(Notice("start_uncertain", f"hit at {onset_s:.6g} s: {span.doubt}"))
     if span.bounce is not None:
-        warnings.append(Notice("double_hit", f"hit at {onset_s:.3f} s has a second onset {1e3 * (span.bounce - span.onset) / fs:.3g} ms later (hammer bounce?)"
+        warnings.append(Notice("double_hit", f"hit at {onset_s:.6g} s has a second onset {1e3 * (span.bounce - span.onset) / fs:.3g} ms later (hammer bounce?)"
                                + ("" if opts.keep_double_hits else "; left out of the combined result")))
         used = opts.keep_double_hits
     clipped = ctx.clipped
@@ -580,7 +580,7 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
             failed.append(f"{lo:.1f}-{hi:.1f} Hz ({exc})")
     if failed:
         shown = "; ".join(failed[:3]) + (f"; and {len(failed) - 3} more" if len(failed) > 3 else "")
-        warnings.append(Notice("fit_failed", f"{len(failed)} band(s) in the hit at {onset_s:.3f} s could not be fitted: {shown}"))
+        warnings.append(Notice("fit_failed", f"{len(failed)} band(s) in the hit at {onset_s:.6g} s could not be fitted: {shown}"))
     modes.sort(key=lambda m: m.f_d_hz)
     if opts.max_modes is not None and len(modes) > opts.max_modes:
         modes = sorted(modes, key=lambda m: -(m.amplitude or 0.0))[: opts.max_modes]
