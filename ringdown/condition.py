@@ -19,6 +19,7 @@ import numpy as np
 __all__ = [
     "HitSpan",
     "remove_drift",
+    "remove_drift_and_step",
     "envelope_db",
     "envelope_smoothing",
     "noise_floor_db",
@@ -89,9 +90,88 @@ def remove_drift(x: np.ndarray, sample_rate: float) -> np.ndarray:
     if n // b < 4 * (DRIFT_DEGREE + 1):
         b = max(1, n // 4096)
     m = (n // b) * b
-    coef = np.polynomial.legendre.legfit(u[:m].reshape(-1, b).mean(axis=1), x[:m].reshape(-1, b).mean(axis=1),
-                                         DRIFT_DEGREE)
+    ub, xb = u[:m].reshape(-1, b).mean(axis=1), x[:m].reshape(-1, b).mean(axis=1)
+    coef = np.polynomial.legendre.legfit(ub, xb, DRIFT_DEGREE)
     return x - np.polynomial.legendre.legval(u, coef)
+
+
+#: A step in the mean explains at least this fraction of what the drift polynomial leaves in the
+#: block means (common practice, no source) ...
+STEP_FRACTION = 0.9
+#: ... and is at least this fraction of the record's largest excursion from the drift.
+STEP_SIZE = 0.1
+
+
+def remove_drift_and_step(x: np.ndarray, sample_rate: float) -> tuple[np.ndarray, int | None]:
+    """Remove offset, slow drift and one step of the mean: a held deflection let go.
+
+    A part held deflected and then released (or a sensor resting at another offset before the
+    part moves) has a mean that steps at the release. A smooth polynomial cannot follow a step
+    and leaves slow wiggles of a tenth of it on both sides, which hide the release in the
+    level. After :func:`remove_drift`'s degree-5 fit to the block means, the step regressor
+    ``H(i - j)`` that best explains the remaining block means is found in one pass (the
+    residual's and the polynomial basis' suffix sums give each candidate's least-squares gain);
+    it is kept when it explains :data:`STEP_FRACTION` of the residual and is at least
+    :data:`STEP_SIZE` of the record's excursion. Then the polynomial and the step are fitted
+    jointly, the step is placed to the sample (least squares within a block either side of the
+    best block edge), and both are subtracted.
+
+    Parameters
+    ----------
+    x : (n_samples,) ndarray of float
+    sample_rate : float, Hz
+
+    Returns
+    -------
+    y : (n_samples,) ndarray of float
+        ``x`` less the drift (and the step).
+    step : int or None
+        Index of the first sample after the step, or ``None`` when there is none.
+    """
+    x = np.asarray(x, dtype=np.float64)
+    y = remove_drift(x, sample_rate)
+    n = x.shape[0]
+    if n < 16 * (DRIFT_DEGREE + 1):
+        return y, None
+    f_dom = dominant_frequency(y, sample_rate)
+    period = max(1, int(round(sample_rate / f_dom))) if f_dom else 1
+    b = period * max(1, -(-n // (4096 * period)))
+    nb = n // b
+    if nb < 8 * (DRIFT_DEGREE + 1):
+        return y, None
+    m = nb * b
+    u = np.linspace(-1.0, 1.0, n)
+    ub, xb = u[:m].reshape(-1, b).mean(axis=1), x[:m].reshape(-1, b).mean(axis=1)
+    v = np.polynomial.legendre.legvander(ub, DRIFT_DEGREE)
+    q, _ = np.linalg.qr(v)
+    r = xb - q @ (q.T @ xb)
+    r0 = float(r @ r)
+    if r0 <= 0:
+        return y, None
+    # gain of a step at block j (1 for blocks >= j): (sum_{i>=j} r_i)^2 / ((nb - j) - |sum_{i>=j} q_i|^2)
+    sr = np.cumsum(r[::-1])[::-1]
+    sq = np.cumsum(q[::-1], axis=0)[::-1]
+    den = (nb - np.arange(nb)) - np.sum(sq * sq, axis=1)
+    j_ok = np.arange(2, nb - 2)
+    gain = np.where(den[j_ok] > 1e-9, sr[j_ok] ** 2 / np.maximum(den[j_ok], 1e-300), 0.0)
+    j = int(j_ok[int(np.argmax(gain))])
+    if float(np.max(gain)) < STEP_FRACTION * r0:
+        return y, None
+    h = (np.arange(nb) >= j).astype(np.float64)
+    sol, *_ = np.linalg.lstsq(np.column_stack([v, h]), xb, rcond=None)
+    c = float(sol[-1])
+    drift = np.polynomial.legendre.legval(u, sol[:-1])
+    e = x - drift
+    if abs(c) < STEP_SIZE * float(np.max(np.abs(e - np.median(e)))):
+        return y, None
+    # the step to the sample: least squares of e - c H(i - k) over a block either side
+    lo, hi = max(0, (j - 1) * b), min(n, (j + 1) * b)
+    w = e[lo:hi]
+    before = np.concatenate(([0.0], np.cumsum(w * w)))
+    after = np.concatenate((np.cumsum(((w - c) ** 2)[::-1])[::-1], [0.0]))
+    k = lo + int(np.argmin(before + after))
+    step = (np.arange(n) >= k).astype(np.float64)
+    return e - c * step, k
 
 
 #: Every time span of hit detection is a multiple of the level's smoothing width ``W`` (one

@@ -279,7 +279,7 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
                          "without overflow; rescale the signal (e.g. to volts or m/s^2)")
     if float(np.ptp(raw)) == 0.0:
         raise InputError(f"{name} is constant (every sample is {raw[0]:g}): nothing rings down")
-    x = condition.remove_drift(raw, fs)
+    x, step = condition.remove_drift_and_step(raw, fs)
     scale = float(np.max(np.abs(x)))
     if scale == 0.0 or scale < 1e-12 * max(float(np.max(np.abs(raw))), 1e-300):
         raise InputError(f"{name} holds only a constant offset or a straight drift: nothing rings down")
@@ -309,6 +309,10 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
         )
     # where each free decay starts: at the hit, or where a steady drive stops
     spans = [condition.free_decay_start(raw, slow, sp, smoothing=smoothing, noise_db=noise_db) for sp in spans]
+    if step is not None:
+        # a step of the mean where a hit rises: a held deflection let go
+        spans = [replace(sp, kind="release") if sp.kind == "impulse" and abs(sp.onset - step) <= 2 * smoothing else sp
+                 for sp in spans]
     clipped = condition.find_clipping(raw, full_scale=rec.full_scale)
     rec_warnings: list[Notice] = [band_note] if band_note is not None else []
     if rec.timing_jitter is not None and rec.timing_jitter > 1e-6:

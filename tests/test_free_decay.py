@@ -124,3 +124,22 @@ def test_mechanical_mode_driven_below_resonance_then_released():
     an = analyze(x, fs)
     f_d = math.sqrt(wn**2 - beta**2) / (2 * math.pi)
     check_free_decay(an, f_d, beta, wdr / (2 * math.pi), 2.1)
+
+
+def test_static_deflection_released():
+    # invented cantilever tip held 1 mm off its rest position for 0.4 s, then let go: a release
+    # (the mean of the record steps at the release), not a tap
+    fs = 5000.0
+    wn, zeta = 2 * math.pi * 95.0, 0.006
+    beta = zeta * wn
+    t = np.arange(int(2.0 * fs)) / fs
+    t_rel = 0.4
+    y = np.full(t.size, 1e-3)
+    after = t >= t_rel
+    sol = solve_ivp(lambda tt, s: [s[1], -2 * beta * s[1] - wn**2 * s[0]], (t_rel, t[-1] + 1 / fs), [1e-3, 0.0],
+                    t_eval=t[after], method="DOP853", rtol=1e-10, atol=1e-16)
+    y[after] = sol.y[0]
+    y += np.random.default_rng(3).normal(0.0, 1e-7, t.size)
+    an = analyze(y, fs)
+    f_d = math.sqrt(wn**2 - beta**2) / (2 * math.pi)
+    check_free_decay(an, f_d, beta, f_d, t_rel, kind="release")
