@@ -745,7 +745,10 @@ def _steady_before_onset(band: Band, onset_s: float, beta_hint: float) -> bool:
 def _is_stationary(est: Estimate, band: Band, window: Window, seg_end_s: float, *, pre_rms: float | None = None) -> bool:
     """Whether a component is a steady tone (hum, a running drive) rather than a mode.
 
-    A mode starts with the hit. When the band holds at least 3 samples before the onset (clear
+    A component whose decay rate is within 3 standard uncertainties of zero and that decays
+    less than 6 dB over the hit is steady, whatever came before: a drive switched on with the
+    hit and still running is not a mode. A mode starts with the hit. When the band holds at
+    least 3 samples before the onset (clear
     of the filter's settling), a tone is steady if it was already there within 10 dB of its
     level at the window start. Without such samples, it is steady if it decays less than 6 dB
     over the whole hit, or its tail stays within 6 dB of the level at the window start
@@ -755,18 +758,25 @@ def _is_stationary(est: Estimate, band: Band, window: Window, seg_end_s: float, 
     ``pre_rms`` is the RMS of the broadband samples before the hit (``None`` when there are
     too few): a steady tone of amplitude ``a`` there would give an RMS of at least
     ``a / sqrt(2)``, so a component whose amplitude exceeds ``sqrt(2) pre_rms`` by 10 dB was
-    not there before the hit, and is a mode however little it decays in the record (a very
-    lightly damped resonator whose band filter is too narrow to settle in a short pre-trigger).
+    not there before the hit; it is a mode however little it decays in the record (a very
+    lightly damped resonator whose band filter is too narrow to settle in a short pre-trigger)
+    when its decay rate is resolved (more than 5 standard uncertainties above zero: common
+    practice, no source). A drive switched on with the hit and still running has a decay rate
+    consistent with zero and stays a steady tone.
     """
     env = np.abs(band.z)
     i0 = band.index_of(window.start_s)
+    span = max(seg_end_s - window.onset_s, 1e-300)
+    if est.beta_per_s_u is not None and est.beta_per_s <= 3.0 * est.beta_per_s_u and \
+            DB_PER_NEPER * est.beta_per_s * span < 6.0:
+        return True  # no decay resolved: a drive switched on with the hit and still running
     before = _level_before_onset(band, window.onset_s, window.start_s - window.onset_s)
     if before is not None:
         return bool(before > env[i0] * 10 ** (-STEADY_MARGIN_DB / 20))
-    if pre_rms is not None and est.amplitude is not None and \
-            est.amplitude > math.sqrt(2.0) * pre_rms * 10 ** (STEADY_MARGIN_DB / 20):
+    if pre_rms is not None and est.amplitude is not None and est.beta_per_s_u is not None and \
+            est.amplitude > math.sqrt(2.0) * pre_rms * 10 ** (STEADY_MARGIN_DB / 20) and \
+            est.beta_per_s > 5.0 * est.beta_per_s_u:
         return False
-    span = max(seg_end_s - window.onset_s, 1e-12)
     if DB_PER_NEPER * est.beta_per_s * span < 6.0:
         return True
     n = env.shape[0]

@@ -25,6 +25,7 @@ import pytest
 from scipy.integrate import solve_ivp
 
 from ringdown import analyze
+from ringdown.errors import NoRingdownError
 
 L_H, C_F = 1e-3, 100e-9  # invented circuit: 1 mH, 100 nF -> f_0 = 15.92 kHz
 W0 = 1.0 / math.sqrt(L_H * C_F)
@@ -143,3 +144,13 @@ def test_static_deflection_released():
     an = analyze(y, fs)
     f_d = math.sqrt(wn**2 - beta**2) / (2 * math.pi)
     check_free_decay(an, f_d, beta, f_d, t_rel, kind="release")
+
+
+@pytest.mark.parametrize("q, detune", [(20.0, -0.06), (20.0, 0.0), (100.0, -0.06)])
+def test_drive_never_switched_off_is_no_mode(q, detune):
+    # the same circuit driven from 2 ms into the record to its end: a steady forced response
+    # after the start-up transient, never a free decay; it must not be reported as a mode
+    r = W0 * L_H / q
+    y = simulate(lambda s, v, f: (f - r * v - s / C_F) / L_H, W0 * (1 + detune), 0.0, 0.03, -2e-3, 0.03, 1e6, seed=3)
+    with pytest.raises(NoRingdownError, match="no mode could be measured"):
+        analyze(y, 1e6)
