@@ -285,6 +285,8 @@ class Analysis:
 
     ``error`` is ``None`` for a recording that was analysed; otherwise it holds the reason and
     ``modes`` and ``hits`` are empty. ``recording`` keeps the samples for plots (not serialised).
+    ``channel`` is the channel's name or number as the reader gives it, ``unit`` the unit of the
+    samples as the file states it (TDMS, UFF 58, MATLAB, HDF5), ``None`` when unknown.
     ``noise_source`` says where the noise spectrum came from: ``"pre_trigger"`` (before the first
     hit), ``"tail"`` (after the decays died away) or ``"record_end"`` (the record's last 10 %,
     which still holds the decay: an upper bound, with the warning ``noise_uncertain``); ``None``
@@ -304,6 +306,7 @@ class Analysis:
     noise_floor: float | None = None
     noise_source: str | None = None
     recording: Any = None
+    unit: str | None = None
 
     @property
     def duration_s(self) -> float | None:
@@ -334,6 +337,7 @@ class Analysis:
             "path": self.path,
             "sha256": self.sha256,
             "channel": self.channel,
+            "unit": self.unit,
             "sample_rate_hz": self.sample_rate_hz,
             "n_samples": self.n_samples,
             "duration_s": self.duration_s,
