@@ -27,7 +27,9 @@ _CAUTION = (
 
 
 def _e(s) -> str:
-    return html.escape(str(s), quote=True)
+    from .outputs import shown
+
+    return html.escape(shown(s), quote=True)
 
 
 def _num(v, digits: int = 4) -> str:

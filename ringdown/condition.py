@@ -355,6 +355,8 @@ def find_hits(
         onset = lo_i + int(reach[0]) if reach.size else k
         end = onsets[j + 1] - sm if j + 1 < len(onsets) else n
         stop = min(end, onset + hold + bw)
+        if stop <= onset:
+            continue  # a rise in the record's last samples leaves no decay to measure
         peak = onset + int(np.argmax(level_db[onset:stop]))
         bounce = _find_bounce(level_db, k, bw, w, bounce_rise_db, end, sm + w)
         if bounce is not None and slow_level_db is not None and not _energy_step(slow_level_db, k, bounce, sm):

@@ -61,8 +61,11 @@ class Section:
 # --------------------------------------------------------------------------------------------
 
 def _e(value: Any) -> str:
-    """Escape anything for HTML text or attribute values."""
-    return html.escape(str(value), quote=True)
+    """Escape anything for HTML text or attribute values; control and bidi characters shown
+    escaped (:func:`ringdown.outputs.shown`)."""
+    from .outputs import shown
+
+    return html.escape(shown(value), quote=True)
 
 
 def _finite(v: Any) -> bool:
@@ -515,13 +518,10 @@ def write_report(analyses, path, **kw) -> str:
     """
     text = render_report(analyses, **kw)
     path = os.fspath(path)
-    try:
-        with open(path, "w", encoding="utf-8") as fh:
-            fh.write(text)
-    except OSError as exc:
-        raise ParameterError(
-            f"cannot write the report to {path!r}: {exc.strerror or exc}; choose a writable path"
-        ) from exc
+    from .outputs import atomic_write
+
+    with atomic_write(path, what="the report to") as fh:  # renamed into place: never half a report
+        fh.write(text)
     return path
 
 

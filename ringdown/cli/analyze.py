@@ -11,9 +11,9 @@ from typing import List, Optional
 
 import typer
 
-from ._common import (CHANNEL_HELP, DEBUG_OPTION, END_OPTION, EXIT_ERROR, EXIT_OK, START_OPTION, default_jobs,
-                      error_line, expand_inputs, guarded, on_terminal, parse_channel, print_json, progress_bar,
-                      time_window)
+from ._common import (CHANNEL_HELP, DEBUG_OPTION, END_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_INTERRUPTED, EXIT_OK,
+                      RECURSIVE_OPTION, START_OPTION, default_jobs, error_line, expand_inputs, guarded, note_line, on_terminal,
+                      parse_channel, print_json, progress_bar, time_window, usage_guarded)
 
 __all__ = ["register", "parse_band", "format_table"]
 
@@ -45,10 +45,12 @@ def _fmt(v, u=None, digits=5) -> str:
 
 def format_table(analysis) -> str:
     """A readable text table of one analysis (what ``analyze`` prints without ``--json``)."""
+    from ..outputs import shown
+
     lines = []
-    head = f"{analysis.path or '<array>'}"
+    head = shown(analysis.path or "<array>")
     if analysis.error is not None:
-        return f"{head}\n  error: {analysis.error.message}\n"
+        return f"{head}\n  error: {shown(analysis.error.message)}\n"
     used = sum(1 for h in analysis.hits if h.used)
     unit = f" [{analysis.unit}]" if analysis.unit else ""
     head += (f"  ({analysis.sample_rate_hz:g} Hz, {analysis.duration_s:.3g} s, channel {analysis.channel}{unit}, "
@@ -80,25 +82,29 @@ def format_table(analysis) -> str:
 
 
 def write_csv(analyses, path: str) -> None:
-    """One row per mode of every analysed file (files that failed get one row with the error)."""
+    """One row per mode of every analysed file (files that failed get one row with the error).
+
+    Written to a temporary file and renamed into place; text cells are neutralised
+    (:func:`ringdown.outputs.csv_cell`)."""
+    from ..outputs import atomic_write, csv_row
     from ..results import mode_keys
 
     keys = [k for k in mode_keys() if k not in ("warnings", "cross_checks", "damping_vs_amplitude", "band_hz")]
-    with open(path, "w", newline="", encoding="utf-8") as fh:
+    with atomic_write(path, newline="", what="CSV") as fh:
         w = csv.writer(fh)
         w.writerow(["path", "sha256", "channel", *keys, "warnings", "error"])
         for a in analyses:
             if a.error is not None:
-                w.writerow([a.path, a.sha256, a.channel, *([""] * len(keys)), "", a.error.message])
+                w.writerow(csv_row([a.path, a.sha256, a.channel, *([None] * len(keys)), None, a.error.message]))
                 continue
             for m in a.modes:
                 d = m.to_dict()
-                w.writerow([a.path, a.sha256, a.channel, *["" if d[k] is None else d[k] for k in keys],
-                            ";".join(m.warning_codes), ""])
+                w.writerow(csv_row([a.path, a.sha256, a.channel, *[d[k] for k in keys],
+                                    ";".join(m.warning_codes), None]))
 
 
 def register(app: typer.Typer) -> None:
-    @app.command("analyze")
+    @app.command("analyze", epilog=EXIT_EPILOG)
     def analyze_cmd(
         files: List[str] = typer.Argument(..., help="Recordings (WAV/FLAC/OGG/CSV, TDMS, UFF 58, MAT, HDF5), folders "
                                                     "or glob patterns."),
@@ -125,28 +131,61 @@ def register(app: typer.Typer) -> None:
         part_id: Optional[str] = typer.Option(None, "--part-id", help="Regex taking the part id from the file name (first group)."),
         station: Optional[str] = typer.Option(None, "--station", help="Test station, stored with each result."),
         operator: Optional[str] = typer.Option(None, "--operator", help="Operator, stored with each result."),
+        recursive: bool = RECURSIVE_OPTION,
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Measure every mode of each recording: f_d, beta, f_n, zeta, Q, loss factor, dB/s, T60."""
-        from ..pipeline import AnalysisOptions, analyze_many
+        from ..pipeline import AnalysisOptions, iter_analyze_files
 
         started = time.perf_counter()
 
-        def run():
+        def parse():
+            from ..errors import ParameterError
+            from ..store import part_id_from_path
+            from .render import PLOT_FORMATS
+
             bands = [parse_band(b) for b in band] if band else None
-            options = dict(channel=parse_channel(channel), column=column, sample_rate=sample_rate, method=method, bands=bands,
-                           max_modes=max_modes, min_snr_db=min_snr_db, min_hit_snr_db=min_hit_snr_db,
-                           keep_double_hits=keep_double_hits, **time_window(start, end))
+            opts = dict(channel=parse_channel(channel), column=column, sample_rate=sample_rate, method=method,
+                        bands=bands, max_modes=max_modes, min_snr_db=min_snr_db, min_hit_snr_db=min_hit_snr_db,
+                        keep_double_hits=keep_double_hits, **time_window(start, end))
             AnalysisOptions(method=method, bands=bands, max_modes=max_modes, min_snr_db=min_snr_db,
                             min_hit_snr_db=min_hit_snr_db, **time_window(start, end))
-            paths = expand_inputs(files)
-            bar, task = progress_bar(on_terminal(json_out) and len(paths) > 1, len(paths), "analysing")
-            with bar:
-                done = analyze_many(paths, jobs=jobs or default_jobs(), progress=lambda _a: bar.advance(task), **options)
-            return options, done
+            if jobs is not None and jobs < 1:
+                raise ParameterError(f"--jobs must be >= 1; got {jobs}")
+            if plot is not None and plot_format not in PLOT_FORMATS:
+                raise ParameterError(f"--plot-format must be one of {', '.join(PLOT_FORMATS)}; got {plot_format!r}")
+            part_id_from_path("x", part_id)  # a bad --part-id regex is a usage error
+            return opts
 
-        options, analyses = guarded(run, debug=debug)
-        if debug:
+        options = usage_guarded(parse, debug=debug)
+        db_path = None
+        if store:
+            from ._common import resolve_db
+
+            db_path = resolve_db(db)
+        paths = expand_inputs(files, recursive=recursive, exclude=[csv_out, report, db_path])
+        if not paths:
+            error_line(f"no recordings to analyse in {', '.join(files)}")
+            raise typer.Exit(EXIT_ERROR)
+        history = guarded(lambda: _prepare_outputs(csv_out, report, plot, db_path), debug=debug)
+
+        results: list = [None] * len(paths)
+        interrupted = False
+        storer = _Storer(history, part_id, station, operator)
+        bar, task = progress_bar(on_terminal(json_out) and len(paths) > 1, len(paths), "analysing")
+        try:
+            with bar:
+                for i, a in iter_analyze_files(paths, jobs=jobs or default_jobs(), on_notice=note_line, **options):
+                    results[i] = a
+                    storer.add(a)  # durable before anything else is written
+                    bar.advance(task)
+        except KeyboardInterrupt:
+            interrupted = True
+        finally:
+            storer.close()
+        analyses = [a for a in results if a is not None]
+
+        if debug and not interrupted:
             for a in analyses:
                 if a.error is not None:
                     from ..pipeline import analyze_file
@@ -162,39 +201,106 @@ def register(app: typer.Typer) -> None:
         else:
             for a in analyses:
                 sys.stdout.write(format_table(a))
+        failed_outputs = 0
         if csv_out is not None:
-            guarded(lambda: write_csv(analyses, str(csv_out)), debug=debug)
-        _render(analyses, plot, plot_format, report, options, debug)
-        if store:
-            guarded(lambda: _store(analyses, db, part_id, station, operator), debug=debug)
+            failed_outputs += _try(lambda: write_csv(analyses, str(csv_out)), debug)
+        failed_outputs += _render(analyses, plot, plot_format, report, options, debug)
+        storer.report()
         errors = sum(1 for a in analyses if a.error is not None)
+        if interrupted:
+            error_line(f"interrupted: {len(analyses)} of {len(paths)} done"
+                       + (" (stored)" if history is not None else "") + ", rerun to resume")
+            raise typer.Exit(EXIT_INTERRUPTED)
         if len(analyses) > 1 and not json_out:
             typer.echo(f"{len(analyses)} files: {len(analyses) - errors} analysed, {errors} errors, "
                        f"{sum(len(a.modes) for a in analyses)} modes in {time.perf_counter() - started:.1f} s")
-        raise typer.Exit(EXIT_ERROR if errors else EXIT_OK)
+        bad = errors or failed_outputs or storer.failed or paths.problems
+        raise typer.Exit(EXIT_ERROR if bad else EXIT_OK)
 
 
-def _store(analyses, db, part_id, station, operator) -> None:
-    from ..store import ResultStore, part_id_from_path
-    from ._common import resolve_db
+def _prepare_outputs(csv_out, report, plot, db_path):
+    """Check every output before the analysis starts; open the history. Returns the store or None."""
+    from ..outputs import check_writable, remove_stale
 
-    path = resolve_db(db)
-    with ResultStore(path) as st:
-        for a in analyses:
-            st.record_analysis(a, part_id=part_id_from_path(a.path or "array", part_id), station=station,
-                               operator=operator)
-    typer.echo(f"stored {len(analyses)} result(s) in {path}", err=True)
-
-
-def _render(analyses, plot, plot_format, report, options, debug) -> None:
-    if plot is None and report is None:
-        return
-    try:
-        from . import render
-    except ImportError:  # plots and reports not built yet
-        error_line("plots and reports are not available in this build")
-        raise typer.Exit(EXIT_ERROR) from None
-    if plot is not None:
-        guarded(lambda: render.write_plots(analyses, plot, plot_format), debug=debug)
+    if csv_out is not None:
+        check_writable(csv_out, "CSV")
     if report is not None:
-        guarded(lambda: render.write_report(analyses, report, options), debug=debug)
+        check_writable(report, "report")
+    if plot is not None:
+        check_writable(plot, "plot", folder=True)
+    history = None
+    if db_path is not None:
+        from ..store import ResultStore
+
+        history = ResultStore(db_path)
+    for out in (csv_out, report):
+        if out is not None:
+            remove_stale(out)  # a killed run must not leave the last run's output looking current
+    return history
+
+
+def _try(fn, debug) -> int:
+    """Run one output writer; its error is one line (the other outputs still get written). 1 on error."""
+    from ..errors import RingdownError
+
+    try:
+        fn()
+        return 0
+    except RingdownError as exc:
+        if debug:
+            raise
+        error_line(str(exc))
+        return 1
+
+
+class _Storer:
+    """``--store``: each result in its own transaction as it arrives; one already stored (same
+    file SHA-256 and settings) is not stored again."""
+
+    def __init__(self, history, part_id, station, operator) -> None:
+        self.history, self.part_id, self.station, self.operator = history, part_id, station, operator
+        self.stored = self.skipped = 0
+        self.failed = False
+
+    def add(self, a) -> None:
+        if self.history is None or self.failed:
+            return
+        from ..errors import StoreError
+        from ..store import part_id_from_path
+        from ._common import sigint_deferred
+
+        try:
+            with sigint_deferred():
+                rid = self.history.record_analysis(a, part_id=part_id_from_path(a.path or "array", self.part_id),
+                                                   station=self.station, operator=self.operator, skip_stored=True)
+        except StoreError as exc:
+            error_line(f"{exc}; results from here on are not stored")
+            self.failed = True
+            return
+        if rid is None:
+            self.skipped += 1
+        else:
+            self.stored += 1
+
+    def close(self) -> None:
+        if self.history is not None:
+            self.history.close()
+
+    def report(self) -> None:
+        if self.history is not None:
+            extra = f" ({self.skipped} already stored, skipped)" if self.skipped else ""
+            typer.echo(f"stored {self.stored} result(s) in {self.history.path}{extra}", err=True)
+
+
+def _render(analyses, plot, plot_format, report, options, debug) -> int:
+    """Figures and report; returns the number of outputs that could not be written."""
+    if plot is None and report is None:
+        return 0
+    from . import render
+
+    bad = 0
+    if plot is not None:
+        bad += _try(lambda: render.write_plots(analyses, plot, plot_format), debug)
+    if report is not None:
+        bad += _try(lambda: render.write_report(analyses, report, options), debug)
+    return bad
