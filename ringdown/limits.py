@@ -83,7 +83,7 @@ DEFAULT_MAX_UNIFORM_SHIFT = 0.01
 DEFAULT_UNIFORM_SHIFT_TOLERANCE = 0.002
 
 _ANALYSIS_KEYS = ("method", "bands", "max_modes", "min_snr_db", "min_hit_snr_db", "keep_double_hits", "channel", "column",
-                  "sample_rate")
+                  "sample_rate", "start_s", "end_s")
 
 
 # --------------------------------------------------------------------------------------------

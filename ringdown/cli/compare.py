@@ -21,8 +21,8 @@ from typing import List, Optional
 import typer
 
 from ..errors import RingdownError
-from ._common import (CHANNEL_HELP, DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_OK, error_line, expand_inputs,
-                      guarded, parse_channel, print_json, usage_error)
+from ._common import (CHANNEL_HELP, DEBUG_OPTION, END_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_OK, START_OPTION,
+                      error_line, expand_inputs, guarded, parse_channel, print_json, time_window, usage_error)
 
 __all__ = ["register", "format_table"]
 
@@ -198,6 +198,8 @@ def register(app: typer.Typer) -> None:
         band: Optional[List[str]] = typer.Option(None, "--band", help="Band LOW:HIGH in Hz (repeatable, as for analyze)."),
         min_hit_snr_db: float = typer.Option(20.0, "--min-hit-snr-db", help="A hit must rise this far above the noise, dB."),
         keep_double_hits: bool = typer.Option(False, "--keep-double-hits", help="Count bounced hits as repeats too."),
+        start: Optional[float] = START_OPTION,
+        end: Optional[float] = END_OPTION,
         debug: bool = DEBUG_OPTION,
     ) -> None:
         if ctx.args:
@@ -213,7 +215,7 @@ def register(app: typer.Typer) -> None:
             from .analyze import parse_band
 
             options = dict(method=method, channel=parse_channel(channel), min_hit_snr_db=min_hit_snr_db,
-                           keep_double_hits=keep_double_hits)
+                           keep_double_hits=keep_double_hits, **time_window(start, end))
             if band:
                 options["bands"] = [parse_band(x) for x in band]
             return compare(b, a, tolerance=tolerance, confidence=confidence, **options)

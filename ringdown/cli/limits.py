@@ -14,14 +14,15 @@ from typing import List, Optional
 
 import typer
 
-from ._common import (CHANNEL_HELP, DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_FAIL, EXIT_INTERRUPTED, EXIT_OK,
-                      RECURSIVE_OPTION, default_jobs, error_line, expand_inputs, guarded, note_line, on_terminal,
-                      parse_channel, print_json, progress_bar, resolve_db, sigint_deferred, usage_guarded, DB_ENV)
+from ._common import (CHANNEL_HELP, DEBUG_OPTION, END_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_FAIL, EXIT_INTERRUPTED,
+                      EXIT_OK, RECURSIVE_OPTION, START_OPTION, default_jobs, error_line, expand_inputs, guarded,
+                      note_line, on_terminal, parse_channel, print_json, progress_bar, resolve_db, sigint_deferred,
+                      time_window, usage_guarded, DB_ENV)
 
 __all__ = ["register", "format_check"]
 
-def _analysis_options(method, min_snr_db, max_modes, bands, channel=None) -> dict:
-    opts: dict = {}
+def _analysis_options(method, min_snr_db, max_modes, bands, channel=None, start=None, end=None) -> dict:
+    opts: dict = time_window(start, end)
     if channel is not None:
         opts["channel"] = parse_channel(channel)
     if method is not None:
@@ -118,6 +119,8 @@ def register(app: typer.Typer) -> None:
         max_modes: Optional[int] = typer.Option(None, help="Most modes per recording (as for analyze)."),
         band: Optional[List[str]] = typer.Option(None, "--band", help="Band LOW:HIGH in Hz (repeatable)."),
         channel: Optional[str] = typer.Option(None, "--channel", help=CHANNEL_HELP + " Kept in the limits file for check."),
+        start: Optional[float] = START_OPTION,
+        end: Optional[float] = END_OPTION,
         jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
         force: bool = typer.Option(False, "--force", help="Overwrite an existing limits file."),
         json_out: bool = typer.Option(False, "--json", help="Print the limits as JSON."),
@@ -128,7 +131,8 @@ def register(app: typer.Typer) -> None:
         from ..pipeline import analyze_many
         from ..limits import learn_limits, write_limits
 
-        opts = usage_guarded(lambda: _analysis_options(method, min_snr_db, max_modes, band, channel), debug=debug)
+        opts = usage_guarded(lambda: _analysis_options(method, min_snr_db, max_modes, band, channel, start, end),
+                             debug=debug)
 
         def run():
             from ..errors import ParameterError
@@ -189,6 +193,9 @@ def register(app: typer.Typer) -> None:
         part_id: Optional[str] = typer.Option(None, "--part-id", help="Regex taking the part id from the file name "
                                               "(first group, or the whole match); default the file stem."),
         force: bool = typer.Option(False, "--force", help="Re-check files already stored with the same limits."),
+        start: Optional[float] = typer.Option(None, "--start", help="Analyse from this time on, s from the record's "
+                                              "first sample (default: the window the limits were learned with)."),
+        end: Optional[float] = typer.Option(None, "--end", help="Analyse up to this time, s (default: as learned)."),
         jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
         recursive: bool = RECURSIVE_OPTION,
         scheduler: Optional[str] = typer.Option(None, "--scheduler", help="Run on a Dask cluster: scheduler ADDRESS "
@@ -254,7 +261,7 @@ def register(app: typer.Typer) -> None:
             sink = guarded(lambda: open_sink(parquet_out), debug=debug)
             with cluster as client, sink, prog:
                 it = iter_check_files([paths[i] for i in todo], lim, jobs=max(1, jobs), on_notice=note_line,
-                                      client=client)
+                                      options=time_window(start, end), client=client)
                 for pos, res in it:
                     i = todo[pos]
                     if res.sha256 is None and shas[i] is not None:
