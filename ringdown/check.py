@@ -391,6 +391,7 @@ def iter_check_files(
     options: dict | None = None,
     executor=None,
     on_notice=None,
+    client=None,
 ) -> Iterator[tuple[int, CheckResult]]:
     """Check many recordings, on several processes; yield ``(position, result)`` as each finishes.
 
@@ -405,6 +406,9 @@ def iter_check_files(
         Analysis options overriding the ones stored in the limits.
     executor, on_notice : callable, optional
         See :func:`ringdown.batch.run_batch`.
+    client : distributed.Client, optional
+        Run one task per file on this Dask cluster's workers instead (:mod:`ringdown.cluster`;
+        ``jobs`` and ``executor`` are then unused).
 
     Yields
     ------
@@ -418,4 +422,9 @@ def iter_check_files(
     if jobs < 1:
         raise ParameterError(f"jobs must be >= 1, got {jobs}")
     task = _CheckTask(limits, dict(options or {}))
+    if client is not None:
+        from .cluster import iter_results
+
+        yield from iter_results(client, task, list(paths), on_error=task.failed)
+        return
     yield from run_batch(task, list(paths), on_error=task.failed, jobs=jobs, executor=executor, on_notice=on_notice)

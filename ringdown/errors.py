@@ -10,6 +10,7 @@ Every error the library raises on purpose derives from :class:`RingdownError`, s
      ├── FitError          (also RuntimeError) a fit that could not converge
      ├── LimitsError       (also ValueError)   a limits file that is missing or malformed
      ├── StoreError                            the results database cannot be used
+     ├── ClusterError                          a Dask scheduler or its workers cannot run a batch
      └── InternalError                         anything else that went wrong on one input
           └── WorkerError                      the worker process handling it died (twice)
 
@@ -27,6 +28,7 @@ __all__ = [
     "FitError",
     "LimitsError",
     "StoreError",
+    "ClusterError",
     "InternalError",
     "WorkerError",
 ]
@@ -72,6 +74,12 @@ class StoreError(RingdownError):
     """The results database cannot be opened, migrated or written."""
 
     code = "store"
+
+
+class ClusterError(RingdownError):
+    """A Dask scheduler that cannot be reached or used, or a task its workers kept dying on."""
+
+    code = "cluster"
 
 
 class InternalError(RingdownError):

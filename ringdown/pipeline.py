@@ -203,6 +203,7 @@ def analyze_many(
     *,
     jobs: int = 1,
     progress: Callable[[Analysis], None] | None = None,
+    client=None,
     **options,
 ) -> list[Analysis]:
     """Analyse several files; a file that fails gets ``Analysis.error`` and the rest go on.
@@ -214,6 +215,9 @@ def analyze_many(
         Worker processes when > 1 (:mod:`ringdown.batch`).
     progress : callable or None
         Called with each finished Analysis (in completion order).
+    client : distributed.Client or None
+        Run one task per file on this Dask cluster's workers instead (``jobs`` is then unused;
+        :mod:`ringdown.cluster`, extra ``ringdown[cluster]``). The paths must be readable there.
     **options
         As for :func:`analyze_file`.
 
@@ -228,20 +232,21 @@ def analyze_many(
     """
     paths = [str(p) for p in paths]
     results: list[Analysis | None] = [None] * len(paths)
-    for i, a in iter_analyze_files(paths, jobs=jobs, **options):
+    for i, a in iter_analyze_files(paths, jobs=jobs, client=client, **options):
         results[i] = a
         if progress:
             progress(a)
     return [r for r in results if r is not None]
 
 
-def iter_analyze_files(paths: Sequence[str], *, jobs: int = 1, executor=None, on_notice=None,
+def iter_analyze_files(paths: Sequence[str], *, jobs: int = 1, executor=None, on_notice=None, client=None,
                        **options) -> Iterator[tuple[int, Analysis]]:
     """Analyse several files; yield ``(position, Analysis)`` as each finishes.
 
     The batch runner of every command (:func:`ringdown.batch.run_batch`): a file whose analysis
     fails in any way yields ``Analysis.failed`` with the reason; ``executor`` and ``on_notice``
-    are passed on.
+    are passed on. With a Dask ``client``, the files are analysed on its workers instead
+    (:func:`ringdown.cluster.iter_results`, the same failure policy; ``jobs`` is then unused).
 
     Raises
     ------
@@ -255,6 +260,11 @@ def iter_analyze_files(paths: Sequence[str], *, jobs: int = 1, executor=None, on
     if jobs is None or isinstance(jobs, bool) or not isinstance(jobs, int) or jobs < 1:
         raise ParameterError(f"jobs must be >= 1; got {jobs!r}")
     task = _FileTask(dict(options))
+    if client is not None:
+        from .cluster import iter_results
+
+        yield from iter_results(client, task, paths, on_error=task.failed)
+        return
     yield from run_batch(task, paths, on_error=task.failed, jobs=jobs, executor=executor, on_notice=on_notice)
 
 

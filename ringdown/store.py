@@ -546,6 +546,12 @@ class ResultStore:
             settings=parsed("settings_json", dict), modes=tuple(modes), result=parsed("result_json", dict),
         )
 
+    def mode_records(self, result_id: int) -> list[dict]:
+        """Every stored field of a result's modes (``Mode.to_dict()`` as stored), with ``ref_index``."""
+        rows = self._conn.execute("SELECT mode_json, ref_index FROM modes WHERE result_id = ? ORDER BY mode_index",
+                                  (int(result_id),))
+        return [{**json.loads(r["mode_json"]), "ref_index": r["ref_index"]} for r in rows]
+
     def get(self, result_id: int) -> StoredResult | None:
         def run():
             row = self._conn.execute("SELECT * FROM results WHERE id = ?", (int(result_id),)).fetchone()

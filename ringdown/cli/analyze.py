@@ -132,6 +132,10 @@ def register(app: typer.Typer) -> None:
         station: Optional[str] = typer.Option(None, "--station", help="Test station, stored with each result."),
         operator: Optional[str] = typer.Option(None, "--operator", help="Operator, stored with each result."),
         recursive: bool = RECURSIVE_OPTION,
+        scheduler: Optional[str] = typer.Option(None, "--scheduler", help="Run on a Dask cluster: scheduler ADDRESS "
+                                                "(tcp://HOST:8786) or local:N worker processes (needs the 'cluster' extra)."),
+        parquet_out: Optional[Path] = typer.Option(None, "--parquet", help="Also append one row per mode to this Parquet "
+                                                   "dataset folder, as results arrive (needs the 'cluster' extra)."),
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Measure every mode of each recording: f_d, beta, f_n, zeta, Q, loss factor, dB/s, T60."""
@@ -173,12 +177,22 @@ def register(app: typer.Typer) -> None:
         interrupted = False
         storer = _Storer(history, part_id, station, operator)
         bar, task = progress_bar(on_terminal(json_out) and len(paths) > 1, len(paths), "analysing")
+        from ..cluster import connect
+        from ..parquet import open_sink
+        from ..store import part_id_from_path
+
+        cluster = guarded(lambda: connect(scheduler), debug=debug)
+        sink = guarded(lambda: open_sink(parquet_out), debug=debug)
         try:
-            with bar:
-                for i, a in iter_analyze_files(paths, jobs=jobs or default_jobs(), on_notice=note_line, **options):
+            with cluster as client, sink, bar:
+                for i, a in iter_analyze_files(paths, jobs=jobs or default_jobs(), on_notice=note_line, client=client,
+                                               **options):
                     results[i] = a
                     storer.add(a)  # durable before anything else is written
+                    guarded(lambda: sink.add_analysis(a, part_id=part_id_from_path(a.path or "array", part_id),
+                                                      station=station, operator=operator), debug=debug)
                     bar.advance(task)
+                guarded(sink.close, debug=debug)
         except KeyboardInterrupt:
             interrupted = True
         finally:

@@ -82,6 +82,8 @@ def register(app: typer.Typer) -> None:
         plot: Optional[str] = typer.Option(None, "--plot", help="Write a run chart (PNG, SVG or PDF)."),
         limits_path: Optional[str] = typer.Option(None, "--limits", help="Draw these limits on the run chart "
                                                   "(default: the limits each part was checked with)."),
+        parquet_out: Optional[str] = typer.Option(None, "--parquet", help="Write the records, one row per mode, to "
+                                                  "this Parquet dataset folder (needs the 'cluster' extra)."),
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Show stored results: a table, JSON, CSV, or a run chart of every mode in test order."""
@@ -108,6 +110,11 @@ def register(app: typer.Typer) -> None:
         records, docs = guarded(run, debug=debug)
         if csv_out:
             guarded(lambda: _write_csv(records, csv_out), debug=debug)
+        if parquet_out:
+            from ..parquet import export_history
+
+            sink = guarded(lambda: export_history(path, records, parquet_out), debug=debug)
+            typer.echo(f"wrote {sink.rows_written} row(s) of {len(records)} record(s) to {parquet_out}", err=True)
         if plot:
             def draw():
                 from ..history_plot import plot_run_chart

@@ -198,6 +198,10 @@ def register(app: typer.Typer) -> None:
         end: Optional[float] = typer.Option(None, "--end", help="Analyse up to this time, s (default: as learned)."),
         jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
         recursive: bool = RECURSIVE_OPTION,
+        scheduler: Optional[str] = typer.Option(None, "--scheduler", help="Run on a Dask cluster: scheduler ADDRESS "
+                                                "(tcp://HOST:8786) or local:N worker processes (needs the 'cluster' extra)."),
+        parquet_out: Optional[str] = typer.Option(None, "--parquet", help="Also append one row per mode to this Parquet "
+                                                  "dataset folder, as results arrive (needs the 'cluster' extra)."),
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Check parts against limits: PASS or FAIL with every reason; store each result."""
@@ -250,14 +254,22 @@ def register(app: typer.Typer) -> None:
                 else:
                     todo.append(i)
             prog, task = progress_bar(on_terminal(json_out) and len(todo) > 1, len(todo), "checking")
-            with prog:
+            from ..cluster import connect
+            from ..parquet import open_sink
+
+            cluster = guarded(lambda: connect(scheduler), debug=debug)
+            sink = guarded(lambda: open_sink(parquet_out), debug=debug)
+            with cluster as client, sink, prog:
                 it = iter_check_files([paths[i] for i in todo], lim, jobs=max(1, jobs), on_notice=note_line,
-                                      options=time_window(start, end))
+                                      options=time_window(start, end), client=client)
                 for pos, res in it:
                     i = todo[pos]
                     if res.sha256 is None and shas[i] is not None:
                         res = replace(res, sha256=shas[i])
                     with sigint_deferred():  # stored and counted whole, or not at all
+                        # to the dataset before the database: whatever is stored is in the dataset too
+                        guarded(lambda: sink.add_check(res, part_id=ids[i], station=station, operator=operator),
+                                debug=debug)
                         stored = None
                         if store is not None and not store_failed:
                             try:
@@ -269,6 +281,7 @@ def register(app: typer.Typer) -> None:
                         results[i] = res
                         rows[i] = {"part_id": ids[i], "skipped": False, "stored_id": stored, **res.to_dict()}
                     prog.advance(task)
+                guarded(sink.close, debug=debug)
         except KeyboardInterrupt:
             interrupted = True
         finally:
