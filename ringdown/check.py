@@ -43,13 +43,23 @@ from .limits import Limits, match_modes
 from .results import Analysis, Notice
 
 __all__ = ["EXTRA_MODE_LEVEL", "FeatureCheck", "CheckResult", "check", "check_file", "iter_check_files",
-           "lighten"]
+           "lighten", "verdict_kind"]
 
 #: An unmatched mode whose amplitude is at least this fraction of the strongest matched mode's
 #: (-20 dB) is reported as an extra strong mode (our choice).
 EXTRA_MODE_LEVEL = 0.1
 
 PASS, FAIL, ERROR = "pass", "fail", "error"
+#: Code prefix of a note that excuses a failed window (the part passes on the ratio features).
+ADVISORY_PREFIX = "advisory_"
+
+
+def verdict_kind(verdict: str | None, note_codes=()) -> str:
+    """``"pass"``, ``"pass_advisory"`` (a pass with advisory windows), ``"fail"``, ``"error"``
+    or ``"analysis"`` (no verdict): how reports and run charts mark a result."""
+    if verdict == PASS and any(str(c).startswith(ADVISORY_PREFIX) for c in note_codes):
+        return "pass_advisory"
+    return verdict if verdict in (PASS, FAIL, ERROR) else "analysis"
 
 
 @dataclass(frozen=True, slots=True)
@@ -285,7 +295,7 @@ def check(analysis: Analysis, limits: Limits) -> CheckResult:
         if uniform and maha_ok and abs(shift) <= limits.max_uniform_shift:
             for fc, note in f_fail:
                 feats.append(replace(fc, status="advisory"))
-                notes.append(Notice("advisory_" + note.code, note.message + " (advisory)"))
+                notes.append(Notice(ADVISORY_PREFIX + note.code, note.message + " (advisory)"))
             notes.insert(0, Notice(
                 "uniform_shift",
                 f"all {len(shifts)} modes are {_pct(shift)} {direction} their reference frequencies by the same "

@@ -282,6 +282,10 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
         )
     clipped = condition.find_clipping(raw, full_scale=rec.full_scale)
     rec_warnings: list[Notice] = [band_note] if band_note is not None else []
+    if rec.n_channels > 1:
+        what = "channels" if rec.full_scale is not None or rec.channel.isdigit() else "data columns"
+        rec_warnings.append(Notice("multichannel", f"{name} holds {rec.n_channels} {what}; only {rec.channel!r} "
+                                                   "was analysed (choose another with --channel or --column)"))
     if rec.timing_jitter is not None and rec.timing_jitter > 1e-6:
         rec_warnings.append(Notice("timing_jitter", f"time steps jitter by {100 * rec.timing_jitter:.3g} % RMS (accepted)"))
 

@@ -49,15 +49,38 @@ def print_json(document: Any) -> None:
     sys.stdout.write(json.dumps(document, indent=2, allow_nan=False) + "\n")
 
 
+def print_json_line(record: Any) -> None:
+    """Write one JSON Lines record to stdout and flush, so a pipe sees it at once."""
+    sys.stdout.write(json.dumps(record, allow_nan=False, separators=(",", ":")) + "\n")
+    sys.stdout.flush()
+
+
+#: The input name that means standard input.
+STDIN = "-"
+
+
+def uses_stdin(paths: Iterable[str]) -> bool:
+    """Whether ``-`` (standard input) is among the inputs; given twice it is an error."""
+    n = sum(1 for p in paths if p == STDIN)
+    if n > 1:
+        from ..errors import ParameterError
+
+        raise ParameterError("'-' (standard input) is given more than once; standard input holds one recording")
+    return n == 1
+
+
 def expand_inputs(items: Iterable[str]) -> list[str]:
     """Expand folders (their recordings, sorted) and glob patterns; keep other names as given.
 
-    A name that matches nothing is kept, so that the analysis reports it as a missing file.
+    A name that matches nothing is kept, so that the analysis reports it as a missing file;
+    ``-`` (standard input) is kept as it is.
     """
     out: list[str] = []
     for item in items:
         p = Path(item)
-        if p.is_dir():
+        if item == STDIN:
+            out.append(item)
+        elif p.is_dir():
             out.extend(sorted(str(q) for q in p.iterdir() if q.is_file() and q.suffix.lower() in _AUDIO_AND_TEXT))
         elif any(ch in item for ch in "*?[") and not p.exists():
             matches = sorted(glob.glob(item, recursive=True))

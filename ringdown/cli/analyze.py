@@ -11,10 +11,12 @@ from typing import List, Optional
 
 import typer
 
+from ..numfmt import fmt_fixed, fmt_pm, fmt_value
 from ._common import (DEBUG_OPTION, EXIT_ERROR, EXIT_OK, default_jobs, error_line, expand_inputs, guarded,
-                      on_terminal, print_json, progress_bar)
+                      on_terminal, print_json, print_json_line, progress_bar, uses_stdin)
+from ._options import Channel, Column, Jsonl, Notes, SampleRate, Serial, Title, reader_options, report_header
 
-__all__ = ["register", "parse_band", "format_table"]
+__all__ = ["register", "parse_band", "parse_columns", "format_table", "TABLE_COLUMNS", "DEFAULT_COLUMNS"]
 
 
 def parse_band(text: str) -> tuple[float, float]:
@@ -29,47 +31,68 @@ def parse_band(text: str) -> tuple[float, float]:
     return lo, hi
 
 
-def _fmt(v, u=None, digits=5) -> str:
-    """``v`` alone to ``digits`` significant digits, or ``v ± u`` with u to 2 significant digits
-    and v to the same decimal place."""
-    if v is None:
-        return "-"
-    if u is None or not (u > 0) or not math.isfinite(u):
-        return f"{v:.{digits}g}"
-    dec = max(0, 1 - int(math.floor(math.log10(u))))
-    if dec > 12 or abs(v) >= 1e7:
-        return f"{v:.{digits}g} ± {u:.2g}"
-    return f"{v:.{dec}f} ± {u:.{dec}f}"
+#: Columns of the terminal table: key -> (heading, cell of a mode). ``--columns`` picks and orders them.
+TABLE_COLUMNS = {
+    "f_d": ("f_d [Hz]", lambda m: fmt_pm(m.f_d_hz, m.f_d_hz_u, digits=7, missing="-")),
+    "beta": ("beta [1/s]", lambda m: fmt_pm(m.beta_per_s, m.beta_per_s_u, digits=4, missing="-")),
+    "f_n": ("f_n [Hz]", lambda m: fmt_pm(m.f_n_hz, m.f_n_hz_u, digits=7, missing="-")),
+    "zeta": ("zeta", lambda m: fmt_pm(m.zeta, m.zeta_u, digits=3, missing="-")),
+    "q": ("Q", lambda m: fmt_pm(m.q, m.q_u, digits=4, missing="-")),
+    "loss_factor": ("eta", lambda m: fmt_pm(m.loss_factor, m.loss_factor_u, digits=3, missing="-")),
+    "log_decrement": ("delta", lambda m: fmt_pm(m.log_decrement, m.log_decrement_u, digits=3, missing="-")),
+    "f_r": ("f_r [Hz]", lambda m: fmt_pm(m.f_r_hz, m.f_r_hz_u, digits=7, missing="-")),
+    "decay": ("dB/s", lambda m: fmt_pm(m.decay_db_per_s, m.decay_db_per_s_u, digits=4, missing="-")),
+    "t60": ("T60 [s]", lambda m: fmt_pm(m.t60_s, m.t60_s_u, digits=3, missing="-")),
+    "snr": ("SNR dB", lambda m: fmt_fixed(m.snr_db, 1, missing="-")),
+    "method": ("method", lambda m: m.method + (f" x{m.n_hits}" if m.n_hits > 1 else "")),
+    "warnings": ("warnings", lambda m: ",".join(m.warning_codes) or "-"),
+}
+#: What the table shows without ``--columns``.
+DEFAULT_COLUMNS = ("f_d", "beta", "f_n", "zeta", "q", "loss_factor", "log_decrement", "f_r", "t60", "snr",
+                   "method", "warnings")
 
 
-def format_table(analysis) -> str:
-    """A readable text table of one analysis (what ``analyze`` prints without ``--json``)."""
+def parse_columns(text: str | None) -> tuple[str, ...]:
+    """``"f_d,zeta,q"`` -> the column keys, checked; None -> :data:`DEFAULT_COLUMNS`."""
+    from ..errors import ParameterError
+
+    if text is None:
+        return DEFAULT_COLUMNS
+    keys = tuple(k.strip() for k in text.split(",") if k.strip())
+    bad = [k for k in keys if k not in TABLE_COLUMNS]
+    if bad or not keys:
+        raise ParameterError(f"--columns {text!r}: unknown column(s) {', '.join(map(repr, bad)) or '(none given)'}; "
+                             f"choose from {','.join(TABLE_COLUMNS)}")
+    return keys
+
+
+def format_table(analysis, columns: tuple[str, ...] = DEFAULT_COLUMNS) -> str:
+    """A readable text table of one analysis (what ``analyze`` prints without ``--json``).
+
+    A recording that could not be analysed gives an empty string: its error goes to stderr only.
+    Numbers are written by :func:`ringdown.numfmt.fmt_pm`: ``611.999885(83)`` is
+    611.999885 ± 0.000083.
+    """
+    if analysis.error is not None:
+        return ""
     lines = []
     head = f"{analysis.path or '<array>'}"
-    if analysis.error is not None:
-        return f"{head}\n  error: {analysis.error.message}\n"
     used = sum(1 for h in analysis.hits if h.used)
-    head += (f"  ({analysis.sample_rate_hz:g} Hz, {analysis.duration_s:.3g} s, channel {analysis.channel}, "
-             f"{len(analysis.hits)} hit(s), {used} used)")
+    head += (f"  ({fmt_value(analysis.sample_rate_hz, 7)} Hz, {fmt_value(analysis.duration_s, 3)} s, "
+             f"channel {analysis.channel}, {len(analysis.hits)} hit(s), {used} used)")
     lines.append(head)
-    cols = ("#", "f_d [Hz]", "beta [1/s]", "f_n [Hz]", "zeta", "Q", "dB/s", "T60 [s]", "SNR dB", "method", "warnings")
-    rows = []
-    for m in analysis.modes:
-        rows.append((
-            str(m.index), _fmt(m.f_d_hz, m.f_d_hz_u, 7), _fmt(m.beta_per_s, m.beta_per_s_u, 4), _fmt(m.f_n_hz, None, 7),
-            _fmt(m.zeta, m.zeta_u, 3), _fmt(m.q, m.q_u, 4), _fmt(m.decay_db_per_s, None, 4), _fmt(m.t60_s, None, 3),
-            _fmt(m.snr_db, None, 3), m.method + (f" x{m.n_hits}" if m.n_hits > 1 else ""), ",".join(m.warning_codes) or "-",
-        ))
+    cols = ("#", *(TABLE_COLUMNS[k][0] for k in columns))
+    rows = [(str(m.index), *(TABLE_COLUMNS[k][1](m) for k in columns)) for m in analysis.modes]
     widths = [max(len(c), *(len(r[i]) for r in rows)) if rows else len(c) for i, c in enumerate(cols)]
-    lines.append("  " + "  ".join(c.rjust(w) for c, w in zip(cols, widths)))
+    lines.append("  " + "  ".join(c.rjust(w) for c, w in zip(cols, widths)).rstrip())
     for r in rows:
-        lines.append("  " + "  ".join(v.rjust(w) for v, w in zip(r, widths)))
+        lines.append("  " + "  ".join(v.rjust(w) for v, w in zip(r, widths)).rstrip())
     for w in analysis.warnings:
         lines.append(f"  warning [{w.code}]: {w.message}")
     for m in analysis.modes:
         for w in m.warnings:
             lines.append(f"  mode {m.index} [{w.code}]: {w.message}")
-    lines.append("  (± standard uncertainty, k = 1; Q = 1/(2 zeta))")
+    lines.append("  (v(u): u is the standard uncertainty, k = 1, in units of the last digit; Q = 1/(2 zeta))")
     return "\n".join(lines) + "\n"
 
 
@@ -94,12 +117,16 @@ def write_csv(analyses, path: str) -> None:
 def register(app: typer.Typer) -> None:
     @app.command("analyze")
     def analyze_cmd(
-        files: List[str] = typer.Argument(..., help="Recordings (WAV/FLAC/OGG/CSV...), folders or glob patterns."),
+        files: List[str] = typer.Argument(..., help="Recordings (WAV/FLAC/OGG/CSV...), folders or glob patterns; "
+                                                    "'-' reads one recording from standard input."),
         json_out: bool = typer.Option(False, "--json", help="Print one JSON document instead of tables."),
+        jsonl: Jsonl = False,
         csv_out: Optional[Path] = typer.Option(None, "--csv", help="Also write one CSV row per mode to this file."),
-        channel: Optional[str] = typer.Option(None, "--channel", help="Audio channel to analyse (1-based). Default: 1."),
-        column: Optional[str] = typer.Option(None, "--column", help="Text files: data column (1-based index or header name)."),
-        sample_rate: Optional[float] = typer.Option(None, "--sample-rate", help="Text files without a time column: sample rate, Hz."),
+        channel: Channel = None,
+        column: Column = None,
+        sample_rate: SampleRate = None,
+        columns: Optional[str] = typer.Option(None, "--columns", help="Table columns, comma-separated, from "
+                                              + ",".join(TABLE_COLUMNS) + "."),
         method: str = typer.Option("auto", "--method", help="Estimator reported per mode: auto, envelope, decrement, half_power, pencil."),
         band: Optional[List[str]] = typer.Option(None, "--band", help="Analyse this band LOW:HIGH in Hz instead of searching (repeatable)."),
         max_modes: Optional[int] = typer.Option(None, "--max-modes", help="Keep at most this many modes (the strongest)."),
@@ -110,6 +137,9 @@ def register(app: typer.Typer) -> None:
         plot: Optional[Path] = typer.Option(None, "--plot", help="Write figures for each file into this folder."),
         plot_format: str = typer.Option("png", "--plot-format", help="Figure format: png or svg."),
         report: Optional[Path] = typer.Option(None, "--report", help="Write one self-contained HTML report."),
+        title: Title = None,
+        notes: Notes = None,
+        serial: Serial = None,
         store: bool = typer.Option(False, "--store", help="Also store every result in the results history (SQLite)."),
         db: Optional[str] = typer.Option(None, "--db", help="History database (default $RINGDOWN_DB, else ringdown.sqlite here)."),
         part_id: Optional[str] = typer.Option(None, "--part-id", help="Regex taking the part id from the file name (first group)."),
@@ -119,48 +149,72 @@ def register(app: typer.Typer) -> None:
     ) -> None:
         """Measure every mode of each recording: f_d, beta, f_n, zeta, Q, loss factor, dB/s, T60."""
         from ..pipeline import AnalysisOptions, analyze_many
+        from .render import check_plot_format
 
         started = time.perf_counter()
 
-        def run():
+        def validate():
+            if json_out and jsonl:
+                from ..errors import ParameterError
+
+                raise ParameterError("--json and --jsonl are exclusive: --json prints one document at the end, "
+                                     "--jsonl one line per file as it is ready; choose one")
+            if plot is not None:
+                check_plot_format(plot_format)
             bands = [parse_band(b) for b in band] if band else None
-            options = dict(channel=channel, column=column, sample_rate=sample_rate, method=method, bands=bands,
+            options = dict(reader_options(channel, column, sample_rate), method=method, bands=bands,
                            max_modes=max_modes, min_snr_db=min_snr_db, min_hit_snr_db=min_hit_snr_db,
                            keep_double_hits=keep_double_hits)
             AnalysisOptions(method=method, bands=bands, max_modes=max_modes, min_snr_db=min_snr_db,
                             min_hit_snr_db=min_hit_snr_db)
-            paths = expand_inputs(files)
-            bar, task = progress_bar(on_terminal(json_out) and len(paths) > 1, len(paths), "analysing")
-            with bar:
-                done = analyze_many(paths, jobs=jobs or default_jobs(), progress=lambda _a: bar.advance(task), **options)
-            return options, done
+            return options, parse_columns(columns), expand_inputs(files)
 
-        options, analyses = guarded(run, debug=debug)
+        # every option is checked before any file is read
+        options, cols, paths = guarded(validate, debug=debug)
+
+        def arrived(a) -> None:
+            """Each result as it is ready: its error on stderr, its line or table on stdout."""
+            if a.error is not None:
+                error_line(f"{a.path}: {a.error.message}" if a.path and a.path not in a.error.message else a.error.message)
+            if jsonl:
+                print_json_line(a.to_dict())
+            elif not json_out:
+                sys.stdout.write(format_table(a, cols))
+                sys.stdout.flush()
+
+        def run():
+            # '-' is read in this process: worker processes do not share standard input
+            n_jobs = 1 if uses_stdin(paths) else (jobs or default_jobs())
+            bar, task = progress_bar(on_terminal(json_out or jsonl) and len(paths) > 1, len(paths), "analysing")
+            with bar:
+                def progress(a):
+                    bar.advance(task)
+                    arrived(a)
+
+                return analyze_many(paths, jobs=n_jobs, progress=progress, **options)
+
+        analyses = guarded(run, debug=debug)
         if debug:
             for a in analyses:
-                if a.error is not None:
+                if a.error is not None and a.path != "-":
                     from ..pipeline import analyze_file
 
                     analyze_file(a.path, **options)  # raises with the traceback
-        for a in analyses:
-            if a.error is not None:
-                error_line(f"{a.path}: {a.error.message}" if a.path and a.path not in a.error.message else a.error.message)
         if json_out:
             from ..results import results_document
 
             print_json(results_document(analyses))
-        else:
-            for a in analyses:
-                sys.stdout.write(format_table(a))
         if csv_out is not None:
             guarded(lambda: write_csv(analyses, str(csv_out)), debug=debug)
-        _render(analyses, plot, plot_format, report, options, debug)
+        header = report_header(title, notes, serial, station=station, operator=operator)
+        _render(analyses, plot, plot_format, report, options, debug, header)
         if store:
             guarded(lambda: _store(analyses, db, part_id, station, operator), debug=debug)
         errors = sum(1 for a in analyses if a.error is not None)
         if len(analyses) > 1 and not json_out:
             typer.echo(f"{len(analyses)} files: {len(analyses) - errors} analysed, {errors} errors, "
-                       f"{sum(len(a.modes) for a in analyses)} modes in {time.perf_counter() - started:.1f} s")
+                       f"{sum(len(a.modes) for a in analyses)} modes in {time.perf_counter() - started:.1f} s",
+                       err=jsonl)
         raise typer.Exit(EXIT_ERROR if errors else EXIT_OK)
 
 
@@ -176,7 +230,7 @@ def _store(analyses, db, part_id, station, operator) -> None:
     typer.echo(f"stored {len(analyses)} result(s) in {path}", err=True)
 
 
-def _render(analyses, plot, plot_format, report, options, debug) -> None:
+def _render(analyses, plot, plot_format, report, options, debug, header=None) -> None:
     if plot is None and report is None:
         return
     try:
@@ -187,4 +241,4 @@ def _render(analyses, plot, plot_format, report, options, debug) -> None:
     if plot is not None:
         guarded(lambda: render.write_plots(analyses, plot, plot_format), debug=debug)
     if report is not None:
-        guarded(lambda: render.write_report(analyses, report, options), debug=debug)
+        guarded(lambda: render.write_report(analyses, report, options, header), debug=debug)

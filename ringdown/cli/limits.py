@@ -7,6 +7,7 @@ analysed or the command could not run (errors win over failures).
 from __future__ import annotations
 
 import csv
+import sys
 import time
 from dataclasses import replace
 from pathlib import Path
@@ -14,8 +15,10 @@ from typing import List, Optional
 
 import typer
 
+from ..numfmt import fmt_value
 from ._common import (DEBUG_OPTION, EXIT_ERROR, EXIT_FAIL, EXIT_OK, default_jobs, error_line, expand_inputs,
-                      guarded, on_terminal, print_json, progress_bar, resolve_db, DB_ENV)
+                      guarded, on_terminal, print_json, print_json_line, progress_bar, resolve_db, uses_stdin, DB_ENV)
+from ._options import Channel, Column, Jsonl, Notes, SampleRate, Serial, Title, reader_options, report_header
 
 __all__ = ["register", "format_check"]
 
@@ -32,6 +35,20 @@ def _analysis_options(method, min_snr_db, max_modes, bands) -> dict:
 
         opts["bands"] = [parse_band(b) for b in bands]
     return opts
+
+
+def _stream(row: dict, json_out: bool, jsonl: bool) -> None:
+    """One part's result as soon as it is known: a JSON line, or its text lines (not with --json).
+    Its error, if any, goes to stderr only."""
+    if row["verdict"] == "error":
+        err = row.get("error") or {}
+        msg = err.get("message") or "; ".join(r["message"] for r in row.get("reasons", []))
+        error_line(msg if row["path"] and row["path"] in msg else f"{row['path']}: {msg}")
+    if jsonl:
+        print_json_line(row)
+    elif not json_out and row["verdict"] != "error":
+        typer.echo(format_check(row))
+        sys.stdout.flush()
 
 
 def format_check(row: dict) -> str:
@@ -70,21 +87,24 @@ def _write_csv(rows: list[dict], limits, path: str) -> None:
         raise ParameterError(f"cannot write CSV '{path}': {exc.strerror or exc}; choose a writable path") from exc
 
 
-def _write_report(results, rows: list[dict], limits, path: str) -> None:
-    from ..report import Section, html_table, write_report
+def _write_report(rows: list[dict], limits, path: str, options: dict, header: dict) -> None:
+    """The check report, with each analysed part's figures: the parts are analysed again here,
+    in this process, because a batch keeps no samples (the verdicts come from the batch)."""
+    from ..pipeline import analyze_file
+    from ..report import _write, render_check_report
+    from ..results import Analysis
 
-    table = html_table(
-        ["part", "verdict", "reasons", "notes"],
-        [[r["part_id"], r["verdict"].upper() + (" (stored)" if r.get("skipped") else ""),
-          "; ".join(x["message"] for x in r.get("reasons", [])) or "-",
-          "; ".join(x["message"] for x in r.get("notes", [])) or "-"] for r in rows],
-    )
-    lim = html_table(["limits file", "SHA-256", "coverage", "confidence", "good parts"],
-                     [[limits.source or "-", limits.sha256 or "-", limits.coverage if limits.coverage else "-",
-                       limits.confidence if limits.confidence else "-", limits.n_parts or "-"]])
-    analyses = [r.analysis for r in results if r is not None and r.analysis is not None]
-    write_report(analyses, path, title="Part check report", figures=False,
-                 extra_sections=[Section("Pass/fail", table, anchor="checks"), Section("Limits used", lim)])
+    opts = {**limits.analysis_options(), **options}
+    analyses = []
+    for r in rows:
+        if r.get("skipped") or not r.get("path") or r["path"] == "-":
+            analyses.append(None)
+            continue
+        try:
+            analyses.append(analyze_file(r["path"], **opts))
+        except Exception as exc:  # noqa: BLE001  the verdict stands; the report says why figures are missing
+            analyses.append(Analysis.failed(r["path"], exc, settings=opts))
+    _write(render_check_report(rows, analyses, limits, **header), path)
 
 
 def register(app: typer.Typer) -> None:
@@ -102,6 +122,9 @@ def register(app: typer.Typer) -> None:
         min_snr_db: Optional[float] = typer.Option(None, help="Smallest mode SNR, dB (as for analyze)."),
         max_modes: Optional[int] = typer.Option(None, help="Most modes per recording (as for analyze)."),
         band: Optional[List[str]] = typer.Option(None, "--band", help="Band LOW:HIGH in Hz (repeatable)."),
+        channel: Channel = None,
+        column: Column = None,
+        sample_rate: SampleRate = None,
         jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
         force: bool = typer.Option(False, "--force", help="Overwrite an existing limits file."),
         json_out: bool = typer.Option(False, "--json", help="Print the limits as JSON."),
@@ -117,8 +140,9 @@ def register(app: typer.Typer) -> None:
                 from ..errors import ParameterError
 
                 raise ParameterError(f"'{output}' exists; use --force to overwrite it or -o to choose another file")
-            opts = _analysis_options(method, min_snr_db, max_modes, band)
-            analyses = analyze_many(paths, jobs=max(1, jobs), **opts)
+            opts = {**_analysis_options(method, min_snr_db, max_modes, band),
+                    **reader_options(channel, column, sample_rate)}
+            analyses = analyze_many(paths, jobs=1 if uses_stdin(paths) else max(1, jobs), **opts)
             bad = [a for a in analyses if a.error is not None]
             if bad:
                 from ..errors import ParameterError
@@ -138,14 +162,17 @@ def register(app: typer.Typer) -> None:
             return
         typer.echo(f"learned limits from {lim.n_parts} good parts (coverage {lim.coverage:g}, confidence "
                    f"{lim.confidence:g}, k = {lim.k_factor:.4f}) -> {output}")
+        if lim.reader:
+            typer.echo("  read with " + ", ".join(f"{k} {v}" for k, v in lim.reader.items()))
         for m in lim.modes:
-            line = f"  mode {m.index}: f_d {m.f_hz[0]:.1f}-{m.f_hz[1]:.1f} Hz, zeta {m.zeta[0]:.3g}-{m.zeta[1]:.3g}"
+            line = (f"  mode {m.index}: f_d {fmt_value(m.f_hz[0], 6)} to {fmt_value(m.f_hz[1], 6)} Hz, "
+                    f"zeta {fmt_value(m.zeta[0], 3)} to {fmt_value(m.zeta[1], 3)}")
             if m.ratio is not None:
-                line += f", ratio to mode 1 {m.ratio[0]:.5f}-{m.ratio[1]:.5f}"
+                line += f", ratio to mode 1 {fmt_value(m.ratio[0], 6)} to {fmt_value(m.ratio[1], 6)}"
             typer.echo(line)
         if lim.mahalanobis is not None:
             mh = lim.mahalanobis
-            typer.echo(f"  Mahalanobis distance of {len(mh.features)} features at most {mh.threshold:.2f}")
+            typer.echo(f"  Mahalanobis distance of {len(mh.features)} features at most {fmt_value(mh.threshold, 3)}")
 
     app.add_typer(limits_app, name="limits")
 
@@ -154,8 +181,15 @@ def register(app: typer.Typer) -> None:
         files: List[str] = typer.Argument(..., help="Recordings of parts to check (files, folders, glob patterns)."),
         limits_path: str = typer.Option(..., "--limits", "-l", help="Limits file (TOML)."),
         json_out: bool = typer.Option(False, "--json", help="Print every result as JSON on stdout."),
+        jsonl: Jsonl = False,
         csv_out: Optional[str] = typer.Option(None, "--csv", help="Write one row per part to this CSV file."),
         report: Optional[str] = typer.Option(None, "--report", help="Write a self-contained HTML report."),
+        title: Title = None,
+        notes: Notes = None,
+        serial: Serial = None,
+        channel: Channel = None,
+        column: Column = None,
+        sample_rate: SampleRate = None,
         db: Optional[str] = typer.Option(None, "--db", help=f"Results database (default ${DB_ENV} or ringdown.sqlite)."),
         no_store: bool = typer.Option(False, "--no-store", help="Do not write results to the database."),
         station: Optional[str] = typer.Option(None, "--station", help="Test station name, stored with each result."),
@@ -172,8 +206,14 @@ def register(app: typer.Typer) -> None:
         from ..store import ResultStore, file_sha256, part_id_from_path
 
         t0 = time.monotonic()
+        if json_out and jsonl:
+            error_line("--json and --jsonl are exclusive: --json prints one document at the end, --jsonl one "
+                       "line per part as it is checked; choose one")
+            raise typer.Exit(EXIT_ERROR)
+        overrides = guarded(lambda: reader_options(channel, column, sample_rate), debug=debug)
         lim = guarded(lambda: read_limits(limits_path), debug=debug)
         paths = expand_inputs(files)
+        n_jobs = guarded(lambda: 1 if uses_stdin(paths) else max(1, jobs), debug=debug)
         if not paths:
             error_line(f"no recordings found in {', '.join(files)}; give files, folders or glob patterns")
             raise typer.Exit(EXIT_ERROR)
@@ -194,11 +234,12 @@ def register(app: typer.Typer) -> None:
                                "skipped": True, "stored_id": old.id, "reasons": list(old.reasons),
                                "notes": list(old.notes), "features": [], "mahalanobis": old.mahalanobis,
                                "uniform_shift": old.uniform_shift}
+                    _stream(rows[i], json_out, jsonl)
                 else:
                     todo.append(i)
             prog, task = progress_bar(on_terminal(json_out) and len(todo) > 1, len(todo), "checking")
             with prog:
-                it = iter_check_files([paths[i] for i in todo], lim, jobs=max(1, jobs))
+                it = iter_check_files([paths[i] for i in todo], lim, jobs=n_jobs, options=overrides)
                 for pos, res in it:
                     i = todo[pos]
                     if res.sha256 is None and shas[i] is not None:
@@ -211,6 +252,7 @@ def register(app: typer.Typer) -> None:
                     results[i] = res
                     rows[i] = {"part_id": ids[i], "skipped": False, "stored_id": stored, **res.to_dict()}
                     prog.advance(task)
+                    _stream(rows[i], json_out, jsonl)
         finally:
             if store is not None:
                 store.close()
@@ -224,7 +266,9 @@ def register(app: typer.Typer) -> None:
         if csv_out:
             guarded(lambda: _write_csv(rows_f, lim, csv_out), debug=debug)
         if report:
-            guarded(lambda: _write_report(results, rows_f, lim, report), debug=debug)
+            header = report_header(title, notes, serial, station=station, operator=operator,
+                                   limits=lim.source, **{"limits SHA-256": lim.sha256})
+            guarded(lambda: _write_report(rows_f, lim, report, overrides, header), debug=debug)
         if json_out:
             from .._version import __version__
 
@@ -232,12 +276,9 @@ def register(app: typer.Typer) -> None:
                         "limits": {"path": lim.source, "sha256": lim.sha256},
                         "station": station, "operator": operator,
                         "results": rows_f, "summary": summary})
-        else:
-            for r in rows_f:
-                typer.echo(format_check(r))
         line = (f"{summary['parts']} parts: {summary['passed']} passed, {summary['failed']} failed, "
                 f"{summary['errors']} errors" + (f" ({skipped} already stored, skipped)" if skipped else "")
                 + f" in {elapsed:.1f} s")
-        typer.echo(line, err=json_out)
+        typer.echo(line, err=json_out or jsonl)
         code = EXIT_ERROR if counts["error"] else EXIT_FAIL if counts["fail"] else EXIT_OK
         raise typer.Exit(code)
