@@ -89,7 +89,7 @@ def fmt_value(v: Any, digits: int = 6, *, missing: str = MISSING) -> str:
     r = round(x, digits - 1 - e)
     if r != 0 and _exp10(abs(r)) != e:
         e = _exp10(abs(r))
-    if _PLAIN_LO <= abs(r) < _PLAIN_HI and e < digits:
+    if _PLAIN_LO <= abs(r) < _PLAIN_HI:  # 1040 rather than 1.04e3 for Q to 3 digits
         return _trim(f"{r:.{max(0, digits - 1 - e)}f}")
     m = x / 10.0**e
     text = f"{m:.{digits - 1}f}"

@@ -746,7 +746,7 @@ def _trace(est: Estimate, band: Band, window: Window, env_est: Estimate | None) 
     except FitError:
         pt, pv = None, None
     return ModeTrace(base.t_s, base.envelope, base.fit_start_s, base.fit_end_s, base.noise_floor, base.fit_amplitude,
-                     base.fit_beta_per_s, base.fit_t0_s, pt, pv)
+                     base.fit_beta_per_s, base.fit_t0_s, pt, pv, base.model_envelope, base.n_model_modes)
 
 
 # ----------------------------------------------------------------------------------------------

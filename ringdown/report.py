@@ -189,10 +189,12 @@ def _figure(draw, caption: str, fmt: str) -> str:
             f"<figcaption>{_e(caption)}</figcaption></figure>")
 
 
-def _figures(a, fmt: str) -> str:
+def _figures(a, fmt: str, level: bool | str = True) -> str:
     from . import plots
 
     parts = [_figure(lambda: plots.plot_overview(a), f"{_file_name(a)}: recording and spectrum", fmt)]
+    if level == "overview":
+        return "".join(parts)
     for m in a.modes:
         if m.trace is not None:
             parts.append(_figure(lambda m=m: plots.plot_mode(m), f"mode {m.index}: decay and fit", fmt))
@@ -292,7 +294,7 @@ def _warnings(a) -> str:
     return f'<ul class="warnings">{lis}</ul>'
 
 
-def _file_section(a, n: int, anchor: str, fmt: str, figures: bool, extra: str = "") -> str:
+def _file_section(a, n: int, anchor: str, fmt: str, figures: bool | str, extra: str = "") -> str:
     name = _file_name(a)
     out = [f'<section class="file" id="{_e(anchor)}"><h2>{n}. {_e(name)}</h2>', extra]
     sr = _DASH if a.sample_rate_hz is None else f"{fmt_value(a.sample_rate_hz, 7)} Hz"
@@ -324,7 +326,7 @@ def _file_section(a, n: int, anchor: str, fmt: str, figures: bool, extra: str = 
         out.append(_warnings(a))
         if figures:
             out.append("<h3>Figures</h3>")
-            out.append(_figures(a, fmt))
+            out.append(_figures(a, fmt, figures))
     out.append("</section>")
     return "".join(out)
 
@@ -443,6 +445,8 @@ figure { margin: 10px 0 18px; break-inside: avoid; }
 figure img { max-width: 100%; height: auto; border: 1px solid #e1e1dc; }
 figcaption { color: #4a4a47; font-size: 12.5px; }
 section.caution, p.caution { border-left: 4px solid #E69F00; padding-left: 12px; }
+table.checks { width: 100%; }
+table.checks td:nth-child(-n+3) { white-space: nowrap; overflow-wrap: normal; width: 1%; }
 table.signoff { width: 100%; margin-top: 8px; }
 table.signoff th, table.signoff td { border-bottom: 1px solid #1d1d1b; padding: 16px 8px 4px 0; text-align: left;
   vertical-align: bottom; }
@@ -520,8 +524,9 @@ def render_report(analyses, *, settings: dict | None = None, title: str | None =
     extra_sections : iterable of Section or (title, html_fragment)
         Added after the summary, before the recordings' own sections (fragments are inserted as
         given): a comparison or a pass/fail table is what the reader came for.
-    figures : bool
-        Embed figures (True) or leave them out (faster, smaller).
+    figures : bool, "overview", or a sequence of those (one per recording)
+        Embed every figure (True), only the overview of the recording and its spectrum
+        ("overview"), or none (False: faster, smaller).
     figure_format : {"png", "svg"}
         How figures are embedded (both as ``data:`` URIs).
     generated : str or None
@@ -568,6 +573,7 @@ def render_report(analyses, *, settings: dict | None = None, title: str | None =
     used: set[str] = {"summary", "definitions", "caution", "run-settings", "signoff"}
     anchors = [_slug(f"file-{n}-{_file_name(a)}", used) for n, a in enumerate(analyses, 1)]
     extras = list(file_extras) if file_extras is not None else [""] * len(analyses)
+    levels = list(figures) if isinstance(figures, (list, tuple)) else [figures] * len(analyses)
     if signoff is None:
         operator = next((str(v) for k, v in pairs if k == "operator"), None)
         signoff = [("tested by", operator), ("reviewed by", None)]
@@ -601,8 +607,8 @@ def render_report(analyses, *, settings: dict | None = None, title: str | None =
         anchor = s.anchor or _slug(s.title, used)
         parts.append(f'<section class="extra" id="{_e(anchor)}"><h2>{_e(s.title)}</h2>{s.html}</section>')
     parts.append(_signoff(signoff))
-    for n, (a, anchor, extra) in enumerate(zip(analyses, anchors, extras), 1):
-        parts.append(_file_section(a, n, anchor, figure_format, figures, extra))
+    for n, (a, anchor, extra, level) in enumerate(zip(analyses, anchors, extras, levels), 1):
+        parts.append(_file_section(a, n, anchor, figure_format, level, extra))
     parts.append(_DEFINITIONS)
     parts.append(_CAUTION)
     parts.append(f'<footer><p class="meta">Made by ringdown {_e(__version__)}.</p></footer></body></html>\n')
@@ -760,7 +766,8 @@ def _feature_table(features) -> str:
 
 
 def render_check_report(rows: Sequence[dict], analyses: Sequence, limits, **kw) -> str:
-    """The check report: verdicts first, the limits used, then each part with its figures.
+    """The check report: verdicts first, the limits used, then each part with its figures
+    (all of them for a part that failed, the overview for one that passed).
 
     Parameters
     ----------
@@ -808,6 +815,8 @@ def render_check_report(rows: Sequence[dict], analyses: Sequence, limits, **kw) 
         extras.append(f'<div class="{banner.css_class}">{banner.text} · part '
                       f"{_e(r['part_id'])}</div>" + _feature_table(r.get("features", [])))
     kw["title"] = kw.get("title") or "Part check report"
+    # every figure of a part that failed; the overview of one that passed keeps the report short
+    kw.setdefault("figures", [True if k in ("fail", "error") else "overview" for _r, _a, k in shown])
     return render_report([a for _r, a, _k in shown],
                          extra_sections=[Section("Pass/fail", head + table, anchor="checks"),
                                          Section("Limits used", lim, anchor="limits")],

@@ -41,6 +41,7 @@ def test_fmt_pm_hand_worked(v, u, expected):
     (999.96, 4, "1000"),           # rounding crosses a decade
     (9.99996e-5, 3, "1e-4"),        # trailing zeros dropped, as %g does
     (8000.0, 7, "8000"),
+    (1040.4, 3, "1040"),           # plain below 1e6 even past the digits asked for (no 1.04e3 for a Q)
     (0.0, 6, "0"),
     (-0.01234, 3, "-0.0123"),
 ])

@@ -344,8 +344,23 @@ def test_figure_bytes_formats():
     fig = plots.plot_mode(make_analysis().modes[0])
     svg = plots.figure_bytes(fig, fmt="svg")
     assert svg.lstrip().startswith(b"<?xml") and b"<svg" in svg
-    with pytest.raises(ParameterError, match="'png' or 'svg'"):
+    pdf = plots.figure_bytes(fig, fmt="pdf")
+    assert pdf.startswith(b"%PDF")
+    with pytest.raises(ParameterError, match="one of png, svg, pdf; got 'jpg'"):
         plots.figure_bytes(fig, fmt="jpg")
+
+
+def test_spread_labels_keeps_close_labels_apart():
+    # three modes within 1 % of the axis and one far away: labels end >= the gap apart, in order,
+    # inside [0, 1], and a label with room stays where its mode is
+    x = np.array([0.500, 0.505, 0.502, 0.9])
+    p = plots.spread_labels(x, 0.035)
+    order = np.argsort(x)
+    assert np.all(np.diff(p[order]) >= 0.035 - 1e-12)
+    assert p[3] == pytest.approx(0.9)
+    assert np.all((p >= 0) & (p <= 1))
+    edge = plots.spread_labels(np.array([0.99, 0.995, 1.0]), 0.035)
+    assert edge.max() <= 1.0 - 0.035 / 2 + 1e-12 and np.all(np.diff(edge) >= 0.035 - 1e-12)
 
 
 def test_import_does_not_load_matplotlib():

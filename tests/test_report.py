@@ -287,8 +287,8 @@ def test_cli_write_plots(tmp_path):
         assert open(p, "rb").read(200).lstrip().startswith(b"<?xml")
     pngs = render.write_plots([make_analysis()], tmp_path / "png", "png")
     assert len(pngs) == 2 and all(open(p, "rb").read(8) == b"\x89PNG\r\n\x1a\n" for p in pngs)
-    with pytest.raises(ParameterError, match="--plot-format must be one of png, svg; got 'pdf'"):
-        render.write_plots([a], tmp_path, "pdf")
+    with pytest.raises(ParameterError, match="--plot-format must be one of png, svg, pdf; got 'jpg'"):
+        render.write_plots([a], tmp_path, "jpg")
     blocker = tmp_path / "file"
     blocker.write_text("x")
     with pytest.raises(ParameterError, match="cannot create plot folder"):

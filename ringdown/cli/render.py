@@ -14,14 +14,15 @@ from ..errors import ParameterError, RingdownError
 
 __all__ = ["PLOT_FORMATS", "check_plot_format", "write_plots", "write_report"]
 
-#: Formats ``--plot-format`` accepts.
-PLOT_FORMATS = ("png", "svg")
+#: Formats ``--plot-format`` and ``history --plot`` accept (:data:`ringdown.plots.FIGURE_FORMATS`,
+#: repeated here so that checking an option does not import the plotting module).
+PLOT_FORMATS = ("png", "svg", "pdf")
 
 
-def check_plot_format(fmt: str) -> str:
+def check_plot_format(fmt: str, option: str = "--plot-format") -> str:
     """``fmt`` when figures can be written in it, else ParameterError (checked before any analysis)."""
     if fmt not in PLOT_FORMATS:
-        raise ParameterError(f"--plot-format must be one of {', '.join(PLOT_FORMATS)}; got {fmt!r}")
+        raise ParameterError(f"{option} must be one of {', '.join(PLOT_FORMATS)}; got {fmt!r}")
     return fmt
 
 
@@ -70,7 +71,7 @@ def write_plots(analyses, out_dir, fmt: str = "png") -> list[str]:
     analyses : sequence of ringdown.Analysis
     out_dir : str or path-like
         Folder, created when missing.
-    fmt : {"png", "svg"}
+    fmt : {"png", "svg", "pdf"}
 
     Returns
     -------
