@@ -326,3 +326,61 @@ def test_report_of_a_real_analysis():
     assert min(abs(f - 523) for f in f_cells) < 0.5 and min(abs(f - 1377) for f in f_cells) < 0.5
     assert sum(1 for tag, _ in doc.tags if tag == "img") >= 1
     assert math.isfinite(a.modes[0].q)
+
+
+# --------------------------------------------------------------------------------------------
+# print-ready parts: verdicts in words, header fields, sign-off (the PDF itself:
+# tests/test_report_print.py)
+# --------------------------------------------------------------------------------------------
+
+def _cells_with_class(text: str, css: str) -> list[str]:
+    return [re.sub(r"<[^>]+>", "", m) for m in re.findall(rf'<td class="[^"]*\b{css}\b[^"]*">(.*?)</td>', text)]
+
+
+def test_check_report_verdicts_header_and_signoff():
+    from ringdown.limits import parse_limits
+    from ringdown.report import render_check_report
+
+    lim = parse_limits("[[modes]]\nf_hz = [1400.0, 1500.0]\n", source="lim.toml")
+    rows = [
+        {"part_id": "A1", "path": "a1.wav", "verdict": "pass", "reasons": [], "notes": [], "features": []},
+        {"part_id": "A2", "path": "a2.wav", "verdict": "fail", "reasons": [{"code": "f_below", "message": "low"}],
+         "notes": [], "features": [{"mode": 1, "feature": "f_hz", "value": 1390.0, "window": [1400.0, 1500.0],
+                                    "status": "below"}]},
+        {"part_id": "A3", "path": "a3.wav", "verdict": "pass", "reasons": [],
+         "notes": [{"code": "advisory_f_below", "message": "warm (advisory)"}], "features": []},
+    ]
+    analyses = [make_analysis(path=r["path"], keep_samples=False) for r in rows]
+    text = render_check_report(rows, analyses, lim, figures=False, fields=[("station", "EOL-2"),
+                               ("operator", "A. Tester"), ("limits SHA-256", lim.sha256)])
+    # every verdict coloured by class AND worded with a symbol (readable without colour)
+    assert "✓ PASS" in _cells_with_class(text, "verdict-pass")
+    assert "✗ FAIL" in _cells_with_class(text, "verdict-fail")
+    assert "✓ PASS (advisory)" in _cells_with_class(text, "verdict-pass-advisory")
+    assert "✗ FAIL: below" in _cells_with_class(text, "verdict-fail")  # the feature row
+    # the summary says "analysed", never a green "ok", beside a FAIL
+    doc = _parse(text)
+    summary = next(t for t in doc.tables if t[0][:4] == ["#", "file", "verdict", "analysis"])
+    assert [r[2] for r in summary[1:]] == ["✓ PASS", "✗ FAIL", "✓ PASS (advisory)"]
+    assert all(r[3] == "analysed" for r in summary[1:])
+    assert not any(c.strip().lower() == "ok" for r in summary for c in r)
+    kv = {r[0]: r[1] for t in doc.tables for r in t if len(r) == 2}
+    assert kv["station"] == "EOL-2" and kv["operator"] == "A. Tester" and kv["limits SHA-256"] == lim.sha256
+    assert kv["limits file"] == "lim.toml"
+    # sign-off: name (operator filled in), date and signature lines
+    sign = next(t for t in doc.tables if t[0][1:] == ["name", "date", "signature"])
+    assert sign[1] == ["tested by", "A. Tester", "", ""] and sign[2] == ["reviewed by", "", "", ""]
+    # the title and station printed at the top of every page (a CSS page margin box)
+    assert re.search(r'@top-left \{ content: "Part check report · station EOL-2"', text)
+    assert 'counter(page) " of " counter(pages)' in text
+
+
+def test_header_fields_are_escaped_in_css_and_html():
+    a = make_analysis(keep_samples=False)
+    text = render_report([a], figures=False, title='</style><script>x"', notes="line 1\nline <2>",
+                         fields=[("serial", "S<1>")])
+    assert "<script>" not in text and "</style><script>" not in text
+    assert "line 1\nline &lt;2&gt;" in text
+    doc = _parse(text)
+    kv = {r[0]: r[1] for t in doc.tables for r in t if len(r) == 2}
+    assert kv["serial"] == "S<1>"
