@@ -67,9 +67,10 @@ def _trim(text: str) -> str:
     return text.rstrip("0").rstrip(".") if "." in text else text
 
 
-def fmt_value(v: Any, digits: int = 6, *, missing: str = MISSING) -> str:
+def fmt_value(v: Any, digits: int = 6, *, missing: str = MISSING, trim: bool = True) -> str:
     """``v`` to at most ``digits`` significant digits, plain in [1e-3, 1e6), else with ``e``
-    notation; trailing zeros are dropped (a value without an uncertainty claims no digit places).
+    notation; trailing zeros are dropped (a value without an uncertainty claims no digit places)
+    unless ``trim=False`` (the ends of an interval keep their digits: ``[0.887, 1.20]``).
 
     >>> fmt_value(15915.494, 5)
     '15915'
@@ -90,19 +91,21 @@ def fmt_value(v: Any, digits: int = 6, *, missing: str = MISSING) -> str:
     if r != 0 and _exp10(abs(r)) != e:
         e = _exp10(abs(r))
     if _PLAIN_LO <= abs(r) < _PLAIN_HI:  # 1040 rather than 1.04e3 for Q to 3 digits
-        return _trim(f"{r:.{max(0, digits - 1 - e)}f}")
+        text = f"{r:.{max(0, digits - 1 - e)}f}"
+        return _trim(text) if trim else text
     m = x / 10.0**e
     text = f"{m:.{digits - 1}f}"
     if text.lstrip("-").startswith("10"):  # 9.9996 -> 10.000: one decade up
         e += 1
         text = f"{x / 10.0**e:.{digits - 1}f}"
-    return _trim(text) + _suffix(e)
+    return (_trim(text) if trim else text) + _suffix(e)
 
 
-def fmt_fixed(v: Any, decimals: int, *, missing: str = MISSING) -> str:
-    """``v`` with a fixed number of decimals (SNR in dB, times in s), or ``missing``."""
+def fmt_fixed(v: Any, decimals: int, *, missing: str = MISSING, sign: bool = False) -> str:
+    """``v`` with a fixed number of decimals (SNR in dB, times in s, shifts in %), or ``missing``;
+    ``sign=True`` writes ``+`` before a positive value."""
     x = _number(v)
-    return missing if x is None else f"{x:.{decimals}f}"
+    return missing if x is None else f"{x:{'+' if sign else ''}.{decimals}f}"
 
 
 def fmt_pm(v: Any, u: Any, *, digits: int = 6, missing: str = MISSING) -> str:

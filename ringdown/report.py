@@ -686,12 +686,13 @@ def comparison_html(comparison) -> str:
     for m in comparison.modes:
         b, a, d, f = m.before, m.after, m.damping, m.frequency
         f0 = b.values["f_d_hz"]
-        shift = fmt_value(100 * f.relative, 3)
+        shift = fmt_fixed(100 * f.relative, 2, sign=True)
         if f.low_hz is not None:
-            shift += f" [{fmt_value(100 * f.low_hz / f0, 3)}, {fmt_value(100 * f.high_hz / f0, 3)}]"
-        ratio = "×" + fmt_value(d.ratio, 3)
+            shift += (f" [{fmt_fixed(100 * f.low_hz / f0, 2, sign=True)}, "
+                      f"{fmt_fixed(100 * f.high_hz / f0, 2, sign=True)}]")
+        ratio = "×" + fmt_value(d.ratio, 3, trim=False)
         if d.ratio_low is not None:
-            ratio += f" [{fmt_value(d.ratio_low, 3)}, {fmt_value(d.ratio_high, 3)}]"
+            ratio += f" [{fmt_value(d.ratio_low, 3, trim=False)}, {fmt_value(d.ratio_high, 3, trim=False)}]"
         main.append([str(m.index), _pm(b.f_d_hz, b.f_d_hz_u), _pm(a.f_d_hz, a.f_d_hz_u), shift,
                      _pm(b.zeta, b.zeta_u), _pm(a.zeta, a.zeta_u), ratio, str(d.test), fmt_value(d.p_value, 2),
                      verdict_cell(d.verdict)])

@@ -57,6 +57,12 @@ def test_missing(bad):
     assert fmt_pm(bad, 0.1, missing="-") == "-"
 
 
+def test_interval_ends_keep_their_digits_and_signs():
+    assert fmt_value(1.2, 3, trim=False) == "1.20" and fmt_value(1.2, 3) == "1.2"
+    assert fmt_value(2.5e-5, 3, trim=False) == "2.50e-5"
+    assert fmt_fixed(0.389, 2, sign=True) == "+0.39" and fmt_fixed(-3.5, 2, sign=True) == "-3.50"
+
+
 def test_no_usable_uncertainty_gives_plain_value():
     assert fmt_pm(612.00263, None, digits=7) == "612.0026"
     assert fmt_pm(612.00263, 0.0, digits=7) == "612.0026"
