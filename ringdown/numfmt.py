@@ -23,7 +23,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
-__all__ = ["MISSING", "fmt_pm", "fmt_value", "fmt_fixed"]
+__all__ = ["MISSING", "fmt_fixed", "fmt_interval", "fmt_pm", "fmt_value"]
 
 #: What a missing value (None, NaN, inf) is written as.
 MISSING = "–"
@@ -106,6 +106,25 @@ def fmt_fixed(v: Any, decimals: int, *, missing: str = MISSING, sign: bool = Fal
     ``sign=True`` writes ``+`` before a positive value."""
     x = _number(v)
     return missing if x is None else f"{x:{'+' if sign else ''}.{decimals}f}"
+
+
+def fmt_interval(v: Any, low: Any = None, high: Any = None, *, digits: int = 3, decimals: int | None = None,
+                 sign: bool = False, missing: str = MISSING) -> str:
+    """``v [low, high]`` (the interval left out when ``low`` is None): ``digits`` significant
+    digits each, or ``decimals`` fixed decimals (with ``sign``, ``+`` before positive values).
+
+    >>> fmt_interval(-3.42, -3.5, -3.34, decimals=2, sign=True)
+    '-3.42 [-3.50, -3.34]'
+    >>> fmt_interval(1.03, 0.887, 1.2)
+    '1.03 [0.887, 1.20]'
+    """
+    def one(x):
+        if decimals is not None:
+            return fmt_fixed(x, decimals, missing=missing, sign=sign)
+        return fmt_value(x, digits, missing=missing, trim=False)
+
+    text = one(v)
+    return text if low is None else f"{text} [{one(low)}, {one(high)}]"
 
 
 def fmt_pm(v: Any, u: Any, *, digits: int = 6, missing: str = MISSING) -> str:

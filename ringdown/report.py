@@ -33,7 +33,7 @@ from typing import Any, Iterable, Sequence
 
 from ._version import __version__
 from .errors import ParameterError, RingdownError
-from .numfmt import fmt_fixed, fmt_pm, fmt_value
+from .numfmt import fmt_fixed, fmt_interval, fmt_pm, fmt_value
 
 __all__ = ["Cell", "Section", "html_table", "render_check_report", "render_comparison_report", "render_report",
            "verdict_cell", "write_report"]
@@ -685,14 +685,8 @@ def comparison_html(comparison) -> str:
     main, more = [], []
     for m in comparison.modes:
         b, a, d, f = m.before, m.after, m.damping, m.frequency
-        f0 = b.values["f_d_hz"]
-        shift = fmt_fixed(100 * f.relative, 2, sign=True)
-        if f.low_hz is not None:
-            shift += (f" [{fmt_fixed(100 * f.low_hz / f0, 2, sign=True)}, "
-                      f"{fmt_fixed(100 * f.high_hz / f0, 2, sign=True)}]")
-        ratio = "×" + fmt_value(d.ratio, 3, trim=False)
-        if d.ratio_low is not None:
-            ratio += f" [{fmt_value(d.ratio_low, 3, trim=False)}, {fmt_value(d.ratio_high, 3, trim=False)}]"
+        shift = fmt_interval(*f.percent, decimals=2, sign=True)
+        ratio = "×" + fmt_interval(d.ratio, d.ratio_low, d.ratio_high, digits=3)
         main.append([str(m.index), _pm(b.f_d_hz, b.f_d_hz_u), _pm(a.f_d_hz, a.f_d_hz_u), shift,
                      _pm(b.zeta, b.zeta_u), _pm(a.zeta, a.zeta_u), ratio, str(d.test), fmt_value(d.p_value, 2),
                      verdict_cell(d.verdict)])

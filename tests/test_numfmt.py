@@ -11,7 +11,7 @@ import math
 import pytest
 from hypothesis import given, strategies as st
 
-from ringdown.numfmt import MISSING, fmt_fixed, fmt_pm, fmt_value
+from ringdown.numfmt import MISSING, fmt_fixed, fmt_interval, fmt_pm, fmt_value
 
 
 @pytest.mark.parametrize("v, u, expected", [
@@ -61,6 +61,8 @@ def test_interval_ends_keep_their_digits_and_signs():
     assert fmt_value(1.2, 3, trim=False) == "1.20" and fmt_value(1.2, 3) == "1.2"
     assert fmt_value(2.5e-5, 3, trim=False) == "2.50e-5"
     assert fmt_fixed(0.389, 2, sign=True) == "+0.39" and fmt_fixed(-3.5, 2, sign=True) == "-3.50"
+    assert fmt_interval(-3.42, -3.5, -3.34, decimals=2, sign=True) == "-3.42 [-3.50, -3.34]"
+    assert fmt_interval(1.03, 0.887, 1.2) == "1.03 [0.887, 1.20]" and fmt_interval(2.77) == "2.77"
 
 
 def test_no_usable_uncertainty_gives_plain_value():

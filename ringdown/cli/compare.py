@@ -20,7 +20,7 @@ from typing import List, Optional
 import typer
 
 from ..errors import RingdownError
-from ..numfmt import fmt_fixed, fmt_pm, fmt_value
+from ..numfmt import fmt_interval, fmt_pm, fmt_value
 from ._common import DEBUG_OPTION, EXIT_ERROR, EXIT_OK, error_line, expand_inputs, guarded, print_json
 from ._options import Channel, Column, Notes, SampleRate, Serial, Title, reader_options, report_header
 
@@ -50,14 +50,8 @@ def format_table(comparison) -> str:
     rows = []
     for m in comparison.modes:
         b, a, d, f = m.before, m.after, m.damping, m.frequency
-        f0 = b.values["f_d_hz"]
-        shift = fmt_fixed(100 * f.relative, 2, sign=True)
-        if f.low_hz is not None:
-            shift += (f" [{fmt_fixed(100 * f.low_hz / f0, 2, sign=True)}, "
-                      f"{fmt_fixed(100 * f.high_hz / f0, 2, sign=True)}]")
-        ratio = "x" + fmt_value(d.ratio, 3, trim=False)
-        if d.ratio_low is not None:
-            ratio += f" [{fmt_value(d.ratio_low, 3, trim=False)}, {fmt_value(d.ratio_high, 3, trim=False)}]"
+        shift = fmt_interval(*f.percent, decimals=2, sign=True)
+        ratio = "x" + fmt_interval(d.ratio, d.ratio_low, d.ratio_high, digits=3)
         rows.append((str(m.index), _pm(b.f_d_hz, b.f_d_hz_u), _pm(a.f_d_hz, a.f_d_hz_u), shift,
                      _pm(b.zeta, b.zeta_u), _pm(a.zeta, a.zeta_u), ratio, d.test,
                      _sig(d.p_value, 2), d.verdict))
@@ -188,8 +182,10 @@ def register(app: typer.Typer) -> None:
         b = expand_inputs(before)
         a = expand_inputs(after)
         def run():
+            from ._common import uses_stdin
             from .analyze import parse_band
 
+            uses_stdin([*b, *a])  # '-' once at most: standard input holds one recording
             options = dict(reader_options(channel, column, sample_rate), method=method,
                            min_hit_snr_db=min_hit_snr_db, keep_double_hits=keep_double_hits)
             if band:
