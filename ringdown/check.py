@@ -40,6 +40,7 @@ from typing import Iterator, Sequence
 
 from .errors import ParameterError, RingdownError
 from .limits import Limits, match_modes
+from .numfmt import fmt_value, fmt_values
 from .results import Analysis, Notice
 
 __all__ = ["EXTRA_MODE_LEVEL", "FeatureCheck", "CheckResult", "check", "check_file", "iter_check_files",
@@ -149,9 +150,13 @@ class CheckResult:
         }
 
 
-def _g(x: float) -> str:
-    """A number in plain words with three significant digits."""
-    return f"{x:.3g}"
+def _g(x: float, digits: int = 3) -> str:
+    """A number for a message, in the one number format (:func:`ringdown.numfmt.fmt_value`)."""
+    return fmt_value(x, digits)
+
+
+def _win(window: tuple[float, float], digits: int = 6) -> str:
+    return " to ".join(fmt_values(window, digits))
 
 
 def _pct(x: float) -> str:
@@ -236,7 +241,7 @@ def check(analysis: Analysis, limits: Limits) -> CheckResult:
         fc = FeatureCheck(ref.index, "f_hz", f, ref.f_hz, st)
         if st in ("below", "above"):
             lo, hi = ref.f_hz
-            f_fail.append((fc, Notice(f"f_{st}", f"{name} at {f:.1f} Hz is {st} its window {lo:.1f}-{hi:.1f} Hz")))
+            f_fail.append((fc, Notice(f"f_{st}", f"{name} at {_g(f, 6)} Hz is {st} its window {_win((lo, hi))} Hz")))
         else:
             feats.append(fc)
         # damping ratio
@@ -247,10 +252,10 @@ def check(analysis: Analysis, limits: Limits) -> CheckResult:
             feats.append(FeatureCheck(ref.index, "zeta", float(z), ref.zeta, st))
             if st == "above":
                 add(ref.index, 2, Notice("zeta_above", f"damping ratio of {name} is {z / ref.zeta[1]:.1f}x the upper "
-                                                    f"limit ({_g(z)} against {_g(ref.zeta[1])})"))
+                                                    f"limit ({' against '.join(fmt_values([z, ref.zeta[1]]))})"))
             elif st == "below":
                 add(ref.index, 2, Notice("zeta_below", f"damping ratio of {name} is {z / ref.zeta[0]:.2f}x the lower "
-                                                    f"limit ({_g(z)} against {_g(ref.zeta[0])})"))
+                                                    f"limit ({' against '.join(fmt_values([z, ref.zeta[0]]))})"))
         elif ref.zeta is not None:
             feats.append(FeatureCheck(ref.index, "zeta", None, ref.zeta, "missing"))
             add(ref.index, 2, Notice("zeta_missing", f"damping ratio of {name} could not be measured"))
@@ -268,8 +273,8 @@ def check(analysis: Analysis, limits: Limits) -> CheckResult:
                 if st in ("below", "above"):
                     ratio_ok = False
                     lo, hi = ref.ratio
-                    add(ref.index, 3, Notice(f"ratio_{st}", f"frequency ratio of {name} to mode 1 is {r:.5f}, {st} its "
-                                                         f"window {lo:.5f}-{hi:.5f}"))
+                    add(ref.index, 3, Notice(f"ratio_{st}", f"frequency ratio of {name} to mode 1 is {_g(r, 6)}, {st} its "
+                                                         f"window {_win((lo, hi))}"))
 
     # Multivariate check.
     d = thr = None

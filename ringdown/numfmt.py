@@ -23,7 +23,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
-__all__ = ["MISSING", "fmt_fixed", "fmt_interval", "fmt_pm", "fmt_value"]
+__all__ = ["MISSING", "fmt_fixed", "fmt_interval", "fmt_pm", "fmt_value", "fmt_values"]
 
 #: What a missing value (None, NaN, inf) is written as.
 MISSING = "–"
@@ -99,6 +99,26 @@ def fmt_value(v: Any, digits: int = 6, *, missing: str = MISSING, trim: bool = T
         e += 1
         text = f"{x / 10.0**e:.{digits - 1}f}"
     return (_trim(text) if trim else text) + _suffix(e)
+
+
+def fmt_values(values, digits: int = 3, *, missing: str = MISSING) -> list[str]:
+    """Numbers written side by side (a window, a value against its limit) in one notation: the
+    largest magnitude decides plain or ``e`` notation and the exponent; each keeps at least
+    ``digits`` significant digits, all with the same number of decimals.
+
+    >>> fmt_values([0.00139, 0.000774])
+    ['0.001390', '0.000774']
+    >>> fmt_values([9.28e-4, 7.95e-4])
+    ['9.28e-4', '7.95e-4']
+    """
+    xs = [_number(v) for v in values]
+    finite = [abs(x) for x in xs if x is not None and x != 0]
+    if not finite:
+        return [missing if x is None else "0" for x in xs]
+    big = max(finite)
+    e = 0 if _PLAIN_LO <= big < _PLAIN_HI else _exp10(big)
+    decimals = max(0, max(digits - 1 - (_exp10(a) - e) for a in finite))
+    return [missing if x is None else f"{x / 10.0**e:.{decimals}f}{_suffix(e)}" for x in xs]
 
 
 def fmt_fixed(v: Any, decimals: int, *, missing: str = MISSING, sign: bool = False) -> str:

@@ -33,7 +33,7 @@ from typing import Any, Iterable, Sequence
 
 from ._version import __version__
 from .errors import ParameterError, RingdownError
-from .numfmt import fmt_fixed, fmt_interval, fmt_pm, fmt_value
+from .numfmt import fmt_fixed, fmt_interval, fmt_pm, fmt_value, fmt_values
 
 __all__ = ["Cell", "Section", "html_table", "render_check_report", "render_comparison_report", "render_report",
            "verdict_cell", "write_report"]
@@ -752,7 +752,7 @@ def _feature_table(features) -> str:
         kind = {"pass": "pass", "advisory": "pass_advisory", "unchecked": "analysis"}.get(status, "fail")
         rows.append([str(d.get("mode")), _FEATURE_NAMES.get(d.get("feature"), str(d.get("feature"))),
                      fmt_value(d.get("value"), 6, missing=_DASH),
-                     _DASH if not win else f"{fmt_value(win[0], 6)} to {fmt_value(win[1], 6)}",
+                     _DASH if not win else " to ".join(fmt_values(win, 6)),
                      verdict_cell(kind, "" if status in ("pass", "advisory") else f": {status}")])
     if not rows:
         return ""
@@ -799,8 +799,8 @@ def render_check_report(rows: Sequence[dict], analyses: Sequence, limits, **kw) 
         ("good parts", limits.n_parts or _DASH),
         ("reader", ", ".join(f"{k} {v}" for k, v in reader.items()) or "defaults"),
         ("modes", "; ".join(
-            f"{m.index}: f_d {fmt_value(m.f_hz[0], 6)} to {fmt_value(m.f_hz[1], 6)} Hz"
-            + ("" if m.zeta is None else f", ζ {fmt_value(m.zeta[0], 3)} to {fmt_value(m.zeta[1], 3)}")
+            f"{m.index}: f_d {' to '.join(fmt_values(m.f_hz, 6))} Hz"
+            + ("" if m.zeta is None else f", ζ {' to '.join(fmt_values(m.zeta, 3))}")
             for m in limits.modes if m.f_hz is not None) or _DASH),
     ])
     shown = [(r, a, k) for r, a, k in zip(rows, analyses, kinds) if a is not None]

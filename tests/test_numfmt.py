@@ -11,7 +11,7 @@ import math
 import pytest
 from hypothesis import given, strategies as st
 
-from ringdown.numfmt import MISSING, fmt_fixed, fmt_interval, fmt_pm, fmt_value
+from ringdown.numfmt import MISSING, fmt_fixed, fmt_interval, fmt_pm, fmt_value, fmt_values
 
 
 @pytest.mark.parametrize("v, u, expected", [
@@ -63,6 +63,15 @@ def test_interval_ends_keep_their_digits_and_signs():
     assert fmt_fixed(0.389, 2, sign=True) == "+0.39" and fmt_fixed(-3.5, 2, sign=True) == "-3.50"
     assert fmt_interval(-3.42, -3.5, -3.34, decimals=2, sign=True) == "-3.42 [-3.50, -3.34]"
     assert fmt_interval(1.03, 0.887, 1.2) == "1.03 [0.887, 1.20]" and fmt_interval(2.77) == "2.77"
+
+
+def test_values_side_by_side_share_one_notation():
+    # worked by hand: the larger number decides the notation, the smaller keeps 3 digits
+    assert fmt_values([0.00139, 0.000774]) == ["0.001390", "0.000774"]
+    assert fmt_values([9.28e-4, 7.95e-4]) == ["9.28e-4", "7.95e-4"]
+    assert fmt_values([1496.05, 1503.95], 6) == ["1496.05", "1503.95"]
+    assert fmt_values([1720.0, 1765.0], 6) == ["1720.00", "1765.00"]
+    assert fmt_values([None, 2.0]) == [MISSING, "2.00"] and fmt_values([0.0, None]) == ["0", MISSING]
 
 
 def test_no_usable_uncertainty_gives_plain_value():

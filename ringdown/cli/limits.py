@@ -15,7 +15,7 @@ from typing import List, Optional
 
 import typer
 
-from ..numfmt import fmt_value
+from ..numfmt import fmt_value, fmt_values
 from ._common import (DEBUG_OPTION, EXIT_ERROR, EXIT_FAIL, EXIT_OK, default_jobs, error_line, expand_inputs,
                       guarded, on_terminal, print_json, print_json_line, progress_bar, resolve_db, uses_stdin, DB_ENV)
 from ._options import Channel, Column, Jsonl, Notes, SampleRate, Serial, Title, reader_options, report_header
@@ -165,10 +165,10 @@ def register(app: typer.Typer) -> None:
         if lim.reader:
             typer.echo("  read with " + ", ".join(f"{k} {v}" for k, v in lim.reader.items()))
         for m in lim.modes:
-            line = (f"  mode {m.index}: f_d {fmt_value(m.f_hz[0], 6)} to {fmt_value(m.f_hz[1], 6)} Hz, "
-                    f"zeta {fmt_value(m.zeta[0], 3)} to {fmt_value(m.zeta[1], 3)}")
+            line = (f"  mode {m.index}: f_d {' to '.join(fmt_values(m.f_hz, 6))} Hz, "
+                    f"zeta {' to '.join(fmt_values(m.zeta, 3))}")
             if m.ratio is not None:
-                line += f", ratio to mode 1 {fmt_value(m.ratio[0], 6)} to {fmt_value(m.ratio[1], 6)}"
+                line += f", ratio to mode 1 {' to '.join(fmt_values(m.ratio, 6))}"
             typer.echo(line)
         if lim.mahalanobis is not None:
             mh = lim.mahalanobis
