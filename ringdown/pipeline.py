@@ -295,9 +295,11 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
         rec_warnings.append(Notice("stationary_tone", f"steady tone near {f_tone:.1f} Hz before the hit (mains hum or "
                                                       "another running source?); not a mode"))
 
+    ctx = _RecordContext(x=x, fs=fs, opts=opts, noise_f=noise_f, noise_p=noise_p, noise_db=noise_db, level=level,
+                         clipped=clipped, tones=tuple(tones))
     hits: list[Hit] = []
     for j, span in enumerate(spans):
-        hits.append(_analyze_hit(x, fs, span, j, spans, clipped, noise_f, noise_p, opts, noise_db, level, tones))
+        hits.append(_analyze_hit(ctx, span, prev_end=spans[j - 1].end if j > 0 else 0))
 
     used = [h for h in hits if h.used and h.modes]
     if not used and any(h.modes for h in hits):
@@ -396,9 +398,37 @@ def _band_noise_rms(band: Band, noise_f: np.ndarray, noise_p: np.ndarray) -> flo
     return math.sqrt(max(2.0 * s * band.width_hz, 1e-300))  # width_hz = integral of mask^2
 
 
-def _analyze_hit(x, fs, span, j, spans, clipped, noise_f, noise_p, opts, noise_db, level, tones=()) -> Hit:
+@dataclass(frozen=True, slots=True, eq=False)
+class _RecordContext:
+    """What every hit of one record shares: the conditioned samples and what was measured on them."""
+
+    x: np.ndarray  #: (n_samples,) conditioned samples (offset and drift removed)
+    fs: float  #: sample rate, Hz
+    opts: AnalysisOptions
+    noise_f: np.ndarray  #: (n_freq,) Welch frequencies of the noise PSD, Hz
+    noise_p: np.ndarray  #: (n_freq,) noise PSD, unit^2/Hz
+    noise_db: float  #: broadband noise floor of the smoothed level, dB
+    level: np.ndarray  #: (n_samples,) smoothed broadband level, dB
+    clipped: np.ndarray  #: indices of clipped samples
+    tones: tuple[float, ...]  #: steady tones found before the first hit, Hz
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class _HitContext:
+    """One hit's decay: its record, its spectrum and where its decay may be fitted."""
+
+    record: _RecordContext
+    spec: Spectrum  #: spectrum of the hit's segment (from before the onset to ``seg_end``)
+    onset_s: float  #: hit onset, s
+    clip_end: int | None  #: first sample after the last clipped one in the hit, or None
+    seg_end: int  #: sample index where the hit's segment ends
+
+
+def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
+    """Every mode of one hit (``span``, from :func:`condition.find_hits`); ``prev_end`` is the
+    sample where the previous hit's segment ended (0 for the first)."""
+    x, fs, opts = ctx.x, ctx.fs, ctx.opts
     warnings: list[Notice] = []
-    prev_end = spans[j - 1].end if j > 0 else 0
     # up to 0.1 s before the onset: room for the band filter to settle, then a look at what the
     # band held before the hit (a steady tone is there already, a mode is not)
     pre = int(round(0.1 * fs))
@@ -410,6 +440,7 @@ def _analyze_hit(x, fs, span, j, spans, clipped, noise_f, noise_p, opts, noise_d
         warnings.append(Notice("double_hit", f"hit at {onset_s:.3f} s has a second onset {1e3 * (span.bounce - span.onset) / fs:.1f} ms later (hammer bounce?)"
                                + ("" if opts.keep_double_hits else "; left out of the combined result")))
         used = opts.keep_double_hits
+    clipped = ctx.clipped
     clip_in = clipped[(clipped >= span.onset) & (clipped < seg_end)] if clipped.size else clipped
     clip_end = None
     if clip_in.size:
@@ -418,24 +449,24 @@ def _analyze_hit(x, fs, span, j, spans, clipped, noise_f, noise_p, opts, noise_d
                                           "fits start after the clipping ends"))
     decay_from = max(span.peak, clip_end or 0)
     peak_value = float(np.max(np.abs(x[span.onset:seg_end])))
-    hit_snr = float(level[span.peak] - noise_db)
+    hit_snr = float(ctx.level[span.peak] - ctx.noise_db)
     if seg_end - decay_from < MIN_SAMPLES:
         warnings.append(Notice("short_decay", f"hit at {onset_s:.3f} s leaves {seg_end - decay_from} samples of decay"))
         return Hit(onset_s, span.peak / fs, peak_value, hit_snr, seg_end / fs, False, tuple(warnings), ())
 
-    spec = spectrum_of(x[seg_start:seg_end], fs, t0_s=seg_start / fs)
+    hctx = _HitContext(record=ctx, spec=spectrum_of(x[seg_start:seg_end], fs, t0_s=seg_start / fs), onset_s=onset_s,
+                       clip_end=clip_end, seg_end=seg_end)
     decay = x[decay_from:seg_end]
     if opts.bands is not None:
         groups = [([], lo, hi) for lo, hi in opts.bands]
     else:
-        peaks = find_peaks(decay, fs, max_peaks=opts.max_modes, noise_psd=(noise_f, noise_p))
-        groups = group_bands(peaks, sample_rate=fs, resolution_hz=fs / decay.shape[0], barriers_hz=tones)
+        peaks = find_peaks(decay, fs, max_peaks=opts.max_modes, noise_psd=(ctx.noise_f, ctx.noise_p))
+        groups = group_bands(peaks, sample_rate=fs, resolution_hz=fs / decay.shape[0], barriers_hz=ctx.tones)
     modes: list[Mode] = []
     failed: list[str] = []
     for peaks_g, lo, hi in groups:
         try:
-            modes.extend(_measure_group(spec, peaks_g, lo, hi, onset_s, clip_end, seg_end, fs, noise_f, noise_p, opts,
-                                        warnings, tones))
+            modes.extend(_measure_group(hctx, peaks_g, lo, hi, warnings))
         except FitError as exc:
             failed.append(f"{lo:.1f}-{hi:.1f} Hz ({exc})")
     if failed:
@@ -491,8 +522,12 @@ def _extract(spec: Spectrum, lo: float, hi: float, noise_f, noise_p) -> Band:
     return band.with_noise(_band_noise_rms(band, noise_f, noise_p))
 
 
-def _measure_group(spec, peaks_g: list[Peak], lo, hi, onset_s, clip_end, seg_end, fs, noise_f, noise_p, opts, hit_warnings,
-                   tones=()) -> list[Mode]:
+def _measure_group(hctx: _HitContext, peaks_g: list[Peak], lo: float, hi: float, hit_warnings: list[Notice]) -> list[Mode]:
+    """The modes of one band ``lo``-``hi`` Hz holding the spectral peaks ``peaks_g`` (none when
+    the band was given by the user); warnings about the hit are appended to ``hit_warnings``."""
+    ctx = hctx.record
+    opts, fs, noise_f, noise_p, tones = ctx.opts, ctx.fs, ctx.noise_f, ctx.noise_p, ctx.tones
+    spec, onset_s, clip_end, seg_end = hctx.spec, hctx.onset_s, hctx.clip_end, hctx.seg_end
     primary = opts.primary
     group_band = _extract(spec, lo, hi, noise_f, noise_p)
     # first guess of the decay rate from the spectral peaks' half-power width (beta ~ pi width)

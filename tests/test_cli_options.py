@@ -34,8 +34,8 @@ _SPEC.loader.exec_module(sim)
 
 runner = CliRunner()
 READING = {"analyze": ("analyze",), "compare": ("compare",), "limits learn": ("limits", "learn"),
-           "check": ("check",)}
-REPORTING = {"analyze": ("analyze",), "compare": ("compare",), "check": ("check",)}
+           "check": ("check",), "moduli": ("moduli",)}
+REPORTING = {"analyze": ("analyze",), "compare": ("compare",), "check": ("check",), "moduli": ("moduli",)}
 
 
 def _command(path: tuple[str, ...]):
