@@ -158,6 +158,8 @@ def _slug(text: str, used: set[str]) -> str:
 
 
 def _file_name(a) -> str:
+    if a.path == "-":
+        return "standard input (-)"
     return os.path.basename(a.path) if a.path else "<array>"
 
 

@@ -76,7 +76,7 @@ def format_table(analysis, columns: tuple[str, ...] = DEFAULT_COLUMNS) -> str:
     if analysis.error is not None:
         return ""
     lines = []
-    head = f"{analysis.path or '<array>'}"
+    head = "- (standard input)" if analysis.path == "-" else f"{analysis.path or '<array>'}"
     used = sum(1 for h in analysis.hits if h.used)
     head += (f"  ({fmt_value(analysis.sample_rate_hz, 7)} Hz, {fmt_value(analysis.duration_s, 3)} s, "
              f"channel {analysis.channel}, {len(analysis.hits)} hit(s), {used} used)")
