@@ -448,6 +448,8 @@ figure img { max-width: 100%; height: auto; border: 1px solid #e1e1dc; }
 figcaption { color: #4a4a47; font-size: 12.5px; }
 section.caution, p.caution { border-left: 4px solid #E69F00; padding-left: 12px; }
 table.checks { width: 100%; }
+table.checks td:nth-child(4) { width: 50%; }
+ul.cell { margin: 0; padding-left: 1.1em; }
 table.checks td:nth-child(-n+3) { white-space: nowrap; overflow-wrap: normal; width: 1%; }
 table.signoff { width: 100%; margin-top: 8px; }
 table.signoff th, table.signoff td { border-bottom: 1px solid #1d1d1b; padding: 16px 8px 4px 0; text-align: left;
@@ -762,6 +764,13 @@ def _feature_table(features) -> str:
                       numeric=[True, False, True, True, False], css_class="data features")
 
 
+def _list_cell(items: Sequence[dict]) -> Cell:
+    """Messages one per line (escaped), or a dash."""
+    if not items:
+        return Cell(_DASH)
+    return Cell('<ul class="cell">' + "".join(f"<li>{_e(x['message'])}</li>" for x in items) + "</ul>", raw=True)
+
+
 def render_check_report(rows: Sequence[dict], analyses: Sequence, limits, **kw) -> str:
     """The check report: verdicts first, the limits used, then each part with its figures
     (all of them for a part that failed, the overview for one that passed).
@@ -786,8 +795,7 @@ def render_check_report(rows: Sequence[dict], analyses: Sequence, limits, **kw) 
         ["part", "file", "verdict", "reasons", "notes"],
         [[r["part_id"], os.path.basename(r.get("path") or ""),
           verdict_cell(k, " (stored)" if r.get("skipped") else ""),
-          "; ".join(x["message"] for x in r.get("reasons", [])) or _DASH,
-          "; ".join(x["message"] for x in r.get("notes", [])) or _DASH] for r, k in zip(rows, kinds)],
+          _list_cell(r.get("reasons", [])), _list_cell(r.get("notes", []))] for r, k in zip(rows, kinds)],
         css_class="data checks")
     counts = {k: sum(1 for r in rows if r["verdict"] == k) for k in ("pass", "fail", "error")}
     head = (f"<p>{len(rows)} parts: {counts['pass']} passed, {counts['fail']} failed, {counts['error']} "
