@@ -160,7 +160,8 @@ def analyze_file(
 ) -> Analysis:
     """Read a recording (see :func:`ringdown.read_recording`) and analyse it.
 
-    ``channel`` (audio), ``column`` and ``sample_rate`` (delimited text) go to the reader;
+    ``channel`` (a number, or a name for TDMS/UFF/MATLAB/HDF5), ``column`` and ``sample_rate``
+    (text, and files that state no rate) go to the reader;
     the other keyword options are those of :func:`analyze`.
     """
     from .io import read_recording
@@ -283,9 +284,8 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
     clipped = condition.find_clipping(raw, full_scale=rec.full_scale)
     rec_warnings: list[Notice] = [band_note] if band_note is not None else []
     if rec.n_channels > 1:
-        what = "channels" if rec.full_scale is not None or rec.channel.isdigit() else "data columns"
-        rec_warnings.append(Notice("multichannel", f"{name} holds {rec.n_channels} {what}; only {rec.channel!r} "
-                                                   "was analysed (choose another with --channel or --column)"))
+        rec_warnings.append(Notice("multichannel", f"{name} holds {rec.n_channels} channels (or data columns); only "
+                                                   f"{rec.channel!r} was analysed (choose another with --channel)"))
     if rec.timing_jitter is not None and rec.timing_jitter > 1e-6:
         rec_warnings.append(Notice("timing_jitter", f"time steps jitter by {100 * rec.timing_jitter:.3g} % RMS (accepted)"))
 
@@ -316,6 +316,7 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
         path=rec.path,
         sha256=rec.sha256,
         channel=rec.channel,
+        unit=rec.unit,
         sample_rate_hz=fs,
         n_samples=rec.n_samples,
         hits=tuple(hits),

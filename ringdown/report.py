@@ -306,6 +306,7 @@ def _file_section(a, n: int, anchor: str, fmt: str, figures: bool | str, extra: 
         ("SHA-256", a.sha256 or "unknown"),
         ("size", _file_size(a.path)),
         ("channel", a.channel if a.channel is not None else _DASH),
+        ("unit", a.unit if a.unit is not None else _DASH),
         ("sample rate", sr),
         ("duration", dur),
         ("noise floor", _DASH if a.noise_floor is None else f"{fmt_value(a.noise_floor, 4)} (recording units, RMS)"),

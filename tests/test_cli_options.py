@@ -22,7 +22,8 @@ import typer
 from typer.testing import CliRunner
 
 from ringdown.cli import app
-from ringdown.cli._options import READER_OPTIONS, channel_value, reader_options
+from ringdown.cli._common import parse_channel
+from ringdown.cli._options import READER_OPTIONS, reader_options
 from ringdown.limits import parse_limits, read_limits
 
 from conftest import ringdown_modes, write_wav  # noqa: E402
@@ -79,8 +80,8 @@ def test_flags_show_no_type_in_help():
 
 
 def test_channel_value_turns_digits_into_numbers():
-    assert channel_value("2") == 2 and channel_value(" 3 ") == 3
-    assert channel_value("accel") == "accel" and channel_value(None) is None
+    assert parse_channel("2") == 2 and parse_channel(" 3 ") == 3
+    assert parse_channel("accel") == "accel" and parse_channel(None) is None
     assert reader_options("2", None, 51200.0) == {"channel": 2, "sample_rate": 51200.0}
 
 

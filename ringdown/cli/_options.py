@@ -13,13 +13,14 @@ four commands (``tests/test_cli_options.py`` checks that they all accept the sam
 
 from __future__ import annotations
 
-import re
 from typing import Annotated, Optional
 
 import typer
 
+from ._common import CHANNEL_HELP, parse_channel
+
 __all__ = ["READER_OPTIONS", "Channel", "Column", "SampleRate", "Title", "Notes", "Serial", "Jsonl",
-           "channel_value", "reader_options", "report_header"]
+           "reader_options", "report_header"]
 
 #: Option names (keyword names of ``ringdown.read_recording``) every reading command accepts.
 READER_OPTIONS = ("channel", "column", "sample_rate")
@@ -27,14 +28,13 @@ READER_OPTIONS = ("channel", "column", "sample_rate")
 _READING = "Reading recordings"
 _REPORT = "Report header"
 
-Channel = Annotated[Optional[str], typer.Option(
-    "--channel", help="Channel of a multichannel sound file (1-based number; default 1). "
-                      "For a text file, the same as --column.", rich_help_panel=_READING)]
+Channel = Annotated[Optional[str], typer.Option("--channel", help=CHANNEL_HELP, rich_help_panel=_READING)]
 Column = Annotated[Optional[str], typer.Option(
     "--column", help="Text files: data column, a 1-based number (time column not counted) or a header name.",
     rich_help_panel=_READING)]
 SampleRate = Annotated[Optional[float], typer.Option(
-    "--sample-rate", help="Text files without a time column: the sample rate, Hz.", rich_help_panel=_READING)]
+    "--sample-rate", help="Sample rate, Hz, for files that do not state it (text without a time column, "
+                          "TDMS/MAT/HDF5 without one).", rich_help_panel=_READING)]
 
 Title = Annotated[Optional[str], typer.Option(
     "--title", help="Report title, printed at the top of every page.", rich_help_panel=_REPORT)]
@@ -47,16 +47,9 @@ Jsonl = Annotated[bool, typer.Option(
     "--jsonl", help="Print one JSON record per line as each result is ready (JSON Lines).")]
 
 
-def channel_value(text: str | int | None) -> int | str | None:
-    """``"2"`` -> 2 (a channel number); any other text is kept as a name; None stays None."""
-    if text is None or isinstance(text, int):
-        return text
-    return int(text) if re.fullmatch(r"\s*\d+\s*", text) else text
-
-
 def reader_options(channel=None, column=None, sample_rate=None) -> dict:
     """The reader keyword arguments that were given (None values left out)."""
-    given = {"channel": channel_value(channel), "column": channel_value(column), "sample_rate": sample_rate}
+    given = {"channel": parse_channel(channel), "column": parse_channel(column), "sample_rate": sample_rate}
     return {k: v for k, v in given.items() if v is not None}
 
 

@@ -78,8 +78,9 @@ def format_table(analysis, columns: tuple[str, ...] = DEFAULT_COLUMNS) -> str:
     lines = []
     head = "- (standard input)" if analysis.path == "-" else f"{analysis.path or '<array>'}"
     used = sum(1 for h in analysis.hits if h.used)
+    unit = f" [{analysis.unit}]" if analysis.unit else ""
     head += (f"  ({fmt_value(analysis.sample_rate_hz, 7)} Hz, {fmt_value(analysis.duration_s, 3)} s, "
-             f"channel {analysis.channel}, {len(analysis.hits)} hit(s), {used} used)")
+             f"channel {analysis.channel}{unit}, {len(analysis.hits)} hit(s), {used} used)")
     lines.append(head)
     cols = ("#", *(TABLE_COLUMNS[k][0] for k in columns))
     rows = [(str(m.index), *(TABLE_COLUMNS[k][1](m) for k in columns)) for m in analysis.modes]
@@ -117,8 +118,8 @@ def write_csv(analyses, path: str) -> None:
 def register(app: typer.Typer) -> None:
     @app.command("analyze")
     def analyze_cmd(
-        files: List[str] = typer.Argument(..., help="Recordings (WAV/FLAC/OGG/CSV...), folders or glob patterns; "
-                                                    "'-' reads one recording from standard input."),
+        files: List[str] = typer.Argument(..., help="Recordings (WAV/FLAC/OGG/CSV, TDMS, UFF 58, MAT, HDF5), folders "
+                                                    "or glob patterns; '-' reads one recording from standard input."),
         json_out: bool = typer.Option(False, "--json", help="Print one JSON document instead of tables."),
         jsonl: Jsonl = False,
         csv_out: Optional[Path] = typer.Option(None, "--csv", help="Also write one CSV row per mode to this file."),
