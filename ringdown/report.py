@@ -467,6 +467,7 @@ a { color: #005a8c; }
   table.kv { font-size: 8pt; }
   thead { display: table-header-group; }
   tr, figure, table.signoff { break-inside: avoid; }
+  figure img { max-height: 120mm; width: auto; }
   section.file { break-before: page; }
   section#signoff { break-inside: avoid; }
   a { color: inherit; text-decoration: none; }
@@ -685,8 +686,7 @@ def comparison_html(comparison) -> str:
            f"Modes paired within ±{_num(100 * s.get('tolerance', 0.1), 3)} % in frequency "
            "(ordered, closest in log frequency). Damping is tested on ln(ζ); the ratio is that of "
            "geometric means (loss factor changes by the same ratio, Q by its inverse). Intervals and "
-           f"verdicts at {_e(c)} % confidence, each mode on its own.</p>",
-           _comparison_figure(comparison)]
+           f"verdicts at {_e(c)} % confidence, each mode on its own.</p>"]
     main, more = [], []
     for m in comparison.modes:
         b, a, d, f = m.before, m.after, m.damping, m.frequency
@@ -705,6 +705,7 @@ def comparison_html(comparison) -> str:
                               numeric=[True] * 5 + [False], css_class="data comparison-q"))
     else:
         out.append('<p class="note">No mode was found on both sides.</p>')
+    out.append(_comparison_figure(comparison))  # after the tables: the numbers come first on paper
     for label, ms in (("before only", comparison.unmatched_before), ("after only", comparison.unmatched_after)):
         if ms:
             items = ", ".join(f"{_pm(cm.f_d_hz, cm.f_d_hz_u)} Hz (ζ {_pm(cm.zeta, cm.zeta_u)})" for cm in ms)
