@@ -264,3 +264,19 @@ def test_reader_table_is_checked():
         parse_limits(base + "[reader]\ngain = 2\n")
     with pytest.raises(LimitsError, match="reader.sample_rate must be a number between"):
         parse_limits(base + "[reader]\nsample_rate = -5.0\n")
+
+
+def test_check_and_learn_read_standard_input(tmp_path):
+    line = Path(__file__).resolve().parents[1] / "example_signals" / "line"
+    good = sorted(str(p) for p in line.glob("good_0*.wav"))
+    lim = tmp_path / "lim.toml"
+    # one good part through standard input, the rest as files
+    r = runner.invoke(app, ["limits", "learn", "-", *good[1:], "-o", str(lim), "--jobs", "2"],
+                      input=Path(good[0]).read_bytes())
+    assert r.exit_code == 0, r.output
+    assert "learned limits from 8 good parts" in r.stdout
+    r = runner.invoke(app, ["check", "--limits", str(lim), "-", "--db", str(tmp_path / "h.sqlite"), "--jsonl"],
+                      input=(line / "crack.wav").read_bytes())
+    assert r.exit_code == 1, r.output  # the cracked part (example_signals/README.md) fails
+    (row,) = [json.loads(x) for x in r.stdout.splitlines()]
+    assert row["path"] == "-" and row["verdict"] == "fail"
