@@ -34,11 +34,10 @@ from __future__ import annotations
 
 import math
 import os
-from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, replace
 from typing import Iterator, Sequence
 
-from .errors import ParameterError, RingdownError
+from .errors import ParameterError
 from .limits import Limits, match_modes
 from .numfmt import fmt_value, fmt_values
 from .results import Analysis, Notice
@@ -373,21 +372,30 @@ def check_file(path: str, limits: Limits, **options) -> CheckResult:
     Never raises for a bad recording: that part's result is an ERROR. The analysis options
     stored in the limits are used unless ``options`` overrides them.
     """
+    from .batch import as_ringdown_error
     from .pipeline import analyze_file  # the pipeline; imported late so limits load without it
 
     opts = {**limits.analysis_options(), **options}
     try:
         analysis = analyze_file(path, **opts)
-    except RingdownError as exc:
-        analysis = Analysis.failed(path, exc, settings=opts)
     except Exception as exc:  # a batch on a line must go on; the part is an ERROR, with the cause
-        analysis = Analysis.failed(path, RingdownError(f"internal error {type(exc).__name__}: {exc}"), settings=opts)
+        analysis = Analysis.failed(path, as_ringdown_error(exc), settings=opts)
     return check(lighten(analysis), limits)
 
 
-def _worker(args):
-    pos, path, limits, options = args
-    return pos, check_file(path, limits, **options)
+class _CheckTask:
+    """Picklable ``check_file`` with fixed limits and options, and the ERROR result of a path."""
+
+    def __init__(self, limits: Limits, options: dict) -> None:
+        self.limits = limits
+        self.options = options
+
+    def __call__(self, path: str) -> CheckResult:
+        return check_file(path, self.limits, **self.options)
+
+    def failed(self, path: str, exc: Exception) -> CheckResult:
+        opts = {**self.limits.analysis_options(), **self.options}
+        return check(Analysis.failed(path, exc, settings=opts), self.limits)
 
 
 def iter_check_files(
@@ -396,6 +404,8 @@ def iter_check_files(
     *,
     jobs: int | None = None,
     options: dict | None = None,
+    executor=None,
+    on_notice=None,
 ) -> Iterator[tuple[int, CheckResult]]:
     """Check many recordings, on several processes; yield ``(position, result)`` as each finishes.
 
@@ -408,22 +418,19 @@ def iter_check_files(
         Worker processes (default: the number of CPU cores; 1 runs in this process).
     options : dict, optional
         Analysis options overriding the ones stored in the limits.
+    executor, on_notice : callable, optional
+        See :func:`ringdown.batch.run_batch`.
 
     Yields
     ------
     (int, CheckResult)
-        Position in ``paths`` and the result, in completion order.
+        Position in ``paths`` and the result, in completion order. Any failure on one part (a
+        dead worker included, see :mod:`ringdown.batch`) is that part's ERROR.
     """
-    options = dict(options or {})
-    n = len(paths)
+    from .batch import run_batch
+
     jobs = (os.cpu_count() or 1) if jobs is None else int(jobs)
     if jobs < 1:
         raise ParameterError(f"jobs must be >= 1, got {jobs}")
-    if jobs == 1 or n <= 1:
-        for i, p in enumerate(paths):
-            yield i, check_file(p, limits, **options)
-        return
-    with ProcessPoolExecutor(max_workers=min(jobs, n)) as pool:
-        futures = [pool.submit(_worker, (i, p, limits, options)) for i, p in enumerate(paths)]
-        for fut in as_completed(futures):
-            yield fut.result()
+    task = _CheckTask(limits, dict(options or {}))
+    yield from run_batch(task, list(paths), on_error=task.failed, jobs=jobs, executor=executor, on_notice=on_notice)

@@ -217,6 +217,8 @@ def find_hits(
         onset = lo_i + int(reach[0]) if reach.size else k
         end = onsets[j + 1] - max(1, int(round(0.002 * sample_rate))) if j + 1 < len(onsets) else n
         stop = min(end, onset + hold + int(round(bounce_window_s * sample_rate)))
+        if stop <= onset:
+            continue  # a rise in the record's last samples leaves no decay to measure
         peak = onset + int(np.argmax(level_db[onset:stop]))
         bounce = _find_bounce(level_db, k, sample_rate, bounce_window_s, bounce_rise_db, end, smoothing + w)
         if bounce is not None and slow_level_db is not None and not _energy_step(slow_level_db, k, bounce, sample_rate):

@@ -653,11 +653,15 @@ def write_limits(limits: Limits, path: str | Path) -> str:
     LimitsError
         When the file cannot be written.
     """
+    from .errors import RingdownError
+    from .outputs import atomic_write
+
     text = limits_to_toml(limits)
     try:
-        Path(path).write_text(text, encoding="utf-8")
-    except OSError as exc:
-        raise LimitsError(f"cannot write limits file '{path}': {exc.strerror or exc}; check the folder") from exc
+        with atomic_write(path, "wb", what="limits file") as fh:  # never a 0-byte or half file
+            fh.write(text.encode("utf-8"))
+    except RingdownError as exc:
+        raise LimitsError(str(exc)) from None
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
@@ -680,7 +684,7 @@ def read_limits(path: str | Path) -> Limits:
         text = data.decode("utf-8")
     except UnicodeDecodeError:
         raise LimitsError(f"limits file '{p}' is not UTF-8 text; save it as UTF-8") from None
-    lim = parse_limits(text, source=str(p))
+    lim = parse_limits(text, source=str(p))  # a UTF-8 byte-order mark is accepted there
     return replace(lim, sha256=hashlib.sha256(data).hexdigest())
 
 
@@ -728,10 +732,18 @@ def parse_limits(text: str, *, source: str = "<string>") -> Limits:
         Naming the file, the key and the fix.
     """
     src = source
+    body = text[1:] if text.startswith("\ufeff") else text  # a byte-order mark some editors add
     try:
-        doc = _toml.loads(text)
+        doc = _toml.loads(body)
     except _toml.TOMLDecodeError as exc:
         raise LimitsError(f"limits file '{src}' is not valid TOML ({exc}); fix the line named") from None
+    except RecursionError:
+        raise LimitsError(f"limits file '{src}' nests arrays or tables too deeply to be a limits file; "
+                          "fix or relearn it") from None
+    unknown = set(doc) - _TOP_KEYS
+    if unknown:
+        raise LimitsError(f"limits file '{src}' has unknown key(s) {sorted(unknown)}; allowed: "
+                          f"{', '.join(sorted(_TOP_KEYS))} (a misspelt key would be ignored silently)")
     fv = doc.get("format_version", FORMAT_VERSION)
     if not isinstance(fv, int) or isinstance(fv, bool) or fv < 1:
         raise LimitsError(f"limits file '{src}': format_version must be a positive integer, got {fv!r}")
@@ -741,6 +753,10 @@ def parse_limits(text: str, *, source: str = "<string>") -> Limits:
     chk = doc.get("check", {})
     if not isinstance(chk, dict):
         raise LimitsError(f"limits file '{src}': [check] must be a table")
+    bad = set(chk) - {"tolerance", "max_uniform_shift", "uniform_shift_tolerance"}
+    if bad:
+        raise LimitsError(f"limits file '{src}': [check] has unknown key(s) {sorted(bad)}; "
+                          "allowed: tolerance, max_uniform_shift, uniform_shift_tolerance")
     tolerance = _num(src, "check.", "tolerance", chk.get("tolerance"), DEFAULT_TOLERANCE, lo=0.0, hi=0.5)
     mus = _num(src, "check.", "max_uniform_shift", chk.get("max_uniform_shift"), DEFAULT_MAX_UNIFORM_SHIFT, lo=-1e-12, hi=0.5)
     ust = _num(src, "check.", "uniform_shift_tolerance", chk.get("uniform_shift_tolerance"),
@@ -776,7 +792,8 @@ def parse_limits(text: str, *, source: str = "<string>") -> Limits:
         if idx != i + 1:
             raise LimitsError(f"limits file '{src}': {where}.index is {idx!r}, expected {i + 1}; list modes in order")
         modes.append(ModeLimits(index=i + 1, f_ref_hz=fref, f_hz=fwin, zeta=zwin, ratio=rwin,
-                                stats={k: float(v) for k, v in stats_.items() if isinstance(v, (int, float))}))
+                                stats={k: float(v) for k, v in stats_.items()
+                                       if _is_number(v) and math.isfinite(float(v))}))
     refs = [m.f_ref_hz for m in modes]
     if any(b <= a for a, b in zip(refs, refs[1:])):
         raise LimitsError(f"limits file '{src}': modes must be listed in ascending frequency; reorder the [[modes]] entries")
@@ -789,9 +806,18 @@ def parse_limits(text: str, *, source: str = "<string>") -> Limits:
     st = doc.get("settings", {})
     if not isinstance(st, dict):
         raise LimitsError(f"limits file '{src}': [settings] must be a table")
+    coverage = _num(src, "settings.", "coverage", st.get("coverage"), None, lo=0.0, hi=1.0)
+    confidence = _num(src, "settings.", "confidence", st.get("confidence"), None, lo=0.0, hi=1.0)
+    k_factor = _num(src, "settings.", "k_factor", st.get("k_factor"), None, lo=0.0, hi=1e6)
+    n_parts = st.get("n_parts")
+    if n_parts is not None and (isinstance(n_parts, bool) or not isinstance(n_parts, int) or n_parts < 0):
+        raise LimitsError(f"limits file '{src}': settings.n_parts must be a whole number >= 0, got {n_parts!r}")
+    parts_ = doc.get("parts", []) or []
+    if not isinstance(parts_, list):
+        raise LimitsError(f"limits file '{src}': parts must be [[parts]] tables with name and sha256")
     parts = []
-    for i, pt in enumerate(doc.get("parts", []) or []):
-        if not isinstance(pt, dict) or not isinstance(pt.get("name", ""), str):
+    for i, pt in enumerate(parts_):
+        if not isinstance(pt, dict) or not isinstance(pt.get("name", ""), str) or not isinstance(pt.get("sha256", ""), str):
             raise LimitsError(f"limits file '{src}': parts[{i + 1}] must be a table with name and sha256")
         parts.append((str(pt.get("name", "")), str(pt.get("sha256", ""))))
     analysis = doc.get("analysis", {})
@@ -810,26 +836,85 @@ def parse_limits(text: str, *, source: str = "<string>") -> Limits:
         v = reader.get(key)
         if v is not None and (isinstance(v, bool) or not isinstance(v, (int, str))):
             raise LimitsError(f"limits file '{src}': reader.{key} must be a number or a name, got {v!r}")
+    _check_analysis(src, analysis)
     notes = st.get("notes", doc.get("notes", []))
+    if not isinstance(notes, list) or not all(isinstance(x, str) for x in notes):
+        raise LimitsError(f"limits file '{src}': notes must be a list of strings")
+    for key in ("tool_version", "created_utc"):
+        if key in doc and not isinstance(doc[key], (str, _dt.datetime, _dt.date)):
+            raise LimitsError(f"limits file '{src}': {key} must be a string, got {doc[key]!r}")
     return Limits(
         modes=tuple(modes),
         tolerance=tolerance,
         max_uniform_shift=mus,
         uniform_shift_tolerance=ust,
         mahalanobis=maha,
-        coverage=st.get("coverage"),
-        confidence=st.get("confidence"),
-        k_factor=st.get("k_factor"),
-        n_parts=st.get("n_parts"),
+        coverage=coverage,
+        confidence=confidence,
+        k_factor=k_factor,
+        n_parts=n_parts,
         parts=tuple(parts),
         analysis=dict(analysis),
         reader=dict(reader),
-        tool_version=doc.get("tool_version"),
+        tool_version=None if doc.get("tool_version") is None else str(doc["tool_version"]),
         created_utc=str(doc["created_utc"]) if "created_utc" in doc else None,
-        notes=tuple(str(x) for x in notes) if isinstance(notes, list) else (),
+        notes=tuple(notes),
         source=source,
         sha256=hashlib.sha256(text.encode("utf-8")).hexdigest(),
     )
+
+
+#: Top-level keys of a limits file (anything else is a typo that would be ignored silently).
+_TOP_KEYS = frozenset({"format_version", "tool_version", "created_utc", "check", "modes", "mahalanobis", "settings",
+                       "parts", "analysis", "notes"})
+
+
+def _is_number(v: Any) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool)
+
+
+def _is_finite_number(v: Any) -> bool:
+    return _is_number(v) and math.isfinite(float(v))
+
+
+def _check_analysis(src: str, analysis: dict) -> None:
+    """The [analysis] table: every key known and every value of the right kind (check reuses them)."""
+    where = f"limits file '{src}': [analysis]"
+    known = set(_ANALYSIS_KEYS) | {"primary_method"}
+    bad = set(analysis) - known
+    if bad:
+        raise LimitsError(f"{where} has unknown key(s) {sorted(bad)}; allowed: {', '.join(sorted(known))}")
+
+    def fail(key: str, want: str) -> None:
+        raise LimitsError(f"{where} {key} = {analysis[key]!r} must be {want}; fix it or relearn the limits")
+
+    for key in ("method", "primary_method"):
+        if key in analysis:
+            from .estimators import method_names
+
+            names = set(method_names()) | {"auto"}
+            if not isinstance(analysis[key], str) or analysis[key] not in names:
+                fail(key, f"one of {', '.join(sorted(names))}")
+    for key in ("min_snr_db", "min_hit_snr_db"):
+        if key in analysis and not (_is_finite_number(analysis[key]) and analysis[key] >= 0):
+            fail(key, "a finite number of dB >= 0")
+    if "max_modes" in analysis and not (isinstance(analysis["max_modes"], int)
+                                        and not isinstance(analysis["max_modes"], bool) and analysis["max_modes"] >= 1):
+        fail("max_modes", "a whole number >= 1")
+    if "keep_double_hits" in analysis and not isinstance(analysis["keep_double_hits"], bool):
+        fail("keep_double_hits", "true or false")
+    if "sample_rate" in analysis and not (_is_finite_number(analysis["sample_rate"]) and analysis["sample_rate"] > 0):
+        fail("sample_rate", "a finite number of Hz > 0")
+    for key in ("channel", "column"):
+        if key in analysis and not (isinstance(analysis[key], str) or (isinstance(analysis[key], int)
+                                                                          and not isinstance(analysis[key], bool))):
+            fail(key, "a channel number or a column name")
+    if "bands" in analysis:
+        b = analysis["bands"]
+        ok = isinstance(b, list) and all(isinstance(x, list) and len(x) == 2 and all(_is_finite_number(v) for v in x)
+                                         and 0 <= x[0] < x[1] for x in b)
+        if not ok:
+            fail("bands", "a list of [low, high] pairs in Hz with 0 <= low < high")
 
 
 def _parse_maha(src: str, mh: Any, n_modes: int) -> MahalanobisLimits:
@@ -844,19 +929,30 @@ def _parse_maha(src: str, mh: Any, n_modes: int) -> MahalanobisLimits:
     if not isinstance(feats, list) or not feats or any(f not in valid for f in feats):
         raise LimitsError(f"limits file '{src}': {where}.features must name ratio_J / log_zeta_J of the listed modes, "
                           f"got {feats!r}; relearn the limits or delete [mahalanobis]")
+    bad = set(mh) - {"features", "mean", "covariance", "threshold", "n_parts", "probability"}
+    if bad:
+        raise LimitsError(f"limits file '{src}': [mahalanobis] has unknown key(s) {sorted(bad)}; allowed: features, "
+                          "mean, covariance, threshold, n_parts, probability")
+    if len(set(feats)) != len(feats):
+        raise LimitsError(f"limits file '{src}': {where}.features names a feature twice; relearn the limits")
     p = len(feats)
     mean = mh["mean"]
     cov = mh["covariance"]
-    if not (isinstance(mean, list) and len(mean) == p and all(isinstance(v, (int, float)) for v in mean)):
-        raise LimitsError(f"limits file '{src}': {where}.mean must hold {p} numbers; relearn the limits or delete [mahalanobis]")
-    if not (isinstance(cov, list) and len(cov) == p and all(isinstance(r, list) and len(r) == p for r in cov)):
-        raise LimitsError(f"limits file '{src}': {where}.covariance must be a {p}x{p} array; relearn the limits or delete [mahalanobis]")
+    if not (isinstance(mean, list) and len(mean) == p and all(_is_finite_number(v) for v in mean)):
+        raise LimitsError(f"limits file '{src}': {where}.mean must hold {p} finite numbers, got {mean!r}; "
+                          "relearn the limits or delete [mahalanobis]")
+    if not (isinstance(cov, list) and len(cov) == p
+            and all(isinstance(r, list) and len(r) == p and all(_is_finite_number(v) for v in r) for r in cov)):
+        raise LimitsError(f"limits file '{src}': {where}.covariance must be a {p}x{p} array of finite numbers; "
+                          "relearn the limits or delete [mahalanobis]")
     c = np.asarray(cov, dtype=float)
     if not np.all(np.isfinite(c)) or not np.allclose(c, c.T, rtol=1e-6, atol=0) or np.any(np.linalg.eigvalsh(c) <= 0):
         raise LimitsError(f"limits file '{src}': {where}.covariance must be symmetric positive definite; relearn the limits")
     thr = _num(src, where + ".", "threshold", mh["threshold"], None, lo=0.0, hi=1e6)
     n = mh.get("n_parts", 0)
-    prob = mh.get("probability", 0.99)
+    if isinstance(n, bool) or not isinstance(n, int) or n < 0:
+        raise LimitsError(f"limits file '{src}': {where}.n_parts must be a whole number >= 0, got {n!r}")
+    prob = _num(src, where + ".", "probability", mh.get("probability"), 0.99, lo=0.0, hi=1.0)
     return MahalanobisLimits(
         features=tuple(feats),
         mean=tuple(float(v) for v in mean),

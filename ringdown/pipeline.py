@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, replace
-from typing import Callable, Iterable, Sequence
+from typing import Callable, Iterable, Iterator, Sequence
 
 import numpy as np
 
@@ -24,7 +24,7 @@ from .quantities import DB_PER_NEPER, derive
 from .recording import Recording
 from .results import Analysis, Estimate, Hit, Mode, ModeTrace, Notice
 
-__all__ = ["analyze", "analyze_recording", "analyze_file", "analyze_many", "AnalysisOptions"]
+__all__ = ["analyze", "analyze_recording", "analyze_file", "analyze_many", "iter_analyze_files", "AnalysisOptions"]
 
 #: Fewest samples a recording may have.
 MIN_SAMPLES = 64
@@ -184,7 +184,7 @@ def analyze_many(
     ----------
     paths : iterable of str or path
     jobs : int >= 1
-        Worker processes (``concurrent.futures.ProcessPoolExecutor``) when > 1.
+        Worker processes when > 1 (:mod:`ringdown.batch`).
     progress : callable or None
         Called with each finished Analysis (in completion order).
     **options
@@ -193,34 +193,55 @@ def analyze_many(
     Returns
     -------
     list of Analysis, in the order of ``paths``.
+
+    Notes
+    -----
+    Any failure on one file (a bad recording, but also ``MemoryError``, ``OverflowError`` or a
+    worker process killed twice) becomes that file's ``error``; see :mod:`ringdown.batch`.
     """
     paths = [str(p) for p in paths]
-    AnalysisOptions.from_kwargs({k: v for k, v in options.items() if k not in ("channel", "column", "sample_rate")})
-    if jobs is None or jobs < 1:
-        raise ParameterError(f"jobs must be >= 1; got {jobs!r}")
     results: list[Analysis | None] = [None] * len(paths)
-    if jobs == 1 or len(paths) <= 1:
-        for i, p in enumerate(paths):
-            results[i] = _analyze_or_fail(p, options)
-            if progress:
-                progress(results[i])
-    else:
-        from concurrent.futures import ProcessPoolExecutor, as_completed
-
-        with ProcessPoolExecutor(max_workers=min(jobs, len(paths))) as pool:
-            futs = {pool.submit(_analyze_or_fail, p, options): i for i, p in enumerate(paths)}
-            for fut in as_completed(futs):
-                results[futs[fut]] = fut.result()
-                if progress:
-                    progress(results[futs[fut]])
+    for i, a in iter_analyze_files(paths, jobs=jobs, **options):
+        results[i] = a
+        if progress:
+            progress(a)
     return [r for r in results if r is not None]
 
 
-def _analyze_or_fail(path: str, options: dict) -> Analysis:
-    try:
-        return analyze_file(path, **options)
-    except RingdownError as exc:
-        return Analysis.failed(path, exc, settings=dict(options))
+def iter_analyze_files(paths: Sequence[str], *, jobs: int = 1, executor=None, on_notice=None,
+                       **options) -> Iterator[tuple[int, Analysis]]:
+    """Analyse several files; yield ``(position, Analysis)`` as each finishes.
+
+    The batch runner of every command (:func:`ringdown.batch.run_batch`): a file whose analysis
+    fails in any way yields ``Analysis.failed`` with the reason; ``executor`` and ``on_notice``
+    are passed on.
+
+    Raises
+    ------
+    ParameterError
+        For bad options or ``jobs`` (before anything is analysed).
+    """
+    from .batch import run_batch
+
+    paths = [str(p) for p in paths]
+    AnalysisOptions.from_kwargs({k: v for k, v in options.items() if k not in ("channel", "column", "sample_rate")})
+    if jobs is None or isinstance(jobs, bool) or not isinstance(jobs, int) or jobs < 1:
+        raise ParameterError(f"jobs must be >= 1; got {jobs!r}")
+    task = _FileTask(dict(options))
+    yield from run_batch(task, paths, on_error=task.failed, jobs=jobs, executor=executor, on_notice=on_notice)
+
+
+class _FileTask:
+    """Picklable ``analyze_file`` with fixed options, and the failed record of a path."""
+
+    def __init__(self, options: dict) -> None:
+        self.options = options
+
+    def __call__(self, path: str) -> Analysis:
+        return analyze_file(path, **self.options)
+
+    def failed(self, path: str, exc: Exception) -> Analysis:
+        return Analysis.failed(path, exc, settings=dict(self.options))
 
 
 # ----------------------------------------------------------------------------------------------
@@ -286,6 +307,7 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
     if rec.n_channels > 1:
         rec_warnings.append(Notice("multichannel", f"{name} holds {rec.n_channels} channels (or data columns); only "
                                                    f"{rec.channel!r} was analysed (choose another with --channel)"))
+    rec_warnings.extend(Notice(code, message) for code, message in getattr(rec, "notes", ()))
     if rec.timing_jitter is not None and rec.timing_jitter > 1e-6:
         rec_warnings.append(Notice("timing_jitter", f"time steps jitter by {100 * rec.timing_jitter:.3g} % RMS (accepted)"))
 

@@ -66,8 +66,11 @@ class Section:
 # --------------------------------------------------------------------------------------------
 
 def _e(value: Any) -> str:
-    """Escape anything for HTML text or attribute values."""
-    return html.escape(str(value), quote=True)
+    """Escape anything for HTML text or attribute values; control and bidi characters shown
+    escaped (:func:`ringdown.outputs.shown`)."""
+    from .outputs import shown
+
+    return html.escape(shown(value), quote=True)
 
 
 def _num(v: Any, digits: int = 6) -> str:
@@ -598,7 +601,7 @@ def render_report(analyses, *, settings: dict | None = None, title: str | None =
     if pairs:
         parts.append(_kv_table(pairs))
     if notes:
-        parts.append(f'<p class="notes">{_e(notes)}</p>')
+        parts.append('<p class="notes">' + "<br>".join(_e(x) for x in str(notes).splitlines()) + "</p>")
     parts.append("</header>")
     if settings:
         parts.append('<section id="run-settings"><h2>Run settings</h2>')
@@ -639,13 +642,10 @@ def write_report(analyses, path, **kw) -> str:
 
 def _write(text: str, path) -> str:
     path = os.fspath(path)
-    try:
-        with open(path, "w", encoding="utf-8") as fh:
-            fh.write(text)
-    except OSError as exc:
-        raise ParameterError(
-            f"cannot write the report to {path!r}: {exc.strerror or exc}; choose a writable path"
-        ) from exc
+    from .outputs import atomic_write
+
+    with atomic_write(path, what="the report to") as fh:  # renamed into place: never half a report
+        fh.write(text)
     return path
 
 
@@ -773,7 +773,8 @@ def _list_cell(items: Sequence[dict]) -> Cell:
     return Cell('<ul class="cell">' + "".join(f"<li>{_e(x['message'])}</li>" for x in items) + "</ul>", raw=True)
 
 
-def render_check_report(rows: Sequence[dict], analyses: Sequence, limits, **kw) -> str:
+def render_check_report(rows: Sequence[dict], analyses: Sequence, limits, *, more_sections: Sequence[Section] = (),
+                        **kw) -> str:
     """The check report: verdicts first, the limits used, then each part with its figures
     (all of them for a part that failed, the overview for one that passed).
 
@@ -789,6 +790,8 @@ def render_check_report(rows: Sequence[dict], analyses: Sequence, limits, **kw) 
     **kw
         Keywords of :func:`render_report` (``title``, ``notes``, ``fields`` with station and
         operator ...).
+    more_sections : sequence of Section
+        Shown after the limits (e.g. parts taken from the history).
     """
     from .check import verdict_kind
 
@@ -826,7 +829,7 @@ def render_check_report(rows: Sequence[dict], analyses: Sequence, limits, **kw) 
     kw.setdefault("figures", [True if k in ("fail", "error") else "overview" for _r, _a, k in shown])
     return render_report([a for _r, a, _k in shown],
                          extra_sections=[Section("Pass/fail", head + table, anchor="checks"),
-                                         Section("Limits used", lim, anchor="limits")],
+                                         Section("Limits used", lim, anchor="limits"), *more_sections],
                          file_extras=extras, verdicts=[k for _r, _a, k in shown], **kw)
 
 

@@ -380,7 +380,7 @@ def test_header_fields_are_escaped_in_css_and_html():
     text = render_report([a], figures=False, title='</style><script>x"', notes="line 1\nline <2>",
                          fields=[("serial", "S<1>")])
     assert "<script>" not in text and "</style><script>" not in text
-    assert "line 1\nline &lt;2&gt;" in text
+    assert "line 1<br>line &lt;2&gt;" in text
     doc = _parse(text)
     kv = {r[0]: r[1] for t in doc.tables for r in t if len(r) == 2}
     assert kv["serial"] == "S<1>"

@@ -12,8 +12,9 @@ from typing import List, Optional
 import typer
 
 from ..numfmt import fmt_fixed, fmt_pm, fmt_value
-from ._common import (DEBUG_OPTION, EXIT_ERROR, EXIT_OK, default_jobs, error_line, expand_inputs, guarded,
-                      on_terminal, print_json, print_json_line, progress_bar, uses_stdin)
+from ._common import (DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_INTERRUPTED, EXIT_OK, RECURSIVE_OPTION,
+                      default_jobs, error_line, expand_inputs, guarded, note_line, on_terminal, print_json,
+                      print_json_line, progress_bar, usage_guarded, uses_stdin)
 from ._options import Channel, Column, Jsonl, Notes, SampleRate, Serial, Title, reader_options, report_header
 
 __all__ = ["register", "parse_band", "parse_columns", "format_table", "TABLE_COLUMNS", "DEFAULT_COLUMNS"]
@@ -73,10 +74,12 @@ def format_table(analysis, columns: tuple[str, ...] = DEFAULT_COLUMNS) -> str:
     Numbers are written by :func:`ringdown.numfmt.fmt_pm`: ``611.999885(83)`` is
     611.999885 ± 0.000083.
     """
+    from ..outputs import shown
+
     if analysis.error is not None:
         return ""
     lines = []
-    head = "- (standard input)" if analysis.path == "-" else f"{analysis.path or '<array>'}"
+    head = "- (standard input)" if analysis.path == "-" else shown(analysis.path or "<array>")
     used = sum(1 for h in analysis.hits if h.used)
     unit = f" [{analysis.unit}]" if analysis.unit else ""
     head += (f"  ({fmt_value(analysis.sample_rate_hz, 7)} Hz, {fmt_value(analysis.duration_s, 3)} s, "
@@ -98,25 +101,29 @@ def format_table(analysis, columns: tuple[str, ...] = DEFAULT_COLUMNS) -> str:
 
 
 def write_csv(analyses, path: str) -> None:
-    """One row per mode of every analysed file (files that failed get one row with the error)."""
+    """One row per mode of every analysed file (files that failed get one row with the error).
+
+    Written to a temporary file and renamed into place; text cells are neutralised
+    (:func:`ringdown.outputs.csv_cell`)."""
+    from ..outputs import atomic_write, csv_row
     from ..results import mode_keys
 
     keys = [k for k in mode_keys() if k not in ("warnings", "cross_checks", "damping_vs_amplitude", "band_hz")]
-    with open(path, "w", newline="", encoding="utf-8") as fh:
+    with atomic_write(path, newline="", what="CSV") as fh:
         w = csv.writer(fh)
         w.writerow(["path", "sha256", "channel", *keys, "warnings", "error"])
         for a in analyses:
             if a.error is not None:
-                w.writerow([a.path, a.sha256, a.channel, *([""] * len(keys)), "", a.error.message])
+                w.writerow(csv_row([a.path, a.sha256, a.channel, *([None] * len(keys)), None, a.error.message]))
                 continue
             for m in a.modes:
                 d = m.to_dict()
-                w.writerow([a.path, a.sha256, a.channel, *["" if d[k] is None else d[k] for k in keys],
-                            ";".join(m.warning_codes), ""])
+                w.writerow(csv_row([a.path, a.sha256, a.channel, *[d[k] for k in keys],
+                                    ";".join(m.warning_codes), None]))
 
 
 def register(app: typer.Typer) -> None:
-    @app.command("analyze")
+    @app.command("analyze", epilog=EXIT_EPILOG)
     def analyze_cmd(
         files: List[str] = typer.Argument(..., help="Recordings (WAV/FLAC/OGG/CSV, TDMS, UFF 58, MAT, HDF5), folders "
                                                     "or glob patterns; '-' reads one recording from standard input."),
@@ -146,32 +153,49 @@ def register(app: typer.Typer) -> None:
         part_id: Optional[str] = typer.Option(None, "--part-id", help="Regex taking the part id from the file name (first group)."),
         station: Optional[str] = typer.Option(None, "--station", help="Test station, stored with each result."),
         operator: Optional[str] = typer.Option(None, "--operator", help="Operator, stored with each result."),
+        recursive: bool = RECURSIVE_OPTION,
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Measure every mode of each recording: f_d, beta, f_n, zeta, Q, loss factor, dB/s, T60."""
-        from ..pipeline import AnalysisOptions, analyze_many
-        from .render import check_plot_format
+        from ..pipeline import AnalysisOptions, iter_analyze_files
 
         started = time.perf_counter()
 
-        def validate():
-            if json_out and jsonl:
-                from ..errors import ParameterError
+        def parse():
+            from ..errors import ParameterError
+            from ..store import part_id_from_path
+            from .render import check_plot_format
 
+            if json_out and jsonl:
                 raise ParameterError("--json and --jsonl are exclusive: --json prints one document at the end, "
                                      "--jsonl one line per file as it is ready; choose one")
-            if plot is not None:
-                check_plot_format(plot_format)
             bands = [parse_band(b) for b in band] if band else None
-            options = dict(reader_options(channel, column, sample_rate), method=method, bands=bands,
-                           max_modes=max_modes, min_snr_db=min_snr_db, min_hit_snr_db=min_hit_snr_db,
-                           keep_double_hits=keep_double_hits)
+            opts = dict(reader_options(channel, column, sample_rate), method=method, bands=bands,
+                        max_modes=max_modes, min_snr_db=min_snr_db, min_hit_snr_db=min_hit_snr_db,
+                        keep_double_hits=keep_double_hits)
             AnalysisOptions(method=method, bands=bands, max_modes=max_modes, min_snr_db=min_snr_db,
                             min_hit_snr_db=min_hit_snr_db)
-            return options, parse_columns(columns), expand_inputs(files)
+            if jobs is not None and jobs < 1:
+                raise ParameterError(f"--jobs must be >= 1; got {jobs}")
+            if plot is not None:
+                check_plot_format(plot_format)
+            part_id_from_path("x", part_id)  # a bad --part-id regex is a usage error
+            return opts, parse_columns(columns)
 
         # every option is checked before any file is read
-        options, cols, paths = guarded(validate, debug=debug)
+        options, cols = usage_guarded(parse, debug=debug)
+        db_path = None
+        if store:
+            from ._common import resolve_db
+
+            db_path = resolve_db(db)
+        paths = expand_inputs(files, recursive=recursive, exclude=[csv_out, report, db_path])
+        if not paths:
+            error_line(f"no recordings to analyse in {', '.join(files)}")
+            raise typer.Exit(EXIT_ERROR)
+        # '-' is read in this process: worker processes do not share standard input
+        n_jobs = 1 if usage_guarded(lambda: uses_stdin(paths), debug=debug) else (jobs or default_jobs())
+        history = guarded(lambda: _prepare_outputs(csv_out, report, plot, db_path), debug=debug)
 
         def arrived(a) -> None:
             """Each result as it is ready: its error on stderr, its line or table on stdout."""
@@ -183,19 +207,24 @@ def register(app: typer.Typer) -> None:
                 sys.stdout.write(format_table(a, cols))
                 sys.stdout.flush()
 
-        def run():
-            # '-' is read in this process: worker processes do not share standard input
-            n_jobs = 1 if uses_stdin(paths) else (jobs or default_jobs())
-            bar, task = progress_bar(on_terminal(json_out or jsonl) and len(paths) > 1, len(paths), "analysing")
+        results: list = [None] * len(paths)
+        interrupted = False
+        storer = _Storer(history, part_id, station, operator)
+        bar, task = progress_bar(on_terminal(json_out or jsonl) and len(paths) > 1, len(paths), "analysing")
+        try:
             with bar:
-                def progress(a):
+                for i, a in iter_analyze_files(paths, jobs=n_jobs, on_notice=note_line, **options):
+                    results[i] = a
+                    storer.add(a)  # durable before anything else is written
                     bar.advance(task)
                     arrived(a)
+        except KeyboardInterrupt:
+            interrupted = True
+        finally:
+            storer.close()
+        analyses = [a for a in results if a is not None]
 
-                return analyze_many(paths, jobs=n_jobs, progress=progress, **options)
-
-        analyses = guarded(run, debug=debug)
-        if debug:
+        if debug and not interrupted:
             for a in analyses:
                 if a.error is not None and a.path != "-":
                     from ..pipeline import analyze_file
@@ -205,41 +234,108 @@ def register(app: typer.Typer) -> None:
             from ..results import results_document
 
             print_json(results_document(analyses))
+        failed_outputs = 0
         if csv_out is not None:
-            guarded(lambda: write_csv(analyses, str(csv_out)), debug=debug)
+            failed_outputs += _try(lambda: write_csv(analyses, str(csv_out)), debug)
         header = report_header(title, notes, serial, station=station, operator=operator)
-        _render(analyses, plot, plot_format, report, options, debug, header)
-        if store:
-            guarded(lambda: _store(analyses, db, part_id, station, operator), debug=debug)
+        failed_outputs += _render(analyses, plot, plot_format, report, options, debug, header)
+        storer.report()
         errors = sum(1 for a in analyses if a.error is not None)
+        if interrupted:
+            error_line(f"interrupted: {len(analyses)} of {len(paths)} done"
+                       + (" (stored)" if history is not None else "") + ", rerun to resume")
+            raise typer.Exit(EXIT_INTERRUPTED)
         if len(analyses) > 1 and not json_out:
             typer.echo(f"{len(analyses)} files: {len(analyses) - errors} analysed, {errors} errors, "
                        f"{sum(len(a.modes) for a in analyses)} modes in {time.perf_counter() - started:.1f} s",
                        err=jsonl)
-        raise typer.Exit(EXIT_ERROR if errors else EXIT_OK)
+        bad = errors or failed_outputs or storer.failed or paths.problems
+        raise typer.Exit(EXIT_ERROR if bad else EXIT_OK)
 
 
-def _store(analyses, db, part_id, station, operator) -> None:
-    from ..store import ResultStore, part_id_from_path
-    from ._common import resolve_db
+def _prepare_outputs(csv_out, report, plot, db_path):
+    """Check every output before the analysis starts; open the history. Returns the store or None."""
+    from ..outputs import check_writable, remove_stale
 
-    path = resolve_db(db)
-    with ResultStore(path) as st:
-        for a in analyses:
-            st.record_analysis(a, part_id=part_id_from_path(a.path or "array", part_id), station=station,
-                               operator=operator)
-    typer.echo(f"stored {len(analyses)} result(s) in {path}", err=True)
-
-
-def _render(analyses, plot, plot_format, report, options, debug, header=None) -> None:
-    if plot is None and report is None:
-        return
-    try:
-        from . import render
-    except ImportError:  # plots and reports not built yet
-        error_line("plots and reports are not available in this build")
-        raise typer.Exit(EXIT_ERROR) from None
-    if plot is not None:
-        guarded(lambda: render.write_plots(analyses, plot, plot_format), debug=debug)
+    if csv_out is not None:
+        check_writable(csv_out, "CSV")
     if report is not None:
-        guarded(lambda: render.write_report(analyses, report, options, header), debug=debug)
+        check_writable(report, "report")
+    if plot is not None:
+        check_writable(plot, "plot", folder=True)
+    history = None
+    if db_path is not None:
+        from ..store import ResultStore
+
+        history = ResultStore(db_path)
+    for out in (csv_out, report):
+        if out is not None:
+            remove_stale(out)  # a killed run must not leave the last run's output looking current
+    return history
+
+
+def _try(fn, debug) -> int:
+    """Run one output writer; its error is one line (the other outputs still get written). 1 on error."""
+    from ..errors import RingdownError
+
+    try:
+        fn()
+        return 0
+    except RingdownError as exc:
+        if debug:
+            raise
+        error_line(str(exc))
+        return 1
+
+
+class _Storer:
+    """``--store``: each result in its own transaction as it arrives; one already stored (same
+    file SHA-256 and settings) is not stored again."""
+
+    def __init__(self, history, part_id, station, operator) -> None:
+        self.history, self.part_id, self.station, self.operator = history, part_id, station, operator
+        self.stored = self.skipped = 0
+        self.failed = False
+
+    def add(self, a) -> None:
+        if self.history is None or self.failed:
+            return
+        from ..errors import StoreError
+        from ..store import part_id_from_path
+        from ._common import sigint_deferred
+
+        try:
+            with sigint_deferred():
+                rid = self.history.record_analysis(a, part_id=part_id_from_path(a.path or "array", self.part_id),
+                                                   station=self.station, operator=self.operator, skip_stored=True)
+        except StoreError as exc:
+            error_line(f"{exc}; results from here on are not stored")
+            self.failed = True
+            return
+        if rid is None:
+            self.skipped += 1
+        else:
+            self.stored += 1
+
+    def close(self) -> None:
+        if self.history is not None:
+            self.history.close()
+
+    def report(self) -> None:
+        if self.history is not None:
+            extra = f" ({self.skipped} already stored, skipped)" if self.skipped else ""
+            typer.echo(f"stored {self.stored} result(s) in {self.history.path}{extra}", err=True)
+
+
+def _render(analyses, plot, plot_format, report, options, debug, header=None) -> int:
+    """Figures and report; returns the number of outputs that could not be written."""
+    if plot is None and report is None:
+        return 0
+    from . import render
+
+    bad = 0
+    if plot is not None:
+        bad += _try(lambda: render.write_plots(analyses, plot, plot_format), debug)
+    if report is not None:
+        bad += _try(lambda: render.write_report(analyses, report, options, header), debug)
+    return bad

@@ -21,7 +21,8 @@ import typer
 
 from ..errors import RingdownError
 from ..numfmt import fmt_interval, fmt_pm, fmt_value
-from ._common import DEBUG_OPTION, EXIT_ERROR, EXIT_OK, error_line, expand_inputs, guarded, print_json
+from ._common import (DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_OK, error_line, expand_inputs, guarded,
+                      print_json, usage_error)
 from ._options import Channel, Column, Notes, SampleRate, Serial, Title, reader_options, report_header
 
 __all__ = ["register", "format_table"]
@@ -76,20 +77,20 @@ def format_table(comparison) -> str:
 
 def _write_csv(comparison, out: Path) -> None:
     from ..compare import comparison_rows
+    from ..errors import RingdownError
+    from ..outputs import atomic_write, csv_row
 
     rows = comparison_rows(comparison)
     if not rows:
         return
     try:
-        with open(out, "w", newline="", encoding="utf-8") as fh:
-            w = csv.DictWriter(fh, fieldnames=list(rows[0].keys()))
-            w.writeheader()
+        with atomic_write(out, newline="", what="CSV file") as fh:
+            w = csv.writer(fh)
+            w.writerow(list(rows[0].keys()))
             for r in rows:
-                w.writerow({k: "" if v is None else v for k, v in r.items()})
-    except OSError as exc:
-        raise _OutputError(
-            f"cannot write CSV file '{out}': {exc.strerror or exc}; check the folder and permissions"
-        ) from exc
+                w.writerow(csv_row(r.values()))
+    except RingdownError as exc:
+        raise _OutputError(str(exc)) from None
 
 
 def _write_plot(comparison, out_dir: Path) -> Path:
@@ -136,8 +137,9 @@ def register(app: typer.Typer) -> None:
             "Compare each mode's frequency and damping before and after a treatment. "
             "Repeat --before/--after per file, or give a folder or a quoted pattern. "
             "Every used hit is one repeat; damping is tested on ln(zeta) (Welch t with >= 2 "
-            "repeats a side). Exit 0 when done, 2 when an input could not be analysed."
+            "repeats a side)."
         ),
+        epilog=EXIT_EPILOG,
     )
     def compare_cmd(
         ctx: typer.Context,
@@ -172,11 +174,10 @@ def register(app: typer.Typer) -> None:
         debug: bool = DEBUG_OPTION,
     ) -> None:
         if ctx.args:
-            error_line(
+            usage_error(
                 f"unexpected argument '{ctx.args[0]}': give each file its own --before/--after, "
                 "a folder, or a quoted pattern (--before 'bare_*.wav')"
             )
-            raise typer.Exit(EXIT_ERROR)
         from ..compare import compare
 
         b = expand_inputs(before)
@@ -205,4 +206,4 @@ def register(app: typer.Typer) -> None:
             guarded(lambda: _write_report(comparison, report_out, report_header(title, notes, serial)), debug=debug)
         for i in comparison.failed_inputs:
             error_line(f"{i.side}: {i.error.message}")
-        raise typer.Exit(EXIT_OK if comparison.ok else EXIT_ERROR)
+        raise typer.Exit(EXIT_OK if comparison.ok and not (a.problems or b.problems) else EXIT_ERROR)

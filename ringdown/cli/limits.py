@@ -1,7 +1,7 @@
 """``ringdown limits learn`` and ``ringdown check``: acceptance limits and pass/fail of parts.
 
 Exit status of ``check``: 0 every part passed, 1 any part failed, 2 any part could not be
-analysed or the command could not run (errors win over failures).
+analysed or a file could not be used (errors win over failures), 64 usage error, 130 interrupted.
 """
 
 from __future__ import annotations
@@ -16,8 +16,9 @@ from typing import List, Optional
 import typer
 
 from ..numfmt import fmt_value, fmt_values
-from ._common import (DEBUG_OPTION, EXIT_ERROR, EXIT_FAIL, EXIT_OK, default_jobs, error_line, expand_inputs,
-                      guarded, on_terminal, print_json, print_json_line, progress_bar, resolve_db, uses_stdin, DB_ENV)
+from ._common import (DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_FAIL, EXIT_INTERRUPTED, EXIT_OK, RECURSIVE_OPTION,
+                      default_jobs, error_line, expand_inputs, guarded, note_line, on_terminal, print_json,
+                      print_json_line, progress_bar, resolve_db, sigint_deferred, usage_guarded, uses_stdin, DB_ENV)
 from ._options import Channel, Column, Jsonl, Notes, SampleRate, Serial, Title, reader_options, report_header
 
 __all__ = ["register", "format_check"]
@@ -53,13 +54,15 @@ def _stream(row: dict, json_out: bool, jsonl: bool) -> None:
 
 def format_check(row: dict) -> str:
     """Plain-text lines for one part (what ``check`` prints without ``--json``)."""
+    from ..outputs import shown
+
     verdict = row["verdict"].upper()
     skipped = "  (already stored, skipped)" if row.get("skipped") else ""
-    lines = [f"{verdict:5}  {row['part_id']}  {row['path']}{skipped}"]
+    lines = [f"{verdict:5}  {shown(row['part_id'])}  {shown(row['path'])}{skipped}"]
     for r in row.get("reasons", []):
-        lines.append(f"       - {r['message']}")
+        lines.append(f"       - {shown(r['message'])}")
     for n in row.get("notes", []):
-        lines.append(f"       note: {n['message']}")
+        lines.append(f"       note: {shown(n['message'])}")
     return "\n".join(lines)
 
 
@@ -68,30 +71,27 @@ def _write_csv(rows: list[dict], limits, path: str) -> None:
     head = ["part_id", "path", "sha256", "verdict", "skipped", "mahalanobis", "uniform_shift", "reasons", "notes"]
     for j in range(1, n + 1):
         head += [f"mode{j}_f_d_hz", f"mode{j}_zeta", f"mode{j}_ratio"]
-    try:
-        with open(path, "w", newline="", encoding="utf-8") as fh:
-            w = csv.writer(fh)
-            w.writerow(head)
-            for r in rows:
-                vals = {(f["mode"], f["feature"]): f["value"] for f in r.get("features", [])}
-                line = [r["part_id"], r["path"], r.get("sha256"), r["verdict"], bool(r.get("skipped")),
-                        r.get("mahalanobis"), r.get("uniform_shift"),
-                        "; ".join(x["message"] for x in r.get("reasons", [])),
-                        "; ".join(x["message"] for x in r.get("notes", []))]
-                for j in range(1, n + 1):
-                    line += [vals.get((j, "f_hz")), vals.get((j, "zeta")), vals.get((j, "ratio"))]
-                w.writerow(["" if v is None else v for v in line])
-    except OSError as exc:
-        from ..errors import ParameterError
+    from ..outputs import atomic_write, csv_row
 
-        raise ParameterError(f"cannot write CSV '{path}': {exc.strerror or exc}; choose a writable path") from exc
+    with atomic_write(path, newline="", what="CSV") as fh:
+        w = csv.writer(fh)
+        w.writerow(head)
+        for r in rows:
+            vals = {(f["mode"], f["feature"]): f["value"] for f in r.get("features", [])}
+            line = [r["part_id"], r["path"], r.get("sha256"), r["verdict"], bool(r.get("skipped")),
+                    r.get("mahalanobis"), r.get("uniform_shift"),
+                    "; ".join(x["message"] for x in r.get("reasons", [])),
+                    "; ".join(x["message"] for x in r.get("notes", []))]
+            for j in range(1, n + 1):
+                line += [vals.get((j, "f_hz")), vals.get((j, "zeta")), vals.get((j, "ratio"))]
+            w.writerow(csv_row(line))
 
 
 def _write_report(rows: list[dict], limits, path: str, options: dict, header: dict) -> None:
     """The check report, with each analysed part's figures: the parts are analysed again here,
     in this process, because a batch keeps no samples (the verdicts come from the batch)."""
     from ..pipeline import analyze_file
-    from ..report import _write, render_check_report
+    from ..report import Section, _write, html_table, render_check_report
     from ..results import Analysis
 
     opts = {**limits.analysis_options(), **options}
@@ -104,13 +104,27 @@ def _write_report(rows: list[dict], limits, path: str, options: dict, header: di
             analyses.append(analyze_file(r["path"], **opts))
         except Exception as exc:  # noqa: BLE001  the verdict stands; the report says why figures are missing
             analyses.append(Analysis.failed(r["path"], exc, settings=opts))
-    _write(render_check_report(rows, analyses, limits, **header), path)
+    sections = []
+    stored = [r for r in rows if r.get("skipped")]
+    if stored:
+        # parts skipped as already stored: their modes from the stored record, in full
+        body = []
+        for r in stored:
+            body.append(html_table(
+                ["part", "path", "verdict", "mode", "f_d [Hz]", "u(f_d) [Hz]", "beta [1/s]", "zeta", "u(zeta)", "Q"],
+                [[r["part_id"], r["path"], r["verdict"].upper(), m.get("index"), m.get("f_d_hz"), m.get("f_d_hz_u"),
+                  m.get("beta_per_s"), m.get("zeta"), m.get("zeta_u"), m.get("q")] for m in r.get("modes", [])]
+                or [[r["part_id"], r["path"], r["verdict"].upper(), "-", "-", "-", "-", "-", "-", "-"]],
+            ))
+        sections.append(Section("Parts taken from the history (already stored, not re-analysed)", "".join(body),
+                                anchor="stored"))
+    _write(render_check_report(rows, analyses, limits, more_sections=sections, **header), path)
 
 
 def register(app: typer.Typer) -> None:
     limits_app = typer.Typer(help="Acceptance limits learned from known-good parts.", no_args_is_help=True)
 
-    @limits_app.command("learn")
+    @limits_app.command("learn", epilog=EXIT_EPILOG)
     def learn(
         files: List[str] = typer.Argument(..., help="Recordings of known-good parts (files, folders, glob patterns)."),
         output: str = typer.Option("limits.toml", "-o", "--output", help="Limits file to write (TOML)."),
@@ -128,21 +142,30 @@ def register(app: typer.Typer) -> None:
         jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
         force: bool = typer.Option(False, "--force", help="Overwrite an existing limits file."),
         json_out: bool = typer.Option(False, "--json", help="Print the limits as JSON."),
+        recursive: bool = RECURSIVE_OPTION,
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Learn acceptance limits from recordings of known-good parts and write them as TOML."""
         from ..pipeline import analyze_many
         from ..limits import learn_limits, write_limits
 
-        def run():
-            paths = expand_inputs(files)
-            if Path(output).exists() and not force:
-                from ..errors import ParameterError
+        opts = usage_guarded(lambda: _analysis_options(method, min_snr_db, max_modes, band, channel), debug=debug)
 
+        def run():
+            from ..errors import ParameterError
+            from ..outputs import check_writable
+
+            paths = expand_inputs(files, recursive=recursive, exclude=[output])
+            if paths.problems:
+                raise ParameterError("every good part must be readable; fix the folders or patterns named above")
+            if Path(output).exists() and not force:
                 raise ParameterError(f"'{output}' exists; use --force to overwrite it or -o to choose another file")
-            opts = {**_analysis_options(method, min_snr_db, max_modes, band),
-                    **reader_options(channel, column, sample_rate)}
-            analyses = analyze_many(paths, jobs=1 if uses_stdin(paths) else max(1, jobs), **opts)
+            check_writable(output, "limits file")
+            try:
+                analyses = analyze_many(paths, jobs=1 if uses_stdin(paths) else max(1, jobs), **opts)
+            except KeyboardInterrupt:
+                error_line(f"interrupted: no limits written to '{output}'; rerun to learn them")
+                raise typer.Exit(EXIT_INTERRUPTED) from None
             bad = [a for a in analyses if a.error is not None]
             if bad:
                 from ..errors import ParameterError
@@ -176,7 +199,7 @@ def register(app: typer.Typer) -> None:
 
     app.add_typer(limits_app, name="limits")
 
-    @app.command("check")
+    @app.command("check", epilog=EXIT_EPILOG)
     def check_cmd(
         files: List[str] = typer.Argument(..., help="Recordings of parts to check (files, folders, glob patterns)."),
         limits_path: str = typer.Option(..., "--limits", "-l", help="Limits file (TOML)."),
@@ -198,10 +221,12 @@ def register(app: typer.Typer) -> None:
                                               "(first group, or the whole match); default the file stem."),
         force: bool = typer.Option(False, "--force", help="Re-check files already stored with the same limits."),
         jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
+        recursive: bool = RECURSIVE_OPTION,
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Check parts against limits: PASS or FAIL with every reason; store each result."""
         from ..check import iter_check_files
+        from ..errors import RingdownError
         from ..limits import read_limits
         from ..store import ResultStore, file_sha256, part_id_from_path
 
@@ -210,49 +235,74 @@ def register(app: typer.Typer) -> None:
             error_line("--json and --jsonl are exclusive: --json prints one document at the end, --jsonl one "
                        "line per part as it is checked; choose one")
             raise typer.Exit(EXIT_ERROR)
-        overrides = guarded(lambda: reader_options(channel, column, sample_rate), debug=debug)
+        overrides = usage_guarded(lambda: reader_options(channel, column, sample_rate), debug=debug)
+        usage_guarded(lambda: part_id_from_path("x", part_id), debug=debug)  # a bad regex is a usage error
         lim = guarded(lambda: read_limits(limits_path), debug=debug)
-        paths = expand_inputs(files)
-        n_jobs = guarded(lambda: 1 if uses_stdin(paths) else max(1, jobs), debug=debug)
+        db_path = None if no_store else resolve_db(db)
+        paths = expand_inputs(files, recursive=recursive, exclude=[csv_out, report, db_path, limits_path])
+        n_jobs = usage_guarded(lambda: 1 if uses_stdin(paths) else max(1, jobs), debug=debug)
         if not paths:
             error_line(f"no recordings found in {', '.join(files)}; give files, folders or glob patterns")
             raise typer.Exit(EXIT_ERROR)
-        ids = guarded(lambda: [part_id_from_path(p, part_id) for p in paths], debug=debug)
-        store = None
-        if not no_store:
-            store = guarded(lambda: ResultStore(resolve_db(db)), debug=debug)
-            guarded(lambda: store.record_limits(lim), debug=debug)
+        ids = [part_id_from_path(p, part_id) for p in paths]
+
+        def prepare():
+            from ..outputs import check_writable, remove_stale
+
+            for out, what in ((csv_out, "CSV"), (report, "report")):
+                if out:
+                    check_writable(out, what)
+            st = None
+            if db_path is not None:
+                st = ResultStore(db_path)
+                try:
+                    st.record_limits(lim)
+                except Exception:
+                    st.close()
+                    raise
+            for out in (csv_out, report):
+                if out:
+                    remove_stale(out)  # a killed run must not leave the last run's output looking current
+            return st
+
+        store = guarded(prepare, debug=debug)
+        rows: list[dict | None] = [None] * len(paths)
+        results = [None] * len(paths)
+        interrupted = store_failed = False
         try:
-            rows: list[dict | None] = [None] * len(paths)
-            results = [None] * len(paths)
             shas = [file_sha256(p) for p in paths]
             todo = []
             for i, p in enumerate(paths):
-                old = None if (store is None or force or shas[i] is None) else store.find_check(shas[i], lim.sha256)
+                old = None if (store is None or force or shas[i] is None) else guarded(
+                    lambda: store.find_check(shas[i], lim.sha256), debug=debug)
                 if old is not None:
-                    rows[i] = {"part_id": ids[i], "path": p, "sha256": shas[i], "verdict": old.verdict,
-                               "skipped": True, "stored_id": old.id, "reasons": list(old.reasons),
-                               "notes": list(old.notes), "features": [], "mahalanobis": old.mahalanobis,
-                               "uniform_shift": old.uniform_shift}
+                    rows[i] = _stored_row(old, ids[i], p, shas[i])
                     _stream(rows[i], json_out, jsonl)
                 else:
                     todo.append(i)
             prog, task = progress_bar(on_terminal(json_out) and len(todo) > 1, len(todo), "checking")
             with prog:
-                it = iter_check_files([paths[i] for i in todo], lim, jobs=n_jobs, options=overrides)
+                it = iter_check_files([paths[i] for i in todo], lim, jobs=n_jobs, on_notice=note_line,
+                                      options=overrides)
                 for pos, res in it:
                     i = todo[pos]
                     if res.sha256 is None and shas[i] is not None:
                         res = replace(res, sha256=shas[i])
-                    stored = None
-                    if store is not None:
-                        r_ = res
-                        stored = guarded(lambda: store.record_check(r_, part_id=ids[i], station=station,
-                                                                    operator=operator, force=force), debug=debug)
-                    results[i] = res
-                    rows[i] = {"part_id": ids[i], "skipped": False, "stored_id": stored, **res.to_dict()}
+                    with sigint_deferred():  # stored and counted whole, or not at all
+                        stored = None
+                        if store is not None and not store_failed:
+                            try:
+                                stored = store.record_check(res, part_id=ids[i], station=station,
+                                                            operator=operator, force=force)
+                            except RingdownError as exc:
+                                error_line(f"{exc}; results from here on are not stored")
+                                store_failed = True
+                        results[i] = res
+                        rows[i] = {"part_id": ids[i], "skipped": False, "stored_id": stored, **res.to_dict()}
                     prog.advance(task)
                     _stream(rows[i], json_out, jsonl)
+        except KeyboardInterrupt:
+            interrupted = True
         finally:
             if store is not None:
                 store.close()
@@ -263,12 +313,16 @@ def register(app: typer.Typer) -> None:
         elapsed = time.monotonic() - t0
         summary = {"parts": len(rows_f), "passed": counts["pass"], "failed": counts["fail"],
                    "errors": counts["error"], "skipped": skipped, "time_s": round(elapsed, 3)}
+        from .analyze import _try
+
+        window: dict = {}
+        failed_outputs = 0
         if csv_out:
-            guarded(lambda: _write_csv(rows_f, lim, csv_out), debug=debug)
+            failed_outputs += _try(lambda: _write_csv(rows_f, lim, csv_out), debug)
         if report:
             header = report_header(title, notes, serial, station=station, operator=operator,
                                    limits=lim.source, **{"limits SHA-256": lim.sha256})
-            guarded(lambda: _write_report(rows_f, lim, report, overrides, header), debug=debug)
+            failed_outputs += _try(lambda: _write_report(rows_f, lim, report, {**overrides, **window}, header), debug)
         if json_out:
             from .._version import __version__
 
@@ -280,5 +334,19 @@ def register(app: typer.Typer) -> None:
                 f"{summary['errors']} errors" + (f" ({skipped} already stored, skipped)" if skipped else "")
                 + f" in {elapsed:.1f} s")
         typer.echo(line, err=json_out or jsonl)
-        code = EXIT_ERROR if counts["error"] else EXIT_FAIL if counts["fail"] else EXIT_OK
+        if interrupted:
+            error_line(f"interrupted: {len(rows_f)} of {len(paths)} done" + (" (stored)" if store is not None else "")
+                       + ", rerun to resume")
+            raise typer.Exit(EXIT_INTERRUPTED)
+        bad = counts["error"] or failed_outputs or store_failed or paths.problems
+        code = EXIT_ERROR if bad else EXIT_FAIL if counts["fail"] else EXIT_OK
         raise typer.Exit(code)
+
+
+def _stored_row(old, part_id: str, path: str, sha: str) -> dict:
+    """The row of a part skipped as already stored: the stored record in full (features, modes)."""
+    rec = dict(old.result) if old.result else {
+        "reasons": list(old.reasons), "notes": list(old.notes), "features": [], "modes": [],
+        "mahalanobis": old.mahalanobis, "uniform_shift": old.uniform_shift, "verdict": old.verdict}
+    rec.update(part_id=part_id, path=path, sha256=sha, verdict=old.verdict, skipped=True, stored_id=old.id)
+    return rec

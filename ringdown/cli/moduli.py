@@ -17,7 +17,7 @@ import typer
 
 from ..errors import ParameterError, RingdownError
 from ..numfmt import fmt_pm, fmt_value, fmt_values
-from ._common import DEBUG_OPTION, EXIT_OK, guarded, print_json
+from ._common import DEBUG_OPTION, EXIT_EPILOG, EXIT_OK, guarded, print_json
 from ._options import Channel, Column, Notes, SampleRate, Serial, Title, reader_options, report_header
 
 __all__ = ["register", "format_table"]
@@ -90,21 +90,21 @@ def _write_csv(result, out: Path) -> None:
     vals = {"e_pa": (result.e_pa, result.e_pa_u), "g_pa": (result.g_pa, result.g_pa_u),
             "poisson": (result.poisson, result.poisson_u),
             "density_kg_per_m3": (result.density_kg_per_m3, result.density_kg_per_m3_u)}
+    from ..errors import RingdownError
+    from ..outputs import atomic_write, csv_row
+
     try:
-        with open(out, "w", newline="", encoding="utf-8") as fh:
+        with atomic_write(out, newline="", what="CSV file") as fh:
             w = csv.writer(fh)
             w.writerow(["quantity", "value", "u", "unit", "dominant_input", "shape", "f_flexural_hz",
                         "f_torsional_hz", "loss_factor_flexural", "loss_factor_torsional", "t1", "r_factor"])
             t = result.torsional
             for q, (v, u) in vals.items():
-                w.writerow([q, "" if v is None else v, "" if u is None else u, unit[q], result.dominant(q) or "",
-                            result.shape, result.flexural.f_hz, "" if t is None else t.f_hz,
-                            "" if result.flexural.loss_factor is None else result.flexural.loss_factor,
-                            "" if t is None or t.loss_factor is None else t.loss_factor, result.t1,
-                            "" if result.r_factor is None else result.r_factor])
-    except OSError as exc:
-        raise _OutputError(f"cannot write CSV file '{out}': {exc.strerror or exc}; check the folder and "
-                           "permissions") from exc
+                w.writerow(csv_row([q, v, u, unit[q], result.dominant(q), result.shape, result.flexural.f_hz,
+                                    None if t is None else t.f_hz, result.flexural.loss_factor,
+                                    None if t is None else t.loss_factor, result.t1, result.r_factor]))
+    except RingdownError as exc:
+        raise _OutputError(str(exc)) from None
 
 
 def _write_report(result, out: Path, settings: dict, header: dict) -> None:
@@ -144,9 +144,9 @@ def register(app: typer.Typer) -> None:
         help=(
             "Young's modulus, shear modulus and Poisson's ratio of a bar or rod from its flexural "
             "(and torsional) tap recordings or frequencies, after ASTM E1876. Dimensions in mm, "
-            "mass in g; each may carry a standard uncertainty (--u-...). Exit 0 when done, 2 when "
-            "an input cannot be used."
+            "mass in g; each may carry a standard uncertainty (--u-...)."
         ),
+        epilog=EXIT_EPILOG,
     )
     def moduli_cmd(
         flexural_file: Optional[str] = typer.Argument(None, metavar="FLEX", help="Recording of the flexural tap."),

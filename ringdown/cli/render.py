@@ -110,11 +110,10 @@ def write_plots(analyses, out_dir, fmt: str = "png") -> list[str]:
             except RingdownError:
                 continue  # data not kept for this figure: nothing to draw
             path = out / f"{name}.{fmt}"
-            try:
-                path.write_bytes(data)
-            except OSError as exc:
-                raise ParameterError(f"cannot write plot {str(path)!r}: {exc.strerror or exc}; "
-                                     "choose a writable folder") from exc
+            from ..outputs import atomic_write
+
+            with atomic_write(path, "wb", what="plot") as fh:  # renamed into place: never half a figure
+                fh.write(data)
             written.append(os.fspath(path))
     return written
 
