@@ -7,6 +7,8 @@ cd "$(dirname "$0")/.."
 RINGDOWN=$(command -v "${RINGDOWN:-ringdown}")
 "$RINGDOWN" analyze example_signals/bracket_tap.wav --plot docs > /dev/null
 rm -f docs/bracket_tap_mode[2-9].png  # the README shows the overview and mode 1
+"$RINGDOWN" analyze example_signals/switch_off.wav --plot docs > /dev/null
+rm -f docs/switch_off_mode1.png  # the README shows the overview of the switched-off circuit
 
 # a check report of three line parts, printed to PDF by headless Chromium; its first page as PNG
 tmp=$(mktemp -d)

@@ -44,8 +44,22 @@ class AnalysisOptions:
     min_snr_db: float = 10.0
     min_hit_snr_db: float = 20.0
     keep_double_hits: bool = False
+    start_s: float | None = None
+    end_s: float | None = None
 
     def __post_init__(self) -> None:
+        for name in ("start_s", "end_s"):
+            v = getattr(self, name)
+            if v is not None:
+                try:
+                    v = float(v)
+                except (TypeError, ValueError):
+                    raise ParameterError(f"{name} is a time in seconds from the record start; got {v!r}") from None
+                if not (math.isfinite(v) and v >= 0):
+                    raise ParameterError(f"{name} must be a finite time >= 0 s; got {v!r}")
+                object.__setattr__(self, name, v)
+        if self.start_s is not None and self.end_s is not None and self.end_s <= self.start_s:
+            raise ParameterError(f"end_s ({self.end_s:g} s) must come after start_s ({self.start_s:g} s)")
         if self.method not in method_names():
             raise ParameterError(f"unknown method {self.method!r}; choose one of {', '.join(method_names())}")
         if self.max_modes is not None and (not isinstance(self.max_modes, (int, np.integer)) or self.max_modes < 1):
@@ -89,6 +103,8 @@ class AnalysisOptions:
             "min_snr_db": self.min_snr_db,
             "min_hit_snr_db": self.min_hit_snr_db,
             "keep_double_hits": self.keep_double_hits,
+            "start_s": self.start_s,
+            "end_s": self.end_s,
         }
 
 
@@ -106,6 +122,8 @@ def analyze(
     min_snr_db: float = 10.0,
     min_hit_snr_db: float = 20.0,
     keep_double_hits: bool = False,
+    start_s: float | None = None,
+    end_s: float | None = None,
 ) -> Analysis:
     """Measure every mode of a ring-down record given as an array.
 
@@ -129,6 +147,10 @@ def analyze(
     keep_double_hits : bool
         Combine hits flagged ``double_hit`` (hammer bounce) with the others instead of leaving
         them out.
+    start_s, end_s : float or None, s
+        Analyse only the samples from ``start_s`` to ``end_s`` (seconds from the first sample;
+        ``None``: the record's start or end), for a user who knows where the decay is. Times in
+        the result stay measured from the record's first sample.
 
     Returns
     -------
@@ -146,7 +168,7 @@ def analyze(
     rec = Recording(np.asarray(x, dtype=np.float64), sample_rate)
     return analyze_recording(
         rec, method=method, bands=bands, max_modes=max_modes, min_snr_db=min_snr_db,
-        min_hit_snr_db=min_hit_snr_db, keep_double_hits=keep_double_hits,
+        min_hit_snr_db=min_hit_snr_db, keep_double_hits=keep_double_hits, start_s=start_s, end_s=end_s,
     )
 
 
@@ -166,9 +188,14 @@ def analyze_file(
     """
     from .io import read_recording
 
-    rec = read_recording(path, channel=channel, column=column, sample_rate=sample_rate)
-    reader = {"channel": channel, "column": column, "sample_rate": sample_rate}
-    return analyze_recording(rec, reader_settings=reader, **options)
+    try:
+        rec = read_recording(path, channel=channel, column=column, sample_rate=sample_rate)
+        reader = {"channel": channel, "column": column, "sample_rate": sample_rate}
+        return analyze_recording(rec, reader_settings=reader, **options)
+    except MemoryError as exc:
+        # one line for this file; a batch keeps the other files' results
+        raise InputError(f"{str(path)!r} needs more memory than is available to read or analyse it; "
+                         "cut it shorter (--start/--end) or split it") from exc
 
 
 def analyze_many(
@@ -267,29 +294,29 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
             raise ParameterError(
                 f"band {lo:g}-{hi:g} Hz lies above Nyquist ({nyq:g} Hz) for {name}; lower the band or resample"
             )
-    raw = rec.samples
+    raw, i0 = _time_window(rec, opts, name)
     peak_abs = float(np.max(np.abs(raw)))
     if peak_abs > MAX_ABS_SAMPLE:
         raise InputError(f"{name} holds values up to {peak_abs:.3g}, beyond the {MAX_ABS_SAMPLE:g} that can be squared "
                          "without overflow; rescale the signal (e.g. to volts or m/s^2)")
     if float(np.ptp(raw)) == 0.0:
         raise InputError(f"{name} is constant (every sample is {raw[0]:g}): nothing rings down")
-    x = condition.remove_drift(raw, fs)
+    x, step = condition.remove_drift_and_step(raw, fs)
     scale = float(np.max(np.abs(x)))
     if scale == 0.0 or scale < 1e-12 * max(float(np.max(np.abs(raw))), 1e-300):
         raise InputError(f"{name} holds only a constant offset or a straight drift: nothing rings down")
 
     smoothing = condition.envelope_smoothing(x, fs)
     level = condition.envelope_db(x, fs, smoothing=smoothing)
-    noise_db = condition.noise_floor_db(level)
+    noise_db = condition.noise_floor_db(level, smoothing)
+    slow = condition.envelope_db(x, fs, smoothing=2 * smoothing)
     spans = condition.find_hits(level, fs, noise_db=noise_db, min_hit_snr_db=opts.min_hit_snr_db,
-                                smoothing=smoothing,
-                                slow_level_db=condition.envelope_db(x, fs, window_s=3e-3, smoothing=smoothing))
+                                smoothing=smoothing, slow_level_db=slow)
     band_note = None
     if not spans:
         # a narrowband mode can stand far above its band's noise while the broadband level does
         # not rise min_hit_snr_db: look for the hits in the band of the strongest spectral peak
-        found = _hits_in_strongest_band(x, fs, opts.min_hit_snr_db)
+        found = _hits_in_strongest_band(x, fs, opts.min_hit_snr_db, smoothing)
         if found is not None:
             spans, f_band = found
             band_note = Notice("hits_in_band", f"the broadband level does not rise {opts.min_hit_snr_db:g} dB above its "
@@ -302,6 +329,12 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
             f"no ring-down found in {name}: the envelope never rises {opts.min_hit_snr_db:g} dB above its "
             f"noise floor (highest {peak_db:.1f} dB); check the gain, the trigger or the file{hint}"
         )
+    # where each free decay starts: at the hit, or where a steady drive stops
+    spans = [condition.free_decay_start(raw, slow, sp, smoothing=smoothing, noise_db=noise_db) for sp in spans]
+    if step is not None:
+        # a step of the mean where a hit rises: a held deflection let go
+        spans = [replace(sp, kind="release") if sp.kind == "impulse" and abs(sp.onset - step) <= 2 * smoothing else sp
+                 for sp in spans]
     clipped = condition.find_clipping(raw, full_scale=rec.full_scale)
     rec_warnings: list[Notice] = [band_note] if band_note is not None else []
     if rec.n_channels > 1:
@@ -311,14 +344,16 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
     if rec.timing_jitter is not None and rec.timing_jitter > 1e-6:
         rec_warnings.append(Notice("timing_jitter", f"time steps jitter by {100 * rec.timing_jitter:.3g} % RMS (accepted)"))
 
-    noise_f, noise_p, noise_is_pre = _noise_spectrum(x, fs, spans)
-    tones = condition.steady_tones(noise_f, noise_p) if noise_is_pre else []
+    noise_f, noise_p, noise_source, noise_note = _noise_spectrum(x, fs, spans, level, noise_db, smoothing)
+    if noise_note is not None:
+        rec_warnings.append(noise_note)
+    tones = condition.steady_tones(noise_f, noise_p) if noise_source == "pre_trigger" else []
     for f_tone in tones:
         rec_warnings.append(Notice("stationary_tone", f"steady tone near {f_tone:.1f} Hz before the hit (mains hum or "
                                                       "another running source?); not a mode"))
 
     ctx = _RecordContext(x=x, fs=fs, opts=opts, noise_f=noise_f, noise_p=noise_p, noise_db=noise_db, level=level,
-                         clipped=clipped, tones=tuple(tones))
+                         clipped=clipped, tones=tuple(tones), i0=i0, smoothing=smoothing)
     hits: list[Hit] = []
     for j, span in enumerate(spans):
         hits.append(_analyze_hit(ctx, span, prev_end=spans[j - 1].end if j > 0 else 0))
@@ -333,7 +368,8 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
         raise NoRingdownError(f"no mode could be measured in {name}: {reasons}")
     modes = _combine_hits(used)
     for h in hits:
-        rec_warnings.extend(w for w in h.warnings if w.code in ("double_hit", "clipped", "stationary_tone"))
+        rec_warnings.extend(w for w in h.warnings if w.code in ("double_hit", "clipped", "stationary_tone",
+                                                                 "start_uncertain"))
     return Analysis(
         path=rec.path,
         sha256=rec.sha256,
@@ -347,18 +383,37 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
         error=None,
         settings=settings,
         noise_floor=float(10 ** (noise_db / 20.0)),
+        noise_source=noise_source,
         recording=rec,
     )
 
 
-def _hits_in_strongest_band(x: np.ndarray, fs: float, min_hit_snr_db: float):
+def _time_window(rec: Recording, opts: AnalysisOptions, name: str) -> tuple[np.ndarray, int]:
+    """The samples between ``opts.start_s`` and ``opts.end_s`` and the index of the first."""
+    if opts.start_s is None and opts.end_s is None:
+        return rec.samples, 0
+    fs, n = rec.sample_rate, rec.n_samples
+    dur = n / fs
+    start = 0.0 if opts.start_s is None else opts.start_s
+    end = dur if opts.end_s is None else min(opts.end_s, dur)
+    if start >= dur:
+        raise ParameterError(f"start {start:g} s lies beyond the end of {name} ({dur:g} s); give an earlier --start")
+    i_lo, i_hi = int(math.floor(start * fs)), min(n, int(math.ceil(end * fs)))
+    if i_hi - i_lo < MIN_SAMPLES:
+        raise ParameterError(f"the time window {start:g}-{end:g} s of {name} holds {max(i_hi - i_lo, 0)} samples; "
+                             f"at least {MIN_SAMPLES} are needed")
+    return rec.samples[i_lo:i_hi], i_lo
+
+
+def _hits_in_strongest_band(x: np.ndarray, fs: float, min_hit_snr_db: float, smoothing: int):
     """Hits found in the level of the band around the record's strongest spectral peak.
 
     Returns ``(spans, f_hz)`` or ``None`` when there is no clear peak or no hit in its band. The
     peak must stand 20 dB above the running median of the spectrum; the band is ±20 half-power
     widths of the peak (at least 4 frequency bins); its envelope level is interpolated to the
     record's rate, and a hit must rise 12 dB within twice the band filter's settling time (at
-    least 3 ms) to ``min_hit_snr_db`` above the band level's median.
+    least the broadband rise window, 2 smoothing widths) to ``min_hit_snr_db`` above the band
+    level's median.
     """
     found = find_peaks(x, fs, max_peaks=1, min_prominence_db=20.0)
     if not found:
@@ -369,17 +424,19 @@ def _hits_in_strongest_band(x: np.ndarray, fs: float, min_hit_snr_db: float):
     band = extract_band(spectrum_of(x, fs), lo + 0.25 * (hi - lo), hi - 0.25 * (hi - lo), skirt_hz=0.25 * (hi - lo))
     t = np.arange(x.shape[0]) / fs
     level = np.interp(t, band.t_s, 20.0 * np.log10(np.abs(band.z) + 1e-300))
-    rise = max(3e-3, 2.0 * settling_time_s(band, beta_per_s=math.pi * p.width_hz, level=1e-2))
+    rise = max(int(round(condition.RISE_WIDTHS * smoothing)),
+               int(round(2.0 * settling_time_s(band, beta_per_s=math.pi * p.width_hz, level=1e-2) * fs)))
+    hold = max(int(round(condition.HOLD_OFF_WIDTHS * smoothing)), 2 * rise)
     # the median, not the 5th percentile: an unsmoothed narrowband level dips far below its mean
     # (|z|^2 of noise is exponential: 5th percentile -13 dB, median -1.6 dB re the mean)
     spans = condition.find_hits(level, fs, noise_db=float(np.median(level)), min_hit_snr_db=min_hit_snr_db,
-                                rise_time_s=rise, hold_off_s=max(0.05, 2.0 * rise),
-                                smoothing=max(3, int(round(rise * fs))))
+                                rise_samples=rise, hold_off_samples=hold, smoothing=max(3, rise),
+                                bounce_window_samples=int(round(condition.BOUNCE_WIDTHS * smoothing)))
     return (spans, p.f_hz) if spans else None
 
 
 def _keep(hit: Hit) -> Hit:
-    note = Notice("flagged_hit_used", f"hit at {hit.start_s:.3f} s was flagged but is the only measurable one; "
+    note = Notice("flagged_hit_used", f"hit at {hit.start_s:.6g} s was flagged but is the only measurable one; "
                                       "its modes are reported anyway")
     return replace(hit, used=True, warnings=hit.warnings + (note,))
 
@@ -393,16 +450,52 @@ def _unique(notices: Iterable[Notice]) -> list[Notice]:
     return out
 
 
-def _noise_spectrum(x: np.ndarray, fs: float, spans) -> tuple[np.ndarray, np.ndarray, bool]:
-    """Noise PSD from the pre-trigger part, else from the record's last 10 %; and whether it
-    came from the pre-trigger."""
-    guard = max(2, int(round(0.002 * fs)))
-    pre_end = spans[0].onset - guard
-    min_len = max(MIN_SAMPLES, int(round(0.01 * fs)))
+#: Fewest samples a noise-only stretch must hold to give the noise spectrum: a Welch estimate
+#: with 129 frequency bins (common practice, no source), and at least 4 smoothing widths.
+MIN_NOISE_SAMPLES = 256
+#: Names of where the noise spectrum came from (``Analysis.noise_source``).
+NOISE_SOURCES = ("pre_trigger", "tail", "record_end")
+
+
+def _noise_spectrum(x: np.ndarray, fs: float, spans, level: np.ndarray, noise_db: float,
+                    smoothing: int) -> tuple[np.ndarray, np.ndarray, str, Notice | None]:
+    """Noise PSD from where only noise is, where it came from, and a warning when in doubt.
+
+    1. ``"pre_trigger"``: the samples before the first hit's rise (the tap, or the start of a
+       drive), less one smoothing width, when they are at least :data:`MIN_NOISE_SAMPLES` and
+       4 smoothing widths long;
+    2. ``"tail"``: else the record's end after the last block (4 smoothing widths, at least 32
+       samples) whose median level is more than 4 dB above the noise floor, when that long;
+    3. ``"record_end"``: else the record's last 10 % (at least :data:`MIN_NOISE_SAMPLES`),
+       which still holds the decay: the noise is over-estimated, fit windows end early and
+       uncertainties (scaled by each fit's residual) grow; the warning ``noise_uncertain`` says so.
+    """
+    sm = max(1, int(smoothing))
+    n = x.shape[0]
+    min_len = max(MIN_NOISE_SAMPLES, 4 * sm)
+    first = spans[0].rise if spans[0].rise is not None else spans[0].onset
+    pre_end = first - sm
     if pre_end >= min_len:
-        return (*condition.noise_psd(x[:pre_end], fs), True)
-    n_tail = max(min_len, x.shape[0] // 10)
-    return (*condition.noise_psd(x[-n_tail:], fs), False)
+        return (*condition.noise_psd(x[:pre_end], fs), "pre_trigger", None)
+    blk = max(32, 4 * sm)
+    last = spans[-1].peak
+    m = (n - last) // blk
+    loud = last
+    if m > 0:
+        med = np.median(level[last:last + m * blk].reshape(m, blk), axis=1)
+        above = np.flatnonzero(med > noise_db + 4.0)
+        loud = last + (int(above[-1]) + 1) * blk if above.size else last
+    rest = level[last + m * blk:]
+    if rest.size and float(np.median(rest)) > noise_db + 4.0:
+        loud = n
+    if n - loud >= min_len:
+        return (*condition.noise_psd(x[loud:], fs), "tail", None)
+    n_tail = min(n, max(min_len, n // 10))
+    note = Notice("noise_uncertain", f"no stretch of noise alone in the record (the pre-trigger holds {max(first, 0)} "
+                                     "samples and the decay still rings at the end): the noise was taken from the "
+                                     "record's last 10 %, an upper bound; fit windows may end early and the hit's "
+                                     "SNR is under-stated. Record more before the hit or until the decay has died away")
+    return (*condition.noise_psd(x[-n_tail:], fs), "record_end", note)
 
 
 def _band_noise_rms(band: Band, noise_f: np.ndarray, noise_p: np.ndarray) -> float:
@@ -434,6 +527,8 @@ class _RecordContext:
     level: np.ndarray  #: (n_samples,) smoothed broadband level, dB
     clipped: np.ndarray  #: indices of clipped samples
     tones: tuple[float, ...]  #: steady tones found before the first hit, Hz
+    i0: int = 0  #: index in the recording of ``x[0]`` (the start of the time window)
+    smoothing: int = 3  #: width of the level's smoothing, samples
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -442,25 +537,36 @@ class _HitContext:
 
     record: _RecordContext
     spec: Spectrum  #: spectrum of the hit's segment (from before the onset to ``seg_end``)
-    onset_s: float  #: hit onset, s
-    clip_end: int | None  #: first sample after the last clipped one in the hit, or None
-    seg_end: int  #: sample index where the hit's segment ends
+    onset_s: float  #: start of the free decay, s from the recording's first sample
+    clip_end: int | None  #: first sample (index in the recording) after the last clipped one in the hit, or None
+    seg_end: int  #: index in the recording where the hit's segment ends
+    pre_rms: float | None = None  #: RMS of the samples before the hit's rise (None: too few), recording units
 
 
 def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
-    """Every mode of one hit (``span``, from :func:`condition.find_hits`); ``prev_end`` is the
-    sample where the previous hit's segment ended (0 for the first)."""
+    """Every mode of one hit (``span``, from :func:`condition.find_hits` and
+    :func:`condition.free_decay_start`); ``prev_end`` is the sample where the previous hit's
+    segment ended (0 for the first). Indices are into ``ctx.x``; times are from the recording's
+    first sample (``ctx.i0`` samples before ``ctx.x[0]``)."""
     x, fs, opts = ctx.x, ctx.fs, ctx.opts
+    i0 = ctx.i0
     warnings: list[Notice] = []
-    # up to 0.1 s before the onset: room for the band filter to settle, then a look at what the
-    # band held before the hit (a steady tone is there already, a mode is not)
-    pre = int(round(0.1 * fs))
-    seg_start = max(prev_end, span.onset - pre, 0)
     seg_end = span.end
-    onset_s = span.onset / fs
+    onset_s = (span.onset + i0) / fs
+    if span.kind == "impulse":
+        # before the onset, as much as the decay is long (the data's own scale, not a fixed time):
+        # room for the band filter to settle, then a look at what the band held before the hit
+        # (a steady tone is there already, a mode is not)
+        seg_start = max(prev_end, span.onset - (seg_end - span.onset), 0)
+    else:
+        # before a switch-off or release the record holds the drive, not the free decay: the
+        # segment starts where the free decay does, as a tap's would in a silent record
+        seg_start = span.onset
     used = True
+    if span.doubt is not None:
+        warnings.append(Notice("start_uncertain", f"hit at {onset_s:.6g} s: {span.doubt}"))
     if span.bounce is not None:
-        warnings.append(Notice("double_hit", f"hit at {onset_s:.3f} s has a second onset {1e3 * (span.bounce - span.onset) / fs:.1f} ms later (hammer bounce?)"
+        warnings.append(Notice("double_hit", f"hit at {onset_s:.6g} s has a second onset {1e3 * (span.bounce - span.onset) / fs:.3g} ms later (hammer bounce?)"
                                + ("" if opts.keep_double_hits else "; left out of the combined result")))
         used = opts.keep_double_hits
     clipped = ctx.clipped
@@ -468,17 +574,28 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
     clip_end = None
     if clip_in.size:
         clip_end = int(clip_in[-1]) + 1
-        warnings.append(Notice("clipped", f"{clip_in.size} samples clipped between {clip_in[0] / fs:.3f} and {clip_end / fs:.3f} s; "
-                                          "fits start after the clipping ends"))
+        warnings.append(Notice("clipped", f"{clip_in.size} samples clipped between {(clip_in[0] + i0) / fs:.6g} and "
+                                          f"{(clip_end + i0) / fs:.6g} s; fits start after the clipping ends"))
     decay_from = max(span.peak, clip_end or 0)
     peak_value = float(np.max(np.abs(x[span.onset:seg_end])))
     hit_snr = float(ctx.level[span.peak] - ctx.noise_db)
-    if seg_end - decay_from < MIN_SAMPLES:
-        warnings.append(Notice("short_decay", f"hit at {onset_s:.3f} s leaves {seg_end - decay_from} samples of decay"))
-        return Hit(onset_s, span.peak / fs, peak_value, hit_snr, seg_end / fs, False, tuple(warnings), ())
 
-    hctx = _HitContext(record=ctx, spec=spectrum_of(x[seg_start:seg_end], fs, t0_s=seg_start / fs), onset_s=onset_s,
-                       clip_end=clip_end, seg_end=seg_end)
+    def hit(used_: bool, modes_=()) -> Hit:
+        return Hit(onset_s, (span.peak + i0) / fs, peak_value, hit_snr, (seg_end + i0) / fs, used_, tuple(warnings),
+                   tuple(modes_), start_kind=span.kind)
+
+    if seg_end - decay_from < MIN_SAMPLES:
+        warnings.append(Notice("short_decay", f"hit at {onset_s:.6g} s leaves {seg_end - decay_from} samples of decay"))
+        return hit(False)
+
+    # what the record held before the hit's rise (at least 4 smoothing widths of it): bounds the
+    # amplitude any steady tone could have had there
+    rise = span.rise if span.rise is not None else span.onset
+    pre_x = x[prev_end:max(prev_end, rise - ctx.smoothing)]
+    pre_rms = float(np.sqrt(np.mean(pre_x**2))) if span.kind == "impulse" and pre_x.size >= 4 * ctx.smoothing else None
+    hctx = _HitContext(record=ctx, spec=spectrum_of(x[seg_start:seg_end], fs, t0_s=(seg_start + i0) / fs),
+                       onset_s=onset_s, clip_end=None if clip_end is None else clip_end + i0, seg_end=seg_end + i0,
+                       pre_rms=pre_rms)
     decay = x[decay_from:seg_end]
     if opts.bands is not None:
         groups = [([], lo, hi) for lo, hi in opts.bands]
@@ -494,13 +611,13 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
             failed.append(f"{lo:.1f}-{hi:.1f} Hz ({exc})")
     if failed:
         shown = "; ".join(failed[:3]) + (f"; and {len(failed) - 3} more" if len(failed) > 3 else "")
-        warnings.append(Notice("fit_failed", f"{len(failed)} band(s) in the hit at {onset_s:.3f} s could not be fitted: {shown}"))
+        warnings.append(Notice("fit_failed", f"{len(failed)} band(s) in the hit at {onset_s:.6g} s could not be fitted: {shown}"))
     modes.sort(key=lambda m: m.f_d_hz)
     if opts.max_modes is not None and len(modes) > opts.max_modes:
         modes = sorted(modes, key=lambda m: -(m.amplitude or 0.0))[: opts.max_modes]
         modes.sort(key=lambda m: m.f_d_hz)
     modes = [m.with_updates(index=i + 1) for i, m in enumerate(modes)]
-    return Hit(onset_s, span.peak / fs, peak_value, hit_snr, seg_end / fs, used, tuple(warnings), tuple(modes))
+    return hit(used, modes)
 
 
 def _window_for(band: Band, onset_s: float, clip_end, seg_end: int, fs: float, min_snr_db: float,
@@ -617,7 +734,7 @@ def _measure_group(hctx: _HitContext, peaks_g: list[Peak], lo: float, hi: float,
         else:
             _, found, sb, sw = min(cross, key=lambda c: abs(c[0] - est.f_d_hz))
             others = {k: v for k, v in found.items() if k != est.method}
-        if _is_stationary(est, sb, sw, seg_end / fs):
+        if _is_stationary(est, sb, sw, seg_end / fs, pre_rms=hctx.pre_rms):
             hit_warnings.append(Notice("stationary_tone", f"steady tone at {est.f_d_hz:.1f} Hz does not decay (mains hum or "
                                                           "another running source?); not reported as a mode"))
             continue
@@ -652,22 +769,41 @@ def _steady_before_onset(band: Band, onset_s: float, beta_hint: float) -> bool:
     return bool(before > float(np.max(after)) * 10 ** (-STEADY_MARGIN_DB / 20))
 
 
-def _is_stationary(est: Estimate, band: Band, window: Window, seg_end_s: float) -> bool:
+def _is_stationary(est: Estimate, band: Band, window: Window, seg_end_s: float, *, pre_rms: float | None = None) -> bool:
     """Whether a component is a steady tone (hum, a running drive) rather than a mode.
 
-    A mode starts with the hit. When the band holds at least 3 samples before the onset (clear
+    A component whose decay rate is within 3 standard uncertainties of zero and that decays
+    less than 6 dB over the hit is steady, whatever came before: a drive switched on with the
+    hit and still running is not a mode. A mode starts with the hit. When the band holds at
+    least 3 samples before the onset (clear
     of the filter's settling), a tone is steady if it was already there within 10 dB of its
     level at the window start. Without such samples, it is steady if it decays less than 6 dB
     over the whole hit, or its tail stays within 6 dB of the level at the window start
     (thresholds: common practice, no source). A lightly damped mode in a short record is
     therefore kept (with ``short_decay``) when the record shows it start.
+
+    ``pre_rms`` is the RMS of the broadband samples before the hit (``None`` when there are
+    too few): a steady tone of amplitude ``a`` there would give an RMS of at least
+    ``a / sqrt(2)``, so a component whose amplitude exceeds ``sqrt(2) pre_rms`` by 10 dB was
+    not there before the hit; it is a mode however little it decays in the record (a very
+    lightly damped resonator whose band filter is too narrow to settle in a short pre-trigger)
+    when its decay rate is resolved (more than 5 standard uncertainties above zero: common
+    practice, no source). A drive switched on with the hit and still running has a decay rate
+    consistent with zero and stays a steady tone.
     """
     env = np.abs(band.z)
     i0 = band.index_of(window.start_s)
+    span = max(seg_end_s - window.onset_s, 1e-300)
+    if est.beta_per_s_u is not None and est.beta_per_s <= 3.0 * est.beta_per_s_u and \
+            DB_PER_NEPER * est.beta_per_s * span < 6.0:
+        return True  # no decay resolved: a drive switched on with the hit and still running
     before = _level_before_onset(band, window.onset_s, window.start_s - window.onset_s)
     if before is not None:
         return bool(before > env[i0] * 10 ** (-STEADY_MARGIN_DB / 20))
-    span = max(seg_end_s - window.onset_s, 1e-12)
+    if pre_rms is not None and est.amplitude is not None and est.beta_per_s_u is not None and \
+            est.amplitude > math.sqrt(2.0) * pre_rms * 10 ** (STEADY_MARGIN_DB / 20) and \
+            est.beta_per_s > 5.0 * est.beta_per_s_u:
+        return False
     if DB_PER_NEPER * est.beta_per_s * span < 6.0:
         return True
     n = env.shape[0]

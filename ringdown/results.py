@@ -234,12 +234,14 @@ class Mode:
 
 @dataclass(frozen=True, slots=True, eq=False)
 class Hit:
-    """One excitation (tap, pluck, release) found in a recording and the modes of its decay.
+    """One excitation (tap, pluck, release, drive switch-off) found in a recording and the
+    modes of its decay.
 
     Attributes
     ----------
     start_s : float
-        Onset time, seconds from the start of the recording.
+        Start of the free decay, seconds from the start of the recording: the onset of a tap,
+        or where a steady drive stopped.
     peak_s : float
         Time of the envelope maximum after the onset, s.
     peak_value : float
@@ -253,6 +255,11 @@ class Hit:
     warnings : tuple of Notice
     modes : tuple of Mode
         Modes measured in this hit's decay alone.
+    start_kind : str
+        How the start of the free decay was found: ``"impulse"`` (a sharp rise, then the decay),
+        ``"switch-off"`` (a steady forced oscillation stopped: the level left its plateau and
+        fell) or ``"release"`` (a held static deflection let go). The warning
+        ``start_uncertain`` says when the start is in doubt.
     """
 
     start_s: float
@@ -263,10 +270,12 @@ class Hit:
     used: bool = True
     warnings: tuple[Notice, ...] = ()
     modes: tuple[Mode, ...] = ()
+    start_kind: str = "impulse"
 
     def to_dict(self) -> dict:
         return {
             "start_s": self.start_s,
+            "start_kind": self.start_kind,
             "peak_s": self.peak_s,
             "peak_value": self.peak_value,
             "snr_db": self.snr_db,
@@ -285,6 +294,10 @@ class Analysis:
     ``modes`` and ``hits`` are empty. ``recording`` keeps the samples for plots (not serialised).
     ``channel`` is the channel's name or number as the reader gives it, ``unit`` the unit of the
     samples as the file states it (TDMS, UFF 58, MATLAB, HDF5), ``None`` when unknown.
+    ``noise_source`` says where the noise spectrum came from: ``"pre_trigger"`` (before the first
+    hit), ``"tail"`` (after the decays died away) or ``"record_end"`` (the record's last 10 %,
+    which still holds the decay: an upper bound, with the warning ``noise_uncertain``); ``None``
+    for a failed analysis.
     """
 
     path: str | None
@@ -298,6 +311,7 @@ class Analysis:
     error: Notice | None = None
     settings: dict = field(default_factory=dict)
     noise_floor: float | None = None
+    noise_source: str | None = None
     recording: Any = None
     unit: str | None = None
 
@@ -335,6 +349,7 @@ class Analysis:
             "n_samples": self.n_samples,
             "duration_s": self.duration_s,
             "noise_floor": self.noise_floor,
+            "noise_source": self.noise_source,
             "settings": dict(self.settings),
             "hits": [h.to_dict() for h in self.hits],
             "modes": [m.to_dict() for m in self.modes],

@@ -35,6 +35,14 @@ EXIT_EPILOG = ("Exit status: 0 done (every part passed); 1 a part FAILED its lim
                "used; 64 usage error (bad option or argument); 130 interrupted.")
 
 DEBUG_OPTION = typer.Option(False, "--debug", help="Show the full traceback of an error.")
+#: The time window of the analysis, shared by every command that analyses recordings.
+START_OPTION = typer.Option(None, "--start", help="Analyse from this time on, s from the record's first sample.")
+END_OPTION = typer.Option(None, "--end", help="Analyse up to this time, s from the record's first sample.")
+
+
+def time_window(start: Optional[float], end: Optional[float]) -> dict:
+    """The analysis options ``start_s``/``end_s`` given on the command line (only those given)."""
+    return {k: v for k, v in (("start_s", start), ("end_s", end)) if v is not None}
 
 _AUDIO_AND_TEXT = (".wav", ".flac", ".ogg", ".oga", ".aiff", ".aif", ".au", ".caf", ".w64", ".rf64",
                    ".csv", ".txt", ".tsv", ".dat") + FORMAT_SUFFIXES

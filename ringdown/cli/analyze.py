@@ -12,9 +12,9 @@ from typing import List, Optional
 import typer
 
 from ..numfmt import fmt_fixed, fmt_pm, fmt_value
-from ._common import (DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_INTERRUPTED, EXIT_OK, RECURSIVE_OPTION,
-                      default_jobs, error_line, expand_inputs, guarded, note_line, on_terminal, print_json,
-                      print_json_line, progress_bar, usage_guarded, uses_stdin)
+from ._common import (DEBUG_OPTION, END_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_INTERRUPTED, EXIT_OK, RECURSIVE_OPTION,
+                      START_OPTION, default_jobs, error_line, expand_inputs, guarded, note_line, on_terminal,
+                      print_json, print_json_line, progress_bar, time_window, usage_guarded, uses_stdin)
 from ._options import Channel, Column, Jsonl, Notes, SampleRate, Serial, Title, reader_options, report_header
 
 __all__ = ["register", "parse_band", "parse_columns", "format_table", "TABLE_COLUMNS", "DEFAULT_COLUMNS"]
@@ -96,6 +96,10 @@ def format_table(analysis, columns: tuple[str, ...] = DEFAULT_COLUMNS) -> str:
     for m in analysis.modes:
         for w in m.warnings:
             lines.append(f"  mode {m.index} [{w.code}]: {w.message}")
+    for h in analysis.hits:
+        if h.start_kind != "impulse":
+            before = "the drive before it is not a mode" if h.start_kind == "switch-off" else "a held deflection let go"
+            lines.append(f"  hit at {fmt_value(h.start_s, 6)} s: free decay from a {h.start_kind} ({before})")
     lines.append("  (v(u): u is the standard uncertainty, k = 1, in units of the last digit; Q = 1/(2 zeta))")
     return "\n".join(lines) + "\n"
 
@@ -141,6 +145,8 @@ def register(app: typer.Typer) -> None:
         min_snr_db: float = typer.Option(10.0, "--min-snr-db", help="Fits end where a mode is this far above its band noise, dB."),
         min_hit_snr_db: float = typer.Option(20.0, "--min-hit-snr-db", help="A hit must rise this far above the noise floor, dB."),
         keep_double_hits: bool = typer.Option(False, "--keep-double-hits", help="Combine hits flagged as hammer bounces too."),
+        start: Optional[float] = START_OPTION,
+        end: Optional[float] = END_OPTION,
         jobs: Optional[int] = typer.Option(None, "--jobs", help="Worker processes for a batch (default: the number of cores)."),
         plot: Optional[Path] = typer.Option(None, "--plot", help="Write figures for each file into this folder."),
         plot_format: str = typer.Option("png", "--plot-format", help="Figure format: png or svg."),
@@ -172,9 +178,9 @@ def register(app: typer.Typer) -> None:
             bands = [parse_band(b) for b in band] if band else None
             opts = dict(reader_options(channel, column, sample_rate), method=method, bands=bands,
                         max_modes=max_modes, min_snr_db=min_snr_db, min_hit_snr_db=min_hit_snr_db,
-                        keep_double_hits=keep_double_hits)
+                        keep_double_hits=keep_double_hits, **time_window(start, end))
             AnalysisOptions(method=method, bands=bands, max_modes=max_modes, min_snr_db=min_snr_db,
-                            min_hit_snr_db=min_hit_snr_db)
+                            min_hit_snr_db=min_hit_snr_db, **time_window(start, end))
             if jobs is not None and jobs < 1:
                 raise ParameterError(f"--jobs must be >= 1; got {jobs}")
             if plot is not None:

@@ -21,8 +21,8 @@ import typer
 
 from ..errors import RingdownError
 from ..numfmt import fmt_interval, fmt_pm, fmt_value
-from ._common import (DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_OK, error_line, expand_inputs, guarded,
-                      print_json, usage_error)
+from ._common import (DEBUG_OPTION, END_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_OK, START_OPTION, error_line,
+                      expand_inputs, guarded, print_json, time_window, usage_error)
 from ._options import Channel, Column, Notes, SampleRate, Serial, Title, reader_options, report_header
 
 __all__ = ["register", "format_table"]
@@ -171,6 +171,8 @@ def register(app: typer.Typer) -> None:
         title: Title = None,
         notes: Notes = None,
         serial: Serial = None,
+        start: Optional[float] = START_OPTION,
+        end: Optional[float] = END_OPTION,
         debug: bool = DEBUG_OPTION,
     ) -> None:
         if ctx.args:
@@ -188,7 +190,7 @@ def register(app: typer.Typer) -> None:
 
             uses_stdin([*b, *a])  # '-' once at most: standard input holds one recording
             options = dict(reader_options(channel, column, sample_rate), method=method,
-                           min_hit_snr_db=min_hit_snr_db, keep_double_hits=keep_double_hits)
+                           min_hit_snr_db=min_hit_snr_db, keep_double_hits=keep_double_hits, **time_window(start, end))
             if band:
                 options["bands"] = [parse_band(x) for x in band]
             return compare(b, a, tolerance=tolerance, confidence=confidence, **options)

@@ -16,15 +16,16 @@ from typing import List, Optional
 import typer
 
 from ..numfmt import fmt_value, fmt_values
-from ._common import (DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_FAIL, EXIT_INTERRUPTED, EXIT_OK, RECURSIVE_OPTION,
-                      default_jobs, error_line, expand_inputs, guarded, note_line, on_terminal, print_json,
-                      print_json_line, progress_bar, resolve_db, sigint_deferred, usage_guarded, uses_stdin, DB_ENV)
+from ._common import (DEBUG_OPTION, END_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_FAIL, EXIT_INTERRUPTED, EXIT_OK,
+                      RECURSIVE_OPTION, START_OPTION, default_jobs, error_line, expand_inputs, guarded, note_line,
+                      on_terminal, print_json, print_json_line, progress_bar, resolve_db, sigint_deferred,
+                      time_window, usage_guarded, uses_stdin, DB_ENV)
 from ._options import Channel, Column, Jsonl, Notes, SampleRate, Serial, Title, reader_options, report_header
 
 __all__ = ["register", "format_check"]
 
-def _analysis_options(method, min_snr_db, max_modes, bands) -> dict:
-    opts: dict = {}
+def _analysis_options(method, min_snr_db, max_modes, bands, start=None, end=None) -> dict:
+    opts: dict = time_window(start, end)
     if method is not None:
         opts["method"] = method
     if min_snr_db is not None:
@@ -139,6 +140,8 @@ def register(app: typer.Typer) -> None:
         channel: Channel = None,
         column: Column = None,
         sample_rate: SampleRate = None,
+        start: Optional[float] = START_OPTION,
+        end: Optional[float] = END_OPTION,
         jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
         force: bool = typer.Option(False, "--force", help="Overwrite an existing limits file."),
         json_out: bool = typer.Option(False, "--json", help="Print the limits as JSON."),
@@ -149,7 +152,8 @@ def register(app: typer.Typer) -> None:
         from ..pipeline import analyze_many
         from ..limits import learn_limits, write_limits
 
-        opts = usage_guarded(lambda: _analysis_options(method, min_snr_db, max_modes, band, channel), debug=debug)
+        opts = usage_guarded(lambda: {**_analysis_options(method, min_snr_db, max_modes, band, start, end),
+                                      **reader_options(channel, column, sample_rate)}, debug=debug)
 
         def run():
             from ..errors import ParameterError
@@ -220,6 +224,9 @@ def register(app: typer.Typer) -> None:
         part_id: Optional[str] = typer.Option(None, "--part-id", help="Regex taking the part id from the file name "
                                               "(first group, or the whole match); default the file stem."),
         force: bool = typer.Option(False, "--force", help="Re-check files already stored with the same limits."),
+        start: Optional[float] = typer.Option(None, "--start", help="Analyse from this time on, s from the record's "
+                                              "first sample (default: the window the limits were learned with)."),
+        end: Optional[float] = typer.Option(None, "--end", help="Analyse up to this time, s (default: as learned)."),
         jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
         recursive: bool = RECURSIVE_OPTION,
         debug: bool = DEBUG_OPTION,
@@ -283,7 +290,7 @@ def register(app: typer.Typer) -> None:
             prog, task = progress_bar(on_terminal(json_out) and len(todo) > 1, len(todo), "checking")
             with prog:
                 it = iter_check_files([paths[i] for i in todo], lim, jobs=n_jobs, on_notice=note_line,
-                                      options=overrides)
+                                      options={**overrides, **time_window(start, end)})
                 for pos, res in it:
                     i = todo[pos]
                     if res.sha256 is None and shas[i] is not None:
@@ -315,7 +322,7 @@ def register(app: typer.Typer) -> None:
                    "errors": counts["error"], "skipped": skipped, "time_s": round(elapsed, 3)}
         from .analyze import _try
 
-        window: dict = {}
+        window = time_window(start, end)
         failed_outputs = 0
         if csv_out:
             failed_outputs += _try(lambda: _write_csv(rows_f, lim, csv_out), debug)
