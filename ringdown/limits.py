@@ -867,7 +867,7 @@ def parse_limits(text: str, *, source: str = "<string>") -> Limits:
 
 #: Top-level keys of a limits file (anything else is a typo that would be ignored silently).
 _TOP_KEYS = frozenset({"format_version", "tool_version", "created_utc", "check", "modes", "mahalanobis", "settings",
-                       "parts", "analysis", "notes"})
+                       "parts", "analysis", "reader", "notes"})
 
 
 def _is_number(v: Any) -> bool:

@@ -315,7 +315,7 @@ def plot_recording(analysis, *, ax=None):
         y = -top * 1.08 - 0.13 * top * (i + 0.5)
         ax.plot([m.fit_start_s, m.fit_end_s], [y, y], color=st["color"], linestyle=st["linestyle"],
                 linewidth=2.2, marker=st["marker"], markersize=4.5, markevery=[0, 1],
-                label=f"mode {m.index} window ({_fmt_sig(m.f_d_hz)} Hz)", gid=f"window-mode-{m.index}")
+                label=f"mode {m.index} window ({_fmt_sig(m.f_d_hz, 5)} Hz)", gid=f"window-mode-{m.index}")
 
     trans = ax.get_xaxis_transform()  # x in data, y in axes fraction
     for k, h in enumerate(getattr(analysis, "hits", ()) or ()):

@@ -92,7 +92,7 @@ def test_channel_value_turns_digits_into_numbers():
 def test_bad_plot_format_is_refused_before_any_file_is_read(tmp_path):
     r = runner.invoke(app, ["analyze", str(tmp_path / "missing.wav"), "--plot", str(tmp_path / "p"),
                             "--plot-format", "jpg"])
-    assert r.exit_code == 2
+    assert r.exit_code == 64  # a usage error (EX_USAGE), see README "Exit statuses"
     assert "--plot-format must be one of png, svg, pdf; got 'jpg'" in r.stderr
     assert "missing.wav" not in r.stderr  # nothing was read
     assert not (tmp_path / "p").exists()
@@ -146,7 +146,7 @@ def test_columns_choice(two_mode_wav):
     assert r.exit_code == 0
     assert r.stdout.splitlines()[1].split() == ["#", "f_d", "[Hz]", "Q"]
     r = runner.invoke(app, ["analyze", two_mode_wav, "--columns", "f_d,bogus"])
-    assert r.exit_code == 2 and "unknown column(s) 'bogus'" in r.stderr
+    assert r.exit_code == 64 and "unknown column(s) 'bogus'" in r.stderr
 
 
 # --------------------------------------------------------------------------------------------
@@ -182,7 +182,7 @@ def test_stdin_empty_and_twice(two_mode_wav):
     r = runner.invoke(app, ["analyze", "-"], input=b"")
     assert r.exit_code == 2 and "standard input ('-') is empty" in r.stderr
     r = runner.invoke(app, ["analyze", "-", "-"], input=b"x")
-    assert r.exit_code == 2 and "more than once" in r.stderr
+    assert r.exit_code == 64 and "more than once" in r.stderr
 
 
 def test_jsonl_first_line_arrives_before_the_batch_ends(two_mode_wav, tmp_path):
@@ -210,7 +210,7 @@ def test_jsonl_first_line_arrives_before_the_batch_ends(two_mode_wav, tmp_path):
 
 def test_json_and_jsonl_exclusive(two_mode_wav):
     r = runner.invoke(app, ["analyze", two_mode_wav, "--json", "--jsonl"])
-    assert r.exit_code == 2 and "exclusive" in r.stderr
+    assert r.exit_code == 64 and "exclusive" in r.stderr
 
 
 # --------------------------------------------------------------------------------------------

@@ -41,14 +41,10 @@ def _analysis_options(method, min_snr_db, max_modes, bands, start=None, end=None
 
 def _stream(row: dict, json_out: bool, jsonl: bool) -> None:
     """One part's result as soon as it is known: a JSON line, or its text lines (not with --json).
-    Its error, if any, goes to stderr only."""
-    if row["verdict"] == "error":
-        err = row.get("error") or {}
-        msg = err.get("message") or "; ".join(r["message"] for r in row.get("reasons", []))
-        error_line(msg if row["path"] and row["path"] in msg else f"{row['path']}: {msg}")
+    An ERROR is a verdict like PASS and FAIL: it is listed with its reason on stdout, once."""
     if jsonl:
         print_json_line(row)
-    elif not json_out and row["verdict"] != "error":
+    elif not json_out:
         typer.echo(format_check(row))
         sys.stdout.flush()
 
@@ -239,9 +235,10 @@ def register(app: typer.Typer) -> None:
 
         t0 = time.monotonic()
         if json_out and jsonl:
-            error_line("--json and --jsonl are exclusive: --json prints one document at the end, --jsonl one "
-                       "line per part as it is checked; choose one")
-            raise typer.Exit(EXIT_ERROR)
+            from ._common import usage_error
+
+            usage_error("--json and --jsonl are exclusive: --json prints one document at the end, --jsonl one "
+                        "line per part as it is checked; choose one")
         overrides = usage_guarded(lambda: reader_options(channel, column, sample_rate), debug=debug)
         usage_guarded(lambda: part_id_from_path("x", part_id), debug=debug)  # a bad regex is a usage error
         lim = guarded(lambda: read_limits(limits_path), debug=debug)
