@@ -39,16 +39,27 @@ from typing import Iterator, Sequence
 
 from .errors import ParameterError
 from .limits import Limits, match_modes
+from .numfmt import fmt_value, fmt_values
 from .results import Analysis, Notice
 
 __all__ = ["EXTRA_MODE_LEVEL", "FeatureCheck", "CheckResult", "check", "check_file", "iter_check_files",
-           "lighten"]
+           "lighten", "verdict_kind"]
 
 #: An unmatched mode whose amplitude is at least this fraction of the strongest matched mode's
 #: (-20 dB) is reported as an extra strong mode (our choice).
 EXTRA_MODE_LEVEL = 0.1
 
 PASS, FAIL, ERROR = "pass", "fail", "error"
+#: Code prefix of a note that excuses a failed window (the part passes on the ratio features).
+ADVISORY_PREFIX = "advisory_"
+
+
+def verdict_kind(verdict: str | None, note_codes=()) -> str:
+    """``"pass"``, ``"pass_advisory"`` (a pass with advisory windows), ``"fail"``, ``"error"``
+    or ``"analysis"`` (no verdict): how reports and run charts mark a result."""
+    if verdict == PASS and any(str(c).startswith(ADVISORY_PREFIX) for c in note_codes):
+        return "pass_advisory"
+    return verdict if verdict in (PASS, FAIL, ERROR) else "analysis"
 
 
 @dataclass(frozen=True, slots=True)
@@ -138,9 +149,13 @@ class CheckResult:
         }
 
 
-def _g(x: float) -> str:
-    """A number in plain words with three significant digits."""
-    return f"{x:.3g}"
+def _g(x: float, digits: int = 3) -> str:
+    """A number for a message, in the one number format (:func:`ringdown.numfmt.fmt_value`)."""
+    return fmt_value(x, digits)
+
+
+def _win(window: tuple[float, float], digits: int = 6) -> str:
+    return " to ".join(fmt_values(window, digits))
 
 
 def _pct(x: float) -> str:
@@ -225,7 +240,7 @@ def check(analysis: Analysis, limits: Limits) -> CheckResult:
         fc = FeatureCheck(ref.index, "f_hz", f, ref.f_hz, st)
         if st in ("below", "above"):
             lo, hi = ref.f_hz
-            f_fail.append((fc, Notice(f"f_{st}", f"{name} at {f:.1f} Hz is {st} its window {lo:.1f}-{hi:.1f} Hz")))
+            f_fail.append((fc, Notice(f"f_{st}", f"{name} at {_g(f, 6)} Hz is {st} its window {_win((lo, hi))} Hz")))
         else:
             feats.append(fc)
         # damping ratio
@@ -236,10 +251,10 @@ def check(analysis: Analysis, limits: Limits) -> CheckResult:
             feats.append(FeatureCheck(ref.index, "zeta", float(z), ref.zeta, st))
             if st == "above":
                 add(ref.index, 2, Notice("zeta_above", f"damping ratio of {name} is {z / ref.zeta[1]:.1f}x the upper "
-                                                    f"limit ({_g(z)} against {_g(ref.zeta[1])})"))
+                                                    f"limit ({' against '.join(fmt_values([z, ref.zeta[1]]))})"))
             elif st == "below":
                 add(ref.index, 2, Notice("zeta_below", f"damping ratio of {name} is {z / ref.zeta[0]:.2f}x the lower "
-                                                    f"limit ({_g(z)} against {_g(ref.zeta[0])})"))
+                                                    f"limit ({' against '.join(fmt_values([z, ref.zeta[0]]))})"))
         elif ref.zeta is not None:
             feats.append(FeatureCheck(ref.index, "zeta", None, ref.zeta, "missing"))
             add(ref.index, 2, Notice("zeta_missing", f"damping ratio of {name} could not be measured"))
@@ -257,8 +272,8 @@ def check(analysis: Analysis, limits: Limits) -> CheckResult:
                 if st in ("below", "above"):
                     ratio_ok = False
                     lo, hi = ref.ratio
-                    add(ref.index, 3, Notice(f"ratio_{st}", f"frequency ratio of {name} to mode 1 is {r:.5f}, {st} its "
-                                                         f"window {lo:.5f}-{hi:.5f}"))
+                    add(ref.index, 3, Notice(f"ratio_{st}", f"frequency ratio of {name} to mode 1 is {_g(r, 6)}, {st} its "
+                                                         f"window {_win((lo, hi))}"))
 
     # Multivariate check.
     d = thr = None
@@ -284,7 +299,7 @@ def check(analysis: Analysis, limits: Limits) -> CheckResult:
         if uniform and maha_ok and abs(shift) <= limits.max_uniform_shift:
             for fc, note in f_fail:
                 feats.append(replace(fc, status="advisory"))
-                notes.append(Notice("advisory_" + note.code, note.message + " (advisory)"))
+                notes.append(Notice(ADVISORY_PREFIX + note.code, note.message + " (advisory)"))
             notes.insert(0, Notice(
                 "uniform_shift",
                 f"all {len(shifts)} modes are {_pct(shift)} {direction} their reference frequencies by the same "

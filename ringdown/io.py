@@ -105,7 +105,8 @@ def read_recording(
     Parameters
     ----------
     path : str or os.PathLike
-        The file. Names ending in ``.csv``, ``.txt``, ``.tsv`` or ``.dat`` are read as text
+        The file, or ``"-"`` for standard input (read into memory up to `max_bytes`, then
+        sniffed the same way: a known sound format by its leading bytes, else text). Names ending in ``.csv``, ``.txt``, ``.tsv`` or ``.dat`` are read as text
         (unless the file starts like a known sound format); anything else is first offered to
         soundfile (WAV, FLAC, OGG, AIFF, ... any bit depth, integer or float), and read as text
         when soundfile cannot open it and it looks like text. A file whose content (else name
@@ -190,6 +191,8 @@ def read_recording(
     name = os.fspath(path) if isinstance(path, (str, os.PathLike)) else path
     if not isinstance(name, str):
         raise ParameterError(f"path must be a file name (str or os.PathLike); got {path!r}")
+    if name == STDIN:
+        return _read_stdin(channel=channel, column=column, sample_rate=sample_rate, max_bytes=max_bytes)
     if sample_rate is not None:
         sample_rate = _check_rate(sample_rate, name)
     limit = _check_max_bytes(max_bytes, name)
@@ -221,6 +224,42 @@ def read_recording(
                 f"corrupt ({reason}); export or copy the recording again")
     return _read_text(name, size, channel=channel, column=column, sample_rate=sample_rate,
                       limit=limit, max_bytes=max_bytes)
+
+
+#: The name that means standard input.
+STDIN = "-"
+
+
+def _read_stdin(*, channel, column, sample_rate, max_bytes) -> Recording:
+    """Read one recording from standard input: bytes into memory (at most the size limit),
+    sniffed like a file (WAV/FLAC/... by their leading bytes, else text)."""
+    import sys
+    import tempfile
+
+    limit = _check_max_bytes(max_bytes, "standard input")
+    try:
+        data = sys.stdin.buffer.read(limit + 1)
+    except (OSError, ValueError, AttributeError) as exc:
+        raise InputError(f"cannot read standard input ('-'): {exc}") from exc
+    if len(data) > limit:
+        raise InputError(f"standard input ('-') holds more than the {_fmt_bytes(limit)} allowed "
+                         f"({_limit_origin(max_bytes)}); give the recording as a file")
+    if not data:
+        raise InputError("standard input ('-') is empty; pipe a recording into it (ringdown analyze - < tap.wav)")
+    suffix = "" if data[:4] in _AUDIO_MAGIC else ".csv"
+    # the reader works on files: hand it a private copy, and name standard input in every message
+    with tempfile.TemporaryDirectory(prefix="ringdown-stdin-") as tmp:
+        tmp_name = os.path.join(tmp, "stdin" + suffix)
+        with open(tmp_name, "wb") as fh:
+            fh.write(data)
+        try:
+            rec = read_recording(tmp_name, channel=channel, column=column, sample_rate=sample_rate,
+                                 max_bytes=max_bytes)
+        except (InputError, ParameterError) as exc:
+            raise type(exc)(str(exc).replace(repr(tmp_name), "'-' (standard input)")) from None
+    return Recording(samples=rec.samples, sample_rate=rec.sample_rate, channel=rec.channel, path=STDIN,
+                     sha256=rec.sha256, full_scale=rec.full_scale, timing_jitter=rec.timing_jitter,
+                     n_channels=rec.n_channels)
 
 
 # --------------------------------------------------------------------------------------------

@@ -82,8 +82,10 @@ DEFAULT_MAX_UNIFORM_SHIFT = 0.01
 #: Default largest spread of the per-mode relative shifts that still counts as "uniform" (our choice).
 DEFAULT_UNIFORM_SHIFT_TOLERANCE = 0.002
 
-_ANALYSIS_KEYS = ("method", "bands", "max_modes", "min_snr_db", "min_hit_snr_db", "keep_double_hits", "channel", "column",
-                  "sample_rate", "start_s", "end_s")
+#: Reader options (``ringdown.read_recording`` keywords) kept in the ``[reader]`` table.
+READER_KEYS = ("channel", "column", "sample_rate")
+_ANALYSIS_KEYS = ("method", "bands", "max_modes", "min_snr_db", "min_hit_snr_db", "keep_double_hits", "start_s",
+                  "end_s") + READER_KEYS
 
 
 # --------------------------------------------------------------------------------------------
@@ -196,6 +198,9 @@ class Limits:
         Names and SHA-256 of the good parts used.
     analysis : dict
         Analysis options the good parts were analysed with; ``check`` reuses them.
+    reader : dict
+        Reader options the good parts were read with (``channel``, ``column``, ``sample_rate``;
+        only those given); ``check`` reads parts the same way unless told otherwise.
     tool_version, created_utc : str or None
     notes : tuple of str
         Plain-words remarks written at learning time (few parts, no covariance ...).
@@ -217,6 +222,7 @@ class Limits:
     n_parts: int | None = None
     parts: tuple[tuple[str, str], ...] = ()
     analysis: dict = field(default_factory=dict)
+    reader: dict = field(default_factory=dict)
     tool_version: str | None = None
     created_utc: str | None = None
     notes: tuple[str, ...] = ()
@@ -229,8 +235,10 @@ class Limits:
         return any(m.ratio is not None for m in self.modes)
 
     def analysis_options(self) -> dict:
-        """The stored analysis options that :func:`ringdown.analyze_file` accepts."""
-        return {k: v for k, v in self.analysis.items() if k in _ANALYSIS_KEYS and v is not None}
+        """The stored analysis and reader options that :func:`ringdown.analyze_file` accepts."""
+        opts = {k: v for k, v in self.analysis.items() if k in _ANALYSIS_KEYS and v is not None}
+        opts.update({k: v for k, v in self.reader.items() if k in READER_KEYS and v is not None})
+        return opts
 
     def to_dict(self) -> dict:
         return {
@@ -248,6 +256,7 @@ class Limits:
             "n_parts": self.n_parts,
             "parts": [{"name": n, "sha256": h} for n, h in self.parts],
             "analysis": dict(self.analysis),
+            "reader": dict(self.reader),
             "notes": list(self.notes),
             "modes": [m.to_dict() for m in self.modes],
             "mahalanobis": None if self.mahalanobis is None else self.mahalanobis.to_dict(),
@@ -471,7 +480,8 @@ def learn_limits(
             )
 
     settings = dict(items[0].settings or {})
-    analysis = {k2: v for k2, v in settings.items() if _toml_value_ok(v)}
+    analysis = {k2: v for k2, v in settings.items() if _toml_value_ok(v) and k2 not in READER_KEYS}
+    reader = {k2: settings[k2] for k2 in READER_KEYS if _toml_value_ok(settings.get(k2))}
     parts = tuple((Path(a.path).name if a.path else f"part_{i + 1}", a.sha256 or "") for i, a in enumerate(items))
     limits = Limits(
         modes=tuple(modes),
@@ -483,6 +493,7 @@ def learn_limits(
         n_parts=n,
         parts=parts,
         analysis=analysis,
+        reader=reader,
         tool_version=__version__,
         created_utc=_utc_now(),
         notes=tuple(notes),
@@ -584,6 +595,14 @@ def limits_to_toml(limits: Limits) -> str:
         for key, v in limits.analysis.items():
             if _toml_value_ok(v):
                 w(f"{_key(key)} = {_toml_val(v)}")
+    w("")
+    w("[reader]")
+    w("# how the good parts were read (channel of a sound file, column and sample rate of a text file);")
+    w("# check reads parts the same way unless --channel/--column/--sample-rate say otherwise")
+    for key in READER_KEYS:
+        v = limits.reader.get(key)
+        if v is not None and _toml_value_ok(v):
+            w(f"{key} = {_toml_val(v)}")
     for name, sha in limits.parts:
         w("")
         w("[[parts]]")
@@ -706,6 +725,7 @@ def parse_limits(text: str, *, source: str = "<string>") -> Limits:
         zeta = [0.0002, 0.0009]         # damping ratio window (optional)
         ratio = [2.752, 2.761]          # f_d / f_d of mode 1 (optional, modes 2..)
         [mahalanobis]                   # optional: features, mean, covariance, threshold, n_parts
+        [reader]                        # optional: channel = 2, column = "accel", sample_rate = 51200.0
 
     Raises
     ------
@@ -804,6 +824,19 @@ def parse_limits(text: str, *, source: str = "<string>") -> Limits:
     analysis = doc.get("analysis", {})
     if not isinstance(analysis, dict):
         raise LimitsError(f"limits file '{src}': [analysis] must be a table")
+    reader = doc.get("reader", {})
+    if not isinstance(reader, dict):
+        raise LimitsError(f"limits file '{src}': [reader] must be a table")
+    unknown = sorted(set(reader) - set(READER_KEYS))
+    if unknown:
+        raise LimitsError(f"limits file '{src}': [reader] has unknown key(s) {unknown}; allowed: {', '.join(READER_KEYS)}")
+    rate = reader.get("sample_rate")
+    if rate is not None:
+        _num(src, "reader.", "sample_rate", rate, None, lo=0.0, hi=1e12)
+    for key in ("channel", "column"):
+        v = reader.get(key)
+        if v is not None and (isinstance(v, bool) or not isinstance(v, (int, str))):
+            raise LimitsError(f"limits file '{src}': reader.{key} must be a number or a name, got {v!r}")
     _check_analysis(src, analysis)
     notes = st.get("notes", doc.get("notes", []))
     if not isinstance(notes, list) or not all(isinstance(x, str) for x in notes):
@@ -823,6 +856,7 @@ def parse_limits(text: str, *, source: str = "<string>") -> Limits:
         n_parts=n_parts,
         parts=tuple(parts),
         analysis=dict(analysis),
+        reader=dict(reader),
         tool_version=None if doc.get("tool_version") is None else str(doc["tool_version"]),
         created_utc=str(doc["created_utc"]) if "created_utc" in doc else None,
         notes=tuple(notes),
@@ -833,7 +867,7 @@ def parse_limits(text: str, *, source: str = "<string>") -> Limits:
 
 #: Top-level keys of a limits file (anything else is a typo that would be ignored silently).
 _TOP_KEYS = frozenset({"format_version", "tool_version", "created_utc", "check", "modes", "mahalanobis", "settings",
-                       "parts", "analysis", "notes"})
+                       "parts", "analysis", "reader", "notes"})
 
 
 def _is_number(v: Any) -> bool:

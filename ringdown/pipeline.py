@@ -347,6 +347,9 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
                  for sp in spans]
     clipped = condition.find_clipping(raw, full_scale=rec.full_scale)
     rec_warnings: list[Notice] = [band_note] if band_note is not None else []
+    if rec.n_channels > 1:
+        rec_warnings.append(Notice("multichannel", f"{name} holds {rec.n_channels} channels (or data columns); only "
+                                                   f"{rec.channel!r} was analysed (choose another with --channel)"))
     rec_warnings.extend(Notice(code, message) for code, message in getattr(rec, "notes", ()))
     if rec.timing_jitter is not None and rec.timing_jitter > 1e-6:
         rec_warnings.append(Notice("timing_jitter", f"time steps jitter by {100 * rec.timing_jitter:.3g} % RMS (accepted)"))
@@ -947,7 +950,7 @@ def _trace(est: Estimate, band: Band, window: Window, env_est: Estimate | None) 
     except FitError:
         pt, pv = None, None
     return ModeTrace(base.t_s, base.envelope, base.fit_start_s, base.fit_end_s, base.noise_floor, base.fit_amplitude,
-                     base.fit_beta_per_s, base.fit_t0_s, pt, pv)
+                     base.fit_beta_per_s, base.fit_t0_s, pt, pv, base.model_envelope, base.n_model_modes)
 
 
 # ----------------------------------------------------------------------------------------------

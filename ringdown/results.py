@@ -116,6 +116,11 @@ class ModeTrace:
         The fitted envelope is ``fit_amplitude * exp(-fit_beta_per_s * (t - fit_t0_s))``.
     peaks_t_s, peaks_value : (m,) ndarray of float or None
         Peak times and heights used by the log-decrement regression.
+    model_envelope : (n,) ndarray of float or None
+        Magnitude of the sum of every mode fitted jointly in this band, at ``t_s`` (NaN before
+        the fit window), recording units; None for single-mode fits.
+    n_model_modes : int
+        How many modes that sum holds (1 when ``model_envelope`` is None).
     """
 
     t_s: np.ndarray
@@ -128,6 +133,8 @@ class ModeTrace:
     fit_t0_s: float
     peaks_t_s: np.ndarray | None = None
     peaks_value: np.ndarray | None = None
+    model_envelope: np.ndarray | None = None
+    n_model_modes: int = 1
 
 
 _MODE_KEYS = (

@@ -20,7 +20,7 @@ from ringdown.results import mode_keys
 
 F_REF = (440.0, 1250.0)
 BETA_REF = (12.0, 20.0)
-ROW = re.compile(r"^\s+(\d+)\s+(\d+\.\d+)(?: ± [\d.]+)?\s")
+ROW = re.compile(r"^\s+(\d+)\s+(\d+\.\d+)(?:\(\d+\))?\s")  # '611.999885(83)': value(u), ringdown.numfmt
 
 
 def run(*args):

@@ -47,6 +47,8 @@ app = typer.Typer(
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
+    # plain click help: flags show no '<bool>' type, and the text is the same on a terminal and in a pipe
+    rich_markup_mode=None,
 )
 
 

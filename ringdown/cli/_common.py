@@ -121,6 +121,26 @@ def print_json(document: Any) -> None:
     sys.stdout.write(json.dumps(document, indent=2, allow_nan=False) + "\n")
 
 
+def print_json_line(record: Any) -> None:
+    """Write one JSON Lines record to stdout and flush, so a pipe sees it at once."""
+    sys.stdout.write(json.dumps(record, allow_nan=False, separators=(",", ":")) + "\n")
+    sys.stdout.flush()
+
+
+#: The input name that means standard input.
+STDIN = "-"
+
+
+def uses_stdin(paths: Iterable[str]) -> bool:
+    """Whether ``-`` (standard input) is among the inputs; given twice it is an error."""
+    n = sum(1 for p in paths if p == STDIN)
+    if n > 1:
+        from ..errors import ParameterError
+
+        raise ParameterError("'-' (standard input) is given more than once; standard input holds one recording")
+    return n == 1
+
+
 class Inputs(list):
     """Expanded input paths; ``problems`` counts the folders and patterns that held no recording
     (each already reported on stderr)."""
@@ -153,6 +173,7 @@ def expand_inputs(items: Iterable[str], *, recursive: bool = False, exclude: Ite
     one line and counted in ``problems``. Expanding skips this run's outputs (``exclude``) and
     files ringdown wrote (a CSV with a ringdown header), saying so. ``recursive`` descends into
     sub-folders.
+    ``-`` (standard input) is kept as it is.
     """
     skip = {os.path.realpath(str(e)) for e in exclude if e}
     out = Inputs()
@@ -168,7 +189,9 @@ def expand_inputs(items: Iterable[str], *, recursive: bool = False, exclude: Ite
 
     for item in items:
         p = Path(item)
-        if p.is_dir():
+        if item == STDIN:
+            out.append(item)
+        elif p.is_dir():
             found = sorted(str(q) for q in (p.rglob("*") if recursive else p.iterdir()) if keep(q))
             if not found:
                 subs = not recursive and any(q.is_dir() for q in p.iterdir())

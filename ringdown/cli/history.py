@@ -8,13 +8,14 @@ from typing import Optional
 
 import typer
 
+from ..numfmt import fmt_value
 from ._common import DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, error_line, guarded, print_json, usage_error
 
 __all__ = ["register", "format_history"]
 
 
-def _f(v, fmt: str) -> str:
-    return "-" if v is None else format(v, fmt)
+def _f(v, digits: int) -> str:
+    return fmt_value(v, digits, missing="-")
 
 
 def _n_modes(records) -> int:
@@ -25,6 +26,7 @@ def _n_modes(records) -> int:
 
 def format_history(records) -> str:
     """A text table: one line per stored test (names with control characters shown escaped)."""
+    from ..check import verdict_kind
     from ..outputs import shown
 
     n = _n_modes(records)
@@ -35,11 +37,12 @@ def format_history(records) -> str:
         fs = []
         for j in range(1, n + 1):
             m = r.mode_for(j)
-            fs.append(_f(None if m is None else m.get("f_d_hz"), ".1f"))
+            fs.append(_f(None if m is None else m.get("f_d_hz"), 6))
         reason = r.reasons[0]["message"] if r.reasons else (r.error or "")
-        rows.append([str(r.id), shown(str(r.tested_utc)[:19].replace("T", " ")), shown(r.part_id),
-                     shown(r.verdict or r.kind).upper(), shown(r.station or "-"), shown(r.operator or "-"), *fs,
-                     shown(reason)])
+        kind = verdict_kind(r.verdict, [n.get("code") for n in r.notes])
+        verdict = "PASS (advisory)" if kind == "pass_advisory" else shown(r.verdict or r.kind).upper()
+        rows.append([str(r.id), shown(str(r.tested_utc)[:19].replace("T", " ")), shown(r.part_id), verdict,
+                     shown(r.station or "-"), shown(r.operator or "-"), *fs, shown(reason)])
     widths = [max(len(h), *(len(x[i]) for x in rows)) if rows else len(h) for i, h in enumerate(head)]
     lines = ["  ".join(h.ljust(w) for h, w in zip(head, widths)).rstrip()]
     for x in rows:
@@ -79,7 +82,8 @@ def register(app: typer.Typer) -> None:
         kind: Optional[str] = typer.Option(None, "--kind", help="Only 'check' or 'analysis' records."),
         json_out: bool = typer.Option(False, "--json", help="Print the records as JSON."),
         csv_out: Optional[str] = typer.Option(None, "--csv", help="Write the records to this CSV file."),
-        plot: Optional[str] = typer.Option(None, "--plot", help="Write a run chart (PNG, SVG or PDF)."),
+        plot: Optional[str] = typer.Option(None, "--plot", help="Write a run chart; the name's ending gives the "
+                                           "format: .png, .svg or .pdf."),
         limits_path: Optional[str] = typer.Option(None, "--limits", help="Draw these limits on the run chart "
                                                   "(default: the limits each part was checked with)."),
         parquet_out: Optional[str] = typer.Option(None, "--parquet", help="Write the records, one row per mode, to "
@@ -91,6 +95,11 @@ def register(app: typer.Typer) -> None:
         from ._common import resolve_db
 
         path = resolve_db(db)
+        if plot:
+            from .render import check_plot_format
+
+            guarded(lambda: check_plot_format(Path(plot).suffix.lower().lstrip("."),
+                                                "the --plot file's ending"), debug=debug)
         if json_out and csv_out:
             usage_error("--json and --csv are exclusive; choose one")
         if csv_out:
@@ -135,7 +144,7 @@ def register(app: typer.Typer) -> None:
                 except (OSError, ValueError) as exc:
                     from ..errors import ParameterError
 
-                    raise ParameterError(f"cannot write the run chart to '{plot}': {exc}; choose a writable .png") from exc
+                    raise ParameterError(f"cannot write the run chart to '{plot}': {exc}; choose a writable file") from exc
                 with atomic_write(plot, "wb", what="the run chart to") as fh:  # never half a figure
                     fh.write(buf.getvalue())
 

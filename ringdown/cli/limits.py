@@ -7,6 +7,7 @@ analysed or a file could not be used (errors win over failures), 64 usage error,
 from __future__ import annotations
 
 import csv
+import sys
 import time
 from dataclasses import replace
 from pathlib import Path
@@ -14,17 +15,17 @@ from typing import List, Optional
 
 import typer
 
-from ._common import (CHANNEL_HELP, DEBUG_OPTION, END_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_FAIL, EXIT_INTERRUPTED,
-                      EXIT_OK, RECURSIVE_OPTION, START_OPTION, default_jobs, error_line, expand_inputs, guarded,
-                      note_line, on_terminal, parse_channel, print_json, progress_bar, resolve_db, sigint_deferred,
-                      time_window, usage_guarded, DB_ENV)
+from ..numfmt import fmt_value, fmt_values
+from ._common import (DEBUG_OPTION, END_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_FAIL, EXIT_INTERRUPTED, EXIT_OK,
+                      RECURSIVE_OPTION, START_OPTION, default_jobs, error_line, expand_inputs, guarded, note_line,
+                      on_terminal, print_json, print_json_line, progress_bar, resolve_db, sigint_deferred,
+                      time_window, usage_guarded, uses_stdin, DB_ENV)
+from ._options import Channel, Column, Jsonl, Notes, SampleRate, Serial, Title, reader_options, report_header
 
 __all__ = ["register", "format_check"]
 
-def _analysis_options(method, min_snr_db, max_modes, bands, channel=None, start=None, end=None) -> dict:
+def _analysis_options(method, min_snr_db, max_modes, bands, start=None, end=None) -> dict:
     opts: dict = time_window(start, end)
-    if channel is not None:
-        opts["channel"] = parse_channel(channel)
     if method is not None:
         opts["method"] = method
     if min_snr_db is not None:
@@ -36,6 +37,16 @@ def _analysis_options(method, min_snr_db, max_modes, bands, channel=None, start=
 
         opts["bands"] = [parse_band(b) for b in bands]
     return opts
+
+
+def _stream(row: dict, json_out: bool, jsonl: bool) -> None:
+    """One part's result as soon as it is known: a JSON line, or its text lines (not with --json).
+    An ERROR is a verdict like PASS and FAIL: it is listed with its reason on stdout, once."""
+    if jsonl:
+        print_json_line(row)
+    elif not json_out:
+        typer.echo(format_check(row))
+        sys.stdout.flush()
 
 
 def format_check(row: dict) -> str:
@@ -73,20 +84,24 @@ def _write_csv(rows: list[dict], limits, path: str) -> None:
             w.writerow(csv_row(line))
 
 
-def _write_report(results, rows: list[dict], limits, path: str) -> None:
-    from ..report import Section, html_table, write_report
+def _write_report(rows: list[dict], limits, path: str, options: dict, header: dict) -> None:
+    """The check report, with each analysed part's figures: the parts are analysed again here,
+    in this process, because a batch keeps no samples (the verdicts come from the batch)."""
+    from ..pipeline import analyze_file
+    from ..report import Section, _write, html_table, render_check_report
+    from ..results import Analysis
 
-    table = html_table(
-        ["part", "verdict", "reasons", "notes"],
-        [[r["part_id"], r["verdict"].upper() + (" (stored)" if r.get("skipped") else ""),
-          "; ".join(x["message"] for x in r.get("reasons", [])) or "-",
-          "; ".join(x["message"] for x in r.get("notes", [])) or "-"] for r in rows],
-    )
-    lim = html_table(["limits file", "SHA-256", "coverage", "confidence", "good parts"],
-                     [[limits.source or "-", limits.sha256 or "-", limits.coverage if limits.coverage else "-",
-                       limits.confidence if limits.confidence else "-", limits.n_parts or "-"]])
-    analyses = [r.analysis for r in results if r is not None and r.analysis is not None]
-    sections = [Section("Pass/fail", table, anchor="checks"), Section("Limits used", lim)]
+    opts = {**limits.analysis_options(), **options}
+    analyses = []
+    for r in rows:
+        if r.get("skipped") or not r.get("path") or r["path"] == "-":
+            analyses.append(None)
+            continue
+        try:
+            analyses.append(analyze_file(r["path"], **opts))
+        except Exception as exc:  # noqa: BLE001  the verdict stands; the report says why figures are missing
+            analyses.append(Analysis.failed(r["path"], exc, settings=opts))
+    sections = []
     stored = [r for r in rows if r.get("skipped")]
     if stored:
         # parts skipped as already stored: their modes from the stored record, in full
@@ -100,7 +115,7 @@ def _write_report(results, rows: list[dict], limits, path: str) -> None:
             ))
         sections.append(Section("Parts taken from the history (already stored, not re-analysed)", "".join(body),
                                 anchor="stored"))
-    write_report(analyses, path, title="Part check report", figures=False, extra_sections=sections)
+    _write(render_check_report(rows, analyses, limits, more_sections=sections, **header), path)
 
 
 def register(app: typer.Typer) -> None:
@@ -118,7 +133,9 @@ def register(app: typer.Typer) -> None:
         min_snr_db: Optional[float] = typer.Option(None, help="Smallest mode SNR, dB (as for analyze)."),
         max_modes: Optional[int] = typer.Option(None, help="Most modes per recording (as for analyze)."),
         band: Optional[List[str]] = typer.Option(None, "--band", help="Band LOW:HIGH in Hz (repeatable)."),
-        channel: Optional[str] = typer.Option(None, "--channel", help=CHANNEL_HELP + " Kept in the limits file for check."),
+        channel: Channel = None,
+        column: Column = None,
+        sample_rate: SampleRate = None,
         start: Optional[float] = START_OPTION,
         end: Optional[float] = END_OPTION,
         jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
@@ -131,8 +148,8 @@ def register(app: typer.Typer) -> None:
         from ..pipeline import analyze_many
         from ..limits import learn_limits, write_limits
 
-        opts = usage_guarded(lambda: _analysis_options(method, min_snr_db, max_modes, band, channel, start, end),
-                             debug=debug)
+        opts = usage_guarded(lambda: {**_analysis_options(method, min_snr_db, max_modes, band, start, end),
+                                      **reader_options(channel, column, sample_rate)}, debug=debug)
 
         def run():
             from ..errors import ParameterError
@@ -145,7 +162,7 @@ def register(app: typer.Typer) -> None:
                 raise ParameterError(f"'{output}' exists; use --force to overwrite it or -o to choose another file")
             check_writable(output, "limits file")
             try:
-                analyses = analyze_many(paths, jobs=max(1, jobs), **opts)
+                analyses = analyze_many(paths, jobs=1 if uses_stdin(paths) else max(1, jobs), **opts)
             except KeyboardInterrupt:
                 error_line(f"interrupted: no limits written to '{output}'; rerun to learn them")
                 raise typer.Exit(EXIT_INTERRUPTED) from None
@@ -168,14 +185,17 @@ def register(app: typer.Typer) -> None:
             return
         typer.echo(f"learned limits from {lim.n_parts} good parts (coverage {lim.coverage:g}, confidence "
                    f"{lim.confidence:g}, k = {lim.k_factor:.4f}) -> {output}")
+        if lim.reader:
+            typer.echo("  read with " + ", ".join(f"{k} {v}" for k, v in lim.reader.items()))
         for m in lim.modes:
-            line = f"  mode {m.index}: f_d {m.f_hz[0]:.1f}-{m.f_hz[1]:.1f} Hz, zeta {m.zeta[0]:.3g}-{m.zeta[1]:.3g}"
+            line = (f"  mode {m.index}: f_d {' to '.join(fmt_values(m.f_hz, 6))} Hz, "
+                    f"zeta {' to '.join(fmt_values(m.zeta, 3))}")
             if m.ratio is not None:
-                line += f", ratio to mode 1 {m.ratio[0]:.5f}-{m.ratio[1]:.5f}"
+                line += f", ratio to mode 1 {' to '.join(fmt_values(m.ratio, 6))}"
             typer.echo(line)
         if lim.mahalanobis is not None:
             mh = lim.mahalanobis
-            typer.echo(f"  Mahalanobis distance of {len(mh.features)} features at most {mh.threshold:.2f}")
+            typer.echo(f"  Mahalanobis distance of {len(mh.features)} features at most {fmt_value(mh.threshold, 3)}")
 
     app.add_typer(limits_app, name="limits")
 
@@ -184,8 +204,15 @@ def register(app: typer.Typer) -> None:
         files: List[str] = typer.Argument(..., help="Recordings of parts to check (files, folders, glob patterns)."),
         limits_path: str = typer.Option(..., "--limits", "-l", help="Limits file (TOML)."),
         json_out: bool = typer.Option(False, "--json", help="Print every result as JSON on stdout."),
+        jsonl: Jsonl = False,
         csv_out: Optional[str] = typer.Option(None, "--csv", help="Write one row per part to this CSV file."),
         report: Optional[str] = typer.Option(None, "--report", help="Write a self-contained HTML report."),
+        title: Title = None,
+        notes: Notes = None,
+        serial: Serial = None,
+        channel: Channel = None,
+        column: Column = None,
+        sample_rate: SampleRate = None,
         db: Optional[str] = typer.Option(None, "--db", help=f"Results database (default ${DB_ENV} or ringdown.sqlite)."),
         no_store: bool = typer.Option(False, "--no-store", help="Do not write results to the database."),
         station: Optional[str] = typer.Option(None, "--station", help="Test station name, stored with each result."),
@@ -211,10 +238,17 @@ def register(app: typer.Typer) -> None:
         from ..store import ResultStore, file_sha256, part_id_from_path
 
         t0 = time.monotonic()
+        if json_out and jsonl:
+            from ._common import usage_error
+
+            usage_error("--json and --jsonl are exclusive: --json prints one document at the end, --jsonl one "
+                        "line per part as it is checked; choose one")
+        overrides = usage_guarded(lambda: reader_options(channel, column, sample_rate), debug=debug)
         usage_guarded(lambda: part_id_from_path("x", part_id), debug=debug)  # a bad regex is a usage error
         lim = guarded(lambda: read_limits(limits_path), debug=debug)
         db_path = None if no_store else resolve_db(db)
         paths = expand_inputs(files, recursive=recursive, exclude=[csv_out, report, db_path, limits_path])
+        n_jobs = usage_guarded(lambda: 1 if uses_stdin(paths) else max(1, jobs), debug=debug)
         if not paths:
             error_line(f"no recordings found in {', '.join(files)}; give files, folders or glob patterns")
             raise typer.Exit(EXIT_ERROR)
@@ -251,6 +285,7 @@ def register(app: typer.Typer) -> None:
                     lambda: store.find_check(shas[i], lim.sha256), debug=debug)
                 if old is not None:
                     rows[i] = _stored_row(old, ids[i], p, shas[i])
+                    _stream(rows[i], json_out, jsonl)
                 else:
                     todo.append(i)
             prog, task = progress_bar(on_terminal(json_out) and len(todo) > 1, len(todo), "checking")
@@ -260,8 +295,8 @@ def register(app: typer.Typer) -> None:
             cluster = guarded(lambda: connect(scheduler), debug=debug)
             sink = guarded(lambda: open_sink(parquet_out), debug=debug)
             with cluster as client, sink, prog:
-                it = iter_check_files([paths[i] for i in todo], lim, jobs=max(1, jobs), on_notice=note_line,
-                                      options=time_window(start, end), client=client)
+                it = iter_check_files([paths[i] for i in todo], lim, jobs=n_jobs, on_notice=note_line,
+                                      options={**overrides, **time_window(start, end)}, client=client)
                 for pos, res in it:
                     i = todo[pos]
                     if res.sha256 is None and shas[i] is not None:
@@ -281,6 +316,7 @@ def register(app: typer.Typer) -> None:
                         results[i] = res
                         rows[i] = {"part_id": ids[i], "skipped": False, "stored_id": stored, **res.to_dict()}
                     prog.advance(task)
+                    _stream(rows[i], json_out, jsonl)
                 guarded(sink.close, debug=debug)
         except KeyboardInterrupt:
             interrupted = True
@@ -296,11 +332,14 @@ def register(app: typer.Typer) -> None:
                    "errors": counts["error"], "skipped": skipped, "time_s": round(elapsed, 3)}
         from .analyze import _try
 
+        window = time_window(start, end)
         failed_outputs = 0
         if csv_out:
             failed_outputs += _try(lambda: _write_csv(rows_f, lim, csv_out), debug)
         if report:
-            failed_outputs += _try(lambda: _write_report(results, rows_f, lim, report), debug)
+            header = report_header(title, notes, serial, station=station, operator=operator,
+                                   limits=lim.source, **{"limits SHA-256": lim.sha256})
+            failed_outputs += _try(lambda: _write_report(rows_f, lim, report, {**overrides, **window}, header), debug)
         if json_out:
             from .._version import __version__
 
@@ -308,13 +347,10 @@ def register(app: typer.Typer) -> None:
                         "limits": {"path": lim.source, "sha256": lim.sha256},
                         "station": station, "operator": operator,
                         "results": rows_f, "summary": summary})
-        else:
-            for r in rows_f:
-                typer.echo(format_check(r))
         line = (f"{summary['parts']} parts: {summary['passed']} passed, {summary['failed']} failed, "
                 f"{summary['errors']} errors" + (f" ({skipped} already stored, skipped)" if skipped else "")
                 + f" in {elapsed:.1f} s")
-        typer.echo(line, err=json_out)
+        typer.echo(line, err=json_out or jsonl)
         if interrupted:
             error_line(f"interrupted: {len(rows_f)} of {len(paths)} done" + (" (stored)" if store is not None else "")
                        + ", rerun to resume")
