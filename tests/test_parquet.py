@@ -261,6 +261,14 @@ def test_killed_run_keeps_what_it_wrote(parts, tmp_path):
 
 def test_interrupted_check_keeps_every_finished_part(parts, tmp_path):
     paths, lim = parts
+    # 120 parts: their JSON lines overfill the pipe the test stops reading, so the run cannot
+    # finish before the Ctrl-C however loaded the machine is
+    rng = np.random.default_rng(11)
+    paths = list(paths)
+    for i in range(96):
+        p = tmp_path / f"SN-x{i:04d}.wav"
+        sim.write_part(p, sim.part_modes(rng, "good"), rng, duration_s=0.5)
+        paths.append(str(p))
     db, out = tmp_path / "h.sqlite", tmp_path / "ds"
     proc = subprocess.Popen([sys.executable, "-c", "from ringdown.cli import main; main()", "check", "--limits", lim,
                              *paths, "--jobs", "1", "--db", str(db), "--parquet", str(out), "--jsonl"],
