@@ -269,7 +269,7 @@ def test_worker_dying_twice_is_reported_for_that_item_only():
 
 @pytest.mark.slow
 def test_sigint_in_check_exits_promptly_with_finished_results_stored_and_written(tmp_path, limits_file):
-    files = make_parts(tmp_path / "many", 12, seed=31, duration_s=1.0)
+    files = make_parts(tmp_path / "many", 40, seed=31, duration_s=1.0)  # enough that a loaded machine cannot finish first
     db, out_csv = tmp_path / "h.sqlite", tmp_path / "out.csv"
     proc = popen("check", "--limits", limits_file, *files, "--jobs", "2", "--db", db, "--csv", out_csv)
     assert wait_for_rows(db, 2, proc) >= 2, "no result was stored before the run ended"
@@ -293,7 +293,7 @@ def test_sigint_in_check_exits_promptly_with_finished_results_stored_and_written
 
 @pytest.mark.slow
 def test_sigint_in_analyze_writes_the_partial_csv(tmp_path):
-    files = make_parts(tmp_path / "many", 10, seed=41, duration_s=1.0)
+    files = make_parts(tmp_path / "many", 40, seed=41, duration_s=1.0)  # enough that a loaded machine cannot finish first
     db, out_csv = tmp_path / "h.sqlite", tmp_path / "out.csv"
     proc = popen("analyze", *files, "--jobs", "2", "--store", "--db", db, "--csv", out_csv)
     assert wait_for_rows(db, 2, proc) >= 2
