@@ -67,6 +67,17 @@ def test_every_reading_command_takes_the_same_reader_options():
             assert seen.setdefault(flag, sig) == sig, f"{name} {flag} differs from the shared definition"
 
 
+def test_every_windowed_command_takes_the_same_time_window():
+    # --start/--end (issue 11) from the one shared definition on analyze, compare, limits learn, check
+    for name in ("analyze", "compare", "limits learn", "check"):
+        opts = _options(READING[name])
+        for flag in ("--start", "--end"):
+            assert flag in opts, f"{name} lacks {flag}"
+    sigs = {(p.name, p.help, str(p.display_type)) for name in ("analyze", "compare", "limits learn", "check")
+            for flag in ("--start", "--end") for p in [_options(READING[name])[flag]]}
+    assert len(sigs) == 2, sigs  # one definition each for --start and --end
+
+
 def test_every_report_command_takes_the_same_header_options():
     for name, path in REPORTING.items():
         opts = _options(path)

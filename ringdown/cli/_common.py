@@ -36,8 +36,6 @@ EXIT_EPILOG = ("Exit status: 0 done (every part passed); 1 a part FAILED its lim
 
 DEBUG_OPTION = typer.Option(False, "--debug", help="Show the full traceback of an error.")
 #: The time window of the analysis, shared by every command that analyses recordings.
-START_OPTION = typer.Option(None, "--start", help="Analyse from this time on, s from the record's first sample.")
-END_OPTION = typer.Option(None, "--end", help="Analyse up to this time, s from the record's first sample.")
 
 
 def time_window(start: Optional[float], end: Optional[float]) -> dict:

@@ -19,11 +19,13 @@ import typer
 
 from ._common import CHANNEL_HELP, parse_channel
 
-__all__ = ["READER_OPTIONS", "Channel", "Column", "SampleRate", "Title", "Notes", "Serial", "Jsonl",
-           "reader_options", "report_header"]
+__all__ = ["READER_OPTIONS", "WINDOW_OPTIONS", "Channel", "Column", "SampleRate", "Start", "End", "Title", "Notes",
+           "Serial", "Jsonl", "reader_options", "report_header"]
 
 #: Option names (keyword names of ``ringdown.read_recording``) every reading command accepts.
 READER_OPTIONS = ("channel", "column", "sample_rate")
+#: The time window (analysis options ``start_s``/``end_s``) of analyze, compare, limits learn, check.
+WINDOW_OPTIONS = ("start", "end")
 
 _READING = "Reading recordings"
 _REPORT = "Report header"
@@ -35,6 +37,13 @@ Column = Annotated[Optional[str], typer.Option(
 SampleRate = Annotated[Optional[float], typer.Option(
     "--sample-rate", help="Sample rate, Hz, for files that do not state it (text without a time column, "
                           "TDMS/MAT/HDF5 without one).", rich_help_panel=_READING)]
+
+Start = Annotated[Optional[float], typer.Option(
+    "--start", help="Analyse from this time on, s from the record's first sample (check: as learned unless given).",
+    rich_help_panel=_READING)]
+End = Annotated[Optional[float], typer.Option(
+    "--end", help="Analyse up to this time, s from the record's first sample (check: as learned unless given).",
+    rich_help_panel=_READING)]
 
 Title = Annotated[Optional[str], typer.Option(
     "--title", help="Report title, printed at the top of every page.", rich_help_panel=_REPORT)]

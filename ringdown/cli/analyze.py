@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import csv
-import math
 import sys
 import time
 from pathlib import Path
@@ -12,10 +11,10 @@ from typing import List, Optional
 import typer
 
 from ..numfmt import fmt_fixed, fmt_pm, fmt_value
-from ._common import (DEBUG_OPTION, END_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_INTERRUPTED, EXIT_OK, RECURSIVE_OPTION,
-                      START_OPTION, default_jobs, error_line, expand_inputs, guarded, note_line, on_terminal,
+from ._common import (DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_INTERRUPTED, EXIT_OK, RECURSIVE_OPTION,
+                      default_jobs, error_line, expand_inputs, guarded, note_line, on_terminal,
                       print_json, print_json_line, progress_bar, time_window, usage_guarded, uses_stdin)
-from ._options import Channel, Column, Jsonl, Notes, SampleRate, Serial, Title, reader_options, report_header
+from ._options import Channel, Column, End, Start, Jsonl, Notes, SampleRate, Serial, Title, reader_options, report_header
 
 __all__ = ["register", "parse_band", "parse_columns", "format_table", "TABLE_COLUMNS", "DEFAULT_COLUMNS"]
 
@@ -145,8 +144,8 @@ def register(app: typer.Typer) -> None:
         min_snr_db: float = typer.Option(10.0, "--min-snr-db", help="Fits end where a mode is this far above its band noise, dB."),
         min_hit_snr_db: float = typer.Option(20.0, "--min-hit-snr-db", help="A hit must rise this far above the noise floor, dB."),
         keep_double_hits: bool = typer.Option(False, "--keep-double-hits", help="Combine hits flagged as hammer bounces too."),
-        start: Optional[float] = START_OPTION,
-        end: Optional[float] = END_OPTION,
+        start: Start = None,
+        end: End = None,
         jobs: Optional[int] = typer.Option(None, "--jobs", help="Worker processes for a batch (default: the number of cores)."),
         plot: Optional[Path] = typer.Option(None, "--plot", help="Write figures for each file into this folder."),
         plot_format: str = typer.Option("png", "--plot-format", help="Figure format: png or svg."),

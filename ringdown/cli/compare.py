@@ -21,9 +21,9 @@ import typer
 
 from ..errors import RingdownError
 from ..numfmt import fmt_interval, fmt_pm, fmt_value
-from ._common import (DEBUG_OPTION, END_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_OK, START_OPTION, error_line,
+from ._common import (DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_OK, error_line,
                       expand_inputs, guarded, print_json, time_window, usage_error)
-from ._options import Channel, Column, Notes, SampleRate, Serial, Title, reader_options, report_header
+from ._options import Channel, Column, End, Start, Notes, SampleRate, Serial, Title, reader_options, report_header
 
 __all__ = ["register", "format_table"]
 
@@ -171,8 +171,8 @@ def register(app: typer.Typer) -> None:
         title: Title = None,
         notes: Notes = None,
         serial: Serial = None,
-        start: Optional[float] = START_OPTION,
-        end: Optional[float] = END_OPTION,
+        start: Start = None,
+        end: End = None,
         debug: bool = DEBUG_OPTION,
     ) -> None:
         if ctx.args:

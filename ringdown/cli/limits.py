@@ -16,11 +16,11 @@ from typing import List, Optional
 import typer
 
 from ..numfmt import fmt_value, fmt_values
-from ._common import (DEBUG_OPTION, END_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_FAIL, EXIT_INTERRUPTED, EXIT_OK,
-                      RECURSIVE_OPTION, START_OPTION, default_jobs, error_line, expand_inputs, guarded, note_line,
+from ._common import (DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_FAIL, EXIT_INTERRUPTED, EXIT_OK,
+                      RECURSIVE_OPTION, default_jobs, error_line, expand_inputs, guarded, note_line,
                       on_terminal, print_json, print_json_line, progress_bar, resolve_db, sigint_deferred,
                       time_window, usage_guarded, uses_stdin, DB_ENV)
-from ._options import Channel, Column, Jsonl, Notes, SampleRate, Serial, Title, reader_options, report_header
+from ._options import Channel, Column, End, Start, Jsonl, Notes, SampleRate, Serial, Title, reader_options, report_header
 
 __all__ = ["register", "format_check"]
 
@@ -136,8 +136,8 @@ def register(app: typer.Typer) -> None:
         channel: Channel = None,
         column: Column = None,
         sample_rate: SampleRate = None,
-        start: Optional[float] = START_OPTION,
-        end: Optional[float] = END_OPTION,
+        start: Start = None,
+        end: End = None,
         jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
         force: bool = typer.Option(False, "--force", help="Overwrite an existing limits file."),
         json_out: bool = typer.Option(False, "--json", help="Print the limits as JSON."),
@@ -220,9 +220,8 @@ def register(app: typer.Typer) -> None:
         part_id: Optional[str] = typer.Option(None, "--part-id", help="Regex taking the part id from the file name "
                                               "(first group, or the whole match); default the file stem."),
         force: bool = typer.Option(False, "--force", help="Re-check files already stored with the same limits."),
-        start: Optional[float] = typer.Option(None, "--start", help="Analyse from this time on, s from the record's "
-                                              "first sample (default: the window the limits were learned with)."),
-        end: Optional[float] = typer.Option(None, "--end", help="Analyse up to this time, s (default: as learned)."),
+        start: Start = None,
+        end: End = None,
         jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
         recursive: bool = RECURSIVE_OPTION,
         scheduler: Optional[str] = typer.Option(None, "--scheduler", help="Run on a Dask cluster: scheduler ADDRESS "
