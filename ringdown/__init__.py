@@ -35,6 +35,7 @@ from .plots import (
 )
 from .history_plot import plot_run_chart
 from .report import Section, render_report, write_report
+from .moduli import CylindricalRod, ModuliResult, RectangularBar, moduli
 
 __all__ = [
     "__version__",
@@ -43,6 +44,7 @@ __all__ = [
     "CheckResult",
     "Comparison",
     "CramerRao",
+    "CylindricalRod",
     "Derived",
     "Estimate",
     "FitError",
@@ -52,9 +54,11 @@ __all__ = [
     "LimitsError",
     "Mode",
     "ModeTrace",
+    "ModuliResult",
     "NoRingdownError",
     "Notice",
     "ParameterError",
+    "RectangularBar",
     "Recording",
     "ResultStore",
     "Section",
@@ -70,6 +74,7 @@ __all__ = [
     "crlb_damped_sinusoid",
     "derive",
     "learn_limits",
+    "moduli",
     "plot_comparison",
     "plot_damping_vs_amplitude",
     "plot_decay",

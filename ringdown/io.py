@@ -97,7 +97,8 @@ def read_recording(
     sample_rate: float | None = None,
     max_bytes: int | None = None,
 ) -> Recording:
-    """Read one channel of a ring-down recording from a sound file or a delimited text file.
+    """Read one channel of a ring-down recording from a sound file, a delimited text file, or a
+    TDMS, UFF 58, MATLAB or HDF5 file.
 
     Parameters
     ----------
@@ -105,10 +106,13 @@ def read_recording(
         The file. Names ending in ``.csv``, ``.txt``, ``.tsv`` or ``.dat`` are read as text
         (unless the file starts like a known sound format); anything else is first offered to
         soundfile (WAV, FLAC, OGG, AIFF, ... any bit depth, integer or float), and read as text
-        when soundfile cannot open it and it looks like text.
+        when soundfile cannot open it and it looks like text. A file whose content (else name
+        ending) is TDMS, Universal File Format, MATLAB or HDF5 goes to its reader in
+        :mod:`ringdown.formats` (see there for the channel names, the rate and the unit).
     channel : int or str, optional
         Sound files: which channel, 1-based (``2`` or ``"2"``); default the first. For a text file
-        it is taken as `column` when `column` is not given.
+        it is taken as `column` when `column` is not given. The formats of :mod:`ringdown.formats`
+        also take a name (``"group/channel"``, a variable or dataset path).
     column : int or str, optional
         Text files: the data column, either a 1-based index among the data columns (the time
         column is not counted) or a header name (case-insensitive; ``"voltage"`` also matches
@@ -197,6 +201,11 @@ def read_recording(
     with _open(name) as fh:
         head = fh.read(4096)
     magic = _AUDIO_MAGIC.get(head[:4])
+    from .formats import find_reader
+
+    reader = find_reader(name, head, other_format=magic is not None)
+    if reader is not None:
+        return reader.read(name, channel=_selection(channel, column, name), sample_rate=sample_rate, limit=limit)
     is_text_name = name.lower().endswith(TEXT_SUFFIXES)
 
     if magic is not None or not is_text_name:

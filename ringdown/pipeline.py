@@ -162,7 +162,8 @@ def analyze_file(
 ) -> Analysis:
     """Read a recording (see :func:`ringdown.read_recording`) and analyse it.
 
-    ``channel`` (audio), ``column`` and ``sample_rate`` (delimited text) go to the reader;
+    ``channel`` (a number, or a name for TDMS/UFF/MATLAB/HDF5), ``column`` and ``sample_rate``
+    (text, and files that state no rate) go to the reader;
     the other keyword options are those of :func:`analyze`.
     """
     from .io import read_recording
@@ -315,6 +316,7 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
         path=rec.path,
         sha256=rec.sha256,
         channel=rec.channel,
+        unit=rec.unit,
         sample_rate_hz=fs,
         n_samples=rec.n_samples,
         hits=tuple(hits),

@@ -22,7 +22,9 @@ class Recording:
         The signal, in the file's units (full scale = 1.0 for audio files).
     sample_rate : float, > 0, Hz
     channel : str
-        Channel name: ``"1"``-based index for audio files, the column header for text files.
+        Channel name: ``"1"``-based index for audio files, the column header for text files,
+        the channel, variable or dataset name for the formats of :mod:`ringdown.formats`
+        (``"group/channel"`` for TDMS).
     path : str or None
         Source file, ``None`` for an array given directly.
     sha256 : str or None
@@ -35,6 +37,8 @@ class Recording:
         as a fraction of the mean step.
     n_channels : int
         How many channels (audio) or data columns (text) the source holds; 1 for an array.
+    unit : str or None
+        Unit of the samples as the file states it (``"m/s^2"``, ``"V"``); ``None`` when unknown.
     """
 
     samples: np.ndarray
@@ -45,6 +49,7 @@ class Recording:
     full_scale: float | None = None
     timing_jitter: float | None = None
     n_channels: int = 1
+    unit: str | None = None
 
     def __post_init__(self) -> None:
         x = np.asarray(self.samples, dtype=np.float64)

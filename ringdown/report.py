@@ -289,6 +289,7 @@ def _file_section(a, n: int, anchor: str, fmt: str, figures: bool) -> str:
         ("SHA-256", a.sha256 or "unknown"),
         ("size", _file_size(a.path)),
         ("channel", a.channel if a.channel is not None else _DASH),
+        ("unit", a.unit if a.unit is not None else _DASH),
         ("sample rate", sr),
         ("duration", dur),
         ("noise floor", _DASH if a.noise_floor is None else f"{a.noise_floor:.4g} (recording units, RMS)"),
@@ -522,3 +523,91 @@ def write_report(analyses, path, **kw) -> str:
             f"cannot write the report to {path!r}: {exc.strerror or exc}; choose a writable path"
         ) from exc
     return path
+
+
+# --------------------------------------------------------------------------------------------
+# elastic moduli (ringdown.moduli): a section of its own
+# --------------------------------------------------------------------------------------------
+
+#: Heading of the elastic-moduli section.
+MODULI_SECTION_TITLE = "Elastic moduli (ASTM E1876)"
+
+_MODULI_FORMULAS = """
+<p>Formulas: ASTM E1876 (impulse excitation; the family of ASTM C1259), after Pickett (1945) and
+Spinner &amp; Tefft (1961). Rectangular bar: E = 0.9465 (m f<sub>f</sub>² / b)(L³ / t³) T1 with
+Pickett's shear and rotary-inertia correction T1(μ, t/L); G = (4 L m f<sub>t</sub>² / (b t)) R with
+R(b/t, b/L) from Saint-Venant torsion (Spinner &amp; Valore 1958). Cylindrical rod:
+E = 1.6067 (L³ / D⁴) m f<sub>f</sub>² T1′, G = 16 m f<sub>t</sub>² L / (π D²).
+Poisson's ratio μ = E / (2G) − 1, iterated with T1(μ). Uncertainties: first-order propagation
+(JCGM 100:2008, GUM 5.1.2) of the frequency, dimension and mass uncertainties, inputs uncorrelated;
+where each coefficient was verified is listed in the docstring of <code>ringdown.moduli</code>.</p>
+<p class="note">The relations hold for homogeneous, isotropic, elastic specimens of uniform section
+supported at the nodes of the mode measured; a dynamic modulus is not a design allowable. Decisions
+on parts that carry load follow the applicable codes and licensed engineering practice.</p>
+"""
+
+
+def moduli_section(result) -> Section:
+    """The report section of a :class:`ringdown.moduli.ModuliResult`: inputs, moduli, modes, budget.
+
+    Insert it with ``render_report(result.analyses, extra_sections=[moduli_section(result)])``.
+    Every string from outside (file names, warnings) is escaped.
+    """
+    sp = result.specimen
+    mm = lambda v, u: format_pm(None if v is None else v * 1e3, None if u is None else u * 1e3)  # noqa: E731
+    rows = [("shape", "rectangular bar" if result.shape == "bar" else "cylindrical rod"),
+            ("length, mm", mm(sp["length_m"], sp["length_m_u"]))]
+    if result.shape == "bar":
+        rows += [("width, mm", mm(sp["width_m"], sp["width_m_u"])),
+                 ("thickness, mm", mm(sp["thickness_m"], sp["thickness_m_u"]))]
+    else:
+        rows.append(("diameter, mm", mm(sp["diameter_m"], sp["diameter_m_u"])))
+    rows.append(("mass, g", format_pm(sp["mass_kg"] * 1e3, sp["mass_kg_u"] * 1e3)))
+    out = ["<h3>Specimen</h3>", _kv_table(rows)]
+    gpa = lambda v, u: format_pm(None if v is None else v / 1e9, None if u is None else u / 1e9)  # noqa: E731
+    res_rows = [
+        ("Young's modulus E, GPa", gpa(result.e_pa, result.e_pa_u), result.dominant("e_pa") or _DASH),
+        ("shear modulus G, GPa", gpa(result.g_pa, result.g_pa_u) if result.g_pa is not None else _DASH,
+         result.dominant("g_pa") or _DASH),
+        (f"Poisson's ratio ({result.poisson_source})", format_pm(result.poisson, result.poisson_u),
+         result.dominant("poisson") or _DASH),
+        ("density, kg/m³", format_pm(result.density_kg_per_m3, result.density_kg_per_m3_u),
+         result.dominant("density_kg_per_m3") or _DASH),
+    ]
+    out += ["<h3>Moduli</h3>",
+            '<p class="legend">Value ± standard uncertainty (k = 1); the dominant input has the largest share of '
+            "the variance.</p>",
+            html_table(("quantity", "value", "dominant input"), res_rows, numeric=[False, True, False])]
+    factors = f"T1 = {result.t1:.6g}"
+    if result.r_factor is not None:
+        factors += f", R = {result.r_factor:.6g}"
+    factors += f"; {result.iterations} iteration{'s' if result.iterations != 1 else ''} of the Poisson's-ratio loop"
+    out.append(f"<p>{_e(factors)}</p>")
+    mode_rows = []
+    for m in (result.flexural, result.torsional):
+        if m is None:
+            continue
+        where = _DASH if m.source is None else f"{os.path.basename(m.source)}, mode {m.mode_index}"
+        window = _DASH if m.predicted_low_hz is None else f"{m.predicted_low_hz:.6g} to {m.predicted_high_hz:.6g}"
+        mode_rows.append((m.role, format_pm(m.f_hz, m.f_hz_u), format_pm(m.loss_factor, m.loss_factor_u), where,
+                          window, m.rule))
+    out += ["<h3>Modes used</h3>",
+            html_table(("mode", "f, Hz", "loss factor η", "from", "predicted window, Hz", "how it was chosen"),
+                       mode_rows, numeric=[False, True, True, False, True, False])]
+    pred_rows = [(p["mode"].replace("_", " "), _num(p["f_hz"]), f"{p['low_hz']:.6g} to {p['high_hz']:.6g}",
+                  _DASH if p["found_hz"] is None else _num(p["found_hz"])) for p in result.predictions]
+    out += ["<h4>Predicted modes</h4>",
+            html_table(("mode", "predicted, Hz", "window, Hz", "found, Hz"), pred_rows,
+                       numeric=[False, True, True, True])]
+    unit = {"e_pa": "Pa", "g_pa": "Pa", "poisson": "", "density_kg_per_m3": "kg/m³"}
+    b_rows = [(b.quantity, b.input, _num(b.input_value), _num(b.input_u, 3), _num(b.sensitivity, 4),
+               f"{_num(b.contribution, 3)} {unit.get(b.quantity, '')}".rstrip(), f"{100 * b.share:.1f} %")
+              for b in result.budget if b.input_u > 0]
+    out += ["<h3>Uncertainty budget</h3>",
+            html_table(("quantity", "input", "value (SI)", "u (SI)", "sensitivity", "contribution", "share"),
+                       b_rows, numeric=[False, False, True, True, True, True, True])]
+    if result.warnings:
+        lis = "".join(f"<li>{_e(w.message)} <span class=\"code\">({_e(w.code)})</span></li>" for w in result.warnings)
+        out.append(f'<h3>Warnings</h3><ul class="warnings">{lis}</ul>')
+    out.append(_MODULI_FORMULAS)
+    return Section(MODULI_SECTION_TITLE, "".join(out), anchor="moduli")

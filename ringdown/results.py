@@ -337,6 +337,8 @@ class Analysis:
     ``error`` is ``None`` for a recording that was analysed; otherwise it holds the reason and
     ``modes`` and ``hits`` are empty. ``rejected`` lists every candidate mode of every hit that
     is not reported, with the reason. ``recording`` keeps the samples for plots (not serialised).
+    ``channel`` is the channel's name or number as the reader gives it, ``unit`` the unit of the
+    samples as the file states it (TDMS, UFF 58, MATLAB, HDF5), ``None`` when unknown.
     """
 
     path: str | None
@@ -352,6 +354,7 @@ class Analysis:
     noise_floor: float | None = None
     recording: Any = None
     rejected: tuple[Rejected, ...] = ()
+    unit: str | None = None
 
     @property
     def duration_s(self) -> float | None:
@@ -382,6 +385,7 @@ class Analysis:
             "path": self.path,
             "sha256": self.sha256,
             "channel": self.channel,
+            "unit": self.unit,
             "sample_rate_hz": self.sample_rate_hz,
             "n_samples": self.n_samples,
             "duration_s": self.duration_s,

@@ -294,7 +294,7 @@ MODE_KEYS = {
     "loss_factor", "log_decrement", "decay_db_per_s", "t60_s", "f_r_hz", "amplitude", "snr_db",
     "method", "fit_start_s", "fit_end_s", "cycles_fitted", "warnings", "cross_checks",
 }  # fmt: skip
-RECORD_KEYS = {"path", "sha256", "channel", "sample_rate_hz", "n_samples", "duration_s", "hits", "modes",
+RECORD_KEYS = {"path", "sha256", "channel", "unit", "sample_rate_hz", "n_samples", "duration_s", "hits", "modes",
                "warnings", "error"}
 HIT_KEYS = {"start_s", "peak_s", "peak_value", "snr_db"}
 

@@ -21,10 +21,12 @@ def test_all_lists_exactly_the_public_names():
 
 def test_import_does_not_load_heavy_modules():
     # matplotlib (plots), scipy.stats (limits) and scipy.signal are loaded only when used, so
-    # that `ringdown --help` and a plain analysis start fast (issue: plots must not slow analyze)
+    # that `ringdown --help` and a plain analysis start fast (issue: plots must not slow analyze);
+    # so are the readers of the data-acquisition formats (scipy.io, npTDMS, pyuff, h5py)
     code = (
         "import sys, ringdown, ringdown.cli; "
-        "print(','.join(m for m in ('matplotlib', 'scipy.stats', 'scipy.signal', 'scipy.optimize') if m in sys.modules))"
+        "print(','.join(m for m in ('matplotlib', 'scipy.stats', 'scipy.signal', 'scipy.optimize', 'scipy.io', "
+        "'nptdms', 'pyuff', 'h5py') if m in sys.modules))"
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout.strip()
     assert out == ""

@@ -14,7 +14,7 @@ import typer
 
 __all__ = ["app", "main"]
 
-_COMMAND_MODULES = ("analyze", "compare", "limits", "history")
+_COMMAND_MODULES = ("analyze", "compare", "limits", "history", "moduli")
 
 app = typer.Typer(
     name="ringdown",

@@ -12,6 +12,7 @@ from typing import Any, Callable, Iterable, Optional, TypeVar
 import typer
 
 from ..errors import RingdownError
+from ..formats import SUFFIXES as FORMAT_SUFFIXES
 
 T = TypeVar("T")
 
@@ -25,7 +26,19 @@ EXIT_ERROR = 2
 DEBUG_OPTION = typer.Option(False, "--debug", help="Show the full traceback of an error.")
 
 _AUDIO_AND_TEXT = (".wav", ".flac", ".ogg", ".oga", ".aiff", ".aif", ".au", ".caf", ".w64", ".rf64",
-                   ".csv", ".txt", ".tsv", ".dat")
+                   ".csv", ".txt", ".tsv", ".dat") + FORMAT_SUFFIXES
+
+#: Help of every command's ``--channel`` option.
+CHANNEL_HELP = ("Channel: a 1-based number, or a name (TDMS 'group/channel' or channel, UFF ID line 1, "
+                "MATLAB/HDF5 variable or dataset path). Default: the first.")
+
+
+def parse_channel(text: Optional[str]):
+    """``--channel`` as given: digits become an int (1-based index), anything else stays a name."""
+    if text is None:
+        return None
+    stripped = text.strip()
+    return int(stripped) if stripped.isdigit() else stripped
 
 
 def error_line(message: str) -> None:

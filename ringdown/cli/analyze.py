@@ -11,8 +11,8 @@ from typing import List, Optional
 
 import typer
 
-from ._common import (DEBUG_OPTION, EXIT_ERROR, EXIT_OK, default_jobs, error_line, expand_inputs, guarded,
-                      on_terminal, print_json, progress_bar)
+from ._common import (CHANNEL_HELP, DEBUG_OPTION, EXIT_ERROR, EXIT_OK, default_jobs, error_line, expand_inputs,
+                      guarded, on_terminal, parse_channel, print_json, progress_bar)
 
 __all__ = ["register", "parse_band", "format_table"]
 
@@ -49,7 +49,8 @@ def format_table(analysis) -> str:
     if analysis.error is not None:
         return f"{head}\n  error: {analysis.error.message}\n"
     used = sum(1 for h in analysis.hits if h.used)
-    head += (f"  ({analysis.sample_rate_hz:g} Hz, {analysis.duration_s:.3g} s, channel {analysis.channel}, "
+    unit = f" [{analysis.unit}]" if analysis.unit else ""
+    head += (f"  ({analysis.sample_rate_hz:g} Hz, {analysis.duration_s:.3g} s, channel {analysis.channel}{unit}, "
              f"{len(analysis.hits)} hit(s), {used} used)")
     lines.append(head)
     cols = ("#", "f_d [Hz]", "beta [1/s]", "f_n [Hz]", "zeta", "Q", "dB/s", "T60 [s]", "SNR dB", "method", "warnings")
@@ -94,12 +95,14 @@ def write_csv(analyses, path: str) -> None:
 def register(app: typer.Typer) -> None:
     @app.command("analyze")
     def analyze_cmd(
-        files: List[str] = typer.Argument(..., help="Recordings (WAV/FLAC/OGG/CSV...), folders or glob patterns."),
+        files: List[str] = typer.Argument(..., help="Recordings (WAV/FLAC/OGG/CSV, TDMS, UFF 58, MAT, HDF5), folders "
+                                                    "or glob patterns."),
         json_out: bool = typer.Option(False, "--json", help="Print one JSON document instead of tables."),
         csv_out: Optional[Path] = typer.Option(None, "--csv", help="Also write one CSV row per mode to this file."),
-        channel: Optional[str] = typer.Option(None, "--channel", help="Audio channel to analyse (1-based). Default: 1."),
+        channel: Optional[str] = typer.Option(None, "--channel", help=CHANNEL_HELP),
         column: Optional[str] = typer.Option(None, "--column", help="Text files: data column (1-based index or header name)."),
-        sample_rate: Optional[float] = typer.Option(None, "--sample-rate", help="Text files without a time column: sample rate, Hz."),
+        sample_rate: Optional[float] = typer.Option(None, "--sample-rate", help="Sample rate, Hz, for files that do not state "
+                                                    "it (text without a time column, TDMS/MAT/HDF5 without one)."),
         method: str = typer.Option("auto", "--method", help="Estimator reported per mode: auto, envelope, decrement, half_power, pencil."),
         band: Optional[List[str]] = typer.Option(None, "--band", help="Analyse this band LOW:HIGH in Hz instead of searching (repeatable)."),
         max_modes: Optional[int] = typer.Option(None, "--max-modes", help="Keep at most this many modes (the strongest)."),
@@ -124,7 +127,7 @@ def register(app: typer.Typer) -> None:
 
         def run():
             bands = [parse_band(b) for b in band] if band else None
-            options = dict(channel=channel, column=column, sample_rate=sample_rate, method=method, bands=bands,
+            options = dict(channel=parse_channel(channel), column=column, sample_rate=sample_rate, method=method, bands=bands,
                            max_modes=max_modes, min_snr_db=min_snr_db, min_hit_snr_db=min_hit_snr_db,
                            keep_double_hits=keep_double_hits)
             AnalysisOptions(method=method, bands=bands, max_modes=max_modes, min_snr_db=min_snr_db,

@@ -21,7 +21,8 @@ from typing import List, Optional
 import typer
 
 from ..errors import RingdownError
-from ._common import DEBUG_OPTION, EXIT_ERROR, EXIT_OK, error_line, expand_inputs, guarded, print_json
+from ._common import (CHANNEL_HELP, DEBUG_OPTION, EXIT_ERROR, EXIT_OK, error_line, expand_inputs, guarded,
+                      parse_channel, print_json)
 
 __all__ = ["register", "format_table"]
 
@@ -192,7 +193,7 @@ def register(app: typer.Typer) -> None:
             0.1, "--tolerance", help="Relative frequency tolerance for pairing modes (0.1 = 10 %)."
         ),
         method: str = typer.Option("auto", "--method", help="Estimator (as for analyze)."),
-        channel: Optional[str] = typer.Option(None, "--channel", help="Audio channel (as for analyze)."),
+        channel: Optional[str] = typer.Option(None, "--channel", help=CHANNEL_HELP),
         band: Optional[List[str]] = typer.Option(None, "--band", help="Band LOW:HIGH in Hz (repeatable, as for analyze)."),
         min_hit_snr_db: float = typer.Option(20.0, "--min-hit-snr-db", help="A hit must rise this far above the noise, dB."),
         keep_double_hits: bool = typer.Option(False, "--keep-double-hits", help="Count bounced hits as repeats too."),
@@ -211,7 +212,7 @@ def register(app: typer.Typer) -> None:
         def run():
             from .analyze import parse_band
 
-            options = dict(method=method, channel=channel, min_hit_snr_db=min_hit_snr_db,
+            options = dict(method=method, channel=parse_channel(channel), min_hit_snr_db=min_hit_snr_db,
                            keep_double_hits=keep_double_hits)
             if band:
                 options["bands"] = [parse_band(x) for x in band]

@@ -14,13 +14,15 @@ from typing import List, Optional
 
 import typer
 
-from ._common import (DEBUG_OPTION, EXIT_ERROR, EXIT_FAIL, EXIT_OK, default_jobs, error_line, expand_inputs,
-                      guarded, on_terminal, print_json, progress_bar, resolve_db, DB_ENV)
+from ._common import (CHANNEL_HELP, DEBUG_OPTION, EXIT_ERROR, EXIT_FAIL, EXIT_OK, default_jobs, error_line,
+                      expand_inputs, guarded, on_terminal, parse_channel, print_json, progress_bar, resolve_db, DB_ENV)
 
 __all__ = ["register", "format_check"]
 
-def _analysis_options(method, min_snr_db, max_modes, bands) -> dict:
+def _analysis_options(method, min_snr_db, max_modes, bands, channel=None) -> dict:
     opts: dict = {}
+    if channel is not None:
+        opts["channel"] = parse_channel(channel)
     if method is not None:
         opts["method"] = method
     if min_snr_db is not None:
@@ -102,6 +104,7 @@ def register(app: typer.Typer) -> None:
         min_snr_db: Optional[float] = typer.Option(None, help="Smallest mode SNR, dB (as for analyze)."),
         max_modes: Optional[int] = typer.Option(None, help="Most modes per recording (as for analyze)."),
         band: Optional[List[str]] = typer.Option(None, "--band", help="Band LOW:HIGH in Hz (repeatable)."),
+        channel: Optional[str] = typer.Option(None, "--channel", help=CHANNEL_HELP + " Kept in the limits file for check."),
         jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
         force: bool = typer.Option(False, "--force", help="Overwrite an existing limits file."),
         json_out: bool = typer.Option(False, "--json", help="Print the limits as JSON."),
@@ -117,7 +120,7 @@ def register(app: typer.Typer) -> None:
                 from ..errors import ParameterError
 
                 raise ParameterError(f"'{output}' exists; use --force to overwrite it or -o to choose another file")
-            opts = _analysis_options(method, min_snr_db, max_modes, band)
+            opts = _analysis_options(method, min_snr_db, max_modes, band, channel)
             analyses = analyze_many(paths, jobs=max(1, jobs), **opts)
             bad = [a for a in analyses if a.error is not None]
             if bad:

@@ -1,0 +1,233 @@
+"""``ringdown moduli``: Young's modulus, shear modulus and Poisson's ratio of a tapped bar or rod.
+
+Parses the specimen (millimetres and grams, converted to SI here), makes one call to
+:func:`ringdown.moduli` and renders the result: a table, ``--json`` (exactly
+``ModuliResult.to_dict()``), ``--csv`` and ``--report``. Exit status 0 when done, 2 when an input
+or option cannot be used (one line on stderr).
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+from pathlib import Path
+from typing import Optional
+
+import typer
+
+from ..errors import ParameterError, RingdownError
+from ._common import CHANNEL_HELP, DEBUG_OPTION, EXIT_OK, guarded, parse_channel, print_json
+
+__all__ = ["register", "format_table"]
+
+
+def _pm(v, u, scale: float = 1.0) -> str:
+    """``value ± u`` (GUM 7.2.6: u to two digits), both divided by ``scale``; "-" when missing."""
+    from ..report import format_pm
+
+    if v is None:
+        return "-"
+    return format_pm(v / scale, None if u is None else u / scale)
+
+
+def format_table(result) -> str:
+    """The readable summary ``ringdown moduli`` prints by default."""
+    sp = result.specimen
+    if result.shape == "bar":
+        size = (f"rectangular bar {sp['length_m'] * 1e3:g} x {sp['width_m'] * 1e3:g} x "
+                f"{sp['thickness_m'] * 1e3:g} mm")
+    else:
+        size = f"cylindrical rod {sp['length_m'] * 1e3:g} mm long, {sp['diameter_m'] * 1e3:g} mm diameter"
+    lines = [f"{size}, {sp['mass_kg'] * 1e3:g} g", ""]
+    share = {}
+    for q in ("e_pa", "g_pa", "poisson", "density_kg_per_m3"):
+        d = result.dominant(q)
+        s = next((b.share for b in result.budget if b.quantity == q and b.input == d), None)
+        share[q] = "-" if d is None else f"{d} ({100 * s:.0f} %)"
+    rows = [
+        ("Young's modulus E", _pm(result.e_pa, result.e_pa_u, 1e9), "GPa", share["e_pa"]),
+        ("shear modulus G", _pm(result.g_pa, result.g_pa_u, 1e9), "GPa", share["g_pa"]),
+        (f"Poisson's ratio ({result.poisson_source})", _pm(result.poisson, result.poisson_u), "", share["poisson"]),
+        ("density", _pm(result.density_kg_per_m3, result.density_kg_per_m3_u), "kg/m^3", share["density_kg_per_m3"]),
+    ]
+    head = ("quantity", "value ± u (k = 1)", "unit", "dominant input (share of variance)")
+    widths = [max(len(r[i]) for r in [head, *rows]) for i in range(4)]
+    fmt = lambda r: "  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip()  # noqa: E731
+    lines.append(fmt(head))
+    lines.extend(fmt(r) for r in rows)
+    lines.append("")
+    lines.append("modes used:")
+    for m in (result.flexural, result.torsional):
+        if m is None:
+            continue
+        eta = "-" if m.loss_factor is None else _pm(m.loss_factor, m.loss_factor_u)
+        src = "" if m.source is None else f", {Path(m.source).name} mode {m.mode_index}"
+        lines.append(f"  {m.role:<9}  f = {_pm(m.f_hz, m.f_hz_u)} Hz, loss factor {eta}{src}")
+        lines.append(f"  {'':<9}  rule: {m.rule}")
+    factors = f"T1 = {result.t1:.6g}"
+    if result.r_factor is not None:
+        factors += f", R = {result.r_factor:.6g}"
+    lines.append(f"  {factors}; {result.iterations} iteration(s) of the Poisson's-ratio loop")
+    lines.append("predicted (from E and 0 <= Poisson's ratio <= 0.5):")
+    for p in result.predictions:
+        found = "" if p["found_hz"] is None else f", found {p['found_hz']:.6g}"
+        lines.append(f"  {p['mode']:<20} {p['f_hz']:.6g} Hz (window {p['low_hz']:.6g}-{p['high_hz']:.6g}{found})")
+    if result.warnings:
+        lines.append("warnings:")
+        lines.extend(f"  [{w.code}] {w.message}" for w in result.warnings)
+    lines.append("formulas: ASTM E1876 (Pickett T1, Saint-Venant R); GUM first-order uncertainties")
+    return "\n".join(lines)
+
+
+class _OutputError(RingdownError):
+    code = "output"
+
+
+def _write_csv(result, out: Path) -> None:
+    unit = {"e_pa": "Pa", "g_pa": "Pa", "poisson": "1", "density_kg_per_m3": "kg/m^3"}
+    vals = {"e_pa": (result.e_pa, result.e_pa_u), "g_pa": (result.g_pa, result.g_pa_u),
+            "poisson": (result.poisson, result.poisson_u),
+            "density_kg_per_m3": (result.density_kg_per_m3, result.density_kg_per_m3_u)}
+    try:
+        with open(out, "w", newline="", encoding="utf-8") as fh:
+            w = csv.writer(fh)
+            w.writerow(["quantity", "value", "u", "unit", "dominant_input", "shape", "f_flexural_hz",
+                        "f_torsional_hz", "loss_factor_flexural", "loss_factor_torsional", "t1", "r_factor"])
+            t = result.torsional
+            for q, (v, u) in vals.items():
+                w.writerow([q, "" if v is None else v, "" if u is None else u, unit[q], result.dominant(q) or "",
+                            result.shape, result.flexural.f_hz, "" if t is None else t.f_hz,
+                            "" if result.flexural.loss_factor is None else result.flexural.loss_factor,
+                            "" if t is None or t.loss_factor is None else t.loss_factor, result.t1,
+                            "" if result.r_factor is None else result.r_factor])
+    except OSError as exc:
+        raise _OutputError(f"cannot write CSV file '{out}': {exc.strerror or exc}; check the folder and "
+                           "permissions") from exc
+
+
+def _write_report(result, out: Path, settings: dict) -> None:
+    from ..report import moduli_section, write_report
+
+    try:
+        write_report(list(result.analyses), out, title="Elastic moduli from a tap", settings=settings,
+                     extra_sections=[moduli_section(result)])
+    except ParameterError as exc:
+        raise _OutputError(str(exc)) from exc
+
+
+def _positive(name: str, value: Optional[float], required: bool, shape: str) -> Optional[float]:
+    if value is None:
+        if required:
+            raise ParameterError(f"{name} is required for --shape {shape}")
+        return None
+    if not math.isfinite(value) or value <= 0:
+        raise ParameterError(f"{name} must be a positive number; got {value:g}")
+    return value
+
+
+def _nonneg(name: str, value: Optional[float]) -> float:
+    if value is None:
+        return 0.0
+    if not math.isfinite(value) or value < 0:
+        raise ParameterError(f"{name} must be >= 0; got {value:g}")
+    return value
+
+
+def register(app: typer.Typer) -> None:
+    """Add the ``moduli`` command to ``app``."""
+
+    @app.command(
+        "moduli",
+        help=(
+            "Young's modulus, shear modulus and Poisson's ratio of a bar or rod from its flexural "
+            "(and torsional) tap recordings or frequencies, after ASTM E1876. Dimensions in mm, "
+            "mass in g; each may carry a standard uncertainty (--u-...). Exit 0 when done, 2 when "
+            "an input cannot be used."
+        ),
+    )
+    def moduli_cmd(
+        flexural_file: Optional[str] = typer.Argument(None, metavar="FLEX", help="Recording of the flexural tap."),
+        torsional_file: Optional[str] = typer.Argument(None, metavar="TORSION",
+                                                        help="Recording of the torsional tap."),
+        shape: str = typer.Option("bar", "--shape", help="Specimen: 'bar' (rectangular) or 'rod' (cylindrical)."),
+        length_mm: Optional[float] = typer.Option(None, "--length-mm", help="Length, mm."),
+        width_mm: Optional[float] = typer.Option(None, "--width-mm", help="Width of a bar, mm."),
+        thickness_mm: Optional[float] = typer.Option(None, "--thickness-mm",
+                                                     help="Thickness of a bar (direction of the bending), mm."),
+        diameter_mm: Optional[float] = typer.Option(None, "--diameter-mm", help="Diameter of a rod, mm."),
+        mass_g: Optional[float] = typer.Option(None, "--mass-g", help="Mass, g."),
+        u_length_mm: Optional[float] = typer.Option(None, "--u-length-mm", help="Standard uncertainty of the length, mm."),
+        u_width_mm: Optional[float] = typer.Option(None, "--u-width-mm", help="Standard uncertainty of the width, mm."),
+        u_thickness_mm: Optional[float] = typer.Option(None, "--u-thickness-mm",
+                                                       help="Standard uncertainty of the thickness, mm."),
+        u_diameter_mm: Optional[float] = typer.Option(None, "--u-diameter-mm",
+                                                      help="Standard uncertainty of the diameter, mm."),
+        u_mass_g: Optional[float] = typer.Option(None, "--u-mass-g", help="Standard uncertainty of the mass, g."),
+        flexural_hz: Optional[float] = typer.Option(None, "--flexural-hz",
+                                                    help="Flexural frequency by hand, Hz (instead of FLEX)."),
+        u_flexural_hz: Optional[float] = typer.Option(None, "--u-flexural-hz", help="Its standard uncertainty, Hz."),
+        torsional_hz: Optional[float] = typer.Option(None, "--torsional-hz",
+                                                     help="Torsional frequency by hand, Hz (instead of TORSION)."),
+        u_torsional_hz: Optional[float] = typer.Option(None, "--u-torsional-hz", help="Its standard uncertainty, Hz."),
+        flexural_mode: Optional[int] = typer.Option(None, "--flexural-mode",
+                                                    help="Mode index of FLEX to use (default: the lowest)."),
+        torsional_mode: Optional[int] = typer.Option(None, "--torsional-mode",
+                                                     help="Mode index of TORSION to use (default: the one in the "
+                                                          "predicted torsional window)."),
+        poisson: Optional[float] = typer.Option(None, "--poisson",
+                                                help="Poisson's ratio: used for T1 without a torsional mode; "
+                                                     "otherwise the loop's first guess."),
+        u_poisson: Optional[float] = typer.Option(None, "--u-poisson", help="Standard uncertainty of --poisson."),
+        channel: Optional[str] = typer.Option(None, "--channel", help=CHANNEL_HELP),
+        json_out: bool = typer.Option(False, "--json", help="Print the JSON document instead of the table."),
+        csv_out: Optional[Path] = typer.Option(None, "--csv", help="Also write one row per quantity to this CSV file."),
+        report_out: Optional[Path] = typer.Option(None, "--report", help="Also write a self-contained HTML report."),
+        debug: bool = DEBUG_OPTION,
+    ) -> None:
+        from ..moduli import CylindricalRod, RectangularBar, moduli
+
+        def run():
+            if shape not in ("bar", "rod"):
+                raise ParameterError(f"--shape must be 'bar' or 'rod'; got {shape!r}")
+            is_bar = shape == "bar"
+            L = _positive("--length-mm", length_mm, True, shape)
+            m = _positive("--mass-g", mass_g, True, shape)
+            if is_bar:
+                if diameter_mm is not None:
+                    raise ParameterError("--diameter-mm is for --shape rod; a bar takes --width-mm and --thickness-mm")
+                b = _positive("--width-mm", width_mm, True, shape)
+                t = _positive("--thickness-mm", thickness_mm, True, shape)
+                spec = RectangularBar(L * 1e-3, b * 1e-3, t * 1e-3, m * 1e-3,
+                                      _nonneg("--u-length-mm", u_length_mm) * 1e-3,
+                                      _nonneg("--u-width-mm", u_width_mm) * 1e-3,
+                                      _nonneg("--u-thickness-mm", u_thickness_mm) * 1e-3,
+                                      _nonneg("--u-mass-g", u_mass_g) * 1e-3)
+            else:
+                if width_mm is not None or thickness_mm is not None:
+                    raise ParameterError("--width-mm and --thickness-mm are for --shape bar; a rod takes --diameter-mm")
+                d = _positive("--diameter-mm", diameter_mm, True, shape)
+                spec = CylindricalRod(L * 1e-3, d * 1e-3, m * 1e-3, _nonneg("--u-length-mm", u_length_mm) * 1e-3,
+                                      _nonneg("--u-diameter-mm", u_diameter_mm) * 1e-3,
+                                      _nonneg("--u-mass-g", u_mass_g) * 1e-3)
+            if (flexural_file is None) == (flexural_hz is None):
+                raise ParameterError("give the flexural recording FLEX or --flexural-hz, one of the two")
+            if torsional_file is not None and torsional_hz is not None:
+                raise ParameterError("give the torsional recording TORSION or --torsional-hz, not both")
+            flex = flexural_file if flexural_file is not None else flexural_hz
+            tors = torsional_file if torsional_file is not None else torsional_hz
+            return moduli(spec, flex, tors, flexural_hz_u=u_flexural_hz, torsional_hz_u=u_torsional_hz,
+                          flexural_mode=flexural_mode, torsional_mode=torsional_mode, poisson=poisson,
+                          poisson_u=u_poisson, analysis_options={"channel": parse_channel(channel)})
+
+        result = guarded(run, debug=debug)
+        if json_out:
+            print_json(result.to_dict())
+        else:
+            typer.echo(format_table(result))
+        if csv_out is not None:
+            guarded(lambda: _write_csv(result, csv_out), debug=debug)
+        if report_out is not None:
+            settings = {"command": "moduli", "shape": shape, "poisson": poisson, "flexural_mode": flexural_mode,
+                        "torsional_mode": torsional_mode}
+            guarded(lambda: _write_report(result, report_out, settings), debug=debug)
+        raise typer.Exit(EXIT_OK)
