@@ -620,7 +620,7 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
 
 
 #: Most other modes a raw fit carries along (the strongest in its window).
-MAX_RAW_NUISANCE = 6
+MAX_RAW_NUISANCE = 3
 
 
 def _make_raw_mode(est: Estimate, noise_rms: float, seg: np.ndarray, fs: float, t0_s: float) -> Mode:

@@ -224,7 +224,7 @@ def _mode_row(m) -> list[str]:
         _pm_cell(m.loss_factor, m.loss_factor_u),
         _pm_cell(m.decay_db_per_s, m.decay_db_per_s_u),
         _pm_cell(m.t60_s, m.t60_s_u),
-        str(m.method),
+        str(m.method) + (" (raw record)" if getattr(m, "fit_path", "band") == "raw" else ""),
         window,
         _DASH if m.cycles_fitted is None else f"{m.cycles_fitted:.0f}",
         _DASH if m.snr_db is None else f"{m.snr_db:.1f}",

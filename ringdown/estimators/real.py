@@ -40,7 +40,7 @@ scipy_optimize = lazy_module("scipy.optimize")
 __all__ = ["estimate_real", "MAX_SAMPLES"]
 
 #: Most samples one fit uses (thinned beyond): keeps the least squares at a few tens of ms.
-MAX_SAMPLES = 2048
+MAX_SAMPLES = 1024
 
 
 def _basis(beta: np.ndarray, omega: np.ndarray, t: np.ndarray) -> np.ndarray:
@@ -134,7 +134,7 @@ def estimate_real(
 
     try:
         res = scipy_optimize.least_squares(resid, x0, method="lm", x_scale="jac", xtol=1e-12, ftol=1e-12,
-                                           gtol=1e-12, max_nfev=20 * (2 * k + 1))
+                                           gtol=1e-12, max_nfev=10 * (2 * k + 1))
     except (np.linalg.LinAlgError, ValueError) as exc:
         raise FitError(f"the fit of the record from {t0_s:.4g} s failed ({exc})") from exc
     beta, omega = unpack(res.x)

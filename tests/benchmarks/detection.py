@@ -17,7 +17,7 @@ least 10 cycles before its envelope falls to the noise (``ln(d) / (2 beta)`` sec
 the same tolerance) is a false mode. Coverage: the fraction of found modes whose true f_d and
 beta lie within +-2 reported standard uncertainties.
 
-Run: ``python tests/benchmarks/detection.py [RECORDS] [NOISE_RECORDS]`` (default 120 and 200;
+Run: ``python tests/benchmarks/detection.py [RECORDS] [NOISE_RECORDS]`` (default 60 and 200;
 ``python tests/benchmarks/detection.py 1000 500`` for a bigger population). Prints markdown
 tables; asserts nothing.
 """
@@ -128,7 +128,7 @@ def _tol(m, f):
     return max(3 * m.beta_per_s / math.pi, 3 * (m.f_d_hz_u or 0.0), 0.002 * f)
 
 
-def main(n_records: int = 120, n_noise: int = 200, seed: int = 20261201) -> None:
+def main(n_records: int = 60, n_noise: int = 200, seed: int = 20261201) -> None:
     rng = np.random.default_rng(seed)
     rows = []
     false_modes = 0
