@@ -34,22 +34,32 @@ from __future__ import annotations
 
 import math
 import os
-from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, replace
 from typing import Iterator, Sequence
 
-from .errors import ParameterError, RingdownError
+from .errors import ParameterError
 from .limits import Limits, match_modes
+from .numfmt import fmt_value, fmt_values
 from .results import Analysis, Notice
 
 __all__ = ["EXTRA_MODE_LEVEL", "FeatureCheck", "CheckResult", "check", "check_file", "iter_check_files",
-           "lighten"]
+           "lighten", "verdict_kind"]
 
 #: An unmatched mode whose amplitude is at least this fraction of the strongest matched mode's
 #: (-20 dB) is reported as an extra strong mode (our choice).
 EXTRA_MODE_LEVEL = 0.1
 
 PASS, FAIL, ERROR = "pass", "fail", "error"
+#: Code prefix of a note that excuses a failed window (the part passes on the ratio features).
+ADVISORY_PREFIX = "advisory_"
+
+
+def verdict_kind(verdict: str | None, note_codes=()) -> str:
+    """``"pass"``, ``"pass_advisory"`` (a pass with advisory windows), ``"fail"``, ``"error"``
+    or ``"analysis"`` (no verdict): how reports and run charts mark a result."""
+    if verdict == PASS and any(str(c).startswith(ADVISORY_PREFIX) for c in note_codes):
+        return "pass_advisory"
+    return verdict if verdict in (PASS, FAIL, ERROR) else "analysis"
 
 
 @dataclass(frozen=True, slots=True)
@@ -139,9 +149,13 @@ class CheckResult:
         }
 
 
-def _g(x: float) -> str:
-    """A number in plain words with three significant digits."""
-    return f"{x:.3g}"
+def _g(x: float, digits: int = 3) -> str:
+    """A number for a message, in the one number format (:func:`ringdown.numfmt.fmt_value`)."""
+    return fmt_value(x, digits)
+
+
+def _win(window: tuple[float, float], digits: int = 6) -> str:
+    return " to ".join(fmt_values(window, digits))
 
 
 def _pct(x: float) -> str:
@@ -226,7 +240,7 @@ def check(analysis: Analysis, limits: Limits) -> CheckResult:
         fc = FeatureCheck(ref.index, "f_hz", f, ref.f_hz, st)
         if st in ("below", "above"):
             lo, hi = ref.f_hz
-            f_fail.append((fc, Notice(f"f_{st}", f"{name} at {f:.1f} Hz is {st} its window {lo:.1f}-{hi:.1f} Hz")))
+            f_fail.append((fc, Notice(f"f_{st}", f"{name} at {_g(f, 6)} Hz is {st} its window {_win((lo, hi))} Hz")))
         else:
             feats.append(fc)
         # damping ratio
@@ -237,10 +251,10 @@ def check(analysis: Analysis, limits: Limits) -> CheckResult:
             feats.append(FeatureCheck(ref.index, "zeta", float(z), ref.zeta, st))
             if st == "above":
                 add(ref.index, 2, Notice("zeta_above", f"damping ratio of {name} is {z / ref.zeta[1]:.1f}x the upper "
-                                                    f"limit ({_g(z)} against {_g(ref.zeta[1])})"))
+                                                    f"limit ({' against '.join(fmt_values([z, ref.zeta[1]]))})"))
             elif st == "below":
                 add(ref.index, 2, Notice("zeta_below", f"damping ratio of {name} is {z / ref.zeta[0]:.2f}x the lower "
-                                                    f"limit ({_g(z)} against {_g(ref.zeta[0])})"))
+                                                    f"limit ({' against '.join(fmt_values([z, ref.zeta[0]]))})"))
         elif ref.zeta is not None:
             feats.append(FeatureCheck(ref.index, "zeta", None, ref.zeta, "missing"))
             add(ref.index, 2, Notice("zeta_missing", f"damping ratio of {name} could not be measured"))
@@ -258,8 +272,8 @@ def check(analysis: Analysis, limits: Limits) -> CheckResult:
                 if st in ("below", "above"):
                     ratio_ok = False
                     lo, hi = ref.ratio
-                    add(ref.index, 3, Notice(f"ratio_{st}", f"frequency ratio of {name} to mode 1 is {r:.5f}, {st} its "
-                                                         f"window {lo:.5f}-{hi:.5f}"))
+                    add(ref.index, 3, Notice(f"ratio_{st}", f"frequency ratio of {name} to mode 1 is {_g(r, 6)}, {st} its "
+                                                         f"window {_win((lo, hi))}"))
 
     # Multivariate check.
     d = thr = None
@@ -285,7 +299,7 @@ def check(analysis: Analysis, limits: Limits) -> CheckResult:
         if uniform and maha_ok and abs(shift) <= limits.max_uniform_shift:
             for fc, note in f_fail:
                 feats.append(replace(fc, status="advisory"))
-                notes.append(Notice("advisory_" + note.code, note.message + " (advisory)"))
+                notes.append(Notice(ADVISORY_PREFIX + note.code, note.message + " (advisory)"))
             notes.insert(0, Notice(
                 "uniform_shift",
                 f"all {len(shifts)} modes are {_pct(shift)} {direction} their reference frequencies by the same "
@@ -358,21 +372,30 @@ def check_file(path: str, limits: Limits, **options) -> CheckResult:
     Never raises for a bad recording: that part's result is an ERROR. The analysis options
     stored in the limits are used unless ``options`` overrides them.
     """
+    from .batch import as_ringdown_error
     from .pipeline import analyze_file  # the pipeline; imported late so limits load without it
 
     opts = {**limits.analysis_options(), **options}
     try:
         analysis = analyze_file(path, **opts)
-    except RingdownError as exc:
-        analysis = Analysis.failed(path, exc, settings=opts)
     except Exception as exc:  # a batch on a line must go on; the part is an ERROR, with the cause
-        analysis = Analysis.failed(path, RingdownError(f"internal error {type(exc).__name__}: {exc}"), settings=opts)
+        analysis = Analysis.failed(path, as_ringdown_error(exc), settings=opts)
     return check(lighten(analysis), limits)
 
 
-def _worker(args):
-    pos, path, limits, options = args
-    return pos, check_file(path, limits, **options)
+class _CheckTask:
+    """Picklable ``check_file`` with fixed limits and options, and the ERROR result of a path."""
+
+    def __init__(self, limits: Limits, options: dict) -> None:
+        self.limits = limits
+        self.options = options
+
+    def __call__(self, path: str) -> CheckResult:
+        return check_file(path, self.limits, **self.options)
+
+    def failed(self, path: str, exc: Exception) -> CheckResult:
+        opts = {**self.limits.analysis_options(), **self.options}
+        return check(Analysis.failed(path, exc, settings=opts), self.limits)
 
 
 def iter_check_files(
@@ -381,6 +404,9 @@ def iter_check_files(
     *,
     jobs: int | None = None,
     options: dict | None = None,
+    executor=None,
+    on_notice=None,
+    client=None,
 ) -> Iterator[tuple[int, CheckResult]]:
     """Check many recordings, on several processes; yield ``(position, result)`` as each finishes.
 
@@ -393,22 +419,27 @@ def iter_check_files(
         Worker processes (default: the number of CPU cores; 1 runs in this process).
     options : dict, optional
         Analysis options overriding the ones stored in the limits.
+    executor, on_notice : callable, optional
+        See :func:`ringdown.batch.run_batch`.
+    client : distributed.Client, optional
+        Run one task per file on this Dask cluster's workers instead (:mod:`ringdown.cluster`;
+        ``jobs`` and ``executor`` are then unused).
 
     Yields
     ------
     (int, CheckResult)
-        Position in ``paths`` and the result, in completion order.
+        Position in ``paths`` and the result, in completion order. Any failure on one part (a
+        dead worker included, see :mod:`ringdown.batch`) is that part's ERROR.
     """
-    options = dict(options or {})
-    n = len(paths)
+    from .batch import run_batch
+
     jobs = (os.cpu_count() or 1) if jobs is None else int(jobs)
     if jobs < 1:
         raise ParameterError(f"jobs must be >= 1, got {jobs}")
-    if jobs == 1 or n <= 1:
-        for i, p in enumerate(paths):
-            yield i, check_file(p, limits, **options)
+    task = _CheckTask(limits, dict(options or {}))
+    if client is not None:
+        from .cluster import iter_results
+
+        yield from iter_results(client, task, list(paths), on_error=task.failed)
         return
-    with ProcessPoolExecutor(max_workers=min(jobs, n)) as pool:
-        futures = [pool.submit(_worker, (i, p, limits, options)) for i, p in enumerate(paths)]
-        for fut in as_completed(futures):
-            yield fut.result()
+    yield from run_batch(task, list(paths), on_error=task.failed, jobs=jobs, executor=executor, on_notice=on_notice)

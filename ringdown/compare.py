@@ -274,6 +274,16 @@ class FrequencyShift:
     confidence: float
     verdict: str
 
+    @property
+    def percent(self) -> tuple[float, float | None, float | None]:
+        """The relative shift and its interval, in percent of the mean f_d before."""
+        if self.relative == 0 or self.shift_hz == 0:
+            f0 = None
+        else:
+            f0 = self.shift_hz / self.relative
+        scale = (lambda v: None if v is None or f0 is None else 100.0 * v / f0)  # noqa: E731
+        return 100.0 * self.relative, scale(self.low_hz), scale(self.high_hz)
+
     def to_dict(self) -> dict:
         return asdict(self)
 

@@ -1,7 +1,6 @@
 """Figure of a before/after comparison: damping per mode on a log axis, and the frequency shift.
 
-Meant to be merged into :mod:`ringdown.plots` (the one place matplotlib is used); it reuses that
-module's style helpers. matplotlib is imported lazily, figures use
+Reuses the style helpers of :mod:`ringdown.plots` and the number format of :mod:`ringdown.numfmt`. matplotlib is imported lazily, figures use
 :class:`matplotlib.figure.Figure` (no pyplot), and nothing is saved here.
 """
 
@@ -10,6 +9,7 @@ from __future__ import annotations
 import math
 
 from .errors import ParameterError
+from .numfmt import fmt_fixed, fmt_value
 
 __all__ = ["plot_comparison"]
 
@@ -87,25 +87,25 @@ def plot_comparison(comparison, *, ax=None):
         _draw_side(ax, x + 0.18, m.after, _AFTER, "s", "after" if first else None)
         first = False
         r = m.damping
-        txt = f"x{r.ratio:.3g}"
+        txt = "x" + fmt_value(r.ratio, 3, trim=False)
         if r.ratio_low is not None:
-            txt += f"\n[{r.ratio_low:.2g}, {r.ratio_high:.2g}]"
+            txt += f"\n[{fmt_value(r.ratio_low, 3, trim=False)}, {fmt_value(r.ratio_high, 3, trim=False)}]"
         top = max(v for v in (m.before.zeta_interval or (m.before.values["zeta"],) * 2)[1:] +
                   (m.after.zeta_interval or (m.after.values["zeta"],) * 2)[1:])
         ax.annotate(txt, (x, top), xytext=(0, 4), textcoords="offset points", ha="center",
                     va="bottom", fontsize=STYLE["font_size"] - 1)
-        lab = f"mode {m.index}\n{m.before.values['f_d_hz']:.0f} Hz"
+        lab = f"mode {m.index}\n{fmt_value(m.before.values['f_d_hz'], 5)} Hz"
         if freq_ax is None:
-            lab += f"\n{100 * m.frequency.relative:+.1f} %"
+            lab += f"\n{fmt_fixed(100 * m.frequency.relative, 1, sign=True)} %"
         labels.append(lab)
         x += 1
     for cm in only_b:
         _draw_side(ax, x - 0.18, cm, _BEFORE, "o", None, hollow=True)
-        labels.append(f"before only\n{cm.values['f_d_hz']:.0f} Hz")
+        labels.append(f"before only\n{fmt_value(cm.values['f_d_hz'], 5)} Hz")
         x += 1
     for cm in only_a:
         _draw_side(ax, x + 0.18, cm, _AFTER, "s", None, hollow=True)
-        labels.append(f"after only\n{cm.values['f_d_hz']:.0f} Hz")
+        labels.append(f"after only\n{fmt_value(cm.values['f_d_hz'], 5)} Hz")
         x += 1
     ax.set_yscale("log")
     ax.set_xticks(range(x))

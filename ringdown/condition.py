@@ -19,10 +19,12 @@ import numpy as np
 __all__ = [
     "HitSpan",
     "remove_drift",
+    "remove_drift_and_step",
     "envelope_db",
     "envelope_smoothing",
     "noise_floor_db",
     "find_hits",
+    "free_decay_start",
     "find_clipping",
     "noise_psd",
     "steady_tones",
@@ -35,14 +37,22 @@ _EPS = 1e-300
 class HitSpan:
     """Sample indices of one hit: onset, envelope peak, end of its decay (exclusive).
 
-    ``bounce`` is the index of a second onset within the hit's first milliseconds (a hammer
-    bounce), or ``None``.
+    ``bounce`` is the index of a second onset shortly after the hit (a hammer bounce), or
+    ``None``. ``onset`` is where the free decay starts; ``kind`` says how it was found:
+    ``"impulse"`` (a sharp rise, then the decay), ``"switch-off"`` (a steady oscillation, the
+    forced response to a drive, stops and the level falls from its plateau) or ``"release"`` (a
+    held static deflection let go). ``rise`` is the first sharp rise of the level (the tap, or
+    the start of the drive; equal to ``onset`` for an impulse). ``doubt`` says why the start is
+    uncertain, or is ``None``.
     """
 
     onset: int
     peak: int
     end: int
     bounce: int | None = None
+    kind: str = "impulse"
+    rise: int | None = None
+    doubt: str | None = None
 
 
 #: Degree of the Legendre polynomial removed as offset and drift.
@@ -62,7 +72,7 @@ def remove_drift(x: np.ndarray, sample_rate: float) -> np.ndarray:
     Parameters
     ----------
     x : (n_samples,) ndarray of float
-    sample_rate : float, Hz (unused; kept so every conditioning step has one signature)
+    sample_rate : float, Hz
     """
     x = np.asarray(x, dtype=np.float64)
     n = x.shape[0]
@@ -70,19 +80,118 @@ def remove_drift(x: np.ndarray, sample_rate: float) -> np.ndarray:
         return x - x.mean()
     u = np.linspace(-1.0, 1.0, n)
     # fit on block means (at most ~4096 blocks): a polynomial of degree 5 is smooth at that
-    # scale, and the block means of an oscillation are ~0, so the fit is the same, and cheap
-    b = max(1, n // 4096)
+    # scale, and the means of an oscillation over whole periods are ~0, so the fit is the same,
+    # and cheap. A block is a whole number of periods of the dominant frequency: a block of a
+    # fraction of a period would keep the oscillation's partial cycles, whose projection on the
+    # polynomials (~ amplitude / cycles in the record) leaks a slow drift into the record
+    f_dom = dominant_frequency(x - x.mean(), sample_rate)
+    period = max(1, int(round(sample_rate / f_dom))) if f_dom else 1
+    b = period * max(1, -(-n // (4096 * period)))
+    if n // b < 4 * (DRIFT_DEGREE + 1):
+        b = max(1, n // 4096)
     m = (n // b) * b
-    coef = np.polynomial.legendre.legfit(u[:m].reshape(-1, b).mean(axis=1), x[:m].reshape(-1, b).mean(axis=1),
-                                         DRIFT_DEGREE)
+    ub, xb = u[:m].reshape(-1, b).mean(axis=1), x[:m].reshape(-1, b).mean(axis=1)
+    coef = np.polynomial.legendre.legfit(ub, xb, DRIFT_DEGREE)
     return x - np.polynomial.legendre.legval(u, coef)
 
 
+#: A step in the mean explains at least this fraction of what the drift polynomial leaves in the
+#: block means (common practice, no source) ...
+STEP_FRACTION = 0.9
+#: ... and is at least this fraction of the record's largest excursion from the drift.
+STEP_SIZE = 0.1
+
+
+def remove_drift_and_step(x: np.ndarray, sample_rate: float) -> tuple[np.ndarray, int | None]:
+    """Remove offset, slow drift and one step of the mean: a held deflection let go.
+
+    A part held deflected and then released (or a sensor resting at another offset before the
+    part moves) has a mean that steps at the release. A smooth polynomial cannot follow a step
+    and leaves slow wiggles of a tenth of it on both sides, which hide the release in the
+    level. After :func:`remove_drift`'s degree-5 fit to the block means, the step regressor
+    ``H(i - j)`` that best explains the remaining block means is found in one pass (the
+    residual's and the polynomial basis' suffix sums give each candidate's least-squares gain);
+    it is kept when it explains :data:`STEP_FRACTION` of the residual and is at least
+    :data:`STEP_SIZE` of the record's excursion. Then the polynomial and the step are fitted
+    jointly, the step is placed to the sample (least squares within a block either side of the
+    best block edge), and both are subtracted.
+
+    Parameters
+    ----------
+    x : (n_samples,) ndarray of float
+    sample_rate : float, Hz
+
+    Returns
+    -------
+    y : (n_samples,) ndarray of float
+        ``x`` less the drift (and the step).
+    step : int or None
+        Index of the first sample after the step, or ``None`` when there is none.
+    """
+    x = np.asarray(x, dtype=np.float64)
+    y = remove_drift(x, sample_rate)
+    n = x.shape[0]
+    if n < 16 * (DRIFT_DEGREE + 1):
+        return y, None
+    f_dom = dominant_frequency(y, sample_rate)
+    period = max(1, int(round(sample_rate / f_dom))) if f_dom else 1
+    b = period * max(1, -(-n // (4096 * period)))
+    nb = n // b
+    if nb < 8 * (DRIFT_DEGREE + 1):
+        return y, None
+    m = nb * b
+    u = np.linspace(-1.0, 1.0, n)
+    ub, xb = u[:m].reshape(-1, b).mean(axis=1), x[:m].reshape(-1, b).mean(axis=1)
+    v = np.polynomial.legendre.legvander(ub, DRIFT_DEGREE)
+    q, _ = np.linalg.qr(v)
+    r = xb - q @ (q.T @ xb)
+    r0 = float(r @ r)
+    if r0 <= 0:
+        return y, None
+    # gain of a step at block j (1 for blocks >= j): (sum_{i>=j} r_i)^2 / ((nb - j) - |sum_{i>=j} q_i|^2)
+    sr = np.cumsum(r[::-1])[::-1]
+    sq = np.cumsum(q[::-1], axis=0)[::-1]
+    den = (nb - np.arange(nb)) - np.sum(sq * sq, axis=1)
+    j_ok = np.arange(2, nb - 2)
+    gain = np.where(den[j_ok] > 1e-9, sr[j_ok] ** 2 / np.maximum(den[j_ok], 1e-300), 0.0)
+    j = int(j_ok[int(np.argmax(gain))])
+    if float(np.max(gain)) < STEP_FRACTION * r0:
+        return y, None
+    h = (np.arange(nb) >= j).astype(np.float64)
+    sol, *_ = np.linalg.lstsq(np.column_stack([v, h]), xb, rcond=None)
+    c = float(sol[-1])
+    drift = np.polynomial.legendre.legval(u, sol[:-1])
+    e = x - drift
+    if abs(c) < STEP_SIZE * float(np.max(np.abs(e - np.median(e)))):
+        return y, None
+    # the step to the sample: least squares of e - c H(i - k) over a block either side
+    lo, hi = max(0, (j - 1) * b), min(n, (j + 1) * b)
+    w = e[lo:hi]
+    before = np.concatenate(([0.0], np.cumsum(w * w)))
+    after = np.concatenate((np.cumsum(((w - c) ** 2)[::-1])[::-1], [0.0]))
+    k = lo + int(np.argmin(before + after))
+    step = (np.arange(n) >= k).astype(np.float64)
+    return e - c * step, k
+
+
+#: Every time span of hit detection is a multiple of the level's smoothing width ``W`` (one
+#: period of the record's dominant frequency, at least 3 samples), so that the detection scales
+#: with the record and not with the clock: the same samples declared at any sample rate give
+#: the same hits. The multiples reproduce the former millisecond defaults for a ~700 Hz part at
+#: 16-48 kHz, where W is ~1.4-1.6 ms (common practice for hand-held hammer taps, no source).
+RISE_WIDTHS = 2.0  #: a hit rises within 2 W (~3 ms)
+HOLD_OFF_WIDTHS = 35.0  #: hits closer than 35 W (~50 ms) are one hit
+BOUNCE_WIDTHS = 20.0  #: a hammer bounce comes within 20 W (~30 ms) of the hit
+ENERGY_STEP_WIDTHS = 4.0  #: a bounce raises the slow level within 4 W (~6 ms)
+
+
 def _smoothing_samples(sample_rate: float, f_dom_hz: float | None = None) -> int:
-    # about 1 ms, at least one period of the dominant frequency and 3 samples
-    # (common practice, no source)
-    t = 1e-3 if not f_dom_hz else max(1e-3, 1.0 / f_dom_hz)
-    return max(3, int(round(t * sample_rate)))
+    # one period of the dominant frequency, at least 3 samples: the level then does not swing
+    # with the oscillation itself (common practice, no source). No absolute minimum in seconds:
+    # a fast decay at a high sample rate must not be smoothed over its whole length.
+    if not f_dom_hz or not math.isfinite(f_dom_hz) or f_dom_hz <= 0:
+        return 3
+    return max(3, int(round(sample_rate / f_dom_hz)))
 
 
 def envelope_smoothing(x: np.ndarray, sample_rate: float) -> int:
@@ -101,22 +210,19 @@ def dominant_frequency(x: np.ndarray, sample_rate: float) -> float | None:
     return k * sample_rate / n
 
 
-def envelope_db(x: np.ndarray, sample_rate: float, *, window_s: float | None = None,
-                smoothing: int | None = None) -> np.ndarray:
+def envelope_db(x: np.ndarray, sample_rate: float, *, smoothing: int | None = None) -> np.ndarray:
     """Smoothed broadband power in dB (re 1 unit^2), free of pre-ringing.
 
-    ``x^2`` averaged over a centred window of about 1 ms, or one period of the record's
-    dominant frequency when that is longer, so that the level does not swing with the
-    oscillation itself. A centred moving average spreads an onset by half its width and no
-    further (an FFT Hilbert envelope would ring well before the onset).
+    ``x^2`` averaged over a centred window of ``smoothing`` samples (default
+    :func:`envelope_smoothing`: one period of the record's dominant frequency), so that the
+    level does not swing with the oscillation itself. A centred moving average spreads an onset
+    by half its width and no further (an FFT Hilbert envelope would ring well before the onset).
 
     Returns
     -------
     (n_samples,) ndarray of float, dB
     """
-    w = envelope_smoothing(x, sample_rate) if smoothing is None else int(smoothing)
-    if window_s is not None:
-        w = max(w, int(round(window_s * sample_rate)))
+    w = envelope_smoothing(x, sample_rate) if smoothing is None else max(1, int(smoothing))
     c = np.concatenate(([0.0], np.cumsum(x * x)))
     n = x.shape[0]
     lo = np.clip(np.arange(n) - w // 2, 0, n)
@@ -125,13 +231,35 @@ def envelope_db(x: np.ndarray, sample_rate: float, *, window_s: float | None = N
     return 10.0 * np.log10(p + _EPS)
 
 
-def noise_floor_db(level_db: np.ndarray) -> float:
-    """Broadband noise floor: the 5th percentile of the envelope level, dB.
+#: Blocks of the level over which :func:`noise_floor_db` takes medians, in smoothing widths.
+NOISE_BLOCK_WIDTHS = 8
 
-    Robust when at least a few percent of the record is noise only (pre-trigger or the tail
-    after the decay); otherwise it is the quietest part of the decay, an upper bound.
+
+def noise_floor_db(level_db: np.ndarray, smoothing: int = 3) -> float:
+    """Broadband noise floor: the median level of the quietest stretch of the record, dB.
+
+    The level is cut into blocks of ``8 smoothing`` samples (at least 32); the floor is the
+    lowest block median. Any stretch of that length where only noise is (a short pre-trigger,
+    the tail after the decay) sets it, however little of the record it is; a percentile of the
+    whole level would sit on the ringing of a lightly damped mode that fills the record. When no
+    block is noise only, the floor is the quietest part of the decay: an upper bound.
+
+    Parameters
+    ----------
+    level_db : (n_samples,) ndarray of float
+        From :func:`envelope_db`.
+    smoothing : int
+        The smoothing width (samples) that made ``level_db``.
     """
-    return float(np.percentile(level_db, 5.0))
+    n = level_db.shape[0]
+    b = max(32, NOISE_BLOCK_WIDTHS * int(smoothing))
+    if n < 2 * b:
+        return float(np.median(level_db))
+    m = (n // b) * b
+    med = np.median(level_db[:m].reshape(-1, b), axis=1)
+    if m < n:
+        med = np.append(med, np.median(level_db[n - b:]))
+    return float(np.min(med))
 
 
 def find_hits(
@@ -141,37 +269,41 @@ def find_hits(
     noise_db: float,
     min_hit_snr_db: float = 20.0,
     rise_db: float = 12.0,
-    rise_time_s: float = 3e-3,
-    hold_off_s: float = 0.05,
-    bounce_window_s: float = 0.03,
-    bounce_rise_db: float = 10.0,
     smoothing: int = 3,
+    rise_samples: int | None = None,
+    hold_off_samples: int | None = None,
+    bounce_window_samples: int | None = None,
+    bounce_rise_db: float = 10.0,
     slow_level_db: np.ndarray | None = None,
 ) -> list[HitSpan]:
     """Find every hit in a recording from its envelope level.
 
-    A hit starts where the level rises at least ``rise_db`` within ``rise_time_s``, ends up
+    A hit starts where the level rises at least ``rise_db`` within ``rise_samples``, ends up
     at least ``min_hit_snr_db`` above the noise, and exceeds everything in the preceding
-    ``hold_off_s`` by 3 dB (so that beating of modes in a decay is not taken for a new hit).
-    Hits closer than ``hold_off_s`` are one hit. Within ``bounce_window_s`` after the first
-    maximum, a rise of ``bounce_rise_db`` within ``rise_time_s`` (as fast as an onset), back to
-    within 6 dB of that maximum, marks a bounce (a second contact of the hammer). Two modes of
-    similar amplitude some 100 Hz apart can beat deeply enough to look like one; a recording
-    whose only hits are flagged is still analysed, with the warning. Defaults are
-    common practice for hand-held hammer taps, no source.
+    ``hold_off_samples`` by 3 dB (so that beating of modes in a decay is not taken for a new
+    hit). Hits closer than ``hold_off_samples`` are one hit. Within ``bounce_window_samples``
+    after the first maximum, a rise of ``bounce_rise_db`` within ``rise_samples`` (as fast as
+    an onset), back to within 6 dB of that maximum, marks a bounce (a second contact of the
+    hammer). Two modes of similar amplitude some 100 Hz apart can beat deeply enough to look
+    like one; a recording whose only hits are flagged is still analysed, with the warning.
+    Every span is in samples, by default a multiple of ``smoothing`` (:data:`RISE_WIDTHS`,
+    :data:`HOLD_OFF_WIDTHS`, :data:`BOUNCE_WIDTHS`), so that detection does not depend on the
+    declared sample rate. Defaults are common practice for hand-held hammer taps, no source.
 
     Parameters
     ----------
     level_db : (n_samples,) ndarray of float
         From :func:`envelope_db`.
-    sample_rate : float, Hz
+    sample_rate : float, Hz (unused: every span is in samples; kept for the common signature)
     noise_db : float
         From :func:`noise_floor_db`.
     smoothing : int
         Width in samples of the smoothing that made ``level_db`` (see :func:`envelope_smoothing`).
+    rise_samples, hold_off_samples, bounce_window_samples : int or None
+        Spans in samples; ``None`` for the multiples of ``smoothing`` above.
     slow_level_db : (n_samples,) ndarray or None
-        The level smoothed over about 3 ms. When given, a bounce must also raise it by 3 dB:
-        a second contact adds energy, while modes beating faster than the 3 ms window only
+        The level smoothed over twice ``smoothing``. When given, a bounce must also raise it by
+        3 dB: a second contact adds energy, while modes beating faster than that window only
         move the energy between them.
 
     Returns
@@ -179,19 +311,25 @@ def find_hits(
     list of HitSpan, in time order; empty when nothing rises above the noise.
     """
     n = level_db.shape[0]
-    w = max(2, int(round(rise_time_s * sample_rate)))
-    hold = max(w + 1, int(round(hold_off_s * sample_rate)))
+    sm = max(1, int(smoothing))
+    w = max(2, int(rise_samples) if rise_samples is not None else int(round(RISE_WIDTHS * sm)))
+    hold = max(w + 1, int(hold_off_samples) if hold_off_samples is not None else int(round(HOLD_OFF_WIDTHS * sm)))
+    bw = int(bounce_window_samples) if bounce_window_samples is not None else int(round(BOUNCE_WIDTHS * sm))
+    w = min(w, max(2, n - 1))
     # minimum of the level over the preceding w samples (sliding window minimum)
     from scipy.ndimage import maximum_filter1d, minimum_filter1d
 
     prev_min = np.empty(n)
     prev_min[:] = np.inf
-    m = minimum_filter1d(level_db, size=w, origin=(w - 1) // 2)  # min over [k - w + 1, k]
+    # constant borders: a reflecting border would bring later samples (the hit itself) into the
+    # window of the record's first samples
+    m = minimum_filter1d(level_db, size=w, origin=(w - 1) // 2, mode="constant", cval=np.inf)  # min over [k - w + 1, k]
     prev_min[1:] = m[:-1]
     prev_max = np.full(n, -np.inf)
-    span = hold - w
+    span = min(hold - w, n)
     if span > 0 and n > w:
-        mx = maximum_filter1d(level_db, size=span, origin=(span - 1) // 2)  # max over [k - span + 1, k]
+        mx = maximum_filter1d(level_db, size=span, origin=(span - 1) // 2, mode="constant",
+                              cval=-np.inf)  # max over [k - span + 1, k]
         prev_max[w:] = mx[: n - w]
     threshold = noise_db + min_hit_snr_db
     cand = (level_db - prev_min >= rise_db) & (level_db >= threshold) & (level_db >= prev_max + 3.0)
@@ -211,51 +349,159 @@ def find_hits(
     # on the step: the onset is where the ramp reaches half (-3 dB) of the level just after it.
     spans: list[HitSpan] = []
     for j, k in enumerate(onsets):
-        top = float(np.max(level_db[k : min(n, k + smoothing + 1)]))
-        lo_i = max(0, k - smoothing)
-        reach = np.flatnonzero(level_db[lo_i : k + smoothing + 1] >= top - 3.0103)
+        top = float(np.max(level_db[k : min(n, k + sm + 1)]))
+        lo_i = max(0, k - sm)
+        reach = np.flatnonzero(level_db[lo_i : k + sm + 1] >= top - 3.0103)
         onset = lo_i + int(reach[0]) if reach.size else k
-        end = onsets[j + 1] - max(1, int(round(0.002 * sample_rate))) if j + 1 < len(onsets) else n
-        stop = min(end, onset + hold + int(round(bounce_window_s * sample_rate)))
+        end = onsets[j + 1] - sm if j + 1 < len(onsets) else n
+        stop = min(end, onset + hold + bw)
+        if stop <= onset:
+            continue  # a rise in the record's last samples leaves no decay to measure
         peak = onset + int(np.argmax(level_db[onset:stop]))
-        bounce = _find_bounce(level_db, k, sample_rate, bounce_window_s, bounce_rise_db, end, smoothing + w)
-        if bounce is not None and slow_level_db is not None and not _energy_step(slow_level_db, k, bounce, sample_rate):
+        bounce = _find_bounce(level_db, k, bw, w, bounce_rise_db, end, sm + w)
+        if bounce is not None and slow_level_db is not None and not _energy_step(slow_level_db, k, bounce, sm):
             bounce = None
         spans.append(HitSpan(onset=onset, peak=peak, end=end, bounce=bounce))
     return spans
 
 
-def _find_bounce(level_db, onset, sample_rate, window_s, rise_db, end, settle=0) -> int | None:
-    """Index of a second sharp onset shortly after ``onset``, or None.
+def _find_bounce(level_db, onset, window, rise, rise_db, end, settle=0) -> int | None:
+    """Index of a second sharp onset within ``window`` samples after ``onset``, or None.
 
-    After the first local maximum of the level that follows the onset, a bounce is a rise of
-    ``rise_db`` above the lowest level reached since that maximum.
+    After the first local maximum of the level that follows the onset (within ``settle``
+    samples: the smoothing width plus the rise window), a bounce is a rise of ``rise_db``
+    within ``rise`` samples (as fast as an onset) above the lowest level reached since that
+    maximum.
     """
-    b = min(end, onset + int(round(window_s * sample_rate)))
-    # the level reaches its first maximum within the smoothing width plus the rise window
-    d = max(2, int(round(2e-3 * sample_rate)), int(settle))
+    b = min(end, onset + int(window))
+    d = max(2, int(settle))
     if onset + d >= b:
         return None
     k = onset + int(np.argmax(level_db[onset : onset + d]))
-    r = max(2, int(round(3e-3 * sample_rate)))  # a bounce rises as fast as an onset
+    r = max(2, int(rise))
     if b - k <= r:
         return None
     seg = level_db[k:b]
     from scipy.ndimage import minimum_filter1d
 
-    prev_min = minimum_filter1d(seg, size=r, origin=(r - 1) // 2)  # min over [i - r + 1, i]
-    rise = np.full(seg.shape[0], -np.inf)
-    rise[r:] = seg[r:] - prev_min[r - 1 : -1]
-    hits = np.flatnonzero((rise >= rise_db) & (seg >= level_db[k] - 6.0))
+    prev_min = minimum_filter1d(seg, size=r, origin=(r - 1) // 2, mode="constant", cval=np.inf)  # min over [i - r + 1, i]
+    rise_arr = np.full(seg.shape[0], -np.inf)
+    rise_arr[r:] = seg[r:] - prev_min[r - 1 : -1]
+    hits = np.flatnonzero((rise_arr >= rise_db) & (seg >= level_db[k] - 6.0))
     return int(k + hits[0]) if hits.size else None
 
 
-def _energy_step(slow_db: np.ndarray, onset: int, bounce: int, sample_rate: float) -> bool:
-    """Whether the slow level rises 3 dB around ``bounce`` above its lowest since ``onset``."""
+def _energy_step(slow_db: np.ndarray, onset: int, bounce: int, smoothing: int) -> bool:
+    """Whether the slow level rises 3 dB around ``bounce`` (within 4 smoothing widths) above
+    its lowest since ``onset``."""
     a = onset + int(np.argmax(slow_db[onset:bounce + 1]))
     lo = float(np.min(slow_db[a : bounce + 1]))
-    hi = float(np.max(slow_db[bounce : min(slow_db.shape[0], bounce + int(round(6e-3 * sample_rate)) + 1)]))
+    reach = int(round(ENERGY_STEP_WIDTHS * smoothing))
+    hi = float(np.max(slow_db[bounce : min(slow_db.shape[0], bounce + reach + 1)]))
     return hi - lo >= 3.0
+
+
+#: The plateau of a driven response may fall at most this fraction of the rate at which the
+#: level falls after it (common practice, no source): an impulse response falls at one rate
+#: from its peak, a switched-off drive holds its level and then falls.
+PLATEAU_SLOPE_RATIO = 0.25
+#: A plateau must last at least this many smoothing widths (common practice, no source).
+PLATEAU_WIDTHS = 4
+#: ... and the level must fall this far below it afterwards (dB; common practice, no source).
+FALL_DB = 20.0
+
+
+def free_decay_start(x: np.ndarray, level_db: np.ndarray, span: HitSpan, *, smoothing: int,
+                     noise_db: float) -> HitSpan:
+    """Where the free decay of a hit starts: at the hit itself, or where a steady drive stops.
+
+    A forced response (an RLC circuit or a part driven by a shaker) holds its level while the
+    drive runs, and the free decay at the natural frequency starts only when the drive stops;
+    before that, the record holds the drive frequency, which is not a mode. The level from the
+    hit's rise (two smoothing widths on) is split at ``k_last``, the last sample within 10 dB of
+    the hit's highest level. The part
+    before it is a plateau when it lasts at least :data:`PLATEAU_WIDTHS` smoothing widths, falls
+    (least-squares slope of the dB level) at less than :data:`PLATEAU_SLOPE_RATIO` of the rate
+    of the next 10 dB of fall, and the level afterwards falls at least :data:`FALL_DB` below the
+    plateau (or to within 6 dB of the noise). Then the free decay starts two smoothing widths
+    after the last sample within 1 dB of the plateau's median level: never before the drive
+    stopped (the centred smoothing starts to fall one width early), at the cost of a little of
+    the decay. The start is a ``"release"`` when the plateau is a static deflection (the
+    variance of the raw samples about their mean there is less than a tenth of that of the
+    first two smoothing widths of the free decay: common practice, no source) and a
+    ``"switch-off"`` (a forced oscillation stopped) otherwise. An impulse whose rise is the first sample of the record is marked uncertain: the
+    record may start after the decay did.
+
+    Parameters
+    ----------
+    x : (n_samples,) ndarray of float
+        The samples before offset and drift removal (a held deflection is an offset there).
+    level_db : (n_samples,) ndarray of float
+        The level of the conditioned samples smoothed over twice ``smoothing`` (:func:`envelope_db`).
+    span : HitSpan
+        From :func:`find_hits`.
+    smoothing : int
+        Smoothing width of :func:`envelope_smoothing`, samples.
+    noise_db : float
+        Broadband noise floor, dB.
+
+    Returns
+    -------
+    HitSpan
+        ``span`` with ``onset``/``peak`` moved to the free decay's start for a switch-off or
+        release, ``kind``, ``rise`` and ``doubt`` set.
+    """
+    sm = max(1, int(smoothing))
+    span = HitSpan(span.onset, span.peak, span.end, span.bounce, "impulse", span.onset, None)
+    # from two widths after the rise (past the smoothing's ramp) to the end of the hit
+    a, b = min(span.onset + 2 * sm, span.peak), span.end
+    seg = level_db[a:b]
+    if seg.shape[0] < 4 * PLATEAU_WIDTHS * sm:
+        return _start_doubt(span)
+    top = float(np.max(seg))
+    near = np.flatnonzero(seg >= top - 10.0)
+    k_last = int(near[-1])
+    after = seg[k_last:]
+    fell = np.flatnonzero(after <= seg[k_last] - 10.0)
+    if k_last < PLATEAU_WIDTHS * sm or fell.size == 0:
+        return _start_doubt(span)
+    plateau = seg[:k_last]
+    level_p = float(np.median(plateau))
+    lowest = float(np.min(after))
+    if lowest > level_p - FALL_DB and lowest > noise_db + 6.0:
+        return _start_doubt(span)
+    k_fall = k_last + int(fell[0])
+    u = np.arange(plateau.shape[0], dtype=np.float64)
+    slope_p = float(np.polyfit(u, plateau, 1)[0]) if plateau.shape[0] >= 3 else 0.0
+    fall = seg[k_last:k_fall + 1]
+    slope_f = float(np.polyfit(np.arange(fall.shape[0], dtype=np.float64), fall, 1)[0]) if fall.shape[0] >= 3 \
+        else (float(seg[k_fall]) - float(seg[k_last])) / max(k_fall - k_last, 1)
+    if not (slope_f < 0 and slope_p > PLATEAU_SLOPE_RATIO * slope_f):
+        return _start_doubt(span)
+    high = np.flatnonzero(seg[:k_last + 1] >= level_p - 1.0)
+    k_off = int(high[-1]) if high.size else 0
+    start = a + k_off + 2 * sm
+    if start >= b - 4 * sm:
+        return _start_doubt(span)
+    xp = x[a:a + k_off + 1]
+    xd = x[start:min(b, start + 2 * sm)]
+    p_decay = float(np.var(xd)) if xd.size > 1 else 0.0
+    kind = "release" if xp.size > 1 and float(np.var(xp)) < 0.1 * p_decay else "switch-off"
+    doubt = None
+    scatter = float(np.std(plateau))
+    if scatter > 3.0:
+        doubt = (f"the level before the {kind} was not steady (scatter {scatter:.1f} dB); "
+                 "the free decay's start is uncertain")
+    peak = start + int(np.argmax(level_db[start:min(b, start + 2 * sm + 1)]))
+    return HitSpan(start, peak, b, span.bounce, kind, span.onset, doubt)
+
+
+def _start_doubt(span: HitSpan) -> HitSpan:
+    if span.onset > 0:
+        return span
+    return HitSpan(span.onset, span.peak, span.end, span.bounce, span.kind, span.rise,
+                   "the level is already high at the first sample: the record may start after the decay did, "
+                   "so its start is not in the record")
 
 
 def find_clipping(x: np.ndarray, *, full_scale: float | None, min_run: int = 3) -> np.ndarray:

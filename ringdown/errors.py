@@ -9,7 +9,10 @@ Every error the library raises on purpose derives from :class:`RingdownError`, s
      ├── ParameterError    (also ValueError)   an option out of range or inconsistent
      ├── FitError          (also RuntimeError) a fit that could not converge
      ├── LimitsError       (also ValueError)   a limits file that is missing or malformed
-     └── StoreError                            the results database cannot be used
+     ├── StoreError                            the results database cannot be used
+     ├── ClusterError                          a Dask scheduler or its workers cannot run a batch
+     └── InternalError                         anything else that went wrong on one input
+          └── WorkerError                      the worker process handling it died (twice)
 
 Each class has a stable ``code`` that the JSON output carries in ``error.code``.
 Messages name the thing, the limit, the value received and the fix, on one line.
@@ -25,6 +28,9 @@ __all__ = [
     "FitError",
     "LimitsError",
     "StoreError",
+    "ClusterError",
+    "InternalError",
+    "WorkerError",
 ]
 
 
@@ -68,3 +74,21 @@ class StoreError(RingdownError):
     """The results database cannot be opened, migrated or written."""
 
     code = "store"
+
+
+class ClusterError(RingdownError):
+    """A Dask scheduler that cannot be reached or used, or a task its workers kept dying on."""
+
+    code = "cluster"
+
+
+class InternalError(RingdownError):
+    """An unexpected failure on one input (MemoryError, OverflowError, a bug), as that input's error."""
+
+    code = "internal"
+
+
+class WorkerError(InternalError):
+    """The worker process handling one input died twice (e.g. killed for memory)."""
+
+    code = "worker_died"

@@ -13,6 +13,8 @@ import io as _stdio
 import math
 import os
 import re
+import stat as _stat
+import struct
 from dataclasses import dataclass
 
 import numpy as np
@@ -20,7 +22,7 @@ import numpy as np
 from .errors import InputError, ParameterError
 from .recording import Recording
 
-__all__ = ["read_recording", "MIN_SAMPLES", "MAX_TIMING_JITTER", "TEXT_SUFFIXES"]
+__all__ = ["read_recording", "open_regular", "MIN_SAMPLES", "MAX_TIMING_JITTER", "TEXT_SUFFIXES"]
 
 #: Fewest samples a recording may have. Below this no spectrum or decay fit is meaningful
 #: (project choice, common practice, no source).
@@ -103,7 +105,8 @@ def read_recording(
     Parameters
     ----------
     path : str or os.PathLike
-        The file. Names ending in ``.csv``, ``.txt``, ``.tsv`` or ``.dat`` are read as text
+        The file, or ``"-"`` for standard input (read into memory up to `max_bytes`, then
+        sniffed the same way: a known sound format by its leading bytes, else text). Names ending in ``.csv``, ``.txt``, ``.tsv`` or ``.dat`` are read as text
         (unless the file starts like a known sound format); anything else is first offered to
         soundfile (WAV, FLAC, OGG, AIFF, ... any bit depth, integer or float), and read as text
         when soundfile cannot open it and it looks like text. A file whose content (else name
@@ -188,6 +191,8 @@ def read_recording(
     name = os.fspath(path) if isinstance(path, (str, os.PathLike)) else path
     if not isinstance(name, str):
         raise ParameterError(f"path must be a file name (str or os.PathLike); got {path!r}")
+    if name == STDIN:
+        return _read_stdin(channel=channel, column=column, sample_rate=sample_rate, max_bytes=max_bytes)
     if sample_rate is not None:
         sample_rate = _check_rate(sample_rate, name)
     limit = _check_max_bytes(max_bytes, name)
@@ -219,6 +224,42 @@ def read_recording(
                 f"corrupt ({reason}); export or copy the recording again")
     return _read_text(name, size, channel=channel, column=column, sample_rate=sample_rate,
                       limit=limit, max_bytes=max_bytes)
+
+
+#: The name that means standard input.
+STDIN = "-"
+
+
+def _read_stdin(*, channel, column, sample_rate, max_bytes) -> Recording:
+    """Read one recording from standard input: bytes into memory (at most the size limit),
+    sniffed like a file (WAV/FLAC/... by their leading bytes, else text)."""
+    import sys
+    import tempfile
+
+    limit = _check_max_bytes(max_bytes, "standard input")
+    try:
+        data = sys.stdin.buffer.read(limit + 1)
+    except (OSError, ValueError, AttributeError) as exc:
+        raise InputError(f"cannot read standard input ('-'): {exc}") from exc
+    if len(data) > limit:
+        raise InputError(f"standard input ('-') holds more than the {_fmt_bytes(limit)} allowed "
+                         f"({_limit_origin(max_bytes)}); give the recording as a file")
+    if not data:
+        raise InputError("standard input ('-') is empty; pipe a recording into it (ringdown analyze - < tap.wav)")
+    suffix = "" if data[:4] in _AUDIO_MAGIC else ".csv"
+    # the reader works on files: hand it a private copy, and name standard input in every message
+    with tempfile.TemporaryDirectory(prefix="ringdown-stdin-") as tmp:
+        tmp_name = os.path.join(tmp, "stdin" + suffix)
+        with open(tmp_name, "wb") as fh:
+            fh.write(data)
+        try:
+            rec = read_recording(tmp_name, channel=channel, column=column, sample_rate=sample_rate,
+                                 max_bytes=max_bytes)
+        except (InputError, ParameterError) as exc:
+            raise type(exc)(str(exc).replace(repr(tmp_name), "'-' (standard input)")) from None
+    return Recording(samples=rec.samples, sample_rate=rec.sample_rate, channel=rec.channel, path=STDIN,
+                     sha256=rec.sha256, full_scale=rec.full_scale, timing_jitter=rec.timing_jitter,
+                     n_channels=rec.n_channels)
 
 
 # --------------------------------------------------------------------------------------------
@@ -268,6 +309,28 @@ def _fmt_bytes(n: float) -> str:
     return f"{n:.1f} TiB"  # pragma: no cover
 
 
+def _kind(mode: int) -> str | None:
+    """What a non-regular file is, in words (None for a regular file)."""
+    if _stat.S_ISREG(mode):
+        return None
+    if _stat.S_ISDIR(mode):
+        return "a directory"
+    if _stat.S_ISFIFO(mode):
+        return "a FIFO (named pipe)"
+    if _stat.S_ISCHR(mode) or _stat.S_ISBLK(mode):
+        return "a device"
+    if _stat.S_ISSOCK(mode):
+        return "a socket"
+    return "not a regular file"
+
+
+def _not_regular(name: str, kind: str) -> InputError:
+    if kind == "a directory":
+        return InputError(f"{name!r} is a directory, not a recording; give a file")
+    return InputError(f"{name!r} is {kind}, not a regular file; ringdown reads recordings from regular files only "
+                      "(copy the data to a file first)")
+
+
 def _stat_size(name: str) -> int:
     try:
         st = os.stat(name)
@@ -275,24 +338,54 @@ def _stat_size(name: str) -> int:
         raise InputError(f"{name!r} does not exist; check the path") from None
     except OSError as exc:
         raise InputError(f"cannot open {name!r}: {exc.strerror or exc}; check the path") from exc
-    if os.path.isdir(name):
-        raise InputError(f"{name!r} is a directory, not a recording; give a file")
+    kind = _kind(st.st_mode)
+    if kind is not None:
+        raise _not_regular(name, kind)
     if st.st_size == 0:
         raise InputError(f"{name!r} is empty (0 bytes); record or export it again")
     return int(st.st_size)
 
 
+def open_regular(name: str):
+    """Open ``name`` for reading in binary, refusing anything but a regular file.
+
+    The file is opened without blocking (a FIFO with no writer would block ``open`` forever),
+    then checked with ``fstat`` on the open descriptor, so the check and the read concern the
+    same file. Returns a binary file object.
+
+    Raises
+    ------
+    InputError
+        Missing, unreadable, a FIFO, a device, a socket or a directory; one line naming the file.
+    """
+    try:
+        fd = os.open(name, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_CLOEXEC", 0))
+    except FileNotFoundError:
+        raise InputError(f"{name!r} does not exist; check the path") from None
+    except IsADirectoryError:
+        raise _not_regular(name, "a directory") from None
+    except OSError as exc:
+        raise InputError(f"cannot read {name!r}: {exc.strerror or exc}") from None
+    try:
+        kind = _kind(os.fstat(fd).st_mode)
+        if kind is not None:
+            raise _not_regular(name, kind)
+        if hasattr(os, "set_blocking"):
+            os.set_blocking(fd, True)
+        return os.fdopen(fd, "rb")
+    except BaseException:
+        os.close(fd)
+        raise
+
+
 class _open:
-    """``open(name, "rb")`` with OS errors turned into InputError."""
+    """:func:`open_regular` with OS errors on reading turned into InputError."""
 
     def __init__(self, name: str) -> None:
         self.name = name
 
     def __enter__(self):
-        try:
-            self.fh = open(self.name, "rb")
-        except OSError as exc:
-            raise InputError(f"cannot read {self.name!r}: {exc.strerror or exc}") from exc
+        self.fh = open_regular(self.name)
         return self
 
     def read(self, n: int = -1) -> bytes:
@@ -393,9 +486,40 @@ def _read_sound(name, info, *, channel, column, sample_rate, limit, max_bytes) -
     samples = np.ascontiguousarray(data[:, index - 1])
     del data
     _check_length(samples.shape[0], name)
+    notes = ()
+    if str(info.format).upper().startswith("WAV"):
+        notes = _wav_truncation(name, samples.shape[0])
     return Recording(samples=samples, sample_rate=rate, channel=str(index), path=name,
                      sha256=_sha256_file(name), full_scale=_full_scale(str(info.subtype)),
-                     timing_jitter=None, n_channels=n_channels)
+                     timing_jitter=None, n_channels=n_channels, notes=notes)
+
+
+def _wav_truncation(name: str, frames_read: int) -> tuple[tuple[str, str], ...]:
+    """A ``truncated`` warning when a WAV's data chunk claims more bytes than the file holds.
+
+    Walks the RIFF chunks (Microsoft/IBM RIFF WAVE layout: ``RIFF size WAVE``, then chunks of a
+    4-byte id and a little-endian 4-byte size, padded to even length) up to the ``data`` chunk.
+    """
+    with _open(name) as fh:
+        head = fh.read(1 << 16)
+        size = os.fstat(fh.fh.fileno()).st_size
+    if len(head) < 12 or head[:4] != b"RIFF" or head[8:12] != b"WAVE":
+        return ()
+    pos, block = 12, None
+    while pos + 8 <= len(head):
+        cid, csize = head[pos:pos + 4], struct.unpack("<I", head[pos + 4:pos + 8])[0]
+        if cid == b"fmt " and pos + 22 <= len(head):
+            block = struct.unpack("<H", head[pos + 20:pos + 22])[0]
+        if cid == b"data":
+            held = size - (pos + 8)
+            if csize in (0, 0xFFFFFFFF) or csize <= held or not block:
+                return ()
+            claimed = csize // block
+            return (("truncated", f"{name!r} is truncated: its header states {claimed} frames but the file "
+                                  f"holds {held // block}; {frames_read} frames were analysed (copy or export "
+                                  "the recording again)"),)
+        pos += 8 + csize + (csize & 1)
+    return ()
 
 
 def _parse_index(choice: object) -> int | None:

@@ -82,8 +82,10 @@ DEFAULT_MAX_UNIFORM_SHIFT = 0.01
 #: Default largest spread of the per-mode relative shifts that still counts as "uniform" (our choice).
 DEFAULT_UNIFORM_SHIFT_TOLERANCE = 0.002
 
-_ANALYSIS_KEYS = ("method", "bands", "max_modes", "min_snr_db", "min_hit_snr_db", "keep_double_hits", "channel", "column",
-                  "sample_rate")
+#: Reader options (``ringdown.read_recording`` keywords) kept in the ``[reader]`` table.
+READER_KEYS = ("channel", "column", "sample_rate")
+_ANALYSIS_KEYS = ("method", "bands", "max_modes", "min_snr_db", "min_hit_snr_db", "keep_double_hits", "start_s",
+                  "end_s") + READER_KEYS
 
 
 # --------------------------------------------------------------------------------------------
@@ -196,6 +198,9 @@ class Limits:
         Names and SHA-256 of the good parts used.
     analysis : dict
         Analysis options the good parts were analysed with; ``check`` reuses them.
+    reader : dict
+        Reader options the good parts were read with (``channel``, ``column``, ``sample_rate``;
+        only those given); ``check`` reads parts the same way unless told otherwise.
     tool_version, created_utc : str or None
     notes : tuple of str
         Plain-words remarks written at learning time (few parts, no covariance ...).
@@ -217,6 +222,7 @@ class Limits:
     n_parts: int | None = None
     parts: tuple[tuple[str, str], ...] = ()
     analysis: dict = field(default_factory=dict)
+    reader: dict = field(default_factory=dict)
     tool_version: str | None = None
     created_utc: str | None = None
     notes: tuple[str, ...] = ()
@@ -229,8 +235,10 @@ class Limits:
         return any(m.ratio is not None for m in self.modes)
 
     def analysis_options(self) -> dict:
-        """The stored analysis options that :func:`ringdown.analyze_file` accepts."""
-        return {k: v for k, v in self.analysis.items() if k in _ANALYSIS_KEYS and v is not None}
+        """The stored analysis and reader options that :func:`ringdown.analyze_file` accepts."""
+        opts = {k: v for k, v in self.analysis.items() if k in _ANALYSIS_KEYS and v is not None}
+        opts.update({k: v for k, v in self.reader.items() if k in READER_KEYS and v is not None})
+        return opts
 
     def to_dict(self) -> dict:
         return {
@@ -248,6 +256,7 @@ class Limits:
             "n_parts": self.n_parts,
             "parts": [{"name": n, "sha256": h} for n, h in self.parts],
             "analysis": dict(self.analysis),
+            "reader": dict(self.reader),
             "notes": list(self.notes),
             "modes": [m.to_dict() for m in self.modes],
             "mahalanobis": None if self.mahalanobis is None else self.mahalanobis.to_dict(),
@@ -471,7 +480,8 @@ def learn_limits(
             )
 
     settings = dict(items[0].settings or {})
-    analysis = {k2: v for k2, v in settings.items() if _toml_value_ok(v)}
+    analysis = {k2: v for k2, v in settings.items() if _toml_value_ok(v) and k2 not in READER_KEYS}
+    reader = {k2: settings[k2] for k2 in READER_KEYS if _toml_value_ok(settings.get(k2))}
     parts = tuple((Path(a.path).name if a.path else f"part_{i + 1}", a.sha256 or "") for i, a in enumerate(items))
     limits = Limits(
         modes=tuple(modes),
@@ -483,6 +493,7 @@ def learn_limits(
         n_parts=n,
         parts=parts,
         analysis=analysis,
+        reader=reader,
         tool_version=__version__,
         created_utc=_utc_now(),
         notes=tuple(notes),
@@ -584,6 +595,14 @@ def limits_to_toml(limits: Limits) -> str:
         for key, v in limits.analysis.items():
             if _toml_value_ok(v):
                 w(f"{_key(key)} = {_toml_val(v)}")
+    w("")
+    w("[reader]")
+    w("# how the good parts were read (channel of a sound file, column and sample rate of a text file);")
+    w("# check reads parts the same way unless --channel/--column/--sample-rate say otherwise")
+    for key in READER_KEYS:
+        v = limits.reader.get(key)
+        if v is not None and _toml_value_ok(v):
+            w(f"{key} = {_toml_val(v)}")
     for name, sha in limits.parts:
         w("")
         w("[[parts]]")
@@ -635,11 +654,15 @@ def write_limits(limits: Limits, path: str | Path) -> str:
     LimitsError
         When the file cannot be written.
     """
+    from .errors import RingdownError
+    from .outputs import atomic_write
+
     text = limits_to_toml(limits)
     try:
-        Path(path).write_text(text, encoding="utf-8")
-    except OSError as exc:
-        raise LimitsError(f"cannot write limits file '{path}': {exc.strerror or exc}; check the folder") from exc
+        with atomic_write(path, "wb", what="limits file") as fh:  # never a 0-byte or half file
+            fh.write(text.encode("utf-8"))
+    except RingdownError as exc:
+        raise LimitsError(str(exc)) from None
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
@@ -662,7 +685,7 @@ def read_limits(path: str | Path) -> Limits:
         text = data.decode("utf-8")
     except UnicodeDecodeError:
         raise LimitsError(f"limits file '{p}' is not UTF-8 text; save it as UTF-8") from None
-    lim = parse_limits(text, source=str(p))
+    lim = parse_limits(text, source=str(p))  # a UTF-8 byte-order mark is accepted there
     return replace(lim, sha256=hashlib.sha256(data).hexdigest())
 
 
@@ -702,6 +725,7 @@ def parse_limits(text: str, *, source: str = "<string>") -> Limits:
         zeta = [0.0002, 0.0009]         # damping ratio window (optional)
         ratio = [2.752, 2.761]          # f_d / f_d of mode 1 (optional, modes 2..)
         [mahalanobis]                   # optional: features, mean, covariance, threshold, n_parts
+        [reader]                        # optional: channel = 2, column = "accel", sample_rate = 51200.0
 
     Raises
     ------
@@ -709,10 +733,18 @@ def parse_limits(text: str, *, source: str = "<string>") -> Limits:
         Naming the file, the key and the fix.
     """
     src = source
+    body = text[1:] if text.startswith("\ufeff") else text  # a byte-order mark some editors add
     try:
-        doc = _toml.loads(text)
+        doc = _toml.loads(body)
     except _toml.TOMLDecodeError as exc:
         raise LimitsError(f"limits file '{src}' is not valid TOML ({exc}); fix the line named") from None
+    except RecursionError:
+        raise LimitsError(f"limits file '{src}' nests arrays or tables too deeply to be a limits file; "
+                          "fix or relearn it") from None
+    unknown = set(doc) - _TOP_KEYS
+    if unknown:
+        raise LimitsError(f"limits file '{src}' has unknown key(s) {sorted(unknown)}; allowed: "
+                          f"{', '.join(sorted(_TOP_KEYS))} (a misspelt key would be ignored silently)")
     fv = doc.get("format_version", FORMAT_VERSION)
     if not isinstance(fv, int) or isinstance(fv, bool) or fv < 1:
         raise LimitsError(f"limits file '{src}': format_version must be a positive integer, got {fv!r}")
@@ -722,6 +754,10 @@ def parse_limits(text: str, *, source: str = "<string>") -> Limits:
     chk = doc.get("check", {})
     if not isinstance(chk, dict):
         raise LimitsError(f"limits file '{src}': [check] must be a table")
+    bad = set(chk) - {"tolerance", "max_uniform_shift", "uniform_shift_tolerance"}
+    if bad:
+        raise LimitsError(f"limits file '{src}': [check] has unknown key(s) {sorted(bad)}; "
+                          "allowed: tolerance, max_uniform_shift, uniform_shift_tolerance")
     tolerance = _num(src, "check.", "tolerance", chk.get("tolerance"), DEFAULT_TOLERANCE, lo=0.0, hi=0.5)
     mus = _num(src, "check.", "max_uniform_shift", chk.get("max_uniform_shift"), DEFAULT_MAX_UNIFORM_SHIFT, lo=-1e-12, hi=0.5)
     ust = _num(src, "check.", "uniform_shift_tolerance", chk.get("uniform_shift_tolerance"),
@@ -757,7 +793,8 @@ def parse_limits(text: str, *, source: str = "<string>") -> Limits:
         if idx != i + 1:
             raise LimitsError(f"limits file '{src}': {where}.index is {idx!r}, expected {i + 1}; list modes in order")
         modes.append(ModeLimits(index=i + 1, f_ref_hz=fref, f_hz=fwin, zeta=zwin, ratio=rwin,
-                                stats={k: float(v) for k, v in stats_.items() if isinstance(v, (int, float))}))
+                                stats={k: float(v) for k, v in stats_.items()
+                                       if _is_number(v) and math.isfinite(float(v))}))
     refs = [m.f_ref_hz for m in modes]
     if any(b <= a for a, b in zip(refs, refs[1:])):
         raise LimitsError(f"limits file '{src}': modes must be listed in ascending frequency; reorder the [[modes]] entries")
@@ -770,33 +807,115 @@ def parse_limits(text: str, *, source: str = "<string>") -> Limits:
     st = doc.get("settings", {})
     if not isinstance(st, dict):
         raise LimitsError(f"limits file '{src}': [settings] must be a table")
+    coverage = _num(src, "settings.", "coverage", st.get("coverage"), None, lo=0.0, hi=1.0)
+    confidence = _num(src, "settings.", "confidence", st.get("confidence"), None, lo=0.0, hi=1.0)
+    k_factor = _num(src, "settings.", "k_factor", st.get("k_factor"), None, lo=0.0, hi=1e6)
+    n_parts = st.get("n_parts")
+    if n_parts is not None and (isinstance(n_parts, bool) or not isinstance(n_parts, int) or n_parts < 0):
+        raise LimitsError(f"limits file '{src}': settings.n_parts must be a whole number >= 0, got {n_parts!r}")
+    parts_ = doc.get("parts", []) or []
+    if not isinstance(parts_, list):
+        raise LimitsError(f"limits file '{src}': parts must be [[parts]] tables with name and sha256")
     parts = []
-    for i, pt in enumerate(doc.get("parts", []) or []):
-        if not isinstance(pt, dict) or not isinstance(pt.get("name", ""), str):
+    for i, pt in enumerate(parts_):
+        if not isinstance(pt, dict) or not isinstance(pt.get("name", ""), str) or not isinstance(pt.get("sha256", ""), str):
             raise LimitsError(f"limits file '{src}': parts[{i + 1}] must be a table with name and sha256")
         parts.append((str(pt.get("name", "")), str(pt.get("sha256", ""))))
     analysis = doc.get("analysis", {})
     if not isinstance(analysis, dict):
         raise LimitsError(f"limits file '{src}': [analysis] must be a table")
+    reader = doc.get("reader", {})
+    if not isinstance(reader, dict):
+        raise LimitsError(f"limits file '{src}': [reader] must be a table")
+    unknown = sorted(set(reader) - set(READER_KEYS))
+    if unknown:
+        raise LimitsError(f"limits file '{src}': [reader] has unknown key(s) {unknown}; allowed: {', '.join(READER_KEYS)}")
+    rate = reader.get("sample_rate")
+    if rate is not None:
+        _num(src, "reader.", "sample_rate", rate, None, lo=0.0, hi=1e12)
+    for key in ("channel", "column"):
+        v = reader.get(key)
+        if v is not None and (isinstance(v, bool) or not isinstance(v, (int, str))):
+            raise LimitsError(f"limits file '{src}': reader.{key} must be a number or a name, got {v!r}")
+    _check_analysis(src, analysis)
     notes = st.get("notes", doc.get("notes", []))
+    if not isinstance(notes, list) or not all(isinstance(x, str) for x in notes):
+        raise LimitsError(f"limits file '{src}': notes must be a list of strings")
+    for key in ("tool_version", "created_utc"):
+        if key in doc and not isinstance(doc[key], (str, _dt.datetime, _dt.date)):
+            raise LimitsError(f"limits file '{src}': {key} must be a string, got {doc[key]!r}")
     return Limits(
         modes=tuple(modes),
         tolerance=tolerance,
         max_uniform_shift=mus,
         uniform_shift_tolerance=ust,
         mahalanobis=maha,
-        coverage=st.get("coverage"),
-        confidence=st.get("confidence"),
-        k_factor=st.get("k_factor"),
-        n_parts=st.get("n_parts"),
+        coverage=coverage,
+        confidence=confidence,
+        k_factor=k_factor,
+        n_parts=n_parts,
         parts=tuple(parts),
         analysis=dict(analysis),
-        tool_version=doc.get("tool_version"),
+        reader=dict(reader),
+        tool_version=None if doc.get("tool_version") is None else str(doc["tool_version"]),
         created_utc=str(doc["created_utc"]) if "created_utc" in doc else None,
-        notes=tuple(str(x) for x in notes) if isinstance(notes, list) else (),
+        notes=tuple(notes),
         source=source,
         sha256=hashlib.sha256(text.encode("utf-8")).hexdigest(),
     )
+
+
+#: Top-level keys of a limits file (anything else is a typo that would be ignored silently).
+_TOP_KEYS = frozenset({"format_version", "tool_version", "created_utc", "check", "modes", "mahalanobis", "settings",
+                       "parts", "analysis", "reader", "notes"})
+
+
+def _is_number(v: Any) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool)
+
+
+def _is_finite_number(v: Any) -> bool:
+    return _is_number(v) and math.isfinite(float(v))
+
+
+def _check_analysis(src: str, analysis: dict) -> None:
+    """The [analysis] table: every key known and every value of the right kind (check reuses them)."""
+    where = f"limits file '{src}': [analysis]"
+    known = set(_ANALYSIS_KEYS) | {"primary_method"}
+    bad = set(analysis) - known
+    if bad:
+        raise LimitsError(f"{where} has unknown key(s) {sorted(bad)}; allowed: {', '.join(sorted(known))}")
+
+    def fail(key: str, want: str) -> None:
+        raise LimitsError(f"{where} {key} = {analysis[key]!r} must be {want}; fix it or relearn the limits")
+
+    for key in ("method", "primary_method"):
+        if key in analysis:
+            from .estimators import method_names
+
+            names = set(method_names()) | {"auto"}
+            if not isinstance(analysis[key], str) or analysis[key] not in names:
+                fail(key, f"one of {', '.join(sorted(names))}")
+    for key in ("min_snr_db", "min_hit_snr_db"):
+        if key in analysis and not (_is_finite_number(analysis[key]) and analysis[key] >= 0):
+            fail(key, "a finite number of dB >= 0")
+    if "max_modes" in analysis and not (isinstance(analysis["max_modes"], int)
+                                        and not isinstance(analysis["max_modes"], bool) and analysis["max_modes"] >= 1):
+        fail("max_modes", "a whole number >= 1")
+    if "keep_double_hits" in analysis and not isinstance(analysis["keep_double_hits"], bool):
+        fail("keep_double_hits", "true or false")
+    if "sample_rate" in analysis and not (_is_finite_number(analysis["sample_rate"]) and analysis["sample_rate"] > 0):
+        fail("sample_rate", "a finite number of Hz > 0")
+    for key in ("channel", "column"):
+        if key in analysis and not (isinstance(analysis[key], str) or (isinstance(analysis[key], int)
+                                                                          and not isinstance(analysis[key], bool))):
+            fail(key, "a channel number or a column name")
+    if "bands" in analysis:
+        b = analysis["bands"]
+        ok = isinstance(b, list) and all(isinstance(x, list) and len(x) == 2 and all(_is_finite_number(v) for v in x)
+                                         and 0 <= x[0] < x[1] for x in b)
+        if not ok:
+            fail("bands", "a list of [low, high] pairs in Hz with 0 <= low < high")
 
 
 def _parse_maha(src: str, mh: Any, n_modes: int) -> MahalanobisLimits:
@@ -811,19 +930,30 @@ def _parse_maha(src: str, mh: Any, n_modes: int) -> MahalanobisLimits:
     if not isinstance(feats, list) or not feats or any(f not in valid for f in feats):
         raise LimitsError(f"limits file '{src}': {where}.features must name ratio_J / log_zeta_J of the listed modes, "
                           f"got {feats!r}; relearn the limits or delete [mahalanobis]")
+    bad = set(mh) - {"features", "mean", "covariance", "threshold", "n_parts", "probability"}
+    if bad:
+        raise LimitsError(f"limits file '{src}': [mahalanobis] has unknown key(s) {sorted(bad)}; allowed: features, "
+                          "mean, covariance, threshold, n_parts, probability")
+    if len(set(feats)) != len(feats):
+        raise LimitsError(f"limits file '{src}': {where}.features names a feature twice; relearn the limits")
     p = len(feats)
     mean = mh["mean"]
     cov = mh["covariance"]
-    if not (isinstance(mean, list) and len(mean) == p and all(isinstance(v, (int, float)) for v in mean)):
-        raise LimitsError(f"limits file '{src}': {where}.mean must hold {p} numbers; relearn the limits or delete [mahalanobis]")
-    if not (isinstance(cov, list) and len(cov) == p and all(isinstance(r, list) and len(r) == p for r in cov)):
-        raise LimitsError(f"limits file '{src}': {where}.covariance must be a {p}x{p} array; relearn the limits or delete [mahalanobis]")
+    if not (isinstance(mean, list) and len(mean) == p and all(_is_finite_number(v) for v in mean)):
+        raise LimitsError(f"limits file '{src}': {where}.mean must hold {p} finite numbers, got {mean!r}; "
+                          "relearn the limits or delete [mahalanobis]")
+    if not (isinstance(cov, list) and len(cov) == p
+            and all(isinstance(r, list) and len(r) == p and all(_is_finite_number(v) for v in r) for r in cov)):
+        raise LimitsError(f"limits file '{src}': {where}.covariance must be a {p}x{p} array of finite numbers; "
+                          "relearn the limits or delete [mahalanobis]")
     c = np.asarray(cov, dtype=float)
     if not np.all(np.isfinite(c)) or not np.allclose(c, c.T, rtol=1e-6, atol=0) or np.any(np.linalg.eigvalsh(c) <= 0):
         raise LimitsError(f"limits file '{src}': {where}.covariance must be symmetric positive definite; relearn the limits")
     thr = _num(src, where + ".", "threshold", mh["threshold"], None, lo=0.0, hi=1e6)
     n = mh.get("n_parts", 0)
-    prob = mh.get("probability", 0.99)
+    if isinstance(n, bool) or not isinstance(n, int) or n < 0:
+        raise LimitsError(f"limits file '{src}': {where}.n_parts must be a whole number >= 0, got {n!r}")
+    prob = _num(src, where + ".", "probability", mh.get("probability"), 0.99, lo=0.0, hi=1.0)
     return MahalanobisLimits(
         features=tuple(feats),
         mean=tuple(float(v) for v in mean),

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, replace
-from typing import Callable, Iterable, Sequence
+from typing import Callable, Iterable, Iterator, Sequence
 
 import numpy as np
 
@@ -26,7 +26,7 @@ from .quantities import DB_PER_NEPER, derive
 from .recording import Recording
 from .results import Analysis, Estimate, Hit, Mode, ModeTrace, Notice, Rejected
 
-__all__ = ["analyze", "analyze_recording", "analyze_file", "analyze_many", "AnalysisOptions"]
+__all__ = ["analyze", "analyze_recording", "analyze_file", "analyze_many", "iter_analyze_files", "AnalysisOptions"]
 
 #: Fewest samples a recording may have.
 MIN_SAMPLES = 64
@@ -46,8 +46,22 @@ class AnalysisOptions:
     min_snr_db: float = 10.0
     min_hit_snr_db: float = 20.0
     keep_double_hits: bool = False
+    start_s: float | None = None
+    end_s: float | None = None
 
     def __post_init__(self) -> None:
+        for name in ("start_s", "end_s"):
+            v = getattr(self, name)
+            if v is not None:
+                try:
+                    v = float(v)
+                except (TypeError, ValueError):
+                    raise ParameterError(f"{name} is a time in seconds from the record start; got {v!r}") from None
+                if not (math.isfinite(v) and v >= 0):
+                    raise ParameterError(f"{name} must be a finite time >= 0 s; got {v!r}")
+                object.__setattr__(self, name, v)
+        if self.start_s is not None and self.end_s is not None and self.end_s <= self.start_s:
+            raise ParameterError(f"end_s ({self.end_s:g} s) must come after start_s ({self.start_s:g} s)")
         if self.method not in method_names():
             raise ParameterError(f"unknown method {self.method!r}; choose one of {', '.join(method_names())}")
         if self.max_modes is not None and (not isinstance(self.max_modes, (int, np.integer)) or self.max_modes < 1):
@@ -91,6 +105,8 @@ class AnalysisOptions:
             "min_snr_db": self.min_snr_db,
             "min_hit_snr_db": self.min_hit_snr_db,
             "keep_double_hits": self.keep_double_hits,
+            "start_s": self.start_s,
+            "end_s": self.end_s,
         }
 
 
@@ -108,6 +124,8 @@ def analyze(
     min_snr_db: float = 10.0,
     min_hit_snr_db: float = 20.0,
     keep_double_hits: bool = False,
+    start_s: float | None = None,
+    end_s: float | None = None,
 ) -> Analysis:
     """Measure every mode of a ring-down record given as an array.
 
@@ -131,6 +149,10 @@ def analyze(
     keep_double_hits : bool
         Combine hits flagged ``double_hit`` (hammer bounce) with the others instead of leaving
         them out.
+    start_s, end_s : float or None, s
+        Analyse only the samples from ``start_s`` to ``end_s`` (seconds from the first sample;
+        ``None``: the record's start or end), for a user who knows where the decay is. Times in
+        the result stay measured from the record's first sample.
 
     Returns
     -------
@@ -148,7 +170,7 @@ def analyze(
     rec = Recording(np.asarray(x, dtype=np.float64), sample_rate)
     return analyze_recording(
         rec, method=method, bands=bands, max_modes=max_modes, min_snr_db=min_snr_db,
-        min_hit_snr_db=min_hit_snr_db, keep_double_hits=keep_double_hits,
+        min_hit_snr_db=min_hit_snr_db, keep_double_hits=keep_double_hits, start_s=start_s, end_s=end_s,
     )
 
 
@@ -168,9 +190,14 @@ def analyze_file(
     """
     from .io import read_recording
 
-    rec = read_recording(path, channel=channel, column=column, sample_rate=sample_rate)
-    reader = {"channel": channel, "column": column, "sample_rate": sample_rate}
-    return analyze_recording(rec, reader_settings=reader, **options)
+    try:
+        rec = read_recording(path, channel=channel, column=column, sample_rate=sample_rate)
+        reader = {"channel": channel, "column": column, "sample_rate": sample_rate}
+        return analyze_recording(rec, reader_settings=reader, **options)
+    except MemoryError as exc:
+        # one line for this file; a batch keeps the other files' results
+        raise InputError(f"{str(path)!r} needs more memory than is available to read or analyse it; "
+                         "cut it shorter (--start/--end) or split it") from exc
 
 
 def analyze_many(
@@ -178,6 +205,7 @@ def analyze_many(
     *,
     jobs: int = 1,
     progress: Callable[[Analysis], None] | None = None,
+    client=None,
     **options,
 ) -> list[Analysis]:
     """Analyse several files; a file that fails gets ``Analysis.error`` and the rest go on.
@@ -186,43 +214,73 @@ def analyze_many(
     ----------
     paths : iterable of str or path
     jobs : int >= 1
-        Worker processes (``concurrent.futures.ProcessPoolExecutor``) when > 1.
+        Worker processes when > 1 (:mod:`ringdown.batch`).
     progress : callable or None
         Called with each finished Analysis (in completion order).
+    client : distributed.Client or None
+        Run one task per file on this Dask cluster's workers instead (``jobs`` is then unused;
+        :mod:`ringdown.cluster`, extra ``ringdown[cluster]``). The paths must be readable there.
     **options
         As for :func:`analyze_file`.
 
     Returns
     -------
     list of Analysis, in the order of ``paths``.
+
+    Notes
+    -----
+    Any failure on one file (a bad recording, but also ``MemoryError``, ``OverflowError`` or a
+    worker process killed twice) becomes that file's ``error``; see :mod:`ringdown.batch`.
     """
     paths = [str(p) for p in paths]
-    AnalysisOptions.from_kwargs({k: v for k, v in options.items() if k not in ("channel", "column", "sample_rate")})
-    if jobs is None or jobs < 1:
-        raise ParameterError(f"jobs must be >= 1; got {jobs!r}")
     results: list[Analysis | None] = [None] * len(paths)
-    if jobs == 1 or len(paths) <= 1:
-        for i, p in enumerate(paths):
-            results[i] = _analyze_or_fail(p, options)
-            if progress:
-                progress(results[i])
-    else:
-        from concurrent.futures import ProcessPoolExecutor, as_completed
-
-        with ProcessPoolExecutor(max_workers=min(jobs, len(paths))) as pool:
-            futs = {pool.submit(_analyze_or_fail, p, options): i for i, p in enumerate(paths)}
-            for fut in as_completed(futs):
-                results[futs[fut]] = fut.result()
-                if progress:
-                    progress(results[futs[fut]])
+    for i, a in iter_analyze_files(paths, jobs=jobs, client=client, **options):
+        results[i] = a
+        if progress:
+            progress(a)
     return [r for r in results if r is not None]
 
 
-def _analyze_or_fail(path: str, options: dict) -> Analysis:
-    try:
-        return analyze_file(path, **options)
-    except RingdownError as exc:
-        return Analysis.failed(path, exc, settings=dict(options))
+def iter_analyze_files(paths: Sequence[str], *, jobs: int = 1, executor=None, on_notice=None, client=None,
+                       **options) -> Iterator[tuple[int, Analysis]]:
+    """Analyse several files; yield ``(position, Analysis)`` as each finishes.
+
+    The batch runner of every command (:func:`ringdown.batch.run_batch`): a file whose analysis
+    fails in any way yields ``Analysis.failed`` with the reason; ``executor`` and ``on_notice``
+    are passed on. With a Dask ``client``, the files are analysed on its workers instead
+    (:func:`ringdown.cluster.iter_results`, the same failure policy; ``jobs`` is then unused).
+
+    Raises
+    ------
+    ParameterError
+        For bad options or ``jobs`` (before anything is analysed).
+    """
+    from .batch import run_batch
+
+    paths = [str(p) for p in paths]
+    AnalysisOptions.from_kwargs({k: v for k, v in options.items() if k not in ("channel", "column", "sample_rate")})
+    if jobs is None or isinstance(jobs, bool) or not isinstance(jobs, int) or jobs < 1:
+        raise ParameterError(f"jobs must be >= 1; got {jobs!r}")
+    task = _FileTask(dict(options))
+    if client is not None:
+        from .cluster import iter_results
+
+        yield from iter_results(client, task, paths, on_error=task.failed)
+        return
+    yield from run_batch(task, paths, on_error=task.failed, jobs=jobs, executor=executor, on_notice=on_notice)
+
+
+class _FileTask:
+    """Picklable ``analyze_file`` with fixed options, and the failed record of a path."""
+
+    def __init__(self, options: dict) -> None:
+        self.options = options
+
+    def __call__(self, path: str) -> Analysis:
+        return analyze_file(path, **self.options)
+
+    def failed(self, path: str, exc: Exception) -> Analysis:
+        return Analysis.failed(path, exc, settings=dict(self.options))
 
 
 # ----------------------------------------------------------------------------------------------
@@ -248,29 +306,29 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
             raise ParameterError(
                 f"band {lo:g}-{hi:g} Hz lies above Nyquist ({nyq:g} Hz) for {name}; lower the band or resample"
             )
-    raw = rec.samples
+    raw, i0 = _time_window(rec, opts, name)
     peak_abs = float(np.max(np.abs(raw)))
     if peak_abs > MAX_ABS_SAMPLE:
         raise InputError(f"{name} holds values up to {peak_abs:.3g}, beyond the {MAX_ABS_SAMPLE:g} that can be squared "
                          "without overflow; rescale the signal (e.g. to volts or m/s^2)")
     if float(np.ptp(raw)) == 0.0:
         raise InputError(f"{name} is constant (every sample is {raw[0]:g}): nothing rings down")
-    x = condition.remove_drift(raw, fs)
+    x, step = condition.remove_drift_and_step(raw, fs)
     scale = float(np.max(np.abs(x)))
     if scale == 0.0 or scale < 1e-12 * max(float(np.max(np.abs(raw))), 1e-300):
         raise InputError(f"{name} holds only a constant offset or a straight drift: nothing rings down")
 
     smoothing = condition.envelope_smoothing(x, fs)
     level = condition.envelope_db(x, fs, smoothing=smoothing)
-    noise_db = condition.noise_floor_db(level)
+    noise_db = condition.noise_floor_db(level, smoothing)
+    slow = condition.envelope_db(x, fs, smoothing=2 * smoothing)
     spans = condition.find_hits(level, fs, noise_db=noise_db, min_hit_snr_db=opts.min_hit_snr_db,
-                                smoothing=smoothing,
-                                slow_level_db=condition.envelope_db(x, fs, window_s=3e-3, smoothing=smoothing))
+                                smoothing=smoothing, slow_level_db=slow)
     band_note = None
     if not spans:
         # a narrowband mode can stand far above its band's noise while the broadband level does
         # not rise min_hit_snr_db: look for the hits in the band of the strongest spectral peak
-        found = _hits_in_strongest_band(x, fs, opts.min_hit_snr_db)
+        found = _hits_in_strongest_band(x, fs, opts.min_hit_snr_db, smoothing)
         if found is not None:
             spans, f_band = found
             band_note = Notice("hits_in_band", f"the broadband level does not rise {opts.min_hit_snr_db:g} dB above its "
@@ -283,19 +341,31 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
             f"no ring-down found in {name}: the envelope never rises {opts.min_hit_snr_db:g} dB above its "
             f"noise floor (highest {peak_db:.1f} dB); check the gain, the trigger or the file{hint}"
         )
+    # where each free decay starts: at the hit, or where a steady drive stops
+    spans = [condition.free_decay_start(raw, slow, sp, smoothing=smoothing, noise_db=noise_db) for sp in spans]
+    if step is not None:
+        # a step of the mean where a hit rises: a held deflection let go
+        spans = [replace(sp, kind="release") if sp.kind == "impulse" and abs(sp.onset - step) <= 2 * smoothing else sp
+                 for sp in spans]
     clipped = condition.find_clipping(raw, full_scale=rec.full_scale)
     rec_warnings: list[Notice] = [band_note] if band_note is not None else []
+    if rec.n_channels > 1:
+        rec_warnings.append(Notice("multichannel", f"{name} holds {rec.n_channels} channels (or data columns); only "
+                                                   f"{rec.channel!r} was analysed (choose another with --channel)"))
+    rec_warnings.extend(Notice(code, message) for code, message in getattr(rec, "notes", ()))
     if rec.timing_jitter is not None and rec.timing_jitter > 1e-6:
         rec_warnings.append(Notice("timing_jitter", f"time steps jitter by {100 * rec.timing_jitter:.3g} % RMS (accepted)"))
 
-    noise_f, noise_p, noise_is_pre = _noise_spectrum(x, fs, spans)
-    tones = condition.steady_tones(noise_f, noise_p) if noise_is_pre else []
+    noise_f, noise_p, noise_source, noise_note = _noise_spectrum(x, fs, spans, level, noise_db, smoothing)
+    if noise_note is not None:
+        rec_warnings.append(noise_note)
+    tones = condition.steady_tones(noise_f, noise_p) if noise_source == "pre_trigger" else []
     for f_tone in tones:
         rec_warnings.append(Notice("stationary_tone", f"steady tone near {f_tone:.1f} Hz before the hit (mains hum or "
                                                       "another running source?); not a mode"))
 
     ctx = _RecordContext(x=x, fs=fs, opts=opts, noise_f=noise_f, noise_p=noise_p, noise_db=noise_db, level=level,
-                         clipped=clipped, tones=tuple(tones))
+                         clipped=clipped, tones=tuple(tones), i0=i0, smoothing=smoothing)
     hits: list[Hit] = []
     for j, span in enumerate(spans):
         hits.append(_analyze_hit(ctx, span, prev_end=spans[j - 1].end if j > 0 else 0))
@@ -311,7 +381,7 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
     modes = _combine_hits(used)
     for h in hits:
         rec_warnings.extend(w for w in h.warnings if w.code in ("double_hit", "clipped", "stationary_tone",
-                                                                "candidate_rejected"))
+                                                                "start_uncertain", "candidate_rejected"))
     return Analysis(
         path=rec.path,
         sha256=rec.sha256,
@@ -325,19 +395,38 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
         error=None,
         settings=settings,
         noise_floor=float(10 ** (noise_db / 20.0)),
+        noise_source=noise_source,
         recording=rec,
         rejected=tuple(replace(r, hit=j + 1) for j, h in enumerate(hits) for r in h.rejected),
     )
 
 
-def _hits_in_strongest_band(x: np.ndarray, fs: float, min_hit_snr_db: float):
+def _time_window(rec: Recording, opts: AnalysisOptions, name: str) -> tuple[np.ndarray, int]:
+    """The samples between ``opts.start_s`` and ``opts.end_s`` and the index of the first."""
+    if opts.start_s is None and opts.end_s is None:
+        return rec.samples, 0
+    fs, n = rec.sample_rate, rec.n_samples
+    dur = n / fs
+    start = 0.0 if opts.start_s is None else opts.start_s
+    end = dur if opts.end_s is None else min(opts.end_s, dur)
+    if start >= dur:
+        raise ParameterError(f"start {start:g} s lies beyond the end of {name} ({dur:g} s); give an earlier --start")
+    i_lo, i_hi = int(math.floor(start * fs)), min(n, int(math.ceil(end * fs)))
+    if i_hi - i_lo < MIN_SAMPLES:
+        raise ParameterError(f"the time window {start:g}-{end:g} s of {name} holds {max(i_hi - i_lo, 0)} samples; "
+                             f"at least {MIN_SAMPLES} are needed")
+    return rec.samples[i_lo:i_hi], i_lo
+
+
+def _hits_in_strongest_band(x: np.ndarray, fs: float, min_hit_snr_db: float, smoothing: int):
     """Hits found in the level of the band around the record's strongest spectral peak.
 
     Returns ``(spans, f_hz)`` or ``None`` when there is no clear peak or no hit in its band. The
     peak must stand 20 dB above the running median of the spectrum; the band is ±20 half-power
     widths of the peak (at least 4 frequency bins); its envelope level is interpolated to the
     record's rate, and a hit must rise 12 dB within twice the band filter's settling time (at
-    least 3 ms) to ``min_hit_snr_db`` above the band level's median.
+    least the broadband rise window, 2 smoothing widths) to ``min_hit_snr_db`` above the band
+    level's median.
     """
     found = find_peaks(x, fs, max_peaks=1, min_prominence_db=20.0)
     if not found:
@@ -348,17 +437,19 @@ def _hits_in_strongest_band(x: np.ndarray, fs: float, min_hit_snr_db: float):
     band = extract_band(spectrum_of(x, fs), lo + 0.25 * (hi - lo), hi - 0.25 * (hi - lo), skirt_hz=0.25 * (hi - lo))
     t = np.arange(x.shape[0]) / fs
     level = np.interp(t, band.t_s, 20.0 * np.log10(np.abs(band.z) + 1e-300))
-    rise = max(3e-3, 2.0 * settling_time_s(band, beta_per_s=math.pi * p.width_hz, level=1e-2))
+    rise = max(int(round(condition.RISE_WIDTHS * smoothing)),
+               int(round(2.0 * settling_time_s(band, beta_per_s=math.pi * p.width_hz, level=1e-2) * fs)))
+    hold = max(int(round(condition.HOLD_OFF_WIDTHS * smoothing)), 2 * rise)
     # the median, not the 5th percentile: an unsmoothed narrowband level dips far below its mean
     # (|z|^2 of noise is exponential: 5th percentile -13 dB, median -1.6 dB re the mean)
     spans = condition.find_hits(level, fs, noise_db=float(np.median(level)), min_hit_snr_db=min_hit_snr_db,
-                                rise_time_s=rise, hold_off_s=max(0.05, 2.0 * rise),
-                                smoothing=max(3, int(round(rise * fs))))
+                                rise_samples=rise, hold_off_samples=hold, smoothing=max(3, rise),
+                                bounce_window_samples=int(round(condition.BOUNCE_WIDTHS * smoothing)))
     return (spans, p.f_hz) if spans else None
 
 
 def _keep(hit: Hit) -> Hit:
-    note = Notice("flagged_hit_used", f"hit at {hit.start_s:.3f} s was flagged but is the only measurable one; "
+    note = Notice("flagged_hit_used", f"hit at {hit.start_s:.6g} s was flagged but is the only measurable one; "
                                       "its modes are reported anyway")
     return replace(hit, used=True, warnings=hit.warnings + (note,))
 
@@ -372,16 +463,52 @@ def _unique(notices: Iterable[Notice]) -> list[Notice]:
     return out
 
 
-def _noise_spectrum(x: np.ndarray, fs: float, spans) -> tuple[np.ndarray, np.ndarray, bool]:
-    """Noise PSD from the pre-trigger part, else from the record's last 10 %; and whether it
-    came from the pre-trigger."""
-    guard = max(2, int(round(0.002 * fs)))
-    pre_end = spans[0].onset - guard
-    min_len = max(MIN_SAMPLES, int(round(0.01 * fs)))
+#: Fewest samples a noise-only stretch must hold to give the noise spectrum: a Welch estimate
+#: with 129 frequency bins (common practice, no source), and at least 4 smoothing widths.
+MIN_NOISE_SAMPLES = 256
+#: Names of where the noise spectrum came from (``Analysis.noise_source``).
+NOISE_SOURCES = ("pre_trigger", "tail", "record_end")
+
+
+def _noise_spectrum(x: np.ndarray, fs: float, spans, level: np.ndarray, noise_db: float,
+                    smoothing: int) -> tuple[np.ndarray, np.ndarray, str, Notice | None]:
+    """Noise PSD from where only noise is, where it came from, and a warning when in doubt.
+
+    1. ``"pre_trigger"``: the samples before the first hit's rise (the tap, or the start of a
+       drive), less one smoothing width, when they are at least :data:`MIN_NOISE_SAMPLES` and
+       4 smoothing widths long;
+    2. ``"tail"``: else the record's end after the last block (4 smoothing widths, at least 32
+       samples) whose median level is more than 4 dB above the noise floor, when that long;
+    3. ``"record_end"``: else the record's last 10 % (at least :data:`MIN_NOISE_SAMPLES`),
+       which still holds the decay: the noise is over-estimated, fit windows end early and
+       uncertainties (scaled by each fit's residual) grow; the warning ``noise_uncertain`` says so.
+    """
+    sm = max(1, int(smoothing))
+    n = x.shape[0]
+    min_len = max(MIN_NOISE_SAMPLES, 4 * sm)
+    first = spans[0].rise if spans[0].rise is not None else spans[0].onset
+    pre_end = first - sm
     if pre_end >= min_len:
-        return (*condition.noise_psd(x[:pre_end], fs), True)
-    n_tail = max(min_len, x.shape[0] // 10)
-    return (*condition.noise_psd(x[-n_tail:], fs), False)
+        return (*condition.noise_psd(x[:pre_end], fs), "pre_trigger", None)
+    blk = max(32, 4 * sm)
+    last = spans[-1].peak
+    m = (n - last) // blk
+    loud = last
+    if m > 0:
+        med = np.median(level[last:last + m * blk].reshape(m, blk), axis=1)
+        above = np.flatnonzero(med > noise_db + 4.0)
+        loud = last + (int(above[-1]) + 1) * blk if above.size else last
+    rest = level[last + m * blk:]
+    if rest.size and float(np.median(rest)) > noise_db + 4.0:
+        loud = n
+    if n - loud >= min_len:
+        return (*condition.noise_psd(x[loud:], fs), "tail", None)
+    n_tail = min(n, max(min_len, n // 10))
+    note = Notice("noise_uncertain", f"no stretch of noise alone in the record (the pre-trigger holds {max(first, 0)} "
+                                     "samples and the decay still rings at the end): the noise was taken from the "
+                                     "record's last 10 %, an upper bound; fit windows may end early and the hit's "
+                                     "SNR is under-stated. Record more before the hit or until the decay has died away")
+    return (*condition.noise_psd(x[-n_tail:], fs), "record_end", note)
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -397,6 +524,8 @@ class _RecordContext:
     level: np.ndarray  #: (n_samples,) smoothed broadband level, dB
     clipped: np.ndarray  #: indices of clipped samples
     tones: tuple[float, ...]  #: steady tones found before the first hit, Hz
+    i0: int = 0  #: index in the recording of ``x[0]`` (the start of the time window)
+    smoothing: int = 3  #: width of the level's smoothing, samples
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -405,25 +534,36 @@ class _HitContext:
 
     record: _RecordContext
     spec: Spectrum  #: spectrum of the hit's segment (from before the onset to ``seg_end``)
-    onset_s: float  #: hit onset, s
-    clip_end: int | None  #: first sample after the last clipped one in the hit, or None
-    seg_end: int  #: sample index where the hit's segment ends
+    onset_s: float  #: start of the free decay, s from the recording's first sample
+    clip_end: int | None  #: first sample (index in the recording) after the last clipped one in the hit, or None
+    seg_end: int  #: index in the recording where the hit's segment ends
+    pre_rms: float | None = None  #: RMS of the samples before the hit's rise (None: too few), recording units
 
 
 def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
-    """Every mode of one hit (``span``, from :func:`condition.find_hits`); ``prev_end`` is the
-    sample where the previous hit's segment ended (0 for the first)."""
+    """Every mode of one hit (``span``, from :func:`condition.find_hits` and
+    :func:`condition.free_decay_start`); ``prev_end`` is the sample where the previous hit's
+    segment ended (0 for the first). Indices are into ``ctx.x``; times are from the recording's
+    first sample (``ctx.i0`` samples before ``ctx.x[0]``)."""
     x, fs, opts = ctx.x, ctx.fs, ctx.opts
+    i0 = ctx.i0
     warnings: list[Notice] = []
-    # up to 0.1 s before the onset: room for the band filter to settle, then a look at what the
-    # band held before the hit (a steady tone is there already, a mode is not)
-    pre = int(round(0.1 * fs))
-    seg_start = max(prev_end, span.onset - pre, 0)
     seg_end = span.end
-    onset_s = span.onset / fs
+    onset_s = (span.onset + i0) / fs
+    if span.kind == "impulse":
+        # before the onset, as much as the decay is long (the data's own scale, not a fixed time):
+        # room for the band filter to settle, then a look at what the band held before the hit
+        # (a steady tone is there already, a mode is not)
+        seg_start = max(prev_end, span.onset - (seg_end - span.onset), 0)
+    else:
+        # before a switch-off or release the record holds the drive, not the free decay: the
+        # segment starts where the free decay does, as a tap's would in a silent record
+        seg_start = span.onset
     used = True
+    if span.doubt is not None:
+        warnings.append(Notice("start_uncertain", f"hit at {onset_s:.6g} s: {span.doubt}"))
     if span.bounce is not None:
-        warnings.append(Notice("double_hit", f"hit at {onset_s:.3f} s has a second onset {1e3 * (span.bounce - span.onset) / fs:.1f} ms later (hammer bounce?)"
+        warnings.append(Notice("double_hit", f"hit at {onset_s:.6g} s has a second onset {1e3 * (span.bounce - span.onset) / fs:.3g} ms later (hammer bounce?)"
                                + ("" if opts.keep_double_hits else "; left out of the combined result")))
         used = opts.keep_double_hits
     clipped = ctx.clipped
@@ -431,19 +571,30 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
     clip_end = None
     if clip_in.size:
         clip_end = int(clip_in[-1]) + 1
-        warnings.append(Notice("clipped", f"{clip_in.size} samples clipped between {clip_in[0] / fs:.3f} and {clip_end / fs:.3f} s; "
-                                          "fits start after the clipping ends"))
+        warnings.append(Notice("clipped", f"{clip_in.size} samples clipped between {(clip_in[0] + i0) / fs:.6g} and "
+                                          f"{(clip_end + i0) / fs:.6g} s; fits start after the clipping ends"))
     decay_from = max(span.onset, clip_end or 0)
     peak_value = float(np.max(np.abs(x[span.onset:seg_end])))
     hit_snr = float(ctx.level[span.peak] - ctx.noise_db)
-    if seg_end - decay_from < MIN_SAMPLES:
-        warnings.append(Notice("short_decay", f"hit at {onset_s:.3f} s leaves {seg_end - decay_from} samples of decay"))
-        return Hit(onset_s, span.peak / fs, peak_value, hit_snr, seg_end / fs, False, tuple(warnings), ())
 
-    hctx = _HitContext(record=ctx, spec=spectrum_of(x[seg_start:seg_end], fs, t0_s=seg_start / fs), onset_s=onset_s,
-                       clip_end=clip_end, seg_end=seg_end)
+    def hit(used_: bool, modes_=(), rejected_=()) -> Hit:
+        return Hit(onset_s, (span.peak + i0) / fs, peak_value, hit_snr, (seg_end + i0) / fs, used_, tuple(warnings),
+                   tuple(modes_), tuple(rejected_), start_kind=span.kind)
+
+    if seg_end - decay_from < MIN_SAMPLES:
+        warnings.append(Notice("short_decay", f"hit at {onset_s:.6g} s leaves {seg_end - decay_from} samples of decay"))
+        return hit(False)
+
+    # what the record held before the hit's rise (at least 4 smoothing widths of it): bounds the
+    # amplitude any steady tone could have had there
+    rise = span.rise if span.rise is not None else span.onset
+    pre_x = x[prev_end:max(prev_end, rise - ctx.smoothing)]
+    pre_rms = float(np.sqrt(np.mean(pre_x**2))) if span.kind == "impulse" and pre_x.size >= 4 * ctx.smoothing else None
+    hctx = _HitContext(record=ctx, spec=spectrum_of(x[seg_start:seg_end], fs, t0_s=(seg_start + i0) / fs),
+                       onset_s=onset_s, clip_end=None if clip_end is None else clip_end + i0, seg_end=seg_end + i0,
+                       pre_rms=pre_rms)
     rejected: list[Rejected] = []
-    start = _free_decay_start(ctx, span, clip_end)
+    start = _free_decay_start(ctx, span, clip_end) if span.kind == "impulse" else max(span.onset, clip_end or 0)
     if opts.bands is not None:
         groups = [([], lo, hi, []) for lo, hi in opts.bands]
         cands: list[Candidate] = []
@@ -468,7 +619,7 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
         modes.extend(found)
     if failed:
         shown = "; ".join(failed[:3]) + (f"; and {len(failed) - 3} more" if len(failed) > 3 else "")
-        warnings.append(Notice("fit_failed", f"{len(failed)} band(s) in the hit at {onset_s:.3f} s could not be fitted: {shown}"))
+        warnings.append(Notice("fit_failed", f"{len(failed)} band(s) in the hit at {onset_s:.6g} s could not be fitted: {shown}"))
     modes.sort(key=lambda m: m.f_d_hz)
     if opts.max_modes is not None and len(modes) > opts.max_modes:
         ranked = sorted(modes, key=lambda m: -(m.amplitude or 0.0))
@@ -478,8 +629,7 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
         modes = sorted(ranked[: opts.max_modes], key=lambda m: m.f_d_hz)
     modes = [m.with_updates(index=i + 1) for i, m in enumerate(modes)]
     warnings.extend(r.notice() for r in rejected)
-    return Hit(onset_s, span.peak / fs, peak_value, hit_snr, seg_end / fs, used, tuple(warnings), tuple(modes),
-               tuple(rejected))
+    return hit(used, modes, rejected)
 
 
 #: A group is fitted on the raw record when a mode's band would reach less than this many
@@ -588,7 +738,7 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
 
     ctx = hctx.record
     fs, x = ctx.fs, ctx.x
-    seg = x[start:hctx.seg_end]
+    seg = x[start:hctx.seg_end - ctx.i0]  # hctx.seg_end counts from the recording's first sample
     t_rest = seg.shape[0] / fs
 
     def beta_of(c: Candidate) -> float:
@@ -608,14 +758,14 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
             others.append((c.snr * share if c.snr is not None else float("inf"), c))
     others = [c for _, c in sorted(others, key=lambda o: -o[0])][:MAX_RAW_NUISANCE]
     poles = [(c.f_hz, beta_of(c)) for c in targets + others]
-    ests = estimate_real(seg, fs, t0_s=start / fs, poles=poles, n_targets=len(targets), duration_s=dur,
+    ests = estimate_real(seg, fs, t0_s=(start + ctx.i0) / fs, poles=poles, n_targets=len(targets), duration_s=dur,
                          noise_f=ctx.noise_f, noise_p=ctx.noise_p)
     modes = []
     for est in ests:
         density = float(detect.noise_density(est.f_d_hz, ctx.noise_f, ctx.noise_p))
         # band noise over the mode's own half-power bandwidth beta / pi (as |z| of a band that wide)
         noise_rms = math.sqrt(max(2.0 * density * est.beta_per_s / math.pi, 1e-300))
-        modes.append(_make_raw_mode(est, noise_rms, seg, fs, start / fs))
+        modes.append(_make_raw_mode(est, noise_rms, seg, fs, (start + ctx.i0) / fs))
     return modes
 
 
@@ -756,7 +906,7 @@ def _measure_group(hctx: _HitContext, peaks_g: list[Peak], lo: float, hi: float,
         else:
             _, found, sb, sw = min(cross, key=lambda c: abs(c[0] - est.f_d_hz))
             others = {k: v for k, v in found.items() if k != est.method}
-        if _is_stationary(est, sb, sw, seg_end / fs):
+        if _is_stationary(est, sb, sw, seg_end / fs, pre_rms=hctx.pre_rms):
             hit_warnings.append(Notice("stationary_tone", f"steady tone at {est.f_d_hz:.1f} Hz does not decay (mains hum or "
                                                           "another running source?); not reported as a mode"))
             continue
@@ -791,22 +941,41 @@ def _steady_before_onset(band: Band, onset_s: float, beta_hint: float) -> bool:
     return bool(before > float(np.max(after)) * 10 ** (-STEADY_MARGIN_DB / 20))
 
 
-def _is_stationary(est: Estimate, band: Band, window: Window, seg_end_s: float) -> bool:
+def _is_stationary(est: Estimate, band: Band, window: Window, seg_end_s: float, *, pre_rms: float | None = None) -> bool:
     """Whether a component is a steady tone (hum, a running drive) rather than a mode.
 
-    A mode starts with the hit. When the band holds at least 3 samples before the onset (clear
+    A component whose decay rate is within 3 standard uncertainties of zero and that decays
+    less than 6 dB over the hit is steady, whatever came before: a drive switched on with the
+    hit and still running is not a mode. A mode starts with the hit. When the band holds at
+    least 3 samples before the onset (clear
     of the filter's settling), a tone is steady if it was already there within 10 dB of its
     level at the window start. Without such samples, it is steady if it decays less than 6 dB
     over the whole hit, or its tail stays within 6 dB of the level at the window start
     (thresholds: common practice, no source). A lightly damped mode in a short record is
     therefore kept (with ``short_decay``) when the record shows it start.
+
+    ``pre_rms`` is the RMS of the broadband samples before the hit (``None`` when there are
+    too few): a steady tone of amplitude ``a`` there would give an RMS of at least
+    ``a / sqrt(2)``, so a component whose amplitude exceeds ``sqrt(2) pre_rms`` by 10 dB was
+    not there before the hit; it is a mode however little it decays in the record (a very
+    lightly damped resonator whose band filter is too narrow to settle in a short pre-trigger)
+    when its decay rate is resolved (more than 5 standard uncertainties above zero: common
+    practice, no source). A drive switched on with the hit and still running has a decay rate
+    consistent with zero and stays a steady tone.
     """
     env = np.abs(band.z)
     i0 = band.index_of(window.start_s)
+    span = max(seg_end_s - window.onset_s, 1e-300)
+    if est.beta_per_s_u is not None and est.beta_per_s <= 3.0 * est.beta_per_s_u and \
+            DB_PER_NEPER * est.beta_per_s * span < 6.0:
+        return True  # no decay resolved: a drive switched on with the hit and still running
     before = _level_before_onset(band, window.onset_s, window.start_s - window.onset_s)
     if before is not None:
         return bool(before > env[i0] * 10 ** (-STEADY_MARGIN_DB / 20))
-    span = max(seg_end_s - window.onset_s, 1e-12)
+    if pre_rms is not None and est.amplitude is not None and est.beta_per_s_u is not None and \
+            est.amplitude > math.sqrt(2.0) * pre_rms * 10 ** (STEADY_MARGIN_DB / 20) and \
+            est.beta_per_s > 5.0 * est.beta_per_s_u:
+        return False
     if DB_PER_NEPER * est.beta_per_s * span < 6.0:
         return True
     n = env.shape[0]
@@ -943,7 +1112,7 @@ def _trace(est: Estimate, band: Band, window: Window, env_est: Estimate | None) 
     except FitError:
         pt, pv = None, None
     return ModeTrace(base.t_s, base.envelope, base.fit_start_s, base.fit_end_s, base.noise_floor, base.fit_amplitude,
-                     base.fit_beta_per_s, base.fit_t0_s, pt, pv)
+                     base.fit_beta_per_s, base.fit_t0_s, pt, pv, base.model_envelope, base.n_model_modes)
 
 
 # ----------------------------------------------------------------------------------------------

@@ -35,6 +35,7 @@ from .errors import ParameterError
 from .quantities import DB_PER_NEPER
 
 __all__ = [
+    "FIGURE_FORMATS",
     "STYLE",
     "figure_bytes",
     "plot_damping_vs_amplitude",
@@ -75,6 +76,9 @@ STYLE: dict[str, Any] = {
     "mode_dashes": ("-", (0, (5, 2)), (0, (1, 1.2)), (0, (6, 2, 1, 2)), (0, (3, 1, 1, 1, 1, 1)),
                     (0, (8, 3)), (0, (2, 2))),
 }
+
+#: Formats figures are written in (the one list the CLI's --plot-format and history --plot use).
+FIGURE_FORMATS = ("png", "svg", "pdf")
 
 #: Most points drawn for one trace; longer traces keep each bucket's minimum and maximum.
 _MAX_DRAWN_POINTS = 6000
@@ -195,31 +199,52 @@ def _db(v: np.ndarray, floor: float) -> np.ndarray:
 
 
 def _fmt_sig(v: float | None, digits: int = 4) -> str:
-    if v is None or not math.isfinite(v):
-        return "n/a"
-    return f"{v:.{digits}g}"
+    """A number for a label, in the one format of ringdown (:func:`ringdown.numfmt.fmt_value`)."""
+    from .numfmt import fmt_value
+
+    return fmt_value(v, digits, missing="n/a")
+
+
+def spread_labels(x: np.ndarray, min_gap: float, lo: float = 0.0, hi: float = 1.0) -> np.ndarray:
+    """Positions near ``x`` (sorted or not; same units as ``min_gap``) at least ``min_gap`` apart,
+    inside [lo, hi] when they fit: a forward then a backward sweep over the sorted positions.
+
+    Returns the positions in the order of ``x``.
+    """
+    x = np.asarray(x, dtype=float)
+    order = np.argsort(x, kind="stable")
+    p = np.clip(x[order], lo + min_gap / 2, hi - min_gap / 2)
+    for i in range(1, p.size):
+        p[i] = max(p[i], p[i - 1] + min_gap)
+    if p.size and p[-1] > hi - min_gap / 2:
+        p[-1] = hi - min_gap / 2
+        for i in range(p.size - 2, -1, -1):
+            p[i] = min(p[i], p[i + 1] - min_gap)
+    out = np.empty_like(p)
+    out[order] = p
+    return out
 
 
 def figure_bytes(fig, *, fmt: str = "png", dpi: float | None = None) -> bytes:
-    """Render a Figure to PNG or SVG bytes, without the software/date metadata.
+    """Render a Figure to PNG, SVG or PDF bytes, without the software/date metadata.
 
     Parameters
     ----------
     fig : matplotlib.figure.Figure
-    fmt : {"png", "svg"}
+    fmt : {"png", "svg", "pdf"}
     dpi : float or None
         Raster resolution, dots per inch; ``STYLE["dpi"]`` when None.
 
     Raises
     ------
     ParameterError
-        For a format other than ``"png"`` or ``"svg"``.
+        For a format other than those in :data:`FIGURE_FORMATS`.
     """
-    if fmt not in ("png", "svg"):
-        raise ParameterError(f"figure format must be 'png' or 'svg'; got {fmt!r}")
+    if fmt not in FIGURE_FORMATS:
+        raise ParameterError(f"figure format must be one of {', '.join(FIGURE_FORMATS)}; got {fmt!r}")
     buf = io.BytesIO()
-    meta = {"Software": None} if fmt == "png" else {"Creator": None, "Date": None, "Format": None,
-                                                    "Type": None}
+    meta = {"png": {"Software": None}, "svg": {"Creator": None, "Date": None, "Format": None, "Type": None},
+            "pdf": {"Creator": None, "Producer": None, "CreationDate": None}}[fmt]
     fig.savefig(buf, format=fmt, dpi=dpi or STYLE["dpi"], metadata=meta, facecolor=fig.get_facecolor())
     return buf.getvalue()
 
@@ -290,7 +315,7 @@ def plot_recording(analysis, *, ax=None):
         y = -top * 1.08 - 0.13 * top * (i + 0.5)
         ax.plot([m.fit_start_s, m.fit_end_s], [y, y], color=st["color"], linestyle=st["linestyle"],
                 linewidth=2.2, marker=st["marker"], markersize=4.5, markevery=[0, 1],
-                label=f"mode {m.index} window ({_fmt_sig(m.f_d_hz)} Hz)", gid=f"window-mode-{m.index}")
+                label=f"mode {m.index} window ({_fmt_sig(m.f_d_hz, 5)} Hz)", gid=f"window-mode-{m.index}")
 
     trans = ax.get_xaxis_transform()  # x in data, y in axes fraction
     for k, h in enumerate(getattr(analysis, "hits", ()) or ()):
@@ -376,8 +401,10 @@ def plot_spectrum(analysis, *, ax=None):
 
     Notes
     -----
-    Each mode gets one marker at its damped frequency (its own colour and shape) and a label
-    ``N: f_d Hz, Q``. The frequency axis ends a little above the highest mode, at most at Nyquist.
+    Each mode gets one marker at its damped frequency (its own colour and shape) and a legend
+    entry ``N: f_d Hz, Q``; its number sits in one row along the top, spread so that labels of
+    close modes do not overlap (:func:`spread_labels`), with a thin line down to its marker.
+    The frequency axis ends a little above the highest mode, at most at Nyquist.
     """
     x, fs = _samples(analysis)
     ax = _axes_or_new(ax)
@@ -394,7 +421,10 @@ def plot_spectrum(analysis, *, ax=None):
     fd, ld = _thin(f[keep], level[keep], max_points=4000)
     ax.plot(fd, ld, color=STYLE["signal_color"], linewidth=0.7, label="spectrum of the decay")
     floor = max(float(np.percentile(level[keep], 5)) - 10.0, -160.0)
-    ax.set_ylim(floor, 12.0 + 4.0 * min(len(modes), 3))
+    # headroom above the largest peak (0 dB) for a row of labels: 0 dB sits at 80 % of the height
+    ax.set_ylim(floor, max(12.0, 0.25 * -floor))
+    # one row of labels along the top, spread so that no two overlap, each tied to its marker
+    label_x = spread_labels(np.array([m.f_d_hz / f_max for m in modes]), 0.035) if modes else []
     for i, m in enumerate(modes):
         st = _mode_style(i)
         j = int(np.argmin(np.abs(f - m.f_d_hz)))
@@ -406,9 +436,11 @@ def plot_spectrum(analysis, *, ax=None):
                 markerfacecolor=st["color"], markeredgecolor=_OI_BLACK, markeredgewidth=0.6,
                 label=f"mode {m.index}: {_fmt_sig(m.f_d_hz, 5)} Hz, Q {_fmt_sig(q, 3)}",
                 gid=f"marker-mode-{m.index}")
-        ax.annotate(f"{m.index}", xy=(m.f_d_hz, y), xytext=(0, 7 + 9 * (i % 2)), textcoords="offset points",
-                    ha="center", va="bottom", fontsize=STYLE["font_size"], fontweight="bold",
-                    color=_OI_BLACK)
+        ax.annotate(f"{m.index}", xy=(m.f_d_hz, y), xycoords="data", xytext=(float(label_x[i]), 0.955),
+                    textcoords="axes fraction", ha="center", va="top", fontsize=STYLE["font_size"],
+                    fontweight="bold", color=_OI_BLACK, gid=f"label-mode-{m.index}",
+                    arrowprops={"arrowstyle": "-", "color": STYLE["muted_color"], "linewidth": 0.6,
+                                "shrinkA": 1.0, "shrinkB": 4.0})
     ax.set_xlim(0.0, f_max)
     ax.set_xlabel("frequency, Hz")
     ax.set_ylabel("level, dB re largest peak")
@@ -506,6 +538,9 @@ def plot_decay(mode, *, ax=None):
     -----
     Levels are in dB re the fitted envelope at the start of the fit window (0 dB there), so the
     slope reads directly in dB/s. The fitted line is solid inside the window and dotted outside.
+    When several modes were fitted jointly in the band (close modes), the band envelope beats:
+    it is drawn against the sum of the fitted modes (``trace.model_envelope``), and the straight
+    line is this mode's own decay.
     """
     tr = _trace(mode)
     ax = _axes_or_new(ax)
@@ -514,17 +549,24 @@ def plot_decay(mode, *, ax=None):
     floor_lin = max(float(tr.noise_floor) * 1e-2, 1e-300) if tr.noise_floor and tr.noise_floor > 0 else 1e-12
     env_db = _db(tr.envelope, floor_lin) - ref
     td, ed = _thin(t, env_db)
+    model = _model_db(tr)
     ax.axvspan(tr.fit_start_s, tr.fit_end_s, facecolor=STYLE["window_color"], alpha=0.18, edgecolor=_OI_BLUE,
                linewidth=0.8, hatch="//", label="fit window")
     ax.plot(td, ed, color=STYLE["signal_color"], linewidth=0.8, label="envelope", zorder=3)
     inside = np.array([tr.fit_start_s, tr.fit_end_s])
     ax.plot(inside, _fit_db(tr, inside) - ref, color=STYLE["fit_color"], linewidth=2.4, linestyle="-", zorder=2,
             alpha=0.85,
-            label=f"fit: β = {_fmt_sig(tr.fit_beta_per_s)} 1/s\n({_fmt_sig(DB_PER_NEPER * tr.fit_beta_per_s)} dB/s)")
+            label=(f"{'this mode alone' if model is not None else 'fit'}: β = {_fmt_sig(tr.fit_beta_per_s)} 1/s"
+                   f"\n({_fmt_sig(DB_PER_NEPER * tr.fit_beta_per_s)} dB/s)"))
     if t.size:
         span = np.array([t[0], t[-1]])
         ax.plot(span, _fit_db(tr, span) - ref, color=STYLE["fit_color"], linewidth=0.8, linestyle=(0, (1, 2)),
                 label="fit, extended")
+    if model is not None:
+        ok = np.isfinite(model) & (t <= tr.fit_end_s)
+        tm, md = _thin(t[ok], model[ok] - ref)
+        ax.plot(tm, md, color=_OI_GREEN, linewidth=1.3, linestyle=(0, (4, 1.5)), zorder=4,
+                label=f"sum of the {tr.n_model_modes} modes\nfitted in this band")
     have_noise = tr.noise_floor is not None and tr.noise_floor > 0
     if have_noise:
         nf = 20.0 * math.log10(tr.noise_floor) - ref
@@ -541,23 +583,37 @@ def plot_decay(mode, *, ax=None):
     return ax
 
 
+def _model_db(tr) -> np.ndarray | None:
+    """The joint model of a multi-mode band in dB re 1 unit (NaN where undefined), or None."""
+    model = getattr(tr, "model_envelope", None)
+    if model is None or getattr(tr, "n_model_modes", 1) < 2:
+        return None
+    m = np.asarray(model, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(m > 0, 20.0 * np.log10(np.where(m > 0, m, 1.0)), np.nan)
+
+
 def _plot_residuals(mode, ax) -> None:
     tr = _trace(mode)
     t = np.asarray(tr.t_s, dtype=float)
     sel = (t >= tr.fit_start_s) & (t <= tr.fit_end_s)
     env = np.asarray(tr.envelope, dtype=float)[sel]
     ts = t[sel]
-    ok = env > 0
-    res = 20.0 * np.log10(env[ok]) - _fit_db(tr, ts[ok])
-    td, rd = _thin(ts[ok], res)
-    ax.axhline(0.0, color=STYLE["fit_color"], linewidth=1.0)
+    model = _model_db(tr)
+    ref = _fit_db(tr, ts) if model is None else model[sel]  # against the sum of the jointly fitted modes
+    ok = (env > 0) & np.isfinite(ref)
+    ts = ts[ok]
+    res = 20.0 * np.log10(env[ok]) - ref[ok]
+    td, rd = _thin(ts, res)
+    ax.axhline(0.0, color=STYLE["fit_color"] if model is None else _OI_GREEN, linewidth=1.0)
     ax.plot(td, rd, color=STYLE["signal_color"], linewidth=0.7, marker=".", markersize=2, label="residual")
     lim = max(float(np.max(np.abs(res))) if res.size else 1.0, 0.5) * 1.15
     ax.set_ylim(-lim, lim)
     ax.set_xlim(*_decay_xlim(tr))
     ax.set_xlabel("time, s")
     ax.set_ylabel("residual, dB")
-    _style_axes(ax, "Fit residual inside the window")
+    _style_axes(ax, "Fit residual inside the window" if model is None else
+                f"Residual inside the window, against the sum of the {tr.n_model_modes} fitted modes")
 
 
 def _plot_peaks(mode, ax) -> None:
@@ -578,7 +634,9 @@ def _plot_peaks(mode, ax) -> None:
                 label=f"regression:\nδ = {_fmt_sig(-slope, 4)} Np/cycle")
     ax.set_xlabel("cycles after the first peak")
     ax.set_ylabel("ln(peak), Np re 1 unit")
-    _style_axes(ax, "Log decrement: peak heights")
+    n_joint = getattr(tr, "n_model_modes", 1) if getattr(tr, "model_envelope", None) is not None else 1
+    _style_axes(ax, "Log decrement: peak heights" + (f" (the band holds {n_joint} modes: they beat)"
+                                                      if n_joint > 1 else ""))
     _legend(ax)
 
 

@@ -37,6 +37,8 @@ class Recording:
         as a fraction of the mean step.
     n_channels : int
         How many channels (audio) or data columns (text) the source holds; 1 for an array.
+    notes : tuple of (code, message)
+        Warnings the reader found about the file (e.g. ``truncated``); the analysis reports them.
     unit : str or None
         Unit of the samples as the file states it (``"m/s^2"``, ``"V"``); ``None`` when unknown.
     """
@@ -49,6 +51,7 @@ class Recording:
     full_scale: float | None = None
     timing_jitter: float | None = None
     n_channels: int = 1
+    notes: tuple = ()
     unit: str | None = None
 
     def __post_init__(self) -> None:

@@ -117,6 +117,11 @@ class ModeTrace:
         The fitted envelope is ``fit_amplitude * exp(-fit_beta_per_s * (t - fit_t0_s))``.
     peaks_t_s, peaks_value : (m,) ndarray of float or None
         Peak times and heights used by the log-decrement regression.
+    model_envelope : (n,) ndarray of float or None
+        Magnitude of the sum of every mode fitted jointly in this band, at ``t_s`` (NaN before
+        the fit window), recording units; None for single-mode fits.
+    n_model_modes : int
+        How many modes that sum holds (1 when ``model_envelope`` is None).
     """
 
     t_s: np.ndarray
@@ -129,6 +134,8 @@ class ModeTrace:
     fit_t0_s: float
     peaks_t_s: np.ndarray | None = None
     peaks_value: np.ndarray | None = None
+    model_envelope: np.ndarray | None = None
+    n_model_modes: int = 1
 
 
 _MODE_KEYS = (
@@ -283,12 +290,14 @@ class Rejected:
 
 @dataclass(frozen=True, slots=True, eq=False)
 class Hit:
-    """One excitation (tap, pluck, release) found in a recording and the modes of its decay.
+    """One excitation (tap, pluck, release, drive switch-off) found in a recording and the
+    modes of its decay.
 
     Attributes
     ----------
     start_s : float
-        Onset time, seconds from the start of the recording.
+        Start of the free decay, seconds from the start of the recording: the onset of a tap,
+        or where a steady drive stopped.
     peak_s : float
         Time of the envelope maximum after the onset, s.
     peak_value : float
@@ -305,6 +314,11 @@ class Hit:
     rejected : tuple of Rejected
         Candidates of this hit's decay not reported as modes (serialised once, under
         ``Analysis.rejected``).
+    start_kind : str
+        How the start of the free decay was found: ``"impulse"`` (a sharp rise, then the decay),
+        ``"switch-off"`` (a steady forced oscillation stopped: the level left its plateau and
+        fell) or ``"release"`` (a held static deflection let go). The warning
+        ``start_uncertain`` says when the start is in doubt.
     """
 
     start_s: float
@@ -316,10 +330,12 @@ class Hit:
     warnings: tuple[Notice, ...] = ()
     modes: tuple[Mode, ...] = ()
     rejected: tuple[Rejected, ...] = ()
+    start_kind: str = "impulse"
 
     def to_dict(self) -> dict:
         return {
             "start_s": self.start_s,
+            "start_kind": self.start_kind,
             "peak_s": self.peak_s,
             "peak_value": self.peak_value,
             "snr_db": self.snr_db,
@@ -339,6 +355,10 @@ class Analysis:
     is not reported, with the reason. ``recording`` keeps the samples for plots (not serialised).
     ``channel`` is the channel's name or number as the reader gives it, ``unit`` the unit of the
     samples as the file states it (TDMS, UFF 58, MATLAB, HDF5), ``None`` when unknown.
+    ``noise_source`` says where the noise spectrum came from: ``"pre_trigger"`` (before the first
+    hit), ``"tail"`` (after the decays died away) or ``"record_end"`` (the record's last 10 %,
+    which still holds the decay: an upper bound, with the warning ``noise_uncertain``); ``None``
+    for a failed analysis.
     """
 
     path: str | None
@@ -352,6 +372,7 @@ class Analysis:
     error: Notice | None = None
     settings: dict = field(default_factory=dict)
     noise_floor: float | None = None
+    noise_source: str | None = None
     recording: Any = None
     rejected: tuple[Rejected, ...] = ()
     unit: str | None = None
@@ -390,6 +411,7 @@ class Analysis:
             "n_samples": self.n_samples,
             "duration_s": self.duration_s,
             "noise_floor": self.noise_floor,
+            "noise_source": self.noise_source,
             "settings": dict(self.settings),
             "hits": [h.to_dict() for h in self.hits],
             "modes": [m.to_dict() for m in self.modes],

@@ -11,7 +11,10 @@ Safety for batches on a line:
 * write-ahead logging and a busy timeout, so two processes (two stations) can write at once;
 * a check of a file already stored with the same file SHA-256 and limits SHA-256 is skipped unless
   forced (:meth:`ResultStore.record_check`), so a killed batch can simply be run again;
-* only ``?`` parameters, never SQL built from names or paths.
+* only ``?`` parameters, never SQL built from names or paths;
+* fail closed: a corrupt, read-only, foreign or newer database, a dropped table or a row whose
+  JSON does not parse is a :class:`~ringdown.errors.StoreError` naming the file, never a
+  traceback and never a silently partial answer.
 
 The schema version is ``PRAGMA user_version``; :data:`MIGRATIONS` bring an older database up to date.
 """
@@ -103,13 +106,16 @@ def _utc_now() -> str:
 
 
 def file_sha256(path: str | os.PathLike) -> str | None:
-    """SHA-256 (hex) of a file's bytes, or ``None`` when it cannot be read."""
+    """SHA-256 (hex) of a regular file's bytes, or ``None`` when it cannot be read or is not a
+    regular file (a FIFO or a device is never read: it could block or never end)."""
+    from .io import open_regular
+
     h = hashlib.sha256()
     try:
-        with open(path, "rb") as fh:
+        with open_regular(os.fspath(path)) as fh:
             for chunk in iter(lambda: fh.read(1 << 20), b""):
                 h.update(chunk)
-    except OSError:
+    except Exception:  # InputError (not regular, missing) or OSError: no hash
         return None
     return h.hexdigest()
 
@@ -192,6 +198,8 @@ class StoredResult:
     error: str | None
     settings: dict
     modes: tuple[dict, ...] = field(default_factory=tuple)
+    #: The full stored record (``CheckResult.to_dict()`` or ``Analysis.to_dict()`` without hits).
+    result: dict = field(default_factory=dict)
 
     def mode_for(self, ref_index: int) -> dict | None:
         """The stored mode matched to reference mode ``ref_index`` (checks) or with that index."""
@@ -227,6 +235,25 @@ class StoredResult:
         }
 
 
+def _read_only(p: Path) -> bool:
+    """Whether the database file or its folder cannot be written (modes or a read-only mount)."""
+    folder = p.parent if str(p.parent) else Path(".")
+    return (p.exists() and not os.access(p, os.W_OK)) or not os.access(folder, os.W_OK)
+
+
+def _why(exc: BaseException) -> str:
+    """A one-line reason with the fix for an sqlite3 error."""
+    text = " ".join(str(exc).split()) or type(exc).__name__
+    low = text.lower()
+    if "readonly" in low or "read-only" in low:
+        return f"{text}; the file or its folder is read-only: make them writable or use another --db"
+    if "malformed" in low or "not a database" in low or "corrupt" in low:
+        return f"{text}; the file is damaged or not a database: restore a backup or use another --db"
+    if "no such table" in low or "no such column" in low:
+        return f"{text}; a table is missing: the file is damaged or not ringdown's; use another --db"
+    return f"{text}; check the path, disk space and permissions or use another --db"
+
+
 def _json(obj: Any) -> str:
     return json.dumps(obj, allow_nan=False, default=str, sort_keys=True)
 
@@ -253,17 +280,75 @@ class ResultStore:
     ...     db.record_check(result, part_id="A-17", station="EOL-2")
     """
 
-    def __init__(self, path: str | os.PathLike, *, timeout_s: float = 30.0) -> None:
+    def __init__(self, path: str | os.PathLike, *, timeout_s: float = 30.0, read_only: bool = False) -> None:
         self.path = str(path)
+        p = Path(self.path)
+        if p.exists() and not p.is_file():
+            raise StoreError(f"results database '{self.path}' is not a regular file; use another --db")
         try:
-            self._conn = sqlite3.connect(self.path, timeout=timeout_s, isolation_level=None)
+            if read_only:
+                from urllib.parse import quote
+
+                if not p.is_file():
+                    raise StoreError(f"no results database at '{self.path}'; check the path or give --db")
+                uri = "file:" + quote(str(p.resolve())) + "?mode=ro"
+                self._conn = sqlite3.connect(uri, uri=True, timeout=timeout_s, isolation_level=None)
+                try:
+                    self._conn.execute("PRAGMA user_version").fetchone()
+                except sqlite3.OperationalError:
+                    # a WAL database on read-only media cannot make its -shm file: read it as immutable
+                    self._conn.close()
+                    self._conn = sqlite3.connect(uri + "&immutable=1", uri=True, timeout=timeout_s,
+                                                 isolation_level=None)
+            else:
+                self._conn = sqlite3.connect(self.path, timeout=timeout_s, isolation_level=None)
+        except sqlite3.Error as exc:
+            raise StoreError(f"cannot use results database '{self.path}': {exc}; check the path or use another --db") from None
+        try:
             self._conn.row_factory = sqlite3.Row
             self._conn.execute(f"PRAGMA busy_timeout = {int(timeout_s * 1000)}")
-            self._conn.execute("PRAGMA journal_mode = WAL")
-            self._conn.execute("PRAGMA foreign_keys = ON")
-            self._migrate()
-        except sqlite3.DatabaseError as exc:
-            raise StoreError(f"cannot use results database '{self.path}': {exc}; check the path or use another --db") from exc
+            if read_only:
+                self._check_version(self.schema_version)
+            else:
+                self._conn.execute("PRAGMA journal_mode = WAL")
+                self._conn.execute("PRAGMA foreign_keys = ON")
+                self._migrate()
+            self._check_schema()
+        except StoreError:
+            self._conn.close()
+            raise
+        except sqlite3.Error as exc:
+            self._conn.close()
+            why = _why(exc)
+            if "read-only" not in why and not read_only and _read_only(p):
+                why = f"{' '.join(str(exc).split())}; the file or its folder is read-only: make them writable or use another --db"
+            raise StoreError(f"cannot use results database '{self.path}': {why}") from None
+
+    def _check_version(self, version: int) -> None:
+        if version > SCHEMA_VERSION:
+            raise StoreError(f"results database '{self.path}' has schema version {version}, newer than this "
+                             f"ringdown writes ({SCHEMA_VERSION}); upgrade ringdown")
+        if version < 0:
+            raise StoreError(f"'{self.path}' has schema version {version}: not a ringdown results database; "
+                             "use another --db")
+        if version == 0:
+            tables = self._conn.execute("SELECT count(*) FROM sqlite_master WHERE type = 'table'").fetchone()[0]
+            if tables:
+                raise StoreError(f"'{self.path}' is an SQLite database but not a ringdown results database; "
+                                 "use another --db")
+
+    def _check_schema(self) -> None:
+        """Every table and column this module uses must be there (a dropped or altered table fails here)."""
+        need = {"results": {"id", "kind", "part_id", "path", "sha256", "tested_utc", "settings_json",
+                            "limits_sha256", "verdict", "reasons_json", "notes_json", "error", "result_json"},
+                "modes": {"result_id", "mode_index", "ref_index", "mode_json", *_MODE_COLUMNS},
+                "limits_files": {"sha256", "limits_json"}}
+        for table, cols in need.items():
+            have = {r[1] for r in self._conn.execute(f"PRAGMA table_info({table})")}  # names are constants
+            if not cols <= have:
+                what = "is missing" if not have else f"lacks column(s) {sorted(cols - have)}"
+                raise StoreError(f"results database '{self.path}': table {table} {what}; it is damaged or not "
+                                 "ringdown's; restore a backup or use another --db")
 
     # -- housekeeping -----------------------------------------------------------------------
     def _migrate(self) -> None:
@@ -271,14 +356,7 @@ class ResultStore:
         with conn:
             conn.execute("BEGIN IMMEDIATE")
             version = conn.execute("PRAGMA user_version").fetchone()[0]
-            if version > SCHEMA_VERSION:
-                raise StoreError(f"results database '{self.path}' has schema version {version}, newer than this "
-                                 f"ringdown writes ({SCHEMA_VERSION}); upgrade ringdown")
-            if version == 0:
-                tables = conn.execute("SELECT count(*) FROM sqlite_master WHERE type = 'table'").fetchone()[0]
-                if tables:
-                    raise StoreError(f"'{self.path}' is an SQLite database but not a ringdown results database; "
-                                     "use another --db")
+            self._check_version(version)
             for v in range(version, SCHEMA_VERSION):
                 for stmt in MIGRATIONS[v].split(";"):
                     if stmt.strip():
@@ -287,6 +365,13 @@ class ResultStore:
 
     def close(self) -> None:
         self._conn.close()
+
+    def _read(self, fn, what: str = "read"):
+        """Run a read; any sqlite3 or JSON error becomes one StoreError naming the file."""
+        try:
+            return fn()
+        except sqlite3.Error as exc:
+            raise StoreError(f"cannot {what} results database '{self.path}': {_why(exc)}") from None
 
     def __enter__(self) -> "ResultStore":
         return self
@@ -310,8 +395,20 @@ class ResultStore:
 
     def find_check(self, sha256: str | None, limits_sha256: str | None) -> StoredResult | None:
         """The latest stored check of a file (by its SHA-256) against limits (by theirs), if any."""
-        row = self._existing(sha256, limits_sha256)
+        row = self._read(lambda: self._existing(sha256, limits_sha256))
         return None if row is None else self.get(int(row["id"]))
+
+    def _existing_analysis(self, analysis: Analysis) -> sqlite3.Row | None:
+        if analysis.sha256 is not None:
+            return self._conn.execute(
+                "SELECT id FROM results WHERE kind = 'analysis' AND sha256 = ? AND settings_json = ? LIMIT 1",
+                (analysis.sha256, _json(dict(analysis.settings))),
+            ).fetchone()
+        return self._conn.execute(
+            "SELECT id FROM results WHERE kind = 'analysis' AND sha256 IS NULL AND path IS ? AND settings_json = ? "
+            "AND error IS ? LIMIT 1",
+            (analysis.path, _json(dict(analysis.settings)), None if analysis.error is None else analysis.error.message),
+        ).fetchone()
 
     def _insert(self, *, kind, part_id, path, sha256, station, operator, settings, limits_sha256, verdict,
                 reasons, notes, mahalanobis, uniform_shift, error, result_json, modes, matched) -> int:
@@ -337,12 +434,15 @@ class ResultStore:
         """Keep the limits a check used (by SHA-256), so run charts can draw them later."""
         if limits is None or limits.sha256 is None:
             return
-        with self._conn:
-            self._conn.execute("BEGIN IMMEDIATE")
-            self._conn.execute(
-                "INSERT OR IGNORE INTO limits_files (sha256, source, first_used_utc, limits_json) VALUES (?, ?, ?, ?)",
-                (limits.sha256, limits.source, _utc_now(), _json(limits.to_dict())),
-            )
+        try:
+            with self._conn:
+                self._conn.execute("BEGIN IMMEDIATE")
+                self._conn.execute(
+                    "INSERT OR IGNORE INTO limits_files (sha256, source, first_used_utc, limits_json) VALUES (?, ?, ?, ?)",
+                    (limits.sha256, limits.source, _utc_now(), _json(limits.to_dict())),
+                )
+        except sqlite3.Error as exc:
+            raise StoreError(f"cannot write to results database '{self.path}': {_why(exc)}") from None
 
     def record_check(
         self,
@@ -391,17 +491,24 @@ class ResultStore:
                     matched=result.matched,
                 )
         except sqlite3.Error as exc:
-            raise StoreError(f"cannot write to results database '{self.path}': {exc}; check disk space and permissions") from exc
+            raise StoreError(f"cannot write to results database '{self.path}': {_why(exc)}") from None
 
     def record_analysis(self, analysis: Analysis, *, part_id: str | None = None, station: str | None = None,
-                        operator: str | None = None) -> int:
-        """Store one analysis (no verdict) in its own transaction; return the row id."""
+                        operator: str | None = None, skip_stored: bool = False) -> int | None:
+        """Store one analysis (no verdict) in its own transaction; return the row id.
+
+        With ``skip_stored`` an analysis of the same file (SHA-256; for a failed one, the path and
+        error) with the same settings already stored is not stored again, and ``None`` is returned:
+        a rerun of an interrupted batch adds no duplicate rows.
+        """
         pid = part_id if part_id is not None else part_id_from_path(analysis.path or "array")
         d = analysis.to_dict()
         d.pop("hits", None)
         try:
             with self._conn:
                 self._conn.execute("BEGIN IMMEDIATE")
+                if skip_stored and self._existing_analysis(analysis) is not None:
+                    return None
                 return self._insert(
                     kind="analysis", part_id=str(pid), path=analysis.path, sha256=analysis.sha256, station=station,
                     operator=operator, settings=dict(analysis.settings), limits_sha256=None, verdict=None,
@@ -410,7 +517,7 @@ class ResultStore:
                     result_json=_json(d), modes=analysis.modes, matched=(),
                 )
         except sqlite3.Error as exc:
-            raise StoreError(f"cannot write to results database '{self.path}': {exc}; check disk space and permissions") from exc
+            raise StoreError(f"cannot write to results database '{self.path}': {_why(exc)}") from None
 
     # -- reading ----------------------------------------------------------------------------
     def _row_to_result(self, row: sqlite3.Row) -> StoredResult:
@@ -419,18 +526,38 @@ class ResultStore:
             d = {c: m[c] for c in _MODE_COLUMNS}
             d.update(mode_index=m["mode_index"], ref_index=m["ref_index"])
             modes.append(d)
+
+        def parsed(col: str, kind: type):
+            try:
+                v = json.loads(row[col])
+            except (TypeError, ValueError):
+                v = None
+            if not isinstance(v, kind) or (kind is list and not all(isinstance(x, dict) for x in v)):
+                raise StoreError(f"results database '{self.path}': row {row['id']} holds invalid {col}; the file "
+                                 "is damaged or was edited; restore a backup or use another --db")
+            return v
+
         return StoredResult(
             id=int(row["id"]), kind=row["kind"], part_id=row["part_id"], path=row["path"], sha256=row["sha256"],
             tested_utc=row["tested_utc"], station=row["station"], operator=row["operator"],
             tool_version=row["tool_version"], limits_sha256=row["limits_sha256"], verdict=row["verdict"],
-            reasons=tuple(json.loads(row["reasons_json"])), notes=tuple(json.loads(row["notes_json"])),
+            reasons=tuple(parsed("reasons_json", list)), notes=tuple(parsed("notes_json", list)),
             mahalanobis=row["mahalanobis"], uniform_shift=row["uniform_shift"], error=row["error"],
-            settings=json.loads(row["settings_json"]), modes=tuple(modes),
+            settings=parsed("settings_json", dict), modes=tuple(modes), result=parsed("result_json", dict),
         )
 
+    def mode_records(self, result_id: int) -> list[dict]:
+        """Every stored field of a result's modes (``Mode.to_dict()`` as stored), with ``ref_index``."""
+        rows = self._conn.execute("SELECT mode_json, ref_index FROM modes WHERE result_id = ? ORDER BY mode_index",
+                                  (int(result_id),))
+        return [{**json.loads(r["mode_json"]), "ref_index": r["ref_index"]} for r in rows]
+
     def get(self, result_id: int) -> StoredResult | None:
-        row = self._conn.execute("SELECT * FROM results WHERE id = ?", (int(result_id),)).fetchone()
-        return None if row is None else self._row_to_result(row)
+        def run():
+            row = self._conn.execute("SELECT * FROM results WHERE id = ?", (int(result_id),)).fetchone()
+            return None if row is None else self._row_to_result(row)
+
+        return self._read(run)
 
     def query(
         self,
@@ -478,19 +605,27 @@ class ResultStore:
             where.append("kind = ?")
             args.append(kind)
         sql = "SELECT * FROM results" + (" WHERE " + " AND ".join(where) if where else "") + " ORDER BY tested_utc, id"
-        try:
-            rows = self._conn.execute(sql, args).fetchall()
-            return [self._row_to_result(r) for r in rows]
-        except sqlite3.Error as exc:
-            raise StoreError(f"cannot read results database '{self.path}': {exc}") from exc
+        return self._read(lambda: [self._row_to_result(r) for r in self._conn.execute(sql, args).fetchall()])
 
     def limits_documents(self) -> dict[str, dict]:
         """Every limits file used, as ``{sha256: Limits.to_dict()}``."""
-        return {r["sha256"]: json.loads(r["limits_json"])
-                for r in self._conn.execute("SELECT sha256, limits_json FROM limits_files")}
+        def run():
+            out = {}
+            for r in self._conn.execute("SELECT sha256, limits_json FROM limits_files"):
+                try:
+                    doc = json.loads(r["limits_json"])
+                except (TypeError, ValueError):
+                    doc = None
+                if not isinstance(doc, dict):
+                    raise StoreError(f"results database '{self.path}': the stored limits {r['sha256']} are invalid "
+                                     "JSON; restore a backup or use another --db")
+                out[r["sha256"]] = doc
+            return out
+
+        return self._read(run)
 
     def count(self) -> int:
-        return int(self._conn.execute("SELECT count(*) FROM results").fetchone()[0])
+        return int(self._read(lambda: self._conn.execute("SELECT count(*) FROM results").fetchone()[0]))
 
 
 def store_analysis(db: str | os.PathLike | ResultStore, analysis: Analysis, *, part_id: str | None = None,

@@ -88,6 +88,8 @@ def test_exit_codes(line, tmp_path):
     r = run([*lim, line["good"][6], line["crack"], line["broken"]], tmp_path / "c.sqlite")
     assert r.exit_code == 2  # errors win over failures
     assert "ERROR  SN-0200_broken" in r.stdout
+    # an ERROR is a verdict: listed once, on stdout with the others, not repeated on stderr
+    assert "SN-0200_broken" not in r.stderr
 
 
 def test_json_csv_station_and_part_id(line, tmp_path):

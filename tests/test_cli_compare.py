@@ -132,7 +132,7 @@ def test_bad_option_value(files):
 def test_stray_paths_are_refused_with_a_hint(files):
     _, b, a = files
     r = CliRunner().invoke(_app(), ["compare", "--before", b[0], b[1], "--after", a[0]])
-    assert r.exit_code == 2
+    assert r.exit_code == 64  # a usage error
     assert "give each file its own --before/--after" in r.stderr
 
 

@@ -353,7 +353,7 @@ def test_plot_and_html_escape():
     from matplotlib.figure import Figure
 
     from ringdown.compare_plot import plot_comparison
-    from ringdown.compare_report import comparison_html, comparison_page
+    from ringdown.report import comparison_html, render_comparison_report
 
     rng = np.random.default_rng(14)
     b = make_analysis(repeats([300.0, 800.0], [0.002, 0.003], 3, rng), path="bare <1>&.wav")
@@ -366,8 +366,10 @@ def test_plot_and_html_escape():
     assert plot_comparison(c, ax=ax2) is ax2
     frag = comparison_html(c)
     assert "bare &lt;1&gt;&amp;.wav" in frag and "bare <1>" not in frag
-    page = comparison_page(c, title="<script>")
+    page = render_comparison_report(c, title="<script>")
     assert page.startswith("<!DOCTYPE html>") and "<script>" not in page
+    # the verdict column is coloured and worded (class and words, not colour alone)
+    assert 'class="verdict verdict-increased"' in frag or 'class="verdict verdict-no-significant-change"' in frag
 
 
 def test_json_document_shape_is_stable():

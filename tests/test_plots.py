@@ -344,8 +344,23 @@ def test_figure_bytes_formats():
     fig = plots.plot_mode(make_analysis().modes[0])
     svg = plots.figure_bytes(fig, fmt="svg")
     assert svg.lstrip().startswith(b"<?xml") and b"<svg" in svg
-    with pytest.raises(ParameterError, match="'png' or 'svg'"):
+    pdf = plots.figure_bytes(fig, fmt="pdf")
+    assert pdf.startswith(b"%PDF")
+    with pytest.raises(ParameterError, match="one of png, svg, pdf; got 'jpg'"):
         plots.figure_bytes(fig, fmt="jpg")
+
+
+def test_spread_labels_keeps_close_labels_apart():
+    # three modes within 1 % of the axis and one far away: labels end >= the gap apart, in order,
+    # inside [0, 1], and a label with room stays where its mode is
+    x = np.array([0.500, 0.505, 0.502, 0.9])
+    p = plots.spread_labels(x, 0.035)
+    order = np.argsort(x)
+    assert np.all(np.diff(p[order]) >= 0.035 - 1e-12)
+    assert p[3] == pytest.approx(0.9)
+    assert np.all((p >= 0) & (p <= 1))
+    edge = plots.spread_labels(np.array([0.99, 0.995, 1.0]), 0.035)
+    assert edge.max() <= 1.0 - 0.035 / 2 + 1e-12 and np.all(np.diff(edge) >= 0.035 - 1e-12)
 
 
 def test_import_does_not_load_matplotlib():
@@ -409,3 +424,36 @@ def test_plots_of_a_real_analysis(real_analysis):
         (t0, t1), (y0, y1) = fit.get_xdata(), fit.get_ydata()
         # The drawn line has the slope of the trace's fitted decay rate, 20 log10(e) beta dB/s.
         assert (y1 - y0) / (t1 - t0) == pytest.approx(-DB_PER_NEPER * m.trace.fit_beta_per_s, rel=1e-9)
+
+
+def test_close_modes_are_drawn_against_the_sum_of_the_fitted_modes():
+    # Invented pair 3 Hz apart (1000 Hz at 4 1/s, 1003 Hz at 6 1/s): the band envelope beats.
+    # The exact envelope of the simulated pair is |a1 e^{-b1 t} e^{i w1 t} + a2 e^{-b2 t} e^{i(w2 t + 1)}|
+    # (analytic signal of a sum of damped sines, FIELD.md section 1); the drawn sum must follow it.
+    import ringdown
+
+    fs = 16000.0
+    rng = np.random.default_rng(8)
+    t = np.arange(int(3.0 * fs)) / fs
+    x = 0.5 * np.exp(-4 * t) * np.sin(2 * np.pi * 1000 * t) + 0.4 * np.exp(-6 * t) * np.sin(2 * np.pi * 1003 * t + 1)
+    x = np.concatenate([np.zeros(3200), x]) + 1e-4 * rng.standard_normal(t.size + 3200)
+    a = ringdown.analyze(x, fs)
+    m1 = min(a.modes, key=lambda m: abs(m.f_d_hz - 1000.0))
+    assert m1.trace.n_model_modes == 2 and m1.trace.model_envelope is not None
+    fig = plots.plot_mode(m1)
+    decay_ax, res_ax = fig.get_axes()[:2]
+    (sum_line,) = [ln for ln in decay_ax.get_lines() if ln.get_label().startswith("sum of the 2 modes")]
+    assert any(ln.get_label().startswith("this mode alone") for ln in decay_ax.get_lines())
+    # the drawn sum against the exact envelope, over the first second of the window (beats included)
+    ts, db = sum_line.get_xdata(), sum_line.get_ydata()
+    tr = m1.trace
+    tau = ts - 3200 / fs
+    # sin(w t + p) has the analytic signal -i e^{i(w t + p)}; the common -i drops out of the magnitude
+    exact = np.abs(0.5 * np.exp((-4 + 2j * np.pi * 1000) * tau) + 0.4 * np.exp((-6 + 2j * np.pi * 1003) * tau + 1j))
+    sel = (ts > tr.fit_start_s) & (ts < tr.fit_start_s + 1.0)
+    # the drawn curve is in dB re the fit at the window start, with the band's gain: compare shapes
+    shape = db[sel] - 20 * np.log10(exact[sel])
+    assert np.ptp(shape) < 1.0, np.ptp(shape)  # within 1 dB across beats of ~12 dB depth
+    # residual against the sum stays small (it was about +-10 dB against one exponential)
+    res = res_ax.get_lines()[-1].get_ydata()
+    assert np.max(np.abs(res[: len(res) // 2])) < 1.0

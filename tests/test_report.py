@@ -21,7 +21,7 @@ import pytest
 import ringdown
 from ringdown.cli import render
 from ringdown.errors import InputError, ParameterError
-from ringdown.report import Section, format_pm, html_table, render_report, write_report
+from ringdown.report import Section, html_table, render_report, write_report
 from ringdown.results import Analysis, Notice
 
 from test_plots import THREE_MODES, make_analysis  # noqa: E402  (tests/ is on sys.path under pytest)
@@ -79,30 +79,31 @@ def _parse(text: str) -> _Doc:
 
 def _modes_table(doc: _Doc) -> list[list[str]]:
     tables = [t for t in doc.tables if t and t[0][:2] == ["#", "f_d, Hz"]]
+    fits = [t for t in doc.tables if t and t[0][:2] == ["#", "f_r, Hz"]]
+    assert len(fits) == len(tables), "each modes table has its fit table"
+    # join each pair row by row (the '#' column is repeated)
+    tables = [[a + b[1:] for a, b in zip(t, f)] for t, f in zip(tables, fits)]
     assert tables, "no modes table"
     return tables
 
 
-def _read_pm(cell: str) -> tuple[float, float, int]:
-    """Parse 'v ± u' or '(v ± u)e-04' into (value, u, decimals after scaling)."""
-    cell = cell.replace("\u00a0", " ")
-    m = re.fullmatch(r"\(?(-?[\d.]+) ± ([\d.]+)\)?(?:e([+-]\d+))?", cell)
+def _read_pm(cell: str) -> tuple[float, float, float]:
+    """Parse the concise form 'v(u)' or 'v(u)eN' into (value, u, place of the last digit)."""
+    m = re.fullmatch(r"(-?\d+(?:\.(\d+))?)\((\d+)\)(?:e(-?\d+))?", cell)
     assert m, cell
-    scale = 10.0 ** int(m.group(3)) if m.group(3) else 1.0
-    dec = len(m.group(1).split(".")[1]) if "." in m.group(1) else 0
-    return float(m.group(1)) * scale, float(m.group(2)) * scale, dec
+    exp = int(m.group(4)) if m.group(4) else 0
+    dec = len(m.group(2)) if m.group(2) else 0
+    place = 10.0 ** (exp - dec)
+    return float(m.group(1)) * 10.0**exp, int(m.group(3)) * place, place
 
 
 def _assert_close_to_rounding(cell: str, value: float, u: float):
-    cell = cell.replace("\u00a0", " ")
-    v, uu, dec = _read_pm(cell)
-    scale = 10.0 ** int(re.search(r"e([+-]\d+)", cell).group(1)) if "e" in cell else 1.0
-    half_ulp = 0.5 * 10.0 ** (-dec) * scale * (1 + 1e-9)
-    assert abs(v - value) <= half_ulp, (cell, value)
-    assert abs(uu - u) <= half_ulp, (cell, u)
-    # At most two significant digits in the uncertainty (GUM 7.2.6); leading zeros do not count.
-    u_text = re.fullmatch(r"\(?-?[\d.]+ ± ([\d.]+)\)?(?:e[+-]\d+)?", cell).group(1)
-    assert 1 <= len(u_text.replace(".", "").lstrip("0")) <= 2, cell
+    v, uu, place = _read_pm(cell)
+    half = 0.5 * place * (1 + 1e-9)
+    assert abs(v - value) <= half + 1e-12 * abs(value), (cell, value)
+    assert abs(uu - u) <= half, (cell, u)
+    # Two significant digits in the uncertainty (GUM 7.2.6): 10..99 units of the last place.
+    assert 10 <= round(uu / place) <= 99, cell
 
 
 @pytest.fixture(scope="module")
@@ -120,8 +121,9 @@ def test_modes_table_holds_the_mode_values(three_mode_report):
     doc = _parse(text)
     (table,) = _modes_table(doc)
     header, rows = table[0], table[1:]
-    assert header == ["#", "f_d, Hz", "β, 1/s", "f_n, Hz", "ζ", "Q", "loss factor η", "decay, dB/s", "T60, s",
-                      "method", "window, s", "cycles", "SNR, dB", "hits"]
+    assert header == ["#", "f_d, Hz", "β, 1/s", "f_n, Hz", "ζ", "Q", "loss factor η", "log decrement δ",
+                      "f_r, Hz", "decay, dB/s", "T60, s", "method", "window, s", "cycles", "SNR, dB", "hits",
+                      "warnings"]
     assert len(rows) == len(a.modes)
     for row, m in zip(rows, a.modes):
         assert row[0] == str(m.index)
@@ -136,7 +138,7 @@ def test_modes_table_holds_the_mode_values(three_mode_report):
         z, _, _ = _read_pm(col["ζ"])
         assert q == pytest.approx(1 / (2 * z), rel=2e-2)
         assert col["method"] == "envelope"
-        lo, hi = (float(s) for s in col["window, s"].replace("\u00a0", " ").split(" to "))
+        lo, hi = (float(s) for s in col["window, s"].split(" to "))
         assert lo == pytest.approx(m.fit_start_s, rel=1e-3) and hi == pytest.approx(m.fit_end_s, rel=1e-3)
         assert float(col["SNR, dB"]) == pytest.approx(m.snr_db, abs=0.05)
 
@@ -233,9 +235,10 @@ def test_several_files_summary_and_failed_file():
     text = render_report([good, warn, bad], figures=False)
     doc = _parse(text)
     assert doc.headings[:2] == ["Ring-down report", "Summary"]
-    summary = next(t for t in doc.tables if t[0][:3] == ["#", "file", "status"])
+    summary = next(t for t in doc.tables if t[0][:3] == ["#", "file", "analysis"])
     assert [r[1] for r in summary[1:]] == ["bar_A.wav", "bar_B.wav", "missing.wav"]
-    assert summary[1][2] == "ok" and summary[2][2] == "1 warning" and summary[3][2] == "error: input"
+    # "analysed" is neutral: it says the analysis ran, not that a part passed
+    assert summary[1][2] == "analysed" and summary[2][2] == "analysed, 1 warning" and summary[3][2] == "error: input"
     assert "cannot open 'missing.wav'" in summary[3][4]
     # Summary links point to each file's section.
     links = [attrs["href"] for t, attrs in doc.tags if t == "a"]
@@ -257,26 +260,6 @@ def test_extra_sections_and_bad_section():
     assert "&lt;A1&gt;" in text
     with pytest.raises(ParameterError, match="extra report section"):
         render_report(a, extra_sections=["just a string"])
-
-
-@pytest.mark.parametrize(
-    "value,u,expected",
-    [
-        # GUM 7.2.6 example style: u to two significant digits, value to the same place.
-        (100.02147, 0.00035, "100.02147 ± 0.00035"),
-        (1234.5678, 0.1234, "1234.57 ± 0.12"),
-        (3.0, 0.06, "3.000 ± 0.060"),
-        (1.23456e-4, 5.4321e-6, "(1.235 ± 0.054)e-04"),
-        (2.0, 0.0996, "2.00 ± 0.10"),  # u rounds up to a new decade: still two digits
-        (523456.0, 1234.0, "523500 ± 1200"),
-        (2.5e7, 1.5e5, "(2.500 ± 0.015)e+07"),
-        (5.0, None, "5"),
-        (None, 0.1, "–"),
-    ],
-)
-def test_format_pm(value, u, expected):
-    # Expected strings worked by hand from GUM 7.2.6 (two significant digits in u).
-    assert format_pm(value, u) == expected
 
 
 # --------------------------------------------------------------------------------------------
@@ -304,8 +287,8 @@ def test_cli_write_plots(tmp_path):
         assert open(p, "rb").read(200).lstrip().startswith(b"<?xml")
     pngs = render.write_plots([make_analysis()], tmp_path / "png", "png")
     assert len(pngs) == 2 and all(open(p, "rb").read(8) == b"\x89PNG\r\n\x1a\n" for p in pngs)
-    with pytest.raises(ParameterError, match="--plot-format must be one of png, svg; got 'pdf'"):
-        render.write_plots([a], tmp_path, "pdf")
+    with pytest.raises(ParameterError, match="--plot-format must be one of png, svg, pdf; got 'jpg'"):
+        render.write_plots([a], tmp_path, "jpg")
     blocker = tmp_path / "file"
     blocker.write_text("x")
     with pytest.raises(ParameterError, match="cannot create plot folder"):
@@ -337,9 +320,67 @@ def test_report_of_a_real_analysis():
     doc = _parse(text)
     (table,) = _modes_table(doc)
     assert len(table) - 1 == len(a.modes)
-    f_cells = [_read_pm(r[1])[0] if "±" in r[1] else float(r[1]) for r in table[1:]]
+    f_cells = [_read_pm(r[1])[0] if "(" in r[1] else float(r[1]) for r in table[1:]]
     # The exact simulated frequencies, to the 0.5 Hz a 2 s record resolves easily (the estimators'
     # own accuracy is tested in their modules; here only that the report prints what was found).
     assert min(abs(f - 523) for f in f_cells) < 0.5 and min(abs(f - 1377) for f in f_cells) < 0.5
     assert sum(1 for tag, _ in doc.tags if tag == "img") >= 1
     assert math.isfinite(a.modes[0].q)
+
+
+# --------------------------------------------------------------------------------------------
+# print-ready parts: verdicts in words, header fields, sign-off (the PDF itself:
+# tests/test_report_print.py)
+# --------------------------------------------------------------------------------------------
+
+def _cells_with_class(text: str, css: str) -> list[str]:
+    return [re.sub(r"<[^>]+>", "", m) for m in re.findall(rf'<td class="[^"]*\b{css}\b[^"]*">(.*?)</td>', text)]
+
+
+def test_check_report_verdicts_header_and_signoff():
+    from ringdown.limits import parse_limits
+    from ringdown.report import render_check_report
+
+    lim = parse_limits("[[modes]]\nf_hz = [1400.0, 1500.0]\n", source="lim.toml")
+    rows = [
+        {"part_id": "A1", "path": "a1.wav", "verdict": "pass", "reasons": [], "notes": [], "features": []},
+        {"part_id": "A2", "path": "a2.wav", "verdict": "fail", "reasons": [{"code": "f_below", "message": "low"}],
+         "notes": [], "features": [{"mode": 1, "feature": "f_hz", "value": 1390.0, "window": [1400.0, 1500.0],
+                                    "status": "below"}]},
+        {"part_id": "A3", "path": "a3.wav", "verdict": "pass", "reasons": [],
+         "notes": [{"code": "advisory_f_below", "message": "warm (advisory)"}], "features": []},
+    ]
+    analyses = [make_analysis(path=r["path"], keep_samples=False) for r in rows]
+    text = render_check_report(rows, analyses, lim, figures=False, fields=[("station", "EOL-2"),
+                               ("operator", "A. Tester"), ("limits SHA-256", lim.sha256)])
+    # every verdict coloured by class AND worded with a symbol (readable without colour)
+    assert "✓ PASS" in _cells_with_class(text, "verdict-pass")
+    assert "✗ FAIL" in _cells_with_class(text, "verdict-fail")
+    assert "✓ PASS (advisory)" in _cells_with_class(text, "verdict-pass-advisory")
+    assert "✗ FAIL: below" in _cells_with_class(text, "verdict-fail")  # the feature row
+    # the summary says "analysed", never a green "ok", beside a FAIL
+    doc = _parse(text)
+    summary = next(t for t in doc.tables if t[0][:4] == ["#", "file", "verdict", "analysis"])
+    assert [r[2] for r in summary[1:]] == ["✓ PASS", "✗ FAIL", "✓ PASS (advisory)"]
+    assert all(r[3] == "analysed" for r in summary[1:])
+    assert not any(c.strip().lower() == "ok" for r in summary for c in r)
+    kv = {r[0]: r[1] for t in doc.tables for r in t if len(r) == 2}
+    assert kv["station"] == "EOL-2" and kv["operator"] == "A. Tester" and kv["limits SHA-256"] == lim.sha256
+    assert kv["limits file"] == "lim.toml"
+    # sign-off: name (operator filled in), date and signature lines
+    sign = next(t for t in doc.tables if t[0][1:] == ["name", "date", "signature"])
+    assert sign[1] == ["tested by", "A. Tester", "", ""] and sign[2] == ["reviewed by", "", "", ""]
+    # the title and station printed at the top of every page (a CSS page margin box)
+    assert re.search(r'@top-left \{ content: "Part check report · station EOL-2"', text)
+    assert 'counter(page) " of " counter(pages)' in text
+
+
+def test_header_fields_are_escaped_in_css_and_html():
+    a = make_analysis(keep_samples=False)
+    text = render_report([a], figures=False, title='</style><script>x"', notes="line 1\nline <2>",
+                         fields=[("serial", "S<1>")])
+    assert "<script>" not in text and "</style><script>" not in text
+    assert "line 1<br>line &lt;2&gt;" in text
+    doc = _parse(text)
+    kv = {r[0]: r[1] for t in doc.tables for r in t if len(r) == 2}
+    assert kv["serial"] == "S<1>"

@@ -4,6 +4,9 @@ Each command group lives in its own module with a ``register(app)`` function; th
 named in ``_COMMAND_MODULES`` are registered in that order. Commands parse options, make one
 library call, and render the result; they hold no numerics. Every ``RingdownError`` becomes
 one line on stderr and a non-zero exit; ``--debug`` shows the traceback instead.
+
+Exit statuses (``_common``): 0 done, 1 a part failed its limits, 2 an input or file could not be
+used, 64 usage error (typer's own usage errors too, which would otherwise exit 2), 130 interrupted.
 """
 
 from __future__ import annotations
@@ -11,17 +14,41 @@ from __future__ import annotations
 import importlib
 
 import typer
+from typer.core import TyperGroup
+
+from ._common import EXIT_USAGE
 
 __all__ = ["app", "main"]
 
 _COMMAND_MODULES = ("analyze", "compare", "limits", "history", "moduli")
 
+class _Group(TyperGroup):
+    """The command group: a usage error (bad option, missing argument) exits 64, not 2."""
+
+    def make_context(self, *args, **kwargs):
+        try:
+            return super().make_context(*args, **kwargs)
+        except typer.core._click.exceptions.UsageError as exc:
+            exc.exit_code = EXIT_USAGE
+            raise
+
+    def invoke(self, ctx):
+        try:
+            return super().invoke(ctx)
+        except typer.core._click.exceptions.UsageError as exc:
+            exc.exit_code = EXIT_USAGE
+            raise
+
+
 app = typer.Typer(
     name="ringdown",
+    cls=_Group,
     help="Measure the modes of ring-down recordings: frequency, decay rate, damping ratio, Q.",
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
+    # plain click help: flags show no '<bool>' type, and the text is the same on a terminal and in a pipe
+    rich_markup_mode=None,
 )
 
 

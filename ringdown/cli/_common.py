@@ -1,7 +1,8 @@
-"""Helpers shared by every command: error reporting, JSON output, path expansion."""
+"""Helpers shared by every command: exit statuses, error reporting, JSON output, path expansion."""
 
 from __future__ import annotations
 
+import contextlib
 import glob
 import json
 import os
@@ -22,8 +23,26 @@ EXIT_OK = 0
 EXIT_FAIL = 1
 #: Exit status when any input could not be handled (errors win over failures).
 EXIT_ERROR = 2
+#: Exit status of a usage error: an unknown option, a bad option value, a missing argument
+#: (``EX_USAGE`` of BSD ``sysexits.h``).
+EXIT_USAGE = 64
+#: Exit status after Ctrl-C (128 + SIGINT, the shell's convention).
+EXIT_INTERRUPTED = 130
+
+#: The exit statuses, as every command's ``--help`` shows them.
+EXIT_EPILOG = ("Exit status: 0 done (every part passed); 1 a part FAILED its limits (check only); "
+               "2 some input could not be analysed or a file (limits, history, output) could not be "
+               "used; 64 usage error (bad option or argument); 130 interrupted.")
 
 DEBUG_OPTION = typer.Option(False, "--debug", help="Show the full traceback of an error.")
+#: The time window of the analysis, shared by every command that analyses recordings.
+START_OPTION = typer.Option(None, "--start", help="Analyse from this time on, s from the record's first sample.")
+END_OPTION = typer.Option(None, "--end", help="Analyse up to this time, s from the record's first sample.")
+
+
+def time_window(start: Optional[float], end: Optional[float]) -> dict:
+    """The analysis options ``start_s``/``end_s`` given on the command line (only those given)."""
+    return {k: v for k, v in (("start_s", start), ("end_s", end)) if v is not None}
 
 _AUDIO_AND_TEXT = (".wav", ".flac", ".ogg", ".oga", ".aiff", ".aif", ".au", ".caf", ".w64", ".rf64",
                    ".csv", ".txt", ".tsv", ".dat") + FORMAT_SUFFIXES
@@ -42,19 +61,59 @@ def parse_channel(text: Optional[str]):
 
 
 def error_line(message: str) -> None:
-    """Print one error line on stderr (never a traceback)."""
-    typer.echo(f"ringdown: error: {message}", err=True)
+    """Print one error line on stderr (never a traceback); control characters shown escaped."""
+    from ..outputs import shown
+
+    typer.echo(f"ringdown: error: {shown(message)}", err=True)
 
 
-def guarded(fn: Callable[[], T], *, debug: bool) -> T:
-    """Run ``fn``; a ``RingdownError`` becomes one stderr line and exit status 2."""
+def note_line(message: str) -> None:
+    """Print one note line on stderr."""
+    from ..outputs import shown
+
+    typer.echo(f"ringdown: note: {shown(message)}", err=True)
+
+
+def usage_guarded(fn: Callable[[], T], *, debug: bool) -> T:
+    """Run ``fn`` (option parsing); a ``RingdownError`` is a usage error: one line, exit 64."""
+    return guarded(fn, debug=debug, status=EXIT_USAGE)
+
+
+def usage_error(message: str) -> None:
+    """A usage error found by a command itself: one line, exit 64."""
+    error_line(message)
+    raise typer.Exit(EXIT_USAGE)
+
+
+def guarded(fn: Callable[[], T], *, debug: bool, status: int = EXIT_ERROR) -> T:
+    """Run ``fn``; a ``RingdownError`` becomes one stderr line and exit ``status`` (2)."""
     try:
         return fn()
     except RingdownError as exc:
         if debug:
             raise
         error_line(str(exc))
-        raise typer.Exit(EXIT_ERROR) from None
+        raise typer.Exit(status) from None
+
+
+@contextlib.contextmanager
+def sigint_deferred():
+    """Hold Ctrl-C back while one result is being stored, so it is stored whole or not at all
+    and "done (stored)" is true; the interrupt is raised as soon as the block ends."""
+    import signal
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    caught: list[int] = []
+    old = signal.signal(signal.SIGINT, lambda signum, frame: caught.append(signum))
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, old)
+        if caught:
+            raise KeyboardInterrupt
 
 
 def print_json(document: Any) -> None:
@@ -62,22 +121,103 @@ def print_json(document: Any) -> None:
     sys.stdout.write(json.dumps(document, indent=2, allow_nan=False) + "\n")
 
 
-def expand_inputs(items: Iterable[str]) -> list[str]:
+def print_json_line(record: Any) -> None:
+    """Write one JSON Lines record to stdout and flush, so a pipe sees it at once."""
+    sys.stdout.write(json.dumps(record, allow_nan=False, separators=(",", ":")) + "\n")
+    sys.stdout.flush()
+
+
+#: The input name that means standard input.
+STDIN = "-"
+
+
+def uses_stdin(paths: Iterable[str]) -> bool:
+    """Whether ``-`` (standard input) is among the inputs; given twice it is an error."""
+    n = sum(1 for p in paths if p == STDIN)
+    if n > 1:
+        from ..errors import ParameterError
+
+        raise ParameterError("'-' (standard input) is given more than once; standard input holds one recording")
+    return n == 1
+
+
+class Inputs(list):
+    """Expanded input paths; ``problems`` counts the folders and patterns that held no recording
+    (each already reported on stderr)."""
+
+    problems: int = 0
+
+
+#: First line of every CSV that ringdown writes (analyze, check, history, compare): such files
+#: are outputs, not recordings, and are skipped when a folder or pattern is expanded.
+_OUTPUT_CSV_HEADS = ("path,sha256,channel,", "part_id,path,sha256,verdict,", "id,kind,part_id,path,",
+                     "status,index,")
+
+
+def _is_own_output(path: Path) -> bool:
+    if path.suffix.lower() != ".csv":
+        return False
+    try:
+        with open(path, "rb") as fh:
+            head = fh.read(200).decode("utf-8", "replace").lstrip("\ufeff")
+    except OSError:
+        return False
+    return head.startswith(_OUTPUT_CSV_HEADS)
+
+
+def expand_inputs(items: Iterable[str], *, recursive: bool = False, exclude: Iterable[Any] = ()) -> Inputs:
     """Expand folders (their recordings, sorted) and glob patterns; keep other names as given.
 
-    A name that matches nothing is kept, so that the analysis reports it as a missing file.
+    A name that matches nothing is kept, so that the analysis reports it as a missing file. A
+    folder (whatever its name, ``x.wav`` too) or pattern that holds no recording is reported on
+    one line and counted in ``problems``. Expanding skips this run's outputs (``exclude``) and
+    files ringdown wrote (a CSV with a ringdown header), saying so. ``recursive`` descends into
+    sub-folders.
+    ``-`` (standard input) is kept as it is.
     """
-    out: list[str] = []
+    skip = {os.path.realpath(str(e)) for e in exclude if e}
+    out = Inputs()
+    skipped: list[str] = []
+
+    def keep(q: Path) -> bool:
+        if not q.is_file() or q.suffix.lower() not in _AUDIO_AND_TEXT:
+            return False
+        if os.path.realpath(q) in skip or _is_own_output(q):
+            skipped.append(str(q))
+            return False
+        return True
+
     for item in items:
         p = Path(item)
-        if p.is_dir():
-            out.extend(sorted(str(q) for q in p.iterdir() if q.is_file() and q.suffix.lower() in _AUDIO_AND_TEXT))
+        if item == STDIN:
+            out.append(item)
+        elif p.is_dir():
+            found = sorted(str(q) for q in (p.rglob("*") if recursive else p.iterdir()) if keep(q))
+            if not found:
+                subs = not recursive and any(q.is_dir() for q in p.iterdir())
+                error_line(f"folder {item!r} holds no recordings ({', '.join(_AUDIO_AND_TEXT)})"
+                           + ("; add --recursive to look in its sub-folders" if subs else ""))
+                out.problems += 1
+            out.extend(found)
         elif any(ch in item for ch in "*?[") and not p.exists():
             matches = sorted(glob.glob(item, recursive=True))
-            out.extend(matches if matches else [item])
+            found = [m for m in matches if not Path(m).is_dir() and keep(Path(m))]
+            for d in (m for m in matches if Path(m).is_dir()):
+                found.extend(sorted(str(q) for q in (Path(d).rglob("*") if recursive else Path(d).iterdir())
+                                    if keep(q)))
+            if not found:
+                error_line(f"pattern {item!r} matches no recordings")
+                out.problems += 1
+            out.extend(found)
         else:
             out.append(item)
+    if skipped:
+        note_line(f"skipped {len(skipped)} file(s) written by ringdown: {', '.join(skipped[:3])}"
+                  + (" ..." if len(skipped) > 3 else ""))
     return out
+
+
+RECURSIVE_OPTION = typer.Option(False, "--recursive", "-r", help="Look for recordings in sub-folders too.")
 
 
 def default_jobs() -> int:

@@ -14,35 +14,26 @@ compared and reported) or when the comparison itself cannot be made.
 from __future__ import annotations
 
 import csv
-import math
 from pathlib import Path
 from typing import List, Optional
 
 import typer
 
 from ..errors import RingdownError
-from ._common import (CHANNEL_HELP, DEBUG_OPTION, EXIT_ERROR, EXIT_OK, error_line, expand_inputs, guarded,
-                      parse_channel, print_json)
+from ..numfmt import fmt_interval, fmt_pm, fmt_value
+from ._common import (DEBUG_OPTION, END_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_OK, START_OPTION, error_line,
+                      expand_inputs, guarded, print_json, time_window, usage_error)
+from ._options import Channel, Column, Notes, SampleRate, Serial, Title, reader_options, report_header
 
 __all__ = ["register", "format_table"]
 
 
 def _sig(v, digits: int = 4) -> str:
-    if v is None or (isinstance(v, float) and not math.isfinite(v)):
-        return "-"
-    return f"{v:.{digits}g}"
+    return fmt_value(v, digits, missing="-")
 
 
 def _pm(v, u, digits: int = 4) -> str:
-    """Value with its standard uncertainty, the value rounded to the uncertainty's 2nd digit."""
-    if v is None:
-        return "-"
-    if u is None or u <= 0 or not math.isfinite(u):
-        return _sig(v, digits)
-    decimals = max(0, 1 - int(math.floor(math.log10(u))))
-    if decimals > 8:
-        return f"{v:.{digits}g} ± {u:.2g}"
-    return f"{v:.{decimals}f} ± {u:.{decimals}f}"
+    return fmt_pm(v, u, digits=digits, missing="-")
 
 
 def format_table(comparison) -> str:
@@ -60,13 +51,8 @@ def format_table(comparison) -> str:
     rows = []
     for m in comparison.modes:
         b, a, d, f = m.before, m.after, m.damping, m.frequency
-        f0 = b.values["f_d_hz"]
-        shift = f"{100 * f.relative:+.2f}"
-        if f.low_hz is not None:
-            shift += f" [{100 * f.low_hz / f0:+.2f}, {100 * f.high_hz / f0:+.2f}]"
-        ratio = f"x{d.ratio:.3g}"
-        if d.ratio_low is not None:
-            ratio += f" [{d.ratio_low:.3g}, {d.ratio_high:.3g}]"
+        shift = fmt_interval(*f.percent, decimals=2, sign=True)
+        ratio = "x" + fmt_interval(d.ratio, d.ratio_low, d.ratio_high, digits=3)
         rows.append((str(m.index), _pm(b.f_d_hz, b.f_d_hz_u), _pm(a.f_d_hz, a.f_d_hz_u), shift,
                      _pm(b.zeta, b.zeta_u), _pm(a.zeta, a.zeta_u), ratio, d.test,
                      _sig(d.p_value, 2), d.verdict))
@@ -91,20 +77,20 @@ def format_table(comparison) -> str:
 
 def _write_csv(comparison, out: Path) -> None:
     from ..compare import comparison_rows
+    from ..errors import RingdownError
+    from ..outputs import atomic_write, csv_row
 
     rows = comparison_rows(comparison)
     if not rows:
         return
     try:
-        with open(out, "w", newline="", encoding="utf-8") as fh:
-            w = csv.DictWriter(fh, fieldnames=list(rows[0].keys()))
-            w.writeheader()
+        with atomic_write(out, newline="", what="CSV file") as fh:
+            w = csv.writer(fh)
+            w.writerow(list(rows[0].keys()))
             for r in rows:
-                w.writerow({k: "" if v is None else v for k, v in r.items()})
-    except OSError as exc:
-        raise _OutputError(
-            f"cannot write CSV file '{out}': {exc.strerror or exc}; check the folder and permissions"
-        ) from exc
+                w.writerow(csv_row(r.values()))
+    except RingdownError as exc:
+        raise _OutputError(str(exc)) from None
 
 
 def _write_plot(comparison, out_dir: Path) -> Path:
@@ -123,28 +109,10 @@ def _write_plot(comparison, out_dir: Path) -> Path:
     return path
 
 
-def _report_html(comparison) -> str:
-    """The report: the shared report with a comparison section when available, else standalone."""
-    from ..compare_report import SECTION_TITLE, comparison_html, comparison_page
+def _write_report(comparison, out: Path, header: dict) -> None:
+    from ..report import render_comparison_report
 
-    try:
-        from ..report import Section, render_report  # the shared report, when present
-    except ImportError:
-        return comparison_page(comparison)
-    analyses = [*comparison.before_analyses, *comparison.after_analyses]
-    s = comparison.settings
-    return render_report(
-        analyses,
-        title="Before/after comparison",
-        settings={"command": "compare", "tolerance": s["tolerance"], "confidence": s["confidence"],
-                  "damping_scale": s["damping_scale"]},
-        extra_sections=[Section(SECTION_TITLE, comparison_html(comparison), anchor="comparison")],
-        figures=False,  # per-recording figures: see 'ringdown analyze --report'; keeps this fast
-    )
-
-
-def _write_report(comparison, out: Path) -> None:
-    text = _report_html(comparison)
+    text = render_comparison_report(comparison, **header)
     try:
         out.write_text(text, encoding="utf-8")
     except OSError as exc:
@@ -169,8 +137,9 @@ def register(app: typer.Typer) -> None:
             "Compare each mode's frequency and damping before and after a treatment. "
             "Repeat --before/--after per file, or give a folder or a quoted pattern. "
             "Every used hit is one repeat; damping is tested on ln(zeta) (Welch t with >= 2 "
-            "repeats a side). Exit 0 when done, 2 when an input could not be analysed."
+            "repeats a side)."
         ),
+        epilog=EXIT_EPILOG,
     )
     def compare_cmd(
         ctx: typer.Context,
@@ -193,27 +162,35 @@ def register(app: typer.Typer) -> None:
             0.1, "--tolerance", help="Relative frequency tolerance for pairing modes (0.1 = 10 %)."
         ),
         method: str = typer.Option("auto", "--method", help="Estimator (as for analyze)."),
-        channel: Optional[str] = typer.Option(None, "--channel", help=CHANNEL_HELP),
+        channel: Channel = None,
+        column: Column = None,
+        sample_rate: SampleRate = None,
         band: Optional[List[str]] = typer.Option(None, "--band", help="Band LOW:HIGH in Hz (repeatable, as for analyze)."),
         min_hit_snr_db: float = typer.Option(20.0, "--min-hit-snr-db", help="A hit must rise this far above the noise, dB."),
         keep_double_hits: bool = typer.Option(False, "--keep-double-hits", help="Count bounced hits as repeats too."),
+        title: Title = None,
+        notes: Notes = None,
+        serial: Serial = None,
+        start: Optional[float] = START_OPTION,
+        end: Optional[float] = END_OPTION,
         debug: bool = DEBUG_OPTION,
     ) -> None:
         if ctx.args:
-            error_line(
+            usage_error(
                 f"unexpected argument '{ctx.args[0]}': give each file its own --before/--after, "
                 "a folder, or a quoted pattern (--before 'bare_*.wav')"
             )
-            raise typer.Exit(EXIT_ERROR)
         from ..compare import compare
 
         b = expand_inputs(before)
         a = expand_inputs(after)
         def run():
+            from ._common import uses_stdin
             from .analyze import parse_band
 
-            options = dict(method=method, channel=parse_channel(channel), min_hit_snr_db=min_hit_snr_db,
-                           keep_double_hits=keep_double_hits)
+            uses_stdin([*b, *a])  # '-' once at most: standard input holds one recording
+            options = dict(reader_options(channel, column, sample_rate), method=method,
+                           min_hit_snr_db=min_hit_snr_db, keep_double_hits=keep_double_hits, **time_window(start, end))
             if band:
                 options["bands"] = [parse_band(x) for x in band]
             return compare(b, a, tolerance=tolerance, confidence=confidence, **options)
@@ -228,7 +205,7 @@ def register(app: typer.Typer) -> None:
         if plot_dir is not None:
             guarded(lambda: _write_plot(comparison, plot_dir), debug=debug)
         if report_out is not None:
-            guarded(lambda: _write_report(comparison, report_out), debug=debug)
+            guarded(lambda: _write_report(comparison, report_out, report_header(title, notes, serial)), debug=debug)
         for i in comparison.failed_inputs:
             error_line(f"{i.side}: {i.error.message}")
-        raise typer.Exit(EXIT_OK if comparison.ok else EXIT_ERROR)
+        raise typer.Exit(EXIT_OK if comparison.ok and not (a.problems or b.problems) else EXIT_ERROR)

@@ -8,13 +8,14 @@ from typing import Optional
 
 import typer
 
-from ._common import DEBUG_OPTION, EXIT_ERROR, error_line, guarded, print_json
+from ..numfmt import fmt_value
+from ._common import DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, error_line, guarded, print_json, usage_error
 
 __all__ = ["register", "format_history"]
 
 
-def _f(v, fmt: str) -> str:
-    return "-" if v is None else format(v, fmt)
+def _f(v, digits: int) -> str:
+    return fmt_value(v, digits, missing="-")
 
 
 def _n_modes(records) -> int:
@@ -24,7 +25,10 @@ def _n_modes(records) -> int:
 
 
 def format_history(records) -> str:
-    """A text table: one line per stored test."""
+    """A text table: one line per stored test (names with control characters shown escaped)."""
+    from ..check import verdict_kind
+    from ..outputs import shown
+
     n = _n_modes(records)
     head = ["id", "tested (UTC)", "part", "verdict", "station", "operator"] + [f"f{j} [Hz]" for j in range(1, n + 1)] \
         + ["first reason"]
@@ -33,10 +37,12 @@ def format_history(records) -> str:
         fs = []
         for j in range(1, n + 1):
             m = r.mode_for(j)
-            fs.append(_f(None if m is None else m.get("f_d_hz"), ".1f"))
+            fs.append(_f(None if m is None else m.get("f_d_hz"), 6))
         reason = r.reasons[0]["message"] if r.reasons else (r.error or "")
-        rows.append([str(r.id), r.tested_utc[:19].replace("T", " "), r.part_id, (r.verdict or r.kind).upper(),
-                     r.station or "-", r.operator or "-", *fs, reason])
+        kind = verdict_kind(r.verdict, [n.get("code") for n in r.notes])
+        verdict = "PASS (advisory)" if kind == "pass_advisory" else shown(r.verdict or r.kind).upper()
+        rows.append([str(r.id), shown(str(r.tested_utc)[:19].replace("T", " ")), shown(r.part_id), verdict,
+                     shown(r.station or "-"), shown(r.operator or "-"), *fs, shown(reason)])
     widths = [max(len(h), *(len(x[i]) for x in rows)) if rows else len(h) for i, h in enumerate(head)]
     lines = ["  ".join(h.ljust(w) for h, w in zip(head, widths)).rstrip()]
     for x in rows:
@@ -50,26 +56,23 @@ def _write_csv(records, path: str) -> None:
             "limits_sha256", "verdict", "mahalanobis", "uniform_shift", "reasons", "error"]
     for j in range(1, n + 1):
         head += [f"mode{j}_f_d_hz", f"mode{j}_f_d_hz_u", f"mode{j}_zeta", f"mode{j}_zeta_u", f"mode{j}_q"]
-    try:
-        with open(path, "w", newline="", encoding="utf-8") as fh:
-            w = csv.writer(fh)
-            w.writerow(head)
-            for r in records:
-                row = [r.id, r.kind, r.part_id, r.path, r.sha256, r.tested_utc, r.station, r.operator,
-                       r.tool_version, r.limits_sha256, r.verdict, r.mahalanobis, r.uniform_shift,
-                       "; ".join(x["message"] for x in r.reasons), r.error]
-                for j in range(1, n + 1):
-                    m = r.mode_for(j) or {}
-                    row += [m.get("f_d_hz"), m.get("f_d_hz_u"), m.get("zeta"), m.get("zeta_u"), m.get("q")]
-                w.writerow(["" if v is None else v for v in row])
-    except OSError as exc:
-        from ..errors import ParameterError
+    from ..outputs import atomic_write, csv_row
 
-        raise ParameterError(f"cannot write CSV '{path}': {exc.strerror or exc}; choose a writable path") from exc
+    with atomic_write(path, newline="", what="CSV") as fh:
+        w = csv.writer(fh)
+        w.writerow(head)
+        for r in records:
+            row = [r.id, r.kind, r.part_id, r.path, r.sha256, r.tested_utc, r.station, r.operator,
+                   r.tool_version, r.limits_sha256, r.verdict, r.mahalanobis, r.uniform_shift,
+                   "; ".join(str(x.get("message", "")) if isinstance(x, dict) else str(x) for x in r.reasons), r.error]
+            for j in range(1, n + 1):
+                m = r.mode_for(j) or {}
+                row += [m.get("f_d_hz"), m.get("f_d_hz_u"), m.get("zeta"), m.get("zeta_u"), m.get("q")]
+            w.writerow(csv_row(row))
 
 
 def register(app: typer.Typer) -> None:
-    @app.command("history")
+    @app.command("history", epilog=EXIT_EPILOG)
     def history(
         db: Optional[str] = typer.Option(None, "--db", help="Results database (default $RINGDOWN_DB or ringdown.sqlite)."),
         part: Optional[str] = typer.Option(None, "--part", help="Only this part id."),
@@ -79,9 +82,12 @@ def register(app: typer.Typer) -> None:
         kind: Optional[str] = typer.Option(None, "--kind", help="Only 'check' or 'analysis' records."),
         json_out: bool = typer.Option(False, "--json", help="Print the records as JSON."),
         csv_out: Optional[str] = typer.Option(None, "--csv", help="Write the records to this CSV file."),
-        plot: Optional[str] = typer.Option(None, "--plot", help="Write a run chart (PNG, SVG or PDF)."),
+        plot: Optional[str] = typer.Option(None, "--plot", help="Write a run chart; the name's ending gives the "
+                                           "format: .png, .svg or .pdf."),
         limits_path: Optional[str] = typer.Option(None, "--limits", help="Draw these limits on the run chart "
                                                   "(default: the limits each part was checked with)."),
+        parquet_out: Optional[str] = typer.Option(None, "--parquet", help="Write the records, one row per mode, to "
+                                                  "this Parquet dataset folder (needs the 'cluster' extra)."),
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Show stored results: a table, JSON, CSV, or a run chart of every mode in test order."""
@@ -89,15 +95,23 @@ def register(app: typer.Typer) -> None:
         from ._common import resolve_db
 
         path = resolve_db(db)
+        if plot:
+            from .render import check_plot_format
+
+            guarded(lambda: check_plot_format(Path(plot).suffix.lower().lstrip("."),
+                                                "the --plot file's ending"), debug=debug)
         if json_out and csv_out:
-            error_line("--json and --csv are exclusive; choose one")
-            raise typer.Exit(EXIT_ERROR)
+            usage_error("--json and --csv are exclusive; choose one")
+        if csv_out:
+            from ..outputs import check_writable
+
+            guarded(lambda: check_writable(csv_out, "CSV"), debug=debug)
         if not Path(path).exists():
             error_line(f"no results database at '{path}'; run 'ringdown check' first or give --db")
             raise typer.Exit(EXIT_ERROR)
 
         def run():
-            with ResultStore(path) as store:
+            with ResultStore(path, read_only=True) as store:
                 recs = store.query(part=part, since=since, until=until, verdict=verdict, kind=kind)
                 docs = store.limits_documents()
             return recs, docs
@@ -105,6 +119,11 @@ def register(app: typer.Typer) -> None:
         records, docs = guarded(run, debug=debug)
         if csv_out:
             guarded(lambda: _write_csv(records, csv_out), debug=debug)
+        if parquet_out:
+            from ..parquet import export_history
+
+            sink = guarded(lambda: export_history(path, records, parquet_out), debug=debug)
+            typer.echo(f"wrote {sink.rows_written} row(s) of {len(records)} record(s) to {parquet_out}", err=True)
         if plot:
             def draw():
                 from ..history_plot import plot_run_chart
@@ -114,13 +133,20 @@ def register(app: typer.Typer) -> None:
                     from ..limits import read_limits
 
                     lim = read_limits(limits_path)
+                import io
+
+                from ..outputs import atomic_write
+
                 fig = plot_run_chart(records, limits_by_sha=docs, limits=lim)
+                buf = io.BytesIO()
                 try:
-                    fig.savefig(plot, dpi=110)
+                    fig.savefig(buf, dpi=110, format=Path(plot).suffix.lstrip(".").lower() or "png")
                 except (OSError, ValueError) as exc:
                     from ..errors import ParameterError
 
-                    raise ParameterError(f"cannot write the run chart to '{plot}': {exc}; choose a writable .png") from exc
+                    raise ParameterError(f"cannot write the run chart to '{plot}': {exc}; choose a writable file") from exc
+                with atomic_write(plot, "wb", what="the run chart to") as fh:  # never half a figure
+                    fh.write(buf.getvalue())
 
             guarded(draw, debug=debug)
         if json_out:

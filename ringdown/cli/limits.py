@@ -1,12 +1,13 @@
 """``ringdown limits learn`` and ``ringdown check``: acceptance limits and pass/fail of parts.
 
 Exit status of ``check``: 0 every part passed, 1 any part failed, 2 any part could not be
-analysed or the command could not run (errors win over failures).
+analysed or a file could not be used (errors win over failures), 64 usage error, 130 interrupted.
 """
 
 from __future__ import annotations
 
 import csv
+import sys
 import time
 from dataclasses import replace
 from pathlib import Path
@@ -14,15 +15,17 @@ from typing import List, Optional
 
 import typer
 
-from ._common import (CHANNEL_HELP, DEBUG_OPTION, EXIT_ERROR, EXIT_FAIL, EXIT_OK, default_jobs, error_line,
-                      expand_inputs, guarded, on_terminal, parse_channel, print_json, progress_bar, resolve_db, DB_ENV)
+from ..numfmt import fmt_value, fmt_values
+from ._common import (DEBUG_OPTION, END_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_FAIL, EXIT_INTERRUPTED, EXIT_OK,
+                      RECURSIVE_OPTION, START_OPTION, default_jobs, error_line, expand_inputs, guarded, note_line,
+                      on_terminal, print_json, print_json_line, progress_bar, resolve_db, sigint_deferred,
+                      time_window, usage_guarded, uses_stdin, DB_ENV)
+from ._options import Channel, Column, Jsonl, Notes, SampleRate, Serial, Title, reader_options, report_header
 
 __all__ = ["register", "format_check"]
 
-def _analysis_options(method, min_snr_db, max_modes, bands, channel=None) -> dict:
-    opts: dict = {}
-    if channel is not None:
-        opts["channel"] = parse_channel(channel)
+def _analysis_options(method, min_snr_db, max_modes, bands, start=None, end=None) -> dict:
+    opts: dict = time_window(start, end)
     if method is not None:
         opts["method"] = method
     if min_snr_db is not None:
@@ -36,15 +39,27 @@ def _analysis_options(method, min_snr_db, max_modes, bands, channel=None) -> dic
     return opts
 
 
+def _stream(row: dict, json_out: bool, jsonl: bool) -> None:
+    """One part's result as soon as it is known: a JSON line, or its text lines (not with --json).
+    An ERROR is a verdict like PASS and FAIL: it is listed with its reason on stdout, once."""
+    if jsonl:
+        print_json_line(row)
+    elif not json_out:
+        typer.echo(format_check(row))
+        sys.stdout.flush()
+
+
 def format_check(row: dict) -> str:
     """Plain-text lines for one part (what ``check`` prints without ``--json``)."""
+    from ..outputs import shown
+
     verdict = row["verdict"].upper()
     skipped = "  (already stored, skipped)" if row.get("skipped") else ""
-    lines = [f"{verdict:5}  {row['part_id']}  {row['path']}{skipped}"]
+    lines = [f"{verdict:5}  {shown(row['part_id'])}  {shown(row['path'])}{skipped}"]
     for r in row.get("reasons", []):
-        lines.append(f"       - {r['message']}")
+        lines.append(f"       - {shown(r['message'])}")
     for n in row.get("notes", []):
-        lines.append(f"       note: {n['message']}")
+        lines.append(f"       note: {shown(n['message'])}")
     return "\n".join(lines)
 
 
@@ -53,46 +68,60 @@ def _write_csv(rows: list[dict], limits, path: str) -> None:
     head = ["part_id", "path", "sha256", "verdict", "skipped", "mahalanobis", "uniform_shift", "reasons", "notes"]
     for j in range(1, n + 1):
         head += [f"mode{j}_f_d_hz", f"mode{j}_zeta", f"mode{j}_ratio"]
-    try:
-        with open(path, "w", newline="", encoding="utf-8") as fh:
-            w = csv.writer(fh)
-            w.writerow(head)
-            for r in rows:
-                vals = {(f["mode"], f["feature"]): f["value"] for f in r.get("features", [])}
-                line = [r["part_id"], r["path"], r.get("sha256"), r["verdict"], bool(r.get("skipped")),
-                        r.get("mahalanobis"), r.get("uniform_shift"),
-                        "; ".join(x["message"] for x in r.get("reasons", [])),
-                        "; ".join(x["message"] for x in r.get("notes", []))]
-                for j in range(1, n + 1):
-                    line += [vals.get((j, "f_hz")), vals.get((j, "zeta")), vals.get((j, "ratio"))]
-                w.writerow(["" if v is None else v for v in line])
-    except OSError as exc:
-        from ..errors import ParameterError
+    from ..outputs import atomic_write, csv_row
 
-        raise ParameterError(f"cannot write CSV '{path}': {exc.strerror or exc}; choose a writable path") from exc
+    with atomic_write(path, newline="", what="CSV") as fh:
+        w = csv.writer(fh)
+        w.writerow(head)
+        for r in rows:
+            vals = {(f["mode"], f["feature"]): f["value"] for f in r.get("features", [])}
+            line = [r["part_id"], r["path"], r.get("sha256"), r["verdict"], bool(r.get("skipped")),
+                    r.get("mahalanobis"), r.get("uniform_shift"),
+                    "; ".join(x["message"] for x in r.get("reasons", [])),
+                    "; ".join(x["message"] for x in r.get("notes", []))]
+            for j in range(1, n + 1):
+                line += [vals.get((j, "f_hz")), vals.get((j, "zeta")), vals.get((j, "ratio"))]
+            w.writerow(csv_row(line))
 
 
-def _write_report(results, rows: list[dict], limits, path: str) -> None:
-    from ..report import Section, html_table, write_report
+def _write_report(rows: list[dict], limits, path: str, options: dict, header: dict) -> None:
+    """The check report, with each analysed part's figures: the parts are analysed again here,
+    in this process, because a batch keeps no samples (the verdicts come from the batch)."""
+    from ..pipeline import analyze_file
+    from ..report import Section, _write, html_table, render_check_report
+    from ..results import Analysis
 
-    table = html_table(
-        ["part", "verdict", "reasons", "notes"],
-        [[r["part_id"], r["verdict"].upper() + (" (stored)" if r.get("skipped") else ""),
-          "; ".join(x["message"] for x in r.get("reasons", [])) or "-",
-          "; ".join(x["message"] for x in r.get("notes", [])) or "-"] for r in rows],
-    )
-    lim = html_table(["limits file", "SHA-256", "coverage", "confidence", "good parts"],
-                     [[limits.source or "-", limits.sha256 or "-", limits.coverage if limits.coverage else "-",
-                       limits.confidence if limits.confidence else "-", limits.n_parts or "-"]])
-    analyses = [r.analysis for r in results if r is not None and r.analysis is not None]
-    write_report(analyses, path, title="Part check report", figures=False,
-                 extra_sections=[Section("Pass/fail", table, anchor="checks"), Section("Limits used", lim)])
+    opts = {**limits.analysis_options(), **options}
+    analyses = []
+    for r in rows:
+        if r.get("skipped") or not r.get("path") or r["path"] == "-":
+            analyses.append(None)
+            continue
+        try:
+            analyses.append(analyze_file(r["path"], **opts))
+        except Exception as exc:  # noqa: BLE001  the verdict stands; the report says why figures are missing
+            analyses.append(Analysis.failed(r["path"], exc, settings=opts))
+    sections = []
+    stored = [r for r in rows if r.get("skipped")]
+    if stored:
+        # parts skipped as already stored: their modes from the stored record, in full
+        body = []
+        for r in stored:
+            body.append(html_table(
+                ["part", "path", "verdict", "mode", "f_d [Hz]", "u(f_d) [Hz]", "beta [1/s]", "zeta", "u(zeta)", "Q"],
+                [[r["part_id"], r["path"], r["verdict"].upper(), m.get("index"), m.get("f_d_hz"), m.get("f_d_hz_u"),
+                  m.get("beta_per_s"), m.get("zeta"), m.get("zeta_u"), m.get("q")] for m in r.get("modes", [])]
+                or [[r["part_id"], r["path"], r["verdict"].upper(), "-", "-", "-", "-", "-", "-", "-"]],
+            ))
+        sections.append(Section("Parts taken from the history (already stored, not re-analysed)", "".join(body),
+                                anchor="stored"))
+    _write(render_check_report(rows, analyses, limits, more_sections=sections, **header), path)
 
 
 def register(app: typer.Typer) -> None:
     limits_app = typer.Typer(help="Acceptance limits learned from known-good parts.", no_args_is_help=True)
 
-    @limits_app.command("learn")
+    @limits_app.command("learn", epilog=EXIT_EPILOG)
     def learn(
         files: List[str] = typer.Argument(..., help="Recordings of known-good parts (files, folders, glob patterns)."),
         output: str = typer.Option("limits.toml", "-o", "--output", help="Limits file to write (TOML)."),
@@ -104,24 +133,39 @@ def register(app: typer.Typer) -> None:
         min_snr_db: Optional[float] = typer.Option(None, help="Smallest mode SNR, dB (as for analyze)."),
         max_modes: Optional[int] = typer.Option(None, help="Most modes per recording (as for analyze)."),
         band: Optional[List[str]] = typer.Option(None, "--band", help="Band LOW:HIGH in Hz (repeatable)."),
-        channel: Optional[str] = typer.Option(None, "--channel", help=CHANNEL_HELP + " Kept in the limits file for check."),
+        channel: Channel = None,
+        column: Column = None,
+        sample_rate: SampleRate = None,
+        start: Optional[float] = START_OPTION,
+        end: Optional[float] = END_OPTION,
         jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
         force: bool = typer.Option(False, "--force", help="Overwrite an existing limits file."),
         json_out: bool = typer.Option(False, "--json", help="Print the limits as JSON."),
+        recursive: bool = RECURSIVE_OPTION,
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Learn acceptance limits from recordings of known-good parts and write them as TOML."""
         from ..pipeline import analyze_many
         from ..limits import learn_limits, write_limits
 
-        def run():
-            paths = expand_inputs(files)
-            if Path(output).exists() and not force:
-                from ..errors import ParameterError
+        opts = usage_guarded(lambda: {**_analysis_options(method, min_snr_db, max_modes, band, start, end),
+                                      **reader_options(channel, column, sample_rate)}, debug=debug)
 
+        def run():
+            from ..errors import ParameterError
+            from ..outputs import check_writable
+
+            paths = expand_inputs(files, recursive=recursive, exclude=[output])
+            if paths.problems:
+                raise ParameterError("every good part must be readable; fix the folders or patterns named above")
+            if Path(output).exists() and not force:
                 raise ParameterError(f"'{output}' exists; use --force to overwrite it or -o to choose another file")
-            opts = _analysis_options(method, min_snr_db, max_modes, band, channel)
-            analyses = analyze_many(paths, jobs=max(1, jobs), **opts)
+            check_writable(output, "limits file")
+            try:
+                analyses = analyze_many(paths, jobs=1 if uses_stdin(paths) else max(1, jobs), **opts)
+            except KeyboardInterrupt:
+                error_line(f"interrupted: no limits written to '{output}'; rerun to learn them")
+                raise typer.Exit(EXIT_INTERRUPTED) from None
             bad = [a for a in analyses if a.error is not None]
             if bad:
                 from ..errors import ParameterError
@@ -141,24 +185,34 @@ def register(app: typer.Typer) -> None:
             return
         typer.echo(f"learned limits from {lim.n_parts} good parts (coverage {lim.coverage:g}, confidence "
                    f"{lim.confidence:g}, k = {lim.k_factor:.4f}) -> {output}")
+        if lim.reader:
+            typer.echo("  read with " + ", ".join(f"{k} {v}" for k, v in lim.reader.items()))
         for m in lim.modes:
-            line = f"  mode {m.index}: f_d {m.f_hz[0]:.1f}-{m.f_hz[1]:.1f} Hz, zeta {m.zeta[0]:.3g}-{m.zeta[1]:.3g}"
+            line = (f"  mode {m.index}: f_d {' to '.join(fmt_values(m.f_hz, 6))} Hz, "
+                    f"zeta {' to '.join(fmt_values(m.zeta, 3))}")
             if m.ratio is not None:
-                line += f", ratio to mode 1 {m.ratio[0]:.5f}-{m.ratio[1]:.5f}"
+                line += f", ratio to mode 1 {' to '.join(fmt_values(m.ratio, 6))}"
             typer.echo(line)
         if lim.mahalanobis is not None:
             mh = lim.mahalanobis
-            typer.echo(f"  Mahalanobis distance of {len(mh.features)} features at most {mh.threshold:.2f}")
+            typer.echo(f"  Mahalanobis distance of {len(mh.features)} features at most {fmt_value(mh.threshold, 3)}")
 
     app.add_typer(limits_app, name="limits")
 
-    @app.command("check")
+    @app.command("check", epilog=EXIT_EPILOG)
     def check_cmd(
         files: List[str] = typer.Argument(..., help="Recordings of parts to check (files, folders, glob patterns)."),
         limits_path: str = typer.Option(..., "--limits", "-l", help="Limits file (TOML)."),
         json_out: bool = typer.Option(False, "--json", help="Print every result as JSON on stdout."),
+        jsonl: Jsonl = False,
         csv_out: Optional[str] = typer.Option(None, "--csv", help="Write one row per part to this CSV file."),
         report: Optional[str] = typer.Option(None, "--report", help="Write a self-contained HTML report."),
+        title: Title = None,
+        notes: Notes = None,
+        serial: Serial = None,
+        channel: Channel = None,
+        column: Column = None,
+        sample_rate: SampleRate = None,
         db: Optional[str] = typer.Option(None, "--db", help=f"Results database (default ${DB_ENV} or ringdown.sqlite)."),
         no_store: bool = typer.Option(False, "--no-store", help="Do not write results to the database."),
         station: Optional[str] = typer.Option(None, "--station", help="Test station name, stored with each result."),
@@ -166,54 +220,106 @@ def register(app: typer.Typer) -> None:
         part_id: Optional[str] = typer.Option(None, "--part-id", help="Regex taking the part id from the file name "
                                               "(first group, or the whole match); default the file stem."),
         force: bool = typer.Option(False, "--force", help="Re-check files already stored with the same limits."),
+        start: Optional[float] = typer.Option(None, "--start", help="Analyse from this time on, s from the record's "
+                                              "first sample (default: the window the limits were learned with)."),
+        end: Optional[float] = typer.Option(None, "--end", help="Analyse up to this time, s (default: as learned)."),
         jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
+        recursive: bool = RECURSIVE_OPTION,
+        scheduler: Optional[str] = typer.Option(None, "--scheduler", help="Run on a Dask cluster: scheduler ADDRESS "
+                                                "(tcp://HOST:8786) or local:N worker processes (needs the 'cluster' extra)."),
+        parquet_out: Optional[str] = typer.Option(None, "--parquet", help="Also append one row per mode to this Parquet "
+                                                  "dataset folder, as results arrive (needs the 'cluster' extra)."),
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Check parts against limits: PASS or FAIL with every reason; store each result."""
         from ..check import iter_check_files
+        from ..errors import RingdownError
         from ..limits import read_limits
         from ..store import ResultStore, file_sha256, part_id_from_path
 
         t0 = time.monotonic()
+        if json_out and jsonl:
+            from ._common import usage_error
+
+            usage_error("--json and --jsonl are exclusive: --json prints one document at the end, --jsonl one "
+                        "line per part as it is checked; choose one")
+        overrides = usage_guarded(lambda: reader_options(channel, column, sample_rate), debug=debug)
+        usage_guarded(lambda: part_id_from_path("x", part_id), debug=debug)  # a bad regex is a usage error
         lim = guarded(lambda: read_limits(limits_path), debug=debug)
-        paths = expand_inputs(files)
+        db_path = None if no_store else resolve_db(db)
+        paths = expand_inputs(files, recursive=recursive, exclude=[csv_out, report, db_path, limits_path])
+        n_jobs = usage_guarded(lambda: 1 if uses_stdin(paths) else max(1, jobs), debug=debug)
         if not paths:
             error_line(f"no recordings found in {', '.join(files)}; give files, folders or glob patterns")
             raise typer.Exit(EXIT_ERROR)
-        ids = guarded(lambda: [part_id_from_path(p, part_id) for p in paths], debug=debug)
-        store = None
-        if not no_store:
-            store = guarded(lambda: ResultStore(resolve_db(db)), debug=debug)
-            guarded(lambda: store.record_limits(lim), debug=debug)
+        ids = [part_id_from_path(p, part_id) for p in paths]
+
+        def prepare():
+            from ..outputs import check_writable, remove_stale
+
+            for out, what in ((csv_out, "CSV"), (report, "report")):
+                if out:
+                    check_writable(out, what)
+            st = None
+            if db_path is not None:
+                st = ResultStore(db_path)
+                try:
+                    st.record_limits(lim)
+                except Exception:
+                    st.close()
+                    raise
+            for out in (csv_out, report):
+                if out:
+                    remove_stale(out)  # a killed run must not leave the last run's output looking current
+            return st
+
+        store = guarded(prepare, debug=debug)
+        rows: list[dict | None] = [None] * len(paths)
+        results = [None] * len(paths)
+        interrupted = store_failed = False
         try:
-            rows: list[dict | None] = [None] * len(paths)
-            results = [None] * len(paths)
             shas = [file_sha256(p) for p in paths]
             todo = []
             for i, p in enumerate(paths):
-                old = None if (store is None or force or shas[i] is None) else store.find_check(shas[i], lim.sha256)
+                old = None if (store is None or force or shas[i] is None) else guarded(
+                    lambda: store.find_check(shas[i], lim.sha256), debug=debug)
                 if old is not None:
-                    rows[i] = {"part_id": ids[i], "path": p, "sha256": shas[i], "verdict": old.verdict,
-                               "skipped": True, "stored_id": old.id, "reasons": list(old.reasons),
-                               "notes": list(old.notes), "features": [], "mahalanobis": old.mahalanobis,
-                               "uniform_shift": old.uniform_shift}
+                    rows[i] = _stored_row(old, ids[i], p, shas[i])
+                    _stream(rows[i], json_out, jsonl)
                 else:
                     todo.append(i)
             prog, task = progress_bar(on_terminal(json_out) and len(todo) > 1, len(todo), "checking")
-            with prog:
-                it = iter_check_files([paths[i] for i in todo], lim, jobs=max(1, jobs))
+            from ..cluster import connect
+            from ..parquet import open_sink
+
+            cluster = guarded(lambda: connect(scheduler), debug=debug)
+            sink = guarded(lambda: open_sink(parquet_out), debug=debug)
+            with cluster as client, sink, prog:
+                it = iter_check_files([paths[i] for i in todo], lim, jobs=n_jobs, on_notice=note_line,
+                                      options={**overrides, **time_window(start, end)}, client=client)
                 for pos, res in it:
                     i = todo[pos]
                     if res.sha256 is None and shas[i] is not None:
                         res = replace(res, sha256=shas[i])
-                    stored = None
-                    if store is not None:
-                        r_ = res
-                        stored = guarded(lambda: store.record_check(r_, part_id=ids[i], station=station,
-                                                                    operator=operator, force=force), debug=debug)
-                    results[i] = res
-                    rows[i] = {"part_id": ids[i], "skipped": False, "stored_id": stored, **res.to_dict()}
+                    with sigint_deferred():  # stored and counted whole, or not at all
+                        # to the dataset before the database: whatever is stored is in the dataset too
+                        guarded(lambda: sink.add_check(res, part_id=ids[i], station=station, operator=operator),
+                                debug=debug)
+                        stored = None
+                        if store is not None and not store_failed:
+                            try:
+                                stored = store.record_check(res, part_id=ids[i], station=station,
+                                                            operator=operator, force=force)
+                            except RingdownError as exc:
+                                error_line(f"{exc}; results from here on are not stored")
+                                store_failed = True
+                        results[i] = res
+                        rows[i] = {"part_id": ids[i], "skipped": False, "stored_id": stored, **res.to_dict()}
                     prog.advance(task)
+                    _stream(rows[i], json_out, jsonl)
+                guarded(sink.close, debug=debug)
+        except KeyboardInterrupt:
+            interrupted = True
         finally:
             if store is not None:
                 store.close()
@@ -224,10 +330,16 @@ def register(app: typer.Typer) -> None:
         elapsed = time.monotonic() - t0
         summary = {"parts": len(rows_f), "passed": counts["pass"], "failed": counts["fail"],
                    "errors": counts["error"], "skipped": skipped, "time_s": round(elapsed, 3)}
+        from .analyze import _try
+
+        window = time_window(start, end)
+        failed_outputs = 0
         if csv_out:
-            guarded(lambda: _write_csv(rows_f, lim, csv_out), debug=debug)
+            failed_outputs += _try(lambda: _write_csv(rows_f, lim, csv_out), debug)
         if report:
-            guarded(lambda: _write_report(results, rows_f, lim, report), debug=debug)
+            header = report_header(title, notes, serial, station=station, operator=operator,
+                                   limits=lim.source, **{"limits SHA-256": lim.sha256})
+            failed_outputs += _try(lambda: _write_report(rows_f, lim, report, {**overrides, **window}, header), debug)
         if json_out:
             from .._version import __version__
 
@@ -235,12 +347,23 @@ def register(app: typer.Typer) -> None:
                         "limits": {"path": lim.source, "sha256": lim.sha256},
                         "station": station, "operator": operator,
                         "results": rows_f, "summary": summary})
-        else:
-            for r in rows_f:
-                typer.echo(format_check(r))
         line = (f"{summary['parts']} parts: {summary['passed']} passed, {summary['failed']} failed, "
                 f"{summary['errors']} errors" + (f" ({skipped} already stored, skipped)" if skipped else "")
                 + f" in {elapsed:.1f} s")
-        typer.echo(line, err=json_out)
-        code = EXIT_ERROR if counts["error"] else EXIT_FAIL if counts["fail"] else EXIT_OK
+        typer.echo(line, err=json_out or jsonl)
+        if interrupted:
+            error_line(f"interrupted: {len(rows_f)} of {len(paths)} done" + (" (stored)" if store is not None else "")
+                       + ", rerun to resume")
+            raise typer.Exit(EXIT_INTERRUPTED)
+        bad = counts["error"] or failed_outputs or store_failed or paths.problems
+        code = EXIT_ERROR if bad else EXIT_FAIL if counts["fail"] else EXIT_OK
         raise typer.Exit(code)
+
+
+def _stored_row(old, part_id: str, path: str, sha: str) -> dict:
+    """The row of a part skipped as already stored: the stored record in full (features, modes)."""
+    rec = dict(old.result) if old.result else {
+        "reasons": list(old.reasons), "notes": list(old.notes), "features": [], "modes": [],
+        "mahalanobis": old.mahalanobis, "uniform_shift": old.uniform_shift, "verdict": old.verdict}
+    rec.update(part_id=part_id, path=path, sha256=sha, verdict=old.verdict, skipped=True, stored_id=old.id)
+    return rec

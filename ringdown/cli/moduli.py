@@ -16,18 +16,19 @@ from typing import Optional
 import typer
 
 from ..errors import ParameterError, RingdownError
-from ._common import CHANNEL_HELP, DEBUG_OPTION, EXIT_OK, guarded, parse_channel, print_json
+from ..numfmt import fmt_pm, fmt_value, fmt_values
+from ._common import DEBUG_OPTION, EXIT_EPILOG, EXIT_OK, guarded, print_json
+from ._options import Channel, Column, Notes, SampleRate, Serial, Title, reader_options, report_header
 
 __all__ = ["register", "format_table"]
 
 
 def _pm(v, u, scale: float = 1.0) -> str:
-    """``value ± u`` (GUM 7.2.6: u to two digits), both divided by ``scale``; "-" when missing."""
-    from ..report import format_pm
-
+    """``v(u)`` in the one number format (:func:`ringdown.numfmt.fmt_pm`), both divided by ``scale``;
+    "-" when missing."""
     if v is None:
         return "-"
-    return format_pm(v / scale, None if u is None else u / scale)
+    return fmt_pm(v / scale, None if u is None else u / scale, missing="-")
 
 
 def format_table(result) -> str:
@@ -50,7 +51,7 @@ def format_table(result) -> str:
         (f"Poisson's ratio ({result.poisson_source})", _pm(result.poisson, result.poisson_u), "", share["poisson"]),
         ("density", _pm(result.density_kg_per_m3, result.density_kg_per_m3_u), "kg/m^3", share["density_kg_per_m3"]),
     ]
-    head = ("quantity", "value ± u (k = 1)", "unit", "dominant input (share of variance)")
+    head = ("quantity", "value(u), k = 1", "unit", "dominant input (share of variance)")
     widths = [max(len(r[i]) for r in [head, *rows]) for i in range(4)]
     fmt = lambda r: "  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip()  # noqa: E731
     lines.append(fmt(head))
@@ -64,14 +65,15 @@ def format_table(result) -> str:
         src = "" if m.source is None else f", {Path(m.source).name} mode {m.mode_index}"
         lines.append(f"  {m.role:<9}  f = {_pm(m.f_hz, m.f_hz_u)} Hz, loss factor {eta}{src}")
         lines.append(f"  {'':<9}  rule: {m.rule}")
-    factors = f"T1 = {result.t1:.6g}"
+    factors = f"T1 = {fmt_value(result.t1, 6)}"
     if result.r_factor is not None:
-        factors += f", R = {result.r_factor:.6g}"
+        factors += f", R = {fmt_value(result.r_factor, 6)}"
     lines.append(f"  {factors}; {result.iterations} iteration(s) of the Poisson's-ratio loop")
     lines.append("predicted (from E and 0 <= Poisson's ratio <= 0.5):")
     for p in result.predictions:
-        found = "" if p["found_hz"] is None else f", found {p['found_hz']:.6g}"
-        lines.append(f"  {p['mode']:<20} {p['f_hz']:.6g} Hz (window {p['low_hz']:.6g}-{p['high_hz']:.6g}{found})")
+        found = "" if p["found_hz"] is None else f", found {fmt_value(p['found_hz'], 6)}"
+        window = " to ".join(fmt_values([p["low_hz"], p["high_hz"]], 6))
+        lines.append(f"  {p['mode']:<20} {fmt_value(p['f_hz'], 6)} Hz (window {window}{found})")
     if result.warnings:
         lines.append("warnings:")
         lines.extend(f"  [{w.code}] {w.message}" for w in result.warnings)
@@ -88,29 +90,30 @@ def _write_csv(result, out: Path) -> None:
     vals = {"e_pa": (result.e_pa, result.e_pa_u), "g_pa": (result.g_pa, result.g_pa_u),
             "poisson": (result.poisson, result.poisson_u),
             "density_kg_per_m3": (result.density_kg_per_m3, result.density_kg_per_m3_u)}
+    from ..errors import RingdownError
+    from ..outputs import atomic_write, csv_row
+
     try:
-        with open(out, "w", newline="", encoding="utf-8") as fh:
+        with atomic_write(out, newline="", what="CSV file") as fh:
             w = csv.writer(fh)
             w.writerow(["quantity", "value", "u", "unit", "dominant_input", "shape", "f_flexural_hz",
                         "f_torsional_hz", "loss_factor_flexural", "loss_factor_torsional", "t1", "r_factor"])
             t = result.torsional
             for q, (v, u) in vals.items():
-                w.writerow([q, "" if v is None else v, "" if u is None else u, unit[q], result.dominant(q) or "",
-                            result.shape, result.flexural.f_hz, "" if t is None else t.f_hz,
-                            "" if result.flexural.loss_factor is None else result.flexural.loss_factor,
-                            "" if t is None or t.loss_factor is None else t.loss_factor, result.t1,
-                            "" if result.r_factor is None else result.r_factor])
-    except OSError as exc:
-        raise _OutputError(f"cannot write CSV file '{out}': {exc.strerror or exc}; check the folder and "
-                           "permissions") from exc
+                w.writerow(csv_row([q, v, u, unit[q], result.dominant(q), result.shape, result.flexural.f_hz,
+                                    None if t is None else t.f_hz, result.flexural.loss_factor,
+                                    None if t is None else t.loss_factor, result.t1, result.r_factor]))
+    except RingdownError as exc:
+        raise _OutputError(str(exc)) from None
 
 
-def _write_report(result, out: Path, settings: dict) -> None:
+def _write_report(result, out: Path, settings: dict, header: dict) -> None:
     from ..report import moduli_section, write_report
 
+    header = {**header, "title": header.get("title") or "Elastic moduli from a tap"}
     try:
-        write_report(list(result.analyses), out, title="Elastic moduli from a tap", settings=settings,
-                     extra_sections=[moduli_section(result)])
+        write_report(list(result.analyses), out, settings=settings, extra_sections=[moduli_section(result)],
+                     **header)
     except ParameterError as exc:
         raise _OutputError(str(exc)) from exc
 
@@ -141,9 +144,9 @@ def register(app: typer.Typer) -> None:
         help=(
             "Young's modulus, shear modulus and Poisson's ratio of a bar or rod from its flexural "
             "(and torsional) tap recordings or frequencies, after ASTM E1876. Dimensions in mm, "
-            "mass in g; each may carry a standard uncertainty (--u-...). Exit 0 when done, 2 when "
-            "an input cannot be used."
+            "mass in g; each may carry a standard uncertainty (--u-...)."
         ),
+        epilog=EXIT_EPILOG,
     )
     def moduli_cmd(
         flexural_file: Optional[str] = typer.Argument(None, metavar="FLEX", help="Recording of the flexural tap."),
@@ -178,10 +181,15 @@ def register(app: typer.Typer) -> None:
                                                 help="Poisson's ratio: used for T1 without a torsional mode; "
                                                      "otherwise the loop's first guess."),
         u_poisson: Optional[float] = typer.Option(None, "--u-poisson", help="Standard uncertainty of --poisson."),
-        channel: Optional[str] = typer.Option(None, "--channel", help=CHANNEL_HELP),
+        channel: Channel = None,
+        column: Column = None,
+        sample_rate: SampleRate = None,
         json_out: bool = typer.Option(False, "--json", help="Print the JSON document instead of the table."),
         csv_out: Optional[Path] = typer.Option(None, "--csv", help="Also write one row per quantity to this CSV file."),
         report_out: Optional[Path] = typer.Option(None, "--report", help="Also write a self-contained HTML report."),
+        title: Title = None,
+        notes: Notes = None,
+        serial: Serial = None,
         debug: bool = DEBUG_OPTION,
     ) -> None:
         from ..moduli import CylindricalRod, RectangularBar, moduli
@@ -217,7 +225,7 @@ def register(app: typer.Typer) -> None:
             tors = torsional_file if torsional_file is not None else torsional_hz
             return moduli(spec, flex, tors, flexural_hz_u=u_flexural_hz, torsional_hz_u=u_torsional_hz,
                           flexural_mode=flexural_mode, torsional_mode=torsional_mode, poisson=poisson,
-                          poisson_u=u_poisson, analysis_options={"channel": parse_channel(channel)})
+                          poisson_u=u_poisson, analysis_options=reader_options(channel, column, sample_rate))
 
         result = guarded(run, debug=debug)
         if json_out:
@@ -229,5 +237,6 @@ def register(app: typer.Typer) -> None:
         if report_out is not None:
             settings = {"command": "moduli", "shape": shape, "poisson": poisson, "flexural_mode": flexural_mode,
                         "torsional_mode": torsional_mode}
-            guarded(lambda: _write_report(result, report_out, settings), debug=debug)
+            guarded(lambda: _write_report(result, report_out, settings, report_header(title, notes, serial)),
+                    debug=debug)
         raise typer.Exit(EXIT_OK)

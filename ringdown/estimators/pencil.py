@@ -327,6 +327,13 @@ def estimate(band: Band, window: Window) -> list[Estimate]:
     t_last = t_first + (n - 1) * dec / fs_b
     converged = bool(res.success) and res.status > 0
     env = np.abs(band.z)
+    model = None
+    if poles_f.size > 1:
+        # the sum of all modes fitted here, for plots: what the band envelope is compared with
+        tt = np.asarray(band.t_s, dtype=float) - t_first
+        model = np.full(tt.shape, np.nan)
+        after = tt >= 0
+        model[after] = np.abs(np.exp(np.outer(tt[after], poles_f)) @ c)
     out: list[Estimate] = []
     for i in order:
         i = int(i)
@@ -348,6 +355,8 @@ def estimate(band: Band, window: Window) -> list[Estimate]:
             fit_amplitude=amp,
             fit_beta_per_s=beta,
             fit_t0_s=float(window.start_s),
+            model_envelope=model,
+            n_model_modes=int(poles_f.size),
         )
         out.append(
             Estimate(

@@ -6,7 +6,9 @@ soundfile to a temporary directory. Times ``ringdown.analyze_file`` against
 ``soundfile.read`` + one ``numpy.fft.rfft`` of the whole record, in the same run, and prints the
 median of several repeats and their ratio as a markdown table. Asserts nothing.
 
-Run: ``python tests/benchmarks/speed.py [REPEATS]``.
+Run: ``python tests/benchmarks/speed.py [REPEATS]``. Throughput of whole batches (files per second
+on the local process pool and on a Dask LocalCluster of 1 and 2 workers) is
+``tests/benchmarks/cluster.py``.
 """
 
 from __future__ import annotations
