@@ -762,6 +762,9 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
                          noise_f=ctx.noise_f, noise_p=ctx.noise_p)
     modes = []
     for est in ests:
+        if DB_PER_NEPER * est.beta_per_s * t_rest < 6.0:
+            # decays less than 6 dB over the whole hit: a steady tone, as in _is_stationary
+            continue
         density = float(detect.noise_density(est.f_d_hz, ctx.noise_f, ctx.noise_p))
         # band noise over the mode's own half-power bandwidth beta / pi (as |z| of a band that wide)
         noise_rms = math.sqrt(max(2.0 * density * est.beta_per_s / math.pi, 1e-300))

@@ -130,3 +130,30 @@ def test_rejections_are_named_in_warnings_and_json():
     assert all(r["reason"] in REJECTION_REASONS for r in d["rejected"])
     msgs = [w.message for w in a.warnings if w.code == "candidate_rejected"]
     assert any("1700" in m for m in msgs) and any("2600" in m for m in msgs)
+
+
+def test_close_pair_one_half_power_bandwidth_apart():
+    # two equal modes 1 half-power bandwidth (beta / pi) apart at 40 dB: two modes, beta within 10 %
+    beta = 10.0
+    x = ringdown_modes([(1000.0, beta, 1.0), (1000.0 + beta / math.pi, beta, 1.0, 1.0)], sample_rate=8000.0,
+                       duration_s=2.0, snr_db=40.0, seed=3)
+    a = analyze(x, 8000.0)
+    assert len(a.modes) == 2, [m.f_d_hz for m in a.modes]
+    for m in a.modes:
+        assert m.beta_per_s == pytest.approx(beta, rel=0.10)
+
+
+@pytest.mark.xfail(strict=True, reason="18 of the 20 modes are found (182 and 1541 Hz are missed, and not named "
+                                       "as rejected: neither search proposed them)")
+def test_twenty_modes_40_db_apart():
+    rng = np.random.default_rng(1)
+    f = np.geomspace(150, 6000, 20)
+    q = np.geomspace(20, 2000, 20)
+    rng.shuffle(q)
+    amp = 10 ** (-np.linspace(0, 40, 20) / 20)
+    rng.shuffle(amp)
+    modes = [(fi, math.pi * fi / qi, ai, rng.uniform(0, 6)) for fi, qi, ai in zip(f, q, amp)]
+    a = analyze(ringdown_modes(modes, sample_rate=16000.0, duration_s=2.0, snr_db=80.0, seed=2), 16000.0)
+    found = [m.f_d_hz for m in a.modes]
+    missed = [fi for fi, b, *_ in modes if not any(abs(g - fi) < max(b / math.pi, 0.002 * fi) for g in found)]
+    assert missed == []
