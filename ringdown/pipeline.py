@@ -32,6 +32,11 @@ __all__ = ["analyze", "analyze_recording", "analyze_file", "analyze_many", "iter
 MIN_SAMPLES = 64
 #: Largest sample magnitude accepted: power sums of larger values overflow float64.
 MAX_ABS_SAMPLE = 1e100
+#: How modes are found: ``"spectral"`` (the default: spectral peaks of the decay judged against
+#: the noise spectrum) or ``"model"`` (experimental: matrix-pencil candidates from the onset on,
+#: judged by matched-filter SNR, with fast decays fitted on the raw record; see ``detect.py``;
+#: it does not yet meet the detection benchmark's targets, see README).
+DETECTIONS = ("spectral", "model")
 #: Estimators that resolve several modes in one band jointly.
 _MULTI_MODE = frozenset({"pencil"})
 
@@ -48,8 +53,11 @@ class AnalysisOptions:
     keep_double_hits: bool = False
     start_s: float | None = None
     end_s: float | None = None
+    detection: str = "spectral"
 
     def __post_init__(self) -> None:
+        if self.detection not in DETECTIONS:
+            raise ParameterError(f"unknown detection {self.detection!r}; choose one of {', '.join(DETECTIONS)}")
         for name in ("start_s", "end_s"):
             v = getattr(self, name)
             if v is not None:
@@ -107,6 +115,7 @@ class AnalysisOptions:
             "keep_double_hits": self.keep_double_hits,
             "start_s": self.start_s,
             "end_s": self.end_s,
+            "detection": self.detection,
         }
 
 
@@ -126,6 +135,7 @@ def analyze(
     keep_double_hits: bool = False,
     start_s: float | None = None,
     end_s: float | None = None,
+    detection: str = "spectral",
 ) -> Analysis:
     """Measure every mode of a ring-down record given as an array.
 
@@ -153,6 +163,13 @@ def analyze(
         Analyse only the samples from ``start_s`` to ``end_s`` (seconds from the first sample;
         ``None``: the record's start or end), for a user who knows where the decay is. Times in
         the result stay measured from the record's first sample.
+    detection : {"spectral", "model"}
+        How modes are found. ``"spectral"`` (default): peaks of the decay's spectrum judged
+        against the measured noise spectrum. ``"model"`` (experimental): matrix-pencil candidates
+        over the whole band from the hit onset on, judged by their matched-filter SNR, with fast
+        decays fitted on the raw record (:mod:`ringdown.detect`); it finds heavily damped modes
+        the default misses but does not yet meet the detection benchmark's targets
+        (``tests/benchmarks/detection.py``).
 
     Returns
     -------
@@ -171,6 +188,7 @@ def analyze(
     return analyze_recording(
         rec, method=method, bands=bands, max_modes=max_modes, min_snr_db=min_snr_db,
         min_hit_snr_db=min_hit_snr_db, keep_double_hits=keep_double_hits, start_s=start_s, end_s=end_s,
+        detection=detection,
     )
 
 
@@ -573,7 +591,8 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
         clip_end = int(clip_in[-1]) + 1
         warnings.append(Notice("clipped", f"{clip_in.size} samples clipped between {(clip_in[0] + i0) / fs:.6g} and "
                                           f"{(clip_end + i0) / fs:.6g} s; fits start after the clipping ends"))
-    decay_from = max(span.onset, clip_end or 0)
+    model = opts.detection == "model"
+    decay_from = max(span.onset if model else span.peak, clip_end or 0)
     peak_value = float(np.max(np.abs(x[span.onset:seg_end])))
     hit_snr = float(ctx.level[span.peak] - ctx.noise_db)
 
@@ -594,12 +613,17 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
                        onset_s=onset_s, clip_end=None if clip_end is None else clip_end + i0, seg_end=seg_end + i0,
                        pre_rms=pre_rms)
     rejected: list[Rejected] = []
-    start = _free_decay_start(ctx, span, clip_end) if span.kind == "impulse" else max(span.onset, clip_end or 0)
+    cands: list[Candidate] = []
     if opts.bands is not None:
         groups = [([], lo, hi, []) for lo, hi in opts.bands]
-        cands: list[Candidate] = []
-    else:
+    elif model:
+        start = _free_decay_start(ctx, span, clip_end) if span.kind == "impulse" else max(span.onset, clip_end or 0)
         cands, groups = _candidates(ctx, start, seg_end, rejected, clipped=clip_end is not None)
+    else:
+        decay = x[decay_from:seg_end]
+        peaks = find_peaks(decay, fs, max_peaks=opts.max_modes, noise_psd=(ctx.noise_f, ctx.noise_p))
+        groups = [(g, lo, hi, []) for g, lo, hi in
+                  group_bands(peaks, sample_rate=fs, resolution_hz=fs / decay.shape[0], barriers_hz=ctx.tones)]
     modes: list[Mode] = []
     failed: list[str] = []
     for peaks_g, lo, hi, group_cands in groups:

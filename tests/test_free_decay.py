@@ -148,9 +148,7 @@ def test_static_deflection_released():
 
 @pytest.mark.parametrize("q, detune", [
     (20.0, -0.06),
-    pytest.param(20.0, 0.0, marks=pytest.mark.xfail(strict=True, reason=(
-        "issue 10's raw-record fit reports the start-up transient of a drive at resonance (it decays with "
-        "the circuit's own rate while the drive runs) as a mode; not told apart from a free decay yet"))),
+    (20.0, 0.0),
     (100.0, -0.06),
 ])
 def test_drive_never_switched_off_is_no_mode(q, detune):

@@ -256,9 +256,6 @@ def friction_record(mu_n_over_k: float, seed: int = 606):
     return x, fs
 
 
-@pytest.mark.xfail(strict=True, reason="the parametric mode search (issue 10) also sees the 3rd and 7th harmonics "
-                   "that dry friction generates (real signal content at 600 and 1400 Hz) and reports them as modes; "
-                   "telling harmonics of a non-linear decay from modes is not done yet")
 def test_dry_friction_is_amplitude_dependent():
     mu = 0.001
     x, fs = friction_record(mu)
