@@ -85,7 +85,7 @@ DEFAULT_UNIFORM_SHIFT_TOLERANCE = 0.002
 #: Reader options (``ringdown.read_recording`` keywords) kept in the ``[reader]`` table.
 READER_KEYS = ("channel", "column", "sample_rate")
 _ANALYSIS_KEYS = ("method", "bands", "max_modes", "min_snr_db", "min_hit_snr_db", "keep_double_hits", "start_s",
-                  "end_s") + READER_KEYS
+                  "end_s", "detection") + READER_KEYS
 
 
 # --------------------------------------------------------------------------------------------

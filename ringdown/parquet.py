@@ -81,6 +81,7 @@ COLUMNS: tuple[tuple[str, str, str], ...] = (
     ("amplitude", _F, "amplitude at the start of the fit, recording units"),
     ("snr_db", _F, "mode over its band noise at the start of the fit, dB"),
     ("method", "string", "estimator of the reported figures"),
+    ("fit_path", "string", "'band' (band-filtered envelope) or 'raw' (fast decay fitted on the record itself)"),
     ("fit_start_s", _F, "fit window start, s"), ("fit_end_s", _F, "fit window end, s"),
     ("cycles_fitted", _F, "cycles inside the fit window"),
     ("n_hits", "int32", "hits combined into the mode"),

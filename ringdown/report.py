@@ -242,7 +242,7 @@ def _fit_row(m) -> list[str]:
         _pm(m.f_r_hz, m.f_r_hz_u),
         _pm(m.decay_db_per_s, m.decay_db_per_s_u),
         _pm(m.t60_s, m.t60_s_u),
-        str(m.method),
+        str(m.method) + (" (raw record)" if getattr(m, "fit_path", "band") == "raw" else ""),
         window,
         fmt_fixed(m.cycles_fitted, 0, missing=_DASH),
         fmt_fixed(m.snr_db, 1, missing=_DASH),

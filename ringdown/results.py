@@ -25,6 +25,7 @@ __all__ = [
     "ModeTrace",
     "Mode",
     "Hit",
+    "Rejected",
     "Analysis",
     "results_document",
 ]
@@ -143,7 +144,7 @@ _MODE_KEYS = (
     "f_n_hz", "f_n_hz_u", "zeta", "zeta_u", "q", "q_u",
     "loss_factor", "loss_factor_u", "log_decrement", "log_decrement_u",
     "decay_db_per_s", "decay_db_per_s_u", "t60_s", "t60_s_u", "f_r_hz", "f_r_hz_u",
-    "amplitude", "snr_db", "method", "fit_start_s", "fit_end_s", "cycles_fitted",
+    "amplitude", "snr_db", "method", "fit_path", "fit_start_s", "fit_end_s", "cycles_fitted",
     "n_hits", "band_hz", "warnings", "cross_checks", "damping_vs_amplitude",
 )  # fmt: skip
 
@@ -164,6 +165,10 @@ class Mode:
         Mode envelope at the start of the fit window over its band noise floor, dB.
     method : str
         Estimator that produced ``derived``.
+    fit_path : str
+        ``"band"``: fitted on the mode's band-filtered complex envelope; ``"raw"``: a fast decay
+        fitted on the unfiltered record itself (no band filter could pass it unbiased; see
+        :mod:`ringdown.estimators.real`).
     fit_start_s, fit_end_s : float or None
         Fit window, seconds from the start of the recording.
     cycles_fitted : float or None
@@ -195,6 +200,7 @@ class Mode:
     cross_checks: dict[str, Estimate] = field(default_factory=dict)
     damping_vs_amplitude: tuple[dict, ...] | None = None
     trace: ModeTrace | None = None
+    fit_path: str = "band"
 
     def __getattr__(self, name: str) -> Any:
         # f_d_hz, beta_per_s, q, ... read straight through to the derived quantities.
@@ -218,6 +224,7 @@ class Mode:
             amplitude=self.amplitude,
             snr_db=self.snr_db,
             method=self.method,
+            fit_path=self.fit_path,
             fit_start_s=self.fit_start_s,
             fit_end_s=self.fit_end_s,
             cycles_fitted=self.cycles_fitted,
@@ -230,6 +237,55 @@ class Mode:
             else [dict(r) for r in self.damping_vs_amplitude],
         )
         return {k: d[k] for k in _MODE_KEYS}
+
+
+#: Why a candidate mode was not reported (the ``reason`` of a :class:`Rejected`).
+REJECTION_REASONS = {
+    "near_noise": "its matched-filter SNR is below the noise threshold",
+    "few_cycles": "it completes less than one cycle before it reaches the noise",
+    "steady_tone": "it does not decay (a steady tone)",
+    "fit_failed": "its band could not be fitted",
+    "unresolved": "the fit merged it with a neighbour",
+    "max_modes": "more modes were found than max_modes allows",
+}
+
+
+@dataclass(frozen=True, slots=True)
+class Rejected:
+    """A candidate mode that a search proposed and that is not reported as a mode.
+
+    Attributes
+    ----------
+    f_hz : float
+        Frequency of the candidate, Hz.
+    beta_per_s : float or None
+        Its decay rate where the search estimated one, 1/s.
+    snr_db : float or None
+        Its matched-filter SNR where measured, dB.
+    reason : str
+        One of ``REJECTION_REASONS``.
+    detail : str
+        Plain-words detail (the numbers behind the reason).
+    hit : int
+        1-based index of the hit whose decay held it (0 before the pipeline numbers them).
+    """
+
+    f_hz: float
+    beta_per_s: float | None
+    snr_db: float | None
+    reason: str
+    detail: str
+    hit: int = 0
+
+    def to_dict(self) -> dict:
+        return {"f_hz": self.f_hz, "beta_per_s": self.beta_per_s, "snr_db": self.snr_db, "reason": self.reason,
+                "detail": self.detail, "hit": self.hit}
+
+    def notice(self) -> Notice:
+        """The warning that names this rejection."""
+        beta = "" if self.beta_per_s is None else f", beta {self.beta_per_s:.4g} 1/s"
+        return Notice("candidate_rejected", f"candidate at {self.f_hz:.2f} Hz{beta} not reported ({self.reason}): "
+                                            f"{self.detail}")
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -255,6 +311,9 @@ class Hit:
     warnings : tuple of Notice
     modes : tuple of Mode
         Modes measured in this hit's decay alone.
+    rejected : tuple of Rejected
+        Candidates of this hit's decay not reported as modes (serialised once, under
+        ``Analysis.rejected``).
     start_kind : str
         How the start of the free decay was found: ``"impulse"`` (a sharp rise, then the decay),
         ``"switch-off"`` (a steady forced oscillation stopped: the level left its plateau and
@@ -270,6 +329,7 @@ class Hit:
     used: bool = True
     warnings: tuple[Notice, ...] = ()
     modes: tuple[Mode, ...] = ()
+    rejected: tuple[Rejected, ...] = ()
     start_kind: str = "impulse"
 
     def to_dict(self) -> dict:
@@ -291,7 +351,8 @@ class Analysis:
     """Everything ringdown found in one recording, or why it could not.
 
     ``error`` is ``None`` for a recording that was analysed; otherwise it holds the reason and
-    ``modes`` and ``hits`` are empty. ``recording`` keeps the samples for plots (not serialised).
+    ``modes`` and ``hits`` are empty. ``rejected`` lists every candidate mode of every hit that
+    is not reported, with the reason. ``recording`` keeps the samples for plots (not serialised).
     ``channel`` is the channel's name or number as the reader gives it, ``unit`` the unit of the
     samples as the file states it (TDMS, UFF 58, MATLAB, HDF5), ``None`` when unknown.
     ``noise_source`` says where the noise spectrum came from: ``"pre_trigger"`` (before the first
@@ -313,6 +374,7 @@ class Analysis:
     noise_floor: float | None = None
     noise_source: str | None = None
     recording: Any = None
+    rejected: tuple[Rejected, ...] = ()
     unit: str | None = None
 
     @property
@@ -354,6 +416,7 @@ class Analysis:
             "hits": [h.to_dict() for h in self.hits],
             "modes": [m.to_dict() for m in self.modes],
             "warnings": [w.to_dict() for w in self.warnings],
+            "rejected": [r.to_dict() for r in self.rejected],
             "error": None if self.error is None else self.error.to_dict(),
         }
 

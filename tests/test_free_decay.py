@@ -146,7 +146,11 @@ def test_static_deflection_released():
     check_free_decay(an, f_d, beta, f_d, t_rel, kind="release")
 
 
-@pytest.mark.parametrize("q, detune", [(20.0, -0.06), (20.0, 0.0), (100.0, -0.06)])
+@pytest.mark.parametrize("q, detune", [
+    (20.0, -0.06),
+    (20.0, 0.0),
+    (100.0, -0.06),
+])
 def test_drive_never_switched_off_is_no_mode(q, detune):
     # the same circuit driven from 2 ms into the record to its end: a steady forced response
     # after the start-up transient, never a free decay; it must not be reported as a mode

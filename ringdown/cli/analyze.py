@@ -91,10 +91,17 @@ def format_table(analysis, columns: tuple[str, ...] = DEFAULT_COLUMNS) -> str:
     for r in rows:
         lines.append("  " + "  ".join(v.rjust(w) for v, w in zip(r, widths)).rstrip())
     for w in analysis.warnings:
-        lines.append(f"  warning [{w.code}]: {w.message}")
+        if w.code != "candidate_rejected":  # listed below, one line each
+            lines.append(f"  warning [{w.code}]: {w.message}")
     for m in analysis.modes:
         for w in m.warnings:
             lines.append(f"  mode {m.index} [{w.code}]: {w.message}")
+    rejected = getattr(analysis, "rejected", ())
+    if rejected:
+        lines.append(f"  {len(rejected)} candidate(s) not reported as modes:")
+        for r in rejected:
+            beta = "" if r.beta_per_s is None else f", beta {r.beta_per_s:.4g} 1/s"
+            lines.append(f"    hit {r.hit}: {r.f_hz:.2f} Hz{beta}: {r.reason} ({r.detail})")
     for h in analysis.hits:
         if h.start_kind != "impulse":
             before = "the drive before it is not a mode" if h.start_kind == "switch-off" else "a held deflection let go"

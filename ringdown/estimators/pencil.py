@@ -141,8 +141,8 @@ def _pencil(zd: np.ndarray, fs: float, noise_var: float | None, g: float) -> np.
     order = int(np.sum((sv[:max_order] ** 2 > SV_MARGIN * edge) & (sv[:max_order] > floor)))
     if order == 0:
         return np.zeros(0, dtype=complex)
-    # rows of vh span the conjugated signal vectors; w has columns spanning (z_k^j)_j
-    w = vh[:order].conj().T
+    # H = U S Vh: the rows of Vh span the row space of H, i.e. the vectors (z_k^j)_j themselves
+    w = vh[:order].T
     psi, *_ = np.linalg.lstsq(w[:-1], w[1:], rcond=None)
     zk = np.linalg.eigvals(psi)
     zk = zk[np.abs(zk) > 0]

@@ -1,0 +1,165 @@
+"""Mode detection from the signal model (ringdown.detect) through the whole pipeline.
+
+Exact references: analytic damped cosines (FIELD.md section 1) and a 3-DOF chain whose truth is
+the complex eigenvalues of its state matrix (numpy.linalg.eig), its response stepped exactly with
+scipy.linalg.expm. Invented test signals, seeded noise.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+from scipy import linalg
+
+from ringdown import analyze as _analyze
+from ringdown.errors import NoRingdownError
+from ringdown.results import REJECTION_REASONS
+
+from conftest import ringdown_modes
+
+
+def analyze(x, fs, **options):
+    """The pipeline with the model-based mode search (``detection="model"``, experimental and
+    not yet the default), which these tests are about."""
+    return _analyze(x, fs, detection="model", **options)
+
+
+def _heavy(f_n, zeta):
+    w = 2 * math.pi * f_n
+    return w * math.sqrt(1 - zeta**2) / (2 * math.pi), zeta * w  # f_d, beta (FIELD.md s. 1)
+
+
+@pytest.mark.parametrize("f_n", [300.0, 2000.0])
+@pytest.mark.parametrize("zeta", [0.05, 0.10, 0.20])
+def test_heavily_damped_mode_found_and_measured(f_n, zeta):
+    f_d, beta = _heavy(f_n, zeta)
+    x = ringdown_modes([(f_d, beta, 1.0, 0.3)], sample_rate=48000.0, duration_s=0.5, snr_db=60.0, seed=1)
+    a = analyze(x, 48000.0)
+    assert len(a.modes) == 1, [m.f_d_hz for m in a.modes]
+    m = a.modes[0]
+    assert m.beta_per_s == pytest.approx(beta, rel=0.02)  # issue target: 2 %
+    assert m.f_d_hz == pytest.approx(f_d, rel=0.002)  # issue target: 0.2 %
+    assert m.fit_path in ("band", "raw")
+    # honest: truth within 4 standard uncertainties (a 60 dB record, one draw)
+    assert abs(m.beta_per_s - beta) <= 4 * m.beta_per_s_u
+    assert abs(m.f_d_hz - f_d) <= 4 * m.f_d_hz_u
+
+
+def test_q_three_is_fitted_on_the_raw_record():
+    f_d, beta = _heavy(2000.0, 0.2)  # Q = 2.5 by 1/(2 zeta)
+    a = analyze(ringdown_modes([(f_d, beta, 1.0, 0.3)], sample_rate=48000.0, duration_s=0.5, snr_db=60.0, seed=2),
+                48000.0)
+    assert [m.fit_path for m in a.modes] == ["raw"]
+    assert a.to_dict()["modes"][0]["fit_path"] == "raw"
+
+
+def _chain_with_local_dashpot():
+    """3-DOF fixed-free chain, masses 1 kg, springs 4e6 N/m, a light dashpot at every mass
+    (2 N s/m to ground) and one local dashpot (300 N s/m) between masses 1 and 2: damping that is
+    not proportional to mass or stiffness, so the modes are complex."""
+    m = np.eye(3)
+    k = np.array([[8e6, -4e6, 0], [-4e6, 8e6, -4e6], [0, -4e6, 4e6]])
+    c = 2.0 * np.eye(3)
+    cd = 300.0
+    c[0, 0] += cd
+    c[1, 1] += cd
+    c[0, 1] -= cd
+    c[1, 0] -= cd
+    return np.block([[np.zeros((3, 3)), np.eye(3)], [-np.linalg.solve(m, k), -np.linalg.solve(m, c)]])
+
+
+def test_three_dof_chain_with_local_dashpot():
+    s = _chain_with_local_dashpot()
+    lam = np.linalg.eig(s)[0]  # exact reference: eigenvalues of the state matrix
+    lam = lam[lam.imag > 0]
+    lam = lam[np.argsort(lam.imag)]
+    f_ref, beta_ref = lam.imag / (2 * math.pi), -lam.real
+    fs, n_pre, n = 16000.0, 800, 24000
+    step = linalg.expm(s / fs)
+    state = np.zeros(6)
+    state[3] = 1.0  # unit velocity of mass 1
+    x = np.zeros(n)
+    for i in range(n_pre, n):
+        x[i] = state[2]  # displacement of the last mass
+        state = step @ state
+    x += np.random.default_rng(5).normal(0, 1e-3 * np.max(np.abs(x)), n)
+    a = analyze(x, fs)
+    got = sorted(a.modes, key=lambda m: m.f_d_hz)
+    assert len(got) == 3, [(m.f_d_hz, m.beta_per_s) for m in got]
+    for m, f, b in zip(got, f_ref, beta_ref):
+        assert m.f_d_hz == pytest.approx(f, rel=2e-3)
+        assert m.beta_per_s == pytest.approx(b, rel=0.02)
+
+
+def test_fast_decay_next_to_slow_mode():
+    # a 5 ms decay (beta = 6.9 / 5 ms: 60 dB in 5 ms) at 1500 Hz beside a slow mode at 1000 Hz
+    beta_fast = 6.908 / 5e-3
+    x = ringdown_modes([(1000.0, 3.0, 1.0), (1500.0, beta_fast, 1.0, 0.5)], sample_rate=48000.0,
+                       duration_s=1.0, snr_db=70.0, seed=3)
+    a = analyze(x, 48000.0)
+    f = sorted(m.f_d_hz for m in a.modes)
+    assert len(f) == 2, f
+    assert f[0] == pytest.approx(1000.0, rel=1e-4) and f[1] == pytest.approx(1500.0, rel=5e-3)
+
+
+@pytest.mark.parametrize("kind", ["white", "pink"])
+def test_noise_only_gives_no_mode(kind):
+    fs, n = 16000.0, 32000
+    rng = np.random.default_rng(9)
+    for _ in range(3):
+        w = rng.standard_normal(n)
+        if kind == "pink":
+            spec = np.fft.rfft(w)
+            f = np.fft.rfftfreq(n, 1 / fs)
+            w = np.fft.irfft(spec / np.sqrt(np.maximum(f, 10.0)), n)
+        try:
+            a = analyze(w, fs)
+        except NoRingdownError:
+            continue
+        assert a.modes == ()
+
+
+def test_rejections_are_named_in_warnings_and_json():
+    # four clear modes and max_modes = 2: the two weaker ones are named as rejected
+    modes = [(400.0, 5.0, 1.0), (900.0, 8.0, 0.5), (1700.0, 10.0, 0.2), (2600.0, 12.0, 0.1)]
+    a = analyze(ringdown_modes(modes, sample_rate=16000.0, duration_s=1.0, snr_db=60.0, seed=4), 16000.0,
+                max_modes=2)
+    assert len(a.modes) == 2
+    rej = [r for r in a.rejected if r.reason == "max_modes"]
+    assert sorted(round(r.f_hz) for r in rej) == [1700, 2600]
+    d = json.loads(json.dumps(a.to_dict()))
+    assert {r["reason"] for r in d["rejected"]} >= {"max_modes"}
+    assert all(set(r) == {"f_hz", "beta_per_s", "snr_db", "reason", "detail", "hit"} for r in d["rejected"])
+    assert all(r["reason"] in REJECTION_REASONS for r in d["rejected"])
+    msgs = [w.message for w in a.warnings if w.code == "candidate_rejected"]
+    assert any("1700" in m for m in msgs) and any("2600" in m for m in msgs)
+
+
+def test_close_pair_one_half_power_bandwidth_apart():
+    # two equal modes 1 half-power bandwidth (beta / pi) apart at 40 dB: two modes, beta within 10 %
+    beta = 10.0
+    x = ringdown_modes([(1000.0, beta, 1.0), (1000.0 + beta / math.pi, beta, 1.0, 1.0)], sample_rate=8000.0,
+                       duration_s=2.0, snr_db=40.0, seed=3)
+    a = analyze(x, 8000.0)
+    assert len(a.modes) == 2, [m.f_d_hz for m in a.modes]
+    for m in a.modes:
+        assert m.beta_per_s == pytest.approx(beta, rel=0.10)
+
+
+@pytest.mark.xfail(strict=True, reason="18 of the 20 modes are found (182 and 1541 Hz are missed, and not named "
+                                       "as rejected: neither search proposed them)")
+def test_twenty_modes_40_db_apart():
+    rng = np.random.default_rng(1)
+    f = np.geomspace(150, 6000, 20)
+    q = np.geomspace(20, 2000, 20)
+    rng.shuffle(q)
+    amp = 10 ** (-np.linspace(0, 40, 20) / 20)
+    rng.shuffle(amp)
+    modes = [(fi, math.pi * fi / qi, ai, rng.uniform(0, 6)) for fi, qi, ai in zip(f, q, amp)]
+    a = analyze(ringdown_modes(modes, sample_rate=16000.0, duration_s=2.0, snr_db=80.0, seed=2), 16000.0)
+    found = [m.f_d_hz for m in a.modes]
+    missed = [fi for fi, b, *_ in modes if not any(abs(g - fi) < max(b / math.pi, 0.002 * fi) for g in found)]
+    assert missed == []
