@@ -292,6 +292,21 @@ def test_sigint_in_check_exits_promptly_with_finished_results_stored_and_written
 
 
 @pytest.mark.slow
+def test_sigint_stops_a_batch_started_with_sigint_ignored(tmp_path):
+    # a shell or a parent process may start the command with SIGINT ignored (it is inherited
+    # across exec); the batch installs its own handler, so Ctrl-C still stops it
+    files = make_parts(tmp_path / "many", 40, seed=43, duration_s=1.0)
+    db = tmp_path / "h.sqlite"
+    proc = popen("analyze", *files, "--jobs", "1", "--store", "--db", db,
+                 preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_IGN))
+    assert wait_for_rows(db, 2, proc) >= 2
+    proc.send_signal(signal.SIGINT)
+    out, err = proc.communicate(timeout=60)
+    assert proc.returncode == 130, err
+    assert f"interrupted: {rows_in(db)} of {len(files)} done (stored), rerun to resume" in err
+
+
+@pytest.mark.slow
 def test_sigint_in_analyze_writes_the_partial_csv(tmp_path):
     files = make_parts(tmp_path / "many", 40, seed=41, duration_s=1.0)  # enough that a loaded machine cannot finish first
     db, out_csv = tmp_path / "h.sqlite", tmp_path / "out.csv"

@@ -94,6 +94,45 @@ def guarded(fn: Callable[[], T], *, debug: bool, status: int = EXIT_ERROR) -> T:
         raise typer.Exit(status) from None
 
 
+#: Set by a Ctrl-C during a batch (see :func:`catching_interrupts`).
+_INTERRUPTED: list[bool] = [False]
+
+
+@contextlib.contextmanager
+def catching_interrupts():
+    """During a batch: Ctrl-C raises ``KeyboardInterrupt`` as usual and is also remembered.
+
+    A library call that happens to be running when the signal lands may turn the interrupt into
+    an ordinary exception (so the file would come back as an error and the batch go on); the
+    loop calls :func:`check_interrupt` before taking each result, so such a result is never
+    stored and the batch stops. Installing the handler also undoes a SIGINT that the process
+    inherited as ignored.
+    """
+    import signal
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+
+    def handler(signum, frame):
+        _INTERRUPTED[0] = True
+        raise KeyboardInterrupt
+
+    _INTERRUPTED[0] = False
+    old = signal.signal(signal.SIGINT, handler)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, old)
+
+
+def check_interrupt() -> None:
+    """Raise ``KeyboardInterrupt`` if Ctrl-C came during the batch (before a result is taken)."""
+    if _INTERRUPTED[0]:
+        raise KeyboardInterrupt
+
+
 @contextlib.contextmanager
 def sigint_deferred():
     """Hold Ctrl-C back while one result is being stored, so it is stored whole or not at all
@@ -105,7 +144,12 @@ def sigint_deferred():
         yield
         return
     caught: list[int] = []
-    old = signal.signal(signal.SIGINT, lambda signum, frame: caught.append(signum))
+
+    def hold(signum, frame):
+        caught.append(signum)
+        _INTERRUPTED[0] = True
+
+    old = signal.signal(signal.SIGINT, hold)
     try:
         yield
     finally:

@@ -11,7 +11,7 @@ from typing import List, Optional
 import typer
 
 from ..numfmt import fmt_fixed, fmt_pm, fmt_value
-from ._common import (DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_INTERRUPTED, EXIT_OK, RECURSIVE_OPTION,
+from ._common import (DEBUG_OPTION, catching_interrupts, check_interrupt, EXIT_EPILOG, EXIT_ERROR, EXIT_INTERRUPTED, EXIT_OK, RECURSIVE_OPTION,
                       default_jobs, error_line, expand_inputs, guarded, note_line, on_terminal,
                       print_json, print_json_line, progress_bar, time_window, usage_guarded, uses_stdin)
 from ._options import Channel, Column, End, Start, Jsonl, Notes, SampleRate, Serial, Title, reader_options, report_header
@@ -234,8 +234,9 @@ def register(app: typer.Typer) -> None:
         cluster = guarded(lambda: connect(scheduler), debug=debug)
         sink = guarded(lambda: open_sink(parquet_out), debug=debug)
         try:
-            with cluster as client, sink, bar:
+            with catching_interrupts(), cluster as client, sink, bar:
                 for i, a in iter_analyze_files(paths, jobs=n_jobs, on_notice=note_line, client=client, **options):
+                    check_interrupt()  # a result that finished after a Ctrl-C is not taken
                     results[i] = a
                     storer.add(a)  # durable before anything else is written
                     guarded(lambda: sink.add_analysis(a, part_id=part_id_from_path(a.path or "array", part_id),

@@ -16,7 +16,7 @@ from typing import List, Optional
 import typer
 
 from ..numfmt import fmt_value, fmt_values
-from ._common import (DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_FAIL, EXIT_INTERRUPTED, EXIT_OK,
+from ._common import (DEBUG_OPTION, catching_interrupts, check_interrupt, EXIT_EPILOG, EXIT_ERROR, EXIT_FAIL, EXIT_INTERRUPTED, EXIT_OK,
                       RECURSIVE_OPTION, default_jobs, error_line, expand_inputs, guarded, note_line,
                       on_terminal, print_json, print_json_line, progress_bar, resolve_db, sigint_deferred,
                       time_window, usage_guarded, uses_stdin, DB_ENV)
@@ -162,7 +162,9 @@ def register(app: typer.Typer) -> None:
                 raise ParameterError(f"'{output}' exists; use --force to overwrite it or -o to choose another file")
             check_writable(output, "limits file")
             try:
-                analyses = analyze_many(paths, jobs=1 if uses_stdin(paths) else max(1, jobs), **opts)
+                with catching_interrupts():
+                    analyses = analyze_many(paths, jobs=1 if uses_stdin(paths) else max(1, jobs), **opts)
+                    check_interrupt()
             except KeyboardInterrupt:
                 error_line(f"interrupted: no limits written to '{output}'; rerun to learn them")
                 raise typer.Exit(EXIT_INTERRUPTED) from None
@@ -293,10 +295,11 @@ def register(app: typer.Typer) -> None:
 
             cluster = guarded(lambda: connect(scheduler), debug=debug)
             sink = guarded(lambda: open_sink(parquet_out), debug=debug)
-            with cluster as client, sink, prog:
+            with catching_interrupts(), cluster as client, sink, prog:
                 it = iter_check_files([paths[i] for i in todo], lim, jobs=n_jobs, on_notice=note_line,
                                       options={**overrides, **time_window(start, end)}, client=client)
                 for pos, res in it:
+                    check_interrupt()  # a result that finished after a Ctrl-C is not taken
                     i = todo[pos]
                     if res.sha256 is None and shas[i] is not None:
                         res = replace(res, sha256=shas[i])
