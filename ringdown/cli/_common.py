@@ -99,6 +99,22 @@ _INTERRUPTED: list[bool] = [False]
 
 
 @contextlib.contextmanager
+def _sigint_handled_by(handler):
+    """``handler`` for SIGINT inside the block (main thread only: elsewhere nothing changes)."""
+    import signal
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    old = signal.signal(signal.SIGINT, handler)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, old)
+
+
+@contextlib.contextmanager
 def catching_interrupts():
     """During a batch: Ctrl-C raises ``KeyboardInterrupt`` as usual and is also remembered.
 
@@ -106,25 +122,16 @@ def catching_interrupts():
     an ordinary exception (so the file would come back as an error and the batch go on); the
     loop calls :func:`check_interrupt` before taking each result, so such a result is never
     stored and the batch stops. Installing the handler also undoes a SIGINT that the process
-    inherited as ignored.
+    inherited as ignored (as a script's background jobs are started).
     """
-    import signal
-    import threading
-
-    if threading.current_thread() is not threading.main_thread():
-        yield
-        return
 
     def handler(signum, frame):
         _INTERRUPTED[0] = True
         raise KeyboardInterrupt
 
     _INTERRUPTED[0] = False
-    old = signal.signal(signal.SIGINT, handler)
-    try:
+    with _sigint_handled_by(handler):
         yield
-    finally:
-        signal.signal(signal.SIGINT, old)
 
 
 def check_interrupt() -> None:
@@ -137,23 +144,16 @@ def check_interrupt() -> None:
 def sigint_deferred():
     """Hold Ctrl-C back while one result is being stored, so it is stored whole or not at all
     and "done (stored)" is true; the interrupt is raised as soon as the block ends."""
-    import signal
-    import threading
-
-    if threading.current_thread() is not threading.main_thread():
-        yield
-        return
     caught: list[int] = []
 
     def hold(signum, frame):
         caught.append(signum)
         _INTERRUPTED[0] = True
 
-    old = signal.signal(signal.SIGINT, hold)
     try:
-        yield
+        with _sigint_handled_by(hold):
+            yield
     finally:
-        signal.signal(signal.SIGINT, old)
         if caught:
             raise KeyboardInterrupt
 
