@@ -7,7 +7,9 @@ are written with soundfile, never by the code under test.
 
 from __future__ import annotations
 
+import importlib.util
 import math
+from pathlib import Path
 from typing import Sequence
 
 import numpy as np
@@ -74,3 +76,25 @@ def two_mode_wav(tmp_path):
     fs = 16000.0
     x = ringdown_modes([(440.0, 12.0, 1.0), (1250.0, 20.0, 0.6, 0.4)], sample_rate=fs, duration_s=1.0, seed=11)
     return write_wav(tmp_path / "two_modes.wav", x, fs)
+
+
+#: example_signals/make_line_examples.py (numpy/scipy/soundfile only), loaded once: the invented
+#: gear-blank line whose parts the limits, check, fault and Parquet tests use.
+_LINE_SPEC = importlib.util.spec_from_file_location(
+    "make_line_examples", Path(__file__).resolve().parents[1] / "example_signals" / "make_line_examples.py")
+line_sim = importlib.util.module_from_spec(_LINE_SPEC)
+_LINE_SPEC.loader.exec_module(line_sim)
+
+
+def make_parts(folder: Path, n: int, *, seed: int, duration_s: float = 0.5, prefix: str = "SN-",
+               kind: str = "good") -> list[str]:
+    """``n`` seeded parts of the invented line (``line_sim``) written as WAVs into ``folder``."""
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    rng = np.random.default_rng(seed)
+    out = []
+    for i in range(n):
+        p = folder / f"{prefix}{i:04d}.wav"
+        line_sim.write_part(p, line_sim.part_modes(rng, kind), rng, duration_s=duration_s)
+        out.append(str(p))
+    return out

@@ -5,7 +5,6 @@ never by the code under test.
 """
 
 import csv
-import importlib.util
 import json
 from pathlib import Path
 
@@ -17,10 +16,7 @@ from typer.testing import CliRunner
 from ringdown.cli import history as history_cli
 from ringdown.cli import limits as limits_cli
 
-_SPEC = importlib.util.spec_from_file_location(
-    "make_line_examples", Path(__file__).resolve().parents[1] / "example_signals" / "make_line_examples.py")
-sim = importlib.util.module_from_spec(_SPEC)
-_SPEC.loader.exec_module(sim)
+from conftest import line_sim as sim  # noqa: E402
 
 app = typer.Typer()
 limits_cli.register(app)

@@ -7,7 +7,6 @@ example_signals/make_line_examples.py for the line parts), never by the code und
 
 from __future__ import annotations
 
-import importlib.util
 import json
 import os
 import select
@@ -28,10 +27,7 @@ from ringdown.limits import parse_limits, read_limits
 
 from conftest import ringdown_modes, write_wav  # noqa: E402
 
-_SPEC = importlib.util.spec_from_file_location(
-    "make_line_examples", Path(__file__).resolve().parents[1] / "example_signals" / "make_line_examples.py")
-sim = importlib.util.module_from_spec(_SPEC)
-_SPEC.loader.exec_module(sim)
+from conftest import line_sim as sim  # noqa: E402
 
 runner = CliRunner()
 READING = {"analyze": ("analyze",), "compare": ("compare",), "limits learn": ("limits", "learn"),

@@ -14,7 +14,6 @@ from __future__ import annotations
 
 import contextlib
 import csv
-import importlib.util
 import json
 import os
 import resource
@@ -29,10 +28,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-_SPEC = importlib.util.spec_from_file_location(
-    "make_line_examples", Path(__file__).resolve().parents[1] / "example_signals" / "make_line_examples.py")
-sim = importlib.util.module_from_spec(_SPEC)
-_SPEC.loader.exec_module(sim)
+from conftest import make_parts as _make_parts  # noqa: E402
 
 LIMITS = """\
 format_version = 1
@@ -78,14 +74,7 @@ def popen(*args, **kw) -> subprocess.Popen:
 
 
 def make_parts(folder: Path, n: int, *, seed: int = 5, duration_s: float = 0.5, prefix: str = "SN-") -> list[str]:
-    folder.mkdir(parents=True, exist_ok=True)
-    rng = np.random.default_rng(seed)
-    out = []
-    for i in range(n):
-        p = folder / f"{prefix}{i:03d}.wav"
-        sim.write_part(p, sim.part_modes(rng, "good"), rng, duration_s=duration_s)
-        out.append(str(p))
-    return out
+    return _make_parts(folder, n, seed=seed, duration_s=duration_s, prefix=prefix)
 
 
 def rows_in(db: Path) -> int:

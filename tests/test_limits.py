@@ -5,10 +5,8 @@ frequencies are the generalised eigenvalues of (K, M) from scipy.linalg.eigh (ex
 each part's record is synthesised with seeded noise and analysed by ringdown.analyze.
 """
 
-import importlib.util
 import math
 from dataclasses import replace
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -24,10 +22,7 @@ from ringdown.quantities import derive
 from ringdown.results import Analysis, Mode
 from ringdown.tolerance import tolerance_k
 
-_SPEC = importlib.util.spec_from_file_location(
-    "make_line_examples", Path(__file__).resolve().parents[1] / "example_signals" / "make_line_examples.py")
-sim = importlib.util.module_from_spec(_SPEC)
-_SPEC.loader.exec_module(sim)
+from conftest import line_sim as sim  # noqa: E402
 
 FS = sim.SAMPLE_RATE
 

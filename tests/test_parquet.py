@@ -10,7 +10,6 @@ example_signals/ and parts made by example_signals/make_line_examples.py (numpy/
 from __future__ import annotations
 
 import hashlib
-import importlib.util
 import json
 import math
 import re
@@ -38,9 +37,7 @@ LINE = ROOT / "example_signals" / "line"
 THREE = [str(LINE / n) for n in ("crack.wav", "good_01.wav", "good_warm.wav")]
 runner = CliRunner()
 
-_SPEC = importlib.util.spec_from_file_location("make_line_examples", ROOT / "example_signals" / "make_line_examples.py")
-sim = importlib.util.module_from_spec(_SPEC)
-_SPEC.loader.exec_module(sim)
+from conftest import make_parts  # noqa: E402
 
 #: Columns that hold one mode's fields (null on a row without mode).
 MODE_COLUMNS = [c for c, _, _ in parquet.COLUMNS if c not in {
@@ -220,12 +217,7 @@ def test_station_partitions_and_appending(tmp_path):
 def parts(tmp_path_factory):
     """24 distinct short gear-blank recordings (make_line_examples.py, seeded) and limits for them."""
     d = tmp_path_factory.mktemp("parts")
-    rng = np.random.default_rng(7)
-    paths = []
-    for i in range(24):
-        p = d / f"SN-{i:04d}.wav"
-        sim.write_part(p, sim.part_modes(rng, "good"), rng, duration_s=0.5)
-        paths.append(str(p))
+    paths = make_parts(d, 24, seed=7)
     lim = d / "limits.toml"
     ringdown.write_limits(ringdown.learn_limits(ringdown.analyze_many(paths[:6], jobs=1)), str(lim))
     return paths, str(lim)
@@ -263,12 +255,7 @@ def test_interrupted_check_keeps_every_finished_part(parts, tmp_path):
     paths, lim = parts
     # 120 parts: their JSON lines overfill the pipe the test stops reading, so the run cannot
     # finish before the Ctrl-C however loaded the machine is
-    rng = np.random.default_rng(11)
-    paths = list(paths)
-    for i in range(96):
-        p = tmp_path / f"SN-x{i:04d}.wav"
-        sim.write_part(p, sim.part_modes(rng, "good"), rng, duration_s=0.5)
-        paths.append(str(p))
+    paths = list(paths) + make_parts(tmp_path, 96, seed=11, prefix="SN-x")
     db, out = tmp_path / "h.sqlite", tmp_path / "ds"
     proc = subprocess.Popen([sys.executable, "-c", "from ringdown.cli import main; main()", "check", "--limits", lim,
                              *paths, "--jobs", "1", "--db", str(db), "--parquet", str(out), "--jsonl"],
