@@ -1,4 +1,4 @@
-"""Mode detection from the signal model (ringdown.detect) through the whole pipeline.
+"""Mode detection from the signal model (ringdown.analysis.detect) through the whole pipeline.
 
 Exact references: analytic damped cosines (FIELD.md section 1) and a 3-DOF chain whose truth is
 the complex eigenvalues of its state matrix (numpy.linalg.eig), its response stepped exactly with
@@ -15,8 +15,8 @@ import pytest
 from scipy import linalg
 
 from ringdown import analyze as _analyze
-from ringdown.errors import NoRingdownError
-from ringdown.results import REJECTION_REASONS
+from ringdown.base.errors import NoRingdownError
+from ringdown.analysis.results import REJECTION_REASONS
 
 from conftest import ringdown_modes
 

@@ -19,8 +19,8 @@ from typing import List, Optional
 
 import typer
 
-from ..errors import RingdownError
-from ..numfmt import fmt_interval, fmt_pm, fmt_value
+from ..base.errors import RingdownError
+from ..base.numfmt import fmt_interval, fmt_pm, fmt_value
 from ._common import (DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_OK, error_line,
                       expand_inputs, guarded, print_json, time_window, usage_error)
 from ._options import Channel, Column, End, Start, Notes, SampleRate, Serial, Title, reader_options, report_header
@@ -76,9 +76,9 @@ def format_table(comparison) -> str:
 
 
 def _write_csv(comparison, out: Path) -> None:
-    from ..compare import comparison_rows
-    from ..errors import RingdownError
-    from ..outputs import atomic_write, csv_row
+    from ..treatment.compare import comparison_rows
+    from ..base.errors import RingdownError
+    from ..io.outputs import atomic_write, csv_row
 
     rows = comparison_rows(comparison)
     if not rows:
@@ -94,8 +94,8 @@ def _write_csv(comparison, out: Path) -> None:
 
 
 def _write_plot(comparison, out_dir: Path) -> Path:
-    from ..compare_plot import plot_comparison
-    from ..plots import figure_bytes
+    from ..render.compare_plot import plot_comparison
+    from ..render.plots import figure_bytes
 
     path = out_dir / "comparison.png"
     try:
@@ -110,7 +110,7 @@ def _write_plot(comparison, out_dir: Path) -> Path:
 
 
 def _write_report(comparison, out: Path, header: dict) -> None:
-    from ..report import render_comparison_report
+    from ..render.report import render_comparison_report
 
     text = render_comparison_report(comparison, **header)
     try:
@@ -180,7 +180,7 @@ def register(app: typer.Typer) -> None:
                 f"unexpected argument '{ctx.args[0]}': give each file its own --before/--after, "
                 "a folder, or a quoted pattern (--before 'bare_*.wav')"
             )
-        from ..compare import compare
+        from ..treatment.compare import compare
 
         b = expand_inputs(before)
         a = expand_inputs(after)

@@ -15,7 +15,7 @@ from typing import List, Optional
 
 import typer
 
-from ..numfmt import fmt_value, fmt_values
+from ..base.numfmt import fmt_value, fmt_values
 from ._common import (DEBUG_OPTION, catching_interrupts, check_interrupt, EXIT_EPILOG, EXIT_ERROR, EXIT_FAIL, EXIT_INTERRUPTED, EXIT_OK,
                       RECURSIVE_OPTION, default_jobs, error_line, expand_inputs, guarded, note_line,
                       on_terminal, print_json, print_json_line, progress_bar, resolve_db, sigint_deferred,
@@ -51,7 +51,7 @@ def _stream(row: dict, json_out: bool, jsonl: bool) -> None:
 
 def format_check(row: dict) -> str:
     """Plain-text lines for one part (what ``check`` prints without ``--json``)."""
-    from ..outputs import shown
+    from ..io.outputs import shown
 
     verdict = row["verdict"].upper()
     skipped = "  (already stored, skipped)" if row.get("skipped") else ""
@@ -68,7 +68,7 @@ def _write_csv(rows: list[dict], limits, path: str) -> None:
     head = ["part_id", "path", "sha256", "verdict", "skipped", "mahalanobis", "uniform_shift", "reasons", "notes"]
     for j in range(1, n + 1):
         head += [f"mode{j}_f_d_hz", f"mode{j}_zeta", f"mode{j}_ratio"]
-    from ..outputs import atomic_write, csv_row
+    from ..io.outputs import atomic_write, csv_row
 
     with atomic_write(path, newline="", what="CSV") as fh:
         w = csv.writer(fh)
@@ -87,9 +87,9 @@ def _write_csv(rows: list[dict], limits, path: str) -> None:
 def _write_report(rows: list[dict], limits, path: str, options: dict, header: dict) -> None:
     """The check report, with each analysed part's figures: the parts are analysed again here,
     in this process, because a batch keeps no samples (the verdicts come from the batch)."""
-    from ..pipeline import analyze_file
-    from ..report import Section, _write, html_table, render_check_report
-    from ..results import Analysis
+    from ..analysis.pipeline import analyze_file
+    from ..render.report import Section, _write, html_table, render_check_report
+    from ..analysis.results import Analysis
 
     opts = {**limits.analysis_options(), **options}
     analyses = []
@@ -145,15 +145,15 @@ def register(app: typer.Typer) -> None:
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Learn acceptance limits from recordings of known-good parts and write them as TOML."""
-        from ..pipeline import analyze_many
-        from ..limits import learn_limits, write_limits
+        from ..analysis.pipeline import analyze_many
+        from ..inspection.limits import learn_limits, write_limits
 
         opts = usage_guarded(lambda: {**_analysis_options(method, min_snr_db, max_modes, band, start, end),
                                       **reader_options(channel, column, sample_rate)}, debug=debug)
 
         def run():
-            from ..errors import ParameterError
-            from ..outputs import check_writable
+            from ..base.errors import ParameterError
+            from ..io.outputs import check_writable
 
             paths = expand_inputs(files, recursive=recursive, exclude=[output])
             if paths.problems:
@@ -170,7 +170,7 @@ def register(app: typer.Typer) -> None:
                 raise typer.Exit(EXIT_INTERRUPTED) from None
             bad = [a for a in analyses if a.error is not None]
             if bad:
-                from ..errors import ParameterError
+                from ..base.errors import ParameterError
 
                 raise ParameterError(f"{len(bad)} good part(s) could not be analysed, first {bad[0].path!r}: "
                                      f"{bad[0].error.message}; remove or re-record them")
@@ -233,10 +233,10 @@ def register(app: typer.Typer) -> None:
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Check parts against limits: PASS or FAIL with every reason; store each result."""
-        from ..check import iter_check_files
-        from ..errors import RingdownError
-        from ..limits import read_limits
-        from ..store import ResultStore, file_sha256, part_id_from_path
+        from ..inspection.check import iter_check_files
+        from ..base.errors import RingdownError
+        from ..inspection.limits import read_limits
+        from ..inspection.store import ResultStore, file_sha256, part_id_from_path
 
         t0 = time.monotonic()
         if json_out and jsonl:
@@ -256,7 +256,7 @@ def register(app: typer.Typer) -> None:
         ids = [part_id_from_path(p, part_id) for p in paths]
 
         def prepare():
-            from ..outputs import check_writable, remove_stale
+            from ..io.outputs import check_writable, remove_stale
 
             for out, what in ((csv_out, "CSV"), (report, "report")):
                 if out:
@@ -290,8 +290,8 @@ def register(app: typer.Typer) -> None:
                 else:
                     todo.append(i)
             prog, task = progress_bar(on_terminal(json_out) and len(todo) > 1, len(todo), "checking")
-            from ..cluster import connect
-            from ..parquet import open_sink
+            from ..base.cluster import connect
+            from ..inspection.parquet import open_sink
 
             cluster = guarded(lambda: connect(scheduler), debug=debug)
             sink = guarded(lambda: open_sink(parquet_out), debug=debug)

@@ -15,8 +15,8 @@ from typing import Optional
 
 import typer
 
-from ..errors import ParameterError, RingdownError
-from ..numfmt import fmt_pm, fmt_value, fmt_values
+from ..base.errors import ParameterError, RingdownError
+from ..base.numfmt import fmt_pm, fmt_value, fmt_values
 from ._common import DEBUG_OPTION, EXIT_EPILOG, EXIT_OK, guarded, print_json
 from ._options import Channel, Column, Notes, SampleRate, Serial, Title, reader_options, report_header
 
@@ -90,8 +90,8 @@ def _write_csv(result, out: Path) -> None:
     vals = {"e_pa": (result.e_pa, result.e_pa_u), "g_pa": (result.g_pa, result.g_pa_u),
             "poisson": (result.poisson, result.poisson_u),
             "density_kg_per_m3": (result.density_kg_per_m3, result.density_kg_per_m3_u)}
-    from ..errors import RingdownError
-    from ..outputs import atomic_write, csv_row
+    from ..base.errors import RingdownError
+    from ..io.outputs import atomic_write, csv_row
 
     try:
         with atomic_write(out, newline="", what="CSV file") as fh:
@@ -108,7 +108,7 @@ def _write_csv(result, out: Path) -> None:
 
 
 def _write_report(result, out: Path, settings: dict, header: dict) -> None:
-    from ..report import moduli_section, write_report
+    from ..render.report import moduli_section, write_report
 
     header = {**header, "title": header.get("title") or "Elastic moduli from a tap"}
     try:
@@ -192,7 +192,7 @@ def register(app: typer.Typer) -> None:
         serial: Serial = None,
         debug: bool = DEBUG_OPTION,
     ) -> None:
-        from ..moduli import CylindricalRod, RectangularBar, moduli
+        from ..materials.moduli import CylindricalRod, RectangularBar, moduli
 
         def run():
             if shape not in ("bar", "rod"):

@@ -10,7 +10,7 @@ import os
 import re
 from pathlib import Path
 
-from ..errors import ParameterError, RingdownError
+from ..base.errors import ParameterError, RingdownError
 
 __all__ = ["PLOT_FORMATS", "check_plot_format", "write_plots", "write_report"]
 
@@ -84,7 +84,7 @@ def write_plots(analyses, out_dir, fmt: str = "png") -> list[str]:
         For an unknown format, or a folder or file that cannot be written.
     """
     check_plot_format(fmt)
-    from .. import plots
+    from ..render import plots
 
     out = Path(out_dir)
     try:
@@ -110,7 +110,7 @@ def write_plots(analyses, out_dir, fmt: str = "png") -> list[str]:
             except RingdownError:
                 continue  # data not kept for this figure: nothing to draw
             path = out / f"{name}.{fmt}"
-            from ..outputs import atomic_write
+            from ..io.outputs import atomic_write
 
             with atomic_write(path, "wb", what="plot") as fh:  # renamed into place: never half a figure
                 fh.write(data)
@@ -129,6 +129,6 @@ def write_report(analyses, out_path, settings: dict | None = None, header: dict 
     ParameterError
         When the file cannot be written.
     """
-    from .. import report
+    from ..render import report
 
     return report.write_report(list(analyses), out_path, settings=settings, **(header or {}))
