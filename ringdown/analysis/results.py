@@ -11,12 +11,14 @@ before it, in the same unit.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field, fields, replace
 from typing import Any
 
 import numpy as np
 
 from .._version import __version__
+from ..base.numfmt import fmt_pm, fmt_value
+from ..base.readthrough import ReadThrough
 from .quantities import Derived
 
 __all__ = [
@@ -40,6 +42,11 @@ class Notice:
 
     def to_dict(self) -> dict:
         return {"code": self.code, "message": self.message}
+
+    @classmethod
+    def from_dict(cls, d: dict) -> Notice:
+        """The notice of a ``to_dict()`` record."""
+        return cls(d["code"], d["message"])
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -84,7 +91,7 @@ class Estimate:
     residual_rms: float | None = None
     converged: bool = True
     warnings: tuple[Notice, ...] = ()
-    trace: "ModeTrace | None" = None
+    trace: "ModeTrace | None" = field(default=None, repr=False)
 
     def to_dict(self) -> dict:
         return {
@@ -97,6 +104,13 @@ class Estimate:
             "n_points": self.n_points,
             "converged": self.converged,
         }
+
+    @classmethod
+    def from_dict(cls, d: dict, method: str) -> Estimate:
+        """The estimate of a ``to_dict()`` record (a cross-check, keyed by ``method``); the fields
+        that record does not hold (covariance, amplitude, residual, warnings, trace) take their
+        defaults."""
+        return cls(method=method, **{k: d[k] for k in _ESTIMATE_KEYS})
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -124,17 +138,17 @@ class ModeTrace:
         How many modes that sum holds (1 when ``model_envelope`` is None).
     """
 
-    t_s: np.ndarray
-    envelope: np.ndarray
+    t_s: np.ndarray = field(repr=False)
+    envelope: np.ndarray = field(repr=False)
     fit_start_s: float
     fit_end_s: float
     noise_floor: float
     fit_amplitude: float
     fit_beta_per_s: float
     fit_t0_s: float
-    peaks_t_s: np.ndarray | None = None
-    peaks_value: np.ndarray | None = None
-    model_envelope: np.ndarray | None = None
+    peaks_t_s: np.ndarray | None = field(default=None, repr=False)
+    peaks_value: np.ndarray | None = field(default=None, repr=False)
+    model_envelope: np.ndarray | None = field(default=None, repr=False)
     n_model_modes: int = 1
 
 
@@ -199,15 +213,35 @@ class Mode:
     warnings: tuple[Notice, ...] = ()
     cross_checks: dict[str, Estimate] = field(default_factory=dict)
     damping_vs_amplitude: tuple[dict, ...] | None = None
-    trace: ModeTrace | None = None
+    trace: ModeTrace | None = field(default=None, repr=False)
     fit_path: str = "band"
 
-    def __getattr__(self, name: str) -> Any:
-        # f_d_hz, beta_per_s, q, ... read straight through to the derived quantities.
-        try:
-            return getattr(object.__getattribute__(self, "derived"), name)
-        except AttributeError:
-            raise AttributeError(f"'Mode' object has no attribute {name!r}") from None
+    # the derived quantities, read through to ``derived`` (units as in :class:`Derived`)
+    f_d_hz = ReadThrough[float]("derived")
+    f_d_hz_u = ReadThrough[float | None]("derived")
+    beta_per_s = ReadThrough[float]("derived")
+    beta_per_s_u = ReadThrough[float | None]("derived")
+    f_n_hz = ReadThrough[float]("derived")
+    f_n_hz_u = ReadThrough[float | None]("derived")
+    zeta = ReadThrough[float]("derived")
+    zeta_u = ReadThrough[float | None]("derived")
+    q = ReadThrough[float]("derived")
+    q_u = ReadThrough[float | None]("derived")
+    loss_factor = ReadThrough[float]("derived")
+    loss_factor_u = ReadThrough[float | None]("derived")
+    log_decrement = ReadThrough[float]("derived")
+    log_decrement_u = ReadThrough[float | None]("derived")
+    decay_db_per_s = ReadThrough[float]("derived")
+    decay_db_per_s_u = ReadThrough[float | None]("derived")
+    t60_s = ReadThrough[float]("derived")
+    t60_s_u = ReadThrough[float | None]("derived")
+    f_r_hz = ReadThrough[float | None]("derived")
+    f_r_hz_u = ReadThrough[float | None]("derived")
+
+    def __repr__(self) -> str:
+        return (f"Mode(index={self.index}, f_d_hz={fmt_pm(self.f_d_hz, self.f_d_hz_u)}, "
+                f"zeta={fmt_pm(self.zeta, self.zeta_u)}, q={fmt_pm(self.q, self.q_u)}, method={self.method!r}, "
+                f"warnings={list(self.warning_codes)})")
 
     @property
     def warning_codes(self) -> tuple[str, ...]:
@@ -237,6 +271,22 @@ class Mode:
             else [dict(r) for r in self.damping_vs_amplitude],
         )
         return {k: d[k] for k in _MODE_KEYS}
+
+    @classmethod
+    def from_dict(cls, d: dict) -> Mode:
+        """The mode of a ``to_dict()`` record (without ``trace``, which is never serialised)."""
+        derived = Derived(**{f.name: d[f.name] for f in fields(Derived)})
+        band = d["band_hz"]
+        dva = d["damping_vs_amplitude"]
+        return cls(
+            index=d["index"], derived=derived, amplitude=d["amplitude"], snr_db=d["snr_db"], method=d["method"],
+            fit_start_s=d["fit_start_s"], fit_end_s=d["fit_end_s"], cycles_fitted=d["cycles_fitted"],
+            n_hits=d["n_hits"], band_hz=None if band is None else (band[0], band[1]),
+            warnings=tuple(Notice.from_dict(w) for w in d["warnings"]),
+            cross_checks={k: Estimate.from_dict(v, k) for k, v in d["cross_checks"].items()},
+            damping_vs_amplitude=None if dva is None else tuple(dict(r) for r in dva),
+            fit_path=d["fit_path"],
+        )
 
 
 #: Why a candidate mode was not reported (the ``reason`` of a :class:`Rejected`).
@@ -280,6 +330,11 @@ class Rejected:
     def to_dict(self) -> dict:
         return {"f_hz": self.f_hz, "beta_per_s": self.beta_per_s, "snr_db": self.snr_db, "reason": self.reason,
                 "detail": self.detail, "hit": self.hit}
+
+    @classmethod
+    def from_dict(cls, d: dict) -> Rejected:
+        """The rejection of a ``to_dict()`` record."""
+        return cls(**{f.name: d[f.name] for f in fields(cls)})
 
     def notice(self) -> Notice:
         """The warning that names this rejection."""
@@ -345,6 +400,21 @@ class Hit:
             "modes": [m.to_dict() for m in self.modes],
         }
 
+    def __repr__(self) -> str:
+        return (f"Hit(start_s={fmt_value(self.start_s)}, start_kind={self.start_kind!r}, "
+                f"snr_db={fmt_value(self.snr_db, 3)}, used={self.used}, modes={len(self.modes)}, "
+                f"rejected={len(self.rejected)}, warnings={[w.code for w in self.warnings]})")
+
+    @classmethod
+    def from_dict(cls, d: dict, rejected: tuple[Rejected, ...] = ()) -> Hit:
+        """The hit of a ``to_dict()`` record; ``rejected`` are its rejections (a hit's record does
+        not hold them: they are serialised once, under the analysis)."""
+        return cls(
+            start_s=d["start_s"], peak_s=d["peak_s"], peak_value=d["peak_value"], snr_db=d["snr_db"],
+            end_s=d["end_s"], used=d["used"], warnings=tuple(Notice.from_dict(w) for w in d["warnings"]),
+            modes=tuple(Mode.from_dict(m) for m in d["modes"]), rejected=rejected, start_kind=d["start_kind"],
+        )
+
 
 @dataclass(frozen=True, slots=True, eq=False)
 class Analysis:
@@ -373,7 +443,7 @@ class Analysis:
     settings: dict = field(default_factory=dict)
     noise_floor: float | None = None
     noise_source: str | None = None
-    recording: Any = None
+    recording: Any = field(default=None, repr=False)
     rejected: tuple[Rejected, ...] = ()
     unit: str | None = None
 
@@ -420,6 +490,60 @@ class Analysis:
             "error": None if self.error is None else self.error.to_dict(),
         }
 
+    @classmethod
+    def from_dict(cls, d: dict) -> Analysis:
+        """The analysis of a ``to_dict()`` record (one of the ``recordings`` of the JSON the CLI
+        prints, or a record kept in the history), so that ``Analysis.from_dict(a.to_dict())``
+        gives back an analysis with the same ``to_dict()``. What the record does not hold stays
+        unset: ``recording`` (the samples) and each mode's ``trace`` are None."""
+        rejected = tuple(Rejected.from_dict(r) for r in d["rejected"])
+        error = d["error"]
+        return cls(
+            path=d["path"], sha256=d["sha256"], channel=d["channel"], sample_rate_hz=d["sample_rate_hz"],
+            n_samples=d["n_samples"],
+            hits=tuple(Hit.from_dict(h, tuple(r for r in rejected if r.hit == i))
+                       for i, h in enumerate(d["hits"], start=1)),
+            modes=tuple(Mode.from_dict(m) for m in d["modes"]),
+            warnings=tuple(Notice.from_dict(w) for w in d["warnings"]),
+            error=None if error is None else Notice.from_dict(error),
+            settings=dict(d["settings"]), noise_floor=d["noise_floor"], noise_source=d["noise_source"],
+            rejected=rejected, unit=d["unit"],
+        )
+
+    def __repr__(self) -> str:
+        head = f"Analysis(path={self.path!r}, "
+        if self.error is not None:
+            return head + f"error={self.error.code!r}: {self.error.message[:200]!r})"
+        shown = ", ".join(f"{fmt_pm(m.f_d_hz, m.f_d_hz_u)} Hz" for m in self.modes[:_REPR_MODES])
+        more = f", ... {len(self.modes) - _REPR_MODES} more" if len(self.modes) > _REPR_MODES else ""
+        return (head + f"sample_rate_hz={fmt_value(self.sample_rate_hz)}, duration_s={fmt_value(self.duration_s)}, "
+                f"hits={len(self.hits)}, modes=[{shown}{more}], rejected={len(self.rejected)}, "
+                f"warnings={[w.code for w in self.warnings][:_REPR_MODES]})")
+
+    def _repr_html_(self) -> str:
+        """The modes as HTML tables, for notebooks (drawn by :mod:`ringdown.render.report`)."""
+        from ..render.report import analysis_html  # the one HTML module; imported only when shown
+
+        return analysis_html(self)
+
+    def to_dataframe(self) -> Any:
+        """The modes as a pandas DataFrame: one row per mode, one column per scalar key of the
+        mode record (:func:`mode_keys`, same names and units), with ``path`` first; ``band_hz``
+        becomes ``band_lo_hz`` and ``band_hi_hz``, ``warnings`` the comma-separated codes.
+        ``cross_checks`` and ``damping_vs_amplitude`` (nested) are left out. A failed analysis
+        gives an empty frame with the same columns.
+
+        pandas is imported here: install it with the ``dataframe`` extra (``ringdown[dataframe]``).
+        """
+        try:
+            import pandas as pd
+        except ImportError:
+            from ..base.errors import ParameterError
+
+            raise ParameterError("Analysis.to_dataframe needs pandas; install it: pip install 'ringdown[dataframe]'"
+                                 ) from None
+        return pd.DataFrame([_mode_row(self.path, m.to_dict()) for m in self.modes], columns=list(_FRAME_COLUMNS))
+
 
 def results_document(analyses) -> dict:
     """The JSON document ``ringdown analyze --json`` prints for a sequence of analyses."""
@@ -427,6 +551,26 @@ def results_document(analyses) -> dict:
         "tool": {"name": "ringdown", "version": __version__},
         "recordings": [a.to_dict() for a in analyses],
     }
+
+
+#: How many modes and warning codes ``repr(Analysis)`` lists (the rest are counted), so that it
+#: stays under 1 kB whatever the recording holds.
+_REPR_MODES = 8
+
+_ESTIMATE_KEYS = ("f_d_hz", "f_d_hz_u", "beta_per_s", "beta_per_s_u", "fit_start_s", "fit_end_s", "n_points",
+                  "converged")
+
+_NESTED_KEYS = ("band_hz", "warnings", "cross_checks", "damping_vs_amplitude")
+_FRAME_COLUMNS = (("path",) + tuple(k for k in _MODE_KEYS if k not in _NESTED_KEYS)
+                  + ("band_lo_hz", "band_hi_hz", "warnings"))
+
+
+def _mode_row(path: str | None, d: dict) -> dict:
+    """One row of :meth:`Analysis.to_dataframe` from a mode record."""
+    row = {k: d[k] for k in _FRAME_COLUMNS if k in d and k not in _NESTED_KEYS}
+    band = d["band_hz"] or (None, None)
+    row.update(path=path, band_lo_hz=band[0], band_hi_hz=band[1], warnings=",".join(w["code"] for w in d["warnings"]))
+    return row
 
 
 def mode_keys() -> tuple[str, ...]:

@@ -35,7 +35,7 @@ from .._version import __version__
 from ..base.errors import ParameterError, RingdownError
 from ..base.numfmt import fmt_fixed, fmt_interval, fmt_pm, fmt_value, fmt_values
 
-__all__ = ["Cell", "Section", "html_table", "render_check_report", "render_comparison_report", "render_report",
+__all__ = ["Cell", "Section", "analysis_html", "html_table", "render_check_report", "render_comparison_report", "render_report",
            "verdict_cell", "write_report"]
 
 _DASH = "–"  # shown for a value that does not exist
@@ -257,6 +257,17 @@ def _modes_table(a) -> str:
     return (html_table(_MODE_HEADER, [_mode_row(m) for m in a.modes], numeric=[True] * 8, css_class="data modes")
             + html_table(_FIT_HEADER, [_fit_row(m) for m in a.modes],
                          numeric=[True] * 4 + [False, True, True, True, True, False], css_class="data fit"))
+
+
+def analysis_html(a) -> str:
+    """One analysis as an HTML fragment for a notebook (``Analysis._repr_html_``): its name, the
+    two modes tables of the report, or the error; no page, no figures, no style sheet."""
+    head = f"<p><b>{_e(_file_name(a))}</b>"
+    if not a.ok:
+        return head + f": {_e(a.error.code)}: {_e(a.error.message)}</p>"
+    facts = f" · {_num(a.sample_rate_hz)} Hz · {_num(a.duration_s, 4)} s · {len(a.hits)} hit(s)"
+    codes = ", ".join(w.code for w in a.warnings)
+    return head + _e(facts) + (f" · warnings: {_e(codes)}" if codes else "") + "</p>" + _modes_table(a)
 
 
 def _cross_checks(a) -> str:

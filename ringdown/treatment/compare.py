@@ -67,6 +67,7 @@ from typing import Any, Sequence
 import numpy as np
 
 from .._version import __version__
+from ..base.readthrough import ReadThrough
 from ..base.errors import InputError, ParameterError
 from ..base.matching import match_frequencies
 from ..analysis.results import Analysis, Mode, Notice
@@ -184,14 +185,26 @@ class ConditionMode:
     sources: tuple[str, ...]
     warnings: tuple[Notice, ...] = ()
 
-    def __getattr__(self, name: str) -> Any:
-        # cm.f_d_hz, cm.zeta_u, ... read through to values / uncertainties.
-        values = object.__getattribute__(self, "values")
-        if name in values:
-            return values[name]
-        if name.endswith("_u") and name[:-2] in values:
-            return object.__getattribute__(self, "uncertainties")[name[:-2]]
-        raise AttributeError(f"'ConditionMode' object has no attribute {name!r}")
+    # each quantity's mean and its standard uncertainty, read through to ``values`` and
+    # ``uncertainties`` (one pair per name in QUANTITIES; units there)
+    f_d_hz = ReadThrough[float]("values")
+    f_d_hz_u = ReadThrough[float | None]("uncertainties", "f_d_hz")
+    f_n_hz = ReadThrough[float]("values")
+    f_n_hz_u = ReadThrough[float | None]("uncertainties", "f_n_hz")
+    beta_per_s = ReadThrough[float]("values")
+    beta_per_s_u = ReadThrough[float | None]("uncertainties", "beta_per_s")
+    zeta = ReadThrough[float]("values")
+    zeta_u = ReadThrough[float | None]("uncertainties", "zeta")
+    q = ReadThrough[float]("values")
+    q_u = ReadThrough[float | None]("uncertainties", "q")
+    loss_factor = ReadThrough[float]("values")
+    loss_factor_u = ReadThrough[float | None]("uncertainties", "loss_factor")
+    log_decrement = ReadThrough[float]("values")
+    log_decrement_u = ReadThrough[float | None]("uncertainties", "log_decrement")
+    decay_db_per_s = ReadThrough[float]("values")
+    decay_db_per_s_u = ReadThrough[float | None]("uncertainties", "decay_db_per_s")
+    t60_s = ReadThrough[float]("values")
+    t60_s_u = ReadThrough[float | None]("uncertainties", "t60_s")
 
     def to_dict(self) -> dict:
         d: dict[str, Any] = {"side": self.side, "n_repeats": self.n_repeats,
