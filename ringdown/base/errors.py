@@ -7,6 +7,7 @@ Every error the library raises on purpose derives from :class:`RingdownError`, s
      ├── InputError        (also ValueError)   a file or array that cannot be read or used
      │    └── NoRingdownError                  readable, but holds no decay to measure
      ├── ParameterError    (also ValueError)   an option out of range or inconsistent
+     │    └── OutputError                      an output file or folder that cannot be written
      ├── FitError          (also RuntimeError) a fit that could not converge
      ├── LimitsError       (also ValueError)   a limits file that is missing or malformed
      ├── StoreError                            the results database cannot be used
@@ -25,6 +26,7 @@ __all__ = [
     "InputError",
     "NoRingdownError",
     "ParameterError",
+    "OutputError",
     "FitError",
     "LimitsError",
     "StoreError",
@@ -56,6 +58,14 @@ class ParameterError(RingdownError, ValueError):
     """An option that is out of range or inconsistent with the recording."""
 
     code = "parameter"
+
+
+class OutputError(ParameterError):
+    """An output (report, figure, CSV, JSON, limits file, folder) that cannot be written: the one
+    error for it, raised by :mod:`ringdown.io.outputs`. A ParameterError, since the fix is
+    another path."""
+
+    code = "output"
 
 
 class FitError(RingdownError, RuntimeError):

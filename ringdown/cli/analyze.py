@@ -4,12 +4,12 @@ from __future__ import annotations
 
 import csv
 import sys
-import time
 from pathlib import Path
 from typing import List, Optional
 
 import typer
 
+from ..base.clock import seconds
 from ..base.numfmt import fmt_fixed, fmt_pm, fmt_value
 from ._common import (DEBUG_OPTION, catching_interrupts, check_interrupt, EXIT_EPILOG, EXIT_ERROR, EXIT_INTERRUPTED, EXIT_OK, RECURSIVE_OPTION,
                       default_jobs, error_line, expand_inputs, guarded, note_line, on_terminal,
@@ -175,7 +175,7 @@ def register(app: typer.Typer) -> None:
         """Measure every mode of each recording: f_d, beta, f_n, zeta, Q, loss factor, dB/s, T60."""
         from ..analysis.pipeline import AnalysisOptions, iter_analyze_files
 
-        started = time.perf_counter()
+        started = seconds()
 
         def parse():
             from ..base.errors import ParameterError
@@ -273,7 +273,7 @@ def register(app: typer.Typer) -> None:
             raise typer.Exit(EXIT_INTERRUPTED)
         if len(analyses) > 1 and not json_out:
             typer.echo(f"{len(analyses)} files: {len(analyses) - errors} analysed, {errors} errors, "
-                       f"{sum(len(a.modes) for a in analyses)} modes in {time.perf_counter() - started:.1f} s",
+                       f"{sum(len(a.modes) for a in analyses)} modes in {seconds() - started:.1f} s",
                        err=jsonl)
         bad = errors or failed_outputs or storer.failed or paths.problems
         raise typer.Exit(EXIT_ERROR if bad else EXIT_OK)

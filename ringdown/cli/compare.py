@@ -19,7 +19,6 @@ from typing import List, Optional
 
 import typer
 
-from ..base.errors import RingdownError
 from ..base.numfmt import fmt_interval, fmt_pm, fmt_value
 from ._common import (DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_OK, error_line,
                       expand_inputs, guarded, print_json, time_window, usage_error)
@@ -77,54 +76,38 @@ def format_table(comparison) -> str:
 
 def _write_csv(comparison, out: Path) -> None:
     from ..treatment.compare import comparison_rows
-    from ..base.errors import RingdownError
     from ..io.outputs import atomic_write, csv_row
 
     rows = comparison_rows(comparison)
     if not rows:
         return
-    try:
-        with atomic_write(out, newline="", what="CSV file") as fh:
-            w = csv.writer(fh)
-            w.writerow(list(rows[0].keys()))
-            for r in rows:
-                w.writerow(csv_row(r.values()))
-    except RingdownError as exc:
-        raise _OutputError(str(exc)) from None
+    with atomic_write(out, newline="", what="CSV file") as fh:
+        w = csv.writer(fh)
+        w.writerow(list(rows[0].keys()))
+        for r in rows:
+            w.writerow(csv_row(r.values()))
 
 
 def _write_plot(comparison, out_dir: Path) -> Path:
+    from ..io.outputs import atomic_write, check_writable
     from ..render.compare_plot import plot_comparison
     from ..render.plots import figure_bytes
 
+    check_writable(out_dir, "plot", folder=True)
     path = out_dir / "comparison.png"
-    try:
-        out_dir.mkdir(parents=True, exist_ok=True)
-        ax = plot_comparison(comparison)
-        path.write_bytes(figure_bytes(ax.figure, fmt="png"))
-    except OSError as exc:
-        raise _OutputError(
-            f"cannot write plot '{path}': {exc.strerror or exc}; check the folder and permissions"
-        ) from exc
+    data = figure_bytes(plot_comparison(comparison).figure, fmt="png")
+    with atomic_write(path, "wb", what="plot") as fh:  # renamed into place: never half a figure
+        fh.write(data)
     return path
 
 
 def _write_report(comparison, out: Path, header: dict) -> None:
+    from ..io.outputs import atomic_write
     from ..render.report import render_comparison_report
 
     text = render_comparison_report(comparison, **header)
-    try:
-        out.write_text(text, encoding="utf-8")
-    except OSError as exc:
-        raise _OutputError(
-            f"cannot write report '{out}': {exc.strerror or exc}; check the folder and permissions"
-        ) from exc
-
-
-class _OutputError(RingdownError):
-    """An output file that cannot be written (CLI only)."""
-
-    code = "output"
+    with atomic_write(out, what="report") as fh:  # renamed into place: never half a report
+        fh.write(text)
 
 
 def register(app: typer.Typer) -> None:

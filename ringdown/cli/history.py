@@ -142,9 +142,9 @@ def register(app: typer.Typer) -> None:
                 try:
                     fig.savefig(buf, dpi=110, format=Path(plot).suffix.lstrip(".").lower() or "png")
                 except (OSError, ValueError) as exc:
-                    from ..base.errors import ParameterError
+                    from ..base.errors import OutputError
 
-                    raise ParameterError(f"cannot write the run chart to '{plot}': {exc}; choose a writable file") from exc
+                    raise OutputError(f"cannot write the run chart to '{plot}': {exc}; choose a writable file") from exc
                 with atomic_write(plot, "wb", what="the run chart to") as fh:  # never half a figure
                     fh.write(buf.getvalue())
 

@@ -8,13 +8,13 @@ from __future__ import annotations
 
 import csv
 import sys
-import time
 from dataclasses import replace
 from pathlib import Path
 from typing import List, Optional
 
 import typer
 
+from ..base.clock import seconds
 from ..base.numfmt import fmt_value, fmt_values
 from ._common import (DEBUG_OPTION, catching_interrupts, check_interrupt, EXIT_EPILOG, EXIT_ERROR, EXIT_FAIL, EXIT_INTERRUPTED, EXIT_OK,
                       RECURSIVE_OPTION, default_jobs, error_line, expand_inputs, guarded, note_line,
@@ -238,7 +238,7 @@ def register(app: typer.Typer) -> None:
         from ..inspection.limits import read_limits
         from ..inspection.store import ResultStore, file_sha256, part_id_from_path
 
-        t0 = time.monotonic()
+        t0 = seconds()
         if json_out and jsonl:
             from ._common import usage_error
 
@@ -329,7 +329,7 @@ def register(app: typer.Typer) -> None:
         rows_f = [r for r in rows if r is not None]
         counts = {v: sum(1 for r in rows_f if r["verdict"] == v) for v in ("pass", "fail", "error")}
         skipped = sum(1 for r in rows_f if r.get("skipped"))
-        elapsed = time.monotonic() - t0
+        elapsed = seconds() - t0
         summary = {"parts": len(rows_f), "passed": counts["pass"], "failed": counts["fail"],
                    "errors": counts["error"], "skipped": skipped, "time_s": round(elapsed, 3)}
         from .analyze import _try

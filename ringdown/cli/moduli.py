@@ -15,7 +15,7 @@ from typing import Optional
 
 import typer
 
-from ..base.errors import ParameterError, RingdownError
+from ..base.errors import ParameterError
 from ..base.numfmt import fmt_pm, fmt_value, fmt_values
 from ._common import DEBUG_OPTION, EXIT_EPILOG, EXIT_OK, guarded, print_json
 from ._options import Channel, Column, Notes, SampleRate, Serial, Title, reader_options, report_header
@@ -81,41 +81,29 @@ def format_table(result) -> str:
     return "\n".join(lines)
 
 
-class _OutputError(RingdownError):
-    code = "output"
-
-
 def _write_csv(result, out: Path) -> None:
     unit = {"e_pa": "Pa", "g_pa": "Pa", "poisson": "1", "density_kg_per_m3": "kg/m^3"}
     vals = {"e_pa": (result.e_pa, result.e_pa_u), "g_pa": (result.g_pa, result.g_pa_u),
             "poisson": (result.poisson, result.poisson_u),
             "density_kg_per_m3": (result.density_kg_per_m3, result.density_kg_per_m3_u)}
-    from ..base.errors import RingdownError
     from ..io.outputs import atomic_write, csv_row
 
-    try:
-        with atomic_write(out, newline="", what="CSV file") as fh:
-            w = csv.writer(fh)
-            w.writerow(["quantity", "value", "u", "unit", "dominant_input", "shape", "f_flexural_hz",
-                        "f_torsional_hz", "loss_factor_flexural", "loss_factor_torsional", "t1", "r_factor"])
-            t = result.torsional
-            for q, (v, u) in vals.items():
-                w.writerow(csv_row([q, v, u, unit[q], result.dominant(q), result.shape, result.flexural.f_hz,
-                                    None if t is None else t.f_hz, result.flexural.loss_factor,
-                                    None if t is None else t.loss_factor, result.t1, result.r_factor]))
-    except RingdownError as exc:
-        raise _OutputError(str(exc)) from None
+    with atomic_write(out, newline="", what="CSV file") as fh:
+        w = csv.writer(fh)
+        w.writerow(["quantity", "value", "u", "unit", "dominant_input", "shape", "f_flexural_hz",
+                    "f_torsional_hz", "loss_factor_flexural", "loss_factor_torsional", "t1", "r_factor"])
+        t = result.torsional
+        for q, (v, u) in vals.items():
+            w.writerow(csv_row([q, v, u, unit[q], result.dominant(q), result.shape, result.flexural.f_hz,
+                                None if t is None else t.f_hz, result.flexural.loss_factor,
+                                None if t is None else t.loss_factor, result.t1, result.r_factor]))
 
 
 def _write_report(result, out: Path, settings: dict, header: dict) -> None:
     from ..render.report import moduli_section, write_report
 
     header = {**header, "title": header.get("title") or "Elastic moduli from a tap"}
-    try:
-        write_report(list(result.analyses), out, settings=settings, extra_sections=[moduli_section(result)],
-                     **header)
-    except ParameterError as exc:
-        raise _OutputError(str(exc)) from exc
+    write_report(list(result.analyses), out, settings=settings, extra_sections=[moduli_section(result)], **header)
 
 
 def _positive(name: str, value: Optional[float], required: bool, shape: str) -> Optional[float]:

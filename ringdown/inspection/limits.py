@@ -41,6 +41,7 @@ from typing import Any, Iterable, Sequence
 import numpy as np
 
 from .._version import __version__
+from ..base.clock import utc_stamp
 from ..base.errors import LimitsError, ParameterError
 from ..analysis.results import Analysis, Notice
 from .tolerance import mahalanobis_threshold, tolerance_k
@@ -318,10 +319,6 @@ def _interval(values: np.ndarray, k: float) -> tuple[float, float, float, float]
     return m, s, m - k * s, m + k * s
 
 
-def _utc_now() -> str:
-    return _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "Z")
-
-
 def learn_limits(
     analyses: Iterable[Analysis],
     *,
@@ -495,7 +492,7 @@ def learn_limits(
         analysis=analysis,
         reader=reader,
         tool_version=__version__,
-        created_utc=_utc_now(),
+        created_utc=utc_stamp(),
         notes=tuple(notes),
         warnings=tuple(warnings),
     )

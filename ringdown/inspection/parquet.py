@@ -31,12 +31,12 @@ import datetime as _dt
 import hashlib
 import json
 import os
-import time
 import uuid
 from pathlib import Path
 from typing import Any, Iterable
 
 from .._version import __version__
+from ..base.clock import seconds, utc_now
 from ..base.errors import ParameterError, StoreError
 from ..analysis.results import mode_keys
 
@@ -184,8 +184,8 @@ class ParquetSink:
         self.flush_s = float(flush_s)
         self._schema = schema(without=() if partition_by is None else (partition_by,))
         self._rows: list[dict] = []
-        self._last = time.monotonic()
-        self._run = f"{_dt.datetime.now(_dt.timezone.utc):%Y%m%dT%H%M%SZ}-{uuid.uuid4().hex[:8]}"
+        self._last = seconds()
+        self._run = f"{utc_now():%Y%m%dT%H%M%SZ}-{uuid.uuid4().hex[:8]}"
         self._seq = 0
         self.files_written: list[Path] = []
         self.rows_written = 0
@@ -222,7 +222,7 @@ class ParquetSink:
 
     # -- adding results -----------------------------------------------------------------------
     def _add(self, base: dict, modes: list[dict], matched: dict[int, int] | None = None) -> None:
-        now = base.pop("tested_utc", None) or _dt.datetime.now(_dt.timezone.utc)
+        now = base.pop("tested_utc", None) or utc_now()
         base.update(tested_utc=now, date=now.date(), tool_version=base.get("tool_version") or __version__)
         sha, text = settings_sha256(base.pop("settings", {}) or {})
         base.update(settings_sha256=sha, settings_json=text)
@@ -234,7 +234,7 @@ class ParquetSink:
             if matched is not None:
                 row["ref_index"] = matched.get(row["mode_index"])
             self._rows.append(row)
-        if len(self._rows) >= self.flush_rows or time.monotonic() - self._last >= self.flush_s:
+        if len(self._rows) >= self.flush_rows or seconds() - self._last >= self.flush_s:
             self.flush()
 
     @staticmethod
@@ -296,7 +296,7 @@ class ParquetSink:
         """Write the buffered rows as one new file per partition (atomically: temporary name, then rename)."""
         import pyarrow.parquet as pq
 
-        self._last = time.monotonic()
+        self._last = seconds()
         if not self._rows:
             return
         groups: dict[Any, list[dict]] = {}

@@ -22,7 +22,6 @@ The schema version is ``PRAGMA user_version``; :data:`MIGRATIONS` bring an older
 from __future__ import annotations
 
 import datetime as _dt
-import hashlib
 import json
 import os
 import re
@@ -32,7 +31,8 @@ from pathlib import Path
 from typing import Any
 
 from .._version import __version__
-from ..base.errors import ParameterError, StoreError
+from ..base.clock import utc_stamp
+from ..base.errors import ParameterError, RingdownError, StoreError
 from ..analysis.results import Analysis
 
 __all__ = [
@@ -101,23 +101,16 @@ MIGRATIONS: tuple[str, ...] = (
 SCHEMA_VERSION = len(MIGRATIONS)
 
 
-def _utc_now() -> str:
-    return _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="microseconds").replace("+00:00", "Z")
-
-
 def file_sha256(path: str | os.PathLike) -> str | None:
-    """SHA-256 (hex) of a regular file's bytes, or ``None`` when it cannot be read or is not a
-    regular file (a FIFO or a device is never read: it could block or never end)."""
-    from ..io.read import open_regular
+    """SHA-256 (hex) of a regular file's bytes (:func:`ringdown.io.read.sha256_file`), or ``None``
+    when it cannot be read or is not a regular file (a FIFO or a device is never read: it could
+    block or never end)."""
+    from ..io.read import sha256_file
 
-    h = hashlib.sha256()
     try:
-        with open_regular(os.fspath(path)) as fh:
-            for chunk in iter(lambda: fh.read(1 << 20), b""):
-                h.update(chunk)
-    except Exception:  # InputError (not regular, missing) or OSError: no hash
+        return sha256_file(os.fspath(path))
+    except (RingdownError, OSError):  # InputError (not regular, missing, unreadable): no hash
         return None
-    return h.hexdigest()
 
 
 def part_id_from_path(path: str, regex: str | None = None) -> str:
@@ -416,7 +409,7 @@ class ResultStore:
             "INSERT INTO results (kind, part_id, path, sha256, tested_utc, station, operator, tool_version, "
             "settings_json, limits_sha256, verdict, reasons_json, notes_json, mahalanobis, uniform_shift, error, "
             "result_json) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
-            (kind, part_id, path, sha256, _utc_now(), station, operator, __version__, _json(settings),
+            (kind, part_id, path, sha256, utc_stamp("microseconds"), station, operator, __version__, _json(settings),
              limits_sha256, verdict, _json(reasons), _json(notes), mahalanobis, uniform_shift, error, result_json),
         )
         rid = int(cur.lastrowid)
@@ -439,7 +432,7 @@ class ResultStore:
                 self._conn.execute("BEGIN IMMEDIATE")
                 self._conn.execute(
                     "INSERT OR IGNORE INTO limits_files (sha256, source, first_used_utc, limits_json) VALUES (?, ?, ?, ?)",
-                    (limits.sha256, limits.source, _utc_now(), _json(limits.to_dict())),
+                    (limits.sha256, limits.source, utc_stamp("microseconds"), _json(limits.to_dict())),
                 )
         except sqlite3.Error as exc:
             raise StoreError(f"cannot write to results database '{self.path}': {_why(exc)}") from None

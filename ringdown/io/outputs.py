@@ -26,7 +26,7 @@ import tempfile
 from pathlib import Path
 from typing import Any, Iterable, Iterator
 
-from ..base.errors import ParameterError
+from ..base.errors import OutputError
 
 __all__ = ["shown", "csv_cell", "csv_row", "atomic_write", "check_writable", "remove_stale"]
 
@@ -87,13 +87,13 @@ def atomic_write(path: str | os.PathLike, mode: str = "w", *, encoding: str | No
     """Open a temporary file beside ``path``; on success rename it onto ``path``.
 
     On any error (or interruption) the temporary file is removed and ``path`` is untouched.
-    ``OSError`` becomes :class:`ParameterError` naming ``what`` and the path.
+    ``OSError`` becomes :class:`~ringdown.base.errors.OutputError` (a ParameterError) naming ``what`` and the path.
     """
     p = Path(path)
     try:
         fd, tmp = _temp_in(p, mode)
     except OSError as exc:
-        raise ParameterError(f"cannot write {what} {shown(str(p))!r}: {exc.strerror or exc}; "
+        raise OutputError(f"cannot write {what} {shown(str(p))!r}: {exc.strerror or exc}; "
                              "choose a writable path") from None
     try:
         binary = "b" in mode
@@ -108,7 +108,7 @@ def atomic_write(path: str | os.PathLike, mode: str = "w", *, encoding: str | No
         os.replace(tmp, p)
     except OSError as exc:
         _unlink(tmp)
-        raise ParameterError(f"cannot write {what} {shown(str(p))!r}: {exc.strerror or exc}; "
+        raise OutputError(f"cannot write {what} {shown(str(p))!r}: {exc.strerror or exc}; "
                              "free disk space or choose a writable path") from None
     except BaseException:
         _unlink(tmp)
@@ -136,7 +136,7 @@ def check_writable(path: str | os.PathLike, what: str, *, folder: bool = False) 
 
     Raises
     ------
-    ParameterError
+    OutputError (a ParameterError)
         One line naming ``what`` and the path.
     """
     p = Path(path)
@@ -145,22 +145,22 @@ def check_writable(path: str | os.PathLike, what: str, *, folder: bool = False) 
         try:
             p.mkdir(parents=True, exist_ok=True)
         except OSError as exc:
-            raise ParameterError(f"cannot create {what} folder {name!r}: {exc.strerror or exc}; "
+            raise OutputError(f"cannot create {what} folder {name!r}: {exc.strerror or exc}; "
                                  "choose a writable folder") from None
         target = p
     else:
         if p.is_dir():
-            raise ParameterError(f"{what} {name!r} is a folder; give a file name")
+            raise OutputError(f"{what} {name!r} is a folder; give a file name")
         target = p.parent if str(p.parent) else Path(".")
         if not target.is_dir():
-            raise ParameterError(f"cannot write {what} {name!r}: folder {shown(str(target))!r} does not exist; "
+            raise OutputError(f"cannot write {what} {name!r}: folder {shown(str(target))!r} does not exist; "
                                  "create it or choose another path")
     try:
         fd, tmp = tempfile.mkstemp(prefix=".ringdown-probe.", dir=str(target))
         os.close(fd)
         os.unlink(tmp)
     except OSError as exc:
-        raise ParameterError(f"cannot write {what} {name!r}: {exc.strerror or exc}; choose a writable path") from None
+        raise OutputError(f"cannot write {what} {name!r}: {exc.strerror or exc}; choose a writable path") from None
 
 
 def remove_stale(path: str | os.PathLike) -> None:
@@ -170,5 +170,5 @@ def remove_stale(path: str | os.PathLike) -> None:
         try:
             p.unlink()
         except OSError as exc:
-            raise ParameterError(f"cannot replace {shown(str(p))!r}: {exc.strerror or exc}; "
+            raise OutputError(f"cannot replace {shown(str(p))!r}: {exc.strerror or exc}; "
                                  "choose a writable path") from None

@@ -22,7 +22,7 @@ import numpy as np
 from ..base.errors import InputError, ParameterError
 from .recording import Recording
 
-__all__ = ["read_recording", "open_regular", "MIN_SAMPLES", "MAX_TIMING_JITTER", "TEXT_SUFFIXES"]
+__all__ = ["read_recording", "open_regular", "sha256_file", "MIN_SAMPLES", "MAX_TIMING_JITTER", "TEXT_SUFFIXES"]
 
 #: Fewest samples a recording may have. Below this no spectrum or decay fit is meaningful
 #: (project choice, common practice, no source).
@@ -398,7 +398,9 @@ class _open:
         self.fh.close()
 
 
-def _sha256_file(name: str) -> str:
+def sha256_file(name: str) -> str:
+    """SHA-256 (hex) of the bytes of the regular file ``name``: the one file hash of ringdown
+    (recordings, the history's skip check). Raises InputError (one line) when it cannot be read."""
     h = hashlib.sha256()
     with _open(name) as fh:
         while chunk := fh.read(_CHUNK):
@@ -490,7 +492,7 @@ def _read_sound(name, info, *, channel, column, sample_rate, limit, max_bytes) -
     if str(info.format).upper().startswith("WAV"):
         notes = _wav_truncation(name, samples.shape[0])
     return Recording(samples=samples, sample_rate=rate, channel=str(index), path=name,
-                     sha256=_sha256_file(name), full_scale=_full_scale(str(info.subtype)),
+                     sha256=sha256_file(name), full_scale=_full_scale(str(info.subtype)),
                      timing_jitter=None, n_channels=n_channels, notes=notes)
 
 

@@ -24,7 +24,6 @@ and page number are printed at the top of every page.
 from __future__ import annotations
 
 import base64
-import datetime as _dt
 import html
 import math
 import os
@@ -32,6 +31,7 @@ from dataclasses import dataclass
 from typing import Any, Iterable, Sequence
 
 from .._version import __version__
+from ..base.clock import local_stamp
 from ..base.errors import ParameterError, RingdownError
 from ..base.numfmt import fmt_fixed, fmt_interval, fmt_pm, fmt_value, fmt_values
 
@@ -587,7 +587,7 @@ def render_report(analyses, *, settings: dict | None = None, title: str | None =
         else:
             raise ParameterError(f"an extra report section must be a Section or (title, html); got {s!r:.80}")
     title = title or "Ring-down report"
-    stamp = generated or _dt.datetime.now().astimezone().isoformat(timespec="seconds")
+    stamp = generated or local_stamp()
     pairs = [(str(k), v) for k, v in (fields.items() if isinstance(fields, dict) else (fields or ()))
              if v not in (None, "")]
     used: set[str] = {"summary", "definitions", "caution", "run-settings", "signoff"}

@@ -10,7 +10,7 @@ import numpy as np
 
 from ...base.errors import InputError, ParameterError
 from ..read import MAX_TIMING_JITTER, MIN_SAMPLES, _RATE_RTOL, _check_length, _fmt_bytes, _one_line, _parse_index, \
-    _sha256_file
+    sha256_file
 from ..recording import Recording
 
 #: How many names an error message lists before it says how many more there are.
@@ -179,7 +179,7 @@ def recording(samples: np.ndarray, rate: float, label: str, unit: str | None, na
         raise InputError(
             f"{label!r} in {name!r} holds {int(bad.sum())} NaN or infinite value(s) (first at sample "
             f"{int(np.flatnonzero(bad)[0])}); cut them or pick another channel")
-    return Recording(samples=samples, sample_rate=rate, channel=label, path=name, sha256=_sha256_file(name),
+    return Recording(samples=samples, sample_rate=rate, channel=label, path=name, sha256=sha256_file(name),
                      full_scale=None, timing_jitter=None, n_channels=n_channels, unit=clean_unit(unit))
 
 
