@@ -69,22 +69,37 @@ _PUBLIC: dict[str, str] = {
 }
 
 if _typing.TYPE_CHECKING:  # the names as static analysis and IDEs see them
-    from .base.errors import FitError, InputError, LimitsError, NoRingdownError, ParameterError, RingdownError, StoreError
-    from .analysis.quantities import Derived, derive
-    from .io.recording import Recording
-    from .analysis.results import Analysis, Estimate, Hit, Mode, ModeTrace, Notice, results_document
-    from .io.read import read_recording
     from .analysis.crlb import CramerRao, crlb_damped_sinusoid
     from .analysis.pipeline import AnalysisOptions, analyze, analyze_file, analyze_many, analyze_recording
-    from .treatment.compare import Comparison, compare
-    from .render.compare_plot import plot_comparison
-    from .inspection.limits import Limits, learn_limits, read_limits, write_limits
+    from .analysis.quantities import Derived, derive
+    from .analysis.results import Analysis, Estimate, Hit, Mode, ModeTrace, Notice, results_document
+    from .base.errors import (
+        FitError,
+        InputError,
+        LimitsError,
+        NoRingdownError,
+        ParameterError,
+        RingdownError,
+        StoreError,
+    )
     from .inspection.check import CheckResult, check, check_file
+    from .inspection.limits import Limits, learn_limits, read_limits, write_limits
     from .inspection.store import ResultStore, store_analysis
-    from .render.plots import plot_damping_vs_amplitude, plot_decay, plot_mode, plot_overview, plot_recording, plot_spectrum
-    from .render.history_plot import plot_run_chart
-    from .render.report import Section, render_report, write_report
+    from .io.read import read_recording
+    from .io.recording import Recording
     from .materials.moduli import CylindricalRod, ModuliResult, RectangularBar, moduli
+    from .render.compare_plot import plot_comparison
+    from .render.history_plot import plot_run_chart
+    from .render.plots import (
+        plot_damping_vs_amplitude,
+        plot_decay,
+        plot_mode,
+        plot_overview,
+        plot_recording,
+        plot_spectrum,
+    )
+    from .render.report import Section, render_report, write_report
+    from .treatment.compare import Comparison, compare
 
 
 __all__ = [

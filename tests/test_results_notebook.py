@@ -12,8 +12,8 @@ import numpy as np
 import pytest
 
 import ringdown
-from ringdown.analysis.results import Analysis, Mode, mode_keys
 from ringdown.analysis.quantities import Derived
+from ringdown.analysis.results import Analysis, Mode, mode_keys
 
 FS = 48_000.0
 

@@ -7,8 +7,9 @@ import glob
 import json
 import os
 import sys
+from collections.abc import Callable, Iterable
 from pathlib import Path
-from typing import Any, Callable, Iterable, Optional, TypeVar
+from typing import Any, Optional, TypeVar
 
 import typer
 

@@ -15,14 +15,24 @@ from __future__ import annotations
 
 import csv
 from pathlib import Path
-from typing import List, Optional
+from typing import Optional
 
 import typer
 
 from ..base.numfmt import fmt_interval, fmt_pm, fmt_value
-from ._common import (DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_OK, error_line,
-                      expand_inputs, guarded, print_json, time_window, usage_error)
-from ._options import Channel, Column, End, Start, Notes, SampleRate, Serial, Title, reader_options, report_header
+from ._common import (
+    DEBUG_OPTION,
+    EXIT_EPILOG,
+    EXIT_ERROR,
+    EXIT_OK,
+    error_line,
+    expand_inputs,
+    guarded,
+    print_json,
+    time_window,
+    usage_error,
+)
+from ._options import Channel, Column, End, Notes, SampleRate, Serial, Start, Title, reader_options, report_header
 
 __all__ = ["register", "format_table"]
 
@@ -75,8 +85,8 @@ def format_table(comparison) -> str:
 
 
 def _write_csv(comparison, out: Path) -> None:
-    from ..treatment.compare import comparison_rows
     from ..io.outputs import atomic_write, csv_row
+    from ..treatment.compare import comparison_rows
 
     rows = comparison_rows(comparison)
     if not rows:
@@ -126,11 +136,11 @@ def register(app: typer.Typer) -> None:
     )
     def compare_cmd(
         ctx: typer.Context,
-        before: List[str] = typer.Option(
+        before: list[str] = typer.Option(
             ..., "--before", "-b",
             help="Recording(s) before the treatment (repeatable; file, folder or quoted pattern).",
         ),
-        after: List[str] = typer.Option(
+        after: list[str] = typer.Option(
             ..., "--after", "-a",
             help="Recording(s) after the treatment (repeatable; file, folder or quoted pattern).",
         ),
@@ -148,7 +158,7 @@ def register(app: typer.Typer) -> None:
         channel: Channel = None,
         column: Column = None,
         sample_rate: SampleRate = None,
-        band: Optional[List[str]] = typer.Option(None, "--band", help="Band LOW:HIGH in Hz (repeatable, as for analyze)."),
+        band: Optional[list[str]] = typer.Option(None, "--band", help="Band LOW:HIGH in Hz (repeatable, as for analyze)."),
         min_hit_snr_db: float = typer.Option(20.0, "--min-hit-snr-db", help="A hit must rise this far above the noise, dB."),
         keep_double_hits: bool = typer.Option(False, "--keep-double-hits", help="Count bounced hits as repeats too."),
         title: Title = None,

@@ -9,18 +9,53 @@ from __future__ import annotations
 import csv
 import sys
 from dataclasses import replace
+from functools import partial
 from pathlib import Path
-from typing import List, Optional
+from typing import Optional
 
 import typer
 
 from ..base.clock import seconds
 from ..base.numfmt import fmt_value, fmt_values
-from ._common import (DEBUG_OPTION, catching_interrupts, check_interrupt, EXIT_EPILOG, EXIT_ERROR, EXIT_FAIL, EXIT_INTERRUPTED, EXIT_OK,
-                      RECURSIVE_OPTION, default_jobs, error_line, expand_inputs, guarded, note_line,
-                      on_terminal, print_json, print_json_line, progress_bar, resolve_db, sigint_deferred,
-                      time_window, usage_guarded, uses_stdin, DB_ENV)
-from ._options import Channel, Column, End, Start, Jsonl, Notes, SampleRate, Serial, Title, reader_options, report_header
+from ._common import (
+    DB_ENV,
+    DEBUG_OPTION,
+    EXIT_EPILOG,
+    EXIT_ERROR,
+    EXIT_FAIL,
+    EXIT_INTERRUPTED,
+    EXIT_OK,
+    RECURSIVE_OPTION,
+    catching_interrupts,
+    check_interrupt,
+    default_jobs,
+    error_line,
+    expand_inputs,
+    guarded,
+    note_line,
+    on_terminal,
+    print_json,
+    print_json_line,
+    progress_bar,
+    resolve_db,
+    sigint_deferred,
+    time_window,
+    usage_guarded,
+    uses_stdin,
+)
+from ._options import (
+    Channel,
+    Column,
+    End,
+    Jsonl,
+    Notes,
+    SampleRate,
+    Serial,
+    Start,
+    Title,
+    reader_options,
+    report_header,
+)
 
 __all__ = ["register", "format_check"]
 
@@ -88,8 +123,8 @@ def _write_report(rows: list[dict], limits, path: str, options: dict, header: di
     """The check report, with each analysed part's figures: the parts are analysed again here,
     in this process, because a batch keeps no samples (the verdicts come from the batch)."""
     from ..analysis.pipeline import analyze_file
-    from ..render.report import Section, _write, html_table, render_check_report
     from ..analysis.results import Analysis
+    from ..render.report import Section, _write, html_table, render_check_report
 
     opts = {**limits.analysis_options(), **options}
     analyses = []
@@ -123,7 +158,7 @@ def register(app: typer.Typer) -> None:
 
     @limits_app.command("learn", epilog=EXIT_EPILOG)
     def learn(
-        files: List[str] = typer.Argument(..., help="Recordings of known-good parts (files, folders, glob patterns)."),
+        files: list[str] = typer.Argument(..., help="Recordings of known-good parts (files, folders, glob patterns)."),
         output: str = typer.Option("limits.toml", "-o", "--output", help="Limits file to write (TOML)."),
         coverage: float = typer.Option(0.99, help="Fraction of good parts each window must hold (ISO 16269-6)."),
         confidence: float = typer.Option(0.95, help="Confidence of each tolerance interval (ISO 16269-6)."),
@@ -132,7 +167,7 @@ def register(app: typer.Typer) -> None:
         method: Optional[str] = typer.Option(None, help="Estimator (as for analyze)."),
         min_snr_db: Optional[float] = typer.Option(None, help="Smallest mode SNR, dB (as for analyze)."),
         max_modes: Optional[int] = typer.Option(None, help="Most modes per recording (as for analyze)."),
-        band: Optional[List[str]] = typer.Option(None, "--band", help="Band LOW:HIGH in Hz (repeatable)."),
+        band: Optional[list[str]] = typer.Option(None, "--band", help="Band LOW:HIGH in Hz (repeatable)."),
         channel: Channel = None,
         column: Column = None,
         sample_rate: SampleRate = None,
@@ -203,7 +238,7 @@ def register(app: typer.Typer) -> None:
 
     @app.command("check", epilog=EXIT_EPILOG)
     def check_cmd(
-        files: List[str] = typer.Argument(..., help="Recordings of parts to check (files, folders, glob patterns)."),
+        files: list[str] = typer.Argument(..., help="Recordings of parts to check (files, folders, glob patterns)."),
         limits_path: str = typer.Option(..., "--limits", "-l", help="Limits file (TOML)."),
         json_out: bool = typer.Option(False, "--json", help="Print every result as JSON on stdout."),
         jsonl: Jsonl = False,
@@ -233,8 +268,8 @@ def register(app: typer.Typer) -> None:
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Check parts against limits: PASS or FAIL with every reason; store each result."""
-        from ..inspection.check import iter_check_files
         from ..base.errors import RingdownError
+        from ..inspection.check import iter_check_files
         from ..inspection.limits import read_limits
         from ..inspection.store import ResultStore, file_sha256, part_id_from_path
 
@@ -283,7 +318,7 @@ def register(app: typer.Typer) -> None:
             todo = []
             for i, p in enumerate(paths):
                 old = None if (store is None or force or shas[i] is None) else guarded(
-                    lambda: store.find_check(shas[i], lim.sha256), debug=debug)
+                    partial(store.find_check, shas[i], lim.sha256), debug=debug)
                 if old is not None:
                     rows[i] = _stored_row(old, ids[i], p, shas[i])
                     _stream(rows[i], json_out, jsonl)
@@ -305,7 +340,7 @@ def register(app: typer.Typer) -> None:
                         res = replace(res, sha256=shas[i])
                     with sigint_deferred():  # stored and counted whole, or not at all
                         # to the dataset before the database: whatever is stored is in the dataset too
-                        guarded(lambda: sink.add_check(res, part_id=ids[i], station=station, operator=operator),
+                        guarded(partial(sink.add_check, res, part_id=ids[i], station=station, operator=operator),
                                 debug=debug)
                         stored = None
                         if store is not None and not store_failed:

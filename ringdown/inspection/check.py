@@ -34,13 +34,13 @@ from __future__ import annotations
 
 import math
 import os
+from collections.abc import Iterator, Sequence
 from dataclasses import dataclass, replace
-from typing import Iterator, Sequence
 
-from ..base.errors import ParameterError
-from .limits import Limits, match_modes
-from ..base.numfmt import fmt_value, fmt_values
 from ..analysis.results import Analysis, Notice
+from ..base.errors import ParameterError
+from ..base.numfmt import fmt_value, fmt_values
+from .limits import Limits, match_modes
 
 __all__ = ["EXTRA_MODE_LEVEL", "FeatureCheck", "CheckResult", "check", "check_file", "iter_check_files",
            "lighten", "verdict_kind"]
@@ -372,8 +372,8 @@ def check_file(path: str, limits: Limits, **options) -> CheckResult:
     Never raises for a bad recording: that part's result is an ERROR. The analysis options
     stored in the limits are used unless ``options`` overrides them.
     """
-    from ..base.batch import as_ringdown_error
     from ..analysis.pipeline import analyze_file  # the pipeline; imported late so limits load without it
+    from ..base.batch import as_ringdown_error
 
     opts = {**limits.analysis_options(), **options}
     try:

@@ -34,16 +34,17 @@ import datetime as _dt
 import hashlib
 import math
 import sys
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field, replace
 from pathlib import Path
-from typing import Any, Iterable, Sequence
+from typing import Any
 
 import numpy as np
 
 from .._version import __version__
+from ..analysis.results import Analysis, Notice
 from ..base.clock import utc_stamp
 from ..base.errors import LimitsError, ParameterError
-from ..analysis.results import Analysis, Notice
 from .tolerance import mahalanobis_threshold, tolerance_k
 
 if sys.version_info >= (3, 11):

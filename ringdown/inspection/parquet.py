@@ -32,13 +32,14 @@ import hashlib
 import json
 import os
 import uuid
+from collections.abc import Iterable
 from pathlib import Path
-from typing import Any, Iterable
+from typing import Any
 
 from .._version import __version__
+from ..analysis.results import mode_keys
 from ..base.clock import seconds, utc_now
 from ..base.errors import ParameterError, StoreError
-from ..analysis.results import mode_keys
 
 __all__ = ["SCHEMA_VERSION", "COLUMNS", "schema", "ParquetSink", "open_sink", "export_history", "read_dataset",
            "settings_sha256"]
@@ -323,7 +324,7 @@ class ParquetSink:
     def close(self) -> None:
         self.flush()
 
-    def __enter__(self) -> "ParquetSink":
+    def __enter__(self) -> ParquetSink:
         return self
 
     def __exit__(self, *exc) -> None:
@@ -353,7 +354,7 @@ def open_sink(out, **kwargs):
     return _NoSink() if out is None else ParquetSink(out, **kwargs)
 
 
-def export_history(db, records, out, **kwargs) -> "ParquetSink":
+def export_history(db, records, out, **kwargs) -> ParquetSink:
     """Write stored history records (``ResultStore.query``) of database ``db`` to the dataset ``out``.
 
     Every stored mode field is written (from the stored mode records). ``out`` must be a new or

@@ -31,9 +31,9 @@ from pathlib import Path
 from typing import Any
 
 from .._version import __version__
+from ..analysis.results import Analysis
 from ..base.clock import utc_stamp
 from ..base.errors import ParameterError, RingdownError, StoreError
-from ..analysis.results import Analysis
 
 __all__ = [
     "SCHEMA_VERSION",
@@ -366,7 +366,7 @@ class ResultStore:
         except sqlite3.Error as exc:
             raise StoreError(f"cannot {what} results database '{self.path}': {_why(exc)}") from None
 
-    def __enter__(self) -> "ResultStore":
+    def __enter__(self) -> ResultStore:
         return self
 
     def __exit__(self, *exc) -> None:

@@ -40,14 +40,15 @@ import math
 from functools import lru_cache
 
 import numpy as np
+
 from ..base._lazy import lazy_module
+from ..base.errors import ParameterError
 
 # scipy.stats alone takes about 0.4 s to import: load it when a limit is first computed
 integrate = lazy_module("scipy.integrate")
 optimize = lazy_module("scipy.optimize")
 stats = lazy_module("scipy.stats")
 
-from ..base.errors import ParameterError
 
 __all__ = [
     "tolerance_k",

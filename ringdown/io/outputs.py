@@ -23,8 +23,9 @@ import contextlib
 import os
 import re
 import tempfile
+from collections.abc import Iterable, Iterator
 from pathlib import Path
-from typing import Any, Iterable, Iterator
+from typing import Any
 
 from ..base.errors import OutputError
 

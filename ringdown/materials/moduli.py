@@ -93,11 +93,12 @@ from __future__ import annotations
 
 import math
 import os
+from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import Any, Callable, ClassVar, Sequence
+from typing import Any, ClassVar
 
-from ..base.errors import InputError, ParameterError
 from ..analysis.results import Analysis, Mode, Notice
+from ..base.errors import InputError, ParameterError
 
 __all__ = [
     "RectangularBar",
@@ -308,7 +309,7 @@ def _solve(spec, x: dict, guess: float) -> dict:
     # assignment can give mu far outside it, where mu -> E(T1(mu)) / 2G - 1 would run away
     clip = lambda v: min(max(v, -0.99), POISSON_RANGE[1])  # noqa: E731
     mu = guess
-    for k in range(1, _MAX_ITER + 1):
+    for k in range(1, _MAX_ITER + 1):  # noqa: B007 (k is reported after the loop)
         e, t1 = _e_of(spec, x, x["f_flex_hz"], clip(mu))
         new = e / (2.0 * g) - 1.0
         if abs(new - mu) <= 1e-12 * max(1.0, abs(mu)):

@@ -8,7 +8,7 @@ ch. 5 [from memory for the chapter]). matplotlib is imported lazily and only the
 
 from __future__ import annotations
 
-from typing import Sequence
+from collections.abc import Sequence
 
 __all__ = ["plot_run_chart"]
 
@@ -104,7 +104,7 @@ def plot_run_chart(records: Sequence, *, limits_by_sha: dict | None = None, limi
         ax.set_ylabel(f"mode {j}\n{label}", fontsize="small")
         ax.ticklabel_format(axis="y", useOffset=False)
         ax.grid(True, alpha=0.3)
-    handles, labels = {}, []
+    handles: dict = {}
     for ax in axes:
         for h, lab in zip(*ax.get_legend_handles_labels()):
             handles.setdefault(lab, h)

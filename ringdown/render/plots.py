@@ -31,8 +31,8 @@ from typing import Any
 
 import numpy as np
 
-from ..base.errors import ParameterError
 from ..analysis.quantities import DB_PER_NEPER
+from ..base.errors import ParameterError
 
 __all__ = [
     "FIGURE_FORMATS",

@@ -25,10 +25,10 @@ from __future__ import annotations
 
 import base64
 import html
-import math
 import os
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
-from typing import Any, Iterable, Sequence
+from typing import Any
 
 from .._version import __version__
 from ..base.clock import local_stamp

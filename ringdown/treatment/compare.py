@@ -62,15 +62,15 @@ import math
 import os
 import statistics
 from dataclasses import asdict, dataclass, field
-from typing import Any, Sequence
+from typing import Any
 
 import numpy as np
 
 from .._version import __version__
-from ..base.readthrough import ReadThrough
+from ..analysis.results import Analysis, Mode, Notice
 from ..base.errors import InputError, ParameterError
 from ..base.matching import match_frequencies
-from ..analysis.results import Analysis, Mode, Notice
+from ..base.readthrough import ReadThrough
 
 __all__ = [
     "CARRIED_WARNING_CODES",

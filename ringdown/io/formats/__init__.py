@@ -22,8 +22,8 @@ from __future__ import annotations
 
 import importlib
 import re
+from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Callable
 
 __all__ = ["Reader", "READERS", "SUFFIXES", "find_reader"]
 

@@ -9,8 +9,16 @@ import re
 import numpy as np
 
 from ...base.errors import InputError, ParameterError
-from ..read import MAX_TIMING_JITTER, MIN_SAMPLES, _RATE_RTOL, _check_length, _fmt_bytes, _one_line, _parse_index, \
-    sha256_file
+from ..read import (
+    _RATE_RTOL,
+    MAX_TIMING_JITTER,
+    MIN_SAMPLES,
+    _check_length,
+    _fmt_bytes,
+    _one_line,
+    _parse_index,
+    sha256_file,
+)
 from ..recording import Recording
 
 #: How many names an error message lists before it says how many more there are.

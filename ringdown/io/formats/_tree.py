@@ -22,16 +22,26 @@ the longer axis, as a MATLAB column per channel or a row per channel both give).
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import Callable
 
 import numpy as np
 
 from ...base.errors import InputError
 from ..read import _RATE_RTOL
 from ..recording import Recording
-from ._common import MIN_SAMPLES, TIME_NAMES, check_size, clean_unit, pick, rate_from_time, real_samples, reason, recording, \
-    resolve_rate
+from ._common import (
+    MIN_SAMPLES,
+    TIME_NAMES,
+    check_size,
+    clean_unit,
+    pick,
+    rate_from_time,
+    real_samples,
+    reason,
+    recording,
+    resolve_rate,
+)
 
 #: Names of a scalar sample rate, Hz.
 RATE_NAMES = ("fs", "sample_rate", "samplerate", "sampling_rate", "sampling_frequency", "sample_rate_hz", "fs_hz")

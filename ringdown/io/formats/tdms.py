@@ -16,8 +16,7 @@ import re
 import numpy as np
 
 from ...base.errors import InputError
-from ._common import TIME_NAMES, check_size, need, pick, rate_from_time, real_samples, reason, recording, \
-    resolve_rate
+from ._common import TIME_NAMES, check_size, need, pick, rate_from_time, real_samples, reason, recording, resolve_rate
 
 __all__ = ["read"]
 
