@@ -35,12 +35,12 @@ from __future__ import annotations
 import math
 import os
 from collections.abc import Iterator, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 
-from ..analysis.results import Analysis, Notice
+from ..analysis.results import Analysis, Mode, Notice
 from ..base.errors import ParameterError
 from ..base.numfmt import fmt_value, fmt_values
-from .limits import Limits, match_modes
+from .limits import Limits, ModeLimits, match_modes
 
 __all__ = ["EXTRA_MODE_LEVEL", "FeatureCheck", "CheckResult", "check", "check_file", "iter_check_files",
            "lighten", "verdict_kind"]
@@ -195,135 +195,177 @@ def check(analysis: Analysis, limits: Limits) -> CheckResult:
     """
     if not isinstance(limits, Limits):
         raise ParameterError(f"limits must be a Limits object (read_limits or learn_limits), got {type(limits).__name__}")
-    base = dict(path=analysis.path, sha256=analysis.sha256, limits_sha256=limits.sha256, analysis=analysis)
     if analysis.error is not None:
         return CheckResult(verdict=ERROR, reasons=(Notice(analysis.error.code,
-                           f"recording could not be analysed: {analysis.error.message}"),), **base)
+                           f"recording could not be analysed: {analysis.error.message}"),),
+                           path=analysis.path, sha256=analysis.sha256, limits_sha256=limits.sha256, analysis=analysis)
 
     modes = list(analysis.modes)
     freqs = [float(m.f_d_hz) for m in modes]
     refs = limits.modes
     pairs = match_modes(freqs, [r.f_ref_hz for r in refs], tolerance=limits.tolerance)
-
-    reasons: list[Notice] = []
-    notes: list[Notice] = []
-    feats: list[FeatureCheck] = []
-    f_fail: list[tuple[FeatureCheck, Notice]] = []
-    order: dict[int, tuple[int, int]] = {}  # id(notice) -> (mode, feature rank): reasons sorted by mode
-
-    def add(mode: int, rank: int, notice: Notice) -> None:
-        order[id(notice)] = (mode, rank)
-        reasons.append(notice)
-
-    ratio_ok = True
-    missing = False
+    t = _Tally()
     f1 = freqs[pairs[0]] if 0 in pairs else None
-    values: dict[str, float] = {}
-    shifts: list[float] = []
-
     for j, ref in enumerate(refs):
-        name = f"mode {ref.index}"
         if j not in pairs:
-            missing = True
-            ratio_ok = ratio_ok and ref.ratio is None
-            add(ref.index, 0, Notice("mode_missing", f"{name} missing (no mode within {limits.tolerance * 100:.0f} % "
-                                                  f"of {ref.f_ref_hz:.1f} Hz)"))
-            for feat, win in (("f_hz", ref.f_hz), ("zeta", ref.zeta), ("ratio", ref.ratio)):
-                if win is not None:
-                    feats.append(FeatureCheck(ref.index, feat, None, win, "missing"))
+            _missing_mode(t, ref, limits.tolerance)
             continue
-        m = modes[pairs[j]]
-        f = freqs[pairs[j]]
-        shifts.append(f / ref.f_ref_hz - 1.0)
-        # frequency
-        st = _status(f, ref.f_hz)
-        fc = FeatureCheck(ref.index, "f_hz", f, ref.f_hz, st)
-        if st in ("below", "above"):
-            lo, hi = ref.f_hz
-            f_fail.append((fc, Notice(f"f_{st}", f"{name} at {_g(f, 6)} Hz is {st} its window {_win((lo, hi))} Hz")))
-        else:
-            feats.append(fc)
-        # damping ratio
-        z = getattr(m, "zeta", None)
-        if z is not None and z > 0:
-            values[f"log_zeta_{ref.index}"] = math.log(z)
-            st = _status(z, ref.zeta)
-            feats.append(FeatureCheck(ref.index, "zeta", float(z), ref.zeta, st))
-            if st == "above":
-                add(ref.index, 2, Notice("zeta_above", f"damping ratio of {name} is {z / ref.zeta[1]:.1f}x the upper "
-                                                    f"limit ({' against '.join(fmt_values([z, ref.zeta[1]]))})"))
-            elif st == "below":
-                add(ref.index, 2, Notice("zeta_below", f"damping ratio of {name} is {z / ref.zeta[0]:.2f}x the lower "
-                                                    f"limit ({' against '.join(fmt_values([z, ref.zeta[0]]))})"))
-        elif ref.zeta is not None:
-            feats.append(FeatureCheck(ref.index, "zeta", None, ref.zeta, "missing"))
-            add(ref.index, 2, Notice("zeta_missing", f"damping ratio of {name} could not be measured"))
-        # ratio to mode 1
+        m, f = modes[pairs[j]], freqs[pairs[j]]
+        t.shifts.append(f / ref.f_ref_hz - 1.0)
+        _check_frequency(t, ref, f)
+        _check_damping(t, ref, getattr(m, "zeta", None))
         if j > 0:
-            if f1 is None:
-                if ref.ratio is not None:
-                    feats.append(FeatureCheck(ref.index, "ratio", None, ref.ratio, "missing"))
-                    ratio_ok = False
-            else:
-                r = f / f1
-                values[f"ratio_{ref.index}"] = r
-                st = _status(r, ref.ratio)
-                feats.append(FeatureCheck(ref.index, "ratio", r, ref.ratio, st))
-                if st in ("below", "above"):
-                    ratio_ok = False
-                    lo, hi = ref.ratio
-                    add(ref.index, 3, Notice(f"ratio_{st}", f"frequency ratio of {name} to mode 1 is {_g(r, 6)}, {st} its "
-                                                         f"window {_win((lo, hi))}"))
+            _check_ratio(t, ref, f, f1)
+    d, thr = _check_mahalanobis(t, limits)
+    shift, spread = _check_uniform_shift(t, limits, maha_ok=d is None or thr is None or d <= thr)
+    t.reasons.sort(key=lambda r: t.order.get(id(r), (10**6, 0)))
+    t.feats.sort(key=lambda fc: (fc.mode, ("f_hz", "zeta", "ratio").index(fc.feature)))
+    _note_extra_modes(t, modes, freqs, set(pairs.values()))
+    return CheckResult(
+        verdict=FAIL if t.reasons else PASS,
+        reasons=tuple(t.reasons),
+        notes=tuple(t.notes),
+        features=tuple(t.feats),
+        matched=tuple((refs[j].index, modes[i].index) for j, i in sorted(pairs.items())),
+        mahalanobis=d,
+        mahalanobis_threshold=thr,
+        uniform_shift=shift,
+        uniform_shift_spread=spread,
+        path=analysis.path, sha256=analysis.sha256, limits_sha256=limits.sha256, analysis=analysis,
+    )
 
-    # Multivariate check.
-    d = thr = None
-    maha_ok = True
+
+@dataclass
+class _Tally:
+    """What :func:`check` collects while it goes through the reference modes."""
+
+    reasons: list[Notice] = field(default_factory=list)
+    notes: list[Notice] = field(default_factory=list)
+    feats: list[FeatureCheck] = field(default_factory=list)
+    #: frequencies outside their windows, with their reasons: failures, or advisory on a uniform shift
+    f_fail: list[tuple[FeatureCheck, Notice]] = field(default_factory=list)
+    #: id(notice) -> (mode, feature rank): the reasons are sorted by mode
+    order: dict[int, tuple[int, int]] = field(default_factory=dict)
+    #: the features of the Mahalanobis check (log zeta per mode, ratio to mode 1)
+    values: dict[str, float] = field(default_factory=dict)
+    #: each matched mode's relative frequency shift from its reference
+    shifts: list[float] = field(default_factory=list)
+    ratio_ok: bool = True
+    missing: bool = False
+
+    def add(self, mode: int, rank: int, notice: Notice) -> None:
+        self.order[id(notice)] = (mode, rank)
+        self.reasons.append(notice)
+
+
+def _missing_mode(t: _Tally, ref: ModeLimits, tolerance: float) -> None:
+    t.missing = True
+    t.ratio_ok = t.ratio_ok and ref.ratio is None
+    t.add(ref.index, 0, Notice("mode_missing", f"mode {ref.index} missing (no mode within {tolerance * 100:.0f} % "
+                                               f"of {ref.f_ref_hz:.1f} Hz)"))
+    for feat, win in (("f_hz", ref.f_hz), ("zeta", ref.zeta), ("ratio", ref.ratio)):
+        if win is not None:
+            t.feats.append(FeatureCheck(ref.index, feat, None, win, "missing"))
+
+
+def _check_frequency(t: _Tally, ref: ModeLimits, f: float) -> None:
+    st = _status(f, ref.f_hz)
+    fc = FeatureCheck(ref.index, "f_hz", f, ref.f_hz, st)
+    if st in ("below", "above") and ref.f_hz is not None:
+        t.f_fail.append((fc, Notice(f"f_{st}", f"mode {ref.index} at {_g(f, 6)} Hz is {st} its window "
+                                               f"{_win(ref.f_hz)} Hz")))
+    else:
+        t.feats.append(fc)
+
+
+def _check_damping(t: _Tally, ref: ModeLimits, z: float | None) -> None:
+    name = f"mode {ref.index}"
+    if z is not None and z > 0:
+        t.values[f"log_zeta_{ref.index}"] = math.log(z)
+        st = _status(z, ref.zeta)
+        t.feats.append(FeatureCheck(ref.index, "zeta", float(z), ref.zeta, st))
+        if ref.zeta is None:
+            return
+        if st == "above":
+            t.add(ref.index, 2, Notice("zeta_above", f"damping ratio of {name} is {z / ref.zeta[1]:.1f}x the upper "
+                                                     f"limit ({' against '.join(fmt_values([z, ref.zeta[1]]))})"))
+        elif st == "below":
+            t.add(ref.index, 2, Notice("zeta_below", f"damping ratio of {name} is {z / ref.zeta[0]:.2f}x the lower "
+                                                     f"limit ({' against '.join(fmt_values([z, ref.zeta[0]]))})"))
+    elif ref.zeta is not None:
+        t.feats.append(FeatureCheck(ref.index, "zeta", None, ref.zeta, "missing"))
+        t.add(ref.index, 2, Notice("zeta_missing", f"damping ratio of {name} could not be measured"))
+
+
+def _check_ratio(t: _Tally, ref: ModeLimits, f: float, f1: float | None) -> None:
+    if f1 is None:
+        if ref.ratio is not None:
+            t.feats.append(FeatureCheck(ref.index, "ratio", None, ref.ratio, "missing"))
+            t.ratio_ok = False
+        return
+    r = f / f1
+    t.values[f"ratio_{ref.index}"] = r
+    st = _status(r, ref.ratio)
+    t.feats.append(FeatureCheck(ref.index, "ratio", r, ref.ratio, st))
+    if st in ("below", "above") and ref.ratio is not None:
+        t.ratio_ok = False
+        t.add(ref.index, 3, Notice(f"ratio_{st}", f"frequency ratio of mode {ref.index} to mode 1 is {_g(r, 6)}, "
+                                                  f"{st} its window {_win(ref.ratio)}"))
+
+
+def _check_mahalanobis(t: _Tally, limits: Limits) -> tuple[float | None, float | None]:
+    """The multivariate check: (distance, threshold), or (None, None) when it does not apply."""
     mh = limits.mahalanobis
-    if mh is not None and all(k in values for k in mh.features):
-        d = mh.distance([values[k] for k in mh.features])
-        thr = mh.threshold
-        if d > thr:
-            maha_ok = False
-            reasons.append(Notice("mahalanobis", f"Mahalanobis distance {d:.1f} above {thr:.1f} (the pattern of "
-                                                 "frequency ratios and damping differs from the good parts)"))
+    if mh is None or not all(k in t.values for k in mh.features):
+        return None, None
+    d = mh.distance([t.values[k] for k in mh.features])
+    thr = mh.threshold
+    if d > thr:
+        t.reasons.append(Notice("mahalanobis", f"Mahalanobis distance {d:.1f} above {thr:.1f} (the pattern of "
+                                               "frequency ratios and damping differs from the good parts)"))
+    return d, thr
 
-    # Uniform-shift rule.
-    shift = spread = None
-    if shifts:
-        shift = sum(shifts) / len(shifts)
-        spread = max(shifts) - min(shifts)
-    uniform = (limits.has_ratios and len(refs) > 1 and ratio_ok and not missing
-               and spread is not None and spread <= limits.uniform_shift_tolerance)
-    if f_fail:
-        direction = "below" if shift < 0 else "above"
-        if uniform and maha_ok and abs(shift) <= limits.max_uniform_shift:
-            for fc, note in f_fail:
-                feats.append(replace(fc, status="advisory"))
-                notes.append(Notice(ADVISORY_PREFIX + note.code, note.message + " (advisory)"))
-            notes.insert(0, Notice(
-                "uniform_shift",
-                f"all {len(shifts)} modes are {_pct(shift)} {direction} their reference frequencies by the same "
-                f"fraction (spread {_pct(spread)}), as a temperature or density change moves them; every frequency "
-                "ratio is within its window, so the absolute frequency windows are advisory and the part passes on "
-                "the ratio features",
-            ))
-        else:
-            for fc, note in f_fail:
-                feats.append(fc)
-                add(fc.mode, 1, note)
-            if uniform and abs(shift) > limits.max_uniform_shift:
-                reasons.append(Notice(
-                    "shift_too_large",
-                    f"all {len(shifts)} modes are {_pct(shift)} {direction} their reference frequencies by the same "
-                    f"fraction, more than the {_pct(limits.max_uniform_shift)} a temperature change may excuse "
-                    "(max_uniform_shift): different material, density or size",
-                ))
-    reasons.sort(key=lambda r: order.get(id(r), (10**6, 0)))
-    feats.sort(key=lambda fc: (fc.mode, ("f_hz", "zeta", "ratio").index(fc.feature)))
 
-    # Extra strong modes.
-    used = set(pairs.values())
-    amps = [modes[i].amplitude for i in used if modes[i].amplitude is not None]
+def _check_uniform_shift(t: _Tally, limits: Limits, *, maha_ok: bool) -> tuple[float | None, float | None]:
+    """The uniform-shift rule: frequencies outside their windows are advisory when every mode moved
+    by the same fraction and the ratios hold. Returns (mean shift, spread) of the matched modes."""
+    if not t.shifts:
+        return None, None  # no mode matched: nothing outside a frequency window either
+    shift = sum(t.shifts) / len(t.shifts)
+    spread = max(t.shifts) - min(t.shifts)
+    uniform = (limits.has_ratios and len(limits.modes) > 1 and t.ratio_ok and not t.missing
+               and spread <= limits.uniform_shift_tolerance)
+    if not t.f_fail:
+        return shift, spread
+    direction = "below" if shift < 0 else "above"
+    if uniform and maha_ok and abs(shift) <= limits.max_uniform_shift:
+        for fc, note in t.f_fail:
+            t.feats.append(replace(fc, status="advisory"))
+            t.notes.append(Notice(ADVISORY_PREFIX + note.code, note.message + " (advisory)"))
+        t.notes.insert(0, Notice(
+            "uniform_shift",
+            f"all {len(t.shifts)} modes are {_pct(shift)} {direction} their reference frequencies by the same "
+            f"fraction (spread {_pct(spread)}), as a temperature or density change moves them; every frequency "
+            "ratio is within its window, so the absolute frequency windows are advisory and the part passes on "
+            "the ratio features",
+        ))
+        return shift, spread
+    for fc, note in t.f_fail:
+        t.feats.append(fc)
+        t.add(fc.mode, 1, note)
+    if uniform and abs(shift) > limits.max_uniform_shift:
+        t.reasons.append(Notice(
+            "shift_too_large",
+            f"all {len(t.shifts)} modes are {_pct(shift)} {direction} their reference frequencies by the same "
+            f"fraction, more than the {_pct(limits.max_uniform_shift)} a temperature change may excuse "
+            "(max_uniform_shift): different material, density or size",
+        ))
+    return shift, spread
+
+
+def _note_extra_modes(t: _Tally, modes: list[Mode], freqs: list[float], used: set[int]) -> None:
+    """A note for each strong mode that matches no reference mode."""
+    amps = [a for a in (modes[i].amplitude for i in used) if a is not None]
     top = max(amps) if amps else None
     for i, m in enumerate(modes):
         if i in used:
@@ -331,24 +373,11 @@ def check(analysis: Analysis, limits: Limits) -> CheckResult:
         if top is not None and m.amplitude is not None:
             if m.amplitude >= EXTRA_MODE_LEVEL * top:
                 level = 20.0 * math.log10(m.amplitude / top) if m.amplitude > 0 else float("-inf")
-                notes.append(Notice("extra_mode", f"extra strong mode at {freqs[i]:.1f} Hz ({level:+.0f} dB from the "
-                                                  "strongest matched mode) matches no reference mode"))
+                t.notes.append(Notice("extra_mode", f"extra strong mode at {freqs[i]:.1f} Hz ({level:+.0f} dB from "
+                                                    "the strongest matched mode) matches no reference mode"))
         elif m.snr_db is not None and m.snr_db >= 20.0:
-            notes.append(Notice("extra_mode", f"extra strong mode at {freqs[i]:.1f} Hz (SNR {m.snr_db:.0f} dB) "
-                                              "matches no reference mode"))
-
-    return CheckResult(
-        verdict=FAIL if reasons else PASS,
-        reasons=tuple(reasons),
-        notes=tuple(notes),
-        features=tuple(feats),
-        matched=tuple((refs[j].index, modes[i].index) for j, i in sorted(pairs.items())),
-        mahalanobis=d,
-        mahalanobis_threshold=thr,
-        uniform_shift=shift,
-        uniform_shift_spread=spread,
-        **base,
-    )
+            t.notes.append(Notice("extra_mode", f"extra strong mode at {freqs[i]:.1f} Hz (SNR {m.snr_db:.0f} dB) "
+                                                "matches no reference mode"))
 
 
 # --------------------------------------------------------------------------------------------
