@@ -366,6 +366,59 @@ def learn_limits(
     ratios are positive and skewed) and ``f_d / f_d,1`` (normal).
     """
     items = list(analyses)
+    coverage, confidence = _check_learning(items, coverage, confidence, tolerance, n_modes)
+    n = len(items)
+    said = _Said()
+    if n < FEW_PARTS:
+        said.warn("few_parts", f"only {n} good parts: limits from fewer than {FEW_PARTS} parts are wide and "
+                               "uncertain; measure more good parts")
+    f, z = _common_modes(items, tolerance, n_modes, said)
+    logz = np.log(z)
+    ratio = f / f[:, :1]
+    k = tolerance_k(n, coverage=coverage, confidence=confidence)
+    modes = [_mode_window(col, f[:, col], logz[:, col], ratio[:, col] if col > 0 else None, k)
+             for col in range(f.shape[1])]
+    maha = _mahalanobis_limits(ratio, logz, coverage, said)
+
+    settings = dict(items[0].settings or {})
+    analysis = {k2: v for k2, v in settings.items() if _toml_value_ok(v) and k2 not in READER_KEYS}
+    reader = {k2: settings[k2] for k2 in READER_KEYS if _toml_value_ok(settings.get(k2))}
+    parts = tuple((Path(a.path).name if a.path else f"part_{i + 1}", a.sha256 or "") for i, a in enumerate(items))
+    limits = Limits(
+        modes=tuple(modes),
+        tolerance=float(tolerance),
+        mahalanobis=maha,
+        coverage=coverage,
+        confidence=confidence,
+        k_factor=k,
+        n_parts=n,
+        parts=parts,
+        analysis=analysis,
+        reader=reader,
+        tool_version=__version__,
+        created_utc=utc_stamp(),
+        notes=tuple(said.notes),
+        warnings=tuple(said.warnings),
+    )
+    text = limits_to_toml(limits)
+    return replace(limits, sha256=hashlib.sha256(text.encode("utf-8")).hexdigest())
+
+
+@dataclass
+class _Said:
+    """The warnings of learning, each also kept as a note of the limits file."""
+
+    warnings: list[Notice] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+
+    def warn(self, code: str, message: str) -> None:
+        self.warnings.append(Notice(code, message))
+        self.notes.append(message)
+
+
+def _check_learning(items: list[Analysis], coverage: float, confidence: float, tolerance: float,
+                    n_modes: int | None) -> tuple[float, float]:
+    """Refuse bad options and unusable good parts; returns (coverage, confidence) as floats."""
     from .tolerance import _check_probability
 
     coverage = _check_probability("coverage", coverage)
@@ -379,19 +432,16 @@ def learn_limits(
             raise ParameterError(
                 f"good part {a.path!r} could not be analysed ({a.error.message}); remove it from the good parts"
             )
+    if len(items) < 3:
+        raise ParameterError(f"learning limits needs at least 3 good parts, got {len(items)}; measure more good parts")
+    return coverage, confidence
+
+
+def _common_modes(items: list[Analysis], tolerance: float, n_modes: int | None,
+                  said: _Said) -> tuple[np.ndarray, np.ndarray]:
+    """The damped frequencies (Hz) and damping ratios of the modes every good part shows, each
+    ``(n_parts, n_modes)``, matched to the modes of a seed part (the most common mode count)."""
     n = len(items)
-    if n < 3:
-        raise ParameterError(f"learning limits needs at least 3 good parts, got {n}; measure more good parts")
-
-    warnings: list[Notice] = []
-    notes: list[str] = []
-    if n < FEW_PARTS:
-        msg = (f"only {n} good parts: limits from fewer than {FEW_PARTS} parts are wide and uncertain; "
-               "measure more good parts")
-        warnings.append(Notice("few_parts", msg))
-        notes.append(msg)
-
-    # Reference modes: seed from the part with the most common mode count (first such part).
     counts = [len(a.modes) for a in items]
     if max(counts) == 0:
         raise ParameterError("no good part has any mode; check the recordings and analysis options")
@@ -413,10 +463,8 @@ def learn_limits(
         if present == n:
             keep.append(j)
         else:
-            msg = (f"the mode near {f0:.1f} Hz was found in only {present} of {n} good parts and is not used; "
-                   "check those recordings or lower min_snr_db")
-            warnings.append(Notice("mode_not_in_all_parts", msg))
-            notes.append(msg)
+            said.warn("mode_not_in_all_parts", f"the mode near {f0:.1f} Hz was found in only {present} of {n} good "
+                                               "parts and is not used; check those recordings or lower min_snr_db")
     if not keep:
         raise ParameterError("no mode was found in every good part; check the recordings and analysis options")
     if n_modes is not None:
@@ -426,79 +474,57 @@ def learn_limits(
             )
         keep = keep[: int(n_modes)]
 
-    f = np.array([[row[j][0] for j in keep] for row in feats])  # (n, m)
-    z = np.array([[row[j][1] for j in keep] for row in feats])
+    kept = [[row[j] for j in keep] for row in feats]  # every entry is set: each kept mode is in every part
+    f = np.array([[fz[0] if fz else math.nan for fz in row] for row in kept])  # (n, m)
+    z = np.array([[fz[1] if fz else math.nan for fz in row] for row in kept])
     if not np.all(np.isfinite(f)) or np.any(f <= 0):
         raise ParameterError("a good part has a mode without a positive damped frequency; check its analysis")
     if not np.all(np.isfinite(z)) or np.any(z <= 0):
         raise ParameterError("a good part has a mode without a positive damping ratio; check its analysis")
-    logz = np.log(z)
-    ratio = f / f[:, :1]
-    k = tolerance_k(n, coverage=coverage, confidence=confidence)
+    return f, z
 
-    modes = []
-    for col in range(len(keep)):
-        fm, fs, flo, fhi = _interval(f[:, col], k)
-        lm, ls, llo, lhi = _interval(logz[:, col], k)
-        st = {"f_hz_mean": fm, "f_hz_sd": fs, "log_zeta_mean": lm, "log_zeta_sd": ls}
-        rwin = None
-        if col > 0:
-            rm, rs, rlo, rhi = _interval(ratio[:, col], k)
-            st.update(ratio_mean=rm, ratio_sd=rs)
-            rwin = (rlo, rhi)
-        modes.append(ModeLimits(index=col + 1, f_ref_hz=fm, f_hz=(flo, fhi),
-                                zeta=(math.exp(llo), math.exp(lhi)), ratio=rwin, stats=st))
 
-    # Multivariate check on the drift-free features.
-    names = [f"ratio_{c + 1}" for c in range(1, len(keep))] + [f"log_zeta_{c + 1}" for c in range(len(keep))]
-    x = np.column_stack([ratio[:, 1:], logz]) if len(keep) > 1 else logz
+def _mode_window(col: int, f: np.ndarray, logz: np.ndarray, ratio: np.ndarray | None, k: float) -> ModeLimits:
+    """The windows of reference mode ``col`` (0-based) from its values over the good parts."""
+    fm, fs, flo, fhi = _interval(f, k)
+    lm, ls, llo, lhi = _interval(logz, k)
+    st = {"f_hz_mean": fm, "f_hz_sd": fs, "log_zeta_mean": lm, "log_zeta_sd": ls}
+    rwin = None
+    if ratio is not None:
+        rm, rs, rlo, rhi = _interval(ratio, k)
+        st.update(ratio_mean=rm, ratio_sd=rs)
+        rwin = (rlo, rhi)
+    return ModeLimits(index=col + 1, f_ref_hz=fm, f_hz=(flo, fhi), zeta=(math.exp(llo), math.exp(lhi)), ratio=rwin,
+                      stats=st)
+
+
+def _mahalanobis_limits(ratio: np.ndarray, logz: np.ndarray, coverage: float,
+                        said: _Said) -> MahalanobisLimits | None:
+    """The multivariate check on the drift-free features (ratios to mode 1, log zeta), or None
+    (with a warning) when the good parts are too few or their features collinear."""
+    n, m = logz.shape
+    names = [f"ratio_{c + 1}" for c in range(1, m)] + [f"log_zeta_{c + 1}" for c in range(m)]
+    x = np.column_stack([ratio[:, 1:], logz]) if m > 1 else logz
     p = x.shape[1]
-    maha = None
     if n - p < MAHALANOBIS_MARGIN:
-        msg = (f"no Mahalanobis check: {n} good parts for {p} features (needs at least {p + MAHALANOBIS_MARGIN}); "
-               "per-feature windows only")
-        warnings.append(Notice("no_mahalanobis", msg))
-        notes.append(msg)
-    else:
-        cov = np.cov(x, rowvar=False, ddof=1).reshape(p, p)
-        sd = np.sqrt(np.diag(cov))
-        cond = np.linalg.cond(cov / np.outer(sd, sd)) if np.all(sd > 0) else np.inf
-        if not np.isfinite(cond) or cond > 1e10:
-            msg = "no Mahalanobis check: the good parts' features are (nearly) collinear; per-feature windows only"
-            warnings.append(Notice("no_mahalanobis", msg))
-            notes.append(msg)
-        else:
-            maha = MahalanobisLimits(
-                features=tuple(names),
-                mean=tuple(float(v) for v in x.mean(axis=0)),
-                covariance=tuple(tuple(float(v) for v in r) for r in cov),
-                threshold=mahalanobis_threshold(n, p, probability=coverage),
-                n_parts=n,
-                probability=coverage,
-            )
-
-    settings = dict(items[0].settings or {})
-    analysis = {k2: v for k2, v in settings.items() if _toml_value_ok(v) and k2 not in READER_KEYS}
-    reader = {k2: settings[k2] for k2 in READER_KEYS if _toml_value_ok(settings.get(k2))}
-    parts = tuple((Path(a.path).name if a.path else f"part_{i + 1}", a.sha256 or "") for i, a in enumerate(items))
-    limits = Limits(
-        modes=tuple(modes),
-        tolerance=float(tolerance),
-        mahalanobis=maha,
-        coverage=coverage,
-        confidence=confidence,
-        k_factor=k,
+        said.warn("no_mahalanobis", f"no Mahalanobis check: {n} good parts for {p} features (needs at least "
+                                    f"{p + MAHALANOBIS_MARGIN}); per-feature windows only")
+        return None
+    cov = np.cov(x, rowvar=False, ddof=1).reshape(p, p)
+    sd = np.sqrt(np.diag(cov))
+    cond = np.linalg.cond(cov / np.outer(sd, sd)) if np.all(sd > 0) else np.inf
+    if not np.isfinite(cond) or cond > 1e10:
+        said.warn("no_mahalanobis", "no Mahalanobis check: the good parts' features are (nearly) collinear; "
+                                    "per-feature windows only")
+        return None
+    return MahalanobisLimits(
+        features=tuple(names),
+        mean=tuple(float(v) for v in x.mean(axis=0)),
+        covariance=tuple(tuple(float(v) for v in r) for r in cov),
+        threshold=mahalanobis_threshold(n, p, probability=coverage),
         n_parts=n,
-        parts=parts,
-        analysis=analysis,
-        reader=reader,
-        tool_version=__version__,
-        created_utc=utc_stamp(),
-        notes=tuple(notes),
-        warnings=tuple(warnings),
+        probability=coverage,
     )
-    text = limits_to_toml(limits)
-    return replace(limits, sha256=hashlib.sha256(text.encode("utf-8")).hexdigest())
 
 
 # --------------------------------------------------------------------------------------------
