@@ -300,7 +300,7 @@ def match_modes(freqs_hz: Sequence[float], ref_hz: Sequence[float], *, tolerance
     if f.size == 0 or r.size == 0:
         return {}
     fo, ro = np.argsort(f), np.argsort(r)
-    pairs = match_frequencies(r[ro], f[fo], tolerance=tolerance)
+    pairs = match_frequencies(r[ro].tolist(), f[fo].tolist(), tolerance=tolerance)
     return {int(ro[i]): int(fo[j]) for i, j in pairs}
 
 
@@ -606,8 +606,10 @@ def limits_to_toml(limits: Limits) -> str:
         w("[settings]")
         w("# two-sided normal tolerance intervals, ISO 16269-6, exact k (Odeh & Owen)")
         w(f"coverage = {_toml_val(float(limits.coverage))}")
-        w(f"confidence = {_toml_val(float(limits.confidence))}")
-        w(f"k_factor = {_toml_val(_fmt(float(limits.k_factor)))}")
+        if limits.confidence is not None:  # a hand-written file may give coverage alone
+            w(f"confidence = {_toml_val(float(limits.confidence))}")
+        if limits.k_factor is not None:
+            w(f"k_factor = {_toml_val(_fmt(float(limits.k_factor)))}")
         w(f"n_parts = {int(limits.n_parts or 0)}")
         w('damping_model = "log(zeta) is normal"')
     if limits.notes:
@@ -757,77 +759,11 @@ def parse_limits(text: str, *, source: str = "<string>") -> Limits:
         Naming the file, the key and the fix.
     """
     src = source
-    body = text[1:] if text.startswith("\ufeff") else text  # a byte-order mark some editors add
-    try:
-        doc = _toml.loads(body)
-    except _toml.TOMLDecodeError as exc:
-        raise LimitsError(f"limits file '{src}' is not valid TOML ({exc}); fix the line named") from None
-    except RecursionError:
-        raise LimitsError(f"limits file '{src}' nests arrays or tables too deeply to be a limits file; "
-                          "fix or relearn it") from None
-    unknown = set(doc) - _TOP_KEYS
-    if unknown:
-        raise LimitsError(f"limits file '{src}' has unknown key(s) {sorted(unknown)}; allowed: "
-                          f"{', '.join(sorted(_TOP_KEYS))} (a misspelt key would be ignored silently)")
-    fv = doc.get("format_version", FORMAT_VERSION)
-    if not isinstance(fv, int) or isinstance(fv, bool) or fv < 1:
-        raise LimitsError(f"limits file '{src}': format_version must be a positive integer, got {fv!r}")
-    if fv > FORMAT_VERSION:
-        raise LimitsError(f"limits file '{src}' has format_version {fv}, newer than this ringdown reads "
-                          f"({FORMAT_VERSION}); upgrade ringdown")
-    chk = doc.get("check", {})
-    if not isinstance(chk, dict):
-        raise LimitsError(f"limits file '{src}': [check] must be a table")
-    bad = set(chk) - {"tolerance", "max_uniform_shift", "uniform_shift_tolerance"}
-    if bad:
-        raise LimitsError(f"limits file '{src}': [check] has unknown key(s) {sorted(bad)}; "
-                          "allowed: tolerance, max_uniform_shift, uniform_shift_tolerance")
-    tolerance = _num(src, "check.", "tolerance", chk.get("tolerance"), DEFAULT_TOLERANCE, lo=0.0, hi=0.5)
-    mus = _num(src, "check.", "max_uniform_shift", chk.get("max_uniform_shift"), DEFAULT_MAX_UNIFORM_SHIFT, lo=-1e-12, hi=0.5)
-    ust = _num(src, "check.", "uniform_shift_tolerance", chk.get("uniform_shift_tolerance"),
-               DEFAULT_UNIFORM_SHIFT_TOLERANCE, lo=-1e-12, hi=0.5)
-
-    raw_modes = doc.get("modes")
-    if not isinstance(raw_modes, list) or not raw_modes:
-        raise LimitsError(f"limits file '{src}': no [[modes]] entries; add at least one, e.g. [[modes]] f_hz = [1720.0, 1765.0]")
-    modes: list[ModeLimits] = []
-    for i, m in enumerate(raw_modes):
-        where = f"modes[{i + 1}]"
-        if not isinstance(m, dict):
-            raise LimitsError(f"limits file '{src}': {where} must be a table ([[modes]])")
-        unknown = set(m) - {"index", "f_ref_hz", "f_hz", "zeta", "ratio", "stats"}
-        if unknown:
-            raise LimitsError(f"limits file '{src}': {where} has unknown key(s) {sorted(unknown)}; "
-                              "allowed: index, f_ref_hz, f_hz, zeta, ratio, stats")
-        fwin = _window(src, where, "f_hz", m.get("f_hz"), positive=True)
-        zwin = _window(src, where, "zeta", m.get("zeta"), positive=True)
-        rwin = _window(src, where, "ratio", m.get("ratio"), positive=True)
-        fref = m.get("f_ref_hz")
-        if fref is None:
-            if fwin is None:
-                raise LimitsError(f"limits file '{src}': {where} needs f_hz = [lo, hi] (or f_ref_hz); add the frequency window")
-            fref = 0.5 * (fwin[0] + fwin[1])
-        fref = _num(src, where + ".", "f_ref_hz", fref, None, lo=0.0, hi=1e12)
-        if rwin is not None and i == 0:
-            raise LimitsError(f"limits file '{src}': {where}.ratio given for the first mode; ratios are to mode 1, remove it")
-        stats_ = m.get("stats", {})
-        if not isinstance(stats_, dict):
-            raise LimitsError(f"limits file '{src}': {where}.stats must be a table")
-        idx = m.get("index", i + 1)
-        if idx != i + 1:
-            raise LimitsError(f"limits file '{src}': {where}.index is {idx!r}, expected {i + 1}; list modes in order")
-        modes.append(ModeLimits(index=i + 1, f_ref_hz=fref, f_hz=fwin, zeta=zwin, ratio=rwin,
-                                stats={k: float(v) for k, v in stats_.items()
-                                       if _is_number(v) and math.isfinite(float(v))}))
-    refs = [m.f_ref_hz for m in modes]
-    if any(b <= a for a, b in zip(refs, refs[1:])):
-        raise LimitsError(f"limits file '{src}': modes must be listed in ascending frequency; reorder the [[modes]] entries")
-
-    maha = None
+    doc = _load_toml(text, src)
+    tolerance, mus, ust = _parse_check(src, doc)
+    modes = _parse_modes(src, doc)
     mh = doc.get("mahalanobis")
-    if mh is not None:
-        maha = _parse_maha(src, mh, len(modes))
-
+    maha = None if mh is None else _parse_maha(src, mh, len(modes))
     st = doc.get("settings", {})
     if not isinstance(st, dict):
         raise LimitsError(f"limits file '{src}': [settings] must be a table")
@@ -837,30 +773,11 @@ def parse_limits(text: str, *, source: str = "<string>") -> Limits:
     n_parts = st.get("n_parts")
     if n_parts is not None and (isinstance(n_parts, bool) or not isinstance(n_parts, int) or n_parts < 0):
         raise LimitsError(f"limits file '{src}': settings.n_parts must be a whole number >= 0, got {n_parts!r}")
-    parts_ = doc.get("parts", []) or []
-    if not isinstance(parts_, list):
-        raise LimitsError(f"limits file '{src}': parts must be [[parts]] tables with name and sha256")
-    parts = []
-    for i, pt in enumerate(parts_):
-        if not isinstance(pt, dict) or not isinstance(pt.get("name", ""), str) or not isinstance(pt.get("sha256", ""), str):
-            raise LimitsError(f"limits file '{src}': parts[{i + 1}] must be a table with name and sha256")
-        parts.append((str(pt.get("name", "")), str(pt.get("sha256", ""))))
+    parts = _parse_parts(src, doc)
     analysis = doc.get("analysis", {})
     if not isinstance(analysis, dict):
         raise LimitsError(f"limits file '{src}': [analysis] must be a table")
-    reader = doc.get("reader", {})
-    if not isinstance(reader, dict):
-        raise LimitsError(f"limits file '{src}': [reader] must be a table")
-    unknown = sorted(set(reader) - set(READER_KEYS))
-    if unknown:
-        raise LimitsError(f"limits file '{src}': [reader] has unknown key(s) {unknown}; allowed: {', '.join(READER_KEYS)}")
-    rate = reader.get("sample_rate")
-    if rate is not None:
-        _num(src, "reader.", "sample_rate", rate, None, lo=0.0, hi=1e12)
-    for key in ("channel", "column"):
-        v = reader.get(key)
-        if v is not None and (isinstance(v, bool) or not isinstance(v, (int, str))):
-            raise LimitsError(f"limits file '{src}': reader.{key} must be a number or a name, got {v!r}")
+    reader = _parse_reader(src, doc)
     _check_analysis(src, analysis)
     notes = st.get("notes", doc.get("notes", []))
     if not isinstance(notes, list) or not all(isinstance(x, str) for x in notes):
@@ -887,6 +804,125 @@ def parse_limits(text: str, *, source: str = "<string>") -> Limits:
         source=source,
         sha256=hashlib.sha256(text.encode("utf-8")).hexdigest(),
     )
+
+
+def _load_toml(text: str, src: str) -> dict[str, Any]:
+    """The TOML document of a limits file, its top-level keys and format version checked."""
+    body = text[1:] if text.startswith("\ufeff") else text  # a byte-order mark some editors add
+    try:
+        doc = _toml.loads(body)
+    except _toml.TOMLDecodeError as exc:
+        raise LimitsError(f"limits file '{src}' is not valid TOML ({exc}); fix the line named") from None
+    except RecursionError:
+        raise LimitsError(f"limits file '{src}' nests arrays or tables too deeply to be a limits file; "
+                          "fix or relearn it") from None
+    unknown = set(doc) - _TOP_KEYS
+    if unknown:
+        raise LimitsError(f"limits file '{src}' has unknown key(s) {sorted(unknown)}; allowed: "
+                          f"{', '.join(sorted(_TOP_KEYS))} (a misspelt key would be ignored silently)")
+    fv = doc.get("format_version", FORMAT_VERSION)
+    if not isinstance(fv, int) or isinstance(fv, bool) or fv < 1:
+        raise LimitsError(f"limits file '{src}': format_version must be a positive integer, got {fv!r}")
+    if fv > FORMAT_VERSION:
+        raise LimitsError(f"limits file '{src}' has format_version {fv}, newer than this ringdown reads "
+                          f"({FORMAT_VERSION}); upgrade ringdown")
+    return doc
+
+
+def _num_or(src: str, where: str, key: str, v: Any, default: float, *, lo: float, hi: float) -> float:
+    """:func:`_num` for a key with a default (so never None)."""
+    x = _num(src, where, key, v, default, lo=lo, hi=hi)
+    return default if x is None else x
+
+
+def _parse_check(src: str, doc: dict[str, Any]) -> tuple[float, float, float]:
+    """``[check]``: (tolerance, max_uniform_shift, uniform_shift_tolerance), defaults filled in."""
+    chk = doc.get("check", {})
+    if not isinstance(chk, dict):
+        raise LimitsError(f"limits file '{src}': [check] must be a table")
+    bad = set(chk) - {"tolerance", "max_uniform_shift", "uniform_shift_tolerance"}
+    if bad:
+        raise LimitsError(f"limits file '{src}': [check] has unknown key(s) {sorted(bad)}; "
+                          "allowed: tolerance, max_uniform_shift, uniform_shift_tolerance")
+    tolerance = _num_or(src, "check.", "tolerance", chk.get("tolerance"), DEFAULT_TOLERANCE, lo=0.0, hi=0.5)
+    mus = _num_or(src, "check.", "max_uniform_shift", chk.get("max_uniform_shift"), DEFAULT_MAX_UNIFORM_SHIFT,
+                  lo=-1e-12, hi=0.5)
+    ust = _num_or(src, "check.", "uniform_shift_tolerance", chk.get("uniform_shift_tolerance"),
+                  DEFAULT_UNIFORM_SHIFT_TOLERANCE, lo=-1e-12, hi=0.5)
+    return tolerance, mus, ust
+
+
+def _parse_modes(src: str, doc: dict[str, Any]) -> list[ModeLimits]:
+    """``[[modes]]``: one entry per reference mode, in ascending frequency."""
+    raw_modes = doc.get("modes")
+    if not isinstance(raw_modes, list) or not raw_modes:
+        raise LimitsError(f"limits file '{src}': no [[modes]] entries; add at least one, e.g. [[modes]] f_hz = [1720.0, 1765.0]")
+    modes = [_parse_mode(src, i, m) for i, m in enumerate(raw_modes)]
+    refs = [m.f_ref_hz for m in modes]
+    if any(b <= a for a, b in zip(refs, refs[1:])):
+        raise LimitsError(f"limits file '{src}': modes must be listed in ascending frequency; reorder the [[modes]] entries")
+    return modes
+
+
+def _parse_mode(src: str, i: int, m: Any) -> ModeLimits:
+    """Entry ``i`` (0-based) of ``[[modes]]``."""
+    where = f"modes[{i + 1}]"
+    if not isinstance(m, dict):
+        raise LimitsError(f"limits file '{src}': {where} must be a table ([[modes]])")
+    unknown = set(m) - {"index", "f_ref_hz", "f_hz", "zeta", "ratio", "stats"}
+    if unknown:
+        raise LimitsError(f"limits file '{src}': {where} has unknown key(s) {sorted(unknown)}; "
+                          "allowed: index, f_ref_hz, f_hz, zeta, ratio, stats")
+    fwin = _window(src, where, "f_hz", m.get("f_hz"), positive=True)
+    zwin = _window(src, where, "zeta", m.get("zeta"), positive=True)
+    rwin = _window(src, where, "ratio", m.get("ratio"), positive=True)
+    fref = m.get("f_ref_hz")
+    if fref is None:
+        if fwin is None:
+            raise LimitsError(f"limits file '{src}': {where} needs f_hz = [lo, hi] (or f_ref_hz); add the frequency window")
+        fref = 0.5 * (fwin[0] + fwin[1])
+    f_ref_hz = _num_or(src, where + ".", "f_ref_hz", fref, math.nan, lo=0.0, hi=1e12)  # fref is set: no default
+    if rwin is not None and i == 0:
+        raise LimitsError(f"limits file '{src}': {where}.ratio given for the first mode; ratios are to mode 1, remove it")
+    stats_ = m.get("stats", {})
+    if not isinstance(stats_, dict):
+        raise LimitsError(f"limits file '{src}': {where}.stats must be a table")
+    idx = m.get("index", i + 1)
+    if idx != i + 1:
+        raise LimitsError(f"limits file '{src}': {where}.index is {idx!r}, expected {i + 1}; list modes in order")
+    return ModeLimits(index=i + 1, f_ref_hz=f_ref_hz, f_hz=fwin, zeta=zwin, ratio=rwin,
+                      stats={k: float(v) for k, v in stats_.items() if _is_number(v) and math.isfinite(float(v))})
+
+
+def _parse_parts(src: str, doc: dict[str, Any]) -> list[tuple[str, str]]:
+    """``[[parts]]``: (name, sha256) of each good part the limits were learned from."""
+    parts_ = doc.get("parts", []) or []
+    if not isinstance(parts_, list):
+        raise LimitsError(f"limits file '{src}': parts must be [[parts]] tables with name and sha256")
+    parts = []
+    for i, pt in enumerate(parts_):
+        if not isinstance(pt, dict) or not isinstance(pt.get("name", ""), str) or not isinstance(pt.get("sha256", ""), str):
+            raise LimitsError(f"limits file '{src}': parts[{i + 1}] must be a table with name and sha256")
+        parts.append((str(pt.get("name", "")), str(pt.get("sha256", ""))))
+    return parts
+
+
+def _parse_reader(src: str, doc: dict[str, Any]) -> dict[str, Any]:
+    """``[reader]``: the reader options the good parts were read with."""
+    reader = doc.get("reader", {})
+    if not isinstance(reader, dict):
+        raise LimitsError(f"limits file '{src}': [reader] must be a table")
+    unknown = sorted(set(reader) - set(READER_KEYS))
+    if unknown:
+        raise LimitsError(f"limits file '{src}': [reader] has unknown key(s) {unknown}; allowed: {', '.join(READER_KEYS)}")
+    rate = reader.get("sample_rate")
+    if rate is not None:
+        _num(src, "reader.", "sample_rate", rate, None, lo=0.0, hi=1e12)
+    for key in ("channel", "column"):
+        v = reader.get(key)
+        if v is not None and (isinstance(v, bool) or not isinstance(v, (int, str))):
+            raise LimitsError(f"limits file '{src}': reader.{key} must be a number or a name, got {v!r}")
+    return reader
 
 
 #: Top-level keys of a limits file (anything else is a typo that would be ignored silently).
@@ -973,11 +1009,11 @@ def _parse_maha(src: str, mh: Any, n_modes: int) -> MahalanobisLimits:
     c = np.asarray(cov, dtype=float)
     if not np.all(np.isfinite(c)) or not np.allclose(c, c.T, rtol=1e-6, atol=0) or np.any(np.linalg.eigvalsh(c) <= 0):
         raise LimitsError(f"limits file '{src}': {where}.covariance must be symmetric positive definite; relearn the limits")
-    thr = _num(src, where + ".", "threshold", mh["threshold"], None, lo=0.0, hi=1e6)
+    thr = _num_or(src, where + ".", "threshold", mh["threshold"], math.nan, lo=0.0, hi=1e6)  # required: no default
     n = mh.get("n_parts", 0)
     if isinstance(n, bool) or not isinstance(n, int) or n < 0:
         raise LimitsError(f"limits file '{src}': {where}.n_parts must be a whole number >= 0, got {n!r}")
-    prob = _num(src, where + ".", "probability", mh.get("probability"), 0.99, lo=0.0, hi=1.0)
+    prob = _num_or(src, where + ".", "probability", mh.get("probability"), 0.99, lo=0.0, hi=1.0)
     return MahalanobisLimits(
         features=tuple(feats),
         mean=tuple(float(v) for v in mean),
