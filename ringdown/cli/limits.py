@@ -11,7 +11,7 @@ import sys
 from dataclasses import replace
 from functools import partial
 from pathlib import Path
-from typing import Optional
+from typing import TYPE_CHECKING, Optional
 
 import typer
 
@@ -56,6 +56,9 @@ from ._options import (
     reader_options,
     report_header,
 )
+
+if TYPE_CHECKING:
+    from ..inspection.check import CheckResult
 
 __all__ = ["register", "format_check"]
 
@@ -127,7 +130,7 @@ def _write_report(rows: list[dict], limits, path: str, options: dict, header: di
     from ..render.report import Section, _write, html_table, render_check_report
 
     opts = {**limits.analysis_options(), **options}
-    analyses = []
+    analyses: list[Analysis | None] = []
     for r in rows:
         if r.get("skipped") or not r.get("path") or r["path"] == "-":
             analyses.append(None)
@@ -203,12 +206,12 @@ def register(app: typer.Typer) -> None:
             except KeyboardInterrupt:
                 error_line(f"interrupted: no limits written to '{output}'; rerun to learn them")
                 raise typer.Exit(EXIT_INTERRUPTED) from None
-            bad = [a for a in analyses if a.error is not None]
+            bad = [(a.path, a.error) for a in analyses if a.error is not None]
             if bad:
                 from ..base.errors import ParameterError
 
-                raise ParameterError(f"{len(bad)} good part(s) could not be analysed, first {bad[0].path!r}: "
-                                     f"{bad[0].error.message}; remove or re-record them")
+                raise ParameterError(f"{len(bad)} good part(s) could not be analysed, first {bad[0][0]!r}: "
+                                     f"{bad[0][1].message}; remove or re-record them")
             lim = learn_limits(analyses, coverage=coverage, confidence=confidence, tolerance=tolerance,
                                n_modes=n_modes)
             sha = write_limits(lim, output)
@@ -311,7 +314,7 @@ def register(app: typer.Typer) -> None:
 
         store = guarded(prepare, debug=debug)
         rows: list[dict | None] = [None] * len(paths)
-        results = [None] * len(paths)
+        results: list[CheckResult | None] = [None] * len(paths)
         interrupted = store_failed = False
         try:
             shas = [file_sha256(p) for p in paths]
@@ -320,8 +323,8 @@ def register(app: typer.Typer) -> None:
                 old = None if (store is None or force or shas[i] is None) else guarded(
                     partial(store.find_check, shas[i], lim.sha256), debug=debug)
                 if old is not None:
-                    rows[i] = _stored_row(old, ids[i], p, shas[i])
-                    _stream(rows[i], json_out, jsonl)
+                    rows[i] = row = _stored_row(old, ids[i], p, shas[i])
+                    _stream(row, json_out, jsonl)
                 else:
                     todo.append(i)
             prog, task = progress_bar(on_terminal(json_out) and len(todo) > 1, len(todo), "checking")
@@ -351,9 +354,9 @@ def register(app: typer.Typer) -> None:
                                 error_line(f"{exc}; results from here on are not stored")
                                 store_failed = True
                         results[i] = res
-                        rows[i] = {"part_id": ids[i], "skipped": False, "stored_id": stored, **res.to_dict()}
+                        rows[i] = row = {"part_id": ids[i], "skipped": False, "stored_id": stored, **res.to_dict()}
                     prog.advance(task)
-                    _stream(rows[i], json_out, jsonl)
+                    _stream(row, json_out, jsonl)
                 guarded(sink.close, debug=debug)
         except KeyboardInterrupt:
             interrupted = True
@@ -397,7 +400,7 @@ def register(app: typer.Typer) -> None:
         raise typer.Exit(code)
 
 
-def _stored_row(old, part_id: str, path: str, sha: str) -> dict:
+def _stored_row(old, part_id: str, path: str, sha: str | None) -> dict:
     """The row of a part skipped as already stored: the stored record in full (features, modes)."""
     rec = dict(old.result) if old.result else {
         "reasons": list(old.reasons), "notes": list(old.notes), "features": [], "modes": [],

@@ -278,7 +278,7 @@ class ParquetSink:
                     error_code=None, error=record.error, tool_version=record.tool_version)  # the store keeps no code
         if record.kind == "check":
             base["reasons"] = "; ".join(r["message"] for r in record.reasons) or None
-        self._add(base, [dict(m) for m in modes], matched={m["index"]: m.get("ref_index") for m in modes
+        self._add(base, [dict(m) for m in modes], matched={m["index"]: int(m["ref_index"]) for m in modes
                                                             if m.get("ref_index") is not None})
 
     # -- writing --------------------------------------------------------------------------------

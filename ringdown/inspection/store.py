@@ -412,7 +412,8 @@ class ResultStore:
             (kind, part_id, path, sha256, utc_stamp("microseconds"), station, operator, __version__, _json(settings),
              limits_sha256, verdict, _json(reasons), _json(notes), mahalanobis, uniform_shift, error, result_json),
         )
-        rid = int(cur.lastrowid)
+        rid = cur.lastrowid
+        assert rid is not None  # set by an INSERT
         ref_of = {mode_idx: ref for ref, mode_idx in matched}
         for m in modes:
             d = m.to_dict()
@@ -520,12 +521,13 @@ class ResultStore:
             d.update(mode_index=m["mode_index"], ref_index=m["ref_index"])
             modes.append(d)
 
-        def parsed(col: str, kind: type):
+        def parsed(col: str, kind: type) -> Any:
+            v: Any
             try:
                 v = json.loads(row[col])
             except (TypeError, ValueError):
                 v = None
-            if not isinstance(v, kind) or (kind is list and not all(isinstance(x, dict) for x in v)):
+            if not isinstance(v, kind) or (isinstance(v, list) and not all(isinstance(x, dict) for x in v)):
                 raise StoreError(f"results database '{self.path}': row {row['id']} holds invalid {col}; the file "
                                  "is damaged or was edited; restore a backup or use another --db")
             return v
@@ -644,6 +646,9 @@ def store_analysis(db: str | os.PathLike | ResultStore, analysis: Analysis, *, p
     StoreError
     """
     if isinstance(db, ResultStore):
-        return db.record_analysis(analysis, part_id=part_id, station=station, operator=operator)
-    with ResultStore(db) as store:
-        return store.record_analysis(analysis, part_id=part_id, station=station, operator=operator)
+        rid = db.record_analysis(analysis, part_id=part_id, station=station, operator=operator)
+    else:
+        with ResultStore(db) as store:
+            rid = store.record_analysis(analysis, part_id=part_id, station=station, operator=operator)
+    assert rid is not None  # None only when asked to skip what is stored (skip_stored)
+    return rid

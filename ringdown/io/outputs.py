@@ -98,7 +98,8 @@ def atomic_write(path: str | os.PathLike, mode: str = "w", *, encoding: str | No
                              "choose a writable path") from None
     try:
         binary = "b" in mode
-        with os.fdopen(fd, mode, **({} if binary else {"encoding": encoding, "newline": newline})) as fh:
+        text_options: dict[str, Any] = {} if binary else {"encoding": encoding, "newline": newline}
+        with os.fdopen(fd, mode, **text_options) as fh:
             yield fh
             fh.flush()
             os.fsync(fh.fileno())

@@ -9,6 +9,7 @@ ch. 5 [from memory for the chapter]). matplotlib is imported lazily and only the
 from __future__ import annotations
 
 from collections.abc import Sequence
+from typing import Any
 
 __all__ = ["plot_run_chart"]
 
@@ -17,7 +18,7 @@ _FEATURES = {"f_d_hz": ("f_d [Hz]", "f_hz"), "zeta": ("damping ratio", "zeta"),
 # Okabe-Ito colours (Wong, Nature Methods 8:441, 2011), as in plots.py; markers and fill differ
 # too, so the chart reads in greyscale: an advisory pass (absolute windows excused, e.g. a warm
 # part) is a hollow diamond, apart from plain passes
-_LOOK = {
+_LOOK: dict[str, dict[str, Any]] = {
     "pass": dict(color="#0072B2", marker="o", label="pass"),
     "pass_advisory": dict(color="#E69F00", marker="D", label="pass, advisory windows", hollow=True),
     "fail": dict(color="#D55E00", marker="X", label="fail"),

@@ -424,7 +424,7 @@ def plot_spectrum(analysis, *, ax=None):
     # headroom above the largest peak (0 dB) for a row of labels: 0 dB sits at 80 % of the height
     ax.set_ylim(floor, max(12.0, 0.25 * -floor))
     # one row of labels along the top, spread so that no two overlap, each tied to its marker
-    label_x = spread_labels(np.array([m.f_d_hz / f_max for m in modes]), 0.035) if modes else []
+    label_x = spread_labels(np.array([m.f_d_hz / f_max for m in modes]), 0.035) if modes else np.empty(0)
     for i, m in enumerate(modes):
         st = _mode_style(i)
         j = int(np.argmin(np.abs(f - m.f_d_hz)))

@@ -297,7 +297,7 @@ def _hits_table(a) -> str:
 
 
 def _warnings(a) -> str:
-    items = [(None, w) for w in a.warnings]
+    items: list[tuple[str | None, Any]] = [(None, w) for w in a.warnings]
     for m in a.modes:
         items += [(f"mode {m.index}", w) for w in m.warnings]
     if not items:
@@ -767,7 +767,7 @@ def _feature_table(features) -> str:
         win = d.get("window")
         status = str(d.get("status"))
         kind = {"pass": "pass", "advisory": "pass_advisory", "unchecked": "analysis"}.get(status, "fail")
-        rows.append([str(d.get("mode")), _FEATURE_NAMES.get(d.get("feature"), str(d.get("feature"))),
+        rows.append([str(d.get("mode")), _FEATURE_NAMES.get(str(d.get("feature")), str(d.get("feature"))),
                      fmt_value(d.get("value"), 6, missing=_DASH),
                      _DASH if not win else " to ".join(fmt_values(win, 6)),
                      verdict_cell(kind, "" if status in ("pass", "advisory") else f": {status}")])

@@ -491,7 +491,9 @@ def _two_sample(before: _Sample, after: _Sample, confidence: float):
     if len(single) == 1:
         many = after if after.n >= 2 else before
         var_many = float(np.var(many.values, ddof=1)) / many.n
-        var_one = single[0].u_single ** 2
+        u_one = single[0].u_single
+        assert u_one is not None  # checked above
+        var_one = u_one**2
         se2 = var_many + var_one
         if se2 <= 0.0:
             return diff, None, None, None, None, None, "none"
@@ -506,6 +508,7 @@ def _two_sample(before: _Sample, after: _Sample, confidence: float):
         k = float(stats.t.ppf(0.5 + confidence / 2.0, dof))
         p = float(2.0 * stats.t.sf(abs(diff) / se, dof))
         return diff, se, dof, diff - k * se, diff + k * se, p, "t_effective_dof"
+    assert before.u_single is not None and after.u_single is not None  # checked above
     se2 = before.u_single**2 + after.u_single**2
     if se2 <= 0.0:
         return diff, None, None, None, None, None, "none"
