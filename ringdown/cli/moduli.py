@@ -44,7 +44,7 @@ def format_table(result) -> str:
     for q in ("e_pa", "g_pa", "poisson", "density_kg_per_m3"):
         d = result.dominant(q)
         s = next((b.share for b in result.budget if b.quantity == q and b.input == d), None)
-        share[q] = "-" if d is None else f"{d} ({100 * s:.0f} %)"
+        share[q] = "-" if d is None or s is None else f"{d} ({100 * s:.0f} %)"
     rows = [
         ("Young's modulus E", _pm(result.e_pa, result.e_pa_u, 1e9), "GPa", share["e_pa"]),
         ("shear modulus G", _pm(result.g_pa, result.g_pa_u, 1e9), "GPa", share["g_pa"]),
@@ -104,6 +104,12 @@ def _write_report(result, out: Path, settings: dict, header: dict) -> None:
 
     header = {**header, "title": header.get("title") or "Elastic moduli from a tap"}
     write_report(list(result.analyses), out, settings=settings, extra_sections=[moduli_section(result)], **header)
+
+
+def _required(name: str, value: Optional[float], shape: str) -> float:
+    v = _positive(name, value, True, shape)
+    assert v is not None  # _positive raised for a missing required value
+    return v
 
 
 def _positive(name: str, value: Optional[float], required: bool, shape: str) -> Optional[float]:
@@ -186,13 +192,14 @@ def register(app: typer.Typer) -> None:
             if shape not in ("bar", "rod"):
                 raise ParameterError(f"--shape must be 'bar' or 'rod'; got {shape!r}")
             is_bar = shape == "bar"
-            L = _positive("--length-mm", length_mm, True, shape)
-            m = _positive("--mass-g", mass_g, True, shape)
+            L = _required("--length-mm", length_mm, shape)
+            m = _required("--mass-g", mass_g, shape)
+            spec: RectangularBar | CylindricalRod
             if is_bar:
                 if diameter_mm is not None:
                     raise ParameterError("--diameter-mm is for --shape rod; a bar takes --width-mm and --thickness-mm")
-                b = _positive("--width-mm", width_mm, True, shape)
-                t = _positive("--thickness-mm", thickness_mm, True, shape)
+                b = _required("--width-mm", width_mm, shape)
+                t = _required("--thickness-mm", thickness_mm, shape)
                 spec = RectangularBar(L * 1e-3, b * 1e-3, t * 1e-3, m * 1e-3,
                                       _nonneg("--u-length-mm", u_length_mm) * 1e-3,
                                       _nonneg("--u-width-mm", u_width_mm) * 1e-3,
@@ -201,7 +208,7 @@ def register(app: typer.Typer) -> None:
             else:
                 if width_mm is not None or thickness_mm is not None:
                     raise ParameterError("--width-mm and --thickness-mm are for --shape bar; a rod takes --diameter-mm")
-                d = _positive("--diameter-mm", diameter_mm, True, shape)
+                d = _required("--diameter-mm", diameter_mm, shape)
                 spec = CylindricalRod(L * 1e-3, d * 1e-3, m * 1e-3, _nonneg("--u-length-mm", u_length_mm) * 1e-3,
                                       _nonneg("--u-diameter-mm", u_diameter_mm) * 1e-3,
                                       _nonneg("--u-mass-g", u_mass_g) * 1e-3)

@@ -153,6 +153,7 @@ class _Specimen:
 
     __slots__ = ()
     _inputs: ClassVar[tuple[str, ...]] = ()
+    shape: ClassVar[str]
 
     def __post_init__(self) -> None:
         for n in self._inputs:
@@ -503,8 +504,8 @@ def _candidates(value, role: str, u_given: float | None, options: dict) -> tuple
                              "give the frequency by hand")
         return cands, False, value
     if isinstance(value, Mode):
-        u = value.f_n_hz_u if value.f_n_hz_u is not None else 0.0
-        return [_Candidate(value.f_n_hz, u, value.loss_factor, value.loss_factor_u, None, value.index)], True, None
+        u_f = value.f_n_hz_u if value.f_n_hz_u is not None else 0.0
+        return [_Candidate(value.f_n_hz, u_f, value.loss_factor, value.loss_factor_u, None, value.index)], True, None
     if isinstance(value, (tuple, list)) and len(value) == 2:
         f, u = value
     else:
@@ -773,13 +774,13 @@ def moduli(
 
     # conditions of the standard and of this implementation
     L = specimen.length_m
-    h = specimen.thickness_m if specimen.shape == "bar" else specimen.diameter_m
+    h = specimen.thickness_m if isinstance(specimen, RectangularBar) else specimen.diameter_m
     if L / h < 5.0:
         what = "L/t" if specimen.shape == "bar" else "L/D"
         warnings.append(Notice("slenderness", (
             f"{what} = {L / h:.3g} is below 5, where T1 was verified within 1 % of Timoshenko beam theory "
             "(tests/test_moduli.py); the beam relations lose accuracy for stubby specimens")))
-    if specimen.shape == "bar":
+    if isinstance(specimen, RectangularBar):
         b, t = specimen.width_m, specimen.thickness_m
         if max(b, t) / min(b, t) > 20.0:
             warnings.append(Notice("aspect_ratio", (
@@ -812,7 +813,7 @@ def moduli(
         density_kg_per_m3=y["rho"], density_kg_per_m3_u=uy["density_kg_per_m3"],
         t1=y["t1"], r_factor=y["r"], iterations=y["iterations"],
         flexural=used(fc, "flexural", f_rule, None),
-        torsional=None if tc is None else used(tc, "torsional", t_rule, preds["torsional_1"]),
+        torsional=None if tc is None else used(tc, "torsional", t_rule or "", preds["torsional_1"]),
         predictions=tuple(preds.values()),
         budget=tuple(budget),
         warnings=tuple(warnings),
