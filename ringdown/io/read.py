@@ -267,9 +267,7 @@ def _read_stdin(*, channel, column, sample_rate, max_bytes) -> Recording:
 
 
 def _check_rate(sample_rate: object, name: str) -> float:
-    ok = (isinstance(sample_rate, (int, float, np.integer, np.floating))
-          and not isinstance(sample_rate, bool))
-    if ok:
+    if isinstance(sample_rate, (int, float, np.integer, np.floating)) and not isinstance(sample_rate, bool):
         value = float(sample_rate)
         if math.isfinite(value) and value > 0:
             return value
@@ -458,10 +456,11 @@ def _read_sound(name, info, *, channel, column, sample_rate, limit, max_bytes) -
     if choice is None:
         index = 1
     else:
-        index = _parse_index(choice)
-        if index is None:
+        parsed = _parse_index(choice)
+        if parsed is None:
             raise ParameterError(
                 f"channel {choice!r} of {name!r} is not a channel number; give 1 to {n_channels}")
+        index = parsed
         if not 1 <= index <= n_channels:
             raise ParameterError(
                 f"channel {index} is out of range: {name!r} has {n_channels} "
@@ -488,7 +487,7 @@ def _read_sound(name, info, *, channel, column, sample_rate, limit, max_bytes) -
     samples = np.ascontiguousarray(data[:, index - 1])
     del data
     _check_length(samples.shape[0], name)
-    notes = ()
+    notes: tuple[tuple[str, str], ...] = ()
     if str(info.format).upper().startswith("WAV"):
         notes = _wav_truncation(name, samples.shape[0])
     return Recording(samples=samples, sample_rate=rate, channel=str(index), path=name,
@@ -830,7 +829,7 @@ def _time_unit(header: str) -> float | None:
 
 
 def _is_index_name(header: str | None) -> bool:
-    return bool(header) and header.strip().strip("\"'").strip().lower() in _INDEX_NAMES
+    return bool(header) and str(header).strip().strip("\"'").strip().lower() in _INDEX_NAMES
 
 
 def _counts_up(col: np.ndarray) -> bool:

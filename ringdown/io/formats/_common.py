@@ -38,8 +38,8 @@ def need(module: str, what: str, name: str):
             f"({name!r} was not read)") from None
 
 
-def reason(exc: BaseException) -> str:
-    """A library exception as a short phrase for a one-line message."""
+def reason(exc: BaseException | str) -> str:
+    """A library exception (or its message) as a short phrase for a one-line message."""
     text = _one_line(exc) or type(exc).__name__
     return text if len(text) <= 120 else text[:117] + "..."
 

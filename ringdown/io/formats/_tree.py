@@ -24,6 +24,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
@@ -56,7 +57,7 @@ class Array:
 
     shape: tuple[int, ...]
     dtype: np.dtype
-    read: Callable[[object], np.ndarray]  # read(numpy index expression) -> ndarray
+    read: Callable[[Any], Any]  # read(numpy index expression) -> ndarray
     attrs: dict = field(default_factory=dict)
 
 
@@ -65,7 +66,7 @@ class Node:
     """A struct or group: small values (numbers, text), arrays, sub-nodes, attributes."""
 
     values: dict = field(default_factory=dict)
-    arrays: dict = field(default_factory=dict)
+    arrays: dict[str, Array] = field(default_factory=dict)
     children: dict = field(default_factory=dict)
     attrs: dict = field(default_factory=dict)
 
@@ -80,7 +81,7 @@ class _Entry:
     chain: list  # the nodes holding the array, innermost first
 
 
-def _lookup(mapping: dict, names) -> tuple[str, object] | None:
+def _lookup(mapping: dict, names) -> tuple[str, Any] | None:
     lower = {str(k).lower(): (k, v) for k, v in mapping.items()}
     for want in names:
         if want in lower:
@@ -139,11 +140,10 @@ def _rate(entry: _Entry, name: str) -> tuple[float | None, str | None]:
     for mapping, kind in levels:
         found = []
         hit = _lookup(mapping, RATE_NAMES)
-        if hit is not None and _scalar(hit[1]) is not None:
-            found.append((_scalar(hit[1]), f"{kind} {hit[0]!r} = {_scalar(hit[1]):g} Hz"))
+        if hit is not None and (fs := _scalar(hit[1])) is not None:
+            found.append((fs, f"{kind} {hit[0]!r} = {fs:g} Hz"))
         hit = _lookup(mapping, INTERVAL_NAMES)
-        if hit is not None and _scalar(hit[1]) is not None:
-            dt = _scalar(hit[1])
+        if hit is not None and (dt := _scalar(hit[1])) is not None:
             found.append((1.0 / dt if dt else float("inf"), f"{kind} {hit[0]!r} = {dt:g} s"))
         if found:
             if len(found) == 2 and not math.isclose(found[0][0], found[1][0], rel_tol=_RATE_RTOL):

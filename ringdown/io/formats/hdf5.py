@@ -13,6 +13,9 @@ dataset carrying a ``MATLAB_class`` attribute and structs as groups), struct fie
 
 from __future__ import annotations
 
+import operator
+from functools import partial
+
 from ...base.errors import InputError
 from ._common import need, reason
 from ._tree import Array, Node, read_signal
@@ -123,5 +126,5 @@ def _node(group, h5py, matlab: bool) -> Node:
         if obj.size == 1:
             node.values[key] = obj[()]
             continue
-        node.arrays[key] = Array(tuple(obj.shape), obj.dtype, (lambda idx, ds=obj: ds[idx]), attrs)
+        node.arrays[key] = Array(tuple(obj.shape), obj.dtype, partial(operator.getitem, obj), attrs)
     return node

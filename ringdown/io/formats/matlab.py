@@ -9,6 +9,9 @@ names its variables the same way.
 
 from __future__ import annotations
 
+import operator
+from functools import partial
+
 import numpy as np
 
 from ...base.errors import InputError
@@ -73,6 +76,6 @@ def _node(mapping: dict) -> Node:
             if value.size == 1:
                 node.values[key] = value.reshape(-1)[0]
             elif value.size > 1:
-                node.arrays[key] = Array(value.shape, value.dtype, (lambda idx, a=value: a[idx]))
+                node.arrays[key] = Array(value.shape, value.dtype, partial(operator.getitem, value))
         # cell arrays (lists, object arrays), struct arrays, logicals: not signals
     return node

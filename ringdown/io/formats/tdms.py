@@ -136,7 +136,8 @@ def _read_channel(tdms, name: str, channel, sample_rate: float | None, limit: in
         raise InputError(
             f"channel {label!r} of {name!r} has its x axis in {str(x_unit).strip()!r}, not seconds: "
             "it is not a time record; pick a time channel")
-    file_rate, source = None, f"wf_increment = {increment!r} s on the {where}"
+    file_rate: float | None = None
+    source: str | None = f"wf_increment = {increment!r} s on the {where}"
     if increment is not None:
         try:
             file_rate = 1.0 / float(increment) if float(increment) != 0 else float("inf")
