@@ -182,7 +182,7 @@ class Mode:
     fit_path : str
         ``"band"``: fitted on the mode's band-filtered complex envelope; ``"raw"``: a fast decay
         fitted on the unfiltered record itself (no band filter could pass it unbiased; see
-        :mod:`ringdown.estimators.real`).
+        :mod:`ringdown.analysis.estimators.real`).
     fit_start_s, fit_end_s : float or None
         Fit window, seconds from the start of the recording.
     cycles_fitted : float or None

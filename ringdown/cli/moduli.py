@@ -24,7 +24,7 @@ __all__ = ["register", "format_table"]
 
 
 def _pm(v, u, scale: float = 1.0) -> str:
-    """``v(u)`` in the one number format (:func:`ringdown.numfmt.fmt_pm`), both divided by ``scale``;
+    """``v(u)`` in the one number format (:func:`ringdown.base.numfmt.fmt_pm`), both divided by ``scale``;
     "-" when missing."""
     if v is None:
         return "-"

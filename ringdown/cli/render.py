@@ -1,7 +1,7 @@
 """Helpers the ``analyze`` command calls for ``--plot DIR``, ``--plot-format`` and ``--report OUT.html``.
 
-No numerics and no matplotlib here: figures come from :mod:`ringdown.plots`, HTML from
-:mod:`ringdown.report`. Both helpers raise only :class:`ringdown.errors.RingdownError` subclasses.
+No numerics and no matplotlib here: figures come from :mod:`ringdown.render.plots`, HTML from
+:mod:`ringdown.render.report`. Both helpers raise only :class:`ringdown.base.errors.RingdownError` subclasses.
 """
 
 from __future__ import annotations
@@ -14,7 +14,7 @@ from ..base.errors import ParameterError, RingdownError
 
 __all__ = ["PLOT_FORMATS", "check_plot_format", "write_plots", "write_report"]
 
-#: Formats ``--plot-format`` and ``history --plot`` accept (:data:`ringdown.plots.FIGURE_FORMATS`,
+#: Formats ``--plot-format`` and ``history --plot`` accept (:data:`ringdown.render.plots.FIGURE_FORMATS`,
 #: repeated here so that checking an option does not import the plotting module).
 PLOT_FORMATS = ("png", "svg", "pdf")
 

@@ -5,7 +5,7 @@ Rules (applied by :func:`check`, in this order):
 1. A recording that could not be analysed (``Analysis.error``) is an **ERROR**: neither pass nor
    fail. The CLI exits with status 2 when any part is an error (errors win over failures).
 2. Measured modes are matched one-to-one to the reference modes by frequency, within the limits'
-   relative ``tolerance`` (:func:`ringdown.limits.match_modes`). A reference mode with no match
+   relative ``tolerance`` (:func:`ringdown.inspection.limits.match_modes`). A reference mode with no match
    is a failure ("mode 3 missing"). A measured mode that matches nothing and is strong (amplitude
    at least :data:`EXTRA_MODE_LEVEL` of the strongest matched mode) is reported as a note; it does
    not fail the part by itself.
@@ -150,7 +150,7 @@ class CheckResult:
 
 
 def _g(x: float, digits: int = 3) -> str:
-    """A number for a message, in the one number format (:func:`ringdown.numfmt.fmt_value`)."""
+    """A number for a message, in the one number format (:func:`ringdown.base.numfmt.fmt_value`)."""
     return fmt_value(x, digits)
 
 
@@ -180,7 +180,7 @@ def check(analysis: Analysis, limits: Limits) -> CheckResult:
     analysis : Analysis
         The part's analysis (``ringdown.analyze_file``); ``analysis.modes`` are used.
     limits : Limits
-        From :func:`ringdown.learn_limits` or :func:`ringdown.limits.read_limits`.
+        From :func:`ringdown.learn_limits` or :func:`ringdown.inspection.limits.read_limits`.
 
     Returns
     -------
@@ -191,7 +191,7 @@ def check(analysis: Analysis, limits: Limits) -> CheckResult:
     Raises
     ------
     ParameterError
-        When ``limits`` is not a :class:`~ringdown.limits.Limits`.
+        When ``limits`` is not a :class:`~ringdown.inspection.limits.Limits`.
     """
     if not isinstance(limits, Limits):
         raise ParameterError(f"limits must be a Limits object (read_limits or learn_limits), got {type(limits).__name__}")
@@ -449,16 +449,16 @@ def iter_check_files(
     options : dict, optional
         Analysis options overriding the ones stored in the limits.
     executor, on_notice : callable, optional
-        See :func:`ringdown.batch.run_batch`.
+        See :func:`ringdown.base.batch.run_batch`.
     client : distributed.Client, optional
-        Run one task per file on this Dask cluster's workers instead (:mod:`ringdown.cluster`;
+        Run one task per file on this Dask cluster's workers instead (:mod:`ringdown.base.cluster`;
         ``jobs`` and ``executor`` are then unused).
 
     Yields
     ------
     (int, CheckResult)
         Position in ``paths`` and the result, in completion order. Any failure on one part (a
-        dead worker included, see :mod:`ringdown.batch`) is that part's ERROR.
+        dead worker included, see :mod:`ringdown.base.batch`) is that part's ERROR.
     """
     from ..base.batch import run_batch
 

@@ -11,10 +11,10 @@ good population rings. For each *reference mode* ``j`` the limits hold:
   moves every frequency by the same fraction (temperature, density, a uniform size change).
 
 Each window is a two-sided normal tolerance interval ``mean +- k s`` (ISO 16269-6:2014) with the
-exact ``k`` of :func:`ringdown.tolerance.tolerance_k`: by default it contains at least 99 % of
+exact ``k`` of :func:`ringdown.inspection.tolerance.tolerance_k`: by default it contains at least 99 % of
 good parts with 95 % confidence. On top, the vector of drift-free features (all ratios and all
 ``log(zeta)``) is checked by its Mahalanobis distance against the good population, with the
-threshold of Tracy, Young & Mason (1992) for a new observation (see :mod:`ringdown.tolerance`).
+threshold of Tracy, Young & Mason (1992) for a new observation (see :mod:`ringdown.inspection.tolerance`).
 The multivariate check needs a well-estimated covariance: it is learned only when the number of
 good parts ``n`` exceeds the number of features ``p`` by at least :data:`MAHALANOBIS_MARGIN`;
 otherwise the limits say so and only the per-feature windows are used.
@@ -189,7 +189,7 @@ class Limits:
     tolerance : float
         Relative distance within which a measured mode is matched to a reference mode.
     max_uniform_shift, uniform_shift_tolerance : float
-        The uniform-shift rule (see :func:`ringdown.check.check`): absolute frequency windows are
+        The uniform-shift rule (see :func:`ringdown.inspection.check.check`): absolute frequency windows are
         advisory when every ratio passes and all modes moved by the same fraction (spread at most
         ``uniform_shift_tolerance``) of at most ``max_uniform_shift``.
     mahalanobis : MahalanobisLimits or None
@@ -290,7 +290,7 @@ def match_modes(freqs_hz: Sequence[float], ref_hz: Sequence[float], *, tolerance
     Notes
     -----
     One-to-one and in frequency order (no crossing), closest in log frequency
-    (:func:`ringdown.matching.match_frequencies`), so two close reference modes never claim the
+    (:func:`ringdown.base.matching.match_frequencies`), so two close reference modes never claim the
     same measured mode and a missing mode never shifts its neighbours' pairs.
     """
     from ..base.matching import match_frequencies

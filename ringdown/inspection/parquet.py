@@ -247,7 +247,7 @@ class ParquetSink:
 
     def add_analysis(self, analysis, *, part_id: str | None = None, station: str | None = None,
                      operator: str | None = None) -> None:
-        """Add one :class:`~ringdown.results.Analysis` (``kind`` 'analysis', no verdict)."""
+        """Add one :class:`~ringdown.analysis.results.Analysis` (``kind`` 'analysis', no verdict)."""
         from .store import part_id_from_path
 
         base = self._analysis_base(analysis)
@@ -257,7 +257,7 @@ class ParquetSink:
 
     def add_check(self, result, *, part_id: str | None = None, station: str | None = None,
                   operator: str | None = None) -> None:
-        """Add one :class:`~ringdown.check.CheckResult` (``kind`` 'check', with verdict and reasons)."""
+        """Add one :class:`~ringdown.inspection.check.CheckResult` (``kind`` 'check', with verdict and reasons)."""
         from .store import part_id_from_path
 
         a = result.analysis
@@ -270,7 +270,7 @@ class ParquetSink:
         self._add(base, modes, matched={m: r for r, m in result.matched})
 
     def add_stored(self, record, modes: list[dict]) -> None:
-        """Add one stored history record (:class:`~ringdown.store.StoredResult`) with its full mode records."""
+        """Add one stored history record (:class:`~ringdown.inspection.store.StoredResult`) with its full mode records."""
         tested = _dt.datetime.fromisoformat(record.tested_utc.replace("Z", "+00:00"))
         base = dict(kind=record.kind, file=record.path, sha256=record.sha256, part_id=record.part_id,
                     station=record.station, operator=record.operator, tested_utc=tested, verdict=record.verdict,

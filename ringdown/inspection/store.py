@@ -13,7 +13,7 @@ Safety for batches on a line:
   forced (:meth:`ResultStore.record_check`), so a killed batch can simply be run again;
 * only ``?`` parameters, never SQL built from names or paths;
 * fail closed: a corrupt, read-only, foreign or newer database, a dropped table or a row whose
-  JSON does not parse is a :class:`~ringdown.errors.StoreError` naming the file, never a
+  JSON does not parse is a :class:`~ringdown.base.errors.StoreError` naming the file, never a
   traceback and never a silently partial answer.
 
 The schema version is ``PRAGMA user_version``; :data:`MIGRATIONS` bring an older database up to date.

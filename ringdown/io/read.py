@@ -1,8 +1,8 @@
 """Reading recordings: sound files (through soundfile) and delimited text.
 
 This is the only module that opens recordings. :func:`read_recording` returns one validated
-channel as a :class:`~ringdown.recording.Recording`; every problem with the file comes out as a
-one-line :class:`~ringdown.errors.InputError` (or :class:`~ringdown.errors.ParameterError` for an
+channel as a :class:`~ringdown.io.recording.Recording`; every problem with the file comes out as a
+one-line :class:`~ringdown.base.errors.InputError` (or :class:`~ringdown.base.errors.ParameterError` for an
 option) that names the file, never as a raw ``OSError``, ``ValueError`` or libsndfile error.
 """
 
@@ -111,10 +111,10 @@ def read_recording(
         soundfile (WAV, FLAC, OGG, AIFF, ... any bit depth, integer or float), and read as text
         when soundfile cannot open it and it looks like text. A file whose content (else name
         ending) is TDMS, Universal File Format, MATLAB or HDF5 goes to its reader in
-        :mod:`ringdown.formats` (see there for the channel names, the rate and the unit).
+        :mod:`ringdown.io.formats` (see there for the channel names, the rate and the unit).
     channel : int or str, optional
         Sound files: which channel, 1-based (``2`` or ``"2"``); default the first. For a text file
-        it is taken as `column` when `column` is not given. The formats of :mod:`ringdown.formats`
+        it is taken as `column` when `column` is not given. The formats of :mod:`ringdown.io.formats`
         also take a name (``"group/channel"``, a variable or dataset path).
     column : int or str, optional
         Text files: the data column, either a 1-based index among the data columns (the time

@@ -23,7 +23,7 @@ class Recording:
     sample_rate : float, > 0, Hz
     channel : str
         Channel name: ``"1"``-based index for audio files, the column header for text files,
-        the channel, variable or dataset name for the formats of :mod:`ringdown.formats`
+        the channel, variable or dataset name for the formats of :mod:`ringdown.io.formats`
         (``"group/channel"`` for TDMS).
     path : str or None
         Source file, ``None`` for an array given directly.

@@ -1,6 +1,6 @@
 """Figure of a before/after comparison: damping per mode on a log axis, and the frequency shift.
 
-Reuses the style helpers of :mod:`ringdown.plots` and the number format of :mod:`ringdown.numfmt`. matplotlib is imported lazily, figures use
+Reuses the style helpers of :mod:`ringdown.render.plots` and the number format of :mod:`ringdown.base.numfmt`. matplotlib is imported lazily, figures use
 :class:`matplotlib.figure.Figure` (no pyplot), and nothing is saved here.
 """
 
@@ -44,7 +44,7 @@ def plot_comparison(comparison, *, ax=None):
 
     Parameters
     ----------
-    comparison : ringdown.compare.Comparison
+    comparison : ringdown.treatment.compare.Comparison
     ax : matplotlib.axes.Axes or None
         Where to draw the damping panel. With ``None`` a new Figure holds two panels: the damping
         (returned) and, below it, the frequency shift of each mode in percent with its interval.

@@ -36,7 +36,7 @@ def plot_run_chart(records: Sequence, *, limits_by_sha: dict | None = None, limi
     Parameters
     ----------
     records : sequence of StoredResult
-        From :meth:`ringdown.store.ResultStore.query`, in test order.
+        From :meth:`ringdown.inspection.store.ResultStore.query`, in test order.
     limits_by_sha : dict, optional
         ``{limits sha256: Limits.to_dict()}`` (:meth:`ResultStore.limits_documents`): each point is
         drawn against the windows of the limits it was checked with (steps where limits changed).

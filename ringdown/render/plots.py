@@ -18,7 +18,7 @@ Labels are laid out with matplotlib's constrained layout so they do not overlap.
 Missing data
 ------------
 A plot that needs data the result does not hold (no samples kept in ``Analysis.recording``, no
-``Mode.trace``, no damping-against-amplitude rows) raises :class:`ringdown.errors.ParameterError`
+``Mode.trace``, no damping-against-amplitude rows) raises :class:`ringdown.base.errors.ParameterError`
 naming what is missing; nothing is drawn in that case. The report catches it and prints the
 reason instead of the figure.
 """
@@ -199,7 +199,7 @@ def _db(v: np.ndarray, floor: float) -> np.ndarray:
 
 
 def _fmt_sig(v: float | None, digits: int = 4) -> str:
-    """A number for a label, in the one format of ringdown (:func:`ringdown.numfmt.fmt_value`)."""
+    """A number for a label, in the one format of ringdown (:func:`ringdown.base.numfmt.fmt_value`)."""
     from ..base.numfmt import fmt_value
 
     return fmt_value(v, digits, missing="n/a")
@@ -522,7 +522,7 @@ def plot_decay(mode, *, ax=None):
     Parameters
     ----------
     mode : ringdown.Mode
-        Needs ``mode.trace`` (:class:`ringdown.results.ModeTrace`).
+        Needs ``mode.trace`` (:class:`ringdown.analysis.results.ModeTrace`).
     ax : matplotlib.axes.Axes or None
 
     Returns

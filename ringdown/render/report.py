@@ -14,7 +14,7 @@ with :class:`Section`: ``render_report(analyses, extra_sections=[Section("Checks
 A section's ``html`` is inserted as given, so its author escapes what it holds; :func:`html_table`
 builds an escaped table for that purpose.
 
-Numbers come from :mod:`ringdown.numfmt` (the one formatter of ringdown): ``v(u)``, the
+Numbers come from :mod:`ringdown.base.numfmt` (the one formatter of ringdown): ``v(u)``, the
 uncertainty to two significant digits and the value to the same place (JCGM 100:2008, GUM
 7.2.2 and 7.2.6). The page is laid out for a 1280 px screen and for A4 or Letter paper: no table
 is wider than the page, each recording starts a new page, and the title, part or serial number
@@ -67,19 +67,19 @@ class Section:
 
 def _e(value: Any) -> str:
     """Escape anything for HTML text or attribute values; control and bidi characters shown
-    escaped (:func:`ringdown.outputs.shown`)."""
+    escaped (:func:`ringdown.io.outputs.shown`)."""
     from ..io.outputs import shown
 
     return html.escape(shown(value), quote=True)
 
 
 def _num(v: Any, digits: int = 6) -> str:
-    """A number with ``digits`` significant digits (:func:`ringdown.numfmt.fmt_value`), escaped."""
+    """A number with ``digits`` significant digits (:func:`ringdown.base.numfmt.fmt_value`), escaped."""
     return _e(fmt_value(v, digits, missing=_DASH))
 
 
 def _pm(v: Any, u: Any, digits: int = 6) -> str:
-    """``v(u)`` in the one number format (:func:`ringdown.numfmt.fmt_pm`)."""
+    """``v(u)`` in the one number format (:func:`ringdown.base.numfmt.fmt_pm`)."""
     return fmt_pm(v, u, digits=digits, missing=_DASH)
 
 
@@ -560,7 +560,7 @@ def render_report(analyses, *, settings: dict | None = None, title: str | None =
     file_extras : sequence of str, optional
         One HTML fragment per recording, shown at the top of its section (a check's verdict).
     verdicts : sequence of str, optional
-        One verdict kind per recording (see :func:`ringdown.check.verdict_kind`): adds a verdict
+        One verdict kind per recording (see :func:`ringdown.inspection.check.verdict_kind`): adds a verdict
         column to the summary.
 
     Returns
@@ -683,7 +683,7 @@ def _comparison_figure(comparison) -> str:
 
 
 def comparison_html(comparison) -> str:
-    """The body of a report section describing a :class:`ringdown.compare.Comparison`.
+    """The body of a report section describing a :class:`ringdown.treatment.compare.Comparison`.
 
     An HTML fragment (no heading): the method in words, the figure, the damping table (verdict
     coloured and worded), Q and T60, unmatched modes, notices and the inputs; every string that
@@ -796,7 +796,7 @@ def render_check_report(rows: Sequence[dict], analyses: Sequence, limits, *, mor
         ``verdict``, ``reasons``, ``notes``, ``features``, ``skipped``).
     analyses : sequence of Analysis or None
         Per row, the part's analysis (with samples for figures), or None (skipped or not kept).
-    limits : ringdown.limits.Limits
+    limits : ringdown.inspection.limits.Limits
         The limits used: file, SHA-256, coverage, confidence, good parts, reader settings.
     **kw
         Keywords of :func:`render_report` (``title``, ``notes``, ``fields`` with station and
@@ -867,7 +867,7 @@ on parts that carry load follow the applicable codes and licensed engineering pr
 
 
 def moduli_section(result) -> Section:
-    """The report section of a :class:`ringdown.moduli.ModuliResult`: inputs, moduli, modes, budget.
+    """The report section of a :class:`ringdown.materials.moduli.ModuliResult`: inputs, moduli, modes, budget.
 
     Insert it with ``render_report(result.analyses, extra_sections=[moduli_section(result)])``.
     Every string from outside (file names, warnings) is escaped.

@@ -137,7 +137,7 @@ def resolve_rate(file_rate: float | None, source: str | None, given: float | Non
 def rate_from_time(t: np.ndarray, name: str, label: str, *, resolution: float | None = None) -> float:
     """Sample rate (Hz) of a time vector in seconds: ``(n - 1) / (t[-1] - t[0])``.
 
-    The steps must increase and be uniform within :data:`ringdown.io.MAX_TIMING_JITTER` (relative
+    The steps must increase and be uniform within :data:`ringdown.io.read.MAX_TIMING_JITTER` (relative
     RMS deviation from the mean step), as for a text file's time column; with ``resolution`` (s,
     the step the values were printed to), steps uneven only through that printing (each within
     one resolution of the mean step, the resolution below half a step) are accepted too.

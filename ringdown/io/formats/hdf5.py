@@ -1,9 +1,9 @@
 """HDF5 files, and MATLAB v7.3 files (HDF5 with MATLAB's layout), read with h5py.
 
-Every numeric dataset of one or two dimensions with at least :data:`ringdown.io.MIN_SAMPLES`
+Every numeric dataset of one or two dimensions with at least :data:`ringdown.io.read.MIN_SAMPLES`
 samples, anywhere in the file, is a channel named by its path (``"run1/accel"``; ``"accel:2"``
 for the second channel of a 2-D dataset); a dataset's own name works when only one has it. The
-sample rate and unit come from the names listed in :mod:`ringdown.formats._tree`.
+sample rate and unit come from the names listed in :mod:`ringdown.io.formats._tree`.
 
 In a MATLAB v7.3 file (MATLAB's own layout: a 512-byte header, then HDF5 with every variable a
 dataset carrying a ``MATLAB_class`` attribute and structs as groups), struct fields are named
@@ -32,7 +32,7 @@ def read(name: str, *, channel=None, sample_rate: float | None = None, limit: in
 
 
 def read_hdf5(name: str, *, channel=None, sample_rate: float | None = None, limit: int, matlab: bool):
-    """Read one channel of an HDF5 or MATLAB v7.3 file as a :class:`~ringdown.recording.Recording`.
+    """Read one channel of an HDF5 or MATLAB v7.3 file as a :class:`~ringdown.io.recording.Recording`.
 
     Parameters
     ----------

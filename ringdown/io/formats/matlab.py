@@ -2,8 +2,8 @@
 
 Variables and struct fields (``s.field``, nested to any depth) that are numeric vectors or 2-D
 matrices are channels; the sample rate, time vector and unit are found by the names listed in
-:mod:`ringdown.formats._tree` (``fs``, ``dt``, ``t``, ``NAME_unit``...). A v7.3 file (an HDF5
-file behind MATLAB's 512-byte header) goes to :func:`ringdown.formats.hdf5.read_hdf5`, which
+:mod:`ringdown.io.formats._tree` (``fs``, ``dt``, ``t``, ``NAME_unit``...). A v7.3 file (an HDF5
+file behind MATLAB's 512-byte header) goes to :func:`ringdown.io.formats.hdf5.read_hdf5`, which
 names its variables the same way.
 """
 
@@ -25,9 +25,9 @@ _HDF5_MAGIC = b"\x89HDF\r\n\x1a\n"
 
 
 def read(name: str, *, channel=None, sample_rate: float | None = None, limit: int):
-    """Read one channel of a MATLAB file as a :class:`~ringdown.recording.Recording`.
+    """Read one channel of a MATLAB file as a :class:`~ringdown.io.recording.Recording`.
 
-    Parameters are those of :func:`ringdown.formats.hdf5.read_hdf5` (without ``matlab``).
+    Parameters are those of :func:`ringdown.io.formats.hdf5.read_hdf5` (without ``matlab``).
 
     Raises
     ------

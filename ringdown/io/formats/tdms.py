@@ -24,7 +24,7 @@ _NUMERIC = "iuf"
 
 
 def read(name: str, *, channel=None, sample_rate: float | None = None, limit: int):
-    """Read one channel of a TDMS file as a :class:`~ringdown.recording.Recording`.
+    """Read one channel of a TDMS file as a :class:`~ringdown.io.recording.Recording`.
 
     Parameters
     ----------

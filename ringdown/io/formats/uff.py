@@ -44,7 +44,7 @@ _TIME_ABSCISSA = (0, 17)
 
 
 def read(name: str, *, channel=None, sample_rate: float | None = None, limit: int):
-    """Read one dataset 58 of a Universal File as a :class:`~ringdown.recording.Recording`.
+    """Read one dataset 58 of a Universal File as a :class:`~ringdown.io.recording.Recording`.
 
     Parameters
     ----------
