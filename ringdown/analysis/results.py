@@ -12,6 +12,7 @@ before it, in the same unit.
 from __future__ import annotations
 
 from dataclasses import dataclass, field, fields, replace
+from collections.abc import Iterable
 from typing import Any
 
 import numpy as np
@@ -247,7 +248,7 @@ class Mode:
     def warning_codes(self) -> tuple[str, ...]:
         return tuple(w.code for w in self.warnings)
 
-    def with_updates(self, **changes) -> "Mode":
+    def with_updates(self, **changes: Any) -> Mode:
         """A copy with some fields replaced (dataclasses.replace)."""
         return replace(self, **changes)
 
@@ -545,7 +546,7 @@ class Analysis:
         return pd.DataFrame([_mode_row(self.path, m.to_dict()) for m in self.modes], columns=list(_FRAME_COLUMNS))
 
 
-def results_document(analyses) -> dict:
+def results_document(analyses: Iterable[Analysis]) -> dict:
     """The JSON document ``ringdown analyze --json`` prints for a sequence of analyses."""
     return {
         "tool": {"name": "ringdown", "version": __version__},

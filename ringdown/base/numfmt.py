@@ -21,6 +21,7 @@ exponent rule (:func:`fmt_value`). Nothing written here holds a space, so a cell
 from __future__ import annotations
 
 import math
+from collections.abc import Iterable
 from typing import Any
 
 __all__ = ["MISSING", "fmt_fixed", "fmt_interval", "fmt_pm", "fmt_value", "fmt_values"]
@@ -101,7 +102,7 @@ def fmt_value(v: Any, digits: int = 6, *, missing: str = MISSING, trim: bool = T
     return (_trim(text) if trim else text) + _suffix(e)
 
 
-def fmt_values(values, digits: int = 3, *, missing: str = MISSING) -> list[str]:
+def fmt_values(values: Iterable[Any], digits: int = 3, *, missing: str = MISSING) -> list[str]:
     """Numbers written side by side (a window, a value against its limit) in one notation: the
     largest magnitude decides plain or ``e`` notation and the exponent; each keeps at least
     ``digits`` significant digits, all with the same number of decimals.

@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import csv
 from pathlib import Path
-from typing import Optional
+from typing import TYPE_CHECKING, Optional, cast
 
 import typer
 
@@ -33,6 +33,9 @@ from ._common import (
     usage_error,
 )
 from ._options import Channel, Column, End, Notes, SampleRate, Serial, Start, Title, reader_options, report_header
+
+if TYPE_CHECKING:
+    from matplotlib.figure import Figure
 
 __all__ = ["register", "format_table"]
 
@@ -105,7 +108,7 @@ def _write_plot(comparison, out_dir: Path) -> Path:
 
     check_writable(out_dir, "plot", folder=True)
     path = out_dir / "comparison.png"
-    data = figure_bytes(plot_comparison(comparison).figure, fmt="png")
+    data = figure_bytes(cast("Figure", plot_comparison(comparison).figure), fmt="png")
     with atomic_write(path, "wb", what="plot") as fh:  # renamed into place: never half a figure
         fh.write(data)
     return path

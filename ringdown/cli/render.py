@@ -9,8 +9,12 @@ from __future__ import annotations
 import os
 import re
 from pathlib import Path
+from typing import TYPE_CHECKING, cast
 
 from ..base.errors import ParameterError, RingdownError
+
+if TYPE_CHECKING:
+    from matplotlib.figure import Figure
 
 __all__ = ["PLOT_FORMATS", "check_plot_format", "write_plots", "write_report"]
 
@@ -103,7 +107,7 @@ def write_plots(analyses, out_dir, fmt: str = "png") -> list[str]:
                 jobs.append((f"{stem}_mode{m.index}", lambda m=m: plots.plot_mode(m)))
             if m.damping_vs_amplitude:
                 jobs.append((f"{stem}_mode{m.index}_damping",
-                             lambda m=m: plots.plot_damping_vs_amplitude(m).figure))
+                             lambda m=m: cast("Figure", plots.plot_damping_vs_amplitude(m).figure)))
         for name, draw in jobs:
             try:
                 data = plots.figure_bytes(draw(), fmt=fmt)

@@ -34,8 +34,9 @@ from __future__ import annotations
 
 import math
 import os
-from collections.abc import Iterator, Sequence
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from dataclasses import dataclass, field, replace
+from typing import Any
 
 from ..analysis.results import Analysis, Mode, Notice
 from ..base.errors import ParameterError
@@ -54,7 +55,7 @@ PASS, FAIL, ERROR = "pass", "fail", "error"
 ADVISORY_PREFIX = "advisory_"
 
 
-def verdict_kind(verdict: str | None, note_codes=()) -> str:
+def verdict_kind(verdict: str | None, note_codes: Iterable[str] = ()) -> str:
     """``"pass"``, ``"pass_advisory"`` (a pass with advisory windows), ``"fail"``, ``"error"``
     or ``"analysis"`` (no verdict): how reports and run charts mark a result."""
     if verdict == PASS and any(str(c).startswith(ADVISORY_PREFIX) for c in note_codes):
@@ -395,7 +396,7 @@ def lighten(analysis: Analysis) -> Analysis:
     return replace(analysis, recording=None, modes=tuple(light_mode(m) for m in analysis.modes), hits=hits)
 
 
-def check_file(path: str, limits: Limits, **options) -> CheckResult:
+def check_file(path: str, limits: Limits, **options: Any) -> CheckResult:
     """Analyse one recording with ``options`` (``ringdown.analyze_file``) and check it.
 
     Never raises for a bad recording: that part's result is an ERROR. The analysis options
@@ -433,9 +434,9 @@ def iter_check_files(
     *,
     jobs: int | None = None,
     options: dict | None = None,
-    executor=None,
-    on_notice=None,
-    client=None,
+    executor: Any = None,
+    on_notice: Callable[[str], None] | None = None,
+    client: Any = None,
 ) -> Iterator[tuple[int, CheckResult]]:
     """Check many recordings, on several processes; yield ``(position, result)`` as each finishes.
 

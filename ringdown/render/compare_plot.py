@@ -7,9 +7,15 @@ Reuses the style helpers of :mod:`ringdown.render.plots` and the number format o
 from __future__ import annotations
 
 import math
+from typing import TYPE_CHECKING
 
 from ..base.errors import ParameterError
 from ..base.numfmt import fmt_fixed, fmt_value
+
+if TYPE_CHECKING:
+    from matplotlib.axes import Axes
+
+    from ..treatment.compare import Comparison
 
 __all__ = ["plot_comparison"]
 
@@ -39,7 +45,7 @@ def _draw_side(ax, x, cm, color, marker, label, *, hollow=False):
             zorder=2)
 
 
-def plot_comparison(comparison, *, ax=None):
+def plot_comparison(comparison: Comparison, *, ax: Axes | None = None) -> Axes:
     """Damping ratio before and after, per mode, with interval bars on a log axis.
 
     Parameters
@@ -121,7 +127,7 @@ def plot_comparison(comparison, *, ax=None):
             f0 = m.before.values["f_d_hz"]
             y = 100.0 * m.frequency.relative
             yerr = None
-            if m.frequency.low_hz is not None:
+            if m.frequency.low_hz is not None and m.frequency.high_hz is not None:
                 yerr = [[y - 100.0 * m.frequency.low_hz / f0], [100.0 * m.frequency.high_hz / f0 - y]]
             freq_ax.errorbar([k], [y], yerr=yerr, fmt="D", color="#303030", ms=5, capsize=3)
         freq_ax.axhline(0.0, color="#8A8A8A", linewidth=0.8)

@@ -9,7 +9,12 @@ ch. 5 [from memory for the chapter]). matplotlib is imported lazily and only the
 from __future__ import annotations
 
 from collections.abc import Sequence
-from typing import Any
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:
+    from matplotlib.figure import Figure
+
+    from ..inspection.limits import Limits
 
 __all__ = ["plot_run_chart"]
 
@@ -29,8 +34,8 @@ _LOOK: dict[str, dict[str, Any]] = {
 _MAX_X_LABELS = 40
 
 
-def plot_run_chart(records: Sequence, *, limits_by_sha: dict | None = None, limits=None,
-                   features: Sequence[str] = ("f_d_hz", "ratio", "zeta"), n_modes: int | None = None):
+def plot_run_chart(records: Sequence, *, limits_by_sha: dict | None = None, limits: Limits | None = None,
+                   features: Sequence[str] = ("f_d_hz", "ratio", "zeta"), n_modes: int | None = None) -> Figure:
     """A run chart per reference mode and feature, in test order, with the acceptance windows.
 
     Parameters

@@ -27,7 +27,13 @@ from __future__ import annotations
 
 import io
 import math
-from typing import Any
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:
+    from matplotlib.axes import Axes
+    from matplotlib.figure import Figure
+
+    from ..analysis.results import Analysis, Mode
 
 import numpy as np
 
@@ -225,7 +231,7 @@ def spread_labels(x: np.ndarray, min_gap: float, lo: float = 0.0, hi: float = 1.
     return out
 
 
-def figure_bytes(fig, *, fmt: str = "png", dpi: float | None = None) -> bytes:
+def figure_bytes(fig: Figure, *, fmt: str = "png", dpi: float | None = None) -> bytes:
     """Render a Figure to PNG, SVG or PDF bytes, without the software/date metadata.
 
     Parameters
@@ -253,7 +259,7 @@ def figure_bytes(fig, *, fmt: str = "png", dpi: float | None = None) -> bytes:
 # the recording and its spectrum
 # --------------------------------------------------------------------------------------------
 
-def plot_recording(analysis, *, ax=None):
+def plot_recording(analysis: Analysis, *, ax: Axes | None = None) -> Axes:
     """Draw the recorded signal against time, with each hit and each mode's fit window.
 
     Parameters
@@ -380,7 +386,7 @@ def display_spectrum(x: np.ndarray, fs: float) -> tuple[np.ndarray, np.ndarray]:
     return f, level
 
 
-def plot_spectrum(analysis, *, ax=None):
+def plot_spectrum(analysis: Analysis, *, ax: Axes | None = None) -> Axes:
     """Draw the magnitude spectrum of the decay, in dB, with each mode marked and labelled.
 
     Parameters
@@ -449,7 +455,7 @@ def plot_spectrum(analysis, *, ax=None):
     return ax
 
 
-def plot_overview(analysis):
+def plot_overview(analysis: Analysis) -> Figure:
     """The recording above its spectrum, on one new Figure.
 
     Parameters
@@ -516,7 +522,7 @@ def _decay_xlim(tr) -> tuple[float, float]:
     return (lo, hi) if hi > lo else (lo, float(t[-1]) if t[-1] > lo else lo + 1.0)
 
 
-def plot_decay(mode, *, ax=None):
+def plot_decay(mode: Mode, *, ax: Axes | None = None) -> Axes:
     """Draw one mode's envelope in dB against time, the fitted decay, its window and the noise floor.
 
     Parameters
@@ -640,7 +646,7 @@ def _plot_peaks(mode, ax) -> None:
     _legend(ax)
 
 
-def plot_mode(mode):
+def plot_mode(mode: Mode) -> Figure:
     """One mode on one new Figure: decay, residual, and (when present) the log-decrement peaks.
 
     Parameters
@@ -671,7 +677,7 @@ def plot_mode(mode):
     return fig
 
 
-def plot_damping_vs_amplitude(mode, *, ax=None):
+def plot_damping_vs_amplitude(mode: Mode, *, ax: Axes | None = None) -> Axes:
     """Draw decay rate (left axis) and damped frequency (right axis) against amplitude.
 
     Parameters
@@ -725,7 +731,7 @@ def plot_damping_vs_amplitude(mode, *, ax=None):
             label="damped frequency")
     tw.set_ylabel("damped frequency, Hz", color=_OI_VERMILLION)
     tw.tick_params(labelsize=STYLE["font_size"])
-    tw.yaxis.label.set_size(STYLE["font_size"])
+    tw.yaxis.label.set_fontsize(STYLE["font_size"])
     tw.ticklabel_format(axis="y", useOffset=False)
     for side in ("top",):
         tw.spines[side].set_visible(False)

@@ -28,12 +28,18 @@ import html
 import os
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any, cast
 
 from .._version import __version__
 from ..base.clock import local_stamp
 from ..base.errors import ParameterError, RingdownError
 from ..base.numfmt import fmt_fixed, fmt_interval, fmt_pm, fmt_value, fmt_values
+
+if TYPE_CHECKING:
+    from ..analysis.results import Analysis
+    from ..inspection.limits import Limits
+    from ..materials.moduli import ModuliResult
+    from ..treatment.compare import Comparison
 
 __all__ = ["Cell", "Section", "analysis_html", "html_table", "render_check_report", "render_comparison_report", "render_report",
            "verdict_cell", "write_report"]
@@ -259,11 +265,11 @@ def _modes_table(a) -> str:
                          numeric=[True] * 4 + [False, True, True, True, True, False], css_class="data fit"))
 
 
-def analysis_html(a) -> str:
+def analysis_html(a: Analysis) -> str:
     """One analysis as an HTML fragment for a notebook (``Analysis._repr_html_``): its name, the
     two modes tables of the report, or the error; no page, no figures, no style sheet."""
     head = f"<p><b>{_e(_file_name(a))}</b>"
-    if not a.ok:
+    if a.error is not None:
         return head + f": {_e(a.error.code)}: {_e(a.error.message)}</p>"
     facts = f" · {_num(a.sample_rate_hz)} Hz · {_num(a.duration_s, 4)} s · {len(a.hits)} hit(s)"
     codes = ", ".join(w.code for w in a.warnings)
@@ -522,7 +528,7 @@ def _signoff(names: Sequence[tuple[str, str | None]]) -> str:
             f'<th scope="col">signature</th></tr></thead><tbody>{rows}</tbody></table></section>')
 
 
-def render_report(analyses, *, settings: dict | None = None, title: str | None = None,
+def render_report(analyses: Iterable[Analysis] | Analysis, *, settings: dict | None = None, title: str | None = None,
                   extra_sections: Iterable[Section | tuple[str, str]] = (), figures: bool = True,
                   figure_format: str = "png", generated: str | None = None, notes: str | None = None,
                   fields: Sequence[tuple[str, Any]] | dict | None = None,
@@ -575,9 +581,7 @@ def render_report(analyses, *, settings: dict | None = None, title: str | None =
     """
     if figure_format not in ("png", "svg"):
         raise ParameterError(f"report figure format must be 'png' or 'svg'; got {figure_format!r}")
-    if hasattr(analyses, "modes") and hasattr(analyses, "hits"):
-        analyses = [analyses]
-    analyses = list(analyses)
+    analyses = _as_list(analyses)
     sections: list[Section] = []
     for s in extra_sections:
         if isinstance(s, Section):
@@ -635,7 +639,14 @@ def render_report(analyses, *, settings: dict | None = None, title: str | None =
     return "".join(parts)
 
 
-def write_report(analyses, path, **kw) -> str:
+def _as_list(analyses: Iterable[Analysis] | Analysis) -> list[Analysis]:
+    """One analysis or several, as a list."""
+    if hasattr(analyses, "modes") and hasattr(analyses, "hits"):
+        return [cast("Analysis", analyses)]
+    return list(analyses)
+
+
+def write_report(analyses: Iterable[Analysis], path: str | os.PathLike, **kw: Any) -> str:
     """Render the report (see :func:`render_report`, same keywords) and write it to ``path`` (UTF-8).
 
     Returns
@@ -682,7 +693,7 @@ def _comparison_figure(comparison) -> str:
                    "damping ratio before and after per mode, with intervals, and the frequency shift", "png")
 
 
-def comparison_html(comparison) -> str:
+def comparison_html(comparison: Comparison) -> str:
     """The body of a report section describing a :class:`ringdown.treatment.compare.Comparison`.
 
     An HTML fragment (no heading): the method in words, the figure, the damping table (verdict
@@ -737,7 +748,7 @@ def comparison_html(comparison) -> str:
     return "".join(out)
 
 
-def render_comparison_report(comparison, **kw) -> str:
+def render_comparison_report(comparison: Comparison, **kw: Any) -> str:
     """The comparison report: the shared report with the comparison section first.
 
     Keywords are those of :func:`render_report` (``title``, ``notes``, ``fields`` ...); the
@@ -784,8 +795,8 @@ def _list_cell(items: Sequence[dict]) -> Cell:
     return Cell('<ul class="cell">' + "".join(f"<li>{_e(x['message'])}</li>" for x in items) + "</ul>", raw=True)
 
 
-def render_check_report(rows: Sequence[dict], analyses: Sequence, limits, *, more_sections: Sequence[Section] = (),
-                        **kw) -> str:
+def render_check_report(rows: Sequence[dict], analyses: Sequence, limits: Limits, *,
+                        more_sections: Sequence[Section] = (), **kw: Any) -> str:
     """The check report: verdicts first, the limits used, then each part with its figures
     (all of them for a part that failed, the overview for one that passed).
 
@@ -866,7 +877,7 @@ on parts that carry load follow the applicable codes and licensed engineering pr
 """
 
 
-def moduli_section(result) -> Section:
+def moduli_section(result: ModuliResult) -> Section:
     """The report section of a :class:`ringdown.materials.moduli.ModuliResult`: inputs, moduli, modes, budget.
 
     Insert it with ``render_report(result.analyses, extra_sections=[moduli_section(result)])``.

@@ -61,6 +61,7 @@ from __future__ import annotations
 import math
 import os
 import statistics
+from collections.abc import Sequence
 from dataclasses import asdict, dataclass, field
 from typing import Any
 
@@ -668,13 +669,13 @@ def _finite_or_none(x):
 
 
 def compare(
-    before,
-    after,
+    before: Sequence[Analysis | str | os.PathLike],
+    after: Sequence[Analysis | str | os.PathLike],
     *,
     tolerance: float = 0.1,
     confidence: float = 0.95,
     cluster_tolerance: float = 0.02,
-    **analysis_options,
+    **analysis_options: Any,
 ) -> Comparison:
     """Compare each mode's frequency and damping before and after a treatment.
 
