@@ -34,12 +34,17 @@ import os
 import uuid
 from collections.abc import Iterable
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from .._version import __version__
 from ..analysis.results import mode_keys
 from ..base.clock import seconds, utc_now
 from ..base.errors import ParameterError, StoreError
+
+if TYPE_CHECKING:
+    from ..analysis.results import Analysis
+    from .check import CheckResult
+    from .store import StoredResult
 
 __all__ = ["SCHEMA_VERSION", "COLUMNS", "schema", "ParquetSink", "open_sink", "export_history", "read_dataset",
            "settings_sha256"]
@@ -105,7 +110,7 @@ _MODE_COLUMN = {"index": ("mode_index",), "band_hz": ("band_low_hz", "band_high_
 PARTITION_KEYS = ("date", "station")
 
 
-def schema(*, without: Iterable[str] = ()):
+def schema(*, without: Iterable[str] = ()) -> Any:
     """The Arrow schema of :data:`COLUMNS` (a ``pyarrow.Schema``), less the columns ``without``."""
     pa = _pyarrow()
     types = {"string": pa.string(), "float64": pa.float64(), "int64": pa.int64(), "int32": pa.int32(),
@@ -245,7 +250,7 @@ class ParquetSink:
                     error_code=None if a.error is None else a.error.code,
                     error=None if a.error is None else a.error.message)
 
-    def add_analysis(self, analysis, *, part_id: str | None = None, station: str | None = None,
+    def add_analysis(self, analysis: Analysis, *, part_id: str | None = None, station: str | None = None,
                      operator: str | None = None) -> None:
         """Add one :class:`~ringdown.analysis.results.Analysis` (``kind`` 'analysis', no verdict)."""
         from .store import part_id_from_path
@@ -255,7 +260,7 @@ class ParquetSink:
                     part_id=part_id if part_id is not None else part_id_from_path(analysis.path or "array"))
         self._add(base, [m.to_dict() for m in analysis.modes])
 
-    def add_check(self, result, *, part_id: str | None = None, station: str | None = None,
+    def add_check(self, result: CheckResult, *, part_id: str | None = None, station: str | None = None,
                   operator: str | None = None) -> None:
         """Add one :class:`~ringdown.inspection.check.CheckResult` (``kind`` 'check', with verdict and reasons)."""
         from .store import part_id_from_path
@@ -269,7 +274,7 @@ class ParquetSink:
         modes = [] if a is None else [m.to_dict() for m in a.modes]
         self._add(base, modes, matched={m: r for r, m in result.matched})
 
-    def add_stored(self, record, modes: list[dict]) -> None:
+    def add_stored(self, record: StoredResult, modes: list[dict]) -> None:
         """Add one stored history record (:class:`~ringdown.inspection.store.StoredResult`) with its full mode records."""
         tested = _dt.datetime.fromisoformat(record.tested_utc.replace("Z", "+00:00"))
         base = dict(kind=record.kind, file=record.path, sha256=record.sha256, part_id=record.part_id,
@@ -349,12 +354,13 @@ class _NoSink:
         pass
 
 
-def open_sink(out, **kwargs):
+def open_sink(out: str | os.PathLike | None, **kwargs: Any) -> ParquetSink | _NoSink:
     """A :class:`ParquetSink` for ``out``, or a do-nothing stand-in when ``out`` is None."""
     return _NoSink() if out is None else ParquetSink(out, **kwargs)
 
 
-def export_history(db, records, out, **kwargs) -> ParquetSink:
+def export_history(db: str | os.PathLike, records: Iterable[StoredResult], out: str | os.PathLike,
+                   **kwargs: Any) -> ParquetSink:
     """Write stored history records (``ResultStore.query``) of database ``db`` to the dataset ``out``.
 
     Every stored mode field is written (from the stored mode records). ``out`` must be a new or
@@ -370,7 +376,7 @@ def export_history(db, records, out, **kwargs) -> ParquetSink:
     return sink
 
 
-def read_dataset(out):
+def read_dataset(out: str | os.PathLike) -> Any:
     """Read a dataset folder written by :class:`ParquetSink` as one ``pyarrow.Table`` of :data:`SCHEMA`.
 
     The partition key comes back as a column of its documented type (``date`` as date32).

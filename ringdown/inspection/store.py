@@ -28,12 +28,15 @@ import re
 import sqlite3
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from .._version import __version__
 from ..analysis.results import Analysis
 from ..base.clock import utc_stamp
 from ..base.errors import ParameterError, RingdownError, StoreError
+
+if TYPE_CHECKING:
+    from .limits import Limits
 
 __all__ = [
     "SCHEMA_VERSION",
@@ -424,7 +427,7 @@ class ResultStore:
             )
         return rid
 
-    def record_limits(self, limits) -> None:
+    def record_limits(self, limits: Limits) -> None:
         """Keep the limits a check used (by SHA-256), so run charts can draw them later."""
         if limits is None or limits.sha256 is None:
             return

@@ -16,6 +16,7 @@ import re
 import stat as _stat
 import struct
 from dataclasses import dataclass
+from typing import BinaryIO
 
 import numpy as np
 
@@ -344,7 +345,7 @@ def _stat_size(name: str) -> int:
     return int(st.st_size)
 
 
-def open_regular(name: str):
+def open_regular(name: str) -> BinaryIO:
     """Open ``name`` for reading in binary, refusing anything but a regular file.
 
     The file is opened without blocking (a FIFO with no writer would block ``open`` forever),

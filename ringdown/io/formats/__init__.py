@@ -24,6 +24,9 @@ import importlib
 import re
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Any
+
+from ..recording import Recording
 
 __all__ = ["Reader", "READERS", "SUFFIXES", "find_reader"]
 
@@ -50,7 +53,7 @@ class Reader:
     suffixes: tuple[str, ...]
     signature: Callable[[bytes], bool]
 
-    def read(self, name: str, *, channel, sample_rate, limit: int):
+    def read(self, name: str, *, channel: Any, sample_rate: float | None, limit: int) -> Recording:
         """Import the format module and read one channel of ``name`` (a Recording)."""
         mod = importlib.import_module(f".{self.module}", __name__)
         return mod.read(name, channel=channel, sample_rate=sample_rate, limit=limit)

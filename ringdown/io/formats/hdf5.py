@@ -17,6 +17,7 @@ import operator
 from functools import partial
 
 from ...base.errors import InputError
+from ..recording import Recording
 from ._common import need, reason
 from ._tree import Array, Node, read_signal
 
@@ -26,12 +27,13 @@ __all__ = ["read", "read_hdf5"]
 _MATLAB_NUMERIC = {"double", "single", "int8", "uint8", "int16", "uint16", "int32", "uint32", "int64", "uint64"}
 
 
-def read(name: str, *, channel=None, sample_rate: float | None = None, limit: int):
+def read(name: str, *, channel: int | str | None = None, sample_rate: float | None = None, limit: int) -> Recording:
     """Read one channel of an HDF5 file (see :func:`read_hdf5`)."""
     return read_hdf5(name, channel=channel, sample_rate=sample_rate, limit=limit, matlab=False)
 
 
-def read_hdf5(name: str, *, channel=None, sample_rate: float | None = None, limit: int, matlab: bool):
+def read_hdf5(name: str, *, channel: int | str | None = None, sample_rate: float | None = None, limit: int,
+              matlab: bool) -> Recording:
     """Read one channel of an HDF5 or MATLAB v7.3 file as a :class:`~ringdown.io.recording.Recording`.
 
     Parameters

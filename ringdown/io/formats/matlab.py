@@ -16,6 +16,7 @@ import numpy as np
 
 from ...base.errors import InputError
 from ..read import _fmt_bytes
+from ..recording import Recording
 from ._common import reason
 from ._tree import Array, Node, read_signal
 
@@ -24,7 +25,7 @@ __all__ = ["read"]
 _HDF5_MAGIC = b"\x89HDF\r\n\x1a\n"
 
 
-def read(name: str, *, channel=None, sample_rate: float | None = None, limit: int):
+def read(name: str, *, channel: int | str | None = None, sample_rate: float | None = None, limit: int) -> Recording:
     """Read one channel of a MATLAB file as a :class:`~ringdown.io.recording.Recording`.
 
     Parameters are those of :func:`ringdown.io.formats.hdf5.read_hdf5` (without ``matlab``).

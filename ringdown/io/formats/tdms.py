@@ -16,6 +16,7 @@ import re
 import numpy as np
 
 from ...base.errors import InputError
+from ..recording import Recording
 from ._common import TIME_NAMES, check_size, need, pick, rate_from_time, real_samples, reason, recording, resolve_rate
 
 __all__ = ["read"]
@@ -23,7 +24,7 @@ __all__ = ["read"]
 _NUMERIC = "iuf"
 
 
-def read(name: str, *, channel=None, sample_rate: float | None = None, limit: int):
+def read(name: str, *, channel: int | str | None = None, sample_rate: float | None = None, limit: int) -> Recording:
     """Read one channel of a TDMS file as a :class:`~ringdown.io.recording.Recording`.
 
     Parameters

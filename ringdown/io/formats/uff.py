@@ -21,6 +21,7 @@ import re
 import numpy as np
 
 from ...base.errors import InputError
+from ..recording import Recording
 from . import _UFF_START
 from ._common import check_size, need, pick, rate_from_time, real_samples, reason, recording, resolve_rate
 
@@ -43,7 +44,7 @@ _DELIMITER = re.compile(rb"(?m)^    -1 *\r?$")
 _TIME_ABSCISSA = (0, 17)
 
 
-def read(name: str, *, channel=None, sample_rate: float | None = None, limit: int):
+def read(name: str, *, channel: int | str | None = None, sample_rate: float | None = None, limit: int) -> Recording:
     """Read one dataset 58 of a Universal File as a :class:`~ringdown.io.recording.Recording`.
 
     Parameters
