@@ -217,6 +217,7 @@ def register(app: typer.Typer) -> None:
             if torsional_file is not None and torsional_hz is not None:
                 raise ParameterError("give the torsional recording TORSION or --torsional-hz, not both")
             flex = flexural_file if flexural_file is not None else flexural_hz
+            assert flex is not None  # one of the two, checked above
             tors = torsional_file if torsional_file is not None else torsional_hz
             return moduli(spec, flex, tors, flexural_hz_u=u_flexural_hz, torsional_hz_u=u_torsional_hz,
                           flexural_mode=flexural_mode, torsional_mode=torsional_mode, poisson=poisson,

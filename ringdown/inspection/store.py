@@ -36,6 +36,7 @@ from ..base.clock import utc_stamp
 from ..base.errors import ParameterError, RingdownError, StoreError
 
 if TYPE_CHECKING:
+    from .check import CheckResult
     from .limits import Limits
 
 __all__ = [
@@ -443,7 +444,7 @@ class ResultStore:
 
     def record_check(
         self,
-        result,
+        result: CheckResult,
         *,
         part_id: str,
         station: str | None = None,

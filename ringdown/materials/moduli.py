@@ -607,10 +607,14 @@ def _propagate(fun: Callable[[dict], dict], x: dict, u: dict) -> tuple[dict, dic
 # the public function
 # --------------------------------------------------------------------------------------------
 
+#: What gives one frequency to :func:`moduli`: Hz, (Hz, u Hz), a mode, an analysis or a recording.
+FrequencySource = float | tuple[float, float] | Mode | Analysis | str | os.PathLike
+
+
 def moduli(
     specimen: RectangularBar | CylindricalRod,
-    flexural,
-    torsional=None,
+    flexural: FrequencySource,
+    torsional: FrequencySource | None = None,
     *,
     flexural_hz_u: float | None = None,
     torsional_hz_u: float | None = None,
