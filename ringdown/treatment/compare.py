@@ -717,59 +717,13 @@ def compare(
     ...                      ["pad_1.wav", "pad_2.wav", "pad_3.wav"])   # doctest: +SKIP
     >>> [(m.before.f_d_hz, m.damping.ratio, m.verdict) for m in c.modes]  # doctest: +SKIP
     """
-    for name, v, lo, hi in (
-        ("tolerance", tolerance, 0.0, 1.0),
-        ("confidence", confidence, 0.0, 1.0),
-        ("cluster_tolerance", cluster_tolerance, 0.0, 1.0),
-    ):
-        ok = isinstance(v, (int, float, np.floating)) and math.isfinite(v) and lo < v < hi
-        if not ok:
-            raise ParameterError(f"{name} must lie in ({lo:g}, {hi:g}); got {v!r}")
-    if cluster_tolerance > tolerance:
-        raise ParameterError(
-            f"cluster_tolerance ({cluster_tolerance:g}) must not exceed tolerance ({tolerance:g}); "
-            "lower cluster_tolerance or raise tolerance"
-        )
-
+    _check_compare_options(tolerance, confidence, cluster_tolerance)
     sides = {}
     inputs: list[ComparisonInput] = []
     notices: list[Notice] = []
     for side, items in (("before", before), ("after", after)):
-        analyses = _as_analyses(items, side, analysis_options)
-        repeats: list[list[_Member]] = []
-        for k, a in enumerate(analyses):
-            label = a.path if a.path is not None else f"{side}[{k}]"
-            if a.error is not None:
-                inputs.append(ComparisonInput(side, a.path, a.channel, a.sample_rate_hz, 0, a.error))
-                notices.append(Notice("input_failed", f"{side}: {label} could not be analysed: {a.error.message}"))
-                continue
-            reps = _repeats_of(a, label, side, len(repeats))
-            repeats.extend(reps)
-            inputs.append(ComparisonInput(side, a.path, a.channel, a.sample_rate_hz, len(reps)))
-        if not repeats:
-            raise InputError(
-                f"{side}: none of the {len(analyses)} recording(s) gave a mode to compare; "
-                "check the files (see each one with 'ringdown analyze') or lower min_snr_db"
-            )
-        if len(repeats) < MIN_REPEATS:
-            notices.append(Notice(
-                "few_repeats",
-                f"{side}: only {len(repeats)} repeat(s); at least {MIN_REPEATS} are needed for a "
-                "useful scatter estimate, so intervals are wide or rest on propagated uncertainties",
-            ))
-        sides[side] = (analyses, repeats)
-
-    # Sample rates and channels may differ between the sides; that is fine but worth noting.
-    for attr, code, what in (("sample_rate_hz", "sample_rate_differs", "sample rate"),
-                             ("channel", "channel_differs", "channel")):
-        vals = {s: sorted({str(getattr(a, attr)) for a in sides[s][0] if a.error is None}) for s in sides}
-        if vals["before"] != vals["after"]:
-            notices.append(Notice(
-                code,
-                f"{what} differs between conditions (before: {', '.join(vals['before'])}; "
-                f"after: {', '.join(vals['after'])}); the comparison is still valid if the same "
-                "sensor position and a band below both Nyquist limits were used",
-            ))
+        sides[side] = _one_side(side, items, analysis_options, inputs, notices)
+    _note_differences(sides, notices)
 
     pooled = {}
     for side, (_, repeats) in sides.items():
@@ -781,62 +735,8 @@ def compare(
     f_b = [cm.values["f_d_hz"] for _, cm in pooled["before"]]
     f_a = [cm.values["f_d_hz"] for _, cm in pooled["after"]]
     pairs = match_frequencies(f_b, f_a, tolerance=tolerance)
-
-    modes: list[ModeComparison] = []
-    for idx, (i, j) in enumerate(pairs, start=1):
-        mb, cb = pooled["before"][i]
-        ma, ca = pooled["after"][j]
-        d, se, dof, lo, hi, p, test = _two_sample(_log_zeta_sample(mb), _log_zeta_sample(ma), confidence)
-        damping = DampingChange(
-            scale="log_zeta",
-            ratio=float(math.exp(d)),
-            ratio_low=None if lo is None else float(math.exp(lo)),
-            ratio_high=None if hi is None else float(math.exp(hi)),
-            log_ratio=float(d),
-            log_ratio_u=_finite_or_none(se),
-            dof=_finite_or_none(dof),
-            p_value=_finite_or_none(p),
-            test=test,
-            confidence=float(confidence),
-            verdict=_verdict(lo, hi),
-        )
-        d, se, dof, lo, hi, p, test = _two_sample(_f_d_sample(mb), _f_d_sample(ma), confidence)
-        freq = FrequencyShift(
-            shift_hz=float(d),
-            shift_hz_u=_finite_or_none(se),
-            low_hz=_finite_or_none(lo),
-            high_hz=_finite_or_none(hi),
-            relative=float(d / cb.values["f_d_hz"]),
-            dof=_finite_or_none(dof),
-            p_value=_finite_or_none(p),
-            test=test,
-            confidence=float(confidence),
-            verdict=_verdict(lo, hi),
-        )
-        warnings: list[Notice] = []
-        for cm in (cb, ca):
-            if cm.n_repeats < MIN_REPEATS:
-                warnings.append(Notice(
-                    "few_repeats",
-                    f"{cm.side}: this mode was measured in {cm.n_repeats} repeat(s) "
-                    f"(fewer than {MIN_REPEATS})",
-                ))
-            if 2 * cm.n_repeats < cm.n_repeats_side:
-                warnings.append(Notice(
-                    "mode_sporadic",
-                    f"{cm.side}: this mode was found in only {cm.n_repeats} of "
-                    f"{cm.n_repeats_side} repeats",
-                ))
-        warnings.extend(cb.warnings)
-        warnings.extend(ca.warnings)
-        if damping.test == "none":
-            warnings.append(Notice(
-                "not_tested", "no uncertainty available for the damping of this mode; no verdict"
-            ))
-        modes.append(ModeComparison(
-            index=idx, before=cb, after=ca, changes=_changes(cb, ca),
-            damping=damping, frequency=freq, warnings=tuple(warnings),
-        ))
+    modes = [_mode_comparison(idx, pooled["before"][i], pooled["after"][j], confidence)
+             for idx, (i, j) in enumerate(pairs, start=1)]
 
     paired_b = {i for i, _ in pairs}
     paired_a = {j for _, j in pairs}
@@ -868,6 +768,123 @@ def compare(
         n_repeats_after=len(sides["after"][1]),
         before_analyses=tuple(sides["before"][0]),
         after_analyses=tuple(sides["after"][0]),
+    )
+
+
+def _check_compare_options(tolerance: float, confidence: float, cluster_tolerance: float) -> None:
+    for name, v, lo, hi in (
+        ("tolerance", tolerance, 0.0, 1.0),
+        ("confidence", confidence, 0.0, 1.0),
+        ("cluster_tolerance", cluster_tolerance, 0.0, 1.0),
+    ):
+        ok = isinstance(v, (int, float, np.floating)) and math.isfinite(v) and lo < v < hi
+        if not ok:
+            raise ParameterError(f"{name} must lie in ({lo:g}, {hi:g}); got {v!r}")
+    if cluster_tolerance > tolerance:
+        raise ParameterError(
+            f"cluster_tolerance ({cluster_tolerance:g}) must not exceed tolerance ({tolerance:g}); "
+            "lower cluster_tolerance or raise tolerance"
+        )
+
+
+def _one_side(side: str, items: Sequence[Any], analysis_options: dict, inputs: list[ComparisonInput],
+              notices: list[Notice]) -> tuple[list[Analysis], list[list[_Member]]]:
+    """The analyses of one condition and their repeats (one per used hit); appends each input's
+    record to ``inputs`` and the side's notices to ``notices``."""
+    analyses = _as_analyses(items, side, analysis_options)
+    repeats: list[list[_Member]] = []
+    for k, a in enumerate(analyses):
+        label = a.path if a.path is not None else f"{side}[{k}]"
+        if a.error is not None:
+            inputs.append(ComparisonInput(side, a.path, a.channel, a.sample_rate_hz, 0, a.error))
+            notices.append(Notice("input_failed", f"{side}: {label} could not be analysed: {a.error.message}"))
+            continue
+        reps = _repeats_of(a, label, side, len(repeats))
+        repeats.extend(reps)
+        inputs.append(ComparisonInput(side, a.path, a.channel, a.sample_rate_hz, len(reps)))
+    if not repeats:
+        raise InputError(
+            f"{side}: none of the {len(analyses)} recording(s) gave a mode to compare; "
+            "check the files (see each one with 'ringdown analyze') or lower min_snr_db"
+        )
+    if len(repeats) < MIN_REPEATS:
+        notices.append(Notice(
+            "few_repeats",
+            f"{side}: only {len(repeats)} repeat(s); at least {MIN_REPEATS} are needed for a "
+            "useful scatter estimate, so intervals are wide or rest on propagated uncertainties",
+        ))
+    return analyses, repeats
+
+
+def _note_differences(sides: dict, notices: list[Notice]) -> None:
+    """Sample rates and channels may differ between the sides; that is fine but worth noting."""
+    for attr, code, what in (("sample_rate_hz", "sample_rate_differs", "sample rate"),
+                             ("channel", "channel_differs", "channel")):
+        vals = {s: sorted({str(getattr(a, attr)) for a in sides[s][0] if a.error is None}) for s in sides}
+        if vals["before"] != vals["after"]:
+            notices.append(Notice(
+                code,
+                f"{what} differs between conditions (before: {', '.join(vals['before'])}; "
+                f"after: {', '.join(vals['after'])}); the comparison is still valid if the same "
+                "sensor position and a band below both Nyquist limits were used",
+            ))
+
+
+def _mode_comparison(idx: int, before: tuple[list[_Member], ConditionMode],
+                     after: tuple[list[_Member], ConditionMode], confidence: float) -> ModeComparison:
+    """One paired mode: its damping change (on ln zeta), its frequency shift and its warnings."""
+    mb, cb = before
+    ma, ca = after
+    d, se, dof, lo, hi, p, test = _two_sample(_log_zeta_sample(mb), _log_zeta_sample(ma), confidence)
+    damping = DampingChange(
+        scale="log_zeta",
+        ratio=float(math.exp(d)),
+        ratio_low=None if lo is None else float(math.exp(lo)),
+        ratio_high=None if hi is None else float(math.exp(hi)),
+        log_ratio=float(d),
+        log_ratio_u=_finite_or_none(se),
+        dof=_finite_or_none(dof),
+        p_value=_finite_or_none(p),
+        test=test,
+        confidence=float(confidence),
+        verdict=_verdict(lo, hi),
+    )
+    d, se, dof, lo, hi, p, test = _two_sample(_f_d_sample(mb), _f_d_sample(ma), confidence)
+    freq = FrequencyShift(
+        shift_hz=float(d),
+        shift_hz_u=_finite_or_none(se),
+        low_hz=_finite_or_none(lo),
+        high_hz=_finite_or_none(hi),
+        relative=float(d / cb.values["f_d_hz"]),
+        dof=_finite_or_none(dof),
+        p_value=_finite_or_none(p),
+        test=test,
+        confidence=float(confidence),
+        verdict=_verdict(lo, hi),
+    )
+    warnings: list[Notice] = []
+    for cm in (cb, ca):
+        if cm.n_repeats < MIN_REPEATS:
+            warnings.append(Notice(
+                "few_repeats",
+                f"{cm.side}: this mode was measured in {cm.n_repeats} repeat(s) "
+                f"(fewer than {MIN_REPEATS})",
+            ))
+        if 2 * cm.n_repeats < cm.n_repeats_side:
+            warnings.append(Notice(
+                "mode_sporadic",
+                f"{cm.side}: this mode was found in only {cm.n_repeats} of "
+                f"{cm.n_repeats_side} repeats",
+            ))
+    warnings.extend(cb.warnings)
+    warnings.extend(ca.warnings)
+    if damping.test == "none":
+        warnings.append(Notice(
+            "not_tested", "no uncertainty available for the damping of this mode; no verdict"
+        ))
+    return ModeComparison(
+        index=idx, before=cb, after=ca, changes=_changes(cb, ca),
+        damping=damping, frequency=freq, warnings=tuple(warnings),
     )
 
 
