@@ -12,6 +12,7 @@ in a test. This script
 2. rewrites every relative import under ``ringdown/`` that no longer resolves: it is read as
    it was meant where the file used to be (the flat package) and pointed at the module's new
    home (:data:`MOVED`),
+   and renames the few helpers renamed with the move (:data:`RENAMED`),
 3. rewrites ``ringdown.OLD...`` names in ``tests/``, ``docs/``, ``example_signals/``, README.md
    and DEVELOPERS.md (imports, monkeypatch targets, docstrings), except where ``ringdown.OLD``
    is a public function of the same name used as one (``ringdown.compare(...)``).
@@ -50,6 +51,8 @@ MOVED = {
     "plots": "render.plots", "compare_plot": "render.compare_plot", "history_plot": "render.history_plot",
     "report": "render.report",
 }
+#: names renamed along with the move (old -> new), replaced as whole words in the package
+RENAMED = {"_sha256_file": "sha256_file"}
 #: old names that are also public functions of the package (``ringdown.compare(...)``)
 PUBLIC_FUNCTIONS = {"compare", "moduli", "check"}
 ROOMS = {"base", "io", "analysis", "treatment", "inspection", "materials", "render", "cli"}
@@ -83,6 +86,17 @@ def exists(dotted: str) -> bool:
     """Whether ``ringdown.<dotted>`` is a module or package in the working tree."""
     path = PKG.joinpath(*dotted.split(".")) if dotted else PKG
     return path.with_suffix(".py").is_file() or (path / "__init__.py").is_file()
+
+
+def _found_elsewhere(target: str) -> str:
+    """``target`` in the room it was moved to by hand (a module name found once in the package)."""
+    first, _, rest = target.partition(".")
+    hits = [p for p in PKG.rglob(f"{first}.py") if "__pycache__" not in p.parts]
+    hits += [p / "__init__.py" for p in PKG.rglob(first) if (p / "__init__.py").is_file()]
+    if len(hits) != 1:
+        return target
+    found = module_of(hits[0])[0]
+    return f"{found}.{rest}" if rest else found
 
 
 def relative(from_pkg: str, target: str) -> str:
@@ -126,11 +140,15 @@ def fix_imports(path: Path) -> list[str]:
             if exists(f"{here}.{node.module}".strip(".")):
                 continue
             target = new_name(f"{_base(old_package, node.level)}.{node.module}".strip("."))
+            if not exists(target) and node.level == 1:  # a module new on its branch: it was flat
+                target = new_name(node.module)
         else:
             if all(exists(f"{here}.{n}".strip(".")) for n in names):
                 continue
             old_base = _base(old_package, node.level)
             moved = [new_name(f"{old_base}.{n}".strip(".")) for n in names]
+            if not any(exists(m) for m in moved) and node.level == 1:  # a module new on its branch: it was flat
+                moved = [new_name(n) for n in names]
             if not any(exists(m) for m in moved):
                 continue  # names defined in the package itself (from . import _UFF_START)
             homes = {m.rpartition(".")[0] for m in moved}
@@ -138,6 +156,21 @@ def fix_imports(path: Path) -> list[str]:
                 notes_early.append(f"{path}:{node.lineno}: split this import by hand ({sorted(homes)})")
                 continue
             target = homes.pop()
+            leaves = [m.rpartition(".")[2] for m in moved]
+            if leaves != names:  # a module renamed in its move (io -> io.read): keep the local name
+                if node.end_lineno != node.lineno:
+                    notes_early.append(f"{path}:{node.lineno}: import over several lines; fix by hand")
+                    continue
+                parts = [f"{leaf} as {a.asname or a.name}" if leaf != (a.asname or a.name) else leaf
+                         for leaf, a in zip(leaves, node.names)]
+                line = lines[node.lineno - 1]
+                indent = line[: len(line) - len(line.lstrip())]
+                tail = line[node.end_col_offset:]
+                lines[node.lineno - 1] = f"{indent}from {relative(package, target)} import {', '.join(parts)}{tail}"
+                notes_early.append(f"{path.relative_to(ROOT)}:{node.lineno}: now {lines[node.lineno - 1].strip()}")
+                continue
+        if not exists(target):
+            target = _found_elsewhere(target)
         if not exists(target):
             notes_early.append(f"{path}:{node.lineno}: no new home for {target!r}; fix by hand")
             continue
@@ -153,12 +186,33 @@ def fix_imports(path: Path) -> list[str]:
             notes.append(f"{path.relative_to(ROOT)}:{lineno}: {m.group(1)} -> {spec}")
             lines[lineno - 1] = line[: m.start(1)] + spec + line[m.end(1):]
     new = "".join(lines)
+    for old_word, new_word in RENAMED.items():
+        if re.search(rf"\b{old_word}\b", new):
+            new = re.sub(rf"\b{old_word}\b", new_word, new)
+            notes.append(f"{path.relative_to(ROOT)}: {old_word} -> {new_word}")
     if new != text:
         path.write_text(new, encoding="utf-8")
     return notes
 
 
 _NAME = re.compile(r"\bringdown\.([a-z_]+(?:\.[A-Za-z_]+)*)")
+
+
+_FROM_ROOT = re.compile(r"\bfrom ringdown import ([\w, ]+?)([ \t]*)(?=\\n|[\"';#\n]|$)", re.M)
+
+
+def _split_from_root(m: re.Match) -> str:
+    """``from ringdown import batch, analyze`` -> one import per room (joined by '; ', which works
+    in code and inside ``python -c`` strings alike); public names stay imported from ringdown."""
+    names = [n.strip() for n in m.group(1).split(",") if n.strip()]
+    if not any(n in MOVED and n not in PUBLIC_FUNCTIONS for n in names):
+        return m.group(0)
+    groups: dict[str, list[str]] = {}
+    for n in names:
+        home = MOVED[n].rpartition(".")[0] if n in MOVED and n not in PUBLIC_FUNCTIONS else ""
+        groups.setdefault(home, []).append(n.rpartition(".")[2] if not home else MOVED[n].rpartition(".")[2])
+    return "; ".join(f"from ringdown{'.' + home if home else ''} import {', '.join(ns)}"
+                     for home, ns in groups.items()) + m.group(2)
 
 
 def fix_names(path: Path) -> int:
@@ -186,11 +240,7 @@ def fix_names(path: Path) -> int:
         return _NAME.sub(rep, line)
 
     new = "".join(one(line) for line in text.splitlines(keepends=True))
-    new = re.sub(r"^(\s*)from ringdown import (\w+)(\s|$)",
-                 lambda m: (f"{m.group(1)}from ringdown.{MOVED[m.group(2)].rpartition('.')[0]} import "
-                            f"{MOVED[m.group(2)].rpartition('.')[2]}{m.group(3)}")
-                 if m.group(2) in MOVED and m.group(2) not in PUBLIC_FUNCTIONS else m.group(0),
-                 new, flags=re.M)
+    new = _FROM_ROOT.sub(_split_from_root, new)
     if new != text:
         path.write_text(new, encoding="utf-8")
     return count
@@ -205,6 +255,7 @@ def main(argv: list[str] | None = None) -> int:
         Path(ROOT, dst).parent.mkdir(parents=True, exist_ok=True)
         subprocess.run(["git", "mv", src, dst], cwd=ROOT, check=True)
         MOVED_NOW[module_of(ROOT / dst)[0]] = module_of(ROOT / src)[0]
+        MOVED[module_of(ROOT / src)[0]] = module_of(ROOT / dst)[0]
     notes = []
     for path in sorted(PKG.rglob("*.py")):
         notes += fix_imports(path)
