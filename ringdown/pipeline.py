@@ -618,12 +618,11 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
         groups = [([], lo, hi, []) for lo, hi in opts.bands]
     elif model:
         start = _free_decay_start(ctx, span, clip_end) if span.kind == "impulse" else max(span.onset, clip_end or 0)
-        cands, groups = _candidates(ctx, start, seg_end, rejected, clipped=clip_end is not None)
+        cands, groups = _candidates(ctx, start, seg_end, rejected, parametric=clip_end is None)
     else:
-        decay = x[decay_from:seg_end]
-        peaks = find_peaks(decay, fs, max_peaks=opts.max_modes, noise_psd=(ctx.noise_f, ctx.noise_p))
-        groups = [(g, lo, hi, []) for g, lo, hi in
-                  group_bands(peaks, sample_rate=fs, resolution_hz=fs / decay.shape[0], barriers_hz=ctx.tones)]
+        # spectral peaks of the decay as candidates: each one not reported as a mode is named
+        start = decay_from
+        cands, groups = _candidates(ctx, start, seg_end, rejected, parametric=False, max_peaks=opts.max_modes)
     modes: list[Mode] = []
     failed: list[str] = []
     for peaks_g, lo, hi, group_cands in groups:
@@ -684,16 +683,17 @@ def _free_decay_start(ctx: _RecordContext, span, clip_end: int | None) -> int:
     return max(start, clip_end or 0)
 
 
-def _candidates(ctx: _RecordContext, start: int, seg_end: int, rejected: list[Rejected], *, clipped: bool = False):
+def _candidates(ctx: _RecordContext, start: int, seg_end: int, rejected: list[Rejected], *, parametric: bool = True,
+                max_peaks: int | None = None):
     """Candidates of one decay (``detect.find_candidates``) and their bands (``group_bands``);
     candidates not measured are appended to ``rejected``.
 
     Returns ``(candidates, groups)``, each group ``(peaks, lo_hz, hi_hz, candidates)``."""
     x, fs = ctx.x, ctx.fs
     decay = x[start:seg_end]
-    spectral = find_peaks(decay, fs, noise_psd=(ctx.noise_f, ctx.noise_p))
+    spectral = find_peaks(decay, fs, noise_psd=(ctx.noise_f, ctx.noise_p), max_peaks=max_peaks)
     found, below = detect.find_candidates(x, fs, start=start, end=seg_end, noise_f=ctx.noise_f, noise_p=ctx.noise_p,
-                                          spectral=spectral, parametric=not clipped)
+                                          spectral=spectral, parametric=parametric)
     thr_db = 10.0 * math.log10(detect.snr_threshold(seg_end - start, fs))
     for c in below:
         rejected.append(_rejection(c, "near_noise", f"matched-filter SNR {c.snr_db:.1f} dB, below the {thr_db:.1f} dB "
