@@ -340,8 +340,10 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
     level = condition.envelope_db(x, fs, smoothing=smoothing)
     noise_db = condition.noise_floor_db(level, smoothing)
     slow = condition.envelope_db(x, fs, smoothing=2 * smoothing)
+    # the prediction error shows a second tap on a record still ringing from the first
+    inn_level = condition.envelope_db(condition.innovation(x), fs, smoothing=smoothing)
     spans = condition.find_hits(level, fs, noise_db=noise_db, min_hit_snr_db=opts.min_hit_snr_db,
-                                smoothing=smoothing, slow_level_db=slow)
+                                smoothing=smoothing, slow_level_db=slow, innovation_level_db=inn_level)
     band_note = None
     if not spans:
         # a narrowband mode can stand far above its band's noise while the broadband level does
@@ -386,7 +388,9 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
                          clipped=clipped, tones=tuple(tones), i0=i0, smoothing=smoothing)
     hits: list[Hit] = []
     for j, span in enumerate(spans):
-        hits.append(_analyze_hit(ctx, span, prev_end=spans[j - 1].end if j > 0 else 0))
+        earlier = tuple((m.f_d_hz, max(m.beta_per_s / math.pi, 3.0 * (m.f_d_hz_u or 0.0)))
+                        for h in hits for m in h.modes)
+        hits.append(_analyze_hit(ctx, span, prev_end=spans[j - 1].end if j > 0 else 0, earlier=earlier))
 
     used = [h for h in hits if h.used and h.modes]
     if not used and any(h.modes for h in hits):
@@ -556,12 +560,19 @@ class _HitContext:
     clip_end: int | None  #: first sample (index in the recording) after the last clipped one in the hit, or None
     seg_end: int  #: index in the recording where the hit's segment ends
     pre_rms: float | None = None  #: RMS of the samples before the hit's rise (None: too few), recording units
+    earlier: tuple = ()  #: (f_hz, width_hz) of modes measured in earlier hits of the record
+
+    def rings_from_earlier(self, f_hz: float, width_hz: float = 0.0) -> bool:
+        """Whether a component at ``f_hz`` is a mode an earlier hit excited: it was there before
+        this hit because it still rings, not because it is a steady tone."""
+        return any(abs(f_hz - f) <= max(w, width_hz, 2.0 * self.spec.df_hz) for f, w in self.earlier)
 
 
-def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
+def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = ()) -> Hit:
     """Every mode of one hit (``span``, from :func:`condition.find_hits` and
     :func:`condition.free_decay_start`); ``prev_end`` is the sample where the previous hit's
-    segment ended (0 for the first). Indices are into ``ctx.x``; times are from the recording's
+    segment ended (0 for the first); ``earlier`` holds ``(f_hz, width_hz)`` of the modes of
+    earlier hits, which still ring when this hit comes. Indices are into ``ctx.x``; times are from the recording's
     first sample (``ctx.i0`` samples before ``ctx.x[0]``)."""
     x, fs, opts = ctx.x, ctx.fs, ctx.opts
     i0 = ctx.i0
@@ -611,7 +622,7 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
     pre_rms = float(np.sqrt(np.mean(pre_x**2))) if span.kind == "impulse" and pre_x.size >= 4 * ctx.smoothing else None
     hctx = _HitContext(record=ctx, spec=spectrum_of(x[seg_start:seg_end], fs, t0_s=(seg_start + i0) / fs),
                        onset_s=onset_s, clip_end=None if clip_end is None else clip_end + i0, seg_end=seg_end + i0,
-                       pre_rms=pre_rms)
+                       pre_rms=pre_rms, earlier=earlier)
     rejected: list[Rejected] = []
     cands: list[Candidate] = []
     if opts.bands is not None:
@@ -871,7 +882,8 @@ def _measure_group(hctx: _HitContext, peaks_g: list[Peak], lo: float, hi: float,
     group_band = _extract(spec, lo, hi, noise_f, noise_p)
     # first guess of the decay rate from the spectral peaks' half-power width (beta ~ pi width)
     beta_hint = max((math.pi * p.width_hz for p in peaks_g), default=0.0)
-    if peaks_g and _steady_before_onset(group_band, onset_s, beta_hint):
+    ringing = bool(peaks_g) and all(hctx.rings_from_earlier(p.f_hz, p.width_hz) for p in peaks_g)
+    if peaks_g and not ringing and _steady_before_onset(group_band, onset_s, beta_hint):
         near = 2.0 * (noise_f[1] - noise_f[0])  # two Welch bins
         if all(any(abs(p.f_hz - f) <= near for f in tones) for p in peaks_g):
             return []  # already named at the recording level
@@ -933,7 +945,7 @@ def _measure_group(hctx: _HitContext, peaks_g: list[Peak], lo: float, hi: float,
         else:
             _, found, sb, sw = min(cross, key=lambda c: abs(c[0] - est.f_d_hz))
             others = {k: v for k, v in found.items() if k != est.method}
-        if _is_stationary(est, sb, sw, seg_end / fs, pre_rms=hctx.pre_rms):
+        if not hctx.rings_from_earlier(est.f_d_hz) and _is_stationary(est, sb, sw, seg_end / fs, pre_rms=hctx.pre_rms):
             hit_warnings.append(Notice("stationary_tone", f"steady tone at {est.f_d_hz:.1f} Hz does not decay (mains hum or "
                                                           "another running source?); not reported as a mode"))
             continue
