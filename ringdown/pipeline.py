@@ -651,6 +651,11 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
         found, unmatched = _match_candidates(found, group_cands, steady)
         rejected.extend(unmatched)
         modes.extend(found)
+    if opts.bands is None and not model and modes and hctx.seg_end - ctx.i0 - start >= MIN_SAMPLES:
+        more, more_rejected = _residual_round(hctx, start, modes, cands)
+        modes.extend(more)
+        rejected.extend(more_rejected)
+    modes = _drop_driven(modes, onset_s, warnings)
     if failed:
         shown = "; ".join(failed[:3]) + (f"; and {len(failed) - 3} more" if len(failed) > 3 else "")
         warnings.append(Notice("fit_failed", f"{len(failed)} band(s) in the hit at {onset_s:.6g} s could not be fitted: {shown}"))
@@ -664,6 +669,106 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
     modes = [m.with_updates(index=i + 1) for i, m in enumerate(modes)]
     warnings.extend(r.notice() for r in rejected)
     return hit(used, modes, rejected)
+
+
+#: Rounds of the residual search (each subtracts every mode measured so far and looks again).
+RESIDUAL_ROUNDS = 2
+
+
+def _subtract_modes(seg: np.ndarray, fs: float, modes: Sequence[Mode]) -> np.ndarray:
+    """``seg`` less the least-squares sum of the damped cosines of ``modes`` (their poles fixed,
+    amplitudes and phases fitted on ``seg``; t = 0 at ``seg[0]``)."""
+    t = np.arange(seg.shape[0]) / fs
+    cols = []
+    for m in modes:
+        e = np.exp(-m.beta_per_s * t)
+        w = 2.0 * math.pi * m.f_d_hz * t
+        cols += [e * np.cos(w), e * np.sin(w)]
+    phi = np.stack(cols, axis=1)
+    coef, *_ = np.linalg.lstsq(phi, seg, rcond=None)
+    return seg - phi @ coef
+
+
+def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: list[Candidate]):
+    """Modes the first search could not see beside stronger ones: subtract every measured mode
+    from the decay (CLEAN, Hogbom 1974 [from memory]: successive cancellation of the strongest
+    components), look for spectral peaks in what is left against the same noise spectrum, and
+    measure each new one: in its band of the record (bounded by the measured modes) when the band
+    has room, else on the residual itself (a broad, fast decay: raw fit). Returns
+    ``(modes, rejected)``."""
+    ctx = hctx.record
+    fs, x = ctx.fs, ctx.x
+    seg_end = hctx.seg_end - ctx.i0
+    known = list(modes)
+    tried = [(c.f_hz, max(c.width_hz, c.resolution_hz)) for c in cands]
+    new_modes: list[Mode] = []
+    rejected: list[Rejected] = []
+    decay = x[start:seg_end]
+    res_hz = fs / decay.shape[0]
+    for _ in range(RESIDUAL_ROUNDS):
+        resid = _subtract_modes(decay, fs, known)
+        peaks = find_peaks(resid, fs, noise_psd=(ctx.noise_f, ctx.noise_p))
+        fresh = []
+        for p in peaks:
+            near_mode = any(abs(p.f_hz - m.f_d_hz) <= max(2.0 * m.beta_per_s / math.pi, 3.0 * res_hz,
+                                                          3.0 * (m.f_d_hz_u or 0.0)) for m in known)
+            near_cand = any(abs(p.f_hz - f) <= max(w, 2.0 * res_hz) for f, w in tried)
+            if not (near_mode or near_cand):
+                fresh.append(p)
+        if not fresh:
+            break
+        tried += [(p.f_hz, max(p.width_hz, res_hz)) for p in fresh]
+        barriers = tuple(ctx.tones) + tuple(m.f_d_hz for m in known)
+        found_round: list[Mode] = []
+        for g, lo, hi in group_bands(fresh, sample_rate=fs, resolution_hz=res_hz, barriers_hz=barriers):
+            gc = [Candidate(p.f_hz, math.pi * p.width_hz, max(p.width_hz, res_hz), None, None, "residual", -2, res_hz)
+                  for p in g]
+            try:
+                if _needs_raw_fit(gc, lo, hi) or any(lo < m.f_d_hz < hi for m in known):
+                    got = _measure_residual(hctx, resid, start, gc)
+                else:
+                    got = _measure_group(hctx, g, lo, hi, [])
+            except FitError as exc:
+                rejected.extend(_rejection(c, "fit_failed", str(exc)) for c in gc)
+                continue
+            got = [m for m in got if not any(abs(m.f_d_hz - k.f_d_hz) <= max(k.beta_per_s / math.pi, 3.0 * res_hz)
+                                             for k in known + found_round)]
+            got, unmatched = _match_candidates(got, gc, False)
+            rejected.extend(unmatched)
+            found_round.extend(got)
+        if not found_round:
+            break
+        known += found_round
+        new_modes += found_round
+    return new_modes, rejected
+
+
+def _measure_residual(hctx: _HitContext, resid: np.ndarray, start: int, targets: list[Candidate]) -> list[Mode]:
+    """Targets fitted as real damped cosines on the residual of the decay (every measured mode
+    subtracted), from the decay's start, over as long as the slowest target stands above the noise."""
+    from .estimators.real import estimate_real
+
+    ctx = hctx.record
+    fs = ctx.fs
+    t_rest = resid.shape[0] / fs
+    dur = 0.0
+    for c in targets:
+        density = float(detect.noise_density(c.f_hz, ctx.noise_f, ctx.noise_p))
+        amp = math.sqrt(max(float(np.mean(resid[: max(8, int(fs / c.f_hz))] ** 2)) * 2.0, 1e-300))
+        d = detect.mf_snr(amp, c.beta_per_s, t_rest, density)
+        dur = max(dur, math.log(max(d, math.e**2)) / (2.0 * c.beta_per_s))
+    dur = min(max(dur, 20.0 / min(c.f_hz for c in targets)), t_rest)
+    t0 = (start + ctx.i0) / fs
+    ests = estimate_real(resid, fs, t0_s=t0, poles=[(c.f_hz, c.beta_per_s) for c in targets], n_targets=len(targets),
+                         duration_s=dur, noise_f=ctx.noise_f, noise_p=ctx.noise_p)
+    out = []
+    for est in ests:
+        if DB_PER_NEPER * est.beta_per_s * t_rest < 6.0:
+            continue  # decays less than 6 dB over the hit: left to the band search, as in _measure_raw
+        density = float(detect.noise_density(est.f_d_hz, ctx.noise_f, ctx.noise_p))
+        noise_rms = math.sqrt(max(2.0 * density * est.beta_per_s / math.pi, 1e-300))
+        out.append(_make_raw_mode(est, noise_rms, resid, fs, t0))
+    return out
 
 
 #: A group is fitted on the raw record when a mode's band would reach less than this many
@@ -945,15 +1050,71 @@ def _measure_group(hctx: _HitContext, peaks_g: list[Peak], lo: float, hi: float,
         else:
             _, found, sb, sw = min(cross, key=lambda c: abs(c[0] - est.f_d_hz))
             others = {k: v for k, v in found.items() if k != est.method}
+        unresolved_decay: list[Notice] = []
         if not hctx.rings_from_earlier(est.f_d_hz) and _is_stationary(est, sb, sw, seg_end / fs, pre_rms=hctx.pre_rms):
-            hit_warnings.append(Notice("stationary_tone", f"steady tone at {est.f_d_hz:.1f} Hz does not decay (mains hum or "
-                                                          "another running source?); not reported as a mode"))
-            continue
-        mode = _make_mode(est, others, band, window, extra)
+            if not _started_with_hit(est, hctx.pre_rms):
+                hit_warnings.append(Notice("stationary_tone", f"steady tone at {est.f_d_hz:.1f} Hz does not decay (mains "
+                                                              "hum or another running source?); not reported as a mode"))
+                continue
+            unresolved_decay.append(_decay_unresolved(est))
+        mode = _make_mode(est, others, band, window, extra + unresolved_decay)
         if len(peaks_g) <= 1:
             mode = _amplitude_dependence(mode, sb, sw)
         modes.append(mode)
     return modes
+
+
+def _started_with_hit(est: Estimate, pre_rms: float | None) -> bool:
+    """Whether a component too far above what the record held before the hit to have been there
+    (amplitude over ``sqrt(2) pre_rms`` by ``STEADY_MARGIN_DB``) started with the hit."""
+    return pre_rms is not None and est.amplitude is not None and \
+        est.amplitude > math.sqrt(2.0) * pre_rms * 10 ** (STEADY_MARGIN_DB / 20)
+
+
+def _decay_unresolved(est: Estimate) -> Notice:
+    """The warning on a mode that started with the hit but whose decay the record does not resolve."""
+    u = est.beta_per_s_u or 0.0
+    f_n = math.hypot(est.f_d_hz, est.beta_per_s / (2.0 * math.pi))
+    q_low = math.pi * f_n / max(est.beta_per_s + 2.0 * u, 1e-300)
+    return Notice("decay_unresolved", f"mode at {est.f_d_hz:.6g} Hz started with the hit but decays too little in the record "
+                                      f"to measure: beta = {est.beta_per_s:.3g} +- {u:.2g} 1/s, Q above about {q_low:.3g} "
+                                      "(beta + 2u); record longer for its damping. Alone in a hit it is taken for a drive "
+                                      "switched on, not a mode")
+
+
+#: A component that does not decay, within this many half-power bandwidths of a decaying mode of
+#: the same hit and within FORCED_LEVEL_DB of its level at the onset, is the forced response of a
+#: drive switched on near that resonance: switched on from rest, the forced response and the
+#: resonance's free transient start with comparable amplitudes (they cancel at t = 0), and the
+#: transient decays while the drive runs on (common practice, no source).
+FORCED_BANDWIDTHS = 3.0
+FORCED_LEVEL_DB = 10.0
+
+
+def _drop_driven(modes: list[Mode], onset_s: float, warnings: list[Notice]) -> list[Mode]:
+    """The hit's modes less those whose decay is unresolved and that are a drive switched on
+    (alone in the hit, or the forced response next to a resonance's start-up transient: see
+    ``FORCED_BANDWIDTHS``); each dropped one is named as a steady tone in ``warnings``."""
+    def unresolved(m: Mode) -> bool:
+        return any(w.code == "decay_unresolved" for w in m.warnings)
+
+    def at_onset(m: Mode) -> float:
+        return (m.amplitude or 0.0) * math.exp(min(m.beta_per_s * max(m.fit_start_s - onset_s, 0.0), 700.0))
+
+    decaying = [m for m in modes if not unresolved(m)]
+    out = []
+    for m in modes:
+        if unresolved(m):
+            driven = not decaying or any(
+                abs(m.f_d_hz - d.f_d_hz) <= FORCED_BANDWIDTHS * d.beta_per_s / math.pi
+                and abs(20.0 * math.log10(max(at_onset(m), 1e-300) / max(at_onset(d), 1e-300))) <= FORCED_LEVEL_DB
+                for d in decaying)
+            if driven:
+                warnings.append(Notice("stationary_tone", f"steady tone at {m.f_d_hz:.1f} Hz does not decay and started "
+                                                          "with the hit (a drive switched on?); not reported as a mode"))
+                continue
+        out.append(m)
+    return out
 
 
 def _level_before_onset(band: Band, onset_s: float, settle_s: float) -> float | None:
