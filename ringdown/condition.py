@@ -395,14 +395,19 @@ def find_hits(
         for k in more:
             if all(abs(int(k) - o) >= hold for o in onsets + kept) and int(k) > onsets[0]:
                 kept.append(int(k))
+        from_innovation = set(kept)
         onsets = sorted(onsets + kept)
+    else:
+        from_innovation = set()
     # The centred smoothing turns a step in power into a ramp one smoothing width long, centred
     # on the step: the onset is where the ramp reaches half (-3 dB) of the level just after it.
     spans: list[HitSpan] = []
     for j, k in enumerate(onsets):
-        top = float(np.max(level_db[k : min(n, k + sm + 1)]))
+        # a hit over ringing is timed on the level that showed it
+        ref = innovation_level_db if k in from_innovation else level_db
+        top = float(np.max(ref[k : min(n, k + sm + 1)]))
         lo_i = max(0, k - sm)
-        reach = np.flatnonzero(level_db[lo_i : k + sm + 1] >= top - 3.0103)
+        reach = np.flatnonzero(ref[lo_i : k + sm + 1] >= top - 3.0103)
         onset = lo_i + int(reach[0]) if reach.size else k
         end = onsets[j + 1] - sm if j + 1 < len(onsets) else n
         stop = min(end, onset + hold + bw)

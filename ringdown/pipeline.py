@@ -498,7 +498,7 @@ def _noise_spectrum(x: np.ndarray, fs: float, spans, level: np.ndarray, noise_db
 
     1. ``"pre_trigger"``: the samples before the first hit's rise (the tap, or the start of a
        drive), less one smoothing width, when they are at least :data:`MIN_NOISE_SAMPLES` and
-       4 smoothing widths long;
+       one smoothing width long;
     2. ``"tail"``: else the record's end after the last block (4 smoothing widths, at least 32
        samples) whose median level is more than 4 dB above the noise floor, when that long;
     3. ``"record_end"``: else the record's last 10 % (at least :data:`MIN_NOISE_SAMPLES`),
@@ -510,7 +510,9 @@ def _noise_spectrum(x: np.ndarray, fs: float, spans, level: np.ndarray, noise_db
     min_len = max(MIN_NOISE_SAMPLES, 4 * sm)
     first = spans[0].rise if spans[0].rise is not None else spans[0].onset
     pre_end = first - sm
-    if pre_end >= min_len:
+    # a pre-trigger of one smoothing width (at least 256 samples) is noise alone: better than
+    # the decay's tail, which a slow mode still fills
+    if pre_end >= max(MIN_NOISE_SAMPLES, sm):
         return (*condition.noise_psd(x[:pre_end], fs), "pre_trigger", None)
     blk = max(32, 4 * sm)
     last = spans[-1].peak
@@ -615,11 +617,11 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
         warnings.append(Notice("short_decay", f"hit at {onset_s:.6g} s leaves {seg_end - decay_from} samples of decay"))
         return hit(False)
 
-    # what the record held before the hit's rise (at least 4 smoothing widths of it): bounds the
+    # what the record held before the hit's rise (at least one smoothing width of it): bounds the
     # amplitude any steady tone could have had there
     rise = span.rise if span.rise is not None else span.onset
     pre_x = x[prev_end:max(prev_end, rise - ctx.smoothing)]
-    pre_rms = float(np.sqrt(np.mean(pre_x**2))) if span.kind == "impulse" and pre_x.size >= 4 * ctx.smoothing else None
+    pre_rms = float(np.sqrt(np.mean(pre_x**2))) if span.kind == "impulse" and pre_x.size >= max(ctx.smoothing, 16) else None
     hctx = _HitContext(record=ctx, spec=spectrum_of(x[seg_start:seg_end], fs, t0_s=(seg_start + i0) / fs),
                        onset_s=onset_s, clip_end=None if clip_end is None else clip_end + i0, seg_end=seg_end + i0,
                        pre_rms=pre_rms, earlier=earlier)
@@ -636,8 +638,14 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
         cands, groups = _candidates(ctx, start, seg_end, rejected, parametric=False, max_peaks=opts.max_modes)
     modes: list[Mode] = []
     failed: list[str] = []
+    residual = opts.bands is None and not model and hctx.seg_end - ctx.i0 - start >= MIN_SAMPLES
+    deferred: list[Candidate] = []
     for peaks_g, lo, hi, group_cands in groups:
         n_warn = len(warnings)
+        if residual and _needs_raw_fit(group_cands, lo, hi):
+            # too broad for a band: fitted on the residual, once every other mode is subtracted
+            deferred.extend(group_cands)
+            continue
         try:
             if _needs_raw_fit(group_cands, lo, hi):
                 found = _measure_raw(hctx, group_cands, cands, start)
@@ -651,8 +659,8 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
         found, unmatched = _match_candidates(found, group_cands, steady)
         rejected.extend(unmatched)
         modes.extend(found)
-    if opts.bands is None and not model and modes and hctx.seg_end - ctx.i0 - start >= MIN_SAMPLES:
-        more, more_rejected = _residual_round(hctx, start, modes, cands)
+    if residual:
+        more, more_rejected = _residual_round(hctx, start, modes, [c for c in cands if c not in deferred], deferred)
         modes.extend(more)
         rejected.extend(more_rejected)
     modes = _drop_driven(modes, onset_s, warnings)
@@ -678,6 +686,8 @@ RESIDUAL_ROUNDS = 2
 def _subtract_modes(seg: np.ndarray, fs: float, modes: Sequence[Mode]) -> np.ndarray:
     """``seg`` less the least-squares sum of the damped cosines of ``modes`` (their poles fixed,
     amplitudes and phases fitted on ``seg``; t = 0 at ``seg[0]``)."""
+    if not modes:
+        return np.array(seg, dtype=np.float64)
     t = np.arange(seg.shape[0]) / fs
     cols = []
     for m in modes:
@@ -689,13 +699,17 @@ def _subtract_modes(seg: np.ndarray, fs: float, modes: Sequence[Mode]) -> np.nda
     return seg - phi @ coef
 
 
-def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: list[Candidate]):
+def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: list[Candidate],
+                    deferred: Sequence[Candidate] = ()):
     """Modes the first search could not see beside stronger ones: subtract every measured mode
     from the decay (CLEAN, Hogbom 1974 [from memory]: successive cancellation of the strongest
     components), look for spectral peaks in what is left against the same noise spectrum, and
     measure each new one: in its band of the record (bounded by the measured modes) when the band
-    has room, else on the residual itself (a broad, fast decay: raw fit). Returns
-    ``(modes, rejected)``."""
+    has room, else on the residual itself (a broad, fast decay: raw fit). The ``deferred``
+    candidates (too broad for a band) are fitted on the first residual. Broad peaks
+    (``find_peaks(broad=True)``) are looked for in the first residual only, where the sharp
+    modes and their skirts are gone; later rounds look for sharp peaks only, since subtracting a
+    strong broad mode leaves a broadband remnant. Returns ``(modes, rejected)``."""
     ctx = hctx.record
     fs, x = ctx.fs, ctx.x
     seg_end = hctx.seg_end - ctx.i0
@@ -705,9 +719,28 @@ def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: lis
     rejected: list[Rejected] = []
     decay = x[start:seg_end]
     res_hz = fs / decay.shape[0]
-    for _ in range(RESIDUAL_ROUNDS):
+    if deferred:
         resid = _subtract_modes(decay, fs, known)
-        peaks = find_peaks(resid, fs, noise_psd=(ctx.noise_f, ctx.noise_p))
+        peaks_d = [Peak(c.f_hz, float("nan"), float("nan"), c.width_hz, broad=True) for c in deferred]
+        of_peak = {id(p): c for p, c in zip(peaks_d, deferred)}
+        for g, lo, hi in group_bands(peaks_d, sample_rate=fs, resolution_hz=res_hz, barriers_hz=ctx.tones):
+            gc = [of_peak[id(p)] for p in g]
+            try:
+                got = _measure_residual(hctx, resid, start, gc)
+            except FitError as exc:
+                rejected.extend(_rejection(c, "fit_failed", str(exc)) for c in gc)
+                continue
+            got = [m for m in got if not any(abs(m.f_d_hz - k.f_d_hz) <= max(k.beta_per_s / math.pi, 3.0 * res_hz)
+                                             for k in known)]
+            got, unmatched = _match_candidates(got, gc, False)
+            rejected.extend(unmatched)
+            known += got
+            new_modes += got
+    for round_ in range(RESIDUAL_ROUNDS):
+        resid = _subtract_modes(decay, fs, known)
+        # broad peaks in the first residual only: after a strong broad mode is subtracted, its
+        # broadband remnant makes humps a smoothed search would take for modes
+        peaks = find_peaks(resid, fs, noise_psd=(ctx.noise_f, ctx.noise_p), broad=round_ == 0)
         fresh = []
         for p in peaks:
             near_mode = any(abs(p.f_hz - m.f_d_hz) <= max(2.0 * m.beta_per_s / math.pi, 3.0 * res_hz,
@@ -729,7 +762,8 @@ def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: lis
                 else:
                     got = _measure_group(hctx, g, lo, hi, [])
             except FitError as exc:
-                rejected.extend(_rejection(c, "fit_failed", str(exc)) for c in gc)
+                reason = "near_noise" if "above its band noise" in str(exc) else "fit_failed"
+                rejected.extend(_rejection(c, reason, str(exc)) for c in gc)
                 continue
             got = [m for m in got if not any(abs(m.f_d_hz - k.f_d_hz) <= max(k.beta_per_s / math.pi, 3.0 * res_hz)
                                              for k in known + found_round)]
@@ -751,6 +785,7 @@ def _measure_residual(hctx: _HitContext, resid: np.ndarray, start: int, targets:
     ctx = hctx.record
     fs = ctx.fs
     t_rest = resid.shape[0] / fs
+    targets = [c if c.beta_per_s is not None else replace(c, beta_per_s=math.pi * c.width_hz) for c in targets]
     dur = 0.0
     for c in targets:
         density = float(detect.noise_density(c.f_hz, ctx.noise_f, ctx.noise_p))
@@ -807,7 +842,9 @@ def _candidates(ctx: _RecordContext, start: int, seg_end: int, rejected: list[Re
     Returns ``(candidates, groups)``, each group ``(peaks, lo_hz, hi_hz, candidates)``."""
     x, fs = ctx.x, ctx.fs
     decay = x[start:seg_end]
-    spectral = find_peaks(decay, fs, noise_psd=(ctx.noise_f, ctx.noise_p), max_peaks=max_peaks)
+    # the default search looks for broad peaks only once the sharp modes are subtracted (their
+    # skirts and the valleys between them make broad humps of the smoothed spectrum)
+    spectral = find_peaks(decay, fs, noise_psd=(ctx.noise_f, ctx.noise_p), max_peaks=max_peaks, broad=parametric)
     found, below = detect.find_candidates(x, fs, start=start, end=seg_end, noise_f=ctx.noise_f, noise_p=ctx.noise_p,
                                           spectral=spectral, parametric=parametric)
     thr_db = 10.0 * math.log10(detect.snr_threshold(seg_end - start, fs))
