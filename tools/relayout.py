@@ -53,6 +53,10 @@ MOVED = {
 }
 #: names renamed along with the move (old -> new), replaced as whole words in the package
 RENAMED = {"_sha256_file": "sha256_file"}
+#: names that left ``inspection.limits`` when it was split (name -> its module now)
+SPLIT_NAMES = {"learn_limits": "inspection.learning", "limits_to_toml": "inspection.limits_file",
+               "parse_limits": "inspection.limits_file", "read_limits": "inspection.limits_file",
+               "write_limits": "inspection.limits_file"}
 #: old names that are also public functions of the package (``ringdown.compare(...)``)
 PUBLIC_FUNCTIONS = {"compare", "moduli", "check"}
 ROOMS = {"base", "io", "analysis", "treatment", "inspection", "materials", "render", "cli"}
@@ -169,6 +173,9 @@ def fix_imports(path: Path) -> list[str]:
                 lines[node.lineno - 1] = f"{indent}from {relative(package, target)} import {', '.join(parts)}{tail}"
                 notes_early.append(f"{path.relative_to(ROOT)}:{node.lineno}: now {lines[node.lineno - 1].strip()}")
                 continue
+        if target == "inspection.limits" and any(n in SPLIT_NAMES for n in names):
+            notes_early.append(f"{path}:{node.lineno}: import {', '.join(n for n in names if n in SPLIT_NAMES)} from "
+                               f"{sorted({SPLIT_NAMES[n] for n in names if n in SPLIT_NAMES})} by hand")
         if not exists(target):
             target = _found_elsewhere(target)
         if not exists(target):

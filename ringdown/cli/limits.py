@@ -185,7 +185,8 @@ def register(app: typer.Typer) -> None:
     ) -> None:
         """Learn acceptance limits from recordings of known-good parts and write them as TOML."""
         from ..analysis.pipeline import analyze_many
-        from ..inspection.limits import learn_limits, write_limits
+        from ..inspection.learning import learn_limits
+        from ..inspection.limits_file import write_limits
 
         opts = usage_guarded(lambda: {**_analysis_options(method, min_snr_db, max_modes, band, start, end),
                                       **reader_options(channel, column, sample_rate)}, debug=debug)
@@ -274,7 +275,7 @@ def register(app: typer.Typer) -> None:
         """Check parts against limits: PASS or FAIL with every reason; store each result."""
         from ..base.errors import RingdownError
         from ..inspection.check import iter_check_files
-        from ..inspection.limits import read_limits
+        from ..inspection.limits_file import read_limits
         from ..inspection.store import file_sha256, part_id_from_path
 
         t0 = seconds()
