@@ -179,7 +179,9 @@ def _broad_peaks(f: np.ndarray, p: np.ndarray, noise: np.ndarray, n: int, sample
         db = 10.0 * np.log10(ps + 1e-300)
         idx, props = signal.find_peaks(db, prominence=BROAD_PROMINENCE_DB)
         for i, prom in zip(idx, props["prominences"]):
-            if not (ps[i] > margin * ns[i]) or f[i] < 3.0 * sample_rate / n or f[i] > 0.98 * sample_rate / 2:
+            # at least 10 cycles over the segment (as detect.MIN_CYCLES: below, drift removal and
+            # DC leave humps that are no modes)
+            if not (ps[i] > margin * ns[i]) or f[i] < 10.0 * sample_rate / n or f[i] > 0.98 * sample_rate / 2:
                 continue
             half = db[i] - 3.0103
             lo = i
