@@ -44,9 +44,9 @@ _PUBLIC: dict[str, str] = {
     "compare": "treatment.compare",
     "plot_comparison": "render.compare_plot",
     "Limits": "inspection.limits",
-    "learn_limits": "inspection.limits",
-    "read_limits": "inspection.limits",
-    "write_limits": "inspection.limits",
+    "learn_limits": "inspection.learning",
+    "read_limits": "inspection.limits_file",
+    "write_limits": "inspection.limits_file",
     "CheckResult": "inspection.check",
     "check": "inspection.check",
     "check_file": "inspection.check",
@@ -83,7 +83,9 @@ if _typing.TYPE_CHECKING:  # the names as static analysis and IDEs see them
         StoreError,
     )
     from .inspection.check import CheckResult, check, check_file
-    from .inspection.limits import Limits, learn_limits, read_limits, write_limits
+    from .inspection.learning import learn_limits
+    from .inspection.limits import Limits
+    from .inspection.limits_file import read_limits, write_limits
     from .inspection.store import ResultStore, store_analysis
     from .io.read import read_recording
     from .io.recording import Recording

@@ -23,7 +23,7 @@ from typer.testing import CliRunner
 from ringdown.cli import app
 from ringdown.cli._common import parse_channel
 from ringdown.cli._options import READER_OPTIONS, reader_options
-from ringdown.inspection.limits import parse_limits, read_limits
+from ringdown.inspection.limits_file import parse_limits, read_limits
 
 from conftest import ringdown_modes, write_wav  # noqa: E402
 

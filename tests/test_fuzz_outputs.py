@@ -25,7 +25,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from ringdown.base.errors import InputError, LimitsError
-from ringdown.inspection.limits import parse_limits
+from ringdown.inspection.limits_file import parse_limits
 from ringdown.io.outputs import shown
 from ringdown.analysis.results import Analysis, results_document
 
@@ -172,7 +172,7 @@ def test_analyze_csv_writer_with_hostile_names(tmp_path, names):
 @given(part=hostile, path=hostile, reason=hostile)
 def test_check_csv_writer_with_hostile_names(tmp_path, part, path, reason):
     from ringdown.cli.limits import _write_csv
-    from ringdown.inspection.limits import parse_limits as parse
+    from ringdown.inspection.limits_file import parse_limits as parse
 
     lim = parse(BASE)
     row = {"part_id": part, "path": path, "sha256": None, "verdict": "fail", "skipped": False,

@@ -16,8 +16,9 @@ from scipy.spatial.distance import mahalanobis as scipy_mahalanobis
 from ringdown.analysis.pipeline import analyze as rd_analyze
 from ringdown.inspection.check import check
 from ringdown.base.errors import LimitsError, ParameterError
-from ringdown.inspection.limits import (Limits, MahalanobisLimits, ModeLimits, learn_limits, limits_to_toml, parse_limits,
-                             read_limits, write_limits)
+from ringdown.inspection.learning import learn_limits
+from ringdown.inspection.limits import Limits, MahalanobisLimits, ModeLimits
+from ringdown.inspection.limits_file import limits_to_toml, parse_limits, read_limits, write_limits
 from ringdown.analysis.quantities import derive
 from ringdown.analysis.results import Analysis, Mode
 from ringdown.inspection.tolerance import tolerance_k

@@ -338,7 +338,7 @@ def _cells_with_class(text: str, css: str) -> list[str]:
 
 
 def test_check_report_verdicts_header_and_signoff():
-    from ringdown.inspection.limits import parse_limits
+    from ringdown.inspection.limits_file import parse_limits
     from ringdown.render.report import render_check_report
 
     lim = parse_limits("[[modes]]\nf_hz = [1400.0, 1500.0]\n", source="lim.toml")

@@ -10,7 +10,7 @@ from numpy.testing import assert_allclose
 
 from ringdown.inspection.check import check
 from ringdown.base.errors import ParameterError, StoreError
-from ringdown.inspection.limits import parse_limits
+from ringdown.inspection.limits_file import parse_limits
 from ringdown.analysis.quantities import derive
 from ringdown.analysis.results import Analysis, Mode
 from ringdown.inspection.store import (SCHEMA_VERSION, ResultStore, file_sha256, parse_date, part_id_from_path,

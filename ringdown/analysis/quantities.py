@@ -34,6 +34,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import asdict, dataclass
+from typing import Any
 
 import numpy as np
 
@@ -78,7 +79,7 @@ class Derived:
         return asdict(self)
 
 
-def _values_and_gradients(f_d: float, beta: float):
+def _values_and_gradients(f_d: float, beta: float) -> dict[str, tuple[float | None, np.ndarray | None]]:
     """Each derived value and its gradient d(value)/d(f_d, beta) as a 2-vector."""
     two_pi = 2.0 * math.pi
     b = beta / two_pi  # decay rate expressed in Hz
@@ -97,7 +98,7 @@ def _values_and_gradients(f_d: float, beta: float):
     g_db = np.array([0.0, DB_PER_NEPER])
     t60 = 60.0 / d_db
     g_t60 = np.array([0.0, -60.0 / (DB_PER_NEPER * beta**2)])
-    out = {
+    out: dict[str, tuple[float | None, np.ndarray | None]] = {
         "f_n_hz": (f_n, g_fn),
         "zeta": (zeta, g_zeta),
         "q": (q, g_q),
@@ -153,13 +154,12 @@ def derive(
             raise ParameterError(f"{name} must be a finite number > 0; got {v!r}")
     f_d = float(f_d_hz)
     beta = float(beta_per_s)
-    have_u = f_d_hz_u is not None and beta_per_s_u is not None
     cov = None
-    if have_u:
+    if f_d_hz_u is not None and beta_per_s_u is not None:
         cov = np.array(
             [[float(f_d_hz_u) ** 2, float(cov_f_beta)], [float(cov_f_beta), float(beta_per_s_u) ** 2]]
         )
-    fields = {
+    fields: dict[str, Any] = {
         "f_d_hz": f_d,
         "f_d_hz_u": None if f_d_hz_u is None else float(f_d_hz_u),
         "beta_per_s": beta,
@@ -167,7 +167,7 @@ def derive(
     }
     for name, (value, grad) in _values_and_gradients(f_d, beta).items():
         fields[name] = value
-        if cov is None or value is None:
+        if cov is None or value is None or grad is None:
             fields[name + "_u"] = None
         else:
             fields[name + "_u"] = float(math.sqrt(max(float(grad @ cov @ grad), 0.0)))

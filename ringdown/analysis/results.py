@@ -11,8 +11,8 @@ before it, in the same unit.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field, fields, replace
 from collections.abc import Iterable
+from dataclasses import dataclass, field, fields, replace
 from typing import Any
 
 import numpy as np
@@ -92,7 +92,7 @@ class Estimate:
     residual_rms: float | None = None
     converged: bool = True
     warnings: tuple[Notice, ...] = ()
-    trace: "ModeTrace | None" = field(default=None, repr=False)
+    trace: ModeTrace | None = field(default=None, repr=False)
 
     def to_dict(self) -> dict:
         return {
@@ -459,7 +459,7 @@ class Analysis:
         return self.error is None
 
     @classmethod
-    def failed(cls, path: str | None, error: Exception, *, settings: dict | None = None) -> "Analysis":
+    def failed(cls, path: str | None, error: Exception, *, settings: dict | None = None) -> Analysis:
         """The record of a recording that could not be analysed."""
         code = getattr(error, "code", "error")
         return cls(

@@ -130,7 +130,7 @@ def register(app: typer.Typer) -> None:
 
                 lim = None
                 if limits_path:
-                    from ..inspection.limits import read_limits
+                    from ..inspection.limits_file import read_limits
 
                     lim = read_limits(limits_path)
                 import io

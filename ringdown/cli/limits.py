@@ -11,7 +11,7 @@ import sys
 from dataclasses import replace
 from functools import partial
 from pathlib import Path
-from typing import TYPE_CHECKING, Optional
+from typing import TYPE_CHECKING, Any, Optional
 
 import typer
 
@@ -59,6 +59,7 @@ from ._options import (
 
 if TYPE_CHECKING:
     from ..inspection.check import CheckResult
+    from ..inspection.limits import Limits
 
 __all__ = ["register", "format_check"]
 
@@ -184,7 +185,8 @@ def register(app: typer.Typer) -> None:
     ) -> None:
         """Learn acceptance limits from recordings of known-good parts and write them as TOML."""
         from ..analysis.pipeline import analyze_many
-        from ..inspection.limits import learn_limits, write_limits
+        from ..inspection.learning import learn_limits
+        from ..inspection.limits_file import write_limits
 
         opts = usage_guarded(lambda: {**_analysis_options(method, min_snr_db, max_modes, band, start, end),
                                       **reader_options(channel, column, sample_rate)}, debug=debug)
@@ -273,8 +275,8 @@ def register(app: typer.Typer) -> None:
         """Check parts against limits: PASS or FAIL with every reason; store each result."""
         from ..base.errors import RingdownError
         from ..inspection.check import iter_check_files
-        from ..inspection.limits import read_limits
-        from ..inspection.store import ResultStore, file_sha256, part_id_from_path
+        from ..inspection.limits_file import read_limits
+        from ..inspection.store import file_sha256, part_id_from_path
 
         t0 = seconds()
         if json_out and jsonl:
@@ -293,26 +295,7 @@ def register(app: typer.Typer) -> None:
             raise typer.Exit(EXIT_ERROR)
         ids = [part_id_from_path(p, part_id) for p in paths]
 
-        def prepare():
-            from ..io.outputs import check_writable, remove_stale
-
-            for out, what in ((csv_out, "CSV"), (report, "report")):
-                if out:
-                    check_writable(out, what)
-            st = None
-            if db_path is not None:
-                st = ResultStore(db_path)
-                try:
-                    st.record_limits(lim)
-                except Exception:
-                    st.close()
-                    raise
-            for out in (csv_out, report):
-                if out:
-                    remove_stale(out)  # a killed run must not leave the last run's output looking current
-            return st
-
-        store = guarded(prepare, debug=debug)
+        store = guarded(partial(_prepare_check_outputs, csv_out, report, db_path, lim), debug=debug)
         rows: list[dict | None] = [None] * len(paths)
         results: list[CheckResult | None] = [None] * len(paths)
         interrupted = store_failed = False
@@ -365,11 +348,8 @@ def register(app: typer.Typer) -> None:
                 store.close()
 
         rows_f = [r for r in rows if r is not None]
-        counts = {v: sum(1 for r in rows_f if r["verdict"] == v) for v in ("pass", "fail", "error")}
-        skipped = sum(1 for r in rows_f if r.get("skipped"))
         elapsed = seconds() - t0
-        summary = {"parts": len(rows_f), "passed": counts["pass"], "failed": counts["fail"],
-                   "errors": counts["error"], "skipped": skipped, "time_s": round(elapsed, 3)}
+        summary = _check_summary(rows_f, elapsed)
         from .analyze import _try
 
         window = time_window(start, end)
@@ -387,6 +367,7 @@ def register(app: typer.Typer) -> None:
                         "limits": {"path": lim.source, "sha256": lim.sha256},
                         "station": station, "operator": operator,
                         "results": rows_f, "summary": summary})
+        skipped = summary["skipped"]
         line = (f"{summary['parts']} parts: {summary['passed']} passed, {summary['failed']} failed, "
                 f"{summary['errors']} errors" + (f" ({skipped} already stored, skipped)" if skipped else "")
                 + f" in {elapsed:.1f} s")
@@ -395,9 +376,39 @@ def register(app: typer.Typer) -> None:
             error_line(f"interrupted: {len(rows_f)} of {len(paths)} done" + (" (stored)" if store is not None else "")
                        + ", rerun to resume")
             raise typer.Exit(EXIT_INTERRUPTED)
-        bad = counts["error"] or failed_outputs or store_failed or paths.problems
-        code = EXIT_ERROR if bad else EXIT_FAIL if counts["fail"] else EXIT_OK
+        bad = summary["errors"] or failed_outputs or store_failed or paths.problems
+        code = EXIT_ERROR if bad else EXIT_FAIL if summary["failed"] else EXIT_OK
         raise typer.Exit(code)
+
+
+def _prepare_check_outputs(csv_out: str | None, report: str | None, db_path: str | None, lim: Limits) -> Any:
+    """Before any part is checked: the outputs are writable, the limits are in the database (an
+    open ResultStore, or None without one), and the last run's outputs are gone."""
+    from ..inspection.store import ResultStore
+    from ..io.outputs import check_writable, remove_stale
+
+    for out, what in ((csv_out, "CSV"), (report, "report")):
+        if out:
+            check_writable(out, what)
+    st = None
+    if db_path is not None:
+        st = ResultStore(db_path)
+        try:
+            st.record_limits(lim)
+        except Exception:
+            st.close()
+            raise
+    for out in (csv_out, report):
+        if out:
+            remove_stale(out)  # a killed run must not leave the last run's output looking current
+    return st
+
+
+def _check_summary(rows: list[dict], elapsed_s: float) -> dict[str, Any]:
+    """The counts of a check run (the JSON ``summary``): parts, passed, failed, errors, skipped, time_s."""
+    counts = {v: sum(1 for r in rows if r["verdict"] == v) for v in ("pass", "fail", "error")}
+    return {"parts": len(rows), "passed": counts["pass"], "failed": counts["fail"], "errors": counts["error"],
+            "skipped": sum(1 for r in rows if r.get("skipped")), "time_s": round(elapsed_s, 3)}
 
 
 def _stored_row(old, part_id: str, path: str, sha: str | None) -> dict:

@@ -181,7 +181,7 @@ def check(analysis: Analysis, limits: Limits) -> CheckResult:
     analysis : Analysis
         The part's analysis (``ringdown.analyze_file``); ``analysis.modes`` are used.
     limits : Limits
-        From :func:`ringdown.learn_limits` or :func:`ringdown.inspection.limits.read_limits`.
+        From :func:`ringdown.learn_limits` or :func:`ringdown.read_limits`.
 
     Returns
     -------
