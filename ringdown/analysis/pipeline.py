@@ -660,7 +660,9 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
         rejected.extend(unmatched)
         modes.extend(found)
     if residual:
-        more, more_rejected = _residual_round(hctx, start, modes, [c for c in cands if c not in deferred], deferred)
+        # after clipping, the residual holds what the clipped samples did to the decay: no broad search
+        more, more_rejected = _residual_round(hctx, start, modes, [c for c in cands if c not in deferred], deferred,
+                                              broad=clip_end is None)
         modes.extend(more)
         rejected.extend(more_rejected)
     modes = _drop_driven(modes, onset_s, warnings)
@@ -700,7 +702,7 @@ def _subtract_modes(seg: np.ndarray, fs: float, modes: Sequence[Mode]) -> np.nda
 
 
 def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: list[Candidate],
-                    deferred: Sequence[Candidate] = ()):
+                    deferred: Sequence[Candidate] = (), *, broad: bool = True):
     """Modes the first search could not see beside stronger ones: subtract every measured mode
     from the decay (CLEAN, Hogbom 1974 [from memory]: successive cancellation of the strongest
     components), look for spectral peaks in what is left against the same noise spectrum, and
@@ -726,6 +728,8 @@ def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: lis
         of_peak = {id(p): c for p, c in zip(peaks_d, deferred)}
         for g, lo, hi in group_bands(peaks_d, sample_rate=fs, resolution_hz=res_hz, barriers_hz=ctx.tones):
             gc = [of_peak[id(p)] for p in g]
+            if _too_many(gc, rejected):
+                continue
             try:
                 got = _measure_raw(hctx, gc, gc + _as_candidates(known, res_hz), start)
             except FitError as exc:
@@ -740,7 +744,7 @@ def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: lis
         resid = _subtract_modes(decay, fs, known)
         # broad peaks in the first residual only: after a strong broad mode is subtracted, its
         # broadband remnant makes humps a smoothed search would take for modes
-        peaks = find_peaks(resid, fs, noise_psd=(ctx.noise_f, ctx.noise_p), broad=round_ == 0)
+        peaks = find_peaks(resid, fs, noise_psd=(ctx.noise_f, ctx.noise_p), broad=broad and round_ == 0)
         fresh = []
         for p in peaks:
             near_mode = any(abs(p.f_hz - m.f_d_hz) <= max(2.0 * m.beta_per_s / math.pi, 3.0 * res_hz,
@@ -756,8 +760,11 @@ def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: lis
         for g, lo, hi in group_bands(fresh, sample_rate=fs, resolution_hz=res_hz, barriers_hz=barriers):
             gc = [Candidate(p.f_hz, math.pi * p.width_hz, max(p.width_hz, res_hz), None, None, "residual", -2, res_hz)
                   for p in g]
+            raw = _needs_raw_fit(gc, lo, hi) or any(lo < m.f_d_hz < hi for m in known)
+            if raw and _too_many(gc, rejected):
+                continue
             try:
-                if _needs_raw_fit(gc, lo, hi) or any(lo < m.f_d_hz < hi for m in known):
+                if raw:
                     got = _measure_raw(hctx, gc, gc + _as_candidates(known, res_hz), start)
                 else:
                     got = _measure_group(hctx, g, lo, hi, [])
@@ -802,6 +809,23 @@ def _resolved_raw(got: list[Mode], rejected: list[Rejected]) -> list[Mode]:
         else:
             out.append(m)
     return out
+
+
+#: Most candidates one raw fit of the residual search takes on (each adds four parameters to the
+#: least squares; a row of broad humps side by side is a remnant of the subtraction far more
+#: often than that many heavily damped modes: common practice, no source).
+MAX_RAW_TARGETS = 4
+
+
+def _too_many(group: list[Candidate], rejected: list[Rejected]) -> bool:
+    """Whether a group is too large for one raw fit; if so its candidates are named ``unresolved``."""
+    if len(group) <= MAX_RAW_TARGETS:
+        return False
+    rejected.extend(_rejection(c, "unresolved", f"one of {len(group)} broad humps side by side between "
+                                                f"{group[0].f_hz:.1f} and {group[-1].f_hz:.1f} Hz (a remnant of the "
+                                                "subtracted modes, or more heavily damped modes than one fit can "
+                                                "separate); not fitted") for c in group)
+    return True
 
 
 def _as_candidates(modes: Sequence[Mode], resolution_hz: float) -> list[Candidate]:
