@@ -342,12 +342,12 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
                          "without overflow; rescale the signal (e.g. to volts or m/s^2)")
     if float(np.ptp(raw)) == 0.0:
         raise InputError(f"{name} is constant (every sample is {raw[0]:g}): nothing rings down")
-    x, step = condition.remove_drift_and_step(raw, fs)
+    x, step, f_dom = condition.remove_drift_and_step(raw, fs)
     scale = float(np.max(np.abs(x)))
     if scale == 0.0 or scale < 1e-12 * max(float(np.max(np.abs(raw))), 1e-300):
         raise InputError(f"{name} holds only a constant offset or a straight drift: nothing rings down")
 
-    smoothing = condition.envelope_smoothing(x, fs)
+    smoothing = condition.envelope_smoothing(x, fs, dominant_hz=f_dom)
     level = condition.envelope_db(x, fs, smoothing=smoothing)
     noise_db = condition.noise_floor_db(level, smoothing)
     slow = condition.envelope_db(x, fs, smoothing=2 * smoothing)
