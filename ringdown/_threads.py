@@ -23,8 +23,9 @@ from typing import Any, Callable, TypeVar
 
 __all__ = ["one_blas_thread", "blas_limit"]
 
-#: Threads the numerical work runs on (BLAS and OpenMP pools).
-THREADS = 1
+#: Threads the numerical work runs on (BLAS and OpenMP pools); ``None`` leaves the pools as they
+#: are (``tests/benchmarks/speed.py`` sets it to show what the limit buys).
+THREADS: int | None = 1
 
 _F = TypeVar("_F", bound=Callable[..., Any])
 _lock = threading.Lock()
@@ -49,7 +50,7 @@ class blas_limit:
 
     def __enter__(self) -> "blas_limit":
         with _lock:
-            if _state["depth"] == 0:
+            if _state["depth"] == 0 and THREADS is not None:
                 _state["limit"] = _controller().limit(limits=THREADS)
             _state["depth"] += 1
         return self
