@@ -240,8 +240,12 @@ def extract_band(
     if real:
         # the band holds nothing above bin k_hi, so an inverse FFT of length n_r >= 16 (k_hi + 1)
         # gives the same waveform sampled at >= 8x the band's top frequency, which is enough for
-        # parabolic peak interpolation, at a fraction of the cost of the full rate
-        n_r = min(spec.nfft, _next_pow2(16 * (k_hi + 1)))
+        # parabolic peak interpolation, at a fraction of the cost of the full rate; the length is
+        # the next one with factors 2, 3 and 5 only (scipy.fft.next_fast_len), not the next power
+        # of two, which could double it
+        from scipy.fft import next_fast_len
+
+        n_r = min(spec.nfft, next_fast_len(16 * (k_hi + 1), real=True))
         part = np.zeros(n_r // 2 + 1, dtype=np.complex128)
         part[k_lo : k_hi + 1] = spec.bins[k_lo : k_hi + 1] * mask
         real_x = np.fft.irfft(part, n_r)[: int(math.ceil(spec.n_samples * n_r / spec.nfft))] * (n_r / spec.nfft)
