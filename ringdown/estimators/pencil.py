@@ -126,8 +126,12 @@ def _pencil(zd: np.ndarray, fs: float, noise_var: float | None, g: float) -> np.
     lp = max(n // 3, 1)
     rows = n - lp
     hank = scipy_linalg.hankel(y[:rows], y[rows - 1 :])  # (rows, lp + 1), H[i, j] = y[i + j]
+    # H = Q R: R has the singular values and right singular vectors of H, and its SVD is half the
+    # cost of H's (a tall matrix: rows ~ 2 (lp + 1)); only those are used below
+    tall = hank.shape[0] > hank.shape[1]
+    core = np.linalg.qr(hank, mode="r") if tall else hank
     try:
-        _, sv, vh = scipy_linalg.svd(hank, full_matrices=False, lapack_driver="gesdd")
+        _, sv, vh = scipy_linalg.svd(core, full_matrices=False, lapack_driver="gesdd")
     except (np.linalg.LinAlgError, ValueError):
         _, sv, vh = scipy_linalg.svd(hank, full_matrices=False, lapack_driver="gesvd")
     max_order = min(MAX_MODES, lp - 1, rows - 1)
