@@ -10,7 +10,10 @@ at 0.5 s in records of 2 s, 60 s and 300 s. One run prints, as markdown tables:
    environment's default BLAS threads (no ``*_NUM_THREADS`` variable: what a user gets), with
    ``OPENBLAS_NUM_THREADS=1`` and friends, and with the library's own one-thread limit switched
    off (``ringdown._threads.THREADS = None``: what the limit buys). Floor and analysis are timed
-   alternately, so a change of the machine's load hits both; medians of the repeats.
+   alternately, so a change of the machine's load hits both; medians of the repeats, of wall
+   time and of the process's CPU time (user + system of all its threads: a BLAS pool spinning on
+   a second core counts; the ratio of CPU times moves less with other load than that of wall
+   times).
 2. A hand-written scipy script on the same file (``_script``: spectral peaks, 4th-order
    Butterworth band-pass +-40 Hz run forwards and backwards, Hilbert envelope, log-linear fit
    from the envelope's peak down to 20 dB above the noise), over the same floor, and the error in
@@ -96,13 +99,17 @@ def _floor(path: str) -> None:
 
 
 def _alternate(fns: dict, repeats: int) -> dict[str, float]:
+    """Median wall time (key) and CPU time of this process (key + "_cpu") of each function, s."""
     times: dict[str, list[float]] = {k: [] for k in fns}
+    cpu: dict[str, list[float]] = {k: [] for k in fns}
     for _ in range(repeats):
         for k, fn in fns.items():
-            t0 = time.perf_counter()
+            c0, t0 = time.process_time(), time.perf_counter()
             fn()
             times[k].append(time.perf_counter() - t0)
-    return {k: statistics.median(v) for k, v in times.items()}
+            cpu[k].append(time.process_time() - c0)
+    return {**{k: statistics.median(v) for k, v in times.items()},
+            **{k + "_cpu": statistics.median(v) for k, v in cpu.items()}}
 
 
 # ----------------------------------------------------------------------------------------------
@@ -193,11 +200,13 @@ def main(repeats: int = 7, quick: bool = False) -> None:
                 ("default threads, library limit off", _run_child(["--child-analyze", str(path), str(repeats), "off"], default_env))]
         print(f"2 s, {FS} Hz, 3-mode WAV; medians of {repeats} alternating runs in a fresh process each; "
               f"{rows[0][1]['n_modes']} modes found.\n")
-        print("| threads | floor ms | ringdown.analyze_file ms | / floor | hand-written script ms | / floor |")
-        print("|---|---:|---:|---:|---:|---:|")
+        print("| threads | floor ms | ringdown.analyze_file ms | / floor | hand-written script ms | / floor "
+              "| CPU: ringdown / floor | CPU: script / floor |")
+        print("|---|---:|---:|---:|---:|---:|---:|---:|")
         for name, r in rows:
             print(f"| {name} | {1e3 * r['floor']:.2f} | {1e3 * r['ringdown']:.1f} | {r['ringdown'] / r['floor']:.1f} "
-                  f"| {1e3 * r['script']:.1f} | {r['script'] / r['floor']:.1f} |")
+                  f"| {1e3 * r['script']:.1f} | {r['script'] / r['floor']:.1f} "
+                  f"| {r['ringdown_cpu'] / r['floor_cpu']:.1f} | {r['script_cpu'] / r['floor_cpu']:.1f} |")
         r = rows[0][1]
         print("\n| simulated mode | beta error, ringdown | beta error, hand-written script |")
         print("|---|---:|---:|")
