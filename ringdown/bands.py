@@ -126,6 +126,17 @@ class Band:
         transform of the squared Gaussian mask, ``exp(-(pi sigma lag)^2)`` [derived]."""
         return np.exp(-((math.pi * self.sigma_hz * np.asarray(lag_s, dtype=np.float64)) ** 2))
 
+    def noise_correlation_sum(self, n: int, spacing_s: float) -> float:
+        """``sum_{k=-(n-1)}^{n-1} rho(k spacing_s)`` of :meth:`noise_correlation`: how many samples
+        ``spacing_s`` apart one independent noise sample is worth (the factor on a fit's
+        covariance). Terms where ``rho`` underflows to 0 (``(pi sigma lag)^2 > 745``) are left out,
+        so the cost follows the correlation length, not ``n``."""
+        a = math.pi * self.sigma_hz * abs(float(spacing_s))
+        k_max = max(int(n) - 1, 0)
+        if a > 0.0:
+            k_max = min(k_max, int(math.ceil(math.sqrt(746.0) / a)))
+        return float(np.sum(self.noise_correlation(np.arange(-k_max, k_max + 1) * float(spacing_s))))
+
     def mask(self, f_hz) -> np.ndarray:
         """The weight the band gives each absolute frequency (1 at the centre)."""
         return _gauss(np.asarray(f_hz, dtype=np.float64), self.centre_hz, self.sigma_hz)
