@@ -93,12 +93,15 @@ def preload(modules: Iterable[str]) -> None:
             pass
 
 
-def _init_worker(parent_pid: int, modules: tuple[str, ...] = ()) -> None:
+def _init_worker(parent_pid: int | None, modules: tuple[str, ...] = ()) -> None:
     """Worker initializer: Ctrl-C is the parent's to handle; a worker dies with its parent;
     ``modules`` are imported before the first item (warm start).
 
     Without the second rule a ``kill -9`` of the command leaves its workers waiting forever
     on a queue nobody writes (Linux ``prctl(PR_SET_PDEATHSIG)``; elsewhere best effort).
+    ``parent_pid`` is the process that should be the worker's parent (``None``: not known, as
+    under the ``forkserver`` start method, where the server is the parent and itself ends when
+    the command does).
     """
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     try:
@@ -108,7 +111,7 @@ def _init_worker(parent_pid: int, modules: tuple[str, ...] = ()) -> None:
         libc.prctl(1, int(signal.SIGKILL), 0, 0, 0)  # 1 = PR_SET_PDEATHSIG
     except (OSError, AttributeError):
         pass
-    if os.getppid() != parent_pid:  # the parent died before the line above
+    if parent_pid is not None and os.getppid() != parent_pid:  # the parent died before the line above
         os._exit(1)
     preload(modules)
 
@@ -118,20 +121,23 @@ class ProcessExecutor:
     :meth:`shutdown` with ``cancel`` terminates them instead of waiting.
 
     ``preload`` names modules every worker imports before its first item; they are imported
-    here first, so that forked workers inherit them (see :func:`run_batch`).
+    here first, so that forked workers inherit them (see :func:`run_batch`). ``context``: a
+    ``multiprocessing`` context (default: the process's default start method).
     """
 
-    def __init__(self, max_workers: int, *, preload: Iterable[str] = ()) -> None:
+    def __init__(self, max_workers: int, *, preload: Iterable[str] = (), context=None) -> None:
         import multiprocessing
         from concurrent.futures import ProcessPoolExecutor
 
         modules = tuple(preload)
         globals()["preload"](modules)
-        ctx = multiprocessing.get_context()
-        if modules and ctx.get_start_method() == "forkserver":
+        ctx = context if context is not None else multiprocessing.get_context()
+        # a forkserver's workers are the server's children, not this process's
+        server = ctx.get_start_method() == "forkserver"
+        if modules and server:
             ctx.set_forkserver_preload(list(modules))
         self._pool = ProcessPoolExecutor(max_workers=max_workers, mp_context=ctx, initializer=_init_worker,
-                                         initargs=(os.getpid(), modules))
+                                         initargs=(None if server else os.getpid(), modules))
 
     def submit(self, fn, /, *args) -> Future:
         return self._pool.submit(fn, *args)

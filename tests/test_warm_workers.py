@@ -47,3 +47,21 @@ def test_file_analysis_imports_nothing_after_the_warm_start(two_mode_wav):
     assert r.returncode == 0, r.stderr
     got = json.loads(r.stdout.strip().splitlines()[-1])
     assert got["modes"] == 2 and got["new"] == []
+
+
+def test_every_start_method_runs_the_batch(two_mode_wav):
+    # forkserver workers are children of the server, not of this process: they must not take
+    # that for the death of their parent (the default start method on Linux from Python 3.14)
+    import multiprocessing
+
+    from ringdown import pipeline
+    from ringdown.batch import ProcessExecutor
+
+    for method in multiprocessing.get_all_start_methods():
+        ctx = multiprocessing.get_context(method)
+        task = pipeline._FileTask({})
+        out = dict(run_batch(task, [two_mode_wav, two_mode_wav], on_error=task.failed, jobs=2,
+                             executor=lambda k: ProcessExecutor(k, preload=task.preload, context=ctx)))
+        assert [out[i].error for i in (0, 1)] == [None, None], method
+        # the conftest signal's modes: 440 Hz and 1250 Hz
+        assert [round(m.f_d_hz) for m in out[0].modes] == [440, 1250], method
