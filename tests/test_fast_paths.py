@@ -8,7 +8,7 @@ import pytest
 
 def test_fast_legendre_evaluation_matches_numpy():
     # reference: numpy.polynomial.legendre.legval (Clenshaw) at degree 5 on [-1, 1]
-    from ringdown.condition import DRIFT_DEGREE, _legval
+    from ringdown.analysis.condition import DRIFT_DEGREE, _legval
 
     u = np.linspace(-1.0, 1.0, 10001)
     for seed in range(5):
@@ -19,7 +19,7 @@ def test_fast_legendre_evaluation_matches_numpy():
 
 def test_noise_correlation_sum_matches_the_full_sum():
     # reference: the plain sum of Band.noise_correlation over every lag -(n-1)..(n-1)
-    from ringdown.bands import Band
+    from ringdown.analysis.bands import Band
 
     band = Band(z=np.zeros(8, complex), sample_rate=400.0, t0_s=0.0, f_shift_hz=1000.0, f_lo_hz=980.0,
                 f_hi_hz=1020.0, skirt_hz=10.0)

@@ -8,8 +8,8 @@ import pytest
 threadpoolctl = pytest.importorskip("threadpoolctl")
 
 import ringdown
-from ringdown import _threads
-from ringdown.estimators import pencil
+from ringdown.analysis.estimators import pencil
+from ringdown.base import _threads
 
 
 def _blas_threads() -> list[int]:

@@ -8,7 +8,7 @@ import subprocess
 import sys
 from pathlib import Path
 
-from ringdown.batch import run_batch
+from ringdown.base.batch import run_batch
 
 
 class _SeesModule:
@@ -35,7 +35,8 @@ def test_file_analysis_imports_nothing_after_the_warm_start(two_mode_wav):
     # in a fresh interpreter: after the preload, analysing a file imports no scipy module itself
     code = (
         "import sys, json\n"
-        "from ringdown import batch, pipeline\n"
+        "from ringdown.analysis import pipeline\n"
+        "from ringdown.base import batch\n"
         "batch.preload(pipeline.WORKER_PRELOAD)\n"
         "before = set(sys.modules)\n"
         f"a = pipeline.analyze_file({two_mode_wav!r})\n"
@@ -54,8 +55,8 @@ def test_every_start_method_runs_the_batch(two_mode_wav):
     # that for the death of their parent (the default start method on Linux from Python 3.14)
     import multiprocessing
 
-    from ringdown import pipeline
-    from ringdown.batch import ProcessExecutor
+    from ringdown.analysis import pipeline
+    from ringdown.base.batch import ProcessExecutor
 
     for method in multiprocessing.get_all_start_methods():
         ctx = multiprocessing.get_context(method)

@@ -15,7 +15,7 @@ from typing import Callable, Iterable, Iterator, Sequence
 import numpy as np
 
 from . import condition
-from ._threads import one_blas_thread
+from ..base._threads import one_blas_thread
 from . import detect
 from .bands import Band, Spectrum, extract_band, settling_time_s, spectrum_of
 from .detect import Candidate
@@ -292,7 +292,7 @@ def iter_analyze_files(paths: Sequence[str], *, jobs: int = 1, executor=None, on
 #: Modules the analysis of a file imports lazily: batch workers import them before their first
 #: file (``batch.run_batch``'s warm start), instead of paying ~0.6-1 s each on it.
 WORKER_PRELOAD = ("soundfile", "scipy.fft", "scipy.linalg", "scipy.ndimage", "scipy.optimize", "scipy.signal",
-                  "threadpoolctl", "ringdown.io", "ringdown.formats")
+                  "threadpoolctl", "ringdown.io.read", "ringdown.io.formats")
 
 
 class _FileTask:
@@ -319,7 +319,7 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
     """Analyse a :class:`Recording` (the common path of :func:`analyze` and :func:`analyze_file`).
 
     Keyword options are those of :func:`analyze`. The numerical work runs on one BLAS thread
-    (:mod:`ringdown._threads`; the caller's thread limits are restored afterwards).
+    (:mod:`ringdown.base._threads`; the caller's thread limits are restored afterwards).
     """
     opts = AnalysisOptions.from_kwargs(options)
     settings = opts.to_dict()

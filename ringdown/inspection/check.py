@@ -419,7 +419,7 @@ class _CheckTask:
     @property
     def preload(self) -> tuple[str, ...]:
         """Modules batch workers import before their first file (see ``batch.run_batch``)."""
-        from .pipeline import WORKER_PRELOAD
+        from ..analysis.pipeline import WORKER_PRELOAD
 
         return WORKER_PRELOAD
 

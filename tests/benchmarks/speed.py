@@ -9,7 +9,7 @@ at 0.5 s in records of 2 s, 60 s and 300 s. One run prints, as markdown tables:
    the record, the least any analysis of the file must do), each in a fresh process: with the
    environment's default BLAS threads (no ``*_NUM_THREADS`` variable: what a user gets), with
    ``OPENBLAS_NUM_THREADS=1`` and friends, and with the library's own one-thread limit switched
-   off (``ringdown._threads.THREADS = None``: what the limit buys). Floor and analysis are timed
+   off (``ringdown.base._threads.THREADS = None``: what the limit buys). Floor and analysis are timed
    alternately, so a change of the machine's load hits both; medians of the repeats, of wall
    time and of the process's CPU time (user + system of all its threads: a BLAS pool spinning on
    a second core counts; the ratio of CPU times moves less with other load than that of wall
@@ -121,7 +121,7 @@ def _child_analyze(path: str, repeats: int, limit: str) -> None:
 
     if limit == "off":
         try:
-            from ringdown import _threads
+            from ringdown.base import _threads
         except ImportError:  # a version without the limit (for a comparison with older code)
             pass
         else:
