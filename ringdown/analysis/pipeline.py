@@ -742,8 +742,7 @@ def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: lis
             except FitError as exc:
                 rejected.extend(_rejection(c, "fit_failed", str(exc)) for c in gc)
                 continue
-            got = [m for m in got if not any(abs(m.f_d_hz - k.f_d_hz) <= max(k.beta_per_s / math.pi, 3.0 * res_hz)
-                                             for k in known)]
+            got = _resolved_raw(_new_near(got, gc, known, res_hz), rejected)
             got, unmatched = _match_candidates(got, gc, False)
             rejected.extend(unmatched)
             known += got
@@ -777,8 +776,7 @@ def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: lis
                 reason = "near_noise" if "above its band noise" in str(exc) else "fit_failed"
                 rejected.extend(_rejection(c, reason, str(exc)) for c in gc)
                 continue
-            got = [m for m in got if not any(abs(m.f_d_hz - k.f_d_hz) <= max(k.beta_per_s / math.pi, 3.0 * res_hz)
-                                             for k in known + found_round)]
+            got = _resolved_raw(_new_near(got, gc, known + found_round, res_hz), rejected)
             got, unmatched = _match_candidates(got, gc, False)
             rejected.extend(unmatched)
             found_round.extend(got)
@@ -787,6 +785,34 @@ def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: lis
         known += found_round
         new_modes += found_round
     return new_modes, rejected
+
+
+def _new_near(got: list[Mode], cands: list[Candidate], known: Sequence[Mode], resolution_hz: float) -> list[Mode]:
+    """The modes of a residual fit that are new (not a mode already measured) and lie where one
+    of its candidates was (within the larger of the candidate's and the mode's half-power width,
+    three of the mode's standard uncertainties and the resolution): a fit that wandered off to
+    model something else is not a mode of its own (its candidate is then named as rejected)."""
+    def near(m: Mode, f: float, w: float) -> bool:
+        return abs(m.f_d_hz - f) <= max(w, m.beta_per_s / math.pi, 3.0 * (m.f_d_hz_u or 0.0), resolution_hz)
+
+    return [m for m in got
+            if not any(abs(m.f_d_hz - k.f_d_hz) <= max(k.beta_per_s / math.pi, 3.0 * resolution_hz) for k in known)
+            and any(near(m, c.f_hz, c.width_hz) for c in cands)]
+
+
+def _resolved_raw(got: list[Mode], rejected: list[Rejected]) -> list[Mode]:
+    """Raw-fit modes of the residual search whose decay is resolved (beta above 3 standard
+    uncertainties): a broad hump in the residual is a heavily damped mode only if it decays
+    measurably; the others are named ``near_noise``."""
+    out = []
+    for m in got:
+        if m.fit_path == "raw" and not (m.beta_per_s > 3.0 * (m.beta_per_s_u or math.inf)):
+            rejected.append(Rejected(m.f_d_hz, m.beta_per_s, m.snr_db, "near_noise",
+                                     f"fitted decay {m.beta_per_s:.3g} +- {m.beta_per_s_u or float('nan'):.2g} 1/s "
+                                     "is not resolved: noise, not a heavily damped mode"))
+        else:
+            out.append(m)
+    return out
 
 
 def _as_candidates(modes: Sequence[Mode], resolution_hz: float) -> list[Candidate]:
