@@ -289,3 +289,29 @@ def test_non_finite_envelope_raises_fit_error():
                 skirt_hz=5.0, noise_rms=1e-3)
     with pytest.raises(FitError, match="NaN"):
         pencil.estimate(band, Window(start_s=0.1, end_s=1.9, onset_s=0.0))
+
+
+@pytest.mark.parametrize("capped", [False, True])
+def test_projection_jacobian_matches_finite_differences(capped):
+    # reference: scipy's central finite differences of the same residual (scipy.optimize
+    # approx_derivative, '3-point'); two close damped exponentials in noise (invented)
+    from scipy.optimize._numdiff import approx_derivative
+
+    rng = np.random.default_rng(11)
+    t = np.arange(300) / 1000.0
+    poles = np.array([-5.0 + 2j * np.pi * 30.0, -12.0 + 2j * np.pi * 37.0])
+    zd = np.exp(np.outer(t, poles)) @ np.array([1.0 + 0.5j, 0.4 - 0.2j])
+    zd = zd + 0.01 * (rng.standard_normal(t.size) + 1j * rng.standard_normal(t.size))
+    dt = t[1] - t[0]
+    max_growth = 20.0 / t[-1]
+    prob = pencil._Projection(zd, t, dt, max_growth)
+    x = np.empty(4)
+    x[0::2] = -poles.real * dt * 1.05
+    x[1::2] = poles.imag * dt * 1.002
+    if capped:
+        x[0] = -2.0 * max_growth * dt  # a trial pole that grows past the cap: its derivative is 0
+    num = approx_derivative(prob.resid, x, method="3-point", rel_step=1e-7)
+    ana = prob.jac(x)
+    assert np.max(np.abs(ana - num)) <= 1e-6 * np.max(np.abs(num))
+    if capped:
+        assert np.all(ana[:, 0] == 0.0)

@@ -126,6 +126,17 @@ class Band:
         transform of the squared Gaussian mask, ``exp(-(pi sigma lag)^2)`` [derived]."""
         return np.exp(-((math.pi * self.sigma_hz * np.asarray(lag_s, dtype=np.float64)) ** 2))
 
+    def noise_correlation_sum(self, n: int, spacing_s: float) -> float:
+        """``sum_{k=-(n-1)}^{n-1} rho(k spacing_s)`` of :meth:`noise_correlation`: how many samples
+        ``spacing_s`` apart one independent noise sample is worth (the factor on a fit's
+        covariance). Terms where ``rho`` underflows to 0 (``(pi sigma lag)^2 > 745``) are left out,
+        so the cost follows the correlation length, not ``n``."""
+        a = math.pi * self.sigma_hz * abs(float(spacing_s))
+        k_max = max(int(n) - 1, 0)
+        if a > 0.0:
+            k_max = min(k_max, int(math.ceil(math.sqrt(746.0) / a)))
+        return float(np.sum(self.noise_correlation(np.arange(-k_max, k_max + 1) * float(spacing_s))))
+
     def mask(self, f_hz) -> np.ndarray:
         """The weight the band gives each absolute frequency (1 at the centre)."""
         return _gauss(np.asarray(f_hz, dtype=np.float64), self.centre_hz, self.sigma_hz)
@@ -240,8 +251,12 @@ def extract_band(
     if real:
         # the band holds nothing above bin k_hi, so an inverse FFT of length n_r >= 16 (k_hi + 1)
         # gives the same waveform sampled at >= 8x the band's top frequency, which is enough for
-        # parabolic peak interpolation, at a fraction of the cost of the full rate
-        n_r = min(spec.nfft, _next_pow2(16 * (k_hi + 1)))
+        # parabolic peak interpolation, at a fraction of the cost of the full rate; the length is
+        # the next one with factors 2, 3 and 5 only (scipy.fft.next_fast_len), not the next power
+        # of two, which could double it
+        from scipy.fft import next_fast_len
+
+        n_r = min(spec.nfft, next_fast_len(16 * (k_hi + 1), real=True))
         part = np.zeros(n_r // 2 + 1, dtype=np.complex128)
         part[k_lo : k_hi + 1] = spec.bins[k_lo : k_hi + 1] * mask
         real_x = np.fft.irfft(part, n_r)[: int(math.ceil(spec.n_samples * n_r / spec.nfft))] * (n_r / spec.nfft)

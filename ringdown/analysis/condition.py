@@ -92,7 +92,21 @@ def remove_drift(x: np.ndarray, sample_rate: float) -> np.ndarray:
     m = (n // b) * b
     ub, xb = u[:m].reshape(-1, b).mean(axis=1), x[:m].reshape(-1, b).mean(axis=1)
     coef = np.polynomial.legendre.legfit(ub, xb, DRIFT_DEGREE)
-    return x - np.polynomial.legendre.legval(u, coef)
+    return x - _legval(u, coef)
+
+
+def _legval(u: np.ndarray, coef: np.ndarray) -> np.ndarray:
+    """``numpy.polynomial.legendre.legval(u, coef)`` for a low degree on ``[-1, 1]``, by Horner's
+    rule on the power-series coefficients (``leg2poly``) in place: the same values to rounding
+    (the conversion is exact in rational arithmetic and well conditioned at degree 5 on
+    ``|u| <= 1``), at a quarter of the time on long records (legval's Clenshaw recursion allocates
+    several arrays per degree)."""
+    c = np.polynomial.legendre.leg2poly(coef)
+    out = np.full(u.shape, c[-1])
+    for a in c[-2::-1]:
+        out *= u
+        out += a
+    return out
 
 
 #: A step in the mean explains at least this fraction of what the drift polynomial leaves in the
@@ -102,7 +116,7 @@ STEP_FRACTION = 0.9
 STEP_SIZE = 0.1
 
 
-def remove_drift_and_step(x: np.ndarray, sample_rate: float) -> tuple[np.ndarray, int | None]:
+def remove_drift_and_step(x: np.ndarray, sample_rate: float) -> tuple[np.ndarray, int | None, float | None]:
     """Remove offset, slow drift and one step of the mean: a held deflection let go.
 
     A part held deflected and then released (or a sensor resting at another offset before the
@@ -127,18 +141,21 @@ def remove_drift_and_step(x: np.ndarray, sample_rate: float) -> tuple[np.ndarray
         ``x`` less the drift (and the step).
     step : int or None
         Index of the first sample after the step, or ``None`` when there is none.
+    dominant_hz : float or None
+        :func:`dominant_frequency` of ``y`` (the FFT it needs is done here anyway; pass it to
+        :func:`envelope_smoothing`).
     """
     x = np.asarray(x, dtype=np.float64)
     y = remove_drift(x, sample_rate)
     n = x.shape[0]
-    if n < 16 * (DRIFT_DEGREE + 1):
-        return y, None
     f_dom = dominant_frequency(y, sample_rate)
+    if n < 16 * (DRIFT_DEGREE + 1):
+        return y, None, f_dom
     period = max(1, int(round(sample_rate / f_dom))) if f_dom else 1
     b = period * max(1, -(-n // (4096 * period)))
     nb = n // b
     if nb < 8 * (DRIFT_DEGREE + 1):
-        return y, None
+        return y, None, f_dom
     m = nb * b
     u = np.linspace(-1.0, 1.0, n)
     ub, xb = u[:m].reshape(-1, b).mean(axis=1), x[:m].reshape(-1, b).mean(axis=1)
@@ -147,7 +164,7 @@ def remove_drift_and_step(x: np.ndarray, sample_rate: float) -> tuple[np.ndarray
     r = xb - q @ (q.T @ xb)
     r0 = float(r @ r)
     if r0 <= 0:
-        return y, None
+        return y, None, f_dom
     # gain of a step at block j (1 for blocks >= j): (sum_{i>=j} r_i)^2 / ((nb - j) - |sum_{i>=j} q_i|^2)
     sr = np.cumsum(r[::-1])[::-1]
     sq = np.cumsum(q[::-1], axis=0)[::-1]
@@ -156,14 +173,14 @@ def remove_drift_and_step(x: np.ndarray, sample_rate: float) -> tuple[np.ndarray
     gain = np.where(den[j_ok] > 1e-9, sr[j_ok] ** 2 / np.maximum(den[j_ok], 1e-300), 0.0)
     j = int(j_ok[int(np.argmax(gain))])
     if float(np.max(gain)) < STEP_FRACTION * r0:
-        return y, None
+        return y, None, f_dom
     h = (np.arange(nb) >= j).astype(np.float64)
     sol, *_ = np.linalg.lstsq(np.column_stack([v, h]), xb, rcond=None)
     c = float(sol[-1])
-    drift = np.polynomial.legendre.legval(u, sol[:-1])
+    drift = _legval(u, sol[:-1])
     e = x - drift
     if abs(c) < STEP_SIZE * float(np.max(np.abs(e - np.median(e)))):
-        return y, None
+        return y, None, f_dom
     # the step to the sample: least squares of e - c H(i - k) over a block either side
     lo, hi = max(0, (j - 1) * b), min(n, (j + 1) * b)
     w = e[lo:hi]
@@ -171,7 +188,8 @@ def remove_drift_and_step(x: np.ndarray, sample_rate: float) -> tuple[np.ndarray
     after = np.concatenate((np.cumsum(((w - c) ** 2)[::-1])[::-1], [0.0]))
     k = lo + int(np.argmin(before + after))
     step = (np.arange(n) >= k).astype(np.float64)
-    return e - c * step, k
+    out = e - c * step
+    return out, k, dominant_frequency(out, sample_rate)
 
 
 #: Every time span of hit detection is a multiple of the level's smoothing width ``W`` (one
@@ -194,9 +212,13 @@ def _smoothing_samples(sample_rate: float, f_dom_hz: float | None = None) -> int
     return max(3, int(round(sample_rate / f_dom_hz)))
 
 
-def envelope_smoothing(x: np.ndarray, sample_rate: float) -> int:
-    """Width in samples of the moving average :func:`envelope_db` uses for ``x``."""
-    return _smoothing_samples(sample_rate, dominant_frequency(x, sample_rate))
+def envelope_smoothing(x: np.ndarray, sample_rate: float, *, dominant_hz: float | None = None) -> int:
+    """Width in samples of the moving average :func:`envelope_db` uses for ``x``.
+
+    ``dominant_hz``: :func:`dominant_frequency` of ``x`` when already known (saves its FFT).
+    """
+    f = dominant_frequency(x, sample_rate) if dominant_hz is None else dominant_hz
+    return _smoothing_samples(sample_rate, f)
 
 
 def dominant_frequency(x: np.ndarray, sample_rate: float) -> float | None:

@@ -16,6 +16,11 @@ the moment it exists. The failure policy, the same for ``analyze``, ``check`` an
   without waiting for them and propagates, so the caller can write what finished and exit
   promptly. Workers ignore SIGINT themselves (the parent decides).
 
+Workers start warm: a task may name the modules its work imports lazily (``fn.preload``, a tuple
+of module names). They are imported in this process before the pool starts (a forked worker
+inherits them) and by each worker's initializer (``forkserver`` and ``spawn`` workers pay them
+once, not per item; the ``forkserver`` also preloads them), so no item waits for scipy.
+
 Executors are pluggable: anything with ``submit``, ``as_completed`` and ``shutdown`` (the
 :class:`BatchExecutor` protocol) can run a batch, e.g. a cluster client. The default is a
 process pool (:class:`ProcessExecutor`) for ``jobs > 1`` and this process (:class:`SerialExecutor`)
@@ -76,11 +81,27 @@ class SerialExecutor:
         self._pending.clear()
 
 
-def _init_worker(parent_pid: int) -> None:
-    """Worker initializer: Ctrl-C is the parent's to handle; a worker dies with its parent.
+def preload(modules: Iterable[str]) -> None:
+    """Import ``modules`` (names) in this process; one that fails to import is left to the item
+    that needs it, which then reports the error as its own result."""
+    import importlib
+
+    for name in modules:
+        try:
+            importlib.import_module(name)
+        except Exception:  # noqa: BLE001  (the item that needs it will say why)
+            pass
+
+
+def _init_worker(parent_pid: int | None, modules: tuple[str, ...] = ()) -> None:
+    """Worker initializer: Ctrl-C is the parent's to handle; a worker dies with its parent;
+    ``modules`` are imported before the first item (warm start).
 
     Without the second rule a ``kill -9`` of the command leaves its workers waiting forever
     on a queue nobody writes (Linux ``prctl(PR_SET_PDEATHSIG)``; elsewhere best effort).
+    ``parent_pid`` is the process that should be the worker's parent (``None``: not known, as
+    under the ``forkserver`` start method, where the server is the parent and itself ends when
+    the command does).
     """
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     try:
@@ -90,19 +111,33 @@ def _init_worker(parent_pid: int) -> None:
         libc.prctl(1, int(signal.SIGKILL), 0, 0, 0)  # 1 = PR_SET_PDEATHSIG
     except (OSError, AttributeError):
         pass
-    if os.getppid() != parent_pid:  # the parent died before the line above
+    if parent_pid is not None and os.getppid() != parent_pid:  # the parent died before the line above
         os._exit(1)
+    preload(modules)
 
 
 class ProcessExecutor:
     """A :class:`concurrent.futures.ProcessPoolExecutor` whose workers ignore SIGINT and whose
-    :meth:`shutdown` with ``cancel`` terminates them instead of waiting."""
+    :meth:`shutdown` with ``cancel`` terminates them instead of waiting.
 
-    def __init__(self, max_workers: int) -> None:
+    ``preload`` names modules every worker imports before its first item; they are imported
+    here first, so that forked workers inherit them (see :func:`run_batch`). ``context``: a
+    ``multiprocessing`` context (default: the process's default start method).
+    """
+
+    def __init__(self, max_workers: int, *, preload: Iterable[str] = (), context=None) -> None:
+        import multiprocessing
         from concurrent.futures import ProcessPoolExecutor
 
-        self._pool = ProcessPoolExecutor(max_workers=max_workers, initializer=_init_worker,
-                                         initargs=(os.getpid(),))
+        modules = tuple(preload)
+        globals()["preload"](modules)
+        ctx = context if context is not None else multiprocessing.get_context()
+        # a forkserver's workers are the server's children, not this process's
+        server = ctx.get_start_method() == "forkserver"
+        if modules and server:
+            ctx.set_forkserver_preload(list(modules))
+        self._pool = ProcessPoolExecutor(max_workers=max_workers, mp_context=ctx, initializer=_init_worker,
+                                         initargs=(None if server else os.getpid(), modules))
 
     def submit(self, fn, /, *args) -> Future:
         return self._pool.submit(fn, *args)
@@ -127,9 +162,9 @@ class ProcessExecutor:
             self._pool.shutdown(wait=True)
 
 
-def default_executor(max_workers: int) -> BatchExecutor:
-    """This process for one worker, else a process pool of ``max_workers``."""
-    return SerialExecutor() if max_workers <= 1 else ProcessExecutor(max_workers)
+def default_executor(max_workers: int, *, preload: Iterable[str] = ()) -> BatchExecutor:
+    """This process for one worker, else a process pool of ``max_workers`` (warm: ``preload``)."""
+    return SerialExecutor() if max_workers <= 1 else ProcessExecutor(max_workers, preload=preload)
 
 
 def as_ringdown_error(exc: BaseException) -> RingdownError:
@@ -178,7 +213,9 @@ def run_batch(
     ----------
     fn : callable
         ``fn(item) -> result``. With a process executor, ``fn``, ``on_error``, the items and the
-        results must pickle (module-level functions, plain data).
+        results must pickle (module-level functions, plain data). An attribute ``fn.preload``
+        (tuple of module names) makes workers start warm: they are imported before any item
+        runs, here and in each worker.
     items : sequence
     on_error : callable
         ``on_error(item, error) -> result``: the result of an item whose handling raised
@@ -207,10 +244,17 @@ def run_batch(
     """
     if isinstance(jobs, bool) or not isinstance(jobs, int) or jobs < 1:
         raise ParameterError(f"jobs must be a whole number >= 1; got {jobs!r}")
-    make = executor or default_executor
     n = len(items)
     if n == 0:
         return
+    modules = tuple(getattr(fn, "preload", ()) or ())
+    if executor is None:
+        def make(k: int) -> BatchExecutor:
+            return default_executor(k, preload=modules)
+    else:
+        make = executor
+        if min(jobs, n) > 1:
+            preload(modules)  # a custom executor that forks inherits them
 
     def finish(pos: int, res):
         if on_result is not None:
@@ -249,7 +293,7 @@ def run_batch(
         try:
             futs = {}
             for pos in chunk:
-                one = ProcessExecutor(1) if executor is None else make(1)
+                one = ProcessExecutor(1, preload=modules) if executor is None else make(1)
                 pools.append(one)
                 futs[one.submit(_guarded_call, fn, on_error, items[pos])] = (pos, one)
             for fut in _merged_as_completed(futs):

@@ -416,6 +416,13 @@ def check_file(path: str, limits: Limits, **options: Any) -> CheckResult:
 class _CheckTask:
     """Picklable ``check_file`` with fixed limits and options, and the ERROR result of a path."""
 
+    @property
+    def preload(self) -> tuple[str, ...]:
+        """Modules batch workers import before their first file (see ``batch.run_batch``)."""
+        from ..analysis.pipeline import WORKER_PRELOAD
+
+        return WORKER_PRELOAD
+
     def __init__(self, limits: Limits, options: dict) -> None:
         self.limits = limits
         self.options = options

@@ -72,8 +72,7 @@ def estimate(band: Band, window: Window) -> list[Estimate]:
     keep = np.concatenate(([True], dt > 0.6 * med))
     t, h = t[keep], h[keep]
     m = np.arange(t.shape[0], dtype=float)
-    lags = np.arange(-t.shape[0] + 1, t.shape[0]) * med
-    infl = max(1.0, float(np.sum(band.noise_correlation(lags))))
+    infl = max(1.0, band.noise_correlation_sum(t.shape[0], med))
     t0 = float(t[0])
     ln_a, slope, cov, rms = weighted_line(t - t0, np.log(h), (h / h.max()) ** 2, inflation=infl)
     beta = -slope

@@ -57,8 +57,7 @@ def estimate(band: Band, window: Window) -> list[Estimate]:
     amp = np.abs(z)
     if np.any(amp <= 0):
         raise FitError("envelope is zero inside the fit window")
-    lags = np.arange(-z.shape[0] + 1, z.shape[0]) / band.sample_rate
-    infl = max(1.0, float(np.sum(band.noise_correlation(lags))))
+    infl = max(1.0, band.noise_correlation_sum(z.shape[0], 1.0 / band.sample_rate))
     w = amp**2 / np.max(amp) ** 2
     t0 = float(t[0])
     ln_a, slope, cov, rms = weighted_line(t - t0, np.log(amp), w, inflation=infl)
