@@ -746,7 +746,7 @@ def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: lis
             except FitError as exc:
                 rejected.extend(_rejection(c, "fit_failed", str(exc)) for c in gc)
                 continue
-            got = _resolved_raw(_new_near(got, gc, known, res_hz), rejected)
+            got = _resolved_raw(_new_near(got, gc, known, res_hz), rejected, gc)
             got, unmatched = _match_candidates(got, gc, False)
             rejected.extend(unmatched)
             known += got
@@ -783,7 +783,7 @@ def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: lis
                 reason = "near_noise" if "above its band noise" in str(exc) else "fit_failed"
                 rejected.extend(_rejection(c, reason, str(exc)) for c in gc)
                 continue
-            got = _resolved_raw(_new_near(got, gc, known + found_round, res_hz), rejected)
+            got = _resolved_raw(_new_near(got, gc, known + found_round, res_hz), rejected, gc)
             got, unmatched = _match_candidates(got, gc, False)
             rejected.extend(unmatched)
             found_round.extend(got)
@@ -807,16 +807,33 @@ def _new_near(got: list[Mode], cands: list[Candidate], known: Sequence[Mode], re
             and any(near(m, c.f_hz, c.width_hz) for c in cands)]
 
 
-def _resolved_raw(got: list[Mode], rejected: list[Rejected]) -> list[Mode]:
+#: A broad hump is a heavily damped mode only if the fitted decay explains its width: the half-power
+#: width of a decay is beta / pi (Lorentzian line, FIELD.md section 1); a fit this many times
+#: narrower than the hump modelled something else (common practice, no source).
+WIDTH_MISMATCH = 4.0
+
+
+def _resolved_raw(got: list[Mode], rejected: list[Rejected], cands: Sequence[Candidate] = ()) -> list[Mode]:
     """Raw-fit modes of the residual search whose decay is resolved (beta above 3 standard
-    uncertainties): a broad hump in the residual is a heavily damped mode only if it decays
-    measurably; the others are named ``near_noise``."""
+    uncertainties) and, for a broad candidate, explains its hump's width (``WIDTH_MISMATCH``):
+    a broad hump in the residual is a heavily damped mode only then; the others are named
+    ``near_noise`` (no decay resolved) or ``unresolved`` (a remnant of a subtracted mode)."""
     out = []
     for m in got:
-        if m.fit_path == "raw" and not (m.beta_per_s > 3.0 * (m.beta_per_s_u or math.inf)):
+        if m.fit_path != "raw":
+            out.append(m)
+            continue
+        broad = [c for c in cands if c.source in ("spectrum", "residual") and c.beta_per_s is not None]
+        c = min(broad, key=lambda c: abs(c.f_hz - m.f_d_hz), default=None)
+        if not (m.beta_per_s > 3.0 * (m.beta_per_s_u or math.inf)):
             rejected.append(Rejected(m.f_d_hz, m.beta_per_s, m.snr_db, "near_noise",
                                      f"fitted decay {m.beta_per_s:.3g} +- {m.beta_per_s_u or float('nan'):.2g} 1/s "
                                      "is not resolved: noise, not a heavily damped mode"))
+        elif c is not None and WIDTH_MISMATCH * m.beta_per_s / math.pi < c.width_hz:
+            rejected.append(Rejected(m.f_d_hz, m.beta_per_s, m.snr_db, "unresolved",
+                                     f"fitted half-power width {m.beta_per_s / math.pi:.3g} Hz is far narrower than "
+                                     f"the {c.width_hz:.3g} Hz hump it was fitted to: a remnant of a subtracted "
+                                     "mode, not a heavily damped one"))
         else:
             out.append(m)
     return out
