@@ -1,0 +1,134 @@
+"""``ringdown listen`` and the station (ringdown/live.py): replay, verdicts, overflow, part ids.
+
+References: ``ringdown check`` of the same recordings (the issue: a replay of the line example
+through ``listen --limits`` gives the same verdicts as ``check``); the invented line's parts are
+written by example_signals/make_line_examples.py (numpy/scipy/soundfile only).
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+import soundfile as sf
+from typer.testing import CliRunner
+
+from ringdown.blocks import ArrayBlocks
+from ringdown.cli import app
+from ringdown.live import PartIds, Station
+
+EXAMPLES = Path(__file__).resolve().parents[1] / "example_signals"
+LINE = sorted(str(p) for p in (EXAMPLES / "line").glob("*.wav"))
+runner = CliRunner()
+
+
+def _session(path, files, gap_s: float = 1.0, seed: int = 5) -> None:
+    """The line's recordings one after the other, each followed by ``gap_s`` of noise at the level
+    of its own pre-trigger: a station session with a tap every 1 + gap_s seconds."""
+    rng = np.random.default_rng(seed)
+    parts = []
+    for f in files:
+        x, fs = sf.read(f)
+        parts += [x, float(np.std(x[:1000])) * rng.standard_normal(int(gap_s * fs))]
+    sf.write(str(path), np.concatenate(parts), fs, subtype="PCM_16")
+
+
+@pytest.fixture(scope="module")
+def line_limits(tmp_path_factory):
+    d = tmp_path_factory.mktemp("station")
+    lim = d / "limits.toml"
+    r = runner.invoke(app, ["limits", "learn", *LINE[1:9], "-o", str(lim), "--jobs", "1"])
+    assert r.exit_code == 0, r.output
+    return str(lim)
+
+
+def test_replay_through_listen_gives_the_verdicts_of_check(line_limits, tmp_path):
+    session = tmp_path / "session.wav"
+    _session(session, LINE)
+    r = runner.invoke(app, ["check", "--limits", line_limits, "--jobs", "1", "--jsonl", "--no-store", *LINE])
+    checked = [json.loads(line) for line in r.stdout.splitlines() if line.startswith("{")]
+    by_path = {c["path"]: c["verdict"] for c in checked}
+    expected = [by_path[p] for p in LINE]
+    assert "fail" in expected and "pass" in expected  # the line holds both kinds of part
+    r = runner.invoke(app, ["listen", "--replay", str(session), "--speed", "0", "--limits", line_limits,
+                            "--jsonl", "--save-dir", str(tmp_path / "taps"), "--part-id", "B7-{n:03d}"])
+    assert r.exit_code == 0, r.output
+    taps = [json.loads(line) for line in r.stdout.splitlines() if line.startswith("{")]
+    assert [t["verdict"] for t in taps] == expected
+    assert [t["part_id"] for t in taps] == [f"B7-{i:03d}" for i in range(1, len(LINE) + 1)]
+    # taps 2 s apart in the session: trigger times within two frames of each tap
+    starts = [i * 2.0 + 0.05 for i in range(len(LINE))]
+    assert [t["t_s"] for t in taps] == pytest.approx(starts, abs=2 * 256 / 24_000)
+    # the saved tap, analysed again, gives the station's result exactly
+    saved = taps[3]["path"]
+    assert Path(saved).name.endswith("_B7-004.wav")
+    r2 = runner.invoke(app, ["analyze", "--json", saved])
+    again = json.loads(r2.stdout)["recordings"][0]
+    assert json.dumps(again, sort_keys=True) == json.dumps(taps[3]["analysis"], sort_keys=True)
+    assert "done: 11 taps, 9 pass, 2 fail, 0 error; 0 input blocks dropped" in r.stderr
+
+
+def test_listen_stores_each_part_with_station_and_operator(line_limits, tmp_path):
+    session = tmp_path / "session.wav"
+    _session(session, LINE[:3])
+    db = tmp_path / "h.sqlite"
+    r = runner.invoke(app, ["listen", "--replay", str(session), "--speed", "0", "--limits", line_limits, "--store",
+                            "--db", str(db), "--station", "EOL-2", "--operator", "kim", "--first", "40"])
+    assert r.exit_code == 0, r.output
+    from ringdown.store import ResultStore
+
+    with ResultStore(db) as st:
+        rows = st.query()
+    assert sorted(x.part_id for x in rows) == ["part-0040", "part-0041", "part-0042"]
+    assert {x.station for x in rows} == {"EOL-2"} and {x.operator for x in rows} == {"kim"}
+    assert sorted(x.verdict for x in rows) == ["fail", "pass", "pass"]
+
+
+def test_listen_without_limits_prints_the_modes_and_max_taps_stops(tmp_path):
+    session = tmp_path / "session.wav"
+    _session(session, LINE[1:4])
+    r = runner.invoke(app, ["listen", "--replay", str(session), "--speed", "0", "--max-taps", "2"])
+    assert r.exit_code == 0, r.output
+    lines = [ln for ln in r.stdout.splitlines() if ln.startswith("tap ")]
+    assert len(lines) == 2 and "f1 1498.9" in lines[0] and "Q " in lines[0]
+    assert "done: 2 taps, 2 measured, 0 not measured" in r.stdout
+
+
+def test_a_tap_that_overlaps_dropped_input_is_an_error_never_a_verdict(line_limits, tmp_path):
+    from ringdown.limits import read_limits
+
+    session = tmp_path / "session.wav"
+    _session(session, LINE[1:4])
+    x, fs = sf.read(str(session))
+    block = 1024
+    lost = (48_000 + 3000) // block  # a block in the second tap's decay (taps 2 s apart at 24 kHz)
+    src = ArrayBlocks(x, fs, block_samples=block, drop=[lost])
+    st = Station(fs, limits=read_limits(line_limits), part_ids=PartIds("P{n}"), subtype="PCM_16")
+    taps = list(st.run(src))
+    assert src.dropped_blocks == 1
+    assert [t.verdict for t in taps] == ["pass", "error", "pass"]
+    assert taps[1].dropped == block and "input_dropped" in [w.code for w in taps[1].analysis.warnings]
+    assert "tap the part again" in taps[1].reasons[0].message
+    assert st.summary(src.dropped_blocks)["taps_with_lost_input"] == 1
+
+
+def test_part_ids_pattern_counter_and_prompt():
+    assert [PartIds("B7-{n:03d}", start=9).next() for _ in range(1)] == ["B7-009"]
+    ids = PartIds("lot4")
+    assert [ids.next(), ids.next()] == ["lot4-0001", "lot4-0002"]
+    answers = iter(["SN-77", ""])
+    ids = PartIds(prompt=lambda q: next(answers))
+    assert [ids.next(), ids.next()] == ["SN-77", "part-0002"]
+    from ringdown.errors import ParameterError
+
+    with pytest.raises(ParameterError, match="not a pattern"):
+        PartIds("B{n:q}")
+
+
+def test_listen_usage_errors_are_one_line(tmp_path):
+    r = runner.invoke(app, ["listen", "--speed", "4"])
+    assert r.exit_code == 64 and "--speed applies to --replay only" in r.stderr
+    r = runner.invoke(app, ["listen", "--replay", str(tmp_path / "none.wav")])
+    assert r.exit_code == 2 and "Traceback" not in r.output
