@@ -54,3 +54,14 @@ def write_long_record(path, *, duration_s: float, sample_rate: float = 16_000.0,
                     x[on] += a * np.exp(-beta * tau[on]) * np.sin(2 * np.pi * f_d * tau[on])
             fh.write(x)
     return taps
+
+
+if __name__ == "__main__":
+    import sys
+
+    if len(sys.argv) < 3:
+        raise SystemExit("usage: python tests/long_records.py OUT.wav MINUTES [PERIOD_S | one]")
+    period = None if len(sys.argv) > 3 and sys.argv[3] == "one" else float(sys.argv[3]) if len(sys.argv) > 3 else 2.0
+    written = write_long_record(sys.argv[1], duration_s=60.0 * float(sys.argv[2]), sample_rate=48_000.0,
+                                period_s=period)
+    print(f"wrote {sys.argv[1]}: {float(sys.argv[2]):g} min at 48 kHz, {len(written)} taps")

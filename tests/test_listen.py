@@ -7,6 +7,7 @@ written by example_signals/make_line_examples.py (numpy/scipy/soundfile only).
 
 from __future__ import annotations
 
+import importlib.util
 import json
 from pathlib import Path
 
@@ -24,15 +25,15 @@ LINE = sorted(str(p) for p in (EXAMPLES / "line").glob("*.wav"))
 runner = CliRunner()
 
 
-def _session(path, files, gap_s: float = 1.0, seed: int = 5) -> None:
-    """The line's recordings one after the other, each followed by ``gap_s`` of noise at the level
-    of its own pre-trigger: a station session with a tap every 1 + gap_s seconds."""
-    rng = np.random.default_rng(seed)
-    parts = []
-    for f in files:
-        x, fs = sf.read(f)
-        parts += [x, float(np.std(x[:1000])) * rng.standard_normal(int(gap_s * fs))]
-    sf.write(str(path), np.concatenate(parts), fs, subtype="PCM_16")
+_SPEC = importlib.util.spec_from_file_location("make_station_session", EXAMPLES / "make_station_session.py")
+_station = importlib.util.module_from_spec(_SPEC)
+_SPEC.loader.exec_module(_station)
+
+
+def _session(path, files, gap_s: float = 1.0) -> None:
+    """The line's recordings in turn, each followed by ``gap_s`` of noise at its own level
+    (example_signals/make_station_session.py): a station session with a tap every 1 + gap_s s."""
+    _station.write_session(path, files, gap_s=gap_s)
 
 
 @pytest.fixture(scope="module")
@@ -132,3 +133,41 @@ def test_listen_usage_errors_are_one_line(tmp_path):
     assert r.exit_code == 64 and "--speed applies to --replay only" in r.stderr
     r = runner.invoke(app, ["listen", "--replay", str(tmp_path / "none.wav")])
     assert r.exit_code == 2 and "Traceback" not in r.output
+
+
+def test_the_terminal_view_shows_the_last_verdict_large(line_limits, tmp_path):
+    from rich.console import Console
+
+    from ringdown.cli.listen import _View, big_word
+    from ringdown.limits import read_limits
+
+    assert big_word("FAIL").count("\n") == 4 and "\u2588" in big_word("pass")
+    session = tmp_path / "session.wav"
+    _session(session, LINE[:2])
+    x, fs = sf.read(str(session))
+    st = Station(fs, limits=read_limits(line_limits), subtype="PCM_16")
+    view = _View("replay", judged=True)
+    for tap in st.run(ArrayBlocks(x, fs, block_samples=1024)):
+        view.add(tap, 0)
+    con = Console(record=True, width=100)
+    con.print(view.render())
+    text = con.export_text()
+    assert text.count("\u2588") > 20 and "part-0002  (tap 2)" in text  # PASS in block letters, last part named
+    assert "FAIL" in text and "2 taps; 0 input blocks dropped" in text
+
+
+def test_ctrl_c_ends_a_session_cleanly_with_its_summary(tmp_path):
+    import signal
+    import subprocess
+    import sys
+    session = tmp_path / "session.wav"
+    _session(session, LINE[1:6])  # 10 s at real time
+    p = subprocess.Popen([sys.executable, "-c", "from ringdown.cli import main; main()", "listen", "--replay",
+                          str(session)], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    first = p.stdout.readline()  # the first tap is out: the session is running
+    assert first.startswith("tap 1 ")
+    p.send_signal(signal.SIGINT)
+    out, err = p.communicate(timeout=30)
+    assert p.returncode == 0, err
+    assert "stopped: " in out and "Traceback" not in err
+    assert sum(ln.startswith("tap ") for ln in out.splitlines()) < 4

@@ -16,6 +16,21 @@ from ._common import (DEBUG_OPTION, EXIT_ERROR, EXIT_OK, error_line, guarded, on
 #: Recent parts shown under the last verdict in the terminal view.
 RECENT_ROWS = 8
 
+#: Block letters (5 rows) for the verdict, readable from a few metres at the station.
+_GLYPHS = {
+    "P": ["####", "#  #", "####", "#   ", "#   "], "A": [" ## ", "#  #", "####", "#  #", "#  #"],
+    "S": [" ###", "#   ", " ## ", "   #", "### "], "F": ["####", "#   ", "### ", "#   ", "#   "],
+    "I": ["###", " # ", " # ", " # ", "###"], "L": ["#   ", "#   ", "#   ", "#   ", "####"],
+    "E": ["####", "#   ", "### ", "#   ", "####"], "R": ["### ", "#  #", "### ", "# # ", "#  #"],
+    "O": [" ## ", "#  #", "#  #", "#  #", " ## "],
+}
+
+
+def big_word(word: str) -> str:
+    """``word`` (PASS, FAIL, ERROR) in 5-row block letters; other characters are left out."""
+    rows = ["  ".join(_GLYPHS[c][r] for c in word.upper() if c in _GLYPHS) for r in range(5)]
+    return "\n".join(r.replace("#", "\u2588") for r in rows)
+
 
 def register(app: typer.Typer) -> None:
     @app.command("listen")
@@ -240,7 +255,8 @@ class _View:
             big, style = Text(f"{last.part_id}: INPUT DROPPED - TAP AGAIN", style="bold black on yellow"), "yellow"
         elif last.verdict is not None:
             style = {"pass": "green", "fail": "red"}.get(last.verdict, "yellow")
-            big = Text(f"{last.part_id}   {last.verdict.upper()}", style=f"bold white on {style}")
+            big = Text(big_word(last.verdict) + "\n", style=f"bold {style}")
+            big.append(f"{last.part_id}  (tap {last.number})", style="bold")
             if last.reasons:
                 big.append("\n" + "\n".join(r.message for r in last.reasons[:3]), style="not bold")
         else:
@@ -256,6 +272,7 @@ class _View:
                 result += " (input dropped)"
             table.add_row(str(t.number), t.part_id, t.time_utc[11:23], result,
                           f"{m.f_d_hz:.2f}" if m else "-", f"{m.q:.4g}" if m else "-")
-        status = Text(f"listening: {self.what}; {len(self.recent)} shown; {self.dropped} input blocks dropped; "
+        n = self.recent[0].number if self.recent else 0
+        status = Text(f"listening: {self.what}; {n} taps; {self.dropped} input blocks dropped; "
                       "Ctrl-C ends", style="dim")
         return Group(Panel(big, border_style=style, padding=(1, 2)), table, status)
