@@ -114,9 +114,16 @@ def test_dropped_blocks_are_counted_and_mark_the_tap_they_hit():
     assert len(notes) == 1 and f"{block} samples were lost" in notes[0].message
 
 
-def test_long_file_goes_through_the_engine_and_agrees_with_the_textbook(tmp_path):
-    path = tmp_path / "session.wav"
+@pytest.fixture(scope="module")
+def session(tmp_path_factory):
+    """A 70.5 s, 16 kHz session with a tap every 2 s: just over LONG_FILE_SAMPLES."""
+    path = tmp_path_factory.mktemp("long") / "session.wav"
     taps = write_long_record(path, duration_s=LONG_FILE_SAMPLES / 16_000 + 5.0, sample_rate=16_000, period_s=2.0)
+    return path, taps
+
+
+def test_long_file_goes_through_the_engine_and_agrees_with_the_textbook(session):
+    path, taps = session
     assert is_long_sound_file(path)
     a = analyze_file(str(path))
     assert "segmented" in [w.code for w in a.warnings]
@@ -196,3 +203,17 @@ def test_ten_minutes_with_300_taps_in_bounded_memory(tmp_path):
         f_d, beta = damped(f_n, zeta)
         assert m.f_d_hz == pytest.approx(f_d, rel=1e-5)
         assert m.beta_per_s == pytest.approx(beta, rel=1e-3)
+
+
+def test_analyze_command_on_a_long_file(session, tmp_path):
+    from typer.testing import CliRunner
+
+    from ringdown.cli import app
+
+    path, taps = session
+    r = CliRunner().invoke(app, ["analyze", "--json", str(path), "--plot", str(tmp_path / "plots")])
+    assert r.exit_code == 0, r.output
+    rec = json.loads(r.stdout)["recordings"][0]
+    assert len(rec["hits"]) == len(taps) and "segmented" in [w["code"] for w in rec["warnings"]]
+    # no figure can be drawn without the samples, and the command says so
+    assert "no samples kept: its figures are not drawn" in r.stderr

@@ -270,6 +270,10 @@ def register(app: typer.Typer) -> None:
         if csv_out is not None:
             failed_outputs += _try(lambda: write_csv(analyses, str(csv_out)), debug)
         header = report_header(title, notes, serial, station=station, operator=operator)
+        if plot is not None or report is not None:
+            for a in analyses:
+                if a.error is None and a.recording is None:
+                    note_line(f"{a.path}: analysed in segments (a long file), no samples kept: its figures are not drawn")
         failed_outputs += _render(analyses, plot, plot_format, report, options, debug, header)
         storer.report()
         errors = sum(1 for a in analyses if a.error is not None)
