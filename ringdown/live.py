@@ -34,7 +34,7 @@ import numpy as np
 
 from .blocks import Block
 from .engine import Segment, Segmenter
-from .errors import InputError, ParameterError, RingdownError
+from .errors import InputError, ParameterError
 from .results import Analysis, Notice
 
 __all__ = ["TapResult", "Station", "PartIds", "DeviceBlocks", "list_devices", "import_sounddevice"]
@@ -283,7 +283,11 @@ class Station:
         self.limits = limits
         self.save_dir = None if save_dir is None else Path(save_dir)
         if self.save_dir is not None:
-            self.save_dir.mkdir(parents=True, exist_ok=True)
+            try:
+                self.save_dir.mkdir(parents=True, exist_ok=True)
+            except OSError as exc:
+                raise ParameterError(f"cannot use {str(self.save_dir)!r} as the save folder: "
+                                     f"{exc.strerror or exc}; choose a writable folder") from None
         self.store = store
         self.station, self.operator = station, operator
         self.part_ids = part_ids or PartIds()
@@ -316,21 +320,16 @@ class Station:
         path = None
         try:
             if self.save_dir is not None:
-                import soundfile as sf
-
                 path = str(self.save_dir / f"{_stamp(when)}_{_safe(part)}.wav")
-                y = seg.samples if self.subtype.startswith("FLOAT") or self.subtype == "DOUBLE" \
-                    else np.clip(seg.samples, -1.0, 1.0)
-                sf.write(path, y, int(round(self.sample_rate)), subtype=self.subtype)
+                self._save(path, seg.samples)
                 analysis = analyze_file(path, **self.options)
             else:
                 rec = Recording(seg.samples, self.sample_rate, path=None, full_scale=self.full_scale)
                 analysis = analyze_recording(rec, **self.options)
-        except RingdownError as exc:
-            analysis = Analysis.failed(path, exc, settings=self.opts.to_dict())
-        except (OSError, RuntimeError) as exc:  # a full disk, an unwritable folder
-            analysis = Analysis.failed(path, InputError(f"cannot save the tap as {path!r}: {exc}"),
-                                       settings=self.opts.to_dict())
+        except Exception as exc:  # any failure is this tap's result; the session goes on
+            from .batch import as_ringdown_error
+
+            analysis = Analysis.failed(path, as_ringdown_error(exc), settings=self.opts.to_dict())
         analysis = lighten(analysis)
         dropped = seg.dropped
         if dropped:
@@ -359,6 +358,16 @@ class Station:
                         stored_id=stored, check=result)
         self.taps.append(tap)
         return tap
+
+    def _save(self, path: str, samples: np.ndarray) -> None:
+        """Write one tap as a WAV; a full disk or an unwritable folder is an InputError."""
+        import soundfile as sf
+
+        y = samples if self.subtype.startswith("FLOAT") or self.subtype == "DOUBLE" else np.clip(samples, -1.0, 1.0)
+        try:
+            sf.write(path, y, int(round(self.sample_rate)), subtype=self.subtype)
+        except (OSError, RuntimeError, sf.LibsndfileError) as exc:
+            raise InputError(f"cannot save the tap as {path!r}: {exc}") from None
 
     def summary(self, dropped_blocks: int = 0) -> dict:
         """Counts of the session: taps, verdicts, taps with lost input, blocks dropped."""

@@ -133,6 +133,10 @@ def test_listen_usage_errors_are_one_line(tmp_path):
     assert r.exit_code == 64 and "--speed applies to --replay only" in r.stderr
     r = runner.invoke(app, ["listen", "--replay", str(tmp_path / "none.wav")])
     assert r.exit_code == 2 and "Traceback" not in r.output
+    occupied = tmp_path / "a_file"
+    occupied.write_text("x")
+    r = runner.invoke(app, ["listen", "--replay", LINE[0], "--save-dir", str(occupied)])
+    assert r.exit_code == 2 and "cannot use" in r.stderr and "as the save folder" in r.stderr
 
 
 def test_the_terminal_view_shows_the_last_verdict_large(line_limits, tmp_path):
