@@ -233,13 +233,18 @@ def envelope_db(x: np.ndarray, sample_rate: float, *, smoothing: int | None = No
 
 #: Blocks of the level over which :func:`noise_floor_db` takes medians, in smoothing widths.
 NOISE_BLOCK_WIDTHS = 8
+#: The record's first this many smoothing widths also count as a block (a short pre-trigger): two
+#: widths hold about two independent values of the level, whose median is still within a few dB
+#: of the noise's mean level, far inside the 20 dB a hit must rise (common practice, no source).
+LEAD_BLOCK_WIDTHS = 2
 
 
 def noise_floor_db(level_db: np.ndarray, smoothing: int = 3) -> float:
     """Broadband noise floor: the median level of the quietest stretch of the record, dB.
 
     The level is cut into blocks of ``8 smoothing`` samples (at least 32); the floor is the
-    lowest block median. Any stretch of that length where only noise is (a short pre-trigger,
+    lowest block median, or the median of the record's first ``2 smoothing`` samples (a
+    pre-trigger shorter than a block) when that is lower. Any stretch of that length where only noise is (a short pre-trigger,
     the tail after the decay) sets it, however little of the record it is; a percentile of the
     whole level would sit on the ringing of a lightly damped mode that fills the record. When no
     block is noise only, the floor is the quietest part of the decay: an upper bound.
@@ -253,13 +258,61 @@ def noise_floor_db(level_db: np.ndarray, smoothing: int = 3) -> float:
     """
     n = level_db.shape[0]
     b = max(32, NOISE_BLOCK_WIDTHS * int(smoothing))
+    # the record's leading stretch of LEAD_BLOCK_WIDTHS W: a pre-trigger shorter than one block
+    # (a slow dominant mode makes W long) still sets the floor
+    lead = float(np.median(level_db[: max(16, LEAD_BLOCK_WIDTHS * int(smoothing))]))
     if n < 2 * b:
-        return float(np.median(level_db))
+        return min(float(np.median(level_db)), lead)
     m = (n // b) * b
     med = np.median(level_db[:m].reshape(-1, b), axis=1)
     if m < n:
         med = np.append(med, np.median(level_db[n - b:]))
-    return float(np.min(med))
+    return min(float(np.min(med)), lead)
+
+
+#: Order of the linear predictor whose prediction error shows a new hit on a ringing record: it
+#: cancels up to ORDER / 2 steady or slowly decaying modes (common practice, no source).
+INNOVATION_ORDER = 32
+
+
+def innovation(x: np.ndarray, order: int = INNOVATION_ORDER) -> np.ndarray:
+    """Prediction error of ``x`` under its own linear predictor (Yule-Walker, autocorrelation method).
+
+    Modes still ringing from an earlier hit are predictable from the samples before, so they
+    cancel; the force of a new tap is not, so it stands out however loud the ringing is (the
+    innovation of the autoregressive model is the excitation of a linear system: Makhoul,
+    "Linear prediction: a tutorial review", Proc. IEEE 63(4), 1975 [from memory]).
+
+    Parameters
+    ----------
+    x : (n,) ndarray of float
+        Conditioned record.
+    order : int
+        Predictor order (at most n / 8).
+
+    Returns
+    -------
+    (n,) ndarray of float, the prediction error (the first ``order`` samples use the zeros
+    before the record).
+    """
+    from scipy import linalg, signal
+
+    n = x.shape[0]
+    p = int(min(order, n // 8))
+    if p < 2:
+        return np.array(x, dtype=np.float64)
+    nfft = 1 << int(math.ceil(math.log2(2 * n)))
+    spec = np.fft.rfft(x, nfft)
+    r = np.fft.irfft(np.abs(spec) ** 2, nfft)[: p + 1] / n
+    if not r[0] > 0:
+        return np.array(x, dtype=np.float64)
+    r = r.copy()
+    r[0] *= 1.0 + 1e-9  # white-noise regularisation of an (almost) noiseless record
+    try:
+        a = linalg.solve_toeplitz(r[:p], r[1 : p + 1])
+    except (np.linalg.LinAlgError, ValueError):
+        return np.array(x, dtype=np.float64)
+    return signal.lfilter(np.concatenate(([1.0], -a)), [1.0], x)
 
 
 def find_hits(
@@ -275,6 +328,7 @@ def find_hits(
     bounce_window_samples: int | None = None,
     bounce_rise_db: float = 10.0,
     slow_level_db: np.ndarray | None = None,
+    innovation_level_db: np.ndarray | None = None,
 ) -> list[HitSpan]:
     """Find every hit in a recording from its envelope level.
 
@@ -305,6 +359,11 @@ def find_hits(
         The level smoothed over twice ``smoothing``. When given, a bounce must also raise it by
         3 dB: a second contact adds energy, while modes beating faster than that window only
         move the energy between them.
+    innovation_level_db : (n_samples,) ndarray or None
+        The level (same smoothing) of :func:`innovation` of the record. When given, a rise of
+        it by the same rules, against its own noise floor, is a hit too (a second tap while
+        modes of the first still ring barely raises the broadband level, but it raises the
+        prediction error as much as the first tap did).
 
     Returns
     -------
@@ -316,42 +375,39 @@ def find_hits(
     hold = max(w + 1, int(hold_off_samples) if hold_off_samples is not None else int(round(HOLD_OFF_WIDTHS * sm)))
     bw = int(bounce_window_samples) if bounce_window_samples is not None else int(round(BOUNCE_WIDTHS * sm))
     w = min(w, max(2, n - 1))
-    # minimum of the level over the preceding w samples (sliding window minimum)
-    from scipy.ndimage import maximum_filter1d, minimum_filter1d
-
-    prev_min = np.empty(n)
-    prev_min[:] = np.inf
-    # constant borders: a reflecting border would bring later samples (the hit itself) into the
-    # window of the record's first samples
-    m = minimum_filter1d(level_db, size=w, origin=(w - 1) // 2, mode="constant", cval=np.inf)  # min over [k - w + 1, k]
-    prev_min[1:] = m[:-1]
-    prev_max = np.full(n, -np.inf)
-    span = min(hold - w, n)
-    if span > 0 and n > w:
-        mx = maximum_filter1d(level_db, size=span, origin=(span - 1) // 2, mode="constant",
-                              cval=-np.inf)  # max over [k - span + 1, k]
-        prev_max[w:] = mx[: n - w]
     threshold = noise_db + min_hit_snr_db
-    cand = (level_db - prev_min >= rise_db) & (level_db >= threshold) & (level_db >= prev_max + 3.0)
-    # The first rise from a quiet start has nothing before it; take the first crossing too.
-    idx = np.flatnonzero(cand)
+    idx = _rises(level_db, w, hold, rise_db, threshold)
     onsets: list[int] = []
     for k in idx:
         if onsets and k - onsets[-1] < hold:
             continue
         onsets.append(int(k))
+    # The first rise from a quiet start has nothing before it; take the first crossing too.
     if not onsets:
         above = np.flatnonzero(level_db >= threshold)
         if above.size == 0:
             return []
         onsets = [int(above[0])]
+    if innovation_level_db is not None:
+        inn = np.asarray(innovation_level_db, dtype=np.float64)
+        more = _rises(inn, w, hold, rise_db, noise_floor_db(inn, sm) + min_hit_snr_db)
+        kept: list[int] = []
+        for k in more:
+            if all(abs(int(k) - o) >= hold for o in onsets + kept) and int(k) > onsets[0]:
+                kept.append(int(k))
+        from_innovation = set(kept)
+        onsets = sorted(onsets + kept)
+    else:
+        from_innovation = set()
     # The centred smoothing turns a step in power into a ramp one smoothing width long, centred
     # on the step: the onset is where the ramp reaches half (-3 dB) of the level just after it.
     spans: list[HitSpan] = []
     for j, k in enumerate(onsets):
-        top = float(np.max(level_db[k : min(n, k + sm + 1)]))
+        # a hit over ringing is timed on the level that showed it
+        ref = innovation_level_db if k in from_innovation else level_db
+        top = float(np.max(ref[k : min(n, k + sm + 1)]))
         lo_i = max(0, k - sm)
-        reach = np.flatnonzero(level_db[lo_i : k + sm + 1] >= top - 3.0103)
+        reach = np.flatnonzero(ref[lo_i : k + sm + 1] >= top - 3.0103)
         onset = lo_i + int(reach[0]) if reach.size else k
         end = onsets[j + 1] - sm if j + 1 < len(onsets) else n
         stop = min(end, onset + hold + bw)
@@ -363,6 +419,26 @@ def find_hits(
             bounce = None
         spans.append(HitSpan(onset=onset, peak=peak, end=end, bounce=bounce))
     return spans
+
+
+def _rises(level_db: np.ndarray, w: int, hold: int, rise_db: float, threshold: float) -> np.ndarray:
+    """Indices where ``level_db`` rises ``rise_db`` within ``w`` samples, reaches ``threshold``
+    and exceeds everything in the preceding ``hold`` samples by 3 dB."""
+    from scipy.ndimage import maximum_filter1d, minimum_filter1d
+
+    n = level_db.shape[0]
+    prev_min = np.full(n, np.inf)
+    # constant borders: a reflecting border would bring later samples (the hit itself) into the
+    # window of the record's first samples
+    m = minimum_filter1d(level_db, size=w, origin=(w - 1) // 2, mode="constant", cval=np.inf)  # min over [k - w + 1, k]
+    prev_min[1:] = m[:-1]
+    prev_max = np.full(n, -np.inf)
+    span = min(hold - w, n)
+    if span > 0 and n > w:
+        mx = maximum_filter1d(level_db, size=span, origin=(span - 1) // 2, mode="constant",
+                              cval=-np.inf)  # max over [k - span + 1, k]
+        prev_max[w:] = mx[: n - w]
+    return np.flatnonzero((level_db - prev_min >= rise_db) & (level_db >= threshold) & (level_db >= prev_max + 3.0))
 
 
 def _find_bounce(level_db, onset, window, rise, rise_db, end, settle=0) -> int | None:

@@ -411,7 +411,10 @@ def find_candidates(x: np.ndarray, sample_rate: float, *, start: int, end: int, 
     strong = [c for c in cands if c.snr is not None and c.snr >= thr]
     weak = [c for c in cands if c.snr is None or c.snr < thr]
     for p in spectral or ():
-        strong.append(Candidate(p.f_hz, None, max(p.width_hz, fs / n), None, None, "spectrum", -1, fs / n))
+        # a broad peak's width gives a first decay rate (beta ~ pi x half-power width), so that a
+        # band too narrow for it sends it to the fit on the record itself
+        beta0 = math.pi * p.width_hz if getattr(p, "broad", False) else None
+        strong.append(Candidate(p.f_hz, beta0, max(p.width_hz, fs / n), None, None, "spectrum", -1, fs / n))
     accepted = _dedupe(strong)
     below = [c for c in _dedupe(weak) if not any(_same(c, a) for a in accepted)]
     return sorted(accepted, key=lambda c: c.f_hz), sorted(below, key=lambda c: c.f_hz)

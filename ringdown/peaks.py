@@ -30,6 +30,7 @@ class Peak:
     level_db: float
     prominence_db: float
     width_hz: float
+    broad: bool = False  #: found by the smoothed search (a peak many bins wide: a fast decay)
 
 
 def find_peaks(
@@ -41,6 +42,7 @@ def find_peaks(
     f_min_hz: float | None = None,
     noise_psd: tuple[np.ndarray, np.ndarray] | None = None,
     noise_margin_db: float | None = None,
+    broad: bool = True,
 ) -> list[Peak]:
     """Spectral peaks of a decay segment that stand above their local floor.
 
@@ -66,6 +68,9 @@ def find_peaks(
     noise_psd : (f_hz, psd) or None
         One-sided noise power spectral density (units^2/Hz) on its own frequency grid, e.g.
         from :func:`ringdown.condition.noise_psd`.
+    broad : bool
+        With ``noise_psd``, also search the smoothed spectrum for broad peaks (heavily damped
+        modes, see ``_broad_peaks``).
 
     Returns
     -------
@@ -120,9 +125,81 @@ def find_peaks(
         width_hz = max((hi - lo) * df, df)
         peaks.append(Peak(f_hz=float(f[k] + off * df), level_db=float(b - 0.25 * (a - c) * off),
                           prominence_db=float(prom), width_hz=float(width_hz)))
+    if noise_psd is not None and broad:
+        # the Welch estimate averaged over 9 of its bins: a short pre-trigger's estimate scatters
+        # by ~1.5 dB per bin, as much as a broad peak's margin (as detect.smooth_density)
+        pw = np.array(noise_psd[1][1:], dtype=np.float64)
+        if pw.shape[0] > 10:
+            pw = ndimage.uniform_filter1d(pw, 9, mode="nearest")
+        level_s = np.interp(f, noise_psd[0][1:], pw) * sample_rate * w2 / (2.0 * n * n)
+        peaks += _broad_peaks(f, 10.0 ** (p_db / 10.0), level_s, n, sample_rate, peaks)
+        peaks.sort(key=lambda p: p.f_hz)
     if max_peaks is not None and len(peaks) > max_peaks:
         peaks = sorted(peaks, key=lambda p: p.level_db, reverse=True)[:max_peaks]
     return sorted(peaks, key=lambda p: p.f_hz)
+
+
+#: Smoothing widths of the broad-peak search, in bins of the unpadded segment.
+BROAD_SCALES = (8, 32, 128)
+#: A broad peak must stand this far above the smoothed spectrum's lowest level between it and any
+#: higher neighbour, dB: four standard deviations of the smoothed noise spectrum at the finest
+#: scale (4.34 / sqrt(8) dB each) [derived], a plain dip in a strong mode's skirt being smooth.
+BROAD_PROMINENCE_DB = 6.0
+
+
+def _broad_peaks(f: np.ndarray, p: np.ndarray, noise: np.ndarray, n: int, sample_rate: float,
+                 sharp: list[Peak]) -> list[Peak]:
+    """Peaks many bins wide (heavily damped modes, Q down to ~3) that the bin-by-bin search
+    misses: the running median it compares with sits on a hump that wide.
+
+    At each scale of :data:`BROAD_SCALES`, the power spectrum ``p`` and the noise level
+    ``noise`` (the expectation of noise alone in each bin) are averaged over that many bins of
+    the unpadded segment; a local maximum of the averaged spectrum is a broad peak when it
+    exceeds the averaged noise by the margin that the largest of the independent cells of a
+    chi-square average with ``2 m`` degrees of freedom reaches with probability 1e-3 (``ln`` of
+    cells over 1e-3, over ``m``, plus the Welch scatter: [derived]), stands
+    :data:`BROAD_PROMINENCE_DB` above its surroundings, is at least half the scale wide (else the
+    sharper search owns it), and no sharp peak lies within its half-power width.
+    """
+    from scipy import ndimage, signal
+
+    pad = f.shape[0] / max(n / 2.0, 1.0)  # padded bins per unpadded (independent) bin
+    df = f[1] - f[0]
+    out: list[Peak] = []
+    found = list(sharp)
+    for m in BROAD_SCALES:
+        k = int(math.ceil(m * pad))
+        if 8 * k > f.shape[0]:
+            break
+        ps = ndimage.uniform_filter1d(p, k, mode="nearest")
+        ns = ndimage.uniform_filter1d(noise, k, mode="nearest")
+        cells = max(f.shape[0] / k, 2.0)
+        # 2 dB more for the scatter of the Welch estimate of the noise level, as in find_peaks
+        margin = (1.0 + (math.log(cells / 1e-3) + 3.0 * math.sqrt(m)) / m) * 10 ** 0.2
+        db = 10.0 * np.log10(ps + 1e-300)
+        idx, props = signal.find_peaks(db, prominence=BROAD_PROMINENCE_DB)
+        for i, prom in zip(idx, props["prominences"]):
+            if not (ps[i] > margin * ns[i]) or f[i] < 3.0 * sample_rate / n or f[i] > 0.98 * sample_rate / 2:
+                continue
+            half = db[i] - 3.0103
+            lo = i
+            while lo > 0 and db[lo] > half:
+                lo -= 1
+            hi = i
+            while hi < f.shape[0] - 1 and db[hi] > half:
+                hi += 1
+            width_bins = hi - lo
+            if width_bins < 0.5 * k:
+                continue
+            # the averaging widens a peak: take its own width out in quadrature
+            width_hz = math.sqrt(max(width_bins**2 - k**2 / 3.0, (0.5 * k) ** 2)) * df
+            if any(abs(q.f_hz - f[i]) <= max(0.5 * width_hz, q.width_hz) for q in found):
+                continue
+            pk = Peak(f_hz=float(f[i]), level_db=float(db[i]), prominence_db=float(prom), width_hz=float(width_hz),
+                      broad=True)
+            out.append(pk)
+            found.append(pk)
+    return out
 
 
 def spectrum_db(x: np.ndarray, sample_rate: float) -> tuple[np.ndarray, np.ndarray]:

@@ -351,8 +351,10 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, sa
     level = condition.envelope_db(x, fs, smoothing=smoothing)
     noise_db = condition.noise_floor_db(level, smoothing)
     slow = condition.envelope_db(x, fs, smoothing=2 * smoothing)
+    # the prediction error shows a second tap on a record still ringing from the first
+    inn_level = condition.envelope_db(condition.innovation(x), fs, smoothing=smoothing)
     spans = condition.find_hits(level, fs, noise_db=noise_db, min_hit_snr_db=opts.min_hit_snr_db,
-                                smoothing=smoothing, slow_level_db=slow)
+                                smoothing=smoothing, slow_level_db=slow, innovation_level_db=inn_level)
     band_note = None
     if not spans:
         # a narrowband mode can stand far above its band's noise while the broadband level does
@@ -397,7 +399,9 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, sa
                          clipped=clipped, tones=tuple(tones), i0=i0, smoothing=smoothing)
     hits: list[Hit] = []
     for j, span in enumerate(spans):
-        hits.append(_analyze_hit(ctx, span, prev_end=spans[j - 1].end if j > 0 else 0))
+        earlier = tuple((m.f_d_hz, max(m.beta_per_s / math.pi, 3.0 * (m.f_d_hz_u or 0.0)))
+                        for h in hits for m in h.modes)
+        hits.append(_analyze_hit(ctx, span, prev_end=spans[j - 1].end if j > 0 else 0, earlier=earlier))
 
     used = [h for h in hits if h.used and h.modes]
     if not used and any(h.modes for h in hits):
@@ -510,7 +514,7 @@ def _noise_spectrum(x: np.ndarray, fs: float, spans, level: np.ndarray, noise_db
 
     1. ``"pre_trigger"``: the samples before the first hit's rise (the tap, or the start of a
        drive), less one smoothing width, when they are at least :data:`MIN_NOISE_SAMPLES` and
-       4 smoothing widths long;
+       one smoothing width long;
     2. ``"tail"``: else the record's end after the last block (4 smoothing widths, at least 32
        samples) whose median level is more than 4 dB above the noise floor, when that long;
     3. ``"record_end"``: else the record's last 10 % (at least :data:`MIN_NOISE_SAMPLES`),
@@ -522,7 +526,9 @@ def _noise_spectrum(x: np.ndarray, fs: float, spans, level: np.ndarray, noise_db
     min_len = max(MIN_NOISE_SAMPLES, 4 * sm)
     first = spans[0].rise if spans[0].rise is not None else spans[0].onset
     pre_end = first - sm
-    if pre_end >= min_len:
+    # a pre-trigger of one smoothing width (at least 256 samples) is noise alone: better than
+    # the decay's tail, which a slow mode still fills
+    if pre_end >= max(MIN_NOISE_SAMPLES, sm):
         return (*condition.noise_psd(x[:pre_end], fs), "pre_trigger", None)
     blk = max(32, 4 * sm)
     last = spans[-1].peak
@@ -572,12 +578,19 @@ class _HitContext:
     clip_end: int | None  #: first sample (index in the recording) after the last clipped one in the hit, or None
     seg_end: int  #: index in the recording where the hit's segment ends
     pre_rms: float | None = None  #: RMS of the samples before the hit's rise (None: too few), recording units
+    earlier: tuple = ()  #: (f_hz, width_hz) of modes measured in earlier hits of the record
+
+    def rings_from_earlier(self, f_hz: float, width_hz: float = 0.0) -> bool:
+        """Whether a component at ``f_hz`` is a mode an earlier hit excited: it was there before
+        this hit because it still rings, not because it is a steady tone."""
+        return any(abs(f_hz - f) <= max(w, width_hz, 2.0 * self.spec.df_hz) for f, w in self.earlier)
 
 
-def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
+def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = ()) -> Hit:
     """Every mode of one hit (``span``, from :func:`condition.find_hits` and
     :func:`condition.free_decay_start`); ``prev_end`` is the sample where the previous hit's
-    segment ended (0 for the first). Indices are into ``ctx.x``; times are from the recording's
+    segment ended (0 for the first); ``earlier`` holds ``(f_hz, width_hz)`` of the modes of
+    earlier hits, which still ring when this hit comes. Indices are into ``ctx.x``; times are from the recording's
     first sample (``ctx.i0`` samples before ``ctx.x[0]``)."""
     x, fs, opts = ctx.x, ctx.fs, ctx.opts
     i0 = ctx.i0
@@ -620,30 +633,35 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
         warnings.append(Notice("short_decay", f"hit at {onset_s:.6g} s leaves {seg_end - decay_from} samples of decay"))
         return hit(False)
 
-    # what the record held before the hit's rise (at least 4 smoothing widths of it): bounds the
+    # what the record held before the hit's rise (at least one smoothing width of it): bounds the
     # amplitude any steady tone could have had there
     rise = span.rise if span.rise is not None else span.onset
     pre_x = x[prev_end:max(prev_end, rise - ctx.smoothing)]
-    pre_rms = float(np.sqrt(np.mean(pre_x**2))) if span.kind == "impulse" and pre_x.size >= 4 * ctx.smoothing else None
+    pre_rms = float(np.sqrt(np.mean(pre_x**2))) if span.kind == "impulse" and pre_x.size >= max(ctx.smoothing, 16) else None
     hctx = _HitContext(record=ctx, spec=spectrum_of(x[seg_start:seg_end], fs, t0_s=(seg_start + i0) / fs),
                        onset_s=onset_s, clip_end=None if clip_end is None else clip_end + i0, seg_end=seg_end + i0,
-                       pre_rms=pre_rms)
+                       pre_rms=pre_rms, earlier=earlier)
     rejected: list[Rejected] = []
     cands: list[Candidate] = []
     if opts.bands is not None:
         groups = [([], lo, hi, []) for lo, hi in opts.bands]
     elif model:
         start = _free_decay_start(ctx, span, clip_end) if span.kind == "impulse" else max(span.onset, clip_end or 0)
-        cands, groups = _candidates(ctx, start, seg_end, rejected, clipped=clip_end is not None)
+        cands, groups = _candidates(ctx, start, seg_end, rejected, parametric=clip_end is None)
     else:
-        decay = x[decay_from:seg_end]
-        peaks = find_peaks(decay, fs, max_peaks=opts.max_modes, noise_psd=(ctx.noise_f, ctx.noise_p))
-        groups = [(g, lo, hi, []) for g, lo, hi in
-                  group_bands(peaks, sample_rate=fs, resolution_hz=fs / decay.shape[0], barriers_hz=ctx.tones)]
+        # spectral peaks of the decay as candidates: each one not reported as a mode is named
+        start = decay_from
+        cands, groups = _candidates(ctx, start, seg_end, rejected, parametric=False, max_peaks=opts.max_modes)
     modes: list[Mode] = []
     failed: list[str] = []
+    residual = opts.bands is None and not model and hctx.seg_end - ctx.i0 - start >= MIN_SAMPLES
+    deferred: list[Candidate] = []
     for peaks_g, lo, hi, group_cands in groups:
         n_warn = len(warnings)
+        if residual and _needs_raw_fit(group_cands, lo, hi):
+            # too broad for a band: fitted on the residual, once every other mode is subtracted
+            deferred.extend(group_cands)
+            continue
         try:
             if _needs_raw_fit(group_cands, lo, hi):
                 found = _measure_raw(hctx, group_cands, cands, start)
@@ -657,6 +675,11 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
         found, unmatched = _match_candidates(found, group_cands, steady)
         rejected.extend(unmatched)
         modes.extend(found)
+    if residual:
+        more, more_rejected = _residual_round(hctx, start, modes, [c for c in cands if c not in deferred], deferred)
+        modes.extend(more)
+        rejected.extend(more_rejected)
+    modes = _drop_driven(modes, onset_s, warnings)
     if failed:
         shown = "; ".join(failed[:3]) + (f"; and {len(failed) - 3} more" if len(failed) > 3 else "")
         warnings.append(Notice("fit_failed", f"{len(failed)} band(s) in the hit at {onset_s:.6g} s could not be fitted: {shown}"))
@@ -670,6 +693,133 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int) -> Hit:
     modes = [m.with_updates(index=i + 1) for i, m in enumerate(modes)]
     warnings.extend(r.notice() for r in rejected)
     return hit(used, modes, rejected)
+
+
+#: Rounds of the residual search (each subtracts every mode measured so far and looks again).
+RESIDUAL_ROUNDS = 2
+
+
+def _subtract_modes(seg: np.ndarray, fs: float, modes: Sequence[Mode]) -> np.ndarray:
+    """``seg`` less the least-squares sum of the damped cosines of ``modes`` (their poles fixed,
+    amplitudes and phases fitted on ``seg``; t = 0 at ``seg[0]``)."""
+    if not modes:
+        return np.array(seg, dtype=np.float64)
+    t = np.arange(seg.shape[0]) / fs
+    cols = []
+    for m in modes:
+        e = np.exp(-m.beta_per_s * t)
+        w = 2.0 * math.pi * m.f_d_hz * t
+        cols += [e * np.cos(w), e * np.sin(w)]
+    phi = np.stack(cols, axis=1)
+    coef, *_ = np.linalg.lstsq(phi, seg, rcond=None)
+    return seg - phi @ coef
+
+
+def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: list[Candidate],
+                    deferred: Sequence[Candidate] = ()):
+    """Modes the first search could not see beside stronger ones: subtract every measured mode
+    from the decay (CLEAN, Hogbom 1974 [from memory]: successive cancellation of the strongest
+    components), look for spectral peaks in what is left against the same noise spectrum, and
+    measure each new one: in its band of the record (bounded by the measured modes) when the band
+    has room, else on the residual itself (a broad, fast decay: raw fit). The ``deferred``
+    candidates (too broad for a band) are fitted on the first residual. Broad peaks
+    (``find_peaks(broad=True)``) are looked for in the first residual only, where the sharp
+    modes and their skirts are gone; later rounds look for sharp peaks only, since subtracting a
+    strong broad mode leaves a broadband remnant. Returns ``(modes, rejected)``."""
+    ctx = hctx.record
+    fs, x = ctx.fs, ctx.x
+    seg_end = hctx.seg_end - ctx.i0
+    known = list(modes)
+    tried = [(c.f_hz, max(c.width_hz, c.resolution_hz)) for c in cands]
+    new_modes: list[Mode] = []
+    rejected: list[Rejected] = []
+    decay = x[start:seg_end]
+    res_hz = fs / decay.shape[0]
+    if deferred:
+        resid = _subtract_modes(decay, fs, known)
+        peaks_d = [Peak(c.f_hz, float("nan"), float("nan"), c.width_hz, broad=True) for c in deferred]
+        of_peak = {id(p): c for p, c in zip(peaks_d, deferred)}
+        for g, lo, hi in group_bands(peaks_d, sample_rate=fs, resolution_hz=res_hz, barriers_hz=ctx.tones):
+            gc = [of_peak[id(p)] for p in g]
+            try:
+                got = _measure_residual(hctx, resid, start, gc)
+            except FitError as exc:
+                rejected.extend(_rejection(c, "fit_failed", str(exc)) for c in gc)
+                continue
+            got = [m for m in got if not any(abs(m.f_d_hz - k.f_d_hz) <= max(k.beta_per_s / math.pi, 3.0 * res_hz)
+                                             for k in known)]
+            got, unmatched = _match_candidates(got, gc, False)
+            rejected.extend(unmatched)
+            known += got
+            new_modes += got
+    for round_ in range(RESIDUAL_ROUNDS):
+        resid = _subtract_modes(decay, fs, known)
+        # broad peaks in the first residual only: after a strong broad mode is subtracted, its
+        # broadband remnant makes humps a smoothed search would take for modes
+        peaks = find_peaks(resid, fs, noise_psd=(ctx.noise_f, ctx.noise_p), broad=round_ == 0)
+        fresh = []
+        for p in peaks:
+            near_mode = any(abs(p.f_hz - m.f_d_hz) <= max(2.0 * m.beta_per_s / math.pi, 3.0 * res_hz,
+                                                          3.0 * (m.f_d_hz_u or 0.0)) for m in known)
+            near_cand = any(abs(p.f_hz - f) <= max(w, 2.0 * res_hz) for f, w in tried)
+            if not (near_mode or near_cand):
+                fresh.append(p)
+        if not fresh:
+            break
+        tried += [(p.f_hz, max(p.width_hz, res_hz)) for p in fresh]
+        barriers = tuple(ctx.tones) + tuple(m.f_d_hz for m in known)
+        found_round: list[Mode] = []
+        for g, lo, hi in group_bands(fresh, sample_rate=fs, resolution_hz=res_hz, barriers_hz=barriers):
+            gc = [Candidate(p.f_hz, math.pi * p.width_hz, max(p.width_hz, res_hz), None, None, "residual", -2, res_hz)
+                  for p in g]
+            try:
+                if _needs_raw_fit(gc, lo, hi) or any(lo < m.f_d_hz < hi for m in known):
+                    got = _measure_residual(hctx, resid, start, gc)
+                else:
+                    got = _measure_group(hctx, g, lo, hi, [])
+            except FitError as exc:
+                reason = "near_noise" if "above its band noise" in str(exc) else "fit_failed"
+                rejected.extend(_rejection(c, reason, str(exc)) for c in gc)
+                continue
+            got = [m for m in got if not any(abs(m.f_d_hz - k.f_d_hz) <= max(k.beta_per_s / math.pi, 3.0 * res_hz)
+                                             for k in known + found_round)]
+            got, unmatched = _match_candidates(got, gc, False)
+            rejected.extend(unmatched)
+            found_round.extend(got)
+        if not found_round:
+            break
+        known += found_round
+        new_modes += found_round
+    return new_modes, rejected
+
+
+def _measure_residual(hctx: _HitContext, resid: np.ndarray, start: int, targets: list[Candidate]) -> list[Mode]:
+    """Targets fitted as real damped cosines on the residual of the decay (every measured mode
+    subtracted), from the decay's start, over as long as the slowest target stands above the noise."""
+    from .estimators.real import estimate_real
+
+    ctx = hctx.record
+    fs = ctx.fs
+    t_rest = resid.shape[0] / fs
+    targets = [c if c.beta_per_s is not None else replace(c, beta_per_s=math.pi * c.width_hz) for c in targets]
+    dur = 0.0
+    for c in targets:
+        density = float(detect.noise_density(c.f_hz, ctx.noise_f, ctx.noise_p))
+        amp = math.sqrt(max(float(np.mean(resid[: max(8, int(fs / c.f_hz))] ** 2)) * 2.0, 1e-300))
+        d = detect.mf_snr(amp, c.beta_per_s, t_rest, density)
+        dur = max(dur, math.log(max(d, math.e**2)) / (2.0 * c.beta_per_s))
+    dur = min(max(dur, 20.0 / min(c.f_hz for c in targets)), t_rest)
+    t0 = (start + ctx.i0) / fs
+    ests = estimate_real(resid, fs, t0_s=t0, poles=[(c.f_hz, c.beta_per_s) for c in targets], n_targets=len(targets),
+                         duration_s=dur, noise_f=ctx.noise_f, noise_p=ctx.noise_p)
+    out = []
+    for est in ests:
+        if DB_PER_NEPER * est.beta_per_s * t_rest < 6.0:
+            continue  # decays less than 6 dB over the hit: left to the band search, as in _measure_raw
+        density = float(detect.noise_density(est.f_d_hz, ctx.noise_f, ctx.noise_p))
+        noise_rms = math.sqrt(max(2.0 * density * est.beta_per_s / math.pi, 1e-300))
+        out.append(_make_raw_mode(est, noise_rms, resid, fs, t0))
+    return out
 
 
 #: A group is fitted on the raw record when a mode's band would reach less than this many
@@ -700,16 +850,19 @@ def _free_decay_start(ctx: _RecordContext, span, clip_end: int | None) -> int:
     return max(start, clip_end or 0)
 
 
-def _candidates(ctx: _RecordContext, start: int, seg_end: int, rejected: list[Rejected], *, clipped: bool = False):
+def _candidates(ctx: _RecordContext, start: int, seg_end: int, rejected: list[Rejected], *, parametric: bool = True,
+                max_peaks: int | None = None):
     """Candidates of one decay (``detect.find_candidates``) and their bands (``group_bands``);
     candidates not measured are appended to ``rejected``.
 
     Returns ``(candidates, groups)``, each group ``(peaks, lo_hz, hi_hz, candidates)``."""
     x, fs = ctx.x, ctx.fs
     decay = x[start:seg_end]
-    spectral = find_peaks(decay, fs, noise_psd=(ctx.noise_f, ctx.noise_p))
+    # the default search looks for broad peaks only once the sharp modes are subtracted (their
+    # skirts and the valleys between them make broad humps of the smoothed spectrum)
+    spectral = find_peaks(decay, fs, noise_psd=(ctx.noise_f, ctx.noise_p), max_peaks=max_peaks, broad=parametric)
     found, below = detect.find_candidates(x, fs, start=start, end=seg_end, noise_f=ctx.noise_f, noise_p=ctx.noise_p,
-                                          spectral=spectral, parametric=not clipped)
+                                          spectral=spectral, parametric=parametric)
     thr_db = 10.0 * math.log10(detect.snr_threshold(seg_end - start, fs))
     for c in below:
         rejected.append(_rejection(c, "near_noise", f"matched-filter SNR {c.snr_db:.1f} dB, below the {thr_db:.1f} dB "
@@ -887,7 +1040,8 @@ def _measure_group(hctx: _HitContext, peaks_g: list[Peak], lo: float, hi: float,
     group_band = _extract(spec, lo, hi, noise_f, noise_p)
     # first guess of the decay rate from the spectral peaks' half-power width (beta ~ pi width)
     beta_hint = max((math.pi * p.width_hz for p in peaks_g), default=0.0)
-    if peaks_g and _steady_before_onset(group_band, onset_s, beta_hint):
+    ringing = bool(peaks_g) and all(hctx.rings_from_earlier(p.f_hz, p.width_hz) for p in peaks_g)
+    if peaks_g and not ringing and _steady_before_onset(group_band, onset_s, beta_hint):
         near = 2.0 * (noise_f[1] - noise_f[0])  # two Welch bins
         if all(any(abs(p.f_hz - f) <= near for f in tones) for p in peaks_g):
             return []  # already named at the recording level
@@ -949,15 +1103,71 @@ def _measure_group(hctx: _HitContext, peaks_g: list[Peak], lo: float, hi: float,
         else:
             _, found, sb, sw = min(cross, key=lambda c: abs(c[0] - est.f_d_hz))
             others = {k: v for k, v in found.items() if k != est.method}
-        if _is_stationary(est, sb, sw, seg_end / fs, pre_rms=hctx.pre_rms):
-            hit_warnings.append(Notice("stationary_tone", f"steady tone at {est.f_d_hz:.1f} Hz does not decay (mains hum or "
-                                                          "another running source?); not reported as a mode"))
-            continue
-        mode = _make_mode(est, others, band, window, extra)
+        unresolved_decay: list[Notice] = []
+        if not hctx.rings_from_earlier(est.f_d_hz) and _is_stationary(est, sb, sw, seg_end / fs, pre_rms=hctx.pre_rms):
+            if not _started_with_hit(est, hctx.pre_rms):
+                hit_warnings.append(Notice("stationary_tone", f"steady tone at {est.f_d_hz:.1f} Hz does not decay (mains "
+                                                              "hum or another running source?); not reported as a mode"))
+                continue
+            unresolved_decay.append(_decay_unresolved(est))
+        mode = _make_mode(est, others, band, window, extra + unresolved_decay)
         if len(peaks_g) <= 1:
             mode = _amplitude_dependence(mode, sb, sw)
         modes.append(mode)
     return modes
+
+
+def _started_with_hit(est: Estimate, pre_rms: float | None) -> bool:
+    """Whether a component too far above what the record held before the hit to have been there
+    (amplitude over ``sqrt(2) pre_rms`` by ``STEADY_MARGIN_DB``) started with the hit."""
+    return pre_rms is not None and est.amplitude is not None and \
+        est.amplitude > math.sqrt(2.0) * pre_rms * 10 ** (STEADY_MARGIN_DB / 20)
+
+
+def _decay_unresolved(est: Estimate) -> Notice:
+    """The warning on a mode that started with the hit but whose decay the record does not resolve."""
+    u = est.beta_per_s_u or 0.0
+    f_n = math.hypot(est.f_d_hz, est.beta_per_s / (2.0 * math.pi))
+    q_low = math.pi * f_n / max(est.beta_per_s + 2.0 * u, 1e-300)
+    return Notice("decay_unresolved", f"mode at {est.f_d_hz:.6g} Hz started with the hit but decays too little in the record "
+                                      f"to measure: beta = {est.beta_per_s:.3g} +- {u:.2g} 1/s, Q above about {q_low:.3g} "
+                                      "(beta + 2u); record longer for its damping. Alone in a hit it is taken for a drive "
+                                      "switched on, not a mode")
+
+
+#: A component that does not decay, within this many half-power bandwidths of a decaying mode of
+#: the same hit and within FORCED_LEVEL_DB of its level at the onset, is the forced response of a
+#: drive switched on near that resonance: switched on from rest, the forced response and the
+#: resonance's free transient start with comparable amplitudes (they cancel at t = 0), and the
+#: transient decays while the drive runs on (common practice, no source).
+FORCED_BANDWIDTHS = 3.0
+FORCED_LEVEL_DB = 10.0
+
+
+def _drop_driven(modes: list[Mode], onset_s: float, warnings: list[Notice]) -> list[Mode]:
+    """The hit's modes less those whose decay is unresolved and that are a drive switched on
+    (alone in the hit, or the forced response next to a resonance's start-up transient: see
+    ``FORCED_BANDWIDTHS``); each dropped one is named as a steady tone in ``warnings``."""
+    def unresolved(m: Mode) -> bool:
+        return any(w.code == "decay_unresolved" for w in m.warnings)
+
+    def at_onset(m: Mode) -> float:
+        return (m.amplitude or 0.0) * math.exp(min(m.beta_per_s * max(m.fit_start_s - onset_s, 0.0), 700.0))
+
+    decaying = [m for m in modes if not unresolved(m)]
+    out = []
+    for m in modes:
+        if unresolved(m):
+            driven = not decaying or any(
+                abs(m.f_d_hz - d.f_d_hz) <= FORCED_BANDWIDTHS * d.beta_per_s / math.pi
+                and abs(20.0 * math.log10(max(at_onset(m), 1e-300) / max(at_onset(d), 1e-300))) <= FORCED_LEVEL_DB
+                for d in decaying)
+            if driven:
+                warnings.append(Notice("stationary_tone", f"steady tone at {m.f_d_hz:.1f} Hz does not decay and started "
+                                                          "with the hit (a drive switched on?); not reported as a mode"))
+                continue
+        out.append(m)
+    return out
 
 
 def _level_before_onset(band: Band, onset_s: float, settle_s: float) -> float | None:

@@ -1,4 +1,5 @@
-"""Mode detection from the signal model (ringdown.detect) through the whole pipeline.
+"""Mode detection through the whole pipeline, with both searches (the default spectral one and the
+model-based ringdown.detect).
 
 Exact references: analytic damped cosines (FIELD.md section 1) and a 3-DOF chain whose truth is
 the complex eigenvalues of its state matrix (numpy.linalg.eig), its response stepped exactly with
@@ -21,10 +22,21 @@ from ringdown.results import REJECTION_REASONS
 from conftest import ringdown_modes
 
 
+@pytest.fixture(autouse=True, params=["spectral", "model"])
+def detection(request):
+    """Every test runs with the default search (``spectral``: spectral peaks, then the residual
+    search with the measured modes subtracted) and the experimental model-based one."""
+    global _DETECTION
+    _DETECTION = request.param
+    yield request.param
+
+
+_DETECTION = "spectral"
+
+
 def analyze(x, fs, **options):
-    """The pipeline with the model-based mode search (``detection="model"``, experimental and
-    not yet the default), which these tests are about."""
-    return _analyze(x, fs, detection="model", **options)
+    """The pipeline with the search under test (see the ``detection`` fixture)."""
+    return _analyze(x, fs, detection=_DETECTION, **options)
 
 
 def _heavy(f_n, zeta):
