@@ -27,9 +27,9 @@ import pytest
 from scipy import integrate, linalg
 
 from conftest import ringdown_modes, write_wav
-from ringdown.pipeline import analyze, analyze_many
-from ringdown.errors import InputError, NoRingdownError, ParameterError
-from ringdown.results import mode_keys
+from ringdown.analysis.pipeline import analyze, analyze_many
+from ringdown.base.errors import InputError, NoRingdownError, ParameterError
+from ringdown.analysis.results import mode_keys
 
 F_RTOL = 5e-4  # 0.05 %: project brief
 BETA_RTOL = 0.03  # 3 %: project brief
@@ -426,7 +426,7 @@ def test_silent_first_channel_points_to_the_channel_option(tmp_path):
     # and that there are others (soundfile writes the file; the signal is invented)
     import soundfile as sf
 
-    from ringdown.pipeline import analyze_file
+    from ringdown.analysis.pipeline import analyze_file
 
     fs = 16000
     x = ringdown_modes([(700.0, 9.0, 0.5)], sample_rate=fs, duration_s=1.0, seed=5)
@@ -443,7 +443,7 @@ def test_unknown_option_is_a_parameter_error():
     # the keyword-passing entry points (analyze_file, analyze_recording, analyze_many) name a
     # misspelt or foreign option instead of raising a raw TypeError
     from ringdown import Recording
-    from ringdown.pipeline import analyze_recording
+    from ringdown.analysis.pipeline import analyze_recording
 
     x = ringdown_modes([(440.0, 12.0, 1.0)], sample_rate=8000.0, duration_s=0.5, seed=4)
     with pytest.raises(ParameterError, match="unknown analysis option.*'min_snr'"):

@@ -19,9 +19,9 @@ from hypothesis import strategies as st
 from hypothesis.extra import numpy as hnp
 from typer.testing import CliRunner
 
-from ringdown.pipeline import analyze
+from ringdown.analysis.pipeline import analyze
 from ringdown.cli import app
-from ringdown.errors import NoRingdownError, RingdownError
+from ringdown.base.errors import NoRingdownError, RingdownError
 
 FS = 8000
 

@@ -16,11 +16,11 @@ from typer.testing import CliRunner
 
 from ringdown import __version__
 from ringdown.cli import app
-from ringdown.results import mode_keys
+from ringdown.analysis.results import mode_keys
 
 F_REF = (440.0, 1250.0)
 BETA_REF = (12.0, 20.0)
-ROW = re.compile(r"^\s+(\d+)\s+(\d+\.\d+)(?:\(\d+\))?\s")  # '611.999885(83)': value(u), ringdown.numfmt
+ROW = re.compile(r"^\s+(\d+)\s+(\d+\.\d+)(?:\(\d+\))?\s")  # '611.999885(83)': value(u), ringdown.base.numfmt
 
 
 def run(*args):

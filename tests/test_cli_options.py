@@ -23,7 +23,7 @@ from typer.testing import CliRunner
 from ringdown.cli import app
 from ringdown.cli._common import parse_channel
 from ringdown.cli._options import READER_OPTIONS, reader_options
-from ringdown.limits import parse_limits, read_limits
+from ringdown.inspection.limits import parse_limits, read_limits
 
 from conftest import ringdown_modes, write_wav  # noqa: E402
 
@@ -137,7 +137,7 @@ def test_table_has_loss_factor_log_decrement_f_r_and_f_n_uncertainty(two_mode_wa
     for col in ("f_n", "eta", "delta", "f_r"):
         assert any(h.startswith(col) for h in head), head
     row = lines[2].split()
-    from ringdown.numfmt import fmt_pm
+    from ringdown.base.numfmt import fmt_pm
 
     # f_n with its uncertainty, eta and delta as the JSON holds them, in the one number format
     assert fmt_pm(m["f_n_hz"], m["f_n_hz_u"], digits=7) in row
@@ -265,7 +265,7 @@ def test_reader_table_is_checked():
     assert parse_limits(base + "[reader]\nchannel = 2\nsample_rate = 51200.0\n").reader == {
         "channel": 2, "sample_rate": 51200.0}
     assert parse_limits(base).reader == {}
-    from ringdown.errors import LimitsError
+    from ringdown.base.errors import LimitsError
 
     with pytest.raises(LimitsError, match=r"\[reader\] has unknown key\(s\) \['gain'\]"):
         parse_limits(base + "[reader]\ngain = 2\n")

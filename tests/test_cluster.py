@@ -24,11 +24,11 @@ import typer
 from typer.testing import CliRunner
 
 import ringdown
-from ringdown.check import iter_check_files
+from ringdown.inspection.check import iter_check_files
 from ringdown.cli import analyze as analyze_cli
 from ringdown.cli import limits as limits_cli
-from ringdown.cluster import ClusterExecutor, connect, iter_results, open_client
-from ringdown.errors import ClusterError
+from ringdown.base.cluster import ClusterExecutor, connect, iter_results, open_client
+from ringdown.base.errors import ClusterError
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "example_signals"
 LINE = sorted(str(p) for p in (EXAMPLES / "line").glob("*.wav"))
@@ -111,7 +111,7 @@ def _failed(item, exc):
 
 def test_any_exception_is_that_items_result(client):
     got = dict(iter_results(client, _boom, [0, 1, 2, 3], on_error=_failed))
-    # the local batch's wording (ringdown.batch.as_ringdown_error)
+    # the local batch's wording (ringdown.base.batch.as_ringdown_error)
     assert got == {0: 0, 1: 10, 3: 30, 2: ("failed", 2, "internal", "internal error ZeroDivisionError: division by "
                                                                   "zero in a test task")}
 
@@ -165,7 +165,7 @@ def test_check_on_cluster_matches_local(client, local, tmp_path):
     assert r.exit_code == 1, r.output  # failures, no error
     doc = json.loads(r.stdout)
     assert [res["verdict"] for res in doc["results"]] == ["fail", "pass", "pass", "fail"]
-    from ringdown.parquet import read_dataset
+    from ringdown.inspection.parquet import read_dataset
 
     rows = read_dataset(tmp_path / "ds").to_pylist()
     assert {(x["file"], x["verdict"]) for x in rows} == {(res["path"], res["verdict"]) for res in doc["results"]}
@@ -185,7 +185,7 @@ def test_cli_scheduler_errors_are_one_line(monkeypatch):
     assert r.exit_code == 2
     assert r.stderr.strip().splitlines() == ["ringdown: error: --scheduler 'local:two': local:N needs a whole number "
                                              "of worker processes N >= 1 (e.g. local:4)"]
-    monkeypatch.setattr("ringdown.cluster.CONNECT_TIMEOUT_S", 1.0)
+    monkeypatch.setattr("ringdown.base.cluster.CONNECT_TIMEOUT_S", 1.0)
     r = runner.invoke(app, ["analyze", LINE[0], "--scheduler", "tcp://127.0.0.1:9"])  # loopback, nothing listens
     assert r.exit_code == 2
     lines = r.stderr.strip().splitlines()
@@ -196,7 +196,7 @@ def test_cli_scheduler_errors_are_one_line(monkeypatch):
 
 
 def test_workers_of_another_version_are_refused(client, monkeypatch):
-    monkeypatch.setattr("ringdown.cluster.worker_versions", lambda c: {"tcp://worker-a:4000": "0.0.1",
+    monkeypatch.setattr("ringdown.base.cluster.worker_versions", lambda c: {"tcp://worker-a:4000": "0.0.1",
                                                                       "tcp://worker-b:4000": ringdown.__version__})
     with pytest.raises(ClusterError) as info:
         connect(client.scheduler.address)

@@ -1,4 +1,4 @@
-"""Tests of ringdown.compare: matching, statistics, verdicts, notices, and a simulated treatment.
+"""Tests of ringdown.treatment.compare: matching, statistics, verdicts, notices, and a simulated treatment.
 
 References used here:
 - scipy.stats.ttest_ind(equal_var=False) and its confidence_interval(): Welch's test, the exact
@@ -22,10 +22,10 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import stats
 
-from ringdown.compare import compare, match_frequencies
-from ringdown.errors import InputError, ParameterError
-from ringdown.quantities import derive
-from ringdown.results import Analysis, Hit, Mode, Notice
+from ringdown.treatment.compare import compare, match_frequencies
+from ringdown.base.errors import InputError, ParameterError
+from ringdown.analysis.quantities import derive
+from ringdown.analysis.results import Analysis, Hit, Mode, Notice
 
 
 # --------------------------------------------------------------------------------------------
@@ -253,7 +253,7 @@ def test_false_alarm_rate_welch():
     # Welch's test is close to exact for equal n and variances (Welch 1947); the count of
     # "changed" verdicts over 600 comparisons must fall inside the 99.9 % binomial band of p=0.05
     # (14-49 alarms, 2.3-8.2 %). Run at the statistics level (per-hit ln zeta values) to stay fast.
-    from ringdown.compare import _Sample, _two_sample, _verdict
+    from ringdown.treatment.compare import _Sample, _two_sample, _verdict
 
     rng = np.random.default_rng(7)
     n_trials, alarms, covered = 600, 0, 0
@@ -338,7 +338,7 @@ def test_errors():
 
 
 def test_comparison_rows_keys_are_stable():
-    from ringdown.compare import comparison_rows
+    from ringdown.treatment.compare import comparison_rows
 
     rng = np.random.default_rng(13)
     b = make_analysis(repeats([300.0, 800.0], [0.002, 0.003], 3, rng))
@@ -352,8 +352,8 @@ def test_comparison_rows_keys_are_stable():
 def test_plot_and_html_escape():
     from matplotlib.figure import Figure
 
-    from ringdown.compare_plot import plot_comparison
-    from ringdown.report import comparison_html, render_comparison_report
+    from ringdown.render.compare_plot import plot_comparison
+    from ringdown.render.report import comparison_html, render_comparison_report
 
     rng = np.random.default_rng(14)
     b = make_analysis(repeats([300.0, 800.0], [0.002, 0.003], 3, rng), path="bare <1>&.wav")
@@ -476,7 +476,7 @@ def test_chain_simulation_is_exact():
 
 @pytest.fixture(scope="module")
 def chain_analyses():
-    from ringdown.pipeline import analyze
+    from ringdown.analysis.pipeline import analyze
 
     out = {}
     for name, (m, c), seed in (("before", UNTREATED, 101), ("again", UNTREATED, 102), ("after", TREATED, 103)):

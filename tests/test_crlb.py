@@ -1,4 +1,4 @@
-"""Tests of ringdown.crlb: the Cramer-Rao bound of a damped sinusoid in white Gaussian noise."""
+"""Tests of ringdown.analysis.crlb: the Cramer-Rao bound of a damped sinusoid in white Gaussian noise."""
 
 from __future__ import annotations
 
@@ -9,8 +9,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from ringdown.crlb import CramerRao, crlb_damped_sinusoid
-from ringdown.errors import ParameterError
+from ringdown.analysis.crlb import CramerRao, crlb_damped_sinusoid
+from ringdown.base.errors import ParameterError
 
 
 def _bound(n, beta_t, snr_db, *, f=0.1, phi=0.3, sample_rate=1.0):

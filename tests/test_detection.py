@@ -1,5 +1,5 @@
 """Mode detection through the whole pipeline, with both searches (the default spectral one and the
-model-based ringdown.detect).
+model-based ringdown.analysis.detect).
 
 Exact references: analytic damped cosines (FIELD.md section 1) and a 3-DOF chain whose truth is
 the complex eigenvalues of its state matrix (numpy.linalg.eig), its response stepped exactly with
@@ -16,8 +16,8 @@ import pytest
 from scipy import linalg
 
 from ringdown import analyze as _analyze
-from ringdown.errors import NoRingdownError
-from ringdown.results import REJECTION_REASONS
+from ringdown.base.errors import NoRingdownError
+from ringdown.analysis.results import REJECTION_REASONS
 
 from conftest import ringdown_modes
 

@@ -18,8 +18,8 @@ import soundfile as sf
 
 from long_records import MODES, NOISE_RMS, damped, write_long_record
 from ringdown import analyze_file
-from ringdown.blocks import ArrayBlocks, Paced, SoundFileBlocks
-from ringdown.engine import (FRAME_SAMPLES, LONG_FILE_SAMPLES, QUIET_FRAMES, Segmenter, analyze_blocks,
+from ringdown.io.blocks import ArrayBlocks, Paced, SoundFileBlocks
+from ringdown.analysis.engine import (FRAME_SAMPLES, LONG_FILE_SAMPLES, QUIET_FRAMES, Segmenter, analyze_blocks,
                              analyze_long_file, is_long_sound_file)
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "example_signals"
@@ -169,7 +169,7 @@ def test_paced_source_keeps_real_time():
 
 
 def test_sound_file_blocks_check_their_options(tmp_path):
-    from ringdown.errors import InputError, ParameterError
+    from ringdown.base.errors import InputError, ParameterError
 
     with pytest.raises(ParameterError, match="channel 3 is out of range"):
         SoundFileBlocks(WAVS[0], channel=3)
@@ -217,3 +217,15 @@ def test_analyze_command_on_a_long_file(session, tmp_path):
     assert len(rec["hits"]) == len(taps) and "segmented" in [w["code"] for w in rec["warnings"]]
     # no figure can be drawn without the samples, and the command says so
     assert "no samples kept: its figures are not drawn" in r.stderr
+
+
+def test_digital_silence_before_the_noise_is_no_tap():
+    # a virtual sound card delivers exact zeros until something plays: the rise from zeros to the
+    # noise must not trigger, the tap after it must
+    fs = 16_000.0
+    x, starts = _taps(1, fs, period=32_000, pre=8000)
+    x = np.concatenate([np.zeros(6000), x])
+    seg = Segmenter(fs, min_segment=0, one_hit_per_segment=True)
+    segments = [s for blk in ArrayBlocks(x, fs, block_samples=1000) for s in seg.feed(blk)] + seg.finish()
+    triggers = [t for s in segments for t in s.triggers]
+    assert len(triggers) == 1 and 0 <= triggers[0] - (6000 + starts[0]) + FRAME_SAMPLES <= 3 * FRAME_SAMPLES

@@ -160,7 +160,7 @@ def test_overflow_in_one_file_keeps_the_other_results_and_stores_them(parts, tmp
 def test_memory_error_in_one_file_is_that_files_error(parts, monkeypatch):
     # MemoryError cannot be provoked portably without starving the machine: raise it where the
     # analysis of one file would run out of memory, and see the batch go on
-    import ringdown.pipeline as pipeline
+    import ringdown.analysis.pipeline as pipeline
 
     real = pipeline.analyze_file
 
@@ -249,7 +249,7 @@ def _as_error(item, exc):
 
 
 def test_worker_dying_twice_is_reported_for_that_item_only():
-    from ringdown.batch import run_batch
+    from ringdown.base.batch import run_batch
 
     out = dict(run_batch(_die_on, ["a", "die", "b", "c"], on_error=_as_error, jobs=2))
     assert out[0] == "A" and out[2] == "B" and out[3] == "C"

@@ -30,8 +30,8 @@ from ringdown import analyze_file, read_recording  # noqa: E402
 from ringdown.cli import app  # noqa: E402
 from ringdown.cli._common import expand_inputs, parse_channel  # noqa: E402
 from ringdown.cli.analyze import format_table  # noqa: E402
-from ringdown.errors import InputError, ParameterError  # noqa: E402
-from ringdown.formats import find_reader  # noqa: E402
+from ringdown.base.errors import InputError, ParameterError  # noqa: E402
+from ringdown.io.formats import find_reader  # noqa: E402
 
 FS = 48000.0  # Hz: 1/FS = 2.0833...e-05 s is not exact in UFF's E13.5 increment (see test_uff_rate)
 MODES = [(612.0, 11.5, 1.0), (1587.0, 22.0, 0.5, 0.3)]  # (f_d Hz, beta 1/s, amplitude[, phase]), invented
@@ -589,7 +589,7 @@ def test_random_content_after_a_signature_gives_one_line_errors(ext, tmp_path):
     from hypothesis import HealthCheck, given, settings
     from hypothesis import strategies as st
 
-    from ringdown.errors import RingdownError
+    from ringdown.base.errors import RingdownError
 
     @settings(max_examples=25, deadline=None, derandomize=True,
               suppress_health_check=[HealthCheck.function_scoped_fixture])

@@ -25,7 +25,7 @@ import pytest
 from scipy.integrate import solve_ivp
 
 from ringdown import analyze
-from ringdown.errors import NoRingdownError
+from ringdown.base.errors import NoRingdownError
 
 L_H, C_F = 1e-3, 100e-9  # invented circuit: 1 mH, 100 nF -> f_0 = 15.92 kHz
 W0 = 1.0 / math.sqrt(L_H * C_F)

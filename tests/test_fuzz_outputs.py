@@ -24,10 +24,10 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from ringdown.errors import InputError, LimitsError
-from ringdown.limits import parse_limits
-from ringdown.outputs import shown
-from ringdown.results import Analysis, results_document
+from ringdown.base.errors import InputError, LimitsError
+from ringdown.inspection.limits import parse_limits
+from ringdown.io.outputs import shown
+from ringdown.analysis.results import Analysis, results_document
 
 FORMULA = ("=", "+", "-", "@", "\t", "\r")
 HIDDEN = re.compile("[\x00-\x1f\x7f-\x9f\u061c\u200e\u200f\u2028\u2029\u202a-\u202e\u2066-\u2069\ufeff]")
@@ -88,7 +88,7 @@ def _assert_finite_limits(lim) -> None:
         assert all(math.isfinite(v) for v in mh.mean)
         assert all(math.isfinite(v) for row in mh.covariance for v in row)
         assert math.isfinite(mh.threshold) and mh.threshold > 0
-    from ringdown.pipeline import AnalysisOptions
+    from ringdown.analysis.pipeline import AnalysisOptions
 
     opts = {k: v for k, v in lim.analysis_options().items() if k not in ("channel", "column", "sample_rate")}
     AnalysisOptions.from_kwargs(opts)  # every stored analysis option is one the analysis accepts
@@ -172,7 +172,7 @@ def test_analyze_csv_writer_with_hostile_names(tmp_path, names):
 @given(part=hostile, path=hostile, reason=hostile)
 def test_check_csv_writer_with_hostile_names(tmp_path, part, path, reason):
     from ringdown.cli.limits import _write_csv
-    from ringdown.limits import parse_limits as parse
+    from ringdown.inspection.limits import parse_limits as parse
 
     lim = parse(BASE)
     row = {"part_id": part, "path": path, "sha256": None, "verdict": "fail", "skipped": False,
@@ -192,7 +192,7 @@ def test_check_csv_writer_with_hostile_names(tmp_path, part, path, reason):
 @given(part=hostile, station=hostile, operator=hostile)
 def test_history_csv_writer_with_hostile_names(tmp_path, part, station, operator):
     from ringdown.cli.history import _write_csv
-    from ringdown.store import StoredResult
+    from ringdown.inspection.store import StoredResult
 
     rec = StoredResult(id=1, kind="check", part_id=part, path="p.wav", sha256=None, tested_utc="2026-01-01T00:00:00Z",
                        station=station, operator=operator, tool_version="0", limits_sha256=None, verdict="pass",

@@ -1,4 +1,4 @@
-"""Tests of ringdown.io.read_recording.
+"""Tests of ringdown.io.read.read_recording.
 
 Every fixture file is written here with the standard library (``wave``, ``csv``, plain text) or
 with soundfile, never by ringdown. Signals are invented decaying sinusoids.
@@ -18,9 +18,9 @@ import soundfile as sf
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from ringdown.errors import InputError, ParameterError, RingdownError
-from ringdown.io import MAX_TIMING_JITTER, MIN_SAMPLES, read_recording
-from ringdown.recording import Recording
+from ringdown.base.errors import InputError, ParameterError, RingdownError
+from ringdown.io.read import MAX_TIMING_JITTER, MIN_SAMPLES, read_recording
+from ringdown.io.recording import Recording
 
 FS = 8000.0  # Hz, invented
 N = 2000

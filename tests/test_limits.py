@@ -13,14 +13,14 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy.spatial.distance import mahalanobis as scipy_mahalanobis
 
-from ringdown.pipeline import analyze as rd_analyze
-from ringdown.check import check
-from ringdown.errors import LimitsError, ParameterError
-from ringdown.limits import (Limits, MahalanobisLimits, ModeLimits, learn_limits, limits_to_toml, parse_limits,
+from ringdown.analysis.pipeline import analyze as rd_analyze
+from ringdown.inspection.check import check
+from ringdown.base.errors import LimitsError, ParameterError
+from ringdown.inspection.limits import (Limits, MahalanobisLimits, ModeLimits, learn_limits, limits_to_toml, parse_limits,
                              read_limits, write_limits)
-from ringdown.quantities import derive
-from ringdown.results import Analysis, Mode
-from ringdown.tolerance import tolerance_k
+from ringdown.analysis.quantities import derive
+from ringdown.analysis.results import Analysis, Mode
+from ringdown.inspection.tolerance import tolerance_k
 
 from conftest import line_sim as sim  # noqa: E402
 

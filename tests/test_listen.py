@@ -16,9 +16,9 @@ import pytest
 import soundfile as sf
 from typer.testing import CliRunner
 
-from ringdown.blocks import ArrayBlocks
+from ringdown.io.blocks import ArrayBlocks
 from ringdown.cli import app
-from ringdown.live import PartIds, Station
+from ringdown.inspection.station import PartIds, Station
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "example_signals"
 LINE = sorted(str(p) for p in (EXAMPLES / "line").glob("*.wav"))
@@ -78,7 +78,7 @@ def test_listen_stores_each_part_with_station_and_operator(line_limits, tmp_path
     r = runner.invoke(app, ["listen", "--replay", str(session), "--speed", "0", "--limits", line_limits, "--store",
                             "--db", str(db), "--station", "EOL-2", "--operator", "kim", "--first", "40"])
     assert r.exit_code == 0, r.output
-    from ringdown.store import ResultStore
+    from ringdown.inspection.store import ResultStore
 
     with ResultStore(db) as st:
         rows = st.query()
@@ -98,7 +98,7 @@ def test_listen_without_limits_prints_the_modes_and_max_taps_stops(tmp_path):
 
 
 def test_a_tap_that_overlaps_dropped_input_is_an_error_never_a_verdict(line_limits, tmp_path):
-    from ringdown.limits import read_limits
+    from ringdown.inspection.limits import read_limits
 
     session = tmp_path / "session.wav"
     _session(session, LINE[1:4])
@@ -122,7 +122,7 @@ def test_part_ids_pattern_counter_and_prompt():
     answers = iter(["SN-77", ""])
     ids = PartIds(prompt=lambda q: next(answers))
     assert [ids.next(), ids.next()] == ["SN-77", "part-0002"]
-    from ringdown.errors import ParameterError
+    from ringdown.base.errors import ParameterError
 
     with pytest.raises(ParameterError, match="not a pattern"):
         PartIds("B{n:q}")
@@ -143,7 +143,7 @@ def test_the_terminal_view_shows_the_last_verdict_large(line_limits, tmp_path):
     from rich.console import Console
 
     from ringdown.cli.listen import _View, big_word
-    from ringdown.limits import read_limits
+    from ringdown.inspection.limits import read_limits
 
     assert big_word("FAIL").count("\n") == 4 and "\u2588" in big_word("pass")
     session = tmp_path / "session.wav"

@@ -97,7 +97,8 @@ def test_listen_through_portaudio_gives_the_verdicts_of_check(virtual_card, tmp_
     listen = subprocess.Popen(
         [*CLI, "listen", "--device", "pulse", "--sample-rate", "48000", "--duration", "10", "--jsonl", "--limits", str(lim), "--save-dir", str(tmp_path / "taps")],
         env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-    time.sleep(2.0)  # the stream is open before the first tap plays
+    ready = listen.stderr.readline()  # the stream delivers samples before the first tap plays
+    assert "listening: input 'pulse' at 48000 Hz" in ready, ready
     subprocess.run(["paplay", f"--device={SINK}", str(session)], env=env, check=True, timeout=30)
     out, err = listen.communicate(timeout=60)
     assert listen.returncode == 0, err

@@ -1,6 +1,6 @@
-"""ringdown.moduli: ASTM E1876 moduli against independent physics.
+"""ringdown.materials.moduli: ASTM E1876 moduli against independent physics.
 
-References, each coded here independently of ringdown.moduli:
+References, each coded here independently of ringdown.materials.moduli:
 
 * free-free Timoshenko beam, solved numerically: the state (w, psi, Q, M) obeys a linear ODE with
   constant coefficients, so the transfer matrix over the length is exactly expm(A L)
@@ -27,8 +27,8 @@ from scipy.optimize import brentq
 
 import ringdown
 from ringdown import CylindricalRod, ParameterError, RectangularBar, derive, moduli
-from ringdown.moduli import r_bar, t1_bar, t1_rod
-from ringdown.results import Analysis, Mode
+from ringdown.materials.moduli import r_bar, t1_bar, t1_rod
+from ringdown.analysis.results import Analysis, Mode
 
 LAMBDA_1 = 4.73004074  # Blevins 1979, first root of cos x cosh x = 1
 
@@ -415,7 +415,7 @@ def test_to_dict_keys_do_not_depend_on_the_inputs():
 
 
 def test_report_section_escapes_and_lists_the_budget():
-    from ringdown.report import moduli_section, render_report
+    from ringdown.render.report import moduli_section, render_report
 
     bar, ff, ft = _steel_bar()
     bar = RectangularBar(bar.length_m, bar.width_m, bar.thickness_m, bar.mass_kg, 1e-5, 1e-5, 5e-6, 1e-6)

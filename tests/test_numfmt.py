@@ -1,4 +1,4 @@
-"""The one number formatter (ringdown.numfmt), checked against cases worked by hand.
+"""The one number formatter (ringdown.base.numfmt), checked against cases worked by hand.
 
 Rule: JCGM 100:2008 (GUM) 7.2.2 (concise form "value(u)" with u in units of the last digit)
 and 7.2.6 (at most two significant digits for u, the value rounded to the same place).
@@ -11,7 +11,7 @@ import math
 import pytest
 from hypothesis import given, strategies as st
 
-from ringdown.numfmt import MISSING, fmt_fixed, fmt_interval, fmt_pm, fmt_value, fmt_values
+from ringdown.base.numfmt import MISSING, fmt_fixed, fmt_interval, fmt_pm, fmt_value, fmt_values
 
 
 @pytest.mark.parametrize("v, u, expected", [

@@ -27,10 +27,10 @@ import pytest
 from typer.testing import CliRunner
 
 import ringdown
-from ringdown import parquet
+from ringdown.inspection import parquet
 from ringdown.cli import app
-from ringdown.errors import ParameterError
-from ringdown.results import mode_keys
+from ringdown.base.errors import ParameterError
+from ringdown.analysis.results import mode_keys
 
 ROOT = Path(__file__).resolve().parents[1]
 LINE = ROOT / "example_signals" / "line"
@@ -234,7 +234,7 @@ def _complete(rows, n_modes_of) -> None:
 def test_killed_run_keeps_what_it_wrote(parts, tmp_path):
     paths, _ = parts
     out = tmp_path / "ds"
-    script = ("import sys, ringdown\nfrom ringdown.parquet import ParquetSink\n"
+    script = ("import sys, ringdown\nfrom ringdown.inspection.parquet import ParquetSink\n"
               "with ParquetSink(sys.argv[1], flush_rows=1) as sink:\n"
               "    for p in sys.argv[2:]:\n"
               "        sink.add_analysis(ringdown.analyze_file(p))\n"
@@ -289,7 +289,7 @@ def test_missing_extra_is_one_line(monkeypatch, tmp_path):
 
 def test_the_extras_load_only_when_used():
     # issue 19: dask and pyarrow are imported lazily, so `ringdown --help` and plain analyses stay fast
-    code = ("import sys, ringdown, ringdown.cli, ringdown.cluster, ringdown.parquet; "
+    code = ("import sys, ringdown, ringdown.cli, ringdown.base.cluster, ringdown.inspection.parquet; "
             "print(','.join(m for m in ('dask', 'distributed', 'pyarrow', 'pandas') if m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout.strip()
     assert out == ""

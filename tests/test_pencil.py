@@ -1,9 +1,9 @@
-"""Tests of ringdown.estimators.pencil (matrix pencil + nonlinear least squares).
+"""Tests of ringdown.analysis.estimators.pencil (matrix pencil + nonlinear least squares).
 
 Signals are analytic damped sinusoids with seeded Gaussian noise, or a 3-degree-of-freedom chain
 whose exact response and decay rates come from the eigenvalues of its state matrix
 (scipy.linalg.eig, an exact reference for a linear system). Bands are made with
-``ringdown.bands.spectrum_of`` and ``extract_band``; the noise level ``noise_rms`` is measured by
+``ringdown.analysis.bands.spectrum_of`` and ``extract_band``; the noise level ``noise_rms`` is measured by
 the test itself as the RMS of ``|z|`` of an independent noise-only record through the same band.
 """
 
@@ -17,10 +17,10 @@ import scipy.linalg
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from ringdown.bands import Band, extract_band, settling_time_s, spectrum_of
-from ringdown.errors import FitError
-from ringdown.estimators import pencil
-from ringdown.estimators.base import Window
+from ringdown.analysis.bands import Band, extract_band, settling_time_s, spectrum_of
+from ringdown.base.errors import FitError
+from ringdown.analysis.estimators import pencil
+from ringdown.analysis.estimators.base import Window
 
 
 def _sigma_for_snr(amplitude, snr_db):

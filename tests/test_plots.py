@@ -1,4 +1,4 @@
-"""Tests of ringdown.plots: every figure draws on a given Axes and on its own, and shows what it says.
+"""Tests of ringdown.render.plots: every figure draws on a given Axes and on its own, and shows what it says.
 
 The analyses here are built by hand from the result dataclasses around a simulated signal whose
 parameters are known exactly (a sum of damped cosines, x = sum A exp(-beta t) cos(2 pi f t);
@@ -14,14 +14,14 @@ import math
 import numpy as np
 import pytest
 
-from ringdown.errors import ParameterError
-from ringdown.quantities import DB_PER_NEPER, derive
-from ringdown.recording import Recording
-from ringdown.results import Analysis, Hit, Mode, ModeTrace, Notice
+from ringdown.base.errors import ParameterError
+from ringdown.analysis.quantities import DB_PER_NEPER, derive
+from ringdown.io.recording import Recording
+from ringdown.analysis.results import Analysis, Hit, Mode, ModeTrace, Notice
 
 matplotlib = pytest.importorskip("matplotlib")
 
-from ringdown import plots  # noqa: E402
+from ringdown.render import plots  # noqa: E402
 
 FS = 8000.0
 
@@ -364,11 +364,11 @@ def test_spread_labels_keeps_close_labels_apart():
 
 
 def test_import_does_not_load_matplotlib():
-    # `import ringdown.plots` must stay light: matplotlib is imported inside the functions.
+    # `import ringdown.render.plots` must stay light: matplotlib is imported inside the functions.
     import subprocess
     import sys
 
-    code = "import sys, ringdown, ringdown.plots, ringdown.report; print('matplotlib' in sys.modules)"
+    code = "import sys, ringdown, ringdown.render.plots, ringdown.render.report; print('matplotlib' in sys.modules)"
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "False"
 
@@ -381,7 +381,7 @@ def test_no_pyplot_used():
     code = (
         "import sys; sys.path.insert(0, %r)\n"
         "from test_plots import make_analysis, THREE_MODES\n"
-        "from ringdown import plots, report\n"
+        "from ringdown.render import plots, report\n"
         "a = make_analysis(modes=THREE_MODES, dva=True)\n"
         "plots.figure_bytes(plots.plot_overview(a)); plots.figure_bytes(plots.plot_mode(a.modes[0]))\n"
         "plots.plot_damping_vs_amplitude(a.modes[0])\n"

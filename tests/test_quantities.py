@@ -1,4 +1,4 @@
-"""ringdown.quantities.derive against the textbook relations of FIELD.md section 1.
+"""ringdown.analysis.quantities.derive against the textbook relations of FIELD.md section 1.
 
 Sources: Rao, *Mechanical Vibrations*, ch. 2-3 (damped free vibration, logarithmic decrement);
 Inman, *Engineering Vibration* (damping ratio, Q, half-power bandwidth); the check values and the
@@ -15,8 +15,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from ringdown.errors import ParameterError
-from ringdown.quantities import DB_PER_NEPER, derive
+from ringdown.base.errors import ParameterError
+from ringdown.analysis.quantities import DB_PER_NEPER, derive
 
 TWO_PI = 2 * math.pi
 

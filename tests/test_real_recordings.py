@@ -22,7 +22,7 @@ import pytest
 import soundfile as sf
 from scipy.integrate import solve_ivp
 
-from ringdown.pipeline import analyze, analyze_file
+from ringdown.analysis.pipeline import analyze, analyze_file
 
 
 def damped(t, t0, f_d, zeta, amp, phase=0.0):

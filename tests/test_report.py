@@ -1,4 +1,4 @@
-"""Tests of ringdown.report and ringdown.cli.render: a self-contained, escaped, complete HTML report.
+"""Tests of ringdown.render.report and ringdown.cli.render: a self-contained, escaped, complete HTML report.
 
 Analyses are hand-built around simulated signals (see tests/test_plots.py, invented data). The
 report is parsed with the standard library's html.parser; checks are on its structure (tables,
@@ -20,9 +20,9 @@ import pytest
 
 import ringdown
 from ringdown.cli import render
-from ringdown.errors import InputError, ParameterError
-from ringdown.report import Section, html_table, render_report, write_report
-from ringdown.results import Analysis, Notice
+from ringdown.base.errors import InputError, ParameterError
+from ringdown.render.report import Section, html_table, render_report, write_report
+from ringdown.analysis.results import Analysis, Notice
 
 from test_plots import THREE_MODES, make_analysis  # noqa: E402  (tests/ is on sys.path under pytest)
 
@@ -338,8 +338,8 @@ def _cells_with_class(text: str, css: str) -> list[str]:
 
 
 def test_check_report_verdicts_header_and_signoff():
-    from ringdown.limits import parse_limits
-    from ringdown.report import render_check_report
+    from ringdown.inspection.limits import parse_limits
+    from ringdown.render.report import render_check_report
 
     lim = parse_limits("[[modes]]\nf_hz = [1400.0, 1500.0]\n", source="lim.toml")
     rows = [

@@ -13,9 +13,9 @@ import subprocess
 import numpy as np
 import pytest
 
-from ringdown.errors import InputError
-from ringdown.report import write_report
-from ringdown.results import Analysis
+from ringdown.base.errors import InputError
+from ringdown.render.report import write_report
+from ringdown.analysis.results import Analysis
 
 from test_plots import THREE_MODES, make_analysis  # noqa: E402  (tests/ is on sys.path under pytest)
 

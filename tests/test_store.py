@@ -8,12 +8,12 @@ import sqlite3
 import pytest
 from numpy.testing import assert_allclose
 
-from ringdown.check import check
-from ringdown.errors import ParameterError, StoreError
-from ringdown.limits import parse_limits
-from ringdown.quantities import derive
-from ringdown.results import Analysis, Mode
-from ringdown.store import (SCHEMA_VERSION, ResultStore, file_sha256, parse_date, part_id_from_path,
+from ringdown.inspection.check import check
+from ringdown.base.errors import ParameterError, StoreError
+from ringdown.inspection.limits import parse_limits
+from ringdown.analysis.quantities import derive
+from ringdown.analysis.results import Analysis, Mode
+from ringdown.inspection.store import (SCHEMA_VERSION, ResultStore, file_sha256, parse_date, part_id_from_path,
                             store_analysis)
 
 LIMITS = parse_limits("[[modes]]\nf_hz = [990.0, 1010.0]\nzeta = [0.0005, 0.002]\n"

@@ -16,7 +16,7 @@ from typer.testing import CliRunner
 from conftest import ringdown_modes, write_wav
 from ringdown import analyze, analyze_many
 from ringdown.cli import app
-from ringdown.errors import ParameterError
+from ringdown.base.errors import ParameterError
 
 FS = 16000.0
 runner = CliRunner()
@@ -101,18 +101,18 @@ def test_cli_limits_learn_and_check_window(tmp_path):
 
 
 def test_memory_error_stays_with_its_file(tmp_path, monkeypatch):
-    import ringdown.io
+    import ringdown.io.read
 
     good = write_wav(tmp_path / "good.wav", two_taps(), FS)
     big = write_wav(tmp_path / "big.wav", two_taps(), FS)
-    real = ringdown.io.read_recording
+    real = ringdown.io.read.read_recording
 
     def reader(path, **kw):
         if str(path).endswith("big.wav"):
             raise MemoryError("Unable to allocate 8.00 PiB")
         return real(path, **kw)
 
-    monkeypatch.setattr(ringdown.io, "read_recording", reader)
+    monkeypatch.setattr(ringdown.io.read, "read_recording", reader)
     out = analyze_many([big, good])
     assert not out[0].ok and out[1].ok
     assert "needs more memory than is available" in out[0].error.message and "big.wav" in out[0].error.message

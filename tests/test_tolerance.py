@@ -7,8 +7,8 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import stats
 
-from ringdown.errors import ParameterError
-from ringdown.tolerance import (mahalanobis_scale, mahalanobis_threshold, tolerance_content_probability, tolerance_k,
+from ringdown.base.errors import ParameterError
+from ringdown.inspection.tolerance import (mahalanobis_scale, mahalanobis_threshold, tolerance_content_probability, tolerance_k,
                                 tolerance_k_howe)
 
 

@@ -7,13 +7,14 @@ import glob
 import json
 import os
 import sys
+from collections.abc import Callable, Iterable
 from pathlib import Path
-from typing import Any, Callable, Iterable, Optional, TypeVar
+from typing import Any, Optional, TypeVar
 
 import typer
 
-from ..errors import RingdownError
-from ..formats import SUFFIXES as FORMAT_SUFFIXES
+from ..base.errors import RingdownError
+from ..io.formats import SUFFIXES as FORMAT_SUFFIXES
 
 T = TypeVar("T")
 
@@ -60,14 +61,14 @@ def parse_channel(text: Optional[str]):
 
 def error_line(message: str) -> None:
     """Print one error line on stderr (never a traceback); control characters shown escaped."""
-    from ..outputs import shown
+    from ..io.outputs import shown
 
     typer.echo(f"ringdown: error: {shown(message)}", err=True)
 
 
 def note_line(message: str) -> None:
     """Print one note line on stderr."""
-    from ..outputs import shown
+    from ..io.outputs import shown
 
     typer.echo(f"ringdown: note: {shown(message)}", err=True)
 
@@ -177,7 +178,7 @@ def uses_stdin(paths: Iterable[str]) -> bool:
     """Whether ``-`` (standard input) is among the inputs; given twice it is an error."""
     n = sum(1 for p in paths if p == STDIN)
     if n > 1:
-        from ..errors import ParameterError
+        from ..base.errors import ParameterError
 
         raise ParameterError("'-' (standard input) is given more than once; standard input holds one recording")
     return n == 1
@@ -272,7 +273,7 @@ DB_ENV = "RINGDOWN_DB"
 
 def resolve_db(db: Optional[str]) -> str:
     """The database path: ``--db``, else ``$RINGDOWN_DB``, else ``ringdown.sqlite`` here."""
-    from ..store import DEFAULT_DB
+    from ..inspection.store import DEFAULT_DB
 
     return db or os.environ.get(DB_ENV) or DEFAULT_DB
 

@@ -63,7 +63,7 @@ def reader_options(channel=None, column=None, sample_rate=None) -> dict:
 
 
 def report_header(title=None, notes=None, serial=None, **fields) -> dict:
-    """Keyword arguments of ``ringdown.report.render_report`` for the header options.
+    """Keyword arguments of ``ringdown.render.report.render_report`` for the header options.
 
     ``fields`` are further header lines (station, operator, limits ...); None values are left out.
     """

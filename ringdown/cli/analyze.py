@@ -4,13 +4,13 @@ from __future__ import annotations
 
 import csv
 import sys
-import time
 from pathlib import Path
 from typing import List, Optional
 
 import typer
 
-from ..numfmt import fmt_fixed, fmt_pm, fmt_value
+from ..base.clock import seconds
+from ..base.numfmt import fmt_fixed, fmt_pm, fmt_value
 from ._common import (DEBUG_OPTION, catching_interrupts, check_interrupt, EXIT_EPILOG, EXIT_ERROR, EXIT_INTERRUPTED, EXIT_OK, RECURSIVE_OPTION,
                       default_jobs, error_line, expand_inputs, guarded, note_line, on_terminal,
                       print_json, print_json_line, progress_bar, time_window, usage_guarded, uses_stdin)
@@ -21,7 +21,7 @@ __all__ = ["register", "parse_band", "parse_columns", "format_table", "TABLE_COL
 
 def parse_band(text: str) -> tuple[float, float]:
     """Parse ``"400:500"`` (Hz) into ``(400.0, 500.0)``."""
-    from ..errors import ParameterError
+    from ..base.errors import ParameterError
 
     parts = text.replace(",", ".").split(":") if text.count(":") == 1 else [text]
     try:
@@ -54,7 +54,7 @@ DEFAULT_COLUMNS = ("f_d", "beta", "f_n", "zeta", "q", "loss_factor", "log_decrem
 
 def parse_columns(text: str | None) -> tuple[str, ...]:
     """``"f_d,zeta,q"`` -> the column keys, checked; None -> :data:`DEFAULT_COLUMNS`."""
-    from ..errors import ParameterError
+    from ..base.errors import ParameterError
 
     if text is None:
         return DEFAULT_COLUMNS
@@ -73,7 +73,7 @@ def format_table(analysis, columns: tuple[str, ...] = DEFAULT_COLUMNS) -> str:
     Numbers are written by :func:`ringdown.numfmt.fmt_pm`: ``611.999885(83)`` is
     611.999885 ± 0.000083.
     """
-    from ..outputs import shown
+    from ..io.outputs import shown
 
     if analysis.error is not None:
         return ""
@@ -115,8 +115,8 @@ def write_csv(analyses, path: str) -> None:
 
     Written to a temporary file and renamed into place; text cells are neutralised
     (:func:`ringdown.outputs.csv_cell`)."""
-    from ..outputs import atomic_write, csv_row
-    from ..results import mode_keys
+    from ..io.outputs import atomic_write, csv_row
+    from ..analysis.results import mode_keys
 
     keys = [k for k in mode_keys() if k not in ("warnings", "cross_checks", "damping_vs_amplitude", "band_hz")]
     with atomic_write(path, newline="", what="CSV") as fh:
@@ -173,14 +173,14 @@ def register(app: typer.Typer) -> None:
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Measure every mode of each recording: f_d, beta, f_n, zeta, Q, loss factor, dB/s, T60."""
-        from ..engine import is_long_sound_file
-        from ..pipeline import AnalysisOptions, iter_analyze_files
+        from ..analysis.engine import is_long_sound_file
+        from ..analysis.pipeline import AnalysisOptions, iter_analyze_files
 
-        started = time.perf_counter()
+        started = seconds()
 
         def parse():
-            from ..errors import ParameterError
-            from ..store import part_id_from_path
+            from ..base.errors import ParameterError
+            from ..inspection.store import part_id_from_path
             from .render import check_plot_format
 
             if json_out and jsonl:
@@ -228,9 +228,9 @@ def register(app: typer.Typer) -> None:
         interrupted = False
         storer = _Storer(history, part_id, station, operator)
         bar, task = progress_bar(on_terminal(json_out or jsonl) and len(paths) > 1, len(paths), "analysing")
-        from ..cluster import connect
-        from ..parquet import open_sink
-        from ..store import part_id_from_path
+        from ..base.cluster import connect
+        from ..inspection.parquet import open_sink
+        from ..inspection.store import part_id_from_path
 
         cluster = guarded(lambda: connect(scheduler), debug=debug)
         sink = guarded(lambda: open_sink(parquet_out), debug=debug)
@@ -259,11 +259,11 @@ def register(app: typer.Typer) -> None:
         if debug and not interrupted:
             for a in analyses:
                 if a.error is not None and a.path != "-":
-                    from ..pipeline import analyze_file
+                    from ..analysis.pipeline import analyze_file
 
                     analyze_file(a.path, **options)  # raises with the traceback
         if json_out:
-            from ..results import results_document
+            from ..analysis.results import results_document
 
             print_json(results_document(analyses))
         failed_outputs = 0
@@ -283,7 +283,7 @@ def register(app: typer.Typer) -> None:
             raise typer.Exit(EXIT_INTERRUPTED)
         if len(analyses) > 1 and not json_out:
             typer.echo(f"{len(analyses)} files: {len(analyses) - errors} analysed, {errors} errors, "
-                       f"{sum(len(a.modes) for a in analyses)} modes in {time.perf_counter() - started:.1f} s",
+                       f"{sum(len(a.modes) for a in analyses)} modes in {seconds() - started:.1f} s",
                        err=jsonl)
         bad = errors or failed_outputs or storer.failed or paths.problems
         raise typer.Exit(EXIT_ERROR if bad else EXIT_OK)
@@ -292,9 +292,9 @@ def register(app: typer.Typer) -> None:
 def _iter_long_file(path: str, options: dict, show: bool):
     """``(0, Analysis)`` of one long sound file through the block engine, with a progress bar by
     time position on stderr when ``show``; any failure is the file's result (the batch policy)."""
-    from ..batch import run_batch
-    from ..engine import analyze_long_file
-    from ..pipeline import _FileTask
+    from ..analysis.engine import analyze_long_file
+    from ..analysis.pipeline import _FileTask
+    from ..base.batch import run_batch
 
     class _Task(_FileTask):
         def __call__(self, p: str):
@@ -332,7 +332,7 @@ def _iter_long_file(path: str, options: dict, show: bool):
 
 def _prepare_outputs(csv_out, report, plot, db_path):
     """Check every output before the analysis starts; open the history. Returns the store or None."""
-    from ..outputs import check_writable, remove_stale
+    from ..io.outputs import check_writable, remove_stale
 
     if csv_out is not None:
         check_writable(csv_out, "CSV")
@@ -342,7 +342,7 @@ def _prepare_outputs(csv_out, report, plot, db_path):
         check_writable(plot, "plot", folder=True)
     history = None
     if db_path is not None:
-        from ..store import ResultStore
+        from ..inspection.store import ResultStore
 
         history = ResultStore(db_path)
     for out in (csv_out, report):
@@ -353,7 +353,7 @@ def _prepare_outputs(csv_out, report, plot, db_path):
 
 def _try(fn, debug) -> int:
     """Run one output writer; its error is one line (the other outputs still get written). 1 on error."""
-    from ..errors import RingdownError
+    from ..base.errors import RingdownError
 
     try:
         fn()
@@ -377,8 +377,8 @@ class _Storer:
     def add(self, a) -> None:
         if self.history is None or self.failed:
             return
-        from ..errors import StoreError
-        from ..store import part_id_from_path
+        from ..base.errors import StoreError
+        from ..inspection.store import part_id_from_path
         from ._common import sigint_deferred
 
         try:

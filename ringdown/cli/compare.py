@@ -15,15 +15,27 @@ from __future__ import annotations
 
 import csv
 from pathlib import Path
-from typing import List, Optional
+from typing import TYPE_CHECKING, Optional, cast
 
 import typer
 
-from ..errors import RingdownError
-from ..numfmt import fmt_interval, fmt_pm, fmt_value
-from ._common import (DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, EXIT_OK, error_line,
-                      expand_inputs, guarded, print_json, time_window, usage_error)
-from ._options import Channel, Column, End, Start, Notes, SampleRate, Serial, Title, reader_options, report_header
+from ..base.numfmt import fmt_interval, fmt_pm, fmt_value
+from ._common import (
+    DEBUG_OPTION,
+    EXIT_EPILOG,
+    EXIT_ERROR,
+    EXIT_OK,
+    error_line,
+    expand_inputs,
+    guarded,
+    print_json,
+    time_window,
+    usage_error,
+)
+from ._options import Channel, Column, End, Notes, SampleRate, Serial, Start, Title, reader_options, report_header
+
+if TYPE_CHECKING:
+    from matplotlib.figure import Figure
 
 __all__ = ["register", "format_table"]
 
@@ -76,55 +88,39 @@ def format_table(comparison) -> str:
 
 
 def _write_csv(comparison, out: Path) -> None:
-    from ..compare import comparison_rows
-    from ..errors import RingdownError
-    from ..outputs import atomic_write, csv_row
+    from ..io.outputs import atomic_write, csv_row
+    from ..treatment.compare import comparison_rows
 
     rows = comparison_rows(comparison)
     if not rows:
         return
-    try:
-        with atomic_write(out, newline="", what="CSV file") as fh:
-            w = csv.writer(fh)
-            w.writerow(list(rows[0].keys()))
-            for r in rows:
-                w.writerow(csv_row(r.values()))
-    except RingdownError as exc:
-        raise _OutputError(str(exc)) from None
+    with atomic_write(out, newline="", what="CSV file") as fh:
+        w = csv.writer(fh)
+        w.writerow(list(rows[0].keys()))
+        for r in rows:
+            w.writerow(csv_row(r.values()))
 
 
 def _write_plot(comparison, out_dir: Path) -> Path:
-    from ..compare_plot import plot_comparison
-    from ..plots import figure_bytes
+    from ..io.outputs import atomic_write, check_writable
+    from ..render.compare_plot import plot_comparison
+    from ..render.plots import figure_bytes
 
+    check_writable(out_dir, "plot", folder=True)
     path = out_dir / "comparison.png"
-    try:
-        out_dir.mkdir(parents=True, exist_ok=True)
-        ax = plot_comparison(comparison)
-        path.write_bytes(figure_bytes(ax.figure, fmt="png"))
-    except OSError as exc:
-        raise _OutputError(
-            f"cannot write plot '{path}': {exc.strerror or exc}; check the folder and permissions"
-        ) from exc
+    data = figure_bytes(cast("Figure", plot_comparison(comparison).figure), fmt="png")
+    with atomic_write(path, "wb", what="plot") as fh:  # renamed into place: never half a figure
+        fh.write(data)
     return path
 
 
 def _write_report(comparison, out: Path, header: dict) -> None:
-    from ..report import render_comparison_report
+    from ..io.outputs import atomic_write
+    from ..render.report import render_comparison_report
 
     text = render_comparison_report(comparison, **header)
-    try:
-        out.write_text(text, encoding="utf-8")
-    except OSError as exc:
-        raise _OutputError(
-            f"cannot write report '{out}': {exc.strerror or exc}; check the folder and permissions"
-        ) from exc
-
-
-class _OutputError(RingdownError):
-    """An output file that cannot be written (CLI only)."""
-
-    code = "output"
+    with atomic_write(out, what="report") as fh:  # renamed into place: never half a report
+        fh.write(text)
 
 
 def register(app: typer.Typer) -> None:
@@ -143,11 +139,11 @@ def register(app: typer.Typer) -> None:
     )
     def compare_cmd(
         ctx: typer.Context,
-        before: List[str] = typer.Option(
+        before: list[str] = typer.Option(
             ..., "--before", "-b",
             help="Recording(s) before the treatment (repeatable; file, folder or quoted pattern).",
         ),
-        after: List[str] = typer.Option(
+        after: list[str] = typer.Option(
             ..., "--after", "-a",
             help="Recording(s) after the treatment (repeatable; file, folder or quoted pattern).",
         ),
@@ -165,7 +161,7 @@ def register(app: typer.Typer) -> None:
         channel: Channel = None,
         column: Column = None,
         sample_rate: SampleRate = None,
-        band: Optional[List[str]] = typer.Option(None, "--band", help="Band LOW:HIGH in Hz (repeatable, as for analyze)."),
+        band: Optional[list[str]] = typer.Option(None, "--band", help="Band LOW:HIGH in Hz (repeatable, as for analyze)."),
         min_hit_snr_db: float = typer.Option(20.0, "--min-hit-snr-db", help="A hit must rise this far above the noise, dB."),
         keep_double_hits: bool = typer.Option(False, "--keep-double-hits", help="Count bounced hits as repeats too."),
         title: Title = None,
@@ -180,7 +176,7 @@ def register(app: typer.Typer) -> None:
                 f"unexpected argument '{ctx.args[0]}': give each file its own --before/--after, "
                 "a folder, or a quoted pattern (--before 'bare_*.wav')"
             )
-        from ..compare import compare
+        from ..treatment.compare import compare
 
         b = expand_inputs(before)
         a = expand_inputs(after)

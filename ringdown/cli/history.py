@@ -8,7 +8,7 @@ from typing import Optional
 
 import typer
 
-from ..numfmt import fmt_value
+from ..base.numfmt import fmt_value
 from ._common import DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, error_line, guarded, print_json, usage_error
 
 __all__ = ["register", "format_history"]
@@ -26,8 +26,8 @@ def _n_modes(records) -> int:
 
 def format_history(records) -> str:
     """A text table: one line per stored test (names with control characters shown escaped)."""
-    from ..check import verdict_kind
-    from ..outputs import shown
+    from ..inspection.check import verdict_kind
+    from ..io.outputs import shown
 
     n = _n_modes(records)
     head = ["id", "tested (UTC)", "part", "verdict", "station", "operator"] + [f"f{j} [Hz]" for j in range(1, n + 1)] \
@@ -56,7 +56,7 @@ def _write_csv(records, path: str) -> None:
             "limits_sha256", "verdict", "mahalanobis", "uniform_shift", "reasons", "error"]
     for j in range(1, n + 1):
         head += [f"mode{j}_f_d_hz", f"mode{j}_f_d_hz_u", f"mode{j}_zeta", f"mode{j}_zeta_u", f"mode{j}_q"]
-    from ..outputs import atomic_write, csv_row
+    from ..io.outputs import atomic_write, csv_row
 
     with atomic_write(path, newline="", what="CSV") as fh:
         w = csv.writer(fh)
@@ -91,7 +91,7 @@ def register(app: typer.Typer) -> None:
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Show stored results: a table, JSON, CSV, or a run chart of every mode in test order."""
-        from ..store import ResultStore
+        from ..inspection.store import ResultStore
         from ._common import resolve_db
 
         path = resolve_db(db)
@@ -103,7 +103,7 @@ def register(app: typer.Typer) -> None:
         if json_out and csv_out:
             usage_error("--json and --csv are exclusive; choose one")
         if csv_out:
-            from ..outputs import check_writable
+            from ..io.outputs import check_writable
 
             guarded(lambda: check_writable(csv_out, "CSV"), debug=debug)
         if not Path(path).exists():
@@ -120,31 +120,31 @@ def register(app: typer.Typer) -> None:
         if csv_out:
             guarded(lambda: _write_csv(records, csv_out), debug=debug)
         if parquet_out:
-            from ..parquet import export_history
+            from ..inspection.parquet import export_history
 
             sink = guarded(lambda: export_history(path, records, parquet_out), debug=debug)
             typer.echo(f"wrote {sink.rows_written} row(s) of {len(records)} record(s) to {parquet_out}", err=True)
         if plot:
             def draw():
-                from ..history_plot import plot_run_chart
+                from ..render.history_plot import plot_run_chart
 
                 lim = None
                 if limits_path:
-                    from ..limits import read_limits
+                    from ..inspection.limits import read_limits
 
                     lim = read_limits(limits_path)
                 import io
 
-                from ..outputs import atomic_write
+                from ..io.outputs import atomic_write
 
                 fig = plot_run_chart(records, limits_by_sha=docs, limits=lim)
                 buf = io.BytesIO()
                 try:
                     fig.savefig(buf, dpi=110, format=Path(plot).suffix.lstrip(".").lower() or "png")
                 except (OSError, ValueError) as exc:
-                    from ..errors import ParameterError
+                    from ..base.errors import OutputError
 
-                    raise ParameterError(f"cannot write the run chart to '{plot}': {exc}; choose a writable file") from exc
+                    raise OutputError(f"cannot write the run chart to '{plot}': {exc}; choose a writable file") from exc
                 with atomic_write(plot, "wb", what="the run chart to") as fh:  # never half a figure
                     fh.write(buf.getvalue())
 

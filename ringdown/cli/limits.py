@@ -8,19 +8,57 @@ from __future__ import annotations
 
 import csv
 import sys
-import time
 from dataclasses import replace
+from functools import partial
 from pathlib import Path
-from typing import List, Optional
+from typing import TYPE_CHECKING, Optional
 
 import typer
 
-from ..numfmt import fmt_value, fmt_values
-from ._common import (DEBUG_OPTION, catching_interrupts, check_interrupt, EXIT_EPILOG, EXIT_ERROR, EXIT_FAIL, EXIT_INTERRUPTED, EXIT_OK,
-                      RECURSIVE_OPTION, default_jobs, error_line, expand_inputs, guarded, note_line,
-                      on_terminal, print_json, print_json_line, progress_bar, resolve_db, sigint_deferred,
-                      time_window, usage_guarded, uses_stdin, DB_ENV)
-from ._options import Channel, Column, End, Start, Jsonl, Notes, SampleRate, Serial, Title, reader_options, report_header
+from ..base.clock import seconds
+from ..base.numfmt import fmt_value, fmt_values
+from ._common import (
+    DB_ENV,
+    DEBUG_OPTION,
+    EXIT_EPILOG,
+    EXIT_ERROR,
+    EXIT_FAIL,
+    EXIT_INTERRUPTED,
+    EXIT_OK,
+    RECURSIVE_OPTION,
+    catching_interrupts,
+    check_interrupt,
+    default_jobs,
+    error_line,
+    expand_inputs,
+    guarded,
+    note_line,
+    on_terminal,
+    print_json,
+    print_json_line,
+    progress_bar,
+    resolve_db,
+    sigint_deferred,
+    time_window,
+    usage_guarded,
+    uses_stdin,
+)
+from ._options import (
+    Channel,
+    Column,
+    End,
+    Jsonl,
+    Notes,
+    SampleRate,
+    Serial,
+    Start,
+    Title,
+    reader_options,
+    report_header,
+)
+
+if TYPE_CHECKING:
+    from ..inspection.check import CheckResult
 
 __all__ = ["register", "format_check"]
 
@@ -51,7 +89,7 @@ def _stream(row: dict, json_out: bool, jsonl: bool) -> None:
 
 def format_check(row: dict) -> str:
     """Plain-text lines for one part (what ``check`` prints without ``--json``)."""
-    from ..outputs import shown
+    from ..io.outputs import shown
 
     verdict = row["verdict"].upper()
     skipped = "  (already stored, skipped)" if row.get("skipped") else ""
@@ -68,7 +106,7 @@ def _write_csv(rows: list[dict], limits, path: str) -> None:
     head = ["part_id", "path", "sha256", "verdict", "skipped", "mahalanobis", "uniform_shift", "reasons", "notes"]
     for j in range(1, n + 1):
         head += [f"mode{j}_f_d_hz", f"mode{j}_zeta", f"mode{j}_ratio"]
-    from ..outputs import atomic_write, csv_row
+    from ..io.outputs import atomic_write, csv_row
 
     with atomic_write(path, newline="", what="CSV") as fh:
         w = csv.writer(fh)
@@ -87,12 +125,12 @@ def _write_csv(rows: list[dict], limits, path: str) -> None:
 def _write_report(rows: list[dict], limits, path: str, options: dict, header: dict) -> None:
     """The check report, with each analysed part's figures: the parts are analysed again here,
     in this process, because a batch keeps no samples (the verdicts come from the batch)."""
-    from ..pipeline import analyze_file
-    from ..report import Section, _write, html_table, render_check_report
-    from ..results import Analysis
+    from ..analysis.pipeline import analyze_file
+    from ..analysis.results import Analysis
+    from ..render.report import Section, _write, html_table, render_check_report
 
     opts = {**limits.analysis_options(), **options}
-    analyses = []
+    analyses: list[Analysis | None] = []
     for r in rows:
         if r.get("skipped") or not r.get("path") or r["path"] == "-":
             analyses.append(None)
@@ -123,7 +161,7 @@ def register(app: typer.Typer) -> None:
 
     @limits_app.command("learn", epilog=EXIT_EPILOG)
     def learn(
-        files: List[str] = typer.Argument(..., help="Recordings of known-good parts (files, folders, glob patterns)."),
+        files: list[str] = typer.Argument(..., help="Recordings of known-good parts (files, folders, glob patterns)."),
         output: str = typer.Option("limits.toml", "-o", "--output", help="Limits file to write (TOML)."),
         coverage: float = typer.Option(0.99, help="Fraction of good parts each window must hold (ISO 16269-6)."),
         confidence: float = typer.Option(0.95, help="Confidence of each tolerance interval (ISO 16269-6)."),
@@ -132,7 +170,7 @@ def register(app: typer.Typer) -> None:
         method: Optional[str] = typer.Option(None, help="Estimator (as for analyze)."),
         min_snr_db: Optional[float] = typer.Option(None, help="Smallest mode SNR, dB (as for analyze)."),
         max_modes: Optional[int] = typer.Option(None, help="Most modes per recording (as for analyze)."),
-        band: Optional[List[str]] = typer.Option(None, "--band", help="Band LOW:HIGH in Hz (repeatable)."),
+        band: Optional[list[str]] = typer.Option(None, "--band", help="Band LOW:HIGH in Hz (repeatable)."),
         channel: Channel = None,
         column: Column = None,
         sample_rate: SampleRate = None,
@@ -145,15 +183,15 @@ def register(app: typer.Typer) -> None:
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Learn acceptance limits from recordings of known-good parts and write them as TOML."""
-        from ..pipeline import analyze_many
-        from ..limits import learn_limits, write_limits
+        from ..analysis.pipeline import analyze_many
+        from ..inspection.limits import learn_limits, write_limits
 
         opts = usage_guarded(lambda: {**_analysis_options(method, min_snr_db, max_modes, band, start, end),
                                       **reader_options(channel, column, sample_rate)}, debug=debug)
 
         def run():
-            from ..errors import ParameterError
-            from ..outputs import check_writable
+            from ..base.errors import ParameterError
+            from ..io.outputs import check_writable
 
             paths = expand_inputs(files, recursive=recursive, exclude=[output])
             if paths.problems:
@@ -168,12 +206,12 @@ def register(app: typer.Typer) -> None:
             except KeyboardInterrupt:
                 error_line(f"interrupted: no limits written to '{output}'; rerun to learn them")
                 raise typer.Exit(EXIT_INTERRUPTED) from None
-            bad = [a for a in analyses if a.error is not None]
+            bad = [(a.path, a.error) for a in analyses if a.error is not None]
             if bad:
-                from ..errors import ParameterError
+                from ..base.errors import ParameterError
 
-                raise ParameterError(f"{len(bad)} good part(s) could not be analysed, first {bad[0].path!r}: "
-                                     f"{bad[0].error.message}; remove or re-record them")
+                raise ParameterError(f"{len(bad)} good part(s) could not be analysed, first {bad[0][0]!r}: "
+                                     f"{bad[0][1].message}; remove or re-record them")
             lim = learn_limits(analyses, coverage=coverage, confidence=confidence, tolerance=tolerance,
                                n_modes=n_modes)
             sha = write_limits(lim, output)
@@ -203,7 +241,7 @@ def register(app: typer.Typer) -> None:
 
     @app.command("check", epilog=EXIT_EPILOG)
     def check_cmd(
-        files: List[str] = typer.Argument(..., help="Recordings of parts to check (files, folders, glob patterns)."),
+        files: list[str] = typer.Argument(..., help="Recordings of parts to check (files, folders, glob patterns)."),
         limits_path: str = typer.Option(..., "--limits", "-l", help="Limits file (TOML)."),
         json_out: bool = typer.Option(False, "--json", help="Print every result as JSON on stdout."),
         jsonl: Jsonl = False,
@@ -233,12 +271,12 @@ def register(app: typer.Typer) -> None:
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Check parts against limits: PASS or FAIL with every reason; store each result."""
-        from ..check import iter_check_files
-        from ..errors import RingdownError
-        from ..limits import read_limits
-        from ..store import ResultStore, file_sha256, part_id_from_path
+        from ..base.errors import RingdownError
+        from ..inspection.check import iter_check_files
+        from ..inspection.limits import read_limits
+        from ..inspection.store import ResultStore, file_sha256, part_id_from_path
 
-        t0 = time.monotonic()
+        t0 = seconds()
         if json_out and jsonl:
             from ._common import usage_error
 
@@ -256,7 +294,7 @@ def register(app: typer.Typer) -> None:
         ids = [part_id_from_path(p, part_id) for p in paths]
 
         def prepare():
-            from ..outputs import check_writable, remove_stale
+            from ..io.outputs import check_writable, remove_stale
 
             for out, what in ((csv_out, "CSV"), (report, "report")):
                 if out:
@@ -276,22 +314,22 @@ def register(app: typer.Typer) -> None:
 
         store = guarded(prepare, debug=debug)
         rows: list[dict | None] = [None] * len(paths)
-        results = [None] * len(paths)
+        results: list[CheckResult | None] = [None] * len(paths)
         interrupted = store_failed = False
         try:
             shas = [file_sha256(p) for p in paths]
             todo = []
             for i, p in enumerate(paths):
                 old = None if (store is None or force or shas[i] is None) else guarded(
-                    lambda: store.find_check(shas[i], lim.sha256), debug=debug)
+                    partial(store.find_check, shas[i], lim.sha256), debug=debug)
                 if old is not None:
-                    rows[i] = _stored_row(old, ids[i], p, shas[i])
-                    _stream(rows[i], json_out, jsonl)
+                    rows[i] = row = _stored_row(old, ids[i], p, shas[i])
+                    _stream(row, json_out, jsonl)
                 else:
                     todo.append(i)
             prog, task = progress_bar(on_terminal(json_out) and len(todo) > 1, len(todo), "checking")
-            from ..cluster import connect
-            from ..parquet import open_sink
+            from ..base.cluster import connect
+            from ..inspection.parquet import open_sink
 
             cluster = guarded(lambda: connect(scheduler), debug=debug)
             sink = guarded(lambda: open_sink(parquet_out), debug=debug)
@@ -305,7 +343,7 @@ def register(app: typer.Typer) -> None:
                         res = replace(res, sha256=shas[i])
                     with sigint_deferred():  # stored and counted whole, or not at all
                         # to the dataset before the database: whatever is stored is in the dataset too
-                        guarded(lambda: sink.add_check(res, part_id=ids[i], station=station, operator=operator),
+                        guarded(partial(sink.add_check, res, part_id=ids[i], station=station, operator=operator),
                                 debug=debug)
                         stored = None
                         if store is not None and not store_failed:
@@ -316,9 +354,9 @@ def register(app: typer.Typer) -> None:
                                 error_line(f"{exc}; results from here on are not stored")
                                 store_failed = True
                         results[i] = res
-                        rows[i] = {"part_id": ids[i], "skipped": False, "stored_id": stored, **res.to_dict()}
+                        rows[i] = row = {"part_id": ids[i], "skipped": False, "stored_id": stored, **res.to_dict()}
                     prog.advance(task)
-                    _stream(rows[i], json_out, jsonl)
+                    _stream(row, json_out, jsonl)
                 guarded(sink.close, debug=debug)
         except KeyboardInterrupt:
             interrupted = True
@@ -329,7 +367,7 @@ def register(app: typer.Typer) -> None:
         rows_f = [r for r in rows if r is not None]
         counts = {v: sum(1 for r in rows_f if r["verdict"] == v) for v in ("pass", "fail", "error")}
         skipped = sum(1 for r in rows_f if r.get("skipped"))
-        elapsed = time.monotonic() - t0
+        elapsed = seconds() - t0
         summary = {"parts": len(rows_f), "passed": counts["pass"], "failed": counts["fail"],
                    "errors": counts["error"], "skipped": skipped, "time_s": round(elapsed, 3)}
         from .analyze import _try
@@ -362,7 +400,7 @@ def register(app: typer.Typer) -> None:
         raise typer.Exit(code)
 
 
-def _stored_row(old, part_id: str, path: str, sha: str) -> dict:
+def _stored_row(old, part_id: str, path: str, sha: str | None) -> dict:
     """The row of a part skipped as already stored: the stored record in full (features, modes)."""
     rec = dict(old.result) if old.result else {
         "reasons": list(old.reasons), "notes": list(old.notes), "features": [], "modes": [],

@@ -1,4 +1,4 @@
-"""``ringdown listen``: the live test station (see :mod:`ringdown.live`)."""
+"""``ringdown listen``: the live test station (see :mod:`ringdown.inspection.station`)."""
 
 from __future__ import annotations
 
@@ -10,7 +10,7 @@ from typing import Optional
 
 import typer
 
-from ._common import (DEBUG_OPTION, EXIT_ERROR, EXIT_OK, error_line, guarded, on_terminal, print_json_line,
+from ._common import (DEBUG_OPTION, EXIT_ERROR, EXIT_OK, error_line, guarded, note_line, on_terminal, print_json_line,
                       resolve_db, usage_guarded)
 
 #: Recent parts shown under the last verdict in the terminal view.
@@ -66,17 +66,17 @@ def register(app: typer.Typer) -> None:
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Listen for taps (a sound card, or --replay FILE): per tap the modes, or the verdict with --limits."""
-        from ..live import PartIds, Station
+        from ..inspection.station import PartIds, Station
 
         if list_devices:
-            from ..live import list_devices as _list
+            from ..io.device import list_devices as _list
 
             typer.echo(guarded(_list, debug=debug))
             raise typer.Exit(EXIT_OK)
 
         def parse():
-            from ..errors import ParameterError
-            from ..limits import read_limits
+            from ..base.errors import ParameterError
+            from ..inspection.limits import read_limits
 
             if speed < 0:
                 raise ParameterError(f"--speed must be >= 0 (0: as fast as possible); got {speed:g}")
@@ -93,13 +93,15 @@ def register(app: typer.Typer) -> None:
         source = guarded(lambda: _source(replay, speed, device, channel, sample_rate), debug=debug)
         history = None
         if store:
-            from ..store import ResultStore
+            from ..inspection.store import ResultStore
 
             history = guarded(lambda: ResultStore(resolve_db(db)), debug=debug)
         st = guarded(lambda: Station(
             source.sample_rate, options=opts, limits=lim, save_dir=save_dir, store=history, station=station,
             operator=operator, part_ids=ids, subtype=_subtype(replay),
             full_scale=getattr(source, "full_scale", 1.0)), debug=debug)
+        if replay is None:
+            st.warm_up()  # before the stream opens: the first tap's analysis is then not late
         live_view = on_terminal(jsonl) and not ask_part_id
         what = f"replay of {replay}" if replay is not None else f"input {getattr(source, 'device_name', device)!r}"
         view = _View(what, lim is not None) if live_view else None
@@ -107,7 +109,9 @@ def register(app: typer.Typer) -> None:
         interrupted = False
         try:
             with (view.live() if view else _nothing()):
-                for tap in st.run(_until(source, stop_at)):
+                ready = None if view else (lambda: note_line(f"listening: {what} at {source.sample_rate:g} Hz; "
+                                                             "Ctrl-C ends"))
+                for tap in st.run(_until(source, stop_at, ready)):
                     if jsonl:
                         print_json_line(tap.to_dict())
                     elif view:
@@ -119,7 +123,7 @@ def register(app: typer.Typer) -> None:
         except KeyboardInterrupt:
             interrupted = True
         except Exception as exc:  # the input failed: the taps so far are kept and summarised
-            from ..batch import as_ringdown_error
+            from ..base.batch import as_ringdown_error
 
             if debug:
                 raise
@@ -156,11 +160,11 @@ def _source(replay, speed, device, channel, sample_rate):
     if replay is not None:
         import math
 
-        from ..blocks import Paced, SoundFileBlocks
+        from ..io.blocks import Paced, SoundFileBlocks
 
         src = SoundFileBlocks(replay, channel=channel, sample_rate=sample_rate, block_samples=1024)
         return Paced(src, math.inf if speed == 0 else speed)
-    from ..live import DeviceBlocks
+    from ..io.device import DeviceBlocks
 
     dev = int(device) if device is not None and device.isdigit() else device
     return DeviceBlocks(dev, channel=channel, sample_rate=sample_rate)
@@ -176,15 +180,19 @@ def _subtype(replay) -> str:
     return sub if sf.check_format("WAV", sub) else "FLOAT"
 
 
-def _until(source, stop_at):
+def _until(source, stop_at, on_first=None):
+    """The source's blocks up to ``stop_at`` samples; ``on_first()`` once the first block is in."""
     for blk in source:
+        if on_first is not None:
+            on_first()
+            on_first = None
         yield blk
         if stop_at is not None and blk.start + blk.samples.shape[0] >= stop_at:
             return
 
 
 def _modes_text(a, n: int = 3) -> str:
-    from ..numfmt import fmt_pm as fmt_u
+    from ..base.numfmt import fmt_pm as fmt_u
 
     if a.error is not None:
         return f"not measured: {a.error.message}"

@@ -15,8 +15,8 @@ from typing import Optional
 
 import typer
 
-from ..errors import ParameterError, RingdownError
-from ..numfmt import fmt_pm, fmt_value, fmt_values
+from ..base.errors import ParameterError
+from ..base.numfmt import fmt_pm, fmt_value, fmt_values
 from ._common import DEBUG_OPTION, EXIT_EPILOG, EXIT_OK, guarded, print_json
 from ._options import Channel, Column, Notes, SampleRate, Serial, Title, reader_options, report_header
 
@@ -24,7 +24,7 @@ __all__ = ["register", "format_table"]
 
 
 def _pm(v, u, scale: float = 1.0) -> str:
-    """``v(u)`` in the one number format (:func:`ringdown.numfmt.fmt_pm`), both divided by ``scale``;
+    """``v(u)`` in the one number format (:func:`ringdown.base.numfmt.fmt_pm`), both divided by ``scale``;
     "-" when missing."""
     if v is None:
         return "-"
@@ -44,7 +44,7 @@ def format_table(result) -> str:
     for q in ("e_pa", "g_pa", "poisson", "density_kg_per_m3"):
         d = result.dominant(q)
         s = next((b.share for b in result.budget if b.quantity == q and b.input == d), None)
-        share[q] = "-" if d is None else f"{d} ({100 * s:.0f} %)"
+        share[q] = "-" if d is None or s is None else f"{d} ({100 * s:.0f} %)"
     rows = [
         ("Young's modulus E", _pm(result.e_pa, result.e_pa_u, 1e9), "GPa", share["e_pa"]),
         ("shear modulus G", _pm(result.g_pa, result.g_pa_u, 1e9), "GPa", share["g_pa"]),
@@ -81,41 +81,35 @@ def format_table(result) -> str:
     return "\n".join(lines)
 
 
-class _OutputError(RingdownError):
-    code = "output"
-
-
 def _write_csv(result, out: Path) -> None:
     unit = {"e_pa": "Pa", "g_pa": "Pa", "poisson": "1", "density_kg_per_m3": "kg/m^3"}
     vals = {"e_pa": (result.e_pa, result.e_pa_u), "g_pa": (result.g_pa, result.g_pa_u),
             "poisson": (result.poisson, result.poisson_u),
             "density_kg_per_m3": (result.density_kg_per_m3, result.density_kg_per_m3_u)}
-    from ..errors import RingdownError
-    from ..outputs import atomic_write, csv_row
+    from ..io.outputs import atomic_write, csv_row
 
-    try:
-        with atomic_write(out, newline="", what="CSV file") as fh:
-            w = csv.writer(fh)
-            w.writerow(["quantity", "value", "u", "unit", "dominant_input", "shape", "f_flexural_hz",
-                        "f_torsional_hz", "loss_factor_flexural", "loss_factor_torsional", "t1", "r_factor"])
-            t = result.torsional
-            for q, (v, u) in vals.items():
-                w.writerow(csv_row([q, v, u, unit[q], result.dominant(q), result.shape, result.flexural.f_hz,
-                                    None if t is None else t.f_hz, result.flexural.loss_factor,
-                                    None if t is None else t.loss_factor, result.t1, result.r_factor]))
-    except RingdownError as exc:
-        raise _OutputError(str(exc)) from None
+    with atomic_write(out, newline="", what="CSV file") as fh:
+        w = csv.writer(fh)
+        w.writerow(["quantity", "value", "u", "unit", "dominant_input", "shape", "f_flexural_hz",
+                    "f_torsional_hz", "loss_factor_flexural", "loss_factor_torsional", "t1", "r_factor"])
+        t = result.torsional
+        for q, (v, u) in vals.items():
+            w.writerow(csv_row([q, v, u, unit[q], result.dominant(q), result.shape, result.flexural.f_hz,
+                                None if t is None else t.f_hz, result.flexural.loss_factor,
+                                None if t is None else t.loss_factor, result.t1, result.r_factor]))
 
 
 def _write_report(result, out: Path, settings: dict, header: dict) -> None:
-    from ..report import moduli_section, write_report
+    from ..render.report import moduli_section, write_report
 
     header = {**header, "title": header.get("title") or "Elastic moduli from a tap"}
-    try:
-        write_report(list(result.analyses), out, settings=settings, extra_sections=[moduli_section(result)],
-                     **header)
-    except ParameterError as exc:
-        raise _OutputError(str(exc)) from exc
+    write_report(list(result.analyses), out, settings=settings, extra_sections=[moduli_section(result)], **header)
+
+
+def _required(name: str, value: Optional[float], shape: str) -> float:
+    v = _positive(name, value, True, shape)
+    assert v is not None  # _positive raised for a missing required value
+    return v
 
 
 def _positive(name: str, value: Optional[float], required: bool, shape: str) -> Optional[float]:
@@ -192,19 +186,20 @@ def register(app: typer.Typer) -> None:
         serial: Serial = None,
         debug: bool = DEBUG_OPTION,
     ) -> None:
-        from ..moduli import CylindricalRod, RectangularBar, moduli
+        from ..materials.moduli import CylindricalRod, RectangularBar, moduli
 
         def run():
             if shape not in ("bar", "rod"):
                 raise ParameterError(f"--shape must be 'bar' or 'rod'; got {shape!r}")
             is_bar = shape == "bar"
-            L = _positive("--length-mm", length_mm, True, shape)
-            m = _positive("--mass-g", mass_g, True, shape)
+            L = _required("--length-mm", length_mm, shape)
+            m = _required("--mass-g", mass_g, shape)
+            spec: RectangularBar | CylindricalRod
             if is_bar:
                 if diameter_mm is not None:
                     raise ParameterError("--diameter-mm is for --shape rod; a bar takes --width-mm and --thickness-mm")
-                b = _positive("--width-mm", width_mm, True, shape)
-                t = _positive("--thickness-mm", thickness_mm, True, shape)
+                b = _required("--width-mm", width_mm, shape)
+                t = _required("--thickness-mm", thickness_mm, shape)
                 spec = RectangularBar(L * 1e-3, b * 1e-3, t * 1e-3, m * 1e-3,
                                       _nonneg("--u-length-mm", u_length_mm) * 1e-3,
                                       _nonneg("--u-width-mm", u_width_mm) * 1e-3,
@@ -213,7 +208,7 @@ def register(app: typer.Typer) -> None:
             else:
                 if width_mm is not None or thickness_mm is not None:
                     raise ParameterError("--width-mm and --thickness-mm are for --shape bar; a rod takes --diameter-mm")
-                d = _positive("--diameter-mm", diameter_mm, True, shape)
+                d = _required("--diameter-mm", diameter_mm, shape)
                 spec = CylindricalRod(L * 1e-3, d * 1e-3, m * 1e-3, _nonneg("--u-length-mm", u_length_mm) * 1e-3,
                                       _nonneg("--u-diameter-mm", u_diameter_mm) * 1e-3,
                                       _nonneg("--u-mass-g", u_mass_g) * 1e-3)
@@ -222,6 +217,7 @@ def register(app: typer.Typer) -> None:
             if torsional_file is not None and torsional_hz is not None:
                 raise ParameterError("give the torsional recording TORSION or --torsional-hz, not both")
             flex = flexural_file if flexural_file is not None else flexural_hz
+            assert flex is not None  # one of the two, checked above
             tors = torsional_file if torsional_file is not None else torsional_hz
             return moduli(spec, flex, tors, flexural_hz_u=u_flexural_hz, torsional_hz_u=u_torsional_hz,
                           flexural_mode=flexural_mode, torsional_mode=torsional_mode, poisson=poisson,

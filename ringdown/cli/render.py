@@ -1,7 +1,7 @@
 """Helpers the ``analyze`` command calls for ``--plot DIR``, ``--plot-format`` and ``--report OUT.html``.
 
-No numerics and no matplotlib here: figures come from :mod:`ringdown.plots`, HTML from
-:mod:`ringdown.report`. Both helpers raise only :class:`ringdown.errors.RingdownError` subclasses.
+No numerics and no matplotlib here: figures come from :mod:`ringdown.render.plots`, HTML from
+:mod:`ringdown.render.report`. Both helpers raise only :class:`ringdown.base.errors.RingdownError` subclasses.
 """
 
 from __future__ import annotations
@@ -9,12 +9,16 @@ from __future__ import annotations
 import os
 import re
 from pathlib import Path
+from typing import TYPE_CHECKING, cast
 
-from ..errors import ParameterError, RingdownError
+from ..base.errors import ParameterError, RingdownError
+
+if TYPE_CHECKING:
+    from matplotlib.figure import Figure
 
 __all__ = ["PLOT_FORMATS", "check_plot_format", "write_plots", "write_report"]
 
-#: Formats ``--plot-format`` and ``history --plot`` accept (:data:`ringdown.plots.FIGURE_FORMATS`,
+#: Formats ``--plot-format`` and ``history --plot`` accept (:data:`ringdown.render.plots.FIGURE_FORMATS`,
 #: repeated here so that checking an option does not import the plotting module).
 PLOT_FORMATS = ("png", "svg", "pdf")
 
@@ -84,7 +88,7 @@ def write_plots(analyses, out_dir, fmt: str = "png") -> list[str]:
         For an unknown format, or a folder or file that cannot be written.
     """
     check_plot_format(fmt)
-    from .. import plots
+    from ..render import plots
 
     out = Path(out_dir)
     try:
@@ -103,14 +107,14 @@ def write_plots(analyses, out_dir, fmt: str = "png") -> list[str]:
                 jobs.append((f"{stem}_mode{m.index}", lambda m=m: plots.plot_mode(m)))
             if m.damping_vs_amplitude:
                 jobs.append((f"{stem}_mode{m.index}_damping",
-                             lambda m=m: plots.plot_damping_vs_amplitude(m).figure))
+                             lambda m=m: cast("Figure", plots.plot_damping_vs_amplitude(m).figure)))
         for name, draw in jobs:
             try:
                 data = plots.figure_bytes(draw(), fmt=fmt)
             except RingdownError:
                 continue  # data not kept for this figure: nothing to draw
             path = out / f"{name}.{fmt}"
-            from ..outputs import atomic_write
+            from ..io.outputs import atomic_write
 
             with atomic_write(path, "wb", what="plot") as fh:  # renamed into place: never half a figure
                 fh.write(data)
@@ -129,6 +133,6 @@ def write_report(analyses, out_path, settings: dict | None = None, header: dict 
     ParameterError
         When the file cannot be written.
     """
-    from .. import report
+    from ..render import report
 
     return report.write_report(list(analyses), out_path, settings=settings, **(header or {}))

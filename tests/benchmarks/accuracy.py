@@ -7,7 +7,7 @@ in white Gaussian noise of standard deviation ``sigma``, sampled at 8 kHz. The o
 seeded noise draws are analysed with ``ringdown.analyze`` (method "auto", i.e. the matrix pencil;
 the envelope and log-decrement estimators come from the same analysis as its cross-checks), and
 the root-mean-square error of beta and f is divided by the Cramer-Rao bound of the same record
-(``ringdown.crlb.crlb_damped_sinusoid`` over the samples from the onset to the end of the record).
+(``ringdown.analysis.crlb.crlb_damped_sinusoid`` over the samples from the onset to the end of the record).
 The rows "pencil alone, wide band" run the matrix-pencil estimator by itself on a band of
 half-width ``2 WIDE beta`` (pass band +- WIDE beta, skirts WIDE beta): that measures the estimator,
 not the pipeline's choice of band.
@@ -36,11 +36,11 @@ import time
 import numpy as np
 
 import ringdown
-from ringdown.bands import extract_band, settling_time_s, spectrum_of
-from ringdown.crlb import crlb_damped_sinusoid
-from ringdown.errors import FitError
-from ringdown.estimators import pencil
-from ringdown.estimators.base import Window
+from ringdown.analysis.bands import extract_band, settling_time_s, spectrum_of
+from ringdown.analysis.crlb import crlb_damped_sinusoid
+from ringdown.base.errors import FitError
+from ringdown.analysis.estimators import pencil
+from ringdown.analysis.estimators.base import Window
 
 FS = 8000.0  # Hz
 F_HZ = 1234.5  # off the FFT bin grid on purpose

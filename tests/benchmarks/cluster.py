@@ -26,7 +26,7 @@ import time
 from pathlib import Path
 
 import ringdown
-from ringdown.cluster import open_client
+from ringdown.base.cluster import open_client
 
 ROOT = Path(__file__).resolve().parents[2] / "example_signals"
 

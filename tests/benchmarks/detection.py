@@ -9,7 +9,7 @@ record is quantised to 16 bits after scaling to a random peak level (-1 to -20 d
 the stated (f_d, beta) of each mode.
 
 A mode is *clearly detectable* when its matched-filter SNR over the first hit,
-``A^2 (1 - exp(-2 beta T)) / (4 beta S(f))`` (``ringdown.detect.mf_snr``, S the one-sided noise
+``A^2 (1 - exp(-2 beta T)) / (4 beta S(f))`` (``ringdown.analysis.detect.mf_snr``, S the one-sided noise
 density of the added noise plus the 16-bit quantisation), is at least 30 dB and it completes at
 least 10 cycles before its envelope falls to the noise (``ln(d) / (2 beta)`` seconds). It is
 *found* when a reported mode lies within ``max(3 beta / pi, 3 u(f_d), 0.2 %)`` of its frequency
@@ -38,7 +38,7 @@ from collections import defaultdict
 import numpy as np
 
 import ringdown
-from ringdown.detect import mf_snr
+from ringdown.analysis.detect import mf_snr
 
 RATES = (8000.0, 16000.0, 44100.0, 48000.0)
 

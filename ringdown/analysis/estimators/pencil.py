@@ -1,0 +1,379 @@
+"""Parametric estimator: matrix pencil poles refined by nonlinear least squares.
+
+Inside the fit window the band's complex envelope is modelled as a sum of complex damped
+exponentials, one per mode::
+
+    z[n] = sum_k c_k exp((-beta_k + i 2 pi (f_k - f_shift)) t_n) + noise,   t_n = n / fs
+
+(the band holds only positive frequencies, so each real mode is one complex pole).
+
+Steps
+-----
+1. Decimate ``z`` by the largest integer factor that keeps the sample rate at or above the full
+   width of the band mask (pass band plus both skirts): no noise or signal inside the mask is
+   aliased, so nothing is lost, and the matrices get smaller.
+2. Matrix pencil (Hua & Sarkar 1990): Hankel matrix with pencil parameter ``L = N/3`` (inside
+   the N/3 .. N/2 range recommended by Sarkar & Pereira 1995), SVD, and the model order ``M`` is
+   the number of singular values above a noise threshold (rule below), at most ``MAX_MODES``.
+   Poles are the eigenvalues of the shift-invariance matrix of the signal subspace.
+3. Poles that grow (``beta <= 0``), lie outside ``[f_lo - skirt, f_hi + skirt]`` or decay so fast
+   that their half-power bandwidth ``beta / pi`` exceeds the band's width are rejected.
+4. All kept poles are refined jointly by nonlinear least squares (``scipy_optimize.least_squares``)
+   with the complex amplitudes solved inside (variable projection, Golub & Pereyra 1973 [from
+   memory]). A mode whose fitted amplitude is not significant (``|c| < 5 u(|c|)``), or that left
+   the band, is dropped and the rest refitted.
+5. Covariance (Kay 1993, ch. 3 and 8 [from memory]): the least-squares estimate with correlated
+   noise has covariance ``A^-1 B A^-1`` with ``A = Re(J^H J)`` and ``B = Re(J^H R J) / 2``, where
+   ``R`` is the noise covariance of ``z``. The envelope is oversampled relative to the band, so
+   adjacent samples of its noise are correlated; ``R`` is computed exactly from the band mask
+   (noise power spectrum proportional to the squared mask) and scaled by the residual variance.
+   This keeps the uncertainty honest without guessing an "effective number of samples".
+
+Choosing the band
+-----------------
+The fit is only as good as its window, and a band-based window starts after the band filter has
+settled (``ringdown.bands.settling_time_s``, a few 1 / (2 pi sigma) for the Gaussian mask). That start costs a factor of
+about ``exp(beta * settling time)`` in standard deviation against the Cramer-Rao bound of the whole
+decay. A wide band costs nothing else here (the least-squares fit weighs the noise density at the
+mode, not the band's total noise), so give this estimator a band of half-width ~20 beta or more
+(skirts ~10 beta), with neighbouring modes either outside it or fitted jointly inside it.
+
+Model-order rule
+----------------
+With complex noise variance ``s2`` per sample (``band.noise_rms ** 2`` when set, otherwise the
+median of the squared singular values beyond ``MAX_MODES``), noise alone gives squared
+singular values up to about ``(N - L) s2 g (1 + sqrt((L+1)/(N-L)))^2`` (Marchenko-Pastur edge),
+with ``g`` the ratio of the noise spectral density in the pass band to its average over the
+sample rate. A singular value counts as signal when its square exceeds ``SV_MARGIN`` times
+that edge (the margin is common practice, no source: it covers the correlation between rows of
+a Hankel matrix, which widens the noise spectrum of its singular values).
+
+References
+----------
+Y. Hua and T. K. Sarkar, "Matrix pencil method for estimating parameters of exponentially
+damped/undamped sinusoids in noise", IEEE Trans. ASSP 38(5):814-824, 1990.
+T. K. Sarkar and O. Pereira, "Using the matrix pencil method to estimate the parameters of a sum
+of complex exponentials", IEEE Antennas Propag. Mag. 37(1):48-55, 1995.
+G. H. Golub and V. Pereyra, "The differentiation of pseudo-inverses and nonlinear least squares
+problems whose variables separate", SIAM J. Numer. Anal. 10(2):413-432, 1973 [from memory].
+S. M. Kay, *Fundamentals of Statistical Signal Processing I: Estimation Theory*, 1993.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from ...base._lazy import lazy_module
+from ..bands import Band
+from ...base.errors import FitError
+from ..results import Estimate, ModeTrace, Notice
+from .base import Window
+
+scipy_linalg = lazy_module("scipy.linalg")
+scipy_optimize = lazy_module("scipy.optimize")
+
+__all__ = ["estimate", "MAX_MODES", "SV_MARGIN", "MAX_PENCIL_SAMPLES", "DYNAMIC_RANGE_DB"]
+
+#: Most modes the estimator looks for in one band (common practice, no source: a band around one
+#: spectral peak rarely holds more than a split pair; more poles mostly model noise).
+MAX_MODES = 4
+#: Margin on the noise edge of the singular values (common practice, no source; see module notes).
+SV_MARGIN = 4.0
+#: Most samples the pencil's SVD uses (the first ones of the window, where the SNR is highest);
+#: the least-squares refinement uses the whole window. Keeps the SVD at a few milliseconds.
+MAX_PENCIL_SAMPLES = 128
+#: Significance a fitted mode needs, |c| / u(|c|) (common practice, no source: a 5-sigma amplitude).
+MIN_AMPLITUDE_SIGNIFICANCE = 5.0
+#: Dynamic range inside one band, dB (common practice, no source): a component weaker than the
+#: strongest by more than this (in singular value, and in fitted energy) is not reported. The band
+#: filter's own transients leave structured residuals near -60 dB that would otherwise be fitted
+#: as weak spurious modes at very high SNR.
+DYNAMIC_RANGE_DB = 45.0
+#: Fewest samples (after decimation) per fitted mode, common practice, no source.
+MIN_SAMPLES_PER_MODE = 6
+
+
+def _noise_acf(band: Band, fs: float, n: int) -> tuple[np.ndarray, float]:
+    """Normalised autocorrelation of the envelope's noise at rate ``fs``, lags 0 .. n-1.
+
+    Returns ``(r, g)``: ``r[k] = E[w[j+k] w*[j]] / E|w|^2`` from the noise spectrum (the squared
+    mask, aliased to ``fs``), and ``g``, the pass-band spectral density over the mean density.
+    """
+    m_grid = 1 << int(math.ceil(math.log2(max(4 * n, 512))))
+    nu = np.fft.fftfreq(m_grid, d=1.0 / fs)
+    s = np.zeros(m_grid)
+    for q in (-2, -1, 0, 1, 2):  # fold any part of the mask beyond +-fs/2 (none when fs >= width)
+        s += band.mask(band.f_shift_hz + nu + q * fs) ** 2
+    mean_s = float(np.mean(s))
+    if mean_s <= 0.0:
+        return np.r_[1.0, np.zeros(n - 1)], 1.0
+    r = np.fft.ifft(s)[:n] / mean_s
+    return r, float(np.max(s) / mean_s)
+
+
+def _basis(poles_s: np.ndarray, t: np.ndarray) -> np.ndarray:
+    """(n, K) matrix exp(p_k t_n) for continuous-time poles ``p_k = -beta + i omega`` (1/s)."""
+    return np.exp(np.outer(t, poles_s))
+
+
+def _pencil(zd: np.ndarray, fs: float, noise_var: float | None, g: float) -> np.ndarray:
+    """Continuous-time poles (1/s, baseband) of the strongest components of ``zd``."""
+    y = zd[:MAX_PENCIL_SAMPLES]
+    n = y.shape[0]
+    lp = max(n // 3, 1)
+    rows = n - lp
+    hank = scipy_linalg.hankel(y[:rows], y[rows - 1 :])  # (rows, lp + 1), H[i, j] = y[i + j]
+    try:
+        _, sv, vh = scipy_linalg.svd(hank, full_matrices=False, lapack_driver="gesdd")
+    except (np.linalg.LinAlgError, ValueError):
+        _, sv, vh = scipy_linalg.svd(hank, full_matrices=False, lapack_driver="gesvd")
+    max_order = min(MAX_MODES, lp - 1, rows - 1)
+    if max_order < 1:
+        return np.zeros(0, dtype=complex)
+    if noise_var is None or not noise_var > 0.0:
+        tail = sv[max_order:] ** 2
+        noise_var = float(np.median(tail)) / rows if tail.size else 0.0
+        g = 1.0  # the median already measures the in-band level
+    edge = rows * noise_var * g * (1.0 + math.sqrt((lp + 1) / rows)) ** 2
+    floor = 10.0 ** (-DYNAMIC_RANGE_DB / 20.0) * sv[0]
+    order = int(np.sum((sv[:max_order] ** 2 > SV_MARGIN * edge) & (sv[:max_order] > floor)))
+    if order == 0:
+        return np.zeros(0, dtype=complex)
+    # H = U S Vh: the rows of Vh span the row space of H, i.e. the vectors (z_k^j)_j themselves
+    w = vh[:order].T
+    psi, *_ = np.linalg.lstsq(w[:-1], w[1:], rcond=None)
+    zk = np.linalg.eigvals(psi)
+    zk = zk[np.abs(zk) > 0]
+    return np.log(zk) * fs
+
+
+def _keep_pole(p: complex, band: Band, f_hi_cap: float) -> bool:
+    beta = -p.real
+    f = band.f_shift_hz + p.imag / (2.0 * np.pi)
+    if not (beta > 0.0 and math.isfinite(beta)):
+        return False
+    if not (band.f_lo_hz - band.skirt_hz <= f <= band.f_hi_hz + band.skirt_hz):
+        return False
+    # half-power bandwidth beta/pi wider than the band: not a mode this band can hold
+    return beta / np.pi <= f_hi_cap
+
+
+def _fit(zd: np.ndarray, t: np.ndarray, poles0: np.ndarray):
+    """Variable-projection NLS of a sum of complex exponentials; returns (poles, c, result)."""
+    k = poles0.shape[0]
+    # parameters: (beta_k, omega_k) scaled by the sample spacing so that they are O(1) steps
+    dt = t[1] - t[0] if t.shape[0] > 1 else 1.0
+    x0 = np.empty(2 * k)
+    x0[0::2] = -poles0.real * dt
+    x0[1::2] = poles0.imag * dt
+
+    # growth is capped at e^20 over the window so that a trial pole can never overflow the basis
+    max_growth = 20.0 / max(t[-1], dt)
+
+    def poles_of(x):
+        return (np.minimum(-x[0::2] / dt, max_growth) + 1j * x[1::2] / dt)
+
+    def resid(x):
+        phi = _basis(poles_of(x), t)
+        c, *_ = np.linalg.lstsq(phi, zd, rcond=None)
+        r = zd - phi @ c
+        return np.concatenate([r.real, r.imag])
+
+    res = scipy_optimize.least_squares(resid, x0, method="lm", x_scale="jac", xtol=1e-12, ftol=1e-12,
+                                       gtol=1e-12, max_nfev=200 * (2 * k + 1))
+    poles = poles_of(res.x)
+    phi = _basis(poles, t)
+    c, *_ = np.linalg.lstsq(phi, zd, rcond=None)
+    return poles, c, res
+
+
+def _covariance(zd, t, poles, c, r_acf, g):
+    """Covariance of (beta_k, f_k, Re c_k, Im c_k) per mode, sandwich form for correlated noise.
+
+    Returns ``(cov, resid, cond)`` with ``cov`` of shape (4K, 4K) in units (1/s, Hz, -, -).
+    """
+    k = poles.shape[0]
+    n = t.shape[0]
+    phi = _basis(poles, t)
+    resid = zd - phi @ c
+    jc = np.empty((n, 4 * k), dtype=complex)
+    for i in range(k):
+        e = phi[:, i]
+        jc[:, 4 * i] = -t * c[i] * e  # d/d beta
+        jc[:, 4 * i + 1] = 1j * 2.0 * np.pi * t * c[i] * e  # d/d f
+        jc[:, 4 * i + 2] = e  # d/d Re c
+        jc[:, 4 * i + 3] = 1j * e  # d/d Im c
+    a = (jc.conj().T @ jc).real
+    n_par = 4 * k
+    # residual variance per complex sample; the fit removes about n_par/2 * g of noise power
+    dof = n - 0.5 * n_par * g
+    if dof <= 0:
+        raise FitError(f"{n} envelope samples cannot fit {k} mode(s); lengthen the window or narrow the band")
+    s2 = float(np.sum(np.abs(resid) ** 2)) / dof
+    rj = scipy_linalg.matmul_toeplitz((r_acf, r_acf.conj()), jc)
+    b = 0.5 * s2 * (jc.conj().T @ rj).real
+    cond = float(np.linalg.cond(a))
+    try:
+        ainv = np.linalg.inv(a)
+    except np.linalg.LinAlgError:
+        ainv = np.linalg.pinv(a)
+    cov = ainv @ b @ ainv
+    return cov, resid, cond
+
+
+def estimate(band: Band, window: Window) -> list[Estimate]:
+    """Damped frequency and decay rate of every mode in a band, by matrix pencil and NLS.
+
+    Parameters
+    ----------
+    band : Band
+        The band's complex envelope (``noise_rms`` should be set; without it the noise level is
+        estimated from the singular values).
+    window : Window
+        Fit window; only the samples of ``band.z`` inside it are used.
+
+    Returns
+    -------
+    list of Estimate
+        One per mode found, sorted by frequency, ``method="pencil"``. ``amplitude`` is ``|c_k|``
+        at ``window.start_s``; uncertainties are standard uncertainties from the Jacobian and
+        the residual variance with the envelope's noise correlation accounted for. Estimates of
+        modes closer than the window can resolve carry a Notice ``"unresolved_modes"``.
+
+    Raises
+    ------
+    FitError
+        When the window holds too few samples, or no decaying mode is found inside the band.
+
+    References
+    ----------
+    Hua & Sarkar, IEEE Trans. ASSP 38(5):814-824, 1990; Sarkar & Pereira, IEEE Antennas Propag.
+    Mag. 37(1):48-55, 1995; Kay 1993 (covariance of least-squares estimates).
+    """
+    window = window.for_model_fit()
+    sl = window.indices(band)
+    z_w = np.asarray(band.z[sl], dtype=np.complex128)
+    fs_b = float(band.sample_rate)
+    full_width = (band.f_hi_hz - band.f_lo_hz) + 2.0 * band.skirt_hz
+    dec = max(int(math.floor(fs_b / full_width)), 1)
+    zd = z_w[::dec]
+    fs = fs_b / dec
+    n = zd.shape[0]
+    i0 = sl.start if sl.start is not None else 0
+    t_first = band.t0_s + i0 / fs_b
+    where = f"band {band.f_lo_hz:g}-{band.f_hi_hz:g} Hz, window {window.start_s:g}-{window.end_s:g} s"
+    if not np.all(np.isfinite(z_w)):
+        raise FitError(f"{where}: the envelope holds NaN or infinite samples; clean the recording first")
+    if n < 2 * MIN_SAMPLES_PER_MODE:
+        raise FitError(
+            f"{where}: {n} usable envelope samples, need at least {2 * MIN_SAMPLES_PER_MODE}; lengthen the window"
+        )
+    t = np.arange(n) / fs
+    r_acf, g = _noise_acf(band, fs, n)
+    noise_var = None if band.noise_rms is None else float(band.noise_rms) ** 2
+
+    poles = _pencil(zd, fs, noise_var, g)
+    poles = np.array([p for p in poles if _keep_pole(p, band, band.width_hz)], dtype=complex)
+    poles = poles[: max(n // MIN_SAMPLES_PER_MODE, 1)]
+    if poles.size == 0:
+        raise FitError(f"{where}: no decaying mode above the noise inside the band; check the band and the window")
+
+    while True:
+        try:
+            poles_f, c, res = _fit(zd, t, poles)
+            cov, resid, cond = _covariance(zd, t, poles_f, c, r_acf, g)
+        except (np.linalg.LinAlgError, ValueError) as exc:
+            raise FitError(f"{where}: least-squares fit failed ({exc}); narrow the band or shorten the window") from exc
+        # drop one offending mode and refit: first any that left the band or grew, then any below the
+        # dynamic-range floor, then the least significant one below MIN_AMPLITUDE_SIGNIFICANCE
+        inside = np.array([_keep_pole(p, band, band.width_hz) for p in poles_f])
+        var_c = np.array([cov[4 * i + 2, 4 * i + 2] + cov[4 * i + 3, 4 * i + 3] for i in range(poles_f.size)])
+        signif = np.abs(c) / np.sqrt(np.maximum(var_c / 2.0, 1e-300))
+        signif = np.where(np.isfinite(signif), signif, -1.0)
+        energy = np.zeros(poles_f.size)
+        energy[inside] = np.abs(c[inside]) ** 2 * np.sum(np.exp(2.0 * np.outer(t, poles_f[inside].real)), axis=0)
+        too_weak = inside & (energy < 10.0 ** (-DYNAMIC_RANGE_DB / 10.0) * np.max(energy))
+        if not np.all(inside):
+            drop = int(np.flatnonzero(~inside)[0])
+        elif np.any(too_weak):
+            drop = int(np.flatnonzero(too_weak)[np.argmin(energy[too_weak])])
+        elif np.min(signif) < MIN_AMPLITUDE_SIGNIFICANCE:
+            drop = int(np.argmin(signif))
+        else:
+            break
+        poles = np.delete(poles_f, drop)
+        if poles.size == 0:
+            raise FitError(f"{where}: no significant decaying mode inside the band; check the band and the window")
+
+    t_w = window.end_s - window.start_s
+    t_span = t[-1] if n > 1 else 1.0 / fs
+    order = np.argsort(poles_f.imag)
+    f_all = band.f_shift_hz + poles_f.imag / (2.0 * np.pi)
+    unresolved: set[int] = set()
+    if poles_f.size > 1:
+        if cond > 1e12:
+            unresolved.update(range(poles_f.size))
+        for a_i, b_i in zip(order[:-1], order[1:]):
+            sep = abs(f_all[b_i] - f_all[a_i])
+            var_a = cov[4 * a_i + 1, 4 * a_i + 1]
+            var_b = cov[4 * b_i + 1, 4 * b_i + 1]
+            corr = cov[4 * a_i + 1, 4 * b_i + 1] / math.sqrt(max(var_a * var_b, 1e-300))
+            if sep < 1.0 / max(t_span, 1e-300) or abs(corr) > 0.95:
+                unresolved.update((int(a_i), int(b_i)))
+
+    residual_rms = float(np.sqrt(np.mean(np.abs(resid) ** 2)))
+    t_last = t_first + (n - 1) * dec / fs_b
+    converged = bool(res.success) and res.status > 0
+    env = np.abs(band.z)
+    model = None
+    if poles_f.size > 1:
+        # the sum of all modes fitted here, for plots: what the band envelope is compared with
+        tt = np.asarray(band.t_s, dtype=float) - t_first
+        model = np.full(tt.shape, np.nan)
+        after = tt >= 0
+        model[after] = np.abs(np.exp(np.outer(tt[after], poles_f)) @ c)
+    out: list[Estimate] = []
+    for i in order:
+        i = int(i)
+        beta = float(-poles_f[i].real)
+        f_hz = float(f_all[i])
+        amp = float(abs(c[i]) * math.exp(-beta * (window.start_s - t_first)))
+        warn: list[Notice] = []
+        if i in unresolved:
+            others = ", ".join(f"{f_all[j]:.6g}" for j in sorted(unresolved) if j != i)
+            warn.append(Notice("unresolved_modes",
+                               f"mode at {f_hz:.6g} Hz is closer to the mode(s) at {others} Hz than a "
+                               f"{t_w:.3g} s window resolves; lengthen the window or treat the pair as one"))
+        trace = ModeTrace(
+            t_s=band.t_s,
+            envelope=env,
+            fit_start_s=float(t_first),
+            fit_end_s=float(t_last),
+            noise_floor=float(band.noise_rms) if band.noise_rms is not None else residual_rms,
+            fit_amplitude=amp,
+            fit_beta_per_s=beta,
+            fit_t0_s=float(window.start_s),
+            model_envelope=model,
+            n_model_modes=int(poles_f.size),
+        )
+        out.append(
+            Estimate(
+                method="pencil",
+                f_d_hz=f_hz,
+                f_d_hz_u=float(math.sqrt(max(cov[4 * i + 1, 4 * i + 1], 0.0))),
+                beta_per_s=beta,
+                beta_per_s_u=float(math.sqrt(max(cov[4 * i, 4 * i], 0.0))),
+                cov_f_beta=float(cov[4 * i, 4 * i + 1]),
+                amplitude=amp,
+                fit_start_s=float(t_first),
+                fit_end_s=float(t_last),
+                n_points=int(n),
+                residual_rms=residual_rms,
+                converged=converged,
+                warnings=tuple(warn),
+                trace=trace,
+            )
+        )
+    return out

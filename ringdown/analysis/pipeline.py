@@ -1,0 +1,1435 @@
+"""The analysis pipeline: a recording in, every mode of every hit out.
+
+read -> condition -> find hits -> find modes -> extract each band -> estimate -> combine.
+
+``analyze`` takes an array, ``analyze_file`` a path, ``analyze_many`` a batch of paths (a file
+that cannot be analysed gives an ``Analysis`` whose ``error`` is set; the others still run).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+from typing import Callable, Iterable, Iterator, Sequence
+
+import numpy as np
+
+from . import condition
+from . import detect
+from .bands import Band, Spectrum, extract_band, settling_time_s, spectrum_of
+from .detect import Candidate
+from ..base.errors import FitError, InputError, NoRingdownError, ParameterError, RingdownError
+from .estimators import ESTIMATORS, Window, method_names
+from .estimators.decrement import band_peaks
+from .peaks import Peak, find_peaks, group_bands
+from .quantities import DB_PER_NEPER, derive
+from ..io.recording import Recording
+from .results import Analysis, Estimate, Hit, Mode, ModeTrace, Notice, Rejected
+
+__all__ = ["analyze", "analyze_recording", "analyze_file", "analyze_many", "iter_analyze_files", "AnalysisOptions"]
+
+#: Fewest samples a recording may have.
+MIN_SAMPLES = 64
+#: Largest sample magnitude accepted: power sums of larger values overflow float64.
+MAX_ABS_SAMPLE = 1e100
+#: How modes are found: ``"spectral"`` (the default: spectral peaks of the decay judged against
+#: the noise spectrum) or ``"model"`` (experimental: matrix-pencil candidates from the onset on,
+#: judged by matched-filter SNR, with fast decays fitted on the raw record; see ``detect.py``;
+#: it does not yet meet the detection benchmark's targets, see README).
+DETECTIONS = ("spectral", "model")
+#: Estimators that resolve several modes in one band jointly.
+_MULTI_MODE = frozenset({"pencil"})
+
+
+@dataclass(frozen=True, slots=True)
+class AnalysisOptions:
+    """Options of one analysis, validated once (see :func:`analyze` for their meaning)."""
+
+    method: str = "auto"
+    bands: tuple[tuple[float, float], ...] | None = None
+    max_modes: int | None = None
+    min_snr_db: float = 10.0
+    min_hit_snr_db: float = 20.0
+    keep_double_hits: bool = False
+    start_s: float | None = None
+    end_s: float | None = None
+    detection: str = "spectral"
+
+    def __post_init__(self) -> None:
+        if self.detection not in DETECTIONS:
+            raise ParameterError(f"unknown detection {self.detection!r}; choose one of {', '.join(DETECTIONS)}")
+        for name in ("start_s", "end_s"):
+            v = getattr(self, name)
+            if v is not None:
+                try:
+                    v = float(v)
+                except (TypeError, ValueError):
+                    raise ParameterError(f"{name} is a time in seconds from the record start; got {v!r}") from None
+                if not (math.isfinite(v) and v >= 0):
+                    raise ParameterError(f"{name} must be a finite time >= 0 s; got {v!r}")
+                object.__setattr__(self, name, v)
+        if self.start_s is not None and self.end_s is not None and self.end_s <= self.start_s:
+            raise ParameterError(f"end_s ({self.end_s:g} s) must come after start_s ({self.start_s:g} s)")
+        if self.method not in method_names():
+            raise ParameterError(f"unknown method {self.method!r}; choose one of {', '.join(method_names())}")
+        if self.max_modes is not None and (not isinstance(self.max_modes, (int, np.integer)) or self.max_modes < 1):
+            raise ParameterError(f"max_modes must be a whole number >= 1; got {self.max_modes!r}")
+        if not (math.isfinite(self.min_snr_db) and self.min_snr_db >= 0):
+            raise ParameterError(f"min_snr_db must be >= 0 dB; got {self.min_snr_db!r}")
+        if self.bands is not None:
+            clean = []
+            for b in self.bands:
+                try:
+                    lo, hi = (float(v) for v in b)
+                except (TypeError, ValueError):
+                    raise ParameterError(f"a band is two frequencies low:high in Hz; got {b!r}") from None
+                if not (math.isfinite(lo) and math.isfinite(hi) and 0 <= lo < hi):
+                    raise ParameterError(f"band {lo:g}:{hi:g} Hz must have 0 <= low < high")
+                clean.append((lo, hi))
+            object.__setattr__(self, "bands", tuple(sorted(clean)))
+
+    @classmethod
+    def from_kwargs(cls, options: dict) -> "AnalysisOptions":
+        """Validated options from keyword arguments; an unknown name is a ParameterError."""
+        unknown = sorted(set(options) - set(cls.__slots__))
+        if unknown:
+            raise ParameterError(f"unknown analysis option(s) {', '.join(map(repr, unknown))}; "
+                                 f"known: {', '.join(cls.__slots__)}")
+        return cls(**options)
+
+    @property
+    def primary(self) -> str:
+        """The estimator whose figures a mode reports."""
+        if self.method != "auto":
+            return self.method
+        return "pencil" if "pencil" in ESTIMATORS else "envelope"
+
+    def to_dict(self) -> dict:
+        return {
+            "method": self.method,
+            "primary_method": self.primary,
+            "bands": None if self.bands is None else [list(b) for b in self.bands],
+            "max_modes": self.max_modes,
+            "min_snr_db": self.min_snr_db,
+            "min_hit_snr_db": self.min_hit_snr_db,
+            "keep_double_hits": self.keep_double_hits,
+            "start_s": self.start_s,
+            "end_s": self.end_s,
+            "detection": self.detection,
+        }
+
+
+# ----------------------------------------------------------------------------------------------
+# public entry points
+
+
+def analyze(
+    x,
+    sample_rate: float,
+    *,
+    method: str = "auto",
+    bands: Sequence[tuple[float, float]] | None = None,
+    max_modes: int | None = None,
+    min_snr_db: float = 10.0,
+    min_hit_snr_db: float = 20.0,
+    keep_double_hits: bool = False,
+    start_s: float | None = None,
+    end_s: float | None = None,
+    detection: str = "spectral",
+) -> Analysis:
+    """Measure every mode of a ring-down record given as an array.
+
+    Parameters
+    ----------
+    x : (n_samples,) array_like of float
+        One channel, any unit (the unit of amplitudes in the result).
+    sample_rate : float, > 0, Hz
+    method : {"auto", "envelope", "decrement", "half_power", "pencil"}
+        Estimator whose figures each mode reports; the others are kept in ``cross_checks``.
+        ``"auto"`` is the parametric (matrix pencil) fit when available.
+    bands : sequence of (low_hz, high_hz) or None
+        Analyse these bands instead of searching for spectral peaks.
+    max_modes : int >= 1 or None
+        Keep at most this many modes (the strongest).
+    min_snr_db : float, dB, default 10
+        A fit window ends where the mode's envelope falls to this margin above its band noise
+        (ISO 3382-2 keeps 10 dB above the noise; FIELD notes: the log-envelope bias is ~0 there).
+    min_hit_snr_db : float, dB, default 20
+        A hit must rise this far above the broadband noise floor (common practice, no source).
+    keep_double_hits : bool
+        Combine hits flagged ``double_hit`` (hammer bounce) with the others instead of leaving
+        them out.
+    start_s, end_s : float or None, s
+        Analyse only the samples from ``start_s`` to ``end_s`` (seconds from the first sample;
+        ``None``: the record's start or end), for a user who knows where the decay is. Times in
+        the result stay measured from the record's first sample.
+    detection : {"spectral", "model"}
+        How modes are found. ``"spectral"`` (default): peaks of the decay's spectrum judged
+        against the measured noise spectrum. ``"model"`` (experimental): matrix-pencil candidates
+        over the whole band from the hit onset on, judged by their matched-filter SNR, with fast
+        decays fitted on the raw record (:mod:`ringdown.detect`); it finds heavily damped modes
+        the default misses but does not yet meet the detection benchmark's targets
+        (``tests/benchmarks/detection.py``).
+
+    Returns
+    -------
+    Analysis
+
+    Raises
+    ------
+    InputError
+        Non-finite samples, too few samples, or a silent record.
+    NoRingdownError
+        Nothing rises above the noise and decays.
+    ParameterError
+        An option out of range (a band above Nyquist, an unknown method, ...).
+    """
+    rec = Recording(np.asarray(x, dtype=np.float64), sample_rate)
+    return analyze_recording(
+        rec, method=method, bands=bands, max_modes=max_modes, min_snr_db=min_snr_db,
+        min_hit_snr_db=min_hit_snr_db, keep_double_hits=keep_double_hits, start_s=start_s, end_s=end_s,
+        detection=detection,
+    )
+
+
+def analyze_file(
+    path,
+    *,
+    channel=None,
+    column=None,
+    sample_rate: float | None = None,
+    **options,
+) -> Analysis:
+    """Read a recording (see :func:`ringdown.read_recording`) and analyse it.
+
+    ``channel`` (a number, or a name for TDMS/UFF/MATLAB/HDF5), ``column`` and ``sample_rate``
+    (text, and files that state no rate) go to the reader;
+    the other keyword options are those of :func:`analyze`.
+
+    A sound file of more than :data:`ringdown.analysis.engine.LONG_FILE_SAMPLES` samples (2**20) is read
+    in blocks and analysed segment by segment (:func:`ringdown.analysis.engine.analyze_long_file`), in
+    memory bounded by the longest decay rather than by the file.
+    """
+    from ..io.read import read_recording
+    from .engine import analyze_long_file, is_long_sound_file
+
+    try:
+        if is_long_sound_file(path):
+            return analyze_long_file(path, channel=channel, column=column, sample_rate=sample_rate, **options)
+        rec = read_recording(path, channel=channel, column=column, sample_rate=sample_rate)
+        reader = {"channel": channel, "column": column, "sample_rate": sample_rate}
+        return analyze_recording(rec, reader_settings=reader, **options)
+    except MemoryError as exc:
+        # one line for this file; a batch keeps the other files' results
+        raise InputError(f"{str(path)!r} needs more memory than is available to read or analyse it; "
+                         "cut it shorter (--start/--end) or split it") from exc
+
+
+def analyze_many(
+    paths: Iterable,
+    *,
+    jobs: int = 1,
+    progress: Callable[[Analysis], None] | None = None,
+    client=None,
+    **options,
+) -> list[Analysis]:
+    """Analyse several files; a file that fails gets ``Analysis.error`` and the rest go on.
+
+    Parameters
+    ----------
+    paths : iterable of str or path
+    jobs : int >= 1
+        Worker processes when > 1 (:mod:`ringdown.batch`).
+    progress : callable or None
+        Called with each finished Analysis (in completion order).
+    client : distributed.Client or None
+        Run one task per file on this Dask cluster's workers instead (``jobs`` is then unused;
+        :mod:`ringdown.cluster`, extra ``ringdown[cluster]``). The paths must be readable there.
+    **options
+        As for :func:`analyze_file`.
+
+    Returns
+    -------
+    list of Analysis, in the order of ``paths``.
+
+    Notes
+    -----
+    Any failure on one file (a bad recording, but also ``MemoryError``, ``OverflowError`` or a
+    worker process killed twice) becomes that file's ``error``; see :mod:`ringdown.batch`.
+    """
+    paths = [str(p) for p in paths]
+    results: list[Analysis | None] = [None] * len(paths)
+    for i, a in iter_analyze_files(paths, jobs=jobs, client=client, **options):
+        results[i] = a
+        if progress:
+            progress(a)
+    return [r for r in results if r is not None]
+
+
+def iter_analyze_files(paths: Sequence[str], *, jobs: int = 1, executor=None, on_notice=None, client=None,
+                       **options) -> Iterator[tuple[int, Analysis]]:
+    """Analyse several files; yield ``(position, Analysis)`` as each finishes.
+
+    The batch runner of every command (:func:`ringdown.batch.run_batch`): a file whose analysis
+    fails in any way yields ``Analysis.failed`` with the reason; ``executor`` and ``on_notice``
+    are passed on. With a Dask ``client``, the files are analysed on its workers instead
+    (:func:`ringdown.cluster.iter_results`, the same failure policy; ``jobs`` is then unused).
+
+    Raises
+    ------
+    ParameterError
+        For bad options or ``jobs`` (before anything is analysed).
+    """
+    from ..base.batch import run_batch
+
+    paths = [str(p) for p in paths]
+    AnalysisOptions.from_kwargs({k: v for k, v in options.items() if k not in ("channel", "column", "sample_rate")})
+    if jobs is None or isinstance(jobs, bool) or not isinstance(jobs, int) or jobs < 1:
+        raise ParameterError(f"jobs must be >= 1; got {jobs!r}")
+    task = _FileTask(dict(options))
+    if client is not None:
+        from ..base.cluster import iter_results
+
+        yield from iter_results(client, task, paths, on_error=task.failed)
+        return
+    yield from run_batch(task, paths, on_error=task.failed, jobs=jobs, executor=executor, on_notice=on_notice)
+
+
+class _FileTask:
+    """Picklable ``analyze_file`` with fixed options, and the failed record of a path."""
+
+    def __init__(self, options: dict) -> None:
+        self.options = options
+
+    def __call__(self, path: str) -> Analysis:
+        return analyze_file(path, **self.options)
+
+    def failed(self, path: str, exc: Exception) -> Analysis:
+        return Analysis.failed(path, exc, settings=dict(self.options))
+
+
+# ----------------------------------------------------------------------------------------------
+# the pipeline
+
+
+def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, sample_offset: int = 0,
+                       **options) -> Analysis:
+    """Analyse a :class:`Recording` (the common path of :func:`analyze` and :func:`analyze_file`).
+
+    Keyword options are those of :func:`analyze`. ``sample_offset`` is the index, in a longer
+    source, of ``rec``'s first sample (a segment of the block engine, :mod:`ringdown.analysis.engine`):
+    every time in the result is then measured from the source's first sample.
+    """
+    opts = AnalysisOptions.from_kwargs(options)
+    settings = opts.to_dict()
+    if reader_settings:
+        settings.update(reader_settings)
+    name = repr(rec.path) if rec.path else "the array"
+    fs = rec.sample_rate
+    if rec.n_samples < MIN_SAMPLES:
+        raise InputError(f"{name} has {rec.n_samples} samples; at least {MIN_SAMPLES} are needed")
+    nyq = fs / 2.0
+    for lo, hi in opts.bands or ():
+        if hi > nyq:
+            raise ParameterError(
+                f"band {lo:g}-{hi:g} Hz lies above Nyquist ({nyq:g} Hz) for {name}; lower the band or resample"
+            )
+    raw, i0 = _time_window(rec, opts, name)
+    i0 += int(sample_offset)
+    peak_abs = float(np.max(np.abs(raw)))
+    if peak_abs > MAX_ABS_SAMPLE:
+        raise InputError(f"{name} holds values up to {peak_abs:.3g}, beyond the {MAX_ABS_SAMPLE:g} that can be squared "
+                         "without overflow; rescale the signal (e.g. to volts or m/s^2)")
+    if float(np.ptp(raw)) == 0.0:
+        raise InputError(f"{name} is constant (every sample is {raw[0]:g}): nothing rings down")
+    x, step = condition.remove_drift_and_step(raw, fs)
+    scale = float(np.max(np.abs(x)))
+    if scale == 0.0 or scale < 1e-12 * max(float(np.max(np.abs(raw))), 1e-300):
+        raise InputError(f"{name} holds only a constant offset or a straight drift: nothing rings down")
+
+    smoothing = condition.envelope_smoothing(x, fs)
+    level = condition.envelope_db(x, fs, smoothing=smoothing)
+    noise_db = condition.noise_floor_db(level, smoothing)
+    slow = condition.envelope_db(x, fs, smoothing=2 * smoothing)
+    # the prediction error shows a second tap on a record still ringing from the first
+    inn_level = condition.envelope_db(condition.innovation(x), fs, smoothing=smoothing)
+    spans = condition.find_hits(level, fs, noise_db=noise_db, min_hit_snr_db=opts.min_hit_snr_db,
+                                smoothing=smoothing, slow_level_db=slow, innovation_level_db=inn_level)
+    band_note = None
+    if not spans:
+        # a narrowband mode can stand far above its band's noise while the broadband level does
+        # not rise min_hit_snr_db: look for the hits in the band of the strongest spectral peak
+        found = _hits_in_strongest_band(x, fs, opts.min_hit_snr_db, smoothing)
+        if found is not None:
+            spans, f_band = found
+            band_note = Notice("hits_in_band", f"the broadband level does not rise {opts.min_hit_snr_db:g} dB above its "
+                                               f"noise; hits were found in the band around {f_band:.1f} Hz")
+    if not spans:
+        peak_db = float(level.max() - noise_db)
+        hint = (f"; it holds {rec.n_channels} channels (this is {rec.channel!r}): try another with --channel"
+                if rec.n_channels > 1 else "")
+        raise NoRingdownError(
+            f"no ring-down found in {name}: the envelope never rises {opts.min_hit_snr_db:g} dB above its "
+            f"noise floor (highest {peak_db:.1f} dB); check the gain, the trigger or the file{hint}"
+        )
+    # where each free decay starts: at the hit, or where a steady drive stops
+    spans = [condition.free_decay_start(raw, slow, sp, smoothing=smoothing, noise_db=noise_db) for sp in spans]
+    if step is not None:
+        # a step of the mean where a hit rises: a held deflection let go
+        spans = [replace(sp, kind="release") if sp.kind == "impulse" and abs(sp.onset - step) <= 2 * smoothing else sp
+                 for sp in spans]
+    clipped = condition.find_clipping(raw, full_scale=rec.full_scale)
+    rec_warnings: list[Notice] = [band_note] if band_note is not None else []
+    if rec.n_channels > 1:
+        rec_warnings.append(Notice("multichannel", f"{name} holds {rec.n_channels} channels (or data columns); only "
+                                                   f"{rec.channel!r} was analysed (choose another with --channel)"))
+    rec_warnings.extend(Notice(code, message) for code, message in getattr(rec, "notes", ()))
+    if rec.timing_jitter is not None and rec.timing_jitter > 1e-6:
+        rec_warnings.append(Notice("timing_jitter", f"time steps jitter by {100 * rec.timing_jitter:.3g} % RMS (accepted)"))
+
+    noise_f, noise_p, noise_source, noise_note = _noise_spectrum(x, fs, spans, level, noise_db, smoothing)
+    if noise_note is not None:
+        rec_warnings.append(noise_note)
+    tones = condition.steady_tones(noise_f, noise_p) if noise_source == "pre_trigger" else []
+    for f_tone in tones:
+        rec_warnings.append(Notice("stationary_tone", f"steady tone near {f_tone:.1f} Hz before the hit (mains hum or "
+                                                      "another running source?); not a mode"))
+
+    ctx = _RecordContext(x=x, fs=fs, opts=opts, noise_f=noise_f, noise_p=noise_p, noise_db=noise_db, level=level,
+                         clipped=clipped, tones=tuple(tones), i0=i0, smoothing=smoothing)
+    hits: list[Hit] = []
+    for j, span in enumerate(spans):
+        earlier = tuple((m.f_d_hz, max(m.beta_per_s / math.pi, 3.0 * (m.f_d_hz_u or 0.0)))
+                        for h in hits for m in h.modes)
+        hits.append(_analyze_hit(ctx, span, prev_end=spans[j - 1].end if j > 0 else 0, earlier=earlier))
+
+    used = [h for h in hits if h.used and h.modes]
+    if not used and any(h.modes for h in hits):
+        # every measurable hit was flagged (e.g. as a bounce): better a flagged result than none
+        hits = [h if h.used or not h.modes else _keep(h) for h in hits]
+        used = [h for h in hits if h.used and h.modes]
+    if not used:
+        reasons = "; ".join(sorted({w.message for h in hits for w in h.warnings})) or "no mode stood above the noise"
+        raise NoRingdownError(f"no mode could be measured in {name}: {reasons}")
+    modes = _combine_hits(used)
+    for h in hits:
+        rec_warnings.extend(w for w in h.warnings if w.code in ("double_hit", "clipped", "stationary_tone",
+                                                                "start_uncertain", "candidate_rejected"))
+    return Analysis(
+        path=rec.path,
+        sha256=rec.sha256,
+        channel=rec.channel,
+        unit=rec.unit,
+        sample_rate_hz=fs,
+        n_samples=rec.n_samples,
+        hits=tuple(hits),
+        modes=tuple(modes),
+        warnings=tuple(_unique(rec_warnings)),
+        error=None,
+        settings=settings,
+        noise_floor=float(10 ** (noise_db / 20.0)),
+        noise_source=noise_source,
+        recording=rec,
+        rejected=tuple(replace(r, hit=j + 1) for j, h in enumerate(hits) for r in h.rejected),
+    )
+
+
+def _time_window(rec: Recording, opts: AnalysisOptions, name: str) -> tuple[np.ndarray, int]:
+    """The samples between ``opts.start_s`` and ``opts.end_s`` and the index of the first."""
+    if opts.start_s is None and opts.end_s is None:
+        return rec.samples, 0
+    i_lo, i_hi = window_bounds(rec.n_samples, rec.sample_rate, opts, name)
+    return rec.samples[i_lo:i_hi], i_lo
+
+
+def window_bounds(n: int, fs: float, opts: AnalysisOptions, name: str) -> tuple[int, int]:
+    """Sample indices ``[i_lo, i_hi)`` of the ``start_s``..``end_s`` window of ``n`` samples at ``fs`` Hz."""
+    dur = n / fs
+    start = 0.0 if opts.start_s is None else opts.start_s
+    end = dur if opts.end_s is None else min(opts.end_s, dur)
+    if start >= dur:
+        raise ParameterError(f"start {start:g} s lies beyond the end of {name} ({dur:g} s); give an earlier --start")
+    i_lo, i_hi = int(math.floor(start * fs)), min(n, int(math.ceil(end * fs)))
+    if i_hi - i_lo < MIN_SAMPLES:
+        raise ParameterError(f"the time window {start:g}-{end:g} s of {name} holds {max(i_hi - i_lo, 0)} samples; "
+                             f"at least {MIN_SAMPLES} are needed")
+    return i_lo, i_hi
+
+
+def _hits_in_strongest_band(x: np.ndarray, fs: float, min_hit_snr_db: float, smoothing: int):
+    """Hits found in the level of the band around the record's strongest spectral peak.
+
+    Returns ``(spans, f_hz)`` or ``None`` when there is no clear peak or no hit in its band. The
+    peak must stand 20 dB above the running median of the spectrum; the band is ±20 half-power
+    widths of the peak (at least 4 frequency bins); its envelope level is interpolated to the
+    record's rate, and a hit must rise 12 dB within twice the band filter's settling time (at
+    least the broadband rise window, 2 smoothing widths) to ``min_hit_snr_db`` above the band
+    level's median.
+    """
+    found = find_peaks(x, fs, max_peaks=1, min_prominence_db=20.0)
+    if not found:
+        return None
+    p = found[0]
+    half = max(20.0 * p.width_hz, 4.0 * fs / x.shape[0])
+    lo, hi = max(p.f_hz - half, 0.0), min(p.f_hz + half, fs / 2.0)
+    band = extract_band(spectrum_of(x, fs), lo + 0.25 * (hi - lo), hi - 0.25 * (hi - lo), skirt_hz=0.25 * (hi - lo))
+    t = np.arange(x.shape[0]) / fs
+    level = np.interp(t, band.t_s, 20.0 * np.log10(np.abs(band.z) + 1e-300))
+    rise = max(int(round(condition.RISE_WIDTHS * smoothing)),
+               int(round(2.0 * settling_time_s(band, beta_per_s=math.pi * p.width_hz, level=1e-2) * fs)))
+    hold = max(int(round(condition.HOLD_OFF_WIDTHS * smoothing)), 2 * rise)
+    # the median, not the 5th percentile: an unsmoothed narrowband level dips far below its mean
+    # (|z|^2 of noise is exponential: 5th percentile -13 dB, median -1.6 dB re the mean)
+    spans = condition.find_hits(level, fs, noise_db=float(np.median(level)), min_hit_snr_db=min_hit_snr_db,
+                                rise_samples=rise, hold_off_samples=hold, smoothing=max(3, rise),
+                                bounce_window_samples=int(round(condition.BOUNCE_WIDTHS * smoothing)))
+    return (spans, p.f_hz) if spans else None
+
+
+def _keep(hit: Hit) -> Hit:
+    note = Notice("flagged_hit_used", f"hit at {hit.start_s:.6g} s was flagged but is the only measurable one; "
+                                      "its modes are reported anyway")
+    return replace(hit, used=True, warnings=hit.warnings + (note,))
+
+
+def _unique(notices: Iterable[Notice]) -> list[Notice]:
+    seen, out = set(), []
+    for n in notices:
+        if (n.code, n.message) not in seen:
+            seen.add((n.code, n.message))
+            out.append(n)
+    return out
+
+
+#: Fewest samples a noise-only stretch must hold to give the noise spectrum: a Welch estimate
+#: with 129 frequency bins (common practice, no source), and at least 4 smoothing widths.
+MIN_NOISE_SAMPLES = 256
+#: Names of where the noise spectrum came from (``Analysis.noise_source``).
+NOISE_SOURCES = ("pre_trigger", "tail", "record_end")
+
+
+def _noise_spectrum(x: np.ndarray, fs: float, spans, level: np.ndarray, noise_db: float,
+                    smoothing: int) -> tuple[np.ndarray, np.ndarray, str, Notice | None]:
+    """Noise PSD from where only noise is, where it came from, and a warning when in doubt.
+
+    1. ``"pre_trigger"``: the samples before the first hit's rise (the tap, or the start of a
+       drive), less one smoothing width, when they are at least :data:`MIN_NOISE_SAMPLES` and
+       one smoothing width long;
+    2. ``"tail"``: else the record's end after the last block (4 smoothing widths, at least 32
+       samples) whose median level is more than 4 dB above the noise floor, when that long;
+    3. ``"record_end"``: else the record's last 10 % (at least :data:`MIN_NOISE_SAMPLES`),
+       which still holds the decay: the noise is over-estimated, fit windows end early and
+       uncertainties (scaled by each fit's residual) grow; the warning ``noise_uncertain`` says so.
+    """
+    sm = max(1, int(smoothing))
+    n = x.shape[0]
+    min_len = max(MIN_NOISE_SAMPLES, 4 * sm)
+    first = spans[0].rise if spans[0].rise is not None else spans[0].onset
+    pre_end = first - sm
+    # a pre-trigger of one smoothing width (at least 256 samples) is noise alone: better than
+    # the decay's tail, which a slow mode still fills
+    if pre_end >= max(MIN_NOISE_SAMPLES, sm):
+        return (*condition.noise_psd(x[:pre_end], fs), "pre_trigger", None)
+    blk = max(32, 4 * sm)
+    last = spans[-1].peak
+    m = (n - last) // blk
+    loud = last
+    if m > 0:
+        med = np.median(level[last:last + m * blk].reshape(m, blk), axis=1)
+        above = np.flatnonzero(med > noise_db + 4.0)
+        loud = last + (int(above[-1]) + 1) * blk if above.size else last
+    rest = level[last + m * blk:]
+    if rest.size and float(np.median(rest)) > noise_db + 4.0:
+        loud = n
+    if n - loud >= min_len:
+        return (*condition.noise_psd(x[loud:], fs), "tail", None)
+    n_tail = min(n, max(min_len, n // 10))
+    note = Notice("noise_uncertain", f"no stretch of noise alone in the record (the pre-trigger holds {max(first, 0)} "
+                                     "samples and the decay still rings at the end): the noise was taken from the "
+                                     "record's last 10 %, an upper bound; fit windows may end early and the hit's "
+                                     "SNR is under-stated. Record more before the hit or until the decay has died away")
+    return (*condition.noise_psd(x[-n_tail:], fs), "record_end", note)
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class _RecordContext:
+    """What every hit of one record shares: the conditioned samples and what was measured on them."""
+
+    x: np.ndarray  #: (n_samples,) conditioned samples (offset and drift removed)
+    fs: float  #: sample rate, Hz
+    opts: AnalysisOptions
+    noise_f: np.ndarray  #: (n_freq,) Welch frequencies of the noise PSD, Hz
+    noise_p: np.ndarray  #: (n_freq,) noise PSD, unit^2/Hz
+    noise_db: float  #: broadband noise floor of the smoothed level, dB
+    level: np.ndarray  #: (n_samples,) smoothed broadband level, dB
+    clipped: np.ndarray  #: indices of clipped samples
+    tones: tuple[float, ...]  #: steady tones found before the first hit, Hz
+    i0: int = 0  #: index in the recording of ``x[0]`` (the start of the time window)
+    smoothing: int = 3  #: width of the level's smoothing, samples
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class _HitContext:
+    """One hit's decay: its record, its spectrum and where its decay may be fitted."""
+
+    record: _RecordContext
+    spec: Spectrum  #: spectrum of the hit's segment (from before the onset to ``seg_end``)
+    onset_s: float  #: start of the free decay, s from the recording's first sample
+    clip_end: int | None  #: first sample (index in the recording) after the last clipped one in the hit, or None
+    seg_end: int  #: index in the recording where the hit's segment ends
+    pre_rms: float | None = None  #: RMS of the samples before the hit's rise (None: too few), recording units
+    earlier: tuple = ()  #: (f_hz, width_hz) of modes measured in earlier hits of the record
+
+    def rings_from_earlier(self, f_hz: float, width_hz: float = 0.0) -> bool:
+        """Whether a component at ``f_hz`` is a mode an earlier hit excited: it was there before
+        this hit because it still rings, not because it is a steady tone."""
+        return any(abs(f_hz - f) <= max(w, width_hz, 2.0 * self.spec.df_hz) for f, w in self.earlier)
+
+
+def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = ()) -> Hit:
+    """Every mode of one hit (``span``, from :func:`condition.find_hits` and
+    :func:`condition.free_decay_start`); ``prev_end`` is the sample where the previous hit's
+    segment ended (0 for the first); ``earlier`` holds ``(f_hz, width_hz)`` of the modes of
+    earlier hits, which still ring when this hit comes. Indices are into ``ctx.x``; times are from the recording's
+    first sample (``ctx.i0`` samples before ``ctx.x[0]``)."""
+    x, fs, opts = ctx.x, ctx.fs, ctx.opts
+    i0 = ctx.i0
+    warnings: list[Notice] = []
+    seg_end = span.end
+    onset_s = (span.onset + i0) / fs
+    if span.kind == "impulse":
+        # before the onset, as much as the decay is long (the data's own scale, not a fixed time):
+        # room for the band filter to settle, then a look at what the band held before the hit
+        # (a steady tone is there already, a mode is not)
+        seg_start = max(prev_end, span.onset - (seg_end - span.onset), 0)
+    else:
+        # before a switch-off or release the record holds the drive, not the free decay: the
+        # segment starts where the free decay does, as a tap's would in a silent record
+        seg_start = span.onset
+    used = True
+    if span.doubt is not None:
+        warnings.append(Notice("start_uncertain", f"hit at {onset_s:.6g} s: {span.doubt}"))
+    if span.bounce is not None:
+        warnings.append(Notice("double_hit", f"hit at {onset_s:.6g} s has a second onset {1e3 * (span.bounce - span.onset) / fs:.3g} ms later (hammer bounce?)"
+                               + ("" if opts.keep_double_hits else "; left out of the combined result")))
+        used = opts.keep_double_hits
+    clipped = ctx.clipped
+    clip_in = clipped[(clipped >= span.onset) & (clipped < seg_end)] if clipped.size else clipped
+    clip_end = None
+    if clip_in.size:
+        clip_end = int(clip_in[-1]) + 1
+        warnings.append(Notice("clipped", f"{clip_in.size} samples clipped between {(clip_in[0] + i0) / fs:.6g} and "
+                                          f"{(clip_end + i0) / fs:.6g} s; fits start after the clipping ends"))
+    model = opts.detection == "model"
+    decay_from = max(span.onset if model else span.peak, clip_end or 0)
+    peak_value = float(np.max(np.abs(x[span.onset:seg_end])))
+    hit_snr = float(ctx.level[span.peak] - ctx.noise_db)
+
+    def hit(used_: bool, modes_=(), rejected_=()) -> Hit:
+        return Hit(onset_s, (span.peak + i0) / fs, peak_value, hit_snr, (seg_end + i0) / fs, used_, tuple(warnings),
+                   tuple(modes_), tuple(rejected_), start_kind=span.kind)
+
+    if seg_end - decay_from < MIN_SAMPLES:
+        warnings.append(Notice("short_decay", f"hit at {onset_s:.6g} s leaves {seg_end - decay_from} samples of decay"))
+        return hit(False)
+
+    # what the record held before the hit's rise (at least one smoothing width of it): bounds the
+    # amplitude any steady tone could have had there
+    rise = span.rise if span.rise is not None else span.onset
+    pre_x = x[prev_end:max(prev_end, rise - ctx.smoothing)]
+    pre_rms = float(np.sqrt(np.mean(pre_x**2))) if span.kind == "impulse" and pre_x.size >= max(ctx.smoothing, 16) else None
+    hctx = _HitContext(record=ctx, spec=spectrum_of(x[seg_start:seg_end], fs, t0_s=(seg_start + i0) / fs),
+                       onset_s=onset_s, clip_end=None if clip_end is None else clip_end + i0, seg_end=seg_end + i0,
+                       pre_rms=pre_rms, earlier=earlier)
+    rejected: list[Rejected] = []
+    cands: list[Candidate] = []
+    if opts.bands is not None:
+        groups = [([], lo, hi, []) for lo, hi in opts.bands]
+    elif model:
+        start = _free_decay_start(ctx, span, clip_end) if span.kind == "impulse" else max(span.onset, clip_end or 0)
+        cands, groups = _candidates(ctx, start, seg_end, rejected, parametric=clip_end is None)
+    else:
+        # spectral peaks of the decay as candidates: each one not reported as a mode is named
+        start = decay_from
+        cands, groups = _candidates(ctx, start, seg_end, rejected, parametric=False, max_peaks=opts.max_modes)
+    modes: list[Mode] = []
+    failed: list[str] = []
+    residual = opts.bands is None and not model and hctx.seg_end - ctx.i0 - start >= MIN_SAMPLES
+    deferred: list[Candidate] = []
+    for peaks_g, lo, hi, group_cands in groups:
+        n_warn = len(warnings)
+        if residual and _needs_raw_fit(group_cands, lo, hi):
+            # too broad for a band: fitted on the residual, once every other mode is subtracted
+            deferred.extend(group_cands)
+            continue
+        try:
+            if _needs_raw_fit(group_cands, lo, hi):
+                found = _measure_raw(hctx, group_cands, cands, start)
+            else:
+                found = _measure_group(hctx, peaks_g, lo, hi, warnings)
+        except FitError as exc:
+            failed.append(f"{lo:.1f}-{hi:.1f} Hz ({exc})")
+            rejected.extend(_rejection(c, "fit_failed", str(exc)) for c in group_cands)
+            continue
+        steady = any(w.code == "stationary_tone" for w in warnings[n_warn:])
+        found, unmatched = _match_candidates(found, group_cands, steady)
+        rejected.extend(unmatched)
+        modes.extend(found)
+    if residual:
+        more, more_rejected = _residual_round(hctx, start, modes, [c for c in cands if c not in deferred], deferred)
+        modes.extend(more)
+        rejected.extend(more_rejected)
+    modes = _drop_driven(modes, onset_s, warnings)
+    if failed:
+        shown = "; ".join(failed[:3]) + (f"; and {len(failed) - 3} more" if len(failed) > 3 else "")
+        warnings.append(Notice("fit_failed", f"{len(failed)} band(s) in the hit at {onset_s:.6g} s could not be fitted: {shown}"))
+    modes.sort(key=lambda m: m.f_d_hz)
+    if opts.max_modes is not None and len(modes) > opts.max_modes:
+        ranked = sorted(modes, key=lambda m: -(m.amplitude or 0.0))
+        for m in ranked[opts.max_modes:]:
+            rejected.append(Rejected(m.f_d_hz, m.beta_per_s, m.snr_db, "max_modes",
+                                     f"amplitude {m.amplitude:.3g} is below the {opts.max_modes} strongest"))
+        modes = sorted(ranked[: opts.max_modes], key=lambda m: m.f_d_hz)
+    modes = [m.with_updates(index=i + 1) for i, m in enumerate(modes)]
+    warnings.extend(r.notice() for r in rejected)
+    return hit(used, modes, rejected)
+
+
+#: Rounds of the residual search (each subtracts every mode measured so far and looks again).
+RESIDUAL_ROUNDS = 2
+
+
+def _subtract_modes(seg: np.ndarray, fs: float, modes: Sequence[Mode]) -> np.ndarray:
+    """``seg`` less the least-squares sum of the damped cosines of ``modes`` (their poles fixed,
+    amplitudes and phases fitted on ``seg``; t = 0 at ``seg[0]``)."""
+    if not modes:
+        return np.array(seg, dtype=np.float64)
+    t = np.arange(seg.shape[0]) / fs
+    cols = []
+    for m in modes:
+        e = np.exp(-m.beta_per_s * t)
+        w = 2.0 * math.pi * m.f_d_hz * t
+        cols += [e * np.cos(w), e * np.sin(w)]
+    phi = np.stack(cols, axis=1)
+    coef, *_ = np.linalg.lstsq(phi, seg, rcond=None)
+    return seg - phi @ coef
+
+
+def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: list[Candidate],
+                    deferred: Sequence[Candidate] = ()):
+    """Modes the first search could not see beside stronger ones: subtract every measured mode
+    from the decay (CLEAN, Hogbom 1974 [from memory]: successive cancellation of the strongest
+    components), look for spectral peaks in what is left against the same noise spectrum, and
+    measure each new one: in its band of the record (bounded by the measured modes) when the band
+    has room, else on the residual itself (a broad, fast decay: raw fit). The ``deferred``
+    candidates (too broad for a band) are fitted on the first residual. Broad peaks
+    (``find_peaks(broad=True)``) are looked for in the first residual only, where the sharp
+    modes and their skirts are gone; later rounds look for sharp peaks only, since subtracting a
+    strong broad mode leaves a broadband remnant. Returns ``(modes, rejected)``."""
+    ctx = hctx.record
+    fs, x = ctx.fs, ctx.x
+    seg_end = hctx.seg_end - ctx.i0
+    known = list(modes)
+    tried = [(c.f_hz, max(c.width_hz, c.resolution_hz)) for c in cands]
+    new_modes: list[Mode] = []
+    rejected: list[Rejected] = []
+    decay = x[start:seg_end]
+    res_hz = fs / decay.shape[0]
+    if deferred:
+        resid = _subtract_modes(decay, fs, known)
+        peaks_d = [Peak(c.f_hz, float("nan"), float("nan"), c.width_hz, broad=True) for c in deferred]
+        of_peak = {id(p): c for p, c in zip(peaks_d, deferred)}
+        for g, lo, hi in group_bands(peaks_d, sample_rate=fs, resolution_hz=res_hz, barriers_hz=ctx.tones):
+            gc = [of_peak[id(p)] for p in g]
+            try:
+                got = _measure_residual(hctx, resid, start, gc)
+            except FitError as exc:
+                rejected.extend(_rejection(c, "fit_failed", str(exc)) for c in gc)
+                continue
+            got = [m for m in got if not any(abs(m.f_d_hz - k.f_d_hz) <= max(k.beta_per_s / math.pi, 3.0 * res_hz)
+                                             for k in known)]
+            got, unmatched = _match_candidates(got, gc, False)
+            rejected.extend(unmatched)
+            known += got
+            new_modes += got
+    for round_ in range(RESIDUAL_ROUNDS):
+        resid = _subtract_modes(decay, fs, known)
+        # broad peaks in the first residual only: after a strong broad mode is subtracted, its
+        # broadband remnant makes humps a smoothed search would take for modes
+        peaks = find_peaks(resid, fs, noise_psd=(ctx.noise_f, ctx.noise_p), broad=round_ == 0)
+        fresh = []
+        for p in peaks:
+            near_mode = any(abs(p.f_hz - m.f_d_hz) <= max(2.0 * m.beta_per_s / math.pi, 3.0 * res_hz,
+                                                          3.0 * (m.f_d_hz_u or 0.0)) for m in known)
+            near_cand = any(abs(p.f_hz - f) <= max(w, 2.0 * res_hz) for f, w in tried)
+            if not (near_mode or near_cand):
+                fresh.append(p)
+        if not fresh:
+            break
+        tried += [(p.f_hz, max(p.width_hz, res_hz)) for p in fresh]
+        barriers = tuple(ctx.tones) + tuple(m.f_d_hz for m in known)
+        found_round: list[Mode] = []
+        for g, lo, hi in group_bands(fresh, sample_rate=fs, resolution_hz=res_hz, barriers_hz=barriers):
+            gc = [Candidate(p.f_hz, math.pi * p.width_hz, max(p.width_hz, res_hz), None, None, "residual", -2, res_hz)
+                  for p in g]
+            try:
+                if _needs_raw_fit(gc, lo, hi) or any(lo < m.f_d_hz < hi for m in known):
+                    got = _measure_residual(hctx, resid, start, gc)
+                else:
+                    got = _measure_group(hctx, g, lo, hi, [])
+            except FitError as exc:
+                reason = "near_noise" if "above its band noise" in str(exc) else "fit_failed"
+                rejected.extend(_rejection(c, reason, str(exc)) for c in gc)
+                continue
+            got = [m for m in got if not any(abs(m.f_d_hz - k.f_d_hz) <= max(k.beta_per_s / math.pi, 3.0 * res_hz)
+                                             for k in known + found_round)]
+            got, unmatched = _match_candidates(got, gc, False)
+            rejected.extend(unmatched)
+            found_round.extend(got)
+        if not found_round:
+            break
+        known += found_round
+        new_modes += found_round
+    return new_modes, rejected
+
+
+def _measure_residual(hctx: _HitContext, resid: np.ndarray, start: int, targets: list[Candidate]) -> list[Mode]:
+    """Targets fitted as real damped cosines on the residual of the decay (every measured mode
+    subtracted), from the decay's start, over as long as the slowest target stands above the noise."""
+    from .estimators.real import estimate_real
+
+    ctx = hctx.record
+    fs = ctx.fs
+    t_rest = resid.shape[0] / fs
+    targets = [c if c.beta_per_s is not None else replace(c, beta_per_s=math.pi * c.width_hz) for c in targets]
+    dur = 0.0
+    for c in targets:
+        density = float(detect.noise_density(c.f_hz, ctx.noise_f, ctx.noise_p))
+        amp = math.sqrt(max(float(np.mean(resid[: max(8, int(fs / c.f_hz))] ** 2)) * 2.0, 1e-300))
+        d = detect.mf_snr(amp, c.beta_per_s, t_rest, density)
+        dur = max(dur, math.log(max(d, math.e**2)) / (2.0 * c.beta_per_s))
+    dur = min(max(dur, 20.0 / min(c.f_hz for c in targets)), t_rest)
+    t0 = (start + ctx.i0) / fs
+    ests = estimate_real(resid, fs, t0_s=t0, poles=[(c.f_hz, c.beta_per_s) for c in targets], n_targets=len(targets),
+                         duration_s=dur, noise_f=ctx.noise_f, noise_p=ctx.noise_p)
+    out = []
+    for est in ests:
+        if DB_PER_NEPER * est.beta_per_s * t_rest < 6.0:
+            continue  # decays less than 6 dB over the hit: left to the band search, as in _measure_raw
+        density = float(detect.noise_density(est.f_d_hz, ctx.noise_f, ctx.noise_p))
+        noise_rms = math.sqrt(max(2.0 * density * est.beta_per_s / math.pi, 1e-300))
+        out.append(_make_raw_mode(est, noise_rms, resid, fs, t0))
+    return out
+
+
+#: A group is fitted on the raw record when a mode's band would reach less than this many
+#: half-power widths either side of it (8 widths across: 4.4x the 1.8x that Jacobsen & Rindel 1987
+#: give for negligible zero-phase filter bias; more is safer, common practice, no source), e.g.
+#: because DC, Nyquist or a neighbour is that close.
+RAW_MARGIN_WIDTHS = 4.0
+#: The free decay starts at the first sample this many noise standard deviations out (Gaussian
+#: noise exceeds 5 sigma in one sample in 6e-7 of the cases [derived]).
+START_SIGMAS = 5.0
+
+
+def _free_decay_start(ctx: _RecordContext, span, clip_end: int | None) -> int:
+    """First sample of the free decay: the first sample near the onset that stands
+    ``START_SIGMAS`` noise standard deviations away from the level before it (the smoothed
+    level's onset can precede it
+    by half its smoothing), and never inside the clipping."""
+    x, fs = ctx.x, ctx.fs
+    sigma = math.sqrt(max(float(np.sum(ctx.noise_p[1:])) * float(ctx.noise_f[1] - ctx.noise_f[0]), 1e-300))
+    lo = max(0, span.onset - max(span.peak - span.onset, 1))
+    hi = max(span.peak, span.onset + 1)
+    # relative to the level just before: drift removal over the whole record can leave a local
+    # offset of a few sigma before the hit
+    before = x[max(0, lo - 4 * (hi - lo) - 16):lo]
+    base = float(np.median(before)) if before.size >= 8 else 0.0
+    loud = np.flatnonzero(np.abs(x[lo:hi + 1] - base) > START_SIGMAS * sigma)
+    start = lo + int(loud[0]) if loud.size else span.onset
+    return max(start, clip_end or 0)
+
+
+def _candidates(ctx: _RecordContext, start: int, seg_end: int, rejected: list[Rejected], *, parametric: bool = True,
+                max_peaks: int | None = None):
+    """Candidates of one decay (``detect.find_candidates``) and their bands (``group_bands``);
+    candidates not measured are appended to ``rejected``.
+
+    Returns ``(candidates, groups)``, each group ``(peaks, lo_hz, hi_hz, candidates)``."""
+    x, fs = ctx.x, ctx.fs
+    decay = x[start:seg_end]
+    # the default search looks for broad peaks only once the sharp modes are subtracted (their
+    # skirts and the valleys between them make broad humps of the smoothed spectrum)
+    spectral = find_peaks(decay, fs, noise_psd=(ctx.noise_f, ctx.noise_p), max_peaks=max_peaks, broad=parametric)
+    found, below = detect.find_candidates(x, fs, start=start, end=seg_end, noise_f=ctx.noise_f, noise_p=ctx.noise_p,
+                                          spectral=spectral, parametric=parametric)
+    thr_db = 10.0 * math.log10(detect.snr_threshold(seg_end - start, fs))
+    for c in below:
+        rejected.append(_rejection(c, "near_noise", f"matched-filter SNR {c.snr_db:.1f} dB, below the {thr_db:.1f} dB "
+                                                    f"that noise alone exceeds in {detect.P_FALSE:g} of records"))
+    kept: list[Candidate] = []
+    for c in found:
+        if c.beta_per_s and c.snr and c.snr > 1.0:
+            # time until the remaining matched-filter SNR falls to 1: ln(d) / (2 beta)
+            cycles = c.f_hz * math.log(c.snr) / (2.0 * c.beta_per_s)
+            if cycles < 1.0:
+                rejected.append(_rejection(c, "few_cycles", f"{cycles:.2f} cycles above the noise; "
+                                                            "an oscillation needs at least one"))
+                continue
+        kept.append(c)
+    peaks = [Peak(c.f_hz, float("nan"), float("nan"), c.width_hz) for c in kept]
+    of_peak = {id(p): c for p, c in zip(peaks, kept)}
+    groups = group_bands(peaks, sample_rate=fs, resolution_hz=fs / decay.shape[0], barriers_hz=ctx.tones)
+    return kept, [(g, lo, hi, [of_peak[id(p)] for p in g]) for g, lo, hi in groups]
+
+
+def _rejection(c: Candidate, reason: str, detail: str) -> Rejected:
+    return Rejected(c.f_hz, c.beta_per_s, c.snr_db, reason, detail)
+
+
+def _needs_raw_fit(cands: list[Candidate], lo: float, hi: float) -> bool:
+    """Whether a band ``lo``-``hi`` Hz is too narrow for one of its candidates (see
+    ``RAW_MARGIN_WIDTHS``)."""
+    return any(c.beta_per_s is not None and min(c.f_hz - lo, hi - c.f_hz) < RAW_MARGIN_WIDTHS * c.width_hz
+               for c in cands)
+
+
+def _match_candidates(modes: list[Mode], cands: list[Candidate], steady: bool):
+    """Pair a group's candidates with the modes measured there. A candidate no mode lies near
+    (within half the larger half-power width, three standard uncertainties or the search's
+    resolution) is a rejection: ``steady_tone`` when the group was a steady tone, ``unresolved``
+    (with a warning on the nearest mode naming the pair) when another mode took its place,
+    ``fit_failed`` when the fit found nothing."""
+    out: list[Rejected] = []
+    modes = list(modes)
+    for c in cands:
+        def near(m: Mode) -> bool:
+            tol = max(0.5 * max(c.width_hz, m.beta_per_s / math.pi), 3.0 * (m.f_d_hz_u or 0.0), c.resolution_hz)
+            return abs(m.f_d_hz - c.f_hz) <= tol
+        if any(near(m) for m in modes):
+            continue
+        if steady:
+            out.append(_rejection(c, "steady_tone", "its band held it before the hit"))
+        elif modes:
+            j = min(range(len(modes)), key=lambda i: abs(modes[i].f_d_hz - c.f_hz))
+            m = modes[j]
+            out.append(_rejection(c, "unresolved", f"fitted as one mode with the mode at {m.f_d_hz:.2f} Hz"))
+            note = Notice("unresolved_modes", f"a second mode near {c.f_hz:.2f} Hz may be merged into this one "
+                                              f"(suspected pair {min(c.f_hz, m.f_d_hz):.2f} and "
+                                              f"{max(c.f_hz, m.f_d_hz):.2f} Hz); treat its figures as a blend")
+            modes[j] = m.with_updates(warnings=m.warnings + (note,))
+        else:
+            out.append(_rejection(c, "fit_failed", "no decaying mode was fitted in its band"))
+    return modes, out
+
+
+def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candidate], start: int) -> list[Mode]:
+    """Fast decays fitted on the unfiltered record from the free decay's start
+    (:func:`ringdown.estimators.real.estimate_real`), with every other candidate that holds
+    energy in the same window fitted jointly."""
+    from .estimators.real import estimate_real
+
+    ctx = hctx.record
+    fs, x = ctx.fs, ctx.x
+    seg = x[start:hctx.seg_end - ctx.i0]  # hctx.seg_end counts from the recording's first sample
+    t_rest = seg.shape[0] / fs
+
+    def beta_of(c: Candidate) -> float:
+        return c.beta_per_s if c.beta_per_s is not None else math.pi * c.width_hz
+
+    # the window: until the slowest target's remaining matched-filter SNR falls to 1
+    dur = max(math.log(max(c.snr or math.e**2, math.e**2)) / (2.0 * beta_of(c)) for c in targets)
+    dur = min(max(dur, 20.0 / min(c.f_hz for c in targets)), t_rest)
+    thr = detect.snr_threshold(seg.shape[0], fs)
+    others = []
+    for c in cands:
+        if c in targets:
+            continue
+        b = beta_of(c)
+        share = -math.expm1(-2 * b * dur) / max(-math.expm1(-2 * b * t_rest), 1e-300)
+        if c.snr is None or c.snr * share >= thr:
+            others.append((c.snr * share if c.snr is not None else float("inf"), c))
+    others = [c for _, c in sorted(others, key=lambda o: -o[0])][:MAX_RAW_NUISANCE]
+    poles = [(c.f_hz, beta_of(c)) for c in targets + others]
+    ests = estimate_real(seg, fs, t0_s=(start + ctx.i0) / fs, poles=poles, n_targets=len(targets), duration_s=dur,
+                         noise_f=ctx.noise_f, noise_p=ctx.noise_p)
+    modes = []
+    for est in ests:
+        if DB_PER_NEPER * est.beta_per_s * t_rest < 6.0:
+            # decays less than 6 dB over the whole hit: a steady tone, as in _is_stationary
+            continue
+        density = float(detect.noise_density(est.f_d_hz, ctx.noise_f, ctx.noise_p))
+        # band noise over the mode's own half-power bandwidth beta / pi (as |z| of a band that wide)
+        noise_rms = math.sqrt(max(2.0 * density * est.beta_per_s / math.pi, 1e-300))
+        modes.append(_make_raw_mode(est, noise_rms, seg, fs, (start + ctx.i0) / fs))
+    return modes
+
+
+#: Most other modes a raw fit carries along (the strongest in its window).
+MAX_RAW_NUISANCE = 3
+
+
+def _make_raw_mode(est: Estimate, noise_rms: float, seg: np.ndarray, fs: float, t0_s: float) -> Mode:
+    derived = derive(est.f_d_hz, est.beta_per_s, f_d_hz_u=est.f_d_hz_u, beta_per_s_u=est.beta_per_s_u,
+                     cov_f_beta=est.cov_f_beta)
+    start, end = est.fit_start_s, est.fit_end_s
+    cycles = est.f_d_hz * (end - start)
+    warnings = []
+    if cycles < 10:
+        warnings.append(Notice("few_cycles", f"fit spans {cycles:.1f} cycles; 10 or more are advised"))
+    n = min(seg.shape[0], int(round((end - start) * fs)) + 1)
+    t = t0_s + np.arange(n) / fs
+    trace = ModeTrace(t_s=t, envelope=np.abs(seg[:n]), fit_start_s=start, fit_end_s=end, noise_floor=noise_rms,
+                      fit_amplitude=float(est.amplitude), fit_beta_per_s=est.beta_per_s, fit_t0_s=start)
+    return Mode(index=0, derived=derived, amplitude=est.amplitude,
+                snr_db=20 * math.log10(max(est.amplitude, 1e-300) / noise_rms), method=est.method,
+                fit_start_s=start, fit_end_s=end, cycles_fitted=float(cycles), n_hits=1, band_hz=None,
+                warnings=tuple(warnings), cross_checks={}, trace=trace, fit_path="raw")
+
+
+
+def _window_for(band: Band, onset_s: float, clip_end, seg_end: int, fs: float, min_snr_db: float,
+                beta_hint: float = 0.0) -> Window:
+    env = np.abs(band.z)
+    if band.noise_rms is None:
+        raise FitError("band noise level unknown")
+    # the filter's leftover transient need only fall to a third of the noise relative to the
+    # mode's peak (no further: every bit of settling costs decay, common practice, no source)
+    i_on = band.index_of(onset_s)
+    peak = float(np.max(env[i_on:])) if env[i_on:].size else float(np.max(env))
+    level = min(1e-2, max(1e-8, 0.3 * band.noise_rms / max(peak, 1e-300)))
+    settle = settling_time_s(band, beta_per_s=beta_hint, level=level)
+    start = onset_s + settle
+    if clip_end is not None:
+        start = max(start, clip_end / fs + settle)
+    i0 = band.index_of(start)
+    # never before the band envelope's own maximum after the onset
+    i_pk = i_on + int(np.argmax(env[i_on: max(i0 + 1, i_on + 1)]))
+    i0 = max(i0, i_pk)
+    i_last = band.index_of(seg_end / fs - settle)
+    thr = band.noise_rms * 10 ** (min_snr_db / 20.0)
+    k = max(1, int(round(band.sample_rate / band.width_hz)))
+    smooth = np.convolve(env, np.ones(k) / k, mode="same")
+    below = np.flatnonzero(smooth[i0: i_last + 1] < thr)
+    i1 = i0 + int(below[0]) - 1 if below.size else i_last
+    at_noise = np.flatnonzero(smooth[i0: i_last + 1] < band.noise_rms)
+    i_model = i0 + int(at_noise[0]) - 1 if at_noise.size else i_last
+    if i1 - i0 < 5:
+        snr = 20 * math.log10(max(env[i0], 1e-300) / band.noise_rms)
+        raise FitError(
+            f"the mode is {snr:.1f} dB above its band noise after the filter settles; "
+            f"a fit needs {min_snr_db:g} dB over several samples"
+        )
+    return Window(start_s=float(band.t_s[i0]), end_s=float(band.t_s[i1]), onset_s=onset_s,
+                  model_end_s=float(band.t_s[max(i_model, i1)]))
+
+
+def _extract(spec: Spectrum, lo: float, hi: float, noise_f, noise_p) -> Band:
+    skirt = 0.25 * (hi - lo)
+    band = extract_band(spec, lo + skirt, hi - skirt, skirt_hz=skirt, real=True)
+    return band.with_noise(detect.band_noise_rms(band, noise_f, noise_p))
+
+
+def _measure_group(hctx: _HitContext, peaks_g: list[Peak], lo: float, hi: float, hit_warnings: list[Notice]) -> list[Mode]:
+    """The modes of one band ``lo``-``hi`` Hz holding the spectral peaks ``peaks_g`` (none when
+    the band was given by the user); warnings about the hit are appended to ``hit_warnings``."""
+    ctx = hctx.record
+    opts, fs, noise_f, noise_p, tones = ctx.opts, ctx.fs, ctx.noise_f, ctx.noise_p, ctx.tones
+    spec, onset_s, clip_end, seg_end = hctx.spec, hctx.onset_s, hctx.clip_end, hctx.seg_end
+    primary = opts.primary
+    group_band = _extract(spec, lo, hi, noise_f, noise_p)
+    # first guess of the decay rate from the spectral peaks' half-power width (beta ~ pi width)
+    beta_hint = max((math.pi * p.width_hz for p in peaks_g), default=0.0)
+    ringing = bool(peaks_g) and all(hctx.rings_from_earlier(p.f_hz, p.width_hz) for p in peaks_g)
+    if peaks_g and not ringing and _steady_before_onset(group_band, onset_s, beta_hint):
+        near = 2.0 * (noise_f[1] - noise_f[0])  # two Welch bins
+        if all(any(abs(p.f_hz - f) <= near for f in tones) for p in peaks_g):
+            return []  # already named at the recording level
+        where = ", ".join(f"{p.f_hz:.1f}" for p in peaks_g)
+        hit_warnings.append(Notice("stationary_tone", f"steady tone at {where} Hz was already there before the hit "
+                                                      "(mains hum or another running source?); not reported as a mode"))
+        return []
+    group_window = _window_for(group_band, onset_s, clip_end, seg_end, fs, opts.min_snr_db, beta_hint)
+    # single-mode sub-bands: one per peak, split at the midpoints
+    if len(peaks_g) > 1:
+        edges = [lo] + [0.5 * (a.f_hz + b.f_hz) for a, b in zip(peaks_g, peaks_g[1:])] + [hi]
+        subs = []
+        for a, b in zip(edges, edges[1:]):
+            sb = _extract(spec, a, b, noise_f, noise_p)
+            try:
+                subs.append((sb, _window_for(sb, onset_s, clip_end, seg_end, fs, opts.min_snr_db, beta_hint)))
+            except FitError:
+                continue
+    else:
+        subs = [(group_band, group_window)]
+    cross: list[tuple[float, dict[str, Estimate], Band, Window]] = []
+    joint: list[Estimate] | None = None  # every mode a multi-mode method found in the group band
+    for sb, sw in subs:
+        found: dict[str, Estimate] = {}
+        for name, fn in ESTIMATORS.items():
+            if name in _MULTI_MODE and len(peaks_g) > 1:
+                continue  # run once on the whole group below
+            try:
+                ests = fn(sb, sw)
+            except FitError:
+                continue
+            if ests:
+                centre = 0.5 * (sb.f_lo_hz + sb.f_hi_hz)
+                found[name] = min(ests, key=lambda e: abs(e.f_d_hz - centre))
+                if name == primary and sb is group_band:
+                    joint = list(ests)
+        cross.append((0.5 * (sb.f_lo_hz + sb.f_hi_hz), found, sb, sw))
+    extra: list[Notice] = []
+    if primary in _MULTI_MODE:
+        if joint is None and len(peaks_g) > 1:
+            joint = list(ESTIMATORS[primary](group_band, group_window))
+        primaries = [(e, group_band, group_window) for e in joint or ()]
+        if not primaries:
+            # the parametric fit found nothing usable: report the envelope fit, and say so
+            primaries = [(c[1]["envelope"], c[2], c[3]) for c in cross if "envelope" in c[1]]
+            extra.append(Notice("fallback_method", f"the {primary} fit found no decaying mode in this band; "
+                                                   "the envelope fit is reported instead"))
+    else:
+        primaries = [(c[1][primary], c[2], c[3]) for c in cross if primary in c[1]]
+        if len(peaks_g) > 1:
+            extra.append(Notice("close_modes", f"modes at {', '.join(f'{p.f_hz:.1f}' for p in peaks_g)} Hz are too close "
+                                               "for band filters to separate; estimates may be biased (method 'auto' fits them jointly)"))
+    if not primaries:
+        raise FitError("no estimator found a decaying mode in the band")
+    modes = []
+    for est, band, window in primaries:
+        if not cross:
+            others, sb, sw = {}, band, window
+        else:
+            _, found, sb, sw = min(cross, key=lambda c: abs(c[0] - est.f_d_hz))
+            others = {k: v for k, v in found.items() if k != est.method}
+        unresolved_decay: list[Notice] = []
+        if not hctx.rings_from_earlier(est.f_d_hz) and _is_stationary(est, sb, sw, seg_end / fs, pre_rms=hctx.pre_rms):
+            if not _started_with_hit(est, hctx.pre_rms):
+                hit_warnings.append(Notice("stationary_tone", f"steady tone at {est.f_d_hz:.1f} Hz does not decay (mains "
+                                                              "hum or another running source?); not reported as a mode"))
+                continue
+            unresolved_decay.append(_decay_unresolved(est))
+        mode = _make_mode(est, others, band, window, extra + unresolved_decay)
+        if len(peaks_g) <= 1:
+            mode = _amplitude_dependence(mode, sb, sw)
+        modes.append(mode)
+    return modes
+
+
+def _started_with_hit(est: Estimate, pre_rms: float | None) -> bool:
+    """Whether a component too far above what the record held before the hit to have been there
+    (amplitude over ``sqrt(2) pre_rms`` by ``STEADY_MARGIN_DB``) started with the hit."""
+    return pre_rms is not None and est.amplitude is not None and \
+        est.amplitude > math.sqrt(2.0) * pre_rms * 10 ** (STEADY_MARGIN_DB / 20)
+
+
+def _decay_unresolved(est: Estimate) -> Notice:
+    """The warning on a mode that started with the hit but whose decay the record does not resolve."""
+    u = est.beta_per_s_u or 0.0
+    f_n = math.hypot(est.f_d_hz, est.beta_per_s / (2.0 * math.pi))
+    q_low = math.pi * f_n / max(est.beta_per_s + 2.0 * u, 1e-300)
+    return Notice("decay_unresolved", f"mode at {est.f_d_hz:.6g} Hz started with the hit but decays too little in the record "
+                                      f"to measure: beta = {est.beta_per_s:.3g} +- {u:.2g} 1/s, Q above about {q_low:.3g} "
+                                      "(beta + 2u); record longer for its damping. Alone in a hit it is taken for a drive "
+                                      "switched on, not a mode")
+
+
+#: A component that does not decay, within this many half-power bandwidths of a decaying mode of
+#: the same hit and within FORCED_LEVEL_DB of its level at the onset, is the forced response of a
+#: drive switched on near that resonance: switched on from rest, the forced response and the
+#: resonance's free transient start with comparable amplitudes (they cancel at t = 0), and the
+#: transient decays while the drive runs on (common practice, no source).
+FORCED_BANDWIDTHS = 3.0
+FORCED_LEVEL_DB = 10.0
+
+
+def _drop_driven(modes: list[Mode], onset_s: float, warnings: list[Notice]) -> list[Mode]:
+    """The hit's modes less those whose decay is unresolved and that are a drive switched on
+    (alone in the hit, or the forced response next to a resonance's start-up transient: see
+    ``FORCED_BANDWIDTHS``); each dropped one is named as a steady tone in ``warnings``."""
+    def unresolved(m: Mode) -> bool:
+        return any(w.code == "decay_unresolved" for w in m.warnings)
+
+    def at_onset(m: Mode) -> float:
+        return (m.amplitude or 0.0) * math.exp(min(m.beta_per_s * max(m.fit_start_s - onset_s, 0.0), 700.0))
+
+    decaying = [m for m in modes if not unresolved(m)]
+    out = []
+    for m in modes:
+        if unresolved(m):
+            driven = not decaying or any(
+                abs(m.f_d_hz - d.f_d_hz) <= FORCED_BANDWIDTHS * d.beta_per_s / math.pi
+                and abs(20.0 * math.log10(max(at_onset(m), 1e-300) / max(at_onset(d), 1e-300))) <= FORCED_LEVEL_DB
+                for d in decaying)
+            if driven:
+                warnings.append(Notice("stationary_tone", f"steady tone at {m.f_d_hz:.1f} Hz does not decay and started "
+                                                          "with the hit (a drive switched on?); not reported as a mode"))
+                continue
+        out.append(m)
+    return out
+
+
+def _level_before_onset(band: Band, onset_s: float, settle_s: float) -> float | None:
+    """Median of ``|z|`` before the hit, clear of the filter's settling on both sides (the
+    segment start and the onset); ``None`` with fewer than 3 such samples."""
+    t = band.t_s
+    before = np.abs(band.z[(t >= band.t0_s + settle_s) & (t <= onset_s - settle_s)])
+    return float(np.median(before)) if before.size >= 3 else None
+
+
+#: A band whose level before the hit is within this many dB of its level after the hit was
+#: already ringing: a steady tone, not a mode (common practice, no source).
+STEADY_MARGIN_DB = 10.0
+
+
+def _steady_before_onset(band: Band, onset_s: float, beta_hint: float) -> bool:
+    """Whether the band held, before the hit, a level within 10 dB of its peak after the hit:
+    then the hit did not start it, and it is a steady tone, not a mode. False when the band
+    holds too few samples before the onset to tell."""
+    before = _level_before_onset(band, onset_s, settling_time_s(band, beta_per_s=beta_hint, level=1e-2))
+    after = np.abs(band.z[band.t_s >= onset_s])
+    if before is None or after.size == 0:
+        return False
+    return bool(before > float(np.max(after)) * 10 ** (-STEADY_MARGIN_DB / 20))
+
+
+def _is_stationary(est: Estimate, band: Band, window: Window, seg_end_s: float, *, pre_rms: float | None = None) -> bool:
+    """Whether a component is a steady tone (hum, a running drive) rather than a mode.
+
+    A component whose decay rate is within 3 standard uncertainties of zero and that decays
+    less than 6 dB over the hit is steady, whatever came before: a drive switched on with the
+    hit and still running is not a mode. A mode starts with the hit. When the band holds at
+    least 3 samples before the onset (clear
+    of the filter's settling), a tone is steady if it was already there within 10 dB of its
+    level at the window start. Without such samples, it is steady if it decays less than 6 dB
+    over the whole hit, or its tail stays within 6 dB of the level at the window start
+    (thresholds: common practice, no source). A lightly damped mode in a short record is
+    therefore kept (with ``short_decay``) when the record shows it start.
+
+    ``pre_rms`` is the RMS of the broadband samples before the hit (``None`` when there are
+    too few): a steady tone of amplitude ``a`` there would give an RMS of at least
+    ``a / sqrt(2)``, so a component whose amplitude exceeds ``sqrt(2) pre_rms`` by 10 dB was
+    not there before the hit; it is a mode however little it decays in the record (a very
+    lightly damped resonator whose band filter is too narrow to settle in a short pre-trigger)
+    when its decay rate is resolved (more than 5 standard uncertainties above zero: common
+    practice, no source). A drive switched on with the hit and still running has a decay rate
+    consistent with zero and stays a steady tone.
+    """
+    env = np.abs(band.z)
+    i0 = band.index_of(window.start_s)
+    span = max(seg_end_s - window.onset_s, 1e-300)
+    if est.beta_per_s_u is not None and est.beta_per_s <= 3.0 * est.beta_per_s_u and \
+            DB_PER_NEPER * est.beta_per_s * span < 6.0:
+        return True  # no decay resolved: a drive switched on with the hit and still running
+    before = _level_before_onset(band, window.onset_s, window.start_s - window.onset_s)
+    if before is not None:
+        return bool(before > env[i0] * 10 ** (-STEADY_MARGIN_DB / 20))
+    if pre_rms is not None and est.amplitude is not None and est.beta_per_s_u is not None and \
+            est.amplitude > math.sqrt(2.0) * pre_rms * 10 ** (STEADY_MARGIN_DB / 20) and \
+            est.beta_per_s > 5.0 * est.beta_per_s_u:
+        return False
+    if DB_PER_NEPER * est.beta_per_s * span < 6.0:
+        return True
+    n = env.shape[0]
+    tail = env[max(i0 + 1, n - max(n // 5, 1)):]
+    return bool(tail.size and np.median(tail) > env[i0] * 10 ** (-6 / 20))
+
+
+#: Local decay rates in the two halves of the fit window that differ by more than this ratio ...
+AMPLITUDE_RATIO_LIMIT = 1.25
+#: ... and by more than this many combined standard uncertainties mark a non-exponential decay.
+AMPLITUDE_Z_LIMIT = 3.0
+
+
+def _amplitude_dependence(mode: Mode, band: Band, window: Window) -> Mode:
+    """Test the decay for amplitude-dependent damping and, if found, tabulate it.
+
+    Statistic: the local decay rates ``beta_1``, ``beta_2`` fitted (weighted log-linear, as the
+    envelope estimator) to the first and second half of the fit window. The decay is called
+    non-exponential when ``max(beta_2/beta_1, beta_1/beta_2) > 1.25`` and
+    ``|beta_2 - beta_1| > 3 sqrt(u_1^2 + u_2^2)`` (thresholds: common practice, no source).
+    Viscous damping gives equal rates; dry friction raises the rate as the amplitude falls
+    (Feldman 2011, ch. 4: instantaneous damping against amplitude). The table has eight
+    sliding windows across the fit window, half overlapping.
+    """
+    from .estimators import envelope
+
+    mid = 0.5 * (window.start_s + window.end_s)
+    try:
+        a = envelope.estimate(band, Window(window.start_s, mid, window.onset_s))[0]
+        b = envelope.estimate(band, Window(mid, window.end_s, window.onset_s))[0]
+    except FitError:
+        return mode
+    ratio = b.beta_per_s / a.beta_per_s
+    uc = math.hypot(a.beta_per_s_u or 0.0, b.beta_per_s_u or 0.0)
+    if not (max(ratio, 1 / ratio) > AMPLITUDE_RATIO_LIMIT and uc > 0 and abs(b.beta_per_s - a.beta_per_s) > AMPLITUDE_Z_LIMIT * uc):
+        return mode
+    rows = []
+    n_win = 8
+    length = (window.end_s - window.start_s) * 2 / (n_win + 1)
+    for i in range(n_win):
+        s0 = window.start_s + i * length / 2
+        try:
+            e = envelope.estimate(band, Window(s0, s0 + length, window.onset_s))[0]
+        except FitError:
+            continue
+        seg = np.abs(band.z[Window(s0, s0 + length, window.onset_s).indices(band)])
+        rows.append({"amplitude": float(np.mean(seg)), "f_d_hz": e.f_d_hz, "beta_per_s": e.beta_per_s,
+                     "beta_per_s_u": e.beta_per_s_u})
+    note = Notice("amplitude_dependent", f"decay is not exponential: local decay rate {a.beta_per_s:.4g} 1/s in the first "
+                                          f"half of the fit, {b.beta_per_s:.4g} 1/s in the second (ratio {ratio:.2f}); "
+                                          "damping depends on amplitude (friction?), see damping_vs_amplitude")
+    return mode.with_updates(warnings=mode.warnings + (note,), damping_vs_amplitude=tuple(rows))
+
+
+def _make_mode(est: Estimate, others: dict[str, Estimate], band: Band, window: Window, extra: list[Notice]) -> Mode:
+    warnings = list(est.warnings) + list(extra)
+    derived = derive(est.f_d_hz, est.beta_per_s, f_d_hz_u=est.f_d_hz_u, beta_per_s_u=est.beta_per_s_u,
+                     cov_f_beta=est.cov_f_beta)
+    start = est.fit_start_s if est.fit_start_s is not None else window.start_s
+    end = est.fit_end_s if est.fit_end_s is not None else window.end_s
+    amp = est.amplitude
+    snr = None
+    if amp is not None and band.noise_rms:
+        snr = 20 * math.log10(max(amp, 1e-300) / band.noise_rms)
+    cycles = est.f_d_hz * (end - start)
+    decay_db = DB_PER_NEPER * est.beta_per_s * (end - start)
+    if cycles < 10:
+        warnings.append(Notice("few_cycles", f"fit spans {cycles:.1f} cycles; 10 or more are advised"))
+    if decay_db < 20:
+        warnings.append(Notice("short_decay", f"fit spans {decay_db:.1f} dB of decay; 20 dB or more are advised"))
+    # the zero-phase band filter biases decay unless its bandwidth exceeds ~1.8x beta/pi
+    # (Jacobsen & Rindel 1987, FIELD notes)
+    if band.width_hz < 1.8 * est.beta_per_s / math.pi:
+        warnings.append(Notice("filter_bias", f"band {band.width_hz:.3g} Hz is narrower than 1.8x the mode's half-power "
+                                              f"bandwidth {est.beta_per_s / math.pi:.3g} Hz; the decay rate may be biased"))
+    warnings.extend(_disagreements(est, others))
+    env_est = others.get("envelope") if est.method != "envelope" else est
+    trace = _trace(est, band, window, env_est)
+    return Mode(
+        index=0,
+        derived=derived,
+        amplitude=amp,
+        snr_db=snr,
+        method=est.method,
+        fit_start_s=start,
+        fit_end_s=end,
+        cycles_fitted=float(cycles),
+        n_hits=1,
+        band_hz=(band.f_lo_hz - band.skirt_hz, band.f_hi_hz + band.skirt_hz),
+        warnings=tuple(_unique(warnings)),
+        cross_checks=dict(others),
+        trace=trace,
+    )
+
+
+#: Cross-checks compared with the reported estimate for the ``methods_disagree`` warning.
+_AGREEMENT_METHODS = ("pencil", "envelope", "decrement")
+#: Relative differences below this are within the band filter's own bias (0.1-0.5 % seen in
+#: tests/benchmarks/accuracy.py at high SNR) and are not called a disagreement.
+_AGREEMENT_FLOOR = 0.005
+
+
+def _disagreements(est: Estimate, others: dict[str, Estimate]) -> list[Notice]:
+    """Time-domain cross-checks (pencil, envelope, decrement) that differ from the reported
+    estimate by more than 3 combined standard uncertainties (coverage factor 3: common
+    practice, no source) and by more than 0.5 %. The half-power figure is kept in
+    ``cross_checks`` but not compared: it is resolution-limited for light damping."""
+    out = []
+    for name, o in others.items():
+        if name not in _AGREEMENT_METHODS or est.method not in _AGREEMENT_METHODS:
+            continue
+        for q, unit in (("beta_per_s", "1/s"), ("f_d_hz", "Hz")):
+            a, b = getattr(est, q), getattr(o, q)
+            ua, ub = getattr(est, q + "_u"), getattr(o, q + "_u")
+            if ua is None or ub is None:
+                continue
+            uc = math.hypot(ua, ub)
+            if uc > 0 and abs(a - b) > 3 * uc and abs(a - b) > _AGREEMENT_FLOOR * abs(a):
+                out.append(Notice("methods_disagree", f"{name} gives {q} = {b:.6g} {unit}, {est.method} {a:.6g} {unit} "
+                                                      f"(difference {abs(a - b) / uc:.1f} combined standard uncertainties)"))
+    return out
+
+
+def _trace(est: Estimate, band: Band, window: Window, env_est: Estimate | None) -> ModeTrace:
+    if est.trace is not None:
+        base = est.trace
+    else:
+        amp = est.amplitude if est.amplitude is not None else float(np.abs(band.z[band.index_of(window.start_s)]))
+        base = ModeTrace(t_s=band.t_s, envelope=np.abs(band.z), fit_start_s=window.start_s, fit_end_s=window.end_s,
+                         noise_floor=float(band.noise_rms or 0.0), fit_amplitude=float(amp),
+                         fit_beta_per_s=float(est.beta_per_s), fit_t0_s=float(est.fit_start_s or window.start_s))
+    try:
+        pt, pv = band_peaks(band, window)
+    except FitError:
+        pt, pv = None, None
+    return ModeTrace(base.t_s, base.envelope, base.fit_start_s, base.fit_end_s, base.noise_floor, base.fit_amplitude,
+                     base.fit_beta_per_s, base.fit_t0_s, pt, pv, base.model_envelope, base.n_model_modes)
+
+
+# ----------------------------------------------------------------------------------------------
+# combining hits
+
+
+def _combine_hits(hits: Sequence[Hit]) -> list[Mode]:
+    """Match modes across hits by frequency and combine them.
+
+    Modes of different hits are the same mode when their frequencies differ by less than
+    ``max(0.5 %, 3 beta / pi)`` (common practice, no source). The combined frequency and decay
+    rate are inverse-variance weighted means; their uncertainty is the internal one scaled by
+    the Birge ratio ``sqrt(chi2 / (n - 1))`` when that exceeds 1, which folds the between-hit
+    scatter in (R. T. Birge, Phys. Rev. 40, 207, 1932).
+    """
+    ref = max(hits, key=lambda h: h.peak_value)
+    clusters: list[list[Mode]] = [[m] for m in ref.modes]
+    for h in hits:
+        if h is ref:
+            continue
+        for m in h.modes:
+            best, best_d = None, None
+            for c in clusters:
+                f0 = c[0].f_d_hz
+                tol = max(0.005 * f0, 3 * c[0].beta_per_s / math.pi)
+                d = abs(m.f_d_hz - f0)
+                if d <= tol and (best_d is None or d < best_d) and all(x is not m for x in c):
+                    best, best_d = c, d
+            if best is None:
+                clusters.append([m])
+            else:
+                best.append(m)
+    out = [_combine_modes(c) for c in clusters]
+    out.sort(key=lambda m: m.f_d_hz)
+    return [m.with_updates(index=i + 1) for i, m in enumerate(out)]
+
+
+def _weighted(values: np.ndarray, us: np.ndarray) -> tuple[float, float]:
+    if np.any(~np.isfinite(us)) or np.any(us <= 0):
+        mean = float(np.mean(values))
+        u = float(np.std(values, ddof=1) / math.sqrt(len(values))) if len(values) > 1 else float("nan")
+        return mean, u
+    w = 1.0 / us**2
+    mean = float(np.sum(w * values) / np.sum(w))
+    u_int = float(1.0 / math.sqrt(np.sum(w)))
+    n = len(values)
+    if n > 1:
+        chi2 = float(np.sum(w * (values - mean) ** 2))
+        birge = math.sqrt(chi2 / (n - 1))
+        u_int *= max(1.0, birge)
+    return mean, u_int
+
+
+def _combine_modes(ms: list[Mode]) -> Mode:
+    if len(ms) == 1:
+        return ms[0]
+    f = np.array([m.f_d_hz for m in ms])
+    b = np.array([m.beta_per_s for m in ms])
+    uf = np.array([m.f_d_hz_u if m.f_d_hz_u is not None else np.nan for m in ms])
+    ub = np.array([m.beta_per_s_u if m.beta_per_s_u is not None else np.nan for m in ms])
+    f_m, f_u = _weighted(f, uf)
+    b_m, b_u = _weighted(b, ub)
+    strongest = max(ms, key=lambda m: m.amplitude or 0.0)
+    derived = derive(f_m, b_m, f_d_hz_u=None if not math.isfinite(f_u) else f_u,
+                     beta_per_s_u=None if not math.isfinite(b_u) else b_u)
+    warnings = _unique([w for m in ms for w in m.warnings])
+    return strongest.with_updates(derived=derived, n_hits=len(ms), warnings=tuple(warnings))
