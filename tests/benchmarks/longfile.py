@@ -6,7 +6,8 @@ written block by block to a temporary folder. Each record is analysed by ``ringd
 a fresh process; the table gives the wall time, the peak resident memory of that process
 (its own ``getrusage(RUSAGE_SELF).ru_maxrss`` as it exits, which includes the interpreter and its
 libraries),
-the taps found and time per minute of record (linear in the length when it stays the same).
+the taps found, and CPU time (user + system) per minute of record: linear in the length when it
+stays the same, and less disturbed than the wall time by other work on the machine.
 Asserts nothing.
 
 Run: ``python tests/benchmarks/longfile.py [MINUTES ...]`` (default ``5 30``).
@@ -29,13 +30,15 @@ from long_records import write_long_record  # noqa: E402
 FS = 48_000
 
 
-#: The child prints its own peak resident memory (ru_maxrss, KiB on Linux) as it exits.
+#: The child prints its own peak resident memory (ru_maxrss, KiB on Linux) and CPU time (user +
+#: system, s: what the analysis cost, whatever else the machine was running) as it exits.
 _CHILD = ("import resource, sys\nfrom ringdown.cli import main\ntry:\n    main()\nfinally:\n"
-          "    sys.stderr.write(f'\\nMAXRSS {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss}\\n')\n")
+          "    r = resource.getrusage(resource.RUSAGE_SELF)\n"
+          "    sys.stderr.write(f'\\nMAXRSS {r.ru_maxrss} CPU {r.ru_utime + r.ru_stime}\\n')\n")
 
 
-def _measure(path: Path) -> tuple[float, float, int, int]:
-    """(seconds, peak RSS MB, hits, modes) of ``ringdown analyze --json PATH`` in a fresh process."""
+def _measure(path: Path) -> tuple[float, float, float, int, int]:
+    """(wall s, CPU s, peak RSS MB, hits, modes) of ``ringdown analyze --json PATH`` in a fresh process."""
     env = dict(os.environ, OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1", MKL_NUM_THREADS="1")
     t0 = time.perf_counter()
     out = subprocess.run([sys.executable, "-c", _CHILD, "analyze", "--json", str(path)],
@@ -43,21 +46,23 @@ def _measure(path: Path) -> tuple[float, float, int, int]:
     dt = time.perf_counter() - t0
     if out.returncode != 0:
         raise SystemExit(f"analyze failed on {path}: {out.stderr.strip()}")
-    peak_kib = int(out.stderr.rsplit("MAXRSS", 1)[1].split()[0])
+    tail = out.stderr.rsplit("MAXRSS", 1)[1].split()
+    peak_kib, cpu = int(tail[0]), float(tail[2])
     rec = json.loads(out.stdout)["recordings"][0]
-    return dt, peak_kib / 1024.0, len(rec["hits"]), len(rec["modes"])
+    return dt, cpu, peak_kib / 1024.0, len(rec["hits"]), len(rec["modes"])
 
 
 def main(minutes: list[float]) -> None:
-    print("| record | length | taps written | hits found | modes | time [s] | s per minute | peak RSS [MB] |")
-    print("|---|---|---|---|---|---|---|---|")
+    print("| record | length | taps written | hits found | modes | wall time [s] | CPU time [s] | CPU s per minute "
+          "| peak RSS [MB] |")
+    print("|---|---|---|---|---|---|---|---|---|")
     with tempfile.TemporaryDirectory(prefix="ringdown-long-") as tmp:
         for kind, period in (("one tap", None), ("tap every 2 s", 2.0)):
             for m in sorted(minutes):
                 path = Path(tmp) / f"{kind.replace(' ', '_')}_{m:g}min.wav"
                 taps = write_long_record(path, duration_s=60.0 * m, sample_rate=FS, period_s=period)
-                dt, rss, hits, modes = _measure(path)
-                print(f"| {kind} | {m:g} min | {len(taps)} | {hits} | {modes} | {dt:.1f} | {dt / m:.2f} | "
+                dt, cpu, rss, hits, modes = _measure(path)
+                print(f"| {kind} | {m:g} min | {len(taps)} | {hits} | {modes} | {dt:.1f} | {cpu:.1f} | {cpu / m:.2f} | "
                       f"{rss:.0f} |", flush=True)
                 path.unlink()
 
