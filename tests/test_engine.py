@@ -15,12 +15,19 @@ from pathlib import Path
 import numpy as np
 import pytest
 import soundfile as sf
-
 from long_records import MODES, NOISE_RMS, damped, write_long_record
+
 from ringdown import analyze_file
+from ringdown.analysis.engine import (
+    FRAME_SAMPLES,
+    LONG_FILE_SAMPLES,
+    QUIET_FRAMES,
+    Segmenter,
+    analyze_blocks,
+    analyze_long_file,
+    is_long_sound_file,
+)
 from ringdown.io.blocks import ArrayBlocks, Paced, SoundFileBlocks
-from ringdown.analysis.engine import (FRAME_SAMPLES, LONG_FILE_SAMPLES, QUIET_FRAMES, Segmenter, analyze_blocks,
-                             analyze_long_file, is_long_sound_file)
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "example_signals"
 WAVS = sorted(str(p) for p in EXAMPLES.rglob("*.wav"))

@@ -11,14 +11,13 @@ import importlib.util
 import json
 from pathlib import Path
 
-import numpy as np
 import pytest
 import soundfile as sf
 from typer.testing import CliRunner
 
-from ringdown.io.blocks import ArrayBlocks
 from ringdown.cli import app
 from ringdown.inspection.station import PartIds, Station
+from ringdown.io.blocks import ArrayBlocks
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "example_signals"
 LINE = sorted(str(p) for p in (EXAMPLES / "line").glob("*.wav"))

@@ -19,11 +19,10 @@ import time
 from pathlib import Path
 
 import pytest
+from test_listen import LINE, _session
 from typer.testing import CliRunner
 
 from ringdown.cli import app
-
-from test_listen import LINE, _session
 
 SINK = "ringdown_test"
 CLI = [sys.executable, "-c", "from ringdown.cli import main; main()"]

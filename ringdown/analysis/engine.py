@@ -32,8 +32,8 @@ from __future__ import annotations
 import math
 import os
 from collections import deque
-from dataclasses import dataclass, replace
 from collections.abc import Callable, Iterator
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -261,7 +261,7 @@ class Segmenter:
                     if cut > self._recv0:
                         self._cut(cut, out, truncated=False)
                 self._start_hit(k)
-            elif lv <= floor + END_MARGIN_DB:
+            elif floor is not None and lv <= floor + END_MARGIN_DB:  # (a hit starts only once there is a floor)
                 self._quiet += 1
                 if self._quiet >= QUIET_FRAMES:
                     self._active = False
@@ -378,11 +378,13 @@ def analyze_blocks(source, *, min_segment: int = SEGMENT_SAMPLES, max_segment: i
                         sha256=getattr(source, "sha256", None) if path else None,
                         full_scale=getattr(source, "full_scale", None), n_channels=getattr(source, "n_channels", 1),
                         notes=tuple(getattr(source, "notes", ())))
+        a: Analysis | None = None
+        err: Exception | None = None
         try:
             a = analyze_recording(rec, reader_settings=reader_settings, sample_offset=sample_offset + seg.start,
                                   **seg_options)
         except (NoRingdownError, InputError) as exc:
-            a, err = None, exc
+            err = exc
         else:
             err = None
             if not whole:
@@ -401,12 +403,16 @@ def analyze_blocks(source, *, min_segment: int = SEGMENT_SAMPLES, max_segment: i
     n_total = total if total is not None else n_read
     if len(results) == 1 and results[0][0].start == 0 and results[0][1] == n_total:
         seg, _, a, exc = results[0]
-        if exc is not None:
-            raise exc
+        if exc is not None or a is None:
+            raise exc or NoRingdownError(f"no ring-down in {name}")
         return replace(a, settings=settings)  # the whole source in one segment: the whole-file result
 
     notes: list[Notice] = []
-    hits, rejected, warnings, floors, sources = [], [], [], [], []
+    hits: list = []
+    rejected: list = []
+    warnings: list[Notice] = []
+    floors: list[float] = []
+    sources: list[str | None] = []
     for seg, _, a, exc in results:
         t_seg = (sample_offset + seg.start) / fs
         if seg.dropped:
@@ -415,7 +421,7 @@ def analyze_blocks(source, *, min_segment: int = SEGMENT_SAMPLES, max_segment: i
         if seg.truncated:
             notes.append(Notice("decay_truncated", f"a decay at {t_seg:.6g} s rang longer than the "
                                                    f"{segmenter.max_segment}-sample buffer and was cut there"))
-        if exc is not None:
+        if exc is not None or a is None:
             if seg.triggers:
                 t = (sample_offset + seg.triggers[0]) / fs
                 notes.append(Notice("segment_without_ringdown", f"the level rose at {t:.6g} s but no ring-down was "
@@ -426,7 +432,7 @@ def analyze_blocks(source, *, min_segment: int = SEGMENT_SAMPLES, max_segment: i
         hits.extend(a.hits)
         rejected.extend(replace(r, hit=r.hit + k) if r.hit is not None else r for r in a.rejected)
         warnings.extend(a.warnings)
-        floors.append(a.noise_floor)
+        floors.append(float("inf") if a.noise_floor is None else a.noise_floor)
         sources.append(a.noise_source)
     used = [h for h in hits if h.used and h.modes]
     if not used and any(h.modes for h in hits):

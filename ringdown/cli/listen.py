@@ -2,16 +2,24 @@
 
 from __future__ import annotations
 
-import sys
-import time
 from collections import deque
 from pathlib import Path
-from typing import Optional
+from typing import Any, Optional
 
 import typer
 
-from ._common import (DEBUG_OPTION, EXIT_ERROR, EXIT_OK, error_line, guarded, note_line, on_terminal, print_json_line,
-                      resolve_db, usage_guarded)
+from ._common import (
+    DEBUG_OPTION,
+    EXIT_ERROR,
+    EXIT_OK,
+    error_line,
+    guarded,
+    note_line,
+    on_terminal,
+    print_json_line,
+    resolve_db,
+    usage_guarded,
+)
 
 #: Recent parts shown under the last verdict in the terminal view.
 RECENT_ROWS = 8
@@ -129,7 +137,7 @@ def register(app: typer.Typer) -> None:
                 raise
             error_line(str(as_ringdown_error(exc)))
             _summary(st, source, interrupted, to_err=jsonl)
-            raise typer.Exit(EXIT_ERROR)
+            raise typer.Exit(EXIT_ERROR) from None
         finally:
             stop = getattr(source, "stop_capture", None)
             if stop:
@@ -233,8 +241,7 @@ class _View:
         self.judged = judged
         self.recent: deque = deque(maxlen=RECENT_ROWS)
         self.dropped = 0
-        self.started = time.monotonic()
-        self._live = None
+        self._live: Any = None
 
     def live(self):
         from rich.console import Console

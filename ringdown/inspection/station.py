@@ -23,14 +23,15 @@ from __future__ import annotations
 import datetime as _dt
 import os
 import re
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass, replace
 from pathlib import Path
-from typing import Callable, Iterator
 
 import numpy as np
 
 from ..analysis.engine import Segment, Segmenter
 from ..analysis.results import Analysis, Notice
+from ..base.clock import utc_now
 from ..base.errors import InputError, ParameterError
 
 __all__ = ["TapResult", "Station", "PartIds"]
@@ -182,7 +183,7 @@ class Station:
         self.part_ids = part_ids or PartIds()
         self.subtype = subtype
         self.full_scale = full_scale
-        self.started = started or _dt.datetime.now(_dt.timezone.utc)
+        self.started = started or utc_now()
         self.segmenter = Segmenter(self.sample_rate, min_hit_snr_db=self.opts.min_hit_snr_db, min_segment=0,
                                    one_hit_per_segment=True)
         self.taps: list[TapResult] = []
@@ -243,7 +244,9 @@ class Station:
             note = Notice("input_dropped", f"{dropped} input samples were lost (overflow) during this tap: "
                                            "its decay has a gap; tap the part again")
             analysis = replace(analysis, warnings=analysis.warnings + (note,))
-        verdict, reasons, result = None, (), None
+        verdict: str | None = None
+        reasons: tuple[Notice, ...] = ()
+        result = None
         if self.limits is not None:
             judged = analysis
             if dropped:

@@ -19,8 +19,8 @@ from __future__ import annotations
 import math
 import os
 import time
-from dataclasses import dataclass
 from collections.abc import Iterator, Sequence
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -170,11 +170,13 @@ class Paced:
     wrapped source are available on this object.
     """
 
-    def __init__(self, source, speed: float = 1.0, *, clock=time.monotonic, sleep=time.sleep) -> None:
+    def __init__(self, source, speed: float = 1.0, *, clock=None, sleep=time.sleep) -> None:
         if not (isinstance(speed, (int, float)) and speed > 0):
             raise ParameterError(f"speed must be a number > 0 (1 = real time); got {speed!r}")
         self.source = source
         self.speed = float(speed)
+        if clock is None:
+            from ..base.clock import seconds as clock
         self._clock, self._sleep = clock, sleep
 
     def __getattr__(self, name):
