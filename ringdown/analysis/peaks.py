@@ -114,15 +114,8 @@ def find_peaks(
         den = a - 2 * b + c
         off = 0.5 * (a - c) / den if den != 0 else 0.0
         off = float(np.clip(off, -0.5, 0.5))
-        # half-power width from the linear power spectrum around the peak
-        half = b - 3.0103
-        lo = k
-        while lo > 0 and p_db[lo] > half:
-            lo -= 1
-        hi = k
-        while hi < f.shape[0] - 1 and p_db[hi] > half:
-            hi += 1
-        width_hz = max((hi - lo) * df, df)
+        # half-power width from the power spectrum around the peak
+        width_hz = max(_half_power_bins(p_db, k) * df, df)
         peaks.append(Peak(f_hz=float(f[k] + off * df), level_db=float(b - 0.25 * (a - c) * off),
                           prominence_db=float(prom), width_hz=float(width_hz)))
     if noise_psd is not None and broad:
@@ -137,6 +130,18 @@ def find_peaks(
     if max_peaks is not None and len(peaks) > max_peaks:
         peaks = sorted(peaks, key=lambda p: p.level_db, reverse=True)[:max_peaks]
     return sorted(peaks, key=lambda p: p.f_hz)
+
+
+def _half_power_bins(p_db: np.ndarray, k: int) -> int:
+    """Bins between the first points either side of bin ``k`` that lie 3 dB (half power) below it."""
+    half = p_db[k] - 3.0103
+    lo = k
+    while lo > 0 and p_db[lo] > half:
+        lo -= 1
+    hi = k
+    while hi < p_db.shape[0] - 1 and p_db[hi] > half:
+        hi += 1
+    return hi - lo
 
 
 #: Smoothing widths of the broad-peak search, in bins of the unpadded segment.
@@ -179,16 +184,11 @@ def _broad_peaks(f: np.ndarray, p: np.ndarray, noise: np.ndarray, n: int, sample
         db = 10.0 * np.log10(ps + 1e-300)
         idx, props = signal.find_peaks(db, prominence=BROAD_PROMINENCE_DB)
         for i, prom in zip(idx, props["prominences"]):
-            if not (ps[i] > margin * ns[i]) or f[i] < 3.0 * sample_rate / n or f[i] > 0.98 * sample_rate / 2:
+            # at least 10 cycles over the segment (as detect.MIN_CYCLES: below, drift removal and
+            # DC leave humps that are no modes)
+            if not (ps[i] > margin * ns[i]) or f[i] < 10.0 * sample_rate / n or f[i] > 0.98 * sample_rate / 2:
                 continue
-            half = db[i] - 3.0103
-            lo = i
-            while lo > 0 and db[lo] > half:
-                lo -= 1
-            hi = i
-            while hi < f.shape[0] - 1 and db[hi] > half:
-                hi += 1
-            width_bins = hi - lo
+            width_bins = _half_power_bins(db, i)
             if width_bins < 0.5 * k:
                 continue
             # the averaging widens a peak: take its own width out in quadrature

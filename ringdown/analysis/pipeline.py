@@ -721,8 +721,9 @@ def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: lis
     from the decay (CLEAN, Hogbom 1974 [from memory]: successive cancellation of the strongest
     components), look for spectral peaks in what is left against the same noise spectrum, and
     measure each new one: in its band of the record (bounded by the measured modes) when the band
-    has room, else on the residual itself (a broad, fast decay: raw fit). The ``deferred``
-    candidates (too broad for a band) are fitted on the first residual. Broad peaks
+    has room, else on the record itself jointly with the measured modes (a broad, fast decay: raw
+    fit, :func:`_measure_raw`). The ``deferred`` candidates (too broad for a band) are fitted so
+    after the first round. Broad peaks
     (``find_peaks(broad=True)``) are looked for in the first residual only, where the sharp
     modes and their skirts are gone; later rounds look for sharp peaks only, since subtracting a
     strong broad mode leaves a broadband remnant. Returns ``(modes, rejected)``."""
@@ -742,12 +743,11 @@ def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: lis
         for g, lo, hi in group_bands(peaks_d, sample_rate=fs, resolution_hz=res_hz, barriers_hz=ctx.tones):
             gc = [of_peak[id(p)] for p in g]
             try:
-                got = _measure_residual(hctx, resid, start, gc)
+                got = _measure_raw(hctx, gc, gc + _as_candidates(known, res_hz), start)
             except FitError as exc:
                 rejected.extend(_rejection(c, "fit_failed", str(exc)) for c in gc)
                 continue
-            got = [m for m in got if not any(abs(m.f_d_hz - k.f_d_hz) <= max(k.beta_per_s / math.pi, 3.0 * res_hz)
-                                             for k in known)]
+            got = _resolved_raw(_new_near(got, gc, known, res_hz), rejected)
             got, unmatched = _match_candidates(got, gc, False)
             rejected.extend(unmatched)
             known += got
@@ -774,15 +774,14 @@ def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: lis
                   for p in g]
             try:
                 if _needs_raw_fit(gc, lo, hi) or any(lo < m.f_d_hz < hi for m in known):
-                    got = _measure_residual(hctx, resid, start, gc)
+                    got = _measure_raw(hctx, gc, gc + _as_candidates(known, res_hz), start)
                 else:
                     got = _measure_group(hctx, g, lo, hi, [])
             except FitError as exc:
                 reason = "near_noise" if "above its band noise" in str(exc) else "fit_failed"
                 rejected.extend(_rejection(c, reason, str(exc)) for c in gc)
                 continue
-            got = [m for m in got if not any(abs(m.f_d_hz - k.f_d_hz) <= max(k.beta_per_s / math.pi, 3.0 * res_hz)
-                                             for k in known + found_round)]
+            got = _resolved_raw(_new_near(got, gc, known + found_round, res_hz), rejected)
             got, unmatched = _match_candidates(got, gc, False)
             rejected.extend(unmatched)
             found_round.extend(got)
@@ -793,33 +792,39 @@ def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: lis
     return new_modes, rejected
 
 
-def _measure_residual(hctx: _HitContext, resid: np.ndarray, start: int, targets: list[Candidate]) -> list[Mode]:
-    """Targets fitted as real damped cosines on the residual of the decay (every measured mode
-    subtracted), from the decay's start, over as long as the slowest target stands above the noise."""
-    from .estimators.real import estimate_real
+def _new_near(got: list[Mode], cands: list[Candidate], known: Sequence[Mode], resolution_hz: float) -> list[Mode]:
+    """The modes of a residual fit that are new (not a mode already measured) and lie where one
+    of its candidates was (within the larger of the candidate's and the mode's half-power width,
+    three of the mode's standard uncertainties and the resolution): a fit that wandered off to
+    model something else is not a mode of its own (its candidate is then named as rejected)."""
+    def near(m: Mode, f: float, w: float) -> bool:
+        return abs(m.f_d_hz - f) <= max(w, m.beta_per_s / math.pi, 3.0 * (m.f_d_hz_u or 0.0), resolution_hz)
 
-    ctx = hctx.record
-    fs = ctx.fs
-    t_rest = resid.shape[0] / fs
-    targets = [c if c.beta_per_s is not None else replace(c, beta_per_s=math.pi * c.width_hz) for c in targets]
-    dur = 0.0
-    for c in targets:
-        density = float(detect.noise_density(c.f_hz, ctx.noise_f, ctx.noise_p))
-        amp = math.sqrt(max(float(np.mean(resid[: max(8, int(fs / c.f_hz))] ** 2)) * 2.0, 1e-300))
-        d = detect.mf_snr(amp, c.beta_per_s, t_rest, density)
-        dur = max(dur, math.log(max(d, math.e**2)) / (2.0 * c.beta_per_s))
-    dur = min(max(dur, 20.0 / min(c.f_hz for c in targets)), t_rest)
-    t0 = (start + ctx.i0) / fs
-    ests = estimate_real(resid, fs, t0_s=t0, poles=[(c.f_hz, c.beta_per_s) for c in targets], n_targets=len(targets),
-                         duration_s=dur, noise_f=ctx.noise_f, noise_p=ctx.noise_p)
+    return [m for m in got
+            if not any(abs(m.f_d_hz - k.f_d_hz) <= max(k.beta_per_s / math.pi, 3.0 * resolution_hz) for k in known)
+            and any(near(m, c.f_hz, c.width_hz) for c in cands)]
+
+
+def _resolved_raw(got: list[Mode], rejected: list[Rejected]) -> list[Mode]:
+    """Raw-fit modes of the residual search whose decay is resolved (beta above 3 standard
+    uncertainties): a broad hump in the residual is a heavily damped mode only if it decays
+    measurably; the others are named ``near_noise``."""
     out = []
-    for est in ests:
-        if DB_PER_NEPER * est.beta_per_s * t_rest < 6.0:
-            continue  # decays less than 6 dB over the hit: left to the band search, as in _measure_raw
-        density = float(detect.noise_density(est.f_d_hz, ctx.noise_f, ctx.noise_p))
-        noise_rms = math.sqrt(max(2.0 * density * est.beta_per_s / math.pi, 1e-300))
-        out.append(_make_raw_mode(est, noise_rms, resid, fs, t0))
+    for m in got:
+        if m.fit_path == "raw" and not (m.beta_per_s > 3.0 * (m.beta_per_s_u or math.inf)):
+            rejected.append(Rejected(m.f_d_hz, m.beta_per_s, m.snr_db, "near_noise",
+                                     f"fitted decay {m.beta_per_s:.3g} +- {m.beta_per_s_u or float('nan'):.2g} 1/s "
+                                     "is not resolved: noise, not a heavily damped mode"))
+        else:
+            out.append(m)
     return out
+
+
+def _as_candidates(modes: Sequence[Mode], resolution_hz: float) -> list[Candidate]:
+    """Measured modes as candidates, to be fitted jointly (as nuisance modes) with a new one."""
+    return [Candidate(m.f_d_hz, m.beta_per_s, max(m.beta_per_s / math.pi, resolution_hz), m.amplitude,
+                      None if m.snr_db is None else 10 ** (m.snr_db / 10.0), "measured", -3, resolution_hz)
+            for m in modes]
 
 
 #: A group is fitted on the raw record when a mode's band would reach less than this many
