@@ -206,10 +206,17 @@ def analyze_file(
     ``channel`` (a number, or a name for TDMS/UFF/MATLAB/HDF5), ``column`` and ``sample_rate``
     (text, and files that state no rate) go to the reader;
     the other keyword options are those of :func:`analyze`.
+
+    A sound file of more than :data:`ringdown.analysis.engine.LONG_FILE_SAMPLES` samples (2**20) is read
+    in blocks and analysed segment by segment (:func:`ringdown.analysis.engine.analyze_long_file`), in
+    memory bounded by the longest decay rather than by the file.
     """
     from ..io.read import read_recording
+    from .engine import analyze_long_file, is_long_sound_file
 
     try:
+        if is_long_sound_file(path):
+            return analyze_long_file(path, channel=channel, column=column, sample_rate=sample_rate, **options)
         rec = read_recording(path, channel=channel, column=column, sample_rate=sample_rate)
         reader = {"channel": channel, "column": column, "sample_rate": sample_rate}
         return analyze_recording(rec, reader_settings=reader, **options)
@@ -315,11 +322,15 @@ class _FileTask:
 
 
 @one_blas_thread
-def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **options) -> Analysis:
+def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, sample_offset: int = 0,
+                      **options) -> Analysis:
     """Analyse a :class:`Recording` (the common path of :func:`analyze` and :func:`analyze_file`).
 
-    Keyword options are those of :func:`analyze`. The numerical work runs on one BLAS thread
-    (:mod:`ringdown.base._threads`; the caller's thread limits are restored afterwards).
+    Keyword options are those of :func:`analyze`. ``sample_offset`` is the index, in a longer
+    source, of ``rec``'s first sample (a segment of the block engine, :mod:`ringdown.analysis.engine`):
+    every time in the result is then measured from the source's first sample. The numerical work
+    runs on one BLAS thread (:mod:`ringdown.base._threads`; the caller's thread limits are
+    restored afterwards).
     """
     opts = AnalysisOptions.from_kwargs(options)
     settings = opts.to_dict()
@@ -336,6 +347,7 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, **
                 f"band {lo:g}-{hi:g} Hz lies above Nyquist ({nyq:g} Hz) for {name}; lower the band or resample"
             )
     raw, i0 = _time_window(rec, opts, name)
+    i0 += int(sample_offset)
     peak_abs = float(np.max(np.abs(raw)))
     if peak_abs > MAX_ABS_SAMPLE:
         raise InputError(f"{name} holds values up to {peak_abs:.3g}, beyond the {MAX_ABS_SAMPLE:g} that can be squared "
@@ -438,7 +450,12 @@ def _time_window(rec: Recording, opts: AnalysisOptions, name: str) -> tuple[np.n
     """The samples between ``opts.start_s`` and ``opts.end_s`` and the index of the first."""
     if opts.start_s is None and opts.end_s is None:
         return rec.samples, 0
-    fs, n = rec.sample_rate, rec.n_samples
+    i_lo, i_hi = window_bounds(rec.n_samples, rec.sample_rate, opts, name)
+    return rec.samples[i_lo:i_hi], i_lo
+
+
+def window_bounds(n: int, fs: float, opts: AnalysisOptions, name: str) -> tuple[int, int]:
+    """Sample indices ``[i_lo, i_hi)`` of the ``start_s``..``end_s`` window of ``n`` samples at ``fs`` Hz."""
     dur = n / fs
     start = 0.0 if opts.start_s is None else opts.start_s
     end = dur if opts.end_s is None else min(opts.end_s, dur)
@@ -448,7 +465,7 @@ def _time_window(rec: Recording, opts: AnalysisOptions, name: str) -> tuple[np.n
     if i_hi - i_lo < MIN_SAMPLES:
         raise ParameterError(f"the time window {start:g}-{end:g} s of {name} holds {max(i_hi - i_lo, 0)} samples; "
                              f"at least {MIN_SAMPLES} are needed")
-    return rec.samples[i_lo:i_hi], i_lo
+    return i_lo, i_hi
 
 
 def _hits_in_strongest_band(x: np.ndarray, fs: float, min_hit_snr_db: float, smoothing: int):

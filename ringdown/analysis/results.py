@@ -31,6 +31,7 @@ __all__ = [
     "Rejected",
     "Analysis",
     "results_document",
+    "lighten",
 ]
 
 
@@ -544,6 +545,18 @@ class Analysis:
             raise ParameterError("Analysis.to_dataframe needs pandas; install it: pip install 'ringdown[dataframe]'"
                                  ) from None
         return pd.DataFrame([_mode_row(self.path, m.to_dict()) for m in self.modes], columns=list(_FRAME_COLUMNS))
+
+
+def lighten(analysis: Analysis) -> Analysis:
+    """A copy without arrays (recording, mode traces), cheap to send between processes or to keep
+    by the thousand (the block engine's segments)."""
+
+    def light_mode(m):
+        cc = {k: replace(e, trace=None) for k, e in m.cross_checks.items()}
+        return replace(m, trace=None, cross_checks=cc)
+
+    hits = tuple(replace(h, modes=tuple(light_mode(m) for m in h.modes)) for h in analysis.hits)
+    return replace(analysis, recording=None, modes=tuple(light_mode(m) for m in analysis.modes), hits=hits)
 
 
 def results_document(analyses: Iterable[Analysis]) -> dict:

@@ -20,7 +20,7 @@ from ._common import EXIT_USAGE
 
 __all__ = ["app", "main"]
 
-_COMMAND_MODULES = ("analyze", "compare", "limits", "history", "moduli")
+_COMMAND_MODULES = ("analyze", "compare", "limits", "history", "moduli", "listen")
 
 class _Group(TyperGroup):
     """The command group: a usage error (bad option, missing argument) exits 64, not 2."""

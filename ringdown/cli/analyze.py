@@ -173,6 +173,7 @@ def register(app: typer.Typer) -> None:
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Measure every mode of each recording: f_d, beta, f_n, zeta, Q, loss factor, dB/s, T60."""
+        from ..analysis.engine import is_long_sound_file
         from ..analysis.pipeline import AnalysisOptions, iter_analyze_files
 
         started = seconds()
@@ -235,7 +236,12 @@ def register(app: typer.Typer) -> None:
         sink = guarded(lambda: open_sink(parquet_out), debug=debug)
         try:
             with catching_interrupts(), cluster as client, sink, bar:
-                for i, a in iter_analyze_files(paths, jobs=n_jobs, on_notice=note_line, client=client, **options):
+                if client is None and len(paths) == 1 and is_long_sound_file(paths[0]):
+                    # one long recording: the block engine in this process, with its progress by time
+                    found = _iter_long_file(paths[0], options, on_terminal(json_out or jsonl))
+                else:
+                    found = iter_analyze_files(paths, jobs=n_jobs, on_notice=note_line, client=client, **options)
+                for i, a in found:
                     check_interrupt()  # a result that finished after a Ctrl-C is not taken
                     results[i] = a
                     storer.add(a)  # durable before anything else is written
@@ -264,6 +270,10 @@ def register(app: typer.Typer) -> None:
         if csv_out is not None:
             failed_outputs += _try(lambda: write_csv(analyses, str(csv_out)), debug)
         header = report_header(title, notes, serial, station=station, operator=operator)
+        if plot is not None or report is not None:
+            for a in analyses:
+                if a.error is None and a.recording is None:
+                    note_line(f"{a.path}: analysed in segments (a long file), no samples kept: its figures are not drawn")
         failed_outputs += _render(analyses, plot, plot_format, report, options, debug, header)
         storer.report()
         errors = sum(1 for a in analyses if a.error is not None)
@@ -277,6 +287,47 @@ def register(app: typer.Typer) -> None:
                        err=jsonl)
         bad = errors or failed_outputs or storer.failed or paths.problems
         raise typer.Exit(EXIT_ERROR if bad else EXIT_OK)
+
+
+def _iter_long_file(path: str, options: dict, show: bool):
+    """``(0, Analysis)`` of one long sound file through the block engine, with a progress bar by
+    time position on stderr when ``show``; any failure is the file's result (the batch policy)."""
+    from ..analysis.engine import analyze_long_file
+    from ..analysis.pipeline import _FileTask
+    from ..base.batch import run_batch
+
+    class _Task(_FileTask):
+        def __call__(self, p: str):
+            return analyze_long_file(p, progress=advance, **self.options)
+
+    if show:
+        from rich.console import Console
+        from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
+
+        prog = Progress(TextColumn("analysing"), BarColumn(), TextColumn("{task.fields[at]}"), TimeRemainingColumn(),
+                        console=Console(stderr=True), transient=True)
+    else:
+        prog = None
+    task_id = None
+
+    def clock(seconds: float) -> str:
+        m, s = divmod(int(seconds), 60)
+        return f"{m // 60}:{m % 60:02d}:{s:02d}" if m >= 60 else f"{m}:{s:02d}"
+
+    def advance(done: int, total) -> None:
+        if prog is not None and task_id is not None and total:
+            prog.update(task_id, completed=done, total=total, at=f"{clock(done / rate)} of {clock(total / rate)}")
+
+    import soundfile as sf
+
+    rate = float(sf.info(path).samplerate)
+    task = _Task(dict(options))
+    if prog is None:
+        yield from run_batch(task, [path], on_error=task.failed, jobs=1)
+        return
+    with prog:
+        task_id = prog.add_task("analysing", total=None, at="")
+        yield from run_batch(task, [path], on_error=task.failed, jobs=1)
 
 
 def _prepare_outputs(csv_out, report, plot, db_path):

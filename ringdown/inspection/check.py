@@ -38,7 +38,7 @@ from collections.abc import Callable, Iterable, Iterator, Sequence
 from dataclasses import dataclass, field, replace
 from typing import Any
 
-from ..analysis.results import Analysis, Mode, Notice
+from ..analysis.results import Analysis, Mode, Notice, lighten
 from ..base.errors import ParameterError
 from ..base.numfmt import fmt_value, fmt_values
 from .limits import Limits, ModeLimits, match_modes
@@ -383,17 +383,6 @@ def _note_extra_modes(t: _Tally, modes: list[Mode], freqs: list[float], used: se
 
 # --------------------------------------------------------------------------------------------
 # Files and batches
-
-
-def lighten(analysis: Analysis) -> Analysis:
-    """A copy without arrays (recording, mode traces), cheap to send between processes."""
-
-    def light_mode(m):
-        cc = {k: replace(e, trace=None) for k, e in m.cross_checks.items()}
-        return replace(m, trace=None, cross_checks=cc)
-
-    hits = tuple(replace(h, modes=tuple(light_mode(m) for m in h.modes)) for h in analysis.hits)
-    return replace(analysis, recording=None, modes=tuple(light_mode(m) for m in analysis.modes), hits=hits)
 
 
 def check_file(path: str, limits: Limits, **options: Any) -> CheckResult:
