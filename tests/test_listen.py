@@ -97,7 +97,7 @@ def test_listen_without_limits_prints_the_modes_and_max_taps_stops(tmp_path):
 
 
 def test_a_tap_that_overlaps_dropped_input_is_an_error_never_a_verdict(line_limits, tmp_path):
-    from ringdown.inspection.limits import read_limits
+    from ringdown.inspection.limits_file import read_limits
 
     session = tmp_path / "session.wav"
     _session(session, LINE[1:4])
@@ -142,7 +142,7 @@ def test_the_terminal_view_shows_the_last_verdict_large(line_limits, tmp_path):
     from rich.console import Console
 
     from ringdown.cli.listen import _View, big_word
-    from ringdown.inspection.limits import read_limits
+    from ringdown.inspection.limits_file import read_limits
 
     assert big_word("FAIL").count("\n") == 4 and "\u2588" in big_word("pass")
     session = tmp_path / "session.wav"

@@ -84,7 +84,7 @@ def register(app: typer.Typer) -> None:
 
         def parse():
             from ..base.errors import ParameterError
-            from ..inspection.limits import read_limits
+            from ..inspection.limits_file import read_limits
 
             if speed < 0:
                 raise ParameterError(f"--speed must be >= 0 (0: as fast as possible); got {speed:g}")
