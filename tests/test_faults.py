@@ -194,7 +194,8 @@ def test_bad_report_path_is_refused_before_the_analysis(parts, tmp_path):
 
 
 def _worker_kill_run(tmp_path, command):
-    files = make_parts(tmp_path / "many", 6, seed=21, duration_s=1.0)
+    # enough parts that the kill lands while items are still running (warm workers are quick)
+    files = make_parts(tmp_path / "many", 24, seed=21, duration_s=1.0)
     db = tmp_path / "h.sqlite"
     proc = popen(*command(files, db))
     killed = None
