@@ -166,9 +166,8 @@ def test_drive_never_switched_off_is_no_mode(q, detune):
     beta = r / (2 * L_H)
     f_d = math.sqrt(W0**2 - beta**2) / (2 * math.pi)
     for m in an.modes:
-        # never the drive's steady response ...
-        assert abs(m.f_d_hz - f_drive) > 3 * (m.f_d_hz_u or 0.0) + 1e-3 * f_drive or abs(f_drive - f_d) < beta / math.pi
-        # ... only the transient of the circuit's pole
-        assert abs(m.f_d_hz - f_d) <= 3 * m.f_d_hz_u + 1e-3 * f_d, (m.f_d_hz, m.f_d_hz_u, f_d)
+        # only the transient of the circuit's pole, never the drive's steady response (for a
+        # detuned drive the two frequencies differ by 6 %)
+        assert abs(m.f_d_hz - f_d) <= 3 * m.f_d_hz_u + 1e-3 * f_d, (m.f_d_hz, m.f_d_hz_u, f_d, f_drive)
         assert abs(m.beta_per_s - beta) <= 3 * m.beta_per_s_u + 0.02 * beta, (m.beta_per_s, m.beta_per_s_u, beta)
     assert any(w.code == "stationary_tone" for w in an.warnings)
