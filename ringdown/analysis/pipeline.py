@@ -659,7 +659,7 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
         groups = [([], lo, hi, []) for lo, hi in opts.bands]
     elif model:
         start = _free_decay_start(ctx, span, clip_end) if span.kind == "impulse" else max(span.onset, clip_end or 0)
-        cands, groups = _candidates(ctx, start, seg_end, rejected, parametric=clip_end is None)
+        cands, groups = _candidates(ctx, start, seg_end, rejected, parametric=clip_end is None, broad=clip_end is None)
     else:
         # spectral peaks of the decay as candidates: each one not reported as a mode is named
         start = decay_from
@@ -909,16 +909,17 @@ def _free_decay_start(ctx: _RecordContext, span, clip_end: int | None) -> int:
 
 
 def _candidates(ctx: _RecordContext, start: int, seg_end: int, rejected: list[Rejected], *, parametric: bool = True,
-                max_peaks: int | None = None):
+                broad: bool = False, max_peaks: int | None = None):
     """Candidates of one decay (``detect.find_candidates``) and their bands (``group_bands``);
     candidates not measured are appended to ``rejected``.
 
     Returns ``(candidates, groups)``, each group ``(peaks, lo_hz, hi_hz, candidates)``."""
     x, fs = ctx.x, ctx.fs
     decay = x[start:seg_end]
-    # the default search looks for broad peaks only once the sharp modes are subtracted (their
-    # skirts and the valleys between them make broad humps of the smoothed spectrum)
-    spectral = find_peaks(decay, fs, noise_psd=(ctx.noise_f, ctx.noise_p), max_peaks=max_peaks, broad=parametric)
+    # ``broad``: also the smoothed search for broad peaks. The default search leaves it to the
+    # residual search, once the sharp modes are subtracted (their skirts and the valleys between
+    # them make broad humps of the smoothed spectrum)
+    spectral = find_peaks(decay, fs, noise_psd=(ctx.noise_f, ctx.noise_p), max_peaks=max_peaks, broad=broad)
     found, below = detect.find_candidates(x, fs, start=start, end=seg_end, noise_f=ctx.noise_f, noise_p=ctx.noise_p,
                                           spectral=spectral, parametric=parametric)
     thr_db = 10.0 * math.log10(detect.snr_threshold(seg_end - start, fs))
