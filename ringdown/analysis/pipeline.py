@@ -701,7 +701,7 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
     if opts.max_modes is not None and len(modes) > opts.max_modes:
         ranked = sorted(modes, key=lambda m: -(m.amplitude or 0.0))
         for m in ranked[opts.max_modes:]:
-            rejected.append(Rejected(m.f_d_hz, m.beta_per_s, m.snr_db, "max_modes",
+            rejected.append(Rejected(m.f_d_hz, m.beta_per_s, None, "max_modes",
                                      f"amplitude {m.amplitude:.3g} is below the {opts.max_modes} strongest"))
         modes = sorted(ranked[: opts.max_modes], key=lambda m: m.f_d_hz)
     modes = [m.with_updates(index=i + 1) for i, m in enumerate(modes)]
@@ -843,11 +843,11 @@ def _resolved_raw(got: list[Mode], rejected: list[Rejected], cands: Sequence[Can
         broad = [c for c in cands if c.source in ("spectrum", "residual") and c.beta_per_s is not None]
         c = min(broad, key=lambda c: abs(c.f_hz - m.f_d_hz), default=None)
         if not (m.beta_per_s > 3.0 * (m.beta_per_s_u or math.inf)):
-            rejected.append(Rejected(m.f_d_hz, m.beta_per_s, m.snr_db, "near_noise",
+            rejected.append(Rejected(m.f_d_hz, m.beta_per_s, None, "near_noise",
                                      f"fitted decay {m.beta_per_s:.3g} +- {m.beta_per_s_u or float('nan'):.2g} 1/s "
                                      "is not resolved: noise, not a heavily damped mode"))
         elif c is not None and WIDTH_MISMATCH * m.beta_per_s / math.pi < c.width_hz:
-            rejected.append(Rejected(m.f_d_hz, m.beta_per_s, m.snr_db, "unresolved",
+            rejected.append(Rejected(m.f_d_hz, m.beta_per_s, None, "unresolved",
                                      f"fitted half-power width {m.beta_per_s / math.pi:.3g} Hz is far narrower than "
                                      f"the {c.width_hz:.3g} Hz hump it was fitted to: a remnant of a subtracted "
                                      "mode, not a heavily damped one"))
