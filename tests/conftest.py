@@ -9,8 +9,8 @@ from __future__ import annotations
 
 import importlib.util
 import math
+from collections.abc import Sequence
 from pathlib import Path
-from typing import Sequence
 
 import numpy as np
 import pytest
@@ -81,13 +81,15 @@ def two_mode_wav(tmp_path):
 #: example_signals/make_line_examples.py (numpy/scipy/soundfile only), loaded once: the invented
 #: gear-blank line whose parts the limits, check, fault and Parquet tests use.
 _LINE_SPEC = importlib.util.spec_from_file_location(
-    "make_line_examples", Path(__file__).resolve().parents[1] / "example_signals" / "make_line_examples.py")
+    "make_line_examples", Path(__file__).resolve().parents[1] / "example_signals" / "make_line_examples.py"
+)
 line_sim = importlib.util.module_from_spec(_LINE_SPEC)
 _LINE_SPEC.loader.exec_module(line_sim)
 
 
-def make_parts(folder: Path, n: int, *, seed: int, duration_s: float = 0.5, prefix: str = "SN-",
-               kind: str = "good") -> list[str]:
+def make_parts(
+    folder: Path, n: int, *, seed: int, duration_s: float = 0.5, prefix: str = "SN-", kind: str = "good"
+) -> list[str]:
     """``n`` seeded parts of the invented line (``line_sim``) written as WAVs into ``folder``."""
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)

@@ -31,8 +31,16 @@ def tap_times(duration_s: float, period_s: float | None, first_s: float = 0.5) -
     return [float(t) for t in np.arange(first_s, duration_s - period_s / 2, period_s)]
 
 
-def write_long_record(path, *, duration_s: float, sample_rate: float = 16_000.0, period_s: float | None = 2.0,
-                      seed: int = 17, block_s: float = 4.0, subtype: str = "PCM_16") -> list[float]:
+def write_long_record(
+    path,
+    *,
+    duration_s: float,
+    sample_rate: float = 16_000.0,
+    period_s: float | None = 2.0,
+    seed: int = 17,
+    block_s: float = 4.0,
+    subtype: str = "PCM_16",
+) -> list[float]:
     """Write the session as a mono WAV, block by block; return the tap times in s."""
     import soundfile as sf
 
@@ -65,6 +73,7 @@ if __name__ == "__main__":
     if len(sys.argv) < 3:
         raise SystemExit("usage: python tests/long_records.py OUT.wav MINUTES [PERIOD_S | one]")
     period = None if len(sys.argv) > 3 and sys.argv[3] == "one" else float(sys.argv[3]) if len(sys.argv) > 3 else 2.0
-    written = write_long_record(sys.argv[1], duration_s=60.0 * float(sys.argv[2]), sample_rate=48_000.0,
-                                period_s=period)
+    written = write_long_record(
+        sys.argv[1], duration_s=60.0 * float(sys.argv[2]), sample_rate=48_000.0, period_s=period
+    )
     print(f"wrote {sys.argv[1]}: {float(sys.argv[2]):g} min at 48 kHz, {len(written)} taps")

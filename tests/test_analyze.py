@@ -24,12 +24,12 @@ import math
 
 import numpy as np
 import pytest
+from conftest import ringdown_modes, write_wav
 from scipy import integrate, linalg
 
-from conftest import ringdown_modes, write_wav
 from ringdown.analysis.pipeline import analyze, analyze_many
-from ringdown.base.errors import InputError, NoRingdownError, ParameterError
 from ringdown.analysis.results import mode_keys
+from ringdown.base.errors import InputError, NoRingdownError, ParameterError
 
 F_RTOL = 5e-4  # 0.05 %: project brief
 BETA_RTOL = 0.03  # 3 %: project brief
@@ -86,7 +86,7 @@ def impulse_response(state_matrix, *, sample_rate, duration_s, pre_s, struck, ob
     for i in range(n_pre, n_total):
         x[i] = state[observed]
         state = step @ state
-    head = x[n_pre: n_pre + int(0.01 * sample_rate)]
+    head = x[n_pre : n_pre + int(0.01 * sample_rate)]
     sigma = math.sqrt(np.mean(head**2) / 10 ** (snr_db / 10))
     return x + np.random.default_rng(seed).normal(0.0, sigma, n_total)
 
@@ -118,8 +118,7 @@ def test_mass_spring_chain_modes(name, observed):
     zeta_ref = beta_ref / np.hypot(2 * math.pi * f_ref, beta_ref)
     assert np.all((zeta_ref >= 0.002) & (zeta_ref <= 0.02)) and f_ref[0] > 100
     obs = 0 if observed == "first" else len(masses) - 1
-    x = impulse_response(s, sample_rate=fs, duration_s=1.5, pre_s=0.05, struck=0, observed=obs,
-                         snr_db=60.0, seed=7)
+    x = impulse_response(s, sample_rate=fs, duration_s=1.5, pre_s=0.05, struck=0, observed=obs, snr_db=60.0, seed=7)
     a = analyze(x, fs)
     assert_modes_match(a, f_ref, beta_ref)
     # derived quantities follow from (f_d, beta) by the textbook relations (FIELD.md s. 1)
@@ -141,8 +140,7 @@ def test_series_rlc_circuit():
         return [i, -(R * i + q / C) / L]
 
     # the capacitor charged to 1 V discharges through L and R when the switch closes at t = 0
-    sol = integrate.solve_ivp(rhs, (0.0, t[-1]), [C * 1.0, 0.0], method="DOP853", t_eval=t,
-                              rtol=1e-9, atol=1e-15)
+    sol = integrate.solve_ivp(rhs, (0.0, t[-1]), [C * 1.0, 0.0], method="DOP853", t_eval=t, rtol=1e-9, atol=1e-15)
     assert sol.success
     v_c = sol.y[0] / C
     x = np.concatenate([np.zeros(int(round(pre * fs))), v_c])
@@ -294,8 +292,19 @@ MODE_KEYS = {
     "loss_factor", "log_decrement", "decay_db_per_s", "t60_s", "f_r_hz", "amplitude", "snr_db",
     "method", "fit_start_s", "fit_end_s", "cycles_fitted", "warnings", "cross_checks",
 }  # fmt: skip
-RECORD_KEYS = {"path", "sha256", "channel", "unit", "sample_rate_hz", "n_samples", "duration_s", "hits", "modes",
-               "warnings", "error"}
+RECORD_KEYS = {
+    "path",
+    "sha256",
+    "channel",
+    "unit",
+    "sample_rate_hz",
+    "n_samples",
+    "duration_s",
+    "hits",
+    "modes",
+    "warnings",
+    "error",
+}
 HIT_KEYS = {"start_s", "peak_s", "peak_value", "snr_db"}
 
 

@@ -20,8 +20,8 @@ from hypothesis.extra import numpy as hnp
 from typer.testing import CliRunner
 
 from ringdown.analysis.pipeline import analyze
-from ringdown.cli import app
 from ringdown.base.errors import NoRingdownError, RingdownError
+from ringdown.cli import app
 
 FS = 8000
 
@@ -98,9 +98,25 @@ def make_bad(kind, d):
     raise AssertionError(kind)
 
 
-KINDS = ["empty", "not_audio", "truncated_header", "missing", "zeros", "dc", "ten_samples", "white_noise",
-         "text_csv", "nan_csv", "blank_csv", "irregular_time", "header_only_csv", "newlines_csv", "band_above_nyquist",
-         "rate_zero", "rate_negative"]
+KINDS = [
+    "empty",
+    "not_audio",
+    "truncated_header",
+    "missing",
+    "zeros",
+    "dc",
+    "ten_samples",
+    "white_noise",
+    "text_csv",
+    "nan_csv",
+    "blank_csv",
+    "irregular_time",
+    "header_only_csv",
+    "newlines_csv",
+    "band_above_nyquist",
+    "rate_zero",
+    "rate_negative",
+]
 # options that are wrong for every file end the run before any file is read: the message names the
 # option, not a file, and no per-file record is produced
 OPTION_ERRORS = {"band_above_nyquist": False, "rate_zero": True, "rate_negative": True}
@@ -173,12 +189,15 @@ def test_option_error_in_batch(kind, tmp_path):
 # the library boundary: only RingdownError subclasses come out of analyze
 
 arrays = st.one_of(
-    hnp.arrays(np.float64, st.integers(0, 3000),
-               elements=st.floats(allow_nan=True, allow_infinity=True)),
+    hnp.arrays(np.float64, st.integers(0, 3000), elements=st.floats(allow_nan=True, allow_infinity=True)),
     hnp.arrays(np.float64, st.integers(0, 3000), elements=st.floats(-1e-300, 1e-300)),
     st.builds(lambda n, v: np.full(n, v), st.integers(0, 3000), st.floats(-1e6, 1e6)),
-    st.builds(lambda n, s, seed: np.random.default_rng(seed).normal(0, s, n),
-              st.integers(1, 3000), st.floats(1e-30, 1e30), st.integers(0, 2**32 - 1)),
+    st.builds(
+        lambda n, s, seed: np.random.default_rng(seed).normal(0, s, n),
+        st.integers(1, 3000),
+        st.floats(1e-30, 1e30),
+        st.integers(0, 2**32 - 1),
+    ),
 )
 
 

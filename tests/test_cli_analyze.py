@@ -15,8 +15,8 @@ import pytest
 from typer.testing import CliRunner
 
 from ringdown import __version__
-from ringdown.cli import app
 from ringdown.analysis.results import mode_keys
+from ringdown.cli import app
 
 F_REF = (440.0, 1250.0)
 BETA_REF = (12.0, 20.0)
@@ -55,8 +55,18 @@ def test_json_document(two_mode_wav):
     assert doc["tool"] == {"name": "ringdown", "version": __version__}
     assert len(doc["recordings"]) == 1
     rec = doc["recordings"][0]
-    for k in ("path", "sha256", "channel", "sample_rate_hz", "n_samples", "duration_s", "hits", "modes",
-              "warnings", "error"):
+    for k in (
+        "path",
+        "sha256",
+        "channel",
+        "sample_rate_hz",
+        "n_samples",
+        "duration_s",
+        "hits",
+        "modes",
+        "warnings",
+        "error",
+    ):
         assert k in rec
     assert rec["path"] == two_mode_wav and rec["error"] is None and rec["sample_rate_hz"] == 16000
     assert all({"start_s", "peak_s", "peak_value", "snr_db"} <= set(h) for h in rec["hits"])
@@ -123,8 +133,13 @@ def test_two_bands(two_mode_wav):
 
 @pytest.mark.parametrize(
     "text, needle, status",
-    [("x", "--band", 64), ("400-500", "--band", 64), ("400:", "--band", 64), ("500:400", "band", 64),
-     ("9000:9500", "Nyquist", 2)],
+    [
+        ("x", "--band", 64),
+        ("400-500", "--band", 64),
+        ("400:", "--band", 64),
+        ("500:400", "band", 64),
+        ("9000:9500", "Nyquist", 2),
+    ],
 )
 def test_bad_band_text(two_mode_wav, text, needle, status):
     # a band that cannot be parsed is a usage error (64); one above the file's Nyquist is that file's error (2)

@@ -11,12 +11,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 import typer
+from conftest import line_sim as sim  # noqa: E402
 from typer.testing import CliRunner
 
 from ringdown.cli import history as history_cli
 from ringdown.cli import limits as limits_cli
-
-from conftest import line_sim as sim  # noqa: E402
 
 app = typer.Typer()
 limits_cli.register(app)
@@ -60,16 +59,18 @@ def test_learn_refuses_to_overwrite_and_json(line, tmp_path):
     r = runner.invoke(app, ["limits", "learn", *line["good"][:4], "-o", line["limits"], "--jobs", "1"])
     assert r.exit_code == 2 and "--force" in r.stderr
     out = tmp_path / "l.toml"
-    r = runner.invoke(app, ["limits", "learn", *line["good"][:4], "-o", str(out), "--json", "--jobs", "1",
-                            "--coverage", "0.9"])
+    r = runner.invoke(
+        app, ["limits", "learn", *line["good"][:4], "-o", str(out), "--json", "--jobs", "1", "--coverage", "0.9"]
+    )
     assert r.exit_code == 0
     doc = json.loads(r.stdout)
     assert doc["coverage"] == 0.9 and doc["n_parts"] == 4 and len(doc["modes"]) == 3
 
 
 def test_learn_with_a_broken_good_part(line, tmp_path):
-    r = runner.invoke(app, ["limits", "learn", *line["good"][:4], line["broken"], "-o", str(tmp_path / "x.toml"),
-                            "--jobs", "1"])
+    r = runner.invoke(
+        app, ["limits", "learn", *line["good"][:4], line["broken"], "-o", str(tmp_path / "x.toml"), "--jobs", "1"]
+    )
     assert r.exit_code == 2 and "could not be analysed" in r.stderr
 
 
@@ -91,9 +92,28 @@ def test_exit_codes(line, tmp_path):
 def test_json_csv_station_and_part_id(line, tmp_path):
     db = tmp_path / "j.sqlite"
     csv_path = tmp_path / "out.csv"
-    r = run(["check", "--limits", line["limits"], "--jobs", "2", "--json", "--csv", str(csv_path),
-             "--station", "EOL-2", "--operator", "O'Brien", "--part-id", r"SN-(\d+)",
-             line["good"][7], line["crack"], line["broken"]], db)
+    r = run(
+        [
+            "check",
+            "--limits",
+            line["limits"],
+            "--jobs",
+            "2",
+            "--json",
+            "--csv",
+            str(csv_path),
+            "--station",
+            "EOL-2",
+            "--operator",
+            "O'Brien",
+            "--part-id",
+            r"SN-(\d+)",
+            line["good"][7],
+            line["crack"],
+            line["broken"],
+        ],
+        db,
+    )
     assert r.exit_code == 2
     doc = json.loads(r.stdout)  # stdout is pure JSON; the summary went to stderr
     verdicts = {x["part_id"]: x["verdict"] for x in doc["results"]}
@@ -123,19 +143,24 @@ def test_rerun_skips_and_force(line, tmp_path):
 
 def test_env_db_and_no_store(line, tmp_path):
     db = tmp_path / "env.sqlite"
-    r = runner.invoke(app, ["check", "--limits", line["limits"], "--jobs", "1", line["good"][6]],
-                      env={"RINGDOWN_DB": str(db)})
+    r = runner.invoke(
+        app, ["check", "--limits", line["limits"], "--jobs", "1", line["good"][6]], env={"RINGDOWN_DB": str(db)}
+    )
     assert r.exit_code == 0 and db.exists()
     other = tmp_path / "none.sqlite"
-    r = runner.invoke(app, ["check", "--limits", line["limits"], "--jobs", "1", "--no-store", line["good"][6]],
-                      env={"RINGDOWN_DB": str(other)})
+    r = runner.invoke(
+        app,
+        ["check", "--limits", line["limits"], "--jobs", "1", "--no-store", line["good"][6]],
+        env={"RINGDOWN_DB": str(other)},
+    )
     assert r.exit_code == 0 and not other.exists()
 
 
 def test_report(line, tmp_path):
     out = tmp_path / "r.html"
-    r = run(["check", "--limits", line["limits"], "--jobs", "1", "--report", str(out), line["crack"]],
-            tmp_path / "r.sqlite")
+    r = run(
+        ["check", "--limits", line["limits"], "--jobs", "1", "--report", str(out), line["crack"]], tmp_path / "r.sqlite"
+    )
     assert r.exit_code == 1
     html = out.read_text()
     assert "Pass/fail" in html and "SN-0100_crack" in html and "FAIL" in html
@@ -156,8 +181,20 @@ def test_folder_input(line, tmp_path):
 
 def test_history_filters_and_outputs(line, tmp_path):
     db = tmp_path / "h.sqlite"
-    run(["check", "--limits", line["limits"], "--jobs", "1", "--part-id", r"SN-(\d+)",
-         *line["good"][5:], line["crack"]], db)
+    run(
+        [
+            "check",
+            "--limits",
+            line["limits"],
+            "--jobs",
+            "1",
+            "--part-id",
+            r"SN-(\d+)",
+            *line["good"][5:],
+            line["crack"],
+        ],
+        db,
+    )
     r = run(["history"], db)
     assert r.exit_code == 0 and "4 record(s)" in r.stdout and "0100" in r.stdout
     r = run(["history", "--verdict", "fail"], db)

@@ -75,8 +75,16 @@ def test_json_document(files):
     r = CliRunner().invoke(_app(), ["compare", *_args("before", b), *_args("after", a), "--json"])
     assert r.exit_code == 0, r.output
     doc = json.loads(r.stdout)
-    assert set(doc) == {"tool", "settings", "before", "after", "modes", "unmatched_before",
-                        "unmatched_after", "notices"}
+    assert set(doc) == {
+        "tool",
+        "settings",
+        "before",
+        "after",
+        "modes",
+        "unmatched_before",
+        "unmatched_after",
+        "notices",
+    }
     assert doc["settings"]["damping_scale"] == "log_zeta"
     assert doc["settings"]["confidence"] == 0.95 and doc["settings"]["tolerance"] == 0.1
     assert doc["before"]["n_repeats"] == 3 and doc["after"]["n_repeats"] == 3
@@ -94,8 +102,10 @@ def test_json_document(files):
 def test_table_and_patterns(files):
     d, _, _ = files
     # a folder on one side and a quoted pattern on the other
-    r = CliRunner().invoke(_app(), ["compare", "--before", str(d / "before"),
-                                    "--after", str(d / "after" / "a*.wav"), "--confidence", "0.9"])
+    r = CliRunner().invoke(
+        _app(),
+        ["compare", "--before", str(d / "before"), "--after", str(d / "after" / "a*.wav"), "--confidence", "0.9"],
+    )
     assert r.exit_code == 0, r.output
     assert "verdict" in r.stdout and "increased" in r.stdout
     assert "90 % intervals" in r.stdout
@@ -144,8 +154,20 @@ def test_csv_plot_report(files, tmp_path):
     out_csv = tmp_path / "modes.csv"
     out_html = tmp_path / "report.html"
     plot_dir = tmp_path / "plots"
-    r = CliRunner().invoke(_app(), ["compare", *_args("before", b), *_args("after", [str(odd), *a[1:]]),
-                                    "--csv", str(out_csv), "--plot", str(plot_dir), "--report", str(out_html)])
+    r = CliRunner().invoke(
+        _app(),
+        [
+            "compare",
+            *_args("before", b),
+            *_args("after", [str(odd), *a[1:]]),
+            "--csv",
+            str(out_csv),
+            "--plot",
+            str(plot_dir),
+            "--report",
+            str(out_html),
+        ],
+    )
     assert r.exit_code == 0, r.output
     rows = list(csv.DictReader(open(out_csv, newline="")))
     assert [row["status"] for row in rows] == ["matched", "matched"]
@@ -160,8 +182,10 @@ def test_csv_plot_report(files, tmp_path):
 def test_analysis_options_reach_the_analysis(files):
     # --method / --band are passed to every analysis and recorded in the settings
     _, b, a = files
-    r = CliRunner().invoke(_app(), ["compare", *_args("before", b), *_args("after", a), "--json",
-                                    "--method", "envelope", "--band", "400:600"])
+    r = CliRunner().invoke(
+        _app(),
+        ["compare", *_args("before", b), *_args("after", a), "--json", "--method", "envelope", "--band", "400:600"],
+    )
     assert r.exit_code == 0, r.output
     doc = json.loads(r.stdout)
     assert doc["settings"]["analysis_options"]["method"] == "envelope"

@@ -21,8 +21,24 @@ from ringdown.cli.moduli import register
 
 EX = Path(__file__).resolve().parent.parent / "example_signals" / "moduli"
 FLEX, TORS = str(EX / "norvale_flex.wav"), str(EX / "norvale_torsion.wav")
-BAR = ["--length-mm", "120", "--width-mm", "30", "--thickness-mm", "8", "--mass-g", "224.64",
-       "--u-length-mm", "0.02", "--u-width-mm", "0.01", "--u-thickness-mm", "0.005", "--u-mass-g", "0.01"]
+BAR = [
+    "--length-mm",
+    "120",
+    "--width-mm",
+    "30",
+    "--thickness-mm",
+    "8",
+    "--mass-g",
+    "224.64",
+    "--u-length-mm",
+    "0.02",
+    "--u-width-mm",
+    "0.01",
+    "--u-thickness-mm",
+    "0.005",
+    "--u-mass-g",
+    "0.01",
+]
 
 
 def _app() -> typer.Typer:
@@ -73,8 +89,23 @@ def test_bar_json_recovers_the_invented_truth(tmp_path):
 
 def test_rod_from_frequencies_by_hand():
     # rod: G = 16 m f_t^2 L / (pi D^2) exactly; E = 1.6067 (L^3/D^4) m f^2 T1'
-    r = _run("--shape", "rod", "--length-mm", "200", "--diameter-mm", "10", "--mass-g", "42.41",
-             "--flexural-hz", "1126", "--u-flexural-hz", "0.1", "--torsional-hz", "7800", "--json")
+    r = _run(
+        "--shape",
+        "rod",
+        "--length-mm",
+        "200",
+        "--diameter-mm",
+        "10",
+        "--mass-g",
+        "42.41",
+        "--flexural-hz",
+        "1126",
+        "--u-flexural-hz",
+        "0.1",
+        "--torsional-hz",
+        "7800",
+        "--json",
+    )
     assert r.exit_code == 0, r.output
     doc = json.loads(r.stdout)
     g = 16 * 0.04241 * 7800**2 * 0.2 / (math.pi * 0.01**2)
@@ -90,16 +121,19 @@ def test_assumed_poisson_without_torsion():
     assert "Poisson's ratio (given)" in r.stdout and "shear modulus G" in r.stdout
 
 
-@pytest.mark.parametrize("args, message", [
-    (["--length-mm", "-120"], "--length-mm must be a positive number; got -120"),
-    (["--mass-g", "0"], "--mass-g must be a positive number; got 0"),
-    (["--u-width-mm", "-1"], "--u-width-mm must be >= 0; got -1"),
-    (["--shape", "disc"], "--shape must be 'bar' or 'rod'"),
-    (["--diameter-mm", "5"], "--diameter-mm is for --shape rod"),
-    (["--flexural-hz", "2800"], "give the flexural recording FLEX or --flexural-hz, one of the two"),
-    (["--torsional-mode", "9"], "torsional mode 9 is not in"),
-    (["--poisson", "0.8"], "poisson must lie in (-1, 0.5]"),
-])
+@pytest.mark.parametrize(
+    "args, message",
+    [
+        (["--length-mm", "-120"], "--length-mm must be a positive number; got -120"),
+        (["--mass-g", "0"], "--mass-g must be a positive number; got 0"),
+        (["--u-width-mm", "-1"], "--u-width-mm must be >= 0; got -1"),
+        (["--shape", "disc"], "--shape must be 'bar' or 'rod'"),
+        (["--diameter-mm", "5"], "--diameter-mm is for --shape rod"),
+        (["--flexural-hz", "2800"], "give the flexural recording FLEX or --flexural-hz, one of the two"),
+        (["--torsional-mode", "9"], "torsional mode 9 is not in"),
+        (["--poisson", "0.8"], "poisson must lie in (-1, 0.5]"),
+    ],
+)
 def test_bad_input_is_one_line_exit_2(args, message):
     base = dict(zip(BAR[0::2], BAR[1::2]))
     for k, v in zip(args[0::2], args[1::2]):

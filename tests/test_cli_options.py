@@ -18,6 +18,8 @@ import numpy as np
 import pytest
 import soundfile as sf
 import typer
+from conftest import line_sim as sim  # noqa: E402
+from conftest import ringdown_modes  # noqa: E402
 from typer.testing import CliRunner
 
 from ringdown.cli import app
@@ -25,13 +27,14 @@ from ringdown.cli._common import parse_channel
 from ringdown.cli._options import READER_OPTIONS, reader_options
 from ringdown.inspection.limits_file import parse_limits, read_limits
 
-from conftest import ringdown_modes, write_wav  # noqa: E402
-
-from conftest import line_sim as sim  # noqa: E402
-
 runner = CliRunner()
-READING = {"analyze": ("analyze",), "compare": ("compare",), "limits learn": ("limits", "learn"),
-           "check": ("check",), "moduli": ("moduli",)}
+READING = {
+    "analyze": ("analyze",),
+    "compare": ("compare",),
+    "limits learn": ("limits", "learn"),
+    "check": ("check",),
+    "moduli": ("moduli",),
+}
 REPORTING = {"analyze": ("analyze",), "compare": ("compare",), "check": ("check",), "moduli": ("moduli",)}
 
 
@@ -69,8 +72,12 @@ def test_every_windowed_command_takes_the_same_time_window():
         opts = _options(READING[name])
         for flag in ("--start", "--end"):
             assert flag in opts, f"{name} lacks {flag}"
-    sigs = {(p.name, p.help, str(p.display_type)) for name in ("analyze", "compare", "limits learn", "check")
-            for flag in ("--start", "--end") for p in [_options(READING[name])[flag]]}
+    sigs = {
+        (p.name, p.help, str(p.display_type))
+        for name in ("analyze", "compare", "limits learn", "check")
+        for flag in ("--start", "--end")
+        for p in [_options(READING[name])[flag]]
+    }
     assert len(sigs) == 2, sigs  # one definition each for --start and --end
 
 
@@ -97,8 +104,9 @@ def test_channel_value_turns_digits_into_numbers():
 
 
 def test_bad_plot_format_is_refused_before_any_file_is_read(tmp_path):
-    r = runner.invoke(app, ["analyze", str(tmp_path / "missing.wav"), "--plot", str(tmp_path / "p"),
-                            "--plot-format", "jpg"])
+    r = runner.invoke(
+        app, ["analyze", str(tmp_path / "missing.wav"), "--plot", str(tmp_path / "p"), "--plot-format", "jpg"]
+    )
     assert r.exit_code == 64  # a usage error (EX_USAGE), see README "Exit statuses"
     assert "--plot-format must be one of png, svg, pdf; got 'jpg'" in r.stderr
     assert "missing.wav" not in r.stderr  # nothing was read
@@ -197,8 +205,7 @@ def test_jsonl_first_line_arrives_before_the_batch_ends(two_mode_wav, tmp_path):
     # first result must reach the pipe while the batch is still waiting for its second file
     cmd = [sys.executable, "-c", "from ringdown.cli import main; main()", "analyze", "--jsonl", two_mode_wav, "-"]
     env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parents[1])}
-    proc = subprocess.Popen(cmd,
-                            stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env)
+    proc = subprocess.Popen(cmd, stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env)
     try:
         ready, _, _ = select.select([proc.stdout], [], [], 120)
         assert ready, "no line within 120 s"
@@ -240,8 +247,9 @@ def test_limits_keep_the_channel_and_check_uses_it(tmp_path):
     for i in range(5):
         x = sim.synthesize(sim.part_modes(rng, "good"), rng, duration_s=0.5)
         good.append(_stereo(tmp_path / f"g{i}.wav", x, sim.SAMPLE_RATE, on=2))
-    crack = _stereo(tmp_path / "crack.wav", sim.synthesize(sim.part_modes(rng, "crack"), rng, duration_s=0.5),
-                    sim.SAMPLE_RATE, on=2)
+    crack = _stereo(
+        tmp_path / "crack.wav", sim.synthesize(sim.part_modes(rng, "crack"), rng, duration_s=0.5), sim.SAMPLE_RATE, on=2
+    )
     lim = tmp_path / "lim.toml"
     r = runner.invoke(app, ["limits", "learn", *good, "-o", str(lim), "--channel", "2", "--jobs", "1"])
     assert r.exit_code == 0, r.output
@@ -255,15 +263,18 @@ def test_limits_keep_the_channel_and_check_uses_it(tmp_path):
     verdicts = [x["verdict"] for x in json.loads(r.stdout)["results"]]
     assert verdicts == ["pass", "fail"]
     # --channel 1 overrides it: channel 1 holds only noise, so the part cannot be analysed
-    r = runner.invoke(app, ["check", "--limits", str(lim), good[0], "--db", db, "--jobs", "1", "--force",
-                            "--channel", "1", "--json"])
+    r = runner.invoke(
+        app, ["check", "--limits", str(lim), good[0], "--db", db, "--jobs", "1", "--force", "--channel", "1", "--json"]
+    )
     assert r.exit_code == 2 and json.loads(r.stdout)["results"][0]["verdict"] == "error"
 
 
 def test_reader_table_is_checked():
     base = "[[modes]]\nf_hz = [100.0, 110.0]\n"
     assert parse_limits(base + "[reader]\nchannel = 2\nsample_rate = 51200.0\n").reader == {
-        "channel": 2, "sample_rate": 51200.0}
+        "channel": 2,
+        "sample_rate": 51200.0,
+    }
     assert parse_limits(base).reader == {}
     from ringdown.base.errors import LimitsError
 
@@ -278,12 +289,16 @@ def test_check_and_learn_read_standard_input(tmp_path):
     good = sorted(str(p) for p in line.glob("good_0*.wav"))
     lim = tmp_path / "lim.toml"
     # one good part through standard input, the rest as files
-    r = runner.invoke(app, ["limits", "learn", "-", *good[1:], "-o", str(lim), "--jobs", "2"],
-                      input=Path(good[0]).read_bytes())
+    r = runner.invoke(
+        app, ["limits", "learn", "-", *good[1:], "-o", str(lim), "--jobs", "2"], input=Path(good[0]).read_bytes()
+    )
     assert r.exit_code == 0, r.output
     assert "learned limits from 8 good parts" in r.stdout
-    r = runner.invoke(app, ["check", "--limits", str(lim), "-", "--db", str(tmp_path / "h.sqlite"), "--jsonl"],
-                      input=(line / "crack.wav").read_bytes())
+    r = runner.invoke(
+        app,
+        ["check", "--limits", str(lim), "-", "--db", str(tmp_path / "h.sqlite"), "--jsonl"],
+        input=(line / "crack.wav").read_bytes(),
+    )
     assert r.exit_code == 1, r.output  # the cracked part (example_signals/README.md) fails
     (row,) = [json.loads(x) for x in r.stdout.splitlines()]
     assert row["path"] == "-" and row["verdict"] == "fail"

@@ -24,19 +24,26 @@ import typer
 from typer.testing import CliRunner
 
 import ringdown
-from ringdown.inspection.check import iter_check_files
-from ringdown.cli import analyze as analyze_cli
-from ringdown.cli import limits as limits_cli
 from ringdown.base.cluster import ClusterExecutor, connect, iter_results, open_client
 from ringdown.base.errors import ClusterError
+from ringdown.cli import analyze as analyze_cli
+from ringdown.cli import limits as limits_cli
+from ringdown.inspection.check import iter_check_files
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "example_signals"
 LINE = sorted(str(p) for p in (EXAMPLES / "line").glob("*.wav"))
 # One of each kind of example (text, short electrical, gear blanks good and bad, before/after a
 # treatment), plus every good gear blank for learning limits: 14 files.
-FILES = sorted([str(EXAMPLES / "bracket_tap.csv"), str(EXAMPLES / "lc_tank.wav"), *LINE[:9],
-                str(EXAMPLES / "line" / "soft_heat_treat.wav"), str(EXAMPLES / "treatment" / "before_1.wav"),
-                str(EXAMPLES / "treatment" / "after_1.wav")])
+FILES = sorted(
+    [
+        str(EXAMPLES / "bracket_tap.csv"),
+        str(EXAMPLES / "lc_tank.wav"),
+        *LINE[:9],
+        str(EXAMPLES / "line" / "soft_heat_treat.wav"),
+        str(EXAMPLES / "treatment" / "before_1.wav"),
+        str(EXAMPLES / "treatment" / "after_1.wav"),
+    ]
+)
 
 app = typer.Typer()
 app.callback()(lambda: None)  # a group, so that "analyze" is a subcommand as in ringdown's CLI
@@ -112,8 +119,12 @@ def _failed(item, exc):
 def test_any_exception_is_that_items_result(client):
     got = dict(iter_results(client, _boom, [0, 1, 2, 3], on_error=_failed))
     # the local batch's wording (ringdown.base.batch.as_ringdown_error)
-    assert got == {0: 0, 1: 10, 3: 30, 2: ("failed", 2, "internal", "internal error ZeroDivisionError: division by "
-                                                                  "zero in a test task")}
+    assert got == {
+        0: 0,
+        1: 10,
+        3: 30,
+        2: ("failed", 2, "internal", "internal error ZeroDivisionError: division by zero in a test task"),
+    }
 
 
 def _slow(seconds):
@@ -160,8 +171,21 @@ def test_check_on_cluster_matches_local(client, local, tmp_path):
     # the same through the CLI, on the scheduler's address, into a Parquet dataset
     lim_path = tmp_path / "limits.toml"
     ringdown.write_limits(lim, str(lim_path))
-    r = runner.invoke(app, ["check", "--limits", str(lim_path), *parts, "--json", "--no-store", "--scheduler",
-                            client.scheduler.address, "--parquet", str(tmp_path / "ds")])
+    r = runner.invoke(
+        app,
+        [
+            "check",
+            "--limits",
+            str(lim_path),
+            *parts,
+            "--json",
+            "--no-store",
+            "--scheduler",
+            client.scheduler.address,
+            "--parquet",
+            str(tmp_path / "ds"),
+        ],
+    )
     assert r.exit_code == 1, r.output  # failures, no error
     doc = json.loads(r.stdout)
     assert [res["verdict"] for res in doc["results"]] == ["fail", "pass", "pass", "fail"]
@@ -183,25 +207,32 @@ def test_cli_analyze_on_a_scheduler_address(client, local_results):
 def test_cli_scheduler_errors_are_one_line(monkeypatch):
     r = runner.invoke(app, ["analyze", LINE[0], "--scheduler", "local:two"])
     assert r.exit_code == 2
-    assert r.stderr.strip().splitlines() == ["ringdown: error: --scheduler 'local:two': local:N needs a whole number "
-                                             "of worker processes N >= 1 (e.g. local:4)"]
+    assert r.stderr.strip().splitlines() == [
+        "ringdown: error: --scheduler 'local:two': local:N needs a whole number "
+        "of worker processes N >= 1 (e.g. local:4)"
+    ]
     monkeypatch.setattr("ringdown.base.cluster.CONNECT_TIMEOUT_S", 1.0)
     r = runner.invoke(app, ["analyze", LINE[0], "--scheduler", "tcp://127.0.0.1:9"])  # loopback, nothing listens
     assert r.exit_code == 2
     lines = r.stderr.strip().splitlines()
-    assert len(lines) == 1 and lines[0].startswith("ringdown: error: cannot reach a Dask scheduler at "
-                                                   "'tcp://127.0.0.1:9' within 1 s")
+    assert len(lines) == 1 and lines[0].startswith(
+        "ringdown: error: cannot reach a Dask scheduler at 'tcp://127.0.0.1:9' within 1 s"
+    )
     with pytest.raises(ClusterError):
         connect("tcp://127.0.0.1:9")
 
 
 def test_workers_of_another_version_are_refused(client, monkeypatch):
-    monkeypatch.setattr("ringdown.base.cluster.worker_versions", lambda c: {"tcp://worker-a:4000": "0.0.1",
-                                                                      "tcp://worker-b:4000": ringdown.__version__})
+    monkeypatch.setattr(
+        "ringdown.base.cluster.worker_versions",
+        lambda c: {"tcp://worker-a:4000": "0.0.1", "tcp://worker-b:4000": ringdown.__version__},
+    )
     with pytest.raises(ClusterError) as info:
         connect(client.scheduler.address)
-    assert str(info.value) == (f"1 Dask worker(s) run ringdown 0.0.1 (first tcp://worker-a:4000), this process "
-                               f"{ringdown.__version__}; install the same version everywhere so results agree")
+    assert str(info.value) == (
+        f"1 Dask worker(s) run ringdown 0.0.1 (first tcp://worker-a:4000), this process "
+        f"{ringdown.__version__}; install the same version everywhere so results agree"
+    )
 
 
 def _dies_once(marker: str, path: str) -> dict:
@@ -247,6 +278,8 @@ def test_missing_extra_is_one_line(monkeypatch):
     monkeypatch.setitem(sys.modules, "distributed", None)  # as if dask[distributed] were not installed
     r = runner.invoke(app, ["analyze", LINE[0], "--scheduler", "local:1"])
     assert r.exit_code == 2
-    assert r.stderr.strip().splitlines() == ["ringdown: error: --scheduler needs the optional 'cluster' extra "
-                                             "(dask[distributed], pyarrow); install it with: pip install "
-                                             "'ringdown[cluster]'"]
+    assert r.stderr.strip().splitlines() == [
+        "ringdown: error: --scheduler needs the optional 'cluster' extra "
+        "(dask[distributed], pyarrow); install it with: pip install "
+        "'ringdown[cluster]'"
+    ]

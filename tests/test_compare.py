@@ -22,11 +22,10 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import stats
 
-from ringdown.treatment.compare import compare, match_frequencies
-from ringdown.base.errors import InputError, ParameterError
 from ringdown.analysis.quantities import derive
 from ringdown.analysis.results import Analysis, Hit, Mode, Notice
-
+from ringdown.base.errors import InputError, ParameterError
+from ringdown.treatment.compare import compare, match_frequencies
 
 # --------------------------------------------------------------------------------------------
 # Hand-made modes
@@ -41,9 +40,17 @@ def make_mode(f_d_hz, zeta, *, rel_u=0.03, f_u_hz=0.05, warnings=(), index=1):
     f_n = f_d_hz / math.sqrt(1.0 - zeta**2)
     beta = 2.0 * math.pi * zeta * f_n
     d = derive(f_d_hz, beta, f_d_hz_u=f_u_hz, beta_per_s_u=rel_u * beta)
-    return Mode(index=index, derived=d, amplitude=1.0, snr_db=40.0, method="envelope",
-                fit_start_s=0.0, fit_end_s=1.0, cycles_fitted=100.0,
-                warnings=tuple(Notice(c, c) for c in warnings))
+    return Mode(
+        index=index,
+        derived=d,
+        amplitude=1.0,
+        snr_db=40.0,
+        method="envelope",
+        fit_start_s=0.0,
+        fit_end_s=1.0,
+        cycles_fitted=100.0,
+        warnings=tuple(Notice(c, c) for c in warnings),
+    )
 
 
 def make_analysis(hit_modes, *, path="x.wav", sample_rate=48000.0, channel="1", hit_warnings=None):
@@ -51,22 +58,45 @@ def make_analysis(hit_modes, *, path="x.wav", sample_rate=48000.0, channel="1", 
     hits = []
     for k, modes in enumerate(hit_modes):
         hw = () if hit_warnings is None else tuple(Notice(c, c) for c in hit_warnings[k])
-        hits.append(Hit(start_s=float(k), peak_s=k + 0.001, peak_value=0.5, snr_db=50.0,
-                        end_s=k + 1.0, used=True, warnings=hw, modes=tuple(modes)))
+        hits.append(
+            Hit(
+                start_s=float(k),
+                peak_s=k + 0.001,
+                peak_value=0.5,
+                snr_db=50.0,
+                end_s=k + 1.0,
+                used=True,
+                warnings=hw,
+                modes=tuple(modes),
+            )
+        )
     combined = tuple(hit_modes[0]) if hit_modes else ()
-    return Analysis(path=path, sha256=None, channel=channel, sample_rate_hz=sample_rate,
-                    n_samples=48000, hits=tuple(hits), modes=combined)
+    return Analysis(
+        path=path,
+        sha256=None,
+        channel=channel,
+        sample_rate_hz=sample_rate,
+        n_samples=48000,
+        hits=tuple(hits),
+        modes=combined,
+    )
 
 
 def repeats(freqs, zetas, n, rng, *, zeta_scatter=0.05, f_scatter=2e-4, **kw):
     """n hits, each with one mode per (f, zeta), log-normal zeta scatter, normal f scatter."""
     out = []
     for _ in range(n):
-        out.append([
-            make_mode(f * (1.0 + f_scatter * rng.standard_normal()),
-                      z * math.exp(zeta_scatter * rng.standard_normal()), index=i + 1, **kw)
-            for i, (f, z) in enumerate(zip(freqs, zetas))
-        ])
+        out.append(
+            [
+                make_mode(
+                    f * (1.0 + f_scatter * rng.standard_normal()),
+                    z * math.exp(zeta_scatter * rng.standard_normal()),
+                    index=i + 1,
+                    **kw,
+                )
+                for i, (f, z) in enumerate(zip(freqs, zetas))
+            ]
+        )
     return out
 
 
@@ -218,8 +248,16 @@ def test_single_repeats_use_z_interval_from_propagated_uncertainty():
 
 def test_no_uncertainty_gives_not_tested():
     d = derive(500.0, 2 * math.pi * 500.0 * 0.002)  # no uncertainties given
-    mk = lambda: Mode(index=1, derived=d, amplitude=1.0, snr_db=40.0, method="envelope",  # noqa: E731
-                      fit_start_s=0.0, fit_end_s=1.0, cycles_fitted=10.0)
+    mk = lambda: Mode(
+        index=1,
+        derived=d,
+        amplitude=1.0,
+        snr_db=40.0,
+        method="envelope",  # noqa: E731
+        fit_start_s=0.0,
+        fit_end_s=1.0,
+        cycles_fitted=10.0,
+    )
     c = compare([make_analysis([[mk()]])], [make_analysis([[mk()]])])
     assert c.modes[0].damping.verdict == "not tested"
     assert c.modes[0].damping.ratio_low is None
@@ -462,7 +500,7 @@ def test_chain_simulation_is_exact():
     f_true, z_true = chain_truth(A)
     y = chain_tap(A, m, _NoNoise(), noise=0.0)
     start = int(0.05 * FS_CHAIN) + 1
-    x = y[start:start + 900]
+    x = y[start : start + 900]
     L = 300  # pencil parameter between N/3 and N/2 (Sarkar & Pereira 1995)
     H = np.ascontiguousarray(np.lib.stride_tricks.sliding_window_view(x, L + 1))
     V = np.linalg.svd(H, full_matrices=False)[2][:6].T  # 3 real modes: signal subspace of 6

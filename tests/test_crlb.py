@@ -89,8 +89,9 @@ def test_against_finite_difference_fisher(n, fs, a, beta, f, phi, sigma):
     # the conditioning of the 4x4 inverse.
     fisher = _fisher_by_finite_differences(n, fs, (a, beta, f, phi), sigma)
     sd = np.sqrt(np.diag(np.linalg.inv(fisher)))
-    b = crlb_damped_sinusoid(n_samples=n, sample_rate=fs, amplitude=a, beta_per_s=beta, f_hz=f,
-                             phase_rad=phi, noise_sigma=sigma)
+    b = crlb_damped_sinusoid(
+        n_samples=n, sample_rate=fs, amplitude=a, beta_per_s=beta, f_hz=f, phase_rad=phi, noise_sigma=sigma
+    )
     np.testing.assert_allclose([b.amplitude, b.beta_per_s, b.f_hz, b.phase_rad], sd, rtol=1e-5)
     cov = np.linalg.inv(fisher)
     assert b.cov_f_beta == pytest.approx(cov[1, 2], rel=1e-4)
@@ -137,8 +138,9 @@ def test_result_is_frozen_and_serialises():
     ],
 )
 def test_bad_parameters_raise(change, match):
-    kw = dict(n_samples=400, sample_rate=1000.0, amplitude=1.0, beta_per_s=10.0, f_hz=123.0,
-              phase_rad=0.7, noise_sigma=0.1)
+    kw = dict(
+        n_samples=400, sample_rate=1000.0, amplitude=1.0, beta_per_s=10.0, f_hz=123.0, phase_rad=0.7, noise_sigma=0.1
+    )
     kw.update(change)
     with pytest.raises(ParameterError, match=match):
         crlb_damped_sinusoid(**kw)

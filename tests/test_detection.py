@@ -13,13 +13,12 @@ import math
 
 import numpy as np
 import pytest
+from conftest import ringdown_modes
 from scipy import linalg
 
 from ringdown import analyze as _analyze
-from ringdown.base.errors import NoRingdownError
 from ringdown.analysis.results import REJECTION_REASONS
-
-from conftest import ringdown_modes
+from ringdown.base.errors import NoRingdownError
 
 
 @pytest.fixture(autouse=True, params=["spectral", "model"])
@@ -62,8 +61,9 @@ def test_heavily_damped_mode_found_and_measured(f_n, zeta):
 
 def test_q_three_is_fitted_on_the_raw_record():
     f_d, beta = _heavy(2000.0, 0.2)  # Q = 2.5 by 1/(2 zeta)
-    a = analyze(ringdown_modes([(f_d, beta, 1.0, 0.3)], sample_rate=48000.0, duration_s=0.5, snr_db=60.0, seed=2),
-                48000.0)
+    a = analyze(
+        ringdown_modes([(f_d, beta, 1.0, 0.3)], sample_rate=48000.0, duration_s=0.5, snr_db=60.0, seed=2), 48000.0
+    )
     assert [m.fit_path for m in a.modes] == ["raw"]
     assert a.to_dict()["modes"][0]["fit_path"] == "raw"
 
@@ -109,8 +109,9 @@ def test_three_dof_chain_with_local_dashpot():
 def test_fast_decay_next_to_slow_mode():
     # a 5 ms decay (beta = 6.9 / 5 ms: 60 dB in 5 ms) at 1500 Hz beside a slow mode at 1000 Hz
     beta_fast = 6.908 / 5e-3
-    x = ringdown_modes([(1000.0, 3.0, 1.0), (1500.0, beta_fast, 1.0, 0.5)], sample_rate=48000.0,
-                       duration_s=1.0, snr_db=70.0, seed=3)
+    x = ringdown_modes(
+        [(1000.0, 3.0, 1.0), (1500.0, beta_fast, 1.0, 0.5)], sample_rate=48000.0, duration_s=1.0, snr_db=70.0, seed=3
+    )
     a = analyze(x, 48000.0)
     f = sorted(m.f_d_hz for m in a.modes)
     assert len(f) == 2, f
@@ -137,8 +138,7 @@ def test_noise_only_gives_no_mode(kind):
 def test_rejections_are_named_in_warnings_and_json():
     # four clear modes and max_modes = 2: the two weaker ones are named as rejected
     modes = [(400.0, 5.0, 1.0), (900.0, 8.0, 0.5), (1700.0, 10.0, 0.2), (2600.0, 12.0, 0.1)]
-    a = analyze(ringdown_modes(modes, sample_rate=16000.0, duration_s=1.0, snr_db=60.0, seed=4), 16000.0,
-                max_modes=2)
+    a = analyze(ringdown_modes(modes, sample_rate=16000.0, duration_s=1.0, snr_db=60.0, seed=4), 16000.0, max_modes=2)
     assert len(a.modes) == 2
     rej = [r for r in a.rejected if r.reason == "max_modes"]
     assert sorted(round(r.f_hz) for r in rej) == [1700, 2600]
@@ -153,16 +153,24 @@ def test_rejections_are_named_in_warnings_and_json():
 def test_close_pair_one_half_power_bandwidth_apart():
     # two equal modes 1 half-power bandwidth (beta / pi) apart at 40 dB: two modes, beta within 10 %
     beta = 10.0
-    x = ringdown_modes([(1000.0, beta, 1.0), (1000.0 + beta / math.pi, beta, 1.0, 1.0)], sample_rate=8000.0,
-                       duration_s=2.0, snr_db=40.0, seed=3)
+    x = ringdown_modes(
+        [(1000.0, beta, 1.0), (1000.0 + beta / math.pi, beta, 1.0, 1.0)],
+        sample_rate=8000.0,
+        duration_s=2.0,
+        snr_db=40.0,
+        seed=3,
+    )
     a = analyze(x, 8000.0)
     assert len(a.modes) == 2, [m.f_d_hz for m in a.modes]
     for m in a.modes:
         assert m.beta_per_s == pytest.approx(beta, rel=0.10)
 
 
-@pytest.mark.xfail(strict=True, reason="17 of the 20 modes are found by the default search (1045, 1541 and 2273 Hz, "
-                                       "Q 20-40 and 30-38 dB down, are missed) and 18 by the model search")
+@pytest.mark.xfail(
+    strict=True,
+    reason="17 of the 20 modes are found by the default search (1045, 1541 and 2273 Hz, "
+    "Q 20-40 and 30-38 dB down, are missed) and 18 by the model search",
+)
 def test_twenty_modes_40_db_apart():
     rng = np.random.default_rng(1)
     f = np.geomspace(150, 6000, 20)

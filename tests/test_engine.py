@@ -43,7 +43,9 @@ def test_engine_equals_whole_file_on_every_example(path):
     assert _json(analyze_long_file(path)) == _json(analyze_file(path))
 
 
-@pytest.mark.parametrize("name", ["bracket_tap.wav", "line/crack.wav", "treatment/before_1.wav", "lc_tank.wav", "switch_off.wav"])
+@pytest.mark.parametrize(
+    "name", ["bracket_tap.wav", "line/crack.wav", "treatment/before_1.wav", "lc_tank.wav", "switch_off.wav"]
+)
 def test_forced_cuts_agree_with_whole_file_within_uncertainty(name):
     # segments of 4096 samples: the tap's segment is cut where the level is back at the noise,
     # not at the file's end; every mode must agree with the whole-file result within 2 combined u
@@ -168,8 +170,7 @@ def test_paced_source_keeps_real_time():
         slept.append(s)
         now[0] += s
 
-    src = Paced(ArrayBlocks(np.zeros(16_000), 8000.0, block_samples=4000), speed=2.0, clock=lambda: now[0],
-                sleep=sleep)
+    src = Paced(ArrayBlocks(np.zeros(16_000), 8000.0, block_samples=4000), speed=2.0, clock=lambda: now[0], sleep=sleep)
     assert sum(b.samples.shape[0] for b in src) == 16_000
     # 2 s of samples at twice real time: 1 s in all, 0.25 s per block
     assert slept == pytest.approx([0.25] * 4)

@@ -27,7 +27,6 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-
 from conftest import make_parts as _make_parts  # noqa: E402
 
 LIMITS = """\
@@ -43,8 +42,13 @@ FORMULA = ("=", "+", "-", "@", "\t", "\r")
 
 def cli(*args, timeout=120, **kw) -> subprocess.CompletedProcess:
     """The installed command line, in a fresh process."""
-    return subprocess.run([sys.executable, "-c", "from ringdown.cli import main; main()", *map(str, args)],
-                          capture_output=True, text=True, timeout=timeout, **kw)
+    return subprocess.run(
+        [sys.executable, "-c", "from ringdown.cli import main; main()", *map(str, args)],
+        capture_output=True,
+        text=True,
+        timeout=timeout,
+        **kw,
+    )
 
 
 class _Ran:
@@ -69,8 +73,13 @@ def run(*args, cwd=None) -> _Ran:
 
 
 def popen(*args, **kw) -> subprocess.Popen:
-    return subprocess.Popen([sys.executable, "-c", "from ringdown.cli import main; main()", *map(str, args)],
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, **kw)
+    return subprocess.Popen(
+        [sys.executable, "-c", "from ringdown.cli import main; main()", *map(str, args)],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+        **kw,
+    )
 
 
 def make_parts(folder: Path, n: int, *, seed: int = 5, duration_s: float = 0.5, prefix: str = "SN-") -> list[str]:
@@ -215,7 +224,8 @@ def _worker_kill_run(tmp_path, command):
 @pytest.mark.slow
 def test_killed_worker_during_analyze_jobs_2_loses_no_result(tmp_path):
     files, db, killed, rc, out, err = _worker_kill_run(
-        tmp_path, lambda files, db: ("analyze", *files, "--jobs", "2", "--json", "--store", "--db", db))
+        tmp_path, lambda files, db: ("analyze", *files, "--jobs", "2", "--json", "--store", "--db", db)
+    )
     assert killed is not None, "the workers never started"
     assert rc == 0, err  # the killed worker's files were retried in a fresh process
     assert "a worker process died" in err and "run again, each in a fresh process" in err
@@ -229,7 +239,8 @@ def test_killed_worker_during_analyze_jobs_2_loses_no_result(tmp_path):
 @pytest.mark.slow
 def test_killed_worker_during_check_jobs_2_loses_no_result(tmp_path, limits_file):
     files, db, killed, rc, out, err = _worker_kill_run(
-        tmp_path, lambda files, db: ("check", "--limits", limits_file, *files, "--jobs", "2", "--json", "--db", db))
+        tmp_path, lambda files, db: ("check", "--limits", limits_file, *files, "--jobs", "2", "--json", "--db", db)
+    )
     assert killed is not None
     assert rc == 0, err
     assert "a worker process died" in err
@@ -259,7 +270,9 @@ def test_worker_dying_twice_is_reported_for_that_item_only():
 
 @pytest.mark.slow
 def test_sigint_in_check_exits_promptly_with_finished_results_stored_and_written(tmp_path, limits_file):
-    files = make_parts(tmp_path / "many", 40, seed=31, duration_s=1.0)  # enough that a loaded machine cannot finish first
+    files = make_parts(
+        tmp_path / "many", 40, seed=31, duration_s=1.0
+    )  # enough that a loaded machine cannot finish first
     db, out_csv = tmp_path / "h.sqlite", tmp_path / "out.csv"
     proc = popen("check", "--limits", limits_file, *files, "--jobs", "2", "--db", db, "--csv", out_csv)
     assert wait_for_rows(db, 2, proc) >= 2, "no result was stored before the run ended"
@@ -287,8 +300,16 @@ def test_sigint_stops_a_batch_started_with_sigint_ignored(tmp_path):
     # across exec); the batch installs its own handler, so Ctrl-C still stops it
     files = make_parts(tmp_path / "many", 40, seed=43, duration_s=1.0)
     db = tmp_path / "h.sqlite"
-    proc = popen("analyze", *files, "--jobs", "1", "--store", "--db", db,
-                 preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_IGN))
+    proc = popen(
+        "analyze",
+        *files,
+        "--jobs",
+        "1",
+        "--store",
+        "--db",
+        db,
+        preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_IGN),
+    )
     assert wait_for_rows(db, 2, proc) >= 2
     proc.send_signal(signal.SIGINT)
     out, err = proc.communicate(timeout=60)
@@ -298,7 +319,9 @@ def test_sigint_stops_a_batch_started_with_sigint_ignored(tmp_path):
 
 @pytest.mark.slow
 def test_sigint_in_analyze_writes_the_partial_csv(tmp_path):
-    files = make_parts(tmp_path / "many", 40, seed=41, duration_s=1.0)  # enough that a loaded machine cannot finish first
+    files = make_parts(
+        tmp_path / "many", 40, seed=41, duration_s=1.0
+    )  # enough that a loaded machine cannot finish first
     db, out_csv = tmp_path / "h.sqlite", tmp_path / "out.csv"
     proc = popen("analyze", *files, "--jobs", "2", "--store", "--db", db, "--csv", out_csv)
     assert wait_for_rows(db, 2, proc) >= 2
@@ -348,6 +371,7 @@ def _full_disk(limit_bytes: int):
     def pre():
         signal.signal(signal.SIGXFSZ, signal.SIG_IGN)  # writes past the limit fail with EFBIG
         resource.setrlimit(resource.RLIMIT_FSIZE, (limit_bytes, limit_bytes))
+
     return pre
 
 
@@ -367,8 +391,12 @@ def test_limits_learn_on_a_full_disk_leaves_no_empty_file_that_blocks_the_retry(
 def small_fs(path: Path, size: str):
     """A tmpfs of ``size`` mounted at ``path`` (root only; the test skips otherwise)."""
     path.mkdir()
-    if subprocess.run(["mount", "-t", "tmpfs", "-o", f"size={size}", "tmpfs", str(path)],
-                      capture_output=True).returncode != 0:
+    if (
+        subprocess.run(
+            ["mount", "-t", "tmpfs", "-o", f"size={size}", "tmpfs", str(path)], capture_output=True
+        ).returncode
+        != 0
+    ):
         pytest.skip("cannot mount a small file system here (needs root)")
     try:
         yield path
@@ -400,8 +428,21 @@ def test_resumed_check_reports_skipped_parts_in_full(parts, tmp_path, limits_fil
     first = run("check", "--limits", limits_file, *parts, "--db", db, "--json", "--jobs", "1")
     assert first.returncode == 0, first.stderr
     out_csv, report = tmp_path / "out.csv", tmp_path / "r.html"
-    res = run("check", "--limits", limits_file, *parts, "--db", db, "--json", "--csv", out_csv,
-              "--report", report, "--jobs", "1")
+    res = run(
+        "check",
+        "--limits",
+        limits_file,
+        *parts,
+        "--db",
+        db,
+        "--json",
+        "--csv",
+        out_csv,
+        "--report",
+        report,
+        "--jobs",
+        "1",
+    )
     assert res.returncode == 0, res.stderr
     a, b = json.loads(first.stdout)["results"], json.loads(res.stdout)["results"]
     assert all(r["skipped"] for r in b)
@@ -478,8 +519,22 @@ def hostile_parts(tmp_path_factory, parts):
 def test_csv_formula_injection_in_check_history_and_analyze_csv(hostile_parts, tmp_path, limits_file):
     db = tmp_path / "h.sqlite"
     c1, c2, c3 = tmp_path / "check.csv", tmp_path / "history.csv", tmp_path / "analyze.csv"
-    r = run("check", "--limits", limits_file, *hostile_parts, "--db", db, "--csv", c1, "--station", "=1+1",
-            "--operator", "@cmd", "--jobs", "1")
+    r = run(
+        "check",
+        "--limits",
+        limits_file,
+        *hostile_parts,
+        "--db",
+        db,
+        "--csv",
+        c1,
+        "--station",
+        "=1+1",
+        "--operator",
+        "@cmd",
+        "--jobs",
+        "1",
+    )
     assert r.returncode == 0, r.stderr
     assert run("history", "--db", db, "--csv", c2).returncode == 0
     assert run("analyze", *hostile_parts, "--csv", c3, "--jobs", "1").returncode == 0
@@ -566,7 +621,7 @@ def test_corrupt_history_page_is_one_line(parts, tmp_path, limits_file):
     db = _history(tmp_path, parts)
     data = bytearray(db.read_bytes())
     page = 4096
-    data[page: 3 * page] = os.urandom(2 * page)  # pages 2 and 3 (tables and rows) overwritten
+    data[page : 3 * page] = os.urandom(2 * page)  # pages 2 and 3 (tables and rows) overwritten
     db.write_bytes(bytes(data))
     for args in (("history", "--db", db), ("check", "--limits", limits_file, parts[0], "--db", db)):
         r = run(*args)
@@ -591,8 +646,11 @@ def test_dropped_table_in_the_history_is_one_line(parts, tmp_path, limits_file):
     con.execute("DROP TABLE modes")
     con.commit()
     con.close()
-    for args in (("history", "--db", db), ("check", "--limits", limits_file, parts[0], "--db", db),
-                 ("analyze", parts[0], "--store", "--db", db)):
+    for args in (
+        ("history", "--db", db),
+        ("check", "--limits", limits_file, parts[0], "--db", db),
+        ("analyze", parts[0], "--store", "--db", db),
+    ):
         r = run(*args)
         assert r.returncode == 2 and r.stdout == "", r.stderr
         assert_one_line_error(r, "table modes is missing")
@@ -650,18 +708,27 @@ def test_limits_deep_nesting_is_one_line(tmp_path, parts):
     assert_one_line_error(r, "deep.toml")
 
 
-@pytest.mark.parametrize("text, needle", [
-    (LIMITS + '[mahalanobis]\nfeatures = ["ratio_2"]\nmean = [nan]\ncovariance = [[1.0]]\nthreshold = 3.0\n',
-     "finite numbers"),
-    (LIMITS + '[mahalanobis]\nfeatures = ["ratio_2"]\nmean = ["2.8"]\ncovariance = [[1.0]]\nthreshold = 3.0\n',
-     "finite numbers"),
-    (LIMITS + '[mahalanobis]\nfeatures = ["ratio_2"]\nmean = [2.8]\ncovariance = [["x"]]\nthreshold = 3.0\n',
-     "covariance"),
-    (LIMITS.replace("[1480.0, 1520.0]", "[nan, 1520.0]"), "f_hz"),
-    (LIMITS + "[analysis]\nmethod = 3\n", "[analysis] method"),
-    (LIMITS + "[analysis]\nmin_snr = 10\n", "[analysis] has unknown key(s) ['min_snr']"),
-    (LIMITS + "[check]\ntolerence = 0.2\n", "unknown key(s) ['tolerence']"),
-])
+@pytest.mark.parametrize(
+    "text, needle",
+    [
+        (
+            LIMITS + '[mahalanobis]\nfeatures = ["ratio_2"]\nmean = [nan]\ncovariance = [[1.0]]\nthreshold = 3.0\n',
+            "finite numbers",
+        ),
+        (
+            LIMITS + '[mahalanobis]\nfeatures = ["ratio_2"]\nmean = ["2.8"]\ncovariance = [[1.0]]\nthreshold = 3.0\n',
+            "finite numbers",
+        ),
+        (
+            LIMITS + '[mahalanobis]\nfeatures = ["ratio_2"]\nmean = [2.8]\ncovariance = [["x"]]\nthreshold = 3.0\n',
+            "covariance",
+        ),
+        (LIMITS.replace("[1480.0, 1520.0]", "[nan, 1520.0]"), "f_hz"),
+        (LIMITS + "[analysis]\nmethod = 3\n", "[analysis] method"),
+        (LIMITS + "[analysis]\nmin_snr = 10\n", "[analysis] has unknown key(s) ['min_snr']"),
+        (LIMITS + "[check]\ntolerence = 0.2\n", "unknown key(s) ['tolerence']"),
+    ],
+)
 def test_limits_nan_wrong_types_and_bad_analysis_keys_fail_closed(tmp_path, parts, text, needle):
     p = tmp_path / "bad.toml"
     p.write_text(text, encoding="utf-8")
@@ -723,15 +790,18 @@ def test_truncated_wav_is_analysed_with_a_warning(tmp_path, parts):
     assert f"holds {rec['n_samples']}" in msg
 
 
-@pytest.mark.parametrize("args, status", [
-    (("analyze", "--no-such-option", "x.wav"), 64),
-    (("analyze",), 64),
-    (("analyze", "x.wav", "--band", "abc"), 64),
-    (("analyze", "x.wav", "--max-modes", "0"), 64),
-    (("check", "x.wav"), 64),
-    (("history", "--json", "--csv", "x.csv"), 64),
-    (("analyze", "missing.wav"), 2),
-])
+@pytest.mark.parametrize(
+    "args, status",
+    [
+        (("analyze", "--no-such-option", "x.wav"), 64),
+        (("analyze",), 64),
+        (("analyze", "x.wav", "--band", "abc"), 64),
+        (("analyze", "x.wav", "--max-modes", "0"), 64),
+        (("check", "x.wav"), 64),
+        (("history", "--json", "--csv", "x.csv"), 64),
+        (("analyze", "missing.wav"), 2),
+    ],
+)
 def test_usage_errors_exit_64_input_errors_exit_2(args, status, tmp_path):
     r = run(*args, cwd=tmp_path)
     assert r.returncode == status, r.stderr

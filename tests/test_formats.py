@@ -27,10 +27,10 @@ scipy_io = pytest.importorskip("scipy.io")
 from conftest import ringdown_modes  # noqa: E402
 
 from ringdown import analyze_file, read_recording  # noqa: E402
+from ringdown.base.errors import InputError, ParameterError  # noqa: E402
 from ringdown.cli import app  # noqa: E402
 from ringdown.cli._common import expand_inputs, parse_channel  # noqa: E402
 from ringdown.cli.analyze import format_table  # noqa: E402
-from ringdown.base.errors import InputError, ParameterError  # noqa: E402
 from ringdown.io.formats import find_reader  # noqa: E402
 
 FS = 48000.0  # Hz: 1/FS = 2.0833...e-05 s is not exact in UFF's E13.5 increment (see test_uff_rate)
@@ -75,10 +75,23 @@ def write_tdms(path, channels, *, root_props=None):
 def uff58(data, *, id1, fs=FS, func_type=1, unit=UNIT, x=None, spacing=1, abscissa_type=17):
     x = np.arange(len(data)) / fs if x is None else x
     return pyuff.prepare_58(
-        func_type=func_type, id1=id1, data=np.asarray(data), x=x, abscissa_spacing=spacing,
-        ord_data_type=6 if np.iscomplexobj(data) else 4, rsp_node=3, rsp_dir=3, ref_node=1, ref_dir=3,
-        abscissa_spec_data_type=abscissa_type, ordinate_spec_data_type=12, orddenom_spec_data_type=0,
-        z_axis_spec_data_type=0, ordinate_axis_units_lab=unit, abscissa_axis_units_lab="s")
+        func_type=func_type,
+        id1=id1,
+        data=np.asarray(data),
+        x=x,
+        abscissa_spacing=spacing,
+        ord_data_type=6 if np.iscomplexobj(data) else 4,
+        rsp_node=3,
+        rsp_dir=3,
+        ref_node=1,
+        ref_dir=3,
+        abscissa_spec_data_type=abscissa_type,
+        ordinate_spec_data_type=12,
+        orddenom_spec_data_type=0,
+        z_axis_spec_data_type=0,
+        ordinate_axis_units_lab=unit,
+        abscissa_axis_units_lab="s",
+    )
 
 
 def write_uff(path, sets):
@@ -102,8 +115,9 @@ def make(kind, folder, x):
     """The signal ``x`` in one format with its rate and unit; returns (path, channel label)."""
     p = folder / f"sig_{kind}"
     if kind == "tdms":
-        return write_tdms(f"{p}.tdms", [("run1", "accel", x, {"wf_increment": 1 / FS, "unit_string": UNIT})]), \
-            "run1/accel"
+        return write_tdms(
+            f"{p}.tdms", [("run1", "accel", x, {"wf_increment": 1 / FS, "unit_string": UNIT})]
+        ), "run1/accel"
     if kind == "uff":
         return write_uff(f"{p}.uff", [uff58(x, id1="accel pt3 +Z")]), "accel pt3 +Z"
     if kind == "mat5":
@@ -112,10 +126,12 @@ def make(kind, folder, x):
     if kind == "mat73":
         return write_mat73(f"{p}.mat", {"accel": x.reshape(-1, 1), "fs": FS, "accel_unit": UNIT}), "accel"
     if kind == "hdf5":
+
         def build(f):
             d = f.create_group("run1").create_dataset("accel", data=x)
             d.attrs["sample_rate"] = FS
             d.attrs["unit"] = UNIT
+
         return write_h5(f"{p}.h5", build), "run1/accel"
     raise AssertionError(kind)
 
@@ -187,22 +203,28 @@ def test_report_shows_unit(folder, signal, tmp_path):
 @pytest.fixture(scope="module")
 def multi_tdms(folder, signal):
     inc = {"wf_increment": 1 / FS}
-    return write_tdms(folder / "multi.tdms", [
-        ("run1", "accel", signal, {**inc, "unit_string": UNIT}),
-        ("run1", "force", 2 * signal, {**inc, "unit_string": "N"}),
-        ("run2", "accel", 3 * signal, {**inc, "unit_string": UNIT}),
-        ("run2", "mic", 4 * signal, {**inc, "unit_string": "Pa"}),
-    ])
+    return write_tdms(
+        folder / "multi.tdms",
+        [
+            ("run1", "accel", signal, {**inc, "unit_string": UNIT}),
+            ("run1", "force", 2 * signal, {**inc, "unit_string": "N"}),
+            ("run2", "accel", 3 * signal, {**inc, "unit_string": UNIT}),
+            ("run2", "mic", 4 * signal, {**inc, "unit_string": "Pa"}),
+        ],
+    )
 
 
-@pytest.mark.parametrize("choice, label, scale, unit", [
-    (None, "run1/accel", 1, UNIT),
-    ("run1/force", "run1/force", 2, "N"),
-    ("force", "run1/force", 2, "N"),       # plain channel name, unique over the groups
-    ("RUN2/Accel", "run2/accel", 3, UNIT),  # case-insensitive
-    (4, "run2/mic", 4, "Pa"),               # 1-based index over every channel in file order
-    ("3", "run2/accel", 3, UNIT),
-])
+@pytest.mark.parametrize(
+    "choice, label, scale, unit",
+    [
+        (None, "run1/accel", 1, UNIT),
+        ("run1/force", "run1/force", 2, "N"),
+        ("force", "run1/force", 2, "N"),  # plain channel name, unique over the groups
+        ("RUN2/Accel", "run2/accel", 3, UNIT),  # case-insensitive
+        (4, "run2/mic", 4, "Pa"),  # 1-based index over every channel in file order
+        ("3", "run2/accel", 3, UNIT),
+    ],
+)
 def test_tdms_channel_by_name_and_index(multi_tdms, signal, choice, label, scale, unit):
     rec = read_recording(multi_tdms, channel=choice)
     assert rec.channel == label and rec.unit == unit and rec.n_channels == 4
@@ -212,8 +234,11 @@ def test_tdms_channel_by_name_and_index(multi_tdms, signal, choice, label, scale
 def test_tdms_ambiguous_and_unknown_channel(multi_tdms):
     with pytest.raises(ParameterError, match=r"'accel' is ambiguous .* 'run1/accel', 'run2/accel'; give the full name"):
         read_recording(multi_tdms, channel="accel")
-    with pytest.raises(ParameterError, match=r"no channel named 'gyro' in .*multi.tdms'; its channels are "
-                                             r"'run1/accel', 'run1/force', 'run2/accel', 'run2/mic'"):
+    with pytest.raises(
+        ParameterError,
+        match=r"no channel named 'gyro' in .*multi.tdms'; its channels are "
+        r"'run1/accel', 'run1/force', 'run2/accel', 'run2/mic'",
+    ):
         read_recording(multi_tdms, channel="gyro")
     with pytest.raises(ParameterError, match=r"channel 5 is out of range: .* has 4 channels .*; pick 1 to 4"):
         read_recording(multi_tdms, channel=5)
@@ -238,10 +263,13 @@ def test_tdms_rate_from_group_and_missing_rate(folder, signal):
 
 
 def test_tdms_non_numeric_and_index_file(folder, signal):
-    p = write_tdms(folder / "mixed.tdms", [("g", "when", np.array(["a", "b"]), {}),
-                                           ("g", "x", signal, {"wf_increment": 1 / FS})])
+    p = write_tdms(
+        folder / "mixed.tdms", [("g", "when", np.array(["a", "b"]), {}), ("g", "x", signal, {"wf_increment": 1 / FS})]
+    )
     assert read_recording(p).channel == "g/x"  # the default skips the text channel
-    with pytest.raises(InputError, match=r"channel 'g/when' of .* holds .* values, not numbers; pick a numeric channel"):
+    with pytest.raises(
+        InputError, match=r"channel 'g/when' of .* holds .* values, not numbers; pick a numeric channel"
+    ):
         read_recording(p, channel="when")
     # an index file repeats the lead-ins and metadata with the tag "TDSh" instead of "TDSm"
     # (npTDMS documentation, "TDMS index files"); made here from the data file
@@ -286,9 +314,21 @@ def test_uff_refuses_spectra_and_complex(folder, signal):
 
 
 def test_uff_without_dataset_58(folder):
-    d = pyuff.prepare_151(model_name="bracket", description="invented", db_app="none", date_db_created="",
-                          time_db_created="", version_db1=1, version_db2=1, file_type=0, date_db_saved="",
-                          time_db_saved="", program="test", date_db_written="", time_db_written="")
+    d = pyuff.prepare_151(
+        model_name="bracket",
+        description="invented",
+        db_app="none",
+        date_db_created="",
+        time_db_created="",
+        version_db1=1,
+        version_db2=1,
+        file_type=0,
+        date_db_saved="",
+        time_db_saved="",
+        program="test",
+        date_db_written="",
+        time_db_written="",
+    )
     p = write_uff(folder / "only151.uff", [d])
     with pytest.raises(InputError, match=r"holds UFF datasets 151 but no dataset 58"):
         read_recording(p)
@@ -403,16 +443,31 @@ def _broken(kind, folder, signal, how):
 
 
 BROKEN = {
-    "tdms": {"truncated": r"is damaged or truncated \(npTDMS", "junk": r"cannot be read as TDMS",
-             "garbled": r"(damaged or truncated|cannot be read as TDMS)"},
-    "uff": {"truncated": r"(truncated|no complete dataset)", "junk": r"holds no Universal File dataset",
-            "garbled": r"(truncated|no complete dataset|cannot be read)"},
-    "mat5": {"truncated": r"cannot be read as a MATLAB file", "junk": r"cannot be read as a MATLAB file",
-             "garbled": r"cannot be read as a MATLAB file"},
-    "mat73": {"truncated": r"cannot be read as MATLAB v7.3", "junk": r"cannot be read as a MATLAB file",
-              "garbled": r"cannot be read as (a )?MATLAB"},
-    "hdf5": {"truncated": r"cannot be read as HDF5", "junk": r"cannot be read as HDF5",
-             "garbled": r"cannot be read as HDF5"},
+    "tdms": {
+        "truncated": r"is damaged or truncated \(npTDMS",
+        "junk": r"cannot be read as TDMS",
+        "garbled": r"(damaged or truncated|cannot be read as TDMS)",
+    },
+    "uff": {
+        "truncated": r"(truncated|no complete dataset)",
+        "junk": r"holds no Universal File dataset",
+        "garbled": r"(truncated|no complete dataset|cannot be read)",
+    },
+    "mat5": {
+        "truncated": r"cannot be read as a MATLAB file",
+        "junk": r"cannot be read as a MATLAB file",
+        "garbled": r"cannot be read as a MATLAB file",
+    },
+    "mat73": {
+        "truncated": r"cannot be read as MATLAB v7.3",
+        "junk": r"cannot be read as a MATLAB file",
+        "garbled": r"cannot be read as (a )?MATLAB",
+    },
+    "hdf5": {
+        "truncated": r"cannot be read as HDF5",
+        "junk": r"cannot be read as HDF5",
+        "garbled": r"cannot be read as HDF5",
+    },
 }
 
 
@@ -438,8 +493,9 @@ def test_broken_files_are_refused_in_one_line(kind, how, folder, signal):
 def test_missing_library_names_the_extra(folder, signal, monkeypatch):
     path, _ = make("tdms", folder, signal)
     monkeypatch.setitem(sys.modules, "nptdms", None)  # import nptdms now raises ImportError
-    with pytest.raises(InputError, match=re.escape("reading TDMS needs the 'formats' extra: "
-                                                   "pip install 'ringdown[formats]'")):
+    with pytest.raises(
+        InputError, match=re.escape("reading TDMS needs the 'formats' extra: pip install 'ringdown[formats]'")
+    ):
         read_recording(path)
 
 
@@ -495,11 +551,19 @@ def test_limits_learn_keeps_the_channel_for_check(tmp_path):
 
     parts = []
     for k in range(4):
-        x = ringdown_modes([(612.0 * (1 + 1e-3 * k), 11.5, 1.0), (1587.0 * (1 + 1e-3 * k), 22.0, 0.5)],
-                           sample_rate=FS, duration_s=0.3, seed=100 + k)
+        x = ringdown_modes(
+            [(612.0 * (1 + 1e-3 * k), 11.5, 1.0), (1587.0 * (1 + 1e-3 * k), 22.0, 0.5)],
+            sample_rate=FS,
+            duration_s=0.3,
+            seed=100 + k,
+        )
         inc = {"wf_increment": 1 / FS}
-        parts.append(write_tdms(tmp_path / f"good_{k}.tdms", [("p", "force", np.zeros_like(x), inc),
-                                                               ("p", "response", x, {**inc, "unit_string": UNIT})]))
+        parts.append(
+            write_tdms(
+                tmp_path / f"good_{k}.tdms",
+                [("p", "force", np.zeros_like(x), inc), ("p", "response", x, {**inc, "unit_string": UNIT})],
+            )
+        )
     lim = tmp_path / "lim.toml"
     r = CliRunner().invoke(app, ["limits", "learn", *parts[:3], "-o", str(lim), "--channel", "response", "--jobs", "1"])
     assert r.exit_code == 0, r.output
@@ -536,9 +600,10 @@ def test_tdms_daqmx_raw_data_is_scaled(signal, tmp_path):
         "unit_string": (0x20, string("V")),
     }
     meta = util.segment_objects_metadata(
-        util.root_metadata(), util.group_metadata(),
-        daqmx.daqmx_channel_metadata("ai0", counts.size, [2], [daqmx.daqmx_scaler_metadata(0, 3, 0)],
-                                     properties=props))
+        util.root_metadata(),
+        util.group_metadata(),
+        daqmx.daqmx_channel_metadata("ai0", counts.size, [2], [daqmx.daqmx_scaler_metadata(0, 3, 0)], properties=props),
+    )
     f = util.GeneratedFile()
     f.add_segment(daqmx.segment_toc(), meta, counts.tobytes(), binary_data=True)
     path = tmp_path / "daqmx.tdms"
@@ -591,8 +656,9 @@ def test_random_content_after_a_signature_gives_one_line_errors(ext, tmp_path):
 
     from ringdown.base.errors import RingdownError
 
-    @settings(max_examples=25, deadline=None, derandomize=True,
-              suppress_health_check=[HealthCheck.function_scoped_fixture])
+    @settings(
+        max_examples=25, deadline=None, derandomize=True, suppress_health_check=[HealthCheck.function_scoped_fixture]
+    )
     @given(tail=st.binary(min_size=0, max_size=600))
     def check(tail):
         p = tmp_path / f"x.{ext}"
@@ -610,8 +676,11 @@ def test_truncated_tdms_is_refused_quietly(folder, signal, capfd):
     # in its one line and keeps npTDMS's console output off stderr
     p = _broken("tdms", folder, signal, "truncated")
     capfd.readouterr()
-    with pytest.raises(InputError, match=r"is damaged or truncated \(npTDMS: Last segment of file has less data "
-                                         r"than expected\); export or copy the file again"):
+    with pytest.raises(
+        InputError,
+        match=r"is damaged or truncated \(npTDMS: Last segment of file has less data "
+        r"than expected\); export or copy the file again",
+    ):
         read_recording(p)
     out, err = capfd.readouterr()
     assert "nptdms" not in err.lower() and out == ""

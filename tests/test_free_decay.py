@@ -40,8 +40,12 @@ def simulate(accel, drive_w, t_on, t_off, t0, t1, fs, *, state0=(0.0, 0.0), snr_
     t = t0 + np.arange(n) / fs
     y = np.zeros(n)
     period = 2 * math.pi / drive_w
-    kw = dict(method="DOP853", rtol=1e-10, atol=1e-14 * max(abs(s) for s in state0) if any(state0) else 1e-20,
-              max_step=period / 20)
+    kw = dict(
+        method="DOP853",
+        rtol=1e-10,
+        atol=1e-14 * max(abs(s) for s in state0) if any(state0) else 1e-20,
+        max_step=period / 20,
+    )
     state = np.array(state0, dtype=float)  # at rest before min(t0, t_on)
     edges = sorted({min(t0, t_on), t_on, t_off, t1})
     for a, b in zip(edges, edges[1:]):
@@ -98,9 +102,15 @@ def check_free_decay(an, f_d, beta, f_drive, t_switch, kind="switch-off"):
 @pytest.mark.parametrize("startup", [False, True])
 def test_rlc_switched_off(q, detune, startup, request):
     if (q, detune, startup) == (5.0, -0.06, False):
-        request.applymarker(pytest.mark.xfail(strict=True, reason=(
-            "the Q = 5 mode is found and measured, but the 5 ms of drive before the switch-off are "
-            "too short a plateau for condition.free_decay_start: the hit is called an impulse")))
+        request.applymarker(
+            pytest.mark.xfail(
+                strict=True,
+                reason=(
+                    "the Q = 5 mode is found and measured, but the 5 ms of drive before the switch-off are "
+                    "too short a plateau for condition.free_decay_start: the hit is called an impulse"
+                ),
+            )
+        )
     x, fs, f_d, beta, f_drive, t_sw = rlc_record(q, detune, startup)
     an = analyze(x, fs)
     check_free_decay(an, f_d, beta, f_drive, t_sw)
@@ -136,8 +146,15 @@ def test_static_deflection_released():
     t_rel = 0.4
     y = np.full(t.size, 1e-3)
     after = t >= t_rel
-    sol = solve_ivp(lambda tt, s: [s[1], -2 * beta * s[1] - wn**2 * s[0]], (t_rel, t[-1] + 1 / fs), [1e-3, 0.0],
-                    t_eval=t[after], method="DOP853", rtol=1e-10, atol=1e-16)
+    sol = solve_ivp(
+        lambda tt, s: [s[1], -2 * beta * s[1] - wn**2 * s[0]],
+        (t_rel, t[-1] + 1 / fs),
+        [1e-3, 0.0],
+        t_eval=t[after],
+        method="DOP853",
+        rtol=1e-10,
+        atol=1e-16,
+    )
     y[after] = sol.y[0]
     y += np.random.default_rng(3).normal(0.0, 1e-7, t.size)
     an = analyze(y, fs)
@@ -145,11 +162,14 @@ def test_static_deflection_released():
     check_free_decay(an, f_d, beta, f_d, t_rel, kind="release")
 
 
-@pytest.mark.parametrize("q, detune", [
-    (20.0, -0.06),
-    (20.0, 0.0),
-    (100.0, -0.06),
-])
+@pytest.mark.parametrize(
+    "q, detune",
+    [
+        (20.0, -0.06),
+        (20.0, 0.0),
+        (100.0, -0.06),
+    ],
+)
 def test_drive_never_switched_off_is_no_mode(q, detune):
     # the same circuit driven from 2 ms into the record to its end: a steady forced response
     # after the start-up transient, never a free decay; it must not be reported as a mode

@@ -24,18 +24,33 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
+from ringdown.analysis.results import Analysis, results_document
 from ringdown.base.errors import InputError, LimitsError
 from ringdown.inspection.limits_file import parse_limits
 from ringdown.io.outputs import shown
-from ringdown.analysis.results import Analysis, results_document
 
 FORMULA = ("=", "+", "-", "@", "\t", "\r")
 HIDDEN = re.compile("[\x00-\x1f\x7f-\x9f\u061c\u200e\u200f\u2028\u2029\u202a-\u202e\u2066-\u2069\ufeff]")
 
 hostile = st.one_of(
     st.text(min_size=1, max_size=40),
-    st.sampled_from(["=HYPERLINK(\"x\")", "+1", "-1+2", "@SUM(A1)", "\tx", "\rx", "a\nPASS b", "x\u202egnp.wav",
-                     "\u2066x\u2069", "\x1b[31mred", "\x85next", "=\n=", "'quoted"]),
+    st.sampled_from(
+        [
+            '=HYPERLINK("x")',
+            "+1",
+            "-1+2",
+            "@SUM(A1)",
+            "\tx",
+            "\rx",
+            "a\nPASS b",
+            "x\u202egnp.wav",
+            "\u2066x\u2069",
+            "\x1b[31mred",
+            "\x85next",
+            "=\n=",
+            "'quoted",
+        ]
+    ),
     st.builds(lambda a, b: a + b, st.sampled_from(FORMULA), st.text(max_size=10)),
 )
 
@@ -54,25 +69,63 @@ ratio = [2.79, 2.81]
 """
 
 toml_value = st.recursive(
-    st.one_of(st.sampled_from(["nan", "-nan", "inf", "-inf", "+inf", "1e400", "0", "-1", "true", "false",
-                               '"text"', '""', "1979-05-27", "0.5", "3", "1e-320"]),
-              st.floats(allow_nan=False, allow_infinity=False).map(repr),
-              st.text(alphabet=st.characters(blacklist_categories=("Cs",), blacklist_characters='"\\'),
-                      max_size=8).map(lambda s: '"' + s + '"')),
-    lambda inner: st.one_of(st.lists(inner, max_size=4).map(lambda xs: "[" + ", ".join(xs) + "]"),
-                            st.lists(st.tuples(st.sampled_from(["a", "b", "mean"]), inner), max_size=3)
-                            .map(lambda kv: "{" + ", ".join(f"{k} = {v}" for k, v in dict(kv).items()) + "}")),
+    st.one_of(
+        st.sampled_from(
+            [
+                "nan",
+                "-nan",
+                "inf",
+                "-inf",
+                "+inf",
+                "1e400",
+                "0",
+                "-1",
+                "true",
+                "false",
+                '"text"',
+                '""',
+                "1979-05-27",
+                "0.5",
+                "3",
+                "1e-320",
+            ]
+        ),
+        st.floats(allow_nan=False, allow_infinity=False).map(repr),
+        st.text(alphabet=st.characters(blacklist_categories=("Cs",), blacklist_characters='"\\'), max_size=8).map(
+            lambda s: '"' + s + '"'
+        ),
+    ),
+    lambda inner: st.one_of(
+        st.lists(inner, max_size=4).map(lambda xs: "[" + ", ".join(xs) + "]"),
+        st.lists(st.tuples(st.sampled_from(["a", "b", "mean"]), inner), max_size=3).map(
+            lambda kv: "{" + ", ".join(f"{k} = {v}" for k, v in dict(kv).items()) + "}"
+        ),
+    ),
     max_leaves=12,
 )
 
-sections = st.sampled_from([
-    ("[check]", ["tolerance", "max_uniform_shift", "uniform_shift_tolerance", "tolerence"]),
-    ("[[modes]]", ["f_hz", "zeta", "ratio", "f_ref_hz", "index", "stats"]),
-    ("[mahalanobis]", ["features", "mean", "covariance", "threshold", "n_parts", "probability"]),
-    ("[settings]", ["coverage", "confidence", "k_factor", "n_parts", "notes"]),
-    ("[analysis]", ["method", "bands", "max_modes", "min_snr_db", "min_hit_snr_db", "keep_double_hits", "channel",
-                    "sample_rate", "misspelt"]),
-])
+sections = st.sampled_from(
+    [
+        ("[check]", ["tolerance", "max_uniform_shift", "uniform_shift_tolerance", "tolerence"]),
+        ("[[modes]]", ["f_hz", "zeta", "ratio", "f_ref_hz", "index", "stats"]),
+        ("[mahalanobis]", ["features", "mean", "covariance", "threshold", "n_parts", "probability"]),
+        ("[settings]", ["coverage", "confidence", "k_factor", "n_parts", "notes"]),
+        (
+            "[analysis]",
+            [
+                "method",
+                "bands",
+                "max_modes",
+                "min_snr_db",
+                "min_hit_snr_db",
+                "keep_double_hits",
+                "channel",
+                "sample_rate",
+                "misspelt",
+            ],
+        ),
+    ]
+)
 
 
 def _assert_finite_limits(lim) -> None:
@@ -95,8 +148,7 @@ def _assert_finite_limits(lim) -> None:
 
 
 @settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.too_slow])
-@given(edits=st.lists(st.tuples(sections, st.integers(0, 20), toml_value), min_size=1, max_size=4),
-       bom=st.booleans())
+@given(edits=st.lists(st.tuples(sections, st.integers(0, 20), toml_value), min_size=1, max_size=4), bom=st.booleans())
 def test_limits_parser_fuzzed_values_fail_closed(edits, bom):
     text = BASE
     for (head, keys), k, value in edits:
@@ -175,9 +227,18 @@ def test_check_csv_writer_with_hostile_names(tmp_path, part, path, reason):
     from ringdown.inspection.limits_file import parse_limits as parse
 
     lim = parse(BASE)
-    row = {"part_id": part, "path": path, "sha256": None, "verdict": "fail", "skipped": False,
-           "reasons": [{"code": "x", "message": reason}], "notes": [], "features": [],
-           "mahalanobis": -1.5, "uniform_shift": -0.004}
+    row = {
+        "part_id": part,
+        "path": path,
+        "sha256": None,
+        "verdict": "fail",
+        "skipped": False,
+        "reasons": [{"code": "x", "message": reason}],
+        "notes": [],
+        "features": [],
+        "mahalanobis": -1.5,
+        "uniform_shift": -0.004,
+    }
     out = tmp_path / "c.csv"
     _write_csv([row], lim, str(out))
     rows = _read(out)
@@ -194,16 +255,35 @@ def test_history_csv_writer_with_hostile_names(tmp_path, part, station, operator
     from ringdown.cli.history import _write_csv
     from ringdown.inspection.store import StoredResult
 
-    rec = StoredResult(id=1, kind="check", part_id=part, path="p.wav", sha256=None, tested_utc="2026-01-01T00:00:00Z",
-                       station=station, operator=operator, tool_version="0", limits_sha256=None, verdict="pass",
-                       reasons=(), notes=(), mahalanobis=None, uniform_shift=None, error=None, settings={})
+    rec = StoredResult(
+        id=1,
+        kind="check",
+        part_id=part,
+        path="p.wav",
+        sha256=None,
+        tested_utc="2026-01-01T00:00:00Z",
+        station=station,
+        operator=operator,
+        tool_version="0",
+        limits_sha256=None,
+        verdict="pass",
+        reasons=(),
+        notes=(),
+        mahalanobis=None,
+        uniform_shift=None,
+        error=None,
+        settings={},
+    )
     out = tmp_path / "h.csv"
     _write_csv([rec], str(out))
     rows = _read(out)
     assert len(rows) == 2
     _safe_cells(rows)
-    assert [rows[1][2], rows[1][6], rows[1][7]] == [_expected_cell(part), _expected_cell(station),
-                                                     _expected_cell(operator)]
+    assert [rows[1][2], rows[1][6], rows[1][7]] == [
+        _expected_cell(part),
+        _expected_cell(station),
+        _expected_cell(operator),
+    ]
 
 
 @settings(max_examples=150, deadline=None)
@@ -219,9 +299,15 @@ def test_json_writer_keeps_hostile_names_exactly_in_ascii(names):
     assert [r["path"] for r in json.loads(text)["recordings"]] == names
 
 
-@pytest.mark.parametrize("text, want", [
-    ("a\nb", "a\\nb"), ("x\u202ey", "x\\u202ey"), ("\x1b[31m", "\\x1b[31m"), ("tab\there", "tab\\there"),
-    ("plain ü ñ 中", "plain ü ñ 中"),
-])
+@pytest.mark.parametrize(
+    "text, want",
+    [
+        ("a\nb", "a\\nb"),
+        ("x\u202ey", "x\\u202ey"),
+        ("\x1b[31m", "\\x1b[31m"),
+        ("tab\there", "tab\\there"),
+        ("plain ü ñ 中", "plain ü ñ 中"),
+    ],
+)
 def test_shown_escapes_control_and_bidi_only(text, want):
     assert shown(text) == want

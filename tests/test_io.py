@@ -215,10 +215,19 @@ def test_space_separated_with_units(tmp_path):
     np.testing.assert_allclose(rec.sample_rate, FS, rtol=1e-12)
 
 
-@pytest.mark.parametrize("header,per_second", [
-    ("Time [ms]", 1e3), ("t_us", 1e6), ("t [µs]", 1e6), ("time (s)", 1.0), ("t/ms", 1e3),
-    ("Zeit in ms", 1e3), ("TIME_NS", 1e9), ("t", 1.0),
-])
+@pytest.mark.parametrize(
+    "header,per_second",
+    [
+        ("Time [ms]", 1e3),
+        ("t_us", 1e6),
+        ("t [µs]", 1e6),
+        ("time (s)", 1.0),
+        ("t/ms", 1e3),
+        ("Zeit in ms", 1e3),
+        ("TIME_NS", 1e9),
+        ("t", 1.0),
+    ],
+)
 def test_time_units_from_header(tmp_path, header, per_second):
     # SI prefixes: ms = 1e-3 s, us = 1e-6 s, ns = 1e-9 s
     x = ringdown_signal()
@@ -359,8 +368,7 @@ def test_non_increasing_time_rejected(tmp_path):
 def test_latin1_and_trailing_delimiter(tmp_path):
     x = ringdown_signal()
     rows = "\n".join(f"{r(a)};{r(b)};" for a, b in zip(np.arange(N) * 1e6 / FS, x))
-    path = write_text(tmp_path / "latin.csv", "Zeit [µs];Kraft [N];\n" + rows + "\n",
-                      encoding="latin-1")
+    path = write_text(tmp_path / "latin.csv", "Zeit [µs];Kraft [N];\n" + rows + "\n", encoding="latin-1")
     rec = read_recording(path)
     assert rec.channel == "Kraft [N]"
     np.testing.assert_allclose(rec.sample_rate, FS, rtol=1e-9)
@@ -518,11 +526,12 @@ def test_channel_out_of_range(tmp_path):
 def test_column_errors(tmp_path):
     rows = "\n".join(f"{k / FS!r},{r(v)},{r(v)}" for k, v in enumerate(ringdown_signal()))
     path = write_text(tmp_path / "cols.csv", "time,a,b\n" + rows + "\n")
-    with pytest.raises(ParameterError, match=r"column 3 is out of range: " + name_re(path)
-                       + r" has 2 data columns \(not counting the time column\)"):
+    with pytest.raises(
+        ParameterError,
+        match=r"column 3 is out of range: " + name_re(path) + r" has 2 data columns \(not counting the time column\)",
+    ):
         read_recording(path, column=3)
-    with pytest.raises(ParameterError, match="no column named 'c' in " + name_re(path)
-                       + ".*'a', 'b'"):
+    with pytest.raises(ParameterError, match="no column named 'c' in " + name_re(path) + ".*'a', 'b'"):
         read_recording(path, column="c")
     with pytest.raises(ParameterError, match="'Time' is the time column of " + name_re(path)):
         read_recording(path, column="Time")
@@ -577,11 +586,12 @@ def test_bad_max_bytes(tmp_path, bad):
 
 _CELL = st.one_of(
     st.floats(allow_nan=True, allow_infinity=True).map(repr),
-    st.integers(-10**6, 10**6).map(str),
+    st.integers(-(10**6), 10**6).map(str),
     st.sampled_from(["", " ", "time", "t [ms]", "nan", "1,5", "#", "%", "//", '"', "µs", "x"]),
 )
 _ROW = st.lists(_CELL, max_size=4).flatmap(
-    lambda cells: st.sampled_from([",", ";", "\t", " ", "  "]).map(lambda d: d.join(cells)))
+    lambda cells: st.sampled_from([",", ";", "\t", " ", "  "]).map(lambda d: d.join(cells))
+)
 _STRUCTURED = st.lists(_ROW, max_size=120).map("\n".join)
 
 

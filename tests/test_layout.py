@@ -62,12 +62,20 @@ def _targets(path: Path, root: Path) -> list[tuple[int, str]]:
                 mod = node.module or ""
             # `from . import plots`: the names may be modules themselves
             subs = [f"{mod}.{a.name}" for a in node.names]
-            modules = [s for s in subs if (root.parent / Path(*s.split("."))).with_suffix(".py").exists()
-                       or (root.parent / Path(*s.split("."))).is_dir()]
+            modules = [
+                s
+                for s in subs
+                if (root.parent / Path(*s.split("."))).with_suffix(".py").exists()
+                or (root.parent / Path(*s.split("."))).is_dir()
+            ]
             found += [(node.lineno, s) for s in modules] if modules else [(node.lineno, mod)]
-        elif (isinstance(node, ast.Call) and node.args and isinstance(node.args[0], ast.Constant)
-              and isinstance(node.args[0].value, str)
-              and getattr(node.func, "attr", getattr(node.func, "id", "")) in ("import_module", "lazy_module")):
+        elif (
+            isinstance(node, ast.Call)
+            and node.args
+            and isinstance(node.args[0], ast.Constant)
+            and isinstance(node.args[0].value, str)
+            and getattr(node.func, "attr", getattr(node.func, "id", "")) in ("import_module", "lazy_module")
+        ):
             found.append((node.lineno, node.args[0].value))
     return [(line, mod) for line, mod in found if mod == "ringdown" or mod.startswith("ringdown.")]
 
@@ -88,9 +96,7 @@ def import_violations(root: Path = PACKAGE) -> list[str]:
         assert src_room in RANKS, f"{path}: a module outside the rooms; add its room to RANKS"
         for line, target in _targets(path, root):
             dst_room = _room(target)
-            ok = dst_room is not None and (
-                dst_room in (src_room, "_version") or RANKS[dst_room] < RANKS[src_room]
-            )
+            ok = dst_room is not None and (dst_room in (src_room, "_version") or RANKS[dst_room] < RANKS[src_room])
             if not ok and (source, target) not in EXEMPT:
                 bad.append(f"{path.relative_to(root.parent)}:{line}: {source} -> {target}")
     return bad
@@ -116,18 +122,21 @@ def test_the_check_sees_the_package_imports():
     assert "ringdown.render.plots" in render_cli  # `from ..render import plots`
 
 
-@pytest.mark.parametrize("room_file, planted", [
-    # a lazy import inside a function, upward from analysis to render
-    ("analysis/results.py", "\n\ndef _planted():\n    from ..render import plots\n    return plots\n"),
-    # a top-level absolute import, upward from io to analysis
-    ("io/recording.py", "\nimport ringdown.analysis.pipeline\n"),
-    # one use room importing another
-    ("inspection/check.py", "\nfrom ..treatment.compare import compare as _c\n"),
-    # a room importing the package root (which imports every room)
-    ("base/numfmt.py", "\nfrom .. import analyze as _a\n"),
-    # a string handed to importlib
-    ("io/read.py", "\nimport importlib\n_m = importlib.import_module('ringdown.cli.analyze')\n"),
-])
+@pytest.mark.parametrize(
+    "room_file, planted",
+    [
+        # a lazy import inside a function, upward from analysis to render
+        ("analysis/results.py", "\n\ndef _planted():\n    from ..render import plots\n    return plots\n"),
+        # a top-level absolute import, upward from io to analysis
+        ("io/recording.py", "\nimport ringdown.analysis.pipeline\n"),
+        # one use room importing another
+        ("inspection/check.py", "\nfrom ..treatment.compare import compare as _c\n"),
+        # a room importing the package root (which imports every room)
+        ("base/numfmt.py", "\nfrom .. import analyze as _a\n"),
+        # a string handed to importlib
+        ("io/read.py", "\nimport importlib\n_m = importlib.import_module('ringdown.cli.analyze')\n"),
+    ],
+)
 def test_a_planted_upward_import_fails(tmp_path, room_file, planted):
     copy = tmp_path / "ringdown"
     shutil.copytree(PACKAGE, copy, ignore=shutil.ignore_patterns("__pycache__"))

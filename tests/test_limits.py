@@ -10,20 +10,19 @@ from dataclasses import replace
 
 import numpy as np
 import pytest
+from conftest import line_sim as sim  # noqa: E402
 from numpy.testing import assert_allclose
 from scipy.spatial.distance import mahalanobis as scipy_mahalanobis
 
 from ringdown.analysis.pipeline import analyze as rd_analyze
-from ringdown.inspection.check import check
+from ringdown.analysis.quantities import derive
+from ringdown.analysis.results import Analysis, Mode
 from ringdown.base.errors import LimitsError, ParameterError
+from ringdown.inspection.check import check
 from ringdown.inspection.learning import learn_limits
 from ringdown.inspection.limits import Limits, MahalanobisLimits, ModeLimits
 from ringdown.inspection.limits_file import limits_to_toml, parse_limits, read_limits, write_limits
-from ringdown.analysis.quantities import derive
-from ringdown.analysis.results import Analysis, Mode
 from ringdown.inspection.tolerance import tolerance_k
-
-from conftest import line_sim as sim  # noqa: E402
 
 FS = sim.SAMPLE_RATE
 
@@ -49,8 +48,16 @@ def limits(population):
 
 def hand_mode(index, f_d, zeta, amplitude=0.1):
     f_n = f_d / math.sqrt(1 - zeta**2)
-    return Mode(index=index, derived=derive(f_d, 2 * math.pi * f_n * zeta), amplitude=amplitude, snr_db=40.0,
-                method="envelope", fit_start_s=0.0, fit_end_s=0.3, cycles_fitted=100.0)
+    return Mode(
+        index=index,
+        derived=derive(f_d, 2 * math.pi * f_n * zeta),
+        amplitude=amplitude,
+        snr_db=40.0,
+        method="envelope",
+        fit_start_s=0.0,
+        fit_end_s=0.3,
+        cycles_fitted=100.0,
+    )
 
 
 def hand_analysis(modes, path="part.wav"):
@@ -74,8 +81,11 @@ def test_learned_limits_structure(limits, population):
     assert_allclose([m.f_ref_hz for m in limits.modes], nominal, rtol=1e-3)
     # Windows are mean +- k sd of the parts' own values (ISO 16269-6 form).
     f1 = np.array([a.modes[0].f_d_hz for a in good])
-    assert_allclose(limits.modes[0].f_hz, (f1.mean() - limits.k_factor * f1.std(ddof=1),
-                                           f1.mean() + limits.k_factor * f1.std(ddof=1)), rtol=1e-12)
+    assert_allclose(
+        limits.modes[0].f_hz,
+        (f1.mean() - limits.k_factor * f1.std(ddof=1), f1.mean() + limits.k_factor * f1.std(ddof=1)),
+        rtol=1e-12,
+    )
     # Damping learned in log(zeta): the window is geometric about the geometric mean.
     z1 = np.log([a.modes[0].zeta for a in good])
     lo, hi = limits.modes[0].zeta
@@ -154,7 +164,9 @@ def test_wrong_heat_treatment_fails(limits, population):
     assert "shift_too_large" in codes and "zeta_above" in codes
     # all stiffness x 0.97 -> every frequency x sqrt(0.97) = -1.51 % (exact for the chain model)
     assert_allclose(r.uniform_shift, math.sqrt(0.97) - 1, atol=0.003)
-    assert any(re_match(r"mode 1 at [0-9.]+ Hz is below its window [0-9.]+ to [0-9.]+ Hz", n.message) for n in r.reasons)
+    assert any(
+        re_match(r"mode 1 at [0-9.]+ Hz is below its window [0-9.]+ to [0-9.]+ Hz", n.message) for n in r.reasons
+    )
 
 
 def test_warm_good_part_passes_on_ratios_and_says_why(limits, population):
@@ -177,8 +189,9 @@ def test_warm_part_fails_without_ratio_windows(limits, population):
 
 
 def test_missing_mode_and_extra_mode():
-    lim = parse_limits("[[modes]]\nf_hz = [990.0, 1010.0]\n[[modes]]\nf_hz = [2790.0, 2810.0]\n"
-                       "[[modes]]\nf_hz = [5390.0, 5410.0]\n")
+    lim = parse_limits(
+        "[[modes]]\nf_hz = [990.0, 1010.0]\n[[modes]]\nf_hz = [2790.0, 2810.0]\n[[modes]]\nf_hz = [5390.0, 5410.0]\n"
+    )
     r = check(hand_analysis([(1000.0, 1e-3, 0.5), (2800.0, 1e-3, 0.3), (4000.0, 1e-3, 0.2)]), lim)
     assert r.verdict == "fail"
     assert [n.message for n in r.reasons] == ["mode 3 missing (no mode within 10 % of 5400.0 Hz)"]
@@ -211,11 +224,18 @@ def test_error_analysis_is_error():
 def test_mahalanobis_catches_a_broken_pattern():
     # Two strongly correlated features; a part inside both windows but against the correlation.
     cov = ((1e-6, 0.95e-6), (0.95e-6, 1e-6))
-    maha = MahalanobisLimits(features=("ratio_2", "log_zeta_1"), mean=(2.8, math.log(1e-3)), covariance=cov,
-                             threshold=4.0, n_parts=40, probability=0.99)
-    lim = Limits(modes=(ModeLimits(1, 1000.0, (990.0, 1010.0)), ModeLimits(2, 2800.0, (2700.0, 2900.0),
-                                                                           ratio=(2.797, 2.803))),
-                 mahalanobis=maha)
+    maha = MahalanobisLimits(
+        features=("ratio_2", "log_zeta_1"),
+        mean=(2.8, math.log(1e-3)),
+        covariance=cov,
+        threshold=4.0,
+        n_parts=40,
+        probability=0.99,
+    )
+    lim = Limits(
+        modes=(ModeLimits(1, 1000.0, (990.0, 1010.0)), ModeLimits(2, 2800.0, (2700.0, 2900.0), ratio=(2.797, 2.803))),
+        mahalanobis=maha,
+    )
     a = hand_analysis([(1000.0, 1e-3 * math.exp(-0.002)), (2802.0, 1e-3)])
     r = check(a, lim)
     # Exact reference: scipy.spatial.distance.mahalanobis with the inverse covariance.
@@ -269,22 +289,31 @@ def test_strings_with_quotes_survive(tmp_path):
     assert back.parts == (('a "quoted"\\name.wav', "ab"),)
 
 
-@pytest.mark.parametrize("text,match", [
-    ("", "no \\[\\[modes\\]\\]"),
-    ("[[modes]]\nf_hz = [1765.0, 1720.0]\n", "modes\\[1\\].f_hz .* lo < hi"),
-    ("[[modes]]\nf_hz = 1720.0\n", "modes\\[1\\].f_hz must be a pair"),
-    ("[[modes]]\nzeta = [0.1, 0.2]\n", "modes\\[1\\] needs f_hz"),
-    ("[[modes]]\nf_hz = [1.0, 2.0]\nratio = [1.0, 2.0]\n", "ratio given for the first mode"),
-    ("[[modes]]\nf_hz = [1.0, 2.0]\nfreq = 3\n", "unknown key"),
-    ("[[modes]]\nf_hz = [5.0, 6.0]\n[[modes]]\nf_hz = [1.0, 2.0]\n", "ascending"),
-    ("format_version = 99\n[[modes]]\nf_hz = [1.0, 2.0]\n", "newer"),
-    ("[check]\ntolerance = 2\n[[modes]]\nf_hz = [1.0, 2.0]\n", "check.tolerance"),
-    ("[[modes]\n", "not valid TOML"),
-    ("[[modes]]\nf_hz = [1.0, 2.0]\n[mahalanobis]\nfeatures = ['ratio_9']\nmean = [1.0]\n"
-     "covariance = [[1.0]]\nthreshold = 3.0\n", "mahalanobis.features"),
-    ("[[modes]]\nf_hz = [1.0, 2.0]\n[mahalanobis]\nfeatures = ['log_zeta_1']\nmean = [1.0]\n"
-     "covariance = [[-1.0]]\nthreshold = 3.0\n", "positive definite"),
-])
+@pytest.mark.parametrize(
+    "text,match",
+    [
+        ("", "no \\[\\[modes\\]\\]"),
+        ("[[modes]]\nf_hz = [1765.0, 1720.0]\n", "modes\\[1\\].f_hz .* lo < hi"),
+        ("[[modes]]\nf_hz = 1720.0\n", "modes\\[1\\].f_hz must be a pair"),
+        ("[[modes]]\nzeta = [0.1, 0.2]\n", "modes\\[1\\] needs f_hz"),
+        ("[[modes]]\nf_hz = [1.0, 2.0]\nratio = [1.0, 2.0]\n", "ratio given for the first mode"),
+        ("[[modes]]\nf_hz = [1.0, 2.0]\nfreq = 3\n", "unknown key"),
+        ("[[modes]]\nf_hz = [5.0, 6.0]\n[[modes]]\nf_hz = [1.0, 2.0]\n", "ascending"),
+        ("format_version = 99\n[[modes]]\nf_hz = [1.0, 2.0]\n", "newer"),
+        ("[check]\ntolerance = 2\n[[modes]]\nf_hz = [1.0, 2.0]\n", "check.tolerance"),
+        ("[[modes]\n", "not valid TOML"),
+        (
+            "[[modes]]\nf_hz = [1.0, 2.0]\n[mahalanobis]\nfeatures = ['ratio_9']\nmean = [1.0]\n"
+            "covariance = [[1.0]]\nthreshold = 3.0\n",
+            "mahalanobis.features",
+        ),
+        (
+            "[[modes]]\nf_hz = [1.0, 2.0]\n[mahalanobis]\nfeatures = ['log_zeta_1']\nmean = [1.0]\n"
+            "covariance = [[-1.0]]\nthreshold = 3.0\n",
+            "positive definite",
+        ),
+    ],
+)
 def test_malformed_limits(text, match):
     with pytest.raises(LimitsError, match="limits file 'bad.toml'.*" + match):
         parse_limits(text, source="bad.toml")

@@ -52,8 +52,23 @@ def test_replay_through_listen_gives_the_verdicts_of_check(line_limits, tmp_path
     by_path = {c["path"]: c["verdict"] for c in checked}
     expected = [by_path[p] for p in LINE]
     assert "fail" in expected and "pass" in expected  # the line holds both kinds of part
-    r = runner.invoke(app, ["listen", "--replay", str(session), "--speed", "0", "--limits", line_limits,
-                            "--jsonl", "--save-dir", str(tmp_path / "taps"), "--part-id", "B7-{n:03d}"])
+    r = runner.invoke(
+        app,
+        [
+            "listen",
+            "--replay",
+            str(session),
+            "--speed",
+            "0",
+            "--limits",
+            line_limits,
+            "--jsonl",
+            "--save-dir",
+            str(tmp_path / "taps"),
+            "--part-id",
+            "B7-{n:03d}",
+        ],
+    )
     assert r.exit_code == 0, r.output
     taps = [json.loads(line) for line in r.stdout.splitlines() if line.startswith("{")]
     assert [t["verdict"] for t in taps] == expected
@@ -74,8 +89,27 @@ def test_listen_stores_each_part_with_station_and_operator(line_limits, tmp_path
     session = tmp_path / "session.wav"
     _session(session, LINE[:3])
     db = tmp_path / "h.sqlite"
-    r = runner.invoke(app, ["listen", "--replay", str(session), "--speed", "0", "--limits", line_limits, "--store",
-                            "--db", str(db), "--station", "EOL-2", "--operator", "kim", "--first", "40"])
+    r = runner.invoke(
+        app,
+        [
+            "listen",
+            "--replay",
+            str(session),
+            "--speed",
+            "0",
+            "--limits",
+            line_limits,
+            "--store",
+            "--db",
+            str(db),
+            "--station",
+            "EOL-2",
+            "--operator",
+            "kim",
+            "--first",
+            "40",
+        ],
+    )
     assert r.exit_code == 0, r.output
     from ringdown.inspection.store import ResultStore
 
@@ -163,10 +197,15 @@ def test_ctrl_c_ends_a_session_cleanly_with_its_summary(tmp_path):
     import signal
     import subprocess
     import sys
+
     session = tmp_path / "session.wav"
     _session(session, LINE[1:6])  # 10 s at real time
-    p = subprocess.Popen([sys.executable, "-c", "from ringdown.cli import main; main()", "listen", "--replay",
-                          str(session)], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    p = subprocess.Popen(
+        [sys.executable, "-c", "from ringdown.cli import main; main()", "listen", "--replay", str(session)],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
     first = p.stdout.readline()  # the first tap is out: the session is running
     assert first.startswith("tap 1 ")
     p.send_signal(signal.SIGINT)

@@ -51,13 +51,26 @@ def virtual_card(tmp_path):
         pytest.skip(why)
     run = tmp_path / "pulse"
     run.mkdir()
-    env = dict(os.environ, PULSE_RUNTIME_PATH=str(run), PULSE_STATE_PATH=str(run), XDG_RUNTIME_DIR=str(run),
-               HOME=str(tmp_path))
+    env = dict(
+        os.environ, PULSE_RUNTIME_PATH=str(run), PULSE_STATE_PATH=str(run), XDG_RUNTIME_DIR=str(run), HOME=str(tmp_path)
+    )
     env.pop("PULSE_SERVER", None)
     server = subprocess.Popen(
-        ["pulseaudio", "--daemonize=no", "--exit-idle-time=-1", "--disallow-exit", "-n", "--use-pid-file=no",
-         "--load=module-native-protocol-unix", f"--load=module-null-sink sink_name={SINK} rate=48000",
-         "--log-target=stderr"], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+        [
+            "pulseaudio",
+            "--daemonize=no",
+            "--exit-idle-time=-1",
+            "--disallow-exit",
+            "-n",
+            "--use-pid-file=no",
+            "--load=module-native-protocol-unix",
+            f"--load=module-null-sink sink_name={SINK} rate=48000",
+            "--log-target=stderr",
+        ],
+        env=env,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+    )
     try:
         for _ in range(50):
             if subprocess.run(["pactl", "info"], env=env, capture_output=True).returncode == 0:
@@ -89,13 +102,30 @@ def test_listen_through_portaudio_gives_the_verdicts_of_check(virtual_card, tmp_
     expected = {json.loads(x)["path"]: json.loads(x)["verdict"] for x in r.stdout.splitlines() if x.startswith("{")}
     session = tmp_path / "session.wav"
     _session(session, parts, gap_s=1.5)
-    devices = subprocess.run([*CLI, "listen", "--list-devices"], env=env,
-                             capture_output=True, text=True)
+    devices = subprocess.run([*CLI, "listen", "--list-devices"], env=env, capture_output=True, text=True)
     if "pulse" not in devices.stdout:
         pytest.skip(f"PortAudio sees no 'pulse' device: {devices.stdout.strip()} {devices.stderr.strip()}")
     listen = subprocess.Popen(
-        [*CLI, "listen", "--device", "pulse", "--sample-rate", "48000", "--duration", "10", "--jsonl", "--limits", str(lim), "--save-dir", str(tmp_path / "taps")],
-        env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+        [
+            *CLI,
+            "listen",
+            "--device",
+            "pulse",
+            "--sample-rate",
+            "48000",
+            "--duration",
+            "10",
+            "--jsonl",
+            "--limits",
+            str(lim),
+            "--save-dir",
+            str(tmp_path / "taps"),
+        ],
+        env=env,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
     ready = listen.stderr.readline()  # the stream delivers samples before the first tap plays
     assert "listening: input 'pulse' at 48000 Hz" in ready, ready
     subprocess.run(["paplay", f"--device={SINK}", str(session)], env=env, check=True, timeout=30)

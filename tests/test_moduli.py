@@ -27,8 +27,8 @@ from scipy.optimize import brentq
 
 import ringdown
 from ringdown import CylindricalRod, ParameterError, RectangularBar, derive, moduli
-from ringdown.materials.moduli import r_bar, t1_bar, t1_rod
 from ringdown.analysis.results import Analysis, Mode
+from ringdown.materials.moduli import r_bar, t1_bar, t1_rod
 
 LAMBDA_1 = 4.73004074  # Blevins 1979, first root of cos x cosh x = 1
 
@@ -43,8 +43,10 @@ def _timoshenko_f1(E, G, kappa, rho, A, I, L, n=1):
     def det(omega):
         kga, ei = kappa * G * A, E * I
         # y = (w, psi, Q, M): w' = psi + Q/kGA, psi' = M/EI, Q' = -rho A w^2 w, M' = -Q - rho I w^2 psi
-        a = np.array([[0, 1, 1 / kga, 0], [0, 0, 0, 1 / ei], [-rho * A * omega**2, 0, 0, 0],
-                      [0, -rho * I * omega**2, -1, 0]], float)
+        a = np.array(
+            [[0, 1, 1 / kga, 0], [0, 0, 0, 1 / ei], [-rho * A * omega**2, 0, 0, 0], [0, -rho * I * omega**2, -1, 0]],
+            float,
+        )
         p = expm(a * L)
         return np.linalg.det(p[2:4, 0:2])  # free ends: Q = M = 0 at both
 
@@ -54,8 +56,11 @@ def _timoshenko_f1(E, G, kappa, rho, A, I, L, n=1):
     w_eb = lam**2 * math.sqrt(E * I / (rho * A * L**4))
     grid = np.linspace(0.5 * w_eb, 1.001 * w_eb, 60)
     vals = [det(w) for w in grid]
-    roots = [brentq(det, a, b, xtol=1e-12) for a, b, va, vb in zip(grid[:-1], grid[1:], vals[:-1], vals[1:])
-             if np.sign(va) != np.sign(vb)]
+    roots = [
+        brentq(det, a, b, xtol=1e-12)
+        for a, b, va, vb in zip(grid[:-1], grid[1:], vals[:-1], vals[1:])
+        if np.sign(va) != np.sign(vb)
+    ]
     return roots[-1] / (2 * math.pi)  # the highest root below the Euler-Bernoulli value
 
 
@@ -203,11 +208,14 @@ def test_rod_shear_modulus_is_exact():
 # handbook plausibility (values from memory, +-5 %)
 
 
-@pytest.mark.parametrize("name, E, mu, rho, lo, hi", [
-    ("steel", 205e9, 0.29, 7850.0, 200e9, 210e9),     # from memory: 200-210 GPa, 7850 kg/m^3
-    ("aluminium", 70e9, 0.33, 2700.0, 69e9, 72e9),    # from memory: 69-72 GPa, 2700 kg/m^3
-    ("soda-lime glass", 70e9, 0.22, 2500.0, 67e9, 73e9),  # from memory: ~70 GPa, 2500 kg/m^3
-])
+@pytest.mark.parametrize(
+    "name, E, mu, rho, lo, hi",
+    [
+        ("steel", 205e9, 0.29, 7850.0, 200e9, 210e9),  # from memory: 200-210 GPa, 7850 kg/m^3
+        ("aluminium", 70e9, 0.33, 2700.0, 69e9, 72e9),  # from memory: 69-72 GPa, 2700 kg/m^3
+        ("soda-lime glass", 70e9, 0.22, 2500.0, 67e9, 73e9),  # from memory: ~70 GPa, 2500 kg/m^3
+    ],
+)
 def test_handbook_materials(name, E, mu, rho, lo, hi):
     # a 120 x 25 x 6 mm bar of handbook density, frequencies from the physics above, entered in
     # grams and millimetres converted as the CLI does: the units must come out right
@@ -241,8 +249,12 @@ def test_monte_carlo_agrees_with_gum_budget():
     draws = {k: rng.standard_normal(n) for k in u}
     es, gs, mus, rhos = [], [], [], []
     for i in range(n):
-        bi = RectangularBar(L + u["L"] * draws["L"][i], b + u["b"] * draws["b"][i], t + u["t"] * draws["t"][i],
-                            m + u["m"] * draws["m"][i])
+        bi = RectangularBar(
+            L + u["L"] * draws["L"][i],
+            b + u["b"] * draws["b"][i],
+            t + u["t"] * draws["t"][i],
+            m + u["m"] * draws["m"][i],
+        )
         r = moduli(bi, ff + u["ff"] * draws["ff"][i], ft + u["ft"] * draws["ft"][i])
         es.append(r.e_pa), gs.append(r.g_pa), mus.append(r.poisson), rhos.append(r.density_kg_per_m3)
     assert np.std(es, ddof=1) == pytest.approx(ref.e_pa_u, rel=0.10)
@@ -276,13 +288,28 @@ def test_assumed_poisson_ratio_carries_its_uncertainty():
 def _mode(index, f, eta=1e-3, u=0.05):
     beta = math.pi * f * eta
     d = derive(f, beta, f_d_hz_u=u, beta_per_s_u=0.01 * beta)
-    return Mode(index=index, derived=d, amplitude=1.0, snr_db=40.0, method="pencil", fit_start_s=0.0,
-                fit_end_s=1.0, cycles_fitted=f, n_hits=1)
+    return Mode(
+        index=index,
+        derived=d,
+        amplitude=1.0,
+        snr_db=40.0,
+        method="pencil",
+        fit_start_s=0.0,
+        fit_end_s=1.0,
+        cycles_fitted=f,
+        n_hits=1,
+    )
 
 
 def _analysis(path, freqs, eta=1e-3):
-    return Analysis(path=path, sha256=None, channel=None, sample_rate_hz=48000.0, n_samples=48000,
-                    modes=tuple(_mode(i + 1, f, eta) for i, f in enumerate(sorted(freqs))))
+    return Analysis(
+        path=path,
+        sha256=None,
+        channel=None,
+        sample_rate_hz=48000.0,
+        n_samples=48000,
+        modes=tuple(_mode(i + 1, f, eta) for i, f in enumerate(sorted(freqs))),
+    )
 
 
 def _steel_bar():
@@ -377,12 +404,15 @@ def test_stubby_bar_and_missing_uncertainties_warn():
     assert "uncertainty_not_given" in res.warning_codes
 
 
-@pytest.mark.parametrize("kwargs, match", [
-    (dict(length_m=-0.1), "length .m. must be a positive finite number"),
-    (dict(mass_kg=0.0), "mass .kg. must be a positive"),
-    (dict(width_m=float("nan")), "width"),
-    (dict(length_m_u=-1e-6), "uncertainty of length"),
-])
+@pytest.mark.parametrize(
+    "kwargs, match",
+    [
+        (dict(length_m=-0.1), "length .m. must be a positive finite number"),
+        (dict(mass_kg=0.0), "mass .kg. must be a positive"),
+        (dict(width_m=float("nan")), "width"),
+        (dict(length_m_u=-1e-6), "uncertainty of length"),
+    ],
+)
 def test_bad_specimen_is_refused(kwargs, match):
     args = dict(length_m=0.1, width_m=0.02, thickness_m=0.005, mass_kg=0.078)
     args.update(kwargs)

@@ -9,42 +9,49 @@ from __future__ import annotations
 import math
 
 import pytest
-from hypothesis import given, strategies as st
+from hypothesis import given
+from hypothesis import strategies as st
 
 from ringdown.base.numfmt import MISSING, fmt_fixed, fmt_interval, fmt_pm, fmt_value, fmt_values
 
 
-@pytest.mark.parametrize("v, u, expected", [
-    # worked by hand: u -> 2 significant digits, v to the same place
-    (611.999885, 0.000083, "611.999885(83)"),       # GUM 7.2.2 style: 100.02147(35)
-    (100.02147, 0.00035, "100.02147(35)"),          # the GUM's own example, JCGM 100:2008 7.2.2
-    (0.000779699, 4.0e-7, "7.7970(40)e-4"),         # zeta from the issue: (7.79699 +- 0.0040)e-4
-    (166.66484, 0.0075, "166.6648(75)"),
-    (1500.0, 12.0, "1500(12)"),                     # last digit at the units place: still plain
-    (12345.0, 230.0, "1.235(23)e4"),                # u's last digit left of the units: e notation
-    (0.5, 0.0004, "0.50000(40)"),
-    (2.0e7, 3.0, "2.00000000(30)e7"),                # magnitude >= 1e6: e notation
-    (1.0, 0.0996, "1.00(10)"),                      # 0.0996 rounds to 0.10, one place up
-    (-3.25, 0.012, "-3.250(12)"),
-    (0.001, 0.05, "0.001(50)"),                     # u larger than v: v to u's place
-    (9.9996, 0.00002, "9.999600(20)"),
-])
+@pytest.mark.parametrize(
+    "v, u, expected",
+    [
+        # worked by hand: u -> 2 significant digits, v to the same place
+        (611.999885, 0.000083, "611.999885(83)"),  # GUM 7.2.2 style: 100.02147(35)
+        (100.02147, 0.00035, "100.02147(35)"),  # the GUM's own example, JCGM 100:2008 7.2.2
+        (0.000779699, 4.0e-7, "7.7970(40)e-4"),  # zeta from the issue: (7.79699 +- 0.0040)e-4
+        (166.66484, 0.0075, "166.6648(75)"),
+        (1500.0, 12.0, "1500(12)"),  # last digit at the units place: still plain
+        (12345.0, 230.0, "1.235(23)e4"),  # u's last digit left of the units: e notation
+        (0.5, 0.0004, "0.50000(40)"),
+        (2.0e7, 3.0, "2.00000000(30)e7"),  # magnitude >= 1e6: e notation
+        (1.0, 0.0996, "1.00(10)"),  # 0.0996 rounds to 0.10, one place up
+        (-3.25, 0.012, "-3.250(12)"),
+        (0.001, 0.05, "0.001(50)"),  # u larger than v: v to u's place
+        (9.9996, 0.00002, "9.999600(20)"),
+    ],
+)
 def test_fmt_pm_hand_worked(v, u, expected):
     assert fmt_pm(v, u) == expected
 
 
-@pytest.mark.parametrize("v, digits, expected", [
-    (15915.494, 5, "15915"),       # the overview legend writes 15915 Hz like the rest of the figure
-    (612.00263, 7, "612.0026"),
-    (0.000779699, 4, "7.797e-4"),
-    (1234567.0, 4, "1.235e6"),
-    (999.96, 4, "1000"),           # rounding crosses a decade
-    (9.99996e-5, 3, "1e-4"),        # trailing zeros dropped, as %g does
-    (8000.0, 7, "8000"),
-    (1040.4, 3, "1040"),           # plain below 1e6 even past the digits asked for (no 1.04e3 for a Q)
-    (0.0, 6, "0"),
-    (-0.01234, 3, "-0.0123"),
-])
+@pytest.mark.parametrize(
+    "v, digits, expected",
+    [
+        (15915.494, 5, "15915"),  # the overview legend writes 15915 Hz like the rest of the figure
+        (612.00263, 7, "612.0026"),
+        (0.000779699, 4, "7.797e-4"),
+        (1234567.0, 4, "1.235e6"),
+        (999.96, 4, "1000"),  # rounding crosses a decade
+        (9.99996e-5, 3, "1e-4"),  # trailing zeros dropped, as %g does
+        (8000.0, 7, "8000"),
+        (1040.4, 3, "1040"),  # plain below 1e6 even past the digits asked for (no 1.04e3 for a Q)
+        (0.0, 6, "0"),
+        (-0.01234, 3, "-0.0123"),
+    ],
+)
 def test_fmt_value_hand_worked(v, digits, expected):
     assert fmt_value(v, digits) == expected
 
@@ -91,8 +98,10 @@ def _parse(text: str) -> tuple[float, float]:
     return float(m) * 10.0**exp, int(ud) * 10.0 ** (exp - dec)
 
 
-@given(st.floats(min_value=-1e12, max_value=1e12, allow_nan=False).filter(lambda v: abs(v) > 1e-12),
-       st.floats(min_value=1e-12, max_value=1e12))
+@given(
+    st.floats(min_value=-1e12, max_value=1e12, allow_nan=False).filter(lambda v: abs(v) > 1e-12),
+    st.floats(min_value=1e-12, max_value=1e12),
+)
 def test_round_trip_within_rounding(v, u):
     text = fmt_pm(v, u)
     assert " " not in text  # never wraps

@@ -17,7 +17,9 @@ def test_all_lists_exactly_the_public_names():
         assert hasattr(ringdown, name)
     public = {n for n in vars(ringdown) if not n.startswith("_")} - {
         # subpackages that Python binds on the package as a side effect of importing them
-        name for name, obj in vars(ringdown).items() if type(obj).__name__ == "module"
+        name
+        for name, obj in vars(ringdown).items()
+        if type(obj).__name__ == "module"
     }
     assert set(ringdown.__all__) - {"__version__"} == public
     assert set(dir(ringdown)) >= set(ringdown.__all__)

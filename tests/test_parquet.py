@@ -27,10 +27,10 @@ import pytest
 from typer.testing import CliRunner
 
 import ringdown
-from ringdown.inspection import parquet
-from ringdown.cli import app
-from ringdown.base.errors import ParameterError
 from ringdown.analysis.results import mode_keys
+from ringdown.base.errors import ParameterError
+from ringdown.cli import app
+from ringdown.inspection import parquet
 
 ROOT = Path(__file__).resolve().parents[1]
 LINE = ROOT / "example_signals" / "line"
@@ -40,10 +40,33 @@ runner = CliRunner()
 from conftest import make_parts  # noqa: E402
 
 #: Columns that hold one mode's fields (null on a row without mode).
-MODE_COLUMNS = [c for c, _, _ in parquet.COLUMNS if c not in {
-    "kind", "file", "sha256", "part_id", "station", "operator", "tested_utc", "date", "verdict", "reasons",
-    "limits_sha256", "channel", "sample_rate_hz", "n_samples", "ref_index", "error_code", "error", "tool_version",
-    "settings_sha256", "settings_json"}]
+MODE_COLUMNS = [
+    c
+    for c, _, _ in parquet.COLUMNS
+    if c
+    not in {
+        "kind",
+        "file",
+        "sha256",
+        "part_id",
+        "station",
+        "operator",
+        "tested_utc",
+        "date",
+        "verdict",
+        "reasons",
+        "limits_sha256",
+        "channel",
+        "sample_rate_hz",
+        "n_samples",
+        "ref_index",
+        "error_code",
+        "error",
+        "tool_version",
+        "settings_sha256",
+        "settings_json",
+    }
+]
 
 
 def _rows(out) -> list[dict]:
@@ -52,11 +75,19 @@ def _rows(out) -> list[dict]:
 
 def _mode_columns_of(d: dict) -> dict:
     """The columns one mode record of the JSON output must give (written out here, not by the code)."""
-    cols = {k: d[k] for k in mode_keys() if k not in ("index", "band_hz", "warnings", "cross_checks",
-                                                      "damping_vs_amplitude")}
-    cols.update(mode_index=d["index"], band_low_hz=d["band_hz"][0], band_high_hz=d["band_hz"][1],
-                warnings=";".join(w["code"] for w in d["warnings"]), cross_checks_json=d["cross_checks"],
-                damping_vs_amplitude_json=d["damping_vs_amplitude"])
+    cols = {
+        k: d[k]
+        for k in mode_keys()
+        if k not in ("index", "band_hz", "warnings", "cross_checks", "damping_vs_amplitude")
+    }
+    cols.update(
+        mode_index=d["index"],
+        band_low_hz=d["band_hz"][0],
+        band_high_hz=d["band_hz"][1],
+        warnings=";".join(w["code"] for w in d["warnings"]),
+        cross_checks_json=d["cross_checks"],
+        damping_vs_amplitude_json=d["damping_vs_amplitude"],
+    )
     return cols
 
 
@@ -67,8 +98,23 @@ def analysed(tmp_path_factory):
     broken = d / "broken.wav"
     broken.write_bytes(b"RIFF....not a wav file")
     out = d / "ds"
-    r = runner.invoke(app, ["analyze", *THREE, str(broken), "--json", "--jobs", "1", "--parquet", str(out),
-                            "--station", "EOL-2", "--operator", "A. Tester"])
+    r = runner.invoke(
+        app,
+        [
+            "analyze",
+            *THREE,
+            str(broken),
+            "--json",
+            "--jobs",
+            "1",
+            "--parquet",
+            str(out),
+            "--station",
+            "EOL-2",
+            "--operator",
+            "A. Tester",
+        ],
+    )
     assert r.exit_code == 2, r.output  # the broken file is an error
     return {"out": out, "doc": json.loads(r.stdout), "broken": str(broken), "stderr": r.stderr}
 
@@ -77,9 +123,17 @@ def test_schema_is_explicit_and_documented(analysed):
     table = parquet.read_dataset(analysed["out"])
     assert table.schema.equals(parquet.schema(), check_metadata=False)
     # the types, written out (the README table states them)
-    expect = {"f_d_hz": pa.float64(), "zeta_u": pa.float64(), "mode_index": pa.int32(), "n_hits": pa.int32(),
-              "n_samples": pa.int64(), "tested_utc": pa.timestamp("us", tz="UTC"), "date": pa.date32(),
-              "verdict": pa.string(), "settings_sha256": pa.string()}
+    expect = {
+        "f_d_hz": pa.float64(),
+        "zeta_u": pa.float64(),
+        "mode_index": pa.int32(),
+        "n_hits": pa.int32(),
+        "n_samples": pa.int64(),
+        "tested_utc": pa.timestamp("us", tz="UTC"),
+        "date": pa.date32(),
+        "verdict": pa.string(),
+        "settings_sha256": pa.string(),
+    }
     for name, typ in expect.items():
         assert table.schema.field(name).type == typ, name
     files = sorted(Path(analysed["out"]).glob("date=*/*.parquet"))
@@ -90,11 +144,15 @@ def test_schema_is_explicit_and_documented(analysed):
     # every mode field of the JSON output has its column(s)
     names = set(table.schema.names)
     for k in mode_keys():
-        assert {"index": "mode_index", "band_hz": "band_low_hz", "cross_checks": "cross_checks_json",
-                "damping_vs_amplitude": "damping_vs_amplitude_json"}.get(k, k) in names, k
+        assert {
+            "index": "mode_index",
+            "band_hz": "band_low_hz",
+            "cross_checks": "cross_checks_json",
+            "damping_vs_amplitude": "damping_vs_amplitude_json",
+        }.get(k, k) in names, k
     # README "Archives and clusters" lists exactly these columns, in this order, with these types
     readme = (ROOT / "README.md").read_text(encoding="utf-8")
-    section = readme[readme.index("## Archives and clusters"):]
+    section = readme[readme.index("## Archives and clusters") :]
     documented = re.findall(r"^\| `([a-z0-9_]+)` \| ([A-Za-z0-9\[\], =]+) \|", section, flags=re.M)
     assert documented == [(c, t) for c, t, _ in parquet.COLUMNS]
 
@@ -149,19 +207,38 @@ def test_pandas_reads_the_same_rows(analysed):
 def test_check_and_history_rows(tmp_path):
     db = tmp_path / "h.sqlite"
     lim = tmp_path / "limits.toml"
-    r = runner.invoke(app, ["limits", "learn", *[str(LINE / f"good_0{i}.wav") for i in range(1, 9)], "-o", str(lim),
-                            "--jobs", "1"])
+    r = runner.invoke(
+        app, ["limits", "learn", *[str(LINE / f"good_0{i}.wav") for i in range(1, 9)], "-o", str(lim), "--jobs", "1"]
+    )
     assert r.exit_code == 0, r.output
-    r = runner.invoke(app, ["check", "--limits", str(lim), *THREE, "--json", "--jobs", "1", "--db", str(db),
-                            "--parquet", str(tmp_path / "ck"), "--station", "EOL-2"])
+    r = runner.invoke(
+        app,
+        [
+            "check",
+            "--limits",
+            str(lim),
+            *THREE,
+            "--json",
+            "--jobs",
+            "1",
+            "--db",
+            str(db),
+            "--parquet",
+            str(tmp_path / "ck"),
+            "--station",
+            "EOL-2",
+        ],
+    )
     assert r.exit_code == 1, r.output  # crack fails
     doc = json.loads(r.stdout)
     rows = _rows(tmp_path / "ck")
     for res in doc["results"]:
         mine = sorted((x for x in rows if x["file"] == res["path"]), key=lambda x: x["mode_index"])
         assert [x["verdict"] for x in mine] == [res["verdict"]] * len(res["modes"])
-        assert [x["ref_index"] for x in mine] == [next((mm["reference_mode"] for mm in res["matched"]
-                                                        if mm["mode"] == m["index"]), None) for m in res["modes"]]
+        assert [x["ref_index"] for x in mine] == [
+            next((mm["reference_mode"] for mm in res["matched"] if mm["mode"] == m["index"]), None)
+            for m in res["modes"]
+        ]
         assert [x["f_d_hz"] for x in mine] == [m["f_d_hz"] for m in res["modes"]]
         assert all(x["limits_sha256"] == doc["limits"]["sha256"] for x in mine)
         want_reasons = "; ".join(x["message"] for x in res["reasons"]) or None
@@ -176,17 +253,20 @@ def test_check_and_history_rows(tmp_path):
     # the database keeps no error code, channel, sample rate or length (documented as null for history)
     skip = {"tested_utc", "date", "error_code", "channel", "sample_rate_hz", "n_samples"}
     key = lambda x: (x["file"], x["mode_index"])  # noqa: E731
-    assert [{k: v for k, v in x.items() if k not in skip} for x in sorted(hist, key=key)] == \
-           [{k: v for k, v in x.items() if k not in skip} for x in sorted(rows, key=key)]
+    assert [{k: v for k, v in x.items() if k not in skip} for x in sorted(hist, key=key)] == [
+        {k: v for k, v in x.items() if k not in skip} for x in sorted(rows, key=key)
+    ]
     assert all(x["channel"] is None for x in hist)
     for x in hist:
         assert x["tested_utc"].isoformat().replace("+00:00", "Z") == stored[x["file"]]["tested_utc"]
     # a snapshot is never appended to an older one (it would repeat every record)
     r = runner.invoke(app, ["history", "--db", str(db), "--parquet", str(tmp_path / "hist")])
     assert r.exit_code == 2
-    assert r.stderr.strip().splitlines()[-1] == (f"ringdown: error: --parquet '{tmp_path / 'hist'}' already holds a "
-                                                 "dataset; this writes a whole snapshot: choose a new folder or remove "
-                                                 "that one")
+    assert r.stderr.strip().splitlines()[-1] == (
+        f"ringdown: error: --parquet '{tmp_path / 'hist'}' already holds a "
+        "dataset; this writes a whole snapshot: choose a new folder or remove "
+        "that one"
+    )
 
 
 def test_station_partitions_and_appending(tmp_path):
@@ -195,8 +275,11 @@ def test_station_partitions_and_appending(tmp_path):
     with parquet.ParquetSink(out, partition_by="station", flush_rows=2) as sink:
         sink.add_analysis(analyses[0], station="EOL/1")
         sink.add_analysis(analyses[1])
-    assert sorted(p.name for p in out.iterdir()) == ["_ringdown_dataset.json", "station=EOL%2F1",
-                                                     "station=__HIVE_DEFAULT_PARTITION__"]
+    assert sorted(p.name for p in out.iterdir()) == [
+        "_ringdown_dataset.json",
+        "station=EOL%2F1",
+        "station=__HIVE_DEFAULT_PARTITION__",
+    ]
     first = _rows(out)
     assert sorted((r["station"] or "") for r in first) == ["", "", "", "EOL/1", "EOL/1", "EOL/1"]
     assert len(sink.files_written) == 2 and sink.rows_written == 6
@@ -234,11 +317,13 @@ def _complete(rows, n_modes_of) -> None:
 def test_killed_run_keeps_what_it_wrote(parts, tmp_path):
     paths, _ = parts
     out = tmp_path / "ds"
-    script = ("import sys, ringdown\nfrom ringdown.inspection.parquet import ParquetSink\n"
-              "with ParquetSink(sys.argv[1], flush_rows=1) as sink:\n"
-              "    for p in sys.argv[2:]:\n"
-              "        sink.add_analysis(ringdown.analyze_file(p))\n"
-              "        print(p, flush=True)\n")
+    script = (
+        "import sys, ringdown\nfrom ringdown.inspection.parquet import ParquetSink\n"
+        "with ParquetSink(sys.argv[1], flush_rows=1) as sink:\n"
+        "    for p in sys.argv[2:]:\n"
+        "        sink.add_analysis(ringdown.analyze_file(p))\n"
+        "        print(p, flush=True)\n"
+    )
     proc = subprocess.Popen([sys.executable, "-c", script, str(out), *paths], stdout=subprocess.PIPE, text=True)
     done = [proc.stdout.readline().strip() for _ in range(3)]
     proc.send_signal(signal.SIGKILL)  # no clean-up at all
@@ -257,9 +342,27 @@ def test_interrupted_check_keeps_every_finished_part(parts, tmp_path):
     # finish before the Ctrl-C however loaded the machine is
     paths = list(paths) + make_parts(tmp_path, 96, seed=11, prefix="SN-x")
     db, out = tmp_path / "h.sqlite", tmp_path / "ds"
-    proc = subprocess.Popen([sys.executable, "-c", "from ringdown.cli import main; main()", "check", "--limits", lim,
-                             *paths, "--jobs", "1", "--db", str(db), "--parquet", str(out), "--jsonl"],
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    proc = subprocess.Popen(
+        [
+            sys.executable,
+            "-c",
+            "from ringdown.cli import main; main()",
+            "check",
+            "--limits",
+            lim,
+            *paths,
+            "--jobs",
+            "1",
+            "--db",
+            str(db),
+            "--parquet",
+            str(out),
+            "--jsonl",
+        ],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
     # each part's JSON line is printed after it is stored: three lines mean three stored parts
     # (reading the lines, not polling the database, keeps this independent of the machine's load)
     got = [proc.stdout.readline() for _ in range(3)]
@@ -282,14 +385,18 @@ def test_missing_extra_is_one_line(monkeypatch, tmp_path):
     monkeypatch.setitem(sys.modules, "pyarrow", None)  # as if pyarrow were not installed
     r = runner.invoke(app, ["analyze", THREE[0], "--parquet", str(tmp_path / "ds")])
     assert r.exit_code == 2
-    assert r.stderr.strip().splitlines() == ["ringdown: error: --parquet needs the optional 'cluster' extra (pyarrow); "
-                                             "install it with: pip install 'ringdown[cluster]'"]
+    assert r.stderr.strip().splitlines() == [
+        "ringdown: error: --parquet needs the optional 'cluster' extra (pyarrow); "
+        "install it with: pip install 'ringdown[cluster]'"
+    ]
     assert not (tmp_path / "ds").exists()
 
 
 def test_the_extras_load_only_when_used():
     # issue 19: dask and pyarrow are imported lazily, so `ringdown --help` and plain analyses stay fast
-    code = ("import sys, ringdown, ringdown.cli, ringdown.base.cluster, ringdown.inspection.parquet; "
-            "print(','.join(m for m in ('dask', 'distributed', 'pyarrow', 'pandas') if m in sys.modules))")
+    code = (
+        "import sys, ringdown, ringdown.cli, ringdown.base.cluster, ringdown.inspection.parquet; "
+        "print(','.join(m for m in ('dask', 'distributed', 'pyarrow', 'pandas') if m in sys.modules))"
+    )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout.strip()
     assert out == ""

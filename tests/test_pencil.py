@@ -18,9 +18,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from ringdown.analysis.bands import Band, extract_band, settling_time_s, spectrum_of
-from ringdown.base.errors import FitError
 from ringdown.analysis.estimators import pencil
 from ringdown.analysis.estimators.base import Window
+from ringdown.base.errors import FitError
 
 
 def _sigma_for_snr(amplitude, snr_db):
@@ -251,8 +251,9 @@ def test_direct_band_object_noiseless_exponentials():
     t = np.arange(400) / fs
     poles = [(-2.0, 1003.0), (-0.5, 1010.0)]
     z = sum(c * np.exp((b + 2j * np.pi * (f - 1005.0)) * t) for c, (b, f) in zip([1.0, 0.5j], poles))
-    band = Band(z=z, sample_rate=fs, t0_s=0.0, f_shift_hz=1005.0, f_lo_hz=995.0, f_hi_hz=1015.0,
-                skirt_hz=5.0, noise_rms=1e-9)
+    band = Band(
+        z=z, sample_rate=fs, t0_s=0.0, f_shift_hz=1005.0, f_lo_hz=995.0, f_hi_hz=1015.0, skirt_hz=5.0, noise_rms=1e-9
+    )
     ests = pencil.estimate(band, Window(start_s=0.5, end_s=3.5, onset_s=0.0))
     assert [e.f_d_hz for e in ests] == pytest.approx([1003.0, 1010.0], abs=1e-8)
     assert [e.beta_per_s for e in ests] == pytest.approx([2.0, 0.5], abs=1e-8)
@@ -285,8 +286,9 @@ def test_never_raises_anything_but_fit_error(f, beta, snr_db, seed):
 def test_non_finite_envelope_raises_fit_error():
     z = np.exp((-1.0 + 2j * np.pi * 2.0) * np.arange(200) / 100.0)
     z[50] = np.nan
-    band = Band(z=z, sample_rate=100.0, t0_s=0.0, f_shift_hz=1000.0, f_lo_hz=990.0, f_hi_hz=1010.0,
-                skirt_hz=5.0, noise_rms=1e-3)
+    band = Band(
+        z=z, sample_rate=100.0, t0_s=0.0, f_shift_hz=1000.0, f_lo_hz=990.0, f_hi_hz=1010.0, skirt_hz=5.0, noise_rms=1e-3
+    )
     with pytest.raises(FitError, match="NaN"):
         pencil.estimate(band, Window(start_s=0.1, end_s=1.9, onset_s=0.0))
 

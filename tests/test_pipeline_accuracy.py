@@ -11,10 +11,10 @@ import re
 
 import numpy as np
 import pytest
+from conftest import ringdown_modes
 from scipy import linalg
 
 import ringdown
-from conftest import ringdown_modes
 
 
 def _match(modes, f_true):
@@ -113,9 +113,12 @@ def test_hum_present_before_the_hit_is_named_a_steady_tone():
     # modes, each is named in a stationary_tone warning, and the mode's beta is exact to 1 %
     fs = 8000.0
     t = np.arange(int(2 * fs)) / fs
-    x = ringdown_modes([(440.0, 2 * math.pi * 440 * 0.005, 1.0)], sample_rate=fs, duration_s=2.0, pre_s=0.3,
-                       snr_db=80.0, seed=27)
-    x += 0.03 * (np.sin(2 * math.pi * 50 * t) + 0.5 * np.sin(2 * math.pi * 150 * t + 1) + 0.3 * np.sin(2 * math.pi * 250 * t + 2))
+    x = ringdown_modes(
+        [(440.0, 2 * math.pi * 440 * 0.005, 1.0)], sample_rate=fs, duration_s=2.0, pre_s=0.3, snr_db=80.0, seed=27
+    )
+    x += 0.03 * (
+        np.sin(2 * math.pi * 50 * t) + 0.5 * np.sin(2 * math.pi * 150 * t + 1) + 0.3 * np.sin(2 * math.pi * 250 * t + 2)
+    )
     a = ringdown.analyze(x, fs)
     assert [round(m.f_d_hz) for m in a.modes] == [440]
     tones = [w.message for w in a.warnings if w.code == "stationary_tone"]
@@ -142,7 +145,9 @@ def test_noise_does_not_make_false_modes():
     # maxima out, so every record yields exactly its one mode
     counts = []
     for seed in range(60):
-        x = ringdown_modes([(440.0, 6.0, 1.0, 0.1 * seed)], sample_rate=8000.0, duration_s=1.5, snr_db=30.0, seed=100 + seed)
+        x = ringdown_modes(
+            [(440.0, 6.0, 1.0, 0.1 * seed)], sample_rate=8000.0, duration_s=1.5, snr_db=30.0, seed=100 + seed
+        )
         counts.append(len(ringdown.analyze(x, 8000.0).modes))
     assert counts == [1] * 60
 

@@ -14,10 +14,10 @@ import math
 import numpy as np
 import pytest
 
-from ringdown.base.errors import ParameterError
 from ringdown.analysis.quantities import DB_PER_NEPER, derive
-from ringdown.io.recording import Recording
 from ringdown.analysis.results import Analysis, Hit, Mode, ModeTrace, Notice
+from ringdown.base.errors import ParameterError
+from ringdown.io.recording import Recording
 
 matplotlib = pytest.importorskip("matplotlib")
 
@@ -30,6 +30,7 @@ FS = 8000.0
 # hand-built analyses of simulated signals (invented test data)
 # --------------------------------------------------------------------------------------------
 
+
 def _mode_for(index, f, beta, amp, t_hit, t_end, rng, *, noise, with_peaks=True, dva=False):
     """A Mode whose trace is the exact envelope of ``amp exp(-beta (t - t_hit))`` plus noise."""
     env_rate = 400.0
@@ -38,26 +39,57 @@ def _mode_for(index, f, beta, amp, t_hit, t_end, rng, *, noise, with_peaks=True,
     env = np.abs(env + noise * (rng.standard_normal(t.size) + 1j * rng.standard_normal(t.size)) / math.sqrt(2))
     fit_start = t_hit + 0.02
     # End the window where the decay reaches 10 dB above the noise (FIELD.md s.2, ISO 3382 margin).
-    fit_end = min(t_hit + math.log(amp / (noise * 10 ** 0.5)) / beta, t_end - 0.01)
+    fit_end = min(t_hit + math.log(amp / (noise * 10**0.5)) / beta, t_end - 0.01)
     peaks_t = peaks_v = None
     if with_peaks:
         peaks_t = t_hit + np.arange(1, int((fit_end - t_hit) * f)) / f
         peaks_v = amp * np.exp(-beta * (peaks_t - t_hit)) * (1 + 0.002 * rng.standard_normal(peaks_t.size))
-    trace = ModeTrace(t_s=t, envelope=env, fit_start_s=fit_start, fit_end_s=fit_end, noise_floor=noise,
-                      fit_amplitude=amp, fit_beta_per_s=beta, fit_t0_s=t_hit,
-                      peaks_t_s=peaks_t, peaks_value=peaks_v)
+    trace = ModeTrace(
+        t_s=t,
+        envelope=env,
+        fit_start_s=fit_start,
+        fit_end_s=fit_end,
+        noise_floor=noise,
+        fit_amplitude=amp,
+        fit_beta_per_s=beta,
+        fit_t0_s=t_hit,
+        peaks_t_s=peaks_t,
+        peaks_value=peaks_v,
+    )
     rows = None
     if dva:
-        rows = tuple({"amplitude": a, "f_d_hz": f * (1 - 0.001 * a), "beta_per_s": beta * (1 + 2 * a)}
-                     for a in (0.5, 0.2, 0.08, 0.03, 0.01))
+        rows = tuple(
+            {"amplitude": a, "f_d_hz": f * (1 - 0.001 * a), "beta_per_s": beta * (1 + 2 * a)}
+            for a in (0.5, 0.2, 0.08, 0.03, 0.01)
+        )
     d = derive(f, beta, f_d_hz_u=0.01 * beta, beta_per_s_u=0.02 * beta)
-    return Mode(index=index, derived=d, amplitude=amp, snr_db=20 * math.log10(amp / noise), method="envelope",
-                fit_start_s=fit_start, fit_end_s=fit_end, cycles_fitted=(fit_end - fit_start) * f,
-                band_hz=(f * 0.9, f * 1.1), warnings=(), damping_vs_amplitude=rows, trace=trace)
+    return Mode(
+        index=index,
+        derived=d,
+        amplitude=amp,
+        snr_db=20 * math.log10(amp / noise),
+        method="envelope",
+        fit_start_s=fit_start,
+        fit_end_s=fit_end,
+        cycles_fitted=(fit_end - fit_start) * f,
+        band_hz=(f * 0.9, f * 1.1),
+        warnings=(),
+        damping_vs_amplitude=rows,
+        trace=trace,
+    )
 
 
-def make_analysis(*, modes=((440.0, 3.0, 0.5),), n_hits=1, clipped=False, seed=0, keep_samples=True,
-                  path="bar_A.wav", dva=False, peaks=True):
+def make_analysis(
+    *,
+    modes=((440.0, 3.0, 0.5),),
+    n_hits=1,
+    clipped=False,
+    seed=0,
+    keep_samples=True,
+    path="bar_A.wav",
+    dva=False,
+    peaks=True,
+):
     """A hand-built Analysis of a simulated ring-down: each mode is (f_d Hz, beta 1/s, amplitude)."""
     rng = np.random.default_rng(seed)
     dur = 2.0
@@ -82,17 +114,36 @@ def make_analysis(*, modes=((440.0, 3.0, 0.5),), n_hits=1, clipped=False, seed=0
     for k, t0 in enumerate(starts):
         end = starts[k + 1] if k + 1 < len(starts) else dur
         w = hit_warn if k == 0 else ((Notice("double_hit", "a second tap 0.9 s after the first"),) if k else ())
-        hits.append(Hit(start_s=t0, peak_s=t0 + 0.001, peak_value=float(np.max(np.abs(x))), snr_db=50.0,
-                        end_s=end, used=(k == 0), warnings=w))
+        hits.append(
+            Hit(
+                start_s=t0,
+                peak_s=t0 + 0.001,
+                peak_value=float(np.max(np.abs(x))),
+                snr_db=50.0,
+                end_s=end,
+                used=(k == 0),
+                warnings=w,
+            )
+        )
     mode_objs = tuple(
-        _mode_for(i + 1, f, b, a, starts[0], starts[1] if n_hits > 1 else dur, rng, noise=1e-3,
-                  with_peaks=peaks, dva=dva)
+        _mode_for(
+            i + 1, f, b, a, starts[0], starts[1] if n_hits > 1 else dur, rng, noise=1e-3, with_peaks=peaks, dva=dva
+        )
         for i, (f, b, a) in enumerate(modes)
     )
-    return Analysis(path=path, sha256="ab" * 32, channel="1", sample_rate_hz=FS, n_samples=t.size,
-                    hits=tuple(hits), modes=mode_objs, warnings=warnings,
-                    settings={"method": "auto", "min_snr_db": 10.0},
-                    noise_floor=1e-3, recording=rec if keep_samples else None)
+    return Analysis(
+        path=path,
+        sha256="ab" * 32,
+        channel="1",
+        sample_rate_hz=FS,
+        n_samples=t.size,
+        hits=tuple(hits),
+        modes=mode_objs,
+        warnings=warnings,
+        settings={"method": "auto", "min_snr_db": 10.0},
+        noise_floor=1e-3,
+        recording=rec if keep_samples else None,
+    )
 
 
 THREE_MODES = ((440.0, 3.0, 0.4), (1212.0, 9.0, 0.25), (2900.0, 20.0, 0.15))
@@ -118,6 +169,7 @@ def _labels(ax):
 # --------------------------------------------------------------------------------------------
 # plot_recording
 # --------------------------------------------------------------------------------------------
+
 
 @pytest.mark.parametrize("case", sorted(CASES))
 @pytest.mark.parametrize("given_ax", [True, False])
@@ -185,6 +237,7 @@ def test_recording_without_samples_raises():
 # plot_spectrum
 # --------------------------------------------------------------------------------------------
 
+
 @pytest.mark.parametrize("case", sorted(CASES))
 @pytest.mark.parametrize("given_ax", [True, False])
 def test_spectrum_marks_each_mode_once(case, given_ax):
@@ -228,6 +281,7 @@ def test_display_spectrum_peaks_at_the_simulated_frequencies():
 # plot_overview
 # --------------------------------------------------------------------------------------------
 
+
 @pytest.mark.parametrize("case", sorted(CASES))
 def test_overview_stacks_recording_and_spectrum(case):
     a = make_analysis(**CASES[case])
@@ -243,6 +297,7 @@ def test_overview_stacks_recording_and_spectrum(case):
 # --------------------------------------------------------------------------------------------
 # plot_decay, plot_mode
 # --------------------------------------------------------------------------------------------
+
 
 @pytest.mark.parametrize("given_ax", [True, False])
 def test_decay_fit_line_has_the_decay_rate_slope(given_ax):
@@ -267,8 +322,11 @@ def test_decay_fit_line_has_the_decay_rate_slope(given_ax):
         assert len(patches) == 1
         # Noise floor sits 20 log10(noise / A) below the window start.
         nf = next(ln for ln in ax.get_lines() if ln.get_label() == "noise floor").get_ydata()[0]
-        assert nf == pytest.approx(20 * math.log10(m.trace.noise_floor / m.trace.fit_amplitude)
-                                   + DB_PER_NEPER * m.beta_per_s * (m.fit_start_s - m.trace.fit_t0_s), rel=1e-9)
+        assert nf == pytest.approx(
+            20 * math.log10(m.trace.noise_floor / m.trace.fit_amplitude)
+            + DB_PER_NEPER * m.beta_per_s * (m.fit_start_s - m.trace.fit_t0_s),
+            rel=1e-9,
+        )
         assert ax.get_xlabel() == "time, s" and "dB" in ax.get_ylabel()
 
 
@@ -311,6 +369,7 @@ def test_decay_without_trace_raises():
 # --------------------------------------------------------------------------------------------
 # plot_damping_vs_amplitude
 # --------------------------------------------------------------------------------------------
+
 
 @pytest.mark.parametrize("given_ax", [True, False])
 def test_damping_vs_amplitude(given_ax):
@@ -395,6 +454,7 @@ def test_no_pyplot_used():
 # real analyses of simulated signals (seeded), through ringdown.analyze
 # --------------------------------------------------------------------------------------------
 
+
 @pytest.fixture(scope="module")
 def real_analysis():
     import ringdown
@@ -414,8 +474,9 @@ def test_plots_of_a_real_analysis(real_analysis):
     fig = plots.plot_overview(a)
     rec_ax, spec_ax = fig.get_axes()
     assert len([ln for ln in spec_ax.get_lines() if (ln.get_gid() or "").startswith("marker-mode-")]) == len(a.modes)
-    assert len([ln for ln in rec_ax.get_lines() if ln.get_label().startswith("mode ")]) == \
-        sum(1 for m in a.modes if m.fit_start_s is not None)
+    assert len([ln for ln in rec_ax.get_lines() if ln.get_label().startswith("mode ")]) == sum(
+        1 for m in a.modes if m.fit_start_s is not None
+    )
     for m in a.modes:
         if m.trace is None:
             continue

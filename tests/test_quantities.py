@@ -15,8 +15,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from ringdown.base.errors import ParameterError
 from ringdown.analysis.quantities import DB_PER_NEPER, derive
+from ringdown.base.errors import ParameterError
 
 TWO_PI = 2 * math.pi
 
@@ -166,8 +166,18 @@ def test_non_positive_inputs_rejected(f_d, beta, what):
 def test_to_dict_is_every_field():
     d = derive(440.0, 12.0, f_d_hz_u=0.01, beta_per_s_u=0.2)
     out = d.to_dict()
-    for q in ("f_d_hz", "beta_per_s", "f_n_hz", "zeta", "q", "loss_factor", "log_decrement",
-              "decay_db_per_s", "t60_s", "f_r_hz"):
+    for q in (
+        "f_d_hz",
+        "beta_per_s",
+        "f_n_hz",
+        "zeta",
+        "q",
+        "loss_factor",
+        "log_decrement",
+        "decay_db_per_s",
+        "t60_s",
+        "f_r_hz",
+    ):
         assert q in out and q + "_u" in out
         assert out[q] == getattr(d, q)
 

@@ -99,7 +99,7 @@ def test_bounce_flagged_and_left_out():
         for f, z, a in TWO_MODES:
             x += damped(t, t0, f, z, strength * a, rng.uniform(0, 2 * math.pi))[0]
         i = int(round(t0 * fs))
-        x[i:i + click_n] += strength * click_rms * rng.normal(0.0, 1.0, click_n)
+        x[i : i + click_n] += strength * click_rms * rng.normal(0.0, 1.0, click_n)
 
     contact(0.050, 1.0)
     contact(0.054, 0.8)  # the bounce, 4 ms later
@@ -167,8 +167,11 @@ def test_mains_hum_is_not_a_mode():
     t = np.arange(int(2.0 * fs)) / fs
     y, beta = damped(t, 0.1, 440.0, 0.005, 1.0, 0.3)
     a_hum = 10 ** (-30 / 20)  # 30 dB below the tap
-    hum = a_hum * (np.sin(2 * math.pi * 50 * t + 0.1) + 0.7 * np.sin(2 * math.pi * 150 * t + 1.2)
-                   + 0.5 * np.sin(2 * math.pi * 250 * t + 2.0))
+    hum = a_hum * (
+        np.sin(2 * math.pi * 50 * t + 0.1)
+        + 0.7 * np.sin(2 * math.pi * 150 * t + 1.2)
+        + 0.5 * np.sin(2 * math.pi * 250 * t + 2.0)
+    )
     x = y + hum + rng.normal(0.0, 1e-4, t.size)
     an = analyze(x, fs)
     for f_hum in (50.0, 150.0, 250.0):
@@ -251,7 +254,7 @@ def friction_record(mu_n_over_k: float, seed: int = 606):
     sol = solve_ivp(rhs, (0.0, te[-1]), [0.0, w], t_eval=te, method="DOP853", rtol=1e-8, atol=1e-10)
     assert sol.status == 0
     x = np.zeros(int(2.0 * fs))
-    x[800:800 + te.size] = sol.y[0]
+    x[800 : 800 + te.size] = sol.y[0]
     x += np.random.default_rng(seed).normal(0.0, 1e-5, x.size)
     return x, fs
 

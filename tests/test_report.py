@@ -17,14 +17,13 @@ from html.parser import HTMLParser
 
 import numpy as np
 import pytest
+from test_plots import THREE_MODES, make_analysis  # noqa: E402  (tests/ is on sys.path under pytest)
 
 import ringdown
-from ringdown.cli import render
-from ringdown.base.errors import InputError, ParameterError
-from ringdown.render.report import Section, html_table, render_report, write_report
 from ringdown.analysis.results import Analysis, Notice
-
-from test_plots import THREE_MODES, make_analysis  # noqa: E402  (tests/ is on sys.path under pytest)
+from ringdown.base.errors import InputError, ParameterError
+from ringdown.cli import render
+from ringdown.render.report import Section, html_table, render_report, write_report
 
 
 class _Doc(HTMLParser):
@@ -116,14 +115,31 @@ def three_mode_report():
 # content
 # --------------------------------------------------------------------------------------------
 
+
 def test_modes_table_holds_the_mode_values(three_mode_report):
     a, text = three_mode_report
     doc = _parse(text)
     (table,) = _modes_table(doc)
     header, rows = table[0], table[1:]
-    assert header == ["#", "f_d, Hz", "β, 1/s", "f_n, Hz", "ζ", "Q", "loss factor η", "log decrement δ",
-                      "f_r, Hz", "decay, dB/s", "T60, s", "method", "window, s", "cycles", "SNR, dB", "hits",
-                      "warnings"]
+    assert header == [
+        "#",
+        "f_d, Hz",
+        "β, 1/s",
+        "f_n, Hz",
+        "ζ",
+        "Q",
+        "loss factor η",
+        "log decrement δ",
+        "f_r, Hz",
+        "decay, dB/s",
+        "T60, s",
+        "method",
+        "window, s",
+        "cycles",
+        "SNR, dB",
+        "hits",
+        "warnings",
+    ]
     assert len(rows) == len(a.modes)
     for row, m in zip(rows, a.modes):
         assert row[0] == str(m.index)
@@ -204,15 +220,23 @@ def test_svg_figures_are_embedded_as_data_uris():
 def test_hostile_names_are_escaped():
     evil = "<script>alert(1)</script>.wav"
     a = make_analysis(path=evil, modes=THREE_MODES[:1])
-    a = Analysis(**{**{k: getattr(a, k) for k in a.__dataclass_fields__},
-                    "channel": '"><img src=x onerror=alert(2)>',
-                    "settings": {"<u>bold</u>": "</td><script>x()</script>"},
-                    "warnings": (Notice("<marquee>code</marquee>", "level <blink> & more"),)})
+    a = Analysis(
+        **{
+            **{k: getattr(a, k) for k in a.__dataclass_fields__},
+            "channel": '"><img src=x onerror=alert(2)>',
+            "settings": {"<u>bold</u>": "</td><script>x()</script>"},
+            "warnings": (Notice("<marquee>code</marquee>", "level <blink> & more"),),
+        }
+    )
     failed = Analysis.failed("<svg onload=alert(3)>.csv", InputError("cannot read '<svg onload=alert(3)>.csv'"))
     # A name without '/' is its own base name: it is the section heading, as text.
     img = make_analysis(path="<img src=x onerror=alert(4)>.wav")
-    text = render_report([a, failed, img], title="<title>t</title>", figures=False,
-                         extra_sections=[Section("<h1>x</h1>", "<p>trusted</p>")])
+    text = render_report(
+        [a, failed, img],
+        title="<title>t</title>",
+        figures=False,
+        extra_sections=[Section("<h1>x</h1>", "<p>trusted</p>")],
+    )
     doc = _parse(text)
     # None of these tags is ever written by the report itself: each would come from an input.
     assert not [t for t, _ in doc.tags if t in ("script", "svg", "blink", "u", "marquee")]
@@ -266,6 +290,7 @@ def test_extra_sections_and_bad_section():
 # writing files, and the CLI helpers
 # --------------------------------------------------------------------------------------------
 
+
 def test_write_report_and_errors(tmp_path):
     a = make_analysis()
     out = tmp_path / "r.html"
@@ -306,6 +331,7 @@ def test_cli_write_report(tmp_path):
 # a real analysis of a simulated signal, once the pipeline is exported
 # --------------------------------------------------------------------------------------------
 
+
 def test_report_of_a_real_analysis():
     analyze = ringdown.analyze
     fs = 8000.0
@@ -333,6 +359,7 @@ def test_report_of_a_real_analysis():
 # tests/test_report_print.py)
 # --------------------------------------------------------------------------------------------
 
+
 def _cells_with_class(text: str, css: str) -> list[str]:
     return [re.sub(r"<[^>]+>", "", m) for m in re.findall(rf'<td class="[^"]*\b{css}\b[^"]*">(.*?)</td>', text)]
 
@@ -344,15 +371,33 @@ def test_check_report_verdicts_header_and_signoff():
     lim = parse_limits("[[modes]]\nf_hz = [1400.0, 1500.0]\n", source="lim.toml")
     rows = [
         {"part_id": "A1", "path": "a1.wav", "verdict": "pass", "reasons": [], "notes": [], "features": []},
-        {"part_id": "A2", "path": "a2.wav", "verdict": "fail", "reasons": [{"code": "f_below", "message": "low"}],
-         "notes": [], "features": [{"mode": 1, "feature": "f_hz", "value": 1390.0, "window": [1400.0, 1500.0],
-                                    "status": "below"}]},
-        {"part_id": "A3", "path": "a3.wav", "verdict": "pass", "reasons": [],
-         "notes": [{"code": "advisory_f_below", "message": "warm (advisory)"}], "features": []},
+        {
+            "part_id": "A2",
+            "path": "a2.wav",
+            "verdict": "fail",
+            "reasons": [{"code": "f_below", "message": "low"}],
+            "notes": [],
+            "features": [
+                {"mode": 1, "feature": "f_hz", "value": 1390.0, "window": [1400.0, 1500.0], "status": "below"}
+            ],
+        },
+        {
+            "part_id": "A3",
+            "path": "a3.wav",
+            "verdict": "pass",
+            "reasons": [],
+            "notes": [{"code": "advisory_f_below", "message": "warm (advisory)"}],
+            "features": [],
+        },
     ]
     analyses = [make_analysis(path=r["path"], keep_samples=False) for r in rows]
-    text = render_check_report(rows, analyses, lim, figures=False, fields=[("station", "EOL-2"),
-                               ("operator", "A. Tester"), ("limits SHA-256", lim.sha256)])
+    text = render_check_report(
+        rows,
+        analyses,
+        lim,
+        figures=False,
+        fields=[("station", "EOL-2"), ("operator", "A. Tester"), ("limits SHA-256", lim.sha256)],
+    )
     # every verdict coloured by class AND worded with a symbol (readable without colour)
     assert "✓ PASS" in _cells_with_class(text, "verdict-pass")
     assert "✗ FAIL" in _cells_with_class(text, "verdict-fail")
@@ -377,8 +422,9 @@ def test_check_report_verdicts_header_and_signoff():
 
 def test_header_fields_are_escaped_in_css_and_html():
     a = make_analysis(keep_samples=False)
-    text = render_report([a], figures=False, title='</style><script>x"', notes="line 1\nline <2>",
-                         fields=[("serial", "S<1>")])
+    text = render_report(
+        [a], figures=False, title='</style><script>x"', notes="line 1\nline <2>", fields=[("serial", "S<1>")]
+    )
     assert "<script>" not in text and "</style><script>" not in text
     assert "line 1<br>line &lt;2&gt;" in text
     doc = _parse(text)

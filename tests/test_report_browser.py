@@ -12,12 +12,11 @@ import subprocess
 
 import numpy as np
 import pytest
+from test_plots import THREE_MODES, make_analysis  # noqa: E402  (tests/ is on sys.path under pytest)
 
+from ringdown.analysis.results import Analysis
 from ringdown.base.errors import InputError
 from ringdown.render.report import write_report
-from ringdown.analysis.results import Analysis
-
-from test_plots import THREE_MODES, make_analysis  # noqa: E402  (tests/ is on sys.path under pytest)
 
 pytestmark = pytest.mark.browser
 
@@ -32,10 +31,20 @@ def _browser() -> str | None:
 
 def _screenshot(browser: str, html_path, png_path, profile) -> subprocess.CompletedProcess:
     cmd = [
-        browser, "--headless", "--no-sandbox", "--disable-gpu", "--no-first-run",
-        "--disable-background-networking", "--disable-component-update", "--disable-sync",
-        "--disable-dev-shm-usage", "--hide-scrollbars", f"--user-data-dir={profile}",
-        f"--screenshot={png_path}", "--window-size=1200,1600", f"file://{html_path}",
+        browser,
+        "--headless",
+        "--no-sandbox",
+        "--disable-gpu",
+        "--no-first-run",
+        "--disable-background-networking",
+        "--disable-component-update",
+        "--disable-sync",
+        "--disable-dev-shm-usage",
+        "--hide-scrollbars",
+        f"--user-data-dir={profile}",
+        f"--screenshot={png_path}",
+        "--window-size=1200,1600",
+        f"file://{html_path}",
     ]
     return subprocess.run(cmd, capture_output=True, text=True, timeout=120)
 
@@ -43,8 +52,10 @@ def _screenshot(browser: str, html_path, png_path, profile) -> subprocess.Comple
 def test_browser_renders_report(tmp_path):
     browser = _browser()
     if browser is None:
-        pytest.skip("no Chromium/Chrome found (looked for chromium, chromium-browser, google-chrome); "
-                    "install Debian's 'chromium' package to run this test")
+        pytest.skip(
+            "no Chromium/Chrome found (looked for chromium, chromium-browser, google-chrome); "
+            "install Debian's 'chromium' package to run this test"
+        )
     import matplotlib.image
 
     good = make_analysis(path="bar_A.wav", modes=THREE_MODES, n_hits=2)

@@ -22,25 +22,67 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import ringdown_modes  # noqa: E402  (tests/ is on sys.path under pytest)
 from typer.testing import CliRunner
 
 import ringdown
 from ringdown.cli import app
-
-from conftest import ringdown_modes  # noqa: E402  (tests/ is on sys.path under pytest)
 
 pytestmark = pytest.mark.browser
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "example_signals"
 
 #: Column headings of the wide tables of each report kind (what printing used to cut off).
-ANALYSIS_HEADINGS = ["f_d, Hz", "β, 1/s", "f_n, Hz", "ζ", "Q", "loss factor η", "log decrement δ", "f_r, Hz",
-                     "decay, dB/s", "T60, s", "method", "window, s", "cycles", "SNR, dB", "hits", "warnings"]
-COMPARISON_HEADINGS = ["f_d before, Hz", "f_d after, Hz", "shift, %", "ζ before", "ζ after", "ζ after/before",
-                       "test", "verdict", "Q before", "Q after", "T60 before, s", "T60 after, s", "condition",
-                       "sample rate, Hz", "repeats", "error"]
-CHECK_HEADINGS = ["part", "verdict", "reasons", "notes", "feature", "measured", "window", "result",
-                  "f_d, Hz", "T60, s", "SNR, dB", "warnings"]
+ANALYSIS_HEADINGS = [
+    "f_d, Hz",
+    "β, 1/s",
+    "f_n, Hz",
+    "ζ",
+    "Q",
+    "loss factor η",
+    "log decrement δ",
+    "f_r, Hz",
+    "decay, dB/s",
+    "T60, s",
+    "method",
+    "window, s",
+    "cycles",
+    "SNR, dB",
+    "hits",
+    "warnings",
+]
+COMPARISON_HEADINGS = [
+    "f_d before, Hz",
+    "f_d after, Hz",
+    "shift, %",
+    "ζ before",
+    "ζ after",
+    "ζ after/before",
+    "test",
+    "verdict",
+    "Q before",
+    "Q after",
+    "T60 before, s",
+    "T60 after, s",
+    "condition",
+    "sample rate, Hz",
+    "repeats",
+    "error",
+]
+CHECK_HEADINGS = [
+    "part",
+    "verdict",
+    "reasons",
+    "notes",
+    "feature",
+    "measured",
+    "window",
+    "result",
+    "f_d, Hz",
+    "T60, s",
+    "SNR, dB",
+    "warnings",
+]
 
 
 def _tool(*names: str) -> str | None:
@@ -63,9 +105,19 @@ def _need_tools() -> tuple[str, str, str]:
 
 def _chromium(browser: str, profile: Path, *args: str) -> subprocess.CompletedProcess:
     # the flags of tests/test_report_browser.py: offline-minded, fresh profile
-    cmd = [browser, "--headless", "--no-sandbox", "--disable-gpu", "--no-first-run",
-           "--disable-background-networking", "--disable-component-update", "--disable-sync",
-           "--disable-dev-shm-usage", f"--user-data-dir={profile}", *args]
+    cmd = [
+        browser,
+        "--headless",
+        "--no-sandbox",
+        "--disable-gpu",
+        "--no-first-run",
+        "--disable-background-networking",
+        "--disable-component-update",
+        "--disable-sync",
+        "--disable-dev-shm-usage",
+        f"--user-data-dir={profile}",
+        *args,
+    ]
     return subprocess.run(cmd, capture_output=True, text=True, timeout=180)
 
 
@@ -134,14 +186,22 @@ def _assert_printable(tools, html: Path, headings: list[str], tmp: Path) -> list
 
 def _assert_fits_1280(browser: str, html: Path, tmp: Path) -> None:
     """No table's right edge past a 1280 px window (Chromium's layout, read from the DOM)."""
-    script = ("<script>addEventListener('load', () => { const r = [...document.querySelectorAll('table')]"
-              ".map(t => t.getBoundingClientRect().right); document.body.setAttribute('data-right', "
-              "Math.max(0, ...r)); document.body.setAttribute('data-width', document.documentElement.clientWidth);"
-              " });</script>")
+    script = (
+        "<script>addEventListener('load', () => { const r = [...document.querySelectorAll('table')]"
+        ".map(t => t.getBoundingClientRect().right); document.body.setAttribute('data-right', "
+        "Math.max(0, ...r)); document.body.setAttribute('data-width', document.documentElement.clientWidth);"
+        " });</script>"
+    )
     probe = tmp / f"{html.stem}_probe.html"
     probe.write_text(html.read_text(encoding="utf-8").replace("</body>", script + "</body>", 1), encoding="utf-8")
-    proc = _chromium(browser, tmp / "profile", "--window-size=1280,900", "--virtual-time-budget=5000",
-                     "--dump-dom", f"file://{probe}")
+    proc = _chromium(
+        browser,
+        tmp / "profile",
+        "--window-size=1280,900",
+        "--virtual-time-budget=5000",
+        "--dump-dom",
+        f"file://{probe}",
+    )
     m = re.search(r'data-right="([\d.]+)" data-width="(\d+)"', proc.stdout)
     assert m, proc.stderr[-800:]
     right, width = float(m.group(1)), int(m.group(2))
@@ -158,8 +218,13 @@ def test_analysis_report_prints_whole(tools, tmp_path):
     x = ringdown_modes([(523.0, 4.0, 0.5), (1377.0, 11.0, 0.3)], sample_rate=8000.0, duration_s=1.5, seed=3)
     a = ringdown.analyze(x, 8000.0)
     html = tmp_path / "analysis.html"
-    ringdown.write_report([a, a], html, title="Bracket tap test", notes="invented demo data",
-                          fields=[("serial", "BR-0042"), ("operator", "A. Tester")])
+    ringdown.write_report(
+        [a, a],
+        html,
+        title="Bracket tap test",
+        notes="invented demo data",
+        fields=[("serial", "BR-0042"), ("operator", "A. Tester")],
+    )
     _assert_printable(tools, html, ANALYSIS_HEADINGS + ["Sign-off", "BR-0042"], tmp_path)
     _assert_fits_1280(tools[0], html, tmp_path)
 
@@ -167,8 +232,22 @@ def test_analysis_report_prints_whole(tools, tmp_path):
 def test_comparison_report_prints_whole(tools, tmp_path):
     html = tmp_path / "comparison.html"
     t = EXAMPLES / "treatment"
-    r = CliRunner().invoke(app, ["compare", "--before", str(t / "before_*.wav"), "--after", str(t / "after_*.wav"),
-                                 "--report", str(html), "--serial", "BR-7", "--title", "Patch trial"])
+    r = CliRunner().invoke(
+        app,
+        [
+            "compare",
+            "--before",
+            str(t / "before_*.wav"),
+            "--after",
+            str(t / "after_*.wav"),
+            "--report",
+            str(html),
+            "--serial",
+            "BR-7",
+            "--title",
+            "Patch trial",
+        ],
+    )
     assert r.exit_code == 0, r.output
     _assert_printable(tools, html, COMPARISON_HEADINGS + ["Patch trial", "BR-7"], tmp_path)
     _assert_fits_1280(tools[0], html, tmp_path)
@@ -177,14 +256,34 @@ def test_comparison_report_prints_whole(tools, tmp_path):
 def test_check_report_prints_whole(tools, tmp_path):
     line = EXAMPLES / "line"
     lim = tmp_path / "limits.toml"
-    r = CliRunner().invoke(app, ["limits", "learn", *map(str, sorted(line.glob("good_0*.wav"))), "-o", str(lim),
-                                 "--jobs", "1"])
+    r = CliRunner().invoke(
+        app, ["limits", "learn", *map(str, sorted(line.glob("good_0*.wav"))), "-o", str(lim), "--jobs", "1"]
+    )
     assert r.exit_code == 0, r.output
     html = tmp_path / "check.html"
-    r = CliRunner().invoke(app, ["check", "--limits", str(lim), str(line / "crack.wav"), str(line / "good_warm.wav"),
-                                 str(line / "good_01.wav"), "--db", str(tmp_path / "h.sqlite"), "--jobs", "1",
-                                 "--report", str(html), "--station", "EOL-2", "--operator", "A. Tester",
-                                 "--serial", "LOT-7"])
+    r = CliRunner().invoke(
+        app,
+        [
+            "check",
+            "--limits",
+            str(lim),
+            str(line / "crack.wav"),
+            str(line / "good_warm.wav"),
+            str(line / "good_01.wav"),
+            "--db",
+            str(tmp_path / "h.sqlite"),
+            "--jobs",
+            "1",
+            "--report",
+            str(html),
+            "--station",
+            "EOL-2",
+            "--operator",
+            "A. Tester",
+            "--serial",
+            "LOT-7",
+        ],
+    )
     assert r.exit_code == 1, r.output  # the cracked part fails
     _assert_printable(tools, html, CHECK_HEADINGS + ["EOL-2", "A. Tester", "LOT-7", "limits SHA-256"], tmp_path)
     _assert_fits_1280(tools[0], html, tmp_path)

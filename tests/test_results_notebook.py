@@ -22,8 +22,10 @@ def _decay(n_hits: int = 1) -> np.ndarray:
     # two modes: 612 Hz with zeta 0.002 and 1510 Hz with zeta 0.004 (invented), white noise 1e-4
     rng = np.random.default_rng(5)
     t = np.arange(int(0.8 * FS)) / FS
-    one = sum(a * np.exp(-2 * np.pi * f * z * t) * np.sin(2 * np.pi * f * np.sqrt(1 - z * z) * t)
-              for a, f, z in ((1.0, 612.0, 0.002), (0.5, 1510.0, 0.004)))
+    one = sum(
+        a * np.exp(-2 * np.pi * f * z * t) * np.sin(2 * np.pi * f * np.sqrt(1 - z * z) * t)
+        for a, f, z in ((1.0, 612.0, 0.002), (0.5, 1510.0, 0.004))
+    )
     pre = np.zeros(int(0.05 * FS))
     x = np.concatenate([pre, *([one] * n_hits)])
     return x + 1e-4 * rng.standard_normal(x.size)
@@ -50,8 +52,19 @@ def test_repr_is_short_and_holds_no_arrays(analysis):
 
 def test_repr_caps_the_mode_list():
     d = Derived(*([1.0, 0.1] * 10))
-    modes = tuple(Mode(index=i, derived=d, amplitude=1.0, snr_db=30.0, method="envelope", fit_start_s=0.0,
-                       fit_end_s=1.0, cycles_fitted=10.0) for i in range(1, 41))
+    modes = tuple(
+        Mode(
+            index=i,
+            derived=d,
+            amplitude=1.0,
+            snr_db=30.0,
+            method="envelope",
+            fit_start_s=0.0,
+            fit_end_s=1.0,
+            cycles_fitted=10.0,
+        )
+        for i in range(1, 41)
+    )
     a = Analysis(path="many.wav", sha256=None, channel="1", sample_rate_hz=FS, n_samples=48000, modes=modes)
     text = repr(a)
     assert len(text) < 1000 and "32 more" in text

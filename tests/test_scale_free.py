@@ -16,16 +16,17 @@ import math
 
 import numpy as np
 import pytest
+from conftest import ringdown_modes
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from conftest import ringdown_modes
 from ringdown import analyze, analyze_many
 
 # invented two-mode part, in cycles per sample and per-sample decay at 48 kHz
 BASE_FS = 48000.0
-BASE = ringdown_modes([(2943.0, 35.0, 1.0), (7377.0, 80.0, 0.5, 1.0)], sample_rate=BASE_FS, duration_s=1.0,
-                      pre_s=0.05, seed=5)
+BASE = ringdown_modes(
+    [(2943.0, 35.0, 1.0), (7377.0, 80.0, 0.5, 1.0)], sample_rate=BASE_FS, duration_s=1.0, pre_s=0.05, seed=5
+)
 _REF = None
 
 
@@ -58,10 +59,13 @@ def test_same_samples_at_any_rate(log10_fs):
     assert_same_modes(analyze(BASE, fs), fs)
 
 
-@pytest.mark.parametrize("fs, f, beta, duration_s, pre_s", [
-    (1e6, 150e3, 3000.0, 0.006, 0.001),  # invented: a 150 kHz mode at 1 MHz, 1 ms before the tap
-    (20.0, 0.5, 0.02, 400.0, 20.0),  # invented: a 0.5 Hz sway of a tall structure at 20 Hz
-])
+@pytest.mark.parametrize(
+    "fs, f, beta, duration_s, pre_s",
+    [
+        (1e6, 150e3, 3000.0, 0.006, 0.001),  # invented: a 150 kHz mode at 1 MHz, 1 ms before the tap
+        (20.0, 0.5, 0.02, 400.0, 20.0),  # invented: a 0.5 Hz sway of a tall structure at 20 Hz
+    ],
+)
 def test_fast_and_slow_modes(fs, f, beta, duration_s, pre_s):
     x = ringdown_modes([(f, beta, 1.0)], sample_rate=fs, duration_s=duration_s, pre_s=pre_s, seed=2)
     an = analyze(x, fs)

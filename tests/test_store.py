@@ -8,27 +8,51 @@ import sqlite3
 import pytest
 from numpy.testing import assert_allclose
 
-from ringdown.inspection.check import check
-from ringdown.base.errors import ParameterError, StoreError
-from ringdown.inspection.limits_file import parse_limits
 from ringdown.analysis.quantities import derive
 from ringdown.analysis.results import Analysis, Mode
-from ringdown.inspection.store import (SCHEMA_VERSION, ResultStore, file_sha256, parse_date, part_id_from_path,
-                            store_analysis)
+from ringdown.base.errors import ParameterError, StoreError
+from ringdown.inspection.check import check
+from ringdown.inspection.limits_file import parse_limits
+from ringdown.inspection.store import (
+    SCHEMA_VERSION,
+    ResultStore,
+    file_sha256,
+    parse_date,
+    part_id_from_path,
+    store_analysis,
+)
 
-LIMITS = parse_limits("[[modes]]\nf_hz = [990.0, 1010.0]\nzeta = [0.0005, 0.002]\n"
-                      "[[modes]]\nf_hz = [2790.0, 2810.0]\nratio = [2.79, 2.81]\n", source="lim.toml")
+LIMITS = parse_limits(
+    "[[modes]]\nf_hz = [990.0, 1010.0]\nzeta = [0.0005, 0.002]\n"
+    "[[modes]]\nf_hz = [2790.0, 2810.0]\nratio = [2.79, 2.81]\n",
+    source="lim.toml",
+)
 
 
 def mode(index, f_d, zeta):
     f_n = f_d / math.sqrt(1 - zeta**2)
-    return Mode(index=index, derived=derive(f_d, 2 * math.pi * f_n * zeta, f_d_hz_u=0.01, beta_per_s_u=0.05),
-                amplitude=0.3, snr_db=45.0, method="envelope", fit_start_s=0.0, fit_end_s=0.5, cycles_fitted=300.0)
+    return Mode(
+        index=index,
+        derived=derive(f_d, 2 * math.pi * f_n * zeta, f_d_hz_u=0.01, beta_per_s_u=0.05),
+        amplitude=0.3,
+        snr_db=45.0,
+        method="envelope",
+        fit_start_s=0.0,
+        fit_end_s=0.5,
+        cycles_fitted=300.0,
+    )
 
 
 def analysis(path, sha, f1=1000.0, f2=2800.0, zeta=1e-3):
-    return Analysis(path=path, sha256=sha, channel="1", sample_rate_hz=24000.0, n_samples=24000,
-                    modes=(mode(1, f1, zeta), mode(2, f2, zeta)), settings={"method": "auto"})
+    return Analysis(
+        path=path,
+        sha256=sha,
+        channel="1",
+        sample_rate_hz=24000.0,
+        n_samples=24000,
+        modes=(mode(1, f1, zeta), mode(2, f2, zeta)),
+        settings={"method": "auto"},
+    )
 
 
 def sha(text):
@@ -145,13 +169,13 @@ def test_a_failed_transaction_leaves_nothing(tmp_path, monkeypatch):
 
 def test_sql_in_a_file_name_is_text(tmp_path):
     db = tmp_path / "r.sqlite"
-    name = "x'); DROP TABLE results; --\"quoted\".wav"
+    name = 'x\'); DROP TABLE results; --"quoted".wav'
     with ResultStore(db) as st:
         st.record_check(check(analysis(name, sha("evil")), LIMITS), part_id=part_id_from_path(name))
         st.record_check(check(analysis("ok.wav", sha("ok")), LIMITS), part_id="ok")
         rows = st.query()
         assert [r.path for r in rows] == [name, "ok.wav"]
-        assert st.query(part="x'); DROP TABLE results; --\"quoted\"")[0].path == name
+        assert st.query(part='x\'); DROP TABLE results; --"quoted"')[0].path == name
 
 
 def test_query_filters(tmp_path):

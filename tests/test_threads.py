@@ -57,4 +57,3 @@ def test_analysis_runs_on_one_thread(monkeypatch):
     assert seen and all(n == 1 for s in seen for n in s)
     # textbook relation: the fitted decay is the one simulated (exact input, high SNR)
     assert an.modes[0].beta_per_s == pytest.approx(beta, rel=1e-3)
-

@@ -11,12 +11,12 @@ import json
 
 import numpy as np
 import pytest
+from conftest import ringdown_modes, write_wav
 from typer.testing import CliRunner
 
-from conftest import ringdown_modes, write_wav
 from ringdown import analyze, analyze_many
-from ringdown.cli import app
 from ringdown.base.errors import ParameterError
+from ringdown.cli import app
 
 FS = 16000.0
 runner = CliRunner()
@@ -44,13 +44,16 @@ def test_library_window_keeps_times_from_the_record_start():
     assert [round(m.f_d_hz) for m in early.modes] == [500]
 
 
-@pytest.mark.parametrize("kw, match", [
-    (dict(start_s=-1.0), "start_s must be a finite time >= 0"),
-    (dict(start_s=1.0, end_s=0.5), "must come after start_s"),
-    (dict(start_s=5.0), "lies beyond the end of the array"),
-    (dict(start_s=0.5, end_s=0.5001), "holds 2 samples"),
-    (dict(end_s="soon"), "end_s is a time in seconds"),
-])
+@pytest.mark.parametrize(
+    "kw, match",
+    [
+        (dict(start_s=-1.0), "start_s must be a finite time >= 0"),
+        (dict(start_s=1.0, end_s=0.5), "must come after start_s"),
+        (dict(start_s=5.0), "lies beyond the end of the array"),
+        (dict(start_s=0.5, end_s=0.5001), "holds 2 samples"),
+        (dict(end_s="soon"), "end_s is a time in seconds"),
+    ],
+)
 def test_bad_windows(kw, match):
     with pytest.raises(ParameterError, match=match):
         analyze(two_taps(), FS, **kw)
@@ -71,8 +74,16 @@ def test_cli_analyze_window(tmp_path):
 def test_cli_compare_window(tmp_path):
     before = [write_wav(tmp_path / f"b{i}.wav", two_taps(10 + i), FS) for i in range(3)]
     after = [write_wav(tmp_path / f"a{i}.wav", two_taps(20 + i, f2=1250.0), FS) for i in range(3)]
-    args = ["compare", *sum((["--before", b] for b in before), []), *sum((["--after", a] for a in after), []),
-            "--start", "0.85", "--end", "2", "--json"]
+    args = [
+        "compare",
+        *sum((["--before", b] for b in before), []),
+        *sum((["--after", a] for a in after), []),
+        "--start",
+        "0.85",
+        "--end",
+        "2",
+        "--json",
+    ]
     r = runner.invoke(app, args)
     assert r.exit_code == 0, r.output
     doc = json.loads(r.stdout)
@@ -94,8 +105,25 @@ def test_cli_limits_learn_and_check_window(tmp_path):
     assert r.exit_code == 0, r.output
     assert json.loads(r.stdout)["results"][0]["verdict"] == "pass"
     # a window holding only the first tap: its mode is not the learned one
-    r = runner.invoke(app, ["check", "--limits", str(lim), part, "--db", str(db), "--json", "--jobs", "1",
-                            "--start", "0", "--end", "0.85", "--force"])
+    r = runner.invoke(
+        app,
+        [
+            "check",
+            "--limits",
+            str(lim),
+            part,
+            "--db",
+            str(db),
+            "--json",
+            "--jobs",
+            "1",
+            "--start",
+            "0",
+            "--end",
+            "0.85",
+            "--force",
+        ],
+    )
     assert r.exit_code == 1, r.output
     assert json.loads(r.stdout)["results"][0]["verdict"] == "fail"
 

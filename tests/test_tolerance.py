@@ -8,8 +8,13 @@ from numpy.testing import assert_allclose
 from scipy import stats
 
 from ringdown.base.errors import ParameterError
-from ringdown.inspection.tolerance import (mahalanobis_scale, mahalanobis_threshold, tolerance_content_probability, tolerance_k,
-                                tolerance_k_howe)
+from ringdown.inspection.tolerance import (
+    mahalanobis_scale,
+    mahalanobis_threshold,
+    tolerance_content_probability,
+    tolerance_k,
+    tolerance_k_howe,
+)
 
 
 def test_k_matches_published_table_value():

@@ -61,8 +61,15 @@ def test_every_start_method_runs_the_batch(two_mode_wav):
     for method in multiprocessing.get_all_start_methods():
         ctx = multiprocessing.get_context(method)
         task = pipeline._FileTask({})
-        out = dict(run_batch(task, [two_mode_wav, two_mode_wav], on_error=task.failed, jobs=2,
-                             executor=lambda k: ProcessExecutor(k, preload=task.preload, context=ctx)))
+        out = dict(
+            run_batch(
+                task,
+                [two_mode_wav, two_mode_wav],
+                on_error=task.failed,
+                jobs=2,
+                executor=lambda k: ProcessExecutor(k, preload=task.preload, context=ctx),
+            )
+        )
         assert [out[i].error for i in (0, 1)] == [None, None], method
         # the conftest signal's modes: 440 Hz and 1250 Hz
         assert [round(m.f_d_hz) for m in out[0].modes] == [440, 1250], method

@@ -38,25 +38,47 @@ PKG = ROOT / "ringdown"
 
 #: old module (under ringdown, dotted) -> its new home
 MOVED = {
-    "errors": "base.errors", "_lazy": "base._lazy", "batch": "base.batch", "cluster": "base.cluster",
-    "matching": "base.matching", "numfmt": "base.numfmt",
-    "recording": "io.recording", "io": "io.read", "outputs": "io.outputs", "formats": "io.formats",
-    "condition": "analysis.condition", "peaks": "analysis.peaks", "detect": "analysis.detect",
-    "bands": "analysis.bands", "pipeline": "analysis.pipeline", "results": "analysis.results",
-    "quantities": "analysis.quantities", "crlb": "analysis.crlb", "estimators": "analysis.estimators",
+    "errors": "base.errors",
+    "_lazy": "base._lazy",
+    "batch": "base.batch",
+    "cluster": "base.cluster",
+    "matching": "base.matching",
+    "numfmt": "base.numfmt",
+    "recording": "io.recording",
+    "io": "io.read",
+    "outputs": "io.outputs",
+    "formats": "io.formats",
+    "condition": "analysis.condition",
+    "peaks": "analysis.peaks",
+    "detect": "analysis.detect",
+    "bands": "analysis.bands",
+    "pipeline": "analysis.pipeline",
+    "results": "analysis.results",
+    "quantities": "analysis.quantities",
+    "crlb": "analysis.crlb",
+    "estimators": "analysis.estimators",
     "compare": "treatment.compare",
-    "tolerance": "inspection.tolerance", "limits": "inspection.limits", "check": "inspection.check",
-    "store": "inspection.store", "parquet": "inspection.parquet",
+    "tolerance": "inspection.tolerance",
+    "limits": "inspection.limits",
+    "check": "inspection.check",
+    "store": "inspection.store",
+    "parquet": "inspection.parquet",
     "moduli": "materials.moduli",
-    "plots": "render.plots", "compare_plot": "render.compare_plot", "history_plot": "render.history_plot",
+    "plots": "render.plots",
+    "compare_plot": "render.compare_plot",
+    "history_plot": "render.history_plot",
     "report": "render.report",
 }
 #: names renamed along with the move (old -> new), replaced as whole words in the package
 RENAMED = {"_sha256_file": "sha256_file"}
 #: names that left ``inspection.limits`` when it was split (name -> its module now)
-SPLIT_NAMES = {"learn_limits": "inspection.learning", "limits_to_toml": "inspection.limits_file",
-               "parse_limits": "inspection.limits_file", "read_limits": "inspection.limits_file",
-               "write_limits": "inspection.limits_file"}
+SPLIT_NAMES = {
+    "learn_limits": "inspection.learning",
+    "limits_to_toml": "inspection.limits_file",
+    "parse_limits": "inspection.limits_file",
+    "read_limits": "inspection.limits_file",
+    "write_limits": "inspection.limits_file",
+}
 #: old names that are also public functions of the package (``ringdown.compare(...)``)
 PUBLIC_FUNCTIONS = {"compare", "moduli", "check"}
 ROOMS = {"base", "io", "analysis", "treatment", "inspection", "materials", "render", "cli"}
@@ -82,7 +104,7 @@ def old_name(new: str) -> str:
         return MOVED_NOW[new]
     for old, moved in sorted(MOVED.items(), key=lambda kv: -len(kv[1])):
         if new == moved or new.startswith(moved + "."):
-            return old + new[len(moved):]
+            return old + new[len(moved) :]
     return new
 
 
@@ -165,17 +187,21 @@ def fix_imports(path: Path) -> list[str]:
                 if node.end_lineno != node.lineno:
                     notes_early.append(f"{path}:{node.lineno}: import over several lines; fix by hand")
                     continue
-                parts = [f"{leaf} as {a.asname or a.name}" if leaf != (a.asname or a.name) else leaf
-                         for leaf, a in zip(leaves, node.names)]
+                parts = [
+                    f"{leaf} as {a.asname or a.name}" if leaf != (a.asname or a.name) else leaf
+                    for leaf, a in zip(leaves, node.names)
+                ]
                 line = lines[node.lineno - 1]
                 indent = line[: len(line) - len(line.lstrip())]
-                tail = line[node.end_col_offset:]
+                tail = line[node.end_col_offset :]
                 lines[node.lineno - 1] = f"{indent}from {relative(package, target)} import {', '.join(parts)}{tail}"
                 notes_early.append(f"{path.relative_to(ROOT)}:{node.lineno}: now {lines[node.lineno - 1].strip()}")
                 continue
         if target == "inspection.limits" and any(n in SPLIT_NAMES for n in names):
-            notes_early.append(f"{path}:{node.lineno}: import {', '.join(n for n in names if n in SPLIT_NAMES)} from "
-                               f"{sorted({SPLIT_NAMES[n] for n in names if n in SPLIT_NAMES})} by hand")
+            notes_early.append(
+                f"{path}:{node.lineno}: import {', '.join(n for n in names if n in SPLIT_NAMES)} from "
+                f"{sorted({SPLIT_NAMES[n] for n in names if n in SPLIT_NAMES})} by hand"
+            )
         if not exists(target):
             target = _found_elsewhere(target)
         if not exists(target):
@@ -191,7 +217,7 @@ def fix_imports(path: Path) -> list[str]:
             continue
         if m.group(1) != spec:
             notes.append(f"{path.relative_to(ROOT)}:{lineno}: {m.group(1)} -> {spec}")
-            lines[lineno - 1] = line[: m.start(1)] + spec + line[m.end(1):]
+            lines[lineno - 1] = line[: m.start(1)] + spec + line[m.end(1) :]
     new = "".join(lines)
     for old_word, new_word in RENAMED.items():
         if re.search(rf"\b{old_word}\b", new):
@@ -218,8 +244,9 @@ def _split_from_root(m: re.Match) -> str:
     for n in names:
         home = MOVED[n].rpartition(".")[0] if n in MOVED and n not in PUBLIC_FUNCTIONS else ""
         groups.setdefault(home, []).append(n.rpartition(".")[2] if not home else MOVED[n].rpartition(".")[2])
-    return "; ".join(f"from ringdown{'.' + home if home else ''} import {', '.join(ns)}"
-                     for home, ns in groups.items()) + m.group(2)
+    return "; ".join(
+        f"from ringdown{'.' + home if home else ''} import {', '.join(ns)}" for home, ns in groups.items()
+    ) + m.group(2)
 
 
 def fix_names(path: Path) -> int:
@@ -228,8 +255,10 @@ def fix_names(path: Path) -> int:
     count = 0
 
     def one(line: str) -> str:
-        is_import = (re.match(r"\s*(from|import)\s", line) is not None
-                     or re.search(r"[\"'](import|from) ringdown", line) is not None)
+        is_import = (
+            re.match(r"\s*(from|import)\s", line) is not None
+            or re.search(r"[\"'](import|from) ringdown", line) is not None
+        )
 
         def rep(m: re.Match) -> str:
             nonlocal count
@@ -255,8 +284,14 @@ def fix_names(path: Path) -> int:
 
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--move", nargs=2, action="append", default=[], metavar=("SRC", "DST"),
-                    help="git mv SRC DST first (give each new flat module its room)")
+    ap.add_argument(
+        "--move",
+        nargs=2,
+        action="append",
+        default=[],
+        metavar=("SRC", "DST"),
+        help="git mv SRC DST first (give each new flat module its room)",
+    )
     args = ap.parse_args(argv)
     for src, dst in args.move:
         Path(ROOT, dst).parent.mkdir(parents=True, exist_ok=True)
@@ -267,7 +302,12 @@ def main(argv: list[str] | None = None) -> int:
     for path in sorted(PKG.rglob("*.py")):
         notes += fix_imports(path)
     n = 0
-    others = [p for d in ("tests", "docs", "example_signals") for p in (ROOT / d).rglob("*") if p.suffix in (".py", ".md", ".sh")]
+    others = [
+        p
+        for d in ("tests", "docs", "example_signals")
+        for p in (ROOT / d).rglob("*")
+        if p.suffix in (".py", ".md", ".sh")
+    ]
     for path in others + [ROOT / "README.md", ROOT / "DEVELOPERS.md"]:
         if path.is_file():
             n += fix_names(path)

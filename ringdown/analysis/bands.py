@@ -146,7 +146,7 @@ class Band:
         i = int(round((t_s - self.t0_s) * self.sample_rate))
         return min(max(i, 0), self.z.shape[0] - 1)
 
-    def with_noise(self, noise_rms: float) -> "Band":
+    def with_noise(self, noise_rms: float) -> Band:
         """A copy with ``noise_rms`` set."""
         return replace(self, noise_rms=float(noise_rms))
 

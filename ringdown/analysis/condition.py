@@ -288,7 +288,7 @@ def noise_floor_db(level_db: np.ndarray, smoothing: int = 3) -> float:
     m = (n // b) * b
     med = np.median(level_db[:m].reshape(-1, b), axis=1)
     if m < n:
-        med = np.append(med, np.median(level_db[n - b:]))
+        med = np.append(med, np.median(level_db[n - b :]))
     return min(float(np.min(med)), lead)
 
 
@@ -457,8 +457,9 @@ def _rises(level_db: np.ndarray, w: int, hold: int, rise_db: float, threshold: f
     prev_max = np.full(n, -np.inf)
     span = min(hold - w, n)
     if span > 0 and n > w:
-        mx = maximum_filter1d(level_db, size=span, origin=(span - 1) // 2, mode="constant",
-                              cval=-np.inf)  # max over [k - span + 1, k]
+        mx = maximum_filter1d(
+            level_db, size=span, origin=(span - 1) // 2, mode="constant", cval=-np.inf
+        )  # max over [k - span + 1, k]
         prev_max[w:] = mx[: n - w]
     return np.flatnonzero((level_db - prev_min >= rise_db) & (level_db >= threshold) & (level_db >= prev_max + 3.0))
 
@@ -482,7 +483,9 @@ def _find_bounce(level_db, onset, window, rise, rise_db, end, settle=0) -> int |
     seg = level_db[k:b]
     from scipy.ndimage import minimum_filter1d
 
-    prev_min = minimum_filter1d(seg, size=r, origin=(r - 1) // 2, mode="constant", cval=np.inf)  # min over [i - r + 1, i]
+    prev_min = minimum_filter1d(
+        seg, size=r, origin=(r - 1) // 2, mode="constant", cval=np.inf
+    )  # min over [i - r + 1, i]
     rise_arr = np.full(seg.shape[0], -np.inf)
     rise_arr[r:] = seg[r:] - prev_min[r - 1 : -1]
     hits = np.flatnonzero((rise_arr >= rise_db) & (seg >= level_db[k] - 6.0))
@@ -492,7 +495,7 @@ def _find_bounce(level_db, onset, window, rise, rise_db, end, settle=0) -> int |
 def _energy_step(slow_db: np.ndarray, onset: int, bounce: int, smoothing: int) -> bool:
     """Whether the slow level rises 3 dB around ``bounce`` (within 4 smoothing widths) above
     its lowest since ``onset``."""
-    a = onset + int(np.argmax(slow_db[onset:bounce + 1]))
+    a = onset + int(np.argmax(slow_db[onset : bounce + 1]))
     lo = float(np.min(slow_db[a : bounce + 1]))
     reach = int(round(ENERGY_STEP_WIDTHS * smoothing))
     hi = float(np.max(slow_db[bounce : min(slow_db.shape[0], bounce + reach + 1)]))
@@ -509,8 +512,7 @@ PLATEAU_WIDTHS = 4
 FALL_DB = 20.0
 
 
-def free_decay_start(x: np.ndarray, level_db: np.ndarray, span: HitSpan, *, smoothing: int,
-                     noise_db: float) -> HitSpan:
+def free_decay_start(x: np.ndarray, level_db: np.ndarray, span: HitSpan, *, smoothing: int, noise_db: float) -> HitSpan:
     """Where the free decay of a hit starts: at the hit itself, or where a steady drive stops.
 
     A forced response (an RLC circuit or a part driven by a shaker) holds its level while the
@@ -571,35 +573,47 @@ def free_decay_start(x: np.ndarray, level_db: np.ndarray, span: HitSpan, *, smoo
     k_fall = k_last + int(fell[0])
     u = np.arange(plateau.shape[0], dtype=np.float64)
     slope_p = float(np.polyfit(u, plateau, 1)[0]) if plateau.shape[0] >= 3 else 0.0
-    fall = seg[k_last:k_fall + 1]
-    slope_f = float(np.polyfit(np.arange(fall.shape[0], dtype=np.float64), fall, 1)[0]) if fall.shape[0] >= 3 \
+    fall = seg[k_last : k_fall + 1]
+    slope_f = (
+        float(np.polyfit(np.arange(fall.shape[0], dtype=np.float64), fall, 1)[0])
+        if fall.shape[0] >= 3
         else (float(seg[k_fall]) - float(seg[k_last])) / max(k_fall - k_last, 1)
+    )
     if not (slope_f < 0 and slope_p > PLATEAU_SLOPE_RATIO * slope_f):
         return _start_doubt(span)
-    high = np.flatnonzero(seg[:k_last + 1] >= level_p - 1.0)
+    high = np.flatnonzero(seg[: k_last + 1] >= level_p - 1.0)
     k_off = int(high[-1]) if high.size else 0
     start = a + k_off + 2 * sm
     if start >= b - 4 * sm:
         return _start_doubt(span)
-    xp = x[a:a + k_off + 1]
-    xd = x[start:min(b, start + 2 * sm)]
+    xp = x[a : a + k_off + 1]
+    xd = x[start : min(b, start + 2 * sm)]
     p_decay = float(np.var(xd)) if xd.size > 1 else 0.0
     kind = "release" if xp.size > 1 and float(np.var(xp)) < 0.1 * p_decay else "switch-off"
     doubt = None
     scatter = float(np.std(plateau))
     if scatter > 3.0:
-        doubt = (f"the level before the {kind} was not steady (scatter {scatter:.1f} dB); "
-                 "the free decay's start is uncertain")
-    peak = start + int(np.argmax(level_db[start:min(b, start + 2 * sm + 1)]))
+        doubt = (
+            f"the level before the {kind} was not steady (scatter {scatter:.1f} dB); "
+            "the free decay's start is uncertain"
+        )
+    peak = start + int(np.argmax(level_db[start : min(b, start + 2 * sm + 1)]))
     return HitSpan(start, peak, b, span.bounce, kind, span.onset, doubt)
 
 
 def _start_doubt(span: HitSpan) -> HitSpan:
     if span.onset > 0:
         return span
-    return HitSpan(span.onset, span.peak, span.end, span.bounce, span.kind, span.rise,
-                   "the level is already high at the first sample: the record may start after the decay did, "
-                   "so its start is not in the record")
+    return HitSpan(
+        span.onset,
+        span.peak,
+        span.end,
+        span.bounce,
+        span.kind,
+        span.rise,
+        "the level is already high at the first sample: the record may start after the decay did, "
+        "so its start is not in the record",
+    )
 
 
 def find_clipping(x: np.ndarray, *, full_scale: float | None, min_run: int = 3) -> np.ndarray:

@@ -68,8 +68,16 @@ from .bands import Band, extract_band, settling_time_s, spectrum_of
 
 scipy_linalg = lazy_module("scipy.linalg")
 
-__all__ = ["Candidate", "find_candidates", "band_noise_rms", "noise_density", "mf_snr", "snr_threshold",
-           "P_FALSE", "SV_MARGIN"]
+__all__ = [
+    "Candidate",
+    "find_candidates",
+    "band_noise_rms",
+    "noise_density",
+    "mf_snr",
+    "snr_threshold",
+    "P_FALSE",
+    "SV_MARGIN",
+]
 
 #: False candidates per record the significance threshold allows (a choice, see module notes).
 P_FALSE = 1e-3
@@ -196,7 +204,7 @@ def _hankel_svd(y: np.ndarray):
     n = y.shape[0]
     lp = max(n // 3, 1)
     rows = n - lp
-    hank = scipy_linalg.hankel(y[:rows], y[rows - 1:])
+    hank = scipy_linalg.hankel(y[:rows], y[rows - 1 :])
     try:
         _, sv, vh = scipy_linalg.svd(hank, full_matrices=False, lapack_driver="gesdd")
     except (np.linalg.LinAlgError, ValueError):
@@ -249,7 +257,7 @@ def _wald(phi: np.ndarray, y: np.ndarray, var: np.ndarray) -> tuple[np.ndarray, 
     matched-filter statistic of a column given the others (exponentially distributed with mean
     1 for noise alone when the noise is white at variance ``var_k`` per sample)."""
     c, *_ = np.linalg.lstsq(phi, y, rcond=None)
-    gram = (phi.conj().T @ phi)
+    gram = phi.conj().T @ phi
     try:
         diag = np.real(np.diag(np.linalg.inv(gram)))
     except np.linalg.LinAlgError:
@@ -305,8 +313,7 @@ def _early(seg: np.ndarray, fs: float, noise_f, noise_p, fit_id0: int) -> list[C
                 continue
             amp = float(math.hypot(c[i], c[kk + i]))
             d = 0.5 * float(stat[i] + stat[kk + i])
-            out.append(Candidate(f, beta, max(beta / math.pi, fs / n), amp, d, "early", fit_id0 + k,
-                                 rate / y.shape[0]))
+            out.append(Candidate(f, beta, max(beta / math.pi, fs / n), amp, d, "early", fit_id0 + k, rate / y.shape[0]))
     return out
 
 
@@ -320,7 +327,7 @@ def _sub_bands(spec, fs: float, f_min: float, noise_f, noise_p, fit_id0: int) ->
     k = 0
     while fc / math.sqrt(2.0) < 0.98 * nyq:
         lo, hi = fc / math.sqrt(2.0), min(fc * math.sqrt(2.0), nyq)
-        core_lo, core_hi = fc * 2 ** -0.25, fc * 2 ** 0.25
+        core_lo, core_hi = fc * 2**-0.25, fc * 2**0.25
         fc *= math.sqrt(2.0)
         k += 1
         if hi - lo <= 0:
@@ -337,7 +344,7 @@ def _sub_bands(spec, fs: float, f_min: float, noise_f, noise_p, fit_id0: int) ->
             continue
         level = min(1e-2, max(1e-8, 0.3 * noise_rms / peak))
         i0 = int(math.ceil((settling_time_s(band, level=level)) * rate))
-        y = z[i0: i0 + BAND_SAMPLES]
+        y = z[i0 : i0 + BAND_SAMPLES]
         if y.shape[0] < 24:
             continue
         r, g = _noise_acf(band, rate, 2)
@@ -362,14 +369,32 @@ def _sub_bands(spec, fs: float, f_min: float, noise_f, noise_p, fit_id0: int) ->
                 # a pole as broad as the mask is shaped by it (its frequency pulled to the mask's
                 # centre): broad modes are the early search's
                 continue
-            out.append(Candidate(f, beta, max(beta / math.pi, spec.sample_rate / spec.n_samples),
-                                 float(abs(c[i]) / gain[i]), float(stat[i]), "band", fit_id0 + k, rate / y.shape[0]))
+            out.append(
+                Candidate(
+                    f,
+                    beta,
+                    max(beta / math.pi, spec.sample_rate / spec.n_samples),
+                    float(abs(c[i]) / gain[i]),
+                    float(stat[i]),
+                    "band",
+                    fit_id0 + k,
+                    rate / y.shape[0],
+                )
+            )
     return out
 
 
-def find_candidates(x: np.ndarray, sample_rate: float, *, start: int, end: int, noise_f: np.ndarray,
-                    noise_p: np.ndarray, spectral: list | None = None,
-                    parametric: bool = True) -> tuple[list[Candidate], list[Candidate]]:
+def find_candidates(
+    x: np.ndarray,
+    sample_rate: float,
+    *,
+    start: int,
+    end: int,
+    noise_f: np.ndarray,
+    noise_p: np.ndarray,
+    spectral: list | None = None,
+    parametric: bool = True,
+) -> tuple[list[Candidate], list[Candidate]]:
     """Every mode the record's decay from sample ``start`` to ``end`` may hold.
 
     Parameters

@@ -41,8 +41,16 @@ from ..base.errors import InputError, NoRingdownError, ParameterError
 from ..io.recording import Recording
 from .results import Analysis, Notice, lighten
 
-__all__ = ["Segment", "Segmenter", "analyze_blocks", "analyze_long_file", "is_long_sound_file",
-           "FRAME_SAMPLES", "SEGMENT_SAMPLES", "LONG_FILE_SAMPLES"]
+__all__ = [
+    "Segment",
+    "Segmenter",
+    "analyze_blocks",
+    "analyze_long_file",
+    "is_long_sound_file",
+    "FRAME_SAMPLES",
+    "SEGMENT_SAMPLES",
+    "LONG_FILE_SAMPLES",
+]
 
 #: Samples per frame of the trigger's level: 256, a common audio block (common practice, no
 #: source). Short against a tap's decay at audio rates, long enough that the mean square of
@@ -121,21 +129,24 @@ class _Buffer:
     def append(self, x: np.ndarray) -> None:
         n = x.shape[0]
         if self._hi + n > self._a.shape[0]:
-            live = self._a[self._lo:self._hi]
-            cap = max(self._a.shape[0], 2 * (live.shape[0] + n)) if live.shape[0] + n > self._a.shape[0] // 2 \
+            live = self._a[self._lo : self._hi]
+            cap = (
+                max(self._a.shape[0], 2 * (live.shape[0] + n))
+                if live.shape[0] + n > self._a.shape[0] // 2
                 else self._a.shape[0]
+            )
             new = np.empty(cap)
-            new[:live.shape[0]] = live
+            new[: live.shape[0]] = live
             self._a, self._lo, self._hi = new, 0, live.shape[0]
-        self._a[self._hi:self._hi + n] = x
+        self._a[self._hi : self._hi + n] = x
         self._hi += n
 
     def view(self, lo: int, hi: int) -> np.ndarray:
-        return self._a[self._lo + lo:self._lo + hi]
+        return self._a[self._lo + lo : self._lo + hi]
 
     def take(self, n: int) -> np.ndarray:
         """Remove and return (a copy of) the first ``n`` samples."""
-        out = self._a[self._lo:self._lo + n].copy()
+        out = self._a[self._lo : self._lo + n].copy()
         self._lo += n
         return out
 
@@ -165,9 +176,16 @@ class Segmenter:
         Frame of the level (:data:`FRAME_SAMPLES`).
     """
 
-    def __init__(self, sample_rate: float, *, min_hit_snr_db: float = 20.0, min_segment: int = SEGMENT_SAMPLES,
-                 max_segment: int | None = None, one_hit_per_segment: bool = False,
-                 frame: int = FRAME_SAMPLES) -> None:
+    def __init__(
+        self,
+        sample_rate: float,
+        *,
+        min_hit_snr_db: float = 20.0,
+        min_segment: int = SEGMENT_SAMPLES,
+        max_segment: int | None = None,
+        one_hit_per_segment: bool = False,
+        frame: int = FRAME_SAMPLES,
+    ) -> None:
         if not (isinstance(min_segment, (int, np.integer)) and min_segment >= 0):
             raise ParameterError(f"min_segment must be a whole number of samples >= 0; got {min_segment!r}")
         self.sample_rate = float(sample_rate)
@@ -240,8 +258,12 @@ class Segmenter:
         F = self.frame
         floor = self._floor()
         recent = list(self._recent)
-        rise = (floor is not None and len(recent) >= RISE_FRAMES and lv - min(recent[-RISE_FRAMES:]) >= RISE_DB
-                and lv >= floor + self.min_hit_snr_db)
+        rise = (
+            floor is not None
+            and len(recent) >= RISE_FRAMES
+            and lv - min(recent[-RISE_FRAMES:]) >= RISE_DB
+            and lv >= floor + self.min_hit_snr_db
+        )
         if not self._active:
             if rise:
                 self._start_hit(k)
@@ -301,8 +323,15 @@ class Segmenter:
         self._triggers = [t for t in self._triggers if t >= r_cut]
         samples = self._buf.take(n)
         start = self._stream_index(self._recv0)
-        out.append(Segment(samples=samples, start=start, triggers=tuple(self._stream_index(t) for t in trig),
-                           dropped=self._lost_in(self._recv0, r_cut), truncated=truncated or self._truncated_open))
+        out.append(
+            Segment(
+                samples=samples,
+                start=start,
+                triggers=tuple(self._stream_index(t) for t in trig),
+                dropped=self._lost_in(self._recv0, r_cut),
+                truncated=truncated or self._truncated_open,
+            )
+        )
         self._truncated_open = truncated
         self._recv0 = r_cut
         self.n_segments += 1
@@ -321,9 +350,16 @@ class Segmenter:
 # a file's analysis through the engine
 
 
-def analyze_blocks(source, *, min_segment: int = SEGMENT_SAMPLES, max_segment: int | None = None,
-                   progress: Callable[[int, int | None], None] | None = None, sample_offset: int = 0,
-                   reader_settings: dict | None = None, **options) -> Analysis:
+def analyze_blocks(
+    source,
+    *,
+    min_segment: int = SEGMENT_SAMPLES,
+    max_segment: int | None = None,
+    progress: Callable[[int, int | None], None] | None = None,
+    sample_offset: int = 0,
+    reader_settings: dict | None = None,
+    **options,
+) -> Analysis:
     """Analyse a block source (a long file) segment by segment; one :class:`Analysis` for all.
 
     Parameters
@@ -374,15 +410,22 @@ def analyze_blocks(source, *, min_segment: int = SEGMENT_SAMPLES, max_segment: i
 
     def run(seg: Segment, last: bool = False) -> None:
         whole = last and segmenter.n_segments == 1  # nothing was cut: this may be the whole source
-        rec = Recording(samples=seg.samples, sample_rate=fs, channel=getattr(source, "channel", "1"), path=path,
-                        sha256=getattr(source, "sha256", None) if path else None,
-                        full_scale=getattr(source, "full_scale", None), n_channels=getattr(source, "n_channels", 1),
-                        notes=tuple(getattr(source, "notes", ())))
+        rec = Recording(
+            samples=seg.samples,
+            sample_rate=fs,
+            channel=getattr(source, "channel", "1"),
+            path=path,
+            sha256=getattr(source, "sha256", None) if path else None,
+            full_scale=getattr(source, "full_scale", None),
+            n_channels=getattr(source, "n_channels", 1),
+            notes=tuple(getattr(source, "notes", ())),
+        )
         a: Analysis | None = None
         err: Exception | None = None
         try:
-            a = analyze_recording(rec, reader_settings=reader_settings, sample_offset=sample_offset + seg.start,
-                                  **seg_options)
+            a = analyze_recording(
+                rec, reader_settings=reader_settings, sample_offset=sample_offset + seg.start, **seg_options
+            )
         except (NoRingdownError, InputError) as exc:
             err = exc
         else:
@@ -416,16 +459,30 @@ def analyze_blocks(source, *, min_segment: int = SEGMENT_SAMPLES, max_segment: i
     for seg, _, a, exc in results:
         t_seg = (sample_offset + seg.start) / fs
         if seg.dropped:
-            notes.append(Notice("input_dropped", f"{seg.dropped} samples were lost (input overflow) in the segment at "
-                                                 f"{t_seg:.6g} s; times and decays after the loss are unreliable"))
+            notes.append(
+                Notice(
+                    "input_dropped",
+                    f"{seg.dropped} samples were lost (input overflow) in the segment at "
+                    f"{t_seg:.6g} s; times and decays after the loss are unreliable",
+                )
+            )
         if seg.truncated:
-            notes.append(Notice("decay_truncated", f"a decay at {t_seg:.6g} s rang longer than the "
-                                                   f"{segmenter.max_segment}-sample buffer and was cut there"))
+            notes.append(
+                Notice(
+                    "decay_truncated",
+                    f"a decay at {t_seg:.6g} s rang longer than the "
+                    f"{segmenter.max_segment}-sample buffer and was cut there",
+                )
+            )
         if exc is not None or a is None:
             if seg.triggers:
                 t = (sample_offset + seg.triggers[0]) / fs
-                notes.append(Notice("segment_without_ringdown", f"the level rose at {t:.6g} s but no ring-down was "
-                                                                f"measured there: {exc}"))
+                notes.append(
+                    Notice(
+                        "segment_without_ringdown",
+                        f"the level rose at {t:.6g} s but no ring-down was measured there: {exc}",
+                    )
+                )
             continue
         a = lighten(a)
         k = len(hits)
@@ -441,14 +498,31 @@ def analyze_blocks(source, *, min_segment: int = SEGMENT_SAMPLES, max_segment: i
     if not used:
         reasons = "; ".join(sorted({n.message for n in notes} | {w.message for h in hits for w in h.warnings}))
         raise NoRingdownError(f"no mode could be measured in {name}: {reasons or 'no hit rose above the noise'}")
-    notes.insert(0, Notice("segmented", f"read in blocks: {len(results)} segments of about {min_segment} samples, "
-                                        "cut where the level was back at the noise; hits combined over the file"))
+    notes.insert(
+        0,
+        Notice(
+            "segmented",
+            f"read in blocks: {len(results)} segments of about {min_segment} samples, "
+            "cut where the level was back at the noise; hits combined over the file",
+        ),
+    )
     return Analysis(
-        path=path, sha256=getattr(source, "sha256", None) if path else None, channel=getattr(source, "channel", "1"),
-        unit=None, sample_rate_hz=fs, n_samples=int(n_total), hits=tuple(hits), modes=tuple(_combine_hits(used)),
-        warnings=tuple(_unique(notes + warnings)), error=None, settings=settings,
-        noise_floor=float(min(floors)), noise_source=sources[int(np.argmin(floors))], recording=None,
-        rejected=tuple(rejected))
+        path=path,
+        sha256=getattr(source, "sha256", None) if path else None,
+        channel=getattr(source, "channel", "1"),
+        unit=None,
+        sample_rate_hz=fs,
+        n_samples=int(n_total),
+        hits=tuple(hits),
+        modes=tuple(_combine_hits(used)),
+        warnings=tuple(_unique(notes + warnings)),
+        error=None,
+        settings=settings,
+        noise_floor=float(min(floors)),
+        noise_source=sources[int(np.argmin(floors))],
+        recording=None,
+        rejected=tuple(rejected),
+    )
 
 
 def is_long_sound_file(path, *, threshold: int = LONG_FILE_SAMPLES) -> bool:
@@ -470,9 +544,16 @@ def is_long_sound_file(path, *, threshold: int = LONG_FILE_SAMPLES) -> bool:
         return False
 
 
-def analyze_long_file(path, *, channel=None, column=None, sample_rate: float | None = None,
-                      progress: Callable[[int, int | None], None] | None = None,
-                      min_segment: int = SEGMENT_SAMPLES, **options) -> Analysis:
+def analyze_long_file(
+    path,
+    *,
+    channel=None,
+    column=None,
+    sample_rate: float | None = None,
+    progress: Callable[[int, int | None], None] | None = None,
+    min_segment: int = SEGMENT_SAMPLES,
+    **options,
+) -> Analysis:
     """Analyse a sound file through the block engine (what :func:`ringdown.analyze_file` does for
     files of more than :data:`LONG_FILE_SAMPLES` samples). Options as for ``analyze_file``;
     ``progress(samples_read, total)`` is called after each block."""
@@ -488,8 +569,9 @@ def analyze_long_file(path, *, channel=None, column=None, sample_rate: float | N
         start, stop = window_bounds(n_file, src.sample_rate, opts, repr(src.path))
         src = SoundFileBlocks(path, channel=chosen, sample_rate=sample_rate, start=start, stop=stop)
     reader = {"channel": channel, "column": column, "sample_rate": sample_rate}
-    a = analyze_blocks(src, min_segment=min_segment, progress=progress, sample_offset=start,
-                       reader_settings=reader, **options)
+    a = analyze_blocks(
+        src, min_segment=min_segment, progress=progress, sample_offset=start, reader_settings=reader, **options
+    )
     if start or stop != n_file:
         a = replace(a, n_samples=n_file)
     return a

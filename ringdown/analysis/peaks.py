@@ -88,8 +88,9 @@ def find_peaks(
     step = max(1, f.shape[0] // 4096)
     coarse = p_db[::step]
     width = max(9, (coarse.shape[0] // 8) | 1)
-    floor = np.interp(np.arange(f.shape[0]), np.arange(0, f.shape[0], step),
-                      ndimage.median_filter(coarse, size=width, mode="nearest"))
+    floor = np.interp(
+        np.arange(f.shape[0]), np.arange(0, f.shape[0], step), ndimage.median_filter(coarse, size=width, mode="nearest")
+    )
     height = floor + min_prominence_db
     if noise_psd is not None:
         # E|X_k|^2 / n^2 of windowed noise = S(f) fs sum(w^2) / (2 n^2) for one-sided density S
@@ -116,8 +117,14 @@ def find_peaks(
         off = float(np.clip(off, -0.5, 0.5))
         # half-power width from the power spectrum around the peak
         width_hz = max(_half_power_bins(p_db, k) * df, df)
-        peaks.append(Peak(f_hz=float(f[k] + off * df), level_db=float(b - 0.25 * (a - c) * off),
-                          prominence_db=float(prom), width_hz=float(width_hz)))
+        peaks.append(
+            Peak(
+                f_hz=float(f[k] + off * df),
+                level_db=float(b - 0.25 * (a - c) * off),
+                prominence_db=float(prom),
+                width_hz=float(width_hz),
+            )
+        )
     if noise_psd is not None and broad:
         # the Welch estimate averaged over 9 of its bins: a short pre-trigger's estimate scatters
         # by ~1.5 dB per bin, as much as a broad peak's margin (as detect.smooth_density)
@@ -152,8 +159,9 @@ BROAD_SCALES = (8, 32, 128)
 BROAD_PROMINENCE_DB = 6.0
 
 
-def _broad_peaks(f: np.ndarray, p: np.ndarray, noise: np.ndarray, n: int, sample_rate: float,
-                 sharp: list[Peak]) -> list[Peak]:
+def _broad_peaks(
+    f: np.ndarray, p: np.ndarray, noise: np.ndarray, n: int, sample_rate: float, sharp: list[Peak]
+) -> list[Peak]:
     """Peaks many bins wide (heavily damped modes, Q down to ~3) that the bin-by-bin search
     misses: the running median it compares with sits on a hump that wide.
 
@@ -180,7 +188,7 @@ def _broad_peaks(f: np.ndarray, p: np.ndarray, noise: np.ndarray, n: int, sample
         ns = ndimage.uniform_filter1d(noise, k, mode="nearest")
         cells = max(f.shape[0] / k, 2.0)
         # 2 dB more for the scatter of the Welch estimate of the noise level, as in find_peaks
-        margin = (1.0 + (math.log(cells / 1e-3) + 3.0 * math.sqrt(m)) / m) * 10 ** 0.2
+        margin = (1.0 + (math.log(cells / 1e-3) + 3.0 * math.sqrt(m)) / m) * 10**0.2
         db = 10.0 * np.log10(ps + 1e-300)
         idx, props = signal.find_peaks(db, prominence=BROAD_PROMINENCE_DB)
         for i, prom in zip(idx, props["prominences"]):
@@ -195,8 +203,9 @@ def _broad_peaks(f: np.ndarray, p: np.ndarray, noise: np.ndarray, n: int, sample
             width_hz = math.sqrt(max(width_bins**2 - k**2 / 3.0, (0.5 * k) ** 2)) * df
             if any(abs(q.f_hz - f[i]) <= max(0.5 * width_hz, q.width_hz) for q in found):
                 continue
-            pk = Peak(f_hz=float(f[i]), level_db=float(db[i]), prominence_db=float(prom), width_hz=float(width_hz),
-                      broad=True)
+            pk = Peak(
+                f_hz=float(f[i]), level_db=float(db[i]), prominence_db=float(prom), width_hz=float(width_hz), broad=True
+            )
             out.append(pk)
             found.append(pk)
     return out

@@ -9,22 +9,21 @@ that cannot be analysed gives an ``Analysis`` whose ``error`` is set; the others
 from __future__ import annotations
 
 import math
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from dataclasses import dataclass, replace
-from typing import Callable, Iterable, Iterator, Sequence
 
 import numpy as np
 
-from . import condition
 from ..base._threads import one_blas_thread
-from . import detect
+from ..base.errors import FitError, InputError, NoRingdownError, ParameterError
+from ..io.recording import Recording
+from . import condition, detect
 from .bands import Band, Spectrum, extract_band, settling_time_s, spectrum_of
 from .detect import Candidate
-from ..base.errors import FitError, InputError, NoRingdownError, ParameterError, RingdownError
 from .estimators import ESTIMATORS, Window, method_names
 from .estimators.decrement import band_peaks
 from .peaks import Peak, find_peaks, group_bands
 from .quantities import DB_PER_NEPER, derive
-from ..io.recording import Recording
 from .results import Analysis, Estimate, Hit, Mode, ModeTrace, Notice, Rejected
 
 __all__ = ["analyze", "analyze_recording", "analyze_file", "analyze_many", "iter_analyze_files", "AnalysisOptions"]
@@ -90,12 +89,13 @@ class AnalysisOptions:
             object.__setattr__(self, "bands", tuple(sorted(clean)))
 
     @classmethod
-    def from_kwargs(cls, options: dict) -> "AnalysisOptions":
+    def from_kwargs(cls, options: dict) -> AnalysisOptions:
         """Validated options from keyword arguments; an unknown name is a ParameterError."""
         unknown = sorted(set(options) - set(cls.__slots__))
         if unknown:
-            raise ParameterError(f"unknown analysis option(s) {', '.join(map(repr, unknown))}; "
-                                 f"known: {', '.join(cls.__slots__)}")
+            raise ParameterError(
+                f"unknown analysis option(s) {', '.join(map(repr, unknown))}; known: {', '.join(cls.__slots__)}"
+            )
         return cls(**options)
 
     @property
@@ -187,8 +187,15 @@ def analyze(
     """
     rec = Recording(np.asarray(x, dtype=np.float64), sample_rate)
     return analyze_recording(
-        rec, method=method, bands=bands, max_modes=max_modes, min_snr_db=min_snr_db,
-        min_hit_snr_db=min_hit_snr_db, keep_double_hits=keep_double_hits, start_s=start_s, end_s=end_s,
+        rec,
+        method=method,
+        bands=bands,
+        max_modes=max_modes,
+        min_snr_db=min_snr_db,
+        min_hit_snr_db=min_hit_snr_db,
+        keep_double_hits=keep_double_hits,
+        start_s=start_s,
+        end_s=end_s,
         detection=detection,
     )
 
@@ -222,8 +229,10 @@ def analyze_file(
         return analyze_recording(rec, reader_settings=reader, **options)
     except MemoryError as exc:
         # one line for this file; a batch keeps the other files' results
-        raise InputError(f"{str(path)!r} needs more memory than is available to read or analyse it; "
-                         "cut it shorter (--start/--end) or split it") from exc
+        raise InputError(
+            f"{str(path)!r} needs more memory than is available to read or analyse it; "
+            "cut it shorter (--start/--end) or split it"
+        ) from exc
 
 
 def analyze_many(
@@ -267,8 +276,9 @@ def analyze_many(
     return [r for r in results if r is not None]
 
 
-def iter_analyze_files(paths: Sequence[str], *, jobs: int = 1, executor=None, on_notice=None, client=None,
-                       **options) -> Iterator[tuple[int, Analysis]]:
+def iter_analyze_files(
+    paths: Sequence[str], *, jobs: int = 1, executor=None, on_notice=None, client=None, **options
+) -> Iterator[tuple[int, Analysis]]:
     """Analyse several files; yield ``(position, Analysis)`` as each finishes.
 
     The batch runner of every command (:func:`ringdown.batch.run_batch`): a file whose analysis
@@ -298,8 +308,17 @@ def iter_analyze_files(paths: Sequence[str], *, jobs: int = 1, executor=None, on
 
 #: Modules the analysis of a file imports lazily: batch workers import them before their first
 #: file (``batch.run_batch``'s warm start), instead of paying ~0.6-1 s each on it.
-WORKER_PRELOAD = ("soundfile", "scipy.fft", "scipy.linalg", "scipy.ndimage", "scipy.optimize", "scipy.signal",
-                  "threadpoolctl", "ringdown.io.read", "ringdown.io.formats")
+WORKER_PRELOAD = (
+    "soundfile",
+    "scipy.fft",
+    "scipy.linalg",
+    "scipy.ndimage",
+    "scipy.optimize",
+    "scipy.signal",
+    "threadpoolctl",
+    "ringdown.io.read",
+    "ringdown.io.formats",
+)
 
 
 class _FileTask:
@@ -322,8 +341,9 @@ class _FileTask:
 
 
 @one_blas_thread
-def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, sample_offset: int = 0,
-                      **options) -> Analysis:
+def analyze_recording(
+    rec: Recording, *, reader_settings: dict | None = None, sample_offset: int = 0, **options
+) -> Analysis:
     """Analyse a :class:`Recording` (the common path of :func:`analyze` and :func:`analyze_file`).
 
     Keyword options are those of :func:`analyze`. ``sample_offset`` is the index, in a longer
@@ -350,8 +370,10 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, sa
     i0 += int(sample_offset)
     peak_abs = float(np.max(np.abs(raw)))
     if peak_abs > MAX_ABS_SAMPLE:
-        raise InputError(f"{name} holds values up to {peak_abs:.3g}, beyond the {MAX_ABS_SAMPLE:g} that can be squared "
-                         "without overflow; rescale the signal (e.g. to volts or m/s^2)")
+        raise InputError(
+            f"{name} holds values up to {peak_abs:.3g}, beyond the {MAX_ABS_SAMPLE:g} that can be squared "
+            "without overflow; rescale the signal (e.g. to volts or m/s^2)"
+        )
     if float(np.ptp(raw)) == 0.0:
         raise InputError(f"{name} is constant (every sample is {raw[0]:g}): nothing rings down")
     x, step, f_dom = condition.remove_drift_and_step(raw, fs)
@@ -365,8 +387,15 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, sa
     slow = condition.envelope_db(x, fs, smoothing=2 * smoothing)
     # the prediction error shows a second tap on a record still ringing from the first
     inn_level = condition.envelope_db(condition.innovation(x), fs, smoothing=smoothing)
-    spans = condition.find_hits(level, fs, noise_db=noise_db, min_hit_snr_db=opts.min_hit_snr_db,
-                                smoothing=smoothing, slow_level_db=slow, innovation_level_db=inn_level)
+    spans = condition.find_hits(
+        level,
+        fs,
+        noise_db=noise_db,
+        min_hit_snr_db=opts.min_hit_snr_db,
+        smoothing=smoothing,
+        slow_level_db=slow,
+        innovation_level_db=inn_level,
+    )
     band_note = None
     if not spans:
         # a narrowband mode can stand far above its band's noise while the broadband level does
@@ -374,12 +403,18 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, sa
         found = _hits_in_strongest_band(x, fs, opts.min_hit_snr_db, smoothing)
         if found is not None:
             spans, f_band = found
-            band_note = Notice("hits_in_band", f"the broadband level does not rise {opts.min_hit_snr_db:g} dB above its "
-                                               f"noise; hits were found in the band around {f_band:.1f} Hz")
+            band_note = Notice(
+                "hits_in_band",
+                f"the broadband level does not rise {opts.min_hit_snr_db:g} dB above its "
+                f"noise; hits were found in the band around {f_band:.1f} Hz",
+            )
     if not spans:
         peak_db = float(level.max() - noise_db)
-        hint = (f"; it holds {rec.n_channels} channels (this is {rec.channel!r}): try another with --channel"
-                if rec.n_channels > 1 else "")
+        hint = (
+            f"; it holds {rec.n_channels} channels (this is {rec.channel!r}): try another with --channel"
+            if rec.n_channels > 1
+            else ""
+        )
         raise NoRingdownError(
             f"no ring-down found in {name}: the envelope never rises {opts.min_hit_snr_db:g} dB above its "
             f"noise floor (highest {peak_db:.1f} dB); check the gain, the trigger or the file{hint}"
@@ -388,31 +423,56 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, sa
     spans = [condition.free_decay_start(raw, slow, sp, smoothing=smoothing, noise_db=noise_db) for sp in spans]
     if step is not None:
         # a step of the mean where a hit rises: a held deflection let go
-        spans = [replace(sp, kind="release") if sp.kind == "impulse" and abs(sp.onset - step) <= 2 * smoothing else sp
-                 for sp in spans]
+        spans = [
+            replace(sp, kind="release") if sp.kind == "impulse" and abs(sp.onset - step) <= 2 * smoothing else sp
+            for sp in spans
+        ]
     clipped = condition.find_clipping(raw, full_scale=rec.full_scale)
     rec_warnings: list[Notice] = [band_note] if band_note is not None else []
     if rec.n_channels > 1:
-        rec_warnings.append(Notice("multichannel", f"{name} holds {rec.n_channels} channels (or data columns); only "
-                                                   f"{rec.channel!r} was analysed (choose another with --channel)"))
+        rec_warnings.append(
+            Notice(
+                "multichannel",
+                f"{name} holds {rec.n_channels} channels (or data columns); only "
+                f"{rec.channel!r} was analysed (choose another with --channel)",
+            )
+        )
     rec_warnings.extend(Notice(code, message) for code, message in getattr(rec, "notes", ()))
     if rec.timing_jitter is not None and rec.timing_jitter > 1e-6:
-        rec_warnings.append(Notice("timing_jitter", f"time steps jitter by {100 * rec.timing_jitter:.3g} % RMS (accepted)"))
+        rec_warnings.append(
+            Notice("timing_jitter", f"time steps jitter by {100 * rec.timing_jitter:.3g} % RMS (accepted)")
+        )
 
     noise_f, noise_p, noise_source, noise_note = _noise_spectrum(x, fs, spans, level, noise_db, smoothing)
     if noise_note is not None:
         rec_warnings.append(noise_note)
     tones = condition.steady_tones(noise_f, noise_p) if noise_source == "pre_trigger" else []
     for f_tone in tones:
-        rec_warnings.append(Notice("stationary_tone", f"steady tone near {f_tone:.1f} Hz before the hit (mains hum or "
-                                                      "another running source?); not a mode"))
+        rec_warnings.append(
+            Notice(
+                "stationary_tone",
+                f"steady tone near {f_tone:.1f} Hz before the hit (mains hum or another running source?); not a mode",
+            )
+        )
 
-    ctx = _RecordContext(x=x, fs=fs, opts=opts, noise_f=noise_f, noise_p=noise_p, noise_db=noise_db, level=level,
-                         clipped=clipped, tones=tuple(tones), i0=i0, smoothing=smoothing)
+    ctx = _RecordContext(
+        x=x,
+        fs=fs,
+        opts=opts,
+        noise_f=noise_f,
+        noise_p=noise_p,
+        noise_db=noise_db,
+        level=level,
+        clipped=clipped,
+        tones=tuple(tones),
+        i0=i0,
+        smoothing=smoothing,
+    )
     hits: list[Hit] = []
     for j, span in enumerate(spans):
-        earlier = tuple((m.f_d_hz, max(m.beta_per_s / math.pi, 3.0 * (m.f_d_hz_u or 0.0)))
-                        for h in hits for m in h.modes)
+        earlier = tuple(
+            (m.f_d_hz, max(m.beta_per_s / math.pi, 3.0 * (m.f_d_hz_u or 0.0))) for h in hits for m in h.modes
+        )
         hits.append(_analyze_hit(ctx, span, prev_end=spans[j - 1].end if j > 0 else 0, earlier=earlier))
 
     used = [h for h in hits if h.used and h.modes]
@@ -425,8 +485,11 @@ def analyze_recording(rec: Recording, *, reader_settings: dict | None = None, sa
         raise NoRingdownError(f"no mode could be measured in {name}: {reasons}")
     modes = _combine_hits(used)
     for h in hits:
-        rec_warnings.extend(w for w in h.warnings if w.code in ("double_hit", "clipped", "stationary_tone",
-                                                                "start_uncertain", "candidate_rejected"))
+        rec_warnings.extend(
+            w
+            for w in h.warnings
+            if w.code in ("double_hit", "clipped", "stationary_tone", "start_uncertain", "candidate_rejected")
+        )
     return Analysis(
         path=rec.path,
         sha256=rec.sha256,
@@ -463,8 +526,10 @@ def window_bounds(n: int, fs: float, opts: AnalysisOptions, name: str) -> tuple[
         raise ParameterError(f"start {start:g} s lies beyond the end of {name} ({dur:g} s); give an earlier --start")
     i_lo, i_hi = int(math.floor(start * fs)), min(n, int(math.ceil(end * fs)))
     if i_hi - i_lo < MIN_SAMPLES:
-        raise ParameterError(f"the time window {start:g}-{end:g} s of {name} holds {max(i_hi - i_lo, 0)} samples; "
-                             f"at least {MIN_SAMPLES} are needed")
+        raise ParameterError(
+            f"the time window {start:g}-{end:g} s of {name} holds {max(i_hi - i_lo, 0)} samples; "
+            f"at least {MIN_SAMPLES} are needed"
+        )
     return i_lo, i_hi
 
 
@@ -487,20 +552,31 @@ def _hits_in_strongest_band(x: np.ndarray, fs: float, min_hit_snr_db: float, smo
     band = extract_band(spectrum_of(x, fs), lo + 0.25 * (hi - lo), hi - 0.25 * (hi - lo), skirt_hz=0.25 * (hi - lo))
     t = np.arange(x.shape[0]) / fs
     level = np.interp(t, band.t_s, 20.0 * np.log10(np.abs(band.z) + 1e-300))
-    rise = max(int(round(condition.RISE_WIDTHS * smoothing)),
-               int(round(2.0 * settling_time_s(band, beta_per_s=math.pi * p.width_hz, level=1e-2) * fs)))
+    rise = max(
+        int(round(condition.RISE_WIDTHS * smoothing)),
+        int(round(2.0 * settling_time_s(band, beta_per_s=math.pi * p.width_hz, level=1e-2) * fs)),
+    )
     hold = max(int(round(condition.HOLD_OFF_WIDTHS * smoothing)), 2 * rise)
     # the median, not the 5th percentile: an unsmoothed narrowband level dips far below its mean
     # (|z|^2 of noise is exponential: 5th percentile -13 dB, median -1.6 dB re the mean)
-    spans = condition.find_hits(level, fs, noise_db=float(np.median(level)), min_hit_snr_db=min_hit_snr_db,
-                                rise_samples=rise, hold_off_samples=hold, smoothing=max(3, rise),
-                                bounce_window_samples=int(round(condition.BOUNCE_WIDTHS * smoothing)))
+    spans = condition.find_hits(
+        level,
+        fs,
+        noise_db=float(np.median(level)),
+        min_hit_snr_db=min_hit_snr_db,
+        rise_samples=rise,
+        hold_off_samples=hold,
+        smoothing=max(3, rise),
+        bounce_window_samples=int(round(condition.BOUNCE_WIDTHS * smoothing)),
+    )
     return (spans, p.f_hz) if spans else None
 
 
 def _keep(hit: Hit) -> Hit:
-    note = Notice("flagged_hit_used", f"hit at {hit.start_s:.6g} s was flagged but is the only measurable one; "
-                                      "its modes are reported anyway")
+    note = Notice(
+        "flagged_hit_used",
+        f"hit at {hit.start_s:.6g} s was flagged but is the only measurable one; its modes are reported anyway",
+    )
     return replace(hit, used=True, warnings=hit.warnings + (note,))
 
 
@@ -520,8 +596,9 @@ MIN_NOISE_SAMPLES = 256
 NOISE_SOURCES = ("pre_trigger", "tail", "record_end")
 
 
-def _noise_spectrum(x: np.ndarray, fs: float, spans, level: np.ndarray, noise_db: float,
-                    smoothing: int) -> tuple[np.ndarray, np.ndarray, str, Notice | None]:
+def _noise_spectrum(
+    x: np.ndarray, fs: float, spans, level: np.ndarray, noise_db: float, smoothing: int
+) -> tuple[np.ndarray, np.ndarray, str, Notice | None]:
     """Noise PSD from where only noise is, where it came from, and a warning when in doubt.
 
     1. ``"pre_trigger"``: the samples before the first hit's rise (the tap, or the start of a
@@ -547,19 +624,22 @@ def _noise_spectrum(x: np.ndarray, fs: float, spans, level: np.ndarray, noise_db
     m = (n - last) // blk
     loud = last
     if m > 0:
-        med = np.median(level[last:last + m * blk].reshape(m, blk), axis=1)
+        med = np.median(level[last : last + m * blk].reshape(m, blk), axis=1)
         above = np.flatnonzero(med > noise_db + 4.0)
         loud = last + (int(above[-1]) + 1) * blk if above.size else last
-    rest = level[last + m * blk:]
+    rest = level[last + m * blk :]
     if rest.size and float(np.median(rest)) > noise_db + 4.0:
         loud = n
     if n - loud >= min_len:
         return (*condition.noise_psd(x[loud:], fs), "tail", None)
     n_tail = min(n, max(min_len, n // 10))
-    note = Notice("noise_uncertain", f"no stretch of noise alone in the record (the pre-trigger holds {max(first, 0)} "
-                                     "samples and the decay still rings at the end): the noise was taken from the "
-                                     "record's last 10 %, an upper bound; fit windows may end early and the hit's "
-                                     "SNR is under-stated. Record more before the hit or until the decay has died away")
+    note = Notice(
+        "noise_uncertain",
+        f"no stretch of noise alone in the record (the pre-trigger holds {max(first, 0)} "
+        "samples and the decay still rings at the end): the noise was taken from the "
+        "record's last 10 %, an upper bound; fit windows may end early and the hit's "
+        "SNR is under-stated. Record more before the hit or until the decay has died away",
+    )
     return (*condition.noise_psd(x[-n_tail:], fs), "record_end", note)
 
 
@@ -622,24 +702,44 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
     if span.doubt is not None:
         warnings.append(Notice("start_uncertain", f"hit at {onset_s:.6g} s: {span.doubt}"))
     if span.bounce is not None:
-        warnings.append(Notice("double_hit", f"hit at {onset_s:.6g} s has a second onset {1e3 * (span.bounce - span.onset) / fs:.3g} ms later (hammer bounce?)"
-                               + ("" if opts.keep_double_hits else "; left out of the combined result")))
+        warnings.append(
+            Notice(
+                "double_hit",
+                f"hit at {onset_s:.6g} s has a second onset {1e3 * (span.bounce - span.onset) / fs:.3g} ms later (hammer bounce?)"
+                + ("" if opts.keep_double_hits else "; left out of the combined result"),
+            )
+        )
         used = opts.keep_double_hits
     clipped = ctx.clipped
     clip_in = clipped[(clipped >= span.onset) & (clipped < seg_end)] if clipped.size else clipped
     clip_end = None
     if clip_in.size:
         clip_end = int(clip_in[-1]) + 1
-        warnings.append(Notice("clipped", f"{clip_in.size} samples clipped between {(clip_in[0] + i0) / fs:.6g} and "
-                                          f"{(clip_end + i0) / fs:.6g} s; fits start after the clipping ends"))
+        warnings.append(
+            Notice(
+                "clipped",
+                f"{clip_in.size} samples clipped between {(clip_in[0] + i0) / fs:.6g} and "
+                f"{(clip_end + i0) / fs:.6g} s; fits start after the clipping ends",
+            )
+        )
     model = opts.detection == "model"
     decay_from = max(span.onset if model else span.peak, clip_end or 0)
-    peak_value = float(np.max(np.abs(x[span.onset:seg_end])))
+    peak_value = float(np.max(np.abs(x[span.onset : seg_end])))
     hit_snr = float(ctx.level[span.peak] - ctx.noise_db)
 
     def hit(used_: bool, modes_=(), rejected_=()) -> Hit:
-        return Hit(onset_s, (span.peak + i0) / fs, peak_value, hit_snr, (seg_end + i0) / fs, used_, tuple(warnings),
-                   tuple(modes_), tuple(rejected_), start_kind=span.kind)
+        return Hit(
+            onset_s,
+            (span.peak + i0) / fs,
+            peak_value,
+            hit_snr,
+            (seg_end + i0) / fs,
+            used_,
+            tuple(warnings),
+            tuple(modes_),
+            tuple(rejected_),
+            start_kind=span.kind,
+        )
 
     if seg_end - decay_from < MIN_SAMPLES:
         warnings.append(Notice("short_decay", f"hit at {onset_s:.6g} s leaves {seg_end - decay_from} samples of decay"))
@@ -648,11 +748,19 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
     # what the record held before the hit's rise (at least one smoothing width of it): bounds the
     # amplitude any steady tone could have had there
     rise = span.rise if span.rise is not None else span.onset
-    pre_x = x[prev_end:max(prev_end, rise - ctx.smoothing)]
-    pre_rms = float(np.sqrt(np.mean(pre_x**2))) if span.kind == "impulse" and pre_x.size >= max(ctx.smoothing, 16) else None
-    hctx = _HitContext(record=ctx, spec=spectrum_of(x[seg_start:seg_end], fs, t0_s=(seg_start + i0) / fs),
-                       onset_s=onset_s, clip_end=None if clip_end is None else clip_end + i0, seg_end=seg_end + i0,
-                       pre_rms=pre_rms, earlier=earlier)
+    pre_x = x[prev_end : max(prev_end, rise - ctx.smoothing)]
+    pre_rms = (
+        float(np.sqrt(np.mean(pre_x**2))) if span.kind == "impulse" and pre_x.size >= max(ctx.smoothing, 16) else None
+    )
+    hctx = _HitContext(
+        record=ctx,
+        spec=spectrum_of(x[seg_start:seg_end], fs, t0_s=(seg_start + i0) / fs),
+        onset_s=onset_s,
+        clip_end=None if clip_end is None else clip_end + i0,
+        seg_end=seg_end + i0,
+        pre_rms=pre_rms,
+        earlier=earlier,
+    )
     rejected: list[Rejected] = []
     cands: list[Candidate] = []
     if opts.bands is not None:
@@ -689,20 +797,30 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
         modes.extend(found)
     if residual:
         # after clipping, the residual holds what the clipped samples did to the decay: no broad search
-        more, more_rejected = _residual_round(hctx, start, modes, [c for c in cands if c not in deferred], deferred,
-                                              broad=clip_end is None)
+        more, more_rejected = _residual_round(
+            hctx, start, modes, [c for c in cands if c not in deferred], deferred, broad=clip_end is None
+        )
         modes.extend(more)
         rejected.extend(more_rejected)
     modes = _drop_driven(modes, onset_s, warnings)
     if failed:
         shown = "; ".join(failed[:3]) + (f"; and {len(failed) - 3} more" if len(failed) > 3 else "")
-        warnings.append(Notice("fit_failed", f"{len(failed)} band(s) in the hit at {onset_s:.6g} s could not be fitted: {shown}"))
+        warnings.append(
+            Notice("fit_failed", f"{len(failed)} band(s) in the hit at {onset_s:.6g} s could not be fitted: {shown}")
+        )
     modes.sort(key=lambda m: m.f_d_hz)
     if opts.max_modes is not None and len(modes) > opts.max_modes:
         ranked = sorted(modes, key=lambda m: -(m.amplitude or 0.0))
-        for m in ranked[opts.max_modes:]:
-            rejected.append(Rejected(m.f_d_hz, m.beta_per_s, None, "max_modes",
-                                     f"amplitude {m.amplitude:.3g} is below the {opts.max_modes} strongest"))
+        for m in ranked[opts.max_modes :]:
+            rejected.append(
+                Rejected(
+                    m.f_d_hz,
+                    m.beta_per_s,
+                    None,
+                    "max_modes",
+                    f"amplitude {m.amplitude:.3g} is below the {opts.max_modes} strongest",
+                )
+            )
         modes = sorted(ranked[: opts.max_modes], key=lambda m: m.f_d_hz)
     modes = [m.with_updates(index=i + 1) for i, m in enumerate(modes)]
     warnings.extend(r.notice() for r in rejected)
@@ -729,8 +847,15 @@ def _subtract_modes(seg: np.ndarray, fs: float, modes: Sequence[Mode]) -> np.nda
     return seg - phi @ coef
 
 
-def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: list[Candidate],
-                    deferred: Sequence[Candidate] = (), *, broad: bool = True):
+def _residual_round(
+    hctx: _HitContext,
+    start: int,
+    modes: list[Mode],
+    cands: list[Candidate],
+    deferred: Sequence[Candidate] = (),
+    *,
+    broad: bool = True,
+):
     """Modes the first search could not see beside stronger ones: subtract every measured mode
     from the decay (CLEAN, Hogbom 1974 [from memory]: successive cancellation of the strongest
     components), look for spectral peaks in what is left against the same noise spectrum, and
@@ -775,8 +900,10 @@ def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: lis
         peaks = find_peaks(resid, fs, noise_psd=(ctx.noise_f, ctx.noise_p), broad=broad and round_ == 0)
         fresh = []
         for p in peaks:
-            near_mode = any(abs(p.f_hz - m.f_d_hz) <= max(2.0 * m.beta_per_s / math.pi, 3.0 * res_hz,
-                                                          3.0 * (m.f_d_hz_u or 0.0)) for m in known)
+            near_mode = any(
+                abs(p.f_hz - m.f_d_hz) <= max(2.0 * m.beta_per_s / math.pi, 3.0 * res_hz, 3.0 * (m.f_d_hz_u or 0.0))
+                for m in known
+            )
             near_cand = any(abs(p.f_hz - f) <= max(w, 2.0 * res_hz) for f, w in tried)
             if not (near_mode or near_cand):
                 fresh.append(p)
@@ -786,8 +913,10 @@ def _residual_round(hctx: _HitContext, start: int, modes: list[Mode], cands: lis
         barriers = tuple(ctx.tones) + tuple(m.f_d_hz for m in known)
         found_round: list[Mode] = []
         for g, lo, hi in group_bands(fresh, sample_rate=fs, resolution_hz=res_hz, barriers_hz=barriers):
-            gc = [Candidate(p.f_hz, math.pi * p.width_hz, max(p.width_hz, res_hz), None, None, "residual", -2, res_hz)
-                  for p in g]
+            gc = [
+                Candidate(p.f_hz, math.pi * p.width_hz, max(p.width_hz, res_hz), None, None, "residual", -2, res_hz)
+                for p in g
+            ]
             raw = _needs_raw_fit(gc, lo, hi) or any(lo < m.f_d_hz < hi for m in known)
             if raw and _too_many(gc, rejected):
                 continue
@@ -816,12 +945,16 @@ def _new_near(got: list[Mode], cands: list[Candidate], known: Sequence[Mode], re
     of its candidates was (within the larger of the candidate's and the mode's half-power width,
     three of the mode's standard uncertainties and the resolution): a fit that wandered off to
     model something else is not a mode of its own (its candidate is then named as rejected)."""
+
     def near(m: Mode, f: float, w: float) -> bool:
         return abs(m.f_d_hz - f) <= max(w, m.beta_per_s / math.pi, 3.0 * (m.f_d_hz_u or 0.0), resolution_hz)
 
-    return [m for m in got
-            if not any(abs(m.f_d_hz - k.f_d_hz) <= max(k.beta_per_s / math.pi, 3.0 * resolution_hz) for k in known)
-            and any(near(m, c.f_hz, c.width_hz) for c in cands)]
+    return [
+        m
+        for m in got
+        if not any(abs(m.f_d_hz - k.f_d_hz) <= max(k.beta_per_s / math.pi, 3.0 * resolution_hz) for k in known)
+        and any(near(m, c.f_hz, c.width_hz) for c in cands)
+    ]
 
 
 #: A broad hump is a heavily damped mode only if the fitted decay explains its width: the half-power
@@ -843,14 +976,28 @@ def _resolved_raw(got: list[Mode], rejected: list[Rejected], cands: Sequence[Can
         broad = [c for c in cands if c.source in ("spectrum", "residual") and c.beta_per_s is not None]
         c = min(broad, key=lambda c: abs(c.f_hz - m.f_d_hz), default=None)
         if not (m.beta_per_s > 3.0 * (m.beta_per_s_u or math.inf)):
-            rejected.append(Rejected(m.f_d_hz, m.beta_per_s, None, "near_noise",
-                                     f"fitted decay {m.beta_per_s:.3g} +- {m.beta_per_s_u or float('nan'):.2g} 1/s "
-                                     "is not resolved: noise, not a heavily damped mode"))
+            rejected.append(
+                Rejected(
+                    m.f_d_hz,
+                    m.beta_per_s,
+                    None,
+                    "near_noise",
+                    f"fitted decay {m.beta_per_s:.3g} +- {m.beta_per_s_u or float('nan'):.2g} 1/s "
+                    "is not resolved: noise, not a heavily damped mode",
+                )
+            )
         elif c is not None and WIDTH_MISMATCH * m.beta_per_s / math.pi < c.width_hz:
-            rejected.append(Rejected(m.f_d_hz, m.beta_per_s, None, "unresolved",
-                                     f"fitted half-power width {m.beta_per_s / math.pi:.3g} Hz is far narrower than "
-                                     f"the {c.width_hz:.3g} Hz hump it was fitted to: a remnant of a subtracted "
-                                     "mode, not a heavily damped one"))
+            rejected.append(
+                Rejected(
+                    m.f_d_hz,
+                    m.beta_per_s,
+                    None,
+                    "unresolved",
+                    f"fitted half-power width {m.beta_per_s / math.pi:.3g} Hz is far narrower than "
+                    f"the {c.width_hz:.3g} Hz hump it was fitted to: a remnant of a subtracted "
+                    "mode, not a heavily damped one",
+                )
+            )
         else:
             out.append(m)
     return out
@@ -866,18 +1013,35 @@ def _too_many(group: list[Candidate], rejected: list[Rejected]) -> bool:
     """Whether a group is too large for one raw fit; if so its candidates are named ``unresolved``."""
     if len(group) <= MAX_RAW_TARGETS:
         return False
-    rejected.extend(_rejection(c, "unresolved", f"one of {len(group)} broad humps side by side between "
-                                                f"{group[0].f_hz:.1f} and {group[-1].f_hz:.1f} Hz (a remnant of the "
-                                                "subtracted modes, or more heavily damped modes than one fit can "
-                                                "separate); not fitted") for c in group)
+    rejected.extend(
+        _rejection(
+            c,
+            "unresolved",
+            f"one of {len(group)} broad humps side by side between "
+            f"{group[0].f_hz:.1f} and {group[-1].f_hz:.1f} Hz (a remnant of the "
+            "subtracted modes, or more heavily damped modes than one fit can "
+            "separate); not fitted",
+        )
+        for c in group
+    )
     return True
 
 
 def _as_candidates(modes: Sequence[Mode], resolution_hz: float) -> list[Candidate]:
     """Measured modes as candidates, to be fitted jointly (as nuisance modes) with a new one."""
-    return [Candidate(m.f_d_hz, m.beta_per_s, max(m.beta_per_s / math.pi, resolution_hz), m.amplitude,
-                      None if m.snr_db is None else 10 ** (m.snr_db / 10.0), "measured", -3, resolution_hz)
-            for m in modes]
+    return [
+        Candidate(
+            m.f_d_hz,
+            m.beta_per_s,
+            max(m.beta_per_s / math.pi, resolution_hz),
+            m.amplitude,
+            None if m.snr_db is None else 10 ** (m.snr_db / 10.0),
+            "measured",
+            -3,
+            resolution_hz,
+        )
+        for m in modes
+    ]
 
 
 #: A group is fitted on the raw record when a mode's band would reach less than this many
@@ -901,15 +1065,23 @@ def _free_decay_start(ctx: _RecordContext, span, clip_end: int | None) -> int:
     hi = max(span.peak, span.onset + 1)
     # relative to the level just before: drift removal over the whole record can leave a local
     # offset of a few sigma before the hit
-    before = x[max(0, lo - 4 * (hi - lo) - 16):lo]
+    before = x[max(0, lo - 4 * (hi - lo) - 16) : lo]
     base = float(np.median(before)) if before.size >= 8 else 0.0
-    loud = np.flatnonzero(np.abs(x[lo:hi + 1] - base) > START_SIGMAS * sigma)
+    loud = np.flatnonzero(np.abs(x[lo : hi + 1] - base) > START_SIGMAS * sigma)
     start = lo + int(loud[0]) if loud.size else span.onset
     return max(start, clip_end or 0)
 
 
-def _candidates(ctx: _RecordContext, start: int, seg_end: int, rejected: list[Rejected], *, parametric: bool = True,
-                broad: bool = False, max_peaks: int | None = None):
+def _candidates(
+    ctx: _RecordContext,
+    start: int,
+    seg_end: int,
+    rejected: list[Rejected],
+    *,
+    parametric: bool = True,
+    broad: bool = False,
+    max_peaks: int | None = None,
+):
     """Candidates of one decay (``detect.find_candidates``) and their bands (``group_bands``);
     candidates not measured are appended to ``rejected``.
 
@@ -920,20 +1092,37 @@ def _candidates(ctx: _RecordContext, start: int, seg_end: int, rejected: list[Re
     # residual search, once the sharp modes are subtracted (their skirts and the valleys between
     # them make broad humps of the smoothed spectrum)
     spectral = find_peaks(decay, fs, noise_psd=(ctx.noise_f, ctx.noise_p), max_peaks=max_peaks, broad=broad)
-    found, below = detect.find_candidates(x, fs, start=start, end=seg_end, noise_f=ctx.noise_f, noise_p=ctx.noise_p,
-                                          spectral=spectral, parametric=parametric)
+    found, below = detect.find_candidates(
+        x,
+        fs,
+        start=start,
+        end=seg_end,
+        noise_f=ctx.noise_f,
+        noise_p=ctx.noise_p,
+        spectral=spectral,
+        parametric=parametric,
+    )
     thr_db = 10.0 * math.log10(detect.snr_threshold(seg_end - start, fs))
     for c in below:
-        rejected.append(_rejection(c, "near_noise", f"matched-filter SNR {c.snr_db:.1f} dB, below the {thr_db:.1f} dB "
-                                                    f"that noise alone exceeds in {detect.P_FALSE:g} of records"))
+        rejected.append(
+            _rejection(
+                c,
+                "near_noise",
+                f"matched-filter SNR {c.snr_db:.1f} dB, below the {thr_db:.1f} dB "
+                f"that noise alone exceeds in {detect.P_FALSE:g} of records",
+            )
+        )
     kept: list[Candidate] = []
     for c in found:
         if c.beta_per_s and c.snr and c.snr > 1.0:
             # time until the remaining matched-filter SNR falls to 1: ln(d) / (2 beta)
             cycles = c.f_hz * math.log(c.snr) / (2.0 * c.beta_per_s)
             if cycles < 1.0:
-                rejected.append(_rejection(c, "few_cycles", f"{cycles:.2f} cycles above the noise; "
-                                                            "an oscillation needs at least one"))
+                rejected.append(
+                    _rejection(
+                        c, "few_cycles", f"{cycles:.2f} cycles above the noise; an oscillation needs at least one"
+                    )
+                )
                 continue
         kept.append(c)
     peaks = [Peak(c.f_hz, float("nan"), float("nan"), c.width_hz) for c in kept]
@@ -949,8 +1138,9 @@ def _rejection(c: Candidate, reason: str, detail: str) -> Rejected:
 def _needs_raw_fit(cands: list[Candidate], lo: float, hi: float) -> bool:
     """Whether a band ``lo``-``hi`` Hz is too narrow for one of its candidates (see
     ``RAW_MARGIN_WIDTHS``)."""
-    return any(c.beta_per_s is not None and min(c.f_hz - lo, hi - c.f_hz) < RAW_MARGIN_WIDTHS * c.width_hz
-               for c in cands)
+    return any(
+        c.beta_per_s is not None and min(c.f_hz - lo, hi - c.f_hz) < RAW_MARGIN_WIDTHS * c.width_hz for c in cands
+    )
 
 
 def _match_candidates(modes: list[Mode], cands: list[Candidate], steady: bool):
@@ -962,9 +1152,11 @@ def _match_candidates(modes: list[Mode], cands: list[Candidate], steady: bool):
     out: list[Rejected] = []
     modes = list(modes)
     for c in cands:
+
         def near(m: Mode) -> bool:
             tol = max(0.5 * max(c.width_hz, m.beta_per_s / math.pi), 3.0 * (m.f_d_hz_u or 0.0), c.resolution_hz)
             return abs(m.f_d_hz - c.f_hz) <= tol
+
         if any(near(m) for m in modes):
             continue
         if steady:
@@ -973,9 +1165,12 @@ def _match_candidates(modes: list[Mode], cands: list[Candidate], steady: bool):
             j = min(range(len(modes)), key=lambda i: abs(modes[i].f_d_hz - c.f_hz))
             m = modes[j]
             out.append(_rejection(c, "unresolved", f"fitted as one mode with the mode at {m.f_d_hz:.2f} Hz"))
-            note = Notice("unresolved_modes", f"a second mode near {c.f_hz:.2f} Hz may be merged into this one "
-                                              f"(suspected pair {min(c.f_hz, m.f_d_hz):.2f} and "
-                                              f"{max(c.f_hz, m.f_d_hz):.2f} Hz); treat its figures as a blend")
+            note = Notice(
+                "unresolved_modes",
+                f"a second mode near {c.f_hz:.2f} Hz may be merged into this one "
+                f"(suspected pair {min(c.f_hz, m.f_d_hz):.2f} and "
+                f"{max(c.f_hz, m.f_d_hz):.2f} Hz); treat its figures as a blend",
+            )
             modes[j] = m.with_updates(warnings=m.warnings + (note,))
         else:
             out.append(_rejection(c, "fit_failed", "no decaying mode was fitted in its band"))
@@ -990,7 +1185,7 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
 
     ctx = hctx.record
     fs, x = ctx.fs, ctx.x
-    seg = x[start:hctx.seg_end - ctx.i0]  # hctx.seg_end counts from the recording's first sample
+    seg = x[start : hctx.seg_end - ctx.i0]  # hctx.seg_end counts from the recording's first sample
     t_rest = seg.shape[0] / fs
 
     def beta_of(c: Candidate) -> float:
@@ -1010,8 +1205,16 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
             others.append((c.snr * share if c.snr is not None else float("inf"), c))
     others = [c for _, c in sorted(others, key=lambda o: -o[0])][:MAX_RAW_NUISANCE]
     poles = [(c.f_hz, beta_of(c)) for c in targets + others]
-    ests = estimate_real(seg, fs, t0_s=(start + ctx.i0) / fs, poles=poles, n_targets=len(targets), duration_s=dur,
-                         noise_f=ctx.noise_f, noise_p=ctx.noise_p)
+    ests = estimate_real(
+        seg,
+        fs,
+        t0_s=(start + ctx.i0) / fs,
+        poles=poles,
+        n_targets=len(targets),
+        duration_s=dur,
+        noise_f=ctx.noise_f,
+        noise_p=ctx.noise_p,
+    )
     modes = []
     for est in ests:
         if DB_PER_NEPER * est.beta_per_s * t_rest < 6.0:
@@ -1029,8 +1232,9 @@ MAX_RAW_NUISANCE = 3
 
 
 def _make_raw_mode(est: Estimate, noise_rms: float, seg: np.ndarray, fs: float, t0_s: float) -> Mode:
-    derived = derive(est.f_d_hz, est.beta_per_s, f_d_hz_u=est.f_d_hz_u, beta_per_s_u=est.beta_per_s_u,
-                     cov_f_beta=est.cov_f_beta)
+    derived = derive(
+        est.f_d_hz, est.beta_per_s, f_d_hz_u=est.f_d_hz_u, beta_per_s_u=est.beta_per_s_u, cov_f_beta=est.cov_f_beta
+    )
     start, end = est.fit_start_s, est.fit_end_s
     cycles = est.f_d_hz * (end - start)
     warnings = []
@@ -1038,17 +1242,37 @@ def _make_raw_mode(est: Estimate, noise_rms: float, seg: np.ndarray, fs: float, 
         warnings.append(Notice("few_cycles", f"fit spans {cycles:.1f} cycles; 10 or more are advised"))
     n = min(seg.shape[0], int(round((end - start) * fs)) + 1)
     t = t0_s + np.arange(n) / fs
-    trace = ModeTrace(t_s=t, envelope=np.abs(seg[:n]), fit_start_s=start, fit_end_s=end, noise_floor=noise_rms,
-                      fit_amplitude=float(est.amplitude), fit_beta_per_s=est.beta_per_s, fit_t0_s=start)
-    return Mode(index=0, derived=derived, amplitude=est.amplitude,
-                snr_db=20 * math.log10(max(est.amplitude, 1e-300) / noise_rms), method=est.method,
-                fit_start_s=start, fit_end_s=end, cycles_fitted=float(cycles), n_hits=1, band_hz=None,
-                warnings=tuple(warnings), cross_checks={}, trace=trace, fit_path="raw")
+    trace = ModeTrace(
+        t_s=t,
+        envelope=np.abs(seg[:n]),
+        fit_start_s=start,
+        fit_end_s=end,
+        noise_floor=noise_rms,
+        fit_amplitude=float(est.amplitude),
+        fit_beta_per_s=est.beta_per_s,
+        fit_t0_s=start,
+    )
+    return Mode(
+        index=0,
+        derived=derived,
+        amplitude=est.amplitude,
+        snr_db=20 * math.log10(max(est.amplitude, 1e-300) / noise_rms),
+        method=est.method,
+        fit_start_s=start,
+        fit_end_s=end,
+        cycles_fitted=float(cycles),
+        n_hits=1,
+        band_hz=None,
+        warnings=tuple(warnings),
+        cross_checks={},
+        trace=trace,
+        fit_path="raw",
+    )
 
 
-
-def _window_for(band: Band, onset_s: float, clip_end, seg_end: int, fs: float, min_snr_db: float,
-                beta_hint: float = 0.0) -> Window:
+def _window_for(
+    band: Band, onset_s: float, clip_end, seg_end: int, fs: float, min_snr_db: float, beta_hint: float = 0.0
+) -> Window:
     env = np.abs(band.z)
     if band.noise_rms is None:
         raise FitError("band noise level unknown")
@@ -1063,15 +1287,15 @@ def _window_for(band: Band, onset_s: float, clip_end, seg_end: int, fs: float, m
         start = max(start, clip_end / fs + settle)
     i0 = band.index_of(start)
     # never before the band envelope's own maximum after the onset
-    i_pk = i_on + int(np.argmax(env[i_on: max(i0 + 1, i_on + 1)]))
+    i_pk = i_on + int(np.argmax(env[i_on : max(i0 + 1, i_on + 1)]))
     i0 = max(i0, i_pk)
     i_last = band.index_of(seg_end / fs - settle)
     thr = band.noise_rms * 10 ** (min_snr_db / 20.0)
     k = max(1, int(round(band.sample_rate / band.width_hz)))
     smooth = np.convolve(env, np.ones(k) / k, mode="same")
-    below = np.flatnonzero(smooth[i0: i_last + 1] < thr)
+    below = np.flatnonzero(smooth[i0 : i_last + 1] < thr)
     i1 = i0 + int(below[0]) - 1 if below.size else i_last
-    at_noise = np.flatnonzero(smooth[i0: i_last + 1] < band.noise_rms)
+    at_noise = np.flatnonzero(smooth[i0 : i_last + 1] < band.noise_rms)
     i_model = i0 + int(at_noise[0]) - 1 if at_noise.size else i_last
     if i1 - i0 < 5:
         snr = 20 * math.log10(max(env[i0], 1e-300) / band.noise_rms)
@@ -1079,8 +1303,12 @@ def _window_for(band: Band, onset_s: float, clip_end, seg_end: int, fs: float, m
             f"the mode is {snr:.1f} dB above its band noise after the filter settles; "
             f"a fit needs {min_snr_db:g} dB over several samples"
         )
-    return Window(start_s=float(band.t_s[i0]), end_s=float(band.t_s[i1]), onset_s=onset_s,
-                  model_end_s=float(band.t_s[max(i_model, i1)]))
+    return Window(
+        start_s=float(band.t_s[i0]),
+        end_s=float(band.t_s[i1]),
+        onset_s=onset_s,
+        model_end_s=float(band.t_s[max(i_model, i1)]),
+    )
 
 
 def _extract(spec: Spectrum, lo: float, hi: float, noise_f, noise_p) -> Band:
@@ -1089,7 +1317,9 @@ def _extract(spec: Spectrum, lo: float, hi: float, noise_f, noise_p) -> Band:
     return band.with_noise(detect.band_noise_rms(band, noise_f, noise_p))
 
 
-def _measure_group(hctx: _HitContext, peaks_g: list[Peak], lo: float, hi: float, hit_warnings: list[Notice]) -> list[Mode]:
+def _measure_group(
+    hctx: _HitContext, peaks_g: list[Peak], lo: float, hi: float, hit_warnings: list[Notice]
+) -> list[Mode]:
     """The modes of one band ``lo``-``hi`` Hz holding the spectral peaks ``peaks_g`` (none when
     the band was given by the user); warnings about the hit are appended to ``hit_warnings``."""
     ctx = hctx.record
@@ -1105,8 +1335,13 @@ def _measure_group(hctx: _HitContext, peaks_g: list[Peak], lo: float, hi: float,
         if all(any(abs(p.f_hz - f) <= near for f in tones) for p in peaks_g):
             return []  # already named at the recording level
         where = ", ".join(f"{p.f_hz:.1f}" for p in peaks_g)
-        hit_warnings.append(Notice("stationary_tone", f"steady tone at {where} Hz was already there before the hit "
-                                                      "(mains hum or another running source?); not reported as a mode"))
+        hit_warnings.append(
+            Notice(
+                "stationary_tone",
+                f"steady tone at {where} Hz was already there before the hit "
+                "(mains hum or another running source?); not reported as a mode",
+            )
+        )
         return []
     group_window = _window_for(group_band, onset_s, clip_end, seg_end, fs, opts.min_snr_db, beta_hint)
     # single-mode sub-bands: one per peak, split at the midpoints
@@ -1146,13 +1381,22 @@ def _measure_group(hctx: _HitContext, peaks_g: list[Peak], lo: float, hi: float,
         if not primaries:
             # the parametric fit found nothing usable: report the envelope fit, and say so
             primaries = [(c[1]["envelope"], c[2], c[3]) for c in cross if "envelope" in c[1]]
-            extra.append(Notice("fallback_method", f"the {primary} fit found no decaying mode in this band; "
-                                                   "the envelope fit is reported instead"))
+            extra.append(
+                Notice(
+                    "fallback_method",
+                    f"the {primary} fit found no decaying mode in this band; the envelope fit is reported instead",
+                )
+            )
     else:
         primaries = [(c[1][primary], c[2], c[3]) for c in cross if primary in c[1]]
         if len(peaks_g) > 1:
-            extra.append(Notice("close_modes", f"modes at {', '.join(f'{p.f_hz:.1f}' for p in peaks_g)} Hz are too close "
-                                               "for band filters to separate; estimates may be biased (method 'auto' fits them jointly)"))
+            extra.append(
+                Notice(
+                    "close_modes",
+                    f"modes at {', '.join(f'{p.f_hz:.1f}' for p in peaks_g)} Hz are too close "
+                    "for band filters to separate; estimates may be biased (method 'auto' fits them jointly)",
+                )
+            )
     if not primaries:
         raise FitError("no estimator found a decaying mode in the band")
     modes = []
@@ -1165,8 +1409,13 @@ def _measure_group(hctx: _HitContext, peaks_g: list[Peak], lo: float, hi: float,
         unresolved_decay: list[Notice] = []
         if not hctx.rings_from_earlier(est.f_d_hz) and _is_stationary(est, sb, sw, seg_end / fs, pre_rms=hctx.pre_rms):
             if not _started_with_hit(est, hctx.pre_rms):
-                hit_warnings.append(Notice("stationary_tone", f"steady tone at {est.f_d_hz:.1f} Hz does not decay (mains "
-                                                              "hum or another running source?); not reported as a mode"))
+                hit_warnings.append(
+                    Notice(
+                        "stationary_tone",
+                        f"steady tone at {est.f_d_hz:.1f} Hz does not decay (mains "
+                        "hum or another running source?); not reported as a mode",
+                    )
+                )
                 continue
             unresolved_decay.append(_decay_unresolved(est))
         mode = _make_mode(est, others, band, window, extra + unresolved_decay)
@@ -1179,8 +1428,11 @@ def _measure_group(hctx: _HitContext, peaks_g: list[Peak], lo: float, hi: float,
 def _started_with_hit(est: Estimate, pre_rms: float | None) -> bool:
     """Whether a component too far above what the record held before the hit to have been there
     (amplitude over ``sqrt(2) pre_rms`` by ``STEADY_MARGIN_DB``) started with the hit."""
-    return pre_rms is not None and est.amplitude is not None and \
-        est.amplitude > math.sqrt(2.0) * pre_rms * 10 ** (STEADY_MARGIN_DB / 20)
+    return (
+        pre_rms is not None
+        and est.amplitude is not None
+        and est.amplitude > math.sqrt(2.0) * pre_rms * 10 ** (STEADY_MARGIN_DB / 20)
+    )
 
 
 def _decay_unresolved(est: Estimate) -> Notice:
@@ -1188,10 +1440,13 @@ def _decay_unresolved(est: Estimate) -> Notice:
     u = est.beta_per_s_u or 0.0
     f_n = math.hypot(est.f_d_hz, est.beta_per_s / (2.0 * math.pi))
     q_low = math.pi * f_n / max(est.beta_per_s + 2.0 * u, 1e-300)
-    return Notice("decay_unresolved", f"mode at {est.f_d_hz:.6g} Hz started with the hit but decays too little in the record "
-                                      f"to measure: beta = {est.beta_per_s:.3g} +- {u:.2g} 1/s, Q above about {q_low:.3g} "
-                                      "(beta + 2u); record longer for its damping. Alone in a hit it is taken for a drive "
-                                      "switched on, not a mode")
+    return Notice(
+        "decay_unresolved",
+        f"mode at {est.f_d_hz:.6g} Hz started with the hit but decays too little in the record "
+        f"to measure: beta = {est.beta_per_s:.3g} +- {u:.2g} 1/s, Q above about {q_low:.3g} "
+        "(beta + 2u); record longer for its damping. Alone in a hit it is taken for a drive "
+        "switched on, not a mode",
+    )
 
 
 #: A component that does not decay, within this many half-power bandwidths of a decaying mode of
@@ -1207,6 +1462,7 @@ def _drop_driven(modes: list[Mode], onset_s: float, warnings: list[Notice]) -> l
     """The hit's modes less those whose decay is unresolved and that are a drive switched on
     (alone in the hit, or the forced response next to a resonance's start-up transient: see
     ``FORCED_BANDWIDTHS``); each dropped one is named as a steady tone in ``warnings``."""
+
     def unresolved(m: Mode) -> bool:
         return any(w.code == "decay_unresolved" for w in m.warnings)
 
@@ -1220,10 +1476,16 @@ def _drop_driven(modes: list[Mode], onset_s: float, warnings: list[Notice]) -> l
             driven = not decaying or any(
                 abs(m.f_d_hz - d.f_d_hz) <= FORCED_BANDWIDTHS * d.beta_per_s / math.pi
                 and abs(20.0 * math.log10(max(at_onset(m), 1e-300) / max(at_onset(d), 1e-300))) <= FORCED_LEVEL_DB
-                for d in decaying)
+                for d in decaying
+            )
             if driven:
-                warnings.append(Notice("stationary_tone", f"steady tone at {m.f_d_hz:.1f} Hz does not decay and started "
-                                                          "with the hit (a drive switched on?); not reported as a mode"))
+                warnings.append(
+                    Notice(
+                        "stationary_tone",
+                        f"steady tone at {m.f_d_hz:.1f} Hz does not decay and started "
+                        "with the hit (a drive switched on?); not reported as a mode",
+                    )
+                )
                 continue
         out.append(m)
     return out
@@ -1253,7 +1515,9 @@ def _steady_before_onset(band: Band, onset_s: float, beta_hint: float) -> bool:
     return bool(before > float(np.max(after)) * 10 ** (-STEADY_MARGIN_DB / 20))
 
 
-def _is_stationary(est: Estimate, band: Band, window: Window, seg_end_s: float, *, pre_rms: float | None = None) -> bool:
+def _is_stationary(
+    est: Estimate, band: Band, window: Window, seg_end_s: float, *, pre_rms: float | None = None
+) -> bool:
     """Whether a component is a steady tone (hum, a running drive) rather than a mode.
 
     A component whose decay rate is within 3 standard uncertainties of zero and that decays
@@ -1278,20 +1542,27 @@ def _is_stationary(est: Estimate, band: Band, window: Window, seg_end_s: float, 
     env = np.abs(band.z)
     i0 = band.index_of(window.start_s)
     span = max(seg_end_s - window.onset_s, 1e-300)
-    if est.beta_per_s_u is not None and est.beta_per_s <= 3.0 * est.beta_per_s_u and \
-            DB_PER_NEPER * est.beta_per_s * span < 6.0:
+    if (
+        est.beta_per_s_u is not None
+        and est.beta_per_s <= 3.0 * est.beta_per_s_u
+        and DB_PER_NEPER * est.beta_per_s * span < 6.0
+    ):
         return True  # no decay resolved: a drive switched on with the hit and still running
     before = _level_before_onset(band, window.onset_s, window.start_s - window.onset_s)
     if before is not None:
         return bool(before > env[i0] * 10 ** (-STEADY_MARGIN_DB / 20))
-    if pre_rms is not None and est.amplitude is not None and est.beta_per_s_u is not None and \
-            est.amplitude > math.sqrt(2.0) * pre_rms * 10 ** (STEADY_MARGIN_DB / 20) and \
-            est.beta_per_s > 5.0 * est.beta_per_s_u:
+    if (
+        pre_rms is not None
+        and est.amplitude is not None
+        and est.beta_per_s_u is not None
+        and est.amplitude > math.sqrt(2.0) * pre_rms * 10 ** (STEADY_MARGIN_DB / 20)
+        and est.beta_per_s > 5.0 * est.beta_per_s_u
+    ):
         return False
     if DB_PER_NEPER * est.beta_per_s * span < 6.0:
         return True
     n = env.shape[0]
-    tail = env[max(i0 + 1, n - max(n // 5, 1)):]
+    tail = env[max(i0 + 1, n - max(n // 5, 1)) :]
     return bool(tail.size and np.median(tail) > env[i0] * 10 ** (-6 / 20))
 
 
@@ -1322,7 +1593,11 @@ def _amplitude_dependence(mode: Mode, band: Band, window: Window) -> Mode:
         return mode
     ratio = b.beta_per_s / a.beta_per_s
     uc = math.hypot(a.beta_per_s_u or 0.0, b.beta_per_s_u or 0.0)
-    if not (max(ratio, 1 / ratio) > AMPLITUDE_RATIO_LIMIT and uc > 0 and abs(b.beta_per_s - a.beta_per_s) > AMPLITUDE_Z_LIMIT * uc):
+    if not (
+        max(ratio, 1 / ratio) > AMPLITUDE_RATIO_LIMIT
+        and uc > 0
+        and abs(b.beta_per_s - a.beta_per_s) > AMPLITUDE_Z_LIMIT * uc
+    ):
         return mode
     rows = []
     n_win = 8
@@ -1334,18 +1609,28 @@ def _amplitude_dependence(mode: Mode, band: Band, window: Window) -> Mode:
         except FitError:
             continue
         seg = np.abs(band.z[Window(s0, s0 + length, window.onset_s).indices(band)])
-        rows.append({"amplitude": float(np.mean(seg)), "f_d_hz": e.f_d_hz, "beta_per_s": e.beta_per_s,
-                     "beta_per_s_u": e.beta_per_s_u})
-    note = Notice("amplitude_dependent", f"decay is not exponential: local decay rate {a.beta_per_s:.4g} 1/s in the first "
-                                          f"half of the fit, {b.beta_per_s:.4g} 1/s in the second (ratio {ratio:.2f}); "
-                                          "damping depends on amplitude (friction?), see damping_vs_amplitude")
+        rows.append(
+            {
+                "amplitude": float(np.mean(seg)),
+                "f_d_hz": e.f_d_hz,
+                "beta_per_s": e.beta_per_s,
+                "beta_per_s_u": e.beta_per_s_u,
+            }
+        )
+    note = Notice(
+        "amplitude_dependent",
+        f"decay is not exponential: local decay rate {a.beta_per_s:.4g} 1/s in the first "
+        f"half of the fit, {b.beta_per_s:.4g} 1/s in the second (ratio {ratio:.2f}); "
+        "damping depends on amplitude (friction?), see damping_vs_amplitude",
+    )
     return mode.with_updates(warnings=mode.warnings + (note,), damping_vs_amplitude=tuple(rows))
 
 
 def _make_mode(est: Estimate, others: dict[str, Estimate], band: Band, window: Window, extra: list[Notice]) -> Mode:
     warnings = list(est.warnings) + list(extra)
-    derived = derive(est.f_d_hz, est.beta_per_s, f_d_hz_u=est.f_d_hz_u, beta_per_s_u=est.beta_per_s_u,
-                     cov_f_beta=est.cov_f_beta)
+    derived = derive(
+        est.f_d_hz, est.beta_per_s, f_d_hz_u=est.f_d_hz_u, beta_per_s_u=est.beta_per_s_u, cov_f_beta=est.cov_f_beta
+    )
     start = est.fit_start_s if est.fit_start_s is not None else window.start_s
     end = est.fit_end_s if est.fit_end_s is not None else window.end_s
     amp = est.amplitude
@@ -1361,8 +1646,13 @@ def _make_mode(est: Estimate, others: dict[str, Estimate], band: Band, window: W
     # the zero-phase band filter biases decay unless its bandwidth exceeds ~1.8x beta/pi
     # (Jacobsen & Rindel 1987, FIELD notes)
     if band.width_hz < 1.8 * est.beta_per_s / math.pi:
-        warnings.append(Notice("filter_bias", f"band {band.width_hz:.3g} Hz is narrower than 1.8x the mode's half-power "
-                                              f"bandwidth {est.beta_per_s / math.pi:.3g} Hz; the decay rate may be biased"))
+        warnings.append(
+            Notice(
+                "filter_bias",
+                f"band {band.width_hz:.3g} Hz is narrower than 1.8x the mode's half-power "
+                f"bandwidth {est.beta_per_s / math.pi:.3g} Hz; the decay rate may be biased",
+            )
+        )
     warnings.extend(_disagreements(est, others))
     env_est = others.get("envelope") if est.method != "envelope" else est
     trace = _trace(est, band, window, env_est)
@@ -1406,8 +1696,13 @@ def _disagreements(est: Estimate, others: dict[str, Estimate]) -> list[Notice]:
                 continue
             uc = math.hypot(ua, ub)
             if uc > 0 and abs(a - b) > 3 * uc and abs(a - b) > _AGREEMENT_FLOOR * abs(a):
-                out.append(Notice("methods_disagree", f"{name} gives {q} = {b:.6g} {unit}, {est.method} {a:.6g} {unit} "
-                                                      f"(difference {abs(a - b) / uc:.1f} combined standard uncertainties)"))
+                out.append(
+                    Notice(
+                        "methods_disagree",
+                        f"{name} gives {q} = {b:.6g} {unit}, {est.method} {a:.6g} {unit} "
+                        f"(difference {abs(a - b) / uc:.1f} combined standard uncertainties)",
+                    )
+                )
     return out
 
 
@@ -1416,15 +1711,34 @@ def _trace(est: Estimate, band: Band, window: Window, env_est: Estimate | None) 
         base = est.trace
     else:
         amp = est.amplitude if est.amplitude is not None else float(np.abs(band.z[band.index_of(window.start_s)]))
-        base = ModeTrace(t_s=band.t_s, envelope=np.abs(band.z), fit_start_s=window.start_s, fit_end_s=window.end_s,
-                         noise_floor=float(band.noise_rms or 0.0), fit_amplitude=float(amp),
-                         fit_beta_per_s=float(est.beta_per_s), fit_t0_s=float(est.fit_start_s or window.start_s))
+        base = ModeTrace(
+            t_s=band.t_s,
+            envelope=np.abs(band.z),
+            fit_start_s=window.start_s,
+            fit_end_s=window.end_s,
+            noise_floor=float(band.noise_rms or 0.0),
+            fit_amplitude=float(amp),
+            fit_beta_per_s=float(est.beta_per_s),
+            fit_t0_s=float(est.fit_start_s or window.start_s),
+        )
     try:
         pt, pv = band_peaks(band, window)
     except FitError:
         pt, pv = None, None
-    return ModeTrace(base.t_s, base.envelope, base.fit_start_s, base.fit_end_s, base.noise_floor, base.fit_amplitude,
-                     base.fit_beta_per_s, base.fit_t0_s, pt, pv, base.model_envelope, base.n_model_modes)
+    return ModeTrace(
+        base.t_s,
+        base.envelope,
+        base.fit_start_s,
+        base.fit_end_s,
+        base.noise_floor,
+        base.fit_amplitude,
+        base.fit_beta_per_s,
+        base.fit_t0_s,
+        pt,
+        pv,
+        base.model_envelope,
+        base.n_model_modes,
+    )
 
 
 # ----------------------------------------------------------------------------------------------
@@ -1488,7 +1802,8 @@ def _combine_modes(ms: list[Mode]) -> Mode:
     f_m, f_u = _weighted(f, uf)
     b_m, b_u = _weighted(b, ub)
     strongest = max(ms, key=lambda m: m.amplitude or 0.0)
-    derived = derive(f_m, b_m, f_d_hz_u=None if not math.isfinite(f_u) else f_u,
-                     beta_per_s_u=None if not math.isfinite(b_u) else b_u)
+    derived = derive(
+        f_m, b_m, f_d_hz_u=None if not math.isfinite(f_u) else f_u, beta_per_s_u=None if not math.isfinite(b_u) else b_u
+    )
     warnings = _unique([w for m in ms for w in m.warnings])
     return strongest.with_updates(derived=derived, n_hits=len(ms), warnings=tuple(warnings))

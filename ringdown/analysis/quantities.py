@@ -156,9 +156,7 @@ def derive(
     beta = float(beta_per_s)
     cov = None
     if f_d_hz_u is not None and beta_per_s_u is not None:
-        cov = np.array(
-            [[float(f_d_hz_u) ** 2, float(cov_f_beta)], [float(cov_f_beta), float(beta_per_s_u) ** 2]]
-        )
+        cov = np.array([[float(f_d_hz_u) ** 2, float(cov_f_beta)], [float(cov_f_beta), float(beta_per_s_u) ** 2]])
     fields: dict[str, Any] = {
         "f_d_hz": f_d,
         "f_d_hz_u": None if f_d_hz_u is None else float(f_d_hz_u),

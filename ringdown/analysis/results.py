@@ -241,9 +241,11 @@ class Mode:
     f_r_hz_u = ReadThrough[float | None]("derived")
 
     def __repr__(self) -> str:
-        return (f"Mode(index={self.index}, f_d_hz={fmt_pm(self.f_d_hz, self.f_d_hz_u)}, "
-                f"zeta={fmt_pm(self.zeta, self.zeta_u)}, q={fmt_pm(self.q, self.q_u)}, method={self.method!r}, "
-                f"warnings={list(self.warning_codes)})")
+        return (
+            f"Mode(index={self.index}, f_d_hz={fmt_pm(self.f_d_hz, self.f_d_hz_u)}, "
+            f"zeta={fmt_pm(self.zeta, self.zeta_u)}, q={fmt_pm(self.q, self.q_u)}, method={self.method!r}, "
+            f"warnings={list(self.warning_codes)})"
+        )
 
     @property
     def warning_codes(self) -> tuple[str, ...]:
@@ -281,9 +283,16 @@ class Mode:
         band = d["band_hz"]
         dva = d["damping_vs_amplitude"]
         return cls(
-            index=d["index"], derived=derived, amplitude=d["amplitude"], snr_db=d["snr_db"], method=d["method"],
-            fit_start_s=d["fit_start_s"], fit_end_s=d["fit_end_s"], cycles_fitted=d["cycles_fitted"],
-            n_hits=d["n_hits"], band_hz=None if band is None else (band[0], band[1]),
+            index=d["index"],
+            derived=derived,
+            amplitude=d["amplitude"],
+            snr_db=d["snr_db"],
+            method=d["method"],
+            fit_start_s=d["fit_start_s"],
+            fit_end_s=d["fit_end_s"],
+            cycles_fitted=d["cycles_fitted"],
+            n_hits=d["n_hits"],
+            band_hz=None if band is None else (band[0], band[1]),
             warnings=tuple(Notice.from_dict(w) for w in d["warnings"]),
             cross_checks={k: Estimate.from_dict(v, k) for k, v in d["cross_checks"].items()},
             damping_vs_amplitude=None if dva is None else tuple(dict(r) for r in dva),
@@ -330,8 +339,14 @@ class Rejected:
     hit: int = 0
 
     def to_dict(self) -> dict:
-        return {"f_hz": self.f_hz, "beta_per_s": self.beta_per_s, "snr_db": self.snr_db, "reason": self.reason,
-                "detail": self.detail, "hit": self.hit}
+        return {
+            "f_hz": self.f_hz,
+            "beta_per_s": self.beta_per_s,
+            "snr_db": self.snr_db,
+            "reason": self.reason,
+            "detail": self.detail,
+            "hit": self.hit,
+        }
 
     @classmethod
     def from_dict(cls, d: dict) -> Rejected:
@@ -341,8 +356,9 @@ class Rejected:
     def notice(self) -> Notice:
         """The warning that names this rejection."""
         beta = "" if self.beta_per_s is None else f", beta {self.beta_per_s:.4g} 1/s"
-        return Notice("candidate_rejected", f"candidate at {self.f_hz:.2f} Hz{beta} not reported ({self.reason}): "
-                                            f"{self.detail}")
+        return Notice(
+            "candidate_rejected", f"candidate at {self.f_hz:.2f} Hz{beta} not reported ({self.reason}): {self.detail}"
+        )
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -403,18 +419,27 @@ class Hit:
         }
 
     def __repr__(self) -> str:
-        return (f"Hit(start_s={fmt_value(self.start_s)}, start_kind={self.start_kind!r}, "
-                f"snr_db={fmt_value(self.snr_db, 3)}, used={self.used}, modes={len(self.modes)}, "
-                f"rejected={len(self.rejected)}, warnings={[w.code for w in self.warnings]})")
+        return (
+            f"Hit(start_s={fmt_value(self.start_s)}, start_kind={self.start_kind!r}, "
+            f"snr_db={fmt_value(self.snr_db, 3)}, used={self.used}, modes={len(self.modes)}, "
+            f"rejected={len(self.rejected)}, warnings={[w.code for w in self.warnings]})"
+        )
 
     @classmethod
     def from_dict(cls, d: dict, rejected: tuple[Rejected, ...] = ()) -> Hit:
         """The hit of a ``to_dict()`` record; ``rejected`` are its rejections (a hit's record does
         not hold them: they are serialised once, under the analysis)."""
         return cls(
-            start_s=d["start_s"], peak_s=d["peak_s"], peak_value=d["peak_value"], snr_db=d["snr_db"],
-            end_s=d["end_s"], used=d["used"], warnings=tuple(Notice.from_dict(w) for w in d["warnings"]),
-            modes=tuple(Mode.from_dict(m) for m in d["modes"]), rejected=rejected, start_kind=d["start_kind"],
+            start_s=d["start_s"],
+            peak_s=d["peak_s"],
+            peak_value=d["peak_value"],
+            snr_db=d["snr_db"],
+            end_s=d["end_s"],
+            used=d["used"],
+            warnings=tuple(Notice.from_dict(w) for w in d["warnings"]),
+            modes=tuple(Mode.from_dict(m) for m in d["modes"]),
+            rejected=rejected,
+            start_kind=d["start_kind"],
         )
 
 
@@ -501,15 +526,22 @@ class Analysis:
         rejected = tuple(Rejected.from_dict(r) for r in d["rejected"])
         error = d["error"]
         return cls(
-            path=d["path"], sha256=d["sha256"], channel=d["channel"], sample_rate_hz=d["sample_rate_hz"],
+            path=d["path"],
+            sha256=d["sha256"],
+            channel=d["channel"],
+            sample_rate_hz=d["sample_rate_hz"],
             n_samples=d["n_samples"],
-            hits=tuple(Hit.from_dict(h, tuple(r for r in rejected if r.hit == i))
-                       for i, h in enumerate(d["hits"], start=1)),
+            hits=tuple(
+                Hit.from_dict(h, tuple(r for r in rejected if r.hit == i)) for i, h in enumerate(d["hits"], start=1)
+            ),
             modes=tuple(Mode.from_dict(m) for m in d["modes"]),
             warnings=tuple(Notice.from_dict(w) for w in d["warnings"]),
             error=None if error is None else Notice.from_dict(error),
-            settings=dict(d["settings"]), noise_floor=d["noise_floor"], noise_source=d["noise_source"],
-            rejected=rejected, unit=d["unit"],
+            settings=dict(d["settings"]),
+            noise_floor=d["noise_floor"],
+            noise_source=d["noise_source"],
+            rejected=rejected,
+            unit=d["unit"],
         )
 
     def __repr__(self) -> str:
@@ -518,9 +550,11 @@ class Analysis:
             return head + f"error={self.error.code!r}: {self.error.message[:200]!r})"
         shown = ", ".join(f"{fmt_pm(m.f_d_hz, m.f_d_hz_u)} Hz" for m in self.modes[:_REPR_MODES])
         more = f", ... {len(self.modes) - _REPR_MODES} more" if len(self.modes) > _REPR_MODES else ""
-        return (head + f"sample_rate_hz={fmt_value(self.sample_rate_hz)}, duration_s={fmt_value(self.duration_s)}, "
-                f"hits={len(self.hits)}, modes=[{shown}{more}], rejected={len(self.rejected)}, "
-                f"warnings={[w.code for w in self.warnings][:_REPR_MODES]})")
+        return (
+            head + f"sample_rate_hz={fmt_value(self.sample_rate_hz)}, duration_s={fmt_value(self.duration_s)}, "
+            f"hits={len(self.hits)}, modes=[{shown}{more}], rejected={len(self.rejected)}, "
+            f"warnings={[w.code for w in self.warnings][:_REPR_MODES]})"
+        )
 
     def _repr_html_(self) -> str:
         """The modes as HTML tables, for notebooks (drawn by :mod:`ringdown.render.report`)."""
@@ -542,8 +576,9 @@ class Analysis:
         except ImportError:
             from ..base.errors import ParameterError
 
-            raise ParameterError("Analysis.to_dataframe needs pandas; install it: pip install 'ringdown[dataframe]'"
-                                 ) from None
+            raise ParameterError(
+                "Analysis.to_dataframe needs pandas; install it: pip install 'ringdown[dataframe]'"
+            ) from None
         return pd.DataFrame([_mode_row(self.path, m.to_dict()) for m in self.modes], columns=list(_FRAME_COLUMNS))
 
 
@@ -571,12 +606,21 @@ def results_document(analyses: Iterable[Analysis]) -> dict:
 #: stays under 1 kB whatever the recording holds.
 _REPR_MODES = 8
 
-_ESTIMATE_KEYS = ("f_d_hz", "f_d_hz_u", "beta_per_s", "beta_per_s_u", "fit_start_s", "fit_end_s", "n_points",
-                  "converged")
+_ESTIMATE_KEYS = (
+    "f_d_hz",
+    "f_d_hz_u",
+    "beta_per_s",
+    "beta_per_s_u",
+    "fit_start_s",
+    "fit_end_s",
+    "n_points",
+    "converged",
+)
 
 _NESTED_KEYS = ("band_hz", "warnings", "cross_checks", "damping_vs_amplitude")
-_FRAME_COLUMNS = (("path",) + tuple(k for k in _MODE_KEYS if k not in _NESTED_KEYS)
-                  + ("band_lo_hz", "band_hi_hz", "warnings"))
+_FRAME_COLUMNS = (
+    ("path",) + tuple(k for k in _MODE_KEYS if k not in _NESTED_KEYS) + ("band_lo_hz", "band_hi_hz", "warnings")
+)
 
 
 def _mode_row(path: str | None, d: dict) -> dict:
@@ -590,4 +634,3 @@ def _mode_row(path: str | None, d: dict) -> dict:
 def mode_keys() -> tuple[str, ...]:
     """The keys of every mode record, in order (used by the CSV writer and the tests)."""
     return _MODE_KEYS
-

@@ -19,7 +19,8 @@ from __future__ import annotations
 
 import functools
 import threading
-from typing import Any, Callable, TypeVar
+from collections.abc import Callable
+from typing import Any, TypeVar
 
 __all__ = ["one_blas_thread", "blas_limit"]
 
@@ -48,7 +49,7 @@ class blas_limit:
     when the last one leaves.
     """
 
-    def __enter__(self) -> "blas_limit":
+    def __enter__(self) -> blas_limit:
         with _lock:
             if _state["depth"] == 0 and THREADS is not None:
                 _state["limit"] = _controller().limit(limits=THREADS)

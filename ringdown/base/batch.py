@@ -31,13 +31,13 @@ from __future__ import annotations
 
 import os
 import signal
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from concurrent.futures import Future
-from typing import Any, Callable, Iterable, Iterator, Protocol, Sequence, TypeVar
+from typing import Any, Protocol, TypeVar
 
 from .errors import InternalError, ParameterError, RingdownError, WorkerError
 
-__all__ = ["BatchExecutor", "SerialExecutor", "ProcessExecutor", "run_batch", "as_ringdown_error",
-           "default_executor"]
+__all__ = ["BatchExecutor", "SerialExecutor", "ProcessExecutor", "run_batch", "as_ringdown_error", "default_executor"]
 
 T = TypeVar("T")
 R = TypeVar("R")
@@ -136,8 +136,12 @@ class ProcessExecutor:
         server = ctx.get_start_method() == "forkserver"
         if modules and server:
             ctx.set_forkserver_preload(list(modules))
-        self._pool = ProcessPoolExecutor(max_workers=max_workers, mp_context=ctx, initializer=_init_worker,
-                                         initargs=(None if server else os.getpid(), modules))
+        self._pool = ProcessPoolExecutor(
+            max_workers=max_workers,
+            mp_context=ctx,
+            initializer=_init_worker,
+            initargs=(None if server else os.getpid(), modules),
+        )
 
     def submit(self, fn, /, *args) -> Future:
         return self._pool.submit(fn, *args)
@@ -173,11 +177,13 @@ def as_ringdown_error(exc: BaseException) -> RingdownError:
         return exc
     text = " ".join(str(exc).split())
     if isinstance(exc, MemoryError):
-        return InternalError("ran out of memory (MemoryError); the file is too large for this machine "
-                             "or its header states absurd sizes")
+        return InternalError(
+            "ran out of memory (MemoryError); the file is too large for this machine or its header states absurd sizes"
+        )
     if isinstance(exc, OverflowError):
-        return InternalError(f"a number overflowed ({text or 'OverflowError'}); check the time step, "
-                             "sample rate and values of the file")
+        return InternalError(
+            f"a number overflowed ({text or 'OverflowError'}); check the time step, sample rate and values of the file"
+        )
     if isinstance(exc, RecursionError):
         return InternalError("nesting too deep (RecursionError)")
     return InternalError(f"internal error {type(exc).__name__}: {text}")
@@ -249,6 +255,7 @@ def run_batch(
         return
     modules = tuple(getattr(fn, "preload", ()) or ())
     if executor is None:
+
         def make(k: int) -> BatchExecutor:
             return default_executor(k, preload=modules)
     else:
@@ -285,10 +292,12 @@ def run_batch(
     # that the item that kills its process takes only itself down.
     retry.sort()
     if retry and on_notice is not None:
-        on_notice(f"a worker process died (killed by the system?); {len(retry)} item(s) not finished are run "
-                  "again, each in a fresh process")
+        on_notice(
+            f"a worker process died (killed by the system?); {len(retry)} item(s) not finished are run "
+            "again, each in a fresh process"
+        )
     while retry:
-        chunk, retry = retry[: max(jobs, 1)], retry[max(jobs, 1):]
+        chunk, retry = retry[: max(jobs, 1)], retry[max(jobs, 1) :]
         pools = []
         try:
             futs = {}
@@ -301,9 +310,14 @@ def run_batch(
                 try:
                     res = fut.result()
                 except Exception as exc:
-                    err = (WorkerError("the worker process analysing it died twice (killed by the system, "
-                                       "e.g. out of memory); check the file and the free memory")
-                           if _is_broken(exc) else as_ringdown_error(exc))
+                    err = (
+                        WorkerError(
+                            "the worker process analysing it died twice (killed by the system, "
+                            "e.g. out of memory); check the file and the free memory"
+                        )
+                        if _is_broken(exc)
+                        else as_ringdown_error(exc)
+                    )
                     res = on_error(items[pos], err)
                 yield finish(pos, res)
         except BaseException:
@@ -322,4 +336,3 @@ def _merged_as_completed(futs: dict) -> Iterator[Future]:
     for f in serial:
         yield from futs[f][1].as_completed([f])
     yield from as_completed([f for f in futs if f not in serial])
-

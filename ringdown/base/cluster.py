@@ -27,7 +27,8 @@ from __future__ import annotations
 import logging
 import os
 import uuid
-from typing import Any, Callable, Iterable, Iterator, Sequence
+from collections.abc import Callable, Iterator, Sequence
+from typing import Any
 
 from .errors import ClusterError, InputError, ParameterError, RingdownError
 
@@ -49,8 +50,10 @@ def require_extra(what: str = "--scheduler") -> None:
     try:
         import distributed  # noqa: F401
     except ImportError:
-        raise ParameterError(f"{what} needs the optional 'cluster' extra (dask[distributed], pyarrow); install it "
-                             "with: pip install 'ringdown[cluster]'") from None
+        raise ParameterError(
+            f"{what} needs the optional 'cluster' extra (dask[distributed], pyarrow); install it "
+            "with: pip install 'ringdown[cluster]'"
+        ) from None
 
 
 def _local_workers(spec: str) -> int:
@@ -60,8 +63,9 @@ def _local_workers(spec: str) -> int:
     except ValueError:
         n = 0
     if n < 1:
-        raise ParameterError(f"--scheduler {spec!r}: local:N needs a whole number of worker processes N >= 1 "
-                             "(e.g. local:4)")
+        raise ParameterError(
+            f"--scheduler {spec!r}: local:N needs a whole number of worker processes N >= 1 (e.g. local:4)"
+        )
     return n
 
 
@@ -99,17 +103,24 @@ def open_client(scheduler: str):
         # against every task assigned to it (Scheduler.remove_worker), so with tasks queued on
         # workers (Dask's default 1.1) a file that kills its worker could take an innocent one down.
         with dask.config.set({"distributed.scheduler.worker-saturation": 1.0}):
-            cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address="127.0.0.1:0",
-                                   silence_logs=logging.ERROR)
+            cluster = LocalCluster(
+                n_workers=n,
+                threads_per_worker=1,
+                processes=True,
+                dashboard_address="127.0.0.1:0",
+                silence_logs=logging.ERROR,
+            )
         return Client(cluster), cluster
     if not scheduler:
         raise ParameterError("--scheduler is empty; give a scheduler address (tcp://HOST:8786) or local:N")
     try:
         client = Client(scheduler, timeout=CONNECT_TIMEOUT_S)
     except (OSError, TimeoutError, ValueError) as exc:
-        raise ClusterError(f"cannot reach a Dask scheduler at {scheduler!r} within {CONNECT_TIMEOUT_S:g} s "
-                           f"({' '.join(str(exc).split()) or type(exc).__name__}); start one with 'dask scheduler' "
-                           "and workers with 'dask worker ADDRESS', or use --scheduler local:N") from None
+        raise ClusterError(
+            f"cannot reach a Dask scheduler at {scheduler!r} within {CONNECT_TIMEOUT_S:g} s "
+            f"({' '.join(str(exc).split()) or type(exc).__name__}); start one with 'dask scheduler' "
+            "and workers with 'dask worker ADDRESS', or use --scheduler local:N"
+        ) from None
     return client, None
 
 
@@ -162,11 +173,18 @@ def _run_task(fn: Callable, on_error: Callable, item: Any):
         path = os.fspath(item)
         if not os.path.exists(path) or not os.access(path, os.R_OK):
             why = "does not exist" if not os.path.exists(path) else "cannot be read (permissions)"
-            hint = "" if os.path.isabs(path) else " and given as absolute paths (a worker resolves a relative one " \
-                                                  "from its own working folder)"
-            return on_error(item, InputError(
-                f"{path!r} {why} on the {_where()}; the recordings must be readable by every worker "
-                f"(a shared file system mounted at the same path on each machine){hint}"))
+            hint = (
+                ""
+                if os.path.isabs(path)
+                else " and given as absolute paths (a worker resolves a relative one from its own working folder)"
+            )
+            return on_error(
+                item,
+                InputError(
+                    f"{path!r} {why} on the {_where()}; the recordings must be readable by every worker "
+                    f"(a shared file system mounted at the same path on each machine){hint}"
+                ),
+            )
     try:
         return fn(item)
     except Exception as exc:  # any failure on one file is that file's error, as in the local batch
@@ -223,8 +241,9 @@ def iter_results(
 
     def submit_next():
         nonlocal nxt
-        fut = client.submit(_run_task, fn, on_error, items[nxt], key=f"ringdown-{batch}-{nxt}", pure=False,
-                            retries=retries)
+        fut = client.submit(
+            _run_task, fn, on_error, items[nxt], key=f"ringdown-{batch}-{nxt}", pure=False, retries=retries
+        )
         running[fut.key] = (nxt, fut)
         nxt += 1
         return fut
@@ -239,8 +258,13 @@ def iter_results(
             except KilledWorker as exc:
                 res = on_error(items[pos], _as_cluster_error(exc))
             except Exception as exc:  # cancelled, or a result that could not be sent back
-                res = on_error(items[pos], ClusterError(f"the cluster could not run it: {type(exc).__name__}: "
-                                                        f"{' '.join(str(exc).split()) or fut.status}"))
+                res = on_error(
+                    items[pos],
+                    ClusterError(
+                        f"the cluster could not run it: {type(exc).__name__}: "
+                        f"{' '.join(str(exc).split()) or fut.status}"
+                    ),
+                )
             fut.release()
             if nxt < len(items):
                 ac.add(submit_next())
@@ -298,8 +322,10 @@ def _as_cluster_error(exc: BaseException) -> BaseException:
     from distributed.scheduler import KilledWorker
 
     if isinstance(exc, KilledWorker):
-        return ClusterError("the Dask workers running it died each time it was tried (killed, out of memory or their "
-                            "machine lost); check the file and the workers' memory")
+        return ClusterError(
+            "the Dask workers running it died each time it was tried (killed, out of memory or their "
+            "machine lost); check the file and the workers' memory"
+        )
     return exc
 
 
@@ -321,11 +347,15 @@ def check_versions(client) -> None:
     try:
         versions = worker_versions(client)
     except Exception as exc:  # e.g. ringdown not importable on a worker
-        raise ClusterError(f"cannot import ringdown on the Dask workers ({type(exc).__name__}: {exc}); install "
-                           f"ringdown {__version__} in every worker's environment") from None
+        raise ClusterError(
+            f"cannot import ringdown on the Dask workers ({type(exc).__name__}: {exc}); install "
+            f"ringdown {__version__} in every worker's environment"
+        ) from None
     # No worker yet is no error: an adaptive cluster (dask-jobqueue, Kubernetes) starts them later.
     other = {a: v for a, v in versions.items() if v != __version__}
     if other:
         addr, v = sorted(other.items())[0]
-        raise ClusterError(f"{len(other)} Dask worker(s) run ringdown {v} (first {addr}), this process "
-                           f"{__version__}; install the same version everywhere so results agree")
+        raise ClusterError(
+            f"{len(other)} Dask worker(s) run ringdown {v} (first {addr}), this process "
+            f"{__version__}; install the same version everywhere so results agree"
+        )

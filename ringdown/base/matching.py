@@ -10,9 +10,7 @@ import numpy as np
 __all__ = ["match_frequencies"]
 
 
-def match_frequencies(
-    f_a_hz: Sequence[float], f_b_hz: Sequence[float], *, tolerance: float
-) -> list[tuple[int, int]]:
+def match_frequencies(f_a_hz: Sequence[float], f_b_hz: Sequence[float], *, tolerance: float) -> list[tuple[int, int]]:
     """Pair two ascending frequency lists without crossing, closest in log frequency.
 
     Parameters

@@ -129,8 +129,16 @@ def fmt_fixed(v: Any, decimals: int, *, missing: str = MISSING, sign: bool = Fal
     return missing if x is None else f"{x:{'+' if sign else ''}.{decimals}f}"
 
 
-def fmt_interval(v: Any, low: Any = None, high: Any = None, *, digits: int = 3, decimals: int | None = None,
-                 sign: bool = False, missing: str = MISSING) -> str:
+def fmt_interval(
+    v: Any,
+    low: Any = None,
+    high: Any = None,
+    *,
+    digits: int = 3,
+    decimals: int | None = None,
+    sign: bool = False,
+    missing: str = MISSING,
+) -> str:
     """``v [low, high]`` (the interval left out when ``low`` is None): ``digits`` significant
     digits each, or ``decimals`` fixed decimals (with ``sign``, ``+`` before positive values).
 
@@ -139,6 +147,7 @@ def fmt_interval(v: Any, low: Any = None, high: Any = None, *, digits: int = 3, 
     >>> fmt_interval(1.03, 0.887, 1.2)
     '1.03 [0.887, 1.20]'
     """
+
     def one(x):
         if decimals is not None:
             return fmt_fixed(x, decimals, missing=missing, sign=sign)

@@ -22,6 +22,7 @@ __all__ = ["app", "main"]
 
 _COMMAND_MODULES = ("analyze", "compare", "limits", "history", "moduli", "listen")
 
+
 class _Group(TyperGroup):
     """The command group: a usage error (bad option, missing argument) exits 64, not 2."""
 
@@ -62,8 +63,9 @@ def _version_callback(value: bool) -> None:
 
 @app.callback()
 def _root(
-    version: bool = typer.Option(False, "--version", help="Print the version and exit.", is_eager=True,
-                                 callback=_version_callback),
+    version: bool = typer.Option(
+        False, "--version", help="Print the version and exit.", is_eager=True, callback=_version_callback
+    ),
 ) -> None:
     """Measure the modes of ring-down recordings: frequency, decay rate, damping ratio, Q."""
 

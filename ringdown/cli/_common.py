@@ -31,9 +31,11 @@ EXIT_USAGE = 64
 EXIT_INTERRUPTED = 130
 
 #: The exit statuses, as every command's ``--help`` shows them.
-EXIT_EPILOG = ("Exit status: 0 done (every part passed); 1 a part FAILED its limits (check only); "
-               "2 some input could not be analysed or a file (limits, history, output) could not be "
-               "used; 64 usage error (bad option or argument); 130 interrupted.")
+EXIT_EPILOG = (
+    "Exit status: 0 done (every part passed); 1 a part FAILED its limits (check only); "
+    "2 some input could not be analysed or a file (limits, history, output) could not be "
+    "used; 64 usage error (bad option or argument); 130 interrupted."
+)
 
 DEBUG_OPTION = typer.Option(False, "--debug", help="Show the full traceback of an error.")
 #: The time window of the analysis, shared by every command that analyses recordings.
@@ -43,12 +45,29 @@ def time_window(start: Optional[float], end: Optional[float]) -> dict:
     """The analysis options ``start_s``/``end_s`` given on the command line (only those given)."""
     return {k: v for k, v in (("start_s", start), ("end_s", end)) if v is not None}
 
-_AUDIO_AND_TEXT = (".wav", ".flac", ".ogg", ".oga", ".aiff", ".aif", ".au", ".caf", ".w64", ".rf64",
-                   ".csv", ".txt", ".tsv", ".dat") + FORMAT_SUFFIXES
+
+_AUDIO_AND_TEXT = (
+    ".wav",
+    ".flac",
+    ".ogg",
+    ".oga",
+    ".aiff",
+    ".aif",
+    ".au",
+    ".caf",
+    ".w64",
+    ".rf64",
+    ".csv",
+    ".txt",
+    ".tsv",
+    ".dat",
+) + FORMAT_SUFFIXES
 
 #: Help of every command's ``--channel`` option.
-CHANNEL_HELP = ("Channel: a 1-based number, or a name (TDMS 'group/channel' or channel, UFF ID line 1, "
-                "MATLAB/HDF5 variable or dataset path). Default: the first.")
+CHANNEL_HELP = (
+    "Channel: a 1-based number, or a name (TDMS 'group/channel' or channel, UFF ID line 1, "
+    "MATLAB/HDF5 variable or dataset path). Default: the first."
+)
 
 
 def parse_channel(text: Optional[str]):
@@ -193,8 +212,7 @@ class Inputs(list):
 
 #: First line of every CSV that ringdown writes (analyze, check, history, compare): such files
 #: are outputs, not recordings, and are skipped when a folder or pattern is expanded.
-_OUTPUT_CSV_HEADS = ("path,sha256,channel,", "part_id,path,sha256,verdict,", "id,kind,part_id,path,",
-                     "status,index,")
+_OUTPUT_CSV_HEADS = ("path,sha256,channel,", "part_id,path,sha256,verdict,", "id,kind,part_id,path,", "status,index,")
 
 
 def _is_own_output(path: Path) -> bool:
@@ -238,16 +256,19 @@ def expand_inputs(items: Iterable[str], *, recursive: bool = False, exclude: Ite
             found = sorted(str(q) for q in (p.rglob("*") if recursive else p.iterdir()) if keep(q))
             if not found:
                 subs = not recursive and any(q.is_dir() for q in p.iterdir())
-                error_line(f"folder {item!r} holds no recordings ({', '.join(_AUDIO_AND_TEXT)})"
-                           + ("; add --recursive to look in its sub-folders" if subs else ""))
+                error_line(
+                    f"folder {item!r} holds no recordings ({', '.join(_AUDIO_AND_TEXT)})"
+                    + ("; add --recursive to look in its sub-folders" if subs else "")
+                )
                 out.problems += 1
             out.extend(found)
         elif any(ch in item for ch in "*?[") and not p.exists():
             matches = sorted(glob.glob(item, recursive=True))
             found = [m for m in matches if not Path(m).is_dir() and keep(Path(m))]
             for d in (m for m in matches if Path(m).is_dir()):
-                found.extend(sorted(str(q) for q in (Path(d).rglob("*") if recursive else Path(d).iterdir())
-                                    if keep(q)))
+                found.extend(
+                    sorted(str(q) for q in (Path(d).rglob("*") if recursive else Path(d).iterdir()) if keep(q))
+                )
             if not found:
                 error_line(f"pattern {item!r} matches no recordings")
                 out.problems += 1
@@ -255,8 +276,10 @@ def expand_inputs(items: Iterable[str], *, recursive: bool = False, exclude: Ite
         else:
             out.append(item)
     if skipped:
-        note_line(f"skipped {len(skipped)} file(s) written by ringdown: {', '.join(skipped[:3])}"
-                  + (" ..." if len(skipped) > 3 else ""))
+        note_line(
+            f"skipped {len(skipped)} file(s) written by ringdown: {', '.join(skipped[:3])}"
+            + (" ..." if len(skipped) > 3 else "")
+        )
     return out
 
 
@@ -292,8 +315,14 @@ def progress_bar(enabled: bool, total: int, label: str):
         from rich.console import Console
         from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
 
-        prog = Progress(TextColumn(label), BarColumn(), MofNCompleteColumn(), TimeRemainingColumn(),
-                        console=Console(stderr=True), transient=True)
+        prog = Progress(
+            TextColumn(label),
+            BarColumn(),
+            MofNCompleteColumn(),
+            TimeRemainingColumn(),
+            console=Console(stderr=True),
+            transient=True,
+        )
         return prog, prog.add_task(label, total=total)
 
     class _Null:

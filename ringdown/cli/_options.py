@@ -19,8 +19,21 @@ import typer
 
 from ._common import CHANNEL_HELP, parse_channel
 
-__all__ = ["READER_OPTIONS", "WINDOW_OPTIONS", "Channel", "Column", "SampleRate", "Start", "End", "Title", "Notes",
-           "Serial", "Jsonl", "reader_options", "report_header"]
+__all__ = [
+    "READER_OPTIONS",
+    "WINDOW_OPTIONS",
+    "Channel",
+    "Column",
+    "SampleRate",
+    "Start",
+    "End",
+    "Title",
+    "Notes",
+    "Serial",
+    "Jsonl",
+    "reader_options",
+    "report_header",
+]
 
 #: Option names (keyword names of ``ringdown.read_recording``) every reading command accepts.
 READER_OPTIONS = ("channel", "column", "sample_rate")
@@ -31,29 +44,60 @@ _READING = "Reading recordings"
 _REPORT = "Report header"
 
 Channel = Annotated[Optional[str], typer.Option("--channel", help=CHANNEL_HELP, rich_help_panel=_READING)]
-Column = Annotated[Optional[str], typer.Option(
-    "--column", help="Text files: data column, a 1-based number (time column not counted) or a header name.",
-    rich_help_panel=_READING)]
-SampleRate = Annotated[Optional[float], typer.Option(
-    "--sample-rate", help="Sample rate, Hz, for files that do not state it (text without a time column, "
-                          "TDMS/MAT/HDF5 without one).", rich_help_panel=_READING)]
+Column = Annotated[
+    Optional[str],
+    typer.Option(
+        "--column",
+        help="Text files: data column, a 1-based number (time column not counted) or a header name.",
+        rich_help_panel=_READING,
+    ),
+]
+SampleRate = Annotated[
+    Optional[float],
+    typer.Option(
+        "--sample-rate",
+        help="Sample rate, Hz, for files that do not state it (text without a time column, TDMS/MAT/HDF5 without one).",
+        rich_help_panel=_READING,
+    ),
+]
 
-Start = Annotated[Optional[float], typer.Option(
-    "--start", help="Analyse from this time on, s from the record's first sample (check: as learned unless given).",
-    rich_help_panel=_READING)]
-End = Annotated[Optional[float], typer.Option(
-    "--end", help="Analyse up to this time, s from the record's first sample (check: as learned unless given).",
-    rich_help_panel=_READING)]
+Start = Annotated[
+    Optional[float],
+    typer.Option(
+        "--start",
+        help="Analyse from this time on, s from the record's first sample (check: as learned unless given).",
+        rich_help_panel=_READING,
+    ),
+]
+End = Annotated[
+    Optional[float],
+    typer.Option(
+        "--end",
+        help="Analyse up to this time, s from the record's first sample (check: as learned unless given).",
+        rich_help_panel=_READING,
+    ),
+]
 
-Title = Annotated[Optional[str], typer.Option(
-    "--title", help="Report title, printed at the top of every page.", rich_help_panel=_REPORT)]
-Notes = Annotated[Optional[str], typer.Option(
-    "--notes", help="Free text shown under the report title (set-up, fixture, purpose).", rich_help_panel=_REPORT)]
-Serial = Annotated[Optional[str], typer.Option(
-    "--serial", help="Serial or part number, printed in the report header of every page.", rich_help_panel=_REPORT)]
+Title = Annotated[
+    Optional[str],
+    typer.Option("--title", help="Report title, printed at the top of every page.", rich_help_panel=_REPORT),
+]
+Notes = Annotated[
+    Optional[str],
+    typer.Option(
+        "--notes", help="Free text shown under the report title (set-up, fixture, purpose).", rich_help_panel=_REPORT
+    ),
+]
+Serial = Annotated[
+    Optional[str],
+    typer.Option(
+        "--serial", help="Serial or part number, printed in the report header of every page.", rich_help_panel=_REPORT
+    ),
+]
 
-Jsonl = Annotated[bool, typer.Option(
-    "--jsonl", help="Print one JSON record per line as each result is ready (JSON Lines).")]
+Jsonl = Annotated[
+    bool, typer.Option("--jsonl", help="Print one JSON record per line as each result is ready (JSON Lines).")
+]
 
 
 def reader_options(channel=None, column=None, sample_rate=None) -> dict:

@@ -5,16 +5,47 @@ from __future__ import annotations
 import csv
 import sys
 from pathlib import Path
-from typing import List, Optional
+from typing import Optional
 
 import typer
 
 from ..base.clock import seconds
 from ..base.numfmt import fmt_fixed, fmt_pm, fmt_value
-from ._common import (DEBUG_OPTION, catching_interrupts, check_interrupt, EXIT_EPILOG, EXIT_ERROR, EXIT_INTERRUPTED, EXIT_OK, RECURSIVE_OPTION,
-                      default_jobs, error_line, expand_inputs, guarded, note_line, on_terminal,
-                      print_json, print_json_line, progress_bar, time_window, usage_guarded, uses_stdin)
-from ._options import Channel, Column, End, Start, Jsonl, Notes, SampleRate, Serial, Title, reader_options, report_header
+from ._common import (
+    DEBUG_OPTION,
+    EXIT_EPILOG,
+    EXIT_ERROR,
+    EXIT_INTERRUPTED,
+    EXIT_OK,
+    RECURSIVE_OPTION,
+    catching_interrupts,
+    check_interrupt,
+    default_jobs,
+    error_line,
+    expand_inputs,
+    guarded,
+    note_line,
+    on_terminal,
+    print_json,
+    print_json_line,
+    progress_bar,
+    time_window,
+    usage_guarded,
+    uses_stdin,
+)
+from ._options import (
+    Channel,
+    Column,
+    End,
+    Jsonl,
+    Notes,
+    SampleRate,
+    Serial,
+    Start,
+    Title,
+    reader_options,
+    report_header,
+)
 
 __all__ = ["register", "parse_band", "parse_columns", "format_table", "TABLE_COLUMNS", "DEFAULT_COLUMNS"]
 
@@ -48,8 +79,20 @@ TABLE_COLUMNS = {
     "warnings": ("warnings", lambda m: ",".join(m.warning_codes) or "-"),
 }
 #: What the table shows without ``--columns``.
-DEFAULT_COLUMNS = ("f_d", "beta", "f_n", "zeta", "q", "loss_factor", "log_decrement", "f_r", "t60", "snr",
-                   "method", "warnings")
+DEFAULT_COLUMNS = (
+    "f_d",
+    "beta",
+    "f_n",
+    "zeta",
+    "q",
+    "loss_factor",
+    "log_decrement",
+    "f_r",
+    "t60",
+    "snr",
+    "method",
+    "warnings",
+)
 
 
 def parse_columns(text: str | None) -> tuple[str, ...]:
@@ -61,8 +104,10 @@ def parse_columns(text: str | None) -> tuple[str, ...]:
     keys = tuple(k.strip() for k in text.split(",") if k.strip())
     bad = [k for k in keys if k not in TABLE_COLUMNS]
     if bad or not keys:
-        raise ParameterError(f"--columns {text!r}: unknown column(s) {', '.join(map(repr, bad)) or '(none given)'}; "
-                             f"choose from {','.join(TABLE_COLUMNS)}")
+        raise ParameterError(
+            f"--columns {text!r}: unknown column(s) {', '.join(map(repr, bad)) or '(none given)'}; "
+            f"choose from {','.join(TABLE_COLUMNS)}"
+        )
     return keys
 
 
@@ -81,8 +126,10 @@ def format_table(analysis, columns: tuple[str, ...] = DEFAULT_COLUMNS) -> str:
     head = "- (standard input)" if analysis.path == "-" else shown(analysis.path or "<array>")
     used = sum(1 for h in analysis.hits if h.used)
     unit = f" [{analysis.unit}]" if analysis.unit else ""
-    head += (f"  ({fmt_value(analysis.sample_rate_hz, 7)} Hz, {fmt_value(analysis.duration_s, 3)} s, "
-             f"channel {analysis.channel}{unit}, {len(analysis.hits)} hit(s), {used} used)")
+    head += (
+        f"  ({fmt_value(analysis.sample_rate_hz, 7)} Hz, {fmt_value(analysis.duration_s, 3)} s, "
+        f"channel {analysis.channel}{unit}, {len(analysis.hits)} hit(s), {used} used)"
+    )
     lines.append(head)
     cols = ("#", *(TABLE_COLUMNS[k][0] for k in columns))
     rows = [(str(m.index), *(TABLE_COLUMNS[k][1](m) for k in columns)) for m in analysis.modes]
@@ -115,8 +162,8 @@ def write_csv(analyses, path: str) -> None:
 
     Written to a temporary file and renamed into place; text cells are neutralised
     (:func:`ringdown.outputs.csv_cell`)."""
-    from ..io.outputs import atomic_write, csv_row
     from ..analysis.results import mode_keys
+    from ..io.outputs import atomic_write, csv_row
 
     keys = [k for k in mode_keys() if k not in ("warnings", "cross_checks", "damping_vs_amplitude", "band_hz")]
     with atomic_write(path, newline="", what="CSV") as fh:
@@ -128,32 +175,51 @@ def write_csv(analyses, path: str) -> None:
                 continue
             for m in a.modes:
                 d = m.to_dict()
-                w.writerow(csv_row([a.path, a.sha256, a.channel, *[d[k] for k in keys],
-                                    ";".join(m.warning_codes), None]))
+                w.writerow(
+                    csv_row([a.path, a.sha256, a.channel, *[d[k] for k in keys], ";".join(m.warning_codes), None])
+                )
 
 
 def register(app: typer.Typer) -> None:
     @app.command("analyze", epilog=EXIT_EPILOG)
     def analyze_cmd(
-        files: List[str] = typer.Argument(..., help="Recordings (WAV/FLAC/OGG/CSV, TDMS, UFF 58, MAT, HDF5), folders "
-                                                    "or glob patterns; '-' reads one recording from standard input."),
+        files: list[str] = typer.Argument(
+            ...,
+            help="Recordings (WAV/FLAC/OGG/CSV, TDMS, UFF 58, MAT, HDF5), folders "
+            "or glob patterns; '-' reads one recording from standard input.",
+        ),
         json_out: bool = typer.Option(False, "--json", help="Print one JSON document instead of tables."),
         jsonl: Jsonl = False,
         csv_out: Optional[Path] = typer.Option(None, "--csv", help="Also write one CSV row per mode to this file."),
         channel: Channel = None,
         column: Column = None,
         sample_rate: SampleRate = None,
-        columns: Optional[str] = typer.Option(None, "--columns", help="Table columns, comma-separated, from "
-                                              + ",".join(TABLE_COLUMNS) + "."),
-        method: str = typer.Option("auto", "--method", help="Estimator reported per mode: auto, envelope, decrement, half_power, pencil."),
-        band: Optional[List[str]] = typer.Option(None, "--band", help="Analyse this band LOW:HIGH in Hz instead of searching (repeatable)."),
-        max_modes: Optional[int] = typer.Option(None, "--max-modes", help="Keep at most this many modes (the strongest)."),
-        min_snr_db: float = typer.Option(10.0, "--min-snr-db", help="Fits end where a mode is this far above its band noise, dB."),
-        min_hit_snr_db: float = typer.Option(20.0, "--min-hit-snr-db", help="A hit must rise this far above the noise floor, dB."),
-        keep_double_hits: bool = typer.Option(False, "--keep-double-hits", help="Combine hits flagged as hammer bounces too."),
+        columns: Optional[str] = typer.Option(
+            None, "--columns", help="Table columns, comma-separated, from " + ",".join(TABLE_COLUMNS) + "."
+        ),
+        method: str = typer.Option(
+            "auto", "--method", help="Estimator reported per mode: auto, envelope, decrement, half_power, pencil."
+        ),
+        band: Optional[list[str]] = typer.Option(
+            None, "--band", help="Analyse this band LOW:HIGH in Hz instead of searching (repeatable)."
+        ),
+        max_modes: Optional[int] = typer.Option(
+            None, "--max-modes", help="Keep at most this many modes (the strongest)."
+        ),
+        min_snr_db: float = typer.Option(
+            10.0, "--min-snr-db", help="Fits end where a mode is this far above its band noise, dB."
+        ),
+        min_hit_snr_db: float = typer.Option(
+            20.0, "--min-hit-snr-db", help="A hit must rise this far above the noise floor, dB."
+        ),
+        keep_double_hits: bool = typer.Option(
+            False, "--keep-double-hits", help="Combine hits flagged as hammer bounces too."
+        ),
         start: Start = None,
         end: End = None,
-        jobs: Optional[int] = typer.Option(None, "--jobs", help="Worker processes for a batch (default: the number of cores)."),
+        jobs: Optional[int] = typer.Option(
+            None, "--jobs", help="Worker processes for a batch (default: the number of cores)."
+        ),
         plot: Optional[Path] = typer.Option(None, "--plot", help="Write figures for each file into this folder."),
         plot_format: str = typer.Option("png", "--plot-format", help="Figure format: png or svg."),
         report: Optional[Path] = typer.Option(None, "--report", help="Write one self-contained HTML report."),
@@ -161,15 +227,27 @@ def register(app: typer.Typer) -> None:
         notes: Notes = None,
         serial: Serial = None,
         store: bool = typer.Option(False, "--store", help="Also store every result in the results history (SQLite)."),
-        db: Optional[str] = typer.Option(None, "--db", help="History database (default $RINGDOWN_DB, else ringdown.sqlite here)."),
-        part_id: Optional[str] = typer.Option(None, "--part-id", help="Regex taking the part id from the file name (first group)."),
+        db: Optional[str] = typer.Option(
+            None, "--db", help="History database (default $RINGDOWN_DB, else ringdown.sqlite here)."
+        ),
+        part_id: Optional[str] = typer.Option(
+            None, "--part-id", help="Regex taking the part id from the file name (first group)."
+        ),
         station: Optional[str] = typer.Option(None, "--station", help="Test station, stored with each result."),
         operator: Optional[str] = typer.Option(None, "--operator", help="Operator, stored with each result."),
         recursive: bool = RECURSIVE_OPTION,
-        scheduler: Optional[str] = typer.Option(None, "--scheduler", help="Run on a Dask cluster: scheduler ADDRESS "
-                                                "(tcp://HOST:8786) or local:N worker processes (needs the 'cluster' extra)."),
-        parquet_out: Optional[Path] = typer.Option(None, "--parquet", help="Also append one row per mode to this Parquet "
-                                                   "dataset folder, as results arrive (needs the 'cluster' extra)."),
+        scheduler: Optional[str] = typer.Option(
+            None,
+            "--scheduler",
+            help="Run on a Dask cluster: scheduler ADDRESS "
+            "(tcp://HOST:8786) or local:N worker processes (needs the 'cluster' extra).",
+        ),
+        parquet_out: Optional[Path] = typer.Option(
+            None,
+            "--parquet",
+            help="Also append one row per mode to this Parquet "
+            "dataset folder, as results arrive (needs the 'cluster' extra).",
+        ),
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Measure every mode of each recording: f_d, beta, f_n, zeta, Q, loss factor, dB/s, T60."""
@@ -184,14 +262,29 @@ def register(app: typer.Typer) -> None:
             from .render import check_plot_format
 
             if json_out and jsonl:
-                raise ParameterError("--json and --jsonl are exclusive: --json prints one document at the end, "
-                                     "--jsonl one line per file as it is ready; choose one")
+                raise ParameterError(
+                    "--json and --jsonl are exclusive: --json prints one document at the end, "
+                    "--jsonl one line per file as it is ready; choose one"
+                )
             bands = [parse_band(b) for b in band] if band else None
-            opts = dict(reader_options(channel, column, sample_rate), method=method, bands=bands,
-                        max_modes=max_modes, min_snr_db=min_snr_db, min_hit_snr_db=min_hit_snr_db,
-                        keep_double_hits=keep_double_hits, **time_window(start, end))
-            AnalysisOptions(method=method, bands=bands, max_modes=max_modes, min_snr_db=min_snr_db,
-                            min_hit_snr_db=min_hit_snr_db, **time_window(start, end))
+            opts = dict(
+                reader_options(channel, column, sample_rate),
+                method=method,
+                bands=bands,
+                max_modes=max_modes,
+                min_snr_db=min_snr_db,
+                min_hit_snr_db=min_hit_snr_db,
+                keep_double_hits=keep_double_hits,
+                **time_window(start, end),
+            )
+            AnalysisOptions(
+                method=method,
+                bands=bands,
+                max_modes=max_modes,
+                min_snr_db=min_snr_db,
+                min_hit_snr_db=min_hit_snr_db,
+                **time_window(start, end),
+            )
             if jobs is not None and jobs < 1:
                 raise ParameterError(f"--jobs must be >= 1; got {jobs}")
             if plot is not None:
@@ -217,7 +310,9 @@ def register(app: typer.Typer) -> None:
         def arrived(a) -> None:
             """Each result as it is ready: its error on stderr, its line or table on stdout."""
             if a.error is not None:
-                error_line(f"{a.path}: {a.error.message}" if a.path and a.path not in a.error.message else a.error.message)
+                error_line(
+                    f"{a.path}: {a.error.message}" if a.path and a.path not in a.error.message else a.error.message
+                )
             if jsonl:
                 print_json_line(a.to_dict())
             elif not json_out:
@@ -245,8 +340,12 @@ def register(app: typer.Typer) -> None:
                     check_interrupt()  # a result that finished after a Ctrl-C is not taken
                     results[i] = a
                     storer.add(a)  # durable before anything else is written
-                    guarded(lambda: sink.add_analysis(a, part_id=part_id_from_path(a.path or "array", part_id),
-                                                      station=station, operator=operator), debug=debug)
+                    guarded(
+                        lambda: sink.add_analysis(
+                            a, part_id=part_id_from_path(a.path or "array", part_id), station=station, operator=operator
+                        ),
+                        debug=debug,
+                    )
                     bar.advance(task)
                     arrived(a)
                 guarded(sink.close, debug=debug)
@@ -273,18 +372,25 @@ def register(app: typer.Typer) -> None:
         if plot is not None or report is not None:
             for a in analyses:
                 if a.error is None and a.recording is None:
-                    note_line(f"{a.path}: analysed in segments (a long file), no samples kept: its figures are not drawn")
+                    note_line(
+                        f"{a.path}: analysed in segments (a long file), no samples kept: its figures are not drawn"
+                    )
         failed_outputs += _render(analyses, plot, plot_format, report, options, debug, header)
         storer.report()
         errors = sum(1 for a in analyses if a.error is not None)
         if interrupted:
-            error_line(f"interrupted: {len(analyses)} of {len(paths)} done"
-                       + (" (stored)" if history is not None else "") + ", rerun to resume")
+            error_line(
+                f"interrupted: {len(analyses)} of {len(paths)} done"
+                + (" (stored)" if history is not None else "")
+                + ", rerun to resume"
+            )
             raise typer.Exit(EXIT_INTERRUPTED)
         if len(analyses) > 1 and not json_out:
-            typer.echo(f"{len(analyses)} files: {len(analyses) - errors} analysed, {errors} errors, "
-                       f"{sum(len(a.modes) for a in analyses)} modes in {seconds() - started:.1f} s",
-                       err=jsonl)
+            typer.echo(
+                f"{len(analyses)} files: {len(analyses) - errors} analysed, {errors} errors, "
+                f"{sum(len(a.modes) for a in analyses)} modes in {seconds() - started:.1f} s",
+                err=jsonl,
+            )
         bad = errors or failed_outputs or storer.failed or paths.problems
         raise typer.Exit(EXIT_ERROR if bad else EXIT_OK)
 
@@ -304,8 +410,14 @@ def _iter_long_file(path: str, options: dict, show: bool):
         from rich.console import Console
         from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
 
-        prog = Progress(TextColumn("analysing"), BarColumn(), TextColumn("{task.fields[at]}"), TimeRemainingColumn(),
-                        console=Console(stderr=True), transient=True)
+        prog = Progress(
+            TextColumn("analysing"),
+            BarColumn(),
+            TextColumn("{task.fields[at]}"),
+            TimeRemainingColumn(),
+            console=Console(stderr=True),
+            transient=True,
+        )
     else:
         prog = None
     task_id = None
@@ -383,8 +495,13 @@ class _Storer:
 
         try:
             with sigint_deferred():
-                rid = self.history.record_analysis(a, part_id=part_id_from_path(a.path or "array", self.part_id),
-                                                   station=self.station, operator=self.operator, skip_stored=True)
+                rid = self.history.record_analysis(
+                    a,
+                    part_id=part_id_from_path(a.path or "array", self.part_id),
+                    station=self.station,
+                    operator=self.operator,
+                    skip_stored=True,
+                )
         except StoreError as exc:
             error_line(f"{exc}; results from here on are not stored")
             self.failed = True

@@ -58,16 +58,37 @@ def format_table(comparison) -> str:
         f"{conf:g} % intervals",
         "",
     ]
-    head = ("mode", "f_d before Hz", "f_d after Hz", f"shift % [{conf:g} %]", "zeta before",
-            "zeta after", f"zeta after/before [{conf:g} %]", "test", "p", "verdict")
+    head = (
+        "mode",
+        "f_d before Hz",
+        "f_d after Hz",
+        f"shift % [{conf:g} %]",
+        "zeta before",
+        "zeta after",
+        f"zeta after/before [{conf:g} %]",
+        "test",
+        "p",
+        "verdict",
+    )
     rows = []
     for m in comparison.modes:
         b, a, d, f = m.before, m.after, m.damping, m.frequency
         shift = fmt_interval(*f.percent, decimals=2, sign=True)
         ratio = "x" + fmt_interval(d.ratio, d.ratio_low, d.ratio_high, digits=3)
-        rows.append((str(m.index), _pm(b.f_d_hz, b.f_d_hz_u), _pm(a.f_d_hz, a.f_d_hz_u), shift,
-                     _pm(b.zeta, b.zeta_u), _pm(a.zeta, a.zeta_u), ratio, d.test,
-                     _sig(d.p_value, 2), d.verdict))
+        rows.append(
+            (
+                str(m.index),
+                _pm(b.f_d_hz, b.f_d_hz_u),
+                _pm(a.f_d_hz, a.f_d_hz_u),
+                shift,
+                _pm(b.zeta, b.zeta_u),
+                _pm(a.zeta, a.zeta_u),
+                ratio,
+                d.test,
+                _sig(d.p_value, 2),
+                d.verdict,
+            )
+        )
     widths = [max(len(r[k]) for r in [head, *rows]) for k in range(len(head))]
     fmt = lambda r: "  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip()  # noqa: E731
     lines.append(fmt(head))
@@ -76,8 +97,10 @@ def format_table(comparison) -> str:
         lines.append("(no mode found on both sides)")
     for label, ms in (("before only", comparison.unmatched_before), ("after only", comparison.unmatched_after)):
         for cm in ms:
-            lines.append(f"unmatched, {label}: {_pm(cm.f_d_hz, cm.f_d_hz_u)} Hz, "
-                         f"zeta {_pm(cm.zeta, cm.zeta_u)} ({cm.n_repeats} repeats)")
+            lines.append(
+                f"unmatched, {label}: {_pm(cm.f_d_hz, cm.f_d_hz_u)} Hz, "
+                f"zeta {_pm(cm.zeta, cm.zeta_u)} ({cm.n_repeats} repeats)"
+            )
     notes = [f"mode {m.index}: {w.code}: {w.message}" for m in comparison.modes for w in m.warnings]
     notes += [f"{n.code}: {n.message}" for n in comparison.notices]
     if notes:
@@ -140,11 +163,15 @@ def register(app: typer.Typer) -> None:
     def compare_cmd(
         ctx: typer.Context,
         before: list[str] = typer.Option(
-            ..., "--before", "-b",
+            ...,
+            "--before",
+            "-b",
             help="Recording(s) before the treatment (repeatable; file, folder or quoted pattern).",
         ),
         after: list[str] = typer.Option(
-            ..., "--after", "-a",
+            ...,
+            "--after",
+            "-a",
             help="Recording(s) after the treatment (repeatable; file, folder or quoted pattern).",
         ),
         json_out: bool = typer.Option(False, "--json", help="Print the JSON document instead of the table."),
@@ -161,8 +188,12 @@ def register(app: typer.Typer) -> None:
         channel: Channel = None,
         column: Column = None,
         sample_rate: SampleRate = None,
-        band: Optional[list[str]] = typer.Option(None, "--band", help="Band LOW:HIGH in Hz (repeatable, as for analyze)."),
-        min_hit_snr_db: float = typer.Option(20.0, "--min-hit-snr-db", help="A hit must rise this far above the noise, dB."),
+        band: Optional[list[str]] = typer.Option(
+            None, "--band", help="Band LOW:HIGH in Hz (repeatable, as for analyze)."
+        ),
+        min_hit_snr_db: float = typer.Option(
+            20.0, "--min-hit-snr-db", help="A hit must rise this far above the noise, dB."
+        ),
         keep_double_hits: bool = typer.Option(False, "--keep-double-hits", help="Count bounced hits as repeats too."),
         title: Title = None,
         notes: Notes = None,
@@ -180,13 +211,19 @@ def register(app: typer.Typer) -> None:
 
         b = expand_inputs(before)
         a = expand_inputs(after)
+
         def run():
             from ._common import uses_stdin
             from .analyze import parse_band
 
             uses_stdin([*b, *a])  # '-' once at most: standard input holds one recording
-            options = dict(reader_options(channel, column, sample_rate), method=method,
-                           min_hit_snr_db=min_hit_snr_db, keep_double_hits=keep_double_hits, **time_window(start, end))
+            options = dict(
+                reader_options(channel, column, sample_rate),
+                method=method,
+                min_hit_snr_db=min_hit_snr_db,
+                keep_double_hits=keep_double_hits,
+                **time_window(start, end),
+            )
             if band:
                 options["bands"] = [parse_band(x) for x in band]
             return compare(b, a, tolerance=tolerance, confidence=confidence, **options)

@@ -19,8 +19,11 @@ def _f(v, digits: int) -> str:
 
 
 def _n_modes(records) -> int:
-    seen = [m.get("ref_index") or (m.get("mode_index") if r.kind == "analysis" else 0) or 0
-            for r in records for m in r.modes]
+    seen = [
+        m.get("ref_index") or (m.get("mode_index") if r.kind == "analysis" else 0) or 0
+        for r in records
+        for m in r.modes
+    ]
     return min(max(seen or [0]), 6)
 
 
@@ -30,8 +33,11 @@ def format_history(records) -> str:
     from ..io.outputs import shown
 
     n = _n_modes(records)
-    head = ["id", "tested (UTC)", "part", "verdict", "station", "operator"] + [f"f{j} [Hz]" for j in range(1, n + 1)] \
+    head = (
+        ["id", "tested (UTC)", "part", "verdict", "station", "operator"]
+        + [f"f{j} [Hz]" for j in range(1, n + 1)]
         + ["first reason"]
+    )
     rows = []
     for r in records:
         fs = []
@@ -41,8 +47,18 @@ def format_history(records) -> str:
         reason = r.reasons[0]["message"] if r.reasons else (r.error or "")
         kind = verdict_kind(r.verdict, [n.get("code") for n in r.notes])
         verdict = "PASS (advisory)" if kind == "pass_advisory" else shown(r.verdict or r.kind).upper()
-        rows.append([str(r.id), shown(str(r.tested_utc)[:19].replace("T", " ")), shown(r.part_id), verdict,
-                     shown(r.station or "-"), shown(r.operator or "-"), *fs, shown(reason)])
+        rows.append(
+            [
+                str(r.id),
+                shown(str(r.tested_utc)[:19].replace("T", " ")),
+                shown(r.part_id),
+                verdict,
+                shown(r.station or "-"),
+                shown(r.operator or "-"),
+                *fs,
+                shown(reason),
+            ]
+        )
     widths = [max(len(h), *(len(x[i]) for x in rows)) if rows else len(h) for i, h in enumerate(head)]
     lines = ["  ".join(h.ljust(w) for h, w in zip(head, widths)).rstrip()]
     for x in rows:
@@ -52,8 +68,23 @@ def format_history(records) -> str:
 
 def _write_csv(records, path: str) -> None:
     n = _n_modes(records)
-    head = ["id", "kind", "part_id", "path", "sha256", "tested_utc", "station", "operator", "tool_version",
-            "limits_sha256", "verdict", "mahalanobis", "uniform_shift", "reasons", "error"]
+    head = [
+        "id",
+        "kind",
+        "part_id",
+        "path",
+        "sha256",
+        "tested_utc",
+        "station",
+        "operator",
+        "tool_version",
+        "limits_sha256",
+        "verdict",
+        "mahalanobis",
+        "uniform_shift",
+        "reasons",
+        "error",
+    ]
     for j in range(1, n + 1):
         head += [f"mode{j}_f_d_hz", f"mode{j}_f_d_hz_u", f"mode{j}_zeta", f"mode{j}_zeta_u", f"mode{j}_q"]
     from ..io.outputs import atomic_write, csv_row
@@ -62,9 +93,23 @@ def _write_csv(records, path: str) -> None:
         w = csv.writer(fh)
         w.writerow(head)
         for r in records:
-            row = [r.id, r.kind, r.part_id, r.path, r.sha256, r.tested_utc, r.station, r.operator,
-                   r.tool_version, r.limits_sha256, r.verdict, r.mahalanobis, r.uniform_shift,
-                   "; ".join(str(x.get("message", "")) if isinstance(x, dict) else str(x) for x in r.reasons), r.error]
+            row = [
+                r.id,
+                r.kind,
+                r.part_id,
+                r.path,
+                r.sha256,
+                r.tested_utc,
+                r.station,
+                r.operator,
+                r.tool_version,
+                r.limits_sha256,
+                r.verdict,
+                r.mahalanobis,
+                r.uniform_shift,
+                "; ".join(str(x.get("message", "")) if isinstance(x, dict) else str(x) for x in r.reasons),
+                r.error,
+            ]
             for j in range(1, n + 1):
                 m = r.mode_for(j) or {}
                 row += [m.get("f_d_hz"), m.get("f_d_hz_u"), m.get("zeta"), m.get("zeta_u"), m.get("q")]
@@ -74,7 +119,9 @@ def _write_csv(records, path: str) -> None:
 def register(app: typer.Typer) -> None:
     @app.command("history", epilog=EXIT_EPILOG)
     def history(
-        db: Optional[str] = typer.Option(None, "--db", help="Results database (default $RINGDOWN_DB or ringdown.sqlite)."),
+        db: Optional[str] = typer.Option(
+            None, "--db", help="Results database (default $RINGDOWN_DB or ringdown.sqlite)."
+        ),
         part: Optional[str] = typer.Option(None, "--part", help="Only this part id."),
         since: Optional[str] = typer.Option(None, "--since", help="From this date or date-time (ISO, UTC)."),
         until: Optional[str] = typer.Option(None, "--until", help="Up to this date (whole day) or date-time."),
@@ -82,12 +129,19 @@ def register(app: typer.Typer) -> None:
         kind: Optional[str] = typer.Option(None, "--kind", help="Only 'check' or 'analysis' records."),
         json_out: bool = typer.Option(False, "--json", help="Print the records as JSON."),
         csv_out: Optional[str] = typer.Option(None, "--csv", help="Write the records to this CSV file."),
-        plot: Optional[str] = typer.Option(None, "--plot", help="Write a run chart; the name's ending gives the "
-                                           "format: .png, .svg or .pdf."),
-        limits_path: Optional[str] = typer.Option(None, "--limits", help="Draw these limits on the run chart "
-                                                  "(default: the limits each part was checked with)."),
-        parquet_out: Optional[str] = typer.Option(None, "--parquet", help="Write the records, one row per mode, to "
-                                                  "this Parquet dataset folder (needs the 'cluster' extra)."),
+        plot: Optional[str] = typer.Option(
+            None, "--plot", help="Write a run chart; the name's ending gives the format: .png, .svg or .pdf."
+        ),
+        limits_path: Optional[str] = typer.Option(
+            None,
+            "--limits",
+            help="Draw these limits on the run chart (default: the limits each part was checked with).",
+        ),
+        parquet_out: Optional[str] = typer.Option(
+            None,
+            "--parquet",
+            help="Write the records, one row per mode, to this Parquet dataset folder (needs the 'cluster' extra).",
+        ),
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Show stored results: a table, JSON, CSV, or a run chart of every mode in test order."""
@@ -98,8 +152,10 @@ def register(app: typer.Typer) -> None:
         if plot:
             from .render import check_plot_format
 
-            guarded(lambda: check_plot_format(Path(plot).suffix.lower().lstrip("."),
-                                                "the --plot file's ending"), debug=debug)
+            guarded(
+                lambda: check_plot_format(Path(plot).suffix.lower().lstrip("."), "the --plot file's ending"),
+                debug=debug,
+            )
         if json_out and csv_out:
             usage_error("--json and --csv are exclusive; choose one")
         if csv_out:
@@ -125,6 +181,7 @@ def register(app: typer.Typer) -> None:
             sink = guarded(lambda: export_history(path, records, parquet_out), debug=debug)
             typer.echo(f"wrote {sink.rows_written} row(s) of {len(records)} record(s) to {parquet_out}", err=True)
         if plot:
+
             def draw():
                 from ..render.history_plot import plot_run_chart
 

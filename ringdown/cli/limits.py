@@ -63,6 +63,7 @@ if TYPE_CHECKING:
 
 __all__ = ["register", "format_check"]
 
+
 def _analysis_options(method, min_snr_db, max_modes, bands, start=None, end=None) -> dict:
     opts: dict = time_window(start, end)
     if method is not None:
@@ -114,10 +115,17 @@ def _write_csv(rows: list[dict], limits, path: str) -> None:
         w.writerow(head)
         for r in rows:
             vals = {(f["mode"], f["feature"]): f["value"] for f in r.get("features", [])}
-            line = [r["part_id"], r["path"], r.get("sha256"), r["verdict"], bool(r.get("skipped")),
-                    r.get("mahalanobis"), r.get("uniform_shift"),
-                    "; ".join(x["message"] for x in r.get("reasons", [])),
-                    "; ".join(x["message"] for x in r.get("notes", []))]
+            line = [
+                r["part_id"],
+                r["path"],
+                r.get("sha256"),
+                r["verdict"],
+                bool(r.get("skipped")),
+                r.get("mahalanobis"),
+                r.get("uniform_shift"),
+                "; ".join(x["message"] for x in r.get("reasons", [])),
+                "; ".join(x["message"] for x in r.get("notes", [])),
+            ]
             for j in range(1, n + 1):
                 line += [vals.get((j, "f_hz")), vals.get((j, "zeta")), vals.get((j, "ratio"))]
             w.writerow(csv_row(line))
@@ -146,14 +154,41 @@ def _write_report(rows: list[dict], limits, path: str, options: dict, header: di
         # parts skipped as already stored: their modes from the stored record, in full
         body = []
         for r in stored:
-            body.append(html_table(
-                ["part", "path", "verdict", "mode", "f_d [Hz]", "u(f_d) [Hz]", "beta [1/s]", "zeta", "u(zeta)", "Q"],
-                [[r["part_id"], r["path"], r["verdict"].upper(), m.get("index"), m.get("f_d_hz"), m.get("f_d_hz_u"),
-                  m.get("beta_per_s"), m.get("zeta"), m.get("zeta_u"), m.get("q")] for m in r.get("modes", [])]
-                or [[r["part_id"], r["path"], r["verdict"].upper(), "-", "-", "-", "-", "-", "-", "-"]],
-            ))
-        sections.append(Section("Parts taken from the history (already stored, not re-analysed)", "".join(body),
-                                anchor="stored"))
+            body.append(
+                html_table(
+                    [
+                        "part",
+                        "path",
+                        "verdict",
+                        "mode",
+                        "f_d [Hz]",
+                        "u(f_d) [Hz]",
+                        "beta [1/s]",
+                        "zeta",
+                        "u(zeta)",
+                        "Q",
+                    ],
+                    [
+                        [
+                            r["part_id"],
+                            r["path"],
+                            r["verdict"].upper(),
+                            m.get("index"),
+                            m.get("f_d_hz"),
+                            m.get("f_d_hz_u"),
+                            m.get("beta_per_s"),
+                            m.get("zeta"),
+                            m.get("zeta_u"),
+                            m.get("q"),
+                        ]
+                        for m in r.get("modes", [])
+                    ]
+                    or [[r["part_id"], r["path"], r["verdict"].upper(), "-", "-", "-", "-", "-", "-", "-"]],
+                )
+            )
+        sections.append(
+            Section("Parts taken from the history (already stored, not re-analysed)", "".join(body), anchor="stored")
+        )
     _write(render_check_report(rows, analyses, limits, more_sections=sections, **header), path)
 
 
@@ -188,8 +223,13 @@ def register(app: typer.Typer) -> None:
         from ..inspection.learning import learn_limits
         from ..inspection.limits_file import write_limits
 
-        opts = usage_guarded(lambda: {**_analysis_options(method, min_snr_db, max_modes, band, start, end),
-                                      **reader_options(channel, column, sample_rate)}, debug=debug)
+        opts = usage_guarded(
+            lambda: {
+                **_analysis_options(method, min_snr_db, max_modes, band, start, end),
+                **reader_options(channel, column, sample_rate),
+            },
+            debug=debug,
+        )
 
         def run():
             from ..base.errors import ParameterError
@@ -212,10 +252,11 @@ def register(app: typer.Typer) -> None:
             if bad:
                 from ..base.errors import ParameterError
 
-                raise ParameterError(f"{len(bad)} good part(s) could not be analysed, first {bad[0][0]!r}: "
-                                     f"{bad[0][1].message}; remove or re-record them")
-            lim = learn_limits(analyses, coverage=coverage, confidence=confidence, tolerance=tolerance,
-                               n_modes=n_modes)
+                raise ParameterError(
+                    f"{len(bad)} good part(s) could not be analysed, first {bad[0][0]!r}: "
+                    f"{bad[0][1].message}; remove or re-record them"
+                )
+            lim = learn_limits(analyses, coverage=coverage, confidence=confidence, tolerance=tolerance, n_modes=n_modes)
             sha = write_limits(lim, output)
             return replace(lim, source=output, sha256=sha)
 
@@ -225,13 +266,17 @@ def register(app: typer.Typer) -> None:
         if json_out:
             print_json(lim.to_dict())
             return
-        typer.echo(f"learned limits from {lim.n_parts} good parts (coverage {lim.coverage:g}, confidence "
-                   f"{lim.confidence:g}, k = {lim.k_factor:.4f}) -> {output}")
+        typer.echo(
+            f"learned limits from {lim.n_parts} good parts (coverage {lim.coverage:g}, confidence "
+            f"{lim.confidence:g}, k = {lim.k_factor:.4f}) -> {output}"
+        )
         if lim.reader:
             typer.echo("  read with " + ", ".join(f"{k} {v}" for k, v in lim.reader.items()))
         for m in lim.modes:
-            line = (f"  mode {m.index}: f_d {' to '.join(fmt_values(m.f_hz, 6))} Hz, "
-                    f"zeta {' to '.join(fmt_values(m.zeta, 3))}")
+            line = (
+                f"  mode {m.index}: f_d {' to '.join(fmt_values(m.f_hz, 6))} Hz, "
+                f"zeta {' to '.join(fmt_values(m.zeta, 3))}"
+            )
             if m.ratio is not None:
                 line += f", ratio to mode 1 {' to '.join(fmt_values(m.ratio, 6))}"
             typer.echo(line)
@@ -255,21 +300,35 @@ def register(app: typer.Typer) -> None:
         channel: Channel = None,
         column: Column = None,
         sample_rate: SampleRate = None,
-        db: Optional[str] = typer.Option(None, "--db", help=f"Results database (default ${DB_ENV} or ringdown.sqlite)."),
+        db: Optional[str] = typer.Option(
+            None, "--db", help=f"Results database (default ${DB_ENV} or ringdown.sqlite)."
+        ),
         no_store: bool = typer.Option(False, "--no-store", help="Do not write results to the database."),
         station: Optional[str] = typer.Option(None, "--station", help="Test station name, stored with each result."),
         operator: Optional[str] = typer.Option(None, "--operator", help="Operator, stored with each result."),
-        part_id: Optional[str] = typer.Option(None, "--part-id", help="Regex taking the part id from the file name "
-                                              "(first group, or the whole match); default the file stem."),
+        part_id: Optional[str] = typer.Option(
+            None,
+            "--part-id",
+            help="Regex taking the part id from the file name "
+            "(first group, or the whole match); default the file stem.",
+        ),
         force: bool = typer.Option(False, "--force", help="Re-check files already stored with the same limits."),
         start: Start = None,
         end: End = None,
         jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
         recursive: bool = RECURSIVE_OPTION,
-        scheduler: Optional[str] = typer.Option(None, "--scheduler", help="Run on a Dask cluster: scheduler ADDRESS "
-                                                "(tcp://HOST:8786) or local:N worker processes (needs the 'cluster' extra)."),
-        parquet_out: Optional[str] = typer.Option(None, "--parquet", help="Also append one row per mode to this Parquet "
-                                                  "dataset folder, as results arrive (needs the 'cluster' extra)."),
+        scheduler: Optional[str] = typer.Option(
+            None,
+            "--scheduler",
+            help="Run on a Dask cluster: scheduler ADDRESS "
+            "(tcp://HOST:8786) or local:N worker processes (needs the 'cluster' extra).",
+        ),
+        parquet_out: Optional[str] = typer.Option(
+            None,
+            "--parquet",
+            help="Also append one row per mode to this Parquet "
+            "dataset folder, as results arrive (needs the 'cluster' extra).",
+        ),
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Check parts against limits: PASS or FAIL with every reason; store each result."""
@@ -282,8 +341,10 @@ def register(app: typer.Typer) -> None:
         if json_out and jsonl:
             from ._common import usage_error
 
-            usage_error("--json and --jsonl are exclusive: --json prints one document at the end, --jsonl one "
-                        "line per part as it is checked; choose one")
+            usage_error(
+                "--json and --jsonl are exclusive: --json prints one document at the end, --jsonl one "
+                "line per part as it is checked; choose one"
+            )
         overrides = usage_guarded(lambda: reader_options(channel, column, sample_rate), debug=debug)
         usage_guarded(lambda: part_id_from_path("x", part_id), debug=debug)  # a bad regex is a usage error
         lim = guarded(lambda: read_limits(limits_path), debug=debug)
@@ -303,8 +364,11 @@ def register(app: typer.Typer) -> None:
             shas = [file_sha256(p) for p in paths]
             todo = []
             for i, p in enumerate(paths):
-                old = None if (store is None or force or shas[i] is None) else guarded(
-                    partial(store.find_check, shas[i], lim.sha256), debug=debug)
+                old = (
+                    None
+                    if (store is None or force or shas[i] is None)
+                    else guarded(partial(store.find_check, shas[i], lim.sha256), debug=debug)
+                )
                 if old is not None:
                     rows[i] = row = _stored_row(old, ids[i], p, shas[i])
                     _stream(row, json_out, jsonl)
@@ -317,8 +381,14 @@ def register(app: typer.Typer) -> None:
             cluster = guarded(lambda: connect(scheduler), debug=debug)
             sink = guarded(lambda: open_sink(parquet_out), debug=debug)
             with catching_interrupts(), cluster as client, sink, prog:
-                it = iter_check_files([paths[i] for i in todo], lim, jobs=n_jobs, on_notice=note_line,
-                                      options={**overrides, **time_window(start, end)}, client=client)
+                it = iter_check_files(
+                    [paths[i] for i in todo],
+                    lim,
+                    jobs=n_jobs,
+                    on_notice=note_line,
+                    options={**overrides, **time_window(start, end)},
+                    client=client,
+                )
                 for pos, res in it:
                     check_interrupt()  # a result that finished after a Ctrl-C is not taken
                     i = todo[pos]
@@ -326,13 +396,16 @@ def register(app: typer.Typer) -> None:
                         res = replace(res, sha256=shas[i])
                     with sigint_deferred():  # stored and counted whole, or not at all
                         # to the dataset before the database: whatever is stored is in the dataset too
-                        guarded(partial(sink.add_check, res, part_id=ids[i], station=station, operator=operator),
-                                debug=debug)
+                        guarded(
+                            partial(sink.add_check, res, part_id=ids[i], station=station, operator=operator),
+                            debug=debug,
+                        )
                         stored = None
                         if store is not None and not store_failed:
                             try:
-                                stored = store.record_check(res, part_id=ids[i], station=station,
-                                                            operator=operator, force=force)
+                                stored = store.record_check(
+                                    res, part_id=ids[i], station=station, operator=operator, force=force
+                                )
                             except RingdownError as exc:
                                 error_line(f"{exc}; results from here on are not stored")
                                 store_failed = True
@@ -357,24 +430,43 @@ def register(app: typer.Typer) -> None:
         if csv_out:
             failed_outputs += _try(lambda: _write_csv(rows_f, lim, csv_out), debug)
         if report:
-            header = report_header(title, notes, serial, station=station, operator=operator,
-                                   limits=lim.source, **{"limits SHA-256": lim.sha256})
+            header = report_header(
+                title,
+                notes,
+                serial,
+                station=station,
+                operator=operator,
+                limits=lim.source,
+                **{"limits SHA-256": lim.sha256},
+            )
             failed_outputs += _try(lambda: _write_report(rows_f, lim, report, {**overrides, **window}, header), debug)
         if json_out:
             from .._version import __version__
 
-            print_json({"tool": {"name": "ringdown", "version": __version__},
-                        "limits": {"path": lim.source, "sha256": lim.sha256},
-                        "station": station, "operator": operator,
-                        "results": rows_f, "summary": summary})
+            print_json(
+                {
+                    "tool": {"name": "ringdown", "version": __version__},
+                    "limits": {"path": lim.source, "sha256": lim.sha256},
+                    "station": station,
+                    "operator": operator,
+                    "results": rows_f,
+                    "summary": summary,
+                }
+            )
         skipped = summary["skipped"]
-        line = (f"{summary['parts']} parts: {summary['passed']} passed, {summary['failed']} failed, "
-                f"{summary['errors']} errors" + (f" ({skipped} already stored, skipped)" if skipped else "")
-                + f" in {elapsed:.1f} s")
+        line = (
+            f"{summary['parts']} parts: {summary['passed']} passed, {summary['failed']} failed, "
+            f"{summary['errors']} errors"
+            + (f" ({skipped} already stored, skipped)" if skipped else "")
+            + f" in {elapsed:.1f} s"
+        )
         typer.echo(line, err=json_out or jsonl)
         if interrupted:
-            error_line(f"interrupted: {len(rows_f)} of {len(paths)} done" + (" (stored)" if store is not None else "")
-                       + ", rerun to resume")
+            error_line(
+                f"interrupted: {len(rows_f)} of {len(paths)} done"
+                + (" (stored)" if store is not None else "")
+                + ", rerun to resume"
+            )
             raise typer.Exit(EXIT_INTERRUPTED)
         bad = summary["errors"] or failed_outputs or store_failed or paths.problems
         code = EXIT_ERROR if bad else EXIT_FAIL if summary["failed"] else EXIT_OK
@@ -407,14 +499,30 @@ def _prepare_check_outputs(csv_out: str | None, report: str | None, db_path: str
 def _check_summary(rows: list[dict], elapsed_s: float) -> dict[str, Any]:
     """The counts of a check run (the JSON ``summary``): parts, passed, failed, errors, skipped, time_s."""
     counts = {v: sum(1 for r in rows if r["verdict"] == v) for v in ("pass", "fail", "error")}
-    return {"parts": len(rows), "passed": counts["pass"], "failed": counts["fail"], "errors": counts["error"],
-            "skipped": sum(1 for r in rows if r.get("skipped")), "time_s": round(elapsed_s, 3)}
+    return {
+        "parts": len(rows),
+        "passed": counts["pass"],
+        "failed": counts["fail"],
+        "errors": counts["error"],
+        "skipped": sum(1 for r in rows if r.get("skipped")),
+        "time_s": round(elapsed_s, 3),
+    }
 
 
 def _stored_row(old, part_id: str, path: str, sha: str | None) -> dict:
     """The row of a part skipped as already stored: the stored record in full (features, modes)."""
-    rec = dict(old.result) if old.result else {
-        "reasons": list(old.reasons), "notes": list(old.notes), "features": [], "modes": [],
-        "mahalanobis": old.mahalanobis, "uniform_shift": old.uniform_shift, "verdict": old.verdict}
+    rec = (
+        dict(old.result)
+        if old.result
+        else {
+            "reasons": list(old.reasons),
+            "notes": list(old.notes),
+            "features": [],
+            "modes": [],
+            "mahalanobis": old.mahalanobis,
+            "uniform_shift": old.uniform_shift,
+            "verdict": old.verdict,
+        }
+    )
     rec.update(part_id=part_id, path=path, sha256=sha, verdict=old.verdict, skipped=True, stored_id=old.id)
     return rec

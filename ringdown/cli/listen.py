@@ -26,10 +26,14 @@ RECENT_ROWS = 8
 
 #: Block letters (5 rows) for the verdict, readable from a few metres at the station.
 _GLYPHS = {
-    "P": ["####", "#  #", "####", "#   ", "#   "], "A": [" ## ", "#  #", "####", "#  #", "#  #"],
-    "S": [" ###", "#   ", " ## ", "   #", "### "], "F": ["####", "#   ", "### ", "#   ", "#   "],
-    "I": ["###", " # ", " # ", " # ", "###"], "L": ["#   ", "#   ", "#   ", "#   ", "####"],
-    "E": ["####", "#   ", "### ", "#   ", "####"], "R": ["### ", "#  #", "### ", "# # ", "#  #"],
+    "P": ["####", "#  #", "####", "#   ", "#   "],
+    "A": [" ## ", "#  #", "####", "#  #", "#  #"],
+    "S": [" ###", "#   ", " ## ", "   #", "### "],
+    "F": ["####", "#   ", "### ", "#   ", "#   "],
+    "I": ["###", " # ", " # ", " # ", "###"],
+    "L": ["#   ", "#   ", "#   ", "#   ", "####"],
+    "E": ["####", "#   ", "### ", "#   ", "####"],
+    "R": ["### ", "#  #", "### ", "# # ", "#  #"],
     "O": [" ## ", "#  #", "#  #", "#  #", " ## "],
 }
 
@@ -44,33 +48,46 @@ def register(app: typer.Typer) -> None:
     @app.command("listen")
     def listen_cmd(
         list_devices: bool = typer.Option(False, "--list-devices", help="List the input devices and exit."),
-        device: Optional[str] = typer.Option(None, "--device", help="Input device: PortAudio index or part of its name "
-                                                                    "(default: the system's default input)."),
+        device: Optional[str] = typer.Option(
+            None,
+            "--device",
+            help="Input device: PortAudio index or part of its name (default: the system's default input).",
+        ),
         channel: int = typer.Option(1, "--channel", help="Input channel analysed, 1-based."),
-        sample_rate: Optional[float] = typer.Option(None, "--sample-rate", help="Capture rate, Hz (default: the "
-                                                                                "device's own)."),
-        replay: Optional[Path] = typer.Option(None, "--replay", help="Feed this recording through the station "
-                                              "instead of a device (a rehearsal)."),
-        speed: float = typer.Option(1.0, "--speed", help="With --replay: this many times real time (0: as fast "
-                                                         "as it can)."),
+        sample_rate: Optional[float] = typer.Option(
+            None, "--sample-rate", help="Capture rate, Hz (default: the device's own)."
+        ),
+        replay: Optional[Path] = typer.Option(
+            None, "--replay", help="Feed this recording through the station instead of a device (a rehearsal)."
+        ),
+        speed: float = typer.Option(
+            1.0, "--speed", help="With --replay: this many times real time (0: as fast as it can)."
+        ),
         limits: Optional[Path] = typer.Option(None, "--limits", help="Limits file: judge each part PASS/FAIL."),
-        save_dir: Optional[Path] = typer.Option(None, "--save-dir", help="Write each tap as a WAV here, named by UTC "
-                                                "time and part id."),
+        save_dir: Optional[Path] = typer.Option(
+            None, "--save-dir", help="Write each tap as a WAV here, named by UTC time and part id."
+        ),
         store: bool = typer.Option(False, "--store", help="Keep each result in the results history (SQLite)."),
-        db: Optional[str] = typer.Option(None, "--db", help="History database (default $RINGDOWN_DB, else "
-                                                            "ringdown.sqlite here)."),
+        db: Optional[str] = typer.Option(
+            None, "--db", help="History database (default $RINGDOWN_DB, else ringdown.sqlite here)."
+        ),
         station: Optional[str] = typer.Option(None, "--station", help="Test station, stored with each result."),
         operator: Optional[str] = typer.Option(None, "--operator", help="Operator, stored with each result."),
-        part_id: str = typer.Option("part-{n:04d}", "--part-id", help="Part id pattern with the tap counter {n} "
-                                    "(e.g. 'B7-{n:04d}')."),
+        part_id: str = typer.Option(
+            "part-{n:04d}", "--part-id", help="Part id pattern with the tap counter {n} (e.g. 'B7-{n:04d}')."
+        ),
         first: int = typer.Option(1, "--first", help="Counter of the first tap."),
-        ask_part_id: bool = typer.Option(False, "--ask-part-id", help="Ask for each part id at the prompt (Enter "
-                                         "takes the pattern's)."),
+        ask_part_id: bool = typer.Option(
+            False, "--ask-part-id", help="Ask for each part id at the prompt (Enter takes the pattern's)."
+        ),
         jsonl: bool = typer.Option(False, "--jsonl", help="Print one JSON record per tap (JSON Lines)."),
         max_taps: Optional[int] = typer.Option(None, "--max-taps", help="Stop after this many taps."),
         duration: Optional[float] = typer.Option(None, "--duration", help="Stop after this many seconds of input."),
-        min_hit_snr_db: Optional[float] = typer.Option(None, "--min-hit-snr-db", help="A tap must rise this far "
-                                                       "above the noise floor, dB (default 20, or the limits')."),
+        min_hit_snr_db: Optional[float] = typer.Option(
+            None,
+            "--min-hit-snr-db",
+            help="A tap must rise this far above the noise floor, dB (default 20, or the limits').",
+        ),
         debug: bool = DEBUG_OPTION,
     ) -> None:
         """Listen for taps (a sound card, or --replay FILE): per tap the modes, or the verdict with --limits."""
@@ -104,10 +121,21 @@ def register(app: typer.Typer) -> None:
             from ..inspection.store import ResultStore
 
             history = guarded(lambda: ResultStore(resolve_db(db)), debug=debug)
-        st = guarded(lambda: Station(
-            source.sample_rate, options=opts, limits=lim, save_dir=save_dir, store=history, station=station,
-            operator=operator, part_ids=ids, subtype=_subtype(replay),
-            full_scale=getattr(source, "full_scale", 1.0)), debug=debug)
+        st = guarded(
+            lambda: Station(
+                source.sample_rate,
+                options=opts,
+                limits=lim,
+                save_dir=save_dir,
+                store=history,
+                station=station,
+                operator=operator,
+                part_ids=ids,
+                subtype=_subtype(replay),
+                full_scale=getattr(source, "full_scale", 1.0),
+            ),
+            debug=debug,
+        )
         if replay is None:
             st.warm_up()  # before the stream opens: the first tap's analysis is then not late
         live_view = on_terminal(jsonl) and not ask_part_id
@@ -116,9 +144,12 @@ def register(app: typer.Typer) -> None:
         stop_at = None if duration is None else int(round(duration * source.sample_rate))
         interrupted = False
         try:
-            with (view.live() if view else _nothing()):
-                ready = None if view else (lambda: note_line(f"listening: {what} at {source.sample_rate:g} Hz; "
-                                                             "Ctrl-C ends"))
+            with view.live() if view else _nothing():
+                ready = (
+                    None
+                    if view
+                    else (lambda: note_line(f"listening: {what} at {source.sample_rate:g} Hz; Ctrl-C ends"))
+                )
                 for tap in st.run(_until(source, stop_at, ready)):
                     if jsonl:
                         print_json_line(tap.to_dict())
@@ -226,11 +257,17 @@ def _line(tap) -> str:
 
 def _summary(st, source, interrupted: bool, *, to_err: bool) -> None:
     s = st.summary(getattr(source, "dropped_blocks", 0))
-    verdicts = f", {s['pass']} pass, {s['fail']} fail, {s['error']} error" if st.limits is not None else \
-        f", {s['taps'] - s['not_measured']} measured, {s['not_measured']} not measured"
-    typer.echo(f"{'stopped' if interrupted else 'done'}: {s['taps']} taps{verdicts}; "
-               f"{s['dropped_blocks']} input blocks dropped, {s['taps_with_lost_input']} taps with lost input; "
-               f"{s['saved']} saved, {s['stored']} stored", err=to_err)
+    verdicts = (
+        f", {s['pass']} pass, {s['fail']} fail, {s['error']} error"
+        if st.limits is not None
+        else f", {s['taps'] - s['not_measured']} measured, {s['not_measured']} not measured"
+    )
+    typer.echo(
+        f"{'stopped' if interrupted else 'done'}: {s['taps']} taps{verdicts}; "
+        f"{s['dropped_blocks']} input blocks dropped, {s['taps_with_lost_input']} taps with lost input; "
+        f"{s['saved']} saved, {s['stored']} stored",
+        err=to_err,
+    )
 
 
 class _View:
@@ -285,9 +322,16 @@ class _View:
             result = (t.verdict or "").upper() if self.judged else ("measured" if m is not None else "not measured")
             if t.dropped:
                 result += " (input dropped)"
-            table.add_row(str(t.number), t.part_id, t.time_utc[11:23], result,
-                          f"{m.f_d_hz:.2f}" if m else "-", f"{m.q:.4g}" if m else "-")
+            table.add_row(
+                str(t.number),
+                t.part_id,
+                t.time_utc[11:23],
+                result,
+                f"{m.f_d_hz:.2f}" if m else "-",
+                f"{m.q:.4g}" if m else "-",
+            )
         n = self.recent[0].number if self.recent else 0
-        status = Text(f"listening: {self.what}; {n} taps; {self.dropped} input blocks dropped; "
-                      "Ctrl-C ends", style="dim")
+        status = Text(
+            f"listening: {self.what}; {n} taps; {self.dropped} input blocks dropped; Ctrl-C ends", style="dim"
+        )
         return Group(Panel(big, border_style=style, padding=(1, 2)), table, status)

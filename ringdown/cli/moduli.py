@@ -35,8 +35,7 @@ def format_table(result) -> str:
     """The readable summary ``ringdown moduli`` prints by default."""
     sp = result.specimen
     if result.shape == "bar":
-        size = (f"rectangular bar {sp['length_m'] * 1e3:g} x {sp['width_m'] * 1e3:g} x "
-                f"{sp['thickness_m'] * 1e3:g} mm")
+        size = f"rectangular bar {sp['length_m'] * 1e3:g} x {sp['width_m'] * 1e3:g} x {sp['thickness_m'] * 1e3:g} mm"
     else:
         size = f"cylindrical rod {sp['length_m'] * 1e3:g} mm long, {sp['diameter_m'] * 1e3:g} mm diameter"
     lines = [f"{size}, {sp['mass_kg'] * 1e3:g} g", ""]
@@ -83,20 +82,52 @@ def format_table(result) -> str:
 
 def _write_csv(result, out: Path) -> None:
     unit = {"e_pa": "Pa", "g_pa": "Pa", "poisson": "1", "density_kg_per_m3": "kg/m^3"}
-    vals = {"e_pa": (result.e_pa, result.e_pa_u), "g_pa": (result.g_pa, result.g_pa_u),
-            "poisson": (result.poisson, result.poisson_u),
-            "density_kg_per_m3": (result.density_kg_per_m3, result.density_kg_per_m3_u)}
+    vals = {
+        "e_pa": (result.e_pa, result.e_pa_u),
+        "g_pa": (result.g_pa, result.g_pa_u),
+        "poisson": (result.poisson, result.poisson_u),
+        "density_kg_per_m3": (result.density_kg_per_m3, result.density_kg_per_m3_u),
+    }
     from ..io.outputs import atomic_write, csv_row
 
     with atomic_write(out, newline="", what="CSV file") as fh:
         w = csv.writer(fh)
-        w.writerow(["quantity", "value", "u", "unit", "dominant_input", "shape", "f_flexural_hz",
-                    "f_torsional_hz", "loss_factor_flexural", "loss_factor_torsional", "t1", "r_factor"])
+        w.writerow(
+            [
+                "quantity",
+                "value",
+                "u",
+                "unit",
+                "dominant_input",
+                "shape",
+                "f_flexural_hz",
+                "f_torsional_hz",
+                "loss_factor_flexural",
+                "loss_factor_torsional",
+                "t1",
+                "r_factor",
+            ]
+        )
         t = result.torsional
         for q, (v, u) in vals.items():
-            w.writerow(csv_row([q, v, u, unit[q], result.dominant(q), result.shape, result.flexural.f_hz,
-                                None if t is None else t.f_hz, result.flexural.loss_factor,
-                                None if t is None else t.loss_factor, result.t1, result.r_factor]))
+            w.writerow(
+                csv_row(
+                    [
+                        q,
+                        v,
+                        u,
+                        unit[q],
+                        result.dominant(q),
+                        result.shape,
+                        result.flexural.f_hz,
+                        None if t is None else t.f_hz,
+                        result.flexural.loss_factor,
+                        None if t is None else t.loss_factor,
+                        result.t1,
+                        result.r_factor,
+                    ]
+                )
+            )
 
 
 def _write_report(result, out: Path, settings: dict, header: dict) -> None:
@@ -144,36 +175,47 @@ def register(app: typer.Typer) -> None:
     )
     def moduli_cmd(
         flexural_file: Optional[str] = typer.Argument(None, metavar="FLEX", help="Recording of the flexural tap."),
-        torsional_file: Optional[str] = typer.Argument(None, metavar="TORSION",
-                                                        help="Recording of the torsional tap."),
+        torsional_file: Optional[str] = typer.Argument(None, metavar="TORSION", help="Recording of the torsional tap."),
         shape: str = typer.Option("bar", "--shape", help="Specimen: 'bar' (rectangular) or 'rod' (cylindrical)."),
         length_mm: Optional[float] = typer.Option(None, "--length-mm", help="Length, mm."),
         width_mm: Optional[float] = typer.Option(None, "--width-mm", help="Width of a bar, mm."),
-        thickness_mm: Optional[float] = typer.Option(None, "--thickness-mm",
-                                                     help="Thickness of a bar (direction of the bending), mm."),
+        thickness_mm: Optional[float] = typer.Option(
+            None, "--thickness-mm", help="Thickness of a bar (direction of the bending), mm."
+        ),
         diameter_mm: Optional[float] = typer.Option(None, "--diameter-mm", help="Diameter of a rod, mm."),
         mass_g: Optional[float] = typer.Option(None, "--mass-g", help="Mass, g."),
-        u_length_mm: Optional[float] = typer.Option(None, "--u-length-mm", help="Standard uncertainty of the length, mm."),
+        u_length_mm: Optional[float] = typer.Option(
+            None, "--u-length-mm", help="Standard uncertainty of the length, mm."
+        ),
         u_width_mm: Optional[float] = typer.Option(None, "--u-width-mm", help="Standard uncertainty of the width, mm."),
-        u_thickness_mm: Optional[float] = typer.Option(None, "--u-thickness-mm",
-                                                       help="Standard uncertainty of the thickness, mm."),
-        u_diameter_mm: Optional[float] = typer.Option(None, "--u-diameter-mm",
-                                                      help="Standard uncertainty of the diameter, mm."),
+        u_thickness_mm: Optional[float] = typer.Option(
+            None, "--u-thickness-mm", help="Standard uncertainty of the thickness, mm."
+        ),
+        u_diameter_mm: Optional[float] = typer.Option(
+            None, "--u-diameter-mm", help="Standard uncertainty of the diameter, mm."
+        ),
         u_mass_g: Optional[float] = typer.Option(None, "--u-mass-g", help="Standard uncertainty of the mass, g."),
-        flexural_hz: Optional[float] = typer.Option(None, "--flexural-hz",
-                                                    help="Flexural frequency by hand, Hz (instead of FLEX)."),
+        flexural_hz: Optional[float] = typer.Option(
+            None, "--flexural-hz", help="Flexural frequency by hand, Hz (instead of FLEX)."
+        ),
         u_flexural_hz: Optional[float] = typer.Option(None, "--u-flexural-hz", help="Its standard uncertainty, Hz."),
-        torsional_hz: Optional[float] = typer.Option(None, "--torsional-hz",
-                                                     help="Torsional frequency by hand, Hz (instead of TORSION)."),
+        torsional_hz: Optional[float] = typer.Option(
+            None, "--torsional-hz", help="Torsional frequency by hand, Hz (instead of TORSION)."
+        ),
         u_torsional_hz: Optional[float] = typer.Option(None, "--u-torsional-hz", help="Its standard uncertainty, Hz."),
-        flexural_mode: Optional[int] = typer.Option(None, "--flexural-mode",
-                                                    help="Mode index of FLEX to use (default: the lowest)."),
-        torsional_mode: Optional[int] = typer.Option(None, "--torsional-mode",
-                                                     help="Mode index of TORSION to use (default: the one in the "
-                                                          "predicted torsional window)."),
-        poisson: Optional[float] = typer.Option(None, "--poisson",
-                                                help="Poisson's ratio: used for T1 without a torsional mode; "
-                                                     "otherwise the loop's first guess."),
+        flexural_mode: Optional[int] = typer.Option(
+            None, "--flexural-mode", help="Mode index of FLEX to use (default: the lowest)."
+        ),
+        torsional_mode: Optional[int] = typer.Option(
+            None,
+            "--torsional-mode",
+            help="Mode index of TORSION to use (default: the one in the predicted torsional window).",
+        ),
+        poisson: Optional[float] = typer.Option(
+            None,
+            "--poisson",
+            help="Poisson's ratio: used for T1 without a torsional mode; otherwise the loop's first guess.",
+        ),
         u_poisson: Optional[float] = typer.Option(None, "--u-poisson", help="Standard uncertainty of --poisson."),
         channel: Channel = None,
         column: Column = None,
@@ -200,18 +242,28 @@ def register(app: typer.Typer) -> None:
                     raise ParameterError("--diameter-mm is for --shape rod; a bar takes --width-mm and --thickness-mm")
                 b = _required("--width-mm", width_mm, shape)
                 t = _required("--thickness-mm", thickness_mm, shape)
-                spec = RectangularBar(L * 1e-3, b * 1e-3, t * 1e-3, m * 1e-3,
-                                      _nonneg("--u-length-mm", u_length_mm) * 1e-3,
-                                      _nonneg("--u-width-mm", u_width_mm) * 1e-3,
-                                      _nonneg("--u-thickness-mm", u_thickness_mm) * 1e-3,
-                                      _nonneg("--u-mass-g", u_mass_g) * 1e-3)
+                spec = RectangularBar(
+                    L * 1e-3,
+                    b * 1e-3,
+                    t * 1e-3,
+                    m * 1e-3,
+                    _nonneg("--u-length-mm", u_length_mm) * 1e-3,
+                    _nonneg("--u-width-mm", u_width_mm) * 1e-3,
+                    _nonneg("--u-thickness-mm", u_thickness_mm) * 1e-3,
+                    _nonneg("--u-mass-g", u_mass_g) * 1e-3,
+                )
             else:
                 if width_mm is not None or thickness_mm is not None:
                     raise ParameterError("--width-mm and --thickness-mm are for --shape bar; a rod takes --diameter-mm")
                 d = _required("--diameter-mm", diameter_mm, shape)
-                spec = CylindricalRod(L * 1e-3, d * 1e-3, m * 1e-3, _nonneg("--u-length-mm", u_length_mm) * 1e-3,
-                                      _nonneg("--u-diameter-mm", u_diameter_mm) * 1e-3,
-                                      _nonneg("--u-mass-g", u_mass_g) * 1e-3)
+                spec = CylindricalRod(
+                    L * 1e-3,
+                    d * 1e-3,
+                    m * 1e-3,
+                    _nonneg("--u-length-mm", u_length_mm) * 1e-3,
+                    _nonneg("--u-diameter-mm", u_diameter_mm) * 1e-3,
+                    _nonneg("--u-mass-g", u_mass_g) * 1e-3,
+                )
             if (flexural_file is None) == (flexural_hz is None):
                 raise ParameterError("give the flexural recording FLEX or --flexural-hz, one of the two")
             if torsional_file is not None and torsional_hz is not None:
@@ -219,9 +271,18 @@ def register(app: typer.Typer) -> None:
             flex = flexural_file if flexural_file is not None else flexural_hz
             assert flex is not None  # one of the two, checked above
             tors = torsional_file if torsional_file is not None else torsional_hz
-            return moduli(spec, flex, tors, flexural_hz_u=u_flexural_hz, torsional_hz_u=u_torsional_hz,
-                          flexural_mode=flexural_mode, torsional_mode=torsional_mode, poisson=poisson,
-                          poisson_u=u_poisson, analysis_options=reader_options(channel, column, sample_rate))
+            return moduli(
+                spec,
+                flex,
+                tors,
+                flexural_hz_u=u_flexural_hz,
+                torsional_hz_u=u_torsional_hz,
+                flexural_mode=flexural_mode,
+                torsional_mode=torsional_mode,
+                poisson=poisson,
+                poisson_u=u_poisson,
+                analysis_options=reader_options(channel, column, sample_rate),
+            )
 
         result = guarded(run, debug=debug)
         if json_out:
@@ -231,8 +292,14 @@ def register(app: typer.Typer) -> None:
         if csv_out is not None:
             guarded(lambda: _write_csv(result, csv_out), debug=debug)
         if report_out is not None:
-            settings = {"command": "moduli", "shape": shape, "poisson": poisson, "flexural_mode": flexural_mode,
-                        "torsional_mode": torsional_mode}
-            guarded(lambda: _write_report(result, report_out, settings, report_header(title, notes, serial)),
-                    debug=debug)
+            settings = {
+                "command": "moduli",
+                "shape": shape,
+                "poisson": poisson,
+                "flexural_mode": flexural_mode,
+                "torsional_mode": torsional_mode,
+            }
+            guarded(
+                lambda: _write_report(result, report_out, settings, report_header(title, notes, serial)), debug=debug
+            )
         raise typer.Exit(EXIT_OK)

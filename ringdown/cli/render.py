@@ -41,6 +41,7 @@ def _stems(analyses) -> list[str]:
     extension too (``tap_wav``, ``tap_csv``); names still alike (same file name in two folders)
     get ``-2``, ``-3`` ... Standard input is ``stdin``.
     """
+
     def base(a, n):
         if not a.path:
             return f"array{n}", ""
@@ -94,8 +95,9 @@ def write_plots(analyses, out_dir, fmt: str = "png") -> list[str]:
     try:
         out.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
-        raise ParameterError(f"cannot create plot folder {str(out)!r}: {exc.strerror or exc}; "
-                             "choose a writable folder") from exc
+        raise ParameterError(
+            f"cannot create plot folder {str(out)!r}: {exc.strerror or exc}; choose a writable folder"
+        ) from exc
     written: list[str] = []
     analyses = list(analyses)
     for a, stem in zip(analyses, _stems(analyses)):
@@ -106,8 +108,12 @@ def write_plots(analyses, out_dir, fmt: str = "png") -> list[str]:
             if m.trace is not None:
                 jobs.append((f"{stem}_mode{m.index}", lambda m=m: plots.plot_mode(m)))
             if m.damping_vs_amplitude:
-                jobs.append((f"{stem}_mode{m.index}_damping",
-                             lambda m=m: cast("Figure", plots.plot_damping_vs_amplitude(m).figure)))
+                jobs.append(
+                    (
+                        f"{stem}_mode{m.index}_damping",
+                        lambda m=m: cast("Figure", plots.plot_damping_vs_amplitude(m).figure),
+                    )
+                )
         for name, draw in jobs:
             try:
                 data = plots.figure_bytes(draw(), fmt=fmt)

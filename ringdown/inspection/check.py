@@ -43,8 +43,16 @@ from ..base.errors import ParameterError
 from ..base.numfmt import fmt_value, fmt_values
 from .limits import Limits, ModeLimits, match_modes
 
-__all__ = ["EXTRA_MODE_LEVEL", "FeatureCheck", "CheckResult", "check", "check_file", "iter_check_files",
-           "lighten", "verdict_kind"]
+__all__ = [
+    "EXTRA_MODE_LEVEL",
+    "FeatureCheck",
+    "CheckResult",
+    "check",
+    "check_file",
+    "iter_check_files",
+    "lighten",
+    "verdict_kind",
+]
 
 #: An unmatched mode whose amplitude is at least this fraction of the strongest matched mode's
 #: (-20 dB) is reported as an extra strong mode (our choice).
@@ -195,11 +203,18 @@ def check(analysis: Analysis, limits: Limits) -> CheckResult:
         When ``limits`` is not a :class:`~ringdown.inspection.limits.Limits`.
     """
     if not isinstance(limits, Limits):
-        raise ParameterError(f"limits must be a Limits object (read_limits or learn_limits), got {type(limits).__name__}")
+        raise ParameterError(
+            f"limits must be a Limits object (read_limits or learn_limits), got {type(limits).__name__}"
+        )
     if analysis.error is not None:
-        return CheckResult(verdict=ERROR, reasons=(Notice(analysis.error.code,
-                           f"recording could not be analysed: {analysis.error.message}"),),
-                           path=analysis.path, sha256=analysis.sha256, limits_sha256=limits.sha256, analysis=analysis)
+        return CheckResult(
+            verdict=ERROR,
+            reasons=(Notice(analysis.error.code, f"recording could not be analysed: {analysis.error.message}"),),
+            path=analysis.path,
+            sha256=analysis.sha256,
+            limits_sha256=limits.sha256,
+            analysis=analysis,
+        )
 
     modes = list(analysis.modes)
     freqs = [float(m.f_d_hz) for m in modes]
@@ -232,7 +247,10 @@ def check(analysis: Analysis, limits: Limits) -> CheckResult:
         mahalanobis_threshold=thr,
         uniform_shift=shift,
         uniform_shift_spread=spread,
-        path=analysis.path, sha256=analysis.sha256, limits_sha256=limits.sha256, analysis=analysis,
+        path=analysis.path,
+        sha256=analysis.sha256,
+        limits_sha256=limits.sha256,
+        analysis=analysis,
     )
 
 
@@ -262,8 +280,14 @@ class _Tally:
 def _missing_mode(t: _Tally, ref: ModeLimits, tolerance: float) -> None:
     t.missing = True
     t.ratio_ok = t.ratio_ok and ref.ratio is None
-    t.add(ref.index, 0, Notice("mode_missing", f"mode {ref.index} missing (no mode within {tolerance * 100:.0f} % "
-                                               f"of {ref.f_ref_hz:.1f} Hz)"))
+    t.add(
+        ref.index,
+        0,
+        Notice(
+            "mode_missing",
+            f"mode {ref.index} missing (no mode within {tolerance * 100:.0f} % of {ref.f_ref_hz:.1f} Hz)",
+        ),
+    )
     for feat, win in (("f_hz", ref.f_hz), ("zeta", ref.zeta), ("ratio", ref.ratio)):
         if win is not None:
             t.feats.append(FeatureCheck(ref.index, feat, None, win, "missing"))
@@ -273,8 +297,9 @@ def _check_frequency(t: _Tally, ref: ModeLimits, f: float) -> None:
     st = _status(f, ref.f_hz)
     fc = FeatureCheck(ref.index, "f_hz", f, ref.f_hz, st)
     if st in ("below", "above") and ref.f_hz is not None:
-        t.f_fail.append((fc, Notice(f"f_{st}", f"mode {ref.index} at {_g(f, 6)} Hz is {st} its window "
-                                               f"{_win(ref.f_hz)} Hz")))
+        t.f_fail.append(
+            (fc, Notice(f"f_{st}", f"mode {ref.index} at {_g(f, 6)} Hz is {st} its window {_win(ref.f_hz)} Hz"))
+        )
     else:
         t.feats.append(fc)
 
@@ -288,11 +313,25 @@ def _check_damping(t: _Tally, ref: ModeLimits, z: float | None) -> None:
         if ref.zeta is None:
             return
         if st == "above":
-            t.add(ref.index, 2, Notice("zeta_above", f"damping ratio of {name} is {z / ref.zeta[1]:.1f}x the upper "
-                                                     f"limit ({' against '.join(fmt_values([z, ref.zeta[1]]))})"))
+            t.add(
+                ref.index,
+                2,
+                Notice(
+                    "zeta_above",
+                    f"damping ratio of {name} is {z / ref.zeta[1]:.1f}x the upper "
+                    f"limit ({' against '.join(fmt_values([z, ref.zeta[1]]))})",
+                ),
+            )
         elif st == "below":
-            t.add(ref.index, 2, Notice("zeta_below", f"damping ratio of {name} is {z / ref.zeta[0]:.2f}x the lower "
-                                                     f"limit ({' against '.join(fmt_values([z, ref.zeta[0]]))})"))
+            t.add(
+                ref.index,
+                2,
+                Notice(
+                    "zeta_below",
+                    f"damping ratio of {name} is {z / ref.zeta[0]:.2f}x the lower "
+                    f"limit ({' against '.join(fmt_values([z, ref.zeta[0]]))})",
+                ),
+            )
     elif ref.zeta is not None:
         t.feats.append(FeatureCheck(ref.index, "zeta", None, ref.zeta, "missing"))
         t.add(ref.index, 2, Notice("zeta_missing", f"damping ratio of {name} could not be measured"))
@@ -310,8 +349,14 @@ def _check_ratio(t: _Tally, ref: ModeLimits, f: float, f1: float | None) -> None
     t.feats.append(FeatureCheck(ref.index, "ratio", r, ref.ratio, st))
     if st in ("below", "above") and ref.ratio is not None:
         t.ratio_ok = False
-        t.add(ref.index, 3, Notice(f"ratio_{st}", f"frequency ratio of mode {ref.index} to mode 1 is {_g(r, 6)}, "
-                                                  f"{st} its window {_win(ref.ratio)}"))
+        t.add(
+            ref.index,
+            3,
+            Notice(
+                f"ratio_{st}",
+                f"frequency ratio of mode {ref.index} to mode 1 is {_g(r, 6)}, {st} its window {_win(ref.ratio)}",
+            ),
+        )
 
 
 def _check_mahalanobis(t: _Tally, limits: Limits) -> tuple[float | None, float | None]:
@@ -322,8 +367,13 @@ def _check_mahalanobis(t: _Tally, limits: Limits) -> tuple[float | None, float |
     d = mh.distance([t.values[k] for k in mh.features])
     thr = mh.threshold
     if d > thr:
-        t.reasons.append(Notice("mahalanobis", f"Mahalanobis distance {d:.1f} above {thr:.1f} (the pattern of "
-                                               "frequency ratios and damping differs from the good parts)"))
+        t.reasons.append(
+            Notice(
+                "mahalanobis",
+                f"Mahalanobis distance {d:.1f} above {thr:.1f} (the pattern of "
+                "frequency ratios and damping differs from the good parts)",
+            )
+        )
     return d, thr
 
 
@@ -334,8 +384,13 @@ def _check_uniform_shift(t: _Tally, limits: Limits, *, maha_ok: bool) -> tuple[f
         return None, None  # no mode matched: nothing outside a frequency window either
     shift = sum(t.shifts) / len(t.shifts)
     spread = max(t.shifts) - min(t.shifts)
-    uniform = (limits.has_ratios and len(limits.modes) > 1 and t.ratio_ok and not t.missing
-               and spread <= limits.uniform_shift_tolerance)
+    uniform = (
+        limits.has_ratios
+        and len(limits.modes) > 1
+        and t.ratio_ok
+        and not t.missing
+        and spread <= limits.uniform_shift_tolerance
+    )
     if not t.f_fail:
         return shift, spread
     direction = "below" if shift < 0 else "above"
@@ -343,24 +398,29 @@ def _check_uniform_shift(t: _Tally, limits: Limits, *, maha_ok: bool) -> tuple[f
         for fc, note in t.f_fail:
             t.feats.append(replace(fc, status="advisory"))
             t.notes.append(Notice(ADVISORY_PREFIX + note.code, note.message + " (advisory)"))
-        t.notes.insert(0, Notice(
-            "uniform_shift",
-            f"all {len(t.shifts)} modes are {_pct(shift)} {direction} their reference frequencies by the same "
-            f"fraction (spread {_pct(spread)}), as a temperature or density change moves them; every frequency "
-            "ratio is within its window, so the absolute frequency windows are advisory and the part passes on "
-            "the ratio features",
-        ))
+        t.notes.insert(
+            0,
+            Notice(
+                "uniform_shift",
+                f"all {len(t.shifts)} modes are {_pct(shift)} {direction} their reference frequencies by the same "
+                f"fraction (spread {_pct(spread)}), as a temperature or density change moves them; every frequency "
+                "ratio is within its window, so the absolute frequency windows are advisory and the part passes on "
+                "the ratio features",
+            ),
+        )
         return shift, spread
     for fc, note in t.f_fail:
         t.feats.append(fc)
         t.add(fc.mode, 1, note)
     if uniform and abs(shift) > limits.max_uniform_shift:
-        t.reasons.append(Notice(
-            "shift_too_large",
-            f"all {len(t.shifts)} modes are {_pct(shift)} {direction} their reference frequencies by the same "
-            f"fraction, more than the {_pct(limits.max_uniform_shift)} a temperature change may excuse "
-            "(max_uniform_shift): different material, density or size",
-        ))
+        t.reasons.append(
+            Notice(
+                "shift_too_large",
+                f"all {len(t.shifts)} modes are {_pct(shift)} {direction} their reference frequencies by the same "
+                f"fraction, more than the {_pct(limits.max_uniform_shift)} a temperature change may excuse "
+                "(max_uniform_shift): different material, density or size",
+            )
+        )
     return shift, spread
 
 
@@ -374,11 +434,20 @@ def _note_extra_modes(t: _Tally, modes: list[Mode], freqs: list[float], used: se
         if top is not None and m.amplitude is not None:
             if m.amplitude >= EXTRA_MODE_LEVEL * top:
                 level = 20.0 * math.log10(m.amplitude / top) if m.amplitude > 0 else float("-inf")
-                t.notes.append(Notice("extra_mode", f"extra strong mode at {freqs[i]:.1f} Hz ({level:+.0f} dB from "
-                                                    "the strongest matched mode) matches no reference mode"))
+                t.notes.append(
+                    Notice(
+                        "extra_mode",
+                        f"extra strong mode at {freqs[i]:.1f} Hz ({level:+.0f} dB from "
+                        "the strongest matched mode) matches no reference mode",
+                    )
+                )
         elif m.snr_db is not None and m.snr_db >= 20.0:
-            t.notes.append(Notice("extra_mode", f"extra strong mode at {freqs[i]:.1f} Hz (SNR {m.snr_db:.0f} dB) "
-                                                "matches no reference mode"))
+            t.notes.append(
+                Notice(
+                    "extra_mode",
+                    f"extra strong mode at {freqs[i]:.1f} Hz (SNR {m.snr_db:.0f} dB) matches no reference mode",
+                )
+            )
 
 
 # --------------------------------------------------------------------------------------------

@@ -99,14 +99,18 @@ def learn_limits(
     n = len(items)
     said = _Said()
     if n < FEW_PARTS:
-        said.warn("few_parts", f"only {n} good parts: limits from fewer than {FEW_PARTS} parts are wide and "
-                               "uncertain; measure more good parts")
+        said.warn(
+            "few_parts",
+            f"only {n} good parts: limits from fewer than {FEW_PARTS} parts are wide and "
+            "uncertain; measure more good parts",
+        )
     f, z = _common_modes(items, tolerance, n_modes, said)
     logz = np.log(z)
     ratio = f / f[:, :1]
     k = tolerance_k(n, coverage=coverage, confidence=confidence)
-    modes = [_mode_window(col, f[:, col], logz[:, col], ratio[:, col] if col > 0 else None, k)
-             for col in range(f.shape[1])]
+    modes = [
+        _mode_window(col, f[:, col], logz[:, col], ratio[:, col] if col > 0 else None, k) for col in range(f.shape[1])
+    ]
     maha = _mahalanobis_limits(ratio, logz, coverage, said)
 
     settings = dict(items[0].settings or {})
@@ -145,8 +149,9 @@ class _Said:
         self.notes.append(message)
 
 
-def _check_learning(items: list[Analysis], coverage: float, confidence: float, tolerance: float,
-                    n_modes: int | None) -> tuple[float, float]:
+def _check_learning(
+    items: list[Analysis], coverage: float, confidence: float, tolerance: float, n_modes: int | None
+) -> tuple[float, float]:
     """Refuse bad options and unusable good parts; returns (coverage, confidence) as floats."""
     from .tolerance import _check_probability
 
@@ -166,8 +171,9 @@ def _check_learning(items: list[Analysis], coverage: float, confidence: float, t
     return coverage, confidence
 
 
-def _common_modes(items: list[Analysis], tolerance: float, n_modes: int | None,
-                  said: _Said) -> tuple[np.ndarray, np.ndarray]:
+def _common_modes(
+    items: list[Analysis], tolerance: float, n_modes: int | None, said: _Said
+) -> tuple[np.ndarray, np.ndarray]:
     """The damped frequencies (Hz) and damping ratios of the modes every good part shows, each
     ``(n_parts, n_modes)``, matched to the modes of a seed part (the most common mode count)."""
     n = len(items)
@@ -192,8 +198,11 @@ def _common_modes(items: list[Analysis], tolerance: float, n_modes: int | None,
         if present == n:
             keep.append(j)
         else:
-            said.warn("mode_not_in_all_parts", f"the mode near {f0:.1f} Hz was found in only {present} of {n} good "
-                                               "parts and is not used; check those recordings or lower min_snr_db")
+            said.warn(
+                "mode_not_in_all_parts",
+                f"the mode near {f0:.1f} Hz was found in only {present} of {n} good "
+                "parts and is not used; check those recordings or lower min_snr_db",
+            )
     if not keep:
         raise ParameterError("no mode was found in every good part; check the recordings and analysis options")
     if n_modes is not None:
@@ -223,12 +232,12 @@ def _mode_window(col: int, f: np.ndarray, logz: np.ndarray, ratio: np.ndarray | 
         rm, rs, rlo, rhi = _interval(ratio, k)
         st.update(ratio_mean=rm, ratio_sd=rs)
         rwin = (rlo, rhi)
-    return ModeLimits(index=col + 1, f_ref_hz=fm, f_hz=(flo, fhi), zeta=(math.exp(llo), math.exp(lhi)), ratio=rwin,
-                      stats=st)
+    return ModeLimits(
+        index=col + 1, f_ref_hz=fm, f_hz=(flo, fhi), zeta=(math.exp(llo), math.exp(lhi)), ratio=rwin, stats=st
+    )
 
 
-def _mahalanobis_limits(ratio: np.ndarray, logz: np.ndarray, coverage: float,
-                        said: _Said) -> MahalanobisLimits | None:
+def _mahalanobis_limits(ratio: np.ndarray, logz: np.ndarray, coverage: float, said: _Said) -> MahalanobisLimits | None:
     """The multivariate check on the drift-free features (ratios to mode 1, log zeta), or None
     (with a warning) when the good parts are too few or their features collinear."""
     n, m = logz.shape
@@ -236,15 +245,20 @@ def _mahalanobis_limits(ratio: np.ndarray, logz: np.ndarray, coverage: float,
     x = np.column_stack([ratio[:, 1:], logz]) if m > 1 else logz
     p = x.shape[1]
     if n - p < MAHALANOBIS_MARGIN:
-        said.warn("no_mahalanobis", f"no Mahalanobis check: {n} good parts for {p} features (needs at least "
-                                    f"{p + MAHALANOBIS_MARGIN}); per-feature windows only")
+        said.warn(
+            "no_mahalanobis",
+            f"no Mahalanobis check: {n} good parts for {p} features (needs at least "
+            f"{p + MAHALANOBIS_MARGIN}); per-feature windows only",
+        )
         return None
     cov = np.cov(x, rowvar=False, ddof=1).reshape(p, p)
     sd = np.sqrt(np.diag(cov))
     cond = np.linalg.cond(cov / np.outer(sd, sd)) if np.all(sd > 0) else np.inf
     if not np.isfinite(cond) or cond > 1e10:
-        said.warn("no_mahalanobis", "no Mahalanobis check: the good parts' features are (nearly) collinear; "
-                                    "per-feature windows only")
+        said.warn(
+            "no_mahalanobis",
+            "no Mahalanobis check: the good parts' features are (nearly) collinear; per-feature windows only",
+        )
         return None
     return MahalanobisLimits(
         features=tuple(names),
@@ -254,5 +268,3 @@ def _mahalanobis_limits(ratio: np.ndarray, logz: np.ndarray, coverage: float,
         n_parts=n,
         probability=coverage,
     )
-
-

@@ -71,8 +71,17 @@ DEFAULT_UNIFORM_SHIFT_TOLERANCE = 0.002
 
 #: Reader options (``ringdown.read_recording`` keywords) kept in the ``[reader]`` table.
 READER_KEYS = ("channel", "column", "sample_rate")
-_ANALYSIS_KEYS = ("method", "bands", "max_modes", "min_snr_db", "min_hit_snr_db", "keep_double_hits", "start_s",
-                  "end_s", "detection") + READER_KEYS
+_ANALYSIS_KEYS = (
+    "method",
+    "bands",
+    "max_modes",
+    "min_snr_db",
+    "min_hit_snr_db",
+    "keep_double_hits",
+    "start_s",
+    "end_s",
+    "detection",
+) + READER_KEYS
 
 
 # --------------------------------------------------------------------------------------------
@@ -287,5 +296,3 @@ def match_modes(freqs_hz: Sequence[float], ref_hz: Sequence[float], *, tolerance
     fo, ro = np.argsort(f), np.argsort(r)
     pairs = match_frequencies(r[ro].tolist(), f[fo].tolist(), tolerance=tolerance)
     return {int(ro[i]): int(fo[j]) for i, j in pairs}
-
-

@@ -215,7 +215,9 @@ def read_limits(path: str | Path) -> Limits:
     try:
         data = p.read_bytes()
     except FileNotFoundError:
-        raise LimitsError(f"limits file '{p}' not found; learn one with 'ringdown limits learn' or check the path") from None
+        raise LimitsError(
+            f"limits file '{p}' not found; learn one with 'ringdown limits learn' or check the path"
+        ) from None
     except OSError as exc:
         raise LimitsError(f"cannot read limits file '{p}': {exc.strerror or exc}") from exc
     try:
@@ -229,8 +231,12 @@ def read_limits(path: str | Path) -> Limits:
 def _window(src: str, where: str, key: str, v: Any, *, positive: bool = False) -> tuple[float, float] | None:
     if v is None:
         return None
-    if not (isinstance(v, list) and len(v) == 2 and all(isinstance(x, (int, float)) and not isinstance(x, bool) for x in v)):
-        raise LimitsError(f"limits file '{src}': {where}.{key} must be a pair of numbers [lo, hi], got {v!r}; e.g. {key} = [1720.0, 1765.0]")
+    if not (
+        isinstance(v, list) and len(v) == 2 and all(isinstance(x, (int, float)) and not isinstance(x, bool) for x in v)
+    ):
+        raise LimitsError(
+            f"limits file '{src}': {where}.{key} must be a pair of numbers [lo, hi], got {v!r}; e.g. {key} = [1720.0, 1765.0]"
+        )
     lo, hi = float(v[0]), float(v[1])
     if not (math.isfinite(lo) and math.isfinite(hi)) or not lo < hi:
         raise LimitsError(f"limits file '{src}': {where}.{key} = {v!r} needs finite lo < hi; swap or fix the numbers")
@@ -325,18 +331,23 @@ def _load_toml(text: str, src: str) -> dict[str, Any]:
     except _toml.TOMLDecodeError as exc:
         raise LimitsError(f"limits file '{src}' is not valid TOML ({exc}); fix the line named") from None
     except RecursionError:
-        raise LimitsError(f"limits file '{src}' nests arrays or tables too deeply to be a limits file; "
-                          "fix or relearn it") from None
+        raise LimitsError(
+            f"limits file '{src}' nests arrays or tables too deeply to be a limits file; fix or relearn it"
+        ) from None
     unknown = set(doc) - _TOP_KEYS
     if unknown:
-        raise LimitsError(f"limits file '{src}' has unknown key(s) {sorted(unknown)}; allowed: "
-                          f"{', '.join(sorted(_TOP_KEYS))} (a misspelt key would be ignored silently)")
+        raise LimitsError(
+            f"limits file '{src}' has unknown key(s) {sorted(unknown)}; allowed: "
+            f"{', '.join(sorted(_TOP_KEYS))} (a misspelt key would be ignored silently)"
+        )
     fv = doc.get("format_version", FORMAT_VERSION)
     if not isinstance(fv, int) or isinstance(fv, bool) or fv < 1:
         raise LimitsError(f"limits file '{src}': format_version must be a positive integer, got {fv!r}")
     if fv > FORMAT_VERSION:
-        raise LimitsError(f"limits file '{src}' has format_version {fv}, newer than this ringdown reads "
-                          f"({FORMAT_VERSION}); upgrade ringdown")
+        raise LimitsError(
+            f"limits file '{src}' has format_version {fv}, newer than this ringdown reads "
+            f"({FORMAT_VERSION}); upgrade ringdown"
+        )
     return doc
 
 
@@ -353,13 +364,23 @@ def _parse_check(src: str, doc: dict[str, Any]) -> tuple[float, float, float]:
         raise LimitsError(f"limits file '{src}': [check] must be a table")
     bad = set(chk) - {"tolerance", "max_uniform_shift", "uniform_shift_tolerance"}
     if bad:
-        raise LimitsError(f"limits file '{src}': [check] has unknown key(s) {sorted(bad)}; "
-                          "allowed: tolerance, max_uniform_shift, uniform_shift_tolerance")
+        raise LimitsError(
+            f"limits file '{src}': [check] has unknown key(s) {sorted(bad)}; "
+            "allowed: tolerance, max_uniform_shift, uniform_shift_tolerance"
+        )
     tolerance = _num_or(src, "check.", "tolerance", chk.get("tolerance"), DEFAULT_TOLERANCE, lo=0.0, hi=0.5)
-    mus = _num_or(src, "check.", "max_uniform_shift", chk.get("max_uniform_shift"), DEFAULT_MAX_UNIFORM_SHIFT,
-                  lo=-1e-12, hi=0.5)
-    ust = _num_or(src, "check.", "uniform_shift_tolerance", chk.get("uniform_shift_tolerance"),
-                  DEFAULT_UNIFORM_SHIFT_TOLERANCE, lo=-1e-12, hi=0.5)
+    mus = _num_or(
+        src, "check.", "max_uniform_shift", chk.get("max_uniform_shift"), DEFAULT_MAX_UNIFORM_SHIFT, lo=-1e-12, hi=0.5
+    )
+    ust = _num_or(
+        src,
+        "check.",
+        "uniform_shift_tolerance",
+        chk.get("uniform_shift_tolerance"),
+        DEFAULT_UNIFORM_SHIFT_TOLERANCE,
+        lo=-1e-12,
+        hi=0.5,
+    )
     return tolerance, mus, ust
 
 
@@ -367,11 +388,15 @@ def _parse_modes(src: str, doc: dict[str, Any]) -> list[ModeLimits]:
     """``[[modes]]``: one entry per reference mode, in ascending frequency."""
     raw_modes = doc.get("modes")
     if not isinstance(raw_modes, list) or not raw_modes:
-        raise LimitsError(f"limits file '{src}': no [[modes]] entries; add at least one, e.g. [[modes]] f_hz = [1720.0, 1765.0]")
+        raise LimitsError(
+            f"limits file '{src}': no [[modes]] entries; add at least one, e.g. [[modes]] f_hz = [1720.0, 1765.0]"
+        )
     modes = [_parse_mode(src, i, m) for i, m in enumerate(raw_modes)]
     refs = [m.f_ref_hz for m in modes]
     if any(b <= a for a, b in zip(refs, refs[1:])):
-        raise LimitsError(f"limits file '{src}': modes must be listed in ascending frequency; reorder the [[modes]] entries")
+        raise LimitsError(
+            f"limits file '{src}': modes must be listed in ascending frequency; reorder the [[modes]] entries"
+        )
     return modes
 
 
@@ -382,27 +407,39 @@ def _parse_mode(src: str, i: int, m: Any) -> ModeLimits:
         raise LimitsError(f"limits file '{src}': {where} must be a table ([[modes]])")
     unknown = set(m) - {"index", "f_ref_hz", "f_hz", "zeta", "ratio", "stats"}
     if unknown:
-        raise LimitsError(f"limits file '{src}': {where} has unknown key(s) {sorted(unknown)}; "
-                          "allowed: index, f_ref_hz, f_hz, zeta, ratio, stats")
+        raise LimitsError(
+            f"limits file '{src}': {where} has unknown key(s) {sorted(unknown)}; "
+            "allowed: index, f_ref_hz, f_hz, zeta, ratio, stats"
+        )
     fwin = _window(src, where, "f_hz", m.get("f_hz"), positive=True)
     zwin = _window(src, where, "zeta", m.get("zeta"), positive=True)
     rwin = _window(src, where, "ratio", m.get("ratio"), positive=True)
     fref = m.get("f_ref_hz")
     if fref is None:
         if fwin is None:
-            raise LimitsError(f"limits file '{src}': {where} needs f_hz = [lo, hi] (or f_ref_hz); add the frequency window")
+            raise LimitsError(
+                f"limits file '{src}': {where} needs f_hz = [lo, hi] (or f_ref_hz); add the frequency window"
+            )
         fref = 0.5 * (fwin[0] + fwin[1])
     f_ref_hz = _num_or(src, where + ".", "f_ref_hz", fref, math.nan, lo=0.0, hi=1e12)  # fref is set: no default
     if rwin is not None and i == 0:
-        raise LimitsError(f"limits file '{src}': {where}.ratio given for the first mode; ratios are to mode 1, remove it")
+        raise LimitsError(
+            f"limits file '{src}': {where}.ratio given for the first mode; ratios are to mode 1, remove it"
+        )
     stats_ = m.get("stats", {})
     if not isinstance(stats_, dict):
         raise LimitsError(f"limits file '{src}': {where}.stats must be a table")
     idx = m.get("index", i + 1)
     if idx != i + 1:
         raise LimitsError(f"limits file '{src}': {where}.index is {idx!r}, expected {i + 1}; list modes in order")
-    return ModeLimits(index=i + 1, f_ref_hz=f_ref_hz, f_hz=fwin, zeta=zwin, ratio=rwin,
-                      stats={k: float(v) for k, v in stats_.items() if _is_number(v) and math.isfinite(float(v))})
+    return ModeLimits(
+        index=i + 1,
+        f_ref_hz=f_ref_hz,
+        f_hz=fwin,
+        zeta=zwin,
+        ratio=rwin,
+        stats={k: float(v) for k, v in stats_.items() if _is_number(v) and math.isfinite(float(v))},
+    )
 
 
 def _parse_parts(src: str, doc: dict[str, Any]) -> list[tuple[str, str]]:
@@ -412,7 +449,11 @@ def _parse_parts(src: str, doc: dict[str, Any]) -> list[tuple[str, str]]:
         raise LimitsError(f"limits file '{src}': parts must be [[parts]] tables with name and sha256")
     parts = []
     for i, pt in enumerate(parts_):
-        if not isinstance(pt, dict) or not isinstance(pt.get("name", ""), str) or not isinstance(pt.get("sha256", ""), str):
+        if (
+            not isinstance(pt, dict)
+            or not isinstance(pt.get("name", ""), str)
+            or not isinstance(pt.get("sha256", ""), str)
+        ):
             raise LimitsError(f"limits file '{src}': parts[{i + 1}] must be a table with name and sha256")
         parts.append((str(pt.get("name", "")), str(pt.get("sha256", ""))))
     return parts
@@ -425,7 +466,9 @@ def _parse_reader(src: str, doc: dict[str, Any]) -> dict[str, Any]:
         raise LimitsError(f"limits file '{src}': [reader] must be a table")
     unknown = sorted(set(reader) - set(READER_KEYS))
     if unknown:
-        raise LimitsError(f"limits file '{src}': [reader] has unknown key(s) {unknown}; allowed: {', '.join(READER_KEYS)}")
+        raise LimitsError(
+            f"limits file '{src}': [reader] has unknown key(s) {unknown}; allowed: {', '.join(READER_KEYS)}"
+        )
     rate = reader.get("sample_rate")
     if rate is not None:
         _num(src, "reader.", "sample_rate", rate, None, lo=0.0, hi=1e12)
@@ -437,8 +480,21 @@ def _parse_reader(src: str, doc: dict[str, Any]) -> dict[str, Any]:
 
 
 #: Top-level keys of a limits file (anything else is a typo that would be ignored silently).
-_TOP_KEYS = frozenset({"format_version", "tool_version", "created_utc", "check", "modes", "mahalanobis", "settings",
-                       "parts", "analysis", "reader", "notes"})
+_TOP_KEYS = frozenset(
+    {
+        "format_version",
+        "tool_version",
+        "created_utc",
+        "check",
+        "modes",
+        "mahalanobis",
+        "settings",
+        "parts",
+        "analysis",
+        "reader",
+        "notes",
+    }
+)
 
 
 def _is_number(v: Any) -> bool:
@@ -470,21 +526,26 @@ def _check_analysis(src: str, analysis: dict) -> None:
     for key in ("min_snr_db", "min_hit_snr_db"):
         if key in analysis and not (_is_finite_number(analysis[key]) and analysis[key] >= 0):
             fail(key, "a finite number of dB >= 0")
-    if "max_modes" in analysis and not (isinstance(analysis["max_modes"], int)
-                                        and not isinstance(analysis["max_modes"], bool) and analysis["max_modes"] >= 1):
+    if "max_modes" in analysis and not (
+        isinstance(analysis["max_modes"], int)
+        and not isinstance(analysis["max_modes"], bool)
+        and analysis["max_modes"] >= 1
+    ):
         fail("max_modes", "a whole number >= 1")
     if "keep_double_hits" in analysis and not isinstance(analysis["keep_double_hits"], bool):
         fail("keep_double_hits", "true or false")
     if "sample_rate" in analysis and not (_is_finite_number(analysis["sample_rate"]) and analysis["sample_rate"] > 0):
         fail("sample_rate", "a finite number of Hz > 0")
     for key in ("channel", "column"):
-        if key in analysis and not (isinstance(analysis[key], str) or (isinstance(analysis[key], int)
-                                                                          and not isinstance(analysis[key], bool))):
+        if key in analysis and not (
+            isinstance(analysis[key], str) or (isinstance(analysis[key], int) and not isinstance(analysis[key], bool))
+        ):
             fail(key, "a channel number or a column name")
     if "bands" in analysis:
         b = analysis["bands"]
-        ok = isinstance(b, list) and all(isinstance(x, list) and len(x) == 2 and all(_is_finite_number(v) for v in x)
-                                         and 0 <= x[0] < x[1] for x in b)
+        ok = isinstance(b, list) and all(
+            isinstance(x, list) and len(x) == 2 and all(_is_finite_number(v) for v in x) and 0 <= x[0] < x[1] for x in b
+        )
         if not ok:
             fail("bands", "a list of [low, high] pairs in Hz with 0 <= low < high")
 
@@ -495,31 +556,46 @@ def _parse_maha(src: str, mh: Any, n_modes: int) -> MahalanobisLimits:
         raise LimitsError(f"limits file '{src}': [mahalanobis] must be a table; delete it to turn the check off")
     for key in ("features", "mean", "covariance", "threshold"):
         if key not in mh:
-            raise LimitsError(f"limits file '{src}': {where}.{key} is missing; relearn the limits or delete [mahalanobis]")
+            raise LimitsError(
+                f"limits file '{src}': {where}.{key} is missing; relearn the limits or delete [mahalanobis]"
+            )
     feats = mh["features"]
     valid = {f"ratio_{j}" for j in range(2, n_modes + 1)} | {f"log_zeta_{j}" for j in range(1, n_modes + 1)}
     if not isinstance(feats, list) or not feats or any(f not in valid for f in feats):
-        raise LimitsError(f"limits file '{src}': {where}.features must name ratio_J / log_zeta_J of the listed modes, "
-                          f"got {feats!r}; relearn the limits or delete [mahalanobis]")
+        raise LimitsError(
+            f"limits file '{src}': {where}.features must name ratio_J / log_zeta_J of the listed modes, "
+            f"got {feats!r}; relearn the limits or delete [mahalanobis]"
+        )
     bad = set(mh) - {"features", "mean", "covariance", "threshold", "n_parts", "probability"}
     if bad:
-        raise LimitsError(f"limits file '{src}': [mahalanobis] has unknown key(s) {sorted(bad)}; allowed: features, "
-                          "mean, covariance, threshold, n_parts, probability")
+        raise LimitsError(
+            f"limits file '{src}': [mahalanobis] has unknown key(s) {sorted(bad)}; allowed: features, "
+            "mean, covariance, threshold, n_parts, probability"
+        )
     if len(set(feats)) != len(feats):
         raise LimitsError(f"limits file '{src}': {where}.features names a feature twice; relearn the limits")
     p = len(feats)
     mean = mh["mean"]
     cov = mh["covariance"]
     if not (isinstance(mean, list) and len(mean) == p and all(_is_finite_number(v) for v in mean)):
-        raise LimitsError(f"limits file '{src}': {where}.mean must hold {p} finite numbers, got {mean!r}; "
-                          "relearn the limits or delete [mahalanobis]")
-    if not (isinstance(cov, list) and len(cov) == p
-            and all(isinstance(r, list) and len(r) == p and all(_is_finite_number(v) for v in r) for r in cov)):
-        raise LimitsError(f"limits file '{src}': {where}.covariance must be a {p}x{p} array of finite numbers; "
-                          "relearn the limits or delete [mahalanobis]")
+        raise LimitsError(
+            f"limits file '{src}': {where}.mean must hold {p} finite numbers, got {mean!r}; "
+            "relearn the limits or delete [mahalanobis]"
+        )
+    if not (
+        isinstance(cov, list)
+        and len(cov) == p
+        and all(isinstance(r, list) and len(r) == p and all(_is_finite_number(v) for v in r) for r in cov)
+    ):
+        raise LimitsError(
+            f"limits file '{src}': {where}.covariance must be a {p}x{p} array of finite numbers; "
+            "relearn the limits or delete [mahalanobis]"
+        )
     c = np.asarray(cov, dtype=float)
     if not np.all(np.isfinite(c)) or not np.allclose(c, c.T, rtol=1e-6, atol=0) or np.any(np.linalg.eigvalsh(c) <= 0):
-        raise LimitsError(f"limits file '{src}': {where}.covariance must be symmetric positive definite; relearn the limits")
+        raise LimitsError(
+            f"limits file '{src}': {where}.covariance must be symmetric positive definite; relearn the limits"
+        )
     thr = _num_or(src, where + ".", "threshold", mh["threshold"], math.nan, lo=0.0, hi=1e6)  # required: no default
     n = mh.get("n_parts", 0)
     if isinstance(n, bool) or not isinstance(n, int) or n < 0:

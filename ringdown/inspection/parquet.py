@@ -46,8 +46,16 @@ if TYPE_CHECKING:
     from .check import CheckResult
     from .store import StoredResult
 
-__all__ = ["SCHEMA_VERSION", "COLUMNS", "schema", "ParquetSink", "open_sink", "export_history", "read_dataset",
-           "settings_sha256"]
+__all__ = [
+    "SCHEMA_VERSION",
+    "COLUMNS",
+    "schema",
+    "ParquetSink",
+    "open_sink",
+    "export_history",
+    "read_dataset",
+    "settings_sha256",
+]
 
 #: Version of the column layout; stored in the files' metadata and in ``_ringdown_dataset.json``.
 SCHEMA_VERSION = 1
@@ -104,8 +112,12 @@ COLUMNS: tuple[tuple[str, str, str], ...] = (
 )  # fmt: skip
 
 #: Mode fields (``Mode.to_dict``) and the column(s) each one fills.
-_MODE_COLUMN = {"index": ("mode_index",), "band_hz": ("band_low_hz", "band_high_hz"),
-                "cross_checks": ("cross_checks_json",), "damping_vs_amplitude": ("damping_vs_amplitude_json",)}
+_MODE_COLUMN = {
+    "index": ("mode_index",),
+    "band_hz": ("band_low_hz", "band_high_hz"),
+    "cross_checks": ("cross_checks_json",),
+    "damping_vs_amplitude": ("damping_vs_amplitude_json",),
+}
 
 PARTITION_KEYS = ("date", "station")
 
@@ -113,8 +125,14 @@ PARTITION_KEYS = ("date", "station")
 def schema(*, without: Iterable[str] = ()) -> Any:
     """The Arrow schema of :data:`COLUMNS` (a ``pyarrow.Schema``), less the columns ``without``."""
     pa = _pyarrow()
-    types = {"string": pa.string(), "float64": pa.float64(), "int64": pa.int64(), "int32": pa.int32(),
-             "date32": pa.date32(), "timestamp[us, tz=UTC]": pa.timestamp("us", tz="UTC")}
+    types = {
+        "string": pa.string(),
+        "float64": pa.float64(),
+        "int64": pa.int64(),
+        "int32": pa.int32(),
+        "date32": pa.date32(),
+        "timestamp[us, tz=UTC]": pa.timestamp("us", tz="UTC"),
+    }
     skip = set(without)
     fields = [pa.field(name, types[t], nullable=True) for name, t, _ in COLUMNS if name not in skip]
     return pa.schema(fields, metadata={"ringdown.schema_version": str(SCHEMA_VERSION)})
@@ -124,8 +142,9 @@ def _pyarrow():
     try:
         import pyarrow
     except ImportError:
-        raise ParameterError("--parquet needs the optional 'cluster' extra (pyarrow); install it with: "
-                             "pip install 'ringdown[cluster]'") from None
+        raise ParameterError(
+            "--parquet needs the optional 'cluster' extra (pyarrow); install it with: pip install 'ringdown[cluster]'"
+        ) from None
     return pyarrow
 
 
@@ -175,13 +194,22 @@ class ParquetSink:
     Use as a context manager; :meth:`close` writes the rest.
     """
 
-    def __init__(self, out, *, partition_by: str | None = "date", flush_rows: int = 5000, flush_s: float = 30.0,
-                 append: bool = True):
+    def __init__(
+        self,
+        out,
+        *,
+        partition_by: str | None = "date",
+        flush_rows: int = 5000,
+        flush_s: float = 30.0,
+        append: bool = True,
+    ):
         self._pa = _pyarrow()
         import pyarrow.parquet  # noqa: F401 (imported once here, used in flush)
 
         if partition_by is not None and partition_by not in PARTITION_KEYS:
-            raise ParameterError(f"partition_by must be one of {', '.join(PARTITION_KEYS)} or None; got {partition_by!r}")
+            raise ParameterError(
+                f"partition_by must be one of {', '.join(PARTITION_KEYS)} or None; got {partition_by!r}"
+            )
         if int(flush_rows) < 1 or not (float(flush_s) > 0):
             raise ParameterError(f"flush_rows must be >= 1 and flush_s > 0; got {flush_rows!r}, {flush_s!r}")
         self.out = Path(out)
@@ -206,25 +234,32 @@ class ParquetSink:
         try:
             self.out.mkdir(parents=True, exist_ok=True)
             if manifest.exists() and not append:
-                raise ParameterError(f"--parquet '{self.out}' already holds a dataset; this writes a whole snapshot: "
-                                     "choose a new folder or remove that one")
+                raise ParameterError(
+                    f"--parquet '{self.out}' already holds a dataset; this writes a whole snapshot: "
+                    "choose a new folder or remove that one"
+                )
             if manifest.exists():
                 have = json.loads(manifest.read_text(encoding="utf-8"))
                 if have.get("schema_version") != SCHEMA_VERSION or have.get("partition_by") != self.partition_by:
                     raise ParameterError(
                         f"--parquet '{self.out}' holds a dataset of schema {have.get('schema_version')} partitioned by "
                         f"{have.get('partition_by')}; this run writes schema {SCHEMA_VERSION} by {self.partition_by}: "
-                        "choose another folder")
+                        "choose another folder"
+                    )
             elif any(self.out.iterdir()):
-                raise ParameterError(f"--parquet '{self.out}' is a folder that is not a ringdown dataset and not "
-                                     "empty; choose a new or empty folder")
+                raise ParameterError(
+                    f"--parquet '{self.out}' is a folder that is not a ringdown dataset and not "
+                    "empty; choose a new or empty folder"
+                )
             else:
                 manifest.write_text(json.dumps(want, indent=2) + "\n", encoding="utf-8")
         except (OSError, ValueError) as exc:
             if isinstance(exc, ParameterError):
                 raise
-            raise StoreError(f"cannot use '{self.out}' for the Parquet dataset: {getattr(exc, 'strerror', None) or exc}; "
-                             "choose a writable folder") from exc
+            raise StoreError(
+                f"cannot use '{self.out}' for the Parquet dataset: {getattr(exc, 'strerror', None) or exc}; "
+                "choose a writable folder"
+            ) from exc
 
     # -- adding results -----------------------------------------------------------------------
     def _add(self, base: dict, modes: list[dict], matched: dict[int, int] | None = None) -> None:
@@ -245,46 +280,83 @@ class ParquetSink:
 
     @staticmethod
     def _analysis_base(a) -> dict:
-        return dict(file=a.path, sha256=a.sha256, channel=a.channel, sample_rate_hz=a.sample_rate_hz,
-                    n_samples=a.n_samples, settings=dict(a.settings),
-                    error_code=None if a.error is None else a.error.code,
-                    error=None if a.error is None else a.error.message)
+        return dict(
+            file=a.path,
+            sha256=a.sha256,
+            channel=a.channel,
+            sample_rate_hz=a.sample_rate_hz,
+            n_samples=a.n_samples,
+            settings=dict(a.settings),
+            error_code=None if a.error is None else a.error.code,
+            error=None if a.error is None else a.error.message,
+        )
 
-    def add_analysis(self, analysis: Analysis, *, part_id: str | None = None, station: str | None = None,
-                     operator: str | None = None) -> None:
+    def add_analysis(
+        self, analysis: Analysis, *, part_id: str | None = None, station: str | None = None, operator: str | None = None
+    ) -> None:
         """Add one :class:`~ringdown.analysis.results.Analysis` (``kind`` 'analysis', no verdict)."""
         from .store import part_id_from_path
 
         base = self._analysis_base(analysis)
-        base.update(kind="analysis", station=station, operator=operator,
-                    part_id=part_id if part_id is not None else part_id_from_path(analysis.path or "array"))
+        base.update(
+            kind="analysis",
+            station=station,
+            operator=operator,
+            part_id=part_id if part_id is not None else part_id_from_path(analysis.path or "array"),
+        )
         self._add(base, [m.to_dict() for m in analysis.modes])
 
-    def add_check(self, result: CheckResult, *, part_id: str | None = None, station: str | None = None,
-                  operator: str | None = None) -> None:
+    def add_check(
+        self,
+        result: CheckResult,
+        *,
+        part_id: str | None = None,
+        station: str | None = None,
+        operator: str | None = None,
+    ) -> None:
         """Add one :class:`~ringdown.inspection.check.CheckResult` (``kind`` 'check', with verdict and reasons)."""
         from .store import part_id_from_path
 
         a = result.analysis
         base = self._analysis_base(a) if a is not None else dict(file=result.path, settings={})
-        base.update(kind="check", sha256=result.sha256 or base.get("sha256"), station=station, operator=operator,
-                    part_id=part_id if part_id is not None else part_id_from_path(result.path or "array"),
-                    verdict=result.verdict, limits_sha256=result.limits_sha256,
-                    reasons="; ".join(r.message for r in result.reasons) or None)
+        base.update(
+            kind="check",
+            sha256=result.sha256 or base.get("sha256"),
+            station=station,
+            operator=operator,
+            part_id=part_id if part_id is not None else part_id_from_path(result.path or "array"),
+            verdict=result.verdict,
+            limits_sha256=result.limits_sha256,
+            reasons="; ".join(r.message for r in result.reasons) or None,
+        )
         modes = [] if a is None else [m.to_dict() for m in a.modes]
         self._add(base, modes, matched={m: r for r, m in result.matched})
 
     def add_stored(self, record: StoredResult, modes: list[dict]) -> None:
         """Add one stored history record (:class:`~ringdown.inspection.store.StoredResult`) with its full mode records."""
         tested = _dt.datetime.fromisoformat(record.tested_utc.replace("Z", "+00:00"))
-        base = dict(kind=record.kind, file=record.path, sha256=record.sha256, part_id=record.part_id,
-                    station=record.station, operator=record.operator, tested_utc=tested, verdict=record.verdict,
-                    limits_sha256=record.limits_sha256, settings=dict(record.settings),
-                    error_code=None, error=record.error, tool_version=record.tool_version)  # the store keeps no code
+        base = dict(
+            kind=record.kind,
+            file=record.path,
+            sha256=record.sha256,
+            part_id=record.part_id,
+            station=record.station,
+            operator=record.operator,
+            tested_utc=tested,
+            verdict=record.verdict,
+            limits_sha256=record.limits_sha256,
+            settings=dict(record.settings),
+            error_code=None,
+            error=record.error,
+            tool_version=record.tool_version,
+        )  # the store keeps no code
         if record.kind == "check":
             base["reasons"] = "; ".join(r["message"] for r in record.reasons) or None
-        self._add(base, [dict(m) for m in modes], matched={m["index"]: int(m["ref_index"]) for m in modes
-                                                            if m.get("ref_index") is not None})
+        self._add(
+            base,
+            [dict(m) for m in modes],
+            matched={m["index"]: int(m["ref_index"]) for m in modes if m.get("ref_index") is not None},
+        )
 
     # -- writing --------------------------------------------------------------------------------
     def _partition_dir(self, value) -> Path:
@@ -322,8 +394,10 @@ class ParquetSink:
                 self.rows_written += len(rows)
             self._seq += 1
         except OSError as exc:
-            raise StoreError(f"cannot write the Parquet dataset in '{self.out}': {exc.strerror or exc}; check "
-                             "disk space and permissions") from exc
+            raise StoreError(
+                f"cannot write the Parquet dataset in '{self.out}': {exc.strerror or exc}; check "
+                "disk space and permissions"
+            ) from exc
         self._rows = []
 
     def close(self) -> None:
@@ -359,8 +433,9 @@ def open_sink(out: str | os.PathLike | None, **kwargs: Any) -> ParquetSink | _No
     return _NoSink() if out is None else ParquetSink(out, **kwargs)
 
 
-def export_history(db: str | os.PathLike, records: Iterable[StoredResult], out: str | os.PathLike,
-                   **kwargs: Any) -> ParquetSink:
+def export_history(
+    db: str | os.PathLike, records: Iterable[StoredResult], out: str | os.PathLike, **kwargs: Any
+) -> ParquetSink:
     """Write stored history records (``ResultStore.query``) of database ``db`` to the dataset ``out``.
 
     Every stored mode field is written (from the stored mode records). ``out`` must be a new or
@@ -388,8 +463,9 @@ def read_dataset(out: str | os.PathLike) -> Any:
     try:
         manifest = json.loads((out / MANIFEST).read_text(encoding="utf-8"))
     except (OSError, ValueError) as exc:
-        raise ParameterError(f"'{out}' is not a ringdown Parquet dataset (no readable {MANIFEST}); give the "
-                             "folder that --parquet wrote") from exc
+        raise ParameterError(
+            f"'{out}' is not a ringdown Parquet dataset (no readable {MANIFEST}); give the folder that --parquet wrote"
+        ) from exc
     full = schema()
     key = manifest.get("partition_by")
     part = None if key is None else ds.partitioning(pa.schema([full.field(key)]), flavor="hive")

@@ -46,15 +46,17 @@ class PartIds:
     an empty answer takes the pattern's id.
     """
 
-    def __init__(self, pattern: str = "part-{n:04d}", *, start: int = 1,
-                 prompt: Callable[[str], str] | None = None) -> None:
+    def __init__(
+        self, pattern: str = "part-{n:04d}", *, start: int = 1, prompt: Callable[[str], str] | None = None
+    ) -> None:
         if "{n" not in pattern:
             pattern = pattern + "-{n:04d}"
         try:
             pattern.format(n=1)
         except (KeyError, IndexError, ValueError) as exc:
-            raise ParameterError(f"--part-id {pattern!r} is not a pattern with {{n}} (e.g. 'B7-{{n:04d}}'): {exc}") \
-                from None
+            raise ParameterError(
+                f"--part-id {pattern!r} is not a pattern with {{n}} (e.g. 'B7-{{n:04d}}'): {exc}"
+            ) from None
         self.pattern = pattern
         self.n = int(start) - 1
         self.prompt = prompt
@@ -155,10 +157,21 @@ class Station:
         UTC time of the stream's first sample (default: now).
     """
 
-    def __init__(self, sample_rate: float, *, options: dict | None = None, limits=None, save_dir=None,
-                 store=None, station: str | None = None, operator: str | None = None,
-                 part_ids: PartIds | None = None, subtype: str = "PCM_24", full_scale: float | None = 1.0,
-                 started: _dt.datetime | None = None) -> None:
+    def __init__(
+        self,
+        sample_rate: float,
+        *,
+        options: dict | None = None,
+        limits=None,
+        save_dir=None,
+        store=None,
+        station: str | None = None,
+        operator: str | None = None,
+        part_ids: PartIds | None = None,
+        subtype: str = "PCM_24",
+        full_scale: float | None = 1.0,
+        started: _dt.datetime | None = None,
+    ) -> None:
         from ..analysis.pipeline import AnalysisOptions
 
         self.sample_rate = float(sample_rate)
@@ -166,8 +179,11 @@ class Station:
         if limits is not None:
             # the analysis options the limits were learned with; not their reader options (the
             # station's input is its own) nor a time window (a tap's segment starts before its tap)
-            learned = {k: v for k, v in limits.analysis_options().items()
-                       if k not in ("channel", "column", "sample_rate", "start_s", "end_s")}
+            learned = {
+                k: v
+                for k, v in limits.analysis_options().items()
+                if k not in ("channel", "column", "sample_rate", "start_s", "end_s")
+            }
             self.options = {**learned, **self.options}
         self.opts = AnalysisOptions.from_kwargs(self.options)
         self.limits = limits
@@ -176,16 +192,19 @@ class Station:
             try:
                 self.save_dir.mkdir(parents=True, exist_ok=True)
             except OSError as exc:
-                raise ParameterError(f"cannot use {str(self.save_dir)!r} as the save folder: "
-                                     f"{exc.strerror or exc}; choose a writable folder") from None
+                raise ParameterError(
+                    f"cannot use {str(self.save_dir)!r} as the save folder: "
+                    f"{exc.strerror or exc}; choose a writable folder"
+                ) from None
         self.store = store
         self.station, self.operator = station, operator
         self.part_ids = part_ids or PartIds()
         self.subtype = subtype
         self.full_scale = full_scale
         self.started = started or utc_now()
-        self.segmenter = Segmenter(self.sample_rate, min_hit_snr_db=self.opts.min_hit_snr_db, min_segment=0,
-                                   one_hit_per_segment=True)
+        self.segmenter = Segmenter(
+            self.sample_rate, min_hit_snr_db=self.opts.min_hit_snr_db, min_segment=0, one_hit_per_segment=True
+        )
         self.taps: list[TapResult] = []
 
     def warm_up(self) -> None:
@@ -199,7 +218,7 @@ class Station:
         t = np.arange(n) / fs
         x = 1e-4 * np.random.default_rng(0).standard_normal(n)
         n0 = n // 8
-        x[n0:] += 0.5 * np.exp(-8.0 * fs / 1000.0 * t[:n - n0]) * np.sin(2 * np.pi * fs / 20.0 * t[:n - n0])
+        x[n0:] += 0.5 * np.exp(-8.0 * fs / 1000.0 * t[: n - n0]) * np.sin(2 * np.pi * fs / 20.0 * t[: n - n0])
         try:
             analyze(x, fs)
         except RingdownError:
@@ -241,8 +260,11 @@ class Station:
         analysis = lighten(analysis)
         dropped = seg.dropped
         if dropped:
-            note = Notice("input_dropped", f"{dropped} input samples were lost (overflow) during this tap: "
-                                           "its decay has a gap; tap the part again")
+            note = Notice(
+                "input_dropped",
+                f"{dropped} input samples were lost (overflow) during this tap: "
+                "its decay has a gap; tap the part again",
+            )
             analysis = replace(analysis, warnings=analysis.warnings + (note,))
         verdict: str | None = None
         reasons: tuple[Notice, ...] = ()
@@ -258,14 +280,26 @@ class Station:
         stored = None
         if self.store is not None:
             if result is not None:
-                stored = self.store.record_check(result, part_id=part, station=self.station, operator=self.operator,
-                                                 force=True)
+                stored = self.store.record_check(
+                    result, part_id=part, station=self.station, operator=self.operator, force=True
+                )
             else:
-                stored = self.store.record_analysis(analysis, part_id=part, station=self.station,
-                                                    operator=self.operator)
-        tap = TapResult(number=number, part_id=part, time_utc=when.isoformat(timespec="milliseconds"), t_s=t_s,
-                        path=path, analysis=analysis, verdict=verdict, reasons=reasons, dropped=dropped,
-                        stored_id=stored, check=result)
+                stored = self.store.record_analysis(
+                    analysis, part_id=part, station=self.station, operator=self.operator
+                )
+        tap = TapResult(
+            number=number,
+            part_id=part,
+            time_utc=when.isoformat(timespec="milliseconds"),
+            t_s=t_s,
+            path=path,
+            analysis=analysis,
+            verdict=verdict,
+            reasons=reasons,
+            dropped=dropped,
+            stored_id=stored,
+            check=result,
+        )
         self.taps.append(tap)
         return tap
 

@@ -53,8 +53,24 @@ __all__ = [
 #: Default database file name (in the working directory).
 DEFAULT_DB = "ringdown.sqlite"
 
-_MODE_COLUMNS = ("f_d_hz", "f_d_hz_u", "beta_per_s", "beta_per_s_u", "f_n_hz", "f_n_hz_u", "zeta", "zeta_u",
-                 "q", "q_u", "loss_factor", "loss_factor_u", "t60_s", "t60_s_u", "amplitude", "snr_db")
+_MODE_COLUMNS = (
+    "f_d_hz",
+    "f_d_hz_u",
+    "beta_per_s",
+    "beta_per_s_u",
+    "f_n_hz",
+    "f_n_hz_u",
+    "zeta",
+    "zeta_u",
+    "q",
+    "q_u",
+    "loss_factor",
+    "loss_factor_u",
+    "t60_s",
+    "t60_s_u",
+    "amplitude",
+    "snr_db",
+)
 
 #: Schema migrations: MIGRATIONS[i] takes a database from user_version i to i + 1.
 MIGRATIONS: tuple[str, ...] = (
@@ -295,12 +311,15 @@ class ResultStore:
                 except sqlite3.OperationalError:
                     # a WAL database on read-only media cannot make its -shm file: read it as immutable
                     self._conn.close()
-                    self._conn = sqlite3.connect(uri + "&immutable=1", uri=True, timeout=timeout_s,
-                                                 isolation_level=None)
+                    self._conn = sqlite3.connect(
+                        uri + "&immutable=1", uri=True, timeout=timeout_s, isolation_level=None
+                    )
             else:
                 self._conn = sqlite3.connect(self.path, timeout=timeout_s, isolation_level=None)
         except sqlite3.Error as exc:
-            raise StoreError(f"cannot use results database '{self.path}': {exc}; check the path or use another --db") from None
+            raise StoreError(
+                f"cannot use results database '{self.path}': {exc}; check the path or use another --db"
+            ) from None
         try:
             self._conn.row_factory = sqlite3.Row
             self._conn.execute(f"PRAGMA busy_timeout = {int(timeout_s * 1000)}")
@@ -323,29 +342,50 @@ class ResultStore:
 
     def _check_version(self, version: int) -> None:
         if version > SCHEMA_VERSION:
-            raise StoreError(f"results database '{self.path}' has schema version {version}, newer than this "
-                             f"ringdown writes ({SCHEMA_VERSION}); upgrade ringdown")
+            raise StoreError(
+                f"results database '{self.path}' has schema version {version}, newer than this "
+                f"ringdown writes ({SCHEMA_VERSION}); upgrade ringdown"
+            )
         if version < 0:
-            raise StoreError(f"'{self.path}' has schema version {version}: not a ringdown results database; "
-                             "use another --db")
+            raise StoreError(
+                f"'{self.path}' has schema version {version}: not a ringdown results database; use another --db"
+            )
         if version == 0:
             tables = self._conn.execute("SELECT count(*) FROM sqlite_master WHERE type = 'table'").fetchone()[0]
             if tables:
-                raise StoreError(f"'{self.path}' is an SQLite database but not a ringdown results database; "
-                                 "use another --db")
+                raise StoreError(
+                    f"'{self.path}' is an SQLite database but not a ringdown results database; use another --db"
+                )
 
     def _check_schema(self) -> None:
         """Every table and column this module uses must be there (a dropped or altered table fails here)."""
-        need = {"results": {"id", "kind", "part_id", "path", "sha256", "tested_utc", "settings_json",
-                            "limits_sha256", "verdict", "reasons_json", "notes_json", "error", "result_json"},
-                "modes": {"result_id", "mode_index", "ref_index", "mode_json", *_MODE_COLUMNS},
-                "limits_files": {"sha256", "limits_json"}}
+        need = {
+            "results": {
+                "id",
+                "kind",
+                "part_id",
+                "path",
+                "sha256",
+                "tested_utc",
+                "settings_json",
+                "limits_sha256",
+                "verdict",
+                "reasons_json",
+                "notes_json",
+                "error",
+                "result_json",
+            },
+            "modes": {"result_id", "mode_index", "ref_index", "mode_json", *_MODE_COLUMNS},
+            "limits_files": {"sha256", "limits_json"},
+        }
         for table, cols in need.items():
             have = {r[1] for r in self._conn.execute(f"PRAGMA table_info({table})")}  # names are constants
             if not cols <= have:
                 what = "is missing" if not have else f"lacks column(s) {sorted(cols - have)}"
-                raise StoreError(f"results database '{self.path}': table {table} {what}; it is damaged or not "
-                                 "ringdown's; restore a backup or use another --db")
+                raise StoreError(
+                    f"results database '{self.path}': table {table} {what}; it is damaged or not "
+                    "ringdown's; restore a backup or use another --db"
+                )
 
     # -- housekeeping -----------------------------------------------------------------------
     def _migrate(self) -> None:
@@ -407,14 +447,50 @@ class ResultStore:
             (analysis.path, _json(dict(analysis.settings)), None if analysis.error is None else analysis.error.message),
         ).fetchone()
 
-    def _insert(self, *, kind, part_id, path, sha256, station, operator, settings, limits_sha256, verdict,
-                reasons, notes, mahalanobis, uniform_shift, error, result_json, modes, matched) -> int:
+    def _insert(
+        self,
+        *,
+        kind,
+        part_id,
+        path,
+        sha256,
+        station,
+        operator,
+        settings,
+        limits_sha256,
+        verdict,
+        reasons,
+        notes,
+        mahalanobis,
+        uniform_shift,
+        error,
+        result_json,
+        modes,
+        matched,
+    ) -> int:
         cur = self._conn.execute(
             "INSERT INTO results (kind, part_id, path, sha256, tested_utc, station, operator, tool_version, "
             "settings_json, limits_sha256, verdict, reasons_json, notes_json, mahalanobis, uniform_shift, error, "
             "result_json) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
-            (kind, part_id, path, sha256, utc_stamp("microseconds"), station, operator, __version__, _json(settings),
-             limits_sha256, verdict, _json(reasons), _json(notes), mahalanobis, uniform_shift, error, result_json),
+            (
+                kind,
+                part_id,
+                path,
+                sha256,
+                utc_stamp("microseconds"),
+                station,
+                operator,
+                __version__,
+                _json(settings),
+                limits_sha256,
+                verdict,
+                _json(reasons),
+                _json(notes),
+                mahalanobis,
+                uniform_shift,
+                error,
+                result_json,
+            ),
         )
         rid = cur.lastrowid
         assert rid is not None  # set by an INSERT
@@ -479,20 +555,36 @@ class ResultStore:
                 if not force and self._existing(result.sha256, result.limits_sha256) is not None:
                     return None
                 return self._insert(
-                    kind="check", part_id=str(part_id), path=result.path, sha256=result.sha256, station=station,
-                    operator=operator, settings=settings, limits_sha256=result.limits_sha256,
-                    verdict=result.verdict, reasons=[r.to_dict() for r in result.reasons],
-                    notes=[n.to_dict() for n in result.notes], mahalanobis=result.mahalanobis,
+                    kind="check",
+                    part_id=str(part_id),
+                    path=result.path,
+                    sha256=result.sha256,
+                    station=station,
+                    operator=operator,
+                    settings=settings,
+                    limits_sha256=result.limits_sha256,
+                    verdict=result.verdict,
+                    reasons=[r.to_dict() for r in result.reasons],
+                    notes=[n.to_dict() for n in result.notes],
+                    mahalanobis=result.mahalanobis,
                     uniform_shift=result.uniform_shift,
                     error=None if a is None or a.error is None else a.error.message,
-                    result_json=_json(result.to_dict()), modes=() if a is None else a.modes,
+                    result_json=_json(result.to_dict()),
+                    modes=() if a is None else a.modes,
                     matched=result.matched,
                 )
         except sqlite3.Error as exc:
             raise StoreError(f"cannot write to results database '{self.path}': {_why(exc)}") from None
 
-    def record_analysis(self, analysis: Analysis, *, part_id: str | None = None, station: str | None = None,
-                        operator: str | None = None, skip_stored: bool = False) -> int | None:
+    def record_analysis(
+        self,
+        analysis: Analysis,
+        *,
+        part_id: str | None = None,
+        station: str | None = None,
+        operator: str | None = None,
+        skip_stored: bool = False,
+    ) -> int | None:
         """Store one analysis (no verdict) in its own transaction; return the row id.
 
         With ``skip_stored`` an analysis of the same file (SHA-256; for a failed one, the path and
@@ -508,11 +600,23 @@ class ResultStore:
                 if skip_stored and self._existing_analysis(analysis) is not None:
                     return None
                 return self._insert(
-                    kind="analysis", part_id=str(pid), path=analysis.path, sha256=analysis.sha256, station=station,
-                    operator=operator, settings=dict(analysis.settings), limits_sha256=None, verdict=None,
-                    reasons=[], notes=[w.to_dict() for w in analysis.warnings], mahalanobis=None,
-                    uniform_shift=None, error=None if analysis.error is None else analysis.error.message,
-                    result_json=_json(d), modes=analysis.modes, matched=(),
+                    kind="analysis",
+                    part_id=str(pid),
+                    path=analysis.path,
+                    sha256=analysis.sha256,
+                    station=station,
+                    operator=operator,
+                    settings=dict(analysis.settings),
+                    limits_sha256=None,
+                    verdict=None,
+                    reasons=[],
+                    notes=[w.to_dict() for w in analysis.warnings],
+                    mahalanobis=None,
+                    uniform_shift=None,
+                    error=None if analysis.error is None else analysis.error.message,
+                    result_json=_json(d),
+                    modes=analysis.modes,
+                    matched=(),
                 )
         except sqlite3.Error as exc:
             raise StoreError(f"cannot write to results database '{self.path}': {_why(exc)}") from None
@@ -532,23 +636,39 @@ class ResultStore:
             except (TypeError, ValueError):
                 v = None
             if not isinstance(v, kind) or (isinstance(v, list) and not all(isinstance(x, dict) for x in v)):
-                raise StoreError(f"results database '{self.path}': row {row['id']} holds invalid {col}; the file "
-                                 "is damaged or was edited; restore a backup or use another --db")
+                raise StoreError(
+                    f"results database '{self.path}': row {row['id']} holds invalid {col}; the file "
+                    "is damaged or was edited; restore a backup or use another --db"
+                )
             return v
 
         return StoredResult(
-            id=int(row["id"]), kind=row["kind"], part_id=row["part_id"], path=row["path"], sha256=row["sha256"],
-            tested_utc=row["tested_utc"], station=row["station"], operator=row["operator"],
-            tool_version=row["tool_version"], limits_sha256=row["limits_sha256"], verdict=row["verdict"],
-            reasons=tuple(parsed("reasons_json", list)), notes=tuple(parsed("notes_json", list)),
-            mahalanobis=row["mahalanobis"], uniform_shift=row["uniform_shift"], error=row["error"],
-            settings=parsed("settings_json", dict), modes=tuple(modes), result=parsed("result_json", dict),
+            id=int(row["id"]),
+            kind=row["kind"],
+            part_id=row["part_id"],
+            path=row["path"],
+            sha256=row["sha256"],
+            tested_utc=row["tested_utc"],
+            station=row["station"],
+            operator=row["operator"],
+            tool_version=row["tool_version"],
+            limits_sha256=row["limits_sha256"],
+            verdict=row["verdict"],
+            reasons=tuple(parsed("reasons_json", list)),
+            notes=tuple(parsed("notes_json", list)),
+            mahalanobis=row["mahalanobis"],
+            uniform_shift=row["uniform_shift"],
+            error=row["error"],
+            settings=parsed("settings_json", dict),
+            modes=tuple(modes),
+            result=parsed("result_json", dict),
         )
 
     def mode_records(self, result_id: int) -> list[dict]:
         """Every stored field of a result's modes (``Mode.to_dict()`` as stored), with ``ref_index``."""
-        rows = self._conn.execute("SELECT mode_json, ref_index FROM modes WHERE result_id = ? ORDER BY mode_index",
-                                  (int(result_id),))
+        rows = self._conn.execute(
+            "SELECT mode_json, ref_index FROM modes WHERE result_id = ? ORDER BY mode_index", (int(result_id),)
+        )
         return [{**json.loads(r["mode_json"]), "ref_index": r["ref_index"]} for r in rows]
 
     def get(self, result_id: int) -> StoredResult | None:
@@ -608,6 +728,7 @@ class ResultStore:
 
     def limits_documents(self) -> dict[str, dict]:
         """Every limits file used, as ``{sha256: Limits.to_dict()}``."""
+
         def run():
             out = {}
             for r in self._conn.execute("SELECT sha256, limits_json FROM limits_files"):
@@ -616,8 +737,10 @@ class ResultStore:
                 except (TypeError, ValueError):
                     doc = None
                 if not isinstance(doc, dict):
-                    raise StoreError(f"results database '{self.path}': the stored limits {r['sha256']} are invalid "
-                                     "JSON; restore a backup or use another --db")
+                    raise StoreError(
+                        f"results database '{self.path}': the stored limits {r['sha256']} are invalid "
+                        "JSON; restore a backup or use another --db"
+                    )
                 out[r["sha256"]] = doc
             return out
 
@@ -627,8 +750,14 @@ class ResultStore:
         return int(self._read(lambda: self._conn.execute("SELECT count(*) FROM results").fetchone()[0]))
 
 
-def store_analysis(db: str | os.PathLike | ResultStore, analysis: Analysis, *, part_id: str | None = None,
-                   station: str | None = None, operator: str | None = None) -> int:
+def store_analysis(
+    db: str | os.PathLike | ResultStore,
+    analysis: Analysis,
+    *,
+    part_id: str | None = None,
+    station: str | None = None,
+    operator: str | None = None,
+) -> int:
     """Store one analysis in a results database (what ``ringdown analyze --store`` does).
 
     Parameters

@@ -67,8 +67,9 @@ class ArrayBlocks:
         out, the next block's ``dropped`` counts their samples, and ``dropped_blocks`` counts them.
     """
 
-    def __init__(self, x, sample_rate: float, *, block_samples: int = DEFAULT_BLOCK_SAMPLES,
-                 drop: Sequence[int] = ()) -> None:
+    def __init__(
+        self, x, sample_rate: float, *, block_samples: int = DEFAULT_BLOCK_SAMPLES, drop: Sequence[int] = ()
+    ) -> None:
         self.x = np.asarray(x, dtype=np.float64)
         self.sample_rate = float(sample_rate)
         self.block_samples = _check_block(block_samples)
@@ -85,7 +86,7 @@ class ArrayBlocks:
                 self.dropped_blocks += 1
                 lost += min(b, self.total_samples - k)
                 continue
-            yield Block(self.x[k:k + b].copy(), k, lost)
+            yield Block(self.x[k : k + b].copy(), k, lost)
             lost = 0
 
 
@@ -106,8 +107,16 @@ class SoundFileBlocks:
         ``channel`` out of range, ``sample_rate`` in conflict with the file's.
     """
 
-    def __init__(self, path, *, channel=None, sample_rate: float | None = None,
-                 block_samples: int = DEFAULT_BLOCK_SAMPLES, start: int = 0, stop: int | None = None) -> None:
+    def __init__(
+        self,
+        path,
+        *,
+        channel=None,
+        sample_rate: float | None = None,
+        block_samples: int = DEFAULT_BLOCK_SAMPLES,
+        start: int = 0,
+        stop: int | None = None,
+    ) -> None:
         from . import read as _io
 
         name = os.fspath(path)
@@ -118,12 +127,16 @@ class SoundFileBlocks:
         choice = _io._selection(channel, None, name)
         index = 1 if choice is None else _io._parse_index(choice)
         if index is None or not 1 <= index <= n_channels:
-            raise ParameterError(f"channel {choice!r} is out of range: {name!r} has {n_channels} "
-                                 f"channel{'s' if n_channels != 1 else ''}; pick 1 to {n_channels}")
+            raise ParameterError(
+                f"channel {choice!r} is out of range: {name!r} has {n_channels} "
+                f"channel{'s' if n_channels != 1 else ''}; pick 1 to {n_channels}"
+            )
         rate = float(info.samplerate)
         if sample_rate is not None and not math.isclose(float(sample_rate), rate, rel_tol=_io._RATE_RTOL):
-            raise ParameterError(f"sample rate {float(sample_rate):g} Hz given, but {name!r} states {rate:g} Hz; "
-                                 "drop the sample rate option (the file's own rate is used)")
+            raise ParameterError(
+                f"sample rate {float(sample_rate):g} Hz given, but {name!r} states {rate:g} Hz; "
+                "drop the sample rate option (the file's own rate is used)"
+            )
         frames = int(info.frames)
         self.path = name
         self.info = info
@@ -154,13 +167,20 @@ class SoundFileBlocks:
 
         pos = self.start
         try:
-            for data in sf.blocks(self.path, blocksize=self.block_samples, dtype="float64", always_2d=True,
-                                  start=self.start, stop=self.stop):
+            for data in sf.blocks(
+                self.path,
+                blocksize=self.block_samples,
+                dtype="float64",
+                always_2d=True,
+                start=self.start,
+                stop=self.stop,
+            ):
                 yield Block(np.ascontiguousarray(data[:, self._index - 1]), pos - self.start)
                 pos += data.shape[0]
         except (RuntimeError, sf.LibsndfileError) as exc:
-            raise InputError(f"cannot decode {self.path!r} after {pos} samples: {exc}; "
-                             "export or copy the recording again") from exc
+            raise InputError(
+                f"cannot decode {self.path!r} after {pos} samples: {exc}; export or copy the recording again"
+            ) from exc
 
 
 class Paced:

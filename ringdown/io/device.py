@@ -23,8 +23,10 @@ def import_sounddevice():
     try:
         import sounddevice
     except ImportError as exc:
-        raise ParameterError("live capture needs the 'live' extra: pip install 'ringdown[live]' "
-                             f"(sounddevice, with the PortAudio library libportaudio2): {exc}") from None
+        raise ParameterError(
+            "live capture needs the 'live' extra: pip install 'ringdown[live]' "
+            f"(sounddevice, with the PortAudio library libportaudio2): {exc}"
+        ) from None
     except OSError as exc:  # the module is there but PortAudio is not
         raise ParameterError(f"sounddevice cannot load PortAudio ({exc}); install libportaudio2") from None
     return sounddevice
@@ -65,16 +67,24 @@ class DeviceBlocks:
     total_samples = None
     path = None
 
-    def __init__(self, device=None, *, channel: int = 1, sample_rate: float | None = None,
-                 block_samples: int = 1024, queue_s: float = 60.0) -> None:
+    def __init__(
+        self,
+        device=None,
+        *,
+        channel: int = 1,
+        sample_rate: float | None = None,
+        block_samples: int = 1024,
+        queue_s: float = 60.0,
+    ) -> None:
         sd = import_sounddevice()
         try:
             info = sd.query_devices(device, "input")
         except (ValueError, sd.PortAudioError) as exc:
             raise ParameterError(f"no input device {device!r}: {exc} (list them with --list-devices)") from None
         if not 1 <= int(channel) <= int(info["max_input_channels"]):
-            raise ParameterError(f"channel {channel} is out of range: {info['name']!r} has "
-                                 f"{info['max_input_channels']} input channel(s)")
+            raise ParameterError(
+                f"channel {channel} is out of range: {info['name']!r} has {info['max_input_channels']} input channel(s)"
+            )
         self._sd = sd
         self.device = device
         self.device_name = str(info["name"])
@@ -114,8 +124,14 @@ class DeviceBlocks:
     def __iter__(self) -> Iterator[Block]:
         sd = self._sd
         try:
-            stream = sd.InputStream(device=self.device, channels=self.n_channels, samplerate=self.sample_rate,
-                                    blocksize=self.block_samples, dtype="float32", callback=self._callback)
+            stream = sd.InputStream(
+                device=self.device,
+                channels=self.n_channels,
+                samplerate=self.sample_rate,
+                blocksize=self.block_samples,
+                dtype="float32",
+                callback=self._callback,
+            )
         except sd.PortAudioError as exc:
             raise InputError(f"cannot open input {self.device_name!r} at {self.sample_rate:g} Hz: {exc}") from None
         with stream:

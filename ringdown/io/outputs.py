@@ -83,8 +83,14 @@ def _temp_in(path: Path, mode: str):
 
 
 @contextlib.contextmanager
-def atomic_write(path: str | os.PathLike, mode: str = "w", *, encoding: str | None = "utf-8",
-                 newline: str | None = None, what: str = "output") -> Iterator[Any]:
+def atomic_write(
+    path: str | os.PathLike,
+    mode: str = "w",
+    *,
+    encoding: str | None = "utf-8",
+    newline: str | None = None,
+    what: str = "output",
+) -> Iterator[Any]:
     """Open a temporary file beside ``path``; on success rename it onto ``path``.
 
     On any error (or interruption) the temporary file is removed and ``path`` is untouched.
@@ -94,8 +100,9 @@ def atomic_write(path: str | os.PathLike, mode: str = "w", *, encoding: str | No
     try:
         fd, tmp = _temp_in(p, mode)
     except OSError as exc:
-        raise OutputError(f"cannot write {what} {shown(str(p))!r}: {exc.strerror or exc}; "
-                             "choose a writable path") from None
+        raise OutputError(
+            f"cannot write {what} {shown(str(p))!r}: {exc.strerror or exc}; choose a writable path"
+        ) from None
     try:
         binary = "b" in mode
         text_options: dict[str, Any] = {} if binary else {"encoding": encoding, "newline": newline}
@@ -110,8 +117,9 @@ def atomic_write(path: str | os.PathLike, mode: str = "w", *, encoding: str | No
         os.replace(tmp, p)
     except OSError as exc:
         _unlink(tmp)
-        raise OutputError(f"cannot write {what} {shown(str(p))!r}: {exc.strerror or exc}; "
-                             "free disk space or choose a writable path") from None
+        raise OutputError(
+            f"cannot write {what} {shown(str(p))!r}: {exc.strerror or exc}; free disk space or choose a writable path"
+        ) from None
     except BaseException:
         _unlink(tmp)
         raise
@@ -147,16 +155,19 @@ def check_writable(path: str | os.PathLike, what: str, *, folder: bool = False) 
         try:
             p.mkdir(parents=True, exist_ok=True)
         except OSError as exc:
-            raise OutputError(f"cannot create {what} folder {name!r}: {exc.strerror or exc}; "
-                                 "choose a writable folder") from None
+            raise OutputError(
+                f"cannot create {what} folder {name!r}: {exc.strerror or exc}; choose a writable folder"
+            ) from None
         target = p
     else:
         if p.is_dir():
             raise OutputError(f"{what} {name!r} is a folder; give a file name")
         target = p.parent if str(p.parent) else Path(".")
         if not target.is_dir():
-            raise OutputError(f"cannot write {what} {name!r}: folder {shown(str(target))!r} does not exist; "
-                                 "create it or choose another path")
+            raise OutputError(
+                f"cannot write {what} {name!r}: folder {shown(str(target))!r} does not exist; "
+                "create it or choose another path"
+            )
     try:
         fd, tmp = tempfile.mkstemp(prefix=".ringdown-probe.", dir=str(target))
         os.close(fd)
@@ -172,5 +183,6 @@ def remove_stale(path: str | os.PathLike) -> None:
         try:
             p.unlink()
         except OSError as exc:
-            raise OutputError(f"cannot replace {shown(str(p))!r}: {exc.strerror or exc}; "
-                                 "choose a writable path") from None
+            raise OutputError(
+                f"cannot replace {shown(str(p))!r}: {exc.strerror or exc}; choose a writable path"
+            ) from None

@@ -69,26 +69,55 @@ _AUDIO_MAGIC = {
 # companded/ADPCM relatives). Everything else (FLOAT, DOUBLE, VORBIS, OPUS, MPEG) decodes to
 # floats that can exceed 1.0, so full scale is unknown.
 _INT_SUBTYPE_PREFIXES = ("PCM_", "DPCM_", "DWVW_", "ALAC_", "NMS_ADPCM")
-_INT_SUBTYPES = {"ALAW", "ULAW", "IMA_ADPCM", "MS_ADPCM", "GSM610", "VOX_ADPCM",
-                 "G721_32", "G723_24", "G723_40"}
+_INT_SUBTYPES = {"ALAW", "ULAW", "IMA_ADPCM", "MS_ADPCM", "GSM610", "VOX_ADPCM", "G721_32", "G723_24", "G723_40"}
 
 # Column names.
 _TIME_WORDS = r"(?:time|t|zeit|tiempo|temps|tempo|timestamp)"
 _TIME_NAME = re.compile(
     _TIME_WORDS
     + r"(?:\s*[\[\(\{<]\s*(?P<u1>[^\]\)\}>]*?)\s*[\]\)\}>]"  # time [ms], t (s)
-    + r"|\s*/\s*(?P<u2>\S+)"                                 # time / s
-    + r"|\s+in\s+(?P<u3>\S+)"                                # Zeit in ms
-    + r"|[_\-\s]\s*(?P<u4>[a-z]+))?"                        # t_us, time-ms, time s
+    + r"|\s*/\s*(?P<u2>\S+)"  # time / s
+    + r"|\s+in\s+(?P<u3>\S+)"  # Zeit in ms
+    + r"|[_\-\s]\s*(?P<u4>[a-z]+))?"  # t_us, time-ms, time s
 )
 _TIME_UNITS = {
-    "s": 1.0, "sec": 1.0, "secs": 1.0, "second": 1.0, "seconds": 1.0,
-    "ms": 1e-3, "msec": 1e-3, "millisecond": 1e-3, "milliseconds": 1e-3,
-    "us": 1e-6, "usec": 1e-6, "microsecond": 1e-6, "microseconds": 1e-6,
-    "ns": 1e-9, "nsec": 1e-9, "nanosecond": 1e-9, "nanoseconds": 1e-9,
+    "s": 1.0,
+    "sec": 1.0,
+    "secs": 1.0,
+    "second": 1.0,
+    "seconds": 1.0,
+    "ms": 1e-3,
+    "msec": 1e-3,
+    "millisecond": 1e-3,
+    "milliseconds": 1e-3,
+    "us": 1e-6,
+    "usec": 1e-6,
+    "microsecond": 1e-6,
+    "microseconds": 1e-6,
+    "ns": 1e-9,
+    "nsec": 1e-9,
+    "nanosecond": 1e-9,
+    "nanoseconds": 1e-9,
 }
-_INDEX_NAMES = {"index", "idx", "sample", "samples", "sample index", "sample no", "n", "i", "no",
-                "no.", "nr", "nr.", "#", "point", "points", "pt", "row"}
+_INDEX_NAMES = {
+    "index",
+    "idx",
+    "sample",
+    "samples",
+    "sample index",
+    "sample no",
+    "n",
+    "i",
+    "no",
+    "no.",
+    "nr",
+    "nr.",
+    "#",
+    "point",
+    "points",
+    "pt",
+    "row",
+}
 _DECIMALS = re.compile(r"[+-]?\d*(?:[.,](\d*))?(?:[eE]([+-]?\d+))?")
 
 
@@ -202,7 +231,8 @@ def read_recording(
     if size > limit:
         raise InputError(
             f"{name!r} is {_fmt_bytes(size)}, more than the {_fmt_bytes(limit)} allowed "
-            f"({_limit_origin(max_bytes)}); split the file or pass a larger max_bytes")
+            f"({_limit_origin(max_bytes)}); split the file or pass a larger max_bytes"
+        )
 
     with _open(name) as fh:
         head = fh.read(4096)
@@ -217,14 +247,17 @@ def read_recording(
     if magic is not None or not is_text_name:
         info, reason = _sound_info(name)
         if info is not None:
-            return _read_sound(name, info, channel=channel, column=column,
-                               sample_rate=sample_rate, limit=limit, max_bytes=max_bytes)
+            return _read_sound(
+                name, info, channel=channel, column=column, sample_rate=sample_rate, limit=limit, max_bytes=max_bytes
+            )
         if magic is not None:
             raise InputError(
                 f"{name!r} starts like a {magic} file but cannot be read: header truncated or "
-                f"corrupt ({reason}); export or copy the recording again")
-    return _read_text(name, size, channel=channel, column=column, sample_rate=sample_rate,
-                      limit=limit, max_bytes=max_bytes)
+                f"corrupt ({reason}); export or copy the recording again"
+            )
+    return _read_text(
+        name, size, channel=channel, column=column, sample_rate=sample_rate, limit=limit, max_bytes=max_bytes
+    )
 
 
 #: The name that means standard input.
@@ -243,8 +276,10 @@ def _read_stdin(*, channel, column, sample_rate, max_bytes) -> Recording:
     except (OSError, ValueError, AttributeError) as exc:
         raise InputError(f"cannot read standard input ('-'): {exc}") from exc
     if len(data) > limit:
-        raise InputError(f"standard input ('-') holds more than the {_fmt_bytes(limit)} allowed "
-                         f"({_limit_origin(max_bytes)}); give the recording as a file")
+        raise InputError(
+            f"standard input ('-') holds more than the {_fmt_bytes(limit)} allowed "
+            f"({_limit_origin(max_bytes)}); give the recording as a file"
+        )
     if not data:
         raise InputError("standard input ('-') is empty; pipe a recording into it (ringdown analyze - < tap.wav)")
     suffix = "" if data[:4] in _AUDIO_MAGIC else ".csv"
@@ -254,13 +289,19 @@ def _read_stdin(*, channel, column, sample_rate, max_bytes) -> Recording:
         with open(tmp_name, "wb") as fh:
             fh.write(data)
         try:
-            rec = read_recording(tmp_name, channel=channel, column=column, sample_rate=sample_rate,
-                                 max_bytes=max_bytes)
+            rec = read_recording(tmp_name, channel=channel, column=column, sample_rate=sample_rate, max_bytes=max_bytes)
         except (InputError, ParameterError) as exc:
             raise type(exc)(str(exc).replace(repr(tmp_name), "'-' (standard input)")) from None
-    return Recording(samples=rec.samples, sample_rate=rec.sample_rate, channel=rec.channel, path=STDIN,
-                     sha256=rec.sha256, full_scale=rec.full_scale, timing_jitter=rec.timing_jitter,
-                     n_channels=rec.n_channels)
+    return Recording(
+        samples=rec.samples,
+        sample_rate=rec.sample_rate,
+        channel=rec.channel,
+        path=STDIN,
+        sha256=rec.sha256,
+        full_scale=rec.full_scale,
+        timing_jitter=rec.timing_jitter,
+        n_channels=rec.n_channels,
+    )
 
 
 # --------------------------------------------------------------------------------------------
@@ -272,8 +313,7 @@ def _check_rate(sample_rate: object, name: str) -> float:
         value = float(sample_rate)
         if math.isfinite(value) and value > 0:
             return value
-    raise ParameterError(
-        f"sample rate for {name!r} must be a finite number > 0 Hz; got {sample_rate!r}")
+    raise ParameterError(f"sample rate for {name!r} must be a finite number > 0 Hz; got {sample_rate!r}")
 
 
 def _check_max_bytes(max_bytes: object, name: str) -> int:
@@ -281,8 +321,7 @@ def _check_max_bytes(max_bytes: object, name: str) -> int:
         return _default_max_bytes()
     if isinstance(max_bytes, (int, np.integer)) and not isinstance(max_bytes, bool) and max_bytes > 0:
         return int(max_bytes)
-    raise ParameterError(
-        f"max_bytes for {name!r} must be a whole number of bytes > 0; got {max_bytes!r}")
+    raise ParameterError(f"max_bytes for {name!r} must be a whole number of bytes > 0; got {max_bytes!r}")
 
 
 def _default_max_bytes() -> int:
@@ -326,8 +365,10 @@ def _kind(mode: int) -> str | None:
 def _not_regular(name: str, kind: str) -> InputError:
     if kind == "a directory":
         return InputError(f"{name!r} is a directory, not a recording; give a file")
-    return InputError(f"{name!r} is {kind}, not a regular file; ringdown reads recordings from regular files only "
-                      "(copy the data to a file first)")
+    return InputError(
+        f"{name!r} is {kind}, not a regular file; ringdown reads recordings from regular files only "
+        "(copy the data to a file first)"
+    )
 
 
 def _stat_size(name: str) -> int:
@@ -411,7 +452,8 @@ def _check_length(n: int, name: str) -> None:
     if n < MIN_SAMPLES:
         raise InputError(
             f"{name!r} has {n} sample{'s' if n != 1 else ''}; at least {MIN_SAMPLES} are needed; "
-            "record a longer ring-down")
+            "record a longer ring-down"
+        )
 
 
 def _one_line(text: object) -> str:
@@ -421,8 +463,7 @@ def _one_line(text: object) -> str:
 def _selection(channel: object, column: object, name: str) -> object:
     """channel and column are the same choice under two names; return the one given."""
     if channel is not None and column is not None and str(channel).strip() != str(column).strip():
-        raise ParameterError(
-            f"both channel={channel!r} and column={column!r} given for {name!r}; give one")
+        raise ParameterError(f"both channel={channel!r} and column={column!r} given for {name!r}; give one")
     return channel if channel is not None else column
 
 
@@ -459,30 +500,33 @@ def _read_sound(name, info, *, channel, column, sample_rate, limit, max_bytes) -
     else:
         parsed = _parse_index(choice)
         if parsed is None:
-            raise ParameterError(
-                f"channel {choice!r} of {name!r} is not a channel number; give 1 to {n_channels}")
+            raise ParameterError(f"channel {choice!r} of {name!r} is not a channel number; give 1 to {n_channels}")
         index = parsed
         if not 1 <= index <= n_channels:
             raise ParameterError(
                 f"channel {index} is out of range: {name!r} has {n_channels} "
-                f"channel{'s' if n_channels != 1 else ''}; pick 1 to {n_channels}")
+                f"channel{'s' if n_channels != 1 else ''}; pick 1 to {n_channels}"
+            )
     if sample_rate is not None and not math.isclose(sample_rate, rate, rel_tol=_RATE_RTOL):
         raise ParameterError(
             f"sample rate {sample_rate:g} Hz given, but {name!r} states {rate:g} Hz; "
-            "drop the sample rate option (the file's own rate is used)")
+            "drop the sample rate option (the file's own rate is used)"
+        )
     need = frames * n_channels * 8
     if need > limit:
         raise InputError(
             f"{name!r} decodes to {frames} frames x {n_channels} channels = {_fmt_bytes(need)}, "
             f"more than the {_fmt_bytes(limit)} allowed ({_limit_origin(max_bytes)}); "
-            "cut the recording or pass a larger max_bytes")
+            "cut the recording or pass a larger max_bytes"
+        )
     _check_length(frames, name)
     try:
         data, _ = sf.read(name, dtype="float64", always_2d=True)
     except Exception as exc:
         raise InputError(
             f"cannot decode {name!r} ({info.format}/{info.subtype}): {_one_line(exc)}; "
-            "export or copy the recording again") from exc
+            "export or copy the recording again"
+        ) from exc
     if data.ndim != 2 or data.shape[1] < index:
         raise InputError(f"{name!r} decoded to an unexpected shape {data.shape}")
     samples = np.ascontiguousarray(data[:, index - 1])
@@ -491,9 +535,17 @@ def _read_sound(name, info, *, channel, column, sample_rate, limit, max_bytes) -
     notes: tuple[tuple[str, str], ...] = ()
     if str(info.format).upper().startswith("WAV"):
         notes = _wav_truncation(name, samples.shape[0])
-    return Recording(samples=samples, sample_rate=rate, channel=str(index), path=name,
-                     sha256=sha256_file(name), full_scale=_full_scale(str(info.subtype)),
-                     timing_jitter=None, n_channels=n_channels, notes=notes)
+    return Recording(
+        samples=samples,
+        sample_rate=rate,
+        channel=str(index),
+        path=name,
+        sha256=sha256_file(name),
+        full_scale=_full_scale(str(info.subtype)),
+        timing_jitter=None,
+        n_channels=n_channels,
+        notes=notes,
+    )
 
 
 def _wav_truncation(name: str, frames_read: int) -> tuple[tuple[str, str], ...]:
@@ -509,17 +561,22 @@ def _wav_truncation(name: str, frames_read: int) -> tuple[tuple[str, str], ...]:
         return ()
     pos, block = 12, None
     while pos + 8 <= len(head):
-        cid, csize = head[pos:pos + 4], struct.unpack("<I", head[pos + 4:pos + 8])[0]
+        cid, csize = head[pos : pos + 4], struct.unpack("<I", head[pos + 4 : pos + 8])[0]
         if cid == b"fmt " and pos + 22 <= len(head):
-            block = struct.unpack("<H", head[pos + 20:pos + 22])[0]
+            block = struct.unpack("<H", head[pos + 20 : pos + 22])[0]
         if cid == b"data":
             held = size - (pos + 8)
             if csize in (0, 0xFFFFFFFF) or csize <= held or not block:
                 return ()
             claimed = csize // block
-            return (("truncated", f"{name!r} is truncated: its header states {claimed} frames but the file "
-                                  f"holds {held // block}; {frames_read} frames were analysed (copy or export "
-                                  "the recording again)"),)
+            return (
+                (
+                    "truncated",
+                    f"{name!r} is truncated: its header states {claimed} frames but the file "
+                    f"holds {held // block}; {frames_read} frames were analysed (copy or export "
+                    "the recording again)",
+                ),
+            )
         pos += 8 + csize + (csize & 1)
     return ()
 
@@ -543,11 +600,11 @@ class _Layout:
     """What sniffing the text found out."""
 
     delimiter: str | None  # None = runs of whitespace
-    n_fields: int          # fields per row, including a trailing empty one
-    n_columns: int         # columns of numbers
+    n_fields: int  # fields per row, including a trailing empty one
+    n_columns: int  # columns of numbers
     decimal_comma: bool
     names: list[str] | None
-    data_start: int        # character offset of the first data line
+    data_start: int  # character offset of the first data line
 
 
 def _decode(raw: bytes, name: str) -> str:
@@ -566,13 +623,13 @@ def _decode(raw: bytes, name: str) -> str:
                 continue
     if text is not None:
         sample = text[:65536]
-        control = sum(1 for ch in sample
-                      if (ord(ch) < 32 and ch not in "\t\n\r\f\v") or 0x7F <= ord(ch) < 0xA0)
+        control = sum(1 for ch in sample if (ord(ch) < 32 and ch not in "\t\n\r\f\v") or 0x7F <= ord(ch) < 0xA0)
         if control <= 0.01 * len(sample):
             return text
     raise InputError(
         f"{name!r} is neither a sound file soundfile can read nor text (it holds binary data); "
-        "give a WAV/FLAC/OGG file or delimited text such as 'time,signal'")
+        "give a WAV/FLAC/OGG file or delimited text such as 'time,signal'"
+    )
 
 
 def _is_comment(line: str) -> bool:
@@ -684,7 +741,7 @@ def _sniff(text: str, name: str) -> _Layout:
             last_comment = line.lstrip()
             for marker in _COMMENT_MARKERS:
                 if last_comment.startswith(marker):
-                    last_comment = last_comment[len(marker):]
+                    last_comment = last_comment[len(marker) :]
                     break
         pos = end + 1
     if data_start is None:
@@ -692,10 +749,12 @@ def _sniff(text: str, name: str) -> _Layout:
             shown = first_text_line if len(first_text_line) <= 40 else first_text_line[:37] + "..."
             raise InputError(
                 f"{name!r} holds text but no rows of numbers (first line: {shown!r}); "
-                "expected columns of numbers such as 'time,signal'")
+                "expected columns of numbers such as 'time,signal'"
+            )
         raise InputError(
             f"{name!r} holds no columns of data (only blank lines, comments or delimiters); "
-            "expected columns of numbers such as 'time,signal'")
+            "expected columns of numbers such as 'time,signal'"
+        )
 
     header = headers[-1] if headers else None
     candidates = []
@@ -714,8 +773,7 @@ def _sniff(text: str, name: str) -> _Layout:
     multi = [c for c in candidates if c[1] >= 2] or candidates
 
     def n_cols(delim, count):
-        trailing = delim is not None and count >= 2 and all(
-            not _split(s, delim)[-1] for s in sample)
+        trailing = delim is not None and count >= 2 and all(not _split(s, delim)[-1] for s in sample)
         return count - 1 if trailing else count
 
     chosen = multi[0]
@@ -734,14 +792,20 @@ def _sniff(text: str, name: str) -> _Layout:
         from_comment = _header_names(last_comment, delim, n_columns)
         if from_comment and not all(_is_number(f) for f in from_comment if f):
             names = from_comment
-    return _Layout(delimiter=delim, n_fields=count, n_columns=n_columns,
-                   decimal_comma=decimal_comma, names=names, data_start=data_start)
+    return _Layout(
+        delimiter=delim,
+        n_fields=count,
+        n_columns=n_columns,
+        decimal_comma=decimal_comma,
+        names=names,
+        data_start=data_start,
+    )
 
 
 def _data_rows(text: str, layout: _Layout):
     """(file line number, line) of every data row, in order (only used to word errors)."""
     first_line = text.count("\n", 0, layout.data_start) + 1
-    for k, line in enumerate(text[layout.data_start:].split("\n")):
+    for k, line in enumerate(text[layout.data_start :].split("\n")):
         if line.strip() and not _is_comment(line):
             yield first_line + k, line
 
@@ -756,31 +820,32 @@ def _diagnose(text: str, layout: _Layout, name: str, exc: Exception) -> InputErr
     """Find the first row numpy could not parse and say what is wrong with it."""
     for lineno, line in _data_rows(text, layout):
         if _is_data_line(line) is None and layout.delimiter is not None:
-            return InputError(
-                f"{name!r} line {lineno} is blank (only delimiters); fill or remove the row")
+            return InputError(f"{name!r} line {lineno} is blank (only delimiters); fill or remove the row")
         fields = _split(line, layout.delimiter)
         if len(fields) != layout.n_fields:
             return InputError(
                 f"{name!r} line {lineno} has {len(fields)} fields but the rows above have "
-                f"{layout.n_fields}; fix or remove that row")
+                f"{layout.n_fields}; fix or remove that row"
+            )
         for j, field in enumerate(fields[: layout.n_columns]):
             token = field.strip().strip('"')
             if layout.decimal_comma:
                 token = token.replace(",", ".")
             if not token:
                 return InputError(
-                    f"{name!r} line {lineno}, {_column_label(j, layout)} is blank; "
-                    "fill the cell or remove the row")
+                    f"{name!r} line {lineno}, {_column_label(j, layout)} is blank; fill the cell or remove the row"
+                )
             if not _is_number(token, decimal_comma=False):
                 shown = token if len(token) <= 20 else token[:17] + "..."
                 return InputError(
                     f"{name!r} line {lineno}, {_column_label(j, layout)}: {shown!r} is not a "
-                    "number; fix the cell or remove the row")
+                    "number; fix the cell or remove the row"
+                )
     return InputError(f"cannot read the numbers in {name!r}: {_one_line(exc)}")
 
 
 def _parse_numbers(text: str, layout: _Layout, name: str) -> np.ndarray:
-    body = text[layout.data_start:]
+    body = text[layout.data_start :]
     if layout.decimal_comma:
         body = body.replace(",", ".")
     quotechar = '"' if '"' in body else None
@@ -793,8 +858,15 @@ def _parse_numbers(text: str, layout: _Layout, name: str) -> np.ndarray:
         source = _stdio.StringIO(body)
     usecols = range(layout.n_columns) if layout.n_columns != layout.n_fields else None
     try:
-        arr = np.loadtxt(source, dtype=np.float64, delimiter=layout.delimiter, comments=None,
-                         quotechar=quotechar, ndmin=2, usecols=usecols)
+        arr = np.loadtxt(
+            source,
+            dtype=np.float64,
+            delimiter=layout.delimiter,
+            comments=None,
+            quotechar=quotechar,
+            ndmin=2,
+            usecols=usecols,
+        )
     except (ValueError, TypeError, IndexError) as exc:
         raise _diagnose(text, layout, name, exc) from exc
     if arr.ndim != 2 or arr.shape[1] != layout.n_columns:
@@ -806,7 +878,8 @@ def _parse_numbers(text: str, layout: _Layout, name: str) -> np.ndarray:
         value = "NaN" if math.isnan(arr[row, col]) else "an infinite value"
         raise InputError(
             f"{name!r} line {lineno}, {_column_label(col, layout)} holds {value}; "
-            "fill the cell with a number or remove the row")
+            "fill the cell with a number or remove the row"
+        )
     return arr
 
 
@@ -855,7 +928,7 @@ def _find_time(arr: np.ndarray, layout: _Layout) -> tuple[int | None, float]:
 
 def _printed_step(text: str, layout: _Layout, col: int) -> float | None:
     """Resolution (file units) of the time column as printed in the last rows, or None."""
-    tail = text[layout.data_start:].rsplit("\n", 60)[-60:]
+    tail = text[layout.data_start :].rsplit("\n", 60)[-60:]
     decimals = None
     for line in tail:
         if not line.strip() or _is_comment(line):
@@ -890,7 +963,8 @@ def _time_axis(arr, j, scale, text, layout, name) -> tuple[float, float]:
         lineno = _nth_row_line(text, layout, i + 1)
         raise InputError(
             f"{label} of {name!r} does not increase at line {lineno} ({t[i]:g} then "
-            f"{t[i + 1]:g}); sort the rows or remove repeated times")
+            f"{t[i + 1]:g}); sort the rows or remove repeated times"
+        )
     n = t.shape[0]
     mean = (t[-1] - t[0]) / (n - 1)
     dev = steps - mean
@@ -903,14 +977,14 @@ def _time_axis(arr, j, scale, text, layout, name) -> tuple[float, float]:
                 f"time steps in {name!r} vary by {100 * jitter:.2g} % RMS (largest step "
                 f"{_fmt_time(steps.max() * scale)}, smallest {_fmt_time(steps.min() * scale)}, "
                 f"mean {_fmt_time(mean * scale)}; at most {100 * MAX_TIMING_JITTER:g} % is "
-                "accepted); resample to a uniform step")
+                "accepted); resample to a uniform step"
+            )
     return 1.0 / (mean * scale), jitter
 
 
 def _pick_column(choice, data_cols: list[int], time_col, layout, arr, name) -> int:
     names = layout.names
-    listing = ", ".join(repr(names[j]) if names and names[j] else f"column {k + 1}"
-                        for k, j in enumerate(data_cols))
+    listing = ", ".join(repr(names[j]) if names and names[j] else f"column {k + 1}" for k, j in enumerate(data_cols))
     if choice is None:
         for j in data_cols:
             if names and _is_index_name(names[j]):
@@ -925,24 +999,22 @@ def _pick_column(choice, data_cols: list[int], time_col, layout, arr, name) -> i
             extra = " (not counting the time column)" if time_col is not None else ""
             raise ParameterError(
                 f"column {index} is out of range: {name!r} has {len(data_cols)} data "
-                f"column{'s' if len(data_cols) != 1 else ''}{extra}; pick 1 to {len(data_cols)}")
+                f"column{'s' if len(data_cols) != 1 else ''}{extra}; pick 1 to {len(data_cols)}"
+            )
         return data_cols[index - 1]
     if not isinstance(choice, str):
         raise ParameterError(f"column must be a 1-based number or a header name; got {choice!r}")
     want = choice.strip().lower()
     if names:
         if time_col is not None and names[time_col].strip().lower() == want:
-            raise ParameterError(
-                f"{choice!r} is the time column of {name!r}; pick a data column: {listing}")
+            raise ParameterError(f"{choice!r} is the time column of {name!r}; pick a data column: {listing}")
         exact = [j for j in data_cols if names[j].strip().lower() == want]
         if exact:
             return exact[0]
-        loose = [j for j in data_cols
-                 if re.split(r"\s*[\[\(\{<]", names[j].strip().lower(), maxsplit=1)[0] == want]
+        loose = [j for j in data_cols if re.split(r"\s*[\[\(\{<]", names[j].strip().lower(), maxsplit=1)[0] == want]
         if len(loose) == 1:
             return loose[0]
-    raise ParameterError(
-        f"no column named {choice!r} in {name!r}; its data columns are {listing}")
+    raise ParameterError(f"no column named {choice!r} in {name!r}; its data columns are {listing}")
 
 
 def _read_text(name, size, *, channel, column, sample_rate, limit, max_bytes) -> Recording:
@@ -951,7 +1023,8 @@ def _read_text(name, size, *, channel, column, sample_rate, limit, max_bytes) ->
         raise InputError(
             f"{name!r} is {_fmt_bytes(size)} of text; parsing it needs about {_fmt_bytes(need)}, "
             f"more than the {_fmt_bytes(limit)} allowed ({_limit_origin(max_bytes)}); "
-            "split the file or pass a larger max_bytes")
+            "split the file or pass a larger max_bytes"
+        )
     with _open(name) as fh:
         raw = fh.read()
     digest = hashlib.sha256(raw).hexdigest()
@@ -966,8 +1039,7 @@ def _read_text(name, size, *, channel, column, sample_rate, limit, max_bytes) ->
     time_col, scale = _find_time(arr, layout)
     data_cols = [j for j in range(arr.shape[1]) if j != time_col]
     if not data_cols:
-        raise InputError(
-            f"{name!r} has only a time column and no data column; add the signal column")
+        raise InputError(f"{name!r} has only a time column and no data column; add the signal column")
     j = _pick_column(choice, data_cols, time_col, layout, arr, name)
     n = arr.shape[0]
     _check_length(n, name)
@@ -979,11 +1051,13 @@ def _read_text(name, size, *, channel, column, sample_rate, limit, max_bytes) ->
             raise ParameterError(
                 f"sample rate {sample_rate:g} Hz given, but the time column of {name!r} implies "
                 f"{rate:.6g} Hz (step {_fmt_time(1.0 / rate)}); drop the sample rate option or "
-                "fix the time column")
+                "fix the time column"
+            )
     elif sample_rate is None:
         raise InputError(
             f"{name!r} has no time column; pass the sample rate in Hz (--sample-rate, or "
-            "sample_rate=) or add a first column named 'time [s]'")
+            "sample_rate=) or add a first column named 'time [s]'"
+        )
     else:
         rate = sample_rate
 
@@ -993,5 +1067,13 @@ def _read_text(name, size, *, channel, column, sample_rate, limit, max_bytes) ->
         label = f"column {data_cols.index(j) + 1}"
     samples = np.ascontiguousarray(arr[:, j])
     del arr
-    return Recording(samples=samples, sample_rate=rate, channel=label, path=name, sha256=digest,
-                     full_scale=None, timing_jitter=jitter, n_channels=len(data_cols))
+    return Recording(
+        samples=samples,
+        sample_rate=rate,
+        channel=label,
+        path=name,
+        sha256=digest,
+        full_scale=None,
+        timing_jitter=jitter,
+        n_channels=len(data_cols),
+    )

@@ -59,8 +59,11 @@ class Recording:
         where = f" in {self.path!r}" if self.path else ""
         if x.ndim != 1:
             raise InputError(f"samples{where} must be one channel (1-D); got shape {x.shape}")
-        if not (isinstance(self.sample_rate, (int, float, np.number)) and math.isfinite(self.sample_rate)
-                and self.sample_rate > 0):
+        if not (
+            isinstance(self.sample_rate, (int, float, np.number))
+            and math.isfinite(self.sample_rate)
+            and self.sample_rate > 0
+        ):
             raise ParameterError(f"sample rate{where} must be a finite number > 0 Hz; got {self.sample_rate!r}")
         if not np.all(np.isfinite(x)):
             bad = int(np.count_nonzero(~np.isfinite(x)))

@@ -125,6 +125,7 @@ _MAX_ITER = 100
 # specimens
 # --------------------------------------------------------------------------------------------
 
+
 def _check_positive(name: str, value: float) -> float:
     try:
         v = float(value)
@@ -227,6 +228,7 @@ class CylindricalRod(_Specimen):
 # the standard's relations (pure functions, SI)
 # --------------------------------------------------------------------------------------------
 
+
 def t1_bar(poisson: float, t_over_l: float) -> float:
     """ASTM E1876 flexural correction factor T1 of a rectangular bar (shear and rotary inertia).
 
@@ -238,17 +240,23 @@ def t1_bar(poisson: float, t_over_l: float) -> float:
         Thickness over length.
     """
     mu, r2 = poisson, t_over_l**2
-    return (1.0 + 6.585 * (1.0 + 0.0752 * mu + 0.8109 * mu**2) * r2 - 0.868 * r2**2
-            - 8.340 * (1.0 + 0.2023 * mu + 2.173 * mu**2) * r2**2
-            / (1.0 + 6.338 * (1.0 + 0.1408 * mu + 1.536 * mu**2) * r2))
+    return (
+        1.0
+        + 6.585 * (1.0 + 0.0752 * mu + 0.8109 * mu**2) * r2
+        - 0.868 * r2**2
+        - 8.340 * (1.0 + 0.2023 * mu + 2.173 * mu**2) * r2**2 / (1.0 + 6.338 * (1.0 + 0.1408 * mu + 1.536 * mu**2) * r2)
+    )
 
 
 def t1_rod(poisson: float, d_over_l: float) -> float:
     """ASTM E1876 flexural correction factor T1' of a cylindrical rod."""
     mu, r2 = poisson, d_over_l**2
-    return (1.0 + 4.939 * (1.0 + 0.0752 * mu + 0.8109 * mu**2) * r2 - 0.4883 * r2**2
-            - 4.691 * (1.0 + 0.2023 * mu + 2.173 * mu**2) * r2**2
-            / (1.0 + 4.754 * (1.0 + 0.1408 * mu + 1.536 * mu**2) * r2))
+    return (
+        1.0
+        + 4.939 * (1.0 + 0.0752 * mu + 0.8109 * mu**2) * r2
+        - 0.4883 * r2**2
+        - 4.691 * (1.0 + 0.2023 * mu + 2.173 * mu**2) * r2**2 / (1.0 + 4.754 * (1.0 + 0.1408 * mu + 1.536 * mu**2) * r2)
+    )
 
 
 def r_bar(width_m: float, thickness_m: float, length_m: float) -> float:
@@ -327,6 +335,7 @@ def _solve(spec, x: dict, guess: float) -> dict:
 # results
 # --------------------------------------------------------------------------------------------
 
+
 @dataclass(frozen=True, slots=True)
 class ModeUsed:
     """One measured mode the moduli were computed from.
@@ -361,10 +370,19 @@ class ModeUsed:
     predicted_high_hz: float | None = None
 
     def to_dict(self) -> dict:
-        return {"role": self.role, "f_hz": self.f_hz, "f_hz_u": self.f_hz_u, "loss_factor": self.loss_factor,
-                "loss_factor_u": self.loss_factor_u, "source": self.source, "mode_index": self.mode_index,
-                "rule": self.rule, "predicted_hz": self.predicted_hz, "predicted_low_hz": self.predicted_low_hz,
-                "predicted_high_hz": self.predicted_high_hz}
+        return {
+            "role": self.role,
+            "f_hz": self.f_hz,
+            "f_hz_u": self.f_hz_u,
+            "loss_factor": self.loss_factor,
+            "loss_factor_u": self.loss_factor_u,
+            "source": self.source,
+            "mode_index": self.mode_index,
+            "rule": self.rule,
+            "predicted_hz": self.predicted_hz,
+            "predicted_low_hz": self.predicted_low_hz,
+            "predicted_high_hz": self.predicted_high_hz,
+        }
 
 
 @dataclass(frozen=True, slots=True)
@@ -384,9 +402,15 @@ class BudgetTerm:
     share: float
 
     def to_dict(self) -> dict:
-        return {"quantity": self.quantity, "input": self.input, "input_value": self.input_value,
-                "input_u": self.input_u, "sensitivity": self.sensitivity, "contribution": self.contribution,
-                "share": self.share}
+        return {
+            "quantity": self.quantity,
+            "input": self.input,
+            "input_value": self.input_value,
+            "input_u": self.input_u,
+            "sensitivity": self.sensitivity,
+            "contribution": self.contribution,
+            "share": self.share,
+        }
 
 
 _QUANTITIES = ("e_pa", "g_pa", "poisson", "density_kg_per_m3")
@@ -458,11 +482,18 @@ class ModuliResult:
         return {
             "shape": self.shape,
             "specimen": dict(self.specimen),
-            "e_pa": self.e_pa, "e_pa_u": self.e_pa_u,
-            "g_pa": self.g_pa, "g_pa_u": self.g_pa_u,
-            "poisson": self.poisson, "poisson_u": self.poisson_u, "poisson_source": self.poisson_source,
-            "density_kg_per_m3": self.density_kg_per_m3, "density_kg_per_m3_u": self.density_kg_per_m3_u,
-            "t1": self.t1, "r_factor": self.r_factor, "iterations": self.iterations,
+            "e_pa": self.e_pa,
+            "e_pa_u": self.e_pa_u,
+            "g_pa": self.g_pa,
+            "g_pa_u": self.g_pa_u,
+            "poisson": self.poisson,
+            "poisson_u": self.poisson_u,
+            "poisson_source": self.poisson_source,
+            "density_kg_per_m3": self.density_kg_per_m3,
+            "density_kg_per_m3_u": self.density_kg_per_m3_u,
+            "t1": self.t1,
+            "r_factor": self.r_factor,
+            "iterations": self.iterations,
             "flexural": self.flexural.to_dict(),
             "torsional": None if self.torsional is None else self.torsional.to_dict(),
             "predictions": [dict(p) for p in self.predictions],
@@ -477,6 +508,7 @@ class ModuliResult:
 # inputs: frequencies, modes, analyses, files
 # --------------------------------------------------------------------------------------------
 
+
 @dataclass(frozen=True, slots=True)
 class _Candidate:
     f_hz: float
@@ -487,7 +519,9 @@ class _Candidate:
     mode_index: int | None
 
 
-def _candidates(value, role: str, u_given: float | None, options: dict) -> tuple[list[_Candidate], bool, Analysis | None]:
+def _candidates(
+    value, role: str, u_given: float | None, options: dict
+) -> tuple[list[_Candidate], bool, Analysis | None]:
     """The candidate modes of one input, whether they were given explicitly, and the analysis."""
     if isinstance(value, (str, os.PathLike)):
         from ..analysis.pipeline import analyze_file
@@ -497,11 +531,21 @@ def _candidates(value, role: str, u_given: float | None, options: dict) -> tuple
         name = value.path or "<array>"
         if value.error is not None:
             raise InputError(f"{role} recording '{name}' could not be analysed: {value.error.message}")
-        cands = [_Candidate(m.f_n_hz, m.f_n_hz_u if m.f_n_hz_u is not None else 0.0, m.loss_factor, m.loss_factor_u,
-                            value.path, m.index) for m in value.modes]
+        cands = [
+            _Candidate(
+                m.f_n_hz,
+                m.f_n_hz_u if m.f_n_hz_u is not None else 0.0,
+                m.loss_factor,
+                m.loss_factor_u,
+                value.path,
+                m.index,
+            )
+            for m in value.modes
+        ]
         if not cands:
-            raise InputError(f"{role} recording '{name}' holds no mode above its noise; tap it again or "
-                             "give the frequency by hand")
+            raise InputError(
+                f"{role} recording '{name}' holds no mode above its noise; tap it again or give the frequency by hand"
+            )
         return cands, False, value
     if isinstance(value, Mode):
         u_f = value.f_n_hz_u if value.f_n_hz_u is not None else 0.0
@@ -536,15 +580,23 @@ def _users_choice(cands: list[_Candidate], given: bool, index: int | None, role:
 # predictions
 # --------------------------------------------------------------------------------------------
 
+
 def _predictions(spec, x: dict, f_flex: float, mu_guess: float, rel_u: float) -> dict[str, dict]:
     """Windows where the other modes must lie, from the flexural frequency (Hz)."""
     lo_mu, hi_mu = POISSON_RANGE
     margin = 3.0 * rel_u  # k = 3 of the flexural frequency's relative uncertainty
     out: dict[str, dict] = {}
     # first torsional: G = E(mu) / (2 (1 + mu)) for mu across the isotropic range
-    ft = {mu: _f_torsion(spec, x, _e_of(spec, x, f_flex, mu)[0] / (2.0 * (1.0 + mu))) for mu in (lo_mu, hi_mu, mu_guess)}
-    out["torsional_1"] = {"mode": "torsional_1", "f_hz": ft[mu_guess], "low_hz": min(ft[lo_mu], ft[hi_mu]) * (1 - margin),
-                          "high_hz": max(ft[lo_mu], ft[hi_mu]) * (1 + margin), "found_hz": None}
+    ft = {
+        mu: _f_torsion(spec, x, _e_of(spec, x, f_flex, mu)[0] / (2.0 * (1.0 + mu))) for mu in (lo_mu, hi_mu, mu_guess)
+    }
+    out["torsional_1"] = {
+        "mode": "torsional_1",
+        "f_hz": ft[mu_guess],
+        "low_hz": min(ft[lo_mu], ft[hi_mu]) * (1 - margin),
+        "high_hz": max(ft[lo_mu], ft[hi_mu]) * (1 + margin),
+        "found_hz": None,
+    }
     # second flexural: below Euler-Bernoulli (ratio (lambda2/lambda1)^2); T1 at the mode's wavelength
     L = x["length_m"]
     h = x["thickness_m"] if spec.shape == "bar" else x["diameter_m"]
@@ -553,15 +605,25 @@ def _predictions(spec, x: dict, f_flex: float, mu_guess: float, rel_u: float) ->
     f_eb2 = f_flex * ratio * math.sqrt(t1(hi_mu, h / L))
     f_est = f_flex * ratio * math.sqrt(t1(mu_guess, h / L) / t1(mu_guess, (LAMBDA_2 / LAMBDA_1) * h / L))
     low = f_est * (f_est / f_eb2)
-    out["flexural_2"] = {"mode": "flexural_2", "f_hz": f_est, "low_hz": low * (1 - margin), "high_hz": f_eb2 * (1 + margin),
-                         "found_hz": None}
+    out["flexural_2"] = {
+        "mode": "flexural_2",
+        "f_hz": f_est,
+        "low_hz": low * (1 - margin),
+        "high_hz": f_eb2 * (1 + margin),
+        "found_hz": None,
+    }
     if spec.shape == "bar":
         b, t = x["width_m"], x["thickness_m"]
         f_ip = f_flex * (b / t) * math.sqrt(t1(mu_guess, t / L) / t1(mu_guess, b / L))
         f_ip_eb = f_flex * (b / t) * math.sqrt(t1(hi_mu, t / L))
         lo_ip = f_ip * (f_ip / f_ip_eb)
-        out["flexural_in_plane_1"] = {"mode": "flexural_in_plane_1", "f_hz": f_ip, "low_hz": min(lo_ip, f_ip_eb) * (1 - margin),
-                                      "high_hz": max(lo_ip, f_ip_eb) * (1 + margin), "found_hz": None}
+        out["flexural_in_plane_1"] = {
+            "mode": "flexural_in_plane_1",
+            "f_hz": f_ip,
+            "low_hz": min(lo_ip, f_ip_eb) * (1 - margin),
+            "high_hz": max(lo_ip, f_ip_eb) * (1 + margin),
+            "found_hz": None,
+        }
     return out
 
 
@@ -572,6 +634,7 @@ def _inside(f: float, w: dict) -> bool:
 # --------------------------------------------------------------------------------------------
 # uncertainty propagation
 # --------------------------------------------------------------------------------------------
+
 
 def _propagate(fun: Callable[[dict], dict], x: dict, u: dict) -> tuple[dict, dict, list[BudgetTerm]]:
     """First-order GUM propagation with a central-difference Jacobian; inputs uncorrelated."""
@@ -712,58 +775,103 @@ def moduli(
                 inside = [c for c in inside if c is not fc]
             if not inside:
                 have = ", ".join(f"{c.f_hz:.6g}" for c in t_cands)
-                warnings.append(Notice("no_torsional_mode", (
-                    f"no mode of the torsional record ({have} Hz) lies where the first torsional mode must be "
-                    f"for 0 <= Poisson's ratio <= 0.5 ({w['low_hz']:.6g}-{w['high_hz']:.6g} Hz); G not measured. "
-                    "Check the set-up (tap off the axis at a corner) or name the mode")))
+                warnings.append(
+                    Notice(
+                        "no_torsional_mode",
+                        (
+                            f"no mode of the torsional record ({have} Hz) lies where the first torsional mode must be "
+                            f"for 0 <= Poisson's ratio <= 0.5 ({w['low_hz']:.6g}-{w['high_hz']:.6g} Hz); G not measured. "
+                            "Check the set-up (tap off the axis at a corner) or name the mode"
+                        ),
+                    )
+                )
             else:
                 tc = min(inside, key=lambda c: abs(math.log(c.f_hz / w["f_hz"])))
-                t_rule = (f"window: the mode inside the window predicted for the first torsional mode from E and "
-                          f"0 <= Poisson's ratio <= 0.5 ({w['low_hz']:.6g}-{w['high_hz']:.6g} Hz)")
+                t_rule = (
+                    f"window: the mode inside the window predicted for the first torsional mode from E and "
+                    f"0 <= Poisson's ratio <= 0.5 ({w['low_hz']:.6g}-{w['high_hz']:.6g} Hz)"
+                )
                 if len(inside) > 1:
-                    warnings.append(Notice("several_torsional_candidates", (
-                        "several modes lie in the torsional window (" + ", ".join(f"{c.f_hz:.6g}" for c in inside)
-                        + f" Hz); took the one nearest the prediction at Poisson's ratio {mu_guess:g} "
-                        f"({w['f_hz']:.6g} Hz); name the mode to choose another")))
+                    warnings.append(
+                        Notice(
+                            "several_torsional_candidates",
+                            (
+                                "several modes lie in the torsional window ("
+                                + ", ".join(f"{c.f_hz:.6g}" for c in inside)
+                                + f" Hz); took the one nearest the prediction at Poisson's ratio {mu_guess:g} "
+                                f"({w['f_hz']:.6g} Hz); name the mode to choose another"
+                            ),
+                        )
+                    )
         if tc is not None:
             if not _inside(tc.f_hz, w):
-                warnings.append(Notice("torsional_outside_prediction", (
-                    f"the torsional frequency {tc.f_hz:.6g} Hz lies outside the window that 0 <= Poisson's ratio "
-                    f"<= 0.5 allows ({w['low_hz']:.6g}-{w['high_hz']:.6g} Hz): check which mode it is")))
+                warnings.append(
+                    Notice(
+                        "torsional_outside_prediction",
+                        (
+                            f"the torsional frequency {tc.f_hz:.6g} Hz lies outside the window that 0 <= Poisson's ratio "
+                            f"<= 0.5 allows ({w['low_hz']:.6g}-{w['high_hz']:.6g} Hz): check which mode it is"
+                        ),
+                    )
+                )
             w["found_hz"] = tc.f_hz
             for name in ("flexural_2", "flexural_in_plane_1"):
                 p = preds.get(name)
                 if p is not None and _inside(tc.f_hz, p):
-                    warnings.append(Notice("assignment_ambiguous", (
-                        f"the torsional mode at {tc.f_hz:.6g} Hz also lies where the {name.replace('_', ' ')} mode "
-                        f"is predicted ({p['low_hz']:.6g}-{p['high_hz']:.6g} Hz); confirm it by tapping for torsion "
-                        "and for bending separately")))
+                    warnings.append(
+                        Notice(
+                            "assignment_ambiguous",
+                            (
+                                f"the torsional mode at {tc.f_hz:.6g} Hz also lies where the {name.replace('_', ' ')} mode "
+                                f"is predicted ({p['low_hz']:.6g}-{p['high_hz']:.6g} Hz); confirm it by tapping for torsion "
+                                "and for bending separately"
+                            ),
+                        )
+                    )
             # a neighbour within the modes' half-power bandwidths cannot be told apart
             for c in t_cands:
                 if c is tc or c.loss_factor is None or tc.loss_factor is None:
                     continue
                 if abs(c.f_hz - tc.f_hz) < c.loss_factor * c.f_hz + tc.loss_factor * tc.f_hz:
-                    warnings.append(Notice("modes_close", (
-                        f"modes at {tc.f_hz:.6g} and {c.f_hz:.6g} Hz overlap within their half-power bandwidths; "
-                        "they cannot be told apart reliably")))
+                    warnings.append(
+                        Notice(
+                            "modes_close",
+                            (
+                                f"modes at {tc.f_hz:.6g} and {c.f_hz:.6g} Hz overlap within their half-power bandwidths; "
+                                "they cannot be told apart reliably"
+                            ),
+                        )
+                    )
             x["f_tors_hz"], u["f_tors_hz"] = tc.f_hz, tc.f_hz_u
 
     if tc is None and torsional is None and f_an is not None:
         w = preds["torsional_1"]
         seen = [c for c in f_cands if c is not fc and _inside(c.f_hz, w)]
         if seen:
-            warnings.append(Notice("torsional_in_flexural_record", (
-                f"the flexural record has a mode at {seen[0].f_hz:.6g} Hz inside the torsional window "
-                f"({w['low_hz']:.6g}-{w['high_hz']:.6g} Hz); give the same recording as the torsional one too "
-                "to use it for G")))
+            warnings.append(
+                Notice(
+                    "torsional_in_flexural_record",
+                    (
+                        f"the flexural record has a mode at {seen[0].f_hz:.6g} Hz inside the torsional window "
+                        f"({w['low_hz']:.6g}-{w['high_hz']:.6g} Hz); give the same recording as the torsional one too "
+                        "to use it for G"
+                    ),
+                )
+            )
     if tc is None:
         x["f_tors_hz"] = None
         if poisson is None:
             mu_src, mu_val = "assumed", poisson_guess
             mu_u = (POISSON_RANGE[1] - POISSON_RANGE[0]) / math.sqrt(12.0) if poisson_u is None else poisson_u
-            warnings.append(Notice("poisson_assumed", (
-                f"no torsional mode: Poisson's ratio assumed {mu_val:g} ± {mu_u:.2g} (uniform over 0-0.5 unless "
-                "given) for the T1 correction; G not measured")))
+            warnings.append(
+                Notice(
+                    "poisson_assumed",
+                    (
+                        f"no torsional mode: Poisson's ratio assumed {mu_val:g} ± {mu_u:.2g} (uniform over 0-0.5 unless "
+                        "given) for the T1 correction; G not measured"
+                    ),
+                )
+            )
         else:
             mu_src, mu_val = "given", float(poisson)
             mu_u = 0.0 if poisson_u is None else _check_u("uncertainty of Poisson's ratio", poisson_u)
@@ -781,41 +889,81 @@ def moduli(
     h = specimen.thickness_m if isinstance(specimen, RectangularBar) else specimen.diameter_m
     if L / h < 5.0:
         what = "L/t" if specimen.shape == "bar" else "L/D"
-        warnings.append(Notice("slenderness", (
-            f"{what} = {L / h:.3g} is below 5, where T1 was verified within 1 % of Timoshenko beam theory "
-            "(tests/test_moduli.py); the beam relations lose accuracy for stubby specimens")))
+        warnings.append(
+            Notice(
+                "slenderness",
+                (
+                    f"{what} = {L / h:.3g} is below 5, where T1 was verified within 1 % of Timoshenko beam theory "
+                    "(tests/test_moduli.py); the beam relations lose accuracy for stubby specimens"
+                ),
+            )
+        )
     if isinstance(specimen, RectangularBar):
         b, t = specimen.width_m, specimen.thickness_m
         if max(b, t) / min(b, t) > 20.0:
-            warnings.append(Notice("aspect_ratio", (
-                f"width/thickness = {max(b, t) / min(b, t):.3g} exceeds 20, beyond the range where R was checked "
-                "against Saint-Venant torsion")))
+            warnings.append(
+                Notice(
+                    "aspect_ratio",
+                    (
+                        f"width/thickness = {max(b, t) / min(b, t):.3g} exceeds 20, beyond the range where R was checked "
+                        "against Saint-Venant torsion"
+                    ),
+                )
+            )
     if mu_src == "measured" and not (POISSON_RANGE[0] <= y["mu"] <= POISSON_RANGE[1]):
-        warnings.append(Notice("poisson_implausible", (
-            f"Poisson's ratio {y['mu']:.3g} lies outside 0-0.5: the frequencies are probably assigned to the wrong "
-            "modes (or the material is not isotropic)")))
+        warnings.append(
+            Notice(
+                "poisson_implausible",
+                (
+                    f"Poisson's ratio {y['mu']:.3g} lies outside 0-0.5: the frequencies are probably assigned to the wrong "
+                    "modes (or the material is not isotropic)"
+                ),
+            )
+        )
     if y["iterations"] >= _MAX_ITER:
         warnings.append(Notice("not_converged", "the Poisson's-ratio loop did not converge in 100 iterations"))
     zero = [k for k, v in u.items() if v == 0.0]
     if zero:
-        warnings.append(Notice("uncertainty_not_given", (
-            "no uncertainty given for " + ", ".join(zero) + ": the budget leaves them out, so the stated "
-            "uncertainties are too small")))
+        warnings.append(
+            Notice(
+                "uncertainty_not_given",
+                (
+                    "no uncertainty given for " + ", ".join(zero) + ": the budget leaves them out, so the stated "
+                    "uncertainties are too small"
+                ),
+            )
+        )
 
     def used(c: _Candidate, role: str, rule: str, pred: dict | None) -> ModeUsed:
-        return ModeUsed(role, c.f_hz, c.f_hz_u, c.loss_factor, c.loss_factor_u, c.source, c.mode_index, rule,
-                        None if pred is None else pred["f_hz"], None if pred is None else pred["low_hz"],
-                        None if pred is None else pred["high_hz"])
+        return ModeUsed(
+            role,
+            c.f_hz,
+            c.f_hz_u,
+            c.loss_factor,
+            c.loss_factor_u,
+            c.source,
+            c.mode_index,
+            rule,
+            None if pred is None else pred["f_hz"],
+            None if pred is None else pred["low_hz"],
+            None if pred is None else pred["high_hz"],
+        )
 
     return ModuliResult(
         shape=specimen.shape,
         specimen=specimen.to_dict(),
-        e_pa=y["e"], e_pa_u=uy["e_pa"],
-        g_pa=y["g"], g_pa_u=uy["g_pa"],
-        poisson=y["mu"], poisson_u=uy["poisson"] if mu_src == "measured" else u["poisson"],
+        e_pa=y["e"],
+        e_pa_u=uy["e_pa"],
+        g_pa=y["g"],
+        g_pa_u=uy["g_pa"],
+        poisson=y["mu"],
+        poisson_u=uy["poisson"] if mu_src == "measured" else u["poisson"],
         poisson_source=mu_src,
-        density_kg_per_m3=y["rho"], density_kg_per_m3_u=uy["density_kg_per_m3"],
-        t1=y["t1"], r_factor=y["r"], iterations=y["iterations"],
+        density_kg_per_m3=y["rho"],
+        density_kg_per_m3_u=uy["density_kg_per_m3"],
+        t1=y["t1"],
+        r_factor=y["r"],
+        iterations=y["iterations"],
         flexural=used(fc, "flexural", f_rule, None),
         torsional=None if tc is None else used(tc, "torsional", t_rule or "", preds["torsional_1"]),
         predictions=tuple(preds.values()),

@@ -38,11 +38,21 @@ def _draw_side(ax, x, cm, color, marker, label, *, hollow=False):
         yerr = [[y - lo], [hi - y]]
     else:
         yerr = None
-    ax.errorbar([x], [y], yerr=yerr, fmt=marker, color=color, mfc="none" if hollow else color,
-                ms=6, capsize=3, elinewidth=1.0, label=label, zorder=3)
+    ax.errorbar(
+        [x],
+        [y],
+        yerr=yerr,
+        fmt=marker,
+        color=color,
+        mfc="none" if hollow else color,
+        ms=6,
+        capsize=3,
+        elinewidth=1.0,
+        label=label,
+        zorder=3,
+    )
     # each repeat as a small dot beside the mean
-    ax.plot([x + 0.08] * len(cm.repeat_zeta), cm.repeat_zeta, ".", color=color, ms=3, alpha=0.6,
-            zorder=2)
+    ax.plot([x + 0.08] * len(cm.repeat_zeta), cm.repeat_zeta, ".", color=color, ms=3, alpha=0.6, zorder=2)
 
 
 def plot_comparison(comparison: Comparison, *, ax: Axes | None = None) -> Axes:
@@ -96,10 +106,20 @@ def plot_comparison(comparison: Comparison, *, ax: Axes | None = None) -> Axes:
         txt = "x" + fmt_value(r.ratio, 3, trim=False)
         if r.ratio_low is not None:
             txt += f"\n[{fmt_value(r.ratio_low, 3, trim=False)}, {fmt_value(r.ratio_high, 3, trim=False)}]"
-        top = max(v for v in (m.before.zeta_interval or (m.before.values["zeta"],) * 2)[1:] +
-                  (m.after.zeta_interval or (m.after.values["zeta"],) * 2)[1:])
-        ax.annotate(txt, (x, top), xytext=(0, 4), textcoords="offset points", ha="center",
-                    va="bottom", fontsize=STYLE["font_size"] - 1)
+        top = max(
+            v
+            for v in (m.before.zeta_interval or (m.before.values["zeta"],) * 2)[1:]
+            + (m.after.zeta_interval or (m.after.values["zeta"],) * 2)[1:]
+        )
+        ax.annotate(
+            txt,
+            (x, top),
+            xytext=(0, 4),
+            textcoords="offset points",
+            ha="center",
+            va="bottom",
+            fontsize=STYLE["font_size"] - 1,
+        )
         lab = f"mode {m.index}\n{fmt_value(m.before.values['f_d_hz'], 5)} Hz"
         if freq_ax is None:
             lab += f"\n{fmt_fixed(100 * m.frequency.relative, 1, sign=True)} %"

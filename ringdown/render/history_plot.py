@@ -18,8 +18,11 @@ if TYPE_CHECKING:
 
 __all__ = ["plot_run_chart"]
 
-_FEATURES = {"f_d_hz": ("f_d [Hz]", "f_hz"), "zeta": ("damping ratio", "zeta"),
-             "ratio": ("f_d / f_d of mode 1", "ratio")}
+_FEATURES = {
+    "f_d_hz": ("f_d [Hz]", "f_hz"),
+    "zeta": ("damping ratio", "zeta"),
+    "ratio": ("f_d / f_d of mode 1", "ratio"),
+}
 # Okabe-Ito colours (Wong, Nature Methods 8:441, 2011), as in plots.py; markers and fill differ
 # too, so the chart reads in greyscale: an advisory pass (absolute windows excused, e.g. a warm
 # part) is a hollow diamond, apart from plain passes
@@ -34,8 +37,14 @@ _LOOK: dict[str, dict[str, Any]] = {
 _MAX_X_LABELS = 40
 
 
-def plot_run_chart(records: Sequence, *, limits_by_sha: dict | None = None, limits: Limits | None = None,
-                   features: Sequence[str] = ("f_d_hz", "ratio", "zeta"), n_modes: int | None = None) -> Figure:
+def plot_run_chart(
+    records: Sequence,
+    *,
+    limits_by_sha: dict | None = None,
+    limits: Limits | None = None,
+    features: Sequence[str] = ("f_d_hz", "ratio", "zeta"),
+    n_modes: int | None = None,
+) -> Figure:
     """A run chart per reference mode and feature, in test order, with the acceptance windows.
 
     Parameters
@@ -73,8 +82,11 @@ def plot_run_chart(records: Sequence, *, limits_by_sha: dict | None = None, limi
 
             raise ParameterError(f"run chart feature must be one of {sorted(_FEATURES)}, got {f!r}")
     if n_modes is None:
-        seen = [m.get("ref_index") or (m.get("mode_index") if r.kind == "analysis" else None)
-                for r in records for m in r.modes]
+        seen = [
+            m.get("ref_index") or (m.get("mode_index") if r.kind == "analysis" else None)
+            for r in records
+            for m in r.modes
+        ]
         n_modes = min(max([s for s in seen if s] or [1]), 6)
     fixed = None if limits is None else limits.to_dict()
     panels = [(j, feat) for j in range(1, n_modes + 1) for feat in features if not (feat == "ratio" and j == 1)]
@@ -104,9 +116,17 @@ def plot_run_chart(records: Sequence, *, limits_by_sha: dict | None = None, limi
             ys = [v for v, k in zip(values, kinds) if k == kind]
             if xs:
                 hollow = look.get("hollow", False)
-                ax.scatter(xs, ys, s=30 if hollow else 24, marker=look["marker"], zorder=2, label=look["label"],
-                           facecolors="none" if hollow else look["color"], edgecolors=look["color"],
-                           linewidths=1.3 if hollow else 0.5)
+                ax.scatter(
+                    xs,
+                    ys,
+                    s=30 if hollow else 24,
+                    marker=look["marker"],
+                    zorder=2,
+                    label=look["label"],
+                    facecolors="none" if hollow else look["color"],
+                    edgecolors=look["color"],
+                    linewidths=1.3 if hollow else 0.5,
+                )
         ax.set_ylabel(f"mode {j}\n{label}", fontsize="small")
         ax.ticklabel_format(axis="y", useOffset=False)
         ax.grid(True, alpha=0.3)
@@ -114,8 +134,14 @@ def plot_run_chart(records: Sequence, *, limits_by_sha: dict | None = None, limi
     for ax in axes:
         for h, lab in zip(*ax.get_legend_handles_labels()):
             handles.setdefault(lab, h)
-    fig.legend(list(handles.values()), list(handles), loc="outside lower center", ncols=min(len(handles), 6),
-               fontsize="small", frameon=False)
+    fig.legend(
+        list(handles.values()),
+        list(handles),
+        loc="outside lower center",
+        ncols=min(len(handles), 6),
+        fontsize="small",
+        frameon=False,
+    )
     step = max(1, -(-len(records) // _MAX_X_LABELS))
     last = axes[-1]
     last.set_xticks(x_all[::step])

@@ -79,8 +79,15 @@ STYLE: dict[str, Any] = {
     # One colour, marker and dash pattern per mode: modes stay apart in greyscale too.
     "mode_colors": (_OI_BLUE, _OI_VERMILLION, _OI_GREEN, _OI_PURPLE, _OI_ORANGE, _OI_SKY, _OI_BLACK),
     "mode_markers": ("o", "s", "^", "D", "v", "P", "X"),
-    "mode_dashes": ("-", (0, (5, 2)), (0, (1, 1.2)), (0, (6, 2, 1, 2)), (0, (3, 1, 1, 1, 1, 1)),
-                    (0, (8, 3)), (0, (2, 2))),
+    "mode_dashes": (
+        "-",
+        (0, (5, 2)),
+        (0, (1, 1.2)),
+        (0, (6, 2, 1, 2)),
+        (0, (3, 1, 1, 1, 1, 1)),
+        (0, (8, 3)),
+        (0, (2, 2)),
+    ),
 }
 
 #: Formats figures are written in (the one list the CLI's --plot-format and history --plot use).
@@ -96,12 +103,14 @@ _MAX_SPECTRUM_SAMPLES = 1 << 20
 # helpers
 # --------------------------------------------------------------------------------------------
 
+
 def _new_figure(height_in: float, *, nrows: int = 1, height_ratios=None):
     """A Figure with constrained layout and its Axes (a list when ``nrows > 1``)."""
     from matplotlib.figure import Figure
 
-    fig = Figure(figsize=(STYLE["figure_width_in"], height_in), dpi=STYLE["dpi"],
-                 layout="constrained", facecolor=STYLE["face"])
+    fig = Figure(
+        figsize=(STYLE["figure_width_in"], height_in), dpi=STYLE["dpi"], layout="constrained", facecolor=STYLE["face"]
+    )
     if nrows == 1:
         return fig, fig.add_subplot(1, 1, 1)
     axes = fig.subplots(nrows, 1, gridspec_kw={"height_ratios": height_ratios} if height_ratios else None)
@@ -143,8 +152,16 @@ def _legend(ax, handles=None, labels=None, *, below: bool = False) -> None:
         kw = {"loc": "upper center", "bbox_to_anchor": (0.5, -0.22), "ncols": min(len(handles), 3)}
     else:
         kw = {"loc": "upper left", "bbox_to_anchor": (1.01, 1.0)}
-    leg = ax.legend(handles, labels, fontsize=STYLE["font_size"] - 0.5, frameon=True, framealpha=1.0,
-                    edgecolor="#BBBBBB", borderaxespad=0.0, **kw)
+    leg = ax.legend(
+        handles,
+        labels,
+        fontsize=STYLE["font_size"] - 0.5,
+        frameon=True,
+        framealpha=1.0,
+        edgecolor="#BBBBBB",
+        borderaxespad=0.0,
+        **kw,
+    )
     leg.get_frame().set_linewidth(0.6)
 
 
@@ -192,7 +209,7 @@ def _thin(t: np.ndarray, y: np.ndarray, max_points: int = _MAX_DRAWN_POINTS):
     lo_idx = np.empty(n_buckets, dtype=int)
     hi_idx = np.empty(n_buckets, dtype=int)
     for k in range(n_buckets):
-        seg = y[edges[k]:edges[k + 1]]
+        seg = y[edges[k] : edges[k + 1]]
         lo_idx[k] = edges[k] + int(np.argmin(seg))
         hi_idx[k] = edges[k] + int(np.argmax(seg))
     idx = np.sort(np.concatenate([lo_idx, hi_idx]))
@@ -249,8 +266,11 @@ def figure_bytes(fig: Figure, *, fmt: str = "png", dpi: float | None = None) -> 
     if fmt not in FIGURE_FORMATS:
         raise ParameterError(f"figure format must be one of {', '.join(FIGURE_FORMATS)}; got {fmt!r}")
     buf = io.BytesIO()
-    meta = {"png": {"Software": None}, "svg": {"Creator": None, "Date": None, "Format": None, "Type": None},
-            "pdf": {"Creator": None, "Producer": None, "CreationDate": None}}[fmt]
+    meta = {
+        "png": {"Software": None},
+        "svg": {"Creator": None, "Date": None, "Format": None, "Type": None},
+        "pdf": {"Creator": None, "Producer": None, "CreationDate": None},
+    }[fmt]
     fig.savefig(buf, format=fmt, dpi=dpi or STYLE["dpi"], metadata=meta, facecolor=fig.get_facecolor())
     return buf.getvalue()
 
@@ -258,6 +278,7 @@ def figure_bytes(fig: Figure, *, fmt: str = "png", dpi: float | None = None) -> 
 # --------------------------------------------------------------------------------------------
 # the recording and its spectrum
 # --------------------------------------------------------------------------------------------
+
 
 def plot_recording(analysis: Analysis, *, ax: Axes | None = None) -> Axes:
     """Draw the recorded signal against time, with each hit and each mode's fit window.
@@ -298,14 +319,26 @@ def plot_recording(analysis: Analysis, *, ax: Axes | None = None) -> Axes:
     if full_scale:
         top = max(peak, float(full_scale))
         for s in (1, -1):
-            ax.axhline(s * full_scale, color=STYLE["muted_color"], linewidth=0.7, linestyle=(0, (4, 2)),
-                       label="full scale" if s == 1 else None)
+            ax.axhline(
+                s * full_scale,
+                color=STYLE["muted_color"],
+                linewidth=0.7,
+                linestyle=(0, (4, 2)),
+                label="full scale" if s == 1 else None,
+            )
         clipped = np.flatnonzero(np.abs(x) >= 0.999 * float(full_scale))
         if clipped.size:
             if clipped.size > 400:
                 clipped = clipped[np.linspace(0, clipped.size - 1, 400).astype(int)]
-            ax.plot(t[clipped], x[clipped], linestyle="none", marker="x", markersize=4,
-                    color=STYLE["clip_color"], label="clipped samples")
+            ax.plot(
+                t[clipped],
+                x[clipped],
+                linestyle="none",
+                marker="x",
+                markersize=4,
+                color=STYLE["clip_color"],
+                label="clipped samples",
+            )
 
     modes = tuple(getattr(analysis, "modes", ()) or ())
     n_bars = sum(1 for m in modes if m.fit_start_s is not None and m.fit_end_s is not None)
@@ -319,22 +352,52 @@ def plot_recording(analysis: Analysis, *, ax: Axes | None = None) -> Axes:
             continue
         st = _mode_style(i)
         y = -top * 1.08 - 0.13 * top * (i + 0.5)
-        ax.plot([m.fit_start_s, m.fit_end_s], [y, y], color=st["color"], linestyle=st["linestyle"],
-                linewidth=2.2, marker=st["marker"], markersize=4.5, markevery=[0, 1],
-                label=f"mode {m.index} window ({_fmt_sig(m.f_d_hz, 5)} Hz)", gid=f"window-mode-{m.index}")
+        ax.plot(
+            [m.fit_start_s, m.fit_end_s],
+            [y, y],
+            color=st["color"],
+            linestyle=st["linestyle"],
+            linewidth=2.2,
+            marker=st["marker"],
+            markersize=4.5,
+            markevery=[0, 1],
+            label=f"mode {m.index} window ({_fmt_sig(m.f_d_hz, 5)} Hz)",
+            gid=f"window-mode-{m.index}",
+        )
 
     trans = ax.get_xaxis_transform()  # x in data, y in axes fraction
     for k, h in enumerate(getattr(analysis, "hits", ()) or ()):
         used = bool(h.used)
-        ax.axvline(h.start_s, color=_OI_BLACK if used else STYLE["muted_color"], linewidth=0.9,
-                   linestyle="-" if used else (0, (1, 1.5)), gid=f"hit-{k + 1}")
-        ax.plot([h.peak_s], [0.985], transform=trans, linestyle="none", marker="v", markersize=5,
-                color=_OI_BLACK if used else STYLE["muted_color"], gid=f"hit-peak-{k + 1}")
+        ax.axvline(
+            h.start_s,
+            color=_OI_BLACK if used else STYLE["muted_color"],
+            linewidth=0.9,
+            linestyle="-" if used else (0, (1, 1.5)),
+            gid=f"hit-{k + 1}",
+        )
+        ax.plot(
+            [h.peak_s],
+            [0.985],
+            transform=trans,
+            linestyle="none",
+            marker="v",
+            markersize=5,
+            color=_OI_BLACK if used else STYLE["muted_color"],
+            gid=f"hit-peak-{k + 1}",
+        )
         codes = [w.code for w in h.warnings]
         text = f"hit {k + 1}" + ("" if used else " (not used)") + ("".join(f"\n{c}" for c in codes))
-        ax.text(h.start_s, 0.95, " " + text.replace("\n", "\n "), transform=trans, va="top", ha="left",
-                fontsize=STYLE["font_size"] - 1, color=_OI_BLACK if used else STYLE["muted_color"],
-                bbox={"boxstyle": "square,pad=0.15", "facecolor": "white", "edgecolor": "none", "alpha": 0.85})
+        ax.text(
+            h.start_s,
+            0.95,
+            " " + text.replace("\n", "\n "),
+            transform=trans,
+            va="top",
+            ha="left",
+            fontsize=STYLE["font_size"] - 1,
+            color=_OI_BLACK if used else STYLE["muted_color"],
+            bbox={"boxstyle": "square,pad=0.15", "facecolor": "white", "edgecolor": "none", "alpha": 0.85},
+        )
 
     ax.set_xlim(0.0, x.size / fs)
     ax.set_xlabel("time, s")
@@ -377,7 +440,7 @@ def display_spectrum(x: np.ndarray, fs: float) -> tuple[np.ndarray, np.ndarray]:
     w = np.ones(n)
     half = n // 2
     if half > 1:
-        w[n - half:] = 0.5 * (1.0 + np.cos(np.pi * np.arange(half) / (half - 1)))
+        w[n - half :] = 0.5 * (1.0 + np.cos(np.pi * np.arange(half) / (half - 1)))
     nfft = 1 << int(math.ceil(math.log2(max(4 * n, 16))))
     mag = np.abs(np.fft.rfft(x * w, nfft))
     ref = float(mag.max()) or 1.0
@@ -438,15 +501,38 @@ def plot_spectrum(analysis: Analysis, *, ax: Axes | None = None) -> Axes:
         lo, hi = max(j - 3, 0), min(j + 4, f.size)
         y = float(np.max(level[lo:hi]))
         q = getattr(m, "q", None)
-        ax.plot([m.f_d_hz], [y], linestyle="none", marker=st["marker"], markersize=6.5,
-                markerfacecolor=st["color"], markeredgecolor=_OI_BLACK, markeredgewidth=0.6,
-                label=f"mode {m.index}: {_fmt_sig(m.f_d_hz, 5)} Hz, Q {_fmt_sig(q, 3)}",
-                gid=f"marker-mode-{m.index}")
-        ax.annotate(f"{m.index}", xy=(m.f_d_hz, y), xycoords="data", xytext=(float(label_x[i]), 0.955),
-                    textcoords="axes fraction", ha="center", va="top", fontsize=STYLE["font_size"],
-                    fontweight="bold", color=_OI_BLACK, gid=f"label-mode-{m.index}",
-                    arrowprops={"arrowstyle": "-", "color": STYLE["muted_color"], "linewidth": 0.6,
-                                "shrinkA": 1.0, "shrinkB": 4.0})
+        ax.plot(
+            [m.f_d_hz],
+            [y],
+            linestyle="none",
+            marker=st["marker"],
+            markersize=6.5,
+            markerfacecolor=st["color"],
+            markeredgecolor=_OI_BLACK,
+            markeredgewidth=0.6,
+            label=f"mode {m.index}: {_fmt_sig(m.f_d_hz, 5)} Hz, Q {_fmt_sig(q, 3)}",
+            gid=f"marker-mode-{m.index}",
+        )
+        ax.annotate(
+            f"{m.index}",
+            xy=(m.f_d_hz, y),
+            xycoords="data",
+            xytext=(float(label_x[i]), 0.955),
+            textcoords="axes fraction",
+            ha="center",
+            va="top",
+            fontsize=STYLE["font_size"],
+            fontweight="bold",
+            color=_OI_BLACK,
+            gid=f"label-mode-{m.index}",
+            arrowprops={
+                "arrowstyle": "-",
+                "color": STYLE["muted_color"],
+                "linewidth": 0.6,
+                "shrinkA": 1.0,
+                "shrinkB": 4.0,
+            },
+        )
     ax.set_xlim(0.0, f_max)
     ax.set_xlabel("frequency, Hz")
     ax.set_ylabel("level, dB re largest peak")
@@ -481,6 +567,7 @@ def plot_overview(analysis: Analysis) -> Figure:
 # --------------------------------------------------------------------------------------------
 # one mode
 # --------------------------------------------------------------------------------------------
+
 
 def _trace(mode):
     tr = getattr(mode, "trace", None)
@@ -556,23 +643,53 @@ def plot_decay(mode: Mode, *, ax: Axes | None = None) -> Axes:
     env_db = _db(tr.envelope, floor_lin) - ref
     td, ed = _thin(t, env_db)
     model = _model_db(tr)
-    ax.axvspan(tr.fit_start_s, tr.fit_end_s, facecolor=STYLE["window_color"], alpha=0.18, edgecolor=_OI_BLUE,
-               linewidth=0.8, hatch="//", label="fit window")
+    ax.axvspan(
+        tr.fit_start_s,
+        tr.fit_end_s,
+        facecolor=STYLE["window_color"],
+        alpha=0.18,
+        edgecolor=_OI_BLUE,
+        linewidth=0.8,
+        hatch="//",
+        label="fit window",
+    )
     ax.plot(td, ed, color=STYLE["signal_color"], linewidth=0.8, label="envelope", zorder=3)
     inside = np.array([tr.fit_start_s, tr.fit_end_s])
-    ax.plot(inside, _fit_db(tr, inside) - ref, color=STYLE["fit_color"], linewidth=2.4, linestyle="-", zorder=2,
-            alpha=0.85,
-            label=(f"{'this mode alone' if model is not None else 'fit'}: β = {_fmt_sig(tr.fit_beta_per_s)} 1/s"
-                   f"\n({_fmt_sig(DB_PER_NEPER * tr.fit_beta_per_s)} dB/s)"))
+    ax.plot(
+        inside,
+        _fit_db(tr, inside) - ref,
+        color=STYLE["fit_color"],
+        linewidth=2.4,
+        linestyle="-",
+        zorder=2,
+        alpha=0.85,
+        label=(
+            f"{'this mode alone' if model is not None else 'fit'}: β = {_fmt_sig(tr.fit_beta_per_s)} 1/s"
+            f"\n({_fmt_sig(DB_PER_NEPER * tr.fit_beta_per_s)} dB/s)"
+        ),
+    )
     if t.size:
         span = np.array([t[0], t[-1]])
-        ax.plot(span, _fit_db(tr, span) - ref, color=STYLE["fit_color"], linewidth=0.8, linestyle=(0, (1, 2)),
-                label="fit, extended")
+        ax.plot(
+            span,
+            _fit_db(tr, span) - ref,
+            color=STYLE["fit_color"],
+            linewidth=0.8,
+            linestyle=(0, (1, 2)),
+            label="fit, extended",
+        )
     if model is not None:
         ok = np.isfinite(model) & (t <= tr.fit_end_s)
         tm, md = _thin(t[ok], model[ok] - ref)
-        ax.plot(tm, md, color=_OI_GREEN, linewidth=1.3, linestyle=(0, (4, 1.5)), zorder=4,
-                label=f"sum of the {tr.n_model_modes} modes\nfitted in this band")
+        ax.plot(
+            tm,
+            md,
+            color=_OI_GREEN,
+            linewidth=1.3,
+            linestyle=(0, (4, 1.5)),
+            zorder=4,
+            label=f"sum of the {tr.n_model_modes} modes\nfitted in this band",
+        )
     have_noise = tr.noise_floor is not None and tr.noise_floor > 0
     if have_noise:
         nf = 20.0 * math.log10(tr.noise_floor) - ref
@@ -618,8 +735,12 @@ def _plot_residuals(mode, ax) -> None:
     ax.set_xlim(*_decay_xlim(tr))
     ax.set_xlabel("time, s")
     ax.set_ylabel("residual, dB")
-    _style_axes(ax, "Fit residual inside the window" if model is None else
-                f"Residual inside the window, against the sum of the {tr.n_model_modes} fitted modes")
+    _style_axes(
+        ax,
+        "Fit residual inside the window"
+        if model is None
+        else f"Residual inside the window, against the sum of the {tr.n_model_modes} fitted modes",
+    )
 
 
 def _plot_peaks(mode, ax) -> None:
@@ -631,18 +752,33 @@ def _plot_peaks(mode, ax) -> None:
     f_d = getattr(mode, "f_d_hz", None)
     cycles = (pt - pt[0]) * f_d if f_d else np.arange(pt.size, dtype=float)
     lnp = np.log(pv)
-    ax.plot(cycles, lnp, linestyle="none", marker="o", markersize=3.5, markerfacecolor="none",
-            markeredgecolor=_OI_BLUE, label="peaks")
+    ax.plot(
+        cycles,
+        lnp,
+        linestyle="none",
+        marker="o",
+        markersize=3.5,
+        markerfacecolor="none",
+        markeredgecolor=_OI_BLUE,
+        label="peaks",
+    )
     if pt.size >= 2:
         slope, icpt = np.polyfit(cycles, lnp, 1)
         xx = np.array([cycles[0], cycles[-1]])
-        ax.plot(xx, icpt + slope * xx, color=STYLE["fit_color"], linewidth=1.4, linestyle=(0, (5, 2)),
-                label=f"regression:\nδ = {_fmt_sig(-slope, 4)} Np/cycle")
+        ax.plot(
+            xx,
+            icpt + slope * xx,
+            color=STYLE["fit_color"],
+            linewidth=1.4,
+            linestyle=(0, (5, 2)),
+            label=f"regression:\nδ = {_fmt_sig(-slope, 4)} Np/cycle",
+        )
     ax.set_xlabel("cycles after the first peak")
     ax.set_ylabel("ln(peak), Np re 1 unit")
     n_joint = getattr(tr, "n_model_modes", 1) if getattr(tr, "model_envelope", None) is not None else 1
-    _style_axes(ax, "Log decrement: peak heights" + (f" (the band holds {n_joint} modes: they beat)"
-                                                      if n_joint > 1 else ""))
+    _style_axes(
+        ax, "Log decrement: peak heights" + (f" (the band holds {n_joint} modes: they beat)" if n_joint > 1 else "")
+    )
     _legend(ax)
 
 
@@ -714,8 +850,7 @@ def plot_damping_vs_amplitude(mode: Mode, *, ax: Axes | None = None) -> Axes:
     order = np.argsort(amp)
     amp, beta, fd = amp[order], beta[order], fd[order]
     ax = _axes_or_new(ax)
-    ax.plot(amp, beta, color=_OI_BLUE, marker="o", markersize=4.5, linestyle="-", linewidth=1.2,
-            label="decay rate")
+    ax.plot(amp, beta, color=_OI_BLUE, marker="o", markersize=4.5, linestyle="-", linewidth=1.2, label="decay rate")
     ax.set_xlabel("amplitude, recording units")
     ax.set_ylabel("decay rate β, 1/s", color=_OI_BLUE)
     if np.all(amp > 0) and amp.max() / amp.min() > 20:
@@ -727,8 +862,16 @@ def plot_damping_vs_amplitude(mode: Mode, *, ax: Axes | None = None) -> Axes:
         ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _pos: f"{v:g}"))
         ax.xaxis.set_minor_formatter(NullFormatter())
     tw = ax.twinx()
-    tw.plot(amp, fd, color=_OI_VERMILLION, marker="s", markersize=4.5, linestyle=(0, (5, 2)), linewidth=1.2,
-            label="damped frequency")
+    tw.plot(
+        amp,
+        fd,
+        color=_OI_VERMILLION,
+        marker="s",
+        markersize=4.5,
+        linestyle=(0, (5, 2)),
+        linewidth=1.2,
+        label="damped frequency",
+    )
     tw.set_ylabel("damped frequency, Hz", color=_OI_VERMILLION)
     tw.tick_params(labelsize=STYLE["font_size"])
     tw.yaxis.label.set_fontsize(STYLE["font_size"])

@@ -41,8 +41,17 @@ if TYPE_CHECKING:
     from ..materials.moduli import ModuliResult
     from ..treatment.compare import Comparison
 
-__all__ = ["Cell", "Section", "analysis_html", "html_table", "render_check_report", "render_comparison_report", "render_report",
-           "verdict_cell", "write_report"]
+__all__ = [
+    "Cell",
+    "Section",
+    "analysis_html",
+    "html_table",
+    "render_check_report",
+    "render_comparison_report",
+    "render_report",
+    "verdict_cell",
+    "write_report",
+]
 
 _DASH = "–"  # shown for a value that does not exist
 
@@ -70,6 +79,7 @@ class Section:
 # --------------------------------------------------------------------------------------------
 # small formatting helpers
 # --------------------------------------------------------------------------------------------
+
 
 def _e(value: Any) -> str:
     """Escape anything for HTML text or attribute values; control and bidi characters shown
@@ -118,8 +128,13 @@ def verdict_cell(kind: str, extra: str = "") -> Cell:
     return Cell(f'<span class="sym" aria-hidden="true">{symbol}</span> {_e(word)}{_e(extra)}', css, raw=True)
 
 
-def html_table(header: Sequence[Any], rows: Iterable[Sequence[Any]], *, numeric: Sequence[bool] | None = None,
-               css_class: str = "data") -> str:
+def html_table(
+    header: Sequence[Any],
+    rows: Iterable[Sequence[Any]],
+    *,
+    numeric: Sequence[bool] | None = None,
+    css_class: str = "data",
+) -> str:
     """An HTML table whose every cell is escaped (a :class:`Cell` with ``raw=True`` is not).
 
     Parameters
@@ -185,6 +200,7 @@ def _file_size(path: str | None) -> str:
 # figures
 # --------------------------------------------------------------------------------------------
 
+
 def _figure(draw, caption: str, fmt: str) -> str:
     """One embedded figure, or a line saying why it could not be drawn."""
     from . import plots
@@ -196,8 +212,10 @@ def _figure(draw, caption: str, fmt: str) -> str:
         return f'<p class="note">Figure not drawn ({_e(caption)}): {_e(exc)}</p>'
     mime = "image/png" if fmt == "png" else "image/svg+xml"
     b64 = base64.b64encode(data).decode("ascii")
-    return (f'<figure><img alt="{_e(caption)}" src="data:{mime};base64,{b64}">'
-            f"<figcaption>{_e(caption)}</figcaption></figure>")
+    return (
+        f'<figure><img alt="{_e(caption)}" src="data:{mime};base64,{b64}">'
+        f"<figcaption>{_e(caption)}</figcaption></figure>"
+    )
 
 
 def _figures(a, fmt: str, level: bool | str = True) -> str:
@@ -210,8 +228,13 @@ def _figures(a, fmt: str, level: bool | str = True) -> str:
         if m.trace is not None:
             parts.append(_figure(lambda m=m: plots.plot_mode(m), f"mode {m.index}: decay and fit", fmt))
         if m.damping_vs_amplitude:
-            parts.append(_figure(lambda m=m: plots.plot_damping_vs_amplitude(m).figure,
-                                 f"mode {m.index}: damping against amplitude", fmt))
+            parts.append(
+                _figure(
+                    lambda m=m: plots.plot_damping_vs_amplitude(m).figure,
+                    f"mode {m.index}: damping against amplitude",
+                    fmt,
+                )
+            )
     return "".join(parts)
 
 
@@ -222,8 +245,7 @@ def _figures(a, fmt: str, level: bool | str = True) -> str:
 #: The modes are shown in two tables so that each fits a portrait page and a 1280 px screen:
 #: what the mode is (frequency and damping), then how it was measured.
 _MODE_HEADER = ("#", "f_d, Hz", "β, 1/s", "f_n, Hz", "ζ", "Q", "loss factor η", "log decrement δ")
-_FIT_HEADER = ("#", "f_r, Hz", "decay, dB/s", "T60, s", "method", "window, s", "cycles", "SNR, dB", "hits",
-               "warnings")
+_FIT_HEADER = ("#", "f_r, Hz", "decay, dB/s", "T60, s", "method", "window, s", "cycles", "SNR, dB", "hits", "warnings")
 
 
 def _mode_row(m) -> list[str]:
@@ -260,9 +282,14 @@ def _fit_row(m) -> list[str]:
 def _modes_table(a) -> str:
     if not a.modes:
         return '<p class="note">No modes were found above the noise.</p>'
-    return (html_table(_MODE_HEADER, [_mode_row(m) for m in a.modes], numeric=[True] * 8, css_class="data modes")
-            + html_table(_FIT_HEADER, [_fit_row(m) for m in a.modes],
-                         numeric=[True] * 4 + [False, True, True, True, True, False], css_class="data fit"))
+    return html_table(
+        _MODE_HEADER, [_mode_row(m) for m in a.modes], numeric=[True] * 8, css_class="data modes"
+    ) + html_table(
+        _FIT_HEADER,
+        [_fit_row(m) for m in a.modes],
+        numeric=[True] * 4 + [False, True, True, True, True, False],
+        css_class="data fit",
+    )
 
 
 def analysis_html(a: Analysis) -> str:
@@ -280,13 +307,20 @@ def _cross_checks(a) -> str:
     rows = []
     for m in a.modes:
         for name, est in (m.cross_checks or {}).items():
-            rows.append([str(m.index), str(name), _pm(est.f_d_hz, est.f_d_hz_u),
-                         _pm(est.beta_per_s, est.beta_per_s_u), "yes" if est.converged else "no"])
+            rows.append(
+                [
+                    str(m.index),
+                    str(name),
+                    _pm(est.f_d_hz, est.f_d_hz_u),
+                    _pm(est.beta_per_s, est.beta_per_s_u),
+                    "yes" if est.converged else "no",
+                ]
+            )
     if not rows:
         return ""
-    return ("<h4>Cross-checks by other methods</h4>"
-            + html_table(("mode", "method", "f_d, Hz", "β, 1/s", "converged"), rows,
-                         numeric=[True, False, True, True, False]))
+    return "<h4>Cross-checks by other methods</h4>" + html_table(
+        ("mode", "method", "f_d, Hz", "β, 1/s", "converged"), rows, numeric=[True, False, True, True, False]
+    )
 
 
 def _hits_table(a) -> str:
@@ -294,12 +328,23 @@ def _hits_table(a) -> str:
         return ""
     rows = []
     for k, h in enumerate(a.hits, 1):
-        rows.append([str(k), fmt_fixed(h.start_s, 4), fmt_fixed(h.peak_s, 4), fmt_value(h.peak_value, 4),
-                     fmt_fixed(h.snr_db, 1), fmt_fixed(h.end_s, 4), "yes" if h.used else "no",
-                     "; ".join(f"{w.message} ({w.code})" for w in h.warnings) or _DASH])
-    return ("<h4>Hits</h4>"
-            + html_table(("hit", "onset, s", "peak, s", "peak value", "SNR, dB", "end, s", "used", "warnings"),
-                         rows, numeric=[True] * 6 + [False, False]))
+        rows.append(
+            [
+                str(k),
+                fmt_fixed(h.start_s, 4),
+                fmt_fixed(h.peak_s, 4),
+                fmt_value(h.peak_value, 4),
+                fmt_fixed(h.snr_db, 1),
+                fmt_fixed(h.end_s, 4),
+                "yes" if h.used else "no",
+                "; ".join(f"{w.message} ({w.code})" for w in h.warnings) or _DASH,
+            ]
+        )
+    return "<h4>Hits</h4>" + html_table(
+        ("hit", "onset, s", "peak, s", "peak value", "SNR, dB", "end, s", "used", "warnings"),
+        rows,
+        numeric=[True] * 6 + [False, False],
+    )
 
 
 def _warnings(a) -> str:
@@ -310,7 +355,7 @@ def _warnings(a) -> str:
         return '<p class="ok">No warnings.</p>'
     lis = "".join(
         f"<li>{'' if where is None else '<b>' + _e(where) + ':</b> '}{_e(w.message)} "
-        f"<span class=\"code\">({_e(w.code)})</span></li>"
+        f'<span class="code">({_e(w.code)})</span></li>'
         for where, w in items
     )
     return f'<ul class="warnings">{lis}</ul>'
@@ -321,27 +366,41 @@ def _file_section(a, n: int, anchor: str, fmt: str, figures: bool | str, extra: 
     out = [f'<section class="file" id="{_e(anchor)}"><h2>{n}. {_e(name)}</h2>', extra]
     sr = _DASH if a.sample_rate_hz is None else f"{fmt_value(a.sample_rate_hz, 7)} Hz"
     dur = _DASH if a.duration_s is None else f"{fmt_value(a.duration_s, 6)} s ({a.n_samples} samples)"
-    out.append(_kv_table([
-        ("file", a.path if a.path else "<array>"),
-        ("SHA-256", a.sha256 or "unknown"),
-        ("size", _file_size(a.path)),
-        ("channel", a.channel if a.channel is not None else _DASH),
-        ("unit", a.unit if a.unit is not None else _DASH),
-        ("sample rate", sr),
-        ("duration", dur),
-        ("noise floor", _DASH if a.noise_floor is None else f"{fmt_value(a.noise_floor, 4)} (recording units, RMS)"),
-        ("tool", f"ringdown {__version__}"),
-    ]))
+    out.append(
+        _kv_table(
+            [
+                ("file", a.path if a.path else "<array>"),
+                ("SHA-256", a.sha256 or "unknown"),
+                ("size", _file_size(a.path)),
+                ("channel", a.channel if a.channel is not None else _DASH),
+                ("unit", a.unit if a.unit is not None else _DASH),
+                ("sample rate", sr),
+                ("duration", dur),
+                (
+                    "noise floor",
+                    _DASH if a.noise_floor is None else f"{fmt_value(a.noise_floor, 4)} (recording units, RMS)",
+                ),
+                ("tool", f"ringdown {__version__}"),
+            ]
+        )
+    )
     if a.error is not None:
-        out.append(f'<div class="error"><b>Not analysed:</b> {_e(a.error.message)} '
-                   f'<span class="code">({_e(a.error.code)})</span></div>')
+        out.append(
+            f'<div class="error"><b>Not analysed:</b> {_e(a.error.message)} '
+            f'<span class="code">({_e(a.error.code)})</span></div>'
+        )
     out.append("<h3>Settings used</h3>")
-    out.append(_kv_table(sorted((str(k), _setting(v)) for k, v in (a.settings or {}).items()))
-               if a.settings else '<p class="note">No settings recorded.</p>')
+    out.append(
+        _kv_table(sorted((str(k), _setting(v)) for k, v in (a.settings or {}).items()))
+        if a.settings
+        else '<p class="note">No settings recorded.</p>'
+    )
     if a.error is None:
         out.append("<h3>Modes</h3>")
-        out.append('<p class="legend">Values are written v(u): u is the standard uncertainty (k = 1) in units '
-                   "of the last digit of v, e.g. 7.7970(40)e-4 = (7.7970 ± 0.0040) × 10<sup>−4</sup>.</p>")
+        out.append(
+            '<p class="legend">Values are written v(u): u is the standard uncertainty (k = 1) in units '
+            "of the last digit of v, e.g. 7.7970(40)e-4 = (7.7970 ± 0.0040) × 10<sup>−4</sup>.</p>"
+        )
         out.append(_modes_table(a))
         out.append(_cross_checks(a))
         out.append(_hits_table(a))
@@ -364,8 +423,9 @@ def _setting(v: Any) -> str:
 
 def _summary(analyses, anchors, verdicts: Sequence[str] | None = None) -> str:
     """One row per recording; with ``verdicts`` (check reports) a coloured, worded verdict column."""
-    head = ["#", "file"] + (["verdict"] if verdicts is not None else []) + ["analysis", "modes",
-                                                                            "mode frequencies and Q"]
+    head = (
+        ["#", "file"] + (["verdict"] if verdicts is not None else []) + ["analysis", "modes", "mode frequencies and Q"]
+    )
     rows = []
     for n, (a, anchor) in enumerate(zip(analyses, anchors), 1):
         link = Cell(f'<a href="#{_e(anchor)}">{_e(_file_name(a))}</a>', raw=True)
@@ -375,10 +435,14 @@ def _summary(analyses, anchors, verdicts: Sequence[str] | None = None) -> str:
         else:
             n_warn = len(a.warnings) + sum(len(m.warnings) for m in a.modes)
             # "analysed" is neutral: it says the analysis ran, not that the part is good
-            status = Cell("analysed" if n_warn == 0 else f"analysed, {n_warn} warning{'s' if n_warn != 1 else ''}",
-                          "analysed" if n_warn == 0 else "warn")
-            modes = "; ".join(f"{m.index}: {fmt_value(m.f_d_hz, 6)} Hz, Q {fmt_value(m.q, 3)}"
-                              for m in a.modes) or "none found"
+            status = Cell(
+                "analysed" if n_warn == 0 else f"analysed, {n_warn} warning{'s' if n_warn != 1 else ''}",
+                "analysed" if n_warn == 0 else "warn",
+            )
+            modes = (
+                "; ".join(f"{m.index}: {fmt_value(m.f_d_hz, 6)} Hz, Q {fmt_value(m.q, 3)}" for m in a.modes)
+                or "none found"
+            )
         row = [str(n), link] + ([verdict_cell(verdicts[n - 1])] if verdicts is not None else [])
         rows.append(row + [status, str(len(a.modes)), modes])
     numeric = [True, False] + ([False] if verdicts is not None else []) + [False, True, False]
@@ -501,7 +565,7 @@ def _css_string(text: str) -> str:
     """``text`` as a CSS string literal (quotes, backslashes and control characters escaped)."""
     out = []
     for ch in str(text):
-        if ch in "\\\"<>" or ord(ch) < 32 or ch == "\x7f":
+        if ch in '\\"<>' or ord(ch) < 32 or ch == "\x7f":
             out.append(f"\\{ord(ch):x} ")
         else:
             out.append(ch)
@@ -521,19 +585,33 @@ def _page_css(running: str, footer: str) -> str:
 
 def _signoff(names: Sequence[tuple[str, str | None]]) -> str:
     """The sign-off block: one row per role, with name (pre-filled when known), date and signature lines."""
-    rows = "".join(f'<tr><th scope="row">{_e(role)}</th><td class="line">{_e(name or "")}</td>'
-                   '<td class="line"></td><td class="line"></td></tr>' for role, name in names)
-    return ('<section id="signoff" class="signoff"><h2>Sign-off</h2>'
-            '<table class="signoff"><thead><tr><th></th><th scope="col">name</th><th scope="col">date</th>'
-            f'<th scope="col">signature</th></tr></thead><tbody>{rows}</tbody></table></section>')
+    rows = "".join(
+        f'<tr><th scope="row">{_e(role)}</th><td class="line">{_e(name or "")}</td>'
+        '<td class="line"></td><td class="line"></td></tr>'
+        for role, name in names
+    )
+    return (
+        '<section id="signoff" class="signoff"><h2>Sign-off</h2>'
+        '<table class="signoff"><thead><tr><th></th><th scope="col">name</th><th scope="col">date</th>'
+        f'<th scope="col">signature</th></tr></thead><tbody>{rows}</tbody></table></section>'
+    )
 
 
-def render_report(analyses: Iterable[Analysis] | Analysis, *, settings: dict | None = None, title: str | None = None,
-                  extra_sections: Iterable[Section | tuple[str, str]] = (), figures: bool = True,
-                  figure_format: str = "png", generated: str | None = None, notes: str | None = None,
-                  fields: Sequence[tuple[str, Any]] | dict | None = None,
-                  signoff: Sequence[tuple[str, str | None]] | None = None,
-                  file_extras: Sequence[str] | None = None, verdicts: Sequence[str] | None = None) -> str:
+def render_report(
+    analyses: Iterable[Analysis] | Analysis,
+    *,
+    settings: dict | None = None,
+    title: str | None = None,
+    extra_sections: Iterable[Section | tuple[str, str]] = (),
+    figures: bool = True,
+    figure_format: str = "png",
+    generated: str | None = None,
+    notes: str | None = None,
+    fields: Sequence[tuple[str, Any]] | dict | None = None,
+    signoff: Sequence[tuple[str, str | None]] | None = None,
+    file_extras: Sequence[str] | None = None,
+    verdicts: Sequence[str] | None = None,
+) -> str:
     """Render analyses as one self-contained HTML document, laid out for screen and paper.
 
     Parameters
@@ -592,8 +670,9 @@ def render_report(analyses: Iterable[Analysis] | Analysis, *, settings: dict | N
             raise ParameterError(f"an extra report section must be a Section or (title, html); got {s!r:.80}")
     title = title or "Ring-down report"
     stamp = generated or local_stamp()
-    pairs = [(str(k), v) for k, v in (fields.items() if isinstance(fields, dict) else (fields or ()))
-             if v not in (None, "")]
+    pairs = [
+        (str(k), v) for k, v in (fields.items() if isinstance(fields, dict) else (fields or ())) if v not in (None, "")
+    ]
     used: set[str] = {"summary", "definitions", "caution", "run-settings", "signoff"}
     anchors = [_slug(f"file-{n}-{_file_name(a)}", used) for n, a in enumerate(analyses, 1)]
     extras = list(file_extras) if file_extras is not None else [""] * len(analyses)
@@ -605,7 +684,7 @@ def render_report(analyses: Iterable[Analysis] | Analysis, *, settings: dict | N
     running = " · ".join([title, *(f"{k} {v}" for k, v in pairs if k in ("serial", "part", "station"))])
     n_ok = sum(1 for a in analyses if a.error is None)
     parts = [
-        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">",
+        '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">',
         '<meta name="viewport" content="width=device-width, initial-scale=1">',
         f"<title>{_e(title)}</title><style>{_CSS}{_page_css(running, f'ringdown {__version__} · {stamp}')}"
         "</style></head><body>",
@@ -689,8 +768,11 @@ _COMPARISON_CAUTION = (
 def _comparison_figure(comparison) -> str:
     from .compare_plot import plot_comparison
 
-    return _figure(lambda: plot_comparison(comparison).figure,
-                   "damping ratio before and after per mode, with intervals, and the frequency shift", "png")
+    return _figure(
+        lambda: plot_comparison(comparison).figure,
+        "damping ratio before and after per mode, with intervals, and the frequency shift",
+        "png",
+    )
 
 
 def comparison_html(comparison: Comparison) -> str:
@@ -703,28 +785,71 @@ def comparison_html(comparison: Comparison) -> str:
     s = comparison.settings
     conf = 100.0 * s.get("confidence", 0.95)
     c = fmt_value(conf, 3)
-    out = ['<div class="comparison">',
-           f"<p>Repeats: before {comparison.n_repeats_before}, after {comparison.n_repeats_after}. "
-           f"Modes paired within ±{_num(100 * s.get('tolerance', 0.1), 3)} % in frequency "
-           "(ordered, closest in log frequency). Damping is tested on ln(ζ); the ratio is that of "
-           "geometric means (loss factor changes by the same ratio, Q by its inverse). Intervals and "
-           f"verdicts at {_e(c)} % confidence, each mode on its own.</p>"]
+    out = [
+        '<div class="comparison">',
+        f"<p>Repeats: before {comparison.n_repeats_before}, after {comparison.n_repeats_after}. "
+        f"Modes paired within ±{_num(100 * s.get('tolerance', 0.1), 3)} % in frequency "
+        "(ordered, closest in log frequency). Damping is tested on ln(ζ); the ratio is that of "
+        "geometric means (loss factor changes by the same ratio, Q by its inverse). Intervals and "
+        f"verdicts at {_e(c)} % confidence, each mode on its own.</p>",
+    ]
     main, more = [], []
     for m in comparison.modes:
         b, a, d, f = m.before, m.after, m.damping, m.frequency
         shift = fmt_interval(*f.percent, decimals=2, sign=True)
         ratio = "×" + fmt_interval(d.ratio, d.ratio_low, d.ratio_high, digits=3)
-        main.append([str(m.index), _pm(b.f_d_hz, b.f_d_hz_u), _pm(a.f_d_hz, a.f_d_hz_u), shift,
-                     _pm(b.zeta, b.zeta_u), _pm(a.zeta, a.zeta_u), ratio, str(d.test), fmt_value(d.p_value, 2),
-                     verdict_cell(d.verdict)])
-        more.append([str(m.index), _pm(b.q, b.q_u), _pm(a.q, a.q_u), _pm(b.t60_s, b.t60_s_u),
-                     _pm(a.t60_s, a.t60_s_u), "; ".join(f"{w.code}: {w.message}" for w in m.warnings) or _DASH])
+        main.append(
+            [
+                str(m.index),
+                _pm(b.f_d_hz, b.f_d_hz_u),
+                _pm(a.f_d_hz, a.f_d_hz_u),
+                shift,
+                _pm(b.zeta, b.zeta_u),
+                _pm(a.zeta, a.zeta_u),
+                ratio,
+                str(d.test),
+                fmt_value(d.p_value, 2),
+                verdict_cell(d.verdict),
+            ]
+        )
+        more.append(
+            [
+                str(m.index),
+                _pm(b.q, b.q_u),
+                _pm(a.q, a.q_u),
+                _pm(b.t60_s, b.t60_s_u),
+                _pm(a.t60_s, a.t60_s_u),
+                "; ".join(f"{w.code}: {w.message}" for w in m.warnings) or _DASH,
+            ]
+        )
     if main:
-        out.append(html_table(("mode", "f_d before, Hz", "f_d after, Hz", f"shift, % [{c} %]", "ζ before", "ζ after",
-                               f"ζ after/before [{c} %]", "test", "p", "verdict"), main,
-                              numeric=[True] * 7 + [False, True, False], css_class="data comparison-main"))
-        out.append(html_table(("mode", "Q before", "Q after", "T60 before, s", "T60 after, s", "warnings"), more,
-                              numeric=[True] * 5 + [False], css_class="data comparison-q"))
+        out.append(
+            html_table(
+                (
+                    "mode",
+                    "f_d before, Hz",
+                    "f_d after, Hz",
+                    f"shift, % [{c} %]",
+                    "ζ before",
+                    "ζ after",
+                    f"ζ after/before [{c} %]",
+                    "test",
+                    "p",
+                    "verdict",
+                ),
+                main,
+                numeric=[True] * 7 + [False, True, False],
+                css_class="data comparison-main",
+            )
+        )
+        out.append(
+            html_table(
+                ("mode", "Q before", "Q after", "T60 before, s", "T60 after, s", "warnings"),
+                more,
+                numeric=[True] * 5 + [False],
+                css_class="data comparison-q",
+            )
+        )
     else:
         out.append('<p class="note">No mode was found on both sides.</p>')
     out.append(_comparison_figure(comparison))  # after the tables: the numbers come first on paper
@@ -737,12 +862,24 @@ def comparison_html(comparison: Comparison) -> str:
         out.extend(f'<li>{_e(n.message)} <span class="code">({_e(n.code)})</span></li>' for n in comparison.notices)
         out.append("</ul>")
     out.append("<h3>Inputs</h3>")
-    out.append(html_table(
-        ("condition", "file", "channel", "sample rate, Hz", "repeats", "error"),
-        [[i.side, i.path if i.path is not None else "(array)", "" if i.channel is None else i.channel,
-          fmt_value(i.sample_rate_hz, 7, missing=_DASH), str(i.n_repeats),
-          _DASH if i.error is None else i.error.message] for i in comparison.inputs],
-        numeric=[False, False, False, True, True, False], css_class="data inputs"))
+    out.append(
+        html_table(
+            ("condition", "file", "channel", "sample rate, Hz", "repeats", "error"),
+            [
+                [
+                    i.side,
+                    i.path if i.path is not None else "(array)",
+                    "" if i.channel is None else i.channel,
+                    fmt_value(i.sample_rate_hz, 7, missing=_DASH),
+                    str(i.n_repeats),
+                    _DASH if i.error is None else i.error.message,
+                ]
+                for i in comparison.inputs
+            ],
+            numeric=[False, False, False, True, True, False],
+            css_class="data inputs",
+        )
+    )
     out.append(f'<p class="caution">{_e(_COMPARISON_CAUTION)}</p>')
     out.append("</div>")
     return "".join(out)
@@ -757,11 +894,20 @@ def render_comparison_report(comparison: Comparison, **kw: Any) -> str:
     s = comparison.settings
     kw["title"] = kw.get("title") or "Before/after comparison"
     kw.setdefault("figures", False)
-    kw.setdefault("settings", {"command": "compare", "tolerance": s["tolerance"], "confidence": s["confidence"],
-                               "damping_scale": s["damping_scale"]})
-    return render_report([*comparison.before_analyses, *comparison.after_analyses],
-                         extra_sections=[Section(COMPARISON_TITLE, comparison_html(comparison), anchor="comparison")],
-                         **kw)
+    kw.setdefault(
+        "settings",
+        {
+            "command": "compare",
+            "tolerance": s["tolerance"],
+            "confidence": s["confidence"],
+            "damping_scale": s["damping_scale"],
+        },
+    )
+    return render_report(
+        [*comparison.before_analyses, *comparison.after_analyses],
+        extra_sections=[Section(COMPARISON_TITLE, comparison_html(comparison), anchor="comparison")],
+        **kw,
+    )
 
 
 # --------------------------------------------------------------------------------------------
@@ -778,14 +924,23 @@ def _feature_table(features) -> str:
         win = d.get("window")
         status = str(d.get("status"))
         kind = {"pass": "pass", "advisory": "pass_advisory", "unchecked": "analysis"}.get(status, "fail")
-        rows.append([str(d.get("mode")), _FEATURE_NAMES.get(str(d.get("feature")), str(d.get("feature"))),
-                     fmt_value(d.get("value"), 6, missing=_DASH),
-                     _DASH if not win else " to ".join(fmt_values(win, 6)),
-                     verdict_cell(kind, "" if status in ("pass", "advisory") else f": {status}")])
+        rows.append(
+            [
+                str(d.get("mode")),
+                _FEATURE_NAMES.get(str(d.get("feature")), str(d.get("feature"))),
+                fmt_value(d.get("value"), 6, missing=_DASH),
+                _DASH if not win else " to ".join(fmt_values(win, 6)),
+                verdict_cell(kind, "" if status in ("pass", "advisory") else f": {status}"),
+            ]
+        )
     if not rows:
         return ""
-    return html_table(("mode", "feature", "measured", "window", "result"), rows,
-                      numeric=[True, False, True, True, False], css_class="data features")
+    return html_table(
+        ("mode", "feature", "measured", "window", "result"),
+        rows,
+        numeric=[True, False, True, True, False],
+        css_class="data features",
+    )
 
 
 def _list_cell(items: Sequence[dict]) -> Cell:
@@ -795,8 +950,9 @@ def _list_cell(items: Sequence[dict]) -> Cell:
     return Cell('<ul class="cell">' + "".join(f"<li>{_e(x['message'])}</li>" for x in items) + "</ul>", raw=True)
 
 
-def render_check_report(rows: Sequence[dict], analyses: Sequence, limits: Limits, *,
-                        more_sections: Sequence[Section] = (), **kw: Any) -> str:
+def render_check_report(
+    rows: Sequence[dict], analyses: Sequence, limits: Limits, *, more_sections: Sequence[Section] = (), **kw: Any
+) -> str:
     """The check report: verdicts first, the limits used, then each part with its figures
     (all of them for a part that failed, the overview for one that passed).
 
@@ -820,39 +976,63 @@ def render_check_report(rows: Sequence[dict], analyses: Sequence, limits: Limits
     kinds = [verdict_kind(r["verdict"], [n.get("code") for n in r.get("notes", [])]) for r in rows]
     table = html_table(
         ["part", "file", "verdict", "reasons", "notes"],
-        [[r["part_id"], os.path.basename(r.get("path") or ""),
-          verdict_cell(k, " (stored)" if r.get("skipped") else ""),
-          _list_cell(r.get("reasons", [])), _list_cell(r.get("notes", []))] for r, k in zip(rows, kinds)],
-        css_class="data checks")
+        [
+            [
+                r["part_id"],
+                os.path.basename(r.get("path") or ""),
+                verdict_cell(k, " (stored)" if r.get("skipped") else ""),
+                _list_cell(r.get("reasons", [])),
+                _list_cell(r.get("notes", [])),
+            ]
+            for r, k in zip(rows, kinds)
+        ],
+        css_class="data checks",
+    )
     counts = {k: sum(1 for r in rows if r["verdict"] == k) for k in ("pass", "fail", "error")}
-    head = (f"<p>{len(rows)} parts: {counts['pass']} passed, {counts['fail']} failed, {counts['error']} "
-            "errors.</p>")
+    head = f"<p>{len(rows)} parts: {counts['pass']} passed, {counts['fail']} failed, {counts['error']} errors.</p>"
     reader = getattr(limits, "reader", None) or {}
-    lim = _kv_table([
-        ("limits file", limits.source or _DASH),
-        ("SHA-256", limits.sha256 or _DASH),
-        ("coverage", fmt_value(limits.coverage, 4, missing=_DASH)),
-        ("confidence", fmt_value(limits.confidence, 4, missing=_DASH)),
-        ("good parts", limits.n_parts or _DASH),
-        ("reader", ", ".join(f"{k} {v}" for k, v in reader.items()) or "defaults"),
-        ("modes", "; ".join(
-            f"{m.index}: f_d {' to '.join(fmt_values(m.f_hz, 6))} Hz"
-            + ("" if m.zeta is None else f", ζ {' to '.join(fmt_values(m.zeta, 3))}")
-            for m in limits.modes if m.f_hz is not None) or _DASH),
-    ])
+    lim = _kv_table(
+        [
+            ("limits file", limits.source or _DASH),
+            ("SHA-256", limits.sha256 or _DASH),
+            ("coverage", fmt_value(limits.coverage, 4, missing=_DASH)),
+            ("confidence", fmt_value(limits.confidence, 4, missing=_DASH)),
+            ("good parts", limits.n_parts or _DASH),
+            ("reader", ", ".join(f"{k} {v}" for k, v in reader.items()) or "defaults"),
+            (
+                "modes",
+                "; ".join(
+                    f"{m.index}: f_d {' to '.join(fmt_values(m.f_hz, 6))} Hz"
+                    + ("" if m.zeta is None else f", ζ {' to '.join(fmt_values(m.zeta, 3))}")
+                    for m in limits.modes
+                    if m.f_hz is not None
+                )
+                or _DASH,
+            ),
+        ]
+    )
     shown = [(r, a, k) for r, a, k in zip(rows, analyses, kinds) if a is not None]
     extras = []
     for r, _a, k in shown:
         banner = verdict_cell(k)
-        extras.append(f'<div class="{banner.css_class}">{banner.text} · part '
-                      f"{_e(r['part_id'])}</div>" + _feature_table(r.get("features", [])))
+        extras.append(
+            f'<div class="{banner.css_class}">{banner.text} · part '
+            f"{_e(r['part_id'])}</div>" + _feature_table(r.get("features", []))
+        )
     kw["title"] = kw.get("title") or "Part check report"
     # every figure of a part that failed; the overview of one that passed keeps the report short
     kw.setdefault("figures", [True if k in ("fail", "error") else "overview" for _r, _a, k in shown])
-    return render_report([a for _r, a, _k in shown],
-                         extra_sections=[Section("Pass/fail", head + table, anchor="checks"),
-                                         Section("Limits used", lim, anchor="limits"), *more_sections],
-                         file_extras=extras, verdicts=[k for _r, _a, k in shown], **kw)
+    return render_report(
+        [a for _r, a, _k in shown],
+        extra_sections=[
+            Section("Pass/fail", head + table, anchor="checks"),
+            Section("Limits used", lim, anchor="limits"),
+            *more_sections,
+        ],
+        file_extras=extras,
+        verdicts=[k for _r, _a, k in shown],
+        **kw,
+    )
 
 
 # --------------------------------------------------------------------------------------------
@@ -885,11 +1065,15 @@ def moduli_section(result: ModuliResult) -> Section:
     """
     sp = result.specimen
     mm = lambda v, u: _pm(None if v is None else v * 1e3, None if u is None else u * 1e3)  # noqa: E731
-    rows = [("shape", "rectangular bar" if result.shape == "bar" else "cylindrical rod"),
-            ("length, mm", mm(sp["length_m"], sp["length_m_u"]))]
+    rows = [
+        ("shape", "rectangular bar" if result.shape == "bar" else "cylindrical rod"),
+        ("length, mm", mm(sp["length_m"], sp["length_m_u"])),
+    ]
     if result.shape == "bar":
-        rows += [("width, mm", mm(sp["width_m"], sp["width_m_u"])),
-                 ("thickness, mm", mm(sp["thickness_m"], sp["thickness_m_u"]))]
+        rows += [
+            ("width, mm", mm(sp["width_m"], sp["width_m_u"])),
+            ("thickness, mm", mm(sp["thickness_m"], sp["thickness_m_u"])),
+        ]
     else:
         rows.append(("diameter, mm", mm(sp["diameter_m"], sp["diameter_m_u"])))
     rows.append(("mass, g", _pm(sp["mass_kg"] * 1e3, sp["mass_kg_u"] * 1e3)))
@@ -897,17 +1081,28 @@ def moduli_section(result: ModuliResult) -> Section:
     gpa = lambda v, u: _pm(None if v is None else v / 1e9, None if u is None else u / 1e9)  # noqa: E731
     res_rows = [
         ("Young's modulus E, GPa", gpa(result.e_pa, result.e_pa_u), result.dominant("e_pa") or _DASH),
-        ("shear modulus G, GPa", gpa(result.g_pa, result.g_pa_u) if result.g_pa is not None else _DASH,
-         result.dominant("g_pa") or _DASH),
-        (f"Poisson's ratio ({result.poisson_source})", _pm(result.poisson, result.poisson_u),
-         result.dominant("poisson") or _DASH),
-        ("density, kg/m³", _pm(result.density_kg_per_m3, result.density_kg_per_m3_u),
-         result.dominant("density_kg_per_m3") or _DASH),
+        (
+            "shear modulus G, GPa",
+            gpa(result.g_pa, result.g_pa_u) if result.g_pa is not None else _DASH,
+            result.dominant("g_pa") or _DASH,
+        ),
+        (
+            f"Poisson's ratio ({result.poisson_source})",
+            _pm(result.poisson, result.poisson_u),
+            result.dominant("poisson") or _DASH,
+        ),
+        (
+            "density, kg/m³",
+            _pm(result.density_kg_per_m3, result.density_kg_per_m3_u),
+            result.dominant("density_kg_per_m3") or _DASH,
+        ),
     ]
-    out += ["<h3>Moduli</h3>",
-            '<p class="legend">Values v(u): u is the standard uncertainty (k = 1) in units of the last digit; the dominant input has the largest share of '
-            "the variance.</p>",
-            html_table(("quantity", "value", "dominant input"), res_rows, numeric=[False, True, False])]
+    out += [
+        "<h3>Moduli</h3>",
+        '<p class="legend">Values v(u): u is the standard uncertainty (k = 1) in units of the last digit; the dominant input has the largest share of '
+        "the variance.</p>",
+        html_table(("quantity", "value", "dominant input"), res_rows, numeric=[False, True, False]),
+    ]
     factors = f"T1 = {fmt_value(result.t1, 6)}"
     if result.r_factor is not None:
         factors += f", R = {fmt_value(result.r_factor, 6)}"
@@ -918,28 +1113,57 @@ def moduli_section(result: ModuliResult) -> Section:
         if m is None:
             continue
         where = _DASH if m.source is None else f"{os.path.basename(m.source)}, mode {m.mode_index}"
-        window = _DASH if m.predicted_low_hz is None else " to ".join(fmt_values([m.predicted_low_hz, m.predicted_high_hz], 6))
-        mode_rows.append((m.role, _pm(m.f_hz, m.f_hz_u), _pm(m.loss_factor, m.loss_factor_u), where,
-                          window, m.rule))
-    out += ["<h3>Modes used</h3>",
-            html_table(("mode", "f, Hz", "loss factor η", "from", "predicted window, Hz", "how it was chosen"),
-                       mode_rows, numeric=[False, True, True, False, True, False])]
-    pred_rows = [(p["mode"].replace("_", " "), fmt_value(p["f_hz"], 6, missing=_DASH), " to ".join(fmt_values([p["low_hz"], p["high_hz"]], 6)),
-                  _DASH if p["found_hz"] is None else fmt_value(p["found_hz"], 6, missing=_DASH)) for p in result.predictions]
-    out += ["<h4>Predicted modes</h4>",
-            html_table(("mode", "predicted, Hz", "window, Hz", "found, Hz"), pred_rows,
-                       numeric=[False, True, True, True])]
+        window = (
+            _DASH
+            if m.predicted_low_hz is None
+            else " to ".join(fmt_values([m.predicted_low_hz, m.predicted_high_hz], 6))
+        )
+        mode_rows.append((m.role, _pm(m.f_hz, m.f_hz_u), _pm(m.loss_factor, m.loss_factor_u), where, window, m.rule))
+    out += [
+        "<h3>Modes used</h3>",
+        html_table(
+            ("mode", "f, Hz", "loss factor η", "from", "predicted window, Hz", "how it was chosen"),
+            mode_rows,
+            numeric=[False, True, True, False, True, False],
+        ),
+    ]
+    pred_rows = [
+        (
+            p["mode"].replace("_", " "),
+            fmt_value(p["f_hz"], 6, missing=_DASH),
+            " to ".join(fmt_values([p["low_hz"], p["high_hz"]], 6)),
+            _DASH if p["found_hz"] is None else fmt_value(p["found_hz"], 6, missing=_DASH),
+        )
+        for p in result.predictions
+    ]
+    out += [
+        "<h4>Predicted modes</h4>",
+        html_table(("mode", "predicted, Hz", "window, Hz", "found, Hz"), pred_rows, numeric=[False, True, True, True]),
+    ]
     unit = {"e_pa": "Pa", "g_pa": "Pa", "poisson": "", "density_kg_per_m3": "kg/m³"}
-    b_rows = [(b.quantity, b.input, fmt_value(b.input_value, 6, missing=_DASH), fmt_value(b.input_u, 3, missing=_DASH),
-               fmt_value(b.sensitivity, 4, missing=_DASH),
-               f"{fmt_value(b.contribution, 3, missing=_DASH)} {unit.get(b.quantity, '')}".rstrip(),
-               f"{fmt_fixed(100 * b.share, 1)} %")
-              for b in result.budget if b.input_u > 0]
-    out += ["<h3>Uncertainty budget</h3>",
-            html_table(("quantity", "input", "value (SI)", "u (SI)", "sensitivity", "contribution", "share"),
-                       b_rows, numeric=[False, False, True, True, True, True, True])]
+    b_rows = [
+        (
+            b.quantity,
+            b.input,
+            fmt_value(b.input_value, 6, missing=_DASH),
+            fmt_value(b.input_u, 3, missing=_DASH),
+            fmt_value(b.sensitivity, 4, missing=_DASH),
+            f"{fmt_value(b.contribution, 3, missing=_DASH)} {unit.get(b.quantity, '')}".rstrip(),
+            f"{fmt_fixed(100 * b.share, 1)} %",
+        )
+        for b in result.budget
+        if b.input_u > 0
+    ]
+    out += [
+        "<h3>Uncertainty budget</h3>",
+        html_table(
+            ("quantity", "input", "value (SI)", "u (SI)", "sensitivity", "contribution", "share"),
+            b_rows,
+            numeric=[False, False, True, True, True, True, True],
+        ),
+    ]
     if result.warnings:
-        lis = "".join(f"<li>{_e(w.message)} <span class=\"code\">({_e(w.code)})</span></li>" for w in result.warnings)
+        lis = "".join(f'<li>{_e(w.message)} <span class="code">({_e(w.code)})</span></li>' for w in result.warnings)
         out.append(f'<h3>Warnings</h3><ul class="warnings">{lis}</ul>')
     out.append(_MODULI_FORMULAS)
     return Section(MODULI_SECTION_TITLE, "".join(out), anchor="moduli")

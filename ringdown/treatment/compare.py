@@ -208,8 +208,7 @@ class ConditionMode:
     t60_s_u = ReadThrough[float | None]("uncertainties", "t60_s")
 
     def to_dict(self) -> dict:
-        d: dict[str, Any] = {"side": self.side, "n_repeats": self.n_repeats,
-                             "n_repeats_side": self.n_repeats_side}
+        d: dict[str, Any] = {"side": self.side, "n_repeats": self.n_repeats, "n_repeats_side": self.n_repeats_side}
         for q in QUANTITIES:
             d[q] = self.values[q]
             d[q + "_u"] = self.uncertainties[q]
@@ -295,7 +294,7 @@ class FrequencyShift:
             f0 = None
         else:
             f0 = self.shift_hz / self.relative
-        scale = (lambda v: None if v is None or f0 is None else 100.0 * v / f0)  # noqa: E731
+        scale = lambda v: None if v is None or f0 is None else 100.0 * v / f0  # noqa: E731
         return 100.0 * self.relative, scale(self.low_hz), scale(self.high_hz)
 
     def to_dict(self) -> dict:
@@ -606,9 +605,7 @@ def _as_analyses(items, side: str, analysis_options: dict) -> list[Analysis]:
     paths = [(k, os.fspath(it)) for k, it in enumerate(items) if isinstance(it, (str, os.PathLike))]
     for k, it in enumerate(items):
         if not isinstance(it, (Analysis, str, os.PathLike)):
-            raise ParameterError(
-                f"{side}[{k}] is a {type(it).__name__}; give an Analysis or a file path"
-            )
+            raise ParameterError(f"{side}[{k}] is a {type(it).__name__}; give an Analysis or a file path")
     out: list[Any] = list(items)
     if paths:
         from ..analysis.pipeline import analyze_many  # imported here: the pipeline is only needed for paths
@@ -640,8 +637,9 @@ def _repeats_of(analysis: Analysis, label: str, side: str, first_repeat: int) ->
     for r, (source, modes, hit_codes) in enumerate(groups):
         out.append(
             [
-                _Member(mode=m, source=source, repeat=first_repeat + r,
-                        codes=tuple(set(m.warning_codes) | set(hit_codes)))
+                _Member(
+                    mode=m, source=source, repeat=first_repeat + r, codes=tuple(set(m.warning_codes) | set(hit_codes))
+                )
                 for m in modes
             ]
         )
@@ -728,15 +726,15 @@ def compare(
     pooled = {}
     for side, (_, repeats) in sides.items():
         clusters = _pool(repeats, cluster_tolerance)
-        pooled[side] = [
-            (c, _condition_mode(side, c, len(repeats), confidence)) for c in clusters
-        ]
+        pooled[side] = [(c, _condition_mode(side, c, len(repeats), confidence)) for c in clusters]
 
     f_b = [cm.values["f_d_hz"] for _, cm in pooled["before"]]
     f_a = [cm.values["f_d_hz"] for _, cm in pooled["after"]]
     pairs = match_frequencies(f_b, f_a, tolerance=tolerance)
-    modes = [_mode_comparison(idx, pooled["before"][i], pooled["after"][j], confidence)
-             for idx, (i, j) in enumerate(pairs, start=1)]
+    modes = [
+        _mode_comparison(idx, pooled["before"][i], pooled["after"][j], confidence)
+        for idx, (i, j) in enumerate(pairs, start=1)
+    ]
 
     paired_b = {i for i, _ in pairs}
     paired_a = {j for _, j in pairs}
@@ -744,11 +742,13 @@ def compare(
     unmatched_a = tuple(cm for k, (_, cm) in enumerate(pooled["after"]) if k not in paired_a)
     if unmatched_b or unmatched_a:
         fmt = lambda ms: ", ".join(f"{cm.values['f_d_hz']:.1f} Hz" for cm in ms) or "none"  # noqa: E731
-        notices.append(Notice(
-            "unmatched_modes",
-            f"modes with no partner within {100 * tolerance:g} %: before {fmt(unmatched_b)}; "
-            f"after {fmt(unmatched_a)}",
-        ))
+        notices.append(
+            Notice(
+                "unmatched_modes",
+                f"modes with no partner within {100 * tolerance:g} %: before {fmt(unmatched_b)}; "
+                f"after {fmt(unmatched_a)}",
+            )
+        )
 
     settings = {
         "tolerance": float(tolerance),
@@ -787,8 +787,9 @@ def _check_compare_options(tolerance: float, confidence: float, cluster_toleranc
         )
 
 
-def _one_side(side: str, items: Sequence[Any], analysis_options: dict, inputs: list[ComparisonInput],
-              notices: list[Notice]) -> tuple[list[Analysis], list[list[_Member]]]:
+def _one_side(
+    side: str, items: Sequence[Any], analysis_options: dict, inputs: list[ComparisonInput], notices: list[Notice]
+) -> tuple[list[Analysis], list[list[_Member]]]:
     """The analyses of one condition and their repeats (one per used hit); appends each input's
     record to ``inputs`` and the side's notices to ``notices``."""
     analyses = _as_analyses(items, side, analysis_options)
@@ -808,30 +809,37 @@ def _one_side(side: str, items: Sequence[Any], analysis_options: dict, inputs: l
             "check the files (see each one with 'ringdown analyze') or lower min_snr_db"
         )
     if len(repeats) < MIN_REPEATS:
-        notices.append(Notice(
-            "few_repeats",
-            f"{side}: only {len(repeats)} repeat(s); at least {MIN_REPEATS} are needed for a "
-            "useful scatter estimate, so intervals are wide or rest on propagated uncertainties",
-        ))
+        notices.append(
+            Notice(
+                "few_repeats",
+                f"{side}: only {len(repeats)} repeat(s); at least {MIN_REPEATS} are needed for a "
+                "useful scatter estimate, so intervals are wide or rest on propagated uncertainties",
+            )
+        )
     return analyses, repeats
 
 
 def _note_differences(sides: dict, notices: list[Notice]) -> None:
     """Sample rates and channels may differ between the sides; that is fine but worth noting."""
-    for attr, code, what in (("sample_rate_hz", "sample_rate_differs", "sample rate"),
-                             ("channel", "channel_differs", "channel")):
+    for attr, code, what in (
+        ("sample_rate_hz", "sample_rate_differs", "sample rate"),
+        ("channel", "channel_differs", "channel"),
+    ):
         vals = {s: sorted({str(getattr(a, attr)) for a in sides[s][0] if a.error is None}) for s in sides}
         if vals["before"] != vals["after"]:
-            notices.append(Notice(
-                code,
-                f"{what} differs between conditions (before: {', '.join(vals['before'])}; "
-                f"after: {', '.join(vals['after'])}); the comparison is still valid if the same "
-                "sensor position and a band below both Nyquist limits were used",
-            ))
+            notices.append(
+                Notice(
+                    code,
+                    f"{what} differs between conditions (before: {', '.join(vals['before'])}; "
+                    f"after: {', '.join(vals['after'])}); the comparison is still valid if the same "
+                    "sensor position and a band below both Nyquist limits were used",
+                )
+            )
 
 
-def _mode_comparison(idx: int, before: tuple[list[_Member], ConditionMode],
-                     after: tuple[list[_Member], ConditionMode], confidence: float) -> ModeComparison:
+def _mode_comparison(
+    idx: int, before: tuple[list[_Member], ConditionMode], after: tuple[list[_Member], ConditionMode], confidence: float
+) -> ModeComparison:
     """One paired mode: its damping change (on ln zeta), its frequency shift and its warnings."""
     mb, cb = before
     ma, ca = after
@@ -865,26 +873,31 @@ def _mode_comparison(idx: int, before: tuple[list[_Member], ConditionMode],
     warnings: list[Notice] = []
     for cm in (cb, ca):
         if cm.n_repeats < MIN_REPEATS:
-            warnings.append(Notice(
-                "few_repeats",
-                f"{cm.side}: this mode was measured in {cm.n_repeats} repeat(s) "
-                f"(fewer than {MIN_REPEATS})",
-            ))
+            warnings.append(
+                Notice(
+                    "few_repeats",
+                    f"{cm.side}: this mode was measured in {cm.n_repeats} repeat(s) (fewer than {MIN_REPEATS})",
+                )
+            )
         if 2 * cm.n_repeats < cm.n_repeats_side:
-            warnings.append(Notice(
-                "mode_sporadic",
-                f"{cm.side}: this mode was found in only {cm.n_repeats} of "
-                f"{cm.n_repeats_side} repeats",
-            ))
+            warnings.append(
+                Notice(
+                    "mode_sporadic",
+                    f"{cm.side}: this mode was found in only {cm.n_repeats} of {cm.n_repeats_side} repeats",
+                )
+            )
     warnings.extend(cb.warnings)
     warnings.extend(ca.warnings)
     if damping.test == "none":
-        warnings.append(Notice(
-            "not_tested", "no uncertainty available for the damping of this mode; no verdict"
-        ))
+        warnings.append(Notice("not_tested", "no uncertainty available for the damping of this mode; no verdict"))
     return ModeComparison(
-        index=idx, before=cb, after=ca, changes=_changes(cb, ca),
-        damping=damping, frequency=freq, warnings=tuple(warnings),
+        index=idx,
+        before=cb,
+        after=ca,
+        changes=_changes(cb, ca),
+        damping=damping,
+        frequency=freq,
+        warnings=tuple(warnings),
     )
 
 
@@ -907,6 +920,7 @@ def comparison_rows(comparison: Comparison) -> list[dict]:
     frequency shift, the damping ratio with its interval, test and verdict, and the warning codes
     joined by ``;``. Missing values are ``None``.
     """
+
     def side(prefix, cm):
         d = {}
         for q in QUANTITIES:

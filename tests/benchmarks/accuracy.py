@@ -38,9 +38,9 @@ import numpy as np
 import ringdown
 from ringdown.analysis.bands import extract_band, settling_time_s, spectrum_of
 from ringdown.analysis.crlb import crlb_damped_sinusoid
-from ringdown.base.errors import FitError
 from ringdown.analysis.estimators import pencil
 from ringdown.analysis.estimators.base import Window
+from ringdown.base.errors import FitError
 
 FS = 8000.0  # Hz
 F_HZ = 1234.5  # off the FFT bin grid on purpose
@@ -97,8 +97,9 @@ def _one(rng, beta, snr_db):
             out["pencil alone, wide band"] = (e.f_d_hz, e.beta_per_s)
     except FitError:
         pass
-    bound = crlb_damped_sinusoid(n_samples=n, sample_rate=FS, amplitude=a, beta_per_s=beta, f_hz=F_HZ,
-                                 phase_rad=phi, noise_sigma=sigma)
+    bound = crlb_damped_sinusoid(
+        n_samples=n, sample_rate=FS, amplitude=a, beta_per_s=beta, f_hz=F_HZ, phase_rad=phi, noise_sigma=sigma
+    )
     return out, bound
 
 
@@ -127,11 +128,18 @@ def main(trials: int = 100) -> None:
                     continue
                 err_f = r[:, 0] - F_HZ
                 err_b = r[:, 1] - beta
-                rows.append((
-                    snr_db, beta, m, found,
-                    math.sqrt(np.mean(err_b**2)) / crlb_b, 100.0 * np.mean(err_b) / beta,
-                    math.sqrt(np.mean(err_f**2)) / crlb_f, np.mean(err_f),
-                ))
+                rows.append(
+                    (
+                        snr_db,
+                        beta,
+                        m,
+                        found,
+                        math.sqrt(np.mean(err_b**2)) / crlb_b,
+                        100.0 * np.mean(err_b) / beta,
+                        math.sqrt(np.mean(err_f**2)) / crlb_f,
+                        np.mean(err_f),
+                    )
+                )
     elapsed = time.perf_counter() - t_start
 
     def fmt(v, spec):
@@ -142,8 +150,10 @@ def main(trials: int = 100) -> None:
     print("| onset SNR dB | beta 1/s | method | found | RMSE(beta)/CRLB | bias(beta) % | RMSE(f)/CRLB | bias(f) Hz |")
     print("|---:|---:|---|---:|---:|---:|---:|---:|")
     for snr_db, beta, m, found, rb, bb, rf, bf in rows:
-        print(f"| {snr_db:g} | {beta:g} | {m} | {found:.2f} | {fmt(rb, '.2f')} | {fmt(bb, '+.2f')} | "
-              f"{fmt(rf, '.2f')} | {fmt(bf, '+.2g')} |")
+        print(
+            f"| {snr_db:g} | {beta:g} | {m} | {found:.2f} | {fmt(rb, '.2f')} | {fmt(bb, '+.2f')} | "
+            f"{fmt(rf, '.2f')} | {fmt(bf, '+.2g')} |"
+        )
     print(f"\n({elapsed:.0f} s)")
 
 

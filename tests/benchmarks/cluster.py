@@ -69,8 +69,10 @@ def main(n_files: int = 200) -> None:
                 cluster.close()
             rows.append((f"LocalCluster, {n} worker process{'es' if n > 1 else ''} x 1 thread", dt, t_start))
     load = os.getloadavg()
-    print(f"{n_files} files (links to 17 example recordings), {os.cpu_count()} cores, load average "
-          f"{load[0]:.1f} / {load[1]:.1f} / {load[2]:.1f} (1/5/15 min): a shared machine, figures are noisy.\n")
+    print(
+        f"{n_files} files (links to 17 example recordings), {os.cpu_count()} cores, load average "
+        f"{load[0]:.1f} / {load[1]:.1f} / {load[2]:.1f} (1/5/15 min): a shared machine, figures are noisy.\n"
+    )
     print("| batch | time s | files/s | start-up s |")
     print("|---|---:|---:|---:|")
     for label, dt, start in rows:

@@ -109,8 +109,17 @@ def make_record(rng):
         d = mf_snr(amp, beta, t_first, float(density(f_d)))
         cycles = f_d * math.log(max(d, 1.0)) / (2.0 * beta)
         level_db = 20 * math.log10(amp / strongest[2])
-        truth.append(dict(f=f_d, beta=beta, q=q, d_db=10 * math.log10(max(d, 1e-300)), cycles=cycles,
-                          level_db=level_db, clear=(10 * math.log10(max(d, 1e-300)) >= 30.0 and cycles >= 10.0)))
+        truth.append(
+            dict(
+                f=f_d,
+                beta=beta,
+                q=q,
+                d_db=10 * math.log10(max(d, 1e-300)),
+                cycles=cycles,
+                level_db=level_db,
+                clear=(10 * math.log10(max(d, 1e-300)) >= 30.0 and cycles >= 10.0),
+            )
+        )
     return q16 / scale, fs, truth
 
 
@@ -168,11 +177,16 @@ def main(n_records: int = 60, n_noise: int = 200, seed: int = 20261201) -> None:
     clear = [r for r in rows if r["clear"]]
 
     def recall(sel):
-        return (f"{100 * sum(r['found'] for r in sel) / len(sel):.1f} % ({sum(r['found'] for r in sel)}/{len(sel)})"
-                if sel else "-")
+        return (
+            f"{100 * sum(r['found'] for r in sel) / len(sel):.1f} % ({sum(r['found'] for r in sel)}/{len(sel)})"
+            if sel
+            else "-"
+        )
 
-    print(f"{n_records} records ({sum(len(r) for r in [rows])} modes, {len(clear)} clearly detectable: matched-filter "
-          f"SNR >= 30 dB and >= 10 cycles), seed {seed}; {n_noise} noise-only records.\n")
+    print(
+        f"{n_records} records ({sum(len(r) for r in [rows])} modes, {len(clear)} clearly detectable: matched-filter "
+        f"SNR >= 30 dB and >= 10 cycles), seed {seed}; {n_noise} noise-only records.\n"
+    )
     print("| population | recall of clearly detectable modes |")
     print("|---|---:|")
     print(f"| all | {recall(clear)} |")
@@ -180,7 +194,7 @@ def main(n_records: int = 60, n_noise: int = 200, seed: int = 20261201) -> None:
     for r in clear:
         by_q[int(math.floor(math.log10(r["q"])))].append(r)
     for dec in sorted(by_q):
-        lo = max(3, 10 ** dec)
+        lo = max(3, 10**dec)
         print(f"| Q {lo:g}-{10 ** (dec + 1):g} | {recall(by_q[dec])} |")
     by_lvl = defaultdict(list)
     for r in clear:
@@ -206,6 +220,6 @@ if __name__ == "__main__":
     if "--detection" in argv:
         k = argv.index("--detection")
         DETECTION = argv[k + 1]
-        del argv[k:k + 2]
+        del argv[k : k + 2]
     print(f"detection = {DETECTION!r}")
     main(*[int(a) for a in argv])

@@ -32,17 +32,20 @@ FS = 48_000
 
 #: The child prints its own peak resident memory (ru_maxrss, KiB on Linux) and CPU time (user +
 #: system, s: what the analysis cost, whatever else the machine was running) as it exits.
-_CHILD = ("import resource, sys\nfrom ringdown.cli import main\ntry:\n    main()\nfinally:\n"
-          "    r = resource.getrusage(resource.RUSAGE_SELF)\n"
-          "    sys.stderr.write(f'\\nMAXRSS {r.ru_maxrss} CPU {r.ru_utime + r.ru_stime}\\n')\n")
+_CHILD = (
+    "import resource, sys\nfrom ringdown.cli import main\ntry:\n    main()\nfinally:\n"
+    "    r = resource.getrusage(resource.RUSAGE_SELF)\n"
+    "    sys.stderr.write(f'\\nMAXRSS {r.ru_maxrss} CPU {r.ru_utime + r.ru_stime}\\n')\n"
+)
 
 
 def _measure(path: Path) -> tuple[float, float, float, int, int]:
     """(wall s, CPU s, peak RSS MB, hits, modes) of ``ringdown analyze --json PATH`` in a fresh process."""
     env = dict(os.environ, OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1", MKL_NUM_THREADS="1")
     t0 = time.perf_counter()
-    out = subprocess.run([sys.executable, "-c", _CHILD, "analyze", "--json", str(path)],
-                         capture_output=True, text=True, env=env)
+    out = subprocess.run(
+        [sys.executable, "-c", _CHILD, "analyze", "--json", str(path)], capture_output=True, text=True, env=env
+    )
     dt = time.perf_counter() - t0
     if out.returncode != 0:
         raise SystemExit(f"analyze failed on {path}: {out.stderr.strip()}")
@@ -53,8 +56,10 @@ def _measure(path: Path) -> tuple[float, float, float, int, int]:
 
 
 def main(minutes: list[float]) -> None:
-    print("| record | length | taps written | hits found | modes | wall time [s] | CPU time [s] | CPU s per minute "
-          "| peak RSS [MB] |")
+    print(
+        "| record | length | taps written | hits found | modes | wall time [s] | CPU time [s] | CPU s per minute "
+        "| peak RSS [MB] |"
+    )
     print("|---|---|---|---|---|---|---|---|---|")
     with tempfile.TemporaryDirectory(prefix="ringdown-long-") as tmp:
         for kind, period in (("one tap", None), ("tap every 2 s", 2.0)):
@@ -62,8 +67,11 @@ def main(minutes: list[float]) -> None:
                 path = Path(tmp) / f"{kind.replace(' ', '_')}_{m:g}min.wav"
                 taps = write_long_record(path, duration_s=60.0 * m, sample_rate=FS, period_s=period)
                 dt, cpu, rss, hits, modes = _measure(path)
-                print(f"| {kind} | {m:g} min | {len(taps)} | {hits} | {modes} | {dt:.1f} | {cpu:.1f} | {cpu / m:.2f} | "
-                      f"{rss:.0f} |", flush=True)
+                print(
+                    f"| {kind} | {m:g} min | {len(taps)} | {hits} | {modes} | {dt:.1f} | {cpu:.1f} | {cpu / m:.2f} | "
+                    f"{rss:.0f} |",
+                    flush=True,
+                )
                 path.unlink()
 
 

@@ -46,8 +46,14 @@ import numpy as np
 
 FS = 48000
 MODES = ((0.5, 4.0, 440.0, 0.1), (0.3, 9.0, 1370.0, 1.0), (0.2, 20.0, 3120.0, 2.0))
-THREAD_VARS = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS", "BLIS_NUM_THREADS",
-               "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS")
+THREAD_VARS = (
+    "OPENBLAS_NUM_THREADS",
+    "OMP_NUM_THREADS",
+    "MKL_NUM_THREADS",
+    "BLIS_NUM_THREADS",
+    "VECLIB_MAXIMUM_THREADS",
+    "NUMEXPR_NUM_THREADS",
+)
 HERE = Path(__file__).resolve()
 ROOT = HERE.parents[2]
 
@@ -108,8 +114,10 @@ def _alternate(fns: dict, repeats: int) -> dict[str, float]:
             fn()
             times[k].append(time.perf_counter() - t0)
             cpu[k].append(time.process_time() - c0)
-    return {**{k: statistics.median(v) for k, v in times.items()},
-            **{k + "_cpu": statistics.median(v) for k, v in cpu.items()}}
+    return {
+        **{k: statistics.median(v) for k, v in times.items()},
+        **{k + "_cpu": statistics.median(v) for k, v in cpu.items()},
+    }
 
 
 # ----------------------------------------------------------------------------------------------
@@ -131,8 +139,14 @@ def _child_analyze(path: str, repeats: int, limit: str) -> None:
         raise SystemExit(f"analysis failed: {an.error.message}")
     _script(path)
     _floor(path)
-    med = _alternate({"floor": lambda: _floor(path), "ringdown": lambda: ringdown.analyze_file(path),
-                      "script": lambda: _script(path)}, repeats)
+    med = _alternate(
+        {
+            "floor": lambda: _floor(path),
+            "ringdown": lambda: ringdown.analyze_file(path),
+            "script": lambda: _script(path),
+        },
+        repeats,
+    )
 
     def err(pairs):
         # relative error in beta of the found mode nearest each simulated one (within 5 Hz)
@@ -142,9 +156,16 @@ def _child_analyze(path: str, repeats: int, limit: str) -> None:
             out[str(f)] = min(abs(pb / b - 1.0) for pb in near) if near else None
         return out
 
-    print(json.dumps({**med, "n_modes": len(an.modes),
-                      "err_ringdown": err([(m.f_d_hz, m.beta_per_s) for m in an.modes]),
-                      "err_script": err(_script(path))}))
+    print(
+        json.dumps(
+            {
+                **med,
+                "n_modes": len(an.modes),
+                "err_ringdown": err([(m.f_d_hz, m.beta_per_s) for m in an.modes]),
+                "err_script": err(_script(path)),
+            }
+        )
+    )
 
 
 def _child_long(path: str, warm: str) -> None:
@@ -155,8 +176,16 @@ def _child_long(path: str, warm: str) -> None:
     an = ringdown.analyze_file(path)
     dt = time.perf_counter() - t0
     rss_kib = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss  # KiB on Linux
-    print(json.dumps({"time_s": dt, "rss_mib": rss_kib / 1024.0, "n_modes": len(an.modes),
-                      "error": None if an.error is None else an.error.message}))
+    print(
+        json.dumps(
+            {
+                "time_s": dt,
+                "rss_mib": rss_kib / 1024.0,
+                "n_modes": len(an.modes),
+                "error": None if an.error is None else an.error.message,
+            }
+        )
+    )
 
 
 def _env(*, one_thread: bool) -> dict:
@@ -199,18 +228,32 @@ def main(repeats: int = 7, quick: bool = False) -> None:
         _write(path)
         default_env, one_env = _env(one_thread=False), _env(one_thread=True)
 
-        rows = [("default BLAS threads (no variable set)", _run_child(["--child-analyze", str(path), str(repeats), "on"], default_env)),
-                ("OPENBLAS_NUM_THREADS=1 etc.", _run_child(["--child-analyze", str(path), str(repeats), "on"], one_env)),
-                ("default threads, library limit off", _run_child(["--child-analyze", str(path), str(repeats), "off"], default_env))]
-        print(f"2 s, {FS} Hz, 3-mode WAV; medians of {repeats} alternating runs in a fresh process each; "
-              f"{rows[0][1]['n_modes']} modes found.\n")
-        print("| threads | floor ms | ringdown.analyze_file ms | / floor | hand-written script ms | / floor "
-              "| CPU: ringdown / floor | CPU: script / floor |")
+        rows = [
+            (
+                "default BLAS threads (no variable set)",
+                _run_child(["--child-analyze", str(path), str(repeats), "on"], default_env),
+            ),
+            ("OPENBLAS_NUM_THREADS=1 etc.", _run_child(["--child-analyze", str(path), str(repeats), "on"], one_env)),
+            (
+                "default threads, library limit off",
+                _run_child(["--child-analyze", str(path), str(repeats), "off"], default_env),
+            ),
+        ]
+        print(
+            f"2 s, {FS} Hz, 3-mode WAV; medians of {repeats} alternating runs in a fresh process each; "
+            f"{rows[0][1]['n_modes']} modes found.\n"
+        )
+        print(
+            "| threads | floor ms | ringdown.analyze_file ms | / floor | hand-written script ms | / floor "
+            "| CPU: ringdown / floor | CPU: script / floor |"
+        )
         print("|---|---:|---:|---:|---:|---:|---:|---:|")
         for name, r in rows:
-            print(f"| {name} | {1e3 * r['floor']:.2f} | {1e3 * r['ringdown']:.1f} | {r['ringdown'] / r['floor']:.1f} "
-                  f"| {1e3 * r['script']:.1f} | {r['script'] / r['floor']:.1f} "
-                  f"| {r['ringdown_cpu'] / r['floor_cpu']:.1f} | {r['script_cpu'] / r['floor_cpu']:.1f} |")
+            print(
+                f"| {name} | {1e3 * r['floor']:.2f} | {1e3 * r['ringdown']:.1f} | {r['ringdown'] / r['floor']:.1f} "
+                f"| {1e3 * r['script']:.1f} | {r['script'] / r['floor']:.1f} "
+                f"| {r['ringdown_cpu'] / r['floor_cpu']:.1f} | {r['script_cpu'] / r['floor_cpu']:.1f} |"
+            )
         r = rows[0][1]
         print("\n| simulated mode | beta error, ringdown | beta error, hand-written script |")
         print("|---|---:|---:|")
@@ -255,7 +298,9 @@ def main(repeats: int = 7, quick: bool = False) -> None:
             p.unlink()
             t2 = r["time_s"] if t2 is None else t2
             note = "" if r["error"] is None else f" (error: {r['error']})"
-            print(f"| {dur:g} s | {r['time_s']:.2f} | {r['time_s'] / t2:.0f} | {dur / 2.0:.0f} | {r['rss_mib']:.0f}{note} |")
+            print(
+                f"| {dur:g} s | {r['time_s']:.2f} | {r['time_s'] / t2:.0f} | {dur / 2.0:.0f} | {r['rss_mib']:.0f}{note} |"
+            )
     print(f"\n({time.perf_counter() - t_start:.0f} s)")
 
 

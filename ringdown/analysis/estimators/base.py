@@ -14,8 +14,8 @@ Estimators never read files, print or plot. Register a new one in ``ESTIMATORS``
 
 from __future__ import annotations
 
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from typing import Callable, Sequence
 
 from ..bands import Band
 from ..results import Estimate
@@ -46,7 +46,7 @@ class Window:
     onset_s: float
     model_end_s: float | None = None
 
-    def for_model_fit(self) -> "Window":
+    def for_model_fit(self) -> Window:
         """The window a direct (non-logarithmic) fit of the envelope may use."""
         if self.model_end_s is None or self.model_end_s <= self.end_s:
             return self

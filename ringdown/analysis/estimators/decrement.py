@@ -16,8 +16,8 @@ import math
 
 import numpy as np
 
-from ..bands import Band
 from ...base.errors import FitError
+from ..bands import Band
 from ..results import Estimate
 from ._fit import weighted_line
 from .base import Window

@@ -19,8 +19,8 @@ import math
 
 import numpy as np
 
-from ..bands import Band
 from ...base.errors import FitError
+from ..bands import Band
 from ..results import Estimate, ModeTrace
 from ._fit import weighted_line
 from .base import Window
@@ -53,7 +53,9 @@ def estimate(band: Band, window: Window) -> list[Estimate]:
     z = band.z[sl]
     t = band.t_s[sl]
     if z.shape[0] < 4:
-        raise FitError(f"envelope fit window {window.start_s:.4g}-{window.end_s:.4g} s holds {z.shape[0]} samples; need >= 4")
+        raise FitError(
+            f"envelope fit window {window.start_s:.4g}-{window.end_s:.4g} s holds {z.shape[0]} samples; need >= 4"
+        )
     amp = np.abs(z)
     if np.any(amp <= 0):
         raise FitError("envelope is zero inside the fit window")

@@ -17,8 +17,8 @@ import math
 
 import numpy as np
 
-from ..bands import Band
 from ...base.errors import FitError
+from ..bands import Band
 from ..results import Estimate, Notice
 from .base import Window
 
@@ -72,9 +72,7 @@ def estimate(band: Band, window: Window) -> list[Estimate]:
     from scipy.optimize import curve_fit
 
     try:
-        popt, pcov = curve_fit(
-            _lorentz, f[sel], p[sel], p0=(p[k], f[k], g0, float(np.min(p[sel]))), maxfev=4000
-        )
+        popt, pcov = curve_fit(_lorentz, f[sel], p[sel], p0=(p[k], f[k], g0, float(np.min(p[sel]))), maxfev=4000)
     except (RuntimeError, ValueError) as exc:
         raise FitError(f"half-power Lorentzian fit did not converge: {exc}") from exc
     p0, f0, g, _ = popt

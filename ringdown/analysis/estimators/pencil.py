@@ -67,8 +67,8 @@ import math
 import numpy as np
 
 from ...base._lazy import lazy_module
-from ..bands import Band
 from ...base.errors import FitError
+from ..bands import Band
 from ..results import Estimate, ModeTrace, Notice
 from .base import Window
 
@@ -247,8 +247,9 @@ def _fit(zd: np.ndarray, t: np.ndarray, poles0: np.ndarray):
     x0[0::2] = -poles0.real * dt
     x0[1::2] = poles0.imag * dt
     prob = _Projection(zd, t, dt, 20.0 / max(t[-1], dt))
-    x, _, _, _, ier = scipy_optimize.leastsq(prob.resid, x0, Dfun=prob.jac, full_output=True, xtol=1e-12,
-                                             ftol=1e-12, gtol=1e-12, maxfev=200 * (2 * k + 1))
+    x, _, _, _, ier = scipy_optimize.leastsq(
+        prob.resid, x0, Dfun=prob.jac, full_output=True, xtol=1e-12, ftol=1e-12, gtol=1e-12, maxfev=200 * (2 * k + 1)
+    )
     poles = prob.poles_of(x)
     phi = _basis(poles, t)
     c, *_ = np.linalg.lstsq(phi, zd, rcond=None)
@@ -408,9 +409,13 @@ def estimate(band: Band, window: Window) -> list[Estimate]:
         warn: list[Notice] = []
         if i in unresolved:
             others = ", ".join(f"{f_all[j]:.6g}" for j in sorted(unresolved) if j != i)
-            warn.append(Notice("unresolved_modes",
-                               f"mode at {f_hz:.6g} Hz is closer to the mode(s) at {others} Hz than a "
-                               f"{t_w:.3g} s window resolves; lengthen the window or treat the pair as one"))
+            warn.append(
+                Notice(
+                    "unresolved_modes",
+                    f"mode at {f_hz:.6g} Hz is closer to the mode(s) at {others} Hz than a "
+                    f"{t_w:.3g} s window resolves; lengthen the window or treat the pair as one",
+                )
+            )
         trace = ModeTrace(
             t_s=band.t_s,
             envelope=env,

@@ -133,8 +133,9 @@ def estimate_real(
         return y - phi @ c
 
     try:
-        res = scipy_optimize.least_squares(resid, x0, method="lm", x_scale="jac", xtol=1e-12, ftol=1e-12,
-                                           gtol=1e-12, max_nfev=10 * (2 * k + 1))
+        res = scipy_optimize.least_squares(
+            resid, x0, method="lm", x_scale="jac", xtol=1e-12, ftol=1e-12, gtol=1e-12, max_nfev=10 * (2 * k + 1)
+        )
     except (np.linalg.LinAlgError, ValueError) as exc:
         raise FitError(f"the fit of the record from {t0_s:.4g} s failed ({exc})") from exc
     beta, omega = unpack(res.x)
@@ -171,18 +172,20 @@ def estimate_real(
         if not (beta[i] > 0 and omega[i] > 0 and omega[i] / (2 * math.pi) < fs / 2.0):
             continue
         amp = float(math.hypot(c[i], c[k + i]))
-        out.append(Estimate(
-            method="pencil",
-            f_d_hz=float(omega[i] / (2 * math.pi)),
-            f_d_hz_u=float(math.sqrt(max(cov[4 * i + 1, 4 * i + 1], 0.0))),
-            beta_per_s=float(beta[i]),
-            beta_per_s_u=float(math.sqrt(max(cov[4 * i, 4 * i], 0.0))),
-            cov_f_beta=float(cov[4 * i, 4 * i + 1]),
-            amplitude=amp,
-            fit_start_s=float(t0_s),
-            fit_end_s=float(t0_s + t[-1]),
-            n_points=int(n),
-            residual_rms=float(math.sqrt(s2)),
-            converged=converged,
-        ))
+        out.append(
+            Estimate(
+                method="pencil",
+                f_d_hz=float(omega[i] / (2 * math.pi)),
+                f_d_hz_u=float(math.sqrt(max(cov[4 * i + 1, 4 * i + 1], 0.0))),
+                beta_per_s=float(beta[i]),
+                beta_per_s_u=float(math.sqrt(max(cov[4 * i, 4 * i], 0.0))),
+                cov_f_beta=float(cov[4 * i, 4 * i + 1]),
+                amplitude=amp,
+                fit_start_s=float(t0_s),
+                fit_end_s=float(t0_s + t[-1]),
+                n_points=int(n),
+                residual_rms=float(math.sqrt(s2)),
+                converged=converged,
+            )
+        )
     return out

@@ -41,7 +41,7 @@ _UFF_START = re.compile(rb"\A {4}-1[ \t]*\r?\n(?=[ \d]{6}(?:b|[ \t]|\r?\n)) *\d{
 def _is_hdf5(head: bytes) -> bool:
     # HDF5 File Format Specification 3.0, "Format Signature": the superblock sits at 0 or at
     # 512, 1024, 2048... (after a user block)
-    return any(head[k:k + 8] == _HDF5_MAGIC for k in (0, 512, 1024, 2048))
+    return any(head[k : k + 8] == _HDF5_MAGIC for k in (0, 512, 1024, 2048))
 
 
 @dataclass(frozen=True)

@@ -34,8 +34,8 @@ def need(module: str, what: str, name: str):
         return importlib.import_module(module)
     except ImportError:
         raise InputError(
-            f"reading {what} needs the 'formats' extra: pip install 'ringdown[formats]' "
-            f"({name!r} was not read)") from None
+            f"reading {what} needs the 'formats' extra: pip install 'ringdown[formats]' ({name!r} was not read)"
+        ) from None
 
 
 def reason(exc: BaseException | str) -> str:
@@ -51,8 +51,9 @@ def listing(labels) -> str:
     return shown + (f" and {len(labels) - _LISTED} more" if len(labels) > _LISTED else "")
 
 
-def pick(choice, labels: list[str], name: str, *, what: str = "channel",
-         aliases: dict[str, list[int]] | None = None) -> int:
+def pick(
+    choice, labels: list[str], name: str, *, what: str = "channel", aliases: dict[str, list[int]] | None = None
+) -> int:
     """Index (0-based) of the entry ``choice`` names in ``labels``.
 
     Parameters
@@ -84,7 +85,8 @@ def pick(choice, labels: list[str], name: str, *, what: str = "channel",
         if not 1 <= index <= len(labels):
             raise ParameterError(
                 f"{what} {index} is out of range: {name!r} has {len(labels)} {what}"
-                f"{'s' if len(labels) != 1 else ''} ({listing(labels)}); pick 1 to {len(labels)} or a name")
+                f"{'s' if len(labels) != 1 else ''} ({listing(labels)}); pick 1 to {len(labels)} or a name"
+            )
         return index - 1
     if not isinstance(choice, str):
         raise ParameterError(f"{what} must be a 1-based number or a name; got {choice!r}")
@@ -100,12 +102,12 @@ def pick(choice, labels: list[str], name: str, *, what: str = "channel",
     if len(hits) > 1:
         raise ParameterError(
             f"{what} name {choice!r} is ambiguous in {name!r}: it names {listing(labels[i] for i in hits)}; "
-            "give the full name")
+            "give the full name"
+        )
     raise ParameterError(f"no {what} named {choice!r} in {name!r}; its {what}s are {listing(labels)}")
 
 
-def resolve_rate(file_rate: float | None, source: str | None, given: float | None, name: str,
-                 label: str) -> float:
+def resolve_rate(file_rate: float | None, source: str | None, given: float | None, name: str, label: str) -> float:
     """The sample rate to use: the file's, else the one given; raise when they disagree or both are missing.
 
     Parameters
@@ -121,16 +123,19 @@ def resolve_rate(file_rate: float | None, source: str | None, given: float | Non
         if given is None:
             raise InputError(
                 f"{label!r} in {name!r} carries no sample rate; pass the sample rate in Hz "
-                "(--sample-rate, or sample_rate=)")
+                "(--sample-rate, or sample_rate=)"
+            )
         return given
     if not (math.isfinite(file_rate) and file_rate > 0):
         raise InputError(
             f"{label!r} in {name!r} states a sample rate of {file_rate:g} Hz ({source}); fix the file, "
-            "it must be a finite number > 0")
+            "it must be a finite number > 0"
+        )
     if given is not None and not math.isclose(given, file_rate, rel_tol=_RATE_RTOL):
         raise ParameterError(
             f"sample rate {given:g} Hz given, but {label!r} in {name!r} states {file_rate:.9g} Hz "
-            f"({source}); drop the sample rate option (the file's own rate is used)")
+            f"({source}); drop the sample rate option (the file's own rate is used)"
+        )
     return float(file_rate)
 
 
@@ -145,16 +150,17 @@ def rate_from_time(t: np.ndarray, name: str, label: str, *, resolution: float | 
     t = np.asarray(t, dtype=np.float64).ravel()
     steps = np.diff(t)
     if t.size < 2 or not np.all(np.isfinite(t)) or np.any(steps <= 0):
-        raise InputError(
-            f"time vector {label!r} in {name!r} does not increase steadily; fix it or pass --sample-rate")
+        raise InputError(f"time vector {label!r} in {name!r} does not increase steadily; fix it or pass --sample-rate")
     mean = (t[-1] - t[0]) / (t.size - 1)
     jitter = float(np.sqrt(np.mean((steps - mean) ** 2)) / mean)
-    printed = (resolution is not None and resolution < 0.5 * mean
-               and float(np.max(np.abs(steps - mean))) <= 1.001 * resolution)
+    printed = (
+        resolution is not None and resolution < 0.5 * mean and float(np.max(np.abs(steps - mean))) <= 1.001 * resolution
+    )
     if jitter > MAX_TIMING_JITTER and not printed:
         raise InputError(
             f"time vector {label!r} in {name!r} has steps varying by {100 * jitter:.2g} % RMS (at most "
-            f"{100 * MAX_TIMING_JITTER:g} % is accepted); resample to a uniform step")
+            f"{100 * MAX_TIMING_JITTER:g} % is accepted); resample to a uniform step"
+        )
     return 1.0 / mean
 
 
@@ -164,8 +170,7 @@ def real_samples(data, name: str, label: str, limit: int) -> np.ndarray:
     if arr.dtype.kind == "c":
         raise InputError(f"{label!r} in {name!r} holds complex values, not a time signal; pick a real channel")
     if arr.dtype.kind not in "iuf":
-        raise InputError(
-            f"{label!r} in {name!r} holds {arr.dtype} values, not numbers; pick a numeric channel")
+        raise InputError(f"{label!r} in {name!r} holds {arr.dtype} values, not numbers; pick a numeric channel")
     check_size(arr.size, name, label, limit)
     return np.ascontiguousarray(arr.reshape(-1), dtype=np.float64)
 
@@ -175,20 +180,30 @@ def check_size(n_values: int, name: str, label: str, limit: int) -> None:
     if n_values * 8 > limit:
         raise InputError(
             f"{label!r} in {name!r} decodes to {_fmt_bytes(n_values * 8)}, more than the {_fmt_bytes(limit)} "
-            "allowed; cut the recording or pass a larger max_bytes")
+            "allowed; cut the recording or pass a larger max_bytes"
+        )
 
 
-def recording(samples: np.ndarray, rate: float, label: str, unit: str | None, name: str,
-              n_channels: int) -> Recording:
+def recording(samples: np.ndarray, rate: float, label: str, unit: str | None, name: str, n_channels: int) -> Recording:
     """The Recording of one channel read from a format file (length and finiteness checked)."""
     _check_length(samples.shape[0], name)
     bad = ~np.isfinite(samples)
     if bad.any():
         raise InputError(
             f"{label!r} in {name!r} holds {int(bad.sum())} NaN or infinite value(s) (first at sample "
-            f"{int(np.flatnonzero(bad)[0])}); cut them or pick another channel")
-    return Recording(samples=samples, sample_rate=rate, channel=label, path=name, sha256=sha256_file(name),
-                     full_scale=None, timing_jitter=None, n_channels=n_channels, unit=clean_unit(unit))
+            f"{int(np.flatnonzero(bad)[0])}); cut them or pick another channel"
+        )
+    return Recording(
+        samples=samples,
+        sample_rate=rate,
+        channel=label,
+        path=name,
+        sha256=sha256_file(name),
+        full_scale=None,
+        timing_jitter=None,
+        n_channels=n_channels,
+        unit=clean_unit(unit),
+    )
 
 
 def clean_unit(unit) -> str | None:
@@ -205,6 +220,17 @@ def clean_unit(unit) -> str | None:
     return text if text and text.upper() != "NONE" else None
 
 
-__all__ = ["TIME_NAMES", "need", "reason", "listing", "pick", "resolve_rate", "rate_from_time", "real_samples", "check_size",
-           "recording",
-           "clean_unit", "MIN_SAMPLES"]
+__all__ = [
+    "TIME_NAMES",
+    "need",
+    "reason",
+    "listing",
+    "pick",
+    "resolve_rate",
+    "rate_from_time",
+    "real_samples",
+    "check_size",
+    "recording",
+    "clean_unit",
+    "MIN_SAMPLES",
+]

@@ -122,8 +122,10 @@ def _entries(root: Node, sep: str) -> tuple[list[_Entry], dict[str, str]]:
                     index = (slice(None), j) if long_axis == 0 else (j, slice(None))
                     out.append(_Entry(f"{path}:{j + 1}", str(key), arr, index, shape[long_axis], chain))
             else:
-                skipped[path.lower()] = (f"is a {len(dims)}-D array {'x'.join(map(str, shape))}; ringdown reads "
-                                         "vectors and 2-D arrays (a channel per column or row)")
+                skipped[path.lower()] = (
+                    f"is a {len(dims)}-D array {'x'.join(map(str, shape))}; ringdown reads "
+                    "vectors and 2-D arrays (a channel per column or row)"
+                )
         for key, child in node.children.items():
             walk(child, f"{prefix}{key}{sep}", chain)
 
@@ -149,7 +151,8 @@ def _rate(entry: _Entry, name: str) -> tuple[float | None, str | None]:
             if len(found) == 2 and not math.isclose(found[0][0], found[1][0], rel_tol=_RATE_RTOL):
                 raise InputError(
                     f"{name!r} states two sample rates for {entry.label!r}: {found[0][1]} and {found[1][1]}; "
-                    "fix the file")
+                    "fix the file"
+                )
             return found[0]
     for node in entry.chain:
         hit = _lookup(node.arrays, TIME_NAMES)
@@ -173,8 +176,9 @@ def _unit(entry: _Entry) -> str | None:
     return None
 
 
-def read_signal(root: Node, name: str, *, channel, sample_rate: float | None, limit: int, sep: str,
-                what: str) -> Recording:
+def read_signal(
+    root: Node, name: str, *, channel, sample_rate: float | None, limit: int, sep: str, what: str
+) -> Recording:
     """Pick one channel of the tree, find its rate and unit, read it; a Recording.
 
     Parameters
@@ -198,7 +202,8 @@ def read_signal(root: Node, name: str, *, channel, sample_rate: float | None, li
     if not entries:
         raise InputError(
             f"{name!r} is a {what} with no numeric vector or matrix of at least {MIN_SAMPLES} samples; "
-            "save the signal as a numeric array")
+            "save the signal as a numeric array"
+        )
     labels = [e.label for e in entries]
     aliases: dict[str, list[int]] = {}
     for i, e in enumerate(entries):
@@ -209,8 +214,10 @@ def read_signal(root: Node, name: str, *, channel, sample_rate: float | None, li
     if channel is None:
         # the first floating-point channel, else the first integer one (flags and counters are
         # often small integer arrays); a complex one is refused only when asked for
-        i = next((k for k, e in enumerate(entries) if e.array.dtype.kind == "f"),
-                 next((k for k, e in enumerate(entries) if e.array.dtype.kind in "iu"), 0))
+        i = next(
+            (k for k, e in enumerate(entries) if e.array.dtype.kind == "f"),
+            next((k for k, e in enumerate(entries) if e.array.dtype.kind in "iu"), 0),
+        )
     else:
         i = pick(channel, labels, name, what="signal", aliases=aliases)
     entry = entries[i]

@@ -32,8 +32,9 @@ def read(name: str, *, channel: int | str | None = None, sample_rate: float | No
     return read_hdf5(name, channel=channel, sample_rate=sample_rate, limit=limit, matlab=False)
 
 
-def read_hdf5(name: str, *, channel: int | str | None = None, sample_rate: float | None = None, limit: int,
-              matlab: bool) -> Recording:
+def read_hdf5(
+    name: str, *, channel: int | str | None = None, sample_rate: float | None = None, limit: int, matlab: bool
+) -> Recording:
     """Read one channel of an HDF5 or MATLAB v7.3 file as a :class:`~ringdown.io.recording.Recording`.
 
     Parameters
@@ -66,10 +67,16 @@ def read_hdf5(name: str, *, channel: int | str | None = None, sample_rate: float
         try:
             root = _node(fh, h5py, matlab)
         except Exception as exc:
-            raise InputError(f"{name!r} cannot be read as {what} ({reason(exc)}); save or copy the file again") \
-                from exc
-        return read_signal(root, name, channel=channel, sample_rate=sample_rate, limit=limit,
-                           sep="." if matlab else "/", what=f"{what} file")
+            raise InputError(f"{name!r} cannot be read as {what} ({reason(exc)}); save or copy the file again") from exc
+        return read_signal(
+            root,
+            name,
+            channel=channel,
+            sample_rate=sample_rate,
+            limit=limit,
+            sep="." if matlab else "/",
+            what=f"{what} file",
+        )
 
 
 def _text(value) -> str | None:

@@ -53,13 +53,15 @@ def read(name: str, *, channel: int | str | None = None, sample_rate: float | No
     if decoded > limit:
         raise InputError(
             f"{name!r} holds {_fmt_bytes(decoded)} of numbers, more than the {_fmt_bytes(limit)} allowed; "
-            "save the one signal alone or pass a larger max_bytes")
+            "save the one signal alone or pass a larger max_bytes"
+        )
     try:
         content = scipy.io.loadmat(name, simplify_cells=True)
     except Exception as exc:
         raise InputError(f"{name!r} cannot be read as a MATLAB file ({reason(exc)}); save it again") from exc
-    return read_signal(_node(content), name, channel=channel, sample_rate=sample_rate, limit=limit, sep=".",
-                       what="MATLAB file")
+    return read_signal(
+        _node(content), name, channel=channel, sample_rate=sample_rate, limit=limit, sep=".", what="MATLAB file"
+    )
 
 
 def _node(mapping: dict) -> Node:

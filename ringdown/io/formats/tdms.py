@@ -50,7 +50,8 @@ def read(name: str, *, channel: int | str | None = None, sample_rate: float | No
     with open(name, "rb") as fh:
         if fh.read(4) == b"TDSh":
             raise InputError(
-                f"{name!r} is a TDMS index file (.tdms_index), which holds no samples; give the .tdms file beside it")
+                f"{name!r} is a TDMS index file (.tdms_index), which holds no samples; give the .tdms file beside it"
+            )
     nptdms = need("nptdms", "TDMS", name)
     with _LibraryWarnings() as damage:
         try:
@@ -59,7 +60,8 @@ def read(name: str, *, channel: int | str | None = None, sample_rate: float | No
                 tdms = nptdms.TdmsFile.open(name, raw_timestamps=True)
             except Exception as exc:  # npTDMS raises ValueError, struct.error, EOFError, KeyError... on damage
                 raise InputError(
-                    f"{name!r} cannot be read as TDMS ({reason(exc)}); export or copy the file again") from exc
+                    f"{name!r} cannot be read as TDMS ({reason(exc)}); export or copy the file again"
+                ) from exc
             with tdms:
                 rec = _read_channel(tdms, name, channel, sample_rate, limit)
         except InputError:
@@ -70,7 +72,8 @@ def read(name: str, *, channel: int | str | None = None, sample_rate: float | No
         # file rather than analyse part of it without saying so
         raise InputError(
             f"{name!r} is damaged or truncated (npTDMS: {damage.messages[0].rstrip('.')}); export or copy the file "
-            "again")
+            "again"
+        )
     return rec
 
 
@@ -115,12 +118,16 @@ def _read_channel(tdms, name: str, channel, sample_rate: float | None, limit: in
     for i, (_, c) in enumerate(channels):
         aliases.setdefault(c.name.lower(), []).append(i)
     if channel is None:
-        numeric = [i for i, (_, c) in enumerate(channels)
-                   if _dtype_kind(c) in _NUMERIC and len(c) > 0 and c.name.lower() not in TIME_NAMES]
+        numeric = [
+            i
+            for i, (_, c) in enumerate(channels)
+            if _dtype_kind(c) in _NUMERIC and len(c) > 0 and c.name.lower() not in TIME_NAMES
+        ]
         if not numeric:
             raise InputError(
                 f"{name!r} has no channel of numbers (its channels are {', '.join(map(repr, labels[:12]))}); "
-                "export the measurement again")
+                "export the measurement again"
+            )
         index = numeric[0]
     else:
         index = pick(channel, labels, name, aliases=aliases)
@@ -130,13 +137,15 @@ def _read_channel(tdms, name: str, channel, sample_rate: float | None, limit: in
         raise InputError(f"channel {label!r} of {name!r} holds no samples; pick another channel")
     if _dtype_kind(chan) not in _NUMERIC:
         raise InputError(
-            f"channel {label!r} of {name!r} holds {_dtype_name(chan)} values, not numbers; pick a numeric channel")
+            f"channel {label!r} of {name!r} holds {_dtype_name(chan)} values, not numbers; pick a numeric channel"
+        )
     increment, where = _property(tdms, group, chan, "wf_increment")
     x_unit, _ = _property(tdms, group, chan, "wf_xunit_string")
     if x_unit is not None and str(x_unit).strip().lower() not in ("s", "sec", "seconds", ""):
         raise InputError(
             f"channel {label!r} of {name!r} has its x axis in {str(x_unit).strip()!r}, not seconds: "
-            "it is not a time record; pick a time channel")
+            "it is not a time record; pick a time channel"
+        )
     file_rate: float | None = None
     source: str | None = f"wf_increment = {increment!r} s on the {where}"
     if increment is not None:
@@ -158,7 +167,8 @@ def _decode(chan, label: str, name: str, limit: int):
         return chan.read_data()
     except Exception as exc:  # npTDMS raises ValueError, EOFError, struct.error... on damaged data
         raise InputError(
-            f"channel {label!r} of {name!r} cannot be decoded ({reason(exc)}); export the file again") from exc
+            f"channel {label!r} of {name!r} cannot be decoded ({reason(exc)}); export the file again"
+        ) from exc
 
 
 def _time_channel_rate(group, chan, name: str, limit: int) -> tuple[float | None, str | None]:
@@ -201,4 +211,3 @@ def _property(tdms, group, chan, key: str):
         if value is not None:
             return value, where
     return None, None
-

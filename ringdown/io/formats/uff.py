@@ -30,13 +30,32 @@ __all__ = ["read"]
 # Function types (record 6, field 1) that hold a time record.
 _TIME_FUNCTIONS = {0: "general or unknown", 1: "time response"}
 _FUNCTION_NAMES = {
-    2: "auto spectrum", 3: "cross spectrum", 4: "frequency response function", 5: "transmissibility",
-    6: "coherence", 7: "auto correlation", 8: "cross correlation", 9: "power spectral density",
-    10: "energy spectral density", 11: "probability density function", 12: "spectrum",
-    13: "cumulative frequency distribution", 14: "peaks valley", 15: "stress/cycles", 16: "strain/cycles",
-    17: "orbit", 18: "mode indicator function", 19: "force pattern", 20: "partial power",
-    21: "partial coherence", 22: "eigenvalue", 23: "eigenvector", 24: "shock response spectrum",
-    25: "finite impulse response filter", 26: "multiple coherence", 27: "order function",
+    2: "auto spectrum",
+    3: "cross spectrum",
+    4: "frequency response function",
+    5: "transmissibility",
+    6: "coherence",
+    7: "auto correlation",
+    8: "cross correlation",
+    9: "power spectral density",
+    10: "energy spectral density",
+    11: "probability density function",
+    12: "spectrum",
+    13: "cumulative frequency distribution",
+    14: "peaks valley",
+    15: "stress/cycles",
+    16: "strain/cycles",
+    17: "orbit",
+    18: "mode indicator function",
+    19: "force pattern",
+    20: "partial power",
+    21: "partial coherence",
+    22: "eigenvalue",
+    23: "eigenvector",
+    24: "shock response spectrum",
+    25: "finite impulse response filter",
+    26: "multiple coherence",
+    27: "order function",
 }
 # A delimiter line as pyuff finds them: "    -1" alone on its line (blanks may follow).
 _DELIMITER = re.compile(rb"(?m)^    -1 *\r?$")
@@ -78,21 +97,25 @@ def read(name: str, *, channel: int | str | None = None, sample_rate: float | No
         if opened:
             raise InputError(
                 f"{name!r} starts like a Universal File but holds no complete dataset (each is closed by a "
-                "'    -1' line): it is truncated or damaged; export it again")
+                "'    -1' line): it is truncated or damaged; export it again"
+            )
         raise InputError(
             f"{name!r} holds no Universal File dataset (none opened and closed by '    -1' lines); export it "
-            "again as UFF 58")
+            "again as UFF 58"
+        )
     with open(name, "rb") as fh:
         delimiters = len(_DELIMITER.findall(fh.read()))
     if delimiters % 2:
         # pyuff pairs the delimiter lines and would drop an unclosed last dataset without a word
         raise InputError(
-            f"the last dataset of {name!r} is not closed by a '    -1' line: the file is truncated; export it again")
+            f"the last dataset of {name!r} is not closed by a '    -1' line: the file is truncated; export it again"
+        )
     sets58 = [i for i, t in enumerate(types) if t == 58]
     if not sets58:
         raise InputError(
             f"{name!r} holds UFF datasets {', '.join(str(t) for t in sorted(set(types)))} but no dataset 58; "
-            "ringdown reads measured time data from dataset 58 only: export the time records as dataset 58")
+            "ringdown reads measured time data from dataset 58 only: export the time records as dataset 58"
+        )
     headers = [_read_set(uff, i, name, header_only=True) for i in sets58]
     ids = [str(h.get("id1", "") or "").strip() for h in headers]
     labels = []
@@ -110,11 +133,15 @@ def read(name: str, *, channel: int | str | None = None, sample_rate: float | No
     func = int(head.get("func_type", 0))
     abscissa = int(head.get("abscissa_spec_data_type", 0))
     if func not in _TIME_FUNCTIONS or abscissa not in _TIME_ABSCISSA:
-        what = (_FUNCTION_NAMES.get(func, f"function type {func}") if func not in _TIME_FUNCTIONS
-                else f"{_TIME_FUNCTIONS[func]} over abscissa data type {abscissa}")
+        what = (
+            _FUNCTION_NAMES.get(func, f"function type {func}")
+            if func not in _TIME_FUNCTIONS
+            else f"{_TIME_FUNCTIONS[func]} over abscissa data type {abscissa}"
+        )
         raise InputError(
             f"dataset {label!r} of {name!r} is a {what}, not a time record; give a time response "
-            "(function type 1 over a time abscissa)")
+            "(function type 1 over a time abscissa)"
+        )
     if int(head.get("ord_data_type", 2)) in (5, 6):
         raise InputError(f"dataset {label!r} of {name!r} holds complex values, not a time signal; pick a real one")
     check_size(int(head.get("num_pts", 0)), name, label, limit)
@@ -128,8 +155,10 @@ def read(name: str, *, channel: int | str | None = None, sample_rate: float | No
     else:
         x = np.asarray(data.get("x", []), dtype=np.float64)
         if x.shape != samples.shape:
-            raise InputError(f"dataset {label!r} of {name!r} has {x.size} abscissa values for {samples.size} "
-                             "samples; export it again")
+            raise InputError(
+                f"dataset {label!r} of {name!r} has {x.size} abscissa values for {samples.size} "
+                "samples; export it again"
+            )
         # record 12 prints the abscissa as E13.5: six significant digits
         printed = 10.0 ** (math.floor(math.log10(max(float(np.max(np.abs(x))), 1e-300))) - 5)
         file_rate = rate_from_time(x, name, label, resolution=printed)
@@ -143,7 +172,8 @@ def _read_set(uff, i: int, name: str, header_only: bool = False) -> dict:
         d = uff.read_sets(i, header_only=header_only)
     except Exception as exc:
         raise InputError(
-            f"UFF dataset {i + 1} of {name!r} cannot be read ({reason(exc)}); export the file again") from exc
+            f"UFF dataset {i + 1} of {name!r} cannot be read ({reason(exc)}); export the file again"
+        ) from exc
     if not isinstance(d, dict):
         raise InputError(f"UFF dataset {i + 1} of {name!r} cannot be read; export the file again")
     return d
