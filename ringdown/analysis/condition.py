@@ -12,7 +12,7 @@ decay has set in, is a hammer bounce (double hit).
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -25,6 +25,7 @@ __all__ = [
     "noise_floor_db",
     "find_hits",
     "free_decay_start",
+    "free_decay_starts",
     "find_clipping",
     "noise_psd",
     "steady_tones",
@@ -43,7 +44,8 @@ class HitSpan:
     forced response to a drive, stops and the level falls from its plateau) or ``"release"`` (a
     held static deflection let go). ``rise`` is the first sharp rise of the level (the tap, or
     the start of the drive; equal to ``onset`` for an impulse). ``doubt`` says why the start is
-    uncertain, or is ``None``.
+    uncertain, or is ``None``. ``from_innovation`` is True for a hit that only the prediction
+    error showed (:func:`innovation`).
     """
 
     onset: int
@@ -53,6 +55,7 @@ class HitSpan:
     kind: str = "impulse"
     rise: int | None = None
     doubt: str | None = None
+    from_innovation: bool = False
 
 
 #: Degree of the Legendre polynomial removed as offset and drift.
@@ -337,6 +340,42 @@ def innovation(x: np.ndarray, order: int = INNOVATION_ORDER) -> np.ndarray:
     return signal.lfilter(np.concatenate(([1.0], -a)), [1.0], x)
 
 
+#: The burst of a tap in the prediction error spans the samples within this many dB of its
+#: largest one (the -20 dB width of a pulse; common practice, no source).
+BURST_DB = 20.0
+
+
+def burst_length(e: np.ndarray) -> int:
+    """Length in samples of the largest burst of the prediction error ``e`` (n,): the samples
+    around the largest ``|e|`` within ``BURST_DB`` of it (at least 1). A tap's force lasts about
+    this long (one sample for an ideal impulse, the contact time of a real hammer)."""
+    if e.shape[0] == 0:
+        return 1
+    p = e * e
+    k = int(np.argmax(p))
+    if not p[k] > 0:
+        return 1
+    low = p < p[k] * 10.0 ** (-BURST_DB / 10.0)
+    before = np.flatnonzero(low[:k])
+    after = np.flatnonzero(low[k:])
+    lo = int(before[-1]) + 1 if before.size else 0
+    hi = k + int(after[0]) if after.size else e.shape[0]
+    return max(1, hi - lo)
+
+
+def innovation_smoothing(e: np.ndarray, smoothing: int) -> int:
+    """Width in samples over which to average the prediction error ``e`` (n,) for its level.
+
+    A tap's force is a burst in the prediction error as long as the force lasts (one sample for
+    an ideal impulse, the contact time of a real hammer), while the broadband level's
+    ``smoothing`` (one period of the dominant frequency) can be hundreds of samples: averaged that
+    long, a short burst is diluted by ``10 log10(smoothing / burst)`` dB and a second tap over
+    loud ringing can drown in the predictor's residual. The width is therefore the record's own
+    burst (:func:`burst_length`), at least 3 samples and at most ``smoothing``.
+    """
+    return int(min(max(3, burst_length(e)), max(3, int(smoothing))))
+
+
 def find_hits(
     level_db: np.ndarray,
     sample_rate: float,
@@ -440,7 +479,7 @@ def find_hits(
         bounce = _find_bounce(level_db, k, bw, w, bounce_rise_db, end, sm + w)
         if bounce is not None and slow_level_db is not None and not _energy_step(slow_level_db, k, bounce, sm):
             bounce = None
-        spans.append(HitSpan(onset=onset, peak=peak, end=end, bounce=bounce))
+        spans.append(HitSpan(onset=onset, peak=peak, end=end, bounce=bounce, from_innovation=k in from_innovation))
     return spans
 
 
@@ -511,6 +550,34 @@ PLATEAU_SLOPE_RATIO = 0.25
 PLATEAU_WIDTHS = 4
 #: ... and the level must fall this far below it afterwards (dB; common practice, no source).
 FALL_DB = 20.0
+
+
+def free_decay_starts(
+    x: np.ndarray, level_db: np.ndarray, spans: list[HitSpan], *, smoothing: int, noise_db: float
+) -> list[HitSpan]:
+    """:func:`free_decay_start` of every hit of :func:`find_hits`, in order.
+
+    The end of a drive is an innovation too (the force stops), so the prediction error shows a
+    hit where a switch-off or release starts a free decay. A hit that only the prediction error
+    showed is therefore joined to the hit before it when the two together are a switch-off or
+    release whose free decay starts within ``HOLD_OFF_WIDTHS`` smoothing widths of it.
+    """
+    sm = max(1, int(smoothing))
+    hold = int(round(HOLD_OFF_WIDTHS * sm))
+    out: list[HitSpan] = []
+    prev: HitSpan | None = None
+    for sp in spans:
+        if sp.from_innovation and prev is not None:
+            joined = free_decay_start(
+                x, level_db, replace(prev, end=sp.end, from_innovation=False), smoothing=sm, noise_db=noise_db
+            )
+            if joined.kind != "impulse" and abs(joined.onset - sp.onset) <= hold:
+                out[-1] = joined
+                prev = replace(prev, end=sp.end)
+                continue
+        out.append(free_decay_start(x, level_db, sp, smoothing=sm, noise_db=noise_db))
+        prev = sp
+    return out
 
 
 def free_decay_start(x: np.ndarray, level_db: np.ndarray, span: HitSpan, *, smoothing: int, noise_db: float) -> HitSpan:

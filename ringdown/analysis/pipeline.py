@@ -386,7 +386,8 @@ def analyze_recording(
     noise_db = condition.noise_floor_db(level, smoothing)
     slow = condition.envelope_db(x, fs, smoothing=2 * smoothing)
     # the prediction error shows a second tap on a record still ringing from the first
-    inn_level = condition.envelope_db(condition.innovation(x), fs, smoothing=smoothing)
+    inn = condition.innovation(x)
+    inn_level = condition.envelope_db(inn, fs, smoothing=condition.innovation_smoothing(inn, smoothing))
     spans = condition.find_hits(
         level,
         fs,
@@ -420,7 +421,7 @@ def analyze_recording(
             f"noise floor (highest {peak_db:.1f} dB); check the gain, the trigger or the file{hint}"
         )
     # where each free decay starts: at the hit, or where a steady drive stops
-    spans = [condition.free_decay_start(raw, slow, sp, smoothing=smoothing, noise_db=noise_db) for sp in spans]
+    spans = condition.free_decay_starts(raw, slow, spans, smoothing=smoothing, noise_db=noise_db)
     if step is not None:
         # a step of the mean where a hit rises: a held deflection let go
         spans = [
@@ -467,6 +468,7 @@ def analyze_recording(
         tones=tuple(tones),
         i0=i0,
         smoothing=smoothing,
+        burst=condition.burst_length(inn),
     )
     hits: list[Hit] = []
     for j, span in enumerate(spans):
@@ -658,6 +660,7 @@ class _RecordContext:
     tones: tuple[float, ...]  #: steady tones found before the first hit, Hz
     i0: int = 0  #: index in the recording of ``x[0]`` (the start of the time window)
     smoothing: int = 3  #: width of the level's smoothing, samples
+    burst: int = 1  #: length of a tap's force in the prediction error (:func:`condition.burst_length`), samples
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -671,6 +674,42 @@ class _HitContext:
     seg_end: int  #: index in the recording where the hit's segment ends
     pre_rms: float | None = None  #: RMS of the samples before the hit's rise (None: too few), recording units
     earlier: tuple = ()  #: (f_hz, width_hz) of modes measured in earlier hits of the record
+    pre: np.ndarray | None = None  #: (n_pre,) the samples before the hit's rise (None: too few)
+
+    def new_above(self, f_hz: float) -> float | None:
+        """Amplitude (recording units) above which a component at ``f_hz`` was not there before
+        the hit, so that the hit started it (None without samples before the hit).
+
+        ``STEADY_MARGIN_DB`` above the lesser of two bounds on a steady tone's amplitude there:
+        ``sqrt(2) pre_rms`` (a tone of amplitude ``a`` alone gives an RMS of ``a / sqrt(2)``),
+        and the amplitude of a cosine at ``f_hz`` least-squares fitted (with a constant) to the
+        samples before the hit plus three of its standard deviations (the least-squares
+        covariance with the larger of the fit's residual variance and the white-noise variance
+        ``S(f) fs / 2`` of the measured noise density at ``f_hz``). The fit bounds a narrowband
+        tone far below the broadband RMS, so that a lightly damped mode far weaker than the
+        broadband noise is seen to start with the hit."""
+        if self.pre_rms is None or self.pre is None:
+            return None
+        margin = 10 ** (STEADY_MARGIN_DB / 20)
+        bound = math.sqrt(2.0) * self.pre_rms
+        ctx = self.record
+        n = self.pre.shape[0]
+        if n < 8:
+            return bound * margin
+        t = np.arange(n) / ctx.fs
+        w = 2.0 * math.pi * f_hz * t
+        phi = np.stack([np.cos(w), np.sin(w), np.ones(n)], axis=1)
+        coef, *_ = np.linalg.lstsq(phi, self.pre, rcond=None)
+        resid = self.pre - phi @ coef
+        s_f = float(detect.noise_density(f_hz, ctx.noise_f, ctx.noise_p))
+        var = max(float(np.sum(resid * resid)) / max(n - 3, 1), s_f * ctx.fs / 2.0)
+        try:
+            cov = var * np.linalg.inv(phi.T @ phi)
+        except np.linalg.LinAlgError:
+            return bound * margin
+        sd = math.sqrt(max(float(cov[0, 0] + cov[1, 1]) / 2.0, 0.0))
+        a = math.hypot(float(coef[0]), float(coef[1]))
+        return min(bound, a + 3.0 * sd) * margin
 
     def rings_from_earlier(self, f_hz: float, width_hz: float = 0.0) -> bool:
         """Whether a component at ``f_hz`` is a mode an earlier hit excited: it was there before
@@ -760,6 +799,7 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
         seg_end=seg_end + i0,
         pre_rms=pre_rms,
         earlier=earlier,
+        pre=pre_x if pre_rms is not None else None,
     )
     rejected: list[Rejected] = []
     cands: list[Candidate] = []
@@ -774,7 +814,12 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
         cands, groups = _candidates(ctx, start, seg_end, rejected, parametric=False, max_peaks=opts.max_modes)
     modes: list[Mode] = []
     failed: list[str] = []
-    residual = opts.bands is None and not model and hctx.seg_end - ctx.i0 - start >= MIN_SAMPLES
+    # the residual search looks at the decay from its first sample after the tap's force (a
+    # fast decay can be gone by the broadband level's peak, one smoothing width on)
+    resid_start = decay_from
+    if span.kind == "impulse" and not model and opts.bands is None:
+        resid_start = min(decay_from, _free_decay_start(ctx, span, clip_end) + ctx.burst)
+    residual = opts.bands is None and not model and hctx.seg_end - ctx.i0 - resid_start >= MIN_SAMPLES
     deferred: list[Candidate] = []
     for peaks_g, lo, hi, group_cands in groups:
         n_warn = len(warnings)
@@ -798,7 +843,7 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
     if residual:
         # after clipping, the residual holds what the clipped samples did to the decay: no broad search
         more, more_rejected = _residual_round(
-            hctx, start, modes, [c for c in cands if c not in deferred], deferred, broad=clip_end is None
+            hctx, resid_start, modes, [c for c in cands if c not in deferred], deferred, broad=clip_end is None
         )
         modes.extend(more)
         rejected.extend(more_rejected)
@@ -834,13 +879,34 @@ RESIDUAL_ROUNDS = 2
 def _subtract_modes(seg: np.ndarray, fs: float, modes: Sequence[Mode]) -> np.ndarray:
     """``seg`` less the least-squares sum of the damped cosines of ``modes`` (their poles fixed,
     amplitudes and phases fitted on ``seg``; t = 0 at ``seg[0]``)."""
-    if not modes:
+    return _subtract_poles(seg, fs, [(m.f_d_hz, m.beta_per_s) for m in modes])
+
+
+def _subtract_poles(
+    seg: np.ndarray, fs: float, poles: Sequence[tuple[float, float]], keep: Sequence[tuple[float, float]] = ()
+) -> np.ndarray:
+    """``seg`` (n,) less the least-squares sum of damped cosines with the given poles
+    ``(f_hz, beta_per_s)`` held (amplitudes and phases fitted; t = 0 at ``seg[0]``). The poles
+    ``keep`` are fitted jointly with them (so that what they hold is not taken for the others')
+    but left in."""
+    if not poles:
         return np.array(seg, dtype=np.float64)
+    if keep:
+        t = np.arange(seg.shape[0]) / fs
+        cols = []
+        for f_hz, beta in list(poles) + list(keep):
+            e = np.exp(-beta * t)
+            w = 2.0 * math.pi * f_hz * t
+            cols += [e * np.cos(w), e * np.sin(w)]
+        phi = np.stack(cols, axis=1)
+        coef, *_ = np.linalg.lstsq(phi, seg, rcond=None)
+        n_sub = 2 * len(poles)
+        return seg - phi[:, :n_sub] @ coef[:n_sub]
     t = np.arange(seg.shape[0]) / fs
     cols = []
-    for m in modes:
-        e = np.exp(-m.beta_per_s * t)
-        w = 2.0 * math.pi * m.f_d_hz * t
+    for f_hz, beta in poles:
+        e = np.exp(-beta * t)
+        w = 2.0 * math.pi * f_hz * t
         cols += [e * np.cos(w), e * np.sin(w)]
     phi = np.stack(cols, axis=1)
     coef, *_ = np.linalg.lstsq(phi, seg, rcond=None)
@@ -912,17 +978,20 @@ def _residual_round(
         tried += [(p.f_hz, max(p.width_hz, res_hz)) for p in fresh]
         barriers = tuple(ctx.tones) + tuple(m.f_d_hz for m in known)
         found_round: list[Mode] = []
+        round_groups = []
         for g, lo, hi in group_bands(fresh, sample_rate=fs, resolution_hz=res_hz, barriers_hz=barriers):
             gc = [
                 Candidate(p.f_hz, math.pi * p.width_hz, max(p.width_hz, res_hz), None, None, "residual", -2, res_hz)
                 for p in g
             ]
-            raw = _needs_raw_fit(gc, lo, hi) or any(lo < m.f_d_hz < hi for m in known)
+            round_groups.append((g, lo, hi, gc, _needs_raw_fit(gc, lo, hi) or any(lo < m.f_d_hz < hi for m in known)))
+        # band fits first: a raw fit then carries (or subtracts) every mode measured in this round too
+        for g, lo, hi, gc, raw in sorted(round_groups, key=lambda r: r[4]):
             if raw and _too_many(gc, rejected):
                 continue
             try:
                 if raw:
-                    got = _measure_raw(hctx, gc, gc + _as_candidates(known, res_hz), start)
+                    got = _measure_raw(hctx, gc, gc + _as_candidates(known + found_round, res_hz), start)
                 else:
                     got = _measure_group(hctx, g, lo, hi, [])
             except FitError as exc:
@@ -1063,10 +1132,18 @@ def _free_decay_start(ctx: _RecordContext, span, clip_end: int | None) -> int:
     sigma = math.sqrt(max(float(np.sum(ctx.noise_p[1:])) * float(ctx.noise_f[1] - ctx.noise_f[0]), 1e-300))
     lo = max(0, span.onset - max(span.peak - span.onset, 1))
     hi = max(span.peak, span.onset + 1)
-    # relative to the level just before: drift removal over the whole record can leave a local
-    # offset of a few sigma before the hit
-    before = x[max(0, lo - 4 * (hi - lo) - 16) : lo]
-    base = float(np.median(before)) if before.size >= 8 else 0.0
+    # relative to the trend just before: drift removal over the whole record can leave a local
+    # offset and slope of a few sigma before the hit (in a quiet, quantised pre-trigger the
+    # noise sigma is far below what drift removal leaves); the scatter about that trend bounds
+    # sigma from below
+    b0 = max(0, lo - 4 * (hi - lo) - 16)
+    before = x[b0:lo]
+    base: np.ndarray | float = 0.0
+    if before.size >= 8:
+        u = np.arange(b0, lo, dtype=np.float64)
+        slope, icept = np.polyfit(u, before, 1)
+        sigma = max(sigma, float(np.std(before - (slope * u + icept))))
+        base = slope * np.arange(lo, hi + 1, dtype=np.float64) + icept
     loud = np.flatnonzero(np.abs(x[lo : hi + 1] - base) > START_SIGMAS * sigma)
     start = lo + int(loud[0]) if loud.size else span.onset
     return max(start, clip_end or 0)
@@ -1205,8 +1282,18 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
             ranked.append((c.snr * share if c.snr is not None else float("inf"), c))
     others = [c for _, c in sorted(ranked, key=lambda o: -o[0])][:MAX_RAW_NUISANCE]
     poles = [(c.f_hz, beta_of(c)) for c in targets + others]
+    # every other measured mode is subtracted with its pole held (amplitudes fitted over the
+    # window at the full rate): left in, it would alias into the thinned samples of the fit
+    fixed = [c for c in cands if c.source == "measured" and c not in targets and c not in others]
+    fit_seg = seg
+    if fixed:
+        n_win = min(seg.shape[0], max(int(round(dur * fs)), 1))
+        fit_seg = np.array(seg, dtype=np.float64)
+        fit_seg[:n_win] = _subtract_poles(
+            seg[:n_win], fs, [(c.f_hz, beta_of(c)) for c in fixed], keep=[(c.f_hz, beta_of(c)) for c in others]
+        )
     ests = estimate_real(
-        seg,
+        fit_seg,
         fs,
         t0_s=(start + ctx.i0) / fs,
         poles=poles,
@@ -1409,8 +1496,9 @@ def _measure_group(
             _, found, sb, sw = min(cross, key=lambda c: abs(c[0] - est.f_d_hz))
             others = {k: v for k, v in found.items() if k != est.method}
         unresolved_decay: list[Notice] = []
-        if not hctx.rings_from_earlier(est.f_d_hz) and _is_stationary(est, sb, sw, seg_end / fs, pre_rms=hctx.pre_rms):
-            if not _started_with_hit(est, hctx.pre_rms):
+        pre_bound = hctx.new_above(est.f_d_hz)
+        if not hctx.rings_from_earlier(est.f_d_hz) and _is_stationary(est, sb, sw, seg_end / fs, pre_bound=pre_bound):
+            if not _started_with_hit(est, pre_bound):
                 hit_warnings.append(
                     Notice(
                         "stationary_tone",
@@ -1427,14 +1515,10 @@ def _measure_group(
     return modes
 
 
-def _started_with_hit(est: Estimate, pre_rms: float | None) -> bool:
+def _started_with_hit(est: Estimate, pre_bound: float | None) -> bool:
     """Whether a component too far above what the record held before the hit to have been there
-    (amplitude over ``sqrt(2) pre_rms`` by ``STEADY_MARGIN_DB``) started with the hit."""
-    return (
-        pre_rms is not None
-        and est.amplitude is not None
-        and est.amplitude > math.sqrt(2.0) * pre_rms * 10 ** (STEADY_MARGIN_DB / 20)
-    )
+    (amplitude over ``pre_bound``, :meth:`_HitContext.new_above`) started with the hit."""
+    return pre_bound is not None and est.amplitude is not None and est.amplitude > pre_bound
 
 
 def _decay_unresolved(est: Estimate) -> Notice:
@@ -1519,7 +1603,7 @@ def _steady_before_onset(band: Band, onset_s: float, beta_hint: float) -> bool:
 
 
 def _is_stationary(
-    est: Estimate, band: Band, window: Window, seg_end_s: float, *, pre_rms: float | None = None
+    est: Estimate, band: Band, window: Window, seg_end_s: float, *, pre_bound: float | None = None
 ) -> bool:
     """Whether a component is a steady tone (hum, a running drive) rather than a mode.
 
@@ -1533,10 +1617,9 @@ def _is_stationary(
     (thresholds: common practice, no source). A lightly damped mode in a short record is
     therefore kept (with ``short_decay``) when the record shows it start.
 
-    ``pre_rms`` is the RMS of the broadband samples before the hit (``None`` when there are
-    too few): a steady tone of amplitude ``a`` there would give an RMS of at least
-    ``a / sqrt(2)``, so a component whose amplitude exceeds ``sqrt(2) pre_rms`` by 10 dB was
-    not there before the hit; it is a mode however little it decays in the record (a very
+    ``pre_bound`` is the amplitude above which a component at its frequency was not there before
+    the hit (:meth:`_HitContext.new_above`; ``None`` when there are too few samples there): a
+    component above it it is a mode however little it decays in the record (a very
     lightly damped resonator whose band filter is too narrow to settle in a short pre-trigger)
     when its decay rate is resolved (more than 5 standard uncertainties above zero: common
     practice, no source). A drive switched on with the hit and still running has a decay rate
@@ -1555,10 +1638,10 @@ def _is_stationary(
     if before is not None:
         return bool(before > env[i0] * 10 ** (-STEADY_MARGIN_DB / 20))
     if (
-        pre_rms is not None
+        pre_bound is not None
         and est.amplitude is not None
         and est.beta_per_s_u is not None
-        and est.amplitude > math.sqrt(2.0) * pre_rms * 10 ** (STEADY_MARGIN_DB / 20)
+        and est.amplitude > pre_bound
         and est.beta_per_s > 5.0 * est.beta_per_s_u
     ):
         return False
