@@ -59,7 +59,7 @@ def test_every_reading_command_takes_the_same_reader_options():
     seen = {}
     for name, path in READING.items():
         opts = _options(path)
-        for key, flag in flags.items():
+        for flag in flags.values():
             assert flag in opts, f"{name} lacks {flag}"
             p = opts[flag]
             sig = (p.name, p.help, str(p.display_type), p.default)
