@@ -210,7 +210,7 @@ Columns = Annotated[
 ]
 KeepDoubleHits = Annotated[bool, typer.Option("--keep-double-hits", help="Combine hits flagged as hammer bounces too.")]
 PlotDir = Annotated[Optional[Path], typer.Option("--plot", help="Write figures for each file into this folder.")]
-PlotFormat = Annotated[str, typer.Option("--plot-format", help="Figure format: png or svg.")]
+PlotFormat = Annotated[str, typer.Option("--plot-format", help="Figure format: png, svg or pdf.")]
 Store = Annotated[bool, typer.Option("--store", help="Also store every result in the results history (SQLite).")]
 
 
@@ -260,9 +260,8 @@ def analyze_cmd(
         _check_streams(json_out, jsonl)
         given = dict(reader_options(channel, column, sample_rate), method=method, bands=band, max_modes=max_modes)
         given.update(min_snr_db=min_snr_db, min_hit_snr_db=min_hit_snr_db, keep_double_hits=keep_double_hits)
-        return _checked_options(plot, plot_format, part_id, jobs, given, time_window(start, end)), parse_columns(
-            columns
-        )
+        opts = _checked_options(plot, plot_format, part_id, jobs, given, time_window(start, end))
+        return opts, parse_columns(columns)
 
     options, cols = usage_guarded(parse, debug=debug)  # every option is checked before any file is read
     db_path = resolve_db(db) if store else None
@@ -438,50 +437,33 @@ class _Sink:
 
 
 def _iter_long_file(path: str, options: dict, show: bool):
-    """``(0, Analysis)`` of one long sound file through the block engine, with a progress bar by
-    time position on stderr when ``show``; any failure is the file's result (the batch policy)."""
-    from ..analysis.engine import analyze_long_file
-    from ..analysis.pipeline import _FileTask
-    from ..base.batch import run_batch
+    """``(0, Analysis)`` of one long sound file (:func:`ringdown.analysis.engine.iter_long_file`),
+    with a progress bar by time position on stderr when ``show``."""
+    from ..analysis.engine import iter_long_file
 
-    class _Task(_FileTask):
-        def __call__(self, p: str):
-            return analyze_long_file(p, progress=advance, **self.options)
-
-    if show:
-        from rich.console import Console
-        from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
-
-        prog = Progress(
-            TextColumn("analysing"),
-            BarColumn(),
-            TextColumn("{task.fields[at]}"),
-            TimeRemainingColumn(),
-            console=Console(stderr=True),
-            transient=True,
-        )
-    else:
-        prog = None
-    task_id = None
-
-    def clock(seconds: float) -> str:
-        m, s = divmod(int(seconds), 60)
-        return f"{m // 60}:{m % 60:02d}:{s:02d}" if m >= 60 else f"{m}:{s:02d}"
-
-    def advance(done: int, total) -> None:
-        if prog is not None and task_id is not None and total:
-            prog.update(task_id, completed=done, total=total, at=f"{clock(done / rate)} of {clock(total / rate)}")
-
+    if not show:
+        yield from iter_long_file(path, **options)
+        return
     import soundfile as sf
+    from rich.console import Console
+    from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
 
     rate = float(sf.info(path).samplerate)
-    task = _Task(dict(options))
-    if prog is None:
-        yield from run_batch(task, [path], on_error=task.failed, jobs=1)
-        return
-    with prog:
+    columns = (TextColumn("analysing"), BarColumn(), TextColumn("{task.fields[at]}"), TimeRemainingColumn())
+    with Progress(*columns, console=Console(stderr=True), transient=True) as prog:
         task_id = prog.add_task("analysing", total=None, at="")
-        yield from run_batch(task, [path], on_error=task.failed, jobs=1)
+
+        def advance(done: int, total) -> None:
+            if total:
+                prog.update(task_id, completed=done, total=total, at=f"{_clock(done / rate)} of {_clock(total / rate)}")
+
+        yield from iter_long_file(path, progress=advance, **options)
+
+
+def _clock(seconds: float) -> str:
+    """``m:ss``, or ``h:mm:ss`` from an hour on."""
+    m, s = divmod(int(seconds), 60)
+    return f"{m // 60}:{m % 60:02d}:{s:02d}" if m >= 60 else f"{m}:{s:02d}"
 
 
 def _prepare_outputs(csv_out, report, plot, db_path):
