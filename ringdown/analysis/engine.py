@@ -20,7 +20,7 @@ than ``min_segment`` is one segment: the result is that of the whole-file path, 
 from __future__ import annotations
 
 import os
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -44,6 +44,7 @@ __all__ = [
     "analyze_blocks",
     "analyze_long_file",
     "is_long_sound_file",
+    "iter_long_file",
     "FRAME_SAMPLES",
     "SEGMENT_SAMPLES",
     "LONG_FILE_SAMPLES",
@@ -367,3 +368,26 @@ def analyze_long_file(
     if start or stop != n_file:
         a = replace(a, n_samples=n_file)
     return a
+
+
+def iter_long_file(
+    path, *, progress: Callable[[int, int | None], None] | None = None, **options
+) -> Iterator[tuple[int, Analysis]]:
+    """``(0, Analysis)`` of one sound file through the block engine, under the batch failure policy.
+
+    As :func:`analyze_long_file` (same options and ``progress``), run in this process by
+    :func:`ringdown.base.batch.run_batch`: any failure is the file's result, an ``Analysis.failed``
+    with its one-line error and the settings, as for every file of
+    :func:`ringdown.analysis.pipeline.iter_analyze_files` (DEVELOPERS.md, "Batches and the failure
+    policy"). ``ringdown analyze`` takes this path for a single long sound file, to show its
+    progress by time position.
+    """
+    from ..base.batch import run_batch
+    from .pipeline import _FileTask
+
+    class _LongFileTask(_FileTask):
+        def __call__(self, p: str) -> Analysis:
+            return analyze_long_file(p, progress=progress, **self.options)
+
+    task = _LongFileTask(dict(options))
+    yield from run_batch(task, [path], on_error=task.failed, jobs=1)
