@@ -113,3 +113,32 @@ def test_real_fit_reaches_the_numeric_jacobian_minimum():
         assert abs(e.beta_per_s - b) < 4 * e.beta_per_s_u
         assert abs(e.f_d_hz - f) < 4 * e.f_d_hz_u
         assert e.converged
+
+
+@pytest.mark.parametrize("kind", ["white", "ties", "walk", "plateaus", "smoothed spectrum"])
+def test_prominent_peaks_equal_scipy_find_peaks(kind):
+    # reference: scipy.signal.find_peaks(x, prominence=h) and its "prominences", which the broad
+    # peak search used before; equal bit for bit (indices and values), ties and flat tops included
+    from scipy import ndimage, signal
+
+    from ringdown.base._prominence import prominent_peaks
+
+    rng = np.random.default_rng(["white", "ties", "walk", "plateaus", "smoothed spectrum"].index(kind))
+    for trial in range(60):
+        n = int(rng.integers(1, 3000))
+        if kind == "white":
+            x = rng.standard_normal(n)
+        elif kind == "ties":
+            x = rng.integers(0, 4, n).astype(float)
+        elif kind == "walk":
+            x = np.cumsum(rng.standard_normal(n))
+        elif kind == "plateaus":
+            x = np.repeat(rng.integers(0, 6, n // 3 + 1).astype(float), 3)[:n] + np.linspace(0, rng.uniform(-3, 3), n)
+        else:  # a decaying spectrum of noise, smoothed as the broad search does: ripple maxima on slopes
+            p = rng.exponential(size=n) * np.exp(-np.linspace(0, 10, n)) + 1e-6
+            x = 10 * np.log10(ndimage.uniform_filter1d(p, int(rng.integers(2, 64)), mode="nearest"))
+        for h in (0.0, 0.5, 3.0, 6.0):
+            ref_idx, props = signal.find_peaks(x, prominence=h)
+            idx, prom = prominent_peaks(x, h)
+            assert np.array_equal(idx, ref_idx)
+            assert np.array_equal(prom, props["prominences"])
