@@ -82,7 +82,7 @@ def estimate(band: Band, window: Window) -> list[Estimate]:
     # zero-padding correlates neighbouring bins: _PAD bins per independent one
     u = np.sqrt(np.diag(pcov) * _PAD)
     beta = 2 * math.pi * g
-    warnings = ()
+    warnings: tuple[Notice, ...] = ()
     resolution = band.sample_rate / n
     if 2 * g < 5 * resolution:
         warnings = (
