@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import contextlib
 import csv
+import functools
 import sys
 from pathlib import Path
 from typing import Optional
@@ -258,7 +260,6 @@ def register(app: typer.Typer) -> None:
 
         def parse():
             from ..base.errors import ParameterError
-            from ..inspection.store import part_id_from_path
             from .render import check_plot_format
 
             if json_out and jsonl:
@@ -289,7 +290,10 @@ def register(app: typer.Typer) -> None:
                 raise ParameterError(f"--jobs must be >= 1; got {jobs}")
             if plot is not None:
                 check_plot_format(plot_format)
-            part_id_from_path("x", part_id)  # a bad --part-id regex is a usage error
+            if part_id:  # a bad --part-id regex is a usage error (the history is imported only for one)
+                from ..inspection.store import part_id_from_path
+
+                part_id_from_path("x", part_id)
             return opts, parse_columns(columns)
 
         # every option is checked before any file is read
@@ -323,14 +327,27 @@ def register(app: typer.Typer) -> None:
         interrupted = False
         storer = _Storer(history, part_id, station, operator)
         bar, task = progress_bar(on_terminal(json_out or jsonl) and len(paths) > 1, len(paths), "analysing")
-        from ..base.cluster import connect
-        from ..inspection.parquet import open_sink
-        from ..inspection.store import part_id_from_path
+        # the cluster and Parquet modules only when asked for (start-up time)
+        cluster: contextlib.AbstractContextManager = contextlib.nullcontext(None)
+        if scheduler is not None:
+            from ..base.cluster import connect
 
-        cluster = guarded(lambda: connect(scheduler), debug=debug)
-        sink = guarded(lambda: open_sink(parquet_out), debug=debug)
+            cluster = guarded(lambda: connect(scheduler), debug=debug)
+        sink = None
+        if parquet_out is not None:
+            from ..inspection.parquet import open_sink
+            from ..inspection.store import part_id_from_path
+
+            sink = guarded(lambda: open_sink(parquet_out), debug=debug)
+
+        def to_sink(a) -> None:
+            if sink is not None:
+                sink.add_analysis(
+                    a, part_id=part_id_from_path(a.path or "array", part_id), station=station, operator=operator
+                )
+
         try:
-            with catching_interrupts(), cluster as client, sink, bar:
+            with catching_interrupts(), cluster as client, sink or contextlib.nullcontext(), bar:
                 if client is None and len(paths) == 1 and is_long_sound_file(paths[0]):
                     # one long recording: the block engine in this process, with its progress by time
                     found = _iter_long_file(paths[0], options, on_terminal(json_out or jsonl))
@@ -340,15 +357,12 @@ def register(app: typer.Typer) -> None:
                     check_interrupt()  # a result that finished after a Ctrl-C is not taken
                     results[i] = a
                     storer.add(a)  # durable before anything else is written
-                    guarded(
-                        lambda: sink.add_analysis(
-                            a, part_id=part_id_from_path(a.path or "array", part_id), station=station, operator=operator
-                        ),
-                        debug=debug,
-                    )
+                    if sink is not None:
+                        guarded(functools.partial(to_sink, a), debug=debug)
                     bar.advance(task)
                     arrived(a)
-                guarded(sink.close, debug=debug)
+                if sink is not None:
+                    guarded(sink.close, debug=debug)
         except KeyboardInterrupt:
             interrupted = True
         finally:
