@@ -124,7 +124,7 @@ def test_prominent_peaks_equal_scipy_find_peaks(kind):
     from ringdown.base._prominence import prominent_peaks
 
     rng = np.random.default_rng(["white", "ties", "walk", "plateaus", "smoothed spectrum"].index(kind))
-    for trial in range(60):
+    for _ in range(60):
         n = int(rng.integers(1, 3000))
         if kind == "white":
             x = rng.standard_normal(n)
@@ -142,3 +142,28 @@ def test_prominent_peaks_equal_scipy_find_peaks(kind):
             idx, prom = prominent_peaks(x, h)
             assert np.array_equal(idx, ref_idx)
             assert np.array_equal(prom, props["prominences"])
+
+
+def test_half_power_lorentzian_jacobian_and_fit_match_finite_differences():
+    # reference: central differences of the Lorentzian (error O(h^2), h = 1e-6 of each
+    # parameter: ~1e-9 of the column norms, hence 1e-6), and scipy.optimize.curve_fit with its own
+    # finite-difference Jacobian on the same data, which must reach the same minimum (1e-6)
+    from scipy.optimize import curve_fit
+
+    from ringdown.analysis.estimators.half_power import _lorentz, _lorentz_jac
+
+    f = np.linspace(990.0, 1010.0, 161)
+    par = np.array([2.0, 1000.3, 1.7, 0.05])
+    jac = _lorentz_jac(f, *par)
+    ref = np.empty_like(jac)
+    for j in range(4):
+        h = 1e-6 * abs(par[j])
+        e = np.zeros(4)
+        e[j] = h
+        ref[:, j] = (_lorentz(f, *(par + e)) - _lorentz(f, *(par - e))) / (2 * h)
+    assert np.max(np.abs(jac - ref) / np.linalg.norm(ref, axis=0)) < 1e-6
+    y = _lorentz(f, *par) * (1 + 0.05 * np.random.default_rng(2).standard_normal(f.shape[0]))
+    start = (1.5, 1000.0, 2.5, 0.0)
+    with_jac, _ = curve_fit(_lorentz, f, y, p0=start, jac=_lorentz_jac, maxfev=4000)
+    numeric, _ = curve_fit(_lorentz, f, y, p0=start, maxfev=4000)
+    assert with_jac == pytest.approx(numeric, rel=1e-6, abs=1e-9)
