@@ -16,6 +16,7 @@ import numpy as np
 
 from ..base._threads import one_blas_thread
 from ..base.errors import FitError, InputError, NoRingdownError, ParameterError
+from ..io.files import MIN_SAMPLES
 from ..io.recording import Recording
 from . import condition, detect
 from .bands import Band, Spectrum, extract_band, settling_time_s, spectrum_of
@@ -28,8 +29,6 @@ from .results import Analysis, Estimate, Hit, Mode, ModeTrace, Notice, Rejected
 
 __all__ = ["analyze", "analyze_recording", "analyze_file", "analyze_many", "iter_analyze_files", "AnalysisOptions"]
 
-#: Fewest samples a recording may have.
-MIN_SAMPLES = 64
 #: Largest sample magnitude accepted: power sums of larger values overflow float64.
 MAX_ABS_SAMPLE = 1e100
 #: How modes are found: ``"spectral"`` (the default: spectral peaks of the decay judged against

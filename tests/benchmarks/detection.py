@@ -85,7 +85,7 @@ def make_record(rng):
         i2 = pre + int(rng.uniform(0.6, 0.8) * (n - pre))
         t2 = np.arange(n - i2) / fs
         g = rng.uniform(0.3, 1.0)
-        for f_d, beta, amp, ph, _ in modes:
+        for f_d, beta, amp, _ph, _ in modes:
             x[i2:] += g * amp * np.exp(-beta * t2) * np.cos(2 * math.pi * f_d * t2 + rng.uniform(-math.pi, math.pi))
     # noise: pink, its level at 1 kHz set so that the strongest mode stands 60-110 dB (matched filter)
     strongest = max(modes, key=lambda m: m[2])
