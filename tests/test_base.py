@@ -47,13 +47,13 @@ def test_the_history_and_the_report_read_the_one_clock(monkeypatch, tmp_path):
 
 def test_no_other_clock_or_file_hash():
     # every wall-clock read and every monotonic interval goes through base/clock.py; every file
-    # hash through io/read.sha256_file (hashing bytes already in memory is hashlib's own job)
+    # hash through io/files.sha256_file (hashing bytes already in memory is hashlib's own job)
     clocks = re.compile(r"datetime\.now\(|\.utcnow\(|time\.time\(|time\.monotonic\(|perf_counter\(")
     for name, text in _sources():
         if name != "base/clock.py":
             assert not clocks.search(text), name
     defs = [name for name, text in _sources() if re.search(r"h = hashlib\.sha256\(\)", text)]
-    assert defs == ["io/read.py"]
+    assert defs == ["io/files.py"]
 
 
 def test_file_hash_is_the_standard_digest(tmp_path):

@@ -59,7 +59,7 @@ def test_every_reading_command_takes_the_same_reader_options():
     seen = {}
     for name, path in READING.items():
         opts = _options(path)
-        for key, flag in flags.items():
+        for flag in flags.values():
             assert flag in opts, f"{name} lacks {flag}"
             p = opts[flag]
             sig = (p.name, p.help, str(p.display_type), p.default)
@@ -302,3 +302,61 @@ def test_check_and_learn_read_standard_input(tmp_path):
     assert r.exit_code == 1, r.output  # the cracked part (example_signals/README.md) fails
     (row,) = [json.loads(x) for x in r.stdout.splitlines()]
     assert row["path"] == "-" and row["verdict"] == "fail"
+
+
+# flags that a command declares itself because they mean something else there (DEVELOPERS.md,
+# "Adding a command"): listen's sound-card input, tap threshold and part-id pattern; history's
+# Parquet export (a whole history, not a batch as it arrives)
+OWN_MEANING = {
+    ("listen", "--channel"),
+    ("listen", "--sample-rate"),
+    ("listen", "--min-hit-snr-db"),
+    ("listen", "--part-id"),
+    ("history", "--parquet"),
+}
+
+
+def _shared_aliases():
+    """Each flag of cli/_options.py with the help, decls and type of its one definition."""
+    import typing
+
+    from ringdown.cli import _options
+
+    out = {}
+    for name in _options.__all__:
+        alias = getattr(_options, name)
+        if typing.get_origin(alias) is not typing.Annotated:
+            continue
+        info = typing.get_args(alias)[1]
+        # in an Annotated alias typer keeps the first flag in `default` (it moves it to the
+        # declarations when it reads a command)
+        decls = (info.default, *info.param_decls)
+        out.setdefault(decls[0], set()).add((decls, info.help))
+    return out
+
+
+def _all_commands():
+    root = typer.main.get_command(app)
+    for name, cmd in root.commands.items():
+        if hasattr(cmd, "commands"):
+            for sub, c in cmd.commands.items():
+                yield f"{name} {sub}", c
+        else:
+            yield name, cmd
+
+
+def test_shared_options_have_one_definition_in_every_command():
+    shared = _shared_aliases()
+    assert {"--json", "--jobs", "--db", "--station", "--operator", "--report", "--debug"} <= set(shared)
+    uses = {}
+    for name, cmd in _all_commands():
+        for p in cmd.params:
+            flag = next((o for o in p.opts if o in shared), None)
+            if flag is None or (name, flag) in OWN_MEANING:
+                continue
+            assert (tuple(p.opts), p.help) in shared[flag] or (tuple(reversed(p.opts)), p.help) in shared[flag], (
+                f"{name} {flag} is not the shared definition of cli/_options.py: {p.opts} {p.help!r}"
+            )
+            uses.setdefault(flag, set()).add(name)
+    # the shared options really are shared: --json by six commands, --db by four, --jobs by three
+    assert len(uses["--json"]) == 6 and len(uses["--db"]) == 4 and len(uses["--jobs"]) == 3, uses

@@ -291,7 +291,7 @@ def test_false_alarm_rate_welch():
     # Welch's test is close to exact for equal n and variances (Welch 1947); the count of
     # "changed" verdicts over 600 comparisons must fall inside the 99.9 % binomial band of p=0.05
     # (14-49 alarms, 2.3-8.2 %). Run at the statistics level (per-hit ln zeta values) to stay fast.
-    from ringdown.treatment.compare import _Sample, _two_sample, _verdict
+    from ringdown.treatment.stats import _Sample, _two_sample, _verdict
 
     rng = np.random.default_rng(7)
     n_trials, alarms, covered = 600, 0, 0

@@ -37,14 +37,19 @@ LAMBDA_1 = 4.73004074  # Blevins 1979, first root of cos x cosh x = 1
 # independent references
 
 
-def _timoshenko_f1(E, G, kappa, rho, A, I, L, n=1):
+def _timoshenko_f1(E, G, kappa, rho, A, I_area, L, n=1):
     """n-th free-free flexural frequency (Hz) of a Timoshenko beam by the exact transfer matrix."""
 
     def det(omega):
-        kga, ei = kappa * G * A, E * I
+        kga, ei = kappa * G * A, E * I_area
         # y = (w, psi, Q, M): w' = psi + Q/kGA, psi' = M/EI, Q' = -rho A w^2 w, M' = -Q - rho I w^2 psi
         a = np.array(
-            [[0, 1, 1 / kga, 0], [0, 0, 0, 1 / ei], [-rho * A * omega**2, 0, 0, 0], [0, -rho * I * omega**2, -1, 0]],
+            [
+                [0, 1, 1 / kga, 0],
+                [0, 0, 0, 1 / ei],
+                [-rho * A * omega**2, 0, 0, 0],
+                [0, -rho * I_area * omega**2, -1, 0],
+            ],
             float,
         )
         p = expm(a * L)
@@ -53,7 +58,7 @@ def _timoshenko_f1(E, G, kappa, rho, A, I, L, n=1):
     # shear and rotary inertia only lower a frequency, and by less than half for L/t >= 3: the
     # n-th root lies between 0.5 and 1 times the Euler-Bernoulli value (Blevins' lambda_n)
     lam = {1: LAMBDA_1, 2: 7.85320462}[n]
-    w_eb = lam**2 * math.sqrt(E * I / (rho * A * L**4))
+    w_eb = lam**2 * math.sqrt(E * I_area / (rho * A * L**4))
     grid = np.linspace(0.5 * w_eb, 1.001 * w_eb, 60)
     vals = [det(w) for w in grid]
     roots = [
@@ -82,8 +87,8 @@ def _saint_venant_beta(long, short):
 def _bar_frequencies(E, mu, rho, L, b, t):
     """(flexural, torsional) frequencies of a bar from Timoshenko and Saint-Venant theory, Hz."""
     G = E / (2 * (1 + mu))
-    A, I = b * t, b * t**3 / 12
-    ff = _timoshenko_f1(E, G, _cowper_rect(mu), rho, A, I, L)
+    A, I_area = b * t, b * t**3 / 12
+    ff = _timoshenko_f1(E, G, _cowper_rect(mu), rho, A, I_area, L)
     kt = _saint_venant_beta(max(b, t), min(b, t)) * max(b, t) * min(b, t) ** 3
     ip = b * t * (b**2 + t**2) / 12
     ft = math.sqrt(G * kt / (rho * ip)) / (2 * L)
@@ -123,8 +128,8 @@ def test_rod_young_modulus_matches_timoshenko(mu, d_over_l):
     # for mu <= 0.3 and 7 % at mu = 0.45 (measured 1.2 % and 5.8 %).
     E, rho, L = 70e9, 2700.0, 0.2
     D = d_over_l * L
-    A, I = math.pi * D**2 / 4, math.pi * D**4 / 64
-    ff = _timoshenko_f1(E, E / (2 * (1 + mu)), _cowper_circle(mu), rho, A, I, L)
+    A, I_area = math.pi * D**2 / 4, math.pi * D**4 / 64
+    ff = _timoshenko_f1(E, E / (2 * (1 + mu)), _cowper_circle(mu), rho, A, I_area, L)
     rod = CylindricalRod(L, D, rho * A * L)
     res = moduli(rod, ff, poisson=mu)
     t1_true = E / (1.6067 * (L**3 / D**4) * rod.mass_kg * ff**2)
@@ -157,8 +162,8 @@ def test_slender_bar_reduces_to_euler_bernoulli():
 def test_slender_rod_reduces_to_euler_bernoulli():
     # L/D = 250: T1' - 1 = 8.6e-5
     E, rho, L, D = 72e9, 2700.0, 0.5, 0.002
-    A, I = math.pi * D**2 / 4, math.pi * D**4 / 64
-    f1 = LAMBDA_1**2 / (2 * math.pi * L**2) * math.sqrt(E * I / (rho * A))
+    A, I_area = math.pi * D**2 / 4, math.pi * D**4 / 64
+    f1 = LAMBDA_1**2 / (2 * math.pi * L**2) * math.sqrt(E * I_area / (rho * A))
     res = moduli(CylindricalRod(L, D, rho * A * L), f1, poisson=0.33)
     assert 256 * math.pi / LAMBDA_1**4 == pytest.approx(1.6067, abs=1e-4)
     assert res.e_pa == pytest.approx(E, rel=2e-4)
@@ -196,8 +201,8 @@ def test_rod_shear_modulus_is_exact():
     ft = math.sqrt(G / rho) / (2 * L)
     rod = CylindricalRod(L, D, rho * math.pi * D**2 / 4 * L)
     E = 2 * G * 1.33
-    A, I = math.pi * D**2 / 4, math.pi * D**4 / 64
-    ff = _timoshenko_f1(E, G, _cowper_circle(0.33), rho, A, I, L)
+    A, I_area = math.pi * D**2 / 4, math.pi * D**4 / 64
+    ff = _timoshenko_f1(E, G, _cowper_circle(0.33), rho, A, I_area, L)
     res = moduli(rod, ff, ft)
     assert res.g_pa == pytest.approx(G, rel=1e-12)
     assert res.r_factor is None

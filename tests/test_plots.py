@@ -438,14 +438,14 @@ def test_no_pyplot_used():
     import sys
 
     code = (
-        "import sys; sys.path.insert(0, %r)\n"
+        f"import sys; sys.path.insert(0, {str(__import__('pathlib').Path(__file__).parent)!r})\n"
         "from test_plots import make_analysis, THREE_MODES\n"
         "from ringdown.render import plots, report\n"
         "a = make_analysis(modes=THREE_MODES, dva=True)\n"
         "plots.figure_bytes(plots.plot_overview(a)); plots.figure_bytes(plots.plot_mode(a.modes[0]))\n"
         "plots.plot_damping_vs_amplitude(a.modes[0])\n"
         "print('matplotlib' in sys.modules, 'matplotlib.pyplot' in sys.modules)\n"
-    ) % str(__import__("pathlib").Path(__file__).parent)
+    )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.split() == ["True", "False"]
 

@@ -200,7 +200,7 @@ def test_report_embeds_figures_and_loads_nothing(three_mode_report):
     low = text.lower()
     assert "http:" not in low and "https:" not in low  # ':' is not in the base64 alphabet
     assert "@import" not in low and "url(" not in low
-    for tag, attrs in doc.tags:
+    for _tag, attrs in doc.tags:
         for k in ("src", "href"):
             if k in attrs:
                 assert attrs[k].startswith(("data:", "#")), attrs[k]

@@ -67,7 +67,7 @@ def test_every_start_method_runs_the_batch(two_mode_wav):
                 [two_mode_wav, two_mode_wav],
                 on_error=task.failed,
                 jobs=2,
-                executor=lambda k: ProcessExecutor(k, preload=task.preload, context=ctx),
+                executor=lambda k, task=task, ctx=ctx: ProcessExecutor(k, preload=task.preload, context=ctx),
             )
         )
         assert [out[i].error for i in (0, 1)] == [None, None], method

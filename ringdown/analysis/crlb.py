@@ -137,12 +137,36 @@ def crlb_damped_sinusoid(
     >>> round(b.beta_per_s, 8)
     9.997e-05
     """
+    n, fs, a, sigma = _checked_record(n_samples, sample_rate, amplitude, noise_sigma)
+    beta, f, phi = _checked_pole(beta_per_s, f_hz, phase_rad, fs)
+    cov = _inverse_fisher(n, a, beta / fs, f / fs, phi, sigma)
+    d = np.diag(cov)
+    # back to physical units: beta = b fs, f = nu fs
+    return CramerRao(
+        amplitude=float(math.sqrt(d[0])),
+        beta_per_s=float(math.sqrt(d[1]) * fs),
+        f_hz=float(math.sqrt(d[2]) * fs),
+        phase_rad=float(math.sqrt(d[3])),
+        cov_f_beta=float(cov[1, 2] * fs * fs),
+        snr_db=float(10.0 * math.log10(a * a / (2.0 * sigma * sigma))),
+    )
+
+
+def _checked_record(
+    n_samples: int, sample_rate: float, amplitude: float, noise_sigma: float
+) -> tuple[int, float, float, float]:
+    """(n, fs, A, sigma) checked: an integer count >= 4 and three finite positive numbers."""
     n = int(n_samples)
     if n != n_samples or n < 4:
         raise ParameterError(f"n_samples must be an integer >= 4, got {n_samples!r}; give a longer record")
     fs = _check_positive("sample_rate", sample_rate, "Hz")
     a = _check_positive("amplitude", amplitude, "(signal units)")
     sigma = _check_positive("noise_sigma", noise_sigma, "(signal units)")
+    return n, fs, a, sigma
+
+
+def _checked_pole(beta_per_s: float, f_hz: float, phase_rad: float, fs: float) -> tuple[float, float, float]:
+    """(beta, f, phase) checked: beta finite and >= 0, f inside (0, Nyquist), a finite phase."""
     beta = float(beta_per_s)
     if not math.isfinite(beta) or beta < 0.0:
         raise ParameterError(f"beta_per_s must be finite and >= 0 1/s, got {beta_per_s!r}; give a decay rate")
@@ -154,11 +178,14 @@ def crlb_damped_sinusoid(
     phi = float(phase_rad)
     if not math.isfinite(phi):
         raise ParameterError(f"phase_rad must be finite, got {phase_rad!r}; give a phase in radians")
+    return beta, f, phi
 
+
+def _inverse_fisher(n: int, a: float, b: float, nu: float, phi: float, sigma: float) -> np.ndarray:
+    """(4, 4) inverse Fisher matrix of (A, b, nu, phi) for ``n`` samples, decay ``b`` and frequency
+    ``nu`` in units of the sample rate; ParameterError when it is (numerically) singular."""
     # Work in sample units: k = n (t = k T), b = beta T, nu = f T; derivatives w.r.t. (A, b, nu, phi).
     k = np.arange(n, dtype=np.float64)
-    b = beta / fs
-    nu = f / fs
     env = np.exp(-b * k)
     arg = 2.0 * np.pi * nu * k + phi
     c = env * np.cos(arg)
@@ -176,12 +203,4 @@ def crlb_damped_sinusoid(
         raise ParameterError(
             f"Fisher matrix of a {n}-sample record is numerically singular; give more samples or a lighter decay"
         )
-    # back to physical units: beta = b fs, f = nu fs
-    return CramerRao(
-        amplitude=float(math.sqrt(d[0])),
-        beta_per_s=float(math.sqrt(d[1]) * fs),
-        f_hz=float(math.sqrt(d[2]) * fs),
-        phase_rad=float(math.sqrt(d[3])),
-        cov_f_beta=float(cov[1, 2] * fs * fs),
-        snr_db=float(10.0 * math.log10(a * a / (2.0 * sigma * sigma))),
-    )
+    return cov

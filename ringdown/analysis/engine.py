@@ -8,19 +8,9 @@ a hit; each segment goes to the existing per-record analysis
 (:func:`ringdown.pipeline.analyze_recording`), and :func:`analyze_blocks` combines the hits of a
 file's segments as the whole-file path combines the hits of one record.
 
-How the level decides (every span in samples, never in seconds, like :mod:`ringdown.condition`):
-
-* the level of a frame of :data:`FRAME_SAMPLES` samples is its mean square in dB;
-* the noise floor is the lowest median of blocks of 8 frames over the last
-  :data:`NOISE_MEMORY_FRAMES` frames outside hits: the record's own quietest stretch, as
-  :func:`ringdown.condition.noise_floor_db` takes it;
-* a trigger is a rise of 12 dB within 2 frames to at least ``min_hit_snr_db`` above the floor
-  (the rise that :func:`ringdown.condition.find_hits` asks for);
-* a hit ends when the level has stayed within 3 dB of the floor for :data:`QUIET_FRAMES` frames
-  (at +3.01 dB the signal power equals the noise power: the modes are at the noise).
-
-The trigger only decides where the stream is cut; the analysis of each segment decides what is a
-hit and what its modes are. Memory: a file's segments are at least ``min_segment`` samples long
+How the level decides and where the stream is cut: :mod:`ringdown.analysis.segmenter` (the
+trigger only decides where the stream is cut; the analysis of each segment decides what is a
+hit and what its modes are). Memory: a file's segments are at least ``min_segment`` samples long
 (default :data:`SEGMENT_SAMPLES`) before they are cut at the end of the last hit that died away, so
 the buffer holds at most ``min_segment`` samples plus the longest decay (a decay that is still ringing after
 ``max_segment`` samples is cut there, with the warning ``decay_truncated``). A source no longer
@@ -29,17 +19,24 @@ than ``min_segment`` is one segment: the result is that of the whole-file path, 
 
 from __future__ import annotations
 
-import math
 import os
-from collections import deque
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass, replace
 
 import numpy as np
 
-from ..base.errors import InputError, NoRingdownError, ParameterError
+from ..base.errors import InputError, NoRingdownError
 from ..io.recording import Recording
 from .results import Analysis, Notice, lighten
+from .segmenter import (
+    FRAME_SAMPLES,
+    MIN_PRE_TRIGGER_SAMPLES,
+    QUIET_FRAMES,
+    SEGMENT_SAMPLES,
+    Segment,
+    Segmenter,
+    iter_segments,
+)
 
 __all__ = [
     "Segment",
@@ -47,303 +44,19 @@ __all__ = [
     "analyze_blocks",
     "analyze_long_file",
     "is_long_sound_file",
+    "iter_long_file",
     "FRAME_SAMPLES",
     "SEGMENT_SAMPLES",
     "LONG_FILE_SAMPLES",
+    "QUIET_FRAMES",
+    "MIN_PRE_TRIGGER_SAMPLES",
+    "iter_segments",
 ]
 
-#: Samples per frame of the trigger's level: 256, a common audio block (common practice, no
-#: source). Short against a tap's decay at audio rates, long enough that the mean square of
-#: Gaussian noise over a frame scatters by only +-0.4 dB (sqrt(2/256) relative [derived]).
-FRAME_SAMPLES = 256
-#: A trigger rises this much within :data:`RISE_FRAMES` frames (as :func:`condition.find_hits`).
-RISE_DB = 12.0
-RISE_FRAMES = 2
-#: A second rise within this many frames of a trigger is the same hit (a bounce); after it,
-#: a rise must also stand 3 dB above the level of those frames (as ``find_hits``'s hold-off).
-HOLD_FRAMES = 8
-#: The level must stay at the noise this many frames (8, the noise floor's block) to end a hit.
-QUIET_FRAMES = 8
-#: Frames per block whose median the noise floor takes (as :data:`condition.NOISE_BLOCK_WIDTHS`).
-NOISE_BLOCK_FRAMES = 8
-#: How far back (frames outside hits) the noise floor looks: 256 frames, 64 Ki samples.
-NOISE_MEMORY_FRAMES = 256
-#: Within this of the floor the level is "at the noise": signal power <= noise power [derived].
-END_MARGIN_DB = 10.0 * math.log10(2.0)
-#: The level of a frame of exact zeros (mean square 0, i.e. 10 log10(1e-300)); such frames do not
-#: enter the noise floor.
-_SILENT_DB = -2999.0
-#: Fewest samples of pre-trigger a live segment keeps (64 frames, 16 Ki samples); more when a
-#: longer decay has been seen, because the analysis looks as far before an onset as the decay
-#: is long (:func:`ringdown.pipeline.analyze_recording`).
-MIN_PRE_TRIGGER_SAMPLES = 64 * FRAME_SAMPLES
-#: Buffer a file's segment may fill before it is cut: 2**18 samples (2 MiB of float64; 5.5 s at 48 kHz). The analysis
-#: of a segment of this length with 8 taps peaks near 55 MB (tracemalloc), whatever the file's length.
-SEGMENT_SAMPLES = 1 << 18
 #: A sound file with more samples than this (per channel) is analysed by the block engine:
 #: 2**20 samples (21.8 s at 48 kHz, 8 MiB of float64), where the whole-file path's peak
 #: (about 25 copies of the samples) passes 200 MB. Below it, the whole-file path.
 LONG_FILE_SAMPLES = 1 << 20
-
-
-@dataclass(frozen=True, slots=True, eq=False)
-class Segment:
-    """A stretch of the stream with its hits, cut where the level was back at the noise.
-
-    Attributes
-    ----------
-    samples : (n,) ndarray of float64
-    start : int
-        Index in the stream of ``samples[0]`` (samples lost to overflows counted).
-    triggers : tuple of int
-        Stream indices of the frames where the level rose (a trigger each).
-    dropped : int
-        Samples lost inside the segment (input overflow): times after the loss are late by up
-        to that many samples and the decay there has a gap.
-    truncated : bool
-        Cut while a decay was still ringing (``max_segment`` reached).
-    """
-
-    samples: np.ndarray
-    start: int
-    triggers: tuple[int, ...]
-    dropped: int = 0
-    truncated: bool = False
-
-    @property
-    def n_samples(self) -> int:
-        return int(self.samples.shape[0])
-
-
-class _Buffer:
-    """A growable float64 buffer with cheap appends and removal from the front."""
-
-    def __init__(self) -> None:
-        self._a = np.empty(1 << 16)
-        self._lo = 0
-        self._hi = 0
-
-    def __len__(self) -> int:
-        return self._hi - self._lo
-
-    def append(self, x: np.ndarray) -> None:
-        n = x.shape[0]
-        if self._hi + n > self._a.shape[0]:
-            live = self._a[self._lo : self._hi]
-            cap = (
-                max(self._a.shape[0], 2 * (live.shape[0] + n))
-                if live.shape[0] + n > self._a.shape[0] // 2
-                else self._a.shape[0]
-            )
-            new = np.empty(cap)
-            new[: live.shape[0]] = live
-            self._a, self._lo, self._hi = new, 0, live.shape[0]
-        self._a[self._hi : self._hi + n] = x
-        self._hi += n
-
-    def view(self, lo: int, hi: int) -> np.ndarray:
-        return self._a[self._lo + lo : self._lo + hi]
-
-    def take(self, n: int) -> np.ndarray:
-        """Remove and return (a copy of) the first ``n`` samples."""
-        out = self._a[self._lo : self._lo + n].copy()
-        self._lo += n
-        return out
-
-    def drop(self, n: int) -> None:
-        self._lo += n
-
-
-class Segmenter:
-    """Cut a stream of blocks into segments, each with its hits and the noise around them.
-
-    Parameters
-    ----------
-    sample_rate : float, Hz
-        Only carried (every span is in samples).
-    min_hit_snr_db : float, dB
-        A trigger must rise this far above the noise floor (the analysis option of that name).
-    min_segment : int >= 0, samples
-        Cut only once the buffer holds at least this many samples (0: after every hit, the live
-        station; a file: :data:`SEGMENT_SAMPLES`). Below it nothing is cut or dropped.
-    max_segment : int or None, samples
-        Cut a decay still ringing when the buffer reaches this (default ``8 * min_segment``,
-        at least 2**22 samples).
-    one_hit_per_segment : bool
-        Cut before every new trigger too, so that each segment holds one hit (the live station:
-        one tap, one part).
-    frame : int, samples
-        Frame of the level (:data:`FRAME_SAMPLES`).
-    """
-
-    def __init__(
-        self,
-        sample_rate: float,
-        *,
-        min_hit_snr_db: float = 20.0,
-        min_segment: int = SEGMENT_SAMPLES,
-        max_segment: int | None = None,
-        one_hit_per_segment: bool = False,
-        frame: int = FRAME_SAMPLES,
-    ) -> None:
-        if not (isinstance(min_segment, (int, np.integer)) and min_segment >= 0):
-            raise ParameterError(f"min_segment must be a whole number of samples >= 0; got {min_segment!r}")
-        self.sample_rate = float(sample_rate)
-        self.min_hit_snr_db = float(min_hit_snr_db)
-        self.frame = int(frame)
-        self.min_segment = int(min_segment)
-        self.max_segment = int(max_segment) if max_segment is not None else max(8 * self.min_segment, 1 << 22)
-        self.one_hit = bool(one_hit_per_segment)
-        self._buf = _Buffer()
-        self._recv0 = 0  # received-sample index of the buffer's first sample
-        self._received = 0  # samples received so far (lost ones not counted)
-        self._framed = 0  # received samples already framed
-        self._drops: list[tuple[int, int]] = []  # (received index, samples lost just before it)
-        self._lost = 0
-        self._recent: deque[float] = deque(maxlen=max(RISE_FRAMES, HOLD_FRAMES))
-        self._idle: list[float] = []
-        self._medians: deque[float] = deque(maxlen=max(1, NOISE_MEMORY_FRAMES // NOISE_BLOCK_FRAMES))
-        self._active = False
-        self._trig_frame = -(10**9)
-        self._quiet = 0
-        self._triggers: list[int] = []  # received indices of triggers in the buffer
-        self._cut_at: int | None = None  # received index where a cut may be made (after a hit)
-        self._truncated_open = False
-        self.longest_decay = 0  #: samples from a trigger to the end of its hit, longest seen
-        self.n_segments = 0
-        self.floor_db: float | None = None  #: the current noise floor of the frame level, dB
-
-    # -- stream bookkeeping ---------------------------------------------------------------
-    def _stream_index(self, r: int) -> int:
-        """Stream index (lost samples counted) of received index ``r``."""
-        return r + sum(n for ri, n in self._drops if ri <= r)
-
-    def _lost_in(self, r_lo: int, r_hi: int) -> int:
-        return sum(n for ri, n in self._drops if r_lo < ri < r_hi)
-
-    @property
-    def buffered(self) -> int:
-        """Samples held now."""
-        return len(self._buf)
-
-    # -- feeding ----------------------------------------------------------------------------
-    def feed(self, block) -> list[Segment]:
-        """Take one :class:`~ringdown.io.blocks.Block`; return the segments it completed."""
-        x = np.asarray(block.samples, dtype=np.float64)
-        if getattr(block, "dropped", 0):
-            self._drops.append((self._received, int(block.dropped)))
-        self._buf.append(x)
-        self._received += x.shape[0]
-        out: list[Segment] = []
-        F = self.frame
-        n_new = (self._received - self._framed) // F
-        if n_new <= 0:
-            return out
-        seg = self._buf.view(self._framed - self._recv0, self._framed - self._recv0 + n_new * F)
-        levels = 10.0 * np.log10(np.mean(seg.reshape(n_new, F) ** 2, axis=1) + 1e-300)
-        first = self._framed // F
-        for j, lv in enumerate(levels.tolist()):
-            self._frame(first + j, lv, out)
-        self._framed += n_new * F
-        self._after_frames(out)
-        return out
-
-    def _floor(self) -> float | None:
-        if self._medians:
-            return min(self._medians)
-        # before the first full block of noise (a tap early in the stream): the frames so far
-        return float(np.median(self._idle)) if len(self._idle) >= RISE_FRAMES else None
-
-    def _frame(self, k: int, lv: float, out: list[Segment]) -> None:
-        F = self.frame
-        floor = self._floor()
-        recent = list(self._recent)
-        rise = (
-            floor is not None
-            and len(recent) >= RISE_FRAMES
-            and lv - min(recent[-RISE_FRAMES:]) >= RISE_DB
-            and lv >= floor + self.min_hit_snr_db
-        )
-        if not self._active:
-            if rise:
-                self._start_hit(k)
-            elif lv <= _SILENT_DB:
-                pass  # digital silence (a virtual device, a muted input) says nothing of the noise
-            else:
-                self._idle.append(lv)
-                if len(self._idle) == NOISE_BLOCK_FRAMES:
-                    self._medians.append(float(np.median(self._idle)))
-                    self._idle.clear()
-                    self.floor_db = self._floor()
-        else:
-            if rise and k - self._trig_frame >= HOLD_FRAMES and lv >= max(recent) + 3.0:
-                if self.one_hit:
-                    # one tap, one segment: cut just before the new rise
-                    cut = (k - RISE_FRAMES) * F
-                    if cut > self._recv0:
-                        self._cut(cut, out, truncated=False)
-                self._start_hit(k)
-            elif floor is not None and lv <= floor + END_MARGIN_DB:  # (a hit starts only once there is a floor)
-                self._quiet += 1
-                if self._quiet >= QUIET_FRAMES:
-                    self._active = False
-                    end = (k - QUIET_FRAMES + 1) * F
-                    self.longest_decay = max(self.longest_decay, end - self._trig_frame * F)
-                    self._cut_at = (k + 1) * F
-            else:
-                self._quiet = 0
-        self._recent.append(lv)
-
-    def _start_hit(self, k: int) -> None:
-        self._active = True
-        self._trig_frame = k
-        self._quiet = 0
-        self._triggers.append(k * self.frame)
-
-    def _after_frames(self, out: list[Segment]) -> None:
-        if self._cut_at is not None and not self._active and len(self._buf) >= self.min_segment:
-            # at the end of the last hit that died away: the buffer then holds at most
-            # min_segment samples, one decay, one quiet run and one block
-            self._cut(self._cut_at, out, truncated=False)
-        if self._active and len(self._buf) >= self.max_segment:
-            self._cut(self._framed, out, truncated=True)
-        if not self._active and not self._triggers:
-            keep = self.min_segment if self.min_segment > 0 else max(MIN_PRE_TRIGGER_SAMPLES, self.longest_decay)
-            keep = max(keep, self.frame)
-            excess = min(len(self._buf) - keep, self._framed - self._recv0)
-            if excess > 0:
-                self._buf.drop(excess)
-                self._recv0 += excess
-
-    def _cut(self, r_cut: int, out: list[Segment], *, truncated: bool) -> None:
-        n = r_cut - self._recv0
-        if n <= 0:
-            return
-        trig = [t for t in self._triggers if t < r_cut]
-        self._triggers = [t for t in self._triggers if t >= r_cut]
-        samples = self._buf.take(n)
-        start = self._stream_index(self._recv0)
-        out.append(
-            Segment(
-                samples=samples,
-                start=start,
-                triggers=tuple(self._stream_index(t) for t in trig),
-                dropped=self._lost_in(self._recv0, r_cut),
-                truncated=truncated or self._truncated_open,
-            )
-        )
-        self._truncated_open = truncated
-        self._recv0 = r_cut
-        self.n_segments += 1
-        if self._cut_at is not None and self._cut_at <= r_cut:
-            self._cut_at = None
-
-    def finish(self) -> list[Segment]:
-        """The end of the stream: the last segment, when it holds a trigger or nothing was cut yet."""
-        out: list[Segment] = []
-        if len(self._buf) and (self._triggers or self.n_segments == 0 or self._active):
-            self._cut(self._received, out, truncated=False)
-        return out
 
 
 # ----------------------------------------------------------------------------------------------
@@ -393,135 +106,215 @@ def analyze_blocks(
     InputError, ParameterError
         As :func:`ringdown.analyze_recording`.
     """
-    from .pipeline import AnalysisOptions, _combine_hits, _keep, _unique, analyze_recording
+    from .pipeline import AnalysisOptions
 
     opts = AnalysisOptions.from_kwargs(options)
     settings = opts.to_dict()
     if reader_settings:
         settings.update(reader_settings)
-    seg_options = {k: v for k, v in options.items() if k not in ("start_s", "end_s")}
     path = getattr(source, "path", None)
     name = repr(path) if path else "the stream"
-    fs = float(source.sample_rate)
-    segmenter = Segmenter(fs, min_hit_snr_db=opts.min_hit_snr_db, min_segment=min_segment, max_segment=max_segment)
+    seg_options = {k: v for k, v in options.items() if k not in ("start_s", "end_s")}
+    stream = _Stream(source, float(source.sample_rate), path, sample_offset, reader_settings, seg_options)
+    segmenter = Segmenter(
+        stream.fs, min_hit_snr_db=opts.min_hit_snr_db, min_segment=min_segment, max_segment=max_segment
+    )
     total = getattr(source, "total_samples", None)
-    results: list[tuple[Segment, int, Analysis | None, Exception | None]] = []
-    n_read = 0
-
-    def run(seg: Segment, last: bool = False) -> None:
-        whole = last and segmenter.n_segments == 1  # nothing was cut: this may be the whole source
-        rec = Recording(
-            samples=seg.samples,
-            sample_rate=fs,
-            channel=getattr(source, "channel", "1"),
-            path=path,
-            sha256=getattr(source, "sha256", None) if path else None,
-            full_scale=getattr(source, "full_scale", None),
-            n_channels=getattr(source, "n_channels", 1),
-            notes=tuple(getattr(source, "notes", ())),
+    results, n_read = _run_source(stream, segmenter, progress, total)
+    n_total = total if total is not None else n_read
+    if len(results) == 1 and results[0].seg.start == 0 and results[0].n_samples == n_total:
+        only = results[0]
+        if only.error is not None or only.analysis is None:
+            raise only.error or NoRingdownError(f"no ring-down in {name}")
+        return replace(only.analysis, settings=settings)  # the whole source in one segment: the whole-file result
+    parts = _gather(results, stream, segmenter.max_segment)
+    hits, used = _used_hits(parts, name)
+    notes = [
+        Notice(
+            "segmented",
+            f"read in blocks: {len(results)} segments of about {min_segment} samples, "
+            "cut where the level was back at the noise; hits combined over the file",
         )
-        a: Analysis | None = None
-        err: Exception | None = None
-        try:
-            a = analyze_recording(
-                rec, reader_settings=reader_settings, sample_offset=sample_offset + seg.start, **seg_options
-            )
-        except (NoRingdownError, InputError) as exc:
-            err = exc
-        else:
-            err = None
-            if not whole:
-                a = lighten(a)  # the samples and traces of a long file's segments are not kept
-        # only what the combination needs is kept: the segment's place, not its samples
-        results.append((replace(seg, samples=np.empty(0)), seg.n_samples, a, err))
+    ]
+    return _combined(stream, int(n_total), hits, used, notes + parts.notes, parts, settings)
 
-    for blk in source:
+
+@dataclass(frozen=True)
+class _Stream:
+    """What every segment of one block source shares: the source, its rate (Hz), its file (or
+    None), the file index of its first sample, and the options of each segment's analysis."""
+
+    source: object
+    fs: float
+    path: str | None
+    sample_offset: int
+    reader_settings: dict | None
+    seg_options: dict
+
+
+@dataclass(frozen=True)
+class _SegmentResult:
+    """One segment's place (its samples dropped), length in samples, and analysis or error."""
+
+    seg: Segment
+    n_samples: int
+    analysis: Analysis | None
+    error: Exception | None
+
+
+def _run_source(
+    stream: _Stream, segmenter: Segmenter, progress: Callable[[int, int | None], None] | None, total: int | None
+) -> tuple[list[_SegmentResult], int]:
+    """Feed every block of the source to the segmenter and analyse each segment it cuts;
+    (the segments' results, samples read)."""
+    results: list[_SegmentResult] = []
+    n_read = 0
+    for blk in stream.source:  # type: ignore[attr-defined]
         n_read = blk.start + blk.samples.shape[0]
         for seg in segmenter.feed(blk):
-            run(seg)
+            results.append(_analyze_segment(stream, seg, whole=False))
         if progress is not None:
             progress(n_read, total)
     for seg in segmenter.finish():
-        run(seg, last=True)
-    n_total = total if total is not None else n_read
-    if len(results) == 1 and results[0][0].start == 0 and results[0][1] == n_total:
-        seg, _, a, exc = results[0]
-        if exc is not None or a is None:
-            raise exc or NoRingdownError(f"no ring-down in {name}")
-        return replace(a, settings=settings)  # the whole source in one segment: the whole-file result
+        # nothing was cut before the end: this segment may be the whole source
+        results.append(_analyze_segment(stream, seg, whole=segmenter.n_segments == 1))
+    return results, n_read
 
-    notes: list[Notice] = []
-    hits: list = []
-    rejected: list = []
-    warnings: list[Notice] = []
-    floors: list[float] = []
-    sources: list[str | None] = []
-    for seg, _, a, exc in results:
-        t_seg = (sample_offset + seg.start) / fs
-        if seg.dropped:
-            notes.append(
-                Notice(
-                    "input_dropped",
-                    f"{seg.dropped} samples were lost (input overflow) in the segment at "
-                    f"{t_seg:.6g} s; times and decays after the loss are unreliable",
-                )
-            )
-        if seg.truncated:
-            notes.append(
-                Notice(
-                    "decay_truncated",
-                    f"a decay at {t_seg:.6g} s rang longer than the "
-                    f"{segmenter.max_segment}-sample buffer and was cut there",
-                )
-            )
+
+def _analyze_segment(stream: _Stream, seg: Segment, *, whole: bool) -> _SegmentResult:
+    """The analysis of one segment (lightened unless it may be the whole source), or its error."""
+    from .pipeline import analyze_recording
+
+    source, path = stream.source, stream.path
+    rec = Recording(
+        samples=seg.samples,
+        sample_rate=stream.fs,
+        channel=getattr(source, "channel", "1"),
+        path=path,
+        sha256=getattr(source, "sha256", None) if path else None,
+        full_scale=getattr(source, "full_scale", None),
+        n_channels=getattr(source, "n_channels", 1),
+        notes=tuple(getattr(source, "notes", ())),
+    )
+    a: Analysis | None = None
+    err: Exception | None = None
+    try:
+        a = analyze_recording(
+            rec,
+            reader_settings=stream.reader_settings,
+            sample_offset=stream.sample_offset + seg.start,
+            **stream.seg_options,
+        )
+    except (NoRingdownError, InputError) as exc:
+        err = exc
+    else:
+        if not whole:
+            a = lighten(a)  # the samples and traces of a long file's segments are not kept
+    # only what the combination needs is kept: the segment's place, not its samples
+    return _SegmentResult(replace(seg, samples=np.empty(0)), seg.n_samples, a, err)
+
+
+@dataclass(frozen=True)
+class _Gathered:
+    """The segments' hits (renumbered rejections), warnings, notes and noise floors, in order."""
+
+    notes: list[Notice]
+    hits: list
+    rejected: list
+    warnings: list[Notice]
+    floors: list[float]
+    sources: list[str | None]
+
+
+def _gather(results: list[_SegmentResult], stream: _Stream, max_segment: int) -> _Gathered:
+    """Collect the hits of every analysed segment, and a note per lossy, cut or empty segment."""
+    out = _Gathered([], [], [], [], [], [])
+    for r in results:
+        seg, a, exc = r.seg, r.analysis, r.error
+        out.notes.extend(_segment_notes(seg, exc, stream, max_segment, failed=exc is not None or a is None))
         if exc is not None or a is None:
-            if seg.triggers:
-                t = (sample_offset + seg.triggers[0]) / fs
-                notes.append(
-                    Notice(
-                        "segment_without_ringdown",
-                        f"the level rose at {t:.6g} s but no ring-down was measured there: {exc}",
-                    )
-                )
             continue
         a = lighten(a)
-        k = len(hits)
-        hits.extend(a.hits)
-        rejected.extend(replace(r, hit=r.hit + k) if r.hit is not None else r for r in a.rejected)
-        warnings.extend(a.warnings)
-        floors.append(float("inf") if a.noise_floor is None else a.noise_floor)
-        sources.append(a.noise_source)
+        k = len(out.hits)
+        out.hits.extend(a.hits)
+        out.rejected.extend(replace(x, hit=x.hit + k) if x.hit is not None else x for x in a.rejected)
+        out.warnings.extend(a.warnings)
+        out.floors.append(float("inf") if a.noise_floor is None else a.noise_floor)
+        out.sources.append(a.noise_source)
+    return out
+
+
+def _segment_notes(
+    seg: Segment, exc: Exception | None, stream: _Stream, max_segment: int, *, failed: bool
+) -> list[Notice]:
+    """Notes on one segment: samples lost, a decay cut at the buffer, a rise without a ring-down."""
+    notes = []
+    t_seg = (stream.sample_offset + seg.start) / stream.fs
+    if seg.dropped:
+        notes.append(
+            Notice(
+                "input_dropped",
+                f"{seg.dropped} samples were lost (input overflow) in the segment at "
+                f"{t_seg:.6g} s; times and decays after the loss are unreliable",
+            )
+        )
+    if seg.truncated:
+        notes.append(
+            Notice(
+                "decay_truncated",
+                f"a decay at {t_seg:.6g} s rang longer than the {max_segment}-sample buffer and was cut there",
+            )
+        )
+    if failed and seg.triggers:
+        t = (stream.sample_offset + seg.triggers[0]) / stream.fs
+        notes.append(
+            Notice(
+                "segment_without_ringdown",
+                f"the level rose at {t:.6g} s but no ring-down was measured there: {exc}",
+            )
+        )
+    return notes
+
+
+def _used_hits(parts: _Gathered, name: str) -> tuple[list, list]:
+    """(every hit, the used hits with modes); hits with modes are kept when none was used;
+    NoRingdownError (with the segments' reasons) when no mode was measured."""
+    from .pipeline import _keep
+
+    hits = parts.hits
     used = [h for h in hits if h.used and h.modes]
     if not used and any(h.modes for h in hits):
         hits = [h if h.used or not h.modes else _keep(h) for h in hits]
         used = [h for h in hits if h.used and h.modes]
     if not used:
-        reasons = "; ".join(sorted({n.message for n in notes} | {w.message for h in hits for w in h.warnings}))
+        reasons = "; ".join(sorted({n.message for n in parts.notes} | {w.message for h in hits for w in h.warnings}))
         raise NoRingdownError(f"no mode could be measured in {name}: {reasons or 'no hit rose above the noise'}")
-    notes.insert(
-        0,
-        Notice(
-            "segmented",
-            f"read in blocks: {len(results)} segments of about {min_segment} samples, "
-            "cut where the level was back at the noise; hits combined over the file",
-        ),
-    )
+    return hits, used
+
+
+def _combined(
+    stream: _Stream, n_total: int, hits: list, used: list, notes: list[Notice], parts: _Gathered, settings: dict
+) -> Analysis:
+    """The file's Analysis: the modes of the used hits combined as the whole-file path does."""
+    from .pipeline import _combine_hits, _unique
+
+    path, source = stream.path, stream.source
     return Analysis(
         path=path,
         sha256=getattr(source, "sha256", None) if path else None,
         channel=getattr(source, "channel", "1"),
         unit=None,
-        sample_rate_hz=fs,
-        n_samples=int(n_total),
+        sample_rate_hz=stream.fs,
+        n_samples=n_total,
         hits=tuple(hits),
         modes=tuple(_combine_hits(used)),
-        warnings=tuple(_unique(notes + warnings)),
+        warnings=tuple(_unique(notes + parts.warnings)),
         error=None,
         settings=settings,
-        noise_floor=float(min(floors)),
-        noise_source=sources[int(np.argmin(floors))],
+        noise_floor=float(min(parts.floors)),
+        noise_source=parts.sources[int(np.argmin(parts.floors))],
         recording=None,
-        rejected=tuple(rejected),
+        rejected=tuple(parts.rejected),
     )
 
 
@@ -533,7 +326,7 @@ def is_long_sound_file(path, *, threshold: int = LONG_FILE_SAMPLES) -> bool:
         name = os.fspath(path)
         if not isinstance(name, str) or name == "-" or not os.path.isfile(name):
             return False
-        from ..io.read import TEXT_SUFFIXES
+        from ..io.text import TEXT_SUFFIXES
 
         if name.lower().endswith(TEXT_SUFFIXES):
             return False
@@ -577,8 +370,24 @@ def analyze_long_file(
     return a
 
 
-def iter_segments(source, segmenter: Segmenter) -> Iterator[Segment]:
-    """Every segment of ``source`` as it is complete (the live station's loop)."""
-    for blk in source:
-        yield from segmenter.feed(blk)
-    yield from segmenter.finish()
+def iter_long_file(
+    path, *, progress: Callable[[int, int | None], None] | None = None, **options
+) -> Iterator[tuple[int, Analysis]]:
+    """``(0, Analysis)`` of one sound file through the block engine, under the batch failure policy.
+
+    As :func:`analyze_long_file` (same options and ``progress``), run in this process by
+    :func:`ringdown.base.batch.run_batch`: any failure is the file's result, an ``Analysis.failed``
+    with its one-line error and the settings, as for every file of
+    :func:`ringdown.analysis.pipeline.iter_analyze_files` (DEVELOPERS.md, "Batches and the failure
+    policy"). ``ringdown analyze`` takes this path for a single long sound file, to show its
+    progress by time position.
+    """
+    from ..base.batch import run_batch
+    from .pipeline import _FileTask
+
+    class _LongFileTask(_FileTask):
+        def __call__(self, p: str) -> Analysis:
+            return analyze_long_file(p, progress=progress, **self.options)
+
+    task = _LongFileTask(dict(options))
+    yield from run_batch(task, [path], on_error=task.failed, jobs=1)

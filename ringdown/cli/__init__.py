@@ -1,7 +1,9 @@
 """The ``ringdown`` command line: a thin typer layer over the public Python API.
 
-Each command group lives in its own module with a ``register(app)`` function; the modules
-named in ``_COMMAND_MODULES`` are registered in that order. Commands parse options, make one
+Each command group lives in its own module: its commands are module-level functions whose
+options are declared in typer's ``Annotated`` style (options that several commands share come
+from ``_options``), and its ``register(app)`` adds them; the modules named in
+``_COMMAND_MODULES`` are registered in that order. Commands parse options, make one
 library call, and render the result; they hold no numerics. Every ``RingdownError`` becomes
 one line on stderr and a non-zero exit; ``--debug`` shows the traceback instead.
 
@@ -12,6 +14,7 @@ used, 64 usage error (typer's own usage errors too, which would otherwise exit 2
 from __future__ import annotations
 
 import importlib
+from typing import Annotated
 
 import typer
 from typer.core import TyperGroup
@@ -61,12 +64,13 @@ def _version_callback(value: bool) -> None:
         raise typer.Exit(0)
 
 
+Version = Annotated[
+    bool, typer.Option("--version", help="Print the version and exit.", is_eager=True, callback=_version_callback)
+]
+
+
 @app.callback()
-def _root(
-    version: bool = typer.Option(
-        False, "--version", help="Print the version and exit.", is_eager=True, callback=_version_callback
-    ),
-) -> None:
+def _root(version: Version = False) -> None:
     """Measure the modes of ring-down recordings: frequency, decay rate, damping ratio, Q."""
 
 

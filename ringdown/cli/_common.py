@@ -37,9 +37,6 @@ EXIT_EPILOG = (
     "used; 64 usage error (bad option or argument); 130 interrupted."
 )
 
-DEBUG_OPTION = typer.Option(False, "--debug", help="Show the full traceback of an error.")
-#: The time window of the analysis, shared by every command that analyses recordings.
-
 
 def time_window(start: Optional[float], end: Optional[float]) -> dict:
     """The analysis options ``start_s``/``end_s`` given on the command line (only those given)."""
@@ -283,11 +280,24 @@ def expand_inputs(items: Iterable[str], *, recursive: bool = False, exclude: Ite
     return out
 
 
-RECURSIVE_OPTION = typer.Option(False, "--recursive", "-r", help="Look for recordings in sub-folders too.")
-
-
 def default_jobs() -> int:
+    """The default number of worker processes of a batch: the number of cores."""
     return max(os.cpu_count() or 1, 1)
+
+
+def check_jobs(jobs: Optional[int]) -> None:
+    """``--jobs`` below 1 is a ParameterError (a usage error where it is checked before any work)."""
+    if jobs is not None and jobs < 1:
+        from ..base.errors import ParameterError
+
+        raise ParameterError(f"--jobs must be >= 1; got {jobs}")
+
+
+def batch_jobs(jobs: Optional[int], paths: Iterable[str]) -> int:
+    """Worker processes of a batch: 1 when standard input is among ``paths`` (it is read in this
+    process: workers do not share it), else ``--jobs``, else :func:`default_jobs`."""
+    check_jobs(jobs)
+    return 1 if uses_stdin(paths) else (jobs or default_jobs())
 
 
 #: Environment variable naming the results database (read here, in the CLI layer only).

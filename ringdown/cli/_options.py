@@ -1,10 +1,14 @@
-"""Options shared by every command, defined once (typer ``Annotated`` style).
+"""Options shared by several commands, each defined once (typer's ``Annotated`` style).
+
+A command declares a shared option by its alias, ``channel: Channel = None``, so that the name,
+type and help are the same in every command that takes it; the default stays in the command's
+signature (typer copies the ``typer.Option`` of an alias before it sets the default). An option
+only one command takes is declared in that command's module, in the same style.
 
 Every command that reads recordings (``analyze``, ``compare``, ``limits learn``, ``check``) takes
-the reader options below under the same names, types and help; every command that writes a
-report takes the report header options. A command declares them as
-``channel: Channel = None`` and turns them into keyword arguments with :func:`reader_options`
-and :func:`report_header`.
+the reader options under the same names, types and help; every command that writes a report takes
+the report header options. :func:`reader_options` and :func:`report_header` turn them into keyword
+arguments of the library.
 
 To add a reader option: declare its ``Annotated`` type here, add its name to
 :data:`READER_OPTIONS`, accept it in :func:`reader_options`, and add ``name: Type = None`` to the
@@ -13,6 +17,7 @@ four commands (``tests/test_cli_options.py`` checks that they all accept the sam
 
 from __future__ import annotations
 
+from pathlib import Path
 from typing import Annotated, Optional
 
 import typer
@@ -20,6 +25,24 @@ import typer
 from ._common import CHANNEL_HELP, parse_channel
 
 __all__ = [
+    "Band",
+    "Db",
+    "Debug",
+    "Jobs",
+    "Json",
+    "MaxModes",
+    "Method",
+    "MethodIfGiven",
+    "MinHitSnrDb",
+    "MinSnrDb",
+    "MinSnrDbIfGiven",
+    "Operator",
+    "Parquet",
+    "PartIdRegex",
+    "Recursive",
+    "Report",
+    "Scheduler",
+    "Station",
     "READER_OPTIONS",
     "WINDOW_OPTIONS",
     "Channel",
@@ -97,6 +120,62 @@ Serial = Annotated[
 
 Jsonl = Annotated[
     bool, typer.Option("--jsonl", help="Print one JSON record per line as each result is ready (JSON Lines).")
+]
+Json = Annotated[bool, typer.Option("--json", help="Print one JSON document on stdout instead of the text.")]
+Report = Annotated[Optional[Path], typer.Option("--report", help="Also write a self-contained HTML report.")]
+
+Debug = Annotated[bool, typer.Option("--debug", help="Show the full traceback of an error.")]
+Recursive = Annotated[bool, typer.Option("--recursive", "-r", help="Look for recordings in sub-folders too.")]
+Jobs = Annotated[
+    Optional[int], typer.Option("--jobs", "-j", help="Worker processes for a batch (default: the number of cores).")
+]
+Scheduler = Annotated[
+    Optional[str],
+    typer.Option(
+        "--scheduler",
+        help="Run on a Dask cluster: scheduler ADDRESS "
+        "(tcp://HOST:8786) or local:N worker processes (needs the 'cluster' extra).",
+    ),
+]
+Parquet = Annotated[
+    Optional[Path],
+    typer.Option(
+        "--parquet",
+        help="Also append one row per mode to this Parquet "
+        "dataset folder, as results arrive (needs the 'cluster' extra).",
+    ),
+]
+
+# the results history
+Db = Annotated[
+    Optional[str],
+    typer.Option("--db", help="Results database, SQLite (default $RINGDOWN_DB, else ringdown.sqlite here)."),
+]
+Station = Annotated[Optional[str], typer.Option("--station", help="Test station, stored with each result.")]
+Operator = Annotated[Optional[str], typer.Option("--operator", help="Operator, stored with each result.")]
+PartIdRegex = Annotated[
+    Optional[str],
+    typer.Option(
+        "--part-id",
+        help="Regex taking the part id from the file name (first group, or the whole match); default the file stem.",
+    ),
+]
+
+# analysis options (the defaults are AnalysisOptions'; a command that leaves them to the limits
+# or to the library declares them None: the ...IfGiven aliases, same option and help)
+_METHOD = typer.Option("--method", help="Estimator reported per mode: auto, envelope, decrement, half_power, pencil.")
+Method = Annotated[str, _METHOD]
+MethodIfGiven = Annotated[Optional[str], _METHOD]
+Band = Annotated[
+    Optional[list[str]],
+    typer.Option("--band", help="Analyse this band LOW:HIGH in Hz instead of searching (repeatable)."),
+]
+MaxModes = Annotated[Optional[int], typer.Option("--max-modes", help="Keep at most this many modes (the strongest).")]
+_MIN_SNR = typer.Option("--min-snr-db", help="Fits end where a mode is this far above its band noise, dB.")
+MinSnrDb = Annotated[float, _MIN_SNR]
+MinSnrDbIfGiven = Annotated[Optional[float], _MIN_SNR]
+MinHitSnrDb = Annotated[
+    float, typer.Option("--min-hit-snr-db", help="A hit must rise this far above the noise floor, dB.")
 ]
 
 

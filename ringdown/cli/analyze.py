@@ -2,25 +2,26 @@
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import sys
+from functools import partial
 from pathlib import Path
-from typing import Optional
+from typing import Annotated, Any, NoReturn, Optional
 
 import typer
 
 from ..base.clock import seconds
 from ..base.numfmt import fmt_fixed, fmt_pm, fmt_value
 from ._common import (
-    DEBUG_OPTION,
     EXIT_EPILOG,
     EXIT_ERROR,
     EXIT_INTERRUPTED,
     EXIT_OK,
-    RECURSIVE_OPTION,
+    batch_jobs,
     catching_interrupts,
     check_interrupt,
-    default_jobs,
+    check_jobs,
     error_line,
     expand_inputs,
     guarded,
@@ -29,19 +30,35 @@ from ._common import (
     print_json,
     print_json_line,
     progress_bar,
+    resolve_db,
     time_window,
     usage_guarded,
-    uses_stdin,
 )
 from ._options import (
+    Band,
     Channel,
     Column,
+    Db,
+    Debug,
     End,
+    Jobs,
+    Json,
     Jsonl,
+    MaxModes,
+    Method,
+    MinHitSnrDb,
+    MinSnrDb,
     Notes,
+    Operator,
+    Parquet,
+    PartIdRegex,
+    Recursive,
+    Report,
     SampleRate,
+    Scheduler,
     Serial,
     Start,
+    Station,
     Title,
     reader_options,
     report_header,
@@ -180,266 +197,296 @@ def write_csv(analyses, path: str) -> None:
                 )
 
 
+Files = Annotated[
+    list[str],
+    typer.Argument(
+        help="Recordings (WAV/FLAC/OGG/CSV, TDMS, UFF 58, MAT, HDF5), folders "
+        "or glob patterns; '-' reads one recording from standard input."
+    ),
+]
+CsvOut = Annotated[Optional[Path], typer.Option("--csv", help="Also write one CSV row per mode to this file.")]
+Columns = Annotated[
+    Optional[str],
+    typer.Option("--columns", help="Table columns, comma-separated, from " + ",".join(TABLE_COLUMNS) + "."),
+]
+KeepDoubleHits = Annotated[bool, typer.Option("--keep-double-hits", help="Combine hits flagged as hammer bounces too.")]
+PlotDir = Annotated[Optional[Path], typer.Option("--plot", help="Write figures for each file into this folder.")]
+PlotFormat = Annotated[str, typer.Option("--plot-format", help="Figure format: png, svg or pdf.")]
+Store = Annotated[bool, typer.Option("--store", help="Also store every result in the results history (SQLite).")]
+
+
 def register(app: typer.Typer) -> None:
-    @app.command("analyze", epilog=EXIT_EPILOG)
-    def analyze_cmd(
-        files: list[str] = typer.Argument(
-            ...,
-            help="Recordings (WAV/FLAC/OGG/CSV, TDMS, UFF 58, MAT, HDF5), folders "
-            "or glob patterns; '-' reads one recording from standard input.",
-        ),
-        json_out: bool = typer.Option(False, "--json", help="Print one JSON document instead of tables."),
-        jsonl: Jsonl = False,
-        csv_out: Optional[Path] = typer.Option(None, "--csv", help="Also write one CSV row per mode to this file."),
-        channel: Channel = None,
-        column: Column = None,
-        sample_rate: SampleRate = None,
-        columns: Optional[str] = typer.Option(
-            None, "--columns", help="Table columns, comma-separated, from " + ",".join(TABLE_COLUMNS) + "."
-        ),
-        method: str = typer.Option(
-            "auto", "--method", help="Estimator reported per mode: auto, envelope, decrement, half_power, pencil."
-        ),
-        band: Optional[list[str]] = typer.Option(
-            None, "--band", help="Analyse this band LOW:HIGH in Hz instead of searching (repeatable)."
-        ),
-        max_modes: Optional[int] = typer.Option(
-            None, "--max-modes", help="Keep at most this many modes (the strongest)."
-        ),
-        min_snr_db: float = typer.Option(
-            10.0, "--min-snr-db", help="Fits end where a mode is this far above its band noise, dB."
-        ),
-        min_hit_snr_db: float = typer.Option(
-            20.0, "--min-hit-snr-db", help="A hit must rise this far above the noise floor, dB."
-        ),
-        keep_double_hits: bool = typer.Option(
-            False, "--keep-double-hits", help="Combine hits flagged as hammer bounces too."
-        ),
-        start: Start = None,
-        end: End = None,
-        jobs: Optional[int] = typer.Option(
-            None, "--jobs", help="Worker processes for a batch (default: the number of cores)."
-        ),
-        plot: Optional[Path] = typer.Option(None, "--plot", help="Write figures for each file into this folder."),
-        plot_format: str = typer.Option("png", "--plot-format", help="Figure format: png or svg."),
-        report: Optional[Path] = typer.Option(None, "--report", help="Write one self-contained HTML report."),
-        title: Title = None,
-        notes: Notes = None,
-        serial: Serial = None,
-        store: bool = typer.Option(False, "--store", help="Also store every result in the results history (SQLite)."),
-        db: Optional[str] = typer.Option(
-            None, "--db", help="History database (default $RINGDOWN_DB, else ringdown.sqlite here)."
-        ),
-        part_id: Optional[str] = typer.Option(
-            None, "--part-id", help="Regex taking the part id from the file name (first group)."
-        ),
-        station: Optional[str] = typer.Option(None, "--station", help="Test station, stored with each result."),
-        operator: Optional[str] = typer.Option(None, "--operator", help="Operator, stored with each result."),
-        recursive: bool = RECURSIVE_OPTION,
-        scheduler: Optional[str] = typer.Option(
-            None,
-            "--scheduler",
-            help="Run on a Dask cluster: scheduler ADDRESS "
-            "(tcp://HOST:8786) or local:N worker processes (needs the 'cluster' extra).",
-        ),
-        parquet_out: Optional[Path] = typer.Option(
-            None,
-            "--parquet",
-            help="Also append one row per mode to this Parquet "
-            "dataset folder, as results arrive (needs the 'cluster' extra).",
-        ),
-        debug: bool = DEBUG_OPTION,
-    ) -> None:
-        """Measure every mode of each recording: f_d, beta, f_n, zeta, Q, loss factor, dB/s, T60."""
-        from ..analysis.engine import is_long_sound_file
-        from ..analysis.pipeline import AnalysisOptions, iter_analyze_files
+    """Add the ``analyze`` command to ``app``."""
+    app.command("analyze", epilog=EXIT_EPILOG)(analyze_cmd)
 
-        started = seconds()
 
-        def parse():
-            from ..base.errors import ParameterError
-            from ..inspection.store import part_id_from_path
-            from .render import check_plot_format
+def analyze_cmd(
+    files: Files,
+    json_out: Json = False,
+    jsonl: Jsonl = False,
+    csv_out: CsvOut = None,
+    channel: Channel = None,
+    column: Column = None,
+    sample_rate: SampleRate = None,
+    columns: Columns = None,
+    method: Method = "auto",
+    band: Band = None,
+    max_modes: MaxModes = None,
+    min_snr_db: MinSnrDb = 10.0,
+    min_hit_snr_db: MinHitSnrDb = 20.0,
+    keep_double_hits: KeepDoubleHits = False,
+    start: Start = None,
+    end: End = None,
+    jobs: Jobs = None,
+    plot: PlotDir = None,
+    plot_format: PlotFormat = "png",
+    report: Report = None,
+    title: Title = None,
+    notes: Notes = None,
+    serial: Serial = None,
+    store: Store = False,
+    db: Db = None,
+    part_id: PartIdRegex = None,
+    station: Station = None,
+    operator: Operator = None,
+    recursive: Recursive = False,
+    scheduler: Scheduler = None,
+    parquet_out: Parquet = None,
+    debug: Debug = False,
+) -> None:
+    """Measure every mode of each recording: f_d, beta, f_n, zeta, Q, loss factor, dB/s, T60."""
+    started = seconds()
 
-            if json_out and jsonl:
-                raise ParameterError(
-                    "--json and --jsonl are exclusive: --json prints one document at the end, "
-                    "--jsonl one line per file as it is ready; choose one"
-                )
-            bands = [parse_band(b) for b in band] if band else None
-            opts = dict(
-                reader_options(channel, column, sample_rate),
-                method=method,
-                bands=bands,
-                max_modes=max_modes,
-                min_snr_db=min_snr_db,
-                min_hit_snr_db=min_hit_snr_db,
-                keep_double_hits=keep_double_hits,
-                **time_window(start, end),
-            )
-            AnalysisOptions(
-                method=method,
-                bands=bands,
-                max_modes=max_modes,
-                min_snr_db=min_snr_db,
-                min_hit_snr_db=min_hit_snr_db,
-                **time_window(start, end),
-            )
-            if jobs is not None and jobs < 1:
-                raise ParameterError(f"--jobs must be >= 1; got {jobs}")
-            if plot is not None:
-                check_plot_format(plot_format)
-            part_id_from_path("x", part_id)  # a bad --part-id regex is a usage error
-            return opts, parse_columns(columns)
+    def parse() -> tuple[dict, tuple[str, ...]]:
+        _check_streams(json_out, jsonl)
+        given = dict(reader_options(channel, column, sample_rate), method=method, bands=band, max_modes=max_modes)
+        given.update(min_snr_db=min_snr_db, min_hit_snr_db=min_hit_snr_db, keep_double_hits=keep_double_hits)
+        opts = _checked_options(plot, plot_format, part_id, jobs, given, time_window(start, end))
+        return opts, parse_columns(columns)
 
-        # every option is checked before any file is read
-        options, cols = usage_guarded(parse, debug=debug)
-        db_path = None
-        if store:
-            from ._common import resolve_db
+    options, cols = usage_guarded(parse, debug=debug)  # every option is checked before any file is read
+    db_path = resolve_db(db) if store else None
+    paths = expand_inputs(files, recursive=recursive, exclude=[csv_out, report, db_path])
+    if not paths:
+        error_line(f"no recordings to analyse in {', '.join(files)}")
+        raise typer.Exit(EXIT_ERROR)
+    # '-' is read in this process: worker processes do not share standard input
+    n_jobs = usage_guarded(lambda: batch_jobs(jobs, paths), debug=debug)
+    history = guarded(lambda: _prepare_outputs(csv_out, report, plot, db_path), debug=debug)
+    storer = _Storer(history, part_id, station, operator)
+    sink = _Sink(parquet_out, part_id, station, operator, debug)
+    show = on_terminal(json_out or jsonl)
+    try:
+        results, interrupted = _run(
+            paths, options, n_jobs, storer, sink, scheduler, debug, partial(_arrived, json_out, jsonl, cols), show
+        )
+    finally:
+        storer.close()
+    analyses = [a for a in results if a is not None]
+    if debug and not interrupted:
+        _raise_first_error(analyses, options)
+    if json_out:
+        from ..analysis.results import results_document
 
-            db_path = resolve_db(db)
-        paths = expand_inputs(files, recursive=recursive, exclude=[csv_out, report, db_path])
-        if not paths:
-            error_line(f"no recordings to analyse in {', '.join(files)}")
-            raise typer.Exit(EXIT_ERROR)
-        # '-' is read in this process: worker processes do not share standard input
-        n_jobs = 1 if usage_guarded(lambda: uses_stdin(paths), debug=debug) else (jobs or default_jobs())
-        history = guarded(lambda: _prepare_outputs(csv_out, report, plot, db_path), debug=debug)
+        print_json(results_document(analyses))
+    header = report_header(title, notes, serial, station=station, operator=operator)
+    failed_outputs = _write_outputs(analyses, csv_out, plot, plot_format, report, options, debug, header)
+    storer.report()
+    _exit(analyses, paths, interrupted, failed_outputs or storer.failed, history is not None, json_out, jsonl, started)
 
-        def arrived(a) -> None:
-            """Each result as it is ready: its error on stderr, its line or table on stdout."""
-            if a.error is not None:
-                error_line(
-                    f"{a.path}: {a.error.message}" if a.path and a.path not in a.error.message else a.error.message
-                )
-            if jsonl:
-                print_json_line(a.to_dict())
-            elif not json_out:
-                sys.stdout.write(format_table(a, cols))
-                sys.stdout.flush()
 
-        results: list = [None] * len(paths)
-        interrupted = False
-        storer = _Storer(history, part_id, station, operator)
-        bar, task = progress_bar(on_terminal(json_out or jsonl) and len(paths) > 1, len(paths), "analysing")
-        from ..base.cluster import connect
-        from ..inspection.parquet import open_sink
+def _exit(analyses, paths, interrupted, failed_outputs, stored, json_out, jsonl, started) -> NoReturn:
+    """The last line (interrupted, or the batch's counts) and the exit status of ``analyze``."""
+    if interrupted:
+        error_line(
+            f"interrupted: {len(analyses)} of {len(paths)} done" + (" (stored)" if stored else "") + ", rerun to resume"
+        )
+        raise typer.Exit(EXIT_INTERRUPTED)
+    errors = sum(1 for a in analyses if a.error is not None)
+    if len(analyses) > 1 and not json_out:
+        typer.echo(
+            f"{len(analyses)} files: {len(analyses) - errors} analysed, {errors} errors, "
+            f"{sum(len(a.modes) for a in analyses)} modes in {seconds() - started:.1f} s",
+            err=jsonl,
+        )
+    bad = errors or failed_outputs or paths.problems
+    raise typer.Exit(EXIT_ERROR if bad else EXIT_OK)
+
+
+def _check_streams(json_out: bool, jsonl: bool) -> None:
+    """``--json`` and ``--jsonl`` together are a ParameterError."""
+    from ..base.errors import ParameterError
+
+    if json_out and jsonl:
+        raise ParameterError(
+            "--json and --jsonl are exclusive: --json prints one document at the end, "
+            "--jsonl one line per file as it is ready; choose one"
+        )
+
+
+def _checked_options(plot, plot_format, part_id, jobs, given: dict, window: dict) -> dict:
+    """The analysis keyword arguments, after every check that needs no file (each a ParameterError).
+
+    ``given`` holds the analysis options as given (``bands`` as the ``--band`` texts), ``window``
+    the time window (``start_s``/``end_s``, only those given)."""
+    from ..analysis.pipeline import AnalysisOptions
+    from .render import check_plot_format
+
+    bands = [parse_band(b) for b in given["bands"]] if given["bands"] else None
+    opts = {**given, "bands": bands, **window}
+    AnalysisOptions(  # raises for a bad value
+        method=opts["method"],
+        bands=None if bands is None else tuple(bands),
+        max_modes=opts["max_modes"],
+        min_snr_db=opts["min_snr_db"],
+        min_hit_snr_db=opts["min_hit_snr_db"],
+        **window,
+    )
+    check_jobs(jobs)
+    if plot is not None:
+        check_plot_format(plot_format)
+    if part_id:  # a bad --part-id regex is a usage error (the history module is imported only for one)
         from ..inspection.store import part_id_from_path
 
+        part_id_from_path("x", part_id)
+    return opts
+
+
+def _arrived(json_out: bool, jsonl: bool, cols: tuple[str, ...], a) -> None:
+    """Each result as it is ready: its error on stderr, its line or table on stdout."""
+    if a.error is not None:
+        error_line(f"{a.path}: {a.error.message}" if a.path and a.path not in a.error.message else a.error.message)
+    if jsonl:
+        print_json_line(a.to_dict())
+    elif not json_out:
+        sys.stdout.write(format_table(a, cols))
+        sys.stdout.flush()
+
+
+def _run(paths, options, n_jobs, storer, sink, scheduler, debug, arrived, show_progress) -> tuple[list, bool]:
+    """Analyse every file; each result is stored, added to the dataset and shown as it arrives.
+
+    Returns the results in input order (None for a file not done) and whether Ctrl-C stopped it."""
+    from ..analysis.engine import is_long_sound_file
+    from ..analysis.pipeline import iter_analyze_files
+
+    results: list = [None] * len(paths)
+    bar, task = progress_bar(show_progress and len(paths) > 1, len(paths), "analysing")
+    cluster: contextlib.AbstractContextManager = contextlib.nullcontext(None)
+    if scheduler is not None:  # the cluster module only when asked for (start-up time)
+        from ..base.cluster import connect
+
         cluster = guarded(lambda: connect(scheduler), debug=debug)
-        sink = guarded(lambda: open_sink(parquet_out), debug=debug)
-        try:
-            with catching_interrupts(), cluster as client, sink, bar:
-                if client is None and len(paths) == 1 and is_long_sound_file(paths[0]):
-                    # one long recording: the block engine in this process, with its progress by time
-                    found = _iter_long_file(paths[0], options, on_terminal(json_out or jsonl))
-                else:
-                    found = iter_analyze_files(paths, jobs=n_jobs, on_notice=note_line, client=client, **options)
-                for i, a in found:
-                    check_interrupt()  # a result that finished after a Ctrl-C is not taken
-                    results[i] = a
-                    storer.add(a)  # durable before anything else is written
-                    guarded(
-                        lambda: sink.add_analysis(
-                            a, part_id=part_id_from_path(a.path or "array", part_id), station=station, operator=operator
-                        ),
-                        debug=debug,
-                    )
-                    bar.advance(task)
-                    arrived(a)
-                guarded(sink.close, debug=debug)
-        except KeyboardInterrupt:
-            interrupted = True
-        finally:
-            storer.close()
-        analyses = [a for a in results if a is not None]
+    opened = guarded(sink.open, debug=debug)
+    try:
+        with catching_interrupts(), cluster as client, opened, bar:
+            if client is None and len(paths) == 1 and is_long_sound_file(paths[0]):
+                # one long recording: the block engine in this process, with its progress by time
+                found = _iter_long_file(paths[0], options, show_progress)
+            else:
+                found = iter_analyze_files(paths, jobs=n_jobs, on_notice=note_line, client=client, **options)
+            for i, a in found:
+                check_interrupt()  # a result that finished after a Ctrl-C is not taken
+                results[i] = a
+                storer.add(a)  # durable before anything else is written
+                sink.add(a)
+                bar.advance(task)
+                arrived(a)
+            guarded(opened.close, debug=debug)
+    except KeyboardInterrupt:
+        return results, True
+    return results, False
 
-        if debug and not interrupted:
-            for a in analyses:
-                if a.error is not None and a.path != "-":
-                    from ..analysis.pipeline import analyze_file
 
-                    analyze_file(a.path, **options)  # raises with the traceback
-        if json_out:
-            from ..analysis.results import results_document
+def _raise_first_error(analyses, options: dict) -> None:
+    """``--debug``: analyse the first file that failed again here, so its traceback shows."""
+    from ..analysis.pipeline import analyze_file
 
-            print_json(results_document(analyses))
-        failed_outputs = 0
-        if csv_out is not None:
-            failed_outputs += _try(lambda: write_csv(analyses, str(csv_out)), debug)
-        header = report_header(title, notes, serial, station=station, operator=operator)
-        if plot is not None or report is not None:
-            for a in analyses:
-                if a.error is None and a.recording is None:
-                    note_line(
-                        f"{a.path}: analysed in segments (a long file), no samples kept: its figures are not drawn"
-                    )
-        failed_outputs += _render(analyses, plot, plot_format, report, options, debug, header)
-        storer.report()
-        errors = sum(1 for a in analyses if a.error is not None)
-        if interrupted:
-            error_line(
-                f"interrupted: {len(analyses)} of {len(paths)} done"
-                + (" (stored)" if history is not None else "")
-                + ", rerun to resume"
-            )
-            raise typer.Exit(EXIT_INTERRUPTED)
-        if len(analyses) > 1 and not json_out:
-            typer.echo(
-                f"{len(analyses)} files: {len(analyses) - errors} analysed, {errors} errors, "
-                f"{sum(len(a.modes) for a in analyses)} modes in {seconds() - started:.1f} s",
-                err=jsonl,
-            )
-        bad = errors or failed_outputs or storer.failed or paths.problems
-        raise typer.Exit(EXIT_ERROR if bad else EXIT_OK)
+    for a in analyses:
+        if a.error is not None and a.path != "-":
+            analyze_file(a.path, **options)  # raises with the traceback
+
+
+def _write_outputs(analyses, csv_out, plot, plot_format, report, options, debug, header) -> int:
+    """CSV, figures and report; returns the number of outputs that could not be written."""
+    failed = 0
+    if csv_out is not None:
+        failed += _try(lambda: write_csv(analyses, str(csv_out)), debug)
+    if plot is not None or report is not None:
+        for a in analyses:
+            if a.error is None and a.recording is None:
+                note_line(f"{a.path}: analysed in segments (a long file), no samples kept: its figures are not drawn")
+    return failed + _render(analyses, plot, plot_format, report, options, debug, header)
+
+
+class _NoDataset:
+    """What :meth:`_Sink.open` gives without ``--parquet``: a context with nothing to close."""
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc) -> None:
+        pass
+
+    def close(self) -> None:
+        pass
+
+
+class _Sink:
+    """``--parquet``: each result appended to the dataset as it arrives (an error ends the run, exit 2)."""
+
+    def __init__(self, out, part_id, station, operator, debug) -> None:
+        self.out, self.part_id, self.station, self.operator, self.debug = out, part_id, station, operator, debug
+        self.sink: Any = None
+
+    def open(self):
+        if self.out is None:  # no --parquet: the Parquet and history modules stay unimported (start-up time)
+            return _NoDataset()
+        from ..inspection.parquet import open_sink
+
+        self.sink = open_sink(self.out)
+        return self.sink
+
+    def add(self, a) -> None:
+        if self.sink is None:
+            return
+        from ..inspection.store import part_id_from_path
+
+        pid = part_id_from_path(a.path or "array", self.part_id)
+        guarded(
+            lambda: self.sink.add_analysis(a, part_id=pid, station=self.station, operator=self.operator),
+            debug=self.debug,
+        )
 
 
 def _iter_long_file(path: str, options: dict, show: bool):
-    """``(0, Analysis)`` of one long sound file through the block engine, with a progress bar by
-    time position on stderr when ``show``; any failure is the file's result (the batch policy)."""
-    from ..analysis.engine import analyze_long_file
-    from ..analysis.pipeline import _FileTask
-    from ..base.batch import run_batch
+    """``(0, Analysis)`` of one long sound file (:func:`ringdown.analysis.engine.iter_long_file`),
+    with a progress bar by time position on stderr when ``show``."""
+    from ..analysis.engine import iter_long_file
 
-    class _Task(_FileTask):
-        def __call__(self, p: str):
-            return analyze_long_file(p, progress=advance, **self.options)
-
-    if show:
-        from rich.console import Console
-        from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
-
-        prog = Progress(
-            TextColumn("analysing"),
-            BarColumn(),
-            TextColumn("{task.fields[at]}"),
-            TimeRemainingColumn(),
-            console=Console(stderr=True),
-            transient=True,
-        )
-    else:
-        prog = None
-    task_id = None
-
-    def clock(seconds: float) -> str:
-        m, s = divmod(int(seconds), 60)
-        return f"{m // 60}:{m % 60:02d}:{s:02d}" if m >= 60 else f"{m}:{s:02d}"
-
-    def advance(done: int, total) -> None:
-        if prog is not None and task_id is not None and total:
-            prog.update(task_id, completed=done, total=total, at=f"{clock(done / rate)} of {clock(total / rate)}")
-
+    if not show:
+        yield from iter_long_file(path, **options)
+        return
     import soundfile as sf
+    from rich.console import Console
+    from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
 
     rate = float(sf.info(path).samplerate)
-    task = _Task(dict(options))
-    if prog is None:
-        yield from run_batch(task, [path], on_error=task.failed, jobs=1)
-        return
-    with prog:
+    columns = (TextColumn("analysing"), BarColumn(), TextColumn("{task.fields[at]}"), TimeRemainingColumn())
+    with Progress(*columns, console=Console(stderr=True), transient=True) as prog:
         task_id = prog.add_task("analysing", total=None, at="")
-        yield from run_batch(task, [path], on_error=task.failed, jobs=1)
+
+        def advance(done: int, total) -> None:
+            if total:
+                prog.update(task_id, completed=done, total=total, at=f"{_clock(done / rate)} of {_clock(total / rate)}")
+
+        yield from iter_long_file(path, progress=advance, **options)
+
+
+def _clock(seconds: float) -> str:
+    """``m:ss``, or ``h:mm:ss`` from an hour on."""
+    m, s = divmod(int(seconds), 60)
+    return f"{m // 60}:{m % 60:02d}:{s:02d}" if m >= 60 else f"{m}:{s:02d}"
 
 
 def _prepare_outputs(csv_out, report, plot, db_path):

@@ -15,13 +15,12 @@ from __future__ import annotations
 
 import csv
 from pathlib import Path
-from typing import TYPE_CHECKING, Optional, cast
+from typing import TYPE_CHECKING, Annotated, Optional, cast
 
 import typer
 
 from ..base.numfmt import fmt_interval, fmt_pm, fmt_value
 from ._common import (
-    DEBUG_OPTION,
     EXIT_EPILOG,
     EXIT_ERROR,
     EXIT_OK,
@@ -32,7 +31,24 @@ from ._common import (
     time_window,
     usage_error,
 )
-from ._options import Channel, Column, End, Notes, SampleRate, Serial, Start, Title, reader_options, report_header
+from ._options import (
+    Band,
+    Channel,
+    Column,
+    Debug,
+    End,
+    Json,
+    Method,
+    MinHitSnrDb,
+    Notes,
+    Report,
+    SampleRate,
+    Serial,
+    Start,
+    Title,
+    reader_options,
+    report_header,
+)
 
 if TYPE_CHECKING:
     from matplotlib.figure import Figure
@@ -146,99 +162,107 @@ def _write_report(comparison, out: Path, header: dict) -> None:
         fh.write(text)
 
 
+Before = Annotated[
+    list[str],
+    typer.Option(
+        "--before", "-b", help="Recording(s) before the treatment (repeatable; file, folder or quoted pattern)."
+    ),
+]
+After = Annotated[
+    list[str],
+    typer.Option(
+        "--after", "-a", help="Recording(s) after the treatment (repeatable; file, folder or quoted pattern)."
+    ),
+]
+CsvOut = Annotated[Optional[Path], typer.Option("--csv", help="Also write one row per mode to this CSV file.")]
+PlotDir = Annotated[Optional[Path], typer.Option("--plot", help="Also write comparison.png into this folder.")]
+Confidence = Annotated[
+    float, typer.Option("--confidence", help="Two-sided confidence level of intervals and verdicts.")
+]
+Tolerance = Annotated[
+    float, typer.Option("--tolerance", help="Relative frequency tolerance for pairing modes (0.1 = 10 %).")
+]
+KeepDoubleHits = Annotated[bool, typer.Option("--keep-double-hits", help="Count bounced hits as repeats too.")]
+
+HELP = (
+    "Compare each mode's frequency and damping before and after a treatment. "
+    "Repeat --before/--after per file, or give a folder or a quoted pattern. "
+    "Every used hit is one repeat; damping is tested on ln(zeta) (Welch t with >= 2 "
+    "repeats a side)."
+)
+
+
 def register(app: typer.Typer) -> None:
     """Add the ``compare`` command to ``app``."""
+    app.command("compare", context_settings={"allow_extra_args": True}, help=HELP, epilog=EXIT_EPILOG)(compare_cmd)
 
-    @app.command(
-        "compare",
-        context_settings={"allow_extra_args": True},
-        help=(
-            "Compare each mode's frequency and damping before and after a treatment. "
-            "Repeat --before/--after per file, or give a folder or a quoted pattern. "
-            "Every used hit is one repeat; damping is tested on ln(zeta) (Welch t with >= 2 "
-            "repeats a side)."
-        ),
-        epilog=EXIT_EPILOG,
-    )
-    def compare_cmd(
-        ctx: typer.Context,
-        before: list[str] = typer.Option(
-            ...,
-            "--before",
-            "-b",
-            help="Recording(s) before the treatment (repeatable; file, folder or quoted pattern).",
-        ),
-        after: list[str] = typer.Option(
-            ...,
-            "--after",
-            "-a",
-            help="Recording(s) after the treatment (repeatable; file, folder or quoted pattern).",
-        ),
-        json_out: bool = typer.Option(False, "--json", help="Print the JSON document instead of the table."),
-        csv_out: Optional[Path] = typer.Option(None, "--csv", help="Also write one row per mode to this CSV file."),
-        plot_dir: Optional[Path] = typer.Option(None, "--plot", help="Also write comparison.png into this folder."),
-        report_out: Optional[Path] = typer.Option(None, "--report", help="Also write a self-contained HTML report."),
-        confidence: float = typer.Option(
-            0.95, "--confidence", help="Two-sided confidence level of intervals and verdicts."
-        ),
-        tolerance: float = typer.Option(
-            0.1, "--tolerance", help="Relative frequency tolerance for pairing modes (0.1 = 10 %)."
-        ),
-        method: str = typer.Option("auto", "--method", help="Estimator (as for analyze)."),
-        channel: Channel = None,
-        column: Column = None,
-        sample_rate: SampleRate = None,
-        band: Optional[list[str]] = typer.Option(
-            None, "--band", help="Band LOW:HIGH in Hz (repeatable, as for analyze)."
-        ),
-        min_hit_snr_db: float = typer.Option(
-            20.0, "--min-hit-snr-db", help="A hit must rise this far above the noise, dB."
-        ),
-        keep_double_hits: bool = typer.Option(False, "--keep-double-hits", help="Count bounced hits as repeats too."),
-        title: Title = None,
-        notes: Notes = None,
-        serial: Serial = None,
-        start: Start = None,
-        end: End = None,
-        debug: bool = DEBUG_OPTION,
-    ) -> None:
-        if ctx.args:
-            usage_error(
-                f"unexpected argument '{ctx.args[0]}': give each file its own --before/--after, "
-                "a folder, or a quoted pattern (--before 'bare_*.wav')"
-            )
-        from ..treatment.compare import compare
 
-        b = expand_inputs(before)
-        a = expand_inputs(after)
+def compare_cmd(
+    ctx: typer.Context,
+    before: Before,
+    after: After,
+    json_out: Json = False,
+    csv_out: CsvOut = None,
+    plot_dir: PlotDir = None,
+    report_out: Report = None,
+    confidence: Confidence = 0.95,
+    tolerance: Tolerance = 0.1,
+    method: Method = "auto",
+    channel: Channel = None,
+    column: Column = None,
+    sample_rate: SampleRate = None,
+    band: Band = None,
+    min_hit_snr_db: MinHitSnrDb = 20.0,
+    keep_double_hits: KeepDoubleHits = False,
+    title: Title = None,
+    notes: Notes = None,
+    serial: Serial = None,
+    start: Start = None,
+    end: End = None,
+    debug: Debug = False,
+) -> None:
+    if ctx.args:
+        usage_error(
+            f"unexpected argument '{ctx.args[0]}': give each file its own --before/--after, "
+            "a folder, or a quoted pattern (--before 'bare_*.wav')"
+        )
+    from ..treatment.compare import compare
 
-        def run():
-            from ._common import uses_stdin
-            from .analyze import parse_band
+    b = expand_inputs(before)
+    a = expand_inputs(after)
 
-            uses_stdin([*b, *a])  # '-' once at most: standard input holds one recording
-            options = dict(
-                reader_options(channel, column, sample_rate),
-                method=method,
-                min_hit_snr_db=min_hit_snr_db,
-                keep_double_hits=keep_double_hits,
-                **time_window(start, end),
-            )
-            if band:
-                options["bands"] = [parse_band(x) for x in band]
-            return compare(b, a, tolerance=tolerance, confidence=confidence, **options)
+    def run():
+        from ._common import uses_stdin
+        from .analyze import parse_band
 
-        comparison = guarded(run, debug=debug)
-        if json_out:
-            print_json(comparison.to_dict())
-        else:
-            typer.echo(format_table(comparison))
-        if csv_out is not None:
-            guarded(lambda: _write_csv(comparison, csv_out), debug=debug)
-        if plot_dir is not None:
-            guarded(lambda: _write_plot(comparison, plot_dir), debug=debug)
-        if report_out is not None:
-            guarded(lambda: _write_report(comparison, report_out, report_header(title, notes, serial)), debug=debug)
-        for i in comparison.failed_inputs:
-            error_line(f"{i.side}: {i.error.message}")
-        raise typer.Exit(EXIT_OK if comparison.ok and not (a.problems or b.problems) else EXIT_ERROR)
+        uses_stdin([*b, *a])  # '-' once at most: standard input holds one recording
+        options = dict(
+            reader_options(channel, column, sample_rate),
+            method=method,
+            min_hit_snr_db=min_hit_snr_db,
+            keep_double_hits=keep_double_hits,
+            **time_window(start, end),
+        )
+        if band:
+            options["bands"] = [parse_band(x) for x in band]
+        return compare(b, a, tolerance=tolerance, confidence=confidence, **options)
+
+    comparison = guarded(run, debug=debug)
+    if json_out:
+        print_json(comparison.to_dict())
+    else:
+        typer.echo(format_table(comparison))
+    _write_outputs(comparison, csv_out, plot_dir, report_out, report_header(title, notes, serial), debug)
+    for i in comparison.failed_inputs:
+        error_line(f"{i.side}: {i.error.message}")
+    raise typer.Exit(EXIT_OK if comparison.ok and not (a.problems or b.problems) else EXIT_ERROR)
+
+
+def _write_outputs(comparison, csv_out, plot_dir, report_out, header: dict, debug: bool) -> None:
+    """The CSV, the figure and the report that were asked for (the first that fails ends the run, exit 2)."""
+    if csv_out is not None:
+        guarded(lambda: _write_csv(comparison, csv_out), debug=debug)
+    if plot_dir is not None:
+        guarded(lambda: _write_plot(comparison, plot_dir), debug=debug)
+    if report_out is not None:
+        guarded(lambda: _write_report(comparison, report_out, header), debug=debug)

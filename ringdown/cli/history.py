@@ -4,12 +4,13 @@ from __future__ import annotations
 
 import csv
 from pathlib import Path
-from typing import Optional
+from typing import Annotated, Optional
 
 import typer
 
 from ..base.numfmt import fmt_value
-from ._common import DEBUG_OPTION, EXIT_EPILOG, EXIT_ERROR, error_line, guarded, print_json, usage_error
+from ._common import EXIT_EPILOG, EXIT_ERROR, error_line, guarded, print_json, usage_error
+from ._options import Db, Debug, Json
 
 __all__ = ["register", "format_history"]
 
@@ -116,98 +117,114 @@ def _write_csv(records, path: str) -> None:
             w.writerow(csv_row(row))
 
 
+Part = Annotated[Optional[str], typer.Option("--part", help="Only this part id.")]
+Since = Annotated[Optional[str], typer.Option("--since", help="From this date or date-time (ISO, UTC).")]
+Until = Annotated[Optional[str], typer.Option("--until", help="Up to this date (whole day) or date-time.")]
+Verdict = Annotated[Optional[str], typer.Option("--verdict", help="Only pass, fail or error.")]
+Kind = Annotated[Optional[str], typer.Option("--kind", help="Only 'check' or 'analysis' records.")]
+CsvOut = Annotated[Optional[str], typer.Option("--csv", help="Write the records to this CSV file.")]
+RunChart = Annotated[
+    Optional[str],
+    typer.Option("--plot", help="Write a run chart; the name's ending gives the format: .png, .svg or .pdf."),
+]
+ChartLimits = Annotated[
+    Optional[str],
+    typer.Option(
+        "--limits", help="Draw these limits on the run chart (default: the limits each part was checked with)."
+    ),
+]
+ParquetExport = Annotated[
+    Optional[str],
+    typer.Option(
+        "--parquet",
+        help="Write the records, one row per mode, to this Parquet dataset folder (needs the 'cluster' extra).",
+    ),
+]
+
+
 def register(app: typer.Typer) -> None:
-    @app.command("history", epilog=EXIT_EPILOG)
-    def history(
-        db: Optional[str] = typer.Option(
-            None, "--db", help="Results database (default $RINGDOWN_DB or ringdown.sqlite)."
-        ),
-        part: Optional[str] = typer.Option(None, "--part", help="Only this part id."),
-        since: Optional[str] = typer.Option(None, "--since", help="From this date or date-time (ISO, UTC)."),
-        until: Optional[str] = typer.Option(None, "--until", help="Up to this date (whole day) or date-time."),
-        verdict: Optional[str] = typer.Option(None, "--verdict", help="Only pass, fail or error."),
-        kind: Optional[str] = typer.Option(None, "--kind", help="Only 'check' or 'analysis' records."),
-        json_out: bool = typer.Option(False, "--json", help="Print the records as JSON."),
-        csv_out: Optional[str] = typer.Option(None, "--csv", help="Write the records to this CSV file."),
-        plot: Optional[str] = typer.Option(
-            None, "--plot", help="Write a run chart; the name's ending gives the format: .png, .svg or .pdf."
-        ),
-        limits_path: Optional[str] = typer.Option(
-            None,
-            "--limits",
-            help="Draw these limits on the run chart (default: the limits each part was checked with).",
-        ),
-        parquet_out: Optional[str] = typer.Option(
-            None,
-            "--parquet",
-            help="Write the records, one row per mode, to this Parquet dataset folder (needs the 'cluster' extra).",
-        ),
-        debug: bool = DEBUG_OPTION,
-    ) -> None:
-        """Show stored results: a table, JSON, CSV, or a run chart of every mode in test order."""
-        from ..inspection.store import ResultStore
-        from ._common import resolve_db
+    """Add the ``history`` command to ``app``."""
+    app.command("history", epilog=EXIT_EPILOG)(history)
 
-        path = resolve_db(db)
-        if plot:
-            from .render import check_plot_format
 
-            guarded(
-                lambda: check_plot_format(Path(plot).suffix.lower().lstrip("."), "the --plot file's ending"),
-                debug=debug,
-            )
-        if json_out and csv_out:
-            usage_error("--json and --csv are exclusive; choose one")
-        if csv_out:
-            from ..io.outputs import check_writable
+def history(
+    db: Db = None,
+    part: Part = None,
+    since: Since = None,
+    until: Until = None,
+    verdict: Verdict = None,
+    kind: Kind = None,
+    json_out: Json = False,
+    csv_out: CsvOut = None,
+    plot: RunChart = None,
+    limits_path: ChartLimits = None,
+    parquet_out: ParquetExport = None,
+    debug: Debug = False,
+) -> None:
+    """Show stored results: a table, JSON, CSV, or a run chart of every mode in test order."""
+    from ..inspection.store import ResultStore
+    from ._common import resolve_db
 
-            guarded(lambda: check_writable(csv_out, "CSV"), debug=debug)
-        if not Path(path).exists():
-            error_line(f"no results database at '{path}'; run 'ringdown check' first or give --db")
-            raise typer.Exit(EXIT_ERROR)
+    path = resolve_db(db)
+    if plot:
+        from .render import check_plot_format
 
-        def run():
-            with ResultStore(path, read_only=True) as store:
-                recs = store.query(part=part, since=since, until=until, verdict=verdict, kind=kind)
-                docs = store.limits_documents()
-            return recs, docs
+        guarded(
+            lambda: check_plot_format(Path(plot).suffix.lower().lstrip("."), "the --plot file's ending"),
+            debug=debug,
+        )
+    if json_out and csv_out:
+        usage_error("--json and --csv are exclusive; choose one")
+    if csv_out:
+        from ..io.outputs import check_writable
 
-        records, docs = guarded(run, debug=debug)
-        if csv_out:
-            guarded(lambda: _write_csv(records, csv_out), debug=debug)
-        if parquet_out:
-            from ..inspection.parquet import export_history
+        guarded(lambda: check_writable(csv_out, "CSV"), debug=debug)
+    if not Path(path).exists():
+        error_line(f"no results database at '{path}'; run 'ringdown check' first or give --db")
+        raise typer.Exit(EXIT_ERROR)
 
-            sink = guarded(lambda: export_history(path, records, parquet_out), debug=debug)
-            typer.echo(f"wrote {sink.rows_written} row(s) of {len(records)} record(s) to {parquet_out}", err=True)
-        if plot:
+    def run():
+        with ResultStore(path, read_only=True) as store:
+            recs = store.query(part=part, since=since, until=until, verdict=verdict, kind=kind)
+            docs = store.limits_documents()
+        return recs, docs
 
-            def draw():
-                from ..render.history_plot import plot_run_chart
+    records, docs = guarded(run, debug=debug)
+    if csv_out:
+        guarded(lambda: _write_csv(records, csv_out), debug=debug)
+    if parquet_out:
+        from ..inspection.parquet import export_history
 
-                lim = None
-                if limits_path:
-                    from ..inspection.limits_file import read_limits
+        sink = guarded(lambda: export_history(path, records, parquet_out), debug=debug)
+        typer.echo(f"wrote {sink.rows_written} row(s) of {len(records)} record(s) to {parquet_out}", err=True)
+    if plot:
+        guarded(lambda: _write_run_chart(records, docs, plot, limits_path), debug=debug)
+    if json_out:
+        print_json({"database": path, "records": [r.to_dict() for r in records]})
+    elif not csv_out:
+        typer.echo(format_history(records), nl=False)
+        typer.echo(f"{len(records)} record(s) in {path}")
 
-                    lim = read_limits(limits_path)
-                import io
 
-                from ..io.outputs import atomic_write
+def _write_run_chart(records, docs, plot: str, limits_path: str | None) -> None:
+    """The run chart of ``records`` to ``plot`` (format from its ending), renamed into place."""
+    import io
 
-                fig = plot_run_chart(records, limits_by_sha=docs, limits=lim)
-                buf = io.BytesIO()
-                try:
-                    fig.savefig(buf, dpi=110, format=Path(plot).suffix.lstrip(".").lower() or "png")
-                except (OSError, ValueError) as exc:
-                    from ..base.errors import OutputError
+    from ..io.outputs import atomic_write
+    from ..render.history_plot import plot_run_chart
 
-                    raise OutputError(f"cannot write the run chart to '{plot}': {exc}; choose a writable file") from exc
-                with atomic_write(plot, "wb", what="the run chart to") as fh:  # never half a figure
-                    fh.write(buf.getvalue())
+    lim = None
+    if limits_path:
+        from ..inspection.limits_file import read_limits
 
-            guarded(draw, debug=debug)
-        if json_out:
-            print_json({"database": path, "records": [r.to_dict() for r in records]})
-        elif not csv_out:
-            typer.echo(format_history(records), nl=False)
-            typer.echo(f"{len(records)} record(s) in {path}")
+        lim = read_limits(limits_path)
+    fig = plot_run_chart(records, limits_by_sha=docs, limits=lim)
+    buf = io.BytesIO()
+    try:
+        fig.savefig(buf, dpi=110, format=Path(plot).suffix.lstrip(".").lower() or "png")
+    except (OSError, ValueError) as exc:
+        from ..base.errors import OutputError
+
+        raise OutputError(f"cannot write the run chart to '{plot}': {exc}; choose a writable file") from exc
+    with atomic_write(plot, "wb", what="the run chart to") as fh:  # never half a figure
+        fh.write(buf.getvalue())

@@ -11,24 +11,22 @@ import sys
 from dataclasses import replace
 from functools import partial
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Optional
+from typing import TYPE_CHECKING, Annotated, Any, Optional
 
 import typer
 
 from ..base.clock import seconds
 from ..base.numfmt import fmt_value, fmt_values
 from ._common import (
-    DB_ENV,
-    DEBUG_OPTION,
     EXIT_EPILOG,
     EXIT_ERROR,
     EXIT_FAIL,
     EXIT_INTERRUPTED,
     EXIT_OK,
-    RECURSIVE_OPTION,
+    batch_jobs,
     catching_interrupts,
     check_interrupt,
-    default_jobs,
+    check_jobs,
     error_line,
     expand_inputs,
     guarded,
@@ -40,28 +38,42 @@ from ._common import (
     resolve_db,
     sigint_deferred,
     time_window,
+    usage_error,
     usage_guarded,
-    uses_stdin,
 )
 from ._options import (
+    Band,
     Channel,
     Column,
+    Db,
+    Debug,
     End,
+    Jobs,
+    Json,
     Jsonl,
+    MaxModes,
+    MethodIfGiven,
+    MinSnrDbIfGiven,
     Notes,
+    Operator,
+    Parquet,
+    PartIdRegex,
+    Recursive,
+    Report,
     SampleRate,
+    Scheduler,
     Serial,
     Start,
+    Station,
     Title,
     reader_options,
     report_header,
 )
 
 if TYPE_CHECKING:
-    from ..inspection.check import CheckResult
     from ..inspection.limits import Limits
 
-__all__ = ["register", "format_check"]
+__all__ = ["register", "learn_cmd", "check_cmd", "format_check", "format_learned"]
 
 
 def _analysis_options(method, min_snr_db, max_modes, bands, start=None, end=None) -> dict:
@@ -192,288 +204,264 @@ def _write_report(rows: list[dict], limits, path: str, options: dict, header: di
     _write(render_check_report(rows, analyses, limits, more_sections=sections, **header), path)
 
 
+LearnFiles = Annotated[
+    list[str], typer.Argument(help="Recordings of known-good parts (files, folders, glob patterns).")
+]
+LimitsOut = Annotated[str, typer.Option("-o", "--output", help="Limits file to write (TOML).")]
+Coverage = Annotated[float, typer.Option(help="Fraction of good parts each window must hold (ISO 16269-6).")]
+Confidence = Annotated[float, typer.Option(help="Confidence of each tolerance interval (ISO 16269-6).")]
+Tolerance = Annotated[float, typer.Option(help="Relative distance for matching modes between parts.")]
+NModes = Annotated[Optional[int], typer.Option("--modes", help="Use only the lowest N reference modes.")]
+Overwrite = Annotated[bool, typer.Option("--force", help="Overwrite an existing limits file.")]
+
+CheckFiles = Annotated[list[str], typer.Argument(help="Recordings of parts to check (files, folders, glob patterns).")]
+LimitsIn = Annotated[str, typer.Option("--limits", "-l", help="Limits file (TOML).")]
+CheckCsv = Annotated[Optional[Path], typer.Option("--csv", help="Write one row per part to this CSV file.")]
+NoStore = Annotated[bool, typer.Option("--no-store", help="Do not write results to the database.")]
+Recheck = Annotated[bool, typer.Option("--force", help="Re-check files already stored with the same limits.")]
+
+
 def register(app: typer.Typer) -> None:
+    """Add ``limits learn`` and ``check`` to ``app``."""
     limits_app = typer.Typer(help="Acceptance limits learned from known-good parts.", no_args_is_help=True)
-
-    @limits_app.command("learn", epilog=EXIT_EPILOG)
-    def learn(
-        files: list[str] = typer.Argument(..., help="Recordings of known-good parts (files, folders, glob patterns)."),
-        output: str = typer.Option("limits.toml", "-o", "--output", help="Limits file to write (TOML)."),
-        coverage: float = typer.Option(0.99, help="Fraction of good parts each window must hold (ISO 16269-6)."),
-        confidence: float = typer.Option(0.95, help="Confidence of each tolerance interval (ISO 16269-6)."),
-        tolerance: float = typer.Option(0.10, help="Relative distance for matching modes between parts."),
-        n_modes: Optional[int] = typer.Option(None, "--modes", help="Use only the lowest N reference modes."),
-        method: Optional[str] = typer.Option(None, help="Estimator (as for analyze)."),
-        min_snr_db: Optional[float] = typer.Option(None, help="Smallest mode SNR, dB (as for analyze)."),
-        max_modes: Optional[int] = typer.Option(None, help="Most modes per recording (as for analyze)."),
-        band: Optional[list[str]] = typer.Option(None, "--band", help="Band LOW:HIGH in Hz (repeatable)."),
-        channel: Channel = None,
-        column: Column = None,
-        sample_rate: SampleRate = None,
-        start: Start = None,
-        end: End = None,
-        jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
-        force: bool = typer.Option(False, "--force", help="Overwrite an existing limits file."),
-        json_out: bool = typer.Option(False, "--json", help="Print the limits as JSON."),
-        recursive: bool = RECURSIVE_OPTION,
-        debug: bool = DEBUG_OPTION,
-    ) -> None:
-        """Learn acceptance limits from recordings of known-good parts and write them as TOML."""
-        from ..analysis.pipeline import analyze_many
-        from ..inspection.learning import learn_limits
-        from ..inspection.limits_file import write_limits
-
-        opts = usage_guarded(
-            lambda: {
-                **_analysis_options(method, min_snr_db, max_modes, band, start, end),
-                **reader_options(channel, column, sample_rate),
-            },
-            debug=debug,
-        )
-
-        def run():
-            from ..base.errors import ParameterError
-            from ..io.outputs import check_writable
-
-            paths = expand_inputs(files, recursive=recursive, exclude=[output])
-            if paths.problems:
-                raise ParameterError("every good part must be readable; fix the folders or patterns named above")
-            if Path(output).exists() and not force:
-                raise ParameterError(f"'{output}' exists; use --force to overwrite it or -o to choose another file")
-            check_writable(output, "limits file")
-            try:
-                with catching_interrupts():
-                    analyses = analyze_many(paths, jobs=1 if uses_stdin(paths) else max(1, jobs), **opts)
-                    check_interrupt()
-            except KeyboardInterrupt:
-                error_line(f"interrupted: no limits written to '{output}'; rerun to learn them")
-                raise typer.Exit(EXIT_INTERRUPTED) from None
-            bad = [(a.path, a.error) for a in analyses if a.error is not None]
-            if bad:
-                from ..base.errors import ParameterError
-
-                raise ParameterError(
-                    f"{len(bad)} good part(s) could not be analysed, first {bad[0][0]!r}: "
-                    f"{bad[0][1].message}; remove or re-record them"
-                )
-            lim = learn_limits(analyses, coverage=coverage, confidence=confidence, tolerance=tolerance, n_modes=n_modes)
-            sha = write_limits(lim, output)
-            return replace(lim, source=output, sha256=sha)
-
-        lim = guarded(run, debug=debug)
-        for w in lim.warnings:
-            typer.echo(f"ringdown: warning: {w.message}", err=True)
-        if json_out:
-            print_json(lim.to_dict())
-            return
-        typer.echo(
-            f"learned limits from {lim.n_parts} good parts (coverage {lim.coverage:g}, confidence "
-            f"{lim.confidence:g}, k = {lim.k_factor:.4f}) -> {output}"
-        )
-        if lim.reader:
-            typer.echo("  read with " + ", ".join(f"{k} {v}" for k, v in lim.reader.items()))
-        for m in lim.modes:
-            line = (
-                f"  mode {m.index}: f_d {' to '.join(fmt_values(m.f_hz, 6))} Hz, "
-                f"zeta {' to '.join(fmt_values(m.zeta, 3))}"
-            )
-            if m.ratio is not None:
-                line += f", ratio to mode 1 {' to '.join(fmt_values(m.ratio, 6))}"
-            typer.echo(line)
-        if lim.mahalanobis is not None:
-            mh = lim.mahalanobis
-            typer.echo(f"  Mahalanobis distance of {len(mh.features)} features at most {fmt_value(mh.threshold, 3)}")
-
+    limits_app.command("learn", epilog=EXIT_EPILOG)(learn_cmd)
     app.add_typer(limits_app, name="limits")
+    app.command("check", epilog=EXIT_EPILOG)(check_cmd)
 
-    @app.command("check", epilog=EXIT_EPILOG)
-    def check_cmd(
-        files: list[str] = typer.Argument(..., help="Recordings of parts to check (files, folders, glob patterns)."),
-        limits_path: str = typer.Option(..., "--limits", "-l", help="Limits file (TOML)."),
-        json_out: bool = typer.Option(False, "--json", help="Print every result as JSON on stdout."),
-        jsonl: Jsonl = False,
-        csv_out: Optional[str] = typer.Option(None, "--csv", help="Write one row per part to this CSV file."),
-        report: Optional[str] = typer.Option(None, "--report", help="Write a self-contained HTML report."),
-        title: Title = None,
-        notes: Notes = None,
-        serial: Serial = None,
-        channel: Channel = None,
-        column: Column = None,
-        sample_rate: SampleRate = None,
-        db: Optional[str] = typer.Option(
-            None, "--db", help=f"Results database (default ${DB_ENV} or ringdown.sqlite)."
-        ),
-        no_store: bool = typer.Option(False, "--no-store", help="Do not write results to the database."),
-        station: Optional[str] = typer.Option(None, "--station", help="Test station name, stored with each result."),
-        operator: Optional[str] = typer.Option(None, "--operator", help="Operator, stored with each result."),
-        part_id: Optional[str] = typer.Option(
-            None,
-            "--part-id",
-            help="Regex taking the part id from the file name "
-            "(first group, or the whole match); default the file stem.",
-        ),
-        force: bool = typer.Option(False, "--force", help="Re-check files already stored with the same limits."),
-        start: Start = None,
-        end: End = None,
-        jobs: int = typer.Option(default_jobs(), "--jobs", "-j", help="Worker processes."),
-        recursive: bool = RECURSIVE_OPTION,
-        scheduler: Optional[str] = typer.Option(
-            None,
-            "--scheduler",
-            help="Run on a Dask cluster: scheduler ADDRESS "
-            "(tcp://HOST:8786) or local:N worker processes (needs the 'cluster' extra).",
-        ),
-        parquet_out: Optional[str] = typer.Option(
-            None,
-            "--parquet",
-            help="Also append one row per mode to this Parquet "
-            "dataset folder, as results arrive (needs the 'cluster' extra).",
-        ),
-        debug: bool = DEBUG_OPTION,
-    ) -> None:
-        """Check parts against limits: PASS or FAIL with every reason; store each result."""
-        from ..base.errors import RingdownError
-        from ..inspection.check import iter_check_files
-        from ..inspection.limits_file import read_limits
-        from ..inspection.store import file_sha256, part_id_from_path
 
-        t0 = seconds()
-        if json_out and jsonl:
-            from ._common import usage_error
+def learn_cmd(
+    files: LearnFiles,
+    output: LimitsOut = "limits.toml",
+    coverage: Coverage = 0.99,
+    confidence: Confidence = 0.95,
+    tolerance: Tolerance = 0.10,
+    n_modes: NModes = None,
+    method: MethodIfGiven = None,
+    min_snr_db: MinSnrDbIfGiven = None,
+    max_modes: MaxModes = None,
+    band: Band = None,
+    channel: Channel = None,
+    column: Column = None,
+    sample_rate: SampleRate = None,
+    start: Start = None,
+    end: End = None,
+    jobs: Jobs = None,
+    force: Overwrite = False,
+    json_out: Json = False,
+    recursive: Recursive = False,
+    debug: Debug = False,
+) -> None:
+    """Learn acceptance limits from recordings of known-good parts and write them as TOML."""
 
-            usage_error(
-                "--json and --jsonl are exclusive: --json prints one document at the end, --jsonl one "
-                "line per part as it is checked; choose one"
-            )
-        overrides = usage_guarded(lambda: reader_options(channel, column, sample_rate), debug=debug)
-        usage_guarded(lambda: part_id_from_path("x", part_id), debug=debug)  # a bad regex is a usage error
-        lim = guarded(lambda: read_limits(limits_path), debug=debug)
-        db_path = None if no_store else resolve_db(db)
-        paths = expand_inputs(files, recursive=recursive, exclude=[csv_out, report, db_path, limits_path])
-        n_jobs = usage_guarded(lambda: 1 if uses_stdin(paths) else max(1, jobs), debug=debug)
-        if not paths:
-            error_line(f"no recordings found in {', '.join(files)}; give files, folders or glob patterns")
-            raise typer.Exit(EXIT_ERROR)
-        ids = [part_id_from_path(p, part_id) for p in paths]
+    def options() -> dict:
+        check_jobs(jobs)
+        return {
+            **_analysis_options(method, min_snr_db, max_modes, band, start, end),
+            **reader_options(channel, column, sample_rate),
+        }
 
-        store = guarded(partial(_prepare_check_outputs, csv_out, report, db_path, lim), debug=debug)
-        rows: list[dict | None] = [None] * len(paths)
-        results: list[CheckResult | None] = [None] * len(paths)
-        interrupted = store_failed = False
-        try:
-            shas = [file_sha256(p) for p in paths]
-            todo = []
-            for i, p in enumerate(paths):
-                old = (
-                    None
-                    if (store is None or force or shas[i] is None)
-                    else guarded(partial(store.find_check, shas[i], lim.sha256), debug=debug)
-                )
-                if old is not None:
-                    rows[i] = row = _stored_row(old, ids[i], p, shas[i])
-                    _stream(row, json_out, jsonl)
-                else:
-                    todo.append(i)
-            prog, task = progress_bar(on_terminal(json_out) and len(todo) > 1, len(todo), "checking")
-            from ..base.cluster import connect
-            from ..inspection.parquet import open_sink
+    opts = usage_guarded(options, debug=debug)
+    lim = guarded(
+        lambda: _learn(files, output, force, recursive, jobs, opts, coverage, confidence, tolerance, n_modes),
+        debug=debug,
+    )
+    for w in lim.warnings:
+        typer.echo(f"ringdown: warning: {w.message}", err=True)
+    if json_out:
+        print_json(lim.to_dict())
+    else:
+        typer.echo(format_learned(lim, output))
 
-            cluster = guarded(lambda: connect(scheduler), debug=debug)
-            sink = guarded(lambda: open_sink(parquet_out), debug=debug)
-            with catching_interrupts(), cluster as client, sink, prog:
-                it = iter_check_files(
-                    [paths[i] for i in todo],
-                    lim,
-                    jobs=n_jobs,
-                    on_notice=note_line,
-                    options={**overrides, **time_window(start, end)},
-                    client=client,
-                )
-                for pos, res in it:
-                    check_interrupt()  # a result that finished after a Ctrl-C is not taken
-                    i = todo[pos]
-                    if res.sha256 is None and shas[i] is not None:
-                        res = replace(res, sha256=shas[i])
-                    with sigint_deferred():  # stored and counted whole, or not at all
-                        # to the dataset before the database: whatever is stored is in the dataset too
-                        guarded(
-                            partial(sink.add_check, res, part_id=ids[i], station=station, operator=operator),
-                            debug=debug,
-                        )
-                        stored = None
-                        if store is not None and not store_failed:
-                            try:
-                                stored = store.record_check(
-                                    res, part_id=ids[i], station=station, operator=operator, force=force
-                                )
-                            except RingdownError as exc:
-                                error_line(f"{exc}; results from here on are not stored")
-                                store_failed = True
-                        results[i] = res
-                        rows[i] = row = {"part_id": ids[i], "skipped": False, "stored_id": stored, **res.to_dict()}
-                    prog.advance(task)
-                    _stream(row, json_out, jsonl)
-                guarded(sink.close, debug=debug)
-        except KeyboardInterrupt:
-            interrupted = True
-        finally:
-            if store is not None:
-                store.close()
 
-        rows_f = [r for r in rows if r is not None]
-        elapsed = seconds() - t0
-        summary = _check_summary(rows_f, elapsed)
-        from .analyze import _try
+def _learn(files, output, force, recursive, jobs, opts, coverage, confidence, tolerance, n_modes):
+    """Analyse the good parts (every one must be analysed) and write the limits learned from them."""
+    from ..analysis.pipeline import analyze_many
+    from ..base.errors import ParameterError
+    from ..inspection.learning import learn_limits
+    from ..inspection.limits_file import write_limits
+    from ..io.outputs import check_writable
 
-        window = time_window(start, end)
-        failed_outputs = 0
-        if csv_out:
-            failed_outputs += _try(lambda: _write_csv(rows_f, lim, csv_out), debug)
-        if report:
-            header = report_header(
-                title,
-                notes,
-                serial,
-                station=station,
-                operator=operator,
-                limits=lim.source,
-                **{"limits SHA-256": lim.sha256},
-            )
-            failed_outputs += _try(lambda: _write_report(rows_f, lim, report, {**overrides, **window}, header), debug)
-        if json_out:
-            from .._version import __version__
-
-            print_json(
-                {
-                    "tool": {"name": "ringdown", "version": __version__},
-                    "limits": {"path": lim.source, "sha256": lim.sha256},
-                    "station": station,
-                    "operator": operator,
-                    "results": rows_f,
-                    "summary": summary,
-                }
-            )
-        skipped = summary["skipped"]
-        line = (
-            f"{summary['parts']} parts: {summary['passed']} passed, {summary['failed']} failed, "
-            f"{summary['errors']} errors"
-            + (f" ({skipped} already stored, skipped)" if skipped else "")
-            + f" in {elapsed:.1f} s"
+    paths = expand_inputs(files, recursive=recursive, exclude=[output])
+    if paths.problems:
+        raise ParameterError("every good part must be readable; fix the folders or patterns named above")
+    if Path(output).exists() and not force:
+        raise ParameterError(f"'{output}' exists; use --force to overwrite it or -o to choose another file")
+    check_writable(output, "limits file")
+    try:
+        with catching_interrupts():
+            analyses = analyze_many(paths, jobs=batch_jobs(jobs, paths), **opts)
+            check_interrupt()
+    except KeyboardInterrupt:
+        error_line(f"interrupted: no limits written to '{output}'; rerun to learn them")
+        raise typer.Exit(EXIT_INTERRUPTED) from None
+    bad = [(a.path, a.error) for a in analyses if a.error is not None]
+    if bad:
+        raise ParameterError(
+            f"{len(bad)} good part(s) could not be analysed, first {bad[0][0]!r}: "
+            f"{bad[0][1].message}; remove or re-record them"
         )
-        typer.echo(line, err=json_out or jsonl)
-        if interrupted:
-            error_line(
-                f"interrupted: {len(rows_f)} of {len(paths)} done"
-                + (" (stored)" if store is not None else "")
-                + ", rerun to resume"
-            )
-            raise typer.Exit(EXIT_INTERRUPTED)
-        bad = summary["errors"] or failed_outputs or store_failed or paths.problems
-        code = EXIT_ERROR if bad else EXIT_FAIL if summary["failed"] else EXIT_OK
-        raise typer.Exit(code)
+    lim = learn_limits(analyses, coverage=coverage, confidence=confidence, tolerance=tolerance, n_modes=n_modes)
+    sha = write_limits(lim, output)
+    return replace(lim, source=output, sha256=sha)
 
 
-def _prepare_check_outputs(csv_out: str | None, report: str | None, db_path: str | None, lim: Limits) -> Any:
+def format_learned(lim, output: str) -> str:
+    """The lines ``limits learn`` prints without ``--json``: the windows of every mode."""
+    lines = [
+        f"learned limits from {lim.n_parts} good parts (coverage {lim.coverage:g}, confidence "
+        f"{lim.confidence:g}, k = {lim.k_factor:.4f}) -> {output}"
+    ]
+    if lim.reader:
+        lines.append("  read with " + ", ".join(f"{k} {v}" for k, v in lim.reader.items()))
+    for m in lim.modes:
+        line = (
+            f"  mode {m.index}: f_d {' to '.join(fmt_values(m.f_hz, 6))} Hz, zeta {' to '.join(fmt_values(m.zeta, 3))}"
+        )
+        if m.ratio is not None:
+            line += f", ratio to mode 1 {' to '.join(fmt_values(m.ratio, 6))}"
+        lines.append(line)
+    if lim.mahalanobis is not None:
+        mh = lim.mahalanobis
+        lines.append(f"  Mahalanobis distance of {len(mh.features)} features at most {fmt_value(mh.threshold, 3)}")
+    return "\n".join(lines)
+
+
+def check_cmd(
+    files: CheckFiles,
+    limits_path: LimitsIn,
+    json_out: Json = False,
+    jsonl: Jsonl = False,
+    csv_out: CheckCsv = None,
+    report: Report = None,
+    title: Title = None,
+    notes: Notes = None,
+    serial: Serial = None,
+    channel: Channel = None,
+    column: Column = None,
+    sample_rate: SampleRate = None,
+    db: Db = None,
+    no_store: NoStore = False,
+    station: Station = None,
+    operator: Operator = None,
+    part_id: PartIdRegex = None,
+    force: Recheck = False,
+    start: Start = None,
+    end: End = None,
+    jobs: Jobs = None,
+    recursive: Recursive = False,
+    scheduler: Scheduler = None,
+    parquet_out: Parquet = None,
+    debug: Debug = False,
+) -> None:
+    """Check parts against limits: PASS or FAIL with every reason; store each result."""
+    from ..inspection.check_run import CheckRun, check_summary
+    from ..inspection.limits_file import read_limits
+    from ..inspection.store import part_id_from_path
+
+    t0 = seconds()
+    if json_out and jsonl:
+        usage_error(f"--json and --jsonl are exclusive: {_STREAMS}")
+    overrides = usage_guarded(lambda: reader_options(channel, column, sample_rate), debug=debug)
+    usage_guarded(lambda: part_id_from_path("x", part_id), debug=debug)  # a bad regex is a usage error
+    usage_guarded(lambda: check_jobs(jobs), debug=debug)
+    lim = guarded(lambda: read_limits(limits_path), debug=debug)
+    db_path = None if no_store else resolve_db(db)
+    paths = expand_inputs(files, recursive=recursive, exclude=[csv_out, report, db_path, limits_path])
+    n_jobs = usage_guarded(lambda: batch_jobs(jobs, paths), debug=debug)
+    if not paths:
+        error_line(f"no recordings found in {', '.join(files)}; give files, folders or glob patterns")
+        raise typer.Exit(EXIT_ERROR)
+    store = guarded(partial(_prepare_check_outputs, csv_out, report, db_path, lim), debug=debug)
+    ids = [part_id_from_path(p, part_id) for p in paths]
+    run = CheckRun(
+        paths, lim, part_ids=ids, store=store, force=force, station=station, operator=operator, on_store_error=_unstored
+    )
+    window = time_window(start, end)
+    stream = partial(_stream, json_out=json_out, jsonl=jsonl)
+    interrupted = False
+    try:
+        guarded(lambda: [stream(row) for _, row in run.stored_rows()], debug=debug)
+        _check_todo(run, n_jobs, {**overrides, **window}, scheduler, parquet_out, on_terminal(json_out), stream, debug)
+    except KeyboardInterrupt:
+        interrupted = True
+    finally:
+        if store is not None:
+            store.close()
+    rows = run.finished_rows()
+    elapsed = seconds() - t0
+    summary = check_summary(rows, elapsed)
+    header = report_header(
+        title, notes, serial, station=station, operator=operator, limits=lim.source, **{"limits SHA-256": lim.sha256}
+    )
+    failed_outputs = _write_check_outputs(rows, lim, csv_out, report, {**overrides, **window}, header, debug)
+    if json_out:
+        print_json(run.document(elapsed))
+    _check_exit(summary, elapsed, interrupted, len(paths), store is not None, json_out or jsonl)
+    bad = summary["errors"] or failed_outputs or run.store_failed or paths.problems
+    raise typer.Exit(EXIT_ERROR if bad else EXIT_FAIL if summary["failed"] else EXIT_OK)
+
+
+def _check_exit(summary: dict, elapsed: float, interrupted: bool, n_paths: int, stored: bool, to_err: bool) -> None:
+    """The counts line (on stderr with JSON on stdout); after Ctrl-C the interrupt line and exit 130."""
+    skipped = summary["skipped"]
+    typer.echo(
+        f"{summary['parts']} parts: {summary['passed']} passed, {summary['failed']} failed, "
+        f"{summary['errors']} errors"
+        + (f" ({skipped} already stored, skipped)" if skipped else "")
+        + f" in {elapsed:.1f} s",
+        err=to_err,
+    )
+    if interrupted:
+        error_line(
+            f"interrupted: {summary['parts']} of {n_paths} done" + (" (stored)" if stored else "") + ", rerun to resume"
+        )
+        raise typer.Exit(EXIT_INTERRUPTED)
+
+
+#: Why ``check`` takes one of ``--json`` and ``--jsonl``.
+_STREAMS = "--json prints one document at the end, --jsonl one line per part as it is checked; choose one"
+
+
+def _unstored(exc) -> None:
+    """The store failed: said once, the check goes on without storing."""
+    error_line(f"{exc}; results from here on are not stored")
+
+
+def _check_todo(run, n_jobs: int, options: dict, scheduler, parquet_out, show_progress: bool, stream, debug) -> None:
+    """Check the parts not skipped, each stored and streamed as its result arrives."""
+    from ..base.cluster import connect
+    from ..inspection.check import iter_check_files
+    from ..inspection.parquet import open_sink
+
+    prog, task = progress_bar(show_progress and len(run.todo) > 1, len(run.todo), "checking")
+    cluster = guarded(lambda: connect(scheduler), debug=debug)
+    sink = guarded(lambda: open_sink(parquet_out), debug=debug)
+    with catching_interrupts(), cluster as client, sink, prog:
+        it = iter_check_files(
+            run.todo_paths, run.limits, jobs=n_jobs, on_notice=note_line, options=options, client=client
+        )
+        for pos, res in it:
+            check_interrupt()  # a result that finished after a Ctrl-C is not taken
+            with sigint_deferred():  # stored and counted whole, or not at all
+                row = guarded(partial(run.take, pos, res, sink), debug=debug)
+            prog.advance(task)
+            stream(row)
+        guarded(sink.close, debug=debug)
+
+
+def _write_check_outputs(rows, lim, csv_out, report, options: dict, header: dict, debug) -> int:
+    """The CSV and the report; returns the number of outputs that could not be written."""
+    from .analyze import _try
+
+    failed = 0
+    if csv_out:
+        failed += _try(lambda: _write_csv(rows, lim, str(csv_out)), debug)
+    if report:
+        failed += _try(lambda: _write_report(rows, lim, str(report), options, header), debug)
+    return failed
+
+
+def _prepare_check_outputs(csv_out, report, db_path: str | None, lim: Limits) -> Any:
     """Before any part is checked: the outputs are writable, the limits are in the database (an
     open ResultStore, or None without one), and the last run's outputs are gone."""
     from ..inspection.store import ResultStore
@@ -494,35 +482,3 @@ def _prepare_check_outputs(csv_out: str | None, report: str | None, db_path: str
         if out:
             remove_stale(out)  # a killed run must not leave the last run's output looking current
     return st
-
-
-def _check_summary(rows: list[dict], elapsed_s: float) -> dict[str, Any]:
-    """The counts of a check run (the JSON ``summary``): parts, passed, failed, errors, skipped, time_s."""
-    counts = {v: sum(1 for r in rows if r["verdict"] == v) for v in ("pass", "fail", "error")}
-    return {
-        "parts": len(rows),
-        "passed": counts["pass"],
-        "failed": counts["fail"],
-        "errors": counts["error"],
-        "skipped": sum(1 for r in rows if r.get("skipped")),
-        "time_s": round(elapsed_s, 3),
-    }
-
-
-def _stored_row(old, part_id: str, path: str, sha: str | None) -> dict:
-    """The row of a part skipped as already stored: the stored record in full (features, modes)."""
-    rec = (
-        dict(old.result)
-        if old.result
-        else {
-            "reasons": list(old.reasons),
-            "notes": list(old.notes),
-            "features": [],
-            "modes": [],
-            "mahalanobis": old.mahalanobis,
-            "uniform_shift": old.uniform_shift,
-            "verdict": old.verdict,
-        }
-    )
-    rec.update(part_id=part_id, path=path, sha256=sha, verdict=old.verdict, skipped=True, stored_id=old.id)
-    return rec

@@ -4,12 +4,11 @@ from __future__ import annotations
 
 from collections import deque
 from pathlib import Path
-from typing import Any, Optional
+from typing import Annotated, Any, Optional
 
 import typer
 
 from ._common import (
-    DEBUG_OPTION,
     EXIT_ERROR,
     EXIT_OK,
     error_line,
@@ -20,6 +19,7 @@ from ._common import (
     resolve_db,
     usage_guarded,
 )
+from ._options import Db, Debug, Jsonl, Operator, Station
 
 #: Recent parts shown under the last verdict in the terminal view.
 RECENT_ROWS = 8
@@ -44,139 +44,163 @@ def big_word(word: str) -> str:
     return "\n".join(r.replace("#", "\u2588") for r in rows)
 
 
+ListDevices = Annotated[bool, typer.Option("--list-devices", help="List the input devices and exit.")]
+Device = Annotated[
+    Optional[str],
+    typer.Option(
+        "--device", help="Input device: PortAudio index or part of its name (default: the system's default input)."
+    ),
+]
+InputChannel = Annotated[int, typer.Option("--channel", help="Input channel analysed, 1-based.")]
+CaptureRate = Annotated[
+    Optional[float], typer.Option("--sample-rate", help="Capture rate, Hz (default: the device's own).")
+]
+Replay = Annotated[
+    Optional[Path],
+    typer.Option("--replay", help="Feed this recording through the station instead of a device (a rehearsal)."),
+]
+Speed = Annotated[
+    float, typer.Option("--speed", help="With --replay: this many times real time (0: as fast as it can).")
+]
+JudgeLimits = Annotated[Optional[Path], typer.Option("--limits", help="Limits file: judge each part PASS/FAIL.")]
+SaveDir = Annotated[
+    Optional[Path], typer.Option("--save-dir", help="Write each tap as a WAV here, named by UTC time and part id.")
+]
+StoreTaps = Annotated[bool, typer.Option("--store", help="Keep each result in the results history (SQLite).")]
+PartIdPattern = Annotated[
+    str, typer.Option("--part-id", help="Part id pattern with the tap counter {n} (e.g. 'B7-{n:04d}').")
+]
+First = Annotated[int, typer.Option("--first", help="Counter of the first tap.")]
+AskPartId = Annotated[
+    bool, typer.Option("--ask-part-id", help="Ask for each part id at the prompt (Enter takes the pattern's).")
+]
+MaxTaps = Annotated[Optional[int], typer.Option("--max-taps", help="Stop after this many taps.")]
+Duration = Annotated[Optional[float], typer.Option("--duration", help="Stop after this many seconds of input.")]
+TapSnrDb = Annotated[
+    Optional[float],
+    typer.Option(
+        "--min-hit-snr-db", help="A tap must rise this far above the noise floor, dB (default 20, or the limits')."
+    ),
+]
+
+
 def register(app: typer.Typer) -> None:
-    @app.command("listen")
-    def listen_cmd(
-        list_devices: bool = typer.Option(False, "--list-devices", help="List the input devices and exit."),
-        device: Optional[str] = typer.Option(
-            None,
-            "--device",
-            help="Input device: PortAudio index or part of its name (default: the system's default input).",
-        ),
-        channel: int = typer.Option(1, "--channel", help="Input channel analysed, 1-based."),
-        sample_rate: Optional[float] = typer.Option(
-            None, "--sample-rate", help="Capture rate, Hz (default: the device's own)."
-        ),
-        replay: Optional[Path] = typer.Option(
-            None, "--replay", help="Feed this recording through the station instead of a device (a rehearsal)."
-        ),
-        speed: float = typer.Option(
-            1.0, "--speed", help="With --replay: this many times real time (0: as fast as it can)."
-        ),
-        limits: Optional[Path] = typer.Option(None, "--limits", help="Limits file: judge each part PASS/FAIL."),
-        save_dir: Optional[Path] = typer.Option(
-            None, "--save-dir", help="Write each tap as a WAV here, named by UTC time and part id."
-        ),
-        store: bool = typer.Option(False, "--store", help="Keep each result in the results history (SQLite)."),
-        db: Optional[str] = typer.Option(
-            None, "--db", help="History database (default $RINGDOWN_DB, else ringdown.sqlite here)."
-        ),
-        station: Optional[str] = typer.Option(None, "--station", help="Test station, stored with each result."),
-        operator: Optional[str] = typer.Option(None, "--operator", help="Operator, stored with each result."),
-        part_id: str = typer.Option(
-            "part-{n:04d}", "--part-id", help="Part id pattern with the tap counter {n} (e.g. 'B7-{n:04d}')."
-        ),
-        first: int = typer.Option(1, "--first", help="Counter of the first tap."),
-        ask_part_id: bool = typer.Option(
-            False, "--ask-part-id", help="Ask for each part id at the prompt (Enter takes the pattern's)."
-        ),
-        jsonl: bool = typer.Option(False, "--jsonl", help="Print one JSON record per tap (JSON Lines)."),
-        max_taps: Optional[int] = typer.Option(None, "--max-taps", help="Stop after this many taps."),
-        duration: Optional[float] = typer.Option(None, "--duration", help="Stop after this many seconds of input."),
-        min_hit_snr_db: Optional[float] = typer.Option(
-            None,
-            "--min-hit-snr-db",
-            help="A tap must rise this far above the noise floor, dB (default 20, or the limits').",
-        ),
-        debug: bool = DEBUG_OPTION,
-    ) -> None:
-        """Listen for taps (a sound card, or --replay FILE): per tap the modes, or the verdict with --limits."""
-        from ..inspection.station import PartIds, Station
+    """Add the ``listen`` command to ``app``."""
+    app.command("listen")(listen_cmd)
 
-        if list_devices:
-            from ..io.device import list_devices as _list
 
-            typer.echo(guarded(_list, debug=debug))
-            raise typer.Exit(EXIT_OK)
+def listen_cmd(
+    list_devices: ListDevices = False,
+    device: Device = None,
+    channel: InputChannel = 1,
+    sample_rate: CaptureRate = None,
+    replay: Replay = None,
+    speed: Speed = 1.0,
+    limits: JudgeLimits = None,
+    save_dir: SaveDir = None,
+    store: StoreTaps = False,
+    db: Db = None,
+    station: Station = None,
+    operator: Operator = None,
+    part_id: PartIdPattern = "part-{n:04d}",
+    first: First = 1,
+    ask_part_id: AskPartId = False,
+    jsonl: Jsonl = False,
+    max_taps: MaxTaps = None,
+    duration: Duration = None,
+    min_hit_snr_db: TapSnrDb = None,
+    debug: Debug = False,
+) -> None:
+    """Listen for taps (a sound card, or --replay FILE): per tap the modes, or the verdict with --limits."""
+    from ..inspection.store import ResultStore
 
-        def parse():
-            from ..base.errors import ParameterError
-            from ..inspection.limits_file import read_limits
+    if list_devices:
+        from ..io.device import list_devices as _list
 
-            if speed < 0:
-                raise ParameterError(f"--speed must be >= 0 (0: as fast as possible); got {speed:g}")
-            if replay is None and speed != 1.0:
-                raise ParameterError("--speed applies to --replay only")
-            if max_taps is not None and max_taps < 1:
-                raise ParameterError(f"--max-taps must be >= 1; got {max_taps}")
-            lim = read_limits(limits) if limits is not None else None
-            ids = PartIds(part_id, start=first, prompt=_ask if ask_part_id else None)
-            opts = {} if min_hit_snr_db is None else {"min_hit_snr_db": min_hit_snr_db}
-            return lim, ids, opts
-
-        lim, ids, opts = usage_guarded(parse, debug=debug)
-        source = guarded(lambda: _source(replay, speed, device, channel, sample_rate), debug=debug)
-        history = None
-        if store:
-            from ..inspection.store import ResultStore
-
-            history = guarded(lambda: ResultStore(resolve_db(db)), debug=debug)
-        st = guarded(
-            lambda: Station(
-                source.sample_rate,
-                options=opts,
-                limits=lim,
-                save_dir=save_dir,
-                store=history,
-                station=station,
-                operator=operator,
-                part_ids=ids,
-                subtype=_subtype(replay),
-                full_scale=getattr(source, "full_scale", 1.0),
-            ),
-            debug=debug,
-        )
-        if replay is None:
-            st.warm_up()  # before the stream opens: the first tap's analysis is then not late
-        live_view = on_terminal(jsonl) and not ask_part_id
-        what = f"replay of {replay}" if replay is not None else f"input {getattr(source, 'device_name', device)!r}"
-        view = _View(what, lim is not None) if live_view else None
-        stop_at = None if duration is None else int(round(duration * source.sample_rate))
-        interrupted = False
-        try:
-            with view.live() if view else _nothing():
-                ready = (
-                    None
-                    if view
-                    else (lambda: note_line(f"listening: {what} at {source.sample_rate:g} Hz; Ctrl-C ends"))
-                )
-                for tap in st.run(_until(source, stop_at, ready)):
-                    if jsonl:
-                        print_json_line(tap.to_dict())
-                    elif view:
-                        view.add(tap, getattr(source, "dropped_blocks", 0))
-                    else:
-                        typer.echo(_line(tap))
-                    if max_taps is not None and len(st.taps) >= max_taps:
-                        break
-        except KeyboardInterrupt:
-            interrupted = True
-        except Exception as exc:  # the input failed: the taps so far are kept and summarised
-            from ..base.batch import as_ringdown_error
-
-            if debug:
-                raise
-            error_line(str(as_ringdown_error(exc)))
-            _summary(st, source, interrupted, to_err=jsonl)
-            raise typer.Exit(EXIT_ERROR) from None
-        finally:
-            stop = getattr(source, "stop_capture", None)
-            if stop:
-                stop()
-            if history is not None:
-                history.close()
-        _summary(st, source, interrupted, to_err=jsonl)
+        typer.echo(guarded(_list, debug=debug))
         raise typer.Exit(EXIT_OK)
+
+    lim, ids, opts = usage_guarded(
+        lambda: _parse(speed, replay, max_taps, limits, part_id, first, ask_part_id, min_hit_snr_db), debug=debug
+    )
+    source = guarded(lambda: _source(replay, speed, device, channel, sample_rate), debug=debug)
+    history = guarded(lambda: ResultStore(resolve_db(db)), debug=debug) if store else None
+    station_options = dict(limits=lim, save_dir=save_dir, store=history, station=station, operator=operator)
+    st = guarded(lambda: _station(source, replay, opts, ids, station_options), debug=debug)
+    if replay is None:
+        st.warm_up()  # before the stream opens: the first tap's analysis is then not late
+    what = f"replay of {replay}" if replay is not None else f"input {getattr(source, 'device_name', device)!r}"
+    view = _View(what, lim is not None) if on_terminal(jsonl) and not ask_part_id else None
+    stop_at = None if duration is None else int(round(duration * source.sample_rate))
+    interrupted = False
+    try:
+        _listen(st, source, view, what, stop_at, max_taps, jsonl)
+    except KeyboardInterrupt:
+        interrupted = True
+    except Exception as exc:  # the input failed: the taps so far are kept and summarised
+        from ..base.batch import as_ringdown_error
+
+        if debug:
+            raise
+        error_line(str(as_ringdown_error(exc)))
+        _summary(st, source, interrupted, to_err=jsonl)
+        raise typer.Exit(EXIT_ERROR) from None
+    finally:
+        stop = getattr(source, "stop_capture", None)
+        if stop:
+            stop()
+        if history is not None:
+            history.close()
+    _summary(st, source, interrupted, to_err=jsonl)
+    raise typer.Exit(EXIT_OK)
+
+
+def _parse(speed, replay, max_taps, limits, part_id, first, ask_part_id, min_hit_snr_db):
+    """The limits (or None), the part ids and the analysis options; a ParameterError for a bad option."""
+    from ..base.errors import ParameterError
+    from ..inspection.limits_file import read_limits
+    from ..inspection.station import PartIds
+
+    if speed < 0:
+        raise ParameterError(f"--speed must be >= 0 (0: as fast as possible); got {speed:g}")
+    if replay is None and speed != 1.0:
+        raise ParameterError("--speed applies to --replay only")
+    if max_taps is not None and max_taps < 1:
+        raise ParameterError(f"--max-taps must be >= 1; got {max_taps}")
+    lim = read_limits(limits) if limits is not None else None
+    ids = PartIds(part_id, start=first, prompt=_ask if ask_part_id else None)
+    opts = {} if min_hit_snr_db is None else {"min_hit_snr_db": min_hit_snr_db}
+    return lim, ids, opts
+
+
+def _station(source, replay, options: dict, part_ids, kwargs: dict):
+    """The test station over ``source`` (``kwargs``: limits, save_dir, store, station, operator)."""
+    from ..inspection.station import Station as TestStation
+
+    return TestStation(
+        source.sample_rate,
+        options=options,
+        part_ids=part_ids,
+        subtype=_subtype(replay),
+        full_scale=getattr(source, "full_scale", 1.0),
+        **kwargs,
+    )
+
+
+def _listen(st, source, view, what: str, stop_at, max_taps, jsonl: bool) -> None:
+    """Run the station over the source's blocks; each tap shown as it is judged (a JSON line, the
+    terminal view, or a plain line)."""
+    with view.live() if view else _nothing():
+        ready = None if view else (lambda: note_line(f"listening: {what} at {source.sample_rate:g} Hz; Ctrl-C ends"))
+        for tap in st.run(_until(source, stop_at, ready)):
+            if jsonl:
+                print_json_line(tap.to_dict())
+            elif view:
+                view.add(tap, getattr(source, "dropped_blocks", 0))
+            else:
+                typer.echo(_line(tap))
+            if max_taps is not None and len(st.taps) >= max_taps:
+                break
 
 
 def _ask(question: str) -> str:

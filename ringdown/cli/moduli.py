@@ -11,14 +11,26 @@ from __future__ import annotations
 import csv
 import math
 from pathlib import Path
-from typing import Optional
+from typing import Annotated, Optional
 
 import typer
 
 from ..base.errors import ParameterError
 from ..base.numfmt import fmt_pm, fmt_value, fmt_values
-from ._common import DEBUG_OPTION, EXIT_EPILOG, EXIT_OK, guarded, print_json
-from ._options import Channel, Column, Notes, SampleRate, Serial, Title, reader_options, report_header
+from ._common import EXIT_EPILOG, EXIT_OK, guarded, print_json
+from ._options import (
+    Channel,
+    Column,
+    Debug,
+    Json,
+    Notes,
+    Report,
+    SampleRate,
+    Serial,
+    Title,
+    reader_options,
+    report_header,
+)
 
 __all__ = ["register", "format_table"]
 
@@ -161,145 +173,172 @@ def _nonneg(name: str, value: Optional[float]) -> float:
     return value
 
 
+Flex = Annotated[Optional[str], typer.Argument(metavar="FLEX", help="Recording of the flexural tap.")]
+Torsion = Annotated[Optional[str], typer.Argument(metavar="TORSION", help="Recording of the torsional tap.")]
+Shape = Annotated[str, typer.Option("--shape", help="Specimen: 'bar' (rectangular) or 'rod' (cylindrical).")]
+LengthMm = Annotated[Optional[float], typer.Option("--length-mm", help="Length, mm.")]
+WidthMm = Annotated[Optional[float], typer.Option("--width-mm", help="Width of a bar, mm.")]
+ThicknessMm = Annotated[
+    Optional[float], typer.Option("--thickness-mm", help="Thickness of a bar (direction of the bending), mm.")
+]
+DiameterMm = Annotated[Optional[float], typer.Option("--diameter-mm", help="Diameter of a rod, mm.")]
+MassG = Annotated[Optional[float], typer.Option("--mass-g", help="Mass, g.")]
+ULengthMm = Annotated[Optional[float], typer.Option("--u-length-mm", help="Standard uncertainty of the length, mm.")]
+UWidthMm = Annotated[Optional[float], typer.Option("--u-width-mm", help="Standard uncertainty of the width, mm.")]
+UThicknessMm = Annotated[
+    Optional[float], typer.Option("--u-thickness-mm", help="Standard uncertainty of the thickness, mm.")
+]
+UDiameterMm = Annotated[
+    Optional[float], typer.Option("--u-diameter-mm", help="Standard uncertainty of the diameter, mm.")
+]
+UMassG = Annotated[Optional[float], typer.Option("--u-mass-g", help="Standard uncertainty of the mass, g.")]
+FlexuralHz = Annotated[
+    Optional[float], typer.Option("--flexural-hz", help="Flexural frequency by hand, Hz (instead of FLEX).")
+]
+UFlexuralHz = Annotated[Optional[float], typer.Option("--u-flexural-hz", help="Its standard uncertainty, Hz.")]
+TorsionalHz = Annotated[
+    Optional[float], typer.Option("--torsional-hz", help="Torsional frequency by hand, Hz (instead of TORSION).")
+]
+UTorsionalHz = Annotated[Optional[float], typer.Option("--u-torsional-hz", help="Its standard uncertainty, Hz.")]
+FlexuralMode = Annotated[
+    Optional[int], typer.Option("--flexural-mode", help="Mode index of FLEX to use (default: the lowest).")
+]
+TorsionalMode = Annotated[
+    Optional[int],
+    typer.Option(
+        "--torsional-mode", help="Mode index of TORSION to use (default: the one in the predicted torsional window)."
+    ),
+]
+Poisson = Annotated[
+    Optional[float],
+    typer.Option(
+        "--poisson", help="Poisson's ratio: used for T1 without a torsional mode; otherwise the loop's first guess."
+    ),
+]
+UPoisson = Annotated[Optional[float], typer.Option("--u-poisson", help="Standard uncertainty of --poisson.")]
+CsvOut = Annotated[Optional[Path], typer.Option("--csv", help="Also write one row per quantity to this CSV file.")]
+
+HELP = (
+    "Young's modulus, shear modulus and Poisson's ratio of a bar or rod from its flexural "
+    "(and torsional) tap recordings or frequencies, after ASTM E1876. Dimensions in mm, "
+    "mass in g; each may carry a standard uncertainty (--u-...)."
+)
+
+
 def register(app: typer.Typer) -> None:
     """Add the ``moduli`` command to ``app``."""
+    app.command("moduli", help=HELP, epilog=EXIT_EPILOG)(moduli_cmd)
 
-    @app.command(
-        "moduli",
-        help=(
-            "Young's modulus, shear modulus and Poisson's ratio of a bar or rod from its flexural "
-            "(and torsional) tap recordings or frequencies, after ASTM E1876. Dimensions in mm, "
-            "mass in g; each may carry a standard uncertainty (--u-...)."
-        ),
-        epilog=EXIT_EPILOG,
-    )
-    def moduli_cmd(
-        flexural_file: Optional[str] = typer.Argument(None, metavar="FLEX", help="Recording of the flexural tap."),
-        torsional_file: Optional[str] = typer.Argument(None, metavar="TORSION", help="Recording of the torsional tap."),
-        shape: str = typer.Option("bar", "--shape", help="Specimen: 'bar' (rectangular) or 'rod' (cylindrical)."),
-        length_mm: Optional[float] = typer.Option(None, "--length-mm", help="Length, mm."),
-        width_mm: Optional[float] = typer.Option(None, "--width-mm", help="Width of a bar, mm."),
-        thickness_mm: Optional[float] = typer.Option(
-            None, "--thickness-mm", help="Thickness of a bar (direction of the bending), mm."
-        ),
-        diameter_mm: Optional[float] = typer.Option(None, "--diameter-mm", help="Diameter of a rod, mm."),
-        mass_g: Optional[float] = typer.Option(None, "--mass-g", help="Mass, g."),
-        u_length_mm: Optional[float] = typer.Option(
-            None, "--u-length-mm", help="Standard uncertainty of the length, mm."
-        ),
-        u_width_mm: Optional[float] = typer.Option(None, "--u-width-mm", help="Standard uncertainty of the width, mm."),
-        u_thickness_mm: Optional[float] = typer.Option(
-            None, "--u-thickness-mm", help="Standard uncertainty of the thickness, mm."
-        ),
-        u_diameter_mm: Optional[float] = typer.Option(
-            None, "--u-diameter-mm", help="Standard uncertainty of the diameter, mm."
-        ),
-        u_mass_g: Optional[float] = typer.Option(None, "--u-mass-g", help="Standard uncertainty of the mass, g."),
-        flexural_hz: Optional[float] = typer.Option(
-            None, "--flexural-hz", help="Flexural frequency by hand, Hz (instead of FLEX)."
-        ),
-        u_flexural_hz: Optional[float] = typer.Option(None, "--u-flexural-hz", help="Its standard uncertainty, Hz."),
-        torsional_hz: Optional[float] = typer.Option(
-            None, "--torsional-hz", help="Torsional frequency by hand, Hz (instead of TORSION)."
-        ),
-        u_torsional_hz: Optional[float] = typer.Option(None, "--u-torsional-hz", help="Its standard uncertainty, Hz."),
-        flexural_mode: Optional[int] = typer.Option(
-            None, "--flexural-mode", help="Mode index of FLEX to use (default: the lowest)."
-        ),
-        torsional_mode: Optional[int] = typer.Option(
-            None,
-            "--torsional-mode",
-            help="Mode index of TORSION to use (default: the one in the predicted torsional window).",
-        ),
-        poisson: Optional[float] = typer.Option(
-            None,
-            "--poisson",
-            help="Poisson's ratio: used for T1 without a torsional mode; otherwise the loop's first guess.",
-        ),
-        u_poisson: Optional[float] = typer.Option(None, "--u-poisson", help="Standard uncertainty of --poisson."),
-        channel: Channel = None,
-        column: Column = None,
-        sample_rate: SampleRate = None,
-        json_out: bool = typer.Option(False, "--json", help="Print the JSON document instead of the table."),
-        csv_out: Optional[Path] = typer.Option(None, "--csv", help="Also write one row per quantity to this CSV file."),
-        report_out: Optional[Path] = typer.Option(None, "--report", help="Also write a self-contained HTML report."),
-        title: Title = None,
-        notes: Notes = None,
-        serial: Serial = None,
-        debug: bool = DEBUG_OPTION,
-    ) -> None:
-        from ..materials.moduli import CylindricalRod, RectangularBar, moduli
 
-        def run():
-            if shape not in ("bar", "rod"):
-                raise ParameterError(f"--shape must be 'bar' or 'rod'; got {shape!r}")
-            is_bar = shape == "bar"
-            L = _required("--length-mm", length_mm, shape)
-            m = _required("--mass-g", mass_g, shape)
-            spec: RectangularBar | CylindricalRod
-            if is_bar:
-                if diameter_mm is not None:
-                    raise ParameterError("--diameter-mm is for --shape rod; a bar takes --width-mm and --thickness-mm")
-                b = _required("--width-mm", width_mm, shape)
-                t = _required("--thickness-mm", thickness_mm, shape)
-                spec = RectangularBar(
-                    L * 1e-3,
-                    b * 1e-3,
-                    t * 1e-3,
-                    m * 1e-3,
-                    _nonneg("--u-length-mm", u_length_mm) * 1e-3,
-                    _nonneg("--u-width-mm", u_width_mm) * 1e-3,
-                    _nonneg("--u-thickness-mm", u_thickness_mm) * 1e-3,
-                    _nonneg("--u-mass-g", u_mass_g) * 1e-3,
-                )
-            else:
-                if width_mm is not None or thickness_mm is not None:
-                    raise ParameterError("--width-mm and --thickness-mm are for --shape bar; a rod takes --diameter-mm")
-                d = _required("--diameter-mm", diameter_mm, shape)
-                spec = CylindricalRod(
-                    L * 1e-3,
-                    d * 1e-3,
-                    m * 1e-3,
-                    _nonneg("--u-length-mm", u_length_mm) * 1e-3,
-                    _nonneg("--u-diameter-mm", u_diameter_mm) * 1e-3,
-                    _nonneg("--u-mass-g", u_mass_g) * 1e-3,
-                )
-            if (flexural_file is None) == (flexural_hz is None):
-                raise ParameterError("give the flexural recording FLEX or --flexural-hz, one of the two")
-            if torsional_file is not None and torsional_hz is not None:
-                raise ParameterError("give the torsional recording TORSION or --torsional-hz, not both")
-            flex = flexural_file if flexural_file is not None else flexural_hz
-            assert flex is not None  # one of the two, checked above
-            tors = torsional_file if torsional_file is not None else torsional_hz
-            return moduli(
-                spec,
-                flex,
-                tors,
-                flexural_hz_u=u_flexural_hz,
-                torsional_hz_u=u_torsional_hz,
-                flexural_mode=flexural_mode,
-                torsional_mode=torsional_mode,
-                poisson=poisson,
-                poisson_u=u_poisson,
-                analysis_options=reader_options(channel, column, sample_rate),
-            )
+def moduli_cmd(
+    flexural_file: Flex = None,
+    torsional_file: Torsion = None,
+    shape: Shape = "bar",
+    length_mm: LengthMm = None,
+    width_mm: WidthMm = None,
+    thickness_mm: ThicknessMm = None,
+    diameter_mm: DiameterMm = None,
+    mass_g: MassG = None,
+    u_length_mm: ULengthMm = None,
+    u_width_mm: UWidthMm = None,
+    u_thickness_mm: UThicknessMm = None,
+    u_diameter_mm: UDiameterMm = None,
+    u_mass_g: UMassG = None,
+    flexural_hz: FlexuralHz = None,
+    u_flexural_hz: UFlexuralHz = None,
+    torsional_hz: TorsionalHz = None,
+    u_torsional_hz: UTorsionalHz = None,
+    flexural_mode: FlexuralMode = None,
+    torsional_mode: TorsionalMode = None,
+    poisson: Poisson = None,
+    u_poisson: UPoisson = None,
+    channel: Channel = None,
+    column: Column = None,
+    sample_rate: SampleRate = None,
+    json_out: Json = False,
+    csv_out: CsvOut = None,
+    report_out: Report = None,
+    title: Title = None,
+    notes: Notes = None,
+    serial: Serial = None,
+    debug: Debug = False,
+) -> None:
+    from ..materials.moduli import moduli
 
-        result = guarded(run, debug=debug)
-        if json_out:
-            print_json(result.to_dict())
-        else:
-            typer.echo(format_table(result))
-        if csv_out is not None:
-            guarded(lambda: _write_csv(result, csv_out), debug=debug)
-        if report_out is not None:
-            settings = {
-                "command": "moduli",
-                "shape": shape,
-                "poisson": poisson,
-                "flexural_mode": flexural_mode,
-                "torsional_mode": torsional_mode,
-            }
-            guarded(
-                lambda: _write_report(result, report_out, settings, report_header(title, notes, serial)), debug=debug
-            )
-        raise typer.Exit(EXIT_OK)
+    def run():
+        spec = _specimen(
+            shape, length_mm, width_mm, thickness_mm, diameter_mm, mass_g,
+            u_length_mm, u_width_mm, u_thickness_mm, u_diameter_mm, u_mass_g,
+        )  # fmt: skip
+        if (flexural_file is None) == (flexural_hz is None):
+            raise ParameterError("give the flexural recording FLEX or --flexural-hz, one of the two")
+        if torsional_file is not None and torsional_hz is not None:
+            raise ParameterError("give the torsional recording TORSION or --torsional-hz, not both")
+        flex = flexural_file if flexural_file is not None else flexural_hz
+        assert flex is not None  # one of the two, checked above
+        return moduli(
+            spec,
+            flex,
+            torsional_file if torsional_file is not None else torsional_hz,
+            flexural_hz_u=u_flexural_hz,
+            torsional_hz_u=u_torsional_hz,
+            flexural_mode=flexural_mode,
+            torsional_mode=torsional_mode,
+            poisson=poisson,
+            poisson_u=u_poisson,
+            analysis_options=reader_options(channel, column, sample_rate),
+        )
+
+    result = guarded(run, debug=debug)
+    if json_out:
+        print_json(result.to_dict())
+    else:
+        typer.echo(format_table(result))
+    if csv_out is not None:
+        guarded(lambda: _write_csv(result, csv_out), debug=debug)
+    if report_out is not None:
+        settings = {
+            "command": "moduli",
+            "shape": shape,
+            "poisson": poisson,
+            "flexural_mode": flexural_mode,
+            "torsional_mode": torsional_mode,
+        }
+        guarded(lambda: _write_report(result, report_out, settings, report_header(title, notes, serial)), debug=debug)
+    raise typer.Exit(EXIT_OK)
+
+
+def _specimen(
+    shape,
+    length_mm,
+    width_mm,
+    thickness_mm,
+    diameter_mm,
+    mass_g,
+    u_length_mm,
+    u_width_mm,
+    u_thickness_mm,
+    u_diameter_mm,
+    u_mass_g,
+):
+    """The specimen in SI units from the options in mm and g (each checked: one line per problem)."""
+    from ..materials.moduli import CylindricalRod, RectangularBar
+
+    if shape not in ("bar", "rod"):
+        raise ParameterError(f"--shape must be 'bar' or 'rod'; got {shape!r}")
+    L = _required("--length-mm", length_mm, shape)
+    m = _required("--mass-g", mass_g, shape)
+    if shape == "bar":
+        if diameter_mm is not None:
+            raise ParameterError("--diameter-mm is for --shape rod; a bar takes --width-mm and --thickness-mm")
+        b = _required("--width-mm", width_mm, shape)
+        t = _required("--thickness-mm", thickness_mm, shape)
+        u_l, u_b = _nonneg("--u-length-mm", u_length_mm), _nonneg("--u-width-mm", u_width_mm)
+        u_t, u_m = _nonneg("--u-thickness-mm", u_thickness_mm), _nonneg("--u-mass-g", u_mass_g)
+        return RectangularBar(L * 1e-3, b * 1e-3, t * 1e-3, m * 1e-3, u_l * 1e-3, u_b * 1e-3, u_t * 1e-3, u_m * 1e-3)
+    if width_mm is not None or thickness_mm is not None:
+        raise ParameterError("--width-mm and --thickness-mm are for --shape bar; a rod takes --diameter-mm")
+    d = _required("--diameter-mm", diameter_mm, shape)
+    u_l, u_d = _nonneg("--u-length-mm", u_length_mm), _nonneg("--u-diameter-mm", u_diameter_mm)
+    u_m = _nonneg("--u-mass-g", u_mass_g)
+    return CylindricalRod(L * 1e-3, d * 1e-3, m * 1e-3, u_l * 1e-3, u_d * 1e-3, u_m * 1e-3)

@@ -99,11 +99,7 @@ def learn_limits(
     n = len(items)
     said = _Said()
     if n < FEW_PARTS:
-        said.warn(
-            "few_parts",
-            f"only {n} good parts: limits from fewer than {FEW_PARTS} parts are wide and "
-            "uncertain; measure more good parts",
-        )
+        said.warn("few_parts", _few_parts(n))
     f, z = _common_modes(items, tolerance, n_modes, said)
     logz = np.log(z)
     ratio = f / f[:, :1]
@@ -113,9 +109,7 @@ def learn_limits(
     ]
     maha = _mahalanobis_limits(ratio, logz, coverage, said)
 
-    settings = dict(items[0].settings or {})
-    analysis = {k2: v for k2, v in settings.items() if _toml_value_ok(v) and k2 not in READER_KEYS}
-    reader = {k2: settings[k2] for k2 in READER_KEYS if _toml_value_ok(settings.get(k2))}
+    analysis, reader = _settings_of(items[0])
     parts = tuple((Path(a.path).name if a.path else f"part_{i + 1}", a.sha256 or "") for i, a in enumerate(items))
     limits = Limits(
         modes=tuple(modes),
@@ -135,6 +129,22 @@ def learn_limits(
     )
     text = limits_to_toml(limits)
     return replace(limits, sha256=hashlib.sha256(text.encode("utf-8")).hexdigest())
+
+
+def _settings_of(first: Analysis) -> tuple[dict, dict]:
+    """(analysis options, reader options) of the first good part, as the limits file stores them
+    (only values TOML can hold); ``check`` re-analyses parts with them."""
+    settings = dict(first.settings or {})
+    analysis = {k2: v for k2, v in settings.items() if _toml_value_ok(v) and k2 not in READER_KEYS}
+    reader = {k2: settings[k2] for k2 in READER_KEYS if _toml_value_ok(settings.get(k2))}
+    return analysis, reader
+
+
+def _few_parts(n: int) -> str:
+    """The warning of limits learned from fewer than :data:`FEW_PARTS` parts."""
+    return (
+        f"only {n} good parts: limits from fewer than {FEW_PARTS} parts are wide and uncertain; measure more good parts"
+    )
 
 
 @dataclass

@@ -94,6 +94,12 @@ def _fmt(x: float) -> float:
 
 def limits_to_toml(limits: Limits) -> str:
     """The TOML text of a limits file (hand-editable; comments explain each key)."""
+    lines = _toml_check(limits) + _toml_options(limits) + _toml_modes(limits) + _toml_mahalanobis(limits)
+    return "\n".join(lines) + "\n"
+
+
+def _toml_check(limits: Limits) -> list[str]:
+    """The file's head comments and versions, and its [check] and [settings] tables."""
     L: list[str] = []
     w = L.append
     w("# ringdown acceptance limits for one part type.")
@@ -125,6 +131,13 @@ def limits_to_toml(limits: Limits) -> str:
         w('damping_model = "log(zeta) is normal"')
     if limits.notes:
         w(f"notes = {_toml_val(list(limits.notes))}")
+    return L
+
+
+def _toml_options(limits: Limits) -> list[str]:
+    """The [analysis] and [reader] tables: how the good parts were analysed and read."""
+    L: list[str] = []
+    w = L.append
     if limits.analysis:
         w("")
         w("[analysis]")
@@ -140,6 +153,13 @@ def limits_to_toml(limits: Limits) -> str:
         v = limits.reader.get(key)
         if v is not None and _toml_value_ok(v):
             w(f"{key} = {_toml_val(v)}")
+    return L
+
+
+def _toml_modes(limits: Limits) -> list[str]:
+    """The [[parts]] (name and SHA-256 of each good part) and the [[modes]] windows."""
+    L: list[str] = []
+    w = L.append
     for name, sha in limits.parts:
         w("")
         w("[[parts]]")
@@ -158,23 +178,31 @@ def limits_to_toml(limits: Limits) -> str:
             w(f"ratio = {_toml_val([_fmt(v) for v in m.ratio])}")
         if m.stats:
             w(f"stats = {{ {', '.join(f'{k} = {_toml_val(_fmt(v))}' for k, v in m.stats.items())} }}")
-    if limits.mahalanobis is not None:
-        mh = limits.mahalanobis
-        w("")
-        w("[mahalanobis]")
-        w("# distance of the drift-free features from the good parts; threshold from")
-        w("# T^2 ~ p(n+1)(n-1)/(n(n-p)) F(p, n-p) (Tracy, Young & Mason 1992). Delete this table to")
-        w("# turn the multivariate check off.")
-        w(f"features = {_toml_val(list(mh.features))}")
-        w(f"mean = {_toml_val([float(v) for v in mh.mean])}")
-        w("covariance = [")
-        for row in mh.covariance:
-            w(f"    {_toml_val([float(v) for v in row])},")
-        w("]")
-        w(f"threshold = {_toml_val(_fmt(mh.threshold))}")
-        w(f"n_parts = {int(mh.n_parts)}")
-        w(f"probability = {_toml_val(float(mh.probability))}")
-    return "\n".join(L) + "\n"
+    return L
+
+
+def _toml_mahalanobis(limits: Limits) -> list[str]:
+    """The [mahalanobis] table, when the limits have one."""
+    if limits.mahalanobis is None:
+        return []
+    L: list[str] = []
+    w = L.append
+    mh = limits.mahalanobis
+    w("")
+    w("[mahalanobis]")
+    w("# distance of the drift-free features from the good parts; threshold from")
+    w("# T^2 ~ p(n+1)(n-1)/(n(n-p)) F(p, n-p) (Tracy, Young & Mason 1992). Delete this table to")
+    w("# turn the multivariate check off.")
+    w(f"features = {_toml_val(list(mh.features))}")
+    w(f"mean = {_toml_val([float(v) for v in mh.mean])}")
+    w("covariance = [")
+    for row in mh.covariance:
+        w(f"    {_toml_val([float(v) for v in row])},")
+    w("]")
+    w(f"threshold = {_toml_val(_fmt(mh.threshold))}")
+    w(f"n_parts = {int(mh.n_parts)}")
+    w(f"probability = {_toml_val(float(mh.probability))}")
+    return L
 
 
 def _key(k: str) -> str:

@@ -3,7 +3,7 @@
 :class:`Station` takes any block source (:mod:`ringdown.io.blocks`): the sound card through
 :class:`ringdown.io.device.DeviceBlocks` (sounddevice, PortAudio; imported only when used), or a
 recording replayed at real time or faster (:class:`ringdown.io.blocks.Paced`, ``ringdown listen
---replay``). The block engine (:class:`ringdown.analysis.engine.Segmenter`, one tap per segment) cuts the stream after each tap,
+--replay``). The block engine (:class:`ringdown.analysis.segmenter.Segmenter`, one tap per segment) cuts the stream after each tap,
 when its level is back at the noise, or just before the next tap. For each tap the station
 
 1. takes the next part id (:class:`PartIds`: a pattern with a counter, or a prompt);
@@ -29,8 +29,8 @@ from pathlib import Path
 
 import numpy as np
 
-from ..analysis.engine import Segment, Segmenter
 from ..analysis.results import Analysis, Notice
+from ..analysis.segmenter import Segment, Segmenter
 from ..base.clock import utc_now
 from ..base.errors import InputError, ParameterError
 

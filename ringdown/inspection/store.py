@@ -122,10 +122,10 @@ SCHEMA_VERSION = len(MIGRATIONS)
 
 
 def file_sha256(path: str | os.PathLike) -> str | None:
-    """SHA-256 (hex) of a regular file's bytes (:func:`ringdown.io.read.sha256_file`), or ``None``
+    """SHA-256 (hex) of a regular file's bytes (:func:`ringdown.io.files.sha256_file`), or ``None``
     when it cannot be read or is not a regular file (a FIFO or a device is never read: it could
     block or never end)."""
-    from ..io.read import sha256_file
+    from ..io.files import sha256_file
 
     try:
         return sha256_file(os.fspath(path))

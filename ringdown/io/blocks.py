@@ -117,22 +117,23 @@ class SoundFileBlocks:
         start: int = 0,
         stop: int | None = None,
     ) -> None:
-        from . import read as _io
+        from . import files as _files
+        from . import sound as _sound
 
         name = os.fspath(path)
-        info, reason = _io._sound_info(name)
+        info, reason = _sound.sound_info(name)
         if info is None:
             raise InputError(f"{name!r} cannot be read as a sound file ({reason})")
         n_channels = int(info.channels)
-        choice = _io._selection(channel, None, name)
-        index = 1 if choice is None else _io._parse_index(choice)
+        choice = _files._selection(channel, None, name)
+        index = 1 if choice is None else _files._parse_index(choice)
         if index is None or not 1 <= index <= n_channels:
             raise ParameterError(
                 f"channel {choice!r} is out of range: {name!r} has {n_channels} "
                 f"channel{'s' if n_channels != 1 else ''}; pick 1 to {n_channels}"
             )
         rate = float(info.samplerate)
-        if sample_rate is not None and not math.isclose(float(sample_rate), rate, rel_tol=_io._RATE_RTOL):
+        if sample_rate is not None and not math.isclose(float(sample_rate), rate, rel_tol=_files._RATE_RTOL):
             raise ParameterError(
                 f"sample rate {float(sample_rate):g} Hz given, but {name!r} states {rate:g} Hz; "
                 "drop the sample rate option (the file's own rate is used)"
@@ -143,21 +144,21 @@ class SoundFileBlocks:
         self.sample_rate = rate
         self.channel = str(index)
         self.n_channels = n_channels
-        self.full_scale = _io._full_scale(str(info.subtype))
+        self.full_scale = _sound._full_scale(str(info.subtype))
         self.start = max(0, int(start))
         self.stop = frames if stop is None else min(frames, int(stop))
         self.total_samples = max(0, self.stop - self.start)
         self.block_samples = _check_block(block_samples)
         self.dropped_blocks = 0
         self._index = index
-        self.notes = _io._wav_truncation(name, frames) if str(info.format).upper().startswith("WAV") else ()
+        self.notes = _sound._wav_truncation(name, frames) if str(info.format).upper().startswith("WAV") else ()
         self._sha256: str | None = None
 
     @property
     def sha256(self) -> str:
         """SHA-256 of the file's bytes (read in 1 MiB chunks, on first use)."""
         if self._sha256 is None:
-            from .read import sha256_file
+            from .files import sha256_file
 
             self._sha256 = sha256_file(self.path)
         return self._sha256

@@ -94,11 +94,13 @@ from __future__ import annotations
 import math
 import os
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any, ClassVar
 
 from ..analysis.results import Analysis, Mode, Notice
 from ..base.errors import InputError, ParameterError
+from .relations import _MAX_ITER, LAMBDA_1, LAMBDA_2, POISSON_RANGE, _e_of, _f_torsion, _solve, r_bar, t1_bar, t1_rod
+from .results import BudgetTerm, ModeUsed, ModuliResult
 
 __all__ = [
     "RectangularBar",
@@ -112,14 +114,6 @@ __all__ = [
     "r_bar",
     "budget_rows",
 ]
-
-#: Roots of cos x cosh x = 1 (free-free Euler-Bernoulli beam; Blevins 1979).
-LAMBDA_1 = 4.73004074
-LAMBDA_2 = 7.85320462
-#: Range of Poisson's ratio of isotropic solids used for the predictions.
-POISSON_RANGE = (0.0, 0.5)
-_MAX_ITER = 100
-
 
 # --------------------------------------------------------------------------------------------
 # specimens
@@ -222,286 +216,6 @@ class CylindricalRod(_Specimen):
     shape: ClassVar[str] = "rod"
 
     _inputs: ClassVar[tuple[str, ...]] = ("length_m", "diameter_m", "mass_kg")
-
-
-# --------------------------------------------------------------------------------------------
-# the standard's relations (pure functions, SI)
-# --------------------------------------------------------------------------------------------
-
-
-def t1_bar(poisson: float, t_over_l: float) -> float:
-    """ASTM E1876 flexural correction factor T1 of a rectangular bar (shear and rotary inertia).
-
-    Parameters
-    ----------
-    poisson : float
-        Poisson's ratio.
-    t_over_l : float, > 0
-        Thickness over length.
-    """
-    mu, r2 = poisson, t_over_l**2
-    return (
-        1.0
-        + 6.585 * (1.0 + 0.0752 * mu + 0.8109 * mu**2) * r2
-        - 0.868 * r2**2
-        - 8.340 * (1.0 + 0.2023 * mu + 2.173 * mu**2) * r2**2 / (1.0 + 6.338 * (1.0 + 0.1408 * mu + 1.536 * mu**2) * r2)
-    )
-
-
-def t1_rod(poisson: float, d_over_l: float) -> float:
-    """ASTM E1876 flexural correction factor T1' of a cylindrical rod."""
-    mu, r2 = poisson, d_over_l**2
-    return (
-        1.0
-        + 4.939 * (1.0 + 0.0752 * mu + 0.8109 * mu**2) * r2
-        - 0.4883 * r2**2
-        - 4.691 * (1.0 + 0.2023 * mu + 2.173 * mu**2) * r2**2 / (1.0 + 4.754 * (1.0 + 0.1408 * mu + 1.536 * mu**2) * r2)
-    )
-
-
-def r_bar(width_m: float, thickness_m: float, length_m: float) -> float:
-    """ASTM E1876 torsional factor R of a rectangular bar.
-
-    The relation is written for width >= thickness (Saint-Venant's constant belongs to the long
-    side); a bar given with width < thickness is evaluated with the two swapped, since torsion
-    does not depend on which side is called the width.
-    """
-    b, t = max(width_m, thickness_m), min(width_m, thickness_m)
-    bt = b / t
-    first = (1.0 + bt**2) / (4.0 - 2.521 * (t / b) * (1.0 - 1.991 / (math.exp(min(math.pi * bt, 700.0)) + 1.0)))
-    return first * (1.0 + 0.00851 * (b / length_m) ** 2) - 0.060 * (b / length_m) ** 1.5 * (bt - 1.0) ** 2
-
-
-def _density(spec, x: dict) -> float:
-    if spec.shape == "bar":
-        return x["mass_kg"] / (x["length_m"] * x["width_m"] * x["thickness_m"])
-    return 4.0 * x["mass_kg"] / (math.pi * x["diameter_m"] ** 2 * x["length_m"])
-
-
-def _e_of(spec, x: dict, f: float, mu: float) -> tuple[float, float]:
-    """(E in Pa, T1) from flexural frequency ``f`` at Poisson's ratio ``mu``."""
-    L, m = x["length_m"], x["mass_kg"]
-    if spec.shape == "bar":
-        b, t = x["width_m"], x["thickness_m"]
-        t1 = t1_bar(mu, t / L)
-        return 0.9465 * (m * f**2 / b) * (L / t) ** 3 * t1, t1
-    d = x["diameter_m"]
-    t1 = t1_rod(mu, d / L)
-    return 1.6067 * (L**3 / d**4) * m * f**2 * t1, t1
-
-
-def _g_of(spec, x: dict, f: float) -> tuple[float, float | None]:
-    """(G in Pa, R or None) from torsional frequency ``f``."""
-    L, m = x["length_m"], x["mass_kg"]
-    if spec.shape == "bar":
-        b, t = x["width_m"], x["thickness_m"]
-        r = r_bar(b, t, L)
-        return 4.0 * L * m * f**2 / (b * t) * r, r
-    return 16.0 * m * f**2 * L / (math.pi * x["diameter_m"] ** 2), None
-
-
-def _f_torsion(spec, x: dict, g_pa: float) -> float:
-    """Inverse of :func:`_g_of`: torsional frequency of shear modulus ``g_pa``, Hz."""
-    g1, _ = _g_of(spec, x, 1.0)
-    return math.sqrt(g_pa / g1)
-
-
-def _solve(spec, x: dict, guess: float) -> dict:
-    """E, G, mu, density, T1, R and the iterations, from inputs ``x`` (SI; ``f_flex_hz``, ``f_tors_hz``)."""
-    rho = _density(spec, x)
-    if x.get("f_tors_hz") is None:
-        mu = x["poisson"]
-        e, t1 = _e_of(spec, x, x["f_flex_hz"], mu)
-        return {"e": e, "g": None, "mu": mu, "rho": rho, "t1": t1, "r": None, "iterations": 0}
-    g, r = _g_of(spec, x, x["f_tors_hz"])
-    # T1 is evaluated with mu kept inside (-1, 0.5], the range of isotropic solids: a wrong mode
-    # assignment can give mu far outside it, where mu -> E(T1(mu)) / 2G - 1 would run away
-    clip = lambda v: min(max(v, -0.99), POISSON_RANGE[1])  # noqa: E731
-    mu = guess
-    for k in range(1, _MAX_ITER + 1):  # noqa: B007 (k is reported after the loop)
-        e, t1 = _e_of(spec, x, x["f_flex_hz"], clip(mu))
-        new = e / (2.0 * g) - 1.0
-        if abs(new - mu) <= 1e-12 * max(1.0, abs(mu)):
-            mu = new
-            break
-        mu = new
-    else:
-        k = _MAX_ITER
-    e, t1 = _e_of(spec, x, x["f_flex_hz"], clip(mu))
-    return {"e": e, "g": g, "mu": e / (2.0 * g) - 1.0, "rho": rho, "t1": t1, "r": r, "iterations": k}
-
-
-# --------------------------------------------------------------------------------------------
-# results
-# --------------------------------------------------------------------------------------------
-
-
-@dataclass(frozen=True, slots=True)
-class ModeUsed:
-    """One measured mode the moduli were computed from.
-
-    Attributes
-    ----------
-    role : {"flexural", "torsional"}
-    f_hz, f_hz_u : float, float
-        Frequency used (the natural frequency f_n of an analysed mode) and its standard uncertainty, Hz.
-    loss_factor, loss_factor_u : float or None
-        Loss factor eta = 1/Q of the mode (None for a frequency given by hand).
-    source : str or None
-        File the mode came from.
-    mode_index : int or None
-        Index of the mode in that file's analysis.
-    rule : str
-        How the mode was chosen: ``lowest``, ``window`` or ``given``, in words.
-    predicted_hz, predicted_low_hz, predicted_high_hz : float or None
-        Prediction of this mode from the other one (torsional only), Hz.
-    """
-
-    role: str
-    f_hz: float
-    f_hz_u: float
-    loss_factor: float | None
-    loss_factor_u: float | None
-    source: str | None
-    mode_index: int | None
-    rule: str
-    predicted_hz: float | None = None
-    predicted_low_hz: float | None = None
-    predicted_high_hz: float | None = None
-
-    def to_dict(self) -> dict:
-        return {
-            "role": self.role,
-            "f_hz": self.f_hz,
-            "f_hz_u": self.f_hz_u,
-            "loss_factor": self.loss_factor,
-            "loss_factor_u": self.loss_factor_u,
-            "source": self.source,
-            "mode_index": self.mode_index,
-            "rule": self.rule,
-            "predicted_hz": self.predicted_hz,
-            "predicted_low_hz": self.predicted_low_hz,
-            "predicted_high_hz": self.predicted_high_hz,
-        }
-
-
-@dataclass(frozen=True, slots=True)
-class BudgetTerm:
-    """One line of an uncertainty budget (GUM 5.1.3): input ``input`` acting on ``quantity``.
-
-    ``contribution`` = |sensitivity| * input_u, in the unit of the quantity; ``share`` its fraction
-    of the quantity's variance.
-    """
-
-    quantity: str
-    input: str
-    input_value: float
-    input_u: float
-    sensitivity: float
-    contribution: float
-    share: float
-
-    def to_dict(self) -> dict:
-        return {
-            "quantity": self.quantity,
-            "input": self.input,
-            "input_value": self.input_value,
-            "input_u": self.input_u,
-            "sensitivity": self.sensitivity,
-            "contribution": self.contribution,
-            "share": self.share,
-        }
-
-
-_QUANTITIES = ("e_pa", "g_pa", "poisson", "density_kg_per_m3")
-
-
-@dataclass(frozen=True, slots=True, eq=False)
-class ModuliResult:
-    """Dynamic elastic moduli of one specimen, with standard uncertainties (k = 1).
-
-    Attributes
-    ----------
-    shape : {"bar", "rod"}
-    specimen : dict
-        The specimen's dimensions and mass with their uncertainties, SI.
-    e_pa, e_pa_u : float
-        Dynamic Young's modulus, Pa.
-    g_pa, g_pa_u : float or None
-        Dynamic shear modulus, Pa (None without a torsional mode).
-    poisson, poisson_u : float
-        Poisson's ratio; measured from E and G, else the value given or assumed.
-    poisson_source : {"measured", "given", "assumed"}
-    density_kg_per_m3, density_kg_per_m3_u : float
-    t1 : float
-        Flexural correction factor used (T1 or T1').
-    r_factor : float or None
-        Torsional factor R of a bar (None for a rod or without torsion).
-    iterations : int
-        Fixed-point iterations of the Poisson's-ratio loop (0 without torsion).
-    flexural, torsional : ModeUsed, ModeUsed or None
-    predictions : tuple of dict
-        Predicted windows of the modes, each ``{mode, f_hz, low_hz, high_hz, found_hz}``.
-    budget : tuple of BudgetTerm
-    warnings : tuple of Notice
-    analyses : tuple of Analysis
-        The analyses the modes came from (for reports; not serialised).
-    """
-
-    shape: str
-    specimen: dict
-    e_pa: float
-    e_pa_u: float
-    g_pa: float | None
-    g_pa_u: float | None
-    poisson: float
-    poisson_u: float
-    poisson_source: str
-    density_kg_per_m3: float
-    density_kg_per_m3_u: float
-    t1: float
-    r_factor: float | None
-    iterations: int
-    flexural: ModeUsed
-    torsional: ModeUsed | None
-    predictions: tuple[dict, ...] = ()
-    budget: tuple[BudgetTerm, ...] = ()
-    warnings: tuple[Notice, ...] = ()
-    analyses: tuple[Analysis, ...] = field(default=(), repr=False)
-
-    def dominant(self, quantity: str) -> str | None:
-        """Name of the input with the largest share of ``quantity``'s variance (None if no budget)."""
-        terms = [b for b in self.budget if b.quantity == quantity and b.share > 0]
-        return max(terms, key=lambda b: b.share).input if terms else None
-
-    @property
-    def warning_codes(self) -> tuple[str, ...]:
-        return tuple(w.code for w in self.warnings)
-
-    def to_dict(self) -> dict:
-        return {
-            "shape": self.shape,
-            "specimen": dict(self.specimen),
-            "e_pa": self.e_pa,
-            "e_pa_u": self.e_pa_u,
-            "g_pa": self.g_pa,
-            "g_pa_u": self.g_pa_u,
-            "poisson": self.poisson,
-            "poisson_u": self.poisson_u,
-            "poisson_source": self.poisson_source,
-            "density_kg_per_m3": self.density_kg_per_m3,
-            "density_kg_per_m3_u": self.density_kg_per_m3_u,
-            "t1": self.t1,
-            "r_factor": self.r_factor,
-            "iterations": self.iterations,
-            "flexural": self.flexural.to_dict(),
-            "torsional": None if self.torsional is None else self.torsional.to_dict(),
-            "predictions": [dict(p) for p in self.predictions],
-            "budget": [b.to_dict() for b in self.budget],
-            "dominant": {q: self.dominant(q) for q in _QUANTITIES},
-            "warnings": [w.to_dict() for w in self.warnings],
-            "method": "ASTM E1876 (rectangular bar / cylindrical rod), GUM first-order propagation",
-        }
 
 
 # --------------------------------------------------------------------------------------------
@@ -730,161 +444,262 @@ def moduli(
     InputError
         For a recording that cannot be analysed or holds no mode.
     """
+    _check_arguments(specimen, poisson, poisson_guess)
+    opts = dict(analysis_options or {})
+    warnings: list[Notice] = []
+    flex = _choose_flexural(flexural, flexural_hz_u, flexural_mode, opts)
+    fc = flex.mode
+    assert fc is not None  # the flexural choice always finds a mode (or raises)
+    x, u = _inputs(specimen, fc)
+    mu_guess = float(poisson if poisson is not None else poisson_guess)
+    preds = _predictions(specimen, x, fc.f_hz, mu_guess, fc.f_hz_u / fc.f_hz)
+    # the second flexural mode, when the flexural record has it, confirms the choice
+    second = [c.f_hz for c in flex.cands if c is not fc and _inside(c.f_hz, preds["flexural_2"])]
+    preds["flexural_2"]["found_hz"] = second[0] if second else preds["flexural_2"]["found_hz"]
+    tors = None
+    if torsional is not None:
+        tors = _choose_torsional(torsional, torsional_hz_u, torsional_mode, opts, flex, preds, mu_guess, warnings)
+    if tors is not None and tors.mode is not None:
+        mu_src = "measured"
+        x["f_tors_hz"], u["f_tors_hz"] = tors.mode.f_hz, tors.mode.f_hz_u
+    else:
+        if torsional is None and flex.analysis is not None:
+            warnings += _torsional_in_flexural_record(flex.cands, fc, preds["torsional_1"])
+        x["f_tors_hz"] = None
+        mu_src, x["poisson"], u["poisson"] = _poisson_without_torsion(poisson, poisson_u, poisson_guess, warnings)
+    y, uy, budget = _propagate(lambda xx: _solve(specimen, xx, mu_guess), x, u)
+    warnings += _condition_warnings(specimen, y, mu_src, u)
+    return _result(specimen, (y, uy, u, mu_src, budget), flex, tors, preds, warnings)
+
+
+def _inputs(specimen: RectangularBar | CylindricalRod, fc: _Candidate) -> tuple[dict[str, Any], dict[str, float]]:
+    """(values, standard uncertainties) of the inputs by name, SI: the specimen's and the flexural frequency."""
+    x: dict[str, Any] = {k: v for k, (v, _) in specimen.inputs().items()}
+    u: dict[str, float] = {k: ui for k, (_, ui) in specimen.inputs().items()}
+    x["f_flex_hz"], u["f_flex_hz"] = fc.f_hz, fc.f_hz_u
+    return x, u
+
+
+@dataclass(frozen=True)
+class _Choice:
+    """The mode chosen from one input (None when none fits), the rule that chose it, the input's
+    candidate modes and its analysis (None for a frequency given by hand)."""
+
+    mode: _Candidate | None
+    rule: str | None
+    cands: list[_Candidate]
+    analysis: Analysis | None
+
+
+def _choose_flexural(value: FrequencySource, u_given: float | None, index: int | None, opts: dict) -> _Choice:
+    """The flexural mode and the rule that chose it: the user's, else the record's lowest mode."""
+    cands, given, an = _candidates(value, "flexural", u_given, opts)
+    fc, rule = _users_choice(cands, given, index, "flexural")
+    if fc is None:
+        fc = min(cands, key=lambda c: c.f_hz)
+        rule = "lowest: the lowest mode of the flexural record is the fundamental flexural mode"
+    return _Choice(fc, rule, cands, an)
+
+
+def _choose_torsional(
+    value: FrequencySource,
+    u_given: float | None,
+    index: int | None,
+    opts: dict,
+    flex: _Choice,
+    preds: dict,
+    mu_guess: float,
+    warnings: list[Notice],
+) -> _Choice:
+    """The torsional mode: the user's, else the one in its predicted window (not the flexural mode
+    when both come from one record); warnings on the choice appended, the window marked found."""
+    cands, given, an = _candidates(value, "torsional", u_given, opts)
+    tc, rule = _users_choice(cands, given, index, "torsional")
+    if tc is None:
+        others = [c for c in cands if not (an is flex.analysis and c is flex.mode)]
+        tc, rule = _torsional_in_window(cands, others, preds["torsional_1"], mu_guess, warnings)
+    if tc is not None:
+        warnings += _torsional_checks(tc, cands, preds)
+    return _Choice(tc, rule, cands, an)
+
+
+def _result(
+    specimen: RectangularBar | CylindricalRod,
+    solved: tuple[dict, dict, dict, str, list[BudgetTerm]],
+    flex: _Choice,
+    tors: _Choice | None,
+    preds: dict,
+    warnings: list[Notice],
+) -> ModuliResult:
+    """The result from the solution ``solved`` = (values, their uncertainties, the inputs'
+    uncertainties, the source of Poisson's ratio, the budget) and the modes chosen."""
+    y, uy, u, mu_src, budget = solved
+    assert flex.mode is not None and flex.rule is not None
+    return ModuliResult(
+        shape=specimen.shape,
+        specimen=specimen.to_dict(),
+        e_pa=y["e"],
+        e_pa_u=uy["e_pa"],
+        g_pa=y["g"],
+        g_pa_u=uy["g_pa"],
+        poisson=y["mu"],
+        poisson_u=uy["poisson"] if mu_src == "measured" else u["poisson"],
+        poisson_source=mu_src,
+        density_kg_per_m3=y["rho"],
+        density_kg_per_m3_u=uy["density_kg_per_m3"],
+        t1=y["t1"],
+        r_factor=y["r"],
+        iterations=y["iterations"],
+        flexural=_mode_used(flex.mode, "flexural", flex.rule, None),
+        torsional=None
+        if tors is None or tors.mode is None
+        else _mode_used(tors.mode, "torsional", tors.rule or "", preds["torsional_1"]),
+        predictions=tuple(preds.values()),
+        budget=tuple(budget),
+        warnings=tuple(warnings),
+        analyses=tuple(c.analysis for c in (flex, tors) if c is not None and c.analysis is not None),
+    )
+
+
+def _check_arguments(specimen: object, poisson: float | None, poisson_guess: float) -> None:
+    """Refuse (ParameterError) a specimen of another type and a Poisson's ratio outside (-1, 0.5]."""
     if not isinstance(specimen, (RectangularBar, CylindricalRod)):
         raise ParameterError(f"specimen must be a RectangularBar or CylindricalRod; got {type(specimen).__name__}")
     for name, v in (("poisson", poisson), ("poisson_guess", poisson_guess)):
         if v is not None and not (math.isfinite(float(v)) and -1.0 < float(v) <= 0.5):
             raise ParameterError(f"{name} must lie in (-1, 0.5] (isotropic solids); got {v!r}")
-    opts = dict(analysis_options or {})
-    warnings: list[Notice] = []
-    analyses: list[Analysis] = []
 
-    f_cands, f_given, f_an = _candidates(flexural, "flexural", flexural_hz_u, opts)
-    if f_an is not None:
-        analyses.append(f_an)
-    fc, f_rule = _users_choice(f_cands, f_given, flexural_mode, "flexural")
-    if fc is None:
-        fc = min(f_cands, key=lambda c: c.f_hz)
-        f_rule = "lowest: the lowest mode of the flexural record is the fundamental flexural mode"
 
-    x: dict[str, Any] = {k: v for k, (v, _) in specimen.inputs().items()}
-    u: dict[str, float] = {k: ui for k, (_, ui) in specimen.inputs().items()}
-    x["f_flex_hz"], u["f_flex_hz"] = fc.f_hz, fc.f_hz_u
-    mu_guess = float(poisson if poisson is not None else poisson_guess)
-    rel_u = fc.f_hz_u / fc.f_hz
-    preds = _predictions(specimen, x, fc.f_hz, mu_guess, rel_u)
+def _torsional_in_window(
+    cands: list[_Candidate], others: list[_Candidate], w: dict, mu_guess: float, warnings: list[Notice]
+) -> tuple[_Candidate | None, str | None]:
+    """The torsional mode among ``others`` (the candidates that are not the flexural mode) inside
+    the predicted window ``w``, nearest its prediction, and the rule; warnings appended."""
+    inside = [c for c in others if _inside(c.f_hz, w)]
+    if not inside:
+        have = ", ".join(f"{c.f_hz:.6g}" for c in cands)
+        warnings.append(
+            Notice(
+                "no_torsional_mode",
+                (
+                    f"no mode of the torsional record ({have} Hz) lies where the first torsional mode must be "
+                    f"for 0 <= Poisson's ratio <= 0.5 ({w['low_hz']:.6g}-{w['high_hz']:.6g} Hz); G not measured. "
+                    "Check the set-up (tap off the axis at a corner) or name the mode"
+                ),
+            )
+        )
+        return None, None
+    tc = min(inside, key=lambda c: abs(math.log(c.f_hz / w["f_hz"])))
+    rule = (
+        f"window: the mode inside the window predicted for the first torsional mode from E and "
+        f"0 <= Poisson's ratio <= 0.5 ({w['low_hz']:.6g}-{w['high_hz']:.6g} Hz)"
+    )
+    if len(inside) > 1:
+        warnings.append(
+            Notice(
+                "several_torsional_candidates",
+                (
+                    "several modes lie in the torsional window ("
+                    + ", ".join(f"{c.f_hz:.6g}" for c in inside)
+                    + f" Hz); took the one nearest the prediction at Poisson's ratio {mu_guess:g} "
+                    f"({w['f_hz']:.6g} Hz); name the mode to choose another"
+                ),
+            )
+        )
+    return tc, rule
 
-    # the second flexural mode, when the flexural record has it, confirms the choice
-    for c in f_cands:
-        if c is not fc and _inside(c.f_hz, preds["flexural_2"]):
-            preds["flexural_2"]["found_hz"] = c.f_hz
-            break
 
-    tc = None
-    t_rule = None
-    t_an = None
-    if torsional is not None:
-        t_cands, t_given, t_an = _candidates(torsional, "torsional", torsional_hz_u, opts)
-        if t_an is not None:
-            analyses.append(t_an)
-        w = preds["torsional_1"]
-        tc, t_rule = _users_choice(t_cands, t_given, torsional_mode, "torsional")
-        if tc is None:
-            inside = [c for c in t_cands if _inside(c.f_hz, w)]
-            if t_an is f_an:
-                inside = [c for c in inside if c is not fc]
-            if not inside:
-                have = ", ".join(f"{c.f_hz:.6g}" for c in t_cands)
-                warnings.append(
-                    Notice(
-                        "no_torsional_mode",
-                        (
-                            f"no mode of the torsional record ({have} Hz) lies where the first torsional mode must be "
-                            f"for 0 <= Poisson's ratio <= 0.5 ({w['low_hz']:.6g}-{w['high_hz']:.6g} Hz); G not measured. "
-                            "Check the set-up (tap off the axis at a corner) or name the mode"
-                        ),
-                    )
-                )
-            else:
-                tc = min(inside, key=lambda c: abs(math.log(c.f_hz / w["f_hz"])))
-                t_rule = (
-                    f"window: the mode inside the window predicted for the first torsional mode from E and "
-                    f"0 <= Poisson's ratio <= 0.5 ({w['low_hz']:.6g}-{w['high_hz']:.6g} Hz)"
-                )
-                if len(inside) > 1:
-                    warnings.append(
-                        Notice(
-                            "several_torsional_candidates",
-                            (
-                                "several modes lie in the torsional window ("
-                                + ", ".join(f"{c.f_hz:.6g}" for c in inside)
-                                + f" Hz); took the one nearest the prediction at Poisson's ratio {mu_guess:g} "
-                                f"({w['f_hz']:.6g} Hz); name the mode to choose another"
-                            ),
-                        )
-                    )
-        if tc is not None:
-            if not _inside(tc.f_hz, w):
-                warnings.append(
-                    Notice(
-                        "torsional_outside_prediction",
-                        (
-                            f"the torsional frequency {tc.f_hz:.6g} Hz lies outside the window that 0 <= Poisson's ratio "
-                            f"<= 0.5 allows ({w['low_hz']:.6g}-{w['high_hz']:.6g} Hz): check which mode it is"
-                        ),
-                    )
-                )
-            w["found_hz"] = tc.f_hz
-            for name in ("flexural_2", "flexural_in_plane_1"):
-                p = preds.get(name)
-                if p is not None and _inside(tc.f_hz, p):
-                    warnings.append(
-                        Notice(
-                            "assignment_ambiguous",
-                            (
-                                f"the torsional mode at {tc.f_hz:.6g} Hz also lies where the {name.replace('_', ' ')} mode "
-                                f"is predicted ({p['low_hz']:.6g}-{p['high_hz']:.6g} Hz); confirm it by tapping for torsion "
-                                "and for bending separately"
-                            ),
-                        )
-                    )
-            # a neighbour within the modes' half-power bandwidths cannot be told apart
-            for c in t_cands:
-                if c is tc or c.loss_factor is None or tc.loss_factor is None:
-                    continue
-                if abs(c.f_hz - tc.f_hz) < c.loss_factor * c.f_hz + tc.loss_factor * tc.f_hz:
-                    warnings.append(
-                        Notice(
-                            "modes_close",
-                            (
-                                f"modes at {tc.f_hz:.6g} and {c.f_hz:.6g} Hz overlap within their half-power bandwidths; "
-                                "they cannot be told apart reliably"
-                            ),
-                        )
-                    )
-            x["f_tors_hz"], u["f_tors_hz"] = tc.f_hz, tc.f_hz_u
-
-    if tc is None and torsional is None and f_an is not None:
-        w = preds["torsional_1"]
-        seen = [c for c in f_cands if c is not fc and _inside(c.f_hz, w)]
-        if seen:
+def _torsional_checks(tc: _Candidate, cands: list[_Candidate], preds: dict) -> list[Notice]:
+    """Warnings on the chosen torsional mode ``tc`` (outside its window, where another mode is
+    predicted, too close to a neighbour); marks it found in ``preds["torsional_1"]``."""
+    warnings = []
+    w = preds["torsional_1"]
+    if not _inside(tc.f_hz, w):
+        warnings.append(
+            Notice(
+                "torsional_outside_prediction",
+                (
+                    f"the torsional frequency {tc.f_hz:.6g} Hz lies outside the window that 0 <= Poisson's ratio "
+                    f"<= 0.5 allows ({w['low_hz']:.6g}-{w['high_hz']:.6g} Hz): check which mode it is"
+                ),
+            )
+        )
+    w["found_hz"] = tc.f_hz
+    for name in ("flexural_2", "flexural_in_plane_1"):
+        p = preds.get(name)
+        if p is not None and _inside(tc.f_hz, p):
             warnings.append(
                 Notice(
-                    "torsional_in_flexural_record",
+                    "assignment_ambiguous",
                     (
-                        f"the flexural record has a mode at {seen[0].f_hz:.6g} Hz inside the torsional window "
-                        f"({w['low_hz']:.6g}-{w['high_hz']:.6g} Hz); give the same recording as the torsional one too "
-                        "to use it for G"
+                        f"the torsional mode at {tc.f_hz:.6g} Hz also lies where the {name.replace('_', ' ')} mode "
+                        f"is predicted ({p['low_hz']:.6g}-{p['high_hz']:.6g} Hz); confirm it by tapping for torsion "
+                        "and for bending separately"
                     ),
                 )
             )
-    if tc is None:
-        x["f_tors_hz"] = None
-        if poisson is None:
-            mu_src, mu_val = "assumed", poisson_guess
-            mu_u = (POISSON_RANGE[1] - POISSON_RANGE[0]) / math.sqrt(12.0) if poisson_u is None else poisson_u
+    # a neighbour within the modes' half-power bandwidths cannot be told apart
+    for c in cands:
+        if c is tc or c.loss_factor is None or tc.loss_factor is None:
+            continue
+        if abs(c.f_hz - tc.f_hz) < c.loss_factor * c.f_hz + tc.loss_factor * tc.f_hz:
             warnings.append(
                 Notice(
-                    "poisson_assumed",
+                    "modes_close",
                     (
-                        f"no torsional mode: Poisson's ratio assumed {mu_val:g} ± {mu_u:.2g} (uniform over 0-0.5 unless "
-                        "given) for the T1 correction; G not measured"
+                        f"modes at {tc.f_hz:.6g} and {c.f_hz:.6g} Hz overlap within their half-power bandwidths; "
+                        "they cannot be told apart reliably"
                     ),
                 )
             )
-        else:
-            mu_src, mu_val = "given", float(poisson)
-            mu_u = 0.0 if poisson_u is None else _check_u("uncertainty of Poisson's ratio", poisson_u)
-        x["poisson"], u["poisson"] = mu_val, mu_u
-    else:
-        mu_src = "measured"
+    return warnings
 
-    def fun(xx: dict) -> dict:
-        return _solve(specimen, xx, mu_guess)
 
-    y, uy, budget = _propagate(fun, x, u)
+def _torsional_in_flexural_record(f_cands: list[_Candidate], fc: _Candidate, w: dict) -> list[Notice]:
+    """A hint when the flexural record, given alone, also holds a mode in the torsional window ``w``."""
+    seen = [c for c in f_cands if c is not fc and _inside(c.f_hz, w)]
+    if not seen:
+        return []
+    return [
+        Notice(
+            "torsional_in_flexural_record",
+            (
+                f"the flexural record has a mode at {seen[0].f_hz:.6g} Hz inside the torsional window "
+                f"({w['low_hz']:.6g}-{w['high_hz']:.6g} Hz); give the same recording as the torsional one too "
+                "to use it for G"
+            ),
+        )
+    ]
 
-    # conditions of the standard and of this implementation
+
+def _poisson_without_torsion(
+    poisson: float | None, poisson_u: float | None, poisson_guess: float, warnings: list[Notice]
+) -> tuple[str, float, float]:
+    """(source, value, standard uncertainty) of Poisson's ratio without a torsional mode: given,
+    else assumed (uniform over 0-0.5 unless ``poisson_u``; a warning appended)."""
+    if poisson is not None:
+        mu_u = 0.0 if poisson_u is None else _check_u("uncertainty of Poisson's ratio", poisson_u)
+        return "given", float(poisson), mu_u
+    mu_val = poisson_guess
+    mu_u = (POISSON_RANGE[1] - POISSON_RANGE[0]) / math.sqrt(12.0) if poisson_u is None else poisson_u
+    warnings.append(
+        Notice(
+            "poisson_assumed",
+            (
+                f"no torsional mode: Poisson's ratio assumed {mu_val:g} ± {mu_u:.2g} (uniform over 0-0.5 unless "
+                "given) for the T1 correction; G not measured"
+            ),
+        )
+    )
+    return "assumed", mu_val, mu_u
+
+
+def _condition_warnings(
+    specimen: RectangularBar | CylindricalRod, y: dict, mu_src: str, u: dict[str, float]
+) -> list[Notice]:
+    """Warnings on the conditions of the standard and of this implementation: slenderness, aspect
+    ratio, a measured Poisson's ratio outside 0-0.5, the loop's convergence, missing uncertainties."""
+    warnings = []
     L = specimen.length_m
     h = specimen.thickness_m if isinstance(specimen, RectangularBar) else specimen.diameter_m
     if L / h < 5.0:
@@ -933,43 +748,23 @@ def moduli(
                 ),
             )
         )
+    return warnings
 
-    def used(c: _Candidate, role: str, rule: str, pred: dict | None) -> ModeUsed:
-        return ModeUsed(
-            role,
-            c.f_hz,
-            c.f_hz_u,
-            c.loss_factor,
-            c.loss_factor_u,
-            c.source,
-            c.mode_index,
-            rule,
-            None if pred is None else pred["f_hz"],
-            None if pred is None else pred["low_hz"],
-            None if pred is None else pred["high_hz"],
-        )
 
-    return ModuliResult(
-        shape=specimen.shape,
-        specimen=specimen.to_dict(),
-        e_pa=y["e"],
-        e_pa_u=uy["e_pa"],
-        g_pa=y["g"],
-        g_pa_u=uy["g_pa"],
-        poisson=y["mu"],
-        poisson_u=uy["poisson"] if mu_src == "measured" else u["poisson"],
-        poisson_source=mu_src,
-        density_kg_per_m3=y["rho"],
-        density_kg_per_m3_u=uy["density_kg_per_m3"],
-        t1=y["t1"],
-        r_factor=y["r"],
-        iterations=y["iterations"],
-        flexural=used(fc, "flexural", f_rule, None),
-        torsional=None if tc is None else used(tc, "torsional", t_rule or "", preds["torsional_1"]),
-        predictions=tuple(preds.values()),
-        budget=tuple(budget),
-        warnings=tuple(warnings),
-        analyses=tuple(analyses),
+def _mode_used(c: _Candidate, role: str, rule: str, pred: dict | None) -> ModeUsed:
+    """The result's record of the mode ``c`` used as ``role``, with its prediction window ``pred``."""
+    return ModeUsed(
+        role,
+        c.f_hz,
+        c.f_hz_u,
+        c.loss_factor,
+        c.loss_factor_u,
+        c.source,
+        c.mode_index,
+        rule,
+        None if pred is None else pred["f_hz"],
+        None if pred is None else pred["low_hz"],
+        None if pred is None else pred["high_hz"],
     )
 
 

@@ -83,7 +83,7 @@ def plot_comparison(comparison: Comparison, *, ax: Axes | None = None) -> Axes:
     (Student t over the repeats, or normal from the propagated uncertainty for one repeat); small
     dots are the individual repeats. Modes without a partner are drawn hollow at the end.
     """
-    from .plots import STYLE, _legend, _new_figure, _style_axes
+    from .figure import _legend, _new_figure, _style_axes
 
     matched = list(comparison.modes)
     only_b = list(comparison.unmatched_before)
@@ -94,6 +94,27 @@ def plot_comparison(comparison: Comparison, *, ax: Axes | None = None) -> Axes:
     if ax is None:
         _, (ax, freq_ax) = _new_figure(5.2, nrows=2, height_ratios=(3, 2))
     conf = comparison.settings.get("confidence", 0.95)
+
+    labels = _draw_modes(ax, matched, only_b, only_a, shift_in_labels=freq_ax is None)
+    x = len(labels)
+    ax.set_yscale("log")
+    ax.set_xticks(range(x))
+    ax.set_xticklabels(labels)
+    ax.set_xlim(-0.6, x - 0.4)
+    ax.margins(y=0.25)
+    ax.set_ylabel("damping ratio zeta")
+    _style_axes(ax, f"Damping before and after ({100 * conf:g} % intervals, ratio of geometric means)")
+    _legend(ax)
+
+    if freq_ax is not None:
+        _draw_shifts(freq_ax, matched, labels)
+    return ax
+
+
+def _draw_modes(ax: Axes, matched: list, only_b: list, only_a: list, *, shift_in_labels: bool) -> list[str]:
+    """Draw both sides of each paired mode with its damping ratio written above, then the unpaired
+    modes hollow; return the tick labels, one per position (the frequency shift in them when asked)."""
+    from .figure import STYLE
 
     labels = []
     x = 0
@@ -121,7 +142,7 @@ def plot_comparison(comparison: Comparison, *, ax: Axes | None = None) -> Axes:
             fontsize=STYLE["font_size"] - 1,
         )
         lab = f"mode {m.index}\n{fmt_value(m.before.values['f_d_hz'], 5)} Hz"
-        if freq_ax is None:
+        if shift_in_labels:
             lab += f"\n{fmt_fixed(100 * m.frequency.relative, 1, sign=True)} %"
         labels.append(lab)
         x += 1
@@ -133,27 +154,24 @@ def plot_comparison(comparison: Comparison, *, ax: Axes | None = None) -> Axes:
         _draw_side(ax, x + 0.18, cm, _AFTER, "s", None, hollow=True)
         labels.append(f"after only\n{fmt_value(cm.values['f_d_hz'], 5)} Hz")
         x += 1
-    ax.set_yscale("log")
-    ax.set_xticks(range(x))
-    ax.set_xticklabels(labels)
-    ax.set_xlim(-0.6, x - 0.4)
-    ax.margins(y=0.25)
-    ax.set_ylabel("damping ratio zeta")
-    _style_axes(ax, f"Damping before and after ({100 * conf:g} % intervals, ratio of geometric means)")
-    _legend(ax)
+    return labels
 
-    if freq_ax is not None:
-        for k, m in enumerate(matched):
-            f0 = m.before.values["f_d_hz"]
-            y = 100.0 * m.frequency.relative
-            yerr = None
-            if m.frequency.low_hz is not None and m.frequency.high_hz is not None:
-                yerr = [[y - 100.0 * m.frequency.low_hz / f0], [100.0 * m.frequency.high_hz / f0 - y]]
-            freq_ax.errorbar([k], [y], yerr=yerr, fmt="D", color="#303030", ms=5, capsize=3)
-        freq_ax.axhline(0.0, color="#8A8A8A", linewidth=0.8)
-        freq_ax.set_xticks(range(x))
-        freq_ax.set_xticklabels(labels)
-        freq_ax.set_xlim(-0.6, x - 0.4)
-        freq_ax.set_ylabel("shift of f_d, %")
-        _style_axes(freq_ax, "Frequency shift (after - before) / before")
-    return ax
+
+def _draw_shifts(freq_ax: Axes, matched: list, labels: list[str]) -> None:
+    """The panel of each paired mode's frequency shift in percent, with its interval."""
+    from .figure import _style_axes
+
+    x = len(labels)
+    for k, m in enumerate(matched):
+        f0 = m.before.values["f_d_hz"]
+        y = 100.0 * m.frequency.relative
+        yerr = None
+        if m.frequency.low_hz is not None and m.frequency.high_hz is not None:
+            yerr = [[y - 100.0 * m.frequency.low_hz / f0], [100.0 * m.frequency.high_hz / f0 - y]]
+        freq_ax.errorbar([k], [y], yerr=yerr, fmt="D", color="#303030", ms=5, capsize=3)
+    freq_ax.axhline(0.0, color="#8A8A8A", linewidth=0.8)
+    freq_ax.set_xticks(range(x))
+    freq_ax.set_xticklabels(labels)
+    freq_ax.set_xlim(-0.6, x - 0.4)
+    freq_ax.set_ylabel("shift of f_d, %")
+    _style_axes(freq_ax, "Frequency shift (after - before) / before")

@@ -82,12 +82,7 @@ def plot_run_chart(
 
             raise ParameterError(f"run chart feature must be one of {sorted(_FEATURES)}, got {f!r}")
     if n_modes is None:
-        seen = [
-            m.get("ref_index") or (m.get("mode_index") if r.kind == "analysis" else None)
-            for r in records
-            for m in r.modes
-        ]
-        n_modes = min(max([s for s in seen if s] or [1]), 6)
+        n_modes = _modes_seen(records)
     fixed = None if limits is None else limits.to_dict()
     panels = [(j, feat) for j in range(1, n_modes + 1) for feat in features if not (feat == "ratio" and j == 1)]
     if not panels:
@@ -96,40 +91,62 @@ def plot_run_chart(
     axes = fig.subplots(len(panels), 1, sharex=True, squeeze=False)[:, 0]
     x_all = list(range(1, len(records) + 1))
     kinds = [verdict_kind(r.verdict, [n.get("code") for n in r.notes]) for r in records]
+    docs = [fixed or (limits_by_sha or {}).get(r.limits_sha256) for r in records]
     for ax, (j, feat) in zip(axes, panels):
-        label, key = _FEATURES[feat]
-        lo, hi = [], []
-        for rec in records:
-            doc = fixed or (limits_by_sha or {}).get(rec.limits_sha256)
-            win = None
-            if doc is not None and j <= len(doc["modes"]):
-                win = doc["modes"][j - 1].get(key)
-            lo.append(win[0] if win else float("nan"))
-            hi.append(win[1] if win else float("nan"))
-        if any(v == v for v in lo):
-            ax.step(x_all, lo, where="mid", color="k", lw=1.0, ls="--", label="limits")
-            ax.step(x_all, hi, where="mid", color="k", lw=1.0, ls="--")
-        values = [_value(r, j, feat) for r in records]
-        ax.plot(x_all, values, color="0.75", lw=0.8, zorder=1)
-        for kind, look in _LOOK.items():
-            xs = [x for x, k in zip(x_all, kinds) if k == kind]
-            ys = [v for v, k in zip(values, kinds) if k == kind]
-            if xs:
-                hollow = look.get("hollow", False)
-                ax.scatter(
-                    xs,
-                    ys,
-                    s=30 if hollow else 24,
-                    marker=look["marker"],
-                    zorder=2,
-                    label=look["label"],
-                    facecolors="none" if hollow else look["color"],
-                    edgecolors=look["color"],
-                    linewidths=1.3 if hollow else 0.5,
-                )
-        ax.set_ylabel(f"mode {j}\n{label}", fontsize="small")
-        ax.ticklabel_format(axis="y", useOffset=False)
-        ax.grid(True, alpha=0.3)
+        _draw_panel(ax, records, j, feat, kinds, docs)
+    _legend_and_parts(fig, axes, records, x_all)
+    fig.suptitle("Run chart of stored results")
+    return fig
+
+
+def _modes_seen(records: Sequence) -> int:
+    """The most modes seen in the records (reference index, else an analysis' mode index), at most 6."""
+    seen = [
+        m.get("ref_index") or (m.get("mode_index") if r.kind == "analysis" else None) for r in records for m in r.modes
+    ]
+    return min(max([s for s in seen if s] or [1]), 6)
+
+
+def _draw_panel(ax, records: Sequence, j: int, feat: str, kinds: list, docs: list) -> None:
+    """One panel: feature ``feat`` of mode ``j`` for every record, marked by verdict ``kinds``, with
+    the windows of the limits each record was checked with (``docs``, a limits document or None each)."""
+    label, key = _FEATURES[feat]
+    x_all = list(range(1, len(records) + 1))
+    lo, hi = [], []
+    for doc in docs:
+        win = None
+        if doc is not None and j <= len(doc["modes"]):
+            win = doc["modes"][j - 1].get(key)
+        lo.append(win[0] if win else float("nan"))
+        hi.append(win[1] if win else float("nan"))
+    if any(v == v for v in lo):
+        ax.step(x_all, lo, where="mid", color="k", lw=1.0, ls="--", label="limits")
+        ax.step(x_all, hi, where="mid", color="k", lw=1.0, ls="--")
+    values = [_value(r, j, feat) for r in records]
+    ax.plot(x_all, values, color="0.75", lw=0.8, zorder=1)
+    for kind, look in _LOOK.items():
+        xs = [x for x, k in zip(x_all, kinds) if k == kind]
+        ys = [v for v, k in zip(values, kinds) if k == kind]
+        if xs:
+            hollow = look.get("hollow", False)
+            ax.scatter(
+                xs,
+                ys,
+                s=30 if hollow else 24,
+                marker=look["marker"],
+                zorder=2,
+                label=look["label"],
+                facecolors="none" if hollow else look["color"],
+                edgecolors=look["color"],
+                linewidths=1.3 if hollow else 0.5,
+            )
+    ax.set_ylabel(f"mode {j}\n{label}", fontsize="small")
+    ax.ticklabel_format(axis="y", useOffset=False)
+    ax.grid(True, alpha=0.3)
+
+
+def _legend_and_parts(fig: Figure, axes, records: Sequence, x_all: list[int]) -> None:
+    """One legend for all panels below them, and the parts' ids along the last x axis."""
     handles: dict = {}
     for ax in axes:
         for h, lab in zip(*ax.get_legend_handles_labels()):
@@ -147,8 +164,6 @@ def plot_run_chart(
     last.set_xticks(x_all[::step])
     last.set_xticklabels([r.part_id for r in records][::step], rotation=60, ha="right", fontsize="small")
     last.set_xlabel("part (in test order)" + (f"; every {step}th named" if step > 1 else ""))
-    fig.suptitle("Run chart of stored results")
-    return fig
 
 
 def _value(rec, j: int, feat: str) -> float:

@@ -1,19 +1,10 @@
 """Figures of ring-down results: the recording, its spectrum, each mode's decay.
 
-This is the only module that imports matplotlib, and it does so inside each function so that
-``import ringdown`` and ``ringdown --help`` stay fast. Figures are built on
-:class:`matplotlib.figure.Figure` (no pyplot, no global state); every ``plot_x(obj, *, ax=None)``
-draws on the Axes it is given, or on a new Figure of its own, and returns the Axes. Saving is left
-to the caller (the CLI and the report use :func:`figure_bytes`).
-
-Style
------
-One small style (``STYLE``) is applied to each Axes drawn here, never through global
-``rcParams``. Colours come from the Okabe-Ito palette, chosen to stay distinguishable with the
-common forms of colour blindness (M. Okabe and K. Ito, "Color Universal Design", 2002; B. Wong,
-"Points of view: Color blindness", Nature Methods 8:441, 2011). Colour is never the only cue:
-each mode also has its own marker and line style, so the figures read in greyscale print.
-Labels are laid out with matplotlib's constrained layout so they do not overlap.
+matplotlib is imported inside each function so that ``import ringdown`` and ``ringdown --help``
+stay fast. Figures are built on :class:`matplotlib.figure.Figure` (no pyplot, no global state);
+every ``plot_x(obj, *, ax=None)`` draws on the Axes it is given, or on a new Figure of its own, and
+returns the Axes. Saving is left to the caller (the CLI and the report use :func:`figure_bytes`).
+The style, its colours and the shared figure helpers are in :mod:`ringdown.render.figure`.
 
 Missing data
 ------------
@@ -25,9 +16,8 @@ reason instead of the figure.
 
 from __future__ import annotations
 
-import io
 import math
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:
     from matplotlib.axes import Axes
@@ -39,6 +29,19 @@ import numpy as np
 
 from ..analysis.quantities import DB_PER_NEPER
 from ..base.errors import ParameterError
+from .figure import (
+    _OI_BLACK,
+    _OI_BLUE,
+    _OI_GREEN,
+    _OI_VERMILLION,
+    FIGURE_FORMATS,
+    STYLE,
+    _axes_or_new,
+    _legend,
+    _new_figure,
+    _style_axes,
+    figure_bytes,
+)
 
 __all__ = [
     "FIGURE_FORMATS",
@@ -52,47 +55,6 @@ __all__ = [
     "plot_spectrum",
 ]
 
-# Okabe-Ito colours (Wong 2011), yellow left out: it is too pale on white paper.
-_OI_BLACK = "#000000"
-_OI_ORANGE = "#E69F00"
-_OI_SKY = "#56B4E9"
-_OI_GREEN = "#009E73"
-_OI_BLUE = "#0072B2"
-_OI_VERMILLION = "#D55E00"
-_OI_PURPLE = "#CC79A7"
-
-#: The one style of every ringdown figure (applied per Axes, never via global rcParams).
-STYLE: dict[str, Any] = {
-    "font_size": 8.5,
-    "title_size": 9.5,
-    "figure_width_in": 7.5,
-    "dpi": 110,
-    "face": "#FFFFFF",
-    "panel_face": "#FBFBF8",
-    "grid_color": "#D4D4D0",
-    "signal_color": "#303030",
-    "muted_color": "#8A8A8A",
-    "window_color": _OI_SKY,
-    "fit_color": _OI_VERMILLION,
-    "noise_color": "#6E6E6E",
-    "clip_color": _OI_VERMILLION,
-    # One colour, marker and dash pattern per mode: modes stay apart in greyscale too.
-    "mode_colors": (_OI_BLUE, _OI_VERMILLION, _OI_GREEN, _OI_PURPLE, _OI_ORANGE, _OI_SKY, _OI_BLACK),
-    "mode_markers": ("o", "s", "^", "D", "v", "P", "X"),
-    "mode_dashes": (
-        "-",
-        (0, (5, 2)),
-        (0, (1, 1.2)),
-        (0, (6, 2, 1, 2)),
-        (0, (3, 1, 1, 1, 1, 1)),
-        (0, (8, 3)),
-        (0, (2, 2)),
-    ),
-}
-
-#: Formats figures are written in (the one list the CLI's --plot-format and history --plot use).
-FIGURE_FORMATS = ("png", "svg", "pdf")
-
 #: Most points drawn for one trace; longer traces keep each bucket's minimum and maximum.
 _MAX_DRAWN_POINTS = 6000
 #: Largest segment transformed for the display spectrum (samples); longer decays are truncated.
@@ -102,67 +64,6 @@ _MAX_SPECTRUM_SAMPLES = 1 << 20
 # --------------------------------------------------------------------------------------------
 # helpers
 # --------------------------------------------------------------------------------------------
-
-
-def _new_figure(height_in: float, *, nrows: int = 1, height_ratios=None):
-    """A Figure with constrained layout and its Axes (a list when ``nrows > 1``)."""
-    from matplotlib.figure import Figure
-
-    fig = Figure(
-        figsize=(STYLE["figure_width_in"], height_in), dpi=STYLE["dpi"], layout="constrained", facecolor=STYLE["face"]
-    )
-    if nrows == 1:
-        return fig, fig.add_subplot(1, 1, 1)
-    axes = fig.subplots(nrows, 1, gridspec_kw={"height_ratios": height_ratios} if height_ratios else None)
-    return fig, list(axes)
-
-
-def _axes_or_new(ax, height_in: float = 3.0):
-    if ax is not None:
-        return ax
-    _, ax = _new_figure(height_in)
-    return ax
-
-
-def _style_axes(ax, title: str | None = None) -> None:
-    """Apply ``STYLE`` to one Axes (grid, ticks, spines, face)."""
-    fs = STYLE["font_size"]
-    ax.set_facecolor(STYLE["panel_face"])
-    ax.grid(True, color=STYLE["grid_color"], linewidth=0.6, linestyle=(0, (1, 2)))
-    ax.set_axisbelow(True)
-    ax.tick_params(labelsize=fs, direction="out", length=3, width=0.6)
-    for side in ("top", "right"):
-        ax.spines[side].set_visible(False)
-    for side in ("left", "bottom"):
-        ax.spines[side].set_linewidth(0.7)
-        ax.spines[side].set_color("#555555")
-    ax.xaxis.label.set_size(fs)
-    ax.yaxis.label.set_size(fs)
-    if title is not None:
-        ax.set_title(title, loc="left", fontsize=STYLE["title_size"], fontweight="bold")
-
-
-def _legend(ax, handles=None, labels=None, *, below: bool = False) -> None:
-    """A legend outside the plotting area (right of it, or below it), so it never hides data."""
-    if handles is None:
-        handles, labels = ax.get_legend_handles_labels()
-    if not handles:
-        return
-    if below:
-        kw = {"loc": "upper center", "bbox_to_anchor": (0.5, -0.22), "ncols": min(len(handles), 3)}
-    else:
-        kw = {"loc": "upper left", "bbox_to_anchor": (1.01, 1.0)}
-    leg = ax.legend(
-        handles,
-        labels,
-        fontsize=STYLE["font_size"] - 0.5,
-        frameon=True,
-        framealpha=1.0,
-        edgecolor="#BBBBBB",
-        borderaxespad=0.0,
-        **kw,
-    )
-    leg.get_frame().set_linewidth(0.6)
 
 
 def _mode_style(i: int) -> dict:
@@ -248,33 +149,6 @@ def spread_labels(x: np.ndarray, min_gap: float, lo: float = 0.0, hi: float = 1.
     return out
 
 
-def figure_bytes(fig: Figure, *, fmt: str = "png", dpi: float | None = None) -> bytes:
-    """Render a Figure to PNG, SVG or PDF bytes, without the software/date metadata.
-
-    Parameters
-    ----------
-    fig : matplotlib.figure.Figure
-    fmt : {"png", "svg", "pdf"}
-    dpi : float or None
-        Raster resolution, dots per inch; ``STYLE["dpi"]`` when None.
-
-    Raises
-    ------
-    ParameterError
-        For a format other than those in :data:`FIGURE_FORMATS`.
-    """
-    if fmt not in FIGURE_FORMATS:
-        raise ParameterError(f"figure format must be one of {', '.join(FIGURE_FORMATS)}; got {fmt!r}")
-    buf = io.BytesIO()
-    meta = {
-        "png": {"Software": None},
-        "svg": {"Creator": None, "Date": None, "Format": None, "Type": None},
-        "pdf": {"Creator": None, "Producer": None, "CreationDate": None},
-    }[fmt]
-    fig.savefig(buf, format=fmt, dpi=dpi or STYLE["dpi"], metadata=meta, facecolor=fig.get_facecolor())
-    return buf.getvalue()
-
-
 # --------------------------------------------------------------------------------------------
 # the recording and its spectrum
 # --------------------------------------------------------------------------------------------
@@ -312,9 +186,23 @@ def plot_recording(analysis: Analysis, *, ax: Axes | None = None) -> Axes:
     t = np.arange(x.size) / fs
     td, xd = _thin(t, x)
     ax.plot(td, xd, color=STYLE["signal_color"], linewidth=0.6, label="signal")
-
-    peak = float(np.max(np.abs(x))) or 1.0
     full_scale = getattr(analysis.recording, "full_scale", None)
+    top = _draw_full_scale(ax, t, x, full_scale)
+    _draw_fit_windows(ax, tuple(getattr(analysis, "modes", ()) or ()), top)
+    _draw_hits(ax, getattr(analysis, "hits", ()) or ())
+    ax.set_xlim(0.0, x.size / fs)
+    ax.set_xlabel("time, s")
+    unit = "full scale" if full_scale == 1.0 else "recording units"
+    ax.set_ylabel(f"signal, {unit}")
+    _style_axes(ax, f"Recording: {_name(analysis)}")
+    _legend(ax)
+    return ax
+
+
+def _draw_full_scale(ax: Axes, t: np.ndarray, x: np.ndarray, full_scale: float | None) -> float:
+    """Draw +-full scale and the clipped samples (at least 99.9 % of it) when the full scale is
+    known; return the top of the signal's range (the larger of its peak and the full scale)."""
+    peak = float(np.max(np.abs(x))) or 1.0
     top = peak
     if full_scale:
         top = max(peak, float(full_scale))
@@ -339,8 +227,11 @@ def plot_recording(analysis: Analysis, *, ax: Axes | None = None) -> Axes:
                 color=STYLE["clip_color"],
                 label="clipped samples",
             )
+    return top
 
-    modes = tuple(getattr(analysis, "modes", ()) or ())
+
+def _draw_fit_windows(ax: Axes, modes: tuple, top: float) -> None:
+    """Set the y range and draw each mode's fit window as a bar in a strip below the signal."""
     n_bars = sum(1 for m in modes if m.fit_start_s is not None and m.fit_end_s is not None)
     # The signal occupies [-top, top]; a strip below it holds one window bar per mode.
     strip = 0.13 * top * max(n_bars, 0)
@@ -365,8 +256,11 @@ def plot_recording(analysis: Analysis, *, ax: Axes | None = None) -> Axes:
             gid=f"window-mode-{m.index}",
         )
 
+
+def _draw_hits(ax: Axes, hits) -> None:
+    """Draw each hit: a line at its onset (solid when used), a marker at its peak, its label."""
     trans = ax.get_xaxis_transform()  # x in data, y in axes fraction
-    for k, h in enumerate(getattr(analysis, "hits", ()) or ()):
+    for k, h in enumerate(hits):
         used = bool(h.used)
         ax.axvline(
             h.start_s,
@@ -398,14 +292,6 @@ def plot_recording(analysis: Analysis, *, ax: Axes | None = None) -> Axes:
             color=_OI_BLACK if used else STYLE["muted_color"],
             bbox={"boxstyle": "square,pad=0.15", "facecolor": "white", "edgecolor": "none", "alpha": 0.85},
         )
-
-    ax.set_xlim(0.0, x.size / fs)
-    ax.set_xlabel("time, s")
-    unit = "full scale" if full_scale == 1.0 else "recording units"
-    ax.set_ylabel(f"signal, {unit}")
-    _style_axes(ax, f"Recording: {_name(analysis)}")
-    _legend(ax)
-    return ax
 
 
 def _decay_segment(analysis, x: np.ndarray, fs: float) -> tuple[int, int]:
@@ -480,18 +366,33 @@ def plot_spectrum(analysis: Analysis, *, ax: Axes | None = None) -> Axes:
     i0, i1 = _decay_segment(analysis, x, fs)
     f, level = display_spectrum(x[i0:i1], fs)
     modes = tuple(getattr(analysis, "modes", ()) or ())
-    nyq = fs / 2.0
-    if modes:
-        f_top = max((m.band_hz[1] if m.band_hz else m.f_d_hz) for m in modes)
-        f_max = min(nyq, max(1.3 * f_top, f_top + 0.05 * nyq))
-    else:
-        f_max = nyq
+    f_max = _spectrum_top(modes, fs / 2.0)
     keep = f <= f_max
     fd, ld = _thin(f[keep], level[keep], max_points=4000)
     ax.plot(fd, ld, color=STYLE["signal_color"], linewidth=0.7, label="spectrum of the decay")
     floor = max(float(np.percentile(level[keep], 5)) - 10.0, -160.0)
     # headroom above the largest peak (0 dB) for a row of labels: 0 dB sits at 80 % of the height
     ax.set_ylim(floor, max(12.0, 0.25 * -floor))
+    _draw_mode_markers(ax, modes, f, level, f_max)
+    ax.set_xlim(0.0, f_max)
+    ax.set_xlabel("frequency, Hz")
+    ax.set_ylabel("level, dB re largest peak")
+    _style_axes(ax, "Spectrum of the decay")
+    _legend(ax)
+    return ax
+
+
+def _spectrum_top(modes: tuple, nyq: float) -> float:
+    """Top of the spectrum's frequency axis, Hz: a little above the highest mode's band, at most Nyquist."""
+    if not modes:
+        return nyq
+    f_top = max((m.band_hz[1] if m.band_hz else m.f_d_hz) for m in modes)
+    return min(nyq, max(1.3 * f_top, f_top + 0.05 * nyq))
+
+
+def _draw_mode_markers(ax: Axes, modes: tuple, f: np.ndarray, level: np.ndarray, f_max: float) -> None:
+    """A marker per mode at its damped frequency on the spectrum (``f`` Hz, ``level`` dB), and its
+    number in one row along the top, tied to the marker by a thin line."""
     # one row of labels along the top, spread so that no two overlap, each tied to its marker
     label_x = spread_labels(np.array([m.f_d_hz / f_max for m in modes]), 0.035) if modes else np.empty(0)
     for i, m in enumerate(modes):
@@ -533,12 +434,6 @@ def plot_spectrum(analysis: Analysis, *, ax: Axes | None = None) -> Axes:
                 "shrinkB": 4.0,
             },
         )
-    ax.set_xlim(0.0, f_max)
-    ax.set_xlabel("frequency, Hz")
-    ax.set_ylabel("level, dB re largest peak")
-    _style_axes(ax, "Spectrum of the decay")
-    _legend(ax)
-    return ax
 
 
 def plot_overview(analysis: Analysis) -> Figure:
@@ -654,6 +549,26 @@ def plot_decay(mode: Mode, *, ax: Axes | None = None) -> Axes:
         label="fit window",
     )
     ax.plot(td, ed, color=STYLE["signal_color"], linewidth=0.8, label="envelope", zorder=3)
+    _draw_fits(ax, tr, t, ref, model)
+    have_noise = tr.noise_floor is not None and tr.noise_floor > 0
+    if have_noise:
+        nf = 20.0 * math.log10(tr.noise_floor) - ref
+        ax.axhline(nf, color=STYLE["noise_color"], linewidth=1.0, linestyle=(0, (6, 2, 1, 2)), label="noise floor")
+    top = max(float(np.max(env_db)) if env_db.size else 0.0, 0.0) + 6.0
+    low = (nf - 15.0) if have_noise else (float(np.min(env_db)) - 5.0 if env_db.size else -60.0)
+    ax.set_ylim(max(low, top - 200.0), top)
+    ax.set_xlim(*_decay_xlim(tr))
+    ax.set_xlabel("time, s")
+    ax.set_ylabel("envelope, dB re fit at window start")
+    f = getattr(mode, "f_d_hz", None)
+    _style_axes(ax, f"Mode {getattr(mode, 'index', '?')} decay" + (f" at {_fmt_sig(f, 6)} Hz" if f else ""))
+    _legend(ax)
+    return ax
+
+
+def _draw_fits(ax: Axes, tr, t: np.ndarray, ref: float, model: np.ndarray | None) -> None:
+    """The fitted decay (solid in the window, dotted over the trace's times ``t``) and, for modes
+    fitted jointly, the sum of the band's modes; levels in dB less ``ref``."""
     inside = np.array([tr.fit_start_s, tr.fit_end_s])
     ax.plot(
         inside,
@@ -690,20 +605,6 @@ def plot_decay(mode: Mode, *, ax: Axes | None = None) -> Axes:
             zorder=4,
             label=f"sum of the {tr.n_model_modes} modes\nfitted in this band",
         )
-    have_noise = tr.noise_floor is not None and tr.noise_floor > 0
-    if have_noise:
-        nf = 20.0 * math.log10(tr.noise_floor) - ref
-        ax.axhline(nf, color=STYLE["noise_color"], linewidth=1.0, linestyle=(0, (6, 2, 1, 2)), label="noise floor")
-    top = max(float(np.max(env_db)) if env_db.size else 0.0, 0.0) + 6.0
-    low = (nf - 15.0) if have_noise else (float(np.min(env_db)) - 5.0 if env_db.size else -60.0)
-    ax.set_ylim(max(low, top - 200.0), top)
-    ax.set_xlim(*_decay_xlim(tr))
-    ax.set_xlabel("time, s")
-    ax.set_ylabel("envelope, dB re fit at window start")
-    f = getattr(mode, "f_d_hz", None)
-    _style_axes(ax, f"Mode {getattr(mode, 'index', '?')} decay" + (f" at {_fmt_sig(f, 6)} Hz" if f else ""))
-    _legend(ax)
-    return ax
 
 
 def _model_db(tr) -> np.ndarray | None:

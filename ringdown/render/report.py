@@ -660,6 +660,33 @@ def render_report(
     if figure_format not in ("png", "svg"):
         raise ParameterError(f"report figure format must be 'png' or 'svg'; got {figure_format!r}")
     analyses = _as_list(analyses)
+    sections = _extra_sections(extra_sections)
+    title = title or "Ring-down report"
+    pairs = _header_pairs(fields)
+    if signoff is None:
+        signoff = [("tested by", next((str(v) for k, v in pairs if k == "operator"), None)), ("reviewed by", None)]
+    parts = _report_head(title, generated or local_stamp(), pairs, notes, analyses)
+    parts += _report_body(
+        analyses,
+        settings,
+        sections,
+        signoff,
+        figure_format=figure_format,
+        figures=figures,
+        file_extras=file_extras,
+        verdicts=verdicts,
+    )
+    return "".join(parts)
+
+
+def _header_pairs(fields: Sequence[tuple[str, Any]] | dict | None) -> list[tuple[str, Any]]:
+    """The header fields as (name, value) pairs, empty values left out."""
+    items = fields.items() if isinstance(fields, dict) else (fields or ())
+    return [(str(k), v) for k, v in items if v not in (None, "")]
+
+
+def _extra_sections(extra_sections: Iterable[Section | tuple[str, str]]) -> list[Section]:
+    """The extra sections as Sections; ParameterError for anything but a Section or (title, html)."""
     sections: list[Section] = []
     for s in extra_sections:
         if isinstance(s, Section):
@@ -668,19 +695,11 @@ def render_report(
             sections.append(Section(s[0], s[1]))
         else:
             raise ParameterError(f"an extra report section must be a Section or (title, html); got {s!r:.80}")
-    title = title or "Ring-down report"
-    stamp = generated or local_stamp()
-    pairs = [
-        (str(k), v) for k, v in (fields.items() if isinstance(fields, dict) else (fields or ())) if v not in (None, "")
-    ]
-    used: set[str] = {"summary", "definitions", "caution", "run-settings", "signoff"}
-    anchors = [_slug(f"file-{n}-{_file_name(a)}", used) for n, a in enumerate(analyses, 1)]
-    extras = list(file_extras) if file_extras is not None else [""] * len(analyses)
-    levels = list(figures) if isinstance(figures, (list, tuple)) else [figures] * len(analyses)
-    if signoff is None:
-        operator = next((str(v) for k, v in pairs if k == "operator"), None)
-        signoff = [("tested by", operator), ("reviewed by", None)]
+    return sections
 
+
+def _report_head(title: str, stamp: str, pairs: list[tuple[str, Any]], notes: str | None, analyses: list) -> list[str]:
+    """The document's head and its header: title, running head, version and time stamp, fields, notes."""
     running = " · ".join([title, *(f"{k} {v}" for k, v in pairs if k in ("serial", "part", "station"))])
     n_ok = sum(1 for a in analyses if a.error is None)
     parts = [
@@ -697,6 +716,27 @@ def render_report(
     if notes:
         parts.append('<p class="notes">' + "<br>".join(_e(x) for x in str(notes).splitlines()) + "</p>")
     parts.append("</header>")
+    return parts
+
+
+def _report_body(
+    analyses: list,
+    settings: dict | None,
+    sections: list[Section],
+    signoff: Sequence[tuple[str, str | None]],
+    *,
+    figure_format: str,
+    figures: Any,
+    file_extras: Sequence[str] | None,
+    verdicts: Sequence[str] | None,
+) -> list[str]:
+    """The run settings, the summary, the extra sections, the sign-off, one section per recording,
+    the definitions, the caution and the footer (see :func:`render_report`)."""
+    used: set[str] = {"summary", "definitions", "caution", "run-settings", "signoff"}
+    anchors = [_slug(f"file-{n}-{_file_name(a)}", used) for n, a in enumerate(analyses, 1)]
+    extras = list(file_extras) if file_extras is not None else [""] * len(analyses)
+    levels = list(figures) if isinstance(figures, (list, tuple)) else [figures] * len(analyses)
+    parts: list[str] = []
     if settings:
         parts.append('<section id="run-settings"><h2>Run settings</h2>')
         parts.append(_kv_table(sorted((str(k), _setting(v)) for k, v in settings.items())))
@@ -715,7 +755,7 @@ def render_report(
     parts.append(_DEFINITIONS)
     parts.append(_CAUTION)
     parts.append(f'<footer><p class="meta">Made by ringdown {_e(__version__)}.</p></footer></body></html>\n')
-    return "".join(parts)
+    return parts
 
 
 def _as_list(analyses: Iterable[Analysis] | Analysis) -> list[Analysis]:
@@ -793,7 +833,27 @@ def comparison_html(comparison: Comparison) -> str:
         "geometric means (loss factor changes by the same ratio, Q by its inverse). Intervals and "
         f"verdicts at {_e(c)} % confidence, each mode on its own.</p>",
     ]
-    main, more = [], []
+    out += _comparison_tables(comparison, c)
+    out.append(_comparison_figure(comparison))  # after the tables: the numbers come first on paper
+    for label, ms in (("before only", comparison.unmatched_before), ("after only", comparison.unmatched_after)):
+        if ms:
+            items = ", ".join(f"{_pm(cm.f_d_hz, cm.f_d_hz_u)} Hz (ζ {_pm(cm.zeta, cm.zeta_u)})" for cm in ms)
+            out.append(f"<p>Unmatched, {_e(label)}: {_e(items)}</p>")
+    if comparison.notices:
+        out.append('<ul class="warnings">')
+        out.extend(f'<li>{_e(n.message)} <span class="code">({_e(n.code)})</span></li>' for n in comparison.notices)
+        out.append("</ul>")
+    out.append(_comparison_inputs(comparison))
+    out.append(f'<p class="caution">{_e(_COMPARISON_CAUTION)}</p>')
+    out.append("</div>")
+    return "".join(out)
+
+
+def _comparison_tables(comparison: Comparison, c: str) -> list[str]:
+    """The damping table (f_d, shift, zeta, ratio, test, verdict) and the Q and T60 table of the
+    paired modes, intervals at ``c`` % confidence; a note when no mode was paired."""
+    main: list[list[Any]] = []
+    more: list[list[str]] = []
     for m in comparison.modes:
         b, a, d, f = m.before, m.after, m.damping, m.frequency
         shift = fmt_interval(*f.percent, decimals=2, sign=True)
@@ -822,45 +882,38 @@ def comparison_html(comparison: Comparison) -> str:
                 "; ".join(f"{w.code}: {w.message}" for w in m.warnings) or _DASH,
             ]
         )
-    if main:
-        out.append(
-            html_table(
-                (
-                    "mode",
-                    "f_d before, Hz",
-                    "f_d after, Hz",
-                    f"shift, % [{c} %]",
-                    "ζ before",
-                    "ζ after",
-                    f"ζ after/before [{c} %]",
-                    "test",
-                    "p",
-                    "verdict",
-                ),
-                main,
-                numeric=[True] * 7 + [False, True, False],
-                css_class="data comparison-main",
-            )
-        )
-        out.append(
-            html_table(
-                ("mode", "Q before", "Q after", "T60 before, s", "T60 after, s", "warnings"),
-                more,
-                numeric=[True] * 5 + [False],
-                css_class="data comparison-q",
-            )
-        )
-    else:
-        out.append('<p class="note">No mode was found on both sides.</p>')
-    out.append(_comparison_figure(comparison))  # after the tables: the numbers come first on paper
-    for label, ms in (("before only", comparison.unmatched_before), ("after only", comparison.unmatched_after)):
-        if ms:
-            items = ", ".join(f"{_pm(cm.f_d_hz, cm.f_d_hz_u)} Hz (ζ {_pm(cm.zeta, cm.zeta_u)})" for cm in ms)
-            out.append(f"<p>Unmatched, {_e(label)}: {_e(items)}</p>")
-    if comparison.notices:
-        out.append('<ul class="warnings">')
-        out.extend(f'<li>{_e(n.message)} <span class="code">({_e(n.code)})</span></li>' for n in comparison.notices)
-        out.append("</ul>")
+    if not main:
+        return ['<p class="note">No mode was found on both sides.</p>']
+    return [
+        html_table(
+            (
+                "mode",
+                "f_d before, Hz",
+                "f_d after, Hz",
+                f"shift, % [{c} %]",
+                "ζ before",
+                "ζ after",
+                f"ζ after/before [{c} %]",
+                "test",
+                "p",
+                "verdict",
+            ),
+            main,
+            numeric=[True] * 7 + [False, True, False],
+            css_class="data comparison-main",
+        ),
+        html_table(
+            ("mode", "Q before", "Q after", "T60 before, s", "T60 after, s", "warnings"),
+            more,
+            numeric=[True] * 5 + [False],
+            css_class="data comparison-q",
+        ),
+    ]
+
+
+def _comparison_inputs(comparison: Comparison) -> str:
+    """The heading and table of the comparison's input files."""
+    out = []
     out.append("<h3>Inputs</h3>")
     out.append(
         html_table(
@@ -880,8 +933,6 @@ def comparison_html(comparison: Comparison) -> str:
             css_class="data inputs",
         )
     )
-    out.append(f'<p class="caution">{_e(_COMPARISON_CAUTION)}</p>')
-    out.append("</div>")
     return "".join(out)
 
 
@@ -990,27 +1041,7 @@ def render_check_report(
     )
     counts = {k: sum(1 for r in rows if r["verdict"] == k) for k in ("pass", "fail", "error")}
     head = f"<p>{len(rows)} parts: {counts['pass']} passed, {counts['fail']} failed, {counts['error']} errors.</p>"
-    reader = getattr(limits, "reader", None) or {}
-    lim = _kv_table(
-        [
-            ("limits file", limits.source or _DASH),
-            ("SHA-256", limits.sha256 or _DASH),
-            ("coverage", fmt_value(limits.coverage, 4, missing=_DASH)),
-            ("confidence", fmt_value(limits.confidence, 4, missing=_DASH)),
-            ("good parts", limits.n_parts or _DASH),
-            ("reader", ", ".join(f"{k} {v}" for k, v in reader.items()) or "defaults"),
-            (
-                "modes",
-                "; ".join(
-                    f"{m.index}: f_d {' to '.join(fmt_values(m.f_hz, 6))} Hz"
-                    + ("" if m.zeta is None else f", ζ {' to '.join(fmt_values(m.zeta, 3))}")
-                    for m in limits.modes
-                    if m.f_hz is not None
-                )
-                or _DASH,
-            ),
-        ]
-    )
+    lim = _limits_used(limits)
     shown = [(r, a, k) for r, a, k in zip(rows, analyses, kinds) if a is not None]
     extras = []
     for r, _a, k in shown:
@@ -1032,6 +1063,32 @@ def render_check_report(
         file_extras=extras,
         verdicts=[k for _r, _a, k in shown],
         **kw,
+    )
+
+
+def _limits_used(limits: Limits) -> str:
+    """The table of the limits a check used: file, SHA-256, coverage, confidence, good parts,
+    reader settings and each mode's windows."""
+    reader = getattr(limits, "reader", None) or {}
+    return _kv_table(
+        [
+            ("limits file", limits.source or _DASH),
+            ("SHA-256", limits.sha256 or _DASH),
+            ("coverage", fmt_value(limits.coverage, 4, missing=_DASH)),
+            ("confidence", fmt_value(limits.confidence, 4, missing=_DASH)),
+            ("good parts", limits.n_parts or _DASH),
+            ("reader", ", ".join(f"{k} {v}" for k, v in reader.items()) or "defaults"),
+            (
+                "modes",
+                "; ".join(
+                    f"{m.index}: f_d {' to '.join(fmt_values(m.f_hz, 6))} Hz"
+                    + ("" if m.zeta is None else f", ζ {' to '.join(fmt_values(m.zeta, 3))}")
+                    for m in limits.modes
+                    if m.f_hz is not None
+                )
+                or _DASH,
+            ),
+        ]
     )
 
 
@@ -1063,6 +1120,16 @@ def moduli_section(result: ModuliResult) -> Section:
     Insert it with ``render_report(result.analyses, extra_sections=[moduli_section(result)])``.
     Every string from outside (file names, warnings) is escaped.
     """
+    out = _moduli_specimen(result) + _moduli_values(result) + _moduli_modes(result) + _moduli_budget(result)
+    if result.warnings:
+        lis = "".join(f'<li>{_e(w.message)} <span class="code">({_e(w.code)})</span></li>' for w in result.warnings)
+        out.append(f'<h3>Warnings</h3><ul class="warnings">{lis}</ul>')
+    out.append(_MODULI_FORMULAS)
+    return Section(MODULI_SECTION_TITLE, "".join(out), anchor="moduli")
+
+
+def _moduli_specimen(result: ModuliResult) -> list[str]:
+    """The specimen's shape, dimensions (mm) and mass (g), each with its standard uncertainty."""
     sp = result.specimen
     mm = lambda v, u: _pm(None if v is None else v * 1e3, None if u is None else u * 1e3)  # noqa: E731
     rows = [
@@ -1077,7 +1144,11 @@ def moduli_section(result: ModuliResult) -> Section:
     else:
         rows.append(("diameter, mm", mm(sp["diameter_m"], sp["diameter_m_u"])))
     rows.append(("mass, g", _pm(sp["mass_kg"] * 1e3, sp["mass_kg_u"] * 1e3)))
-    out = ["<h3>Specimen</h3>", _kv_table(rows)]
+    return ["<h3>Specimen</h3>", _kv_table(rows)]
+
+
+def _moduli_values(result: ModuliResult) -> list[str]:
+    """The moduli table (E, G, Poisson's ratio, density; dominant inputs) and the correction factors."""
     gpa = lambda v, u: _pm(None if v is None else v / 1e9, None if u is None else u / 1e9)  # noqa: E731
     res_rows = [
         ("Young's modulus E, GPa", gpa(result.e_pa, result.e_pa_u), result.dominant("e_pa") or _DASH),
@@ -1097,7 +1168,7 @@ def moduli_section(result: ModuliResult) -> Section:
             result.dominant("density_kg_per_m3") or _DASH,
         ),
     ]
-    out += [
+    out = [
         "<h3>Moduli</h3>",
         '<p class="legend">Values v(u): u is the standard uncertainty (k = 1) in units of the last digit; the dominant input has the largest share of '
         "the variance.</p>",
@@ -1108,6 +1179,11 @@ def moduli_section(result: ModuliResult) -> Section:
         factors += f", R = {fmt_value(result.r_factor, 6)}"
     factors += f"; {result.iterations} iteration{'s' if result.iterations != 1 else ''} of the Poisson's-ratio loop"
     out.append(f"<p>{_e(factors)}</p>")
+    return out
+
+
+def _moduli_modes(result: ModuliResult) -> list[str]:
+    """The modes used (frequency, loss factor, source, window, rule) and the predicted modes."""
     mode_rows = []
     for m in (result.flexural, result.torsional):
         if m is None:
@@ -1119,7 +1195,7 @@ def moduli_section(result: ModuliResult) -> Section:
             else " to ".join(fmt_values([m.predicted_low_hz, m.predicted_high_hz], 6))
         )
         mode_rows.append((m.role, _pm(m.f_hz, m.f_hz_u), _pm(m.loss_factor, m.loss_factor_u), where, window, m.rule))
-    out += [
+    out = [
         "<h3>Modes used</h3>",
         html_table(
             ("mode", "f, Hz", "loss factor η", "from", "predicted window, Hz", "how it was chosen"),
@@ -1140,6 +1216,11 @@ def moduli_section(result: ModuliResult) -> Section:
         "<h4>Predicted modes</h4>",
         html_table(("mode", "predicted, Hz", "window, Hz", "found, Hz"), pred_rows, numeric=[False, True, True, True]),
     ]
+    return out
+
+
+def _moduli_budget(result: ModuliResult) -> list[str]:
+    """The uncertainty budget: one row per input with a nonzero uncertainty."""
     unit = {"e_pa": "Pa", "g_pa": "Pa", "poisson": "", "density_kg_per_m3": "kg/m³"}
     b_rows = [
         (
@@ -1154,7 +1235,7 @@ def moduli_section(result: ModuliResult) -> Section:
         for b in result.budget
         if b.input_u > 0
     ]
-    out += [
+    return [
         "<h3>Uncertainty budget</h3>",
         html_table(
             ("quantity", "input", "value (SI)", "u (SI)", "sensitivity", "contribution", "share"),
@@ -1162,8 +1243,3 @@ def moduli_section(result: ModuliResult) -> Section:
             numeric=[False, False, True, True, True, True, True],
         ),
     ]
-    if result.warnings:
-        lis = "".join(f'<li>{_e(w.message)} <span class="code">({_e(w.code)})</span></li>' for w in result.warnings)
-        out.append(f'<h3>Warnings</h3><ul class="warnings">{lis}</ul>')
-    out.append(_MODULI_FORMULAS)
-    return Section(MODULI_SECTION_TITLE, "".join(out), anchor="moduli")

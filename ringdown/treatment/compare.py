@@ -60,18 +60,30 @@ from __future__ import annotations
 
 import math
 import os
-import statistics
 from collections.abc import Sequence
-from dataclasses import asdict, dataclass, field
 from typing import Any
 
 import numpy as np
 
-from .._version import __version__
-from ..analysis.results import Analysis, Mode, Notice
+from ..analysis.results import Analysis, Notice
 from ..base.errors import InputError, ParameterError
 from ..base.matching import match_frequencies
-from ..base.readthrough import ReadThrough
+from .results import (
+    CARRIED_WARNING_CODES,
+    MIN_REPEATS,
+    QUANTITIES,
+    VERDICT_DECREASED,
+    VERDICT_INCREASED,
+    VERDICT_NO_CHANGE,
+    VERDICT_NOT_TESTED,
+    Comparison,
+    ComparisonInput,
+    ConditionMode,
+    DampingChange,
+    FrequencyShift,
+    ModeComparison,
+)
+from .stats import _condition_mode, _f_d_sample, _log_zeta_sample, _Member, _pool, _two_sample, _verdict
 
 __all__ = [
     "CARRIED_WARNING_CODES",
@@ -84,506 +96,13 @@ __all__ = [
     "compare",
     "comparison_rows",
     "match_frequencies",
+    "MIN_REPEATS",
+    "QUANTITIES",
+    "VERDICT_DECREASED",
+    "VERDICT_INCREASED",
+    "VERDICT_NO_CHANGE",
+    "VERDICT_NOT_TESTED",
 ]
-
-#: Mode (and hit) warning codes that are carried into a compared mode's warnings.
-CARRIED_WARNING_CODES = ("clipped", "amplitude_dependent", "stationary_tone")
-
-#: Quantities summarised per condition (mean and standard uncertainty), in report order.
-QUANTITIES = (
-    "f_d_hz", "f_n_hz", "beta_per_s", "zeta", "q", "loss_factor",
-    "log_decrement", "decay_db_per_s", "t60_s",
-)  # fmt: skip
-
-#: Below this many repeats on a side, a notice ``few_repeats`` is given (common practice, no
-#: source: with 2 repeats the Welch interval rests on one degree of freedom per side).
-MIN_REPEATS = 3
-
-VERDICT_INCREASED = "increased"
-VERDICT_DECREASED = "decreased"
-VERDICT_NO_CHANGE = "no significant change"
-VERDICT_NOT_TESTED = "not tested"
-
-
-# --------------------------------------------------------------------------------------------
-# Result types
-# --------------------------------------------------------------------------------------------
-
-
-@dataclass(frozen=True, slots=True)
-class ComparisonInput:
-    """One recording given to a comparison and what it contributed.
-
-    Attributes
-    ----------
-    side : {"before", "after"}
-    path : str or None
-        Source file (``None`` for an analysis of an array).
-    channel : str or None
-    sample_rate_hz : float or None
-    n_repeats : int
-        Number of repeats (used hits with modes) taken from this recording.
-    error : Notice or None
-        Why the recording could not be analysed; ``None`` when it was.
-    """
-
-    side: str
-    path: str | None
-    channel: str | None
-    sample_rate_hz: float | None
-    n_repeats: int
-    error: Notice | None = None
-
-    def to_dict(self) -> dict:
-        return {
-            "side": self.side,
-            "path": self.path,
-            "channel": self.channel,
-            "sample_rate_hz": self.sample_rate_hz,
-            "n_repeats": self.n_repeats,
-            "error": None if self.error is None else self.error.to_dict(),
-        }
-
-
-@dataclass(frozen=True, slots=True, eq=False)
-class ConditionMode:
-    """One reference mode of one condition: its repeats pooled, with means and uncertainties.
-
-    Attributes
-    ----------
-    side : {"before", "after"}
-    n_repeats : int
-        Repeats in which this mode was found.
-    n_repeats_side : int
-        Repeats of the whole condition (the mode may be missing from some).
-    values : dict of str -> float
-        Mean over the repeats of each quantity in :data:`QUANTITIES` (``f_d_hz`` Hz, ``f_n_hz``
-        Hz, ``beta_per_s`` 1/s, ``zeta``, ``q``, ``loss_factor``, ``log_decrement`` (1),
-        ``decay_db_per_s`` dB/s, ``t60_s`` s).
-    uncertainties : dict of str -> float or None
-        Standard uncertainty of each mean, same unit: sample standard deviation / sqrt(n) when
-        ``n_repeats >= 2``, else the repeat's propagated uncertainty (``None`` when it had none).
-    zeta_interval : (float, float) or None
-        Interval for the damping ratio at the comparison's confidence, from the log scale:
-        ``exp(mean ln zeta -+ k u(ln zeta))`` with k from Student t (n - 1 dof) or the normal law
-        for one repeat.
-    repeat_f_d_hz, repeat_zeta : tuple of float
-        Each repeat's damped frequency (Hz) and damping ratio, in the order of ``sources``.
-    sources : tuple of str
-        Each repeat's origin, ``"path#hit"`` (hit numbered from 1).
-    warnings : tuple of Notice
-        Codes from :data:`CARRIED_WARNING_CODES` found on this side, with counts.
-    """
-
-    side: str
-    n_repeats: int
-    n_repeats_side: int
-    values: dict
-    uncertainties: dict
-    zeta_interval: tuple[float, float] | None
-    repeat_f_d_hz: tuple[float, ...]
-    repeat_zeta: tuple[float, ...]
-    sources: tuple[str, ...]
-    warnings: tuple[Notice, ...] = ()
-
-    # each quantity's mean and its standard uncertainty, read through to ``values`` and
-    # ``uncertainties`` (one pair per name in QUANTITIES; units there)
-    f_d_hz = ReadThrough[float]("values")
-    f_d_hz_u = ReadThrough[float | None]("uncertainties", "f_d_hz")
-    f_n_hz = ReadThrough[float]("values")
-    f_n_hz_u = ReadThrough[float | None]("uncertainties", "f_n_hz")
-    beta_per_s = ReadThrough[float]("values")
-    beta_per_s_u = ReadThrough[float | None]("uncertainties", "beta_per_s")
-    zeta = ReadThrough[float]("values")
-    zeta_u = ReadThrough[float | None]("uncertainties", "zeta")
-    q = ReadThrough[float]("values")
-    q_u = ReadThrough[float | None]("uncertainties", "q")
-    loss_factor = ReadThrough[float]("values")
-    loss_factor_u = ReadThrough[float | None]("uncertainties", "loss_factor")
-    log_decrement = ReadThrough[float]("values")
-    log_decrement_u = ReadThrough[float | None]("uncertainties", "log_decrement")
-    decay_db_per_s = ReadThrough[float]("values")
-    decay_db_per_s_u = ReadThrough[float | None]("uncertainties", "decay_db_per_s")
-    t60_s = ReadThrough[float]("values")
-    t60_s_u = ReadThrough[float | None]("uncertainties", "t60_s")
-
-    def to_dict(self) -> dict:
-        d: dict[str, Any] = {"side": self.side, "n_repeats": self.n_repeats, "n_repeats_side": self.n_repeats_side}
-        for q in QUANTITIES:
-            d[q] = self.values[q]
-            d[q + "_u"] = self.uncertainties[q]
-        d["zeta_interval"] = None if self.zeta_interval is None else list(self.zeta_interval)
-        d["repeat_f_d_hz"] = list(self.repeat_f_d_hz)
-        d["repeat_zeta"] = list(self.repeat_zeta)
-        d["sources"] = list(self.sources)
-        d["warnings"] = [w.to_dict() for w in self.warnings]
-        return d
-
-
-@dataclass(frozen=True, slots=True)
-class DampingChange:
-    """The change of one mode's damping, tested on ln(zeta).
-
-    Attributes
-    ----------
-    scale : str
-        Always ``"log_zeta"``: the test works on the natural log of the damping ratio.
-    ratio : float
-        ``exp(mean ln zeta_after - mean ln zeta_before)``: ratio of geometric means of zeta, the
-        same ratio for the loss factor; Q changes by ``1 / ratio``.
-    ratio_low, ratio_high : float or None
-        Interval of the ratio at ``confidence``.
-    log_ratio, log_ratio_u : float, float or None
-        The difference of mean ln(zeta) and its standard uncertainty.
-    dof : float or None
-        Degrees of freedom of the t interval; ``None`` for a z interval or no test.
-    p_value : float or None
-        Two-sided p-value of "no change".
-    test : {"welch_t", "t_effective_dof", "z", "none"}
-    confidence : float
-    verdict : {"increased", "decreased", "no significant change", "not tested"}
-    """
-
-    scale: str
-    ratio: float
-    ratio_low: float | None
-    ratio_high: float | None
-    log_ratio: float
-    log_ratio_u: float | None
-    dof: float | None
-    p_value: float | None
-    test: str
-    confidence: float
-    verdict: str
-
-    def to_dict(self) -> dict:
-        return asdict(self)
-
-
-@dataclass(frozen=True, slots=True)
-class FrequencyShift:
-    """The shift of one mode's damped frequency, ``mean f_d after - mean f_d before``.
-
-    Attributes
-    ----------
-    shift_hz, shift_hz_u : float, float or None
-        The shift and its standard uncertainty, Hz.
-    low_hz, high_hz : float or None
-        Interval of the shift at ``confidence``, Hz.
-    relative : float
-        ``shift_hz / mean f_d before`` (multiply by 100 for percent).
-    dof, p_value, test, confidence, verdict
-        As in :class:`DampingChange`, on the linear scale of f_d.
-    """
-
-    shift_hz: float
-    shift_hz_u: float | None
-    low_hz: float | None
-    high_hz: float | None
-    relative: float
-    dof: float | None
-    p_value: float | None
-    test: str
-    confidence: float
-    verdict: str
-
-    @property
-    def percent(self) -> tuple[float, float | None, float | None]:
-        """The relative shift and its interval, in percent of the mean f_d before."""
-        if self.relative == 0 or self.shift_hz == 0:
-            f0 = None
-        else:
-            f0 = self.shift_hz / self.relative
-        scale = lambda v: None if v is None or f0 is None else 100.0 * v / f0  # noqa: E731
-        return 100.0 * self.relative, scale(self.low_hz), scale(self.high_hz)
-
-    def to_dict(self) -> dict:
-        return asdict(self)
-
-
-@dataclass(frozen=True, slots=True, eq=False)
-class ModeComparison:
-    """One mode found before and after the treatment.
-
-    Attributes
-    ----------
-    index : int
-        1-based, ascending frequency.
-    before, after : ConditionMode
-    changes : dict of str -> dict
-        Per quantity in :data:`QUANTITIES`: ``{"before", "after", "change", "ratio"}`` of the
-        means (``change = after - before`` in the quantity's unit, ``ratio = after / before``).
-    damping : DampingChange
-    frequency : FrequencyShift
-    warnings : tuple of Notice
-        ``few_repeats``, ``mode_sporadic`` and any of :data:`CARRIED_WARNING_CODES` from either
-        side.
-    """
-
-    index: int
-    before: ConditionMode
-    after: ConditionMode
-    changes: dict
-    damping: DampingChange
-    frequency: FrequencyShift
-    warnings: tuple[Notice, ...] = ()
-
-    @property
-    def verdict(self) -> str:
-        return self.damping.verdict
-
-    def to_dict(self) -> dict:
-        return {
-            "index": self.index,
-            "before": self.before.to_dict(),
-            "after": self.after.to_dict(),
-            "changes": {k: dict(v) for k, v in self.changes.items()},
-            "damping": self.damping.to_dict(),
-            "frequency": self.frequency.to_dict(),
-            "warnings": [w.to_dict() for w in self.warnings],
-        }
-
-
-@dataclass(frozen=True, slots=True, eq=False)
-class Comparison:
-    """A before/after comparison of one part's modes.
-
-    Attributes
-    ----------
-    modes : tuple of ModeComparison
-        Matched modes, ascending frequency.
-    unmatched_before, unmatched_after : tuple of ConditionMode
-        Reference modes with no partner inside the tolerance.
-    inputs : tuple of ComparisonInput
-        Every recording given, before then after, with errors for those that failed.
-    notices : tuple of Notice
-        ``few_repeats``, ``sample_rate_differs``, ``channel_differs``, ``input_failed``,
-        ``unmatched_modes``.
-    settings : dict
-        ``tolerance``, ``cluster_tolerance``, ``confidence``, ``damping_scale`` and the analysis
-        options used for paths.
-    before_analyses, after_analyses : tuple of Analysis
-        The analyses compared (not serialised; for plots and reports).
-    """
-
-    modes: tuple[ModeComparison, ...]
-    unmatched_before: tuple[ConditionMode, ...]
-    unmatched_after: tuple[ConditionMode, ...]
-    inputs: tuple[ComparisonInput, ...]
-    notices: tuple[Notice, ...]
-    settings: dict
-    n_repeats_before: int
-    n_repeats_after: int
-    before_analyses: tuple[Analysis, ...] = field(default=(), repr=False)
-    after_analyses: tuple[Analysis, ...] = field(default=(), repr=False)
-
-    @property
-    def failed_inputs(self) -> tuple[ComparisonInput, ...]:
-        return tuple(i for i in self.inputs if i.error is not None)
-
-    @property
-    def ok(self) -> bool:
-        """True when every input recording was analysed."""
-        return not self.failed_inputs
-
-    def to_dict(self) -> dict:
-        return {
-            "tool": {"name": "ringdown", "version": __version__},
-            "settings": dict(self.settings),
-            "before": {
-                "n_repeats": self.n_repeats_before,
-                "inputs": [i.to_dict() for i in self.inputs if i.side == "before"],
-            },
-            "after": {
-                "n_repeats": self.n_repeats_after,
-                "inputs": [i.to_dict() for i in self.inputs if i.side == "after"],
-            },
-            "modes": [m.to_dict() for m in self.modes],
-            "unmatched_before": [m.to_dict() for m in self.unmatched_before],
-            "unmatched_after": [m.to_dict() for m in self.unmatched_after],
-            "notices": [n.to_dict() for n in self.notices],
-        }
-
-
-# --------------------------------------------------------------------------------------------
-# Matching
-# --------------------------------------------------------------------------------------------
-
-
-@dataclass(slots=True)
-class _Member:
-    mode: Mode
-    source: str
-    repeat: int
-    codes: tuple[str, ...]
-
-
-def _pool(repeats: list[list[_Member]], tolerance: float) -> list[list[_Member]]:
-    """Group each repeat's modes into reference modes (one mode per repeat per group)."""
-    order = sorted(range(len(repeats)), key=lambda r: -len(repeats[r]))  # stable: most modes first
-    clusters: list[list[_Member]] = []
-    for r in order:
-        members = sorted(repeats[r], key=lambda mm: mm.mode.f_d_hz)
-        if not members:
-            continue
-        clusters.sort(key=lambda c: statistics.median(mm.mode.f_d_hz for mm in c))
-        centres = [statistics.median(mm.mode.f_d_hz for mm in c) for c in clusters]
-        pairs = match_frequencies(centres, [mm.mode.f_d_hz for mm in members], tolerance=tolerance)
-        used = set()
-        for i, j in pairs:
-            clusters[i].append(members[j])
-            used.add(j)
-        for j, mm in enumerate(members):
-            if j not in used:
-                clusters.append([mm])
-    clusters.sort(key=lambda c: statistics.median(mm.mode.f_d_hz for mm in c))
-    return clusters
-
-
-# --------------------------------------------------------------------------------------------
-# Statistics
-# --------------------------------------------------------------------------------------------
-
-
-@dataclass(slots=True)
-class _Sample:
-    """One side's repeats of one scalar on the working scale (ln zeta or f_d)."""
-
-    values: np.ndarray
-    u_single: float | None  # propagated standard uncertainty when there is one repeat
-
-    @property
-    def n(self) -> int:
-        return int(self.values.size)
-
-    @property
-    def mean(self) -> float:
-        return float(np.mean(self.values))
-
-    def sem(self) -> float | None:
-        if self.n >= 2:
-            return float(np.std(self.values, ddof=1) / math.sqrt(self.n))
-        return self.u_single
-
-
-def _two_sample(before: _Sample, after: _Sample, confidence: float):
-    """Difference after - before with interval, p-value, dof and the test used."""
-    from scipy import stats
-
-    diff = after.mean - before.mean
-    if before.n >= 2 and after.n >= 2:
-        var_b = float(np.var(before.values, ddof=1)) / before.n
-        var_a = float(np.var(after.values, ddof=1)) / after.n
-        se2 = var_a + var_b
-        if se2 > 0.0:
-            se = math.sqrt(se2)
-            # Welch-Satterthwaite degrees of freedom (Welch 1947, eq. 29; Satterthwaite 1946).
-            dof = se2**2 / (var_a**2 / (after.n - 1) + var_b**2 / (before.n - 1))
-            res = stats.ttest_ind(after.values, before.values, equal_var=False)
-            p = float(res.pvalue)
-            k = float(stats.t.ppf(0.5 + confidence / 2.0, dof))
-            return diff, se, dof, diff - k * se, diff + k * se, p, "welch_t"
-        # every repeat identical on both sides: no scatter to test against, no verdict.
-        return diff, None, None, None, None, None, "none"
-    single = [s for s in (before, after) if s.n == 1]
-    if any(s.u_single is None for s in single):
-        return diff, None, None, None, None, None, "none"
-    if len(single) == 1:
-        many = after if after.n >= 2 else before
-        var_many = float(np.var(many.values, ddof=1)) / many.n
-        u_one = single[0].u_single
-        assert u_one is not None  # checked above
-        var_one = u_one**2
-        se2 = var_many + var_one
-        if se2 <= 0.0:
-            return diff, None, None, None, None, None, "none"
-        se = math.sqrt(se2)
-        # Effective degrees of freedom, JCGM 100:2008 eq. (G.2b); the type B part counts as
-        # infinite degrees of freedom.
-        dof = math.inf if var_many == 0.0 else se2**2 / (var_many**2 / (many.n - 1))
-        if math.isinf(dof):
-            k = float(stats.norm.ppf(0.5 + confidence / 2.0))
-            p = float(2.0 * stats.norm.sf(abs(diff) / se))
-            return diff, se, None, diff - k * se, diff + k * se, p, "z"
-        k = float(stats.t.ppf(0.5 + confidence / 2.0, dof))
-        p = float(2.0 * stats.t.sf(abs(diff) / se, dof))
-        return diff, se, dof, diff - k * se, diff + k * se, p, "t_effective_dof"
-    assert before.u_single is not None and after.u_single is not None  # checked above
-    se2 = before.u_single**2 + after.u_single**2
-    if se2 <= 0.0:
-        return diff, None, None, None, None, None, "none"
-    se = math.sqrt(se2)
-    k = float(stats.norm.ppf(0.5 + confidence / 2.0))
-    p = float(2.0 * stats.norm.sf(abs(diff) / se))
-    return diff, se, None, diff - k * se, diff + k * se, p, "z"
-
-
-def _verdict(low: float | None, high: float | None) -> str:
-    if low is None or high is None:
-        return VERDICT_NOT_TESTED
-    if low > 0.0:
-        return VERDICT_INCREASED
-    if high < 0.0:
-        return VERDICT_DECREASED
-    return VERDICT_NO_CHANGE
-
-
-def _log_zeta_sample(members: list[_Member]) -> _Sample:
-    zeta = np.array([mm.mode.zeta for mm in members], dtype=float)
-    u = None
-    if len(members) == 1:
-        zu = members[0].mode.zeta_u
-        u = None if zu is None else float(zu) / float(zeta[0])  # u(ln z) = u(z) / z (GUM 5.1.2)
-    return _Sample(np.log(zeta), u)
-
-
-def _f_d_sample(members: list[_Member]) -> _Sample:
-    f = np.array([mm.mode.f_d_hz for mm in members], dtype=float)
-    u = None
-    if len(members) == 1:
-        fu = members[0].mode.f_d_hz_u
-        u = None if fu is None else float(fu)
-    return _Sample(f, u)
-
-
-def _condition_mode(side: str, members: list[_Member], n_side: int, confidence: float) -> ConditionMode:
-    from scipy import stats
-
-    members = sorted(members, key=lambda mm: mm.repeat)
-    n = len(members)
-    values: dict[str, float] = {}
-    uncs: dict[str, float | None] = {}
-    for q in QUANTITIES:
-        v = np.array([getattr(mm.mode, q) for mm in members], dtype=float)
-        values[q] = float(np.mean(v))
-        if n >= 2:
-            uncs[q] = float(np.std(v, ddof=1) / math.sqrt(n))
-        else:
-            u = getattr(members[0].mode, q + "_u")
-            uncs[q] = None if u is None else float(u)
-    lz = _log_zeta_sample(members)
-    se = lz.sem()
-    interval = None
-    if se is not None:
-        k = float(stats.t.ppf(0.5 + confidence / 2.0, n - 1) if n >= 2 else stats.norm.ppf(0.5 + confidence / 2.0))
-        interval = (float(math.exp(lz.mean - k * se)), float(math.exp(lz.mean + k * se)))
-    warnings = []
-    for code in CARRIED_WARNING_CODES:
-        count = sum(code in mm.codes for mm in members)
-        if count:
-            warnings.append(Notice(code, f"{side}: {count} of {n} repeats of this mode flagged '{code}'"))
-    return ConditionMode(
-        side=side,
-        n_repeats=n,
-        n_repeats_side=n_side,
-        values=values,
-        uncertainties=uncs,
-        zeta_interval=interval,
-        repeat_f_d_hz=tuple(float(mm.mode.f_d_hz) for mm in members),
-        repeat_zeta=tuple(float(mm.mode.zeta) for mm in members),
-        sources=tuple(mm.source for mm in members),
-        warnings=tuple(warnings),
-    )
 
 
 # --------------------------------------------------------------------------------------------
@@ -728,6 +247,27 @@ def compare(
         clusters = _pool(repeats, cluster_tolerance)
         pooled[side] = [(c, _condition_mode(side, c, len(repeats), confidence)) for c in clusters]
 
+    modes, unmatched_b, unmatched_a = _pair_modes(pooled, tolerance, confidence, notices)
+    settings = _compare_settings(tolerance, confidence, cluster_tolerance, analysis_options)
+    return Comparison(
+        modes=tuple(modes),
+        unmatched_before=unmatched_b,
+        unmatched_after=unmatched_a,
+        inputs=tuple(inputs),
+        notices=tuple(notices),
+        settings=settings,
+        n_repeats_before=len(sides["before"][1]),
+        n_repeats_after=len(sides["after"][1]),
+        before_analyses=tuple(sides["before"][0]),
+        after_analyses=tuple(sides["after"][0]),
+    )
+
+
+def _pair_modes(
+    pooled: dict, tolerance: float, confidence: float, notices: list[Notice]
+) -> tuple[list[ModeComparison], tuple[ConditionMode, ...], tuple[ConditionMode, ...]]:
+    """Pair the pooled modes of both sides by frequency (``tolerance``, relative) and compare each
+    pair; (comparisons, before only, after only), a notice appended when some have no partner."""
     f_b = [cm.values["f_d_hz"] for _, cm in pooled["before"]]
     f_a = [cm.values["f_d_hz"] for _, cm in pooled["after"]]
     pairs = match_frequencies(f_b, f_a, tolerance=tolerance)
@@ -749,26 +289,18 @@ def compare(
                 f"after {fmt(unmatched_a)}",
             )
         )
+    return modes, unmatched_b, unmatched_a
 
-    settings = {
+
+def _compare_settings(tolerance: float, confidence: float, cluster_tolerance: float, analysis_options: dict) -> dict:
+    """The comparison's settings as stored in its JSON."""
+    return {
         "tolerance": float(tolerance),
         "cluster_tolerance": float(cluster_tolerance),
         "confidence": float(confidence),
         "damping_scale": "log_zeta",
         "analysis_options": {k: _jsonable(v) for k, v in analysis_options.items()},
     }
-    return Comparison(
-        modes=tuple(modes),
-        unmatched_before=unmatched_b,
-        unmatched_after=unmatched_a,
-        inputs=tuple(inputs),
-        notices=tuple(notices),
-        settings=settings,
-        n_repeats_before=len(sides["before"][1]),
-        n_repeats_after=len(sides["after"][1]),
-        before_analyses=tuple(sides["before"][0]),
-        after_analyses=tuple(sides["after"][0]),
-    )
 
 
 def _check_compare_options(tolerance: float, confidence: float, cluster_tolerance: float) -> None:

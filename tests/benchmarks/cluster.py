@@ -54,15 +54,15 @@ def main(n_files: int = 200) -> None:
         paths = _files(Path(tmp), n_files)
         ringdown.analyze_file(paths[0])  # warm-up: imports and caches of this process
         for jobs in (1, 2):
-            dt, res = _timed(lambda: ringdown.analyze_many(paths, jobs=jobs))
+            dt, res = _timed(lambda jobs=jobs: ringdown.analyze_many(paths, jobs=jobs))
             assert all(a.error is None for a in res)
             label = "this process (jobs=1)" if jobs == 1 else f"local process pool (jobs={jobs})"
             rows.append((label, dt, None))
         for n in (1, 2):
-            t_start, (client, cluster) = _timed(lambda: open_client(f"local:{n}"))
+            t_start, (client, cluster) = _timed(lambda n=n: open_client(f"local:{n}"))
             try:
                 client.run(ringdown.analyze_file, paths[0])  # warm-up of each worker, not timed
-                dt, res = _timed(lambda: ringdown.analyze_many(paths, client=client))
+                dt, res = _timed(lambda client=client: ringdown.analyze_many(paths, client=client))
                 assert all(a.error is None for a in res)
             finally:
                 client.close()

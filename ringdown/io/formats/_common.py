@@ -9,17 +9,9 @@ import re
 import numpy as np
 
 from ...base.errors import InputError, ParameterError
-from ..read import (
-    _RATE_RTOL,
-    MAX_TIMING_JITTER,
-    MIN_SAMPLES,
-    _check_length,
-    _fmt_bytes,
-    _one_line,
-    _parse_index,
-    sha256_file,
-)
+from ..files import _RATE_RTOL, MIN_SAMPLES, _check_length, _fmt_bytes, _one_line, _parse_index, sha256_file
 from ..recording import Recording
+from ..text import MAX_TIMING_JITTER
 
 #: How many names an error message lists before it says how many more there are.
 _LISTED = 12
@@ -142,7 +134,7 @@ def resolve_rate(file_rate: float | None, source: str | None, given: float | Non
 def rate_from_time(t: np.ndarray, name: str, label: str, *, resolution: float | None = None) -> float:
     """Sample rate (Hz) of a time vector in seconds: ``(n - 1) / (t[-1] - t[0])``.
 
-    The steps must increase and be uniform within :data:`ringdown.io.read.MAX_TIMING_JITTER` (relative
+    The steps must increase and be uniform within :data:`ringdown.io.text.MAX_TIMING_JITTER` (relative
     RMS deviation from the mean step), as for a text file's time column; with ``resolution`` (s,
     the step the values were printed to), steps uneven only through that printing (each within
     one resolution of the mean step, the resolution below half a step) are accepted too.

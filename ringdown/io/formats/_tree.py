@@ -29,7 +29,7 @@ from typing import Any
 import numpy as np
 
 from ...base.errors import InputError
-from ..read import _RATE_RTOL
+from ..files import _RATE_RTOL
 from ..recording import Recording
 from ._common import (
     MIN_SAMPLES,

@@ -1,6 +1,6 @@
 """HDF5 files, and MATLAB v7.3 files (HDF5 with MATLAB's layout), read with h5py.
 
-Every numeric dataset of one or two dimensions with at least :data:`ringdown.io.read.MIN_SAMPLES`
+Every numeric dataset of one or two dimensions with at least :data:`ringdown.io.files.MIN_SAMPLES`
 samples, anywhere in the file, is a channel named by its path (``"run1/accel"``; ``"accel:2"``
 for the second channel of a 2-D dataset); a dataset's own name works when only one has it. The
 sample rate and unit come from the names listed in :mod:`ringdown.io.formats._tree`.

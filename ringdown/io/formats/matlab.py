@@ -15,7 +15,7 @@ from functools import partial
 import numpy as np
 
 from ...base.errors import InputError
-from ..read import _fmt_bytes
+from ..files import _fmt_bytes
 from ..recording import Recording
 from ._common import reason
 from ._tree import Array, Node, read_signal

@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import math
 import re
+from typing import Any
 
 import numpy as np
 
@@ -85,6 +86,27 @@ def read(name: str, *, channel: int | str | None = None, sample_rate: float | No
     ParameterError
         Unknown or ambiguous dataset, or a sample rate that contradicts the file.
     """
+    uff, types = _open_checked(name)
+    sets58 = [i for i, t in enumerate(types) if t == 58]
+    if not sets58:
+        raise InputError(
+            f"{name!r} holds UFF datasets {', '.join(str(t) for t in sorted(set(types)))} but no dataset 58; "
+            "ringdown reads measured time data from dataset 58 only: export the time records as dataset 58"
+        )
+    headers = [_read_set(uff, i, name, header_only=True) for i in sets58]
+    k, label = _choose_dataset(headers, channel, name)
+    head = headers[k]
+    _check_time_record(head, label, name, limit)
+    data = _read_set(uff, sets58[k], name)
+    samples = real_samples(np.asarray(data.get("data", [])), name, label, limit)
+    file_rate, source = _file_rate(head, data, samples, label, name)
+    rate = resolve_rate(file_rate, source, sample_rate, name, label)
+    return recording(samples, rate, label, head.get("ordinate_axis_units_lab"), name, len(sets58))
+
+
+def _open_checked(name: str) -> tuple[Any, list[int]]:
+    """The pyuff reader of ``name`` and its datasets' types; InputError for a damaged, empty or
+    truncated file (pyuff would drop an unclosed last dataset silently)."""
     pyuff = need("pyuff", "UFF", name)
     try:
         uff = pyuff.UFF(name)
@@ -110,13 +132,12 @@ def read(name: str, *, channel: int | str | None = None, sample_rate: float | No
         raise InputError(
             f"the last dataset of {name!r} is not closed by a '    -1' line: the file is truncated; export it again"
         )
-    sets58 = [i for i, t in enumerate(types) if t == 58]
-    if not sets58:
-        raise InputError(
-            f"{name!r} holds UFF datasets {', '.join(str(t) for t in sorted(set(types)))} but no dataset 58; "
-            "ringdown reads measured time data from dataset 58 only: export the time records as dataset 58"
-        )
-    headers = [_read_set(uff, i, name, header_only=True) for i in sets58]
+    return uff, types
+
+
+def _choose_dataset(headers: list[dict], channel: int | str | None, name: str) -> tuple[int, str]:
+    """(position among the datasets 58, label) of the one ``channel`` names: a 1-based number or
+    ID line 1 (unique IDs are the labels; repeated or empty ones are numbered)."""
     ids = [str(h.get("id1", "") or "").strip() for h in headers]
     labels = []
     for k, id1 in enumerate(ids, start=1):
@@ -127,9 +148,11 @@ def read(name: str, *, channel: int | str | None = None, sample_rate: float | No
         if id1:
             aliases.setdefault(id1.lower(), []).append(k)
     k = pick(channel, labels, name, what="dataset 58", aliases=aliases)
-    label = labels[k]
-    head = headers[k]
+    return k, labels[k]
 
+
+def _check_time_record(head: dict, label: str, name: str, limit: int) -> None:
+    """Refuse (InputError) a dataset that is not a real time response, or too large to decode."""
     func = int(head.get("func_type", 0))
     abscissa = int(head.get("abscissa_spec_data_type", 0))
     if func not in _TIME_FUNCTIONS or abscissa not in _TIME_ABSCISSA:
@@ -146,8 +169,10 @@ def read(name: str, *, channel: int | str | None = None, sample_rate: float | No
         raise InputError(f"dataset {label!r} of {name!r} holds complex values, not a time signal; pick a real one")
     check_size(int(head.get("num_pts", 0)), name, label, limit)
 
-    data = _read_set(uff, sets58[k], name)
-    samples = real_samples(np.asarray(data.get("data", [])), name, label, limit)
+
+def _file_rate(head: dict, data: dict, samples: np.ndarray, label: str, name: str) -> tuple[float, str]:
+    """(sample rate in Hz, where it came from): the abscissa increment of an evenly spaced
+    dataset, else the abscissa values (printed to six significant digits)."""
     if int(head.get("abscissa_spacing", 1)) == 1:
         inc = float(head.get("abscissa_inc", 0.0))
         file_rate = _rate_from_increment(inc)
@@ -163,8 +188,7 @@ def read(name: str, *, channel: int | str | None = None, sample_rate: float | No
         printed = 10.0 ** (math.floor(math.log10(max(float(np.max(np.abs(x))), 1e-300))) - 5)
         file_rate = rate_from_time(x, name, label, resolution=printed)
         source = "uneven abscissa values"
-    rate = resolve_rate(file_rate, source, sample_rate, name, label)
-    return recording(samples, rate, label, head.get("ordinate_axis_units_lab"), name, len(sets58))
+    return file_rate, source
 
 
 def _read_set(uff, i: int, name: str, header_only: bool = False) -> dict:
