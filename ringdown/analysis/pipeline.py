@@ -1296,18 +1296,26 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
         fit_seg[:n_win] = _subtract_poles(
             seg[:n_win], fs, [(c.f_hz, beta_of(c)) for c in fixed], keep=[(c.f_hz, beta_of(c)) for c in others]
         )
-    ests = estimate_real(
-        fit_seg,
-        fs,
-        t0_s=(start + ctx.i0) / fs,
-        poles=poles,
-        n_targets=len(targets),
-        duration_s=dur,
-        noise_f=ctx.noise_f,
-        noise_p=ctx.noise_p,
-    )
+
+    def fit(duration_s: float) -> list[Estimate]:
+        return estimate_real(
+            fit_seg,
+            fs,
+            t0_s=(start + ctx.i0) / fs,
+            poles=poles,
+            n_targets=len(targets),
+            duration_s=duration_s,
+            noise_f=ctx.noise_f,
+            noise_p=ctx.noise_p,
+        )
+
+    ests = fit(dur)
+    try:
+        half = fit(0.5 * dur)
+    except FitError:
+        half = []
     modes = []
-    for est in ests:
+    for est in (_with_model_error(e, half) for e in ests):
         if DB_PER_NEPER * est.beta_per_s * t_rest < 6.0:
             # decays less than 6 dB over the whole hit: a steady tone, as in _is_stationary
             continue
@@ -1322,6 +1330,51 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
 MAX_RAW_NUISANCE = 3
 
 
+def _with_model_error(est: Estimate, half: Sequence[Estimate]) -> Estimate:
+    """``est`` with its standard uncertainties widened by the excess spread of the same raw fit
+    over the first half of its window (``half``, the estimate nearest in frequency within
+    ``max(beta / pi, 3 u(f))`` of it).
+
+    The half window's data are a subset of the full window's: with a right model and an
+    efficient estimator the difference of the two has variance ``u_half^2 - u^2`` (Hausman 1978
+    [from memory]). A larger difference is model error (a neighbour left out, a wrong start, a
+    decay that is not exponential); its excess ``max(0, d^2 - (u_half^2 - u^2))`` is added to
+    ``u^2``, for f_d and beta each, and the estimate carries a ``model_error`` warning when that
+    more than doubles a u."""
+    near = [h for h in half if abs(h.f_d_hz - est.f_d_hz) <= max(est.beta_per_s / math.pi, 3.0 * (est.f_d_hz_u or 0.0))]
+    if not near or est.f_d_hz_u is None or est.beta_per_s_u is None:
+        return est
+    h = min(near, key=lambda h: abs(h.f_d_hz - est.f_d_hz))
+    new_u = {}
+    for q in ("f_d_hz", "beta_per_s"):
+        u, uh = getattr(est, q + "_u"), getattr(h, q + "_u") or 0.0
+        d = getattr(h, q) - getattr(est, q)
+        new_u[q] = math.sqrt(u * u + max(0.0, d * d - max(uh * uh - u * u, 0.0)))
+    if new_u["f_d_hz"] == est.f_d_hz_u and new_u["beta_per_s"] == est.beta_per_s_u:
+        return est
+    widened = [
+        f"{q} {getattr(est, q + '_u'):.3g} -> {new_u[q]:.3g}"
+        for q in ("f_d_hz", "beta_per_s")
+        if new_u[q] > 2.0 * getattr(est, q + "_u")
+    ]
+    notes = est.warnings
+    if widened:
+        notes = notes + (
+            Notice(
+                "model_error",
+                "the fit over the first half of its window differs beyond its noise; u widened ("
+                + ", ".join(widened)
+                + ")",
+            ),
+        )
+    return replace(
+        est,
+        f_d_hz_u=new_u["f_d_hz"],
+        beta_per_s_u=new_u["beta_per_s"],
+        warnings=notes,
+    )
+
+
 def _make_raw_mode(est: Estimate, noise_rms: float, seg: np.ndarray, fs: float, t0_s: float) -> Mode:
     derived = derive(
         est.f_d_hz, est.beta_per_s, f_d_hz_u=est.f_d_hz_u, beta_per_s_u=est.beta_per_s_u, cov_f_beta=est.cov_f_beta
@@ -1330,7 +1383,7 @@ def _make_raw_mode(est: Estimate, noise_rms: float, seg: np.ndarray, fs: float, 
         raise FitError("the raw fit returned no fit window or amplitude")
     start, end, amplitude = est.fit_start_s, est.fit_end_s, est.amplitude
     cycles = est.f_d_hz * (end - start)
-    warnings = []
+    warnings = list(est.warnings)
     if cycles < 10:
         warnings.append(Notice("few_cycles", f"fit spans {cycles:.1f} cycles; 10 or more are advised"))
     n = min(seg.shape[0], int(round((end - start) * fs)) + 1)
@@ -1718,6 +1771,8 @@ def _amplitude_dependence(mode: Mode, band: Band, window: Window) -> Mode:
 
 def _make_mode(est: Estimate, others: dict[str, Estimate], band: Band, window: Window, extra: list[Notice]) -> Mode:
     warnings = list(est.warnings) + list(extra)
+    disagree = _disagreements(est, others)
+    est = _widened_by_disagreement(est, others)
     derived = derive(
         est.f_d_hz, est.beta_per_s, f_d_hz_u=est.f_d_hz_u, beta_per_s_u=est.beta_per_s_u, cov_f_beta=est.cov_f_beta
     )
@@ -1743,7 +1798,7 @@ def _make_mode(est: Estimate, others: dict[str, Estimate], band: Band, window: W
                 f"bandwidth {est.beta_per_s / math.pi:.3g} Hz; the decay rate may be biased",
             )
         )
-    warnings.extend(_disagreements(est, others))
+    warnings.extend(disagree)
     env_est = others.get("envelope") if est.method != "envelope" else est
     trace = _trace(est, band, window, env_est)
     return Mode(
@@ -1770,6 +1825,35 @@ _AGREEMENT_METHODS = ("pencil", "envelope", "decrement")
 _AGREEMENT_FLOOR = 0.005
 
 
+def _disagree(est: Estimate, other: Estimate, q: str) -> float | None:
+    """``|difference|`` of quantity ``q`` (``"f_d_hz"`` or ``"beta_per_s"``) between two
+    estimates when it exceeds 3 combined standard uncertainties and ``_AGREEMENT_FLOOR``, else None."""
+    a, b = getattr(est, q), getattr(other, q)
+    ua, ub = getattr(est, q + "_u"), getattr(other, q + "_u")
+    if ua is None or ub is None:
+        return None
+    uc = math.hypot(ua, ub)
+    d = abs(a - b)
+    return d if uc > 0 and d > 3 * uc and d > _AGREEMENT_FLOOR * abs(a) else None
+
+
+def _widened_by_disagreement(est: Estimate, others: dict[str, Estimate]) -> Estimate:
+    """``est`` with each standard uncertainty widened, in quadrature, by half the largest
+    difference to a time-domain cross-check that disagrees with it (``_disagree``): two
+    estimators of one quantity that differ beyond their noise show a model error of unknown
+    sign, and a u that reaches half way covers both at 2 u (common practice, no source)."""
+    if est.method not in _AGREEMENT_METHODS:
+        return est
+    new_u = {}
+    for q in ("f_d_hz", "beta_per_s"):
+        ds = [d for name, o in others.items() if name in _AGREEMENT_METHODS for d in [_disagree(est, o, q)] if d]
+        u = getattr(est, q + "_u")
+        new_u[q] = math.hypot(u, 0.5 * max(ds)) if ds and u is not None else u
+    if new_u["f_d_hz"] == est.f_d_hz_u and new_u["beta_per_s"] == est.beta_per_s_u:
+        return est
+    return replace(est, f_d_hz_u=new_u["f_d_hz"], beta_per_s_u=new_u["beta_per_s"])
+
+
 def _disagreements(est: Estimate, others: dict[str, Estimate]) -> list[Notice]:
     """Time-domain cross-checks (pencil, envelope, decrement) that differ from the reported
     estimate by more than 3 combined standard uncertainties (coverage factor 3: common
@@ -1780,17 +1864,15 @@ def _disagreements(est: Estimate, others: dict[str, Estimate]) -> list[Notice]:
         if name not in _AGREEMENT_METHODS or est.method not in _AGREEMENT_METHODS:
             continue
         for q, unit in (("beta_per_s", "1/s"), ("f_d_hz", "Hz")):
-            a, b = getattr(est, q), getattr(o, q)
-            ua, ub = getattr(est, q + "_u"), getattr(o, q + "_u")
-            if ua is None or ub is None:
-                continue
-            uc = math.hypot(ua, ub)
-            if uc > 0 and abs(a - b) > 3 * uc and abs(a - b) > _AGREEMENT_FLOOR * abs(a):
+            d = _disagree(est, o, q)
+            if d is not None:
+                a, b = getattr(est, q), getattr(o, q)
+                uc = math.hypot(getattr(est, q + "_u"), getattr(o, q + "_u"))
                 out.append(
                     Notice(
                         "methods_disagree",
                         f"{name} gives {q} = {b:.6g} {unit}, {est.method} {a:.6g} {unit} "
-                        f"(difference {abs(a - b) / uc:.1f} combined standard uncertainties)",
+                        f"(difference {d / uc:.1f} combined standard uncertainties)",
                     )
                 )
     return out
