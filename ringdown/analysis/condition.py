@@ -421,8 +421,9 @@ def find_hits(
         3 dB: a second contact adds energy, while modes beating faster than that window only
         move the energy between them.
     innovation_level_db : (n_samples,) ndarray or None
-        The level (same smoothing) of :func:`innovation` of the record. When given, a rise of
-        it by the same rules, against its own noise floor, is a hit too (a second tap while
+        The level of :func:`innovation` of the record (averaged over
+        :func:`innovation_smoothing`). When given, a rise of it by the same rules, against its
+        own noise floor, is a hit too (a second tap while
         modes of the first still ring barely raises the broadband level, but it raises the
         prediction error as much as the first tap did).
 
@@ -436,51 +437,91 @@ def find_hits(
     hold = max(w + 1, int(hold_off_samples) if hold_off_samples is not None else int(round(HOLD_OFF_WIDTHS * sm)))
     bw = int(bounce_window_samples) if bounce_window_samples is not None else int(round(BOUNCE_WIDTHS * sm))
     w = min(w, max(2, n - 1))
-    threshold = noise_db + min_hit_snr_db
-    idx = _rises(level_db, w, hold, rise_db, threshold)
+    onsets = _level_onsets(level_db, w, hold, rise_db, noise_db + min_hit_snr_db)
+    if not onsets:
+        return []
+    inn = level_db
+    from_innovation: set[int] = set()
+    if innovation_level_db is not None:
+        inn = np.asarray(innovation_level_db, dtype=np.float64)
+        kept = _innovation_onsets(inn, onsets, w, hold, rise_db, noise_floor_db(inn, sm) + min_hit_snr_db)
+        from_innovation = set(kept)
+        onsets = sorted(onsets + kept)
+    rules = _HitRules(sm, w, hold, bw, bounce_rise_db)
+    return [
+        sp
+        for j, k in enumerate(onsets)
+        for sp in [_span_at(level_db, inn if k in from_innovation else level_db, onsets, j, rules, slow_level_db)]
+        if sp is not None
+    ]
+
+
+@dataclass(frozen=True, slots=True)
+class _HitRules:
+    """The spans :func:`find_hits` works with, in samples."""
+
+    sm: int  #: smoothing width W
+    w: int  #: a rise happens within this many samples
+    hold: int  #: hits closer than this are one
+    bw: int  #: a bounce comes within this many samples
+    bounce_rise_db: float  #: a bounce rises this much, dB
+
+
+def _span_at(
+    level_db: np.ndarray,
+    ref: np.ndarray,
+    onsets: list[int],
+    j: int,
+    rules: _HitRules,
+    slow_level_db: np.ndarray | None,
+) -> HitSpan | None:
+    """The span of the hit that rises at ``onsets[j]``, timed on ``ref`` (the level that showed
+    it: a hit over ringing on the prediction error's); None when the record ends before it
+    leaves any decay. The centred smoothing turns a step in power into a ramp one smoothing
+    width long, centred on the step: the onset is where the ramp reaches half (-3 dB) of the
+    level just after it."""
+    n, sm, k = level_db.shape[0], rules.sm, onsets[j]
+    top = float(np.max(ref[k : min(n, k + sm + 1)]))
+    lo_i = max(0, k - sm)
+    reach = np.flatnonzero(ref[lo_i : k + sm + 1] >= top - 3.0103)
+    onset = lo_i + int(reach[0]) if reach.size else k
+    end = onsets[j + 1] - sm if j + 1 < len(onsets) else n
+    stop = min(end, onset + rules.hold + rules.bw)
+    if stop <= onset:
+        return None  # a rise in the record's last samples leaves no decay to measure
+    peak = onset + int(np.argmax(level_db[onset:stop]))
+    bounce = _find_bounce(level_db, k, rules.bw, rules.w, rules.bounce_rise_db, end, sm + rules.w)
+    if bounce is not None and slow_level_db is not None and not _energy_step(slow_level_db, k, bounce, sm):
+        bounce = None
+    return HitSpan(onset=onset, peak=peak, end=end, bounce=bounce, from_innovation=ref is not level_db)
+
+
+def _level_onsets(level_db: np.ndarray, w: int, hold: int, rise_db: float, threshold: float) -> list[int]:
+    """Indices of the sharp rises of ``level_db`` (:func:`_rises`), one per ``hold`` samples;
+    the first crossing of ``threshold`` when there is none (the first rise from a quiet start
+    has nothing before it); empty when the level never reaches ``threshold``."""
     onsets: list[int] = []
-    for k in idx:
+    for k in _rises(level_db, w, hold, rise_db, threshold):
         if onsets and k - onsets[-1] < hold:
             continue
         onsets.append(int(k))
-    # The first rise from a quiet start has nothing before it; take the first crossing too.
     if not onsets:
         above = np.flatnonzero(level_db >= threshold)
-        if above.size == 0:
-            return []
-        onsets = [int(above[0])]
-    inn = level_db
-    if innovation_level_db is not None:
-        inn = np.asarray(innovation_level_db, dtype=np.float64)
-        more = _rises(inn, w, hold, rise_db, noise_floor_db(inn, sm) + min_hit_snr_db)
-        kept: list[int] = []
-        for k in more:
-            if all(abs(int(k) - o) >= hold for o in onsets + kept) and int(k) > onsets[0]:
-                kept.append(int(k))
-        from_innovation = set(kept)
-        onsets = sorted(onsets + kept)
-    else:
-        from_innovation = set()
-    # The centred smoothing turns a step in power into a ramp one smoothing width long, centred
-    # on the step: the onset is where the ramp reaches half (-3 dB) of the level just after it.
-    spans: list[HitSpan] = []
-    for j, k in enumerate(onsets):
-        # a hit over ringing is timed on the level that showed it
-        ref = inn if k in from_innovation else level_db
-        top = float(np.max(ref[k : min(n, k + sm + 1)]))
-        lo_i = max(0, k - sm)
-        reach = np.flatnonzero(ref[lo_i : k + sm + 1] >= top - 3.0103)
-        onset = lo_i + int(reach[0]) if reach.size else k
-        end = onsets[j + 1] - sm if j + 1 < len(onsets) else n
-        stop = min(end, onset + hold + bw)
-        if stop <= onset:
-            continue  # a rise in the record's last samples leaves no decay to measure
-        peak = onset + int(np.argmax(level_db[onset:stop]))
-        bounce = _find_bounce(level_db, k, bw, w, bounce_rise_db, end, sm + w)
-        if bounce is not None and slow_level_db is not None and not _energy_step(slow_level_db, k, bounce, sm):
-            bounce = None
-        spans.append(HitSpan(onset=onset, peak=peak, end=end, bounce=bounce, from_innovation=k in from_innovation))
-    return spans
+        if above.size:
+            onsets = [int(above[0])]
+    return onsets
+
+
+def _innovation_onsets(
+    inn_db: np.ndarray, onsets: list[int], w: int, hold: int, rise_db: float, threshold: float
+) -> list[int]:
+    """Rises of the prediction error's level ``inn_db`` (:func:`_rises`) after the first of
+    ``onsets`` and at least ``hold`` samples from every onset: the hits only it shows."""
+    kept: list[int] = []
+    for k in _rises(inn_db, w, hold, rise_db, threshold):
+        if all(abs(int(k) - o) >= hold for o in onsets + kept) and int(k) > onsets[0]:
+            kept.append(int(k))
+    return kept
 
 
 def _rises(level_db: np.ndarray, w: int, hold: int, rise_db: float, threshold: float) -> np.ndarray:

@@ -357,93 +357,24 @@ def analyze_recording(
         settings.update(reader_settings)
     name = repr(rec.path) if rec.path else "the array"
     fs = rec.sample_rate
-    if rec.n_samples < MIN_SAMPLES:
-        raise InputError(f"{name} has {rec.n_samples} samples; at least {MIN_SAMPLES} are needed")
-    nyq = fs / 2.0
-    for lo, hi in opts.bands or ():
-        if hi > nyq:
-            raise ParameterError(
-                f"band {lo:g}-{hi:g} Hz lies above Nyquist ({nyq:g} Hz) for {name}; lower the band or resample"
-            )
-    raw, i0 = _time_window(rec, opts, name)
+    raw, i0 = _checked_samples(rec, opts, name)
     i0 += int(sample_offset)
-    peak_abs = float(np.max(np.abs(raw)))
-    if peak_abs > MAX_ABS_SAMPLE:
-        raise InputError(
-            f"{name} holds values up to {peak_abs:.3g}, beyond the {MAX_ABS_SAMPLE:g} that can be squared "
-            "without overflow; rescale the signal (e.g. to volts or m/s^2)"
-        )
-    if float(np.ptp(raw)) == 0.0:
-        raise InputError(f"{name} is constant (every sample is {raw[0]:g}): nothing rings down")
     x, step, f_dom = condition.remove_drift_and_step(raw, fs)
     scale = float(np.max(np.abs(x)))
     if scale == 0.0 or scale < 1e-12 * max(float(np.max(np.abs(raw))), 1e-300):
         raise InputError(f"{name} holds only a constant offset or a straight drift: nothing rings down")
-
-    smoothing = condition.envelope_smoothing(x, fs, dominant_hz=f_dom)
-    level = condition.envelope_db(x, fs, smoothing=smoothing)
-    noise_db = condition.noise_floor_db(level, smoothing)
-    slow = condition.envelope_db(x, fs, smoothing=2 * smoothing)
-    # the prediction error shows a second tap on a record still ringing from the first
-    inn = condition.innovation(x)
-    inn_level = condition.envelope_db(inn, fs, smoothing=condition.innovation_smoothing(inn, smoothing))
-    spans = condition.find_hits(
-        level,
-        fs,
-        noise_db=noise_db,
-        min_hit_snr_db=opts.min_hit_snr_db,
-        smoothing=smoothing,
-        slow_level_db=slow,
-        innovation_level_db=inn_level,
-    )
-    band_note = None
-    if not spans:
-        # a narrowband mode can stand far above its band's noise while the broadband level does
-        # not rise min_hit_snr_db: look for the hits in the band of the strongest spectral peak
-        found = _hits_in_strongest_band(x, fs, opts.min_hit_snr_db, smoothing)
-        if found is not None:
-            spans, f_band = found
-            band_note = Notice(
-                "hits_in_band",
-                f"the broadband level does not rise {opts.min_hit_snr_db:g} dB above its "
-                f"noise; hits were found in the band around {f_band:.1f} Hz",
-            )
-    if not spans:
-        peak_db = float(level.max() - noise_db)
-        hint = (
-            f"; it holds {rec.n_channels} channels (this is {rec.channel!r}): try another with --channel"
-            if rec.n_channels > 1
-            else ""
-        )
-        raise NoRingdownError(
-            f"no ring-down found in {name}: the envelope never rises {opts.min_hit_snr_db:g} dB above its "
-            f"noise floor (highest {peak_db:.1f} dB); check the gain, the trigger or the file{hint}"
-        )
+    lv = _levels(x, fs, f_dom)
+    spans, band_note = _find_spans(rec, name, lv, opts)
     # where each free decay starts: at the hit, or where a steady drive stops
-    spans = condition.free_decay_starts(raw, slow, spans, smoothing=smoothing, noise_db=noise_db)
+    spans = condition.free_decay_starts(raw, lv.slow, spans, smoothing=lv.smoothing, noise_db=lv.noise_db)
     if step is not None:
         # a step of the mean where a hit rises: a held deflection let go
         spans = [
-            replace(sp, kind="release") if sp.kind == "impulse" and abs(sp.onset - step) <= 2 * smoothing else sp
+            replace(sp, kind="release") if sp.kind == "impulse" and abs(sp.onset - step) <= 2 * lv.smoothing else sp
             for sp in spans
         ]
-    clipped = condition.find_clipping(raw, full_scale=rec.full_scale)
-    rec_warnings: list[Notice] = [band_note] if band_note is not None else []
-    if rec.n_channels > 1:
-        rec_warnings.append(
-            Notice(
-                "multichannel",
-                f"{name} holds {rec.n_channels} channels (or data columns); only "
-                f"{rec.channel!r} was analysed (choose another with --channel)",
-            )
-        )
-    rec_warnings.extend(Notice(code, message) for code, message in getattr(rec, "notes", ()))
-    if rec.timing_jitter is not None and rec.timing_jitter > 1e-6:
-        rec_warnings.append(
-            Notice("timing_jitter", f"time steps jitter by {100 * rec.timing_jitter:.3g} % RMS (accepted)")
-        )
-
-    noise_f, noise_p, noise_source, noise_note = _noise_spectrum(x, fs, spans, level, noise_db, smoothing)
+    rec_warnings = _record_notes(rec, name, band_note)
+    noise_f, noise_p, noise_source, noise_note = _noise_spectrum(x, fs, spans, lv.level, lv.noise_db, lv.smoothing)
     if noise_note is not None:
         rec_warnings.append(noise_note)
     tones = condition.steady_tones(noise_f, noise_p) if noise_source == "pre_trigger" else []
@@ -454,37 +385,22 @@ def analyze_recording(
                 f"steady tone near {f_tone:.1f} Hz before the hit (mains hum or another running source?); not a mode",
             )
         )
-
     ctx = _RecordContext(
         x=x,
         fs=fs,
         opts=opts,
         noise_f=noise_f,
         noise_p=noise_p,
-        noise_db=noise_db,
-        level=level,
-        clipped=clipped,
+        noise_db=lv.noise_db,
+        level=lv.level,
+        clipped=condition.find_clipping(raw, full_scale=rec.full_scale),
         tones=tuple(tones),
         i0=i0,
-        smoothing=smoothing,
-        burst=condition.burst_length(inn),
+        smoothing=lv.smoothing,
+        burst=condition.burst_length(lv.innovation),
     )
-    hits: list[Hit] = []
-    for j, span in enumerate(spans):
-        earlier = tuple(
-            (m.f_d_hz, max(m.beta_per_s / math.pi, 3.0 * (m.f_d_hz_u or 0.0))) for h in hits for m in h.modes
-        )
-        hits.append(_analyze_hit(ctx, span, prev_end=spans[j - 1].end if j > 0 else 0, earlier=earlier))
-
-    used = [h for h in hits if h.used and h.modes]
-    if not used and any(h.modes for h in hits):
-        # every measurable hit was flagged (e.g. as a bounce): better a flagged result than none
-        hits = [h if h.used or not h.modes else _keep(h) for h in hits]
-        used = [h for h in hits if h.used and h.modes]
-    if not used:
-        reasons = "; ".join(sorted({w.message for h in hits for w in h.warnings})) or "no mode stood above the noise"
-        raise NoRingdownError(f"no mode could be measured in {name}: {reasons}")
-    modes = _combine_hits(used)
+    hits = _measure_hits(ctx, spans, name)
+    modes = _combine_hits([h for h in hits if h.used and h.modes])
     for h in hits:
         rec_warnings.extend(
             w
@@ -503,11 +419,144 @@ def analyze_recording(
         warnings=tuple(_unique(rec_warnings)),
         error=None,
         settings=settings,
-        noise_floor=float(10 ** (noise_db / 20.0)),
+        noise_floor=float(10 ** (lv.noise_db / 20.0)),
         noise_source=noise_source,
         recording=rec,
         rejected=tuple(replace(r, hit=j + 1) for j, h in enumerate(hits) for r in h.rejected),
     )
+
+
+def _checked_samples(rec: Recording, opts: AnalysisOptions, name: str) -> tuple[np.ndarray, int]:
+    """The samples of ``rec`` to analyse (its time window) and the index of the first, after
+    the checks that refuse a recording or options no analysis can use (:class:`InputError`,
+    :class:`ParameterError`, one line naming ``name``)."""
+    fs = rec.sample_rate
+    if rec.n_samples < MIN_SAMPLES:
+        raise InputError(f"{name} has {rec.n_samples} samples; at least {MIN_SAMPLES} are needed")
+    nyq = fs / 2.0
+    for lo, hi in opts.bands or ():
+        if hi > nyq:
+            raise ParameterError(
+                f"band {lo:g}-{hi:g} Hz lies above Nyquist ({nyq:g} Hz) for {name}; lower the band or resample"
+            )
+    raw, i0 = _time_window(rec, opts, name)
+    peak_abs = float(np.max(np.abs(raw)))
+    if peak_abs > MAX_ABS_SAMPLE:
+        raise InputError(
+            f"{name} holds values up to {peak_abs:.3g}, beyond the {MAX_ABS_SAMPLE:g} that can be squared "
+            "without overflow; rescale the signal (e.g. to volts or m/s^2)"
+        )
+    if float(np.ptp(raw)) == 0.0:
+        raise InputError(f"{name} is constant (every sample is {raw[0]:g}): nothing rings down")
+    return raw, i0
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class _Levels:
+    """The smoothed levels of one conditioned record that hit detection works on."""
+
+    x: np.ndarray  #: (n_samples,) conditioned samples
+    fs: float  #: sample rate, Hz
+    smoothing: int  #: width W of the broadband level's smoothing (one period of the dominant frequency), samples
+    level: np.ndarray  #: (n_samples,) broadband level smoothed over W, dB
+    slow: np.ndarray  #: (n_samples,) broadband level smoothed over 2 W, dB
+    noise_db: float  #: broadband noise floor of ``level``, dB
+    innovation: np.ndarray  #: (n_samples,) prediction error of ``x`` (:func:`condition.innovation`)
+    innovation_level: np.ndarray  #: (n_samples,) its level over the burst length, dB
+
+
+def _levels(x: np.ndarray, fs: float, f_dom: float | None) -> _Levels:
+    """The levels of ``x`` (conditioned, (n,)) at ``fs`` Hz with dominant frequency ``f_dom``."""
+    smoothing = condition.envelope_smoothing(x, fs, dominant_hz=f_dom)
+    level = condition.envelope_db(x, fs, smoothing=smoothing)
+    # the prediction error shows a second tap on a record still ringing from the first
+    inn = condition.innovation(x)
+    return _Levels(
+        x=x,
+        fs=fs,
+        smoothing=smoothing,
+        level=level,
+        slow=condition.envelope_db(x, fs, smoothing=2 * smoothing),
+        noise_db=condition.noise_floor_db(level, smoothing),
+        innovation=inn,
+        innovation_level=condition.envelope_db(inn, fs, smoothing=condition.innovation_smoothing(inn, smoothing)),
+    )
+
+
+def _find_spans(
+    rec: Recording, name: str, lv: _Levels, opts: AnalysisOptions
+) -> tuple[list[condition.HitSpan], Notice | None]:
+    """The hits of the record (:func:`condition.find_hits`; in the band of the strongest
+    spectral peak when the broadband level shows none, with the ``hits_in_band`` notice
+    returned) or :class:`NoRingdownError`."""
+    spans = condition.find_hits(
+        lv.level,
+        lv.fs,
+        noise_db=lv.noise_db,
+        min_hit_snr_db=opts.min_hit_snr_db,
+        smoothing=lv.smoothing,
+        slow_level_db=lv.slow,
+        innovation_level_db=lv.innovation_level,
+    )
+    band_note = None
+    if not spans:
+        # a narrowband mode can stand far above its band's noise while the broadband level does
+        # not rise min_hit_snr_db: look for the hits in the band of the strongest spectral peak
+        found = _hits_in_strongest_band(lv.x, lv.fs, opts.min_hit_snr_db, lv.smoothing)
+        if found is not None:
+            spans, f_band = found
+            band_note = Notice(
+                "hits_in_band",
+                f"the broadband level does not rise {opts.min_hit_snr_db:g} dB above its "
+                f"noise; hits were found in the band around {f_band:.1f} Hz",
+            )
+    if not spans:
+        peak_db = float(lv.level.max() - lv.noise_db)
+        hint = (
+            f"; it holds {rec.n_channels} channels (this is {rec.channel!r}): try another with --channel"
+            if rec.n_channels > 1
+            else ""
+        )
+        raise NoRingdownError(
+            f"no ring-down found in {name}: the envelope never rises {opts.min_hit_snr_db:g} dB above its "
+            f"noise floor (highest {peak_db:.1f} dB); check the gain, the trigger or the file{hint}"
+        )
+    return spans, band_note
+
+
+def _record_notes(rec: Recording, name: str, band_note: Notice | None) -> list[Notice]:
+    """The recording-level notices: hits found in a band, other channels, the reader's notes, timing jitter."""
+    notes: list[Notice] = [band_note] if band_note is not None else []
+    if rec.n_channels > 1:
+        notes.append(
+            Notice(
+                "multichannel",
+                f"{name} holds {rec.n_channels} channels (or data columns); only "
+                f"{rec.channel!r} was analysed (choose another with --channel)",
+            )
+        )
+    notes.extend(Notice(code, message) for code, message in getattr(rec, "notes", ()))
+    if rec.timing_jitter is not None and rec.timing_jitter > 1e-6:
+        notes.append(Notice("timing_jitter", f"time steps jitter by {100 * rec.timing_jitter:.3g} % RMS (accepted)"))
+    return notes
+
+
+def _measure_hits(ctx: _RecordContext, spans: list[condition.HitSpan], name: str) -> list[Hit]:
+    """Every hit measured (:func:`_analyze_hit`, each knowing the modes of the hits before it);
+    :class:`NoRingdownError` when none gives a usable mode. When every measurable hit is flagged
+    (e.g. as a bounce), the flagged ones are used: better a flagged result than none."""
+    hits: list[Hit] = []
+    for j, span in enumerate(spans):
+        earlier = tuple(
+            (m.f_d_hz, max(m.beta_per_s / math.pi, 3.0 * (m.f_d_hz_u or 0.0))) for h in hits for m in h.modes
+        )
+        hits.append(_analyze_hit(ctx, span, prev_end=spans[j - 1].end if j > 0 else 0, earlier=earlier))
+    if not any(h.used and h.modes for h in hits) and any(h.modes for h in hits):
+        hits = [h if h.used or not h.modes else _keep(h) for h in hits]
+    if not any(h.used and h.modes for h in hits):
+        reasons = "; ".join(sorted({w.message for h in hits for w in h.warnings})) or "no mode stood above the noise"
+        raise NoRingdownError(f"no mode could be measured in {name}: {reasons}")
+    return hits
 
 
 def _time_window(rec: Recording, opts: AnalysisOptions, name: str) -> tuple[np.ndarray, int]:
@@ -736,30 +785,7 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
         # before a switch-off or release the record holds the drive, not the free decay: the
         # segment starts where the free decay does, as a tap's would in a silent record
         seg_start = span.onset
-    used = True
-    if span.doubt is not None:
-        warnings.append(Notice("start_uncertain", f"hit at {onset_s:.6g} s: {span.doubt}"))
-    if span.bounce is not None:
-        warnings.append(
-            Notice(
-                "double_hit",
-                f"hit at {onset_s:.6g} s has a second onset {1e3 * (span.bounce - span.onset) / fs:.3g} ms later (hammer bounce?)"
-                + ("" if opts.keep_double_hits else "; left out of the combined result"),
-            )
-        )
-        used = opts.keep_double_hits
-    clipped = ctx.clipped
-    clip_in = clipped[(clipped >= span.onset) & (clipped < seg_end)] if clipped.size else clipped
-    clip_end = None
-    if clip_in.size:
-        clip_end = int(clip_in[-1]) + 1
-        warnings.append(
-            Notice(
-                "clipped",
-                f"{clip_in.size} samples clipped between {(clip_in[0] + i0) / fs:.6g} and "
-                f"{(clip_end + i0) / fs:.6g} s; fits start after the clipping ends",
-            )
-        )
+    used, clip_end = _hit_notices(ctx, span, warnings)
     model = opts.detection == "model"
     decay_from = max(span.onset if model else span.peak, clip_end or 0)
     peak_value = float(np.max(np.abs(x[span.onset : seg_end])))
@@ -783,25 +809,10 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
         warnings.append(Notice("short_decay", f"hit at {onset_s:.6g} s leaves {seg_end - decay_from} samples of decay"))
         return hit(False)
 
-    # what the record held before the hit's rise (at least one smoothing width of it): bounds the
-    # amplitude any steady tone could have had there
-    rise = span.rise if span.rise is not None else span.onset
-    pre_x = x[prev_end : max(prev_end, rise - ctx.smoothing)]
-    pre_rms = (
-        float(np.sqrt(np.mean(pre_x**2))) if span.kind == "impulse" and pre_x.size >= max(ctx.smoothing, 16) else None
-    )
-    hctx = _HitContext(
-        record=ctx,
-        spec=spectrum_of(x[seg_start:seg_end], fs, t0_s=(seg_start + i0) / fs),
-        onset_s=onset_s,
-        clip_end=None if clip_end is None else clip_end + i0,
-        seg_end=seg_end + i0,
-        pre_rms=pre_rms,
-        earlier=earlier,
-        pre=pre_x if pre_rms is not None else None,
-    )
+    hctx = _hit_context(ctx, span, seg_start, prev_end, clip_end, earlier)
     rejected: list[Rejected] = []
     cands: list[Candidate] = []
+    start = decay_from
     if opts.bands is not None:
         groups: list[tuple[list[Peak], float, float, list[Candidate]]] = [([], lo, hi, []) for lo, hi in opts.bands]
     elif model:
@@ -809,16 +820,106 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
         cands, groups = _candidates(ctx, start, seg_end, rejected, parametric=clip_end is None, broad=clip_end is None)
     else:
         # spectral peaks of the decay as candidates: each one not reported as a mode is named
-        start = decay_from
         cands, groups = _candidates(ctx, start, seg_end, rejected, parametric=False, max_peaks=opts.max_modes)
-    modes: list[Mode] = []
-    failed: list[str] = []
     # the residual search looks at the decay from its first sample after the tap's force (a
     # fast decay can be gone by the broadband level's peak, one smoothing width on)
     resid_start = decay_from
     if span.kind == "impulse" and not model and opts.bands is None:
         resid_start = min(decay_from, _free_decay_start(ctx, span, clip_end) + ctx.burst)
     residual = opts.bands is None and not model and hctx.seg_end - ctx.i0 - resid_start >= MIN_SAMPLES
+    modes, failed, deferred = _measure_groups(hctx, groups, cands, start, residual, warnings, rejected)
+    if residual:
+        # after clipping, the residual holds what the clipped samples did to the decay: no broad search
+        more, more_rejected = _residual_round(
+            hctx, resid_start, modes, [c for c in cands if c not in deferred], deferred, broad=clip_end is None
+        )
+        modes.extend(more)
+        rejected.extend(more_rejected)
+    modes = _drop_driven(modes, onset_s, warnings)
+    if failed:
+        shown = "; ".join(failed[:3]) + (f"; and {len(failed) - 3} more" if len(failed) > 3 else "")
+        warnings.append(
+            Notice("fit_failed", f"{len(failed)} band(s) in the hit at {onset_s:.6g} s could not be fitted: {shown}")
+        )
+    modes = _strongest(modes, opts.max_modes, rejected)
+    modes = [m.with_updates(index=i + 1) for i, m in enumerate(modes)]
+    warnings.extend(r.notice() for r in rejected)
+    return hit(used, modes, rejected)
+
+
+def _hit_notices(ctx: _RecordContext, span, warnings: list[Notice]) -> tuple[bool, int | None]:
+    """The notices on one hit (an uncertain start, a bounce, clipping: appended to
+    ``warnings``); returns whether the hit is used (a bounce is left out unless
+    ``keep_double_hits``) and the first sample (index into ``ctx.x``) after its clipping, or None."""
+    fs, i0, opts = ctx.fs, ctx.i0, ctx.opts
+    onset_s = (span.onset + i0) / fs
+    used = True
+    if span.doubt is not None:
+        warnings.append(Notice("start_uncertain", f"hit at {onset_s:.6g} s: {span.doubt}"))
+    if span.bounce is not None:
+        warnings.append(
+            Notice(
+                "double_hit",
+                f"hit at {onset_s:.6g} s has a second onset {1e3 * (span.bounce - span.onset) / fs:.3g} ms later (hammer bounce?)"
+                + ("" if opts.keep_double_hits else "; left out of the combined result"),
+            )
+        )
+        used = opts.keep_double_hits
+    clipped = ctx.clipped
+    clip_in = clipped[(clipped >= span.onset) & (clipped < span.end)] if clipped.size else clipped
+    clip_end = None
+    if clip_in.size:
+        clip_end = int(clip_in[-1]) + 1
+        warnings.append(
+            Notice(
+                "clipped",
+                f"{clip_in.size} samples clipped between {(clip_in[0] + i0) / fs:.6g} and "
+                f"{(clip_end + i0) / fs:.6g} s; fits start after the clipping ends",
+            )
+        )
+    return used, clip_end
+
+
+def _hit_context(
+    ctx: _RecordContext, span, seg_start: int, prev_end: int, clip_end: int | None, earlier: tuple
+) -> _HitContext:
+    """The context of one hit whose segment is ``ctx.x[seg_start:span.end]``, with what the
+    record held before the hit's rise (at least one smoothing width of it, after ``prev_end``),
+    which bounds the amplitude any steady tone could have had there."""
+    x, fs, i0 = ctx.x, ctx.fs, ctx.i0
+    rise = span.rise if span.rise is not None else span.onset
+    pre_x = x[prev_end : max(prev_end, rise - ctx.smoothing)]
+    pre_rms = (
+        float(np.sqrt(np.mean(pre_x**2))) if span.kind == "impulse" and pre_x.size >= max(ctx.smoothing, 16) else None
+    )
+    return _HitContext(
+        record=ctx,
+        spec=spectrum_of(x[seg_start : span.end], fs, t0_s=(seg_start + i0) / fs),
+        onset_s=(span.onset + i0) / fs,
+        clip_end=None if clip_end is None else clip_end + i0,
+        seg_end=span.end + i0,
+        pre_rms=pre_rms,
+        earlier=earlier,
+        pre=pre_x if pre_rms is not None else None,
+    )
+
+
+def _measure_groups(
+    hctx: _HitContext,
+    groups: list[tuple[list[Peak], float, float, list[Candidate]]],
+    cands: list[Candidate],
+    start: int,
+    residual: bool,
+    warnings: list[Notice],
+    rejected: list[Rejected],
+) -> tuple[list[Mode], list[str], list[Candidate]]:
+    """The first pass over one hit's groups ``(peaks, lo_hz, hi_hz, candidates)``: each group
+    measured in its band (:func:`_measure_group`) or, too broad for one, on the raw record from
+    ``start`` (:func:`_measure_raw`), or deferred to the residual search when ``residual``.
+    Rejections are appended to ``rejected``, notices to ``warnings``. Returns the modes, the
+    bands that could not be fitted (as text) and the deferred candidates."""
+    modes: list[Mode] = []
+    failed: list[str] = []
     deferred: list[Candidate] = []
     for peaks_g, lo, hi, group_cands in groups:
         n_warn = len(warnings)
@@ -839,36 +940,27 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
         found, unmatched = _match_candidates(found, group_cands, steady)
         rejected.extend(unmatched)
         modes.extend(found)
-    if residual:
-        # after clipping, the residual holds what the clipped samples did to the decay: no broad search
-        more, more_rejected = _residual_round(
-            hctx, resid_start, modes, [c for c in cands if c not in deferred], deferred, broad=clip_end is None
-        )
-        modes.extend(more)
-        rejected.extend(more_rejected)
-    modes = _drop_driven(modes, onset_s, warnings)
-    if failed:
-        shown = "; ".join(failed[:3]) + (f"; and {len(failed) - 3} more" if len(failed) > 3 else "")
-        warnings.append(
-            Notice("fit_failed", f"{len(failed)} band(s) in the hit at {onset_s:.6g} s could not be fitted: {shown}")
-        )
-    modes.sort(key=lambda m: m.f_d_hz)
-    if opts.max_modes is not None and len(modes) > opts.max_modes:
-        ranked = sorted(modes, key=lambda m: -(m.amplitude or 0.0))
-        for m in ranked[opts.max_modes :]:
-            rejected.append(
-                Rejected(
-                    m.f_d_hz,
-                    m.beta_per_s,
-                    None,
-                    "max_modes",
-                    f"amplitude {m.amplitude:.3g} is below the {opts.max_modes} strongest",
-                )
+    return modes, failed, deferred
+
+
+def _strongest(modes: list[Mode], max_modes: int | None, rejected: list[Rejected]) -> list[Mode]:
+    """``modes`` by frequency, at most the ``max_modes`` of largest amplitude; the others are
+    ``max_modes`` rejections appended to ``rejected``."""
+    modes = sorted(modes, key=lambda m: m.f_d_hz)
+    if max_modes is None or len(modes) <= max_modes:
+        return modes
+    ranked = sorted(modes, key=lambda m: -(m.amplitude or 0.0))
+    for m in ranked[max_modes:]:
+        rejected.append(
+            Rejected(
+                m.f_d_hz,
+                m.beta_per_s,
+                None,
+                "max_modes",
+                f"amplitude {m.amplitude:.3g} is below the {max_modes} strongest",
             )
-        modes = sorted(ranked[: opts.max_modes], key=lambda m: m.f_d_hz)
-    modes = [m.with_updates(index=i + 1) for i, m in enumerate(modes)]
-    warnings.extend(r.notice() for r in rejected)
-    return hit(used, modes, rejected)
+        )
+    return sorted(ranked[:max_modes], key=lambda m: m.f_d_hz)
 
 
 #: Rounds of the residual search (each subtracts every mode measured so far and looks again).
