@@ -1038,23 +1038,9 @@ def _residual_round(
     decay = x[start:seg_end]
     res_hz = fs / decay.shape[0]
     if deferred:
-        resid = _subtract_modes(decay, fs, known)
-        peaks_d = [Peak(c.f_hz, float("nan"), float("nan"), c.width_hz, broad=True) for c in deferred]
-        of_peak = {id(p): c for p, c in zip(peaks_d, deferred)}
-        for g, _lo, _hi in group_bands(peaks_d, sample_rate=fs, resolution_hz=res_hz, barriers_hz=ctx.tones):
-            gc = [of_peak[id(p)] for p in g]
-            if _too_many(gc, rejected):
-                continue
-            try:
-                got = _measure_raw(hctx, gc, gc + _as_candidates(known, res_hz), start)
-            except FitError as exc:
-                rejected.extend(_rejection(c, "fit_failed", str(exc)) for c in gc)
-                continue
-            got = _resolved_raw(_new_near(got, gc, known, res_hz), rejected, gc)
-            got, unmatched = _match_candidates(got, gc, False)
-            rejected.extend(unmatched)
-            known += got
-            new_modes += got
+        got = _fit_deferred(hctx, start, deferred, known, res_hz, rejected)
+        known += got
+        new_modes += got
     for round_ in range(RESIDUAL_ROUNDS):
         resid = _subtract_modes(decay, fs, known)
         # broad peaks in the first residual only: after a strong broad mode is subtracted, its
@@ -1103,6 +1089,39 @@ def _residual_round(
         known += found_round
         new_modes += found_round
     return new_modes, rejected
+
+
+def _fit_deferred(
+    hctx: _HitContext,
+    start: int,
+    deferred: Sequence[Candidate],
+    known: list[Mode],
+    res_hz: float,
+    rejected: list[Rejected],
+) -> list[Mode]:
+    """The candidates too broad for a band (``deferred`` by the first pass), grouped and fitted
+    on the raw record from ``start`` with the ``known`` modes carried or subtracted
+    (:func:`_measure_raw`); what gives no resolved new mode is appended to ``rejected``.
+    ``res_hz`` is the decay's frequency resolution."""
+    ctx = hctx.record
+    found: list[Mode] = []
+    peaks_d = [Peak(c.f_hz, float("nan"), float("nan"), c.width_hz, broad=True) for c in deferred]
+    of_peak = {id(p): c for p, c in zip(peaks_d, deferred)}
+    for g, _lo, _hi in group_bands(peaks_d, sample_rate=ctx.fs, resolution_hz=res_hz, barriers_hz=ctx.tones):
+        gc = [of_peak[id(p)] for p in g]
+        if _too_many(gc, rejected):
+            continue
+        have = known + found
+        try:
+            got = _measure_raw(hctx, gc, gc + _as_candidates(have, res_hz), start)
+        except FitError as exc:
+            rejected.extend(_rejection(c, "fit_failed", str(exc)) for c in gc)
+            continue
+        got = _resolved_raw(_new_near(got, gc, have, res_hz), rejected, gc)
+        got, unmatched = _match_candidates(got, gc, False)
+        rejected.extend(unmatched)
+        found += got
+    return found
 
 
 def _new_near(got: list[Mode], cands: list[Candidate], known: Sequence[Mode], resolution_hz: float) -> list[Mode]:
@@ -1561,39 +1580,16 @@ def _measure_group(
     """The modes of one band ``lo``-``hi`` Hz holding the spectral peaks ``peaks_g`` (none when
     the band was given by the user); warnings about the hit are appended to ``hit_warnings``."""
     ctx = hctx.record
-    opts, fs, noise_f, noise_p, tones = ctx.opts, ctx.fs, ctx.noise_f, ctx.noise_p, ctx.tones
+    opts, fs, noise_f, noise_p = ctx.opts, ctx.fs, ctx.noise_f, ctx.noise_p
     spec, onset_s, clip_end, seg_end = hctx.spec, hctx.onset_s, hctx.clip_end, hctx.seg_end
     primary = opts.primary
     group_band = _extract(spec, lo, hi, noise_f, noise_p)
     # first guess of the decay rate from the spectral peaks' half-power width (beta ~ pi width)
     beta_hint = max((math.pi * p.width_hz for p in peaks_g), default=0.0)
-    ringing = bool(peaks_g) and all(hctx.rings_from_earlier(p.f_hz, p.width_hz) for p in peaks_g)
-    if peaks_g and not ringing and _steady_before_onset(group_band, onset_s, beta_hint):
-        near = 2.0 * (noise_f[1] - noise_f[0])  # two Welch bins
-        if all(any(abs(p.f_hz - f) <= near for f in tones) for p in peaks_g):
-            return []  # already named at the recording level
-        where = ", ".join(f"{p.f_hz:.1f}" for p in peaks_g)
-        hit_warnings.append(
-            Notice(
-                "stationary_tone",
-                f"steady tone at {where} Hz was already there before the hit "
-                "(mains hum or another running source?); not reported as a mode",
-            )
-        )
+    if _steady_group(hctx, group_band, peaks_g, beta_hint, hit_warnings):
         return []
     group_window = _window_for(group_band, onset_s, clip_end, seg_end, fs, opts.min_snr_db, beta_hint)
-    # single-mode sub-bands: one per peak, split at the midpoints
-    if len(peaks_g) > 1:
-        edges = [lo] + [0.5 * (a.f_hz + b.f_hz) for a, b in zip(peaks_g, peaks_g[1:])] + [hi]
-        subs = []
-        for a, b in zip(edges, edges[1:]):
-            sb = _extract(spec, a, b, noise_f, noise_p)
-            try:
-                subs.append((sb, _window_for(sb, onset_s, clip_end, seg_end, fs, opts.min_snr_db, beta_hint)))
-            except FitError:
-                continue
-    else:
-        subs = [(group_band, group_window)]
+    subs = _sub_bands(hctx, peaks_g, lo, hi, beta_hint) if len(peaks_g) > 1 else [(group_band, group_window)]
     cross: list[tuple[float, dict[str, Estimate], Band, Window]] = []
     joint: list[Estimate] | None = None  # every mode a multi-mode method found in the group band
     for sb, sw in subs:
@@ -1637,6 +1633,65 @@ def _measure_group(
             )
     if not primaries:
         raise FitError("no estimator found a decaying mode in the band")
+    return _group_modes(hctx, primaries, cross, extra, len(peaks_g) <= 1, hit_warnings)
+
+
+def _steady_group(
+    hctx: _HitContext, group_band: Band, peaks_g: list[Peak], beta_hint: float, hit_warnings: list[Notice]
+) -> bool:
+    """Whether a group's band held its peaks before the hit (:func:`_steady_before_onset`) and
+    none of them rings from an earlier hit: a steady tone, named in ``hit_warnings`` unless the
+    recording already named it (a tone of the pre-trigger within two Welch bins)."""
+    ctx = hctx.record
+    ringing = bool(peaks_g) and all(hctx.rings_from_earlier(p.f_hz, p.width_hz) for p in peaks_g)
+    if not peaks_g or ringing or not _steady_before_onset(group_band, hctx.onset_s, beta_hint):
+        return False
+    near = 2.0 * (ctx.noise_f[1] - ctx.noise_f[0])  # two Welch bins
+    if all(any(abs(p.f_hz - f) <= near for f in ctx.tones) for p in peaks_g):
+        return True  # already named at the recording level
+    where = ", ".join(f"{p.f_hz:.1f}" for p in peaks_g)
+    hit_warnings.append(
+        Notice(
+            "stationary_tone",
+            f"steady tone at {where} Hz was already there before the hit "
+            "(mains hum or another running source?); not reported as a mode",
+        )
+    )
+    return True
+
+
+def _sub_bands(
+    hctx: _HitContext, peaks_g: list[Peak], lo: float, hi: float, beta_hint: float
+) -> list[tuple[Band, Window]]:
+    """Single-mode sub-bands of the group ``lo``-``hi`` Hz, one per peak, split at the
+    midpoints, each with its fit window (a sub-band without one is left out)."""
+    ctx = hctx.record
+    edges = [lo] + [0.5 * (a.f_hz + b.f_hz) for a, b in zip(peaks_g, peaks_g[1:])] + [hi]
+    subs = []
+    for a, b in zip(edges, edges[1:]):
+        sb = _extract(hctx.spec, a, b, ctx.noise_f, ctx.noise_p)
+        try:
+            window = _window_for(sb, hctx.onset_s, hctx.clip_end, hctx.seg_end, ctx.fs, ctx.opts.min_snr_db, beta_hint)
+        except FitError:
+            continue
+        subs.append((sb, window))
+    return subs
+
+
+def _group_modes(
+    hctx: _HitContext,
+    primaries: list[tuple[Estimate, Band, Window]],
+    cross: list[tuple[float, dict[str, Estimate], Band, Window]],
+    extra: list[Notice],
+    single: bool,
+    hit_warnings: list[Notice],
+) -> list[Mode]:
+    """The modes of a group's primary estimates (with the cross-checks of the nearest
+    sub-band); steady tones are named in ``hit_warnings`` and left out, components that started
+    with the hit but whose decay is unresolved are kept with ``decay_unresolved``; a ``single``
+    mode's band is tested for amplitude dependence."""
+    seg_end = hctx.seg_end
+    fs = hctx.record.fs
     modes = []
     for est, band, window in primaries:
         if not cross:
@@ -1658,7 +1713,7 @@ def _measure_group(
                 continue
             unresolved_decay.append(_decay_unresolved(est))
         mode = _make_mode(est, others, band, window, extra + unresolved_decay)
-        if len(peaks_g) <= 1:
+        if single:
             mode = _amplitude_dependence(mode, sb, sw)
         modes.append(mode)
     return modes
