@@ -827,14 +827,21 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
     if span.kind == "impulse" and not model and opts.bands is None:
         resid_start = min(decay_from, _free_decay_start(ctx, span, clip_end) + ctx.burst)
     residual = opts.bands is None and not model and hctx.seg_end - ctx.i0 - resid_start >= MIN_SAMPLES
-    modes, failed, deferred = _measure_groups(hctx, groups, cands, start, residual, warnings, rejected)
+    modes, failed, deferred, retry = _measure_groups(hctx, groups, cands, start, residual, warnings, rejected)
     if residual:
         # after clipping, the residual holds what the clipped samples did to the decay: no broad search
-        more, more_rejected = _residual_round(
-            hctx, resid_start, modes, [c for c in cands if c not in deferred], deferred, broad=clip_end is None
-        )
+        tried = [c for c in cands if c not in deferred and c not in retry]
+        more, more_rejected = _residual_round(hctx, resid_start, modes, tried, deferred, broad=clip_end is None)
+        n_first = len(modes)
         modes.extend(more)
         rejected.extend(more_rejected)
+        # what the residual search did not find either is named now, as the first pass would have
+        # (against the first pass's modes only: a residual-search mode far from it is not its pair)
+        first, unmatched = _match_candidates(
+            modes[:n_first], [c for c in retry if not any(_near(m, c) for m in modes[n_first:])], False
+        )
+        modes = first + modes[n_first:]
+        rejected.extend(unmatched)
     modes = _drop_driven(modes, onset_s, warnings)
     if failed:
         shown = "; ".join(failed[:3]) + (f"; and {len(failed) - 3} more" if len(failed) > 3 else "")
@@ -912,15 +919,17 @@ def _measure_groups(
     residual: bool,
     warnings: list[Notice],
     rejected: list[Rejected],
-) -> tuple[list[Mode], list[str], list[Candidate]]:
+) -> tuple[list[Mode], list[str], list[Candidate], list[Candidate]]:
     """The first pass over one hit's groups ``(peaks, lo_hz, hi_hz, candidates)``: each group
     measured in its band (:func:`_measure_group`) or, too broad for one, on the raw record from
     ``start`` (:func:`_measure_raw`), or deferred to the residual search when ``residual``.
     Rejections are appended to ``rejected``, notices to ``warnings``. Returns the modes, the
-    bands that could not be fitted (as text) and the deferred candidates."""
+    bands that could not be fitted (as text), the deferred candidates and those left to the
+    residual search to look for again (``_match_candidates``' ``retry``)."""
     modes: list[Mode] = []
     failed: list[str] = []
     deferred: list[Candidate] = []
+    retry: list[Candidate] = []
     for peaks_g, lo, hi, group_cands in groups:
         n_warn = len(warnings)
         if residual and _needs_raw_fit(group_cands, lo, hi):
@@ -937,10 +946,10 @@ def _measure_groups(
             rejected.extend(_rejection(c, "fit_failed", str(exc)) for c in group_cands)
             continue
         steady = any(w.code == "stationary_tone" for w in warnings[n_warn:])
-        found, unmatched = _match_candidates(found, group_cands, steady)
+        found, unmatched = _match_candidates(found, group_cands, steady, retry if residual else None)
         rejected.extend(unmatched)
         modes.extend(found)
-    return modes, failed, deferred
+    return modes, failed, deferred, retry
 
 
 def _strongest(modes: list[Mode], max_modes: int | None, rejected: list[Rejected]) -> list[Mode]:
@@ -1335,24 +1344,31 @@ def _needs_raw_fit(cands: list[Candidate], lo: float, hi: float) -> bool:
     )
 
 
-def _match_candidates(modes: list[Mode], cands: list[Candidate], steady: bool):
+def _near(m: Mode, c: Candidate, k: float = 0.5) -> bool:
+    """Whether mode ``m`` lies within ``k`` times the larger half-power width of candidate ``c``
+    (or three standard uncertainties of its frequency, or the search's resolution)."""
+    tol = max(k * max(c.width_hz, m.beta_per_s / math.pi), 3.0 * (m.f_d_hz_u or 0.0), c.resolution_hz)
+    return abs(m.f_d_hz - c.f_hz) <= tol
+
+
+def _match_candidates(modes: list[Mode], cands: list[Candidate], steady: bool, retry: list[Candidate] | None = None):
     """Pair a group's candidates with the modes measured there. A candidate no mode lies near
     (within half the larger half-power width, three standard uncertainties or the search's
     resolution) is a rejection: ``steady_tone`` when the group was a steady tone, ``unresolved``
     (with a warning on the nearest mode naming the pair) when another mode took its place,
-    ``fit_failed`` when the fit found nothing."""
+    ``fit_failed`` when the fit found nothing. With a ``retry`` list, a candidate whose band fit
+    found nothing, or only modes more than two half-power widths away (a joint fit that missed
+    it, not a pair it could not separate), is appended there instead, for the residual search
+    to look for again."""
     out: list[Rejected] = []
     modes = list(modes)
-
-    def near(m: Mode, c: Candidate) -> bool:
-        tol = max(0.5 * max(c.width_hz, m.beta_per_s / math.pi), 3.0 * (m.f_d_hz_u or 0.0), c.resolution_hz)
-        return abs(m.f_d_hz - c.f_hz) <= tol
-
     for c in cands:
-        if any(near(m, c) for m in modes):
+        if any(_near(m, c) for m in modes):
             continue
         if steady:
             out.append(_rejection(c, "steady_tone", "its band held it before the hit"))
+        elif retry is not None and not any(_near(m, c, 2.0) for m in modes):
+            retry.append(c)
         elif modes:
             j = min(range(len(modes)), key=lambda i: abs(modes[i].f_d_hz - c.f_hz))
             m = modes[j]
@@ -1420,9 +1436,10 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
             noise_p=ctx.noise_p,
         )
 
-    ests = fit(dur)
+    starts = [f for f, _ in poles[: len(targets)]]
+    ests = _unaliased(fit(dur), starts, fs, dur)
     try:
-        half = fit(0.5 * dur)
+        half = _unaliased(fit(0.5 * dur), starts, fs, 0.5 * dur)
     except FitError:
         half = []
     modes = []
@@ -1439,6 +1456,33 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
 
 #: Most other modes a raw fit carries along (the strongest in its window).
 MAX_RAW_NUISANCE = 3
+
+
+def _unaliased(ests: list[Estimate], starts: Sequence[float], fs: float, duration_s: float) -> list[Estimate]:
+    """Raw-fit estimates with each frequency moved to the alias nearest its fit's starting
+    frequencies ``starts`` (Hz). :func:`estimate_real` thins a long window to every ``D``-th
+    sample (``D`` as it chooses it, from ``duration_s`` and its ``MAX_SAMPLES``); the thinned
+    samples of a real cosine at ``f`` are those of every ``k fs / D +- f``, so a fit started near
+    ``f`` can end at a mirror image above ``fs / (2 D)``."""
+    from .estimators.real import MAX_SAMPLES
+
+    step = max(1, math.ceil(max(int(round(duration_s * fs)), 1) / MAX_SAMPLES))
+    if step == 1 or not starts:
+        return ests
+    fs_d = fs / step
+    out = []
+    for e in ests:
+        k_max = int(math.ceil(0.5 * fs / fs_d)) + 1
+        # (frequency, sign of its derivative in the fitted one: a mirror image flips cov(f, beta))
+        aliases = [
+            (k * fs_d + sign * e.f_d_hz, sign)
+            for k in range(k_max + 1)
+            for sign in (1.0, -1.0)
+            if 0 < k * fs_d + sign * e.f_d_hz < fs / 2
+        ]
+        best, sign = min(aliases, key=lambda a: min(abs(a[0] - f0) for f0 in starts), default=(e.f_d_hz, 1.0))
+        out.append(e if best == e.f_d_hz else replace(e, f_d_hz=best, cov_f_beta=sign * e.cov_f_beta))
+    return out
 
 
 def _with_model_error(est: Estimate, half: Sequence[Estimate]) -> Estimate:
