@@ -4,9 +4,10 @@ from __future__ import annotations
 
 import csv
 import sys
+from collections.abc import Iterable
 from functools import partial
 from pathlib import Path
-from typing import Annotated, Any, NoReturn, Optional
+from typing import TYPE_CHECKING, Annotated, Any, NoReturn, Optional
 
 import typer
 
@@ -62,6 +63,9 @@ from ._options import (
     reader_options,
     report_header,
 )
+
+if TYPE_CHECKING:
+    from ..analysis.results import Analysis
 
 __all__ = ["register", "parse_band", "parse_columns", "format_table", "TABLE_COLUMNS", "DEFAULT_COLUMNS"]
 
@@ -127,7 +131,7 @@ def parse_columns(text: str | None) -> tuple[str, ...]:
     return keys
 
 
-def format_table(analysis, columns: tuple[str, ...] = DEFAULT_COLUMNS) -> str:
+def format_table(analysis: Analysis, columns: tuple[str, ...] = DEFAULT_COLUMNS) -> str:
     """A readable text table of one analysis (what ``analyze`` prints without ``--json``).
 
     A recording that could not be analysed gives an empty string: its error goes to stderr only.
@@ -173,7 +177,7 @@ def format_table(analysis, columns: tuple[str, ...] = DEFAULT_COLUMNS) -> str:
     return "\n".join(lines) + "\n"
 
 
-def write_csv(analyses, path: str) -> None:
+def write_csv(analyses: Iterable[Analysis], path: str) -> None:
     """One row per mode of every analysed file (files that failed get one row with the error).
 
     Written to a temporary file and renamed into place; text cells are neutralised
