@@ -7,6 +7,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..base._prominence import prominent_peaks
+
 __all__ = ["Peak", "find_peaks", "group_bands"]
 
 
@@ -174,7 +176,7 @@ def _broad_peaks(
     :data:`BROAD_PROMINENCE_DB` above its surroundings, is at least half the scale wide (else the
     sharper search owns it), and no sharp peak lies within its half-power width.
     """
-    from scipy import ndimage, signal
+    from scipy import ndimage
 
     pad = f.shape[0] / max(n / 2.0, 1.0)  # padded bins per unpadded (independent) bin
     df = f[1] - f[0]
@@ -190,8 +192,9 @@ def _broad_peaks(
         # 2 dB more for the scatter of the Welch estimate of the noise level, as in find_peaks
         margin = (1.0 + (math.log(cells / 1e-3) + 3.0 * math.sqrt(m)) / m) * 10**0.2
         db = 10.0 * np.log10(ps + 1e-300)
-        idx, props = signal.find_peaks(db, prominence=BROAD_PROMINENCE_DB)
-        for i, prom in zip(idx, props["prominences"]):
+        # = signal.find_peaks(db, prominence=BROAD_PROMINENCE_DB) without walking from each of the
+        # ~10^4 ripple maxima of a smoothed spectrum (base._prominence)
+        for i, prom in zip(*prominent_peaks(db, BROAD_PROMINENCE_DB)):
             # at least 10 cycles over the segment (as detect.MIN_CYCLES: below, drift removal and
             # DC leave humps that are no modes)
             if not (ps[i] > margin * ns[i]) or f[i] < 10.0 * sample_rate / n or f[i] > 0.98 * sample_rate / 2:

@@ -30,16 +30,26 @@ THREADS: int | None = 1
 
 _F = TypeVar("_F", bound=Callable[..., Any])
 _lock = threading.Lock()
-_state = {"controller": None, "depth": 0, "limit": None}
+
+
+class _State:
+    """The process's one controller, how deep the decorated calls are nested, and the limit set."""
+
+    controller: Any = None
+    depth: int = 0
+    limit: Any = None
+
+
+_state = _State()
 
 
 def _controller():
-    if _state["controller"] is None:
+    if _state.controller is None:
         import scipy.linalg  # noqa: F401  (loads scipy's own OpenBLAS, so that the controller finds it)
         from threadpoolctl import ThreadpoolController
 
-        _state["controller"] = ThreadpoolController()
-    return _state["controller"]
+        _state.controller = ThreadpoolController()
+    return _state.controller
 
 
 class blas_limit:
@@ -51,17 +61,17 @@ class blas_limit:
 
     def __enter__(self) -> blas_limit:
         with _lock:
-            if _state["depth"] == 0 and THREADS is not None:
-                _state["limit"] = _controller().limit(limits=THREADS)
-            _state["depth"] += 1
+            if _state.depth == 0 and THREADS is not None:
+                _state.limit = _controller().limit(limits=THREADS)
+            _state.depth += 1
         return self
 
     def __exit__(self, *exc) -> None:
         with _lock:
-            _state["depth"] -= 1
-            if _state["depth"] == 0 and _state["limit"] is not None:
-                _state["limit"].restore_original_limits()
-                _state["limit"] = None
+            _state.depth -= 1
+            if _state.depth == 0 and _state.limit is not None:
+                _state.limit.restore_original_limits()
+                _state.limit = None
 
 
 def one_blas_thread(fn: _F) -> _F:

@@ -254,14 +254,7 @@ def run_batch(
     if n == 0:
         return
     modules = tuple(getattr(fn, "preload", ()) or ())
-    if executor is None:
-
-        def make(k: int) -> BatchExecutor:
-            return default_executor(k, preload=modules)
-    else:
-        make = executor
-        if min(jobs, n) > 1:
-            preload(modules)  # a custom executor that forks inherits them
+    make = _executor_factory(executor, modules, parallel=min(jobs, n) > 1)
 
     def finish(pos: int, res):
         if on_result is not None:
@@ -269,9 +262,44 @@ def run_batch(
         return pos, res
 
     retry: list[int] = []
-    ex = make(min(jobs, n))
+    yield from _first_pass(fn, on_error, items, make(min(jobs, n)), retry, finish)
+    # A worker died: every unfinished item once more, each in a fresh process of its own, so
+    # that the item that kills its process takes only itself down.
+    retry.sort()
+    if retry and on_notice is not None:
+        on_notice(
+            f"a worker process died (killed by the system?); {len(retry)} item(s) not finished are run "
+            "again, each in a fresh process"
+        )
+
+    def make_one() -> BatchExecutor:
+        return ProcessExecutor(1, preload=modules) if executor is None else make(1)
+
+    yield from _retry_pass(fn, on_error, items, retry, jobs, make_one, finish)
+
+
+def _executor_factory(
+    executor: Callable[[int], BatchExecutor] | None, modules: tuple[str, ...], *, parallel: bool
+) -> Callable[[int], BatchExecutor]:
+    """``executor``, or the default executor that preloads ``modules`` in its workers; a custom
+    executor running in parallel gets them imported here first (a forking one inherits them)."""
+    if executor is not None:
+        if parallel:
+            preload(modules)
+        return executor
+
+    def make(k: int) -> BatchExecutor:
+        return default_executor(k, preload=modules)
+
+    return make
+
+
+def _first_pass(fn, on_error, items, ex: BatchExecutor, retry: list[int], finish) -> Iterator[tuple[int, Any]]:
+    """Every item on ``ex``; positions whose worker died go to ``retry``, the others are yielded
+    as ``finish(position, result)``. ``ex`` is shut down at the end, on an interrupt and when the
+    consumer stops (cancelling what is pending)."""
     try:
-        futs = {ex.submit(_guarded_call, fn, on_error, items[i]): i for i in range(n)}
+        futs = {ex.submit(_guarded_call, fn, on_error, items[i]): i for i in range(len(items))}
         for fut in ex.as_completed(futs):
             pos = futs[fut]
             try:
@@ -288,21 +316,17 @@ def run_batch(
     else:
         ex.shutdown(cancel=bool(retry))
 
-    # A worker died: every unfinished item once more, each in a fresh process of its own, so
-    # that the item that kills its process takes only itself down.
-    retry.sort()
-    if retry and on_notice is not None:
-        on_notice(
-            f"a worker process died (killed by the system?); {len(retry)} item(s) not finished are run "
-            "again, each in a fresh process"
-        )
+
+def _retry_pass(fn, on_error, items, retry: list[int], jobs: int, make_one, finish) -> Iterator[tuple[int, Any]]:
+    """The positions ``retry`` again, ``jobs`` at a time, each on an executor of its own from
+    ``make_one()``; a worker that dies again gives :class:`WorkerError` for its item."""
     while retry:
         chunk, retry = retry[: max(jobs, 1)], retry[max(jobs, 1) :]
-        pools = []
+        pools: list[BatchExecutor] = []
         try:
-            futs = {}
+            futs: dict[Future, tuple[int, BatchExecutor]] = {}
             for pos in chunk:
-                one = ProcessExecutor(1, preload=modules) if executor is None else make(1)
+                one = make_one()
                 pools.append(one)
                 futs[one.submit(_guarded_call, fn, on_error, items[pos])] = (pos, one)
             for fut in _merged_as_completed(futs):

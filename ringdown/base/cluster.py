@@ -255,8 +255,8 @@ def iter_results(
             try:
                 # waits when the result was lost with its worker after finishing: Dask computes it again
                 res = fut.result()
-            except KilledWorker as exc:
-                res = on_error(items[pos], _as_cluster_error(exc))
+            except KilledWorker:
+                res = on_error(items[pos], _killed_error())
             except Exception as exc:  # cancelled, or a result that could not be sent back
                 res = on_error(
                     items[pos],
@@ -318,15 +318,18 @@ class ClusterExecutor:
         self._dask = []
 
 
+def _killed_error() -> ClusterError:
+    """The error of a task whose Dask workers died each time it was tried (``KilledWorker``)."""
+    return ClusterError(
+        "the Dask workers running it died each time it was tried (killed, out of memory or their "
+        "machine lost); check the file and the workers' memory"
+    )
+
+
 def _as_cluster_error(exc: BaseException) -> BaseException:
     from distributed.scheduler import KilledWorker
 
-    if isinstance(exc, KilledWorker):
-        return ClusterError(
-            "the Dask workers running it died each time it was tried (killed, out of memory or their "
-            "machine lost); check the file and the workers' memory"
-        )
-    return exc
+    return _killed_error() if isinstance(exc, KilledWorker) else exc
 
 
 def worker_versions(client) -> dict[str, str]:

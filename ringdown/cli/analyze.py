@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import sys
 from collections.abc import Iterable
@@ -333,7 +334,6 @@ def _checked_options(plot, plot_format, part_id, jobs, given: dict, window: dict
     ``given`` holds the analysis options as given (``bands`` as the ``--band`` texts), ``window``
     the time window (``start_s``/``end_s``, only those given)."""
     from ..analysis.pipeline import AnalysisOptions
-    from ..inspection.store import part_id_from_path
     from .render import check_plot_format
 
     bands = [parse_band(b) for b in given["bands"]] if given["bands"] else None
@@ -349,7 +349,10 @@ def _checked_options(plot, plot_format, part_id, jobs, given: dict, window: dict
     check_jobs(jobs)
     if plot is not None:
         check_plot_format(plot_format)
-    part_id_from_path("x", part_id)  # a bad --part-id regex is a usage error
+    if part_id:  # a bad --part-id regex is a usage error (the history module is imported only for one)
+        from ..inspection.store import part_id_from_path
+
+        part_id_from_path("x", part_id)
     return opts
 
 
@@ -370,11 +373,14 @@ def _run(paths, options, n_jobs, storer, sink, scheduler, debug, arrived, show_p
     Returns the results in input order (None for a file not done) and whether Ctrl-C stopped it."""
     from ..analysis.engine import is_long_sound_file
     from ..analysis.pipeline import iter_analyze_files
-    from ..base.cluster import connect
 
     results: list = [None] * len(paths)
     bar, task = progress_bar(show_progress and len(paths) > 1, len(paths), "analysing")
-    cluster = guarded(lambda: connect(scheduler), debug=debug)
+    cluster: contextlib.AbstractContextManager = contextlib.nullcontext(None)
+    if scheduler is not None:  # the cluster module only when asked for (start-up time)
+        from ..base.cluster import connect
+
+        cluster = guarded(lambda: connect(scheduler), debug=debug)
     opened = guarded(sink.open, debug=debug)
     try:
         with catching_interrupts(), cluster as client, opened, bar:
@@ -417,6 +423,19 @@ def _write_outputs(analyses, csv_out, plot, plot_format, report, options, debug,
     return failed + _render(analyses, plot, plot_format, report, options, debug, header)
 
 
+class _NoDataset:
+    """What :meth:`_Sink.open` gives without ``--parquet``: a context with nothing to close."""
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc) -> None:
+        pass
+
+    def close(self) -> None:
+        pass
+
+
 class _Sink:
     """``--parquet``: each result appended to the dataset as it arrives (an error ends the run, exit 2)."""
 
@@ -425,12 +444,16 @@ class _Sink:
         self.sink: Any = None
 
     def open(self):
+        if self.out is None:  # no --parquet: the Parquet and history modules stay unimported (start-up time)
+            return _NoDataset()
         from ..inspection.parquet import open_sink
 
         self.sink = open_sink(self.out)
         return self.sink
 
     def add(self, a) -> None:
+        if self.sink is None:
+            return
         from ..inspection.store import part_id_from_path
 
         pid = part_id_from_path(a.path or "array", self.part_id)

@@ -63,6 +63,7 @@ S. M. Kay, *Fundamentals of Statistical Signal Processing I: Estimation Theory*,
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -320,13 +321,122 @@ def estimate(band: Band, window: Window) -> list[Estimate]:
     Mag. 37(1):48-55, 1995; Kay 1993 (covariance of least-squares estimates).
     """
     window = window.for_model_fit()
+    zd, t, t_first, dec, where = _envelope_samples(band, window)
+    fs = float(band.sample_rate) / dec
+    n = zd.shape[0]
+    r_acf, g = _noise_acf(band, fs, n)
+    noise_var = None if band.noise_rms is None else float(band.noise_rms) ** 2
+
+    poles = _pencil(zd, fs, noise_var, g)
+    poles = np.array([p for p in poles if _keep_pole(p, band, band.width_hz)], dtype=complex)
+    poles = poles[: max(n // MIN_SAMPLES_PER_MODE, 1)]
+    if poles.size == 0:
+        raise FitError(f"{where}: no decaying mode above the noise inside the band; check the band and the window")
+    poles_f, c, converged, cov, resid, cond = _refine(zd, t, poles, band, r_acf, g, where)
+
+    t_span = t[-1] if n > 1 else 1.0 / fs
+    order = np.argsort(poles_f.imag)
+    f_all = band.f_shift_hz + poles_f.imag / (2.0 * np.pi)
+    unresolved = _unresolved(f_all, order, cov, cond, t_span)
+    fit = _Fitted(
+        band=band,
+        window=window,
+        poles=poles_f,
+        c=c,
+        cov=cov,
+        f_all=f_all,
+        unresolved=unresolved,
+        t_first=t_first,
+        t_last=t_first + (n - 1) * dec / float(band.sample_rate),
+        n=n,
+        converged=converged,
+        residual_rms=float(np.sqrt(np.mean(np.abs(resid) ** 2))),
+        envelope=np.abs(band.z),
+        model=_model_envelope(band, t_first, poles_f, c),
+    )
+    return [fit.estimate(int(i)) for i in order]
+
+
+@dataclass(frozen=True)
+class _Fitted:
+    """What :func:`estimate` found in one band, and each mode's :class:`Estimate` from it."""
+
+    band: Band
+    window: Window
+    poles: np.ndarray  #: (K,) continuous-time poles, 1/s (baseband)
+    c: np.ndarray  #: (K,) complex amplitudes at ``t_first``
+    cov: np.ndarray  #: (4K, 4K) as from :func:`_covariance`
+    f_all: np.ndarray  #: (K,) frequencies, Hz
+    unresolved: set[int]
+    t_first: float  #: s, first and last samples of the fit
+    t_last: float
+    n: int
+    converged: bool
+    residual_rms: float
+    envelope: np.ndarray  #: |z| of the whole band, for plots
+    model: np.ndarray | None
+
+    def estimate(self, i: int) -> Estimate:
+        band, window, cov, f_all = self.band, self.window, self.cov, self.f_all
+        beta = float(-self.poles[i].real)
+        f_hz = float(f_all[i])
+        amp = float(abs(self.c[i]) * math.exp(-beta * (window.start_s - self.t_first)))
+        warn: list[Notice] = []
+        if i in self.unresolved:
+            others = ", ".join(f"{f_all[j]:.6g}" for j in sorted(self.unresolved) if j != i)
+            warn.append(
+                Notice(
+                    "unresolved_modes",
+                    f"mode at {f_hz:.6g} Hz is closer to the mode(s) at {others} Hz than a "
+                    f"{window.end_s - window.start_s:.3g} s window resolves; lengthen the window or treat the pair "
+                    "as one",
+                )
+            )
+        trace = ModeTrace(
+            t_s=band.t_s,
+            envelope=self.envelope,
+            fit_start_s=float(self.t_first),
+            fit_end_s=float(self.t_last),
+            noise_floor=float(band.noise_rms) if band.noise_rms is not None else self.residual_rms,
+            fit_amplitude=amp,
+            fit_beta_per_s=beta,
+            fit_t0_s=float(window.start_s),
+            model_envelope=self.model,
+            n_model_modes=int(self.poles.size),
+        )
+        return Estimate(
+            method="pencil",
+            f_d_hz=f_hz,
+            f_d_hz_u=float(math.sqrt(max(cov[4 * i + 1, 4 * i + 1], 0.0))),
+            beta_per_s=beta,
+            beta_per_s_u=float(math.sqrt(max(cov[4 * i, 4 * i], 0.0))),
+            cov_f_beta=float(cov[4 * i, 4 * i + 1]),
+            amplitude=amp,
+            fit_start_s=float(self.t_first),
+            fit_end_s=float(self.t_last),
+            n_points=int(self.n),
+            residual_rms=self.residual_rms,
+            converged=self.converged,
+            warnings=tuple(warn),
+            trace=trace,
+        )
+
+
+def _envelope_samples(band: Band, window: Window) -> tuple[np.ndarray, np.ndarray, float, int, str]:
+    """The window's envelope samples, decimated by the largest factor that keeps the rate at or
+    above the mask's full width (step 1 of the module notes).
+
+    Returns ``(zd, t, t_first, dec, where)``: samples (n,) complex, their times (n,) from the
+    first one, s; the first one's time from the recording start, s; the decimation factor; and
+    the band and window in words, for errors. Raises :class:`FitError` for non-finite samples or
+    fewer than ``2 * MIN_SAMPLES_PER_MODE``.
+    """
     sl = window.indices(band)
     z_w = np.asarray(band.z[sl], dtype=np.complex128)
     fs_b = float(band.sample_rate)
     full_width = (band.f_hi_hz - band.f_lo_hz) + 2.0 * band.skirt_hz
     dec = max(int(math.floor(fs_b / full_width)), 1)
     zd = z_w[::dec]
-    fs = fs_b / dec
     n = zd.shape[0]
     i0 = sl.start if sl.start is not None else 0
     t_first = band.t0_s + i0 / fs_b
@@ -337,24 +447,23 @@ def estimate(band: Band, window: Window) -> list[Estimate]:
         raise FitError(
             f"{where}: {n} usable envelope samples, need at least {2 * MIN_SAMPLES_PER_MODE}; lengthen the window"
         )
-    t = np.arange(n) / fs
-    r_acf, g = _noise_acf(band, fs, n)
-    noise_var = None if band.noise_rms is None else float(band.noise_rms) ** 2
+    return zd, np.arange(n) / (fs_b / dec), t_first, dec, where
 
-    poles = _pencil(zd, fs, noise_var, g)
-    poles = np.array([p for p in poles if _keep_pole(p, band, band.width_hz)], dtype=complex)
-    poles = poles[: max(n // MIN_SAMPLES_PER_MODE, 1)]
-    if poles.size == 0:
-        raise FitError(f"{where}: no decaying mode above the noise inside the band; check the band and the window")
 
+def _refine(zd, t, poles, band: Band, r_acf, g: float, where: str):
+    """Step 4 of the module notes: fit all ``poles`` jointly, then drop one offending mode and
+    refit until none is left: first any that left the band or grew, then any below the
+    dynamic-range floor, then the least significant one below ``MIN_AMPLITUDE_SIGNIFICANCE``.
+
+    Returns ``(poles, c, converged, cov, resid, cond)`` as from :func:`_fit` and
+    :func:`_covariance`; raises :class:`FitError` when the fit fails or no mode is left.
+    """
     while True:
         try:
             poles_f, c, converged = _fit(zd, t, poles)
             cov, resid, cond = _covariance(zd, t, poles_f, c, r_acf, g)
         except (np.linalg.LinAlgError, ValueError, TypeError) as exc:  # TypeError: MINPACK's improper input
             raise FitError(f"{where}: least-squares fit failed ({exc}); narrow the band or shorten the window") from exc
-        # drop one offending mode and refit: first any that left the band or grew, then any below the
-        # dynamic-range floor, then the least significant one below MIN_AMPLITUDE_SIGNIFICANCE
         inside = np.array([_keep_pole(p, band, band.width_hz) for p in poles_f])
         var_c = np.array([cov[4 * i + 2, 4 * i + 2] + cov[4 * i + 3, 4 * i + 3] for i in range(poles_f.size)])
         signif = np.abs(c) / np.sqrt(np.maximum(var_c / 2.0, 1e-300))
@@ -369,19 +478,20 @@ def estimate(band: Band, window: Window) -> list[Estimate]:
         elif np.min(signif) < MIN_AMPLITUDE_SIGNIFICANCE:
             drop = int(np.argmin(signif))
         else:
-            break
+            return poles_f, c, converged, cov, resid, cond
         poles = np.delete(poles_f, drop)
         if poles.size == 0:
             raise FitError(f"{where}: no significant decaying mode inside the band; check the band and the window")
 
-    t_w = window.end_s - window.start_s
-    t_span = t[-1] if n > 1 else 1.0 / fs
-    order = np.argsort(poles_f.imag)
-    f_all = band.f_shift_hz + poles_f.imag / (2.0 * np.pi)
+
+def _unresolved(f_all: np.ndarray, order: np.ndarray, cov: np.ndarray, cond: float, t_span: float) -> set[int]:
+    """Modes (indices) closer to a neighbour in frequency (Hz, ``f_all``; ``order`` sorts them)
+    than the window ``t_span`` (s) resolves, or correlated with it beyond 0.95; all of them when
+    the normal matrix is singular in practice (condition above 1e12)."""
     unresolved: set[int] = set()
-    if poles_f.size > 1:
+    if f_all.shape[0] > 1:
         if cond > 1e12:
-            unresolved.update(range(poles_f.size))
+            unresolved.update(range(f_all.shape[0]))
         for a_i, b_i in zip(order[:-1], order[1:]):
             sep = abs(f_all[b_i] - f_all[a_i])
             var_a = cov[4 * a_i + 1, 4 * a_i + 1]
@@ -389,61 +499,16 @@ def estimate(band: Band, window: Window) -> list[Estimate]:
             corr = cov[4 * a_i + 1, 4 * b_i + 1] / math.sqrt(max(var_a * var_b, 1e-300))
             if sep < 1.0 / max(t_span, 1e-300) or abs(corr) > 0.95:
                 unresolved.update((int(a_i), int(b_i)))
+    return unresolved
 
-    residual_rms = float(np.sqrt(np.mean(np.abs(resid) ** 2)))
-    t_last = t_first + (n - 1) * dec / fs_b
-    env = np.abs(band.z)
-    model = None
-    if poles_f.size > 1:
-        # the sum of all modes fitted here, for plots: what the band envelope is compared with
-        tt = np.asarray(band.t_s, dtype=float) - t_first
-        model = np.full(tt.shape, np.nan)
-        after = tt >= 0
-        model[after] = np.abs(np.exp(np.outer(tt[after], poles_f)) @ c)
-    out: list[Estimate] = []
-    for i in order:
-        i = int(i)
-        beta = float(-poles_f[i].real)
-        f_hz = float(f_all[i])
-        amp = float(abs(c[i]) * math.exp(-beta * (window.start_s - t_first)))
-        warn: list[Notice] = []
-        if i in unresolved:
-            others = ", ".join(f"{f_all[j]:.6g}" for j in sorted(unresolved) if j != i)
-            warn.append(
-                Notice(
-                    "unresolved_modes",
-                    f"mode at {f_hz:.6g} Hz is closer to the mode(s) at {others} Hz than a "
-                    f"{t_w:.3g} s window resolves; lengthen the window or treat the pair as one",
-                )
-            )
-        trace = ModeTrace(
-            t_s=band.t_s,
-            envelope=env,
-            fit_start_s=float(t_first),
-            fit_end_s=float(t_last),
-            noise_floor=float(band.noise_rms) if band.noise_rms is not None else residual_rms,
-            fit_amplitude=amp,
-            fit_beta_per_s=beta,
-            fit_t0_s=float(window.start_s),
-            model_envelope=model,
-            n_model_modes=int(poles_f.size),
-        )
-        out.append(
-            Estimate(
-                method="pencil",
-                f_d_hz=f_hz,
-                f_d_hz_u=float(math.sqrt(max(cov[4 * i + 1, 4 * i + 1], 0.0))),
-                beta_per_s=beta,
-                beta_per_s_u=float(math.sqrt(max(cov[4 * i, 4 * i], 0.0))),
-                cov_f_beta=float(cov[4 * i, 4 * i + 1]),
-                amplitude=amp,
-                fit_start_s=float(t_first),
-                fit_end_s=float(t_last),
-                n_points=int(n),
-                residual_rms=residual_rms,
-                converged=converged,
-                warnings=tuple(warn),
-                trace=trace,
-            )
-        )
-    return out
+
+def _model_envelope(band: Band, t_first: float, poles: np.ndarray, c: np.ndarray) -> np.ndarray | None:
+    """``|sum_k c_k exp(p_k (t - t_first))|`` at the band's times (NaN before ``t_first``): the
+    sum of the modes fitted in a band of more than one, for plots; None for one mode."""
+    if poles.size <= 1:
+        return None
+    tt = np.asarray(band.t_s, dtype=float) - t_first
+    model = np.full(tt.shape, np.nan)
+    after = tt >= 0
+    model[after] = np.abs(np.exp(np.outer(tt[after], poles)) @ c)
+    return model
