@@ -136,7 +136,7 @@ def format_table(analysis: Analysis, columns: tuple[str, ...] = DEFAULT_COLUMNS)
     """A readable text table of one analysis (what ``analyze`` prints without ``--json``).
 
     A recording that could not be analysed gives an empty string: its error goes to stderr only.
-    Numbers are written by :func:`ringdown.numfmt.fmt_pm`: ``611.999885(83)`` is
+    Numbers are written by :func:`ringdown.base.numfmt.fmt_pm`: ``611.999885(83)`` is
     611.999885 ± 0.000083.
     """
     from ..io.outputs import shown
@@ -182,7 +182,7 @@ def write_csv(analyses: Iterable[Analysis], path: str) -> None:
     """One row per mode of every analysed file (files that failed get one row with the error).
 
     Written to a temporary file and renamed into place; text cells are neutralised
-    (:func:`ringdown.outputs.csv_cell`)."""
+    (:func:`ringdown.io.outputs.csv_cell`)."""
     from ..analysis.results import mode_keys
     from ..io.outputs import atomic_write, csv_row
 
