@@ -299,6 +299,11 @@ def analyze_cmd(
     _exit(analyses, paths, interrupted, failed_outputs or storer.failed, history is not None, json_out, jsonl, started)
 
 
+def _count(n: int, noun: str) -> str:
+    """``n`` and the noun, plural unless ``n`` is 1 ("1 mode", "0 errors", "3 modes")."""
+    return f"{n} {noun}" + ("" if n == 1 else "s")
+
+
 def _exit(analyses, paths, interrupted, failed_outputs, stored, json_out, jsonl, started) -> NoReturn:
     """The last line (interrupted, or the batch's counts) and the exit status of ``analyze``."""
     if interrupted:
@@ -309,8 +314,8 @@ def _exit(analyses, paths, interrupted, failed_outputs, stored, json_out, jsonl,
     errors = sum(1 for a in analyses if a.error is not None)
     if len(analyses) > 1 and not json_out:
         typer.echo(
-            f"{len(analyses)} files: {len(analyses) - errors} analysed, {errors} errors, "
-            f"{sum(len(a.modes) for a in analyses)} modes in {seconds() - started:.1f} s",
+            f"{len(analyses)} files: {len(analyses) - errors} analysed, {_count(errors, 'error')}, "
+            f"{_count(sum(len(a.modes) for a in analyses), 'mode')} in {seconds() - started:.1f} s",
             err=jsonl,
         )
     bad = errors or failed_outputs or paths.problems
