@@ -1050,6 +1050,10 @@ def _residual_round(
         got = _fit_deferred(hctx, start, deferred, known, res_hz, rejected)
         known += got
         new_modes += got
+    # humps of a row too long for one raw fit: named unresolved at the end unless a later, sharp
+    # round finds a mode there (a row of real modes, each sharp enough once the others are gone)
+    row: list[Rejected] = []
+    row_cands: list[Candidate] = []
     for round_ in range(RESIDUAL_ROUNDS):
         resid = _subtract_modes(decay, fs, known)
         # broad peaks in the first residual only: after a strong broad mode is subtracted, its
@@ -1077,8 +1081,10 @@ def _residual_round(
             ]
             round_groups.append((g, lo, hi, gc, _needs_raw_fit(gc, lo, hi) or any(lo < m.f_d_hz < hi for m in known)))
         # band fits first: a raw fit then carries (or subtracts) every mode measured in this round too
+        n_row = len(row_cands)
         for g, lo, hi, gc, raw in sorted(round_groups, key=lambda r: r[4]):
-            if raw and _too_many(gc, rejected):
+            if raw and _too_many(gc, row):
+                row_cands += gc
                 continue
             try:
                 if raw:
@@ -1093,10 +1099,14 @@ def _residual_round(
             got, unmatched = _match_candidates(got, gc, False)
             rejected.extend(unmatched)
             found_round.extend(got)
-        if not found_round:
+        # the row's humps may be looked at again by the next (sharp) round
+        gone = {(c.f_hz, c.width_hz) for c in row_cands[n_row:]}
+        tried = [t for t in tried if t not in gone]
+        if not found_round and len(row_cands) == n_row:
             break
         known += found_round
         new_modes += found_round
+    rejected += [r for r, c in zip(row, row_cands) if not any(_near(m, c) for m in new_modes)]
     return new_modes, rejected
 
 
