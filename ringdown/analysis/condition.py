@@ -410,6 +410,7 @@ def find_hits(
         if above.size == 0:
             return []
         onsets = [int(above[0])]
+    inn = level_db
     if innovation_level_db is not None:
         inn = np.asarray(innovation_level_db, dtype=np.float64)
         more = _rises(inn, w, hold, rise_db, noise_floor_db(inn, sm) + min_hit_snr_db)
@@ -426,7 +427,7 @@ def find_hits(
     spans: list[HitSpan] = []
     for j, k in enumerate(onsets):
         # a hit over ringing is timed on the level that showed it
-        ref = innovation_level_db if k in from_innovation else level_db
+        ref = inn if k in from_innovation else level_db
         top = float(np.max(ref[k : min(n, k + sm + 1)]))
         lo_i = max(0, k - sm)
         reach = np.flatnonzero(ref[lo_i : k + sm + 1] >= top - 3.0103)

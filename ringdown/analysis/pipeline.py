@@ -763,7 +763,7 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
     rejected: list[Rejected] = []
     cands: list[Candidate] = []
     if opts.bands is not None:
-        groups = [([], lo, hi, []) for lo, hi in opts.bands]
+        groups: list[tuple[list[Peak], float, float, list[Candidate]]] = [([], lo, hi, []) for lo, hi in opts.bands]
     elif model:
         start = _free_decay_start(ctx, span, clip_end) if span.kind == "impulse" else max(span.onset, clip_end or 0)
         cands, groups = _candidates(ctx, start, seg_end, rejected, parametric=clip_end is None, broad=clip_end is None)
@@ -893,7 +893,7 @@ def _residual_round(
         resid = _subtract_modes(decay, fs, known)
         peaks_d = [Peak(c.f_hz, float("nan"), float("nan"), c.width_hz, broad=True) for c in deferred]
         of_peak = {id(p): c for p, c in zip(peaks_d, deferred)}
-        for g, lo, hi in group_bands(peaks_d, sample_rate=fs, resolution_hz=res_hz, barriers_hz=ctx.tones):
+        for g, _lo, _hi in group_bands(peaks_d, sample_rate=fs, resolution_hz=res_hz, barriers_hz=ctx.tones):
             gc = [of_peak[id(p)] for p in g]
             if _too_many(gc, rejected):
                 continue
@@ -1073,7 +1073,7 @@ def _free_decay_start(ctx: _RecordContext, span, clip_end: int | None) -> int:
     ``START_SIGMAS`` noise standard deviations away from the level before it (the smoothed
     level's onset can precede it
     by half its smoothing), and never inside the clipping."""
-    x, fs = ctx.x, ctx.fs
+    x = ctx.x
     sigma = math.sqrt(max(float(np.sum(ctx.noise_p[1:])) * float(ctx.noise_f[1] - ctx.noise_f[0]), 1e-300))
     lo = max(0, span.onset - max(span.peak - span.onset, 1))
     hi = max(span.peak, span.onset + 1)
@@ -1165,13 +1165,13 @@ def _match_candidates(modes: list[Mode], cands: list[Candidate], steady: bool):
     ``fit_failed`` when the fit found nothing."""
     out: list[Rejected] = []
     modes = list(modes)
+
+    def near(m: Mode, c: Candidate) -> bool:
+        tol = max(0.5 * max(c.width_hz, m.beta_per_s / math.pi), 3.0 * (m.f_d_hz_u or 0.0), c.resolution_hz)
+        return abs(m.f_d_hz - c.f_hz) <= tol
+
     for c in cands:
-
-        def near(m: Mode) -> bool:
-            tol = max(0.5 * max(c.width_hz, m.beta_per_s / math.pi), 3.0 * (m.f_d_hz_u or 0.0), c.resolution_hz)
-            return abs(m.f_d_hz - c.f_hz) <= tol
-
-        if any(near(m) for m in modes):
+        if any(near(m, c) for m in modes):
             continue
         if steady:
             out.append(_rejection(c, "steady_tone", "its band held it before the hit"))
@@ -1209,15 +1209,15 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
     dur = max(math.log(max(c.snr or math.e**2, math.e**2)) / (2.0 * beta_of(c)) for c in targets)
     dur = min(max(dur, 20.0 / min(c.f_hz for c in targets)), t_rest)
     thr = detect.snr_threshold(seg.shape[0], fs)
-    others = []
+    ranked: list[tuple[float, Candidate]] = []
     for c in cands:
         if c in targets:
             continue
         b = beta_of(c)
         share = -math.expm1(-2 * b * dur) / max(-math.expm1(-2 * b * t_rest), 1e-300)
         if c.snr is None or c.snr * share >= thr:
-            others.append((c.snr * share if c.snr is not None else float("inf"), c))
-    others = [c for _, c in sorted(others, key=lambda o: -o[0])][:MAX_RAW_NUISANCE]
+            ranked.append((c.snr * share if c.snr is not None else float("inf"), c))
+    others = [c for _, c in sorted(ranked, key=lambda o: -o[0])][:MAX_RAW_NUISANCE]
     poles = [(c.f_hz, beta_of(c)) for c in targets + others]
     ests = estimate_real(
         seg,
@@ -1249,7 +1249,9 @@ def _make_raw_mode(est: Estimate, noise_rms: float, seg: np.ndarray, fs: float, 
     derived = derive(
         est.f_d_hz, est.beta_per_s, f_d_hz_u=est.f_d_hz_u, beta_per_s_u=est.beta_per_s_u, cov_f_beta=est.cov_f_beta
     )
-    start, end = est.fit_start_s, est.fit_end_s
+    if est.fit_start_s is None or est.fit_end_s is None or est.amplitude is None:
+        raise FitError("the raw fit returned no fit window or amplitude")
+    start, end, amplitude = est.fit_start_s, est.fit_end_s, est.amplitude
     cycles = est.f_d_hz * (end - start)
     warnings = []
     if cycles < 10:
@@ -1262,7 +1264,7 @@ def _make_raw_mode(est: Estimate, noise_rms: float, seg: np.ndarray, fs: float, 
         fit_start_s=start,
         fit_end_s=end,
         noise_floor=noise_rms,
-        fit_amplitude=float(est.amplitude),
+        fit_amplitude=float(amplitude),
         fit_beta_per_s=est.beta_per_s,
         fit_t0_s=start,
     )
@@ -1270,7 +1272,7 @@ def _make_raw_mode(est: Estimate, noise_rms: float, seg: np.ndarray, fs: float, 
         index=0,
         derived=derived,
         amplitude=est.amplitude,
-        snr_db=20 * math.log10(max(est.amplitude, 1e-300) / noise_rms),
+        snr_db=20 * math.log10(max(amplitude, 1e-300) / noise_rms),
         method=est.method,
         fit_start_s=start,
         fit_end_s=end,
@@ -1481,7 +1483,8 @@ def _drop_driven(modes: list[Mode], onset_s: float, warnings: list[Notice]) -> l
         return any(w.code == "decay_unresolved" for w in m.warnings)
 
     def at_onset(m: Mode) -> float:
-        return (m.amplitude or 0.0) * math.exp(min(m.beta_per_s * max(m.fit_start_s - onset_s, 0.0), 700.0))
+        fit_start_s = m.fit_start_s if m.fit_start_s is not None else onset_s
+        return (m.amplitude or 0.0) * math.exp(min(m.beta_per_s * max(fit_start_s - onset_s, 0.0), 700.0))
 
     decaying = [m for m in modes if not unresolved(m)]
     out = []

@@ -17,10 +17,13 @@ least 10 cycles before its envelope falls to the noise (``ln(d) / (2 beta)`` sec
 the same tolerance) is a false mode. Coverage: the fraction of found modes whose true f_d and
 beta lie within +-2 reported standard uncertainties.
 
-Run: ``python tests/benchmarks/detection.py [RECORDS] [NOISE_RECORDS] [--detection spectral|model]``
-(default 60 and 200, and the library's default mode search ``spectral``;
-``python tests/benchmarks/detection.py 1000 500`` for a bigger population). Prints markdown
-tables; asserts nothing.
+Run: ``python tests/benchmarks/detection.py [RECORDS] [NOISE_RECORDS] [--seed N] [--misses]
+[--detection spectral|model]`` (default 60 and 200, seed 20261201, and the library's default mode
+search ``spectral``; ``python tests/benchmarks/detection.py 1000 500`` for a bigger population).
+``--misses`` also lists every clearly detectable mode that was not found (record, f_d, Q, level
+below the strongest, matched-filter SNR, cycles, and the nearest reported mode and nearest
+rejected candidate with its reason), every false mode, and every found mode whose truth lies
+outside +-2u. Prints markdown tables; asserts nothing.
 """
 
 from __future__ import annotations
@@ -138,35 +141,66 @@ def _tol(m, f):
     return max(3 * m.beta_per_s / math.pi, 3 * (m.f_d_hz_u or 0.0), 0.002 * f)
 
 
-def main(n_records: int = 60, n_noise: int = 200, seed: int = 20261201) -> None:
+def _describe_miss(i_rec: int, fs: float, tr: dict, modes, rejected) -> str:
+    def near(items, attr):
+        return min(items, key=lambda it: abs(getattr(it, attr) - tr["f"]), default=None)
+
+    m = near(modes, "f_d_hz")
+    r = near(rejected, "f_hz")
+    ms = "-" if m is None else f"{m.f_d_hz:.2f} Hz (Q {m.q:.3g}, {m.fit_path}, {[w.code for w in m.warnings]})"
+    rs = "-" if r is None else f"{r.f_hz:.2f} Hz {r.reason}: {r.detail}"
+    return (
+        f"| {i_rec} | {fs:g} | {tr['f']:.2f} | {tr['q']:.3g} | {tr['level_db']:.1f} | {tr['d_db']:.1f} | "
+        f"{tr['cycles']:.0f} | {ms} | {rs} |"
+    )
+
+
+def main(n_records: int = 60, n_noise: int = 200, seed: int = 20261201, misses: bool = False) -> None:
     rng = np.random.default_rng(seed)
     rows = []
     false_modes = 0
     cover_f, cover_b = [], []
     times = []
     errors = 0
-    for _ in range(n_records):
+    miss_lines, false_lines, cover_lines = [], [], []
+    for i_rec in range(n_records):
         x, fs, truth = make_record(rng)
         t0 = time.perf_counter()
         try:
             a = ringdown.analyze(x, fs, detection=DETECTION)
             modes = list(a.modes)
+            rejected = list(a.rejected)
         except ringdown.RingdownError:
-            modes = []
+            modes, rejected = [], []
             errors += 1
         times.append(time.perf_counter() - t0)
         for tr in truth:
             hit = [m for m in modes if abs(m.f_d_hz - tr["f"]) <= _tol(m, tr["f"])]
             tr["found"] = bool(hit)
             rows.append(tr)
+            if tr["clear"] and not hit:
+                miss_lines.append(_describe_miss(i_rec, fs, tr, modes, rejected))
             if hit:
                 m = min(hit, key=lambda m: abs(m.f_d_hz - tr["f"]))
                 if m.f_d_hz_u and m.beta_per_s_u:
-                    cover_f.append(abs(m.f_d_hz - tr["f"]) <= 2 * m.f_d_hz_u)
-                    cover_b.append(abs(m.beta_per_s - tr["beta"]) <= 2 * m.beta_per_s_u)
+                    ok_f = abs(m.f_d_hz - tr["f"]) <= 2 * m.f_d_hz_u
+                    ok_b = abs(m.beta_per_s - tr["beta"]) <= 2 * m.beta_per_s_u
+                    cover_f.append(ok_f)
+                    cover_b.append(ok_b)
+                    if not (ok_f and ok_b):
+                        cover_lines.append(
+                            f"| {i_rec} | {tr['f']:.2f} | {tr['q']:.3g} | {tr['d_db']:.1f} | {m.fit_path} | "
+                            f"{(m.f_d_hz - tr['f']) / m.f_d_hz_u:+.1f} | {(m.beta_per_s - tr['beta']) / m.beta_per_s_u:+.1f} | "
+                            f"{[w.code for w in m.warnings]} |"
+                        )
         for m in modes:
             if not any(abs(m.f_d_hz - tr["f"]) <= _tol(m, tr["f"]) for tr in truth):
                 false_modes += 1
+                tn = min(truth, key=lambda tr: abs(tr["f"] - m.f_d_hz))
+                false_lines.append(
+                    f"| {i_rec} | {m.f_d_hz:.2f} | {m.q:.3g} | {m.snr_db:.1f} | {m.fit_path} | "
+                    f"{tn['f']:.2f} (Q {tn['q']:.3g}, {tn['level_db']:.0f} dB) | {[w.code for w in m.warnings]} |"
+                )
     noise_modes = 0
     for _ in range(n_noise):
         x, fs = noise_record(rng)
@@ -210,6 +244,19 @@ def main(n_records: int = 60, n_noise: int = 200, seed: int = 20261201) -> None:
     print(f"| coverage of beta within +-2u | {100 * np.mean(cover_b):.1f} % of {len(cover_b)} |")
     print(f"| records with no result | {errors} |")
     print(f"| time per record | median {1e3 * np.median(times):.0f} ms, max {1e3 * np.max(times):.0f} ms |")
+    if misses:
+        print("\nMissed clearly detectable modes:\n")
+        print("| record | fs | f_d Hz | Q | level dB | SNR dB | cycles | nearest mode | nearest rejected |")
+        print("|---:|---:|---:|---:|---:|---:|---:|---|---|")
+        print("\n".join(miss_lines))
+        print("\nFalse modes:\n")
+        print("| record | f_d Hz | Q | SNR dB | path | nearest truth | warnings |")
+        print("|---:|---:|---:|---:|---|---|---|")
+        print("\n".join(false_lines))
+        print("\nFound modes outside +-2u (error / u):\n")
+        print("| record | f_d Hz | Q | SNR dB | path | f_d | beta | warnings |")
+        print("|---:|---:|---:|---:|---|---:|---:|---|")
+        print("\n".join(cover_lines))
 
 
 #: Mode search measured: ``--detection model`` for the experimental model-based search.
@@ -221,5 +268,12 @@ if __name__ == "__main__":
         k = argv.index("--detection")
         DETECTION = argv[k + 1]
         del argv[k : k + 2]
+    seed = 20261201
+    if "--seed" in argv:
+        k = argv.index("--seed")
+        seed = int(argv[k + 1])
+        del argv[k : k + 2]
+    show_misses = "--misses" in argv
+    argv = [a for a in argv if a != "--misses"]
     print(f"detection = {DETECTION!r}")
-    main(*[int(a) for a in argv])
+    main(*[int(a) for a in argv], seed=seed, misses=show_misses)
