@@ -207,7 +207,7 @@ def test_folder_batch_prints_a_summary(two_mode_wav, tmp_path):
     r = run("analyze", folder, "--jobs", "2")
     assert r.exit_code == 2
     assert len(table_rows(r.stdout)) == 3 * 2  # two modes in each good file
-    assert re.search(r"^4 files: 3 analysed, 1 errors, 6 modes in [\d.]+ s$", r.stdout, re.M)
+    assert re.search(r"^4 files: 3 analysed, 1 error, 6 modes in [\d.]+ s$", r.stdout, re.M)
 
 
 def test_store_writes_the_history(two_mode_wav, tmp_path, monkeypatch):

@@ -360,3 +360,21 @@ def test_shared_options_have_one_definition_in_every_command():
             uses.setdefault(flag, set()).add(name)
     # the shared options really are shared: --json by six commands, --db by four, --jobs by three
     assert len(uses["--json"]) == 6 and len(uses["--db"]) == 4 and len(uses["--jobs"]) == 3, uses
+
+
+@pytest.mark.parametrize(
+    "args",
+    [
+        ["analyze", "gone.wav", "--jobs", "0"],
+        ["limits", "learn", "gone.wav", "-o", "lim.toml", "-j", "0"],
+        ["check", "gone.wav", "--limits", "gone.toml", "--jobs", "0"],
+    ],
+)
+def test_jobs_below_one_is_a_usage_error_everywhere(args, tmp_path, monkeypatch):
+    # README "Exit statuses": a bad option value such as --jobs 0 is a usage error (64), found
+    # before any file is read (neither the recording nor the limits file is named)
+    monkeypatch.chdir(tmp_path)
+    r = runner.invoke(app, args)
+    assert r.exit_code == 64, r.output
+    assert r.stderr.strip() == "ringdown: error: --jobs must be >= 1; got 0"
+    assert list(tmp_path.iterdir()) == []  # nothing written (no limits file, no database)

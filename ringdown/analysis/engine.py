@@ -136,7 +136,9 @@ def analyze_blocks(
             "cut where the level was back at the noise; hits combined over the file",
         )
     ]
-    return _combined(stream, int(n_total), hits, used, notes + parts.notes, parts, settings)
+    return _combined(
+        stream, parts, n_total=int(n_total), hits=hits, used=used, notes=notes + parts.notes, settings=settings
+    )
 
 
 @dataclass(frozen=True)
@@ -293,7 +295,7 @@ def _used_hits(parts: _Gathered, name: str) -> tuple[list, list]:
 
 
 def _combined(
-    stream: _Stream, n_total: int, hits: list, used: list, notes: list[Notice], parts: _Gathered, settings: dict
+    stream: _Stream, parts: _Gathered, *, n_total: int, hits: list, used: list, notes: list[Notice], settings: dict
 ) -> Analysis:
     """The file's Analysis: the modes of the used hits combined as the whole-file path does."""
     from .pipeline import _combine_hits, _unique

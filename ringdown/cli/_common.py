@@ -7,7 +7,7 @@ import glob
 import json
 import os
 import sys
-from collections.abc import Callable, Iterable
+from collections.abc import Callable, Iterable, Iterator
 from pathlib import Path
 from typing import Any, Optional, TypeVar
 
@@ -67,7 +67,7 @@ CHANNEL_HELP = (
 )
 
 
-def parse_channel(text: Optional[str]):
+def parse_channel(text: Optional[str]) -> int | str | None:
     """``--channel`` as given: digits become an int (1-based index), anything else stays a name."""
     if text is None:
         return None
@@ -132,7 +132,7 @@ def _sigint_handled_by(handler):
 
 
 @contextlib.contextmanager
-def catching_interrupts():
+def catching_interrupts() -> Iterator[None]:
     """During a batch: Ctrl-C raises ``KeyboardInterrupt`` as usual and is also remembered.
 
     A library call that happens to be running when the signal lands may turn the interrupt into
@@ -158,7 +158,7 @@ def check_interrupt() -> None:
 
 
 @contextlib.contextmanager
-def sigint_deferred():
+def sigint_deferred() -> Iterator[None]:
     """Hold Ctrl-C back while one result is being stored, so it is stored whole or not at all
     and "done (stored)" is true; the interrupt is raised as soon as the block ends."""
     caught: list[int] = []
@@ -316,7 +316,7 @@ def on_terminal(json_out: bool) -> bool:
     return not json_out and sys.stdout.isatty() and sys.stderr.isatty()
 
 
-def progress_bar(enabled: bool, total: int, label: str):
+def progress_bar(enabled: bool, total: int, label: str) -> tuple[Any, Any]:
     """A rich progress bar on stderr when enabled, else a no-op with the same interface.
 
     Returns ``(context_manager, task_id)``; call ``cm.advance(task_id)`` per finished item.

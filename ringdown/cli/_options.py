@@ -18,7 +18,7 @@ four commands (``tests/test_cli_options.py`` checks that they all accept the sam
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Annotated, Optional
+from typing import Annotated, Any, Optional
 
 import typer
 
@@ -179,13 +179,17 @@ MinHitSnrDb = Annotated[
 ]
 
 
-def reader_options(channel=None, column=None, sample_rate=None) -> dict:
+def reader_options(
+    channel: Optional[str] = None, column: Optional[str] = None, sample_rate: Optional[float] = None
+) -> dict:
     """The reader keyword arguments that were given (None values left out)."""
     given = {"channel": parse_channel(channel), "column": parse_channel(column), "sample_rate": sample_rate}
     return {k: v for k, v in given.items() if v is not None}
 
 
-def report_header(title=None, notes=None, serial=None, **fields) -> dict:
+def report_header(
+    title: Optional[str] = None, notes: Optional[str] = None, serial: Optional[str] = None, **fields: Any
+) -> dict:
     """Keyword arguments of ``ringdown.render.report.render_report`` for the header options.
 
     ``fields`` are further header lines (station, operator, limits ...); None values are left out.

@@ -5,9 +5,10 @@ from __future__ import annotations
 import contextlib
 import csv
 import sys
+from collections.abc import Iterable
 from functools import partial
 from pathlib import Path
-from typing import Annotated, Any, NoReturn, Optional
+from typing import TYPE_CHECKING, Annotated, Any, NoReturn, Optional
 
 import typer
 
@@ -63,6 +64,9 @@ from ._options import (
     reader_options,
     report_header,
 )
+
+if TYPE_CHECKING:
+    from ..analysis.results import Analysis
 
 __all__ = ["register", "parse_band", "parse_columns", "format_table", "TABLE_COLUMNS", "DEFAULT_COLUMNS"]
 
@@ -128,11 +132,11 @@ def parse_columns(text: str | None) -> tuple[str, ...]:
     return keys
 
 
-def format_table(analysis, columns: tuple[str, ...] = DEFAULT_COLUMNS) -> str:
+def format_table(analysis: Analysis, columns: tuple[str, ...] = DEFAULT_COLUMNS) -> str:
     """A readable text table of one analysis (what ``analyze`` prints without ``--json``).
 
     A recording that could not be analysed gives an empty string: its error goes to stderr only.
-    Numbers are written by :func:`ringdown.numfmt.fmt_pm`: ``611.999885(83)`` is
+    Numbers are written by :func:`ringdown.base.numfmt.fmt_pm`: ``611.999885(83)`` is
     611.999885 ± 0.000083.
     """
     from ..io.outputs import shown
@@ -174,11 +178,11 @@ def format_table(analysis, columns: tuple[str, ...] = DEFAULT_COLUMNS) -> str:
     return "\n".join(lines) + "\n"
 
 
-def write_csv(analyses, path: str) -> None:
+def write_csv(analyses: Iterable[Analysis], path: str) -> None:
     """One row per mode of every analysed file (files that failed get one row with the error).
 
     Written to a temporary file and renamed into place; text cells are neutralised
-    (:func:`ringdown.outputs.csv_cell`)."""
+    (:func:`ringdown.io.outputs.csv_cell`)."""
     from ..analysis.results import mode_keys
     from ..io.outputs import atomic_write, csv_row
 
@@ -295,6 +299,11 @@ def analyze_cmd(
     _exit(analyses, paths, interrupted, failed_outputs or storer.failed, history is not None, json_out, jsonl, started)
 
 
+def _count(n: int, noun: str) -> str:
+    """``n`` and the noun, plural unless ``n`` is 1 ("1 mode", "0 errors", "3 modes")."""
+    return f"{n} {noun}" + ("" if n == 1 else "s")
+
+
 def _exit(analyses, paths, interrupted, failed_outputs, stored, json_out, jsonl, started) -> NoReturn:
     """The last line (interrupted, or the batch's counts) and the exit status of ``analyze``."""
     if interrupted:
@@ -305,8 +314,8 @@ def _exit(analyses, paths, interrupted, failed_outputs, stored, json_out, jsonl,
     errors = sum(1 for a in analyses if a.error is not None)
     if len(analyses) > 1 and not json_out:
         typer.echo(
-            f"{len(analyses)} files: {len(analyses) - errors} analysed, {errors} errors, "
-            f"{sum(len(a.modes) for a in analyses)} modes in {seconds() - started:.1f} s",
+            f"{len(analyses)} files: {len(analyses) - errors} analysed, {_count(errors, 'error')}, "
+            f"{_count(sum(len(a.modes) for a in analyses), 'mode')} in {seconds() - started:.1f} s",
             err=jsonl,
         )
     bad = errors or failed_outputs or paths.problems

@@ -53,6 +53,8 @@ from ._options import (
 if TYPE_CHECKING:
     from matplotlib.figure import Figure
 
+    from ..treatment.results import Comparison
+
 __all__ = ["register", "format_table"]
 
 
@@ -64,7 +66,7 @@ def _pm(v, u, digits: int = 4) -> str:
     return fmt_pm(v, u, digits=digits, missing="-")
 
 
-def format_table(comparison) -> str:
+def format_table(comparison: Comparison) -> str:
     """The readable summary ``ringdown compare`` prints by default."""
     s = comparison.settings
     conf = 100.0 * s["confidence"]

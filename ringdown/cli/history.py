@@ -3,14 +3,18 @@
 from __future__ import annotations
 
 import csv
+from collections.abc import Sequence
 from pathlib import Path
-from typing import Annotated, Optional
+from typing import TYPE_CHECKING, Annotated, Optional
 
 import typer
 
 from ..base.numfmt import fmt_value
 from ._common import EXIT_EPILOG, EXIT_ERROR, error_line, guarded, print_json, usage_error
 from ._options import Db, Debug, Json
+
+if TYPE_CHECKING:
+    from ..inspection.store import StoredResult
 
 __all__ = ["register", "format_history"]
 
@@ -28,7 +32,7 @@ def _n_modes(records) -> int:
     return min(max(seen or [0]), 6)
 
 
-def format_history(records) -> str:
+def format_history(records: Sequence[StoredResult]) -> str:
     """A text table: one line per stored test (names with control characters shown escaped)."""
     from ..inspection.check import verdict_kind
     from ..io.outputs import shown
@@ -46,7 +50,7 @@ def format_history(records) -> str:
             m = r.mode_for(j)
             fs.append(_f(None if m is None else m.get("f_d_hz"), 6))
         reason = r.reasons[0]["message"] if r.reasons else (r.error or "")
-        kind = verdict_kind(r.verdict, [n.get("code") for n in r.notes])
+        kind = verdict_kind(r.verdict, [str(n.get("code")) for n in r.notes])
         verdict = "PASS (advisory)" if kind == "pass_advisory" else shown(r.verdict or r.kind).upper()
         rows.append(
             [

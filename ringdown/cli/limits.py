@@ -305,7 +305,7 @@ def _learn(files, output, force, recursive, jobs, opts, coverage, confidence, to
     return replace(lim, source=output, sha256=sha)
 
 
-def format_learned(lim, output: str) -> str:
+def format_learned(lim: Limits, output: str) -> str:
     """The lines ``limits learn`` prints without ``--json``: the windows of every mode."""
     lines = [
         f"learned limits from {lim.n_parts} good parts (coverage {lim.coverage:g}, confidence "
@@ -314,16 +314,19 @@ def format_learned(lim, output: str) -> str:
     if lim.reader:
         lines.append("  read with " + ", ".join(f"{k} {v}" for k, v in lim.reader.items()))
     for m in lim.modes:
-        line = (
-            f"  mode {m.index}: f_d {' to '.join(fmt_values(m.f_hz, 6))} Hz, zeta {' to '.join(fmt_values(m.zeta, 3))}"
-        )
+        line = f"  mode {m.index}: f_d {_window(m.f_hz, 6)} Hz, zeta {_window(m.zeta, 3)}"
         if m.ratio is not None:
-            line += f", ratio to mode 1 {' to '.join(fmt_values(m.ratio, 6))}"
+            line += f", ratio to mode 1 {_window(m.ratio, 6)}"
         lines.append(line)
     if lim.mahalanobis is not None:
         mh = lim.mahalanobis
         lines.append(f"  Mahalanobis distance of {len(mh.features)} features at most {fmt_value(mh.threshold, 3)}")
     return "\n".join(lines)
+
+
+def _window(window: tuple[float, float] | None, digits: int) -> str:
+    """``low to high`` in the one number format, "-" for a window the limits do not have."""
+    return "-" if window is None else " to ".join(fmt_values(window, digits))
 
 
 def check_cmd(

@@ -112,8 +112,6 @@ def listen_cmd(
     debug: Debug = False,
 ) -> None:
     """Listen for taps (a sound card, or --replay FILE): per tap the modes, or the verdict with --limits."""
-    from ..inspection.store import ResultStore
-
     if list_devices:
         from ..io.device import list_devices as _list
 
@@ -124,7 +122,7 @@ def listen_cmd(
         lambda: _parse(speed, replay, max_taps, limits, part_id, first, ask_part_id, min_hit_snr_db), debug=debug
     )
     source = guarded(lambda: _source(replay, speed, device, channel, sample_rate), debug=debug)
-    history = guarded(lambda: ResultStore(resolve_db(db)), debug=debug) if store else None
+    history = guarded(lambda: _open_store(db), debug=debug) if store else None
     station_options = dict(limits=lim, save_dir=save_dir, store=history, station=station, operator=operator)
     st = guarded(lambda: _station(source, replay, opts, ids, station_options), debug=debug)
     if replay is None:
@@ -171,6 +169,13 @@ def _parse(speed, replay, max_taps, limits, part_id, first, ask_part_id, min_hit
     ids = PartIds(part_id, start=first, prompt=_ask if ask_part_id else None)
     opts = {} if min_hit_snr_db is None else {"min_hit_snr_db": min_hit_snr_db}
     return lim, ids, opts
+
+
+def _open_store(db):
+    """The results history (``--db``, else ``$RINGDOWN_DB``, else ringdown.sqlite here)."""
+    from ..inspection.store import ResultStore
+
+    return ResultStore(resolve_db(db))
 
 
 def _station(source, replay, options: dict, part_ids, kwargs: dict):

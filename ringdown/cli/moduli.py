@@ -11,7 +11,7 @@ from __future__ import annotations
 import csv
 import math
 from pathlib import Path
-from typing import Annotated, Optional
+from typing import TYPE_CHECKING, Annotated, Optional
 
 import typer
 
@@ -32,6 +32,9 @@ from ._options import (
     report_header,
 )
 
+if TYPE_CHECKING:
+    from ..materials.results import ModuliResult
+
 __all__ = ["register", "format_table"]
 
 
@@ -43,7 +46,7 @@ def _pm(v, u, scale: float = 1.0) -> str:
     return fmt_pm(v / scale, None if u is None else u / scale, missing="-")
 
 
-def format_table(result) -> str:
+def format_table(result: ModuliResult) -> str:
     """The readable summary ``ringdown moduli`` prints by default."""
     sp = result.specimen
     if result.shape == "bar":

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import os
 import re
+from collections.abc import Iterable
 from pathlib import Path
 from typing import TYPE_CHECKING, cast
 
@@ -15,6 +16,8 @@ from ..base.errors import ParameterError, RingdownError
 
 if TYPE_CHECKING:
     from matplotlib.figure import Figure
+
+    from ..analysis.results import Analysis
 
 __all__ = ["PLOT_FORMATS", "check_plot_format", "write_plots", "write_report"]
 
@@ -63,7 +66,7 @@ def _stems(analyses) -> list[str]:
     return out
 
 
-def write_plots(analyses, out_dir, fmt: str = "png") -> list[str]:
+def write_plots(analyses: Iterable[Analysis], out_dir: str | os.PathLike, fmt: str = "png") -> list[str]:
     """Write every figure of every analysed recording into ``out_dir``.
 
     For each recording ``STEM_overview.FMT`` (recording and spectrum), and per mode
@@ -128,7 +131,9 @@ def write_plots(analyses, out_dir, fmt: str = "png") -> list[str]:
     return written
 
 
-def write_report(analyses, out_path, settings: dict | None = None, header: dict | None = None) -> str:
+def write_report(
+    analyses: Iterable[Analysis], out_path: str | os.PathLike, settings: dict | None = None, header: dict | None = None
+) -> str:
     """Write the self-contained HTML report of ``analyses`` to ``out_path``; return the path.
 
     ``settings`` are the run's options, shown at the top of the report; ``header`` the title,

@@ -125,19 +125,9 @@ class SoundFileBlocks:
         if info is None:
             raise InputError(f"{name!r} cannot be read as a sound file ({reason})")
         n_channels = int(info.channels)
-        choice = _files._selection(channel, None, name)
-        index = 1 if choice is None else _files._parse_index(choice)
-        if index is None or not 1 <= index <= n_channels:
-            raise ParameterError(
-                f"channel {choice!r} is out of range: {name!r} has {n_channels} "
-                f"channel{'s' if n_channels != 1 else ''}; pick 1 to {n_channels}"
-            )
+        index = _sound._channel_index(_files._selection(channel, None, name), n_channels, name)
         rate = float(info.samplerate)
-        if sample_rate is not None and not math.isclose(float(sample_rate), rate, rel_tol=_files._RATE_RTOL):
-            raise ParameterError(
-                f"sample rate {float(sample_rate):g} Hz given, but {name!r} states {rate:g} Hz; "
-                "drop the sample rate option (the file's own rate is used)"
-            )
+        _sound._check_stated_rate(sample_rate, rate, name)
         frames = int(info.frames)
         self.path = name
         self.info = info

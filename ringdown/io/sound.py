@@ -76,24 +76,8 @@ def read_sound(name, info, *, channel, column, sample_rate, limit, max_bytes) ->
     n_channels = int(info.channels)
     frames = int(info.frames)
     rate = float(info.samplerate)
-    choice = _selection(channel, column, name)
-    if choice is None:
-        index = 1
-    else:
-        parsed = _parse_index(choice)
-        if parsed is None:
-            raise ParameterError(f"channel {choice!r} of {name!r} is not a channel number; give 1 to {n_channels}")
-        index = parsed
-        if not 1 <= index <= n_channels:
-            raise ParameterError(
-                f"channel {index} is out of range: {name!r} has {n_channels} "
-                f"channel{'s' if n_channels != 1 else ''}; pick 1 to {n_channels}"
-            )
-    if sample_rate is not None and not math.isclose(sample_rate, rate, rel_tol=_RATE_RTOL):
-        raise ParameterError(
-            f"sample rate {sample_rate:g} Hz given, but {name!r} states {rate:g} Hz; "
-            "drop the sample rate option (the file's own rate is used)"
-        )
+    index = _channel_index(_selection(channel, column, name), n_channels, name)
+    _check_stated_rate(sample_rate, rate, name)
     need = frames * n_channels * 8
     if need > limit:
         raise InputError(
@@ -128,6 +112,32 @@ def read_sound(name, info, *, channel, column, sample_rate, limit, max_bytes) ->
         n_channels=n_channels,
         notes=notes,
     )
+
+
+def _channel_index(choice: object, n_channels: int, name: str) -> int:
+    """The 1-based channel ``choice`` names (the first when None); ParameterError for one that is
+    not a number or not among the ``n_channels`` channels of ``name``."""
+    if choice is None:
+        return 1
+    index = _parse_index(choice)
+    if index is None:
+        raise ParameterError(f"channel {choice!r} of {name!r} is not a channel number; give 1 to {n_channels}")
+    if not 1 <= index <= n_channels:
+        raise ParameterError(
+            f"channel {index} is out of range: {name!r} has {n_channels} "
+            f"channel{'s' if n_channels != 1 else ''}; pick 1 to {n_channels}"
+        )
+    return index
+
+
+def _check_stated_rate(sample_rate: float | None, rate: float, name: str) -> None:
+    """ParameterError when a sample rate passed in disagrees (beyond 0.1 %) with the ``rate`` Hz
+    the sound file ``name`` states."""
+    if sample_rate is not None and not math.isclose(float(sample_rate), rate, rel_tol=_RATE_RTOL):
+        raise ParameterError(
+            f"sample rate {float(sample_rate):g} Hz given, but {name!r} states {rate:g} Hz; "
+            "drop the sample rate option (the file's own rate is used)"
+        )
 
 
 def _wav_truncation(name: str, frames_read: int) -> tuple[tuple[str, str], ...]:

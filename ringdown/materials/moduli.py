@@ -452,13 +452,11 @@ def moduli(
     assert fc is not None  # the flexural choice always finds a mode (or raises)
     x, u = _inputs(specimen, fc)
     mu_guess = float(poisson if poisson is not None else poisson_guess)
-    preds = _predictions(specimen, x, fc.f_hz, mu_guess, fc.f_hz_u / fc.f_hz)
-    # the second flexural mode, when the flexural record has it, confirms the choice
-    second = [c.f_hz for c in flex.cands if c is not fc and _inside(c.f_hz, preds["flexural_2"])]
-    preds["flexural_2"]["found_hz"] = second[0] if second else preds["flexural_2"]["found_hz"]
+    preds = _predicted_modes(specimen, x, flex, mu_guess)
     tors = None
     if torsional is not None:
-        tors = _choose_torsional(torsional, torsional_hz_u, torsional_mode, opts, flex, preds, mu_guess, warnings)
+        t_in = _candidates(torsional, "torsional", torsional_hz_u, opts)
+        tors = _choose_torsional(t_in, torsional_mode, flex, preds, mu_guess, warnings)
     if tors is not None and tors.mode is not None:
         mu_src = "measured"
         x["f_tors_hz"], u["f_tors_hz"] = tors.mode.f_hz, tors.mode.f_hz_u
@@ -478,6 +476,21 @@ def _inputs(specimen: RectangularBar | CylindricalRod, fc: _Candidate) -> tuple[
     u: dict[str, float] = {k: ui for k, (_, ui) in specimen.inputs().items()}
     x["f_flex_hz"], u["f_flex_hz"] = fc.f_hz, fc.f_hz_u
     return x, u
+
+
+def _predicted_modes(
+    specimen: RectangularBar | CylindricalRod, x: dict[str, Any], flex: _Choice, mu_guess: float
+) -> dict[str, dict]:
+    """The windows of the other modes (:func:`_predictions`); the second flexural mode marked found
+    when the flexural record has it (it confirms the choice of the first)."""
+    fc = flex.mode
+    assert fc is not None
+    preds = _predictions(specimen, x, fc.f_hz, mu_guess, fc.f_hz_u / fc.f_hz)
+    for c in flex.cands:
+        if c is not fc and _inside(c.f_hz, preds["flexural_2"]):
+            preds["flexural_2"]["found_hz"] = c.f_hz
+            break
+    return preds
 
 
 @dataclass(frozen=True)
@@ -502,18 +515,17 @@ def _choose_flexural(value: FrequencySource, u_given: float | None, index: int |
 
 
 def _choose_torsional(
-    value: FrequencySource,
-    u_given: float | None,
+    found: tuple[list[_Candidate], bool, Analysis | None],
     index: int | None,
-    opts: dict,
     flex: _Choice,
     preds: dict,
     mu_guess: float,
     warnings: list[Notice],
 ) -> _Choice:
-    """The torsional mode: the user's, else the one in its predicted window (not the flexural mode
-    when both come from one record); warnings on the choice appended, the window marked found."""
-    cands, given, an = _candidates(value, "torsional", u_given, opts)
+    """The torsional mode among ``found`` (:func:`_candidates` of the torsional input): the user's,
+    else the one in its predicted window (not the flexural mode when both come from one record);
+    warnings on the choice appended, the window marked found."""
+    cands, given, an = found
     tc, rule = _users_choice(cands, given, index, "torsional")
     if tc is None:
         others = [c for c in cands if not (an is flex.analysis and c is flex.mode)]
