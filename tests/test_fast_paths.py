@@ -167,3 +167,55 @@ def test_half_power_lorentzian_jacobian_and_fit_match_finite_differences():
     with_jac, _ = curve_fit(_lorentz, f, y, p0=start, jac=_lorentz_jac, maxfev=4000)
     numeric, _ = curve_fit(_lorentz, f, y, p0=start, maxfev=4000)
     assert with_jac == pytest.approx(numeric, rel=1e-6, abs=1e-9)
+
+
+def test_residual_subtraction_matches_lstsq():
+    # reference: numpy.linalg.lstsq on the directly evaluated basis exp(-beta t) cos / sin (what
+    # pipeline._subtract_modes solved before its normal equations and block exponentials); the
+    # residual may differ by rounding only: 1e-10 of the segment's peak (the Gram matrix of these
+    # well separated modes is conditioned near 10, so the normal equations lose ~1 digit)
+    from types import SimpleNamespace
+
+    from ringdown.analysis.pipeline import _subtract_modes
+
+    fs = 48000.0
+    t = np.arange(93_499) / fs
+    modes = [SimpleNamespace(f_d_hz=f, beta_per_s=b) for f, b in ((440.0, 4.0), (1370.0, 9.0), (3120.0, 20.0))]
+    rng = np.random.default_rng(5)
+    seg = sum(
+        a * np.exp(-m.beta_per_s * t) * np.cos(2 * np.pi * m.f_d_hz * t + p)
+        for m, a, p in zip(modes, (0.5, 0.3, 0.2), (0.1, 1.0, 2.0))
+    )
+    seg = seg + 0.01 * np.sin(2 * np.pi * 2000.0 * t) * np.exp(-30.0 * t) + 1e-4 * rng.standard_normal(t.shape[0])
+    cols = []
+    for m in modes:
+        cols += [
+            np.exp(-m.beta_per_s * t) * np.cos(2 * np.pi * m.f_d_hz * t),
+            np.exp(-m.beta_per_s * t) * np.sin(2 * np.pi * m.f_d_hz * t),
+        ]
+    phi = np.stack(cols, axis=1)
+    ref = seg - phi @ np.linalg.lstsq(phi, seg, rcond=None)[0]
+    got = _subtract_modes(seg, fs, modes)
+    assert np.max(np.abs(got - ref)) < 1e-10 * np.max(np.abs(seg))
+    # what is left is the fourth component and the noise: the subtraction removed the three modes
+    assert np.std(got) == pytest.approx(np.std(ref), rel=1e-9)
+
+
+def test_innovation_matches_fft_autocorrelation_predictor():
+    # reference: the Yule-Walker predictor from scipy.signal.correlate's (FFT) autocorrelation,
+    # scipy.linalg.solve_toeplitz and scipy.signal.lfilter, as condition.innovation computed it
+    # before its lags came from dot products; equal to 1e-9 of the record's peak
+    from scipy import linalg, signal
+
+    from ringdown.analysis.condition import INNOVATION_ORDER, innovation
+
+    rng = np.random.default_rng(9)
+    t = np.arange(20_000) / 8000.0
+    x = np.exp(-3.0 * t) * np.cos(2 * np.pi * 700.0 * t) + 0.3 * np.exp(-8.0 * t) * np.cos(2 * np.pi * 1900.0 * t)
+    x = x + 1e-3 * rng.standard_normal(t.shape[0])
+    p = INNOVATION_ORDER
+    r = signal.correlate(x, x, mode="full", method="fft")[x.shape[0] - 1 : x.shape[0] + p] / x.shape[0]
+    r[0] *= 1.0 + 1e-9  # the same white-noise regularisation
+    a = linalg.solve_toeplitz(r[:p], r[1 : p + 1])
+    ref = signal.lfilter(np.concatenate(([1.0], -a)), [1.0], x)
+    assert np.max(np.abs(innovation(x) - ref)) < 1e-9 * np.max(np.abs(x))

@@ -19,7 +19,9 @@ at 0.5 s in records of 2 s, 60 s and 300 s. One run prints, as markdown tables:
    from the envelope's peak down to 20 dB above the noise), over the same floor, and the error in
    beta of both against the simulated values.
 3. ``ringdown analyze FILE --json`` against ``python -c "import numpy, scipy.signal, soundfile"``
-   (both whole processes, interpreter start-up included; median of the repeats).
+   (both whole processes, interpreter start-up included; medians of the repeats, wall and CPU
+   time), after ``python -m compileall`` of ringdown's modules, as an installation leaves them
+   (with ``PYTHONDONTWRITEBYTECODE=1`` set and no cache, each start compiles every module again).
 4. A 100-file batch through the CLI at ``--jobs 1`` and ``--jobs 2``: files per second and CPU
    seconds per file (user + system of the command and its workers).
 5. Time and peak memory (``ru_maxrss`` of a fresh process, interpreter, imports and one warm-up
@@ -261,19 +263,23 @@ def main(repeats: int = 7, quick: bool = False) -> None:
             er, es = r["err_ringdown"][str(f)], r["err_script"][str(f)]
             print(f"| {f:g} Hz, beta {b:g} 1/s | {_pct(er)} | {_pct(es)} |")
 
-        # 3. whole processes: the CLI on one file against the bare imports
+        # 3. whole processes: the CLI on one file against the bare imports, with ringdown's modules
+        # compiled to bytecode first as an installation does (numpy's and scipy's come compiled): with
+        # PYTHONDONTWRITEBYTECODE=1 in the environment and no cache every start would compile them
+        subprocess.run([sys.executable, "-m", "compileall", "-q", str(ROOT / "ringdown")], check=True)
         bare = [sys.executable, "-c", "import numpy, scipy.signal, soundfile"]
         one = cli + ["analyze", str(path), "--json"]
         _timed_process(one, default_env)  # warm the file system caches
         t_imp, t_cli = [], []
         for _ in range(max(3, repeats // 2)):
-            t_imp.append(_timed_process(bare, default_env)[0])
-            t_cli.append(_timed_process(one, default_env)[0])
-        ti, tc = statistics.median(t_imp), statistics.median(t_cli)
-        print("\n| process | wall s | / bare imports |")
-        print("|---|---:|---:|")
-        print(f"| python -c 'import numpy, scipy.signal, soundfile' | {ti:.2f} | 1 |")
-        print(f"| ringdown analyze FILE --json | {tc:.2f} | {tc / ti:.2f} |")
+            t_imp.append(_timed_process(bare, default_env))
+            t_cli.append(_timed_process(one, default_env))
+        ti, tc = (statistics.median(w for w, _ in t) for t in (t_imp, t_cli))
+        ci, cc = (statistics.median(c for _, c in t) for t in (t_imp, t_cli))
+        print("\n| process | wall s | / bare imports | CPU s | / bare imports |")
+        print("|---|---:|---:|---:|---:|")
+        print(f"| python -c 'import numpy, scipy.signal, soundfile' | {ti:.2f} | 1 | {ci:.2f} | 1 |")
+        print(f"| ringdown analyze FILE --json | {tc:.2f} | {tc / ti:.2f} | {cc:.2f} | {cc / ci:.2f} |")
 
         # 4. batches
         n_files = 20 if quick else 100
