@@ -679,16 +679,7 @@ def free_decay_start(x: np.ndarray, level_db: np.ndarray, span: HitSpan, *, smoo
     lowest = float(np.min(after))
     if lowest > level_p - FALL_DB and lowest > noise_db + 6.0:
         return _start_doubt(span)
-    k_fall = k_last + int(fell[0])
-    u = np.arange(plateau.shape[0], dtype=np.float64)
-    slope_p = float(np.polyfit(u, plateau, 1)[0]) if plateau.shape[0] >= 3 else 0.0
-    fall = seg[k_last : k_fall + 1]
-    slope_f = (
-        float(np.polyfit(np.arange(fall.shape[0], dtype=np.float64), fall, 1)[0])
-        if fall.shape[0] >= 3
-        else (float(seg[k_fall]) - float(seg[k_last])) / max(k_fall - k_last, 1)
-    )
-    if not (slope_f < 0 and slope_p > PLATEAU_SLOPE_RATIO * slope_f):
+    if not _plateau_then_fall(seg, k_last, k_last + int(fell[0])):
         return _start_doubt(span)
     high = np.flatnonzero(seg[: k_last + 1] >= level_p - 1.0)
     k_off = int(high[-1]) if high.size else 0
@@ -708,6 +699,22 @@ def free_decay_start(x: np.ndarray, level_db: np.ndarray, span: HitSpan, *, smoo
         )
     peak = start + int(np.argmax(level_db[start : min(b, start + 2 * sm + 1)]))
     return HitSpan(start, peak, b, span.bounce, kind, span.onset, doubt)
+
+
+def _plateau_then_fall(seg: np.ndarray, k_last: int, k_fall: int) -> bool:
+    """Whether the level ``seg`` (dB) holds a plateau before ``k_last`` and then falls (to
+    ``k_fall``): the least-squares slope of the fall is negative and that of the plateau more than
+    ``PLATEAU_SLOPE_RATIO`` of it (so falls at less than that fraction of the rate)."""
+    plateau = seg[:k_last]
+    u = np.arange(plateau.shape[0], dtype=np.float64)
+    slope_p = float(np.polyfit(u, plateau, 1)[0]) if plateau.shape[0] >= 3 else 0.0
+    fall = seg[k_last : k_fall + 1]
+    slope_f = (
+        float(np.polyfit(np.arange(fall.shape[0], dtype=np.float64), fall, 1)[0])
+        if fall.shape[0] >= 3
+        else (float(seg[k_fall]) - float(seg[k_last])) / max(k_fall - k_last, 1)
+    )
+    return slope_f < 0 and slope_p > PLATEAU_SLOPE_RATIO * slope_f
 
 
 def _start_doubt(span: HitSpan) -> HitSpan:

@@ -831,17 +831,7 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
     if residual:
         # after clipping, the residual holds what the clipped samples did to the decay: no broad search
         tried = [c for c in cands if c not in deferred and c not in retry]
-        more, more_rejected = _residual_round(hctx, resid_start, modes, tried, deferred, broad=clip_end is None)
-        n_first = len(modes)
-        modes.extend(more)
-        rejected.extend(more_rejected)
-        # what the residual search did not find either is named now, as the first pass would have
-        # (against the first pass's modes only: a residual-search mode far from it is not its pair)
-        first, unmatched = _match_candidates(
-            modes[:n_first], [c for c in retry if not any(_near(m, c) for m in modes[n_first:])], False
-        )
-        modes = first + modes[n_first:]
-        rejected.extend(unmatched)
+        modes = _with_residual(hctx, resid_start, modes, tried, deferred, retry, rejected, broad=clip_end is None)
     modes = _drop_driven(modes, onset_s, warnings)
     if failed:
         shown = "; ".join(failed[:3]) + (f"; and {len(failed) - 3} more" if len(failed) > 3 else "")
@@ -852,6 +842,28 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
     modes = [m.with_updates(index=i + 1) for i, m in enumerate(modes)]
     warnings.extend(r.notice() for r in rejected)
     return hit(used, modes, rejected)
+
+
+def _with_residual(
+    hctx: _HitContext,
+    start: int,
+    modes: list[Mode],
+    tried: list[Candidate],
+    deferred: list[Candidate],
+    retry: list[Candidate],
+    rejected: list[Rejected],
+    *,
+    broad: bool,
+) -> list[Mode]:
+    """The first pass's ``modes`` and those the residual search (:func:`_residual_round`) adds;
+    the ``retry`` candidates it did not find either are named in ``rejected`` now, as the first
+    pass would have (against the first pass's modes only: a residual-search mode far from one is
+    not its pair)."""
+    more, more_rejected = _residual_round(hctx, start, modes, tried, deferred, broad=broad)
+    rejected.extend(more_rejected)
+    first, unmatched = _match_candidates(modes, [c for c in retry if not any(_near(m, c) for m in more)], False)
+    rejected.extend(unmatched)
+    return first + more
 
 
 def _hit_notices(ctx: _RecordContext, span, warnings: list[Notice]) -> tuple[bool, int | None]:
@@ -1059,15 +1071,7 @@ def _residual_round(
         # broad peaks in the first residual only: after a strong broad mode is subtracted, its
         # broadband remnant makes humps a smoothed search would take for modes
         peaks = find_peaks(resid, fs, noise_psd=(ctx.noise_f, ctx.noise_p), broad=broad and round_ == 0)
-        fresh = []
-        for p in peaks:
-            near_mode = any(
-                abs(p.f_hz - m.f_d_hz) <= max(2.0 * m.beta_per_s / math.pi, 3.0 * res_hz, 3.0 * (m.f_d_hz_u or 0.0))
-                for m in known
-            )
-            near_cand = any(abs(p.f_hz - f) <= max(w, 2.0 * res_hz) for f, w in tried)
-            if not (near_mode or near_cand):
-                fresh.append(p)
+        fresh = _fresh_peaks(peaks, known, tried, res_hz)
         if not fresh:
             break
         tried += [(p.f_hz, max(p.width_hz, res_hz)) for p in fresh]
@@ -1108,6 +1112,24 @@ def _residual_round(
         new_modes += found_round
     rejected += [r for r, c in zip(row, row_cands) if not any(_near(m, c) for m in new_modes)]
     return new_modes, rejected
+
+
+def _fresh_peaks(
+    peaks: list[Peak], known: Sequence[Mode], tried: Sequence[tuple[float, float]], res_hz: float
+) -> list[Peak]:
+    """The peaks of a residual not near a mode measured so far (within twice its half-power
+    width, three resolutions or three standard uncertainties) nor near a candidate already tried
+    (``(f_hz, width_hz)``, within its width or two resolutions)."""
+    fresh = []
+    for p in peaks:
+        near_mode = any(
+            abs(p.f_hz - m.f_d_hz) <= max(2.0 * m.beta_per_s / math.pi, 3.0 * res_hz, 3.0 * (m.f_d_hz_u or 0.0))
+            for m in known
+        )
+        near_cand = any(abs(p.f_hz - f) <= max(w, 2.0 * res_hz) for f, w in tried)
+        if not (near_mode or near_cand):
+            fresh.append(p)
+    return fresh
 
 
 def _fit_deferred(
