@@ -100,17 +100,7 @@ def check_free_decay(an, f_d, beta, f_drive, t_switch, kind="switch-off"):
 @pytest.mark.parametrize("q", [5.0, 10.0, 30.0, 100.0])
 @pytest.mark.parametrize("detune", [0.0, -0.06])
 @pytest.mark.parametrize("startup", [False, True])
-def test_rlc_switched_off(q, detune, startup, request):
-    if (q, detune, startup) == (5.0, -0.06, False):
-        request.applymarker(
-            pytest.mark.xfail(
-                strict=True,
-                reason=(
-                    "the Q = 5 mode is found and measured, but the 5 ms of drive before the switch-off are "
-                    "too short a plateau for condition.free_decay_start: the hit is called an impulse"
-                ),
-            )
-        )
+def test_rlc_switched_off(q, detune, startup):
     x, fs, f_d, beta, f_drive, t_sw = rlc_record(q, detune, startup)
     an = analyze(x, fs)
     check_free_decay(an, f_d, beta, f_drive, t_sw)

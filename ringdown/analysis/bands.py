@@ -178,6 +178,22 @@ def spectrum_of(x: np.ndarray, sample_rate: float, *, t0_s: float = 0.0) -> Spec
     return Spectrum(np.fft.rfft(x, nfft), nfft, float(sample_rate), float(t0_s), int(x.shape[0]))
 
 
+def _real_band(spec: Spectrum, k_lo: int, k_hi: int, mask: np.ndarray) -> tuple[np.ndarray, float]:
+    """The band's real waveform (bins ``k_lo``..``k_hi`` of ``spec`` weighted by ``mask``) and
+    its sample rate, Hz. The band holds nothing above bin ``k_hi``, so an inverse FFT of length
+    ``n_r >= 16 (k_hi + 1)`` gives the same waveform sampled at >= 8x the band's top frequency,
+    which is enough for parabolic peak interpolation, at a fraction of the cost of the full rate;
+    the length is the next one with factors 2, 3 and 5 only (``scipy.fft.next_fast_len``), not
+    the next power of two, which could double it."""
+    from scipy.fft import next_fast_len
+
+    n_r = min(spec.nfft, next_fast_len(16 * (k_hi + 1), real=True))
+    part = np.zeros(n_r // 2 + 1, dtype=np.complex128)
+    part[k_lo : k_hi + 1] = spec.bins[k_lo : k_hi + 1] * mask
+    real_x = np.fft.irfft(part, n_r)[: int(math.ceil(spec.n_samples * n_r / spec.nfft))] * (n_r / spec.nfft)
+    return real_x, spec.sample_rate * n_r / spec.nfft
+
+
 def extract_band(
     spec: Spectrum,
     f_lo_hz: float,
@@ -246,21 +262,7 @@ def extract_band(
     step = spec.nfft // m
     n_out = int(math.ceil(spec.n_samples / step))
     z = z_full[:n_out]
-    real_x = None
-    real_rate = None
-    if real:
-        # the band holds nothing above bin k_hi, so an inverse FFT of length n_r >= 16 (k_hi + 1)
-        # gives the same waveform sampled at >= 8x the band's top frequency, which is enough for
-        # parabolic peak interpolation, at a fraction of the cost of the full rate; the length is
-        # the next one with factors 2, 3 and 5 only (scipy.fft.next_fast_len), not the next power
-        # of two, which could double it
-        from scipy.fft import next_fast_len
-
-        n_r = min(spec.nfft, next_fast_len(16 * (k_hi + 1), real=True))
-        part = np.zeros(n_r // 2 + 1, dtype=np.complex128)
-        part[k_lo : k_hi + 1] = spec.bins[k_lo : k_hi + 1] * mask
-        real_x = np.fft.irfft(part, n_r)[: int(math.ceil(spec.n_samples * n_r / spec.nfft))] * (n_r / spec.nfft)
-        real_rate = fs * n_r / spec.nfft
+    real_x, real_rate = _real_band(spec, k_lo, k_hi, mask) if real else (None, None)
     return Band(
         z=z,
         sample_rate=fs / step,

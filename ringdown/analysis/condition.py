@@ -12,7 +12,7 @@ decay has set in, is a hammer bounce (double hit).
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -25,6 +25,7 @@ __all__ = [
     "noise_floor_db",
     "find_hits",
     "free_decay_start",
+    "free_decay_starts",
     "find_clipping",
     "noise_psd",
     "steady_tones",
@@ -43,7 +44,8 @@ class HitSpan:
     forced response to a drive, stops and the level falls from its plateau) or ``"release"`` (a
     held static deflection let go). ``rise`` is the first sharp rise of the level (the tap, or
     the start of the drive; equal to ``onset`` for an impulse). ``doubt`` says why the start is
-    uncertain, or is ``None``.
+    uncertain, or is ``None``. ``from_innovation`` is True for a hit that only the prediction
+    error showed (:func:`innovation`).
     """
 
     onset: int
@@ -53,6 +55,7 @@ class HitSpan:
     kind: str = "impulse"
     rise: int | None = None
     doubt: str | None = None
+    from_innovation: bool = False
 
 
 #: Degree of the Legendre polynomial removed as offset and drift.
@@ -337,6 +340,42 @@ def innovation(x: np.ndarray, order: int = INNOVATION_ORDER) -> np.ndarray:
     return signal.lfilter(np.concatenate(([1.0], -a)), [1.0], x)
 
 
+#: The burst of a tap in the prediction error spans the samples within this many dB of its
+#: largest one (the -20 dB width of a pulse; common practice, no source).
+BURST_DB = 20.0
+
+
+def burst_length(e: np.ndarray) -> int:
+    """Length in samples of the largest burst of the prediction error ``e`` (n,): the samples
+    around the largest ``|e|`` within ``BURST_DB`` of it (at least 1). A tap's force lasts about
+    this long (one sample for an ideal impulse, the contact time of a real hammer)."""
+    if e.shape[0] == 0:
+        return 1
+    p = e * e
+    k = int(np.argmax(p))
+    if not p[k] > 0:
+        return 1
+    low = p < p[k] * 10.0 ** (-BURST_DB / 10.0)
+    before = np.flatnonzero(low[:k])
+    after = np.flatnonzero(low[k:])
+    lo = int(before[-1]) + 1 if before.size else 0
+    hi = k + int(after[0]) if after.size else e.shape[0]
+    return max(1, hi - lo)
+
+
+def innovation_smoothing(e: np.ndarray, smoothing: int) -> int:
+    """Width in samples over which to average the prediction error ``e`` (n,) for its level.
+
+    A tap's force is a burst in the prediction error as long as the force lasts (one sample for
+    an ideal impulse, the contact time of a real hammer), while the broadband level's
+    ``smoothing`` (one period of the dominant frequency) can be hundreds of samples: averaged that
+    long, a short burst is diluted by ``10 log10(smoothing / burst)`` dB and a second tap over
+    loud ringing can drown in the predictor's residual. The width is therefore the record's own
+    burst (:func:`burst_length`), at least 3 samples and at most ``smoothing``.
+    """
+    return int(min(max(3, burst_length(e)), max(3, int(smoothing))))
+
+
 def find_hits(
     level_db: np.ndarray,
     sample_rate: float,
@@ -382,8 +421,9 @@ def find_hits(
         3 dB: a second contact adds energy, while modes beating faster than that window only
         move the energy between them.
     innovation_level_db : (n_samples,) ndarray or None
-        The level (same smoothing) of :func:`innovation` of the record. When given, a rise of
-        it by the same rules, against its own noise floor, is a hit too (a second tap while
+        The level of :func:`innovation` of the record (averaged over
+        :func:`innovation_smoothing`). When given, a rise of it by the same rules, against its
+        own noise floor, is a hit too (a second tap while
         modes of the first still ring barely raises the broadband level, but it raises the
         prediction error as much as the first tap did).
 
@@ -397,51 +437,91 @@ def find_hits(
     hold = max(w + 1, int(hold_off_samples) if hold_off_samples is not None else int(round(HOLD_OFF_WIDTHS * sm)))
     bw = int(bounce_window_samples) if bounce_window_samples is not None else int(round(BOUNCE_WIDTHS * sm))
     w = min(w, max(2, n - 1))
-    threshold = noise_db + min_hit_snr_db
-    idx = _rises(level_db, w, hold, rise_db, threshold)
+    onsets = _level_onsets(level_db, w, hold, rise_db, noise_db + min_hit_snr_db)
+    if not onsets:
+        return []
+    inn = level_db
+    from_innovation: set[int] = set()
+    if innovation_level_db is not None:
+        inn = np.asarray(innovation_level_db, dtype=np.float64)
+        kept = _innovation_onsets(inn, onsets, w, hold, rise_db, noise_floor_db(inn, sm) + min_hit_snr_db)
+        from_innovation = set(kept)
+        onsets = sorted(onsets + kept)
+    rules = _HitRules(sm, w, hold, bw, bounce_rise_db)
+    return [
+        sp
+        for j, k in enumerate(onsets)
+        for sp in [_span_at(level_db, inn if k in from_innovation else level_db, onsets, j, rules, slow_level_db)]
+        if sp is not None
+    ]
+
+
+@dataclass(frozen=True, slots=True)
+class _HitRules:
+    """The spans :func:`find_hits` works with, in samples."""
+
+    sm: int  #: smoothing width W
+    w: int  #: a rise happens within this many samples
+    hold: int  #: hits closer than this are one
+    bw: int  #: a bounce comes within this many samples
+    bounce_rise_db: float  #: a bounce rises this much, dB
+
+
+def _span_at(
+    level_db: np.ndarray,
+    ref: np.ndarray,
+    onsets: list[int],
+    j: int,
+    rules: _HitRules,
+    slow_level_db: np.ndarray | None,
+) -> HitSpan | None:
+    """The span of the hit that rises at ``onsets[j]``, timed on ``ref`` (the level that showed
+    it: a hit over ringing on the prediction error's); None when the record ends before it
+    leaves any decay. The centred smoothing turns a step in power into a ramp one smoothing
+    width long, centred on the step: the onset is where the ramp reaches half (-3 dB) of the
+    level just after it."""
+    n, sm, k = level_db.shape[0], rules.sm, onsets[j]
+    top = float(np.max(ref[k : min(n, k + sm + 1)]))
+    lo_i = max(0, k - sm)
+    reach = np.flatnonzero(ref[lo_i : k + sm + 1] >= top - 3.0103)
+    onset = lo_i + int(reach[0]) if reach.size else k
+    end = onsets[j + 1] - sm if j + 1 < len(onsets) else n
+    stop = min(end, onset + rules.hold + rules.bw)
+    if stop <= onset:
+        return None  # a rise in the record's last samples leaves no decay to measure
+    peak = onset + int(np.argmax(level_db[onset:stop]))
+    bounce = _find_bounce(level_db, k, rules.bw, rules.w, rules.bounce_rise_db, end, sm + rules.w)
+    if bounce is not None and slow_level_db is not None and not _energy_step(slow_level_db, k, bounce, sm):
+        bounce = None
+    return HitSpan(onset=onset, peak=peak, end=end, bounce=bounce, from_innovation=ref is not level_db)
+
+
+def _level_onsets(level_db: np.ndarray, w: int, hold: int, rise_db: float, threshold: float) -> list[int]:
+    """Indices of the sharp rises of ``level_db`` (:func:`_rises`), one per ``hold`` samples;
+    the first crossing of ``threshold`` when there is none (the first rise from a quiet start
+    has nothing before it); empty when the level never reaches ``threshold``."""
     onsets: list[int] = []
-    for k in idx:
+    for k in _rises(level_db, w, hold, rise_db, threshold):
         if onsets and k - onsets[-1] < hold:
             continue
         onsets.append(int(k))
-    # The first rise from a quiet start has nothing before it; take the first crossing too.
     if not onsets:
         above = np.flatnonzero(level_db >= threshold)
-        if above.size == 0:
-            return []
-        onsets = [int(above[0])]
-    inn = level_db
-    if innovation_level_db is not None:
-        inn = np.asarray(innovation_level_db, dtype=np.float64)
-        more = _rises(inn, w, hold, rise_db, noise_floor_db(inn, sm) + min_hit_snr_db)
-        kept: list[int] = []
-        for k in more:
-            if all(abs(int(k) - o) >= hold for o in onsets + kept) and int(k) > onsets[0]:
-                kept.append(int(k))
-        from_innovation = set(kept)
-        onsets = sorted(onsets + kept)
-    else:
-        from_innovation = set()
-    # The centred smoothing turns a step in power into a ramp one smoothing width long, centred
-    # on the step: the onset is where the ramp reaches half (-3 dB) of the level just after it.
-    spans: list[HitSpan] = []
-    for j, k in enumerate(onsets):
-        # a hit over ringing is timed on the level that showed it
-        ref = inn if k in from_innovation else level_db
-        top = float(np.max(ref[k : min(n, k + sm + 1)]))
-        lo_i = max(0, k - sm)
-        reach = np.flatnonzero(ref[lo_i : k + sm + 1] >= top - 3.0103)
-        onset = lo_i + int(reach[0]) if reach.size else k
-        end = onsets[j + 1] - sm if j + 1 < len(onsets) else n
-        stop = min(end, onset + hold + bw)
-        if stop <= onset:
-            continue  # a rise in the record's last samples leaves no decay to measure
-        peak = onset + int(np.argmax(level_db[onset:stop]))
-        bounce = _find_bounce(level_db, k, bw, w, bounce_rise_db, end, sm + w)
-        if bounce is not None and slow_level_db is not None and not _energy_step(slow_level_db, k, bounce, sm):
-            bounce = None
-        spans.append(HitSpan(onset=onset, peak=peak, end=end, bounce=bounce))
-    return spans
+        if above.size:
+            onsets = [int(above[0])]
+    return onsets
+
+
+def _innovation_onsets(
+    inn_db: np.ndarray, onsets: list[int], w: int, hold: int, rise_db: float, threshold: float
+) -> list[int]:
+    """Rises of the prediction error's level ``inn_db`` (:func:`_rises`) after the first of
+    ``onsets`` and at least ``hold`` samples from every onset: the hits only it shows."""
+    kept: list[int] = []
+    for k in _rises(inn_db, w, hold, rise_db, threshold):
+        if all(abs(int(k) - o) >= hold for o in onsets + kept) and int(k) > onsets[0]:
+            kept.append(int(k))
+    return kept
 
 
 def _rises(level_db: np.ndarray, w: int, hold: int, rise_db: float, threshold: float) -> np.ndarray:
@@ -513,6 +593,34 @@ PLATEAU_WIDTHS = 4
 FALL_DB = 20.0
 
 
+def free_decay_starts(
+    x: np.ndarray, level_db: np.ndarray, spans: list[HitSpan], *, smoothing: int, noise_db: float
+) -> list[HitSpan]:
+    """:func:`free_decay_start` of every hit of :func:`find_hits`, in order.
+
+    The end of a drive is an innovation too (the force stops), so the prediction error shows a
+    hit where a switch-off or release starts a free decay. A hit that only the prediction error
+    showed is therefore joined to the hit before it when the two together are a switch-off or
+    release whose free decay starts within ``HOLD_OFF_WIDTHS`` smoothing widths of it.
+    """
+    sm = max(1, int(smoothing))
+    hold = int(round(HOLD_OFF_WIDTHS * sm))
+    out: list[HitSpan] = []
+    prev: HitSpan | None = None
+    for sp in spans:
+        if sp.from_innovation and prev is not None:
+            joined = free_decay_start(
+                x, level_db, replace(prev, end=sp.end, from_innovation=False), smoothing=sm, noise_db=noise_db
+            )
+            if joined.kind != "impulse" and abs(joined.onset - sp.onset) <= hold:
+                out[-1] = joined
+                prev = replace(prev, end=sp.end)
+                continue
+        out.append(free_decay_start(x, level_db, sp, smoothing=sm, noise_db=noise_db))
+        prev = sp
+    return out
+
+
 def free_decay_start(x: np.ndarray, level_db: np.ndarray, span: HitSpan, *, smoothing: int, noise_db: float) -> HitSpan:
     """Where the free decay of a hit starts: at the hit itself, or where a steady drive stops.
 
@@ -571,16 +679,7 @@ def free_decay_start(x: np.ndarray, level_db: np.ndarray, span: HitSpan, *, smoo
     lowest = float(np.min(after))
     if lowest > level_p - FALL_DB and lowest > noise_db + 6.0:
         return _start_doubt(span)
-    k_fall = k_last + int(fell[0])
-    u = np.arange(plateau.shape[0], dtype=np.float64)
-    slope_p = float(np.polyfit(u, plateau, 1)[0]) if plateau.shape[0] >= 3 else 0.0
-    fall = seg[k_last : k_fall + 1]
-    slope_f = (
-        float(np.polyfit(np.arange(fall.shape[0], dtype=np.float64), fall, 1)[0])
-        if fall.shape[0] >= 3
-        else (float(seg[k_fall]) - float(seg[k_last])) / max(k_fall - k_last, 1)
-    )
-    if not (slope_f < 0 and slope_p > PLATEAU_SLOPE_RATIO * slope_f):
+    if not _plateau_then_fall(seg, k_last, k_last + int(fell[0])):
         return _start_doubt(span)
     high = np.flatnonzero(seg[: k_last + 1] >= level_p - 1.0)
     k_off = int(high[-1]) if high.size else 0
@@ -600,6 +699,22 @@ def free_decay_start(x: np.ndarray, level_db: np.ndarray, span: HitSpan, *, smoo
         )
     peak = start + int(np.argmax(level_db[start : min(b, start + 2 * sm + 1)]))
     return HitSpan(start, peak, b, span.bounce, kind, span.onset, doubt)
+
+
+def _plateau_then_fall(seg: np.ndarray, k_last: int, k_fall: int) -> bool:
+    """Whether the level ``seg`` (dB) holds a plateau before ``k_last`` and then falls (to
+    ``k_fall``): the least-squares slope of the fall is negative and that of the plateau more than
+    ``PLATEAU_SLOPE_RATIO`` of it (so falls at less than that fraction of the rate)."""
+    plateau = seg[:k_last]
+    u = np.arange(plateau.shape[0], dtype=np.float64)
+    slope_p = float(np.polyfit(u, plateau, 1)[0]) if plateau.shape[0] >= 3 else 0.0
+    fall = seg[k_last : k_fall + 1]
+    slope_f = (
+        float(np.polyfit(np.arange(fall.shape[0], dtype=np.float64), fall, 1)[0])
+        if fall.shape[0] >= 3
+        else (float(seg[k_fall]) - float(seg[k_last])) / max(k_fall - k_last, 1)
+    )
+    return slope_f < 0 and slope_p > PLATEAU_SLOPE_RATIO * slope_f
 
 
 def _start_doubt(span: HitSpan) -> HitSpan:

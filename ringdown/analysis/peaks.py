@@ -78,13 +78,43 @@ def find_peaks(
     -------
     list of Peak, ascending in frequency.
     """
-    from scipy import ndimage, signal
+    from scipy import ndimage
 
     f, p_db, w2 = _spectrum(x, sample_rate)
-    df = f[1] - f[0]
     n = x.shape[0]
     if f_min_hz is None:
         f_min_hz = 3.0 * sample_rate / n
+    height = _peak_height(f, p_db, n, sample_rate, w2, min_prominence_db, noise_psd, noise_margin_db)
+    peaks = _sharp_peaks(f, p_db, height, min_prominence_db, f_min_hz, sample_rate)
+    if noise_psd is not None and broad:
+        # the Welch estimate averaged over 9 of its bins: a short pre-trigger's estimate scatters
+        # by ~1.5 dB per bin, as much as a broad peak's margin (as detect.smooth_density)
+        pw = np.array(noise_psd[1][1:], dtype=np.float64)
+        if pw.shape[0] > 10:
+            pw = ndimage.uniform_filter1d(pw, 9, mode="nearest")
+        level_s = np.interp(f, noise_psd[0][1:], pw) * sample_rate * w2 / (2.0 * n * n)
+        peaks += _broad_peaks(f, 10.0 ** (p_db / 10.0), level_s, n, sample_rate, peaks)
+        peaks.sort(key=lambda p: p.f_hz)
+    if max_peaks is not None and len(peaks) > max_peaks:
+        peaks = sorted(peaks, key=lambda p: p.level_db, reverse=True)[:max_peaks]
+    return sorted(peaks, key=lambda p: p.f_hz)
+
+
+def _peak_height(
+    f: np.ndarray,
+    p_db: np.ndarray,
+    n: int,
+    sample_rate: float,
+    w2: float,
+    min_prominence_db: float,
+    noise_psd: tuple[np.ndarray, np.ndarray] | None,
+    noise_margin_db: float | None,
+) -> np.ndarray:
+    """The level (dB, one per bin of ``f``) a sharp peak of the spectrum ``p_db`` of ``n``
+    samples (taper energy ``w2``) must reach: ``min_prominence_db`` above the running median and,
+    with ``noise_psd``, ``noise_margin_db`` above the level noise alone gives (see :func:`find_peaks`)."""
+    from scipy import ndimage
+
     # running median over 1/8 of the band, on at most ~4096 evenly spaced bins (then
     # interpolated): the floor varies slowly, and this keeps the median cheap on long records
     step = max(1, f.shape[0] // 4096)
@@ -104,6 +134,18 @@ def find_peaks(
             # [derived]; 2 dB more for the scatter of the Welch estimate of that mean
             noise_margin_db = 10.0 * math.log10(math.log(f.shape[0]) + 7.0) + 2.0
         height = np.maximum(height, 10.0 * np.log10(level + 1e-300) + noise_margin_db)
+    return height
+
+
+def _sharp_peaks(
+    f: np.ndarray, p_db: np.ndarray, height: np.ndarray, min_prominence_db: float, f_min_hz: float, sample_rate: float
+) -> list[Peak]:
+    """The local maxima of ``p_db`` (dB over the bins ``f``, Hz) that reach ``height`` and stand
+    ``min_prominence_db`` out, between ``f_min_hz`` and 0.98 Nyquist, each interpolated
+    (parabola through three bins) and given its half-power width."""
+    from scipy import signal
+
+    df = f[1] - f[0]
     # local maxima above the height first, then the (costlier) prominence of those alone
     inner = p_db[1:-1]
     cand = np.flatnonzero((inner > p_db[:-2]) & (inner >= p_db[2:]) & (inner >= height[1:-1])) + 1
@@ -127,18 +169,7 @@ def find_peaks(
                 width_hz=float(width_hz),
             )
         )
-    if noise_psd is not None and broad:
-        # the Welch estimate averaged over 9 of its bins: a short pre-trigger's estimate scatters
-        # by ~1.5 dB per bin, as much as a broad peak's margin (as detect.smooth_density)
-        pw = np.array(noise_psd[1][1:], dtype=np.float64)
-        if pw.shape[0] > 10:
-            pw = ndimage.uniform_filter1d(pw, 9, mode="nearest")
-        level_s = np.interp(f, noise_psd[0][1:], pw) * sample_rate * w2 / (2.0 * n * n)
-        peaks += _broad_peaks(f, 10.0 ** (p_db / 10.0), level_s, n, sample_rate, peaks)
-        peaks.sort(key=lambda p: p.f_hz)
-    if max_peaks is not None and len(peaks) > max_peaks:
-        peaks = sorted(peaks, key=lambda p: p.level_db, reverse=True)[:max_peaks]
-    return sorted(peaks, key=lambda p: p.f_hz)
+    return peaks
 
 
 def _half_power_bins(p_db: np.ndarray, k: int) -> int:

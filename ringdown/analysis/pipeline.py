@@ -357,92 +357,24 @@ def analyze_recording(
         settings.update(reader_settings)
     name = repr(rec.path) if rec.path else "the array"
     fs = rec.sample_rate
-    if rec.n_samples < MIN_SAMPLES:
-        raise InputError(f"{name} has {rec.n_samples} samples; at least {MIN_SAMPLES} are needed")
-    nyq = fs / 2.0
-    for lo, hi in opts.bands or ():
-        if hi > nyq:
-            raise ParameterError(
-                f"band {lo:g}-{hi:g} Hz lies above Nyquist ({nyq:g} Hz) for {name}; lower the band or resample"
-            )
-    raw, i0 = _time_window(rec, opts, name)
+    raw, i0 = _checked_samples(rec, opts, name)
     i0 += int(sample_offset)
-    peak_abs = float(np.max(np.abs(raw)))
-    if peak_abs > MAX_ABS_SAMPLE:
-        raise InputError(
-            f"{name} holds values up to {peak_abs:.3g}, beyond the {MAX_ABS_SAMPLE:g} that can be squared "
-            "without overflow; rescale the signal (e.g. to volts or m/s^2)"
-        )
-    if float(np.ptp(raw)) == 0.0:
-        raise InputError(f"{name} is constant (every sample is {raw[0]:g}): nothing rings down")
     x, step, f_dom = condition.remove_drift_and_step(raw, fs)
     scale = float(np.max(np.abs(x)))
     if scale == 0.0 or scale < 1e-12 * max(float(np.max(np.abs(raw))), 1e-300):
         raise InputError(f"{name} holds only a constant offset or a straight drift: nothing rings down")
-
-    smoothing = condition.envelope_smoothing(x, fs, dominant_hz=f_dom)
-    level = condition.envelope_db(x, fs, smoothing=smoothing)
-    noise_db = condition.noise_floor_db(level, smoothing)
-    slow = condition.envelope_db(x, fs, smoothing=2 * smoothing)
-    # the prediction error shows a second tap on a record still ringing from the first
-    inn_level = condition.envelope_db(condition.innovation(x), fs, smoothing=smoothing)
-    spans = condition.find_hits(
-        level,
-        fs,
-        noise_db=noise_db,
-        min_hit_snr_db=opts.min_hit_snr_db,
-        smoothing=smoothing,
-        slow_level_db=slow,
-        innovation_level_db=inn_level,
-    )
-    band_note = None
-    if not spans:
-        # a narrowband mode can stand far above its band's noise while the broadband level does
-        # not rise min_hit_snr_db: look for the hits in the band of the strongest spectral peak
-        found = _hits_in_strongest_band(x, fs, opts.min_hit_snr_db, smoothing)
-        if found is not None:
-            spans, f_band = found
-            band_note = Notice(
-                "hits_in_band",
-                f"the broadband level does not rise {opts.min_hit_snr_db:g} dB above its "
-                f"noise; hits were found in the band around {f_band:.1f} Hz",
-            )
-    if not spans:
-        peak_db = float(level.max() - noise_db)
-        hint = (
-            f"; it holds {rec.n_channels} channels (this is {rec.channel!r}): try another with --channel"
-            if rec.n_channels > 1
-            else ""
-        )
-        raise NoRingdownError(
-            f"no ring-down found in {name}: the envelope never rises {opts.min_hit_snr_db:g} dB above its "
-            f"noise floor (highest {peak_db:.1f} dB); check the gain, the trigger or the file{hint}"
-        )
+    lv = _levels(x, fs, f_dom)
+    spans, band_note = _find_spans(rec, name, lv, opts)
     # where each free decay starts: at the hit, or where a steady drive stops
-    spans = [condition.free_decay_start(raw, slow, sp, smoothing=smoothing, noise_db=noise_db) for sp in spans]
+    spans = condition.free_decay_starts(raw, lv.slow, spans, smoothing=lv.smoothing, noise_db=lv.noise_db)
     if step is not None:
         # a step of the mean where a hit rises: a held deflection let go
         spans = [
-            replace(sp, kind="release") if sp.kind == "impulse" and abs(sp.onset - step) <= 2 * smoothing else sp
+            replace(sp, kind="release") if sp.kind == "impulse" and abs(sp.onset - step) <= 2 * lv.smoothing else sp
             for sp in spans
         ]
-    clipped = condition.find_clipping(raw, full_scale=rec.full_scale)
-    rec_warnings: list[Notice] = [band_note] if band_note is not None else []
-    if rec.n_channels > 1:
-        rec_warnings.append(
-            Notice(
-                "multichannel",
-                f"{name} holds {rec.n_channels} channels (or data columns); only "
-                f"{rec.channel!r} was analysed (choose another with --channel)",
-            )
-        )
-    rec_warnings.extend(Notice(code, message) for code, message in getattr(rec, "notes", ()))
-    if rec.timing_jitter is not None and rec.timing_jitter > 1e-6:
-        rec_warnings.append(
-            Notice("timing_jitter", f"time steps jitter by {100 * rec.timing_jitter:.3g} % RMS (accepted)")
-        )
-
-    noise_f, noise_p, noise_source, noise_note = _noise_spectrum(x, fs, spans, level, noise_db, smoothing)
+    rec_warnings = _record_notes(rec, name, band_note)
+    noise_f, noise_p, noise_source, noise_note = _noise_spectrum(x, fs, spans, lv.level, lv.noise_db, lv.smoothing)
     if noise_note is not None:
         rec_warnings.append(noise_note)
     tones = condition.steady_tones(noise_f, noise_p) if noise_source == "pre_trigger" else []
@@ -453,36 +385,22 @@ def analyze_recording(
                 f"steady tone near {f_tone:.1f} Hz before the hit (mains hum or another running source?); not a mode",
             )
         )
-
     ctx = _RecordContext(
         x=x,
         fs=fs,
         opts=opts,
         noise_f=noise_f,
         noise_p=noise_p,
-        noise_db=noise_db,
-        level=level,
-        clipped=clipped,
+        noise_db=lv.noise_db,
+        level=lv.level,
+        clipped=condition.find_clipping(raw, full_scale=rec.full_scale),
         tones=tuple(tones),
         i0=i0,
-        smoothing=smoothing,
+        smoothing=lv.smoothing,
+        burst=condition.burst_length(lv.innovation),
     )
-    hits: list[Hit] = []
-    for j, span in enumerate(spans):
-        earlier = tuple(
-            (m.f_d_hz, max(m.beta_per_s / math.pi, 3.0 * (m.f_d_hz_u or 0.0))) for h in hits for m in h.modes
-        )
-        hits.append(_analyze_hit(ctx, span, prev_end=spans[j - 1].end if j > 0 else 0, earlier=earlier))
-
-    used = [h for h in hits if h.used and h.modes]
-    if not used and any(h.modes for h in hits):
-        # every measurable hit was flagged (e.g. as a bounce): better a flagged result than none
-        hits = [h if h.used or not h.modes else _keep(h) for h in hits]
-        used = [h for h in hits if h.used and h.modes]
-    if not used:
-        reasons = "; ".join(sorted({w.message for h in hits for w in h.warnings})) or "no mode stood above the noise"
-        raise NoRingdownError(f"no mode could be measured in {name}: {reasons}")
-    modes = _combine_hits(used)
+    hits = _measure_hits(ctx, spans, name)
+    modes = _combine_hits([h for h in hits if h.used and h.modes])
     for h in hits:
         rec_warnings.extend(
             w
@@ -501,11 +419,144 @@ def analyze_recording(
         warnings=tuple(_unique(rec_warnings)),
         error=None,
         settings=settings,
-        noise_floor=float(10 ** (noise_db / 20.0)),
+        noise_floor=float(10 ** (lv.noise_db / 20.0)),
         noise_source=noise_source,
         recording=rec,
         rejected=tuple(replace(r, hit=j + 1) for j, h in enumerate(hits) for r in h.rejected),
     )
+
+
+def _checked_samples(rec: Recording, opts: AnalysisOptions, name: str) -> tuple[np.ndarray, int]:
+    """The samples of ``rec`` to analyse (its time window) and the index of the first, after
+    the checks that refuse a recording or options no analysis can use (:class:`InputError`,
+    :class:`ParameterError`, one line naming ``name``)."""
+    fs = rec.sample_rate
+    if rec.n_samples < MIN_SAMPLES:
+        raise InputError(f"{name} has {rec.n_samples} samples; at least {MIN_SAMPLES} are needed")
+    nyq = fs / 2.0
+    for lo, hi in opts.bands or ():
+        if hi > nyq:
+            raise ParameterError(
+                f"band {lo:g}-{hi:g} Hz lies above Nyquist ({nyq:g} Hz) for {name}; lower the band or resample"
+            )
+    raw, i0 = _time_window(rec, opts, name)
+    peak_abs = float(np.max(np.abs(raw)))
+    if peak_abs > MAX_ABS_SAMPLE:
+        raise InputError(
+            f"{name} holds values up to {peak_abs:.3g}, beyond the {MAX_ABS_SAMPLE:g} that can be squared "
+            "without overflow; rescale the signal (e.g. to volts or m/s^2)"
+        )
+    if float(np.ptp(raw)) == 0.0:
+        raise InputError(f"{name} is constant (every sample is {raw[0]:g}): nothing rings down")
+    return raw, i0
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class _Levels:
+    """The smoothed levels of one conditioned record that hit detection works on."""
+
+    x: np.ndarray  #: (n_samples,) conditioned samples
+    fs: float  #: sample rate, Hz
+    smoothing: int  #: width W of the broadband level's smoothing (one period of the dominant frequency), samples
+    level: np.ndarray  #: (n_samples,) broadband level smoothed over W, dB
+    slow: np.ndarray  #: (n_samples,) broadband level smoothed over 2 W, dB
+    noise_db: float  #: broadband noise floor of ``level``, dB
+    innovation: np.ndarray  #: (n_samples,) prediction error of ``x`` (:func:`condition.innovation`)
+    innovation_level: np.ndarray  #: (n_samples,) its level over the burst length, dB
+
+
+def _levels(x: np.ndarray, fs: float, f_dom: float | None) -> _Levels:
+    """The levels of ``x`` (conditioned, (n,)) at ``fs`` Hz with dominant frequency ``f_dom``."""
+    smoothing = condition.envelope_smoothing(x, fs, dominant_hz=f_dom)
+    level = condition.envelope_db(x, fs, smoothing=smoothing)
+    # the prediction error shows a second tap on a record still ringing from the first
+    inn = condition.innovation(x)
+    return _Levels(
+        x=x,
+        fs=fs,
+        smoothing=smoothing,
+        level=level,
+        slow=condition.envelope_db(x, fs, smoothing=2 * smoothing),
+        noise_db=condition.noise_floor_db(level, smoothing),
+        innovation=inn,
+        innovation_level=condition.envelope_db(inn, fs, smoothing=condition.innovation_smoothing(inn, smoothing)),
+    )
+
+
+def _find_spans(
+    rec: Recording, name: str, lv: _Levels, opts: AnalysisOptions
+) -> tuple[list[condition.HitSpan], Notice | None]:
+    """The hits of the record (:func:`condition.find_hits`; in the band of the strongest
+    spectral peak when the broadband level shows none, with the ``hits_in_band`` notice
+    returned) or :class:`NoRingdownError`."""
+    spans = condition.find_hits(
+        lv.level,
+        lv.fs,
+        noise_db=lv.noise_db,
+        min_hit_snr_db=opts.min_hit_snr_db,
+        smoothing=lv.smoothing,
+        slow_level_db=lv.slow,
+        innovation_level_db=lv.innovation_level,
+    )
+    band_note = None
+    if not spans:
+        # a narrowband mode can stand far above its band's noise while the broadband level does
+        # not rise min_hit_snr_db: look for the hits in the band of the strongest spectral peak
+        found = _hits_in_strongest_band(lv.x, lv.fs, opts.min_hit_snr_db, lv.smoothing)
+        if found is not None:
+            spans, f_band = found
+            band_note = Notice(
+                "hits_in_band",
+                f"the broadband level does not rise {opts.min_hit_snr_db:g} dB above its "
+                f"noise; hits were found in the band around {f_band:.1f} Hz",
+            )
+    if not spans:
+        peak_db = float(lv.level.max() - lv.noise_db)
+        hint = (
+            f"; it holds {rec.n_channels} channels (this is {rec.channel!r}): try another with --channel"
+            if rec.n_channels > 1
+            else ""
+        )
+        raise NoRingdownError(
+            f"no ring-down found in {name}: the envelope never rises {opts.min_hit_snr_db:g} dB above its "
+            f"noise floor (highest {peak_db:.1f} dB); check the gain, the trigger or the file{hint}"
+        )
+    return spans, band_note
+
+
+def _record_notes(rec: Recording, name: str, band_note: Notice | None) -> list[Notice]:
+    """The recording-level notices: hits found in a band, other channels, the reader's notes, timing jitter."""
+    notes: list[Notice] = [band_note] if band_note is not None else []
+    if rec.n_channels > 1:
+        notes.append(
+            Notice(
+                "multichannel",
+                f"{name} holds {rec.n_channels} channels (or data columns); only "
+                f"{rec.channel!r} was analysed (choose another with --channel)",
+            )
+        )
+    notes.extend(Notice(code, message) for code, message in getattr(rec, "notes", ()))
+    if rec.timing_jitter is not None and rec.timing_jitter > 1e-6:
+        notes.append(Notice("timing_jitter", f"time steps jitter by {100 * rec.timing_jitter:.3g} % RMS (accepted)"))
+    return notes
+
+
+def _measure_hits(ctx: _RecordContext, spans: list[condition.HitSpan], name: str) -> list[Hit]:
+    """Every hit measured (:func:`_analyze_hit`, each knowing the modes of the hits before it);
+    :class:`NoRingdownError` when none gives a usable mode. When every measurable hit is flagged
+    (e.g. as a bounce), the flagged ones are used: better a flagged result than none."""
+    hits: list[Hit] = []
+    for j, span in enumerate(spans):
+        earlier = tuple(
+            (m.f_d_hz, max(m.beta_per_s / math.pi, 3.0 * (m.f_d_hz_u or 0.0))) for h in hits for m in h.modes
+        )
+        hits.append(_analyze_hit(ctx, span, prev_end=spans[j - 1].end if j > 0 else 0, earlier=earlier))
+    if not any(h.used and h.modes for h in hits) and any(h.modes for h in hits):
+        hits = [h if h.used or not h.modes else _keep(h) for h in hits]
+    if not any(h.used and h.modes for h in hits):
+        reasons = "; ".join(sorted({w.message for h in hits for w in h.warnings})) or "no mode stood above the noise"
+        raise NoRingdownError(f"no mode could be measured in {name}: {reasons}")
+    return hits
 
 
 def _time_window(rec: Recording, opts: AnalysisOptions, name: str) -> tuple[np.ndarray, int]:
@@ -657,6 +708,7 @@ class _RecordContext:
     tones: tuple[float, ...]  #: steady tones found before the first hit, Hz
     i0: int = 0  #: index in the recording of ``x[0]`` (the start of the time window)
     smoothing: int = 3  #: width of the level's smoothing, samples
+    burst: int = 1  #: length of a tap's force in the prediction error (:func:`condition.burst_length`), samples
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -670,6 +722,42 @@ class _HitContext:
     seg_end: int  #: index in the recording where the hit's segment ends
     pre_rms: float | None = None  #: RMS of the samples before the hit's rise (None: too few), recording units
     earlier: tuple = ()  #: (f_hz, width_hz) of modes measured in earlier hits of the record
+    pre: np.ndarray | None = None  #: (n_pre,) the samples before the hit's rise (None: too few)
+
+    def new_above(self, f_hz: float) -> float | None:
+        """Amplitude (recording units) above which a component at ``f_hz`` was not there before
+        the hit, so that the hit started it (None without samples before the hit).
+
+        ``STEADY_MARGIN_DB`` above the lesser of two bounds on a steady tone's amplitude there:
+        ``sqrt(2) pre_rms`` (a tone of amplitude ``a`` alone gives an RMS of ``a / sqrt(2)``),
+        and the amplitude of a cosine at ``f_hz`` least-squares fitted (with a constant) to the
+        samples before the hit plus three of its standard deviations (the least-squares
+        covariance with the larger of the fit's residual variance and the white-noise variance
+        ``S(f) fs / 2`` of the measured noise density at ``f_hz``). The fit bounds a narrowband
+        tone far below the broadband RMS, so that a lightly damped mode far weaker than the
+        broadband noise is seen to start with the hit."""
+        if self.pre_rms is None or self.pre is None:
+            return None
+        margin = 10 ** (STEADY_MARGIN_DB / 20)
+        bound = math.sqrt(2.0) * self.pre_rms
+        ctx = self.record
+        n = self.pre.shape[0]
+        if n < 8:
+            return bound * margin
+        t = np.arange(n) / ctx.fs
+        w = 2.0 * math.pi * f_hz * t
+        phi = np.stack([np.cos(w), np.sin(w), np.ones(n)], axis=1)
+        coef, *_ = np.linalg.lstsq(phi, self.pre, rcond=None)
+        resid = self.pre - phi @ coef
+        s_f = float(detect.noise_density(f_hz, ctx.noise_f, ctx.noise_p))
+        var = max(float(np.sum(resid * resid)) / max(n - 3, 1), s_f * ctx.fs / 2.0)
+        try:
+            cov = var * np.linalg.inv(phi.T @ phi)
+        except np.linalg.LinAlgError:
+            return bound * margin
+        sd = math.sqrt(max(float(cov[0, 0] + cov[1, 1]) / 2.0, 0.0))
+        a = math.hypot(float(coef[0]), float(coef[1]))
+        return min(bound, a + 3.0 * sd) * margin
 
     def rings_from_earlier(self, f_hz: float, width_hz: float = 0.0) -> bool:
         """Whether a component at ``f_hz`` is a mode an earlier hit excited: it was there before
@@ -697,30 +785,7 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
         # before a switch-off or release the record holds the drive, not the free decay: the
         # segment starts where the free decay does, as a tap's would in a silent record
         seg_start = span.onset
-    used = True
-    if span.doubt is not None:
-        warnings.append(Notice("start_uncertain", f"hit at {onset_s:.6g} s: {span.doubt}"))
-    if span.bounce is not None:
-        warnings.append(
-            Notice(
-                "double_hit",
-                f"hit at {onset_s:.6g} s has a second onset {1e3 * (span.bounce - span.onset) / fs:.3g} ms later (hammer bounce?)"
-                + ("" if opts.keep_double_hits else "; left out of the combined result"),
-            )
-        )
-        used = opts.keep_double_hits
-    clipped = ctx.clipped
-    clip_in = clipped[(clipped >= span.onset) & (clipped < seg_end)] if clipped.size else clipped
-    clip_end = None
-    if clip_in.size:
-        clip_end = int(clip_in[-1]) + 1
-        warnings.append(
-            Notice(
-                "clipped",
-                f"{clip_in.size} samples clipped between {(clip_in[0] + i0) / fs:.6g} and "
-                f"{(clip_end + i0) / fs:.6g} s; fits start after the clipping ends",
-            )
-        )
+    used, clip_end = _hit_notices(ctx, span, warnings)
     model = opts.detection == "model"
     decay_from = max(span.onset if model else span.peak, clip_end or 0)
     peak_value = float(np.max(np.abs(x[span.onset : seg_end])))
@@ -744,24 +809,10 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
         warnings.append(Notice("short_decay", f"hit at {onset_s:.6g} s leaves {seg_end - decay_from} samples of decay"))
         return hit(False)
 
-    # what the record held before the hit's rise (at least one smoothing width of it): bounds the
-    # amplitude any steady tone could have had there
-    rise = span.rise if span.rise is not None else span.onset
-    pre_x = x[prev_end : max(prev_end, rise - ctx.smoothing)]
-    pre_rms = (
-        float(np.sqrt(np.mean(pre_x**2))) if span.kind == "impulse" and pre_x.size >= max(ctx.smoothing, 16) else None
-    )
-    hctx = _HitContext(
-        record=ctx,
-        spec=spectrum_of(x[seg_start:seg_end], fs, t0_s=(seg_start + i0) / fs),
-        onset_s=onset_s,
-        clip_end=None if clip_end is None else clip_end + i0,
-        seg_end=seg_end + i0,
-        pre_rms=pre_rms,
-        earlier=earlier,
-    )
+    hctx = _hit_context(ctx, span, seg_start, prev_end, clip_end, earlier)
     rejected: list[Rejected] = []
     cands: list[Candidate] = []
+    start = decay_from
     if opts.bands is not None:
         groups: list[tuple[list[Peak], float, float, list[Candidate]]] = [([], lo, hi, []) for lo, hi in opts.bands]
     elif model:
@@ -769,12 +820,128 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
         cands, groups = _candidates(ctx, start, seg_end, rejected, parametric=clip_end is None, broad=clip_end is None)
     else:
         # spectral peaks of the decay as candidates: each one not reported as a mode is named
-        start = decay_from
         cands, groups = _candidates(ctx, start, seg_end, rejected, parametric=False, max_peaks=opts.max_modes)
+    # the residual search looks at the decay from its first sample after the tap's force (a
+    # fast decay can be gone by the broadband level's peak, one smoothing width on)
+    resid_start = decay_from
+    if span.kind == "impulse" and not model and opts.bands is None:
+        resid_start = min(decay_from, _free_decay_start(ctx, span, clip_end) + ctx.burst)
+    residual = opts.bands is None and not model and hctx.seg_end - ctx.i0 - resid_start >= MIN_SAMPLES
+    modes, failed, deferred, retry = _measure_groups(hctx, groups, cands, start, residual, warnings, rejected)
+    if residual:
+        # after clipping, the residual holds what the clipped samples did to the decay: no broad search
+        tried = [c for c in cands if c not in deferred and c not in retry]
+        modes = _with_residual(hctx, resid_start, modes, tried, deferred, retry, rejected, broad=clip_end is None)
+    modes = _drop_driven(modes, onset_s, warnings)
+    if failed:
+        shown = "; ".join(failed[:3]) + (f"; and {len(failed) - 3} more" if len(failed) > 3 else "")
+        warnings.append(
+            Notice("fit_failed", f"{len(failed)} band(s) in the hit at {onset_s:.6g} s could not be fitted: {shown}")
+        )
+    modes = _strongest(modes, opts.max_modes, rejected)
+    modes = [m.with_updates(index=i + 1) for i, m in enumerate(modes)]
+    warnings.extend(r.notice() for r in rejected)
+    return hit(used, modes, rejected)
+
+
+def _with_residual(
+    hctx: _HitContext,
+    start: int,
+    modes: list[Mode],
+    tried: list[Candidate],
+    deferred: list[Candidate],
+    retry: list[Candidate],
+    rejected: list[Rejected],
+    *,
+    broad: bool,
+) -> list[Mode]:
+    """The first pass's ``modes`` and those the residual search (:func:`_residual_round`) adds;
+    the ``retry`` candidates it did not find either are named in ``rejected`` now, as the first
+    pass would have (against the first pass's modes only: a residual-search mode far from one is
+    not its pair)."""
+    more, more_rejected = _residual_round(hctx, start, modes, tried, deferred, broad=broad)
+    rejected.extend(more_rejected)
+    first, unmatched = _match_candidates(modes, [c for c in retry if not any(_near(m, c) for m in more)], False)
+    rejected.extend(unmatched)
+    return first + more
+
+
+def _hit_notices(ctx: _RecordContext, span, warnings: list[Notice]) -> tuple[bool, int | None]:
+    """The notices on one hit (an uncertain start, a bounce, clipping: appended to
+    ``warnings``); returns whether the hit is used (a bounce is left out unless
+    ``keep_double_hits``) and the first sample (index into ``ctx.x``) after its clipping, or None."""
+    fs, i0, opts = ctx.fs, ctx.i0, ctx.opts
+    onset_s = (span.onset + i0) / fs
+    used = True
+    if span.doubt is not None:
+        warnings.append(Notice("start_uncertain", f"hit at {onset_s:.6g} s: {span.doubt}"))
+    if span.bounce is not None:
+        warnings.append(
+            Notice(
+                "double_hit",
+                f"hit at {onset_s:.6g} s has a second onset {1e3 * (span.bounce - span.onset) / fs:.3g} ms later (hammer bounce?)"
+                + ("" if opts.keep_double_hits else "; left out of the combined result"),
+            )
+        )
+        used = opts.keep_double_hits
+    clipped = ctx.clipped
+    clip_in = clipped[(clipped >= span.onset) & (clipped < span.end)] if clipped.size else clipped
+    clip_end = None
+    if clip_in.size:
+        clip_end = int(clip_in[-1]) + 1
+        warnings.append(
+            Notice(
+                "clipped",
+                f"{clip_in.size} samples clipped between {(clip_in[0] + i0) / fs:.6g} and "
+                f"{(clip_end + i0) / fs:.6g} s; fits start after the clipping ends",
+            )
+        )
+    return used, clip_end
+
+
+def _hit_context(
+    ctx: _RecordContext, span, seg_start: int, prev_end: int, clip_end: int | None, earlier: tuple
+) -> _HitContext:
+    """The context of one hit whose segment is ``ctx.x[seg_start:span.end]``, with what the
+    record held before the hit's rise (at least one smoothing width of it, after ``prev_end``),
+    which bounds the amplitude any steady tone could have had there."""
+    x, fs, i0 = ctx.x, ctx.fs, ctx.i0
+    rise = span.rise if span.rise is not None else span.onset
+    pre_x = x[prev_end : max(prev_end, rise - ctx.smoothing)]
+    pre_rms = (
+        float(np.sqrt(np.mean(pre_x**2))) if span.kind == "impulse" and pre_x.size >= max(ctx.smoothing, 16) else None
+    )
+    return _HitContext(
+        record=ctx,
+        spec=spectrum_of(x[seg_start : span.end], fs, t0_s=(seg_start + i0) / fs),
+        onset_s=(span.onset + i0) / fs,
+        clip_end=None if clip_end is None else clip_end + i0,
+        seg_end=span.end + i0,
+        pre_rms=pre_rms,
+        earlier=earlier,
+        pre=pre_x if pre_rms is not None else None,
+    )
+
+
+def _measure_groups(
+    hctx: _HitContext,
+    groups: list[tuple[list[Peak], float, float, list[Candidate]]],
+    cands: list[Candidate],
+    start: int,
+    residual: bool,
+    warnings: list[Notice],
+    rejected: list[Rejected],
+) -> tuple[list[Mode], list[str], list[Candidate], list[Candidate]]:
+    """The first pass over one hit's groups ``(peaks, lo_hz, hi_hz, candidates)``: each group
+    measured in its band (:func:`_measure_group`) or, too broad for one, on the raw record from
+    ``start`` (:func:`_measure_raw`), or deferred to the residual search when ``residual``.
+    Rejections are appended to ``rejected``, notices to ``warnings``. Returns the modes, the
+    bands that could not be fitted (as text), the deferred candidates and those left to the
+    residual search to look for again (``_match_candidates``' ``retry``)."""
     modes: list[Mode] = []
     failed: list[str] = []
-    residual = opts.bands is None and not model and hctx.seg_end - ctx.i0 - start >= MIN_SAMPLES
     deferred: list[Candidate] = []
+    retry: list[Candidate] = []
     for peaks_g, lo, hi, group_cands in groups:
         n_warn = len(warnings)
         if residual and _needs_raw_fit(group_cands, lo, hi):
@@ -791,39 +958,30 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
             rejected.extend(_rejection(c, "fit_failed", str(exc)) for c in group_cands)
             continue
         steady = any(w.code == "stationary_tone" for w in warnings[n_warn:])
-        found, unmatched = _match_candidates(found, group_cands, steady)
+        found, unmatched = _match_candidates(found, group_cands, steady, retry if residual else None)
         rejected.extend(unmatched)
         modes.extend(found)
-    if residual:
-        # after clipping, the residual holds what the clipped samples did to the decay: no broad search
-        more, more_rejected = _residual_round(
-            hctx, start, modes, [c for c in cands if c not in deferred], deferred, broad=clip_end is None
-        )
-        modes.extend(more)
-        rejected.extend(more_rejected)
-    modes = _drop_driven(modes, onset_s, warnings)
-    if failed:
-        shown = "; ".join(failed[:3]) + (f"; and {len(failed) - 3} more" if len(failed) > 3 else "")
-        warnings.append(
-            Notice("fit_failed", f"{len(failed)} band(s) in the hit at {onset_s:.6g} s could not be fitted: {shown}")
-        )
-    modes.sort(key=lambda m: m.f_d_hz)
-    if opts.max_modes is not None and len(modes) > opts.max_modes:
-        ranked = sorted(modes, key=lambda m: -(m.amplitude or 0.0))
-        for m in ranked[opts.max_modes :]:
-            rejected.append(
-                Rejected(
-                    m.f_d_hz,
-                    m.beta_per_s,
-                    None,
-                    "max_modes",
-                    f"amplitude {m.amplitude:.3g} is below the {opts.max_modes} strongest",
-                )
+    return modes, failed, deferred, retry
+
+
+def _strongest(modes: list[Mode], max_modes: int | None, rejected: list[Rejected]) -> list[Mode]:
+    """``modes`` by frequency, at most the ``max_modes`` of largest amplitude; the others are
+    ``max_modes`` rejections appended to ``rejected``."""
+    modes = sorted(modes, key=lambda m: m.f_d_hz)
+    if max_modes is None or len(modes) <= max_modes:
+        return modes
+    ranked = sorted(modes, key=lambda m: -(m.amplitude or 0.0))
+    for m in ranked[max_modes:]:
+        rejected.append(
+            Rejected(
+                m.f_d_hz,
+                m.beta_per_s,
+                None,
+                "max_modes",
+                f"amplitude {m.amplitude:.3g} is below the {max_modes} strongest",
             )
-        modes = sorted(ranked[: opts.max_modes], key=lambda m: m.f_d_hz)
-    modes = [m.with_updates(index=i + 1) for i, m in enumerate(modes)]
-    warnings.extend(r.notice() for r in rejected)
-    return hit(used, modes, rejected)
+        )
+    return sorted(ranked[:max_modes], key=lambda m: m.f_d_hz)
 
 
 #: Rounds of the residual search (each subtracts every mode measured so far and looks again).
@@ -832,18 +990,28 @@ RESIDUAL_ROUNDS = 2
 
 def _subtract_modes(seg: np.ndarray, fs: float, modes: Sequence[Mode]) -> np.ndarray:
     """``seg`` less the least-squares sum of the damped cosines of ``modes`` (their poles fixed,
-    amplitudes and phases fitted on ``seg``; t = 0 at ``seg[0]``).
+    amplitudes and phases fitted on ``seg``; t = 0 at ``seg[0]``): :func:`_subtract_poles`."""
+    return _subtract_poles(seg, fs, [(m.f_d_hz, m.beta_per_s) for m in modes])
+
+
+def _subtract_poles(
+    seg: np.ndarray, fs: float, poles: Sequence[tuple[float, float]], keep: Sequence[tuple[float, float]] = ()
+) -> np.ndarray:
+    """``seg`` (n,) less the least-squares sum of damped cosines with the given poles
+    ``(f_hz, beta_per_s)`` held (amplitudes and phases fitted; t = 0 at ``seg[0]``). The poles
+    ``keep`` are fitted jointly with them (so that what they hold is not taken for the others')
+    but left in. ``fs`` Hz; returns (n,) float.
 
     The basis ``exp(p_k t)`` comes from one exponential per block of ~sqrt(n) samples times one
     per sample of a block (``exp(p (a + b)) = exp(p a) exp(p b)``, a few ulp from the direct
     exponential), and the amplitudes from the normal equations of the column-scaled basis; a
     Gram matrix conditioned worse than 1e8 (residual errors above ~1e-8 of the segment) takes
-    ``numpy.linalg.lstsq`` instead. ``seg`` (n,) float, ``fs`` Hz; returns (n,) float.
+    ``numpy.linalg.lstsq`` instead.
     """
-    if not modes:
+    if not poles:
         return np.array(seg, dtype=np.float64)
     n = seg.shape[0]
-    p = np.array([complex(-m.beta_per_s, 2.0 * math.pi * m.f_d_hz) for m in modes]) / fs  # per sample
+    p = np.array([complex(-beta, 2.0 * math.pi * f_hz) for f_hz, beta in list(poles) + list(keep)]) / fs  # per sample
     b = max(int(math.isqrt(n)), 1)
     nb = -(-n // b)
     z = (np.exp(np.outer(np.arange(nb) * b, p))[:, None, :] * np.exp(np.outer(np.arange(b), p))[None, :, :]).reshape(
@@ -858,7 +1026,8 @@ def _subtract_modes(seg: np.ndarray, fs: float, modes: Sequence[Mode]) -> np.nda
         coef = d * np.linalg.solve(gram_s, d * (phi.T @ seg))
     else:
         coef, *_ = np.linalg.lstsq(phi, seg, rcond=None)
-    return seg - phi @ coef
+    n_sub = 2 * len(poles)
+    return seg - phi[:, :n_sub] @ coef[:n_sub]
 
 
 def _residual_round(
@@ -890,53 +1059,40 @@ def _residual_round(
     decay = x[start:seg_end]
     res_hz = fs / decay.shape[0]
     if deferred:
-        resid = _subtract_modes(decay, fs, known)
-        peaks_d = [Peak(c.f_hz, float("nan"), float("nan"), c.width_hz, broad=True) for c in deferred]
-        of_peak = {id(p): c for p, c in zip(peaks_d, deferred)}
-        for g, _lo, _hi in group_bands(peaks_d, sample_rate=fs, resolution_hz=res_hz, barriers_hz=ctx.tones):
-            gc = [of_peak[id(p)] for p in g]
-            if _too_many(gc, rejected):
-                continue
-            try:
-                got = _measure_raw(hctx, gc, gc + _as_candidates(known, res_hz), start)
-            except FitError as exc:
-                rejected.extend(_rejection(c, "fit_failed", str(exc)) for c in gc)
-                continue
-            got = _resolved_raw(_new_near(got, gc, known, res_hz), rejected, gc)
-            got, unmatched = _match_candidates(got, gc, False)
-            rejected.extend(unmatched)
-            known += got
-            new_modes += got
+        got = _fit_deferred(hctx, start, deferred, known, res_hz, rejected)
+        known += got
+        new_modes += got
+    # humps of a row too long for one raw fit: named unresolved at the end unless a later, sharp
+    # round finds a mode there (a row of real modes, each sharp enough once the others are gone)
+    row: list[Rejected] = []
+    row_cands: list[Candidate] = []
     for round_ in range(RESIDUAL_ROUNDS):
         resid = _subtract_modes(decay, fs, known)
         # broad peaks in the first residual only: after a strong broad mode is subtracted, its
         # broadband remnant makes humps a smoothed search would take for modes
         peaks = find_peaks(resid, fs, noise_psd=(ctx.noise_f, ctx.noise_p), broad=broad and round_ == 0)
-        fresh = []
-        for p in peaks:
-            near_mode = any(
-                abs(p.f_hz - m.f_d_hz) <= max(2.0 * m.beta_per_s / math.pi, 3.0 * res_hz, 3.0 * (m.f_d_hz_u or 0.0))
-                for m in known
-            )
-            near_cand = any(abs(p.f_hz - f) <= max(w, 2.0 * res_hz) for f, w in tried)
-            if not (near_mode or near_cand):
-                fresh.append(p)
+        fresh = _fresh_peaks(peaks, known, tried, res_hz)
         if not fresh:
             break
         tried += [(p.f_hz, max(p.width_hz, res_hz)) for p in fresh]
         barriers = tuple(ctx.tones) + tuple(m.f_d_hz for m in known)
         found_round: list[Mode] = []
+        round_groups = []
         for g, lo, hi in group_bands(fresh, sample_rate=fs, resolution_hz=res_hz, barriers_hz=barriers):
             gc = [
                 Candidate(p.f_hz, math.pi * p.width_hz, max(p.width_hz, res_hz), None, None, "residual", -2, res_hz)
                 for p in g
             ]
-            raw = _needs_raw_fit(gc, lo, hi) or any(lo < m.f_d_hz < hi for m in known)
-            if raw and _too_many(gc, rejected):
+            round_groups.append((g, lo, hi, gc, _needs_raw_fit(gc, lo, hi) or any(lo < m.f_d_hz < hi for m in known)))
+        # band fits first: a raw fit then carries (or subtracts) every mode measured in this round too
+        n_row = len(row_cands)
+        for g, lo, hi, gc, raw in sorted(round_groups, key=lambda r: r[4]):
+            if raw and _too_many(gc, row):
+                row_cands += gc
                 continue
             try:
                 if raw:
-                    got = _measure_raw(hctx, gc, gc + _as_candidates(known, res_hz), start)
+                    got = _measure_raw(hctx, gc, gc + _as_candidates(known + found_round, res_hz), start)
                 else:
                     got = _measure_group(hctx, g, lo, hi, [])
             except FitError as exc:
@@ -947,11 +1103,66 @@ def _residual_round(
             got, unmatched = _match_candidates(got, gc, False)
             rejected.extend(unmatched)
             found_round.extend(got)
-        if not found_round:
+        # the row's humps may be looked at again by the next (sharp) round
+        gone = {(c.f_hz, c.width_hz) for c in row_cands[n_row:]}
+        tried = [t for t in tried if t not in gone]
+        if not found_round and len(row_cands) == n_row:
             break
         known += found_round
         new_modes += found_round
+    rejected += [r for r, c in zip(row, row_cands) if not any(_near(m, c) for m in new_modes)]
     return new_modes, rejected
+
+
+def _fresh_peaks(
+    peaks: list[Peak], known: Sequence[Mode], tried: Sequence[tuple[float, float]], res_hz: float
+) -> list[Peak]:
+    """The peaks of a residual not near a mode measured so far (within twice its half-power
+    width, three resolutions or three standard uncertainties) nor near a candidate already tried
+    (``(f_hz, width_hz)``, within its width or two resolutions)."""
+    fresh = []
+    for p in peaks:
+        near_mode = any(
+            abs(p.f_hz - m.f_d_hz) <= max(2.0 * m.beta_per_s / math.pi, 3.0 * res_hz, 3.0 * (m.f_d_hz_u or 0.0))
+            for m in known
+        )
+        near_cand = any(abs(p.f_hz - f) <= max(w, 2.0 * res_hz) for f, w in tried)
+        if not (near_mode or near_cand):
+            fresh.append(p)
+    return fresh
+
+
+def _fit_deferred(
+    hctx: _HitContext,
+    start: int,
+    deferred: Sequence[Candidate],
+    known: list[Mode],
+    res_hz: float,
+    rejected: list[Rejected],
+) -> list[Mode]:
+    """The candidates too broad for a band (``deferred`` by the first pass), grouped and fitted
+    on the raw record from ``start`` with the ``known`` modes carried or subtracted
+    (:func:`_measure_raw`); what gives no resolved new mode is appended to ``rejected``.
+    ``res_hz`` is the decay's frequency resolution."""
+    ctx = hctx.record
+    found: list[Mode] = []
+    peaks_d = [Peak(c.f_hz, float("nan"), float("nan"), c.width_hz, broad=True) for c in deferred]
+    of_peak = {id(p): c for p, c in zip(peaks_d, deferred)}
+    for g, _lo, _hi in group_bands(peaks_d, sample_rate=ctx.fs, resolution_hz=res_hz, barriers_hz=ctx.tones):
+        gc = [of_peak[id(p)] for p in g]
+        if _too_many(gc, rejected):
+            continue
+        have = known + found
+        try:
+            got = _measure_raw(hctx, gc, gc + _as_candidates(have, res_hz), start)
+        except FitError as exc:
+            rejected.extend(_rejection(c, "fit_failed", str(exc)) for c in gc)
+            continue
+        got = _resolved_raw(_new_near(got, gc, have, res_hz), rejected, gc)
+        got, unmatched = _match_candidates(got, gc, False)
+        rejected.extend(unmatched)
+        found += got
+    return found
 
 
 def _new_near(got: list[Mode], cands: list[Candidate], known: Sequence[Mode], resolution_hz: float) -> list[Mode]:
@@ -1077,10 +1288,18 @@ def _free_decay_start(ctx: _RecordContext, span, clip_end: int | None) -> int:
     sigma = math.sqrt(max(float(np.sum(ctx.noise_p[1:])) * float(ctx.noise_f[1] - ctx.noise_f[0]), 1e-300))
     lo = max(0, span.onset - max(span.peak - span.onset, 1))
     hi = max(span.peak, span.onset + 1)
-    # relative to the level just before: drift removal over the whole record can leave a local
-    # offset of a few sigma before the hit
-    before = x[max(0, lo - 4 * (hi - lo) - 16) : lo]
-    base = float(np.median(before)) if before.size >= 8 else 0.0
+    # relative to the trend just before: drift removal over the whole record can leave a local
+    # offset and slope of a few sigma before the hit (in a quiet, quantised pre-trigger the
+    # noise sigma is far below what drift removal leaves); the scatter about that trend bounds
+    # sigma from below
+    b0 = max(0, lo - 4 * (hi - lo) - 16)
+    before = x[b0:lo]
+    base: np.ndarray | float = 0.0
+    if before.size >= 8:
+        u = np.arange(b0, lo, dtype=np.float64)
+        slope, icept = np.polyfit(u, before, 1)
+        sigma = max(sigma, float(np.std(before - (slope * u + icept))))
+        base = slope * np.arange(lo, hi + 1, dtype=np.float64) + icept
     loud = np.flatnonzero(np.abs(x[lo : hi + 1] - base) > START_SIGMAS * sigma)
     start = lo + int(loud[0]) if loud.size else span.onset
     return max(start, clip_end or 0)
@@ -1157,24 +1376,31 @@ def _needs_raw_fit(cands: list[Candidate], lo: float, hi: float) -> bool:
     )
 
 
-def _match_candidates(modes: list[Mode], cands: list[Candidate], steady: bool):
+def _near(m: Mode, c: Candidate, k: float = 0.5) -> bool:
+    """Whether mode ``m`` lies within ``k`` times the larger half-power width of candidate ``c``
+    (or three standard uncertainties of its frequency, or the search's resolution)."""
+    tol = max(k * max(c.width_hz, m.beta_per_s / math.pi), 3.0 * (m.f_d_hz_u or 0.0), c.resolution_hz)
+    return abs(m.f_d_hz - c.f_hz) <= tol
+
+
+def _match_candidates(modes: list[Mode], cands: list[Candidate], steady: bool, retry: list[Candidate] | None = None):
     """Pair a group's candidates with the modes measured there. A candidate no mode lies near
     (within half the larger half-power width, three standard uncertainties or the search's
     resolution) is a rejection: ``steady_tone`` when the group was a steady tone, ``unresolved``
     (with a warning on the nearest mode naming the pair) when another mode took its place,
-    ``fit_failed`` when the fit found nothing."""
+    ``fit_failed`` when the fit found nothing. With a ``retry`` list, a candidate whose band fit
+    found nothing, or only modes more than two half-power widths away (a joint fit that missed
+    it, not a pair it could not separate), is appended there instead, for the residual search
+    to look for again."""
     out: list[Rejected] = []
     modes = list(modes)
-
-    def near(m: Mode, c: Candidate) -> bool:
-        tol = max(0.5 * max(c.width_hz, m.beta_per_s / math.pi), 3.0 * (m.f_d_hz_u or 0.0), c.resolution_hz)
-        return abs(m.f_d_hz - c.f_hz) <= tol
-
     for c in cands:
-        if any(near(m, c) for m in modes):
+        if any(_near(m, c) for m in modes):
             continue
         if steady:
             out.append(_rejection(c, "steady_tone", "its band held it before the hit"))
+        elif retry is not None and not any(_near(m, c, 2.0) for m in modes):
+            retry.append(c)
         elif modes:
             j = min(range(len(modes)), key=lambda i: abs(modes[i].f_d_hz - c.f_hz))
             m = modes[j]
@@ -1219,18 +1445,37 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
             ranked.append((c.snr * share if c.snr is not None else float("inf"), c))
     others = [c for _, c in sorted(ranked, key=lambda o: -o[0])][:MAX_RAW_NUISANCE]
     poles = [(c.f_hz, beta_of(c)) for c in targets + others]
-    ests = estimate_real(
-        seg,
-        fs,
-        t0_s=(start + ctx.i0) / fs,
-        poles=poles,
-        n_targets=len(targets),
-        duration_s=dur,
-        noise_f=ctx.noise_f,
-        noise_p=ctx.noise_p,
-    )
+    # every other measured mode is subtracted with its pole held (amplitudes fitted over the
+    # window at the full rate): left in, it would alias into the thinned samples of the fit
+    fixed = [c for c in cands if c.source == "measured" and c not in targets and c not in others]
+    fit_seg = seg
+    if fixed:
+        n_win = min(seg.shape[0], max(int(round(dur * fs)), 1))
+        fit_seg = np.array(seg, dtype=np.float64)
+        fit_seg[:n_win] = _subtract_poles(
+            seg[:n_win], fs, [(c.f_hz, beta_of(c)) for c in fixed], keep=[(c.f_hz, beta_of(c)) for c in others]
+        )
+
+    def fit(duration_s: float) -> list[Estimate]:
+        return estimate_real(
+            fit_seg,
+            fs,
+            t0_s=(start + ctx.i0) / fs,
+            poles=poles,
+            n_targets=len(targets),
+            duration_s=duration_s,
+            noise_f=ctx.noise_f,
+            noise_p=ctx.noise_p,
+        )
+
+    starts = [f for f, _ in poles[: len(targets)]]
+    ests = _unaliased(fit(dur), starts, fs, dur)
+    try:
+        half = _unaliased(fit(0.5 * dur), starts, fs, 0.5 * dur)
+    except FitError:
+        half = []
     modes = []
-    for est in ests:
+    for est in (_with_model_error(e, half) for e in ests):
         if DB_PER_NEPER * est.beta_per_s * t_rest < 6.0:
             # decays less than 6 dB over the whole hit: a steady tone, as in _is_stationary
             continue
@@ -1245,6 +1490,78 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
 MAX_RAW_NUISANCE = 3
 
 
+def _unaliased(ests: list[Estimate], starts: Sequence[float], fs: float, duration_s: float) -> list[Estimate]:
+    """Raw-fit estimates with each frequency moved to the alias nearest its fit's starting
+    frequencies ``starts`` (Hz). :func:`estimate_real` thins a long window to every ``D``-th
+    sample (``D`` as it chooses it, from ``duration_s`` and its ``MAX_SAMPLES``); the thinned
+    samples of a real cosine at ``f`` are those of every ``k fs / D +- f``, so a fit started near
+    ``f`` can end at a mirror image above ``fs / (2 D)``."""
+    from .estimators.real import MAX_SAMPLES
+
+    step = max(1, math.ceil(max(int(round(duration_s * fs)), 1) / MAX_SAMPLES))
+    if step == 1 or not starts:
+        return ests
+    fs_d = fs / step
+    out = []
+    for e in ests:
+        k_max = int(math.ceil(0.5 * fs / fs_d)) + 1
+        # (frequency, sign of its derivative in the fitted one: a mirror image flips cov(f, beta))
+        aliases = [
+            (k * fs_d + sign * e.f_d_hz, sign)
+            for k in range(k_max + 1)
+            for sign in (1.0, -1.0)
+            if 0 < k * fs_d + sign * e.f_d_hz < fs / 2
+        ]
+        best, sign = min(aliases, key=lambda a: min(abs(a[0] - f0) for f0 in starts), default=(e.f_d_hz, 1.0))
+        out.append(e if best == e.f_d_hz else replace(e, f_d_hz=best, cov_f_beta=sign * e.cov_f_beta))
+    return out
+
+
+def _with_model_error(est: Estimate, half: Sequence[Estimate]) -> Estimate:
+    """``est`` with its standard uncertainties widened by the excess spread of the same raw fit
+    over the first half of its window (``half``, the estimate nearest in frequency within
+    ``max(beta / pi, 3 u(f))`` of it).
+
+    The half window's data are a subset of the full window's: with a right model and an
+    efficient estimator the difference of the two has variance ``u_half^2 - u^2`` (Hausman 1978
+    [from memory]). A larger difference is model error (a neighbour left out, a wrong start, a
+    decay that is not exponential); its excess ``max(0, d^2 - (u_half^2 - u^2))`` is added to
+    ``u^2``, for f_d and beta each, and the estimate carries a ``model_error`` warning when that
+    more than doubles a u."""
+    near = [h for h in half if abs(h.f_d_hz - est.f_d_hz) <= max(est.beta_per_s / math.pi, 3.0 * (est.f_d_hz_u or 0.0))]
+    if not near or est.f_d_hz_u is None or est.beta_per_s_u is None:
+        return est
+    h = min(near, key=lambda h: abs(h.f_d_hz - est.f_d_hz))
+    new_u = {}
+    for q in ("f_d_hz", "beta_per_s"):
+        u, uh = getattr(est, q + "_u"), getattr(h, q + "_u") or 0.0
+        d = getattr(h, q) - getattr(est, q)
+        new_u[q] = math.sqrt(u * u + max(0.0, d * d - max(uh * uh - u * u, 0.0)))
+    if new_u["f_d_hz"] == est.f_d_hz_u and new_u["beta_per_s"] == est.beta_per_s_u:
+        return est
+    widened = [
+        f"{q} {getattr(est, q + '_u'):.3g} -> {new_u[q]:.3g}"
+        for q in ("f_d_hz", "beta_per_s")
+        if new_u[q] > 2.0 * getattr(est, q + "_u")
+    ]
+    notes = est.warnings
+    if widened:
+        notes = notes + (
+            Notice(
+                "model_error",
+                "the fit over the first half of its window differs beyond its noise; u widened ("
+                + ", ".join(widened)
+                + ")",
+            ),
+        )
+    return replace(
+        est,
+        f_d_hz_u=new_u["f_d_hz"],
+        beta_per_s_u=new_u["beta_per_s"],
+        warnings=notes,
+    )
+
+
 def _make_raw_mode(est: Estimate, noise_rms: float, seg: np.ndarray, fs: float, t0_s: float) -> Mode:
     derived = derive(
         est.f_d_hz, est.beta_per_s, f_d_hz_u=est.f_d_hz_u, beta_per_s_u=est.beta_per_s_u, cov_f_beta=est.cov_f_beta
@@ -1253,7 +1570,7 @@ def _make_raw_mode(est: Estimate, noise_rms: float, seg: np.ndarray, fs: float, 
         raise FitError("the raw fit returned no fit window or amplitude")
     start, end, amplitude = est.fit_start_s, est.fit_end_s, est.amplitude
     cycles = est.f_d_hz * (end - start)
-    warnings = []
+    warnings = list(est.warnings)
     if cycles < 10:
         warnings.append(Notice("few_cycles", f"fit spans {cycles:.1f} cycles; 10 or more are advised"))
     n = min(seg.shape[0], int(round((end - start) * fs)) + 1)
@@ -1339,39 +1656,16 @@ def _measure_group(
     """The modes of one band ``lo``-``hi`` Hz holding the spectral peaks ``peaks_g`` (none when
     the band was given by the user); warnings about the hit are appended to ``hit_warnings``."""
     ctx = hctx.record
-    opts, fs, noise_f, noise_p, tones = ctx.opts, ctx.fs, ctx.noise_f, ctx.noise_p, ctx.tones
+    opts, fs, noise_f, noise_p = ctx.opts, ctx.fs, ctx.noise_f, ctx.noise_p
     spec, onset_s, clip_end, seg_end = hctx.spec, hctx.onset_s, hctx.clip_end, hctx.seg_end
     primary = opts.primary
     group_band = _extract(spec, lo, hi, noise_f, noise_p)
     # first guess of the decay rate from the spectral peaks' half-power width (beta ~ pi width)
     beta_hint = max((math.pi * p.width_hz for p in peaks_g), default=0.0)
-    ringing = bool(peaks_g) and all(hctx.rings_from_earlier(p.f_hz, p.width_hz) for p in peaks_g)
-    if peaks_g and not ringing and _steady_before_onset(group_band, onset_s, beta_hint):
-        near = 2.0 * (noise_f[1] - noise_f[0])  # two Welch bins
-        if all(any(abs(p.f_hz - f) <= near for f in tones) for p in peaks_g):
-            return []  # already named at the recording level
-        where = ", ".join(f"{p.f_hz:.1f}" for p in peaks_g)
-        hit_warnings.append(
-            Notice(
-                "stationary_tone",
-                f"steady tone at {where} Hz was already there before the hit "
-                "(mains hum or another running source?); not reported as a mode",
-            )
-        )
+    if _steady_group(hctx, group_band, peaks_g, beta_hint, hit_warnings):
         return []
     group_window = _window_for(group_band, onset_s, clip_end, seg_end, fs, opts.min_snr_db, beta_hint)
-    # single-mode sub-bands: one per peak, split at the midpoints
-    if len(peaks_g) > 1:
-        edges = [lo] + [0.5 * (a.f_hz + b.f_hz) for a, b in zip(peaks_g, peaks_g[1:])] + [hi]
-        subs = []
-        for a, b in zip(edges, edges[1:]):
-            sb = _extract(spec, a, b, noise_f, noise_p)
-            try:
-                subs.append((sb, _window_for(sb, onset_s, clip_end, seg_end, fs, opts.min_snr_db, beta_hint)))
-            except FitError:
-                continue
-    else:
-        subs = [(group_band, group_window)]
+    subs = _sub_bands(hctx, peaks_g, lo, hi, beta_hint) if len(peaks_g) > 1 else [(group_band, group_window)]
     cross: list[tuple[float, dict[str, Estimate], Band, Window]] = []
     joint: list[Estimate] | None = None  # every mode a multi-mode method found in the group band
     for sb, sw in subs:
@@ -1415,6 +1709,65 @@ def _measure_group(
             )
     if not primaries:
         raise FitError("no estimator found a decaying mode in the band")
+    return _group_modes(hctx, primaries, cross, extra, len(peaks_g) <= 1, hit_warnings)
+
+
+def _steady_group(
+    hctx: _HitContext, group_band: Band, peaks_g: list[Peak], beta_hint: float, hit_warnings: list[Notice]
+) -> bool:
+    """Whether a group's band held its peaks before the hit (:func:`_steady_before_onset`) and
+    none of them rings from an earlier hit: a steady tone, named in ``hit_warnings`` unless the
+    recording already named it (a tone of the pre-trigger within two Welch bins)."""
+    ctx = hctx.record
+    ringing = bool(peaks_g) and all(hctx.rings_from_earlier(p.f_hz, p.width_hz) for p in peaks_g)
+    if not peaks_g or ringing or not _steady_before_onset(group_band, hctx.onset_s, beta_hint):
+        return False
+    near = 2.0 * (ctx.noise_f[1] - ctx.noise_f[0])  # two Welch bins
+    if all(any(abs(p.f_hz - f) <= near for f in ctx.tones) for p in peaks_g):
+        return True  # already named at the recording level
+    where = ", ".join(f"{p.f_hz:.1f}" for p in peaks_g)
+    hit_warnings.append(
+        Notice(
+            "stationary_tone",
+            f"steady tone at {where} Hz was already there before the hit "
+            "(mains hum or another running source?); not reported as a mode",
+        )
+    )
+    return True
+
+
+def _sub_bands(
+    hctx: _HitContext, peaks_g: list[Peak], lo: float, hi: float, beta_hint: float
+) -> list[tuple[Band, Window]]:
+    """Single-mode sub-bands of the group ``lo``-``hi`` Hz, one per peak, split at the
+    midpoints, each with its fit window (a sub-band without one is left out)."""
+    ctx = hctx.record
+    edges = [lo] + [0.5 * (a.f_hz + b.f_hz) for a, b in zip(peaks_g, peaks_g[1:])] + [hi]
+    subs = []
+    for a, b in zip(edges, edges[1:]):
+        sb = _extract(hctx.spec, a, b, ctx.noise_f, ctx.noise_p)
+        try:
+            window = _window_for(sb, hctx.onset_s, hctx.clip_end, hctx.seg_end, ctx.fs, ctx.opts.min_snr_db, beta_hint)
+        except FitError:
+            continue
+        subs.append((sb, window))
+    return subs
+
+
+def _group_modes(
+    hctx: _HitContext,
+    primaries: list[tuple[Estimate, Band, Window]],
+    cross: list[tuple[float, dict[str, Estimate], Band, Window]],
+    extra: list[Notice],
+    single: bool,
+    hit_warnings: list[Notice],
+) -> list[Mode]:
+    """The modes of a group's primary estimates (with the cross-checks of the nearest
+    sub-band); steady tones are named in ``hit_warnings`` and left out, components that started
+    with the hit but whose decay is unresolved are kept with ``decay_unresolved``; a ``single``
+    mode's band is tested for amplitude dependence."""
+    seg_end = hctx.seg_end
+    fs = hctx.record.fs
     modes = []
     for est, band, window in primaries:
         if not cross:
@@ -1423,8 +1776,9 @@ def _measure_group(
             _, found, sb, sw = min(cross, key=lambda c: abs(c[0] - est.f_d_hz))
             others = {k: v for k, v in found.items() if k != est.method}
         unresolved_decay: list[Notice] = []
-        if not hctx.rings_from_earlier(est.f_d_hz) and _is_stationary(est, sb, sw, seg_end / fs, pre_rms=hctx.pre_rms):
-            if not _started_with_hit(est, hctx.pre_rms):
+        pre_bound = hctx.new_above(est.f_d_hz)
+        if not hctx.rings_from_earlier(est.f_d_hz) and _is_stationary(est, sb, sw, seg_end / fs, pre_bound=pre_bound):
+            if not _started_with_hit(est, pre_bound):
                 hit_warnings.append(
                     Notice(
                         "stationary_tone",
@@ -1435,20 +1789,16 @@ def _measure_group(
                 continue
             unresolved_decay.append(_decay_unresolved(est))
         mode = _make_mode(est, others, band, window, extra + unresolved_decay)
-        if len(peaks_g) <= 1:
+        if single:
             mode = _amplitude_dependence(mode, sb, sw)
         modes.append(mode)
     return modes
 
 
-def _started_with_hit(est: Estimate, pre_rms: float | None) -> bool:
+def _started_with_hit(est: Estimate, pre_bound: float | None) -> bool:
     """Whether a component too far above what the record held before the hit to have been there
-    (amplitude over ``sqrt(2) pre_rms`` by ``STEADY_MARGIN_DB``) started with the hit."""
-    return (
-        pre_rms is not None
-        and est.amplitude is not None
-        and est.amplitude > math.sqrt(2.0) * pre_rms * 10 ** (STEADY_MARGIN_DB / 20)
-    )
+    (amplitude over ``pre_bound``, :meth:`_HitContext.new_above`) started with the hit."""
+    return pre_bound is not None and est.amplitude is not None and est.amplitude > pre_bound
 
 
 def _decay_unresolved(est: Estimate) -> Notice:
@@ -1533,7 +1883,7 @@ def _steady_before_onset(band: Band, onset_s: float, beta_hint: float) -> bool:
 
 
 def _is_stationary(
-    est: Estimate, band: Band, window: Window, seg_end_s: float, *, pre_rms: float | None = None
+    est: Estimate, band: Band, window: Window, seg_end_s: float, *, pre_bound: float | None = None
 ) -> bool:
     """Whether a component is a steady tone (hum, a running drive) rather than a mode.
 
@@ -1547,10 +1897,9 @@ def _is_stationary(
     (thresholds: common practice, no source). A lightly damped mode in a short record is
     therefore kept (with ``short_decay``) when the record shows it start.
 
-    ``pre_rms`` is the RMS of the broadband samples before the hit (``None`` when there are
-    too few): a steady tone of amplitude ``a`` there would give an RMS of at least
-    ``a / sqrt(2)``, so a component whose amplitude exceeds ``sqrt(2) pre_rms`` by 10 dB was
-    not there before the hit; it is a mode however little it decays in the record (a very
+    ``pre_bound`` is the amplitude above which a component at its frequency was not there before
+    the hit (:meth:`_HitContext.new_above`; ``None`` when there are too few samples there): a
+    component above it it is a mode however little it decays in the record (a very
     lightly damped resonator whose band filter is too narrow to settle in a short pre-trigger)
     when its decay rate is resolved (more than 5 standard uncertainties above zero: common
     practice, no source). A drive switched on with the hit and still running has a decay rate
@@ -1569,10 +1918,10 @@ def _is_stationary(
     if before is not None:
         return bool(before > env[i0] * 10 ** (-STEADY_MARGIN_DB / 20))
     if (
-        pre_rms is not None
+        pre_bound is not None
         and est.amplitude is not None
         and est.beta_per_s_u is not None
-        and est.amplitude > math.sqrt(2.0) * pre_rms * 10 ** (STEADY_MARGIN_DB / 20)
+        and est.amplitude > pre_bound
         and est.beta_per_s > 5.0 * est.beta_per_s_u
     ):
         return False
@@ -1645,6 +1994,8 @@ def _amplitude_dependence(mode: Mode, band: Band, window: Window) -> Mode:
 
 def _make_mode(est: Estimate, others: dict[str, Estimate], band: Band, window: Window, extra: list[Notice]) -> Mode:
     warnings = list(est.warnings) + list(extra)
+    disagree = _disagreements(est, others)
+    est = _widened_by_disagreement(est, others)
     derived = derive(
         est.f_d_hz, est.beta_per_s, f_d_hz_u=est.f_d_hz_u, beta_per_s_u=est.beta_per_s_u, cov_f_beta=est.cov_f_beta
     )
@@ -1670,7 +2021,7 @@ def _make_mode(est: Estimate, others: dict[str, Estimate], band: Band, window: W
                 f"bandwidth {est.beta_per_s / math.pi:.3g} Hz; the decay rate may be biased",
             )
         )
-    warnings.extend(_disagreements(est, others))
+    warnings.extend(disagree)
     env_est = others.get("envelope") if est.method != "envelope" else est
     trace = _trace(est, band, window, env_est)
     return Mode(
@@ -1697,6 +2048,35 @@ _AGREEMENT_METHODS = ("pencil", "envelope", "decrement")
 _AGREEMENT_FLOOR = 0.005
 
 
+def _disagree(est: Estimate, other: Estimate, q: str) -> float | None:
+    """``|difference|`` of quantity ``q`` (``"f_d_hz"`` or ``"beta_per_s"``) between two
+    estimates when it exceeds 3 combined standard uncertainties and ``_AGREEMENT_FLOOR``, else None."""
+    a, b = getattr(est, q), getattr(other, q)
+    ua, ub = getattr(est, q + "_u"), getattr(other, q + "_u")
+    if ua is None or ub is None:
+        return None
+    uc = math.hypot(ua, ub)
+    d = abs(a - b)
+    return d if uc > 0 and d > 3 * uc and d > _AGREEMENT_FLOOR * abs(a) else None
+
+
+def _widened_by_disagreement(est: Estimate, others: dict[str, Estimate]) -> Estimate:
+    """``est`` with each standard uncertainty widened, in quadrature, by half the largest
+    difference to a time-domain cross-check that disagrees with it (``_disagree``): two
+    estimators of one quantity that differ beyond their noise show a model error of unknown
+    sign, and a u that reaches half way covers both at 2 u (common practice, no source)."""
+    if est.method not in _AGREEMENT_METHODS:
+        return est
+    new_u = {}
+    for q in ("f_d_hz", "beta_per_s"):
+        ds = [d for name, o in others.items() if name in _AGREEMENT_METHODS for d in [_disagree(est, o, q)] if d]
+        u = getattr(est, q + "_u")
+        new_u[q] = math.hypot(u, 0.5 * max(ds)) if ds and u is not None else u
+    if new_u["f_d_hz"] == est.f_d_hz_u and new_u["beta_per_s"] == est.beta_per_s_u:
+        return est
+    return replace(est, f_d_hz_u=new_u["f_d_hz"], beta_per_s_u=new_u["beta_per_s"])
+
+
 def _disagreements(est: Estimate, others: dict[str, Estimate]) -> list[Notice]:
     """Time-domain cross-checks (pencil, envelope, decrement) that differ from the reported
     estimate by more than 3 combined standard uncertainties (coverage factor 3: common
@@ -1707,17 +2087,15 @@ def _disagreements(est: Estimate, others: dict[str, Estimate]) -> list[Notice]:
         if name not in _AGREEMENT_METHODS or est.method not in _AGREEMENT_METHODS:
             continue
         for q, unit in (("beta_per_s", "1/s"), ("f_d_hz", "Hz")):
-            a, b = getattr(est, q), getattr(o, q)
-            ua, ub = getattr(est, q + "_u"), getattr(o, q + "_u")
-            if ua is None or ub is None:
-                continue
-            uc = math.hypot(ua, ub)
-            if uc > 0 and abs(a - b) > 3 * uc and abs(a - b) > _AGREEMENT_FLOOR * abs(a):
+            d = _disagree(est, o, q)
+            if d is not None:
+                a, b = getattr(est, q), getattr(o, q)
+                uc = math.hypot(getattr(est, q + "_u"), getattr(o, q + "_u"))
                 out.append(
                     Notice(
                         "methods_disagree",
                         f"{name} gives {q} = {b:.6g} {unit}, {est.method} {a:.6g} {unit} "
-                        f"(difference {abs(a - b) / uc:.1f} combined standard uncertainties)",
+                        f"(difference {d / uc:.1f} combined standard uncertainties)",
                     )
                 )
     return out

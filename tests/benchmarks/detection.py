@@ -121,6 +121,7 @@ def make_record(rng):
                 cycles=cycles,
                 level_db=level_db,
                 clear=(10 * math.log10(max(d, 1e-300)) >= 30.0 and cycles >= 10.0),
+                taps=2 if second else 1,
             )
         )
     return q16 / scale, fs, truth
@@ -141,7 +142,7 @@ def _tol(m, f):
     return max(3 * m.beta_per_s / math.pi, 3 * (m.f_d_hz_u or 0.0), 0.002 * f)
 
 
-def _describe_miss(i_rec: int, fs: float, tr: dict, modes, rejected) -> str:
+def _describe_miss(i_rec: int, fs: float, tr: dict, modes, rejected, n_hits: int) -> str:
     def near(items, attr):
         return min(items, key=lambda it: abs(getattr(it, attr) - tr["f"]), default=None)
 
@@ -150,7 +151,7 @@ def _describe_miss(i_rec: int, fs: float, tr: dict, modes, rejected) -> str:
     ms = "-" if m is None else f"{m.f_d_hz:.2f} Hz (Q {m.q:.3g}, {m.fit_path}, {[w.code for w in m.warnings]})"
     rs = "-" if r is None else f"{r.f_hz:.2f} Hz {r.reason}: {r.detail}"
     return (
-        f"| {i_rec} | {fs:g} | {tr['f']:.2f} | {tr['q']:.3g} | {tr['level_db']:.1f} | {tr['d_db']:.1f} | "
+        f"| {i_rec} | {fs:g} | {n_hits}/{tr['taps']} | {tr['f']:.2f} | {tr['q']:.3g} | {tr['level_db']:.1f} | {tr['d_db']:.1f} | "
         f"{tr['cycles']:.0f} | {ms} | {rs} |"
     )
 
@@ -162,7 +163,7 @@ def main(n_records: int = 60, n_noise: int = 200, seed: int = 20261201, misses: 
     cover_f, cover_b = [], []
     times = []
     errors = 0
-    miss_lines, false_lines, cover_lines = [], [], []
+    miss_lines, false_lines, cover_lines, error_lines = [], [], [], []
     for i_rec in range(n_records):
         x, fs, truth = make_record(rng)
         t0 = time.perf_counter()
@@ -170,16 +171,18 @@ def main(n_records: int = 60, n_noise: int = 200, seed: int = 20261201, misses: 
             a = ringdown.analyze(x, fs, detection=DETECTION)
             modes = list(a.modes)
             rejected = list(a.rejected)
-        except ringdown.RingdownError:
-            modes, rejected = [], []
+            n_hits = len(a.hits)
+        except ringdown.RingdownError as exc:
+            modes, rejected, n_hits = [], [], 0
             errors += 1
+            error_lines.append(f"| {i_rec} | {fs:g} | {exc} |")
         times.append(time.perf_counter() - t0)
         for tr in truth:
             hit = [m for m in modes if abs(m.f_d_hz - tr["f"]) <= _tol(m, tr["f"])]
             tr["found"] = bool(hit)
             rows.append(tr)
             if tr["clear"] and not hit:
-                miss_lines.append(_describe_miss(i_rec, fs, tr, modes, rejected))
+                miss_lines.append(_describe_miss(i_rec, fs, tr, modes, rejected, n_hits))
             if hit:
                 m = min(hit, key=lambda m: abs(m.f_d_hz - tr["f"]))
                 if m.f_d_hz_u and m.beta_per_s_u:
@@ -246,13 +249,17 @@ def main(n_records: int = 60, n_noise: int = 200, seed: int = 20261201, misses: 
     print(f"| time per record | median {1e3 * np.median(times):.0f} ms, max {1e3 * np.max(times):.0f} ms |")
     if misses:
         print("\nMissed clearly detectable modes:\n")
-        print("| record | fs | f_d Hz | Q | level dB | SNR dB | cycles | nearest mode | nearest rejected |")
-        print("|---:|---:|---:|---:|---:|---:|---:|---|---|")
+        print("| record | fs | hits/taps | f_d Hz | Q | level dB | SNR dB | cycles | nearest mode | nearest rejected |")
+        print("|---:|---:|---|---:|---:|---:|---:|---:|---|---|")
         print("\n".join(miss_lines))
         print("\nFalse modes:\n")
         print("| record | f_d Hz | Q | SNR dB | path | nearest truth | warnings |")
         print("|---:|---:|---:|---:|---|---|---|")
         print("\n".join(false_lines))
+        print("\nRecords with no result:\n")
+        print("| record | fs | error |")
+        print("|---:|---:|---|")
+        print("\n".join(error_lines))
         print("\nFound modes outside +-2u (error / u):\n")
         print("| record | f_d Hz | Q | SNR dB | path | f_d | beta | warnings |")
         print("|---:|---:|---:|---:|---|---:|---:|---|")
