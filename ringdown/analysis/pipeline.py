@@ -378,13 +378,7 @@ def analyze_recording(
     if noise_note is not None:
         rec_warnings.append(noise_note)
     tones = condition.steady_tones(noise_f, noise_p) if noise_source == "pre_trigger" else []
-    for f_tone in tones:
-        rec_warnings.append(
-            Notice(
-                "stationary_tone",
-                f"steady tone near {f_tone:.1f} Hz before the hit (mains hum or another running source?); not a mode",
-            )
-        )
+    rec_warnings.extend(_tone_note(f_tone) for f_tone in tones)
     ctx = _RecordContext(
         x=x,
         fs=fs,
@@ -401,12 +395,7 @@ def analyze_recording(
     )
     hits = _measure_hits(ctx, spans, name)
     modes = _combine_hits([h for h in hits if h.used and h.modes])
-    for h in hits:
-        rec_warnings.extend(
-            w
-            for w in h.warnings
-            if w.code in ("double_hit", "clipped", "stationary_tone", "start_uncertain", "candidate_rejected")
-        )
+    rec_warnings.extend(w for h in hits for w in h.warnings if w.code in _RECORD_LEVEL_CODES)
     return Analysis(
         path=rec.path,
         sha256=rec.sha256,
@@ -423,6 +412,18 @@ def analyze_recording(
         noise_source=noise_source,
         recording=rec,
         rejected=tuple(replace(r, hit=j + 1) for j, h in enumerate(hits) for r in h.rejected),
+    )
+
+
+#: Warnings of a hit that are repeated in the recording's own list.
+_RECORD_LEVEL_CODES = ("double_hit", "clipped", "stationary_tone", "start_uncertain", "candidate_rejected")
+
+
+def _tone_note(f_tone: float) -> Notice:
+    """The recording's warning for a steady tone found in the pre-trigger at ``f_tone`` Hz."""
+    return Notice(
+        "stationary_tone",
+        f"steady tone near {f_tone:.1f} Hz before the hit (mains hum or another running source?); not a mode",
     )
 
 
@@ -1075,18 +1076,10 @@ def _residual_round(
         if not fresh:
             break
         tried += [(p.f_hz, max(p.width_hz, res_hz)) for p in fresh]
-        barriers = tuple(ctx.tones) + tuple(m.f_d_hz for m in known)
         found_round: list[Mode] = []
-        round_groups = []
-        for g, lo, hi in group_bands(fresh, sample_rate=fs, resolution_hz=res_hz, barriers_hz=barriers):
-            gc = [
-                Candidate(p.f_hz, math.pi * p.width_hz, max(p.width_hz, res_hz), None, None, "residual", -2, res_hz)
-                for p in g
-            ]
-            round_groups.append((g, lo, hi, gc, _needs_raw_fit(gc, lo, hi) or any(lo < m.f_d_hz < hi for m in known)))
         # band fits first: a raw fit then carries (or subtracts) every mode measured in this round too
         n_row = len(row_cands)
-        for g, lo, hi, gc, raw in sorted(round_groups, key=lambda r: r[4]):
+        for g, lo, hi, gc, raw in _round_groups(fresh, fs, res_hz, tuple(ctx.tones), known):
             if raw and _too_many(gc, row):
                 row_cands += gc
                 continue
@@ -1112,6 +1105,24 @@ def _residual_round(
         new_modes += found_round
     rejected += [r for r, c in zip(row, row_cands) if not any(_near(m, c) for m in new_modes)]
     return new_modes, rejected
+
+
+def _round_groups(fresh: list, fs: float, res_hz: float, tones: tuple, known: list[Mode]) -> list[tuple]:
+    """The residual round's bands, band fits first: ``(peaks, lo_hz, hi_hz, candidates, raw)``.
+
+    Bands are bounded by the steady tones and the measured modes (:func:`group_bands`); ``raw``
+    says the band is too narrow for its candidates or holds a measured mode, so it is fitted on
+    the record itself (:func:`_measure_raw`).
+    """
+    barriers = tones + tuple(m.f_d_hz for m in known)
+    groups = []
+    for g, lo, hi in group_bands(fresh, sample_rate=fs, resolution_hz=res_hz, barriers_hz=barriers):
+        gc = [
+            Candidate(p.f_hz, math.pi * p.width_hz, max(p.width_hz, res_hz), None, None, "residual", -2, res_hz)
+            for p in g
+        ]
+        groups.append((g, lo, hi, gc, _needs_raw_fit(gc, lo, hi) or any(lo < m.f_d_hz < hi for m in known)))
+    return sorted(groups, key=lambda r: r[4])
 
 
 def _fresh_peaks(
@@ -2144,28 +2155,29 @@ def _combine_hits(hits: Sequence[Hit]) -> list[Mode]:
     """Match modes across hits by frequency and combine them.
 
     Modes of different hits are the same mode when their frequencies differ by less than
-    ``max(0.5 %, 3 beta / pi)`` (common practice, no source). The combined frequency and decay
-    rate are inverse-variance weighted means; their uncertainty is the internal one scaled by
-    the Birge ratio ``sqrt(chi2 / (n - 1))`` when that exceeds 1, which folds the between-hit
-    scatter in (R. T. Birge, Phys. Rev. 40, 207, 1932).
+    ``max(0.5 %, 3 beta / pi)`` of the first one's (common practice, no source). The strongest
+    hit's modes start the clusters; each other hit's modes are paired with them by
+    :func:`ringdown.base.matching.match_frequencies` (in order, closest first), so a cluster
+    never takes two modes of one hit; a mode left unpaired starts a cluster of its own. The
+    combined frequency and decay rate are inverse-variance weighted means; their uncertainty is
+    the internal one scaled by the Birge ratio ``sqrt(chi2 / (n - 1))`` when that exceeds 1,
+    which folds the between-hit scatter in (R. T. Birge, Phys. Rev. 40, 207, 1932).
     """
+    from ..base.matching import match_frequencies
+
     ref = max(hits, key=lambda h: h.peak_value)
     clusters: list[list[Mode]] = [[m] for m in ref.modes]
     for h in hits:
         if h is ref:
             continue
-        for m in h.modes:
-            best, best_d = None, None
-            for c in clusters:
-                f0 = c[0].f_d_hz
-                tol = max(0.005 * f0, 3 * c[0].beta_per_s / math.pi)
-                d = abs(m.f_d_hz - f0)
-                if d <= tol and (best_d is None or d < best_d) and all(x is not m for x in c):
-                    best, best_d = c, d
-            if best is None:
-                clusters.append([m])
-            else:
-                best.append(m)
+        clusters.sort(key=lambda c: c[0].f_d_hz)
+        ms = sorted(h.modes, key=lambda m: m.f_d_hz)
+        tol = [max(0.005, 3 * c[0].beta_per_s / (math.pi * c[0].f_d_hz)) for c in clusters]
+        pairs = match_frequencies([c[0].f_d_hz for c in clusters], [m.f_d_hz for m in ms], tolerance=tol)
+        for i, j in pairs:
+            clusters[i].append(ms[j])
+        paired = {j for _, j in pairs}
+        clusters.extend([m] for j, m in enumerate(ms) if j not in paired)
     out = [_combine_modes(c) for c in clusters]
     out.sort(key=lambda m: m.f_d_hz)
     return [m.with_updates(index=i + 1) for i, m in enumerate(out)]
