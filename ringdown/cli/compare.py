@@ -19,7 +19,7 @@ from typing import TYPE_CHECKING, Annotated, Optional, cast
 
 import typer
 
-from ..base.numfmt import fmt_interval, fmt_pm, fmt_value
+from ..base.numfmt import fmt_pm
 from ._common import (
     EXIT_EPILOG,
     EXIT_ERROR,
@@ -58,10 +58,6 @@ if TYPE_CHECKING:
 __all__ = ["register", "format_table"]
 
 
-def _sig(v, digits: int = 4) -> str:
-    return fmt_value(v, digits, missing="-")
-
-
 def _pm(v, u, digits: int = 4) -> str:
     return fmt_pm(v, u, digits=digits, missing="-")
 
@@ -88,25 +84,9 @@ def format_table(comparison: Comparison) -> str:
         "p",
         "verdict",
     )
-    rows = []
-    for m in comparison.modes:
-        b, a, d, f = m.before, m.after, m.damping, m.frequency
-        shift = fmt_interval(*f.percent, decimals=2, sign=True)
-        ratio = "x" + fmt_interval(d.ratio, d.ratio_low, d.ratio_high, digits=3)
-        rows.append(
-            (
-                str(m.index),
-                _pm(b.f_d_hz, b.f_d_hz_u),
-                _pm(a.f_d_hz, a.f_d_hz_u),
-                shift,
-                _pm(b.zeta, b.zeta_u),
-                _pm(a.zeta, a.zeta_u),
-                ratio,
-                d.test,
-                _sig(d.p_value, 2),
-                d.verdict,
-            )
-        )
+    from ..render.report import comparison_cells
+
+    rows = [(*comparison_cells(m, times="x", digits=4, missing="-"), m.damping.verdict) for m in comparison.modes]
     widths = [max(len(r[k]) for r in [head, *rows]) for k in range(len(head))]
     fmt = lambda r: "  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip()  # noqa: E731
     lines.append(fmt(head))

@@ -849,29 +849,35 @@ def comparison_html(comparison: Comparison) -> str:
     return "".join(out)
 
 
+def comparison_cells(m: Any, *, times: str, digits: int, missing: str) -> list[str]:
+    """The cells of one paired mode in the damping table, without its verdict: index, f_d before
+    and after, the frequency shift (%, its interval), zeta before and after, the zeta ratio (its
+    interval, after the ``times`` sign), the test and its p-value. ``m`` is a
+    :class:`ringdown.treatment.results.ModeComparison`; ``digits`` as for
+    :func:`ringdown.base.numfmt.fmt_pm`. The one builder of these rows for the HTML report and
+    the text ``ringdown compare`` prints."""
+    b, a, d, f = m.before, m.after, m.damping, m.frequency
+    return [
+        str(m.index),
+        fmt_pm(b.f_d_hz, b.f_d_hz_u, digits=digits, missing=missing),
+        fmt_pm(a.f_d_hz, a.f_d_hz_u, digits=digits, missing=missing),
+        fmt_interval(*f.percent, decimals=2, sign=True),
+        fmt_pm(b.zeta, b.zeta_u, digits=digits, missing=missing),
+        fmt_pm(a.zeta, a.zeta_u, digits=digits, missing=missing),
+        times + fmt_interval(d.ratio, d.ratio_low, d.ratio_high, digits=3),
+        str(d.test),
+        fmt_value(d.p_value, 2, missing=missing),
+    ]
+
+
 def _comparison_tables(comparison: Comparison, c: str) -> list[str]:
     """The damping table (f_d, shift, zeta, ratio, test, verdict) and the Q and T60 table of the
     paired modes, intervals at ``c`` % confidence; a note when no mode was paired."""
     main: list[list[Any]] = []
     more: list[list[str]] = []
     for m in comparison.modes:
-        b, a, d, f = m.before, m.after, m.damping, m.frequency
-        shift = fmt_interval(*f.percent, decimals=2, sign=True)
-        ratio = "×" + fmt_interval(d.ratio, d.ratio_low, d.ratio_high, digits=3)
-        main.append(
-            [
-                str(m.index),
-                _pm(b.f_d_hz, b.f_d_hz_u),
-                _pm(a.f_d_hz, a.f_d_hz_u),
-                shift,
-                _pm(b.zeta, b.zeta_u),
-                _pm(a.zeta, a.zeta_u),
-                ratio,
-                str(d.test),
-                fmt_value(d.p_value, 2),
-                verdict_cell(d.verdict),
-            ]
-        )
+        b, a, d = m.before, m.after, m.damping
+        main.append([*comparison_cells(m, times="×", digits=6, missing=_DASH), verdict_cell(d.verdict)])
         more.append(
             [
                 str(m.index),
