@@ -100,3 +100,31 @@ def make_parts(
         line_sim.write_part(p, line_sim.part_modes(rng, kind), rng, duration_s=duration_s)
         out.append(str(p))
     return out
+
+
+#: Headless Chromium as the browser tests run it: offline-minded (no background networking,
+#: component updates or sync), a fresh profile given by the caller, and no GPU or /dev/shm needs.
+CHROMIUM_FLAGS = (
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--no-first-run",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+    "--disable-dev-shm-usage",
+)
+
+#: Names under which a Chromium or Chrome may be installed, in the order they are tried.
+BROWSER_NAMES = ("chromium", "chromium-browser", "google-chrome", "google-chrome-stable")
+
+
+def find_tool(*names: str) -> str | None:
+    """The path of the first of ``names`` found on PATH, or None."""
+    import shutil
+
+    for name in names:
+        found = shutil.which(name)
+        if found:
+            return found
+    return None

@@ -7,12 +7,12 @@ no sync) with a fresh profile in a temporary folder.
 
 from __future__ import annotations
 
-import shutil
 import subprocess
 
 import numpy as np
 import pytest
-from test_plots import THREE_MODES, make_analysis  # noqa: E402  (tests/ is on sys.path under pytest)
+from conftest import BROWSER_NAMES, CHROMIUM_FLAGS, find_tool  # noqa: E402  (tests/ is on sys.path under pytest)
+from test_plots import THREE_MODES, make_analysis  # noqa: E402
 
 from ringdown.analysis.results import Analysis
 from ringdown.base.errors import InputError
@@ -22,24 +22,13 @@ pytestmark = pytest.mark.browser
 
 
 def _browser() -> str | None:
-    for name in ("/usr/bin/chromium", "chromium", "chromium-browser", "google-chrome", "google-chrome-stable"):
-        found = shutil.which(name)
-        if found:
-            return found
-    return None
+    return find_tool("/usr/bin/chromium", *BROWSER_NAMES)
 
 
 def _screenshot(browser: str, html_path, png_path, profile) -> subprocess.CompletedProcess:
     cmd = [
         browser,
-        "--headless",
-        "--no-sandbox",
-        "--disable-gpu",
-        "--no-first-run",
-        "--disable-background-networking",
-        "--disable-component-update",
-        "--disable-sync",
-        "--disable-dev-shm-usage",
+        *CHROMIUM_FLAGS,
         "--hide-scrollbars",
         f"--user-data-dir={profile}",
         f"--screenshot={png_path}",

@@ -16,13 +16,12 @@ installs both).
 from __future__ import annotations
 
 import re
-import shutil
 import subprocess
 from pathlib import Path
 
 import numpy as np
 import pytest
-from conftest import ringdown_modes  # noqa: E402  (tests/ is on sys.path under pytest)
+from conftest import BROWSER_NAMES, CHROMIUM_FLAGS, find_tool, ringdown_modes  # noqa: E402  (tests/ is on sys.path under pytest)
 from typer.testing import CliRunner
 
 import ringdown
@@ -85,17 +84,9 @@ CHECK_HEADINGS = [
 ]
 
 
-def _tool(*names: str) -> str | None:
-    for name in names:
-        found = shutil.which(name)
-        if found:
-            return found
-    return None
-
-
 def _need_tools() -> tuple[str, str, str]:
-    browser = _tool("chromium", "chromium-browser", "google-chrome", "google-chrome-stable")
-    pdftotext, pdftoppm = _tool("pdftotext"), _tool("pdftoppm")
+    browser = find_tool(*BROWSER_NAMES)
+    pdftotext, pdftoppm = find_tool("pdftotext"), find_tool("pdftoppm")
     if browser is None:
         pytest.skip("no Chromium/Chrome found; install Debian's 'chromium' package (.ci/run does)")
     if pdftotext is None or pdftoppm is None:
@@ -104,17 +95,9 @@ def _need_tools() -> tuple[str, str, str]:
 
 
 def _chromium(browser: str, profile: Path, *args: str) -> subprocess.CompletedProcess:
-    # the flags of tests/test_report_browser.py: offline-minded, fresh profile
     cmd = [
         browser,
-        "--headless",
-        "--no-sandbox",
-        "--disable-gpu",
-        "--no-first-run",
-        "--disable-background-networking",
-        "--disable-component-update",
-        "--disable-sync",
-        "--disable-dev-shm-usage",
+        *CHROMIUM_FLAGS,
         f"--user-data-dir={profile}",
         *args,
     ]

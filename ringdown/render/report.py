@@ -40,6 +40,7 @@ if TYPE_CHECKING:
     from ..inspection.limits import Limits
     from ..materials.moduli import ModuliResult
     from ..treatment.compare import Comparison
+    from ..treatment.results import ModeComparison
 
 __all__ = [
     "Cell",
@@ -849,11 +850,10 @@ def comparison_html(comparison: Comparison) -> str:
     return "".join(out)
 
 
-def comparison_cells(m: Any, *, times: str, digits: int, missing: str) -> list[str]:
+def comparison_cells(m: ModeComparison, *, times: str, digits: int, missing: str) -> list[str]:
     """The cells of one paired mode in the damping table, without its verdict: index, f_d before
     and after, the frequency shift (%, its interval), zeta before and after, the zeta ratio (its
-    interval, after the ``times`` sign), the test and its p-value. ``m`` is a
-    :class:`ringdown.treatment.results.ModeComparison`; ``digits`` as for
+    interval, after the ``times`` sign), the test and its p-value; ``digits`` as for
     :func:`ringdown.base.numfmt.fmt_pm`. The one builder of these rows for the HTML report and
     the text ``ringdown compare`` prints."""
     b, a, d, f = m.before, m.after, m.damping, m.frequency
@@ -876,8 +876,8 @@ def _comparison_tables(comparison: Comparison, c: str) -> list[str]:
     main: list[list[Any]] = []
     more: list[list[str]] = []
     for m in comparison.modes:
-        b, a, d = m.before, m.after, m.damping
-        main.append([*comparison_cells(m, times="×", digits=6, missing=_DASH), verdict_cell(d.verdict)])
+        b, a = m.before, m.after
+        main.append([*comparison_cells(m, times="×", digits=6, missing=_DASH), verdict_cell(m.damping.verdict)])
         more.append(
             [
                 str(m.index),
