@@ -219,3 +219,20 @@ def test_innovation_matches_fft_autocorrelation_predictor():
     a = linalg.solve_toeplitz(r[:p], r[1 : p + 1])
     ref = signal.lfilter(np.concatenate(([1.0], -a)), [1.0], x)
     assert np.max(np.abs(innovation(x) - ref)) < 1e-9 * np.max(np.abs(x))
+
+
+def test_thinned_fit_mirror_image_is_moved_back_to_its_start():
+    # Sampling theorem (Oppenheim & Schafer, Discrete-Time Signal Processing, 3rd ed., 4.2):
+    # samples taken at fs / step = 12 kHz (48 kHz, every 4th) of cos(2 pi f t) equal those of
+    # k 12 kHz +- f, so 6207 Hz and 2 * 12000 - 6207 = 17793 Hz give the same thinned samples;
+    # the mirror image (sign -1) flips the sign of cov(f, beta). Hand-worked numbers.
+    from ringdown.analysis.estimators.real import _unaliased
+    from ringdown.analysis.results import Estimate
+
+    e = Estimate(method="pencil", f_d_hz=17793.0, f_d_hz_u=0.1, beta_per_s=50.0, beta_per_s_u=1.0, cov_f_beta=0.02)
+    (back,) = _unaliased([e], [6210.0], 48000.0, 4)
+    assert back.f_d_hz == pytest.approx(6207.0, abs=1e-9)
+    assert back.cov_f_beta == pytest.approx(-0.02)
+    # started near the mirror image itself, or not thinned at all: left as it is
+    assert _unaliased([e], [17790.0], 48000.0, 4)[0].f_d_hz == 17793.0
+    assert _unaliased([e], [6210.0], 48000.0, 1)[0].f_d_hz == 17793.0

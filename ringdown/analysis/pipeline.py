@@ -1479,10 +1479,9 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
             noise_p=ctx.noise_p,
         )
 
-    starts = [f for f, _ in poles[: len(targets)]]
-    ests = _unaliased(fit(dur), starts, fs, dur)
+    ests = fit(dur)
     try:
-        half = _unaliased(fit(0.5 * dur), starts, fs, 0.5 * dur)
+        half = fit(0.5 * dur)
     except FitError:
         half = []
     modes = []
@@ -1499,33 +1498,6 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
 
 #: Most other modes a raw fit carries along (the strongest in its window).
 MAX_RAW_NUISANCE = 3
-
-
-def _unaliased(ests: list[Estimate], starts: Sequence[float], fs: float, duration_s: float) -> list[Estimate]:
-    """Raw-fit estimates with each frequency moved to the alias nearest its fit's starting
-    frequencies ``starts`` (Hz). :func:`estimate_real` thins a long window to every ``D``-th
-    sample (``D`` as it chooses it, from ``duration_s`` and its ``MAX_SAMPLES``); the thinned
-    samples of a real cosine at ``f`` are those of every ``k fs / D +- f``, so a fit started near
-    ``f`` can end at a mirror image above ``fs / (2 D)``."""
-    from .estimators.real import MAX_SAMPLES
-
-    step = max(1, math.ceil(max(int(round(duration_s * fs)), 1) / MAX_SAMPLES))
-    if step == 1 or not starts:
-        return ests
-    fs_d = fs / step
-    out = []
-    for e in ests:
-        k_max = int(math.ceil(0.5 * fs / fs_d)) + 1
-        # (frequency, sign of its derivative in the fitted one: a mirror image flips cov(f, beta))
-        aliases = [
-            (k * fs_d + sign * e.f_d_hz, sign)
-            for k in range(k_max + 1)
-            for sign in (1.0, -1.0)
-            if 0 < k * fs_d + sign * e.f_d_hz < fs / 2
-        ]
-        best, sign = min(aliases, key=lambda a: min(abs(a[0] - f0) for f0 in starts), default=(e.f_d_hz, 1.0))
-        out.append(e if best == e.f_d_hz else replace(e, f_d_hz=best, cov_f_beta=sign * e.cov_f_beta))
-    return out
 
 
 def _with_model_error(est: Estimate, half: Sequence[Estimate]) -> Estimate:

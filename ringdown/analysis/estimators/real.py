@@ -27,6 +27,7 @@ spectrum, scaled so that its variance matches the fit's residual variance.
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import numpy as np
 
@@ -183,7 +184,8 @@ def estimate_real(
     -------
     list of Estimate
         One per target whose fit converged to a decaying mode, ``method="pencil"``; amplitudes
-        refer to ``t0_s``.
+        refer to ``t0_s``; a frequency the thinned fit found as a mirror image is moved back to
+        the alias nearest its starting value (:func:`_unaliased`).
 
     Raises
     ------
@@ -220,6 +222,29 @@ def estimate_real(
                 converged=converged,
             )
         )
+    return _unaliased(out, [p[0] for p in poles[:n_targets]], fs, step)
+
+
+def _unaliased(ests: list[Estimate], starts: list[float], fs: float, step: int) -> list[Estimate]:
+    """``ests`` with each frequency moved to the alias nearest the fit's starting frequencies
+    ``starts`` (Hz). The fit sees every ``step``-th sample (:func:`_thinned`); those samples of a
+    real cosine at ``f`` are the same as of every ``k fs / step +- f``, so a fit started near ``f``
+    can end at a mirror image above ``fs / (2 step)``. A mirror image flips the sign of
+    cov(f, beta)."""
+    if step == 1 or not starts:
+        return ests
+    fs_d = fs / step
+    k_max = int(math.ceil(0.5 * fs / fs_d)) + 1
+    out = []
+    for e in ests:
+        aliases = [
+            (k * fs_d + sign * e.f_d_hz, sign)
+            for k in range(k_max + 1)
+            for sign in (1.0, -1.0)
+            if 0 < k * fs_d + sign * e.f_d_hz < fs / 2
+        ]
+        best, sign = min(aliases, key=lambda a: min(abs(a[0] - f0) for f0 in starts), default=(e.f_d_hz, 1.0))
+        out.append(e if best == e.f_d_hz else replace(e, f_d_hz=best, cov_f_beta=sign * e.cov_f_beta))
     return out
 
 
