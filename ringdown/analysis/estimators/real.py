@@ -14,10 +14,17 @@ plus a constant and a straight line (what the record's drift removal leaves over
 for the target modes and every other mode that carries energy in the same window (nuisance
 modes, fitted jointly and not reported from here). The linear amplitudes are solved inside the
 nonlinear least squares (variable projection, Golub & Pereyra 1973 [from memory]), started from
-the candidates' poles. A long window is thinned by keeping every ``D``-th sample (``D`` the
-smallest that keeps at most ``MAX_SAMPLES``): a pole maps to ``exp(p D / fs)`` whatever its
-frequency, so aliasing moves no parameter, and the noise covariance follows from the measured
-noise spectrum.
+the candidates' poles. A long window is thinned to every ``D``-th sample (``D`` the smallest
+that keeps at most ``MAX_SAMPLES``): a pole maps to ``exp(p D / fs)`` whatever its frequency, so
+aliasing moves no parameter, and the noise covariance follows from the measured noise spectrum.
+When every target lies low enough for it, each kept sample is the mean of the ``D`` samples it
+starts (a boxcar before the thinning, :func:`_thinned`): a finite filter leaves every pole where
+it is and multiplies a mode's complex amplitude by ``G(p) = (1/D) sum_k exp(p k / fs)``
+[derived], so the model is unchanged, while white noise falls by ``D`` in variance (keeping one
+sample in ``D`` loses ``sqrt(D)`` in standard deviation against the Cramer-Rao bound) and the
+components the fit does not model (a mode too broad or too weak to be found, the leftover of
+one subtracted with a slightly wrong pole) alias onto the targets attenuated by the boxcar's
+response.
 
 Covariance (Kay 1993, ch. 8 [from memory]): ``A^-1 B A^-1`` with ``A = J^T J``,
 ``B = J^T R J``, ``R`` the noise covariance of the thinned samples from the measured noise
@@ -137,12 +144,18 @@ class _RealProjection:
         return -(pv + y)
 
 
-def _noise_acf(noise_f: np.ndarray, noise_p: np.ndarray, fs: float, step: int, n: int) -> np.ndarray:
+def _noise_acf(
+    noise_f: np.ndarray, noise_p: np.ndarray, fs: float, step: int, n: int, *, averaged: bool = False
+) -> np.ndarray:
     """Autocorrelation of the noise at lags ``0, step, 2 step, ...`` (n lags) samples at rate
-    ``fs``, normalised to 1 at lag 0, from the one-sided PSD (Wiener-Khinchin)."""
+    ``fs``, normalised to 1 at lag 0, from the one-sided PSD (Wiener-Khinchin); ``averaged``:
+    of the means of ``step`` consecutive samples (the PSD times the boxcar's power response
+    ``|sin(pi f D / fs) / (D sin(pi f / fs))|^2``)."""
     m = 1 << int(math.ceil(math.log2(max(4 * n * step, 1024))))
     f = np.fft.rfftfreq(m, 1.0 / fs)
     s = np.interp(f, noise_f[1:], noise_p[1:])
+    if averaged and step > 1:
+        s = s * _boxcar_power(f, fs, step)
     r = np.fft.irfft(s, m)
     lags = np.arange(n) * step
     lags = lags[lags < m // 2]
@@ -194,6 +207,9 @@ def estimate_real(
     """
     fs = float(sample_rate)
     y, step = _thinned(seg, fs, duration_s)
+    averaged = _averaging_pays(poles[:n_targets], fs, step)
+    if averaged:
+        y, step = _thinned(seg, fs, duration_s, average=True)
     k = len(poles)
     if y.shape[0] < 4 * k + 10:
         raise FitError(
@@ -201,11 +217,12 @@ def estimate_real(
         )
     beta, omega, c, converged = _fit(y, step / fs, poles, t0_s)
     t = np.arange(y.shape[0]) * (step / fs)
-    cov, s2 = _covariance(y, t, beta, omega, c, _noise_acf(noise_f, noise_p, fs, step, y.shape[0]))
+    cov, s2 = _covariance(y, t, beta, omega, c, _noise_acf(noise_f, noise_p, fs, step, y.shape[0], averaged=averaged))
     out = []
     for i in range(n_targets):
         if not (beta[i] > 0 and omega[i] > 0 and omega[i] / (2 * math.pi) < fs / 2.0):
             continue
+        gain = abs(_boxcar_gain(complex(-beta[i], omega[i]), fs, step)) if averaged else 1.0
         out.append(
             Estimate(
                 method="pencil",
@@ -214,7 +231,7 @@ def estimate_real(
                 beta_per_s=float(beta[i]),
                 beta_per_s_u=float(math.sqrt(max(cov[4 * i, 4 * i], 0.0))),
                 cov_f_beta=float(cov[4 * i, 4 * i + 1]),
-                amplitude=float(math.hypot(c[i], c[k + i])),
+                amplitude=float(math.hypot(c[i], c[k + i]) / max(gain, 1e-300)),
                 fit_start_s=float(t0_s),
                 fit_end_s=float(t0_s + t[-1]),
                 n_points=int(y.shape[0]),
@@ -248,13 +265,48 @@ def _unaliased(ests: list[Estimate], starts: list[float], fs: float, step: int) 
     return out
 
 
-def _thinned(seg: np.ndarray, fs: float, duration_s: float) -> tuple[np.ndarray, int]:
+def _thinned(seg: np.ndarray, fs: float, duration_s: float, *, average: bool = False) -> tuple[np.ndarray, int]:
     """The first ``duration_s`` of ``seg`` (sample rate ``fs``, Hz) as float64, keeping every
-    ``step``-th sample, ``step`` the smallest that leaves at most :data:`MAX_SAMPLES`; returns
-    ``(y, step)``, ``y`` of shape (n,)."""
+    ``step``-th sample, ``step`` the smallest that leaves at most :data:`MAX_SAMPLES`; with
+    ``average``, each kept sample is the mean of the ``step`` samples from it on (the last block
+    only when complete). Returns ``(y, step)``, ``y`` of shape (n,)."""
     n_full = min(seg.shape[0], max(int(round(duration_s * fs)), 1))
     step = max(1, int(math.ceil(n_full / MAX_SAMPLES)))
-    return np.asarray(seg[:n_full:step], dtype=np.float64), step
+    if not average or step == 1:
+        return np.asarray(seg[:n_full:step], dtype=np.float64), step
+    n_blocks = min(int(math.ceil(n_full / step)), seg.shape[0] // step)
+    blocks = np.asarray(seg[: n_blocks * step], dtype=np.float64).reshape(n_blocks, step)
+    return blocks.mean(axis=1), step
+
+
+def _boxcar_gain(p: complex, fs: float, step: int) -> complex:
+    """``G(p) = (1/D) sum_{k<D} exp(p k / fs)``: the mean of ``D = step`` consecutive samples of
+    ``exp(p t)`` over its first sample (``p`` in 1/s, complex) [derived: geometric series]."""
+    z = np.exp(p / fs)
+    if abs(z - 1.0) < 1e-12:
+        return complex(1.0)
+    return complex((1.0 - z**step) / (step * (1.0 - z)))
+
+
+def _boxcar_power(f: np.ndarray, fs: float, step: int) -> np.ndarray:
+    """``|G(i 2 pi f)|^2`` of :func:`_boxcar_gain` at the frequencies ``f`` (Hz): the power
+    response of the mean of ``step`` samples, ``(sin(pi f D / fs) / (D sin(pi f / fs)))^2``."""
+    x = np.pi * np.asarray(f, dtype=np.float64) / fs
+    den = step * np.sin(x)
+    out = np.ones_like(x)
+    ok = np.abs(den) > 1e-12
+    out[ok] = (np.sin(step * x[ok]) / den[ok]) ** 2
+    return out
+
+
+def _averaging_pays(targets: list[tuple[float, float]], fs: float, step: int) -> bool:
+    """Whether the boxcar mean of ``step`` samples raises every target's signal-to-noise ratio
+    in white noise over keeping one sample in ``step``: the mean scales the amplitude by
+    ``|G(p)|`` and the noise variance by ``1 / D``, so it pays when ``D |G(p)|^2 > 1`` for each
+    target pole ``p = -beta + i 2 pi f`` (``targets``: (f_hz, beta_per_s) each)."""
+    if step <= 1 or not targets:
+        return False
+    return all(step * abs(_boxcar_gain(complex(-b, 2.0 * math.pi * f), fs, step)) ** 2 > 1.0 for f, b in targets)
 
 
 def _fit(y: np.ndarray, dt: float, poles: list[tuple[float, float]], t0_s: float):
