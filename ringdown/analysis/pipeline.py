@@ -1838,10 +1838,13 @@ def _group_modes(
     """The modes of a group's primary estimates (with the cross-checks of the nearest
     sub-band); steady tones are named in ``hit_warnings`` and left out, components that started
     with the hit but whose decay is unresolved are kept with ``decay_unresolved``; a ``single``
-    mode's band is tested for amplitude dependence."""
+    mode's band is tested for amplitude dependence. An envelope fit standing in for a pencil fit
+    that found nothing is left out when its decay is not resolved (:func:`_unresolved_fallback`);
+    when that leaves no mode, :class:`FitError` says why (the caller names the candidates)."""
     seg_end = hctx.seg_end
     fs = hctx.record.fs
     modes = []
+    unresolved_fits: list[str] = []
     for est, band, window in primaries:
         if not cross:
             others, sb, sw = {}, band, window
@@ -1861,11 +1864,30 @@ def _group_modes(
                 )
                 continue
             unresolved_decay.append(_decay_unresolved(est))
+        elif _unresolved_fallback(est, extra):
+            unresolved_fits.append(
+                f"the envelope fit at {est.f_d_hz:.1f} Hz (the pencil found no decaying mode in its "
+                f"band) gives beta = {est.beta_per_s:.3g} +- {est.beta_per_s_u or float('nan'):.2g} 1/s: "
+                "a decay not resolved from the noise, not a measured mode"
+            )
+            continue
         mode = _make_mode(est, others, band, window, extra + unresolved_decay)
         if single:
             mode = _amplitude_dependence(mode, sb, sw)
         modes.append(mode)
+    if unresolved_fits and not modes:
+        raise FitError("; ".join(unresolved_fits))
     return modes
+
+
+def _unresolved_fallback(est: Estimate, extra: list[Notice]) -> bool:
+    """Whether ``est`` is the envelope fit reported in place of a parametric fit that found
+    nothing (a ``fallback_method`` notice in ``extra``) and its decay is not resolved (beta
+    within 3 standard uncertainties of 0, as ``_resolved_raw`` asks of a raw fit): with no
+    parametric fit to confirm it and no decay, nothing shows that the band held a mode (a
+    component that does not decay is judged before this, by ``_is_stationary``)."""
+    fallback = any(n.code == "fallback_method" for n in extra)
+    return fallback and not (est.beta_per_s > 3.0 * (est.beta_per_s_u or math.inf))
 
 
 def _started_with_hit(est: Estimate, pre_bound: float | None) -> bool:
