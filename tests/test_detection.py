@@ -276,3 +276,27 @@ def test_unresolved_envelope_fallback_is_not_a_mode(detection):
         r.reason == "fit_failed" and "not resolved from the noise" in r.detail and 3000 < r.f_hz < 3600
         for r in a.rejected
     )
+
+
+def test_growing_fit_is_named_growing(detection):
+    """A 437 Hz component whose amplitude grows as exp(+1 t) (exact: the stated signal) is not a
+    decay: every candidate is rejected as fit_failed, and the reason says the fitted pole grows
+    (beta = -1 1/s), not just that no decaying mode was found. The raw fit says the same of a
+    target that ends growing (exp(+2 t) at 100 Hz)."""
+    from ringdown.analysis.estimators import real
+    from ringdown.base.errors import FitError
+
+    if detection == "model":
+        pytest.skip("the reason text is tested on the default search")
+    fs = 8000.0
+    t = np.arange(7200) / fs
+    x = np.zeros(8000)
+    x[800:] = np.exp(1.0 * t) * np.cos(2 * math.pi * 437.0 * t)
+    x += 1e-5 * np.random.default_rng(1).standard_normal(8000)
+    with pytest.raises(NoRingdownError, match=r"437 Hz \(beta = -1 1/s\) grow, not decay"):
+        analyze(x, fs)
+    t = np.arange(4000) / fs
+    y = np.exp(2.0 * t) * np.cos(2 * math.pi * 100.0 * t + 0.3) + 1e-4 * np.random.default_rng(0).standard_normal(4000)
+    nf, npsd = np.linspace(0.0, fs / 2, 129), np.full(129, 2e-8 / fs)
+    with pytest.raises(FitError, match=r"100 Hz \(beta = -2 1/s\) growing, not decaying"):
+        real.estimate_real(y, fs, t0_s=0.0, poles=[(100.5, 1.0)], n_targets=1, duration_s=0.5, noise_f=nf, noise_p=npsd)

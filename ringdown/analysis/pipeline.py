@@ -1739,6 +1739,7 @@ def _measure_group(
     subs = _sub_bands(hctx, peaks_g, lo, hi, beta_hint) if len(peaks_g) > 1 else [(group_band, group_window)]
     cross: list[tuple[float, dict[str, Estimate], Band, Window]] = []
     joint: list[Estimate] | None = None  # every mode a multi-mode method found in the group band
+    why = ""  # what the primary method said when it found nothing
     for sb, sw in subs:
         found: dict[str, Estimate] = {}
         for name, fn in ESTIMATORS.items():
@@ -1746,7 +1747,8 @@ def _measure_group(
                 continue  # run once on the whole group below
             try:
                 ests = fn(sb, sw)
-            except FitError:
+            except FitError as exc:
+                why = str(exc) if name == primary else why
                 continue
             if ests:
                 centre = 0.5 * (sb.f_lo_hz + sb.f_hi_hz)
@@ -1779,7 +1781,7 @@ def _measure_group(
                 )
             )
     if not primaries:
-        raise FitError("no estimator found a decaying mode in the band")
+        raise FitError("no estimator found a decaying mode in the band" + (f" ({why})" if why else ""))
     return _group_modes(hctx, primaries, cross, extra, len(peaks_g) <= 1, hit_warnings)
 
 

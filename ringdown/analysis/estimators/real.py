@@ -204,7 +204,8 @@ def estimate_real(
     Raises
     ------
     FitError
-        Too few samples for the number of modes, or the least squares failed.
+        Too few samples for the number of modes, the least squares failed, or every target came
+        out growing (beta <= 0; the message names them).
     """
     fs = float(sample_rate)
     y, step = _thinned(seg, fs, duration_s)
@@ -240,6 +241,15 @@ def estimate_real(
                 converged=converged,
             )
         )
+    if not out:
+        grow = [
+            f"{omega[i] / (2 * math.pi):.6g} Hz (beta = {beta[i]:.3g} 1/s)" for i in range(n_targets) if beta[i] <= 0
+        ]
+        if grow:
+            raise FitError(
+                f"the fit of the record from {t0_s:.4g} s found {', '.join(grow)} growing, not decaying "
+                "(a steady tone, or a decay too slow for the window)"
+            )
     return _unaliased(out, [p[0] for p in poles[:n_targets]], fs, step)
 
 
