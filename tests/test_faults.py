@@ -335,6 +335,51 @@ def test_sigint_in_analyze_writes_the_partial_csv(tmp_path):
     assert len(paths) == done
 
 
+_HALF_SENT = """
+import pathlib, sys, time
+from ringdown.base.batch import ProcessExecutor
+
+def big(marker, n):
+    from multiprocessing.connection import Connection
+
+    send = Connection._send_bytes
+
+    def marked(self, buf):  # in this worker only: mark the start of the result's write
+        pathlib.Path(marker).touch()
+        return send(self, buf)
+
+    Connection._send_bytes = marked
+    return b"x" * n
+
+if __name__ == "__main__":
+    marker = pathlib.Path(sys.argv[1])
+    ex = ProcessExecutor(1)
+    fut = ex.submit(big, str(marker), 200_000_000)
+    while not marker.exists():
+        time.sleep(0.01)
+    time.sleep(0.1)  # inside the write: 200 MB take about a second through the pipe here
+    ex.shutdown(cancel=True)
+    print("cancelled", flush=True)
+"""
+
+
+@pytest.mark.slow
+def test_cancel_while_a_worker_sends_its_result_does_not_hang_the_exit(tmp_path):
+    # A worker terminated halfway through writing its result left a partial message in the
+    # result pipe; the pool's manager thread waited for the rest and the interpreter, joining
+    # it at exit, hung (Ctrl-C in `analyze --jobs 2`). The workers are now terminated while the
+    # parent holds the result queue's write lock. Before the fix this script never exited.
+    script = tmp_path / "half_sent.py"
+    script.write_text(_HALF_SENT, encoding="utf-8")
+    t0 = time.monotonic()
+    res = subprocess.run(
+        [sys.executable, str(script), str(tmp_path / "sending")], capture_output=True, text=True, timeout=40
+    )
+    assert res.returncode == 0, res.stderr
+    assert res.stdout.strip() == "cancelled"
+    assert time.monotonic() - t0 < 30  # the bounded wait for a write in progress is 5 s
+
+
 @pytest.mark.slow
 def test_killed_analyze_store_rerun_does_not_duplicate_rows(tmp_path):
     files = make_parts(tmp_path / "many", 8, seed=51, duration_s=1.0)
