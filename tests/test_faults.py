@@ -29,6 +29,8 @@ import numpy as np
 import pytest
 from conftest import make_parts as _make_parts  # noqa: E402
 
+EXAMPLES = Path(__file__).resolve().parents[1] / "example_signals"
+
 LIMITS = """\
 format_version = 1
 [[modes]]
@@ -333,6 +335,79 @@ def test_sigint_in_analyze_writes_the_partial_csv(tmp_path):
     with open(out_csv, newline="", encoding="utf-8") as fh:
         paths = {r["path"] for r in csv.DictReader(fh)}
     assert len(paths) == done
+
+
+@pytest.mark.slow
+def test_sigint_while_the_command_starts_exits_130_without_a_traceback():
+    # Ctrl-C during ringdown's imports (about a second) printed a 20-line traceback ending in
+    # KeyboardInterrupt; the entry point now catches it. A signal that lands before Python has
+    # finished its own start-up ("init_import_site") never reaches ringdown's code; such a run
+    # is not counted, and at least one run must land in ringdown's imports.
+    reached = 0
+    for delay_s in (0.1, 0.2, 0.3, 0.5, 0.8):
+        proc = subprocess.Popen(
+            [sys.executable, "-m", "ringdown", "analyze", str(EXAMPLES / "bracket_tap.wav")],
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
+        time.sleep(delay_s)
+        proc.send_signal(signal.SIGINT)
+        _, err = proc.communicate(timeout=60)
+        if "init_import_site" in err:
+            continue
+        reached += 1
+        # 130, or death by the signal itself (a shell shows 130 for both)
+        assert proc.returncode in (130, -signal.SIGINT), (delay_s, proc.returncode, err)
+        assert "Traceback" not in err, err
+        lines = err.strip().splitlines()  # none when typer itself took the interrupt (exit 130)
+        assert len(lines) <= 1 and all(x.startswith("ringdown: error: interrupted") for x in lines), err
+    assert reached >= 1
+
+
+_HALF_SENT = """
+import pathlib, sys, time
+from ringdown.base.batch import ProcessExecutor
+
+def big(marker, n):
+    from multiprocessing.connection import Connection
+
+    send = Connection._send_bytes
+
+    def marked(self, buf):  # in this worker only: mark the start of the result's write
+        pathlib.Path(marker).touch()
+        return send(self, buf)
+
+    Connection._send_bytes = marked
+    return b"x" * n
+
+if __name__ == "__main__":
+    marker = pathlib.Path(sys.argv[1])
+    ex = ProcessExecutor(1)
+    fut = ex.submit(big, str(marker), 200_000_000)
+    while not marker.exists():
+        time.sleep(0.01)
+    time.sleep(0.1)  # inside the write: 200 MB take about a second through the pipe here
+    ex.shutdown(cancel=True)
+    print("cancelled", flush=True)
+"""
+
+
+@pytest.mark.slow
+def test_cancel_while_a_worker_sends_its_result_does_not_hang_the_exit(tmp_path):
+    # A worker terminated halfway through writing its result left a partial message in the
+    # result pipe; the pool's manager thread waited for the rest and the interpreter, joining
+    # it at exit, hung (Ctrl-C in `analyze --jobs 2`). The workers are now terminated while the
+    # parent holds the result queue's write lock. Before the fix this script never exited.
+    script = tmp_path / "half_sent.py"
+    script.write_text(_HALF_SENT, encoding="utf-8")
+    t0 = time.monotonic()
+    res = subprocess.run(
+        [sys.executable, str(script), str(tmp_path / "sending")], capture_output=True, text=True, timeout=40
+    )
+    assert res.returncode == 0, res.stderr
+    assert res.stdout.strip() == "cancelled"
+    assert time.monotonic() - t0 < 30  # the bounded wait for a write in progress is 5 s
 
 
 @pytest.mark.slow

@@ -153,17 +153,44 @@ class ProcessExecutor:
 
     def shutdown(self, *, cancel: bool = False) -> None:
         if cancel:
-            # ProcessPoolExecutor has no public way to stop running work; its worker table is
-            # the documented-by-use way (CPython 3.8+) to terminate them without waiting.
-            procs = list((getattr(self._pool, "_processes", None) or {}).values())
-            self._pool.shutdown(wait=False, cancel_futures=True)
+            self._terminate()
+        else:
+            self._pool.shutdown(wait=True)
+
+    def _terminate(self) -> None:
+        """Drop pending work and terminate the workers, never one halfway through sending a result.
+
+        ProcessPoolExecutor has no public way to stop running work; its worker table is the
+        documented-by-use way (CPython 3.8+) to terminate them. A worker killed while it writes
+        its (pickled) result to the result pipe leaves a partial message there: the pool's
+        manager thread then waits for the rest for ever, and the interpreter, which joins that
+        thread at exit, hangs (seen on Ctrl-C in a 2-job batch). Every worker writes under the
+        result queue's write lock (``multiprocessing.SimpleQueue.put``), so the workers are
+        terminated while this process holds that lock, and the lock is released only once
+        they are gone. The wait for a write in progress is bounded (``_WRITE_WAIT_S``).
+        """
+        pool = self._pool
+        procs = list((getattr(pool, "_processes", None) or {}).values())
+        lock = getattr(getattr(pool, "_result_queue", None), "_wlock", None)
+        held = lock is not None and lock.acquire(timeout=_WRITE_WAIT_S)
+        try:
+            pool.shutdown(wait=False, cancel_futures=True)
             for p in procs:
                 try:
                     p.terminate()
                 except Exception:  # already gone
                     pass
-        else:
-            self._pool.shutdown(wait=True)
+            for p in procs:
+                p.join(timeout=_WRITE_WAIT_S)
+        finally:
+            if held and lock is not None:
+                lock.release()
+
+
+#: longest wait, s, for a worker's result write in progress before it is terminated anyway, and
+#: for a terminated worker to exit (a result of a few MB goes through a pipe in well under 1 s;
+#: common practice, no source)
+_WRITE_WAIT_S = 5.0
 
 
 def default_executor(max_workers: int, *, preload: Iterable[str] = ()) -> BatchExecutor:

@@ -168,7 +168,9 @@ Method = Annotated[str, _METHOD]
 MethodIfGiven = Annotated[Optional[str], _METHOD]
 Band = Annotated[
     Optional[list[str]],
-    typer.Option("--band", help="Analyse this band LOW:HIGH in Hz instead of searching (repeatable)."),
+    typer.Option(
+        "--band", metavar="LOW:HIGH", help="Analyse this band LOW:HIGH in Hz instead of searching (repeatable)."
+    ),
 ]
 MaxModes = Annotated[Optional[int], typer.Option("--max-modes", help="Keep at most this many modes (the strongest).")]
 _MIN_SNR = typer.Option("--min-snr-db", help="Fits end where a mode is this far above its band noise, dB.")

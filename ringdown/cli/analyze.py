@@ -204,8 +204,9 @@ def write_csv(analyses: Iterable[Analysis], path: str) -> None:
 Files = Annotated[
     list[str],
     typer.Argument(
+        metavar="FILE",
         help="Recordings (WAV/FLAC/OGG/CSV, TDMS, UFF 58, MAT, HDF5), folders "
-        "or glob patterns; '-' reads one recording from standard input."
+        "or glob patterns; '-' reads one recording from standard input.",
     ),
 ]
 CsvOut = Annotated[Optional[Path], typer.Option("--csv", help="Also write one CSV row per mode to this file.")]

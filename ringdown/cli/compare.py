@@ -147,13 +147,19 @@ def _write_report(comparison, out: Path, header: dict) -> None:
 Before = Annotated[
     list[str],
     typer.Option(
-        "--before", "-b", help="Recording(s) before the treatment (repeatable; file, folder or quoted pattern)."
+        "--before",
+        "-b",
+        metavar="FILE",
+        help="Recording(s) before the treatment (repeatable; file, folder or quoted pattern).",
     ),
 ]
 After = Annotated[
     list[str],
     typer.Option(
-        "--after", "-a", help="Recording(s) after the treatment (repeatable; file, folder or quoted pattern)."
+        "--after",
+        "-a",
+        metavar="FILE",
+        help="Recording(s) after the treatment (repeatable; file, folder or quoted pattern).",
     ),
 ]
 CsvOut = Annotated[Optional[Path], typer.Option("--csv", help="Also write one row per mode to this CSV file.")]

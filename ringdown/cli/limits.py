@@ -205,7 +205,7 @@ def _write_report(rows: list[dict], limits, path: str, options: dict, header: di
 
 
 LearnFiles = Annotated[
-    list[str], typer.Argument(help="Recordings of known-good parts (files, folders, glob patterns).")
+    list[str], typer.Argument(metavar="FILE", help="Recordings of known-good parts (files, folders, glob patterns).")
 ]
 LimitsOut = Annotated[str, typer.Option("-o", "--output", help="Limits file to write (TOML).")]
 Coverage = Annotated[float, typer.Option(help="Fraction of good parts each window must hold (ISO 16269-6).")]
@@ -214,7 +214,9 @@ Tolerance = Annotated[float, typer.Option(help="Relative distance for matching m
 NModes = Annotated[Optional[int], typer.Option("--modes", help="Use only the lowest N reference modes.")]
 Overwrite = Annotated[bool, typer.Option("--force", help="Overwrite an existing limits file.")]
 
-CheckFiles = Annotated[list[str], typer.Argument(help="Recordings of parts to check (files, folders, glob patterns).")]
+CheckFiles = Annotated[
+    list[str], typer.Argument(metavar="FILE", help="Recordings of parts to check (files, folders, glob patterns).")
+]
 LimitsIn = Annotated[str, typer.Option("--limits", "-l", help="Limits file (TOML).")]
 CheckCsv = Annotated[Optional[Path], typer.Option("--csv", help="Write one row per part to this CSV file.")]
 NoStore = Annotated[bool, typer.Option("--no-store", help="Do not write results to the database.")]
