@@ -818,9 +818,7 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
         warnings.append(Notice("short_decay", f"hit at {onset_s:.6g} s leaves {seg_end - decay_from} samples of decay"))
         return hit(False)
 
-    # the first sample of the free decay: the smoothed level's onset precedes it by up to half a
-    # smoothing width (a period of the dominant mode), and a band fit started there sees the
-    # band's silence before the decay and models the jump with poles of its own
+    # the free decay's first sample: the smoothed level's onset can precede it (see _hit_context)
     free_start = _free_decay_start(ctx, span, clip_end) if span.kind == "impulse" else max(span.onset, clip_end or 0)
     hctx = _hit_context(ctx, span, seg_start, prev_end, clip_end, earlier, free_start)
     rejected: list[Rejected] = []
@@ -920,7 +918,10 @@ def _hit_context(
     record held before the hit's rise (at least one smoothing width of it, after ``prev_end``),
     which bounds the amplitude any steady tone could have had there. Its ``onset_s`` is the later
     of the level's onset and ``free_start`` (index into ``ctx.x`` of the free decay's first
-    sample, :func:`_free_decay_start`), so that no band fit starts before the decay does."""
+    sample, :func:`_free_decay_start`), so that no band fit starts before the decay does: the
+    smoothed level's onset can precede it by up to half a smoothing width (a period of the
+    dominant mode), and a band fit started there saw the band's silence and fitted the jump
+    with poles of its own."""
     x, fs, i0 = ctx.x, ctx.fs, ctx.i0
     rise = span.rise if span.rise is not None else span.onset
     pre_x = x[prev_end : max(prev_end, rise - ctx.smoothing)]
@@ -1449,7 +1450,7 @@ def _raw_refits(hctx: _HitContext, start: int, modes: list[Mode]) -> list[Mode]:
             for q in ("f_d_hz", "beta_per_s")
         )
         biased = any(w.code == "filter_bias" for w in m.warnings)
-        if g.beta_per_s_u < m.beta_per_s_u and (agree or biased):
+        if (g.beta_per_s_u or math.inf) < m.beta_per_s_u and (agree or biased):
             out[i] = g
     return out
 

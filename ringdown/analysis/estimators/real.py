@@ -208,10 +208,7 @@ def estimate_real(
         out growing (beta <= 0; the message names them).
     """
     fs = float(sample_rate)
-    y, step = _thinned(seg, fs, duration_s)
-    averaged = _averaging_pays(poles[:n_targets], fs, step)
-    if averaged:
-        y, step = _thinned(seg, fs, duration_s, average=True)
+    y, step, averaged = _samples(seg, fs, duration_s, poles[:n_targets])
     k = len(poles)
     if y.shape[0] < 4 * k + 10:
         raise FitError(
@@ -242,15 +239,29 @@ def estimate_real(
             )
         )
     if not out:
-        grow = [
-            f"{omega[i] / (2 * math.pi):.6g} Hz (beta = {beta[i]:.3g} 1/s)" for i in range(n_targets) if beta[i] <= 0
-        ]
-        if grow:
-            raise FitError(
-                f"the fit of the record from {t0_s:.4g} s found {', '.join(grow)} growing, not decaying "
-                "(a steady tone, or a decay too slow for the window)"
-            )
+        _raise_if_growing(beta[:n_targets], omega[:n_targets], t0_s)
     return _unaliased(out, [p[0] for p in poles[:n_targets]], fs, step)
+
+
+def _samples(seg: np.ndarray, fs: float, duration_s: float, targets: list[tuple[float, float]]):
+    """The samples the fit uses: ``(y, step, averaged)`` from :func:`_thinned`, as block means
+    when that raises every target's SNR (:func:`_averaging_pays`; ``targets`` (f_hz, beta_per_s))."""
+    y, step = _thinned(seg, fs, duration_s)
+    averaged = _averaging_pays(targets, fs, step)
+    if averaged:
+        y, step = _thinned(seg, fs, duration_s, average=True)
+    return y, step, averaged
+
+
+def _raise_if_growing(beta: np.ndarray, omega: np.ndarray, t0_s: float) -> None:
+    """FitError naming the targets (decay rates 1/s, angular frequencies rad/s, (K,)) that the
+    fit found growing (beta <= 0), if any."""
+    grow = [f"{w / (2 * math.pi):.6g} Hz (beta = {b:.3g} 1/s)" for b, w in zip(beta, omega) if b <= 0]
+    if grow:
+        raise FitError(
+            f"the fit of the record from {t0_s:.4g} s found {', '.join(grow)} growing, not decaying "
+            "(a steady tone, or a decay too slow for the window)"
+        )
 
 
 def _unaliased(ests: list[Estimate], starts: list[float], fs: float, step: int) -> list[Estimate]:
