@@ -1441,7 +1441,8 @@ def _raw_refits(hctx: _HitContext, start: int, modes: list[Mode]) -> list[Mode]:
             got = _measure_raw(hctx, [c], [c] + _as_candidates(out[:i] + out[i + 1 :], res_hz), start)
         except FitError:
             continue
-        near = [g for g in got if _near(g, c) and g.beta_per_s_u is not None and g.f_d_hz_u is not None]
+        # a raw fit with a zero u (a degenerate covariance) is not credible: never taken
+        near = [g for g in got if _near(g, c) and g.beta_per_s_u and g.f_d_hz_u]
         if not near:
             continue
         g = min(near, key=lambda g: abs(g.f_d_hz - m.f_d_hz))
@@ -1450,7 +1451,7 @@ def _raw_refits(hctx: _HitContext, start: int, modes: list[Mode]) -> list[Mode]:
             for q in ("f_d_hz", "beta_per_s")
         )
         biased = any(w.code == "filter_bias" for w in m.warnings)
-        if (g.beta_per_s_u or math.inf) < m.beta_per_s_u and (agree or biased):
+        if (g.beta_per_s_u or math.inf) < m.beta_per_s_u and (agree or biased):  # 'or': typed for mypy
             out[i] = g
     return out
 

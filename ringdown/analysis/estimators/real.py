@@ -197,7 +197,8 @@ def estimate_real(
     Returns
     -------
     list of Estimate
-        One per target whose fit converged to a decaying mode, ``method="pencil"``; amplitudes
+        One per target whose fit converged to a decaying mode with a positive variance of its
+        frequency and decay rate, ``method="pencil"``; amplitudes
         refer to ``t0_s``; a frequency the thinned fit found as a mirror image is moved back to
         the alias nearest its starting value (:func:`_unaliased`).
 
@@ -221,6 +222,8 @@ def estimate_real(
     for i in range(n_targets):
         if not (beta[i] > 0 and omega[i] > 0 and omega[i] / (2 * math.pi) < fs / 2.0):
             continue
+        if not (cov[4 * i, 4 * i] > 0.0 and cov[4 * i + 1, 4 * i + 1] > 0.0):
+            continue  # a degenerate covariance: no credible uncertainty, not an estimate
         gain = abs(_boxcar_gain(complex(-beta[i], omega[i]), fs, step)) if averaged else 1.0
         out.append(
             Estimate(
