@@ -78,3 +78,16 @@ def test_a_mode_outside_every_tolerance_starts_its_own_combined_mode():
     weak = _hit([_mode(500.1, 0.002), _mode(900.0, 0.002)], peak_value=0.3, k=1)
     f = [m.f_d_hz for m in _combine_hits([strong, weak])]
     assert f == pytest.approx([500.05, 900.0, 1500.0], abs=1e-9)
+
+
+def test_lightly_damped_mode_is_not_taken_by_a_broad_neighbour():
+    # strongest hit: 67.77 Hz (zeta 5e-5) and 90.10 Hz (zeta 5.6 %: tolerance 3 beta/pi over f
+    # = 6 zeta = 0.33); the next hit only 67.80 Hz. In one pass with per-cluster tolerances,
+    # leaving the broad cluster unpaired costs ln(1.33) = 0.288 > |ln(67.80/90.10)| + ln(1.005)
+    # = 0.284 + 0.005 (hand-worked from match_frequencies' costs), so 67.80 went to 90.10.
+    # Within 0.5 % first, it pairs with 67.77 (|ln(67.80/67.77)| = 4e-4).
+    sharp, broad, again = _mode(67.77, 5e-5, 0.002), _mode(90.10, 0.056, 0.7), _mode(67.80, 5e-5, 0.013)
+    out = _combine_hits([_hit([sharp, broad], 1.0, 0), _hit([again], 0.5, 1)])
+    assert [m.n_hits for m in out] == [2, 1]
+    assert out[0].f_d_hz == pytest.approx(67.77, abs=0.01)
+    assert out[1].f_d_hz == pytest.approx(90.10)

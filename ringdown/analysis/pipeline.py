@@ -760,6 +760,14 @@ class _HitContext:
         a = math.hypot(float(coef[0]), float(coef[1]))
         return min(bound, a + 3.0 * sd) * margin
 
+    @property
+    def onset_lag_s(self) -> float:
+        """How much later than ``onset_s`` the decay may start, s: half the broadband level's
+        smoothing width, by which the level's onset can precede the first sample of the decay
+        (and :func:`_free_decay_start` cannot always find that sample: drift removal can leave
+        a curved offset of many noise sigma before the hit)."""
+        return 0.5 * self.record.smoothing / self.record.fs
+
     def rings_from_earlier(self, f_hz: float, width_hz: float = 0.0) -> bool:
         """Whether a component at ``f_hz`` is a mode an earlier hit excited: it was there before
         this hit because it still rings, not because it is a steady tone."""
@@ -810,14 +818,16 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
         warnings.append(Notice("short_decay", f"hit at {onset_s:.6g} s leaves {seg_end - decay_from} samples of decay"))
         return hit(False)
 
-    hctx = _hit_context(ctx, span, seg_start, prev_end, clip_end, earlier)
+    # the free decay's first sample: the smoothed level's onset can precede it (see _hit_context)
+    free_start = _free_decay_start(ctx, span, clip_end) if span.kind == "impulse" else max(span.onset, clip_end or 0)
+    hctx = _hit_context(ctx, span, seg_start, prev_end, clip_end, earlier, free_start)
     rejected: list[Rejected] = []
     cands: list[Candidate] = []
     start = decay_from
     if opts.bands is not None:
         groups: list[tuple[list[Peak], float, float, list[Candidate]]] = [([], lo, hi, []) for lo, hi in opts.bands]
     elif model:
-        start = _free_decay_start(ctx, span, clip_end) if span.kind == "impulse" else max(span.onset, clip_end or 0)
+        start = free_start
         cands, groups = _candidates(ctx, start, seg_end, rejected, parametric=clip_end is None, broad=clip_end is None)
     else:
         # spectral peaks of the decay as candidates: each one not reported as a mode is named
@@ -826,13 +836,14 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
     # fast decay can be gone by the broadband level's peak, one smoothing width on)
     resid_start = decay_from
     if span.kind == "impulse" and not model and opts.bands is None:
-        resid_start = min(decay_from, _free_decay_start(ctx, span, clip_end) + ctx.burst)
+        resid_start = min(decay_from, free_start + ctx.burst)
     residual = opts.bands is None and not model and hctx.seg_end - ctx.i0 - resid_start >= MIN_SAMPLES
     modes, failed, deferred, retry = _measure_groups(hctx, groups, cands, start, residual, warnings, rejected)
     if residual:
         # after clipping, the residual holds what the clipped samples did to the decay: no broad search
         tried = [c for c in cands if c not in deferred and c not in retry]
         modes = _with_residual(hctx, resid_start, modes, tried, deferred, retry, rejected, broad=clip_end is None)
+        modes = _raw_refits(hctx, resid_start, modes)
     modes = _drop_driven(modes, onset_s, warnings)
     if failed:
         shown = "; ".join(failed[:3]) + (f"; and {len(failed) - 3} more" if len(failed) > 3 else "")
@@ -901,11 +912,16 @@ def _hit_notices(ctx: _RecordContext, span, warnings: list[Notice]) -> tuple[boo
 
 
 def _hit_context(
-    ctx: _RecordContext, span, seg_start: int, prev_end: int, clip_end: int | None, earlier: tuple
+    ctx: _RecordContext, span, seg_start: int, prev_end: int, clip_end: int | None, earlier: tuple, free_start: int
 ) -> _HitContext:
     """The context of one hit whose segment is ``ctx.x[seg_start:span.end]``, with what the
     record held before the hit's rise (at least one smoothing width of it, after ``prev_end``),
-    which bounds the amplitude any steady tone could have had there."""
+    which bounds the amplitude any steady tone could have had there. Its ``onset_s`` is the later
+    of the level's onset and ``free_start`` (index into ``ctx.x`` of the free decay's first
+    sample, :func:`_free_decay_start`), so that no band fit starts before the decay does: the
+    smoothed level's onset can precede it by up to half a smoothing width (a period of the
+    dominant mode), and a band fit started there saw the band's silence and fitted the jump
+    with poles of its own."""
     x, fs, i0 = ctx.x, ctx.fs, ctx.i0
     rise = span.rise if span.rise is not None else span.onset
     pre_x = x[prev_end : max(prev_end, rise - ctx.smoothing)]
@@ -915,7 +931,7 @@ def _hit_context(
     return _HitContext(
         record=ctx,
         spec=spectrum_of(x[seg_start : span.end], fs, t0_s=(seg_start + i0) / fs),
-        onset_s=(span.onset + i0) / fs,
+        onset_s=(max(span.onset, free_start) + i0) / fs,
         clip_end=None if clip_end is None else clip_end + i0,
         seg_end=span.end + i0,
         pre_rms=pre_rms,
@@ -945,12 +961,13 @@ def _measure_groups(
     retry: list[Candidate] = []
     for peaks_g, lo, hi, group_cands in groups:
         n_warn = len(warnings)
-        if residual and _needs_raw_fit(group_cands, lo, hi):
+        raw = _needs_raw_fit(group_cands, lo, hi)
+        if residual and raw:
             # too broad for a band: fitted on the residual, once every other mode is subtracted
             deferred.extend(group_cands)
             continue
         try:
-            if _needs_raw_fit(group_cands, lo, hi):
+            if raw:
                 found = _measure_raw(hctx, group_cands, cands, start)
             else:
                 found = _measure_group(hctx, peaks_g, lo, hi, warnings)
@@ -1292,26 +1309,34 @@ START_SIGMAS = 5.0
 
 def _free_decay_start(ctx: _RecordContext, span, clip_end: int | None) -> int:
     """First sample of the free decay: the first sample near the onset that stands
-    ``START_SIGMAS`` noise standard deviations away from the level before it (the smoothed
-    level's onset can precede it
-    by half its smoothing), and never inside the clipping."""
+    ``START_SIGMAS`` noise standard deviations away from both a linear and a quadratic trend
+    of the samples before it (the smoothed level's onset can precede it by half its
+    smoothing), and never inside the clipping."""
     x = ctx.x
     sigma = math.sqrt(max(float(np.sum(ctx.noise_p[1:])) * float(ctx.noise_f[1] - ctx.noise_f[0]), 1e-300))
     lo = max(0, span.onset - max(span.peak - span.onset, 1))
     hi = max(span.peak, span.onset + 1)
     # relative to the trend just before: drift removal over the whole record can leave a local
-    # offset and slope of a few sigma before the hit (in a quiet, quantised pre-trigger the
-    # noise sigma is far below what drift removal leaves); the scatter about that trend bounds
-    # sigma from below
+    # offset, slope and curvature of many sigma before the hit (in a quiet, quantised
+    # pre-trigger the noise sigma is far below what drift removal leaves; a strong low mode
+    # bends the fitted drift). A sample starts the decay only when it departs from both a
+    # straight-line and a quadratic trend of the samples before (a departure that one smooth
+    # drift explains is not the decay: a line misses a curvature, whose error is largest at
+    # the end of the samples fitted; a quadratic extrapolated far swings away); the scatter
+    # about each trend bounds sigma from below
     b0 = max(0, lo - 4 * (hi - lo) - 16)
     before = x[b0:lo]
-    base: np.ndarray | float = 0.0
+    loud_at = np.abs(x[lo : hi + 1]) > START_SIGMAS * sigma
     if before.size >= 8:
-        u = np.arange(b0, lo, dtype=np.float64)
-        slope, icept = np.polyfit(u, before, 1)
-        sigma = max(sigma, float(np.std(before - (slope * u + icept))))
-        base = slope * np.arange(lo, hi + 1, dtype=np.float64) + icept
-    loud = np.flatnonzero(np.abs(x[lo : hi + 1] - base) > START_SIGMAS * sigma)
+        loud_at[:] = True
+        scale = max(lo - b0, 1)
+        u = (np.arange(b0, lo, dtype=np.float64) - lo) / scale
+        u_test = np.arange(0, hi - lo + 1, dtype=np.float64) / scale
+        for degree in (1, 2):
+            coef = np.polyfit(u, before, degree)
+            s_k = max(sigma, float(np.std(before - np.polyval(coef, u))))
+            loud_at &= np.abs(x[lo : hi + 1] - np.polyval(coef, u_test)) > START_SIGMAS * s_k
+    loud = np.flatnonzero(loud_at)
     start = lo + int(loud[0]) if loud.size else span.onset
     return max(start, clip_end or 0)
 
@@ -1385,6 +1410,55 @@ def _needs_raw_fit(cands: list[Candidate], lo: float, hi: float) -> bool:
     return any(
         c.beta_per_s is not None and min(c.f_hz - lo, hi - c.f_hz) < RAW_MARGIN_WIDTHS * c.width_hz for c in cands
     )
+
+
+def _raw_refits(hctx: _HitContext, start: int, modes: list[Mode]) -> list[Mode]:
+    """``modes`` with each band fit that started too late for its decay refitted on the record.
+
+    A band fit starts once its Gaussian mask has settled after the onset, which costs a factor
+    ``exp(beta * delay)`` in standard deviation against a fit from the decay's first sample
+    (``delay`` from ``start``, index into the record's samples, to the fit's start;
+    ``estimators/pencil.py``, "Choosing the band"). A band narrowed by DC or a neighbour
+    settles slowly, and a heavily damped mode in it has lost most of its decay by then. Past a
+    factor ``SETTLING_COST`` the mode is fitted on the record from ``start``
+    (:func:`_measure_raw`, the other measured modes carried or subtracted), and the raw fit
+    replaces the band fit when it lies at the same mode (within half its half-power width or
+    three standard uncertainties) and is more precise in beta, and either agrees with the band
+    fit within 3 combined standard uncertainties in f_d and beta or the band fit carries
+    ``filter_bias`` (a band narrower than the mode, whose decay rate is known to be biased).
+    Returns a new list."""
+    ctx = hctx.record
+    t_start = (start + ctx.i0) / ctx.fs
+    res_hz = ctx.fs / max(hctx.seg_end - ctx.i0 - start, 1)
+    out = list(modes)
+    for i, m in enumerate(modes):
+        if m.fit_path != "band" or m.fit_start_s is None or not m.beta_per_s_u or not m.f_d_hz_u:
+            continue
+        if m.beta_per_s * (m.fit_start_s - t_start) <= math.log(SETTLING_COST):
+            continue
+        (c,) = _as_candidates([m], res_hz)
+        try:
+            got = _measure_raw(hctx, [c], [c] + _as_candidates(out[:i] + out[i + 1 :], res_hz), start)
+        except FitError:
+            continue
+        # a raw fit with a zero u (a degenerate covariance) is not credible: never taken
+        near = [g for g in got if _near(g, c) and g.beta_per_s_u and g.f_d_hz_u]
+        if not near:
+            continue
+        g = min(near, key=lambda g: abs(g.f_d_hz - m.f_d_hz))
+        agree = all(
+            abs(getattr(g, q) - getattr(m, q)) <= 3.0 * math.hypot(getattr(g, q + "_u"), getattr(m, q + "_u"))
+            for q in ("f_d_hz", "beta_per_s")
+        )
+        biased = any(w.code == "filter_bias" for w in m.warnings)
+        if (g.beta_per_s_u or math.inf) < m.beta_per_s_u and (agree or biased):  # 'or': typed for mypy
+            out[i] = g
+    return out
+
+
+#: Largest factor on a band fit's standard uncertainty that its filter's settling may cost before
+#: the record itself is fitted instead (common practice, no source).
+SETTLING_COST = 2.0
 
 
 def _near(m: Mode, c: Candidate, k: float = 0.5) -> bool:
@@ -1587,8 +1661,21 @@ def _make_raw_mode(est: Estimate, noise_rms: float, seg: np.ndarray, fs: float, 
 
 
 def _window_for(
-    band: Band, onset_s: float, clip_end, seg_end: int, fs: float, min_snr_db: float, beta_hint: float = 0.0
+    band: Band,
+    onset_s: float,
+    clip_end,
+    seg_end: int,
+    fs: float,
+    min_snr_db: float,
+    beta_hint: float = 0.0,
+    lag_s: float = 0.0,
 ) -> Window:
+    """The fit window of one band: from ``onset_s`` (s) plus the filter's settling time (and
+    after clipping, ``clip_end`` a sample index), never before the band envelope's maximum
+    within ``lag_s`` (s, how much later than ``onset_s`` the decay may start) plus the settling
+    time after the onset, to where the smoothed envelope falls to ``min_snr_db`` above the band
+    noise (``end_s``) and to the noise itself (``model_end_s``), before ``seg_end`` (a sample
+    index at rate ``fs``). Raises :class:`FitError` when fewer than 5 samples remain."""
     env = np.abs(band.z)
     if band.noise_rms is None:
         raise FitError("band noise level unknown")
@@ -1602,8 +1689,11 @@ def _window_for(
     if clip_end is not None:
         start = max(start, clip_end / fs + settle)
     i0 = band.index_of(start)
-    # never before the band envelope's own maximum after the onset
-    i_pk = i_on + int(np.argmax(env[i_on : max(i0 + 1, i_on + 1)]))
+    # never before the band envelope's own maximum after the onset: the decay may start up to
+    # lag_s after onset_s, and a window started while the band is still quiet ends at once
+    # (or, fitted, models the jump with poles of its own)
+    i_late = max(i0, band.index_of(start + lag_s)) + 1
+    i_pk = i_on + int(np.argmax(env[i_on : max(i_late, i_on + 1)]))
     i0 = max(i0, i_pk)
     i_last = band.index_of(seg_end / fs - settle)
     thr = band.noise_rms * 10 ** (min_snr_db / 20.0)
@@ -1647,10 +1737,11 @@ def _measure_group(
     beta_hint = max((math.pi * p.width_hz for p in peaks_g), default=0.0)
     if _steady_group(hctx, group_band, peaks_g, beta_hint, hit_warnings):
         return []
-    group_window = _window_for(group_band, onset_s, clip_end, seg_end, fs, opts.min_snr_db, beta_hint)
+    group_window = _window_for(group_band, onset_s, clip_end, seg_end, fs, opts.min_snr_db, beta_hint, hctx.onset_lag_s)
     subs = _sub_bands(hctx, peaks_g, lo, hi, beta_hint) if len(peaks_g) > 1 else [(group_band, group_window)]
     cross: list[tuple[float, dict[str, Estimate], Band, Window]] = []
     joint: list[Estimate] | None = None  # every mode a multi-mode method found in the group band
+    why = ""  # what the primary method said when it found nothing
     for sb, sw in subs:
         found: dict[str, Estimate] = {}
         for name, fn in ESTIMATORS.items():
@@ -1658,7 +1749,8 @@ def _measure_group(
                 continue  # run once on the whole group below
             try:
                 ests = fn(sb, sw)
-            except FitError:
+            except FitError as exc:
+                why = str(exc) if name == primary else why
                 continue
             if ests:
                 centre = 0.5 * (sb.f_lo_hz + sb.f_hi_hz)
@@ -1691,7 +1783,7 @@ def _measure_group(
                 )
             )
     if not primaries:
-        raise FitError("no estimator found a decaying mode in the band")
+        raise FitError("no estimator found a decaying mode in the band" + (f" ({why})" if why else ""))
     return _group_modes(hctx, primaries, cross, extra, len(peaks_g) <= 1, hit_warnings)
 
 
@@ -1730,7 +1822,9 @@ def _sub_bands(
     for a, b in zip(edges, edges[1:]):
         sb = _extract(hctx.spec, a, b, ctx.noise_f, ctx.noise_p)
         try:
-            window = _window_for(sb, hctx.onset_s, hctx.clip_end, hctx.seg_end, ctx.fs, ctx.opts.min_snr_db, beta_hint)
+            window = _window_for(
+                sb, hctx.onset_s, hctx.clip_end, hctx.seg_end, ctx.fs, ctx.opts.min_snr_db, beta_hint, hctx.onset_lag_s
+            )
         except FitError:
             continue
         subs.append((sb, window))
@@ -1748,10 +1842,13 @@ def _group_modes(
     """The modes of a group's primary estimates (with the cross-checks of the nearest
     sub-band); steady tones are named in ``hit_warnings`` and left out, components that started
     with the hit but whose decay is unresolved are kept with ``decay_unresolved``; a ``single``
-    mode's band is tested for amplitude dependence."""
+    mode's band is tested for amplitude dependence. An envelope fit standing in for a pencil fit
+    that found nothing is left out when its decay is not resolved (:func:`_unresolved_fallback`);
+    when that leaves no mode, :class:`FitError` says why (the caller names the candidates)."""
     seg_end = hctx.seg_end
     fs = hctx.record.fs
     modes = []
+    unresolved_fits: list[str] = []
     for est, band, window in primaries:
         if not cross:
             others, sb, sw = {}, band, window
@@ -1771,11 +1868,30 @@ def _group_modes(
                 )
                 continue
             unresolved_decay.append(_decay_unresolved(est))
+        elif _unresolved_fallback(est, extra):
+            unresolved_fits.append(
+                f"the envelope fit at {est.f_d_hz:.1f} Hz (the pencil found no decaying mode in its "
+                f"band) gives beta = {est.beta_per_s:.3g} +- {est.beta_per_s_u or float('nan'):.2g} 1/s: "
+                "a decay not resolved from the noise, not a measured mode"
+            )
+            continue
         mode = _make_mode(est, others, band, window, extra + unresolved_decay)
         if single:
             mode = _amplitude_dependence(mode, sb, sw)
         modes.append(mode)
+    if unresolved_fits and not modes:
+        raise FitError("; ".join(unresolved_fits))
     return modes
+
+
+def _unresolved_fallback(est: Estimate, extra: list[Notice]) -> bool:
+    """Whether ``est`` is the envelope fit reported in place of a parametric fit that found
+    nothing (a ``fallback_method`` notice in ``extra``) and its decay is not resolved (beta
+    within 3 standard uncertainties of 0, as ``_resolved_raw`` asks of a raw fit): with no
+    parametric fit to confirm it and no decay, nothing shows that the band held a mode (a
+    component that does not decay is judged before this, by ``_is_stationary``)."""
+    fallback = any(n.code == "fallback_method" for n in extra)
+    return fallback and not (est.beta_per_s > 3.0 * (est.beta_per_s_u or math.inf))
 
 
 def _started_with_hit(est: Estimate, pre_bound: float | None) -> bool:
@@ -2129,8 +2245,9 @@ def _combine_hits(hits: Sequence[Hit]) -> list[Mode]:
     Modes of different hits are the same mode when their frequencies differ by less than
     ``max(0.5 %, 3 beta / pi)`` of the first one's (common practice, no source). The strongest
     hit's modes start the clusters; each other hit's modes are paired with them by
-    :func:`ringdown.base.matching.match_frequencies` (in order, closest first), so a cluster
-    never takes two modes of one hit; a mode left unpaired starts a cluster of its own. The
+    :func:`ringdown.base.matching.match_frequencies` (in order, closest first), first within
+    0.5 %, then the rest within the wider tolerance, so a cluster never takes two modes of one
+    hit; a mode left unpaired starts a cluster of its own. The
     combined frequency and decay rate are inverse-variance weighted means; their uncertainty is
     the internal one scaled by the Birge ratio ``sqrt(chi2 / (n - 1))`` when that exceeds 1,
     which folds the between-hit scatter in (R. T. Birge, Phys. Rev. 40, 207, 1932).
@@ -2144,8 +2261,17 @@ def _combine_hits(hits: Sequence[Hit]) -> list[Mode]:
             continue
         clusters.sort(key=lambda c: c[0].f_d_hz)
         ms = sorted(h.modes, key=lambda m: m.f_d_hz)
-        tol = [max(0.005, 3 * c[0].beta_per_s / (math.pi * c[0].f_d_hz)) for c in clusters]
-        pairs = match_frequencies([c[0].f_d_hz for c in clusters], [m.f_d_hz for m in ms], tolerance=tol)
+        fc = [c[0].f_d_hz for c in clusters]
+        # first within 0.5 %, then what is left within the wider tolerance of a broad mode: in
+        # one pass, leaving a broad cluster unpaired costs the matcher its wide tolerance, so it
+        # took a lightly damped mode of the next hit from the lightly damped cluster beside it
+        pairs = match_frequencies(fc, [m.f_d_hz for m in ms], tolerance=0.005)
+        left_c = [i for i in range(len(clusters)) if i not in {i for i, _ in pairs}]
+        left_m = [j for j in range(len(ms)) if j not in {j for _, j in pairs}]
+        if left_c and left_m:
+            tol = [max(0.005, 3 * clusters[i][0].beta_per_s / (math.pi * fc[i])) for i in left_c]
+            more = match_frequencies([fc[i] for i in left_c], [ms[j].f_d_hz for j in left_m], tolerance=tol)
+            pairs = pairs + [(left_c[a], left_m[b]) for a, b in more]
         for i, j in pairs:
             clusters[i].append(ms[j])
         paired = {j for _, j in pairs}

@@ -155,6 +155,21 @@ def _pencil(zd: np.ndarray, fs: float, noise_var: float | None, g: float) -> np.
     return np.log(zk) * fs
 
 
+def _growing(poles: np.ndarray, band: Band) -> str:
+    """``"; the pole(s) ... grow ..."`` naming the poles of ``poles`` (1/s, baseband) inside
+    the band that grow (beta <= 0), or ``"; check the band and the window"`` when none does."""
+    grow = [
+        (band.f_shift_hz + p.imag / (2.0 * np.pi), -p.real)
+        for p in poles
+        if -p.real <= 0.0
+        and band.f_lo_hz - band.skirt_hz <= band.f_shift_hz + p.imag / (2.0 * np.pi) <= band.f_hi_hz + band.skirt_hz
+    ]
+    if not grow:
+        return "; check the band and the window"
+    shown = ", ".join(f"{f:.6g} Hz (beta = {b:.3g} 1/s)" for f, b in grow[:3])
+    return f"; the fitted pole(s) at {shown} grow, not decay (a steady tone, or a decay too slow for the window)"
+
+
 def _keep_pole(p: complex, band: Band, f_hi_cap: float) -> bool:
     beta = -p.real
     f = band.f_shift_hz + p.imag / (2.0 * np.pi)
@@ -327,11 +342,11 @@ def estimate(band: Band, window: Window) -> list[Estimate]:
     r_acf, g = _noise_acf(band, fs, n)
     noise_var = None if band.noise_rms is None else float(band.noise_rms) ** 2
 
-    poles = _pencil(zd, fs, noise_var, g)
-    poles = np.array([p for p in poles if _keep_pole(p, band, band.width_hz)], dtype=complex)
+    found = _pencil(zd, fs, noise_var, g)
+    poles = np.array([p for p in found if _keep_pole(p, band, band.width_hz)], dtype=complex)
     poles = poles[: max(n // MIN_SAMPLES_PER_MODE, 1)]
     if poles.size == 0:
-        raise FitError(f"{where}: no decaying mode above the noise inside the band; check the band and the window")
+        raise FitError(f"{where}: no decaying mode above the noise inside the band{_growing(found, band)}")
     poles_f, c, converged, cov, resid, cond = _refine(zd, t, poles, band, r_acf, g, where)
 
     t_span = t[-1] if n > 1 else 1.0 / fs

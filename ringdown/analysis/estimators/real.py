@@ -14,10 +14,17 @@ plus a constant and a straight line (what the record's drift removal leaves over
 for the target modes and every other mode that carries energy in the same window (nuisance
 modes, fitted jointly and not reported from here). The linear amplitudes are solved inside the
 nonlinear least squares (variable projection, Golub & Pereyra 1973 [from memory]), started from
-the candidates' poles. A long window is thinned by keeping every ``D``-th sample (``D`` the
-smallest that keeps at most ``MAX_SAMPLES``): a pole maps to ``exp(p D / fs)`` whatever its
-frequency, so aliasing moves no parameter, and the noise covariance follows from the measured
-noise spectrum.
+the candidates' poles. A long window is thinned to every ``D``-th sample (``D`` the smallest
+that keeps at most ``MAX_SAMPLES``): a pole maps to ``exp(p D / fs)`` whatever its frequency, so
+aliasing moves no parameter, and the noise covariance follows from the measured noise spectrum.
+When every target lies low enough for it, each kept sample is the mean of the ``D`` samples it
+starts (a boxcar before the thinning, :func:`_thinned`): a finite filter leaves every pole where
+it is and multiplies a mode's complex amplitude by ``G(p) = (1/D) sum_k exp(p k / fs)``
+[derived], so the model is unchanged, while white noise falls by ``D`` in variance (keeping one
+sample in ``D`` loses ``sqrt(D)`` in standard deviation against the Cramer-Rao bound) and the
+components the fit does not model (a mode too broad or too weak to be found, the leftover of
+one subtracted with a slightly wrong pole) alias onto the targets attenuated by the boxcar's
+response.
 
 Covariance (Kay 1993, ch. 8 [from memory]): ``A^-1 B A^-1`` with ``A = J^T J``,
 ``B = J^T R J``, ``R`` the noise covariance of the thinned samples from the measured noise
@@ -37,6 +44,7 @@ from ..results import Estimate
 
 scipy_linalg = lazy_module("scipy.linalg")
 scipy_optimize = lazy_module("scipy.optimize")
+scipy_stats = lazy_module("scipy.stats")
 
 __all__ = ["estimate_real", "MAX_SAMPLES"]
 
@@ -137,12 +145,18 @@ class _RealProjection:
         return -(pv + y)
 
 
-def _noise_acf(noise_f: np.ndarray, noise_p: np.ndarray, fs: float, step: int, n: int) -> np.ndarray:
+def _noise_acf(
+    noise_f: np.ndarray, noise_p: np.ndarray, fs: float, step: int, n: int, *, averaged: bool = False
+) -> np.ndarray:
     """Autocorrelation of the noise at lags ``0, step, 2 step, ...`` (n lags) samples at rate
-    ``fs``, normalised to 1 at lag 0, from the one-sided PSD (Wiener-Khinchin)."""
+    ``fs``, normalised to 1 at lag 0, from the one-sided PSD (Wiener-Khinchin); ``averaged``:
+    of the means of ``step`` consecutive samples (the PSD times the boxcar's power response
+    ``|sin(pi f D / fs) / (D sin(pi f / fs))|^2``)."""
     m = 1 << int(math.ceil(math.log2(max(4 * n * step, 1024))))
     f = np.fft.rfftfreq(m, 1.0 / fs)
     s = np.interp(f, noise_f[1:], noise_p[1:])
+    if averaged and step > 1:
+        s = s * _boxcar_power(f, fs, step)
     r = np.fft.irfft(s, m)
     lags = np.arange(n) * step
     lags = lags[lags < m // 2]
@@ -183,17 +197,19 @@ def estimate_real(
     Returns
     -------
     list of Estimate
-        One per target whose fit converged to a decaying mode, ``method="pencil"``; amplitudes
+        One per target whose fit converged to a decaying mode with a positive variance of its
+        frequency and decay rate, ``method="pencil"``; amplitudes
         refer to ``t0_s``; a frequency the thinned fit found as a mirror image is moved back to
         the alias nearest its starting value (:func:`_unaliased`).
 
     Raises
     ------
     FitError
-        Too few samples for the number of modes, or the least squares failed.
+        Too few samples for the number of modes, the least squares failed, or every target came
+        out growing (beta <= 0; the message names them).
     """
     fs = float(sample_rate)
-    y, step = _thinned(seg, fs, duration_s)
+    y, step, averaged = _samples(seg, fs, duration_s, poles[:n_targets])
     k = len(poles)
     if y.shape[0] < 4 * k + 10:
         raise FitError(
@@ -201,11 +217,14 @@ def estimate_real(
         )
     beta, omega, c, converged = _fit(y, step / fs, poles, t0_s)
     t = np.arange(y.shape[0]) * (step / fs)
-    cov, s2 = _covariance(y, t, beta, omega, c, _noise_acf(noise_f, noise_p, fs, step, y.shape[0]))
+    cov, s2 = _covariance(y, t, beta, omega, c, _noise_acf(noise_f, noise_p, fs, step, y.shape[0], averaged=averaged))
     out = []
     for i in range(n_targets):
         if not (beta[i] > 0 and omega[i] > 0 and omega[i] / (2 * math.pi) < fs / 2.0):
             continue
+        if not (cov[4 * i, 4 * i] > 0.0 and cov[4 * i + 1, 4 * i + 1] > 0.0):
+            continue  # a degenerate covariance: no credible uncertainty, not an estimate
+        gain = abs(_boxcar_gain(complex(-beta[i], omega[i]), fs, step)) if averaged else 1.0
         out.append(
             Estimate(
                 method="pencil",
@@ -214,7 +233,7 @@ def estimate_real(
                 beta_per_s=float(beta[i]),
                 beta_per_s_u=float(math.sqrt(max(cov[4 * i, 4 * i], 0.0))),
                 cov_f_beta=float(cov[4 * i, 4 * i + 1]),
-                amplitude=float(math.hypot(c[i], c[k + i])),
+                amplitude=float(math.hypot(c[i], c[k + i]) / max(gain, 1e-300)),
                 fit_start_s=float(t0_s),
                 fit_end_s=float(t0_s + t[-1]),
                 n_points=int(y.shape[0]),
@@ -222,7 +241,30 @@ def estimate_real(
                 converged=converged,
             )
         )
+    if not out:
+        _raise_if_growing(beta[:n_targets], omega[:n_targets], t0_s)
     return _unaliased(out, [p[0] for p in poles[:n_targets]], fs, step)
+
+
+def _samples(seg: np.ndarray, fs: float, duration_s: float, targets: list[tuple[float, float]]):
+    """The samples the fit uses: ``(y, step, averaged)`` from :func:`_thinned`, as block means
+    when that raises every target's SNR (:func:`_averaging_pays`; ``targets`` (f_hz, beta_per_s))."""
+    y, step = _thinned(seg, fs, duration_s)
+    averaged = _averaging_pays(targets, fs, step)
+    if averaged:
+        y, step = _thinned(seg, fs, duration_s, average=True)
+    return y, step, averaged
+
+
+def _raise_if_growing(beta: np.ndarray, omega: np.ndarray, t0_s: float) -> None:
+    """FitError naming the targets (decay rates 1/s, angular frequencies rad/s, (K,)) that the
+    fit found growing (beta <= 0), if any."""
+    grow = [f"{w / (2 * math.pi):.6g} Hz (beta = {b:.3g} 1/s)" for b, w in zip(beta, omega) if b <= 0]
+    if grow:
+        raise FitError(
+            f"the fit of the record from {t0_s:.4g} s found {', '.join(grow)} growing, not decaying "
+            "(a steady tone, or a decay too slow for the window)"
+        )
 
 
 def _unaliased(ests: list[Estimate], starts: list[float], fs: float, step: int) -> list[Estimate]:
@@ -248,13 +290,48 @@ def _unaliased(ests: list[Estimate], starts: list[float], fs: float, step: int) 
     return out
 
 
-def _thinned(seg: np.ndarray, fs: float, duration_s: float) -> tuple[np.ndarray, int]:
+def _thinned(seg: np.ndarray, fs: float, duration_s: float, *, average: bool = False) -> tuple[np.ndarray, int]:
     """The first ``duration_s`` of ``seg`` (sample rate ``fs``, Hz) as float64, keeping every
-    ``step``-th sample, ``step`` the smallest that leaves at most :data:`MAX_SAMPLES`; returns
-    ``(y, step)``, ``y`` of shape (n,)."""
+    ``step``-th sample, ``step`` the smallest that leaves at most :data:`MAX_SAMPLES`; with
+    ``average``, each kept sample is the mean of the ``step`` samples from it on (the last block
+    only when complete). Returns ``(y, step)``, ``y`` of shape (n,)."""
     n_full = min(seg.shape[0], max(int(round(duration_s * fs)), 1))
     step = max(1, int(math.ceil(n_full / MAX_SAMPLES)))
-    return np.asarray(seg[:n_full:step], dtype=np.float64), step
+    if not average or step == 1:
+        return np.asarray(seg[:n_full:step], dtype=np.float64), step
+    n_blocks = min(int(math.ceil(n_full / step)), seg.shape[0] // step)
+    blocks = np.asarray(seg[: n_blocks * step], dtype=np.float64).reshape(n_blocks, step)
+    return blocks.mean(axis=1), step
+
+
+def _boxcar_gain(p: complex, fs: float, step: int) -> complex:
+    """``G(p) = (1/D) sum_{k<D} exp(p k / fs)``: the mean of ``D = step`` consecutive samples of
+    ``exp(p t)`` over its first sample (``p`` in 1/s, complex) [derived: geometric series]."""
+    z = np.exp(p / fs)
+    if abs(z - 1.0) < 1e-12:
+        return complex(1.0)
+    return complex((1.0 - z**step) / (step * (1.0 - z)))
+
+
+def _boxcar_power(f: np.ndarray, fs: float, step: int) -> np.ndarray:
+    """``|G(i 2 pi f)|^2`` of :func:`_boxcar_gain` at the frequencies ``f`` (Hz): the power
+    response of the mean of ``step`` samples, ``(sin(pi f D / fs) / (D sin(pi f / fs)))^2``."""
+    x = np.pi * np.asarray(f, dtype=np.float64) / fs
+    den = step * np.sin(x)
+    out = np.ones_like(x)
+    ok = np.abs(den) > 1e-12
+    out[ok] = (np.sin(step * x[ok]) / den[ok]) ** 2
+    return out
+
+
+def _averaging_pays(targets: list[tuple[float, float]], fs: float, step: int) -> bool:
+    """Whether the boxcar mean of ``step`` samples raises every target's signal-to-noise ratio
+    in white noise over keeping one sample in ``step``: the mean scales the amplitude by
+    ``|G(p)|`` and the noise variance by ``1 / D``, so it pays when ``D |G(p)|^2 > 1`` for each
+    target pole ``p = -beta + i 2 pi f`` (``targets``: (f_hz, beta_per_s) each)."""
+    if step <= 1 or not targets:
+        return False
+    return all(step * abs(_boxcar_gain(complex(-b, 2.0 * math.pi * f), fs, step)) ** 2 > 1.0 for f, b in targets)
 
 
 def _fit(y: np.ndarray, dt: float, poles: list[tuple[float, float]], t0_s: float):
@@ -294,13 +371,62 @@ def _fit(y: np.ndarray, dt: float, poles: list[tuple[float, float]], t0_s: float
     return beta, omega, c, ier in (1, 2, 3, 4)  # MINPACK's codes of convergence
 
 
+#: Independent periodogram bins the residual's spectrum is averaged over (chi-square with twice
+#: as many degrees of freedom; common practice, no source).
+EXCESS_BINS = 9
+#: Chance that noise alone gives a significant excess anywhere in one fit's residual spectrum
+#: (the threshold is corrected for the number of independent averages looked at).
+EXCESS_FALSE_ALARM = 0.01
+
+
+def _residual_excess_acf(r: np.ndarray, model_acf: np.ndarray, dof: int) -> np.ndarray | None:
+    """Autocovariance (n lags) of the part of the residual ``r`` (n,) that the noise model of
+    autocovariance ``model_acf`` (n,) does not explain, or None where there is none.
+
+    Both spectra are taken on the same grid (2n points and more): the residual's periodogram
+    ``|FFT r|^2 / n`` and its expectation under the model, ``sum_k (1 - |k|/n) R(k) e^{-i w k}``
+    (Bartlett-weighted: exact for the periodogram's mean), each averaged over ``EXCESS_BINS``
+    independent bins. Where the averaged periodogram exceeds the model by more than the
+    chi-square quantile of ``2 EXCESS_BINS`` degrees of freedom at ``1 - EXCESS_FALSE_ALARM``
+    divided by the number of independent averages (a per-fit family-wise false alarm), the
+    difference is kept; its inverse transform is returned (Wiener-Khinchin)."""
+    n = r.shape[0]
+    if n < 4 * EXCESS_BINS or dof < 4 * EXCESS_BINS:
+        return None
+    m = 1 << int(math.ceil(math.log2(2 * n)))
+    per_bin = m / n  # grid points per independent periodogram bin
+    lags = np.arange(n)
+    taper = model_acf * (1.0 - lags / n)
+    seq = np.zeros(m)
+    seq[:n] = taper
+    seq[m - n + 1 :] = taper[1:][::-1]
+    s_model = np.maximum(np.real(np.fft.rfft(seq)), 0.0)
+    s_resid = np.abs(np.fft.rfft(r, m)) ** 2 / n
+    width = max(int(round(EXCESS_BINS * per_bin)), 1)
+    kernel = np.ones(width) / width
+    p_avg = np.convolve(s_resid, kernel, mode="same")
+    m_avg = np.convolve(s_model, kernel, mode="same")
+    looks = max(n / (2.0 * EXCESS_BINS), 1.0)
+    q = float(scipy_stats.chi2.ppf(1.0 - EXCESS_FALSE_ALARM / looks, 2 * EXCESS_BINS)) / (2 * EXCESS_BINS)
+    excess = np.where(p_avg > q * m_avg, p_avg - m_avg, 0.0)
+    if not np.any(excess > 0.0):
+        return None
+    return np.fft.irfft(excess, m)[:n]
+
+
 def _covariance(y, t, beta, omega, c, acf) -> tuple[np.ndarray, float]:
     """Covariance and residual variance of the fit: returns ``(cov, s2)``.
 
     ``cov`` (4K + 2, 4K + 2) is ordered (beta_k 1/s, f_k Hz, a_k, b_k) per mode, then the constant
     and the line; sandwich form ``A^-1 B A^-1`` with ``A = J^T J`` and ``B = s2 J^T R J`` for
     noise of normalised autocorrelation ``acf`` (n,) at the thinned lags (Kay 1993, ch. 8 [from
-    memory]). ``y``, ``t`` (n,); ``beta``, ``omega`` (K,); ``c`` (2K + 2,) as from :func:`_fit`.
+    memory]), plus ``J^T R_x J`` for the part of the residual's spectrum that stands
+    significantly above that noise (:func:`_residual_excess_acf`): what the model leaves out (a
+    neighbour not found, a mode subtracted with a slightly wrong pole) acts on the estimates as
+    noise of its own spectrum would, and the variance of a frequency estimate follows the
+    noise density at that frequency (Hannan 1973 [from memory]), so the residual's own
+    spectrum where it exceeds the noise's is the honest one. ``y``, ``t`` (n,); ``beta``,
+    ``omega`` (K,); ``c`` (2K + 2,) as from :func:`_fit`.
     """
     k = beta.shape[0]
     n = t.shape[0]
@@ -320,6 +446,9 @@ def _covariance(y, t, beta, omega, c, acf) -> tuple[np.ndarray, float]:
     amat = jac.T @ jac
     rj = scipy_linalg.matmul_toeplitz((acf, acf), jac)
     bmat = s2 * (jac.T @ rj)
+    excess = _residual_excess_acf(r, s2 * acf, dof)
+    if excess is not None:
+        bmat = bmat + jac.T @ scipy_linalg.matmul_toeplitz((excess, excess), jac)
     try:
         ainv = np.linalg.inv(amat)
     except np.linalg.LinAlgError:
