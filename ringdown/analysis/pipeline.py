@@ -1228,7 +1228,7 @@ def _resolved_raw(got: list[Mode], rejected: list[Rejected], cands: Sequence[Can
             continue
         broad = [c for c in cands if c.source in ("spectrum", "residual") and c.beta_per_s is not None]
         c = min(broad, key=lambda c: abs(c.f_hz - m.f_d_hz), default=None)
-        if not (m.beta_per_s > 3.0 * (m.beta_per_s_u or math.inf)):
+        if not _decay_resolved(m):
             rejected.append(
                 Rejected(
                     m.f_d_hz,
@@ -1891,7 +1891,13 @@ def _unresolved_fallback(est: Estimate, extra: list[Notice]) -> bool:
     parametric fit to confirm it and no decay, nothing shows that the band held a mode (a
     component that does not decay is judged before this, by ``_is_stationary``)."""
     fallback = any(n.code == "fallback_method" for n in extra)
-    return fallback and not (est.beta_per_s > 3.0 * (est.beta_per_s_u or math.inf))
+    return fallback and not _decay_resolved(est)
+
+
+def _decay_resolved(m: Mode | Estimate) -> bool:
+    """Whether a fit resolves a decay: beta more than 3 standard uncertainties above 0 (a
+    missing u resolves nothing; the 3-sigma rule is common practice, no source)."""
+    return m.beta_per_s > 3.0 * (m.beta_per_s_u or math.inf)
 
 
 def _started_with_hit(est: Estimate, pre_bound: float | None) -> bool:
@@ -2266,8 +2272,9 @@ def _combine_hits(hits: Sequence[Hit]) -> list[Mode]:
         # one pass, leaving a broad cluster unpaired costs the matcher its wide tolerance, so it
         # took a lightly damped mode of the next hit from the lightly damped cluster beside it
         pairs = match_frequencies(fc, [m.f_d_hz for m in ms], tolerance=0.005)
-        left_c = [i for i in range(len(clusters)) if i not in {i for i, _ in pairs}]
-        left_m = [j for j in range(len(ms)) if j not in {j for _, j in pairs}]
+        took_c, took_m = {i for i, _ in pairs}, {j for _, j in pairs}
+        left_c = [i for i in range(len(clusters)) if i not in took_c]
+        left_m = [j for j in range(len(ms)) if j not in took_m]
         if left_c and left_m:
             tol = [max(0.005, 3 * clusters[i][0].beta_per_s / (math.pi * fc[i])) for i in left_c]
             more = match_frequencies([fc[i] for i in left_c], [ms[j].f_d_hz for j in left_m], tolerance=tol)

@@ -7,6 +7,16 @@ import numpy as np
 from ...base.errors import FitError
 
 
+def growing_text(poles: list[tuple[float, float]]) -> str:
+    """``"F Hz (beta = B 1/s), ..."`` for fitted poles ``(f_hz, beta_per_s)`` that grow (at most
+    three shown): the one wording of a fit that found no decay, used by every estimator."""
+    return ", ".join(f"{f:.6g} Hz (beta = {b:.3g} 1/s)" for f, b in poles[:3])
+
+
+#: why a fit may come out growing (said after the poles)
+GROWING_WHY = "(a steady tone, or a decay too slow for the window)"
+
+
 def weighted_line(t: np.ndarray, y: np.ndarray, w: np.ndarray, *, inflation: float = 1.0):
     """Weighted least-squares line ``y = a + b t``.
 

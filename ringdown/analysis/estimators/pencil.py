@@ -71,6 +71,7 @@ from ...base._lazy import lazy_module
 from ...base.errors import FitError
 from ..bands import Band
 from ..results import Estimate, ModeTrace, Notice
+from ._fit import GROWING_WHY, growing_text
 from .base import Window
 
 scipy_linalg = lazy_module("scipy.linalg")
@@ -166,8 +167,7 @@ def _growing(poles: np.ndarray, band: Band) -> str:
     ]
     if not grow:
         return "; check the band and the window"
-    shown = ", ".join(f"{f:.6g} Hz (beta = {b:.3g} 1/s)" for f, b in grow[:3])
-    return f"; the fitted pole(s) at {shown} grow, not decay (a steady tone, or a decay too slow for the window)"
+    return f"; the fitted pole(s) at {growing_text(grow)} grow, not decay {GROWING_WHY}"
 
 
 def _keep_pole(p: complex, band: Band, f_hi_cap: float) -> bool:

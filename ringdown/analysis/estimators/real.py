@@ -41,6 +41,7 @@ import numpy as np
 from ...base._lazy import lazy_module
 from ...base.errors import FitError
 from ..results import Estimate
+from ._fit import GROWING_WHY, growing_text
 
 scipy_linalg = lazy_module("scipy.linalg")
 scipy_optimize = lazy_module("scipy.optimize")
@@ -259,11 +260,10 @@ def _samples(seg: np.ndarray, fs: float, duration_s: float, targets: list[tuple[
 def _raise_if_growing(beta: np.ndarray, omega: np.ndarray, t0_s: float) -> None:
     """FitError naming the targets (decay rates 1/s, angular frequencies rad/s, (K,)) that the
     fit found growing (beta <= 0), if any."""
-    grow = [f"{w / (2 * math.pi):.6g} Hz (beta = {b:.3g} 1/s)" for b, w in zip(beta, omega) if b <= 0]
+    grow = [(float(w) / (2 * math.pi), float(b)) for b, w in zip(beta, omega) if b <= 0]
     if grow:
         raise FitError(
-            f"the fit of the record from {t0_s:.4g} s found {', '.join(grow)} growing, not decaying "
-            "(a steady tone, or a decay too slow for the window)"
+            f"the fit of the record from {t0_s:.4g} s found {growing_text(grow)} growing, not decaying {GROWING_WHY}"
         )
 
 
