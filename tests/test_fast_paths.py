@@ -97,9 +97,8 @@ def test_real_fit_reaches_the_numeric_jacobian_minimum():
         noise_p=noise_p,
     )
     # the samples the fit used: thinned, and boxcar means where that raises every target's SNR
-    _, step = real._thinned(x, fs, 0.5)
     starts = [(f * 1.01, b * 1.05) for f, b in truth]
-    y, step = real._thinned(x, fs, 0.5, average=real._averaging_pays(starts, fs, step))
+    y, step, _ = real._samples(x, fs, 0.5, starts)
     dt = step / fs
     t = np.arange(y.shape[0]) * dt
 
