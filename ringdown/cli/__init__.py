@@ -21,7 +21,7 @@ from typer.core import TyperGroup
 
 from ._common import EXIT_USAGE
 
-__all__ = ["app", "main"]
+__all__ = ["app", "command", "main"]
 
 _COMMAND_MODULES = ("analyze", "compare", "limits", "history", "moduli", "listen")
 
@@ -78,6 +78,14 @@ for _name in _COMMAND_MODULES:
     importlib.import_module(f"{__name__}.{_name}").register(app)
 
 
+def command():
+    """The click command behind ``app``, built (typer inspects every option, about 0.2 s).
+
+    Calling it is what ``app()`` does, less typer's pretty tracebacks, which ``app`` turns off.
+    """
+    return typer.main.get_command(app)
+
+
 def main() -> None:
     """Console-script entry point."""
-    app()
+    command()()
