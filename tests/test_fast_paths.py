@@ -146,6 +146,45 @@ def test_prominent_peaks_equal_scipy_find_peaks(kind):
             assert np.array_equal(prom, props["prominences"])
 
 
+
+def test_prominent_peaks_where_keeps_scipy_prominences_of_the_chosen_peaks():
+    # reference: scipy.signal.find_peaks(x, prominence=h) on the whole array, then only the peaks
+    # at samples where the mask is True: the masked-out peaks still bound the others' walks, so
+    # indices and prominences equal scipy's bit for bit
+    from scipy import ndimage, signal
+
+    from ringdown.base._prominence import prominent_peaks
+
+    rng = np.random.default_rng(11)
+    for _ in range(80):
+        n = int(rng.integers(1, 3000))
+        p = rng.exponential(size=n) * np.exp(-np.linspace(0, 10, n)) + 1e-6
+        x = 10 * np.log10(ndimage.uniform_filter1d(p, int(rng.integers(2, 64)), mode="nearest"))
+        where = rng.random(n) < rng.choice([0.0, 0.01, 0.3, 1.0])
+        for h in (0.0, 3.0, 6.0):
+            ref_idx, props = signal.find_peaks(x, prominence=h)
+            sel = where[ref_idx]
+            idx, prom = prominent_peaks(x, h, where=where)
+            assert np.array_equal(idx, ref_idx[sel])
+            assert np.array_equal(prom, props["prominences"][sel])
+
+
+def test_envelope_level_equals_the_clipped_window_means():
+    # reference: the mean of x^2 over each sample's window [i - w//2, i - w//2 + w) clipped to the
+    # record, from the cumulative sum indexed at the clipped ends (what condition.envelope_db
+    # computed before it took slices); equal bit for bit, windows longer than the record included
+    from ringdown.analysis.condition import _EPS, envelope_db
+
+    rng = np.random.default_rng(12)
+    for n in [*range(1, 30), 997, 96_000]:
+        x = rng.standard_normal(n)
+        for w in sorted({1, 2, 3, 4, 7, 8, 37, max(n - 1, 1), n, n + 1, 2 * n, 2 * n + 3}):
+            c = np.concatenate(([0.0], np.cumsum(x * x)))
+            lo = np.clip(np.arange(n) - w // 2, 0, n)
+            hi = np.clip(np.arange(n) - w // 2 + w, 0, n)
+            ref = 10.0 * np.log10((c[hi] - c[lo]) / np.maximum(hi - lo, 1) + _EPS)
+            assert np.array_equal(envelope_db(x, 1000.0, smoothing=w), ref), (n, w)
+
 def test_half_power_lorentzian_jacobian_and_fit_match_finite_differences():
     # reference: central differences of the Lorentzian (error O(h^2), h = 1e-6 of each
     # parameter: ~1e-9 of the column norms, hence 1e-6), and scipy.optimize.curve_fit with its own

@@ -250,9 +250,21 @@ def envelope_db(x: np.ndarray, sample_rate: float, *, smoothing: int | None = No
     w = envelope_smoothing(x, sample_rate) if smoothing is None else max(1, int(smoothing))
     c = np.concatenate(([0.0], np.cumsum(x * x)))
     n = x.shape[0]
-    lo = np.clip(np.arange(n) - w // 2, 0, n)
-    hi = np.clip(np.arange(n) - w // 2 + w, 0, n)
-    p = (c[hi] - c[lo]) / np.maximum(hi - lo, 1)
+    # the window of sample i is [i - h, i - h + w) clipped to [0, n): c[hi] - c[lo] from slices
+    # of c (the clipped ends hold c[0] and c[n]), the counts from the clipped ends alone
+    h = w // 2
+    a = w - h  # >= 1: hi = i + a, at most n
+    k_lo, k_hi = min(h, n), max(n - a + 1, 0)  # lo = 0 below k_lo; hi = n from k_hi on
+    s = np.empty(n)
+    s[:k_hi] = c[a : a + k_hi]
+    s[k_hi:] = c[n]
+    s[k_lo:] -= c[: n - k_lo]
+    s[:k_lo] -= c[0]
+    count = np.full(n, w)
+    count[:k_lo] -= np.arange(h, h - k_lo, -1)  # h - i samples before the record's start
+    if k_hi < n:
+        count[k_hi:] -= np.arange(k_hi + a - n, a)  # i + a - n samples past its end
+    p = s / np.maximum(count, 1)
     return 10.0 * np.log10(p + _EPS)
 
 

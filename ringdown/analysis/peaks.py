@@ -223,13 +223,13 @@ def _broad_peaks(
         # 2 dB more for the scatter of the Welch estimate of the noise level, as in find_peaks
         margin = (1.0 + (math.log(cells / 1e-3) + 3.0 * math.sqrt(m)) / m) * 10**0.2
         db = 10.0 * np.log10(ps + 1e-300)
+        # above the noise's margin and at least 10 cycles over the segment (as detect.MIN_CYCLES:
+        # below, drift removal and DC leave humps that are no modes): only those bins' maxima get
+        # a prominence (the rest still bound their walks)
+        wanted = (ps > margin * ns) & (f >= 10.0 * sample_rate / n) & (f <= 0.98 * sample_rate / 2)
         # = signal.find_peaks(db, prominence=BROAD_PROMINENCE_DB) without walking from each of the
         # ~10^4 ripple maxima of a smoothed spectrum (base._prominence)
-        for i, prom in zip(*prominent_peaks(db, BROAD_PROMINENCE_DB)):
-            # at least 10 cycles over the segment (as detect.MIN_CYCLES: below, drift removal and
-            # DC leave humps that are no modes)
-            if not (ps[i] > margin * ns[i]) or f[i] < 10.0 * sample_rate / n or f[i] > 0.98 * sample_rate / 2:
-                continue
+        for i, prom in zip(*prominent_peaks(db, BROAD_PROMINENCE_DB, where=wanted)):
             width_bins = _half_power_bins(db, i)
             if width_bins < 0.5 * k:
                 continue

@@ -47,7 +47,9 @@ def _range_min(t: list[np.ndarray], lo: np.ndarray, hi: np.ndarray) -> np.ndarra
     return out
 
 
-def prominent_peaks(x: np.ndarray, min_prominence: float) -> tuple[np.ndarray, np.ndarray]:
+def prominent_peaks(
+    x: np.ndarray, min_prominence: float, *, where: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray]:
     """Local maxima of ``x`` with a prominence of at least ``min_prominence``, and those prominences.
 
     Equals ``idx, props = scipy.signal.find_peaks(x, prominence=min_prominence)`` with
@@ -60,6 +62,10 @@ def prominent_peaks(x: np.ndarray, min_prominence: float) -> tuple[np.ndarray, n
     ----------
     x : (n,) array_like of float, finite
     min_prominence : float, units of ``x``
+    where : (n,) ndarray of bool, optional
+        Report only the peaks at samples where this is True (the others still bound their
+        neighbours' walks, so each prominence is the one without ``where``); a caller that
+        drops most peaks by another test passes it to skip their walks.
 
     Returns
     -------
@@ -85,6 +91,8 @@ def prominent_peaks(x: np.ndarray, min_prominence: float) -> tuple[np.ndarray, n
     left_end = np.r_[True, v[:-1] > v[1:]]
     right_end = np.r_[v[1:] > v[:-1], True]
     out = (left_end & (v - gap[:-1] < min_prominence)) | (right_end & (v - gap[1:] < min_prominence))
+    if where is not None:
+        out |= ~np.asarray(where, dtype=bool)[idx]
     live = np.flatnonzero(~out)
     if live.size == 0:
         return idx[:0], np.empty(0)
