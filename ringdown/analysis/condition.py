@@ -264,8 +264,11 @@ def envelope_db(x: np.ndarray, sample_rate: float, *, smoothing: int | None = No
     count[:k_lo] -= np.arange(h, h - k_lo, -1)  # h - i samples before the record's start
     if k_hi < n:
         count[k_hi:] -= np.arange(k_hi + a - n, a)  # i + a - n samples past its end
-    p = s / np.maximum(count, 1)
-    return 10.0 * np.log10(p + _EPS)
+    s /= np.maximum(count, 1)
+    s += _EPS
+    np.log10(s, out=s)
+    s *= 10.0  # = 10 log10(mean + _EPS), in place
+    return s
 
 
 #: Blocks of the level over which :func:`noise_floor_db` takes medians, in smoothing widths.

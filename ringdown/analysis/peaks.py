@@ -92,7 +92,10 @@ def find_peaks(
         pw = np.array(noise_psd[1][1:], dtype=np.float64)
         if pw.shape[0] > 10:
             pw = ndimage.uniform_filter1d(pw, 9, mode="nearest")
-        level_s = np.interp(f, noise_psd[0][1:], pw) * sample_rate * w2 / (2.0 * n * n)
+        level_s = np.interp(f, noise_psd[0][1:], pw)
+        level_s *= sample_rate
+        level_s *= w2
+        level_s /= 2.0 * n * n
         peaks += _broad_peaks(f, 10.0 ** (p_db / 10.0), level_s, n, sample_rate, peaks)
         peaks.sort(key=lambda p: p.f_hz)
     if max_peaks is not None and len(peaks) > max_peaks:
@@ -127,13 +130,21 @@ def _peak_height(
     if noise_psd is not None:
         # E|X_k|^2 / n^2 of windowed noise = S(f) fs sum(w^2) / (2 n^2) for one-sided density S
         # the Welch DC bin is emptied by its detrending: hold the first real bin's level below it
-        level = np.interp(f, noise_psd[0][1:], noise_psd[1][1:]) * sample_rate * w2 / (2.0 * n * n)
+        level = np.interp(f, noise_psd[0][1:], noise_psd[1][1:])
+        level *= sample_rate
+        level *= w2
+        level /= 2.0 * n * n
         if noise_margin_db is None:
             # periodogram bins of noise are exponentially distributed about their mean: the chance
             # that any of the m bins exceeds (ln m + 7) times the mean is about e^-7 = 1e-3
             # [derived]; 2 dB more for the scatter of the Welch estimate of that mean
             noise_margin_db = 10.0 * math.log10(math.log(f.shape[0]) + 7.0) + 2.0
-        height = np.maximum(height, 10.0 * np.log10(level + 1e-300) + noise_margin_db)
+        # height = max(height, 10 log10(level + 1e-300) + noise_margin_db), in place
+        level += 1e-300
+        np.log10(level, out=level)
+        level *= 10.0
+        level += noise_margin_db
+        np.maximum(height, level, out=height)
     return height
 
 
@@ -222,7 +233,9 @@ def _broad_peaks(
         cells = max(f.shape[0] / k, 2.0)
         # 2 dB more for the scatter of the Welch estimate of the noise level, as in find_peaks
         margin = (1.0 + (math.log(cells / 1e-3) + 3.0 * math.sqrt(m)) / m) * 10**0.2
-        db = 10.0 * np.log10(ps + 1e-300)
+        db = ps + 1e-300
+        np.log10(db, out=db)
+        db *= 10.0  # = 10 log10(ps + 1e-300), in place
         # above the noise's margin and at least 10 cycles over the segment (as detect.MIN_CYCLES:
         # below, drift removal and DC leave humps that are no modes): only those bins' maxima get
         # a prominence (the rest still bound their walks)
@@ -263,9 +276,18 @@ def _spectrum(x: np.ndarray, sample_rate: float):
     q = max(n // 4, 1)
     w[n - q :] = 0.5 * (1 + np.cos(np.pi * np.arange(q) / q))
     nfft = 1 << int(math.ceil(math.log2(n)))
-    spec = np.fft.rfft(x * w, nfft)
-    p = (np.abs(spec) / n) ** 2
-    return np.fft.rfftfreq(nfft, 1.0 / sample_rate), 10.0 * np.log10(p + 1e-300), float(np.sum(w * w))
+    # x * w zero-padded to nfft, written into one buffer (w is 1 before the taper), and the dB
+    # spectrum computed in place: the same numbers as rfft(x * w, nfft) and 10 log10(|.|^2 / n^2)
+    buf = np.zeros(nfft)
+    buf[:n] = x
+    buf[n - q : n] *= w[n - q :]
+    p = np.abs(np.fft.rfft(buf))
+    p /= n
+    np.square(p, out=p)
+    p += 1e-300
+    np.log10(p, out=p)
+    p *= 10.0
+    return np.fft.rfftfreq(nfft, 1.0 / sample_rate), p, float(np.sum(w * w))
 
 
 def group_bands(
