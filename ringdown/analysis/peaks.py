@@ -96,7 +96,9 @@ def find_peaks(
         level_s *= sample_rate
         level_s *= w2
         level_s /= 2.0 * n * n
-        peaks += _broad_peaks(f, 10.0 ** (p_db / 10.0), level_s, n, sample_rate, peaks)
+        power = p_db / 10.0
+        np.power(10.0, power, out=power)  # = 10 ** (p_db / 10), in place
+        peaks += _broad_peaks(f, power, level_s, n, sample_rate, peaks)
         peaks.sort(key=lambda p: p.f_hz)
     if max_peaks is not None and len(peaks) > max_peaks:
         peaks = sorted(peaks, key=lambda p: p.level_db, reverse=True)[:max_peaks]
