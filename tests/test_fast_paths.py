@@ -185,6 +185,38 @@ def test_envelope_level_equals_the_clipped_window_means():
             ref = 10.0 * np.log10((c[hi] - c[lo]) / np.maximum(hi - lo, 1) + _EPS)
             assert np.array_equal(envelope_db(x, 1000.0, smoothing=w), ref), (n, w)
 
+
+def test_rises_equal_the_full_running_extrema():
+    # reference: the rule of condition._rises written with scipy.ndimage's running minimum and
+    # maximum over the whole level (constant borders), as it was computed before the maximum was
+    # taken at the candidate rises alone; equal index for index
+    from scipy.ndimage import maximum_filter1d, minimum_filter1d
+
+    from ringdown.analysis.condition import _rises
+
+    def reference(level, w, hold, rise_db, threshold):
+        n = level.shape[0]
+        prev_min = np.full(n, np.inf)
+        prev_min[1:] = minimum_filter1d(level, size=w, origin=(w - 1) // 2, mode="constant", cval=np.inf)[:-1]
+        prev_max = np.full(n, -np.inf)
+        span = min(hold - w, n)
+        if span > 0 and n > w:
+            mx = maximum_filter1d(level, size=span, origin=(span - 1) // 2, mode="constant", cval=-np.inf)
+            prev_max[w:] = mx[: n - w]
+        return np.flatnonzero((level - prev_min >= rise_db) & (level >= threshold) & (level >= prev_max + 3.0))
+
+    rng = np.random.default_rng(13)
+    for _ in range(200):
+        n = int(rng.integers(2, 4000))
+        # a noisy level with a few steps up (taps) and slow decays between them
+        level = np.cumsum(rng.normal(-0.01, 0.5, n))
+        for k in rng.integers(0, n, int(rng.integers(0, 12))):
+            level[k:] += rng.uniform(5.0, 40.0)
+        w = int(rng.integers(1, 40))
+        hold = int(rng.integers(1, 600))
+        for rise_db, threshold in ((3.0, -np.inf), (12.0, float(np.median(level))), (1.0, float(level.max()) + 1)):
+            assert np.array_equal(_rises(level, w, hold, rise_db, threshold), reference(level, w, hold, rise_db, threshold))
+
 def test_half_power_lorentzian_jacobian_and_fit_match_finite_differences():
     # reference: central differences of the Lorentzian (error O(h^2), h = 1e-6 of each
     # parameter: ~1e-9 of the column norms, hence 1e-6), and scipy.optimize.curve_fit with its own

@@ -550,14 +550,25 @@ def _rises(level_db: np.ndarray, w: int, hold: int, rise_db: float, threshold: f
     # window of the record's first samples
     m = minimum_filter1d(level_db, size=w, origin=(w - 1) // 2, mode="constant", cval=np.inf)  # min over [k - w + 1, k]
     prev_min[1:] = m[:-1]
-    prev_max = np.full(n, -np.inf)
+    cand = np.flatnonzero((level_db - prev_min >= rise_db) & (level_db >= threshold))
     span = min(hold - w, n)
-    if span > 0 and n > w:
-        mx = maximum_filter1d(
-            level_db, size=span, origin=(span - 1) // 2, mode="constant", cval=-np.inf
-        )  # max over [k - span + 1, k]
-        prev_max[w:] = mx[: n - w]
-    return np.flatnonzero((level_db - prev_min >= rise_db) & (level_db >= threshold) & (level_db >= prev_max + 3.0))
+    if not (span > 0 and n > w) or cand.size == 0:
+        return cand  # nothing precedes by more than w samples: the 3 dB test passes (-inf)
+    # the maximum over [k - w - span + 1, k - w] (-inf before k = w) at the candidates alone: the
+    # running maximum of each cluster of candidates (gaps <= span) over the samples its windows
+    # cover, the same numbers as over the whole level (a window never reaches past its cluster's)
+    prev_max = np.full(cand.size, -np.inf)
+    need = np.flatnonzero(cand >= w)
+    if need.size:
+        ks = cand[need]
+        cuts = np.flatnonzero(np.diff(ks) > span) + 1
+        for part, k_part in zip(np.split(need, cuts), np.split(ks, cuts)):
+            lo = max(0, int(k_part[0]) - w - span + 1)
+            mx = maximum_filter1d(
+                level_db[lo : int(k_part[-1]) - w + 1], size=span, origin=(span - 1) // 2, mode="constant", cval=-np.inf
+            )  # max over [j - span + 1, j], from lo
+            prev_max[part] = mx[k_part - w - lo]
+    return cand[level_db[cand] >= prev_max + 3.0]
 
 
 def _find_bounce(level_db, onset, window, rise, rise_db, end, settle=0) -> int | None:
