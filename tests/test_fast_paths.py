@@ -217,6 +217,26 @@ def test_rises_equal_the_full_running_extrema():
         for rise_db, threshold in ((3.0, -np.inf), (12.0, float(np.median(level))), (1.0, float(level.max()) + 1)):
             assert np.array_equal(_rises(level, w, hold, rise_db, threshold), reference(level, w, hold, rise_db, threshold))
 
+
+def test_peak_height_at_the_maxima_equals_the_whole_array():
+    # reference: the same level computed over every bin of the spectrum (what find_peaks did
+    # before it asked for the local maxima alone), then read at the maxima; numpy.interp and
+    # log10 work element by element, so the values are equal bit for bit
+    from ringdown.analysis.peaks import _peak_height, _spectrum
+
+    rng = np.random.default_rng(14)
+    fs = 8000.0
+    for n in (64, 1000, 5001):
+        t = np.arange(n) / fs
+        x = np.exp(-20 * t) * np.cos(2 * np.pi * 700 * t) + 1e-3 * rng.standard_normal(n)
+        f, p_db, w2 = _spectrum(x, fs)
+        inner = p_db[1:-1]
+        maxima = np.flatnonzero((inner > p_db[:-2]) & (inner >= p_db[2:])) + 1
+        noise = (np.linspace(0, fs / 2, 129), rng.uniform(0.5, 2.0, 129) * 2e-6 / fs)
+        for psd in (None, noise):
+            whole = _peak_height(f, p_db, n, fs, w2, 15.0, psd, None, at=np.arange(f.shape[0]))
+            assert np.array_equal(_peak_height(f, p_db, n, fs, w2, 15.0, psd, None, at=maxima), whole[maxima])
+
 def test_half_power_lorentzian_jacobian_and_fit_match_finite_differences():
     # reference: central differences of the Lorentzian (error O(h^2), h = 1e-6 of each
     # parameter: ~1e-9 of the column norms, hence 1e-6), and scipy.optimize.curve_fit with its own

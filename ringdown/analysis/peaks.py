@@ -84,8 +84,11 @@ def find_peaks(
     n = x.shape[0]
     if f_min_hz is None:
         f_min_hz = 3.0 * sample_rate / n
-    height = _peak_height(f, p_db, n, sample_rate, w2, min_prominence_db, noise_psd, noise_margin_db)
-    peaks = _sharp_peaks(f, p_db, height, min_prominence_db, f_min_hz, sample_rate)
+    # local maxima first, then the level each must reach at those bins alone (the rest never count)
+    inner = p_db[1:-1]
+    maxima = np.flatnonzero((inner > p_db[:-2]) & (inner >= p_db[2:])) + 1
+    height = _peak_height(f, p_db, n, sample_rate, w2, min_prominence_db, noise_psd, noise_margin_db, at=maxima)
+    peaks = _sharp_peaks(f, p_db, maxima[p_db[maxima] >= height], min_prominence_db, f_min_hz, sample_rate)
     if noise_psd is not None and broad:
         # the Welch estimate averaged over 9 of its bins: a short pre-trigger's estimate scatters
         # by ~1.5 dB per bin, as much as a broad peak's margin (as detect.smooth_density)
@@ -114,10 +117,14 @@ def _peak_height(
     min_prominence_db: float,
     noise_psd: tuple[np.ndarray, np.ndarray] | None,
     noise_margin_db: float | None,
+    *,
+    at: np.ndarray,
 ) -> np.ndarray:
-    """The level (dB, one per bin of ``f``) a sharp peak of the spectrum ``p_db`` of ``n``
-    samples (taper energy ``w2``) must reach: ``min_prominence_db`` above the running median and,
-    with ``noise_psd``, ``noise_margin_db`` above the level noise alone gives (see :func:`find_peaks`)."""
+    """The level (dB, one per bin index of ``at``, (m,) ints into ``f``) a sharp peak of the
+    spectrum ``p_db`` of ``n`` samples (taper energy ``w2``) must reach: ``min_prominence_db``
+    above the running median and, with ``noise_psd``, ``noise_margin_db`` above the level noise
+    alone gives (see :func:`find_peaks`). Each bin's value is the one the whole array would hold
+    there (``numpy.interp`` and ``log10`` work element by element)."""
     from scipy import ndimage
 
     # running median over 1/8 of the band, on at most ~4096 evenly spaced bins (then
@@ -125,14 +132,12 @@ def _peak_height(
     step = max(1, f.shape[0] // 4096)
     coarse = p_db[::step]
     width = max(9, (coarse.shape[0] // 8) | 1)
-    floor = np.interp(
-        np.arange(f.shape[0]), np.arange(0, f.shape[0], step), ndimage.median_filter(coarse, size=width, mode="nearest")
-    )
+    floor = np.interp(at, np.arange(0, f.shape[0], step), ndimage.median_filter(coarse, size=width, mode="nearest"))
     height = floor + min_prominence_db
     if noise_psd is not None:
         # E|X_k|^2 / n^2 of windowed noise = S(f) fs sum(w^2) / (2 n^2) for one-sided density S
         # the Welch DC bin is emptied by its detrending: hold the first real bin's level below it
-        level = np.interp(f, noise_psd[0][1:], noise_psd[1][1:])
+        level = np.interp(f[at], noise_psd[0][1:], noise_psd[1][1:])
         level *= sample_rate
         level *= w2
         level /= 2.0 * n * n
@@ -151,17 +156,16 @@ def _peak_height(
 
 
 def _sharp_peaks(
-    f: np.ndarray, p_db: np.ndarray, height: np.ndarray, min_prominence_db: float, f_min_hz: float, sample_rate: float
+    f: np.ndarray, p_db: np.ndarray, cand: np.ndarray, min_prominence_db: float, f_min_hz: float, sample_rate: float
 ) -> list[Peak]:
-    """The local maxima of ``p_db`` (dB over the bins ``f``, Hz) that reach ``height`` and stand
-    ``min_prominence_db`` out, between ``f_min_hz`` and 0.98 Nyquist, each interpolated
-    (parabola through three bins) and given its half-power width."""
+    """The local maxima ``cand`` (bin indices, ascending) of ``p_db`` (dB over the bins ``f``,
+    Hz), each reaching its height (:func:`_peak_height`), that stand ``min_prominence_db`` out,
+    between ``f_min_hz`` and 0.98 Nyquist, each interpolated (parabola through three bins) and
+    given its half-power width."""
     from scipy import signal
 
     df = f[1] - f[0]
     # local maxima above the height first, then the (costlier) prominence of those alone
-    inner = p_db[1:-1]
-    cand = np.flatnonzero((inner > p_db[:-2]) & (inner >= p_db[2:]) & (inner >= height[1:-1])) + 1
     prominences = signal.peak_prominences(p_db, cand)[0] if cand.size else np.empty(0)
     keep = prominences >= min_prominence_db
     peaks: list[Peak] = []
