@@ -146,7 +146,6 @@ def test_prominent_peaks_equal_scipy_find_peaks(kind):
             assert np.array_equal(prom, props["prominences"])
 
 
-
 def test_prominent_peaks_where_keeps_scipy_prominences_of_the_chosen_peaks():
     # reference: scipy.signal.find_peaks(x, prominence=h) on the whole array, then only the peaks
     # at samples where the mask is True: the masked-out peaks still bound the others' walks, so
@@ -215,7 +214,9 @@ def test_rises_equal_the_full_running_extrema():
         w = int(rng.integers(1, 40))
         hold = int(rng.integers(1, 600))
         for rise_db, threshold in ((3.0, -np.inf), (12.0, float(np.median(level))), (1.0, float(level.max()) + 1)):
-            assert np.array_equal(_rises(level, w, hold, rise_db, threshold), reference(level, w, hold, rise_db, threshold))
+            assert np.array_equal(
+                _rises(level, w, hold, rise_db, threshold), reference(level, w, hold, rise_db, threshold)
+            )
 
 
 def test_peak_height_at_the_maxima_equals_the_whole_array():
@@ -236,6 +237,7 @@ def test_peak_height_at_the_maxima_equals_the_whole_array():
         for psd in (None, noise):
             whole = _peak_height(f, p_db, n, fs, w2, 15.0, psd, None, at=np.arange(f.shape[0]))
             assert np.array_equal(_peak_height(f, p_db, n, fs, w2, 15.0, psd, None, at=maxima), whole[maxima])
+
 
 def test_half_power_lorentzian_jacobian_and_fit_match_finite_differences():
     # reference: central differences of the Lorentzian (error O(h^2), h = 1e-6 of each
