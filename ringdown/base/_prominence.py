@@ -16,8 +16,8 @@ For the rest, the nearest higher maximum on each side comes from binary lifting 
 table of range maxima and the base from one range-minimum query (sparse tables: Bender &
 Farach-Colton, "The LCA problem revisited", LATIN 2000 [from memory]): O(n + m log m) for m
 maxima; when at most :data:`_DIRECT_WALKS` peaks are left (a caller's ``where`` leaves few), each
-walks the maxima directly instead, O(m) apiece. The result equals scipy's bit for bit (the same minima, the same subtraction;
-``tests/test_fast_paths.py``).
+walks the maxima directly instead, O(m) apiece. The result equals scipy's bit for bit (the same
+minima, the same subtraction; ``tests/test_fast_paths.py``).
 """
 
 from __future__ import annotations
