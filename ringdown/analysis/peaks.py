@@ -239,13 +239,15 @@ def _broad_peaks(
         cells = max(f.shape[0] / k, 2.0)
         # 2 dB more for the scatter of the Welch estimate of the noise level, as in find_peaks
         margin = (1.0 + (math.log(cells / 1e-3) + 3.0 * math.sqrt(m)) / m) * 10**0.2
+        # above the noise's margin and at least 10 cycles over the segment (as detect.MIN_CYCLES:
+        # below, drift removal and DC leave humps that are no modes): only those bins' maxima get
+        # a prominence (the rest still bound their walks); no such bin, no peak at this scale
+        wanted = (ps > margin * ns) & (f >= 10.0 * sample_rate / n) & (f <= 0.98 * sample_rate / 2)
+        if not wanted.any():
+            continue
         db = ps + 1e-300
         np.log10(db, out=db)
         db *= 10.0  # = 10 log10(ps + 1e-300), in place
-        # above the noise's margin and at least 10 cycles over the segment (as detect.MIN_CYCLES:
-        # below, drift removal and DC leave humps that are no modes): only those bins' maxima get
-        # a prominence (the rest still bound their walks)
-        wanted = (ps > margin * ns) & (f >= 10.0 * sample_rate / n) & (f <= 0.98 * sample_rate / 2)
         # = signal.find_peaks(db, prominence=BROAD_PROMINENCE_DB) without walking from each of the
         # ~10^4 ripple maxima of a smoothed spectrum (base._prominence)
         for i, prom in zip(*prominent_peaks(db, BROAD_PROMINENCE_DB, where=wanted)):
