@@ -146,6 +146,99 @@ def test_prominent_peaks_equal_scipy_find_peaks(kind):
             assert np.array_equal(prom, props["prominences"])
 
 
+def test_prominent_peaks_where_keeps_scipy_prominences_of_the_chosen_peaks():
+    # reference: scipy.signal.find_peaks(x, prominence=h) on the whole array, then only the peaks
+    # at samples where the mask is True: the masked-out peaks still bound the others' walks, so
+    # indices and prominences equal scipy's bit for bit
+    from scipy import ndimage, signal
+
+    from ringdown.base._prominence import prominent_peaks
+
+    rng = np.random.default_rng(11)
+    for _ in range(80):
+        n = int(rng.integers(1, 3000))
+        p = rng.exponential(size=n) * np.exp(-np.linspace(0, 10, n)) + 1e-6
+        x = 10 * np.log10(ndimage.uniform_filter1d(p, int(rng.integers(2, 64)), mode="nearest"))
+        where = rng.random(n) < rng.choice([0.0, 0.01, 0.3, 1.0])
+        for h in (0.0, 3.0, 6.0):
+            ref_idx, props = signal.find_peaks(x, prominence=h)
+            sel = where[ref_idx]
+            idx, prom = prominent_peaks(x, h, where=where)
+            assert np.array_equal(idx, ref_idx[sel])
+            assert np.array_equal(prom, props["prominences"][sel])
+
+
+def test_envelope_level_equals_the_clipped_window_means():
+    # reference: the mean of x^2 over each sample's window [i - w//2, i - w//2 + w) clipped to the
+    # record, from the cumulative sum indexed at the clipped ends (what condition.envelope_db
+    # computed before it took slices); equal bit for bit, windows longer than the record included
+    from ringdown.analysis.condition import _EPS, envelope_db
+
+    rng = np.random.default_rng(12)
+    for n in [*range(1, 30), 997, 96_000]:
+        x = rng.standard_normal(n)
+        for w in sorted({1, 2, 3, 4, 7, 8, 37, max(n - 1, 1), n, n + 1, 2 * n, 2 * n + 3}):
+            c = np.concatenate(([0.0], np.cumsum(x * x)))
+            lo = np.clip(np.arange(n) - w // 2, 0, n)
+            hi = np.clip(np.arange(n) - w // 2 + w, 0, n)
+            ref = 10.0 * np.log10((c[hi] - c[lo]) / np.maximum(hi - lo, 1) + _EPS)
+            assert np.array_equal(envelope_db(x, 1000.0, smoothing=w), ref), (n, w)
+
+
+def test_rises_equal_the_full_running_extrema():
+    # reference: the rule of condition._rises written with scipy.ndimage's running minimum and
+    # maximum over the whole level (constant borders), as it was computed before the maximum was
+    # taken at the candidate rises alone; equal index for index
+    from scipy.ndimage import maximum_filter1d, minimum_filter1d
+
+    from ringdown.analysis.condition import _rises
+
+    def reference(level, w, hold, rise_db, threshold):
+        n = level.shape[0]
+        prev_min = np.full(n, np.inf)
+        prev_min[1:] = minimum_filter1d(level, size=w, origin=(w - 1) // 2, mode="constant", cval=np.inf)[:-1]
+        prev_max = np.full(n, -np.inf)
+        span = min(hold - w, n)
+        if span > 0 and n > w:
+            mx = maximum_filter1d(level, size=span, origin=(span - 1) // 2, mode="constant", cval=-np.inf)
+            prev_max[w:] = mx[: n - w]
+        return np.flatnonzero((level - prev_min >= rise_db) & (level >= threshold) & (level >= prev_max + 3.0))
+
+    rng = np.random.default_rng(13)
+    for _ in range(200):
+        n = int(rng.integers(2, 4000))
+        # a noisy level with a few steps up (taps) and slow decays between them
+        level = np.cumsum(rng.normal(-0.01, 0.5, n))
+        for k in rng.integers(0, n, int(rng.integers(0, 12))):
+            level[k:] += rng.uniform(5.0, 40.0)
+        w = int(rng.integers(1, 40))
+        hold = int(rng.integers(1, 600))
+        for rise_db, threshold in ((3.0, -np.inf), (12.0, float(np.median(level))), (1.0, float(level.max()) + 1)):
+            assert np.array_equal(
+                _rises(level, w, hold, rise_db, threshold), reference(level, w, hold, rise_db, threshold)
+            )
+
+
+def test_peak_height_at_the_maxima_equals_the_whole_array():
+    # reference: the same level computed over every bin of the spectrum (what find_peaks did
+    # before it asked for the local maxima alone), then read at the maxima; numpy.interp and
+    # log10 work element by element, so the values are equal bit for bit
+    from ringdown.analysis.peaks import _peak_height, _spectrum
+
+    rng = np.random.default_rng(14)
+    fs = 8000.0
+    for n in (64, 1000, 5001):
+        t = np.arange(n) / fs
+        x = np.exp(-20 * t) * np.cos(2 * np.pi * 700 * t) + 1e-3 * rng.standard_normal(n)
+        f, p_db, w2 = _spectrum(x, fs)
+        inner = p_db[1:-1]
+        maxima = np.flatnonzero((inner > p_db[:-2]) & (inner >= p_db[2:])) + 1
+        noise = (np.linspace(0, fs / 2, 129), rng.uniform(0.5, 2.0, 129) * 2e-6 / fs)
+        for psd in (None, noise):
+            whole = _peak_height(f, p_db, n, fs, w2, 15.0, psd, None, at=np.arange(f.shape[0]))
+            assert np.array_equal(_peak_height(f, p_db, n, fs, w2, 15.0, psd, None, at=maxima), whole[maxima])
+
+
 def test_half_power_lorentzian_jacobian_and_fit_match_finite_differences():
     # reference: central differences of the Lorentzian (error O(h^2), h = 1e-6 of each
     # parameter: ~1e-9 of the column norms, hence 1e-6), and scipy.optimize.curve_fit with its own

@@ -250,10 +250,25 @@ def envelope_db(x: np.ndarray, sample_rate: float, *, smoothing: int | None = No
     w = envelope_smoothing(x, sample_rate) if smoothing is None else max(1, int(smoothing))
     c = np.concatenate(([0.0], np.cumsum(x * x)))
     n = x.shape[0]
-    lo = np.clip(np.arange(n) - w // 2, 0, n)
-    hi = np.clip(np.arange(n) - w // 2 + w, 0, n)
-    p = (c[hi] - c[lo]) / np.maximum(hi - lo, 1)
-    return 10.0 * np.log10(p + _EPS)
+    # the window of sample i is [i - h, i - h + w) clipped to [0, n): c[hi] - c[lo] from slices
+    # of c (the clipped ends hold c[0] and c[n]), the counts from the clipped ends alone
+    h = w // 2
+    a = w - h  # >= 1: hi = i + a, at most n
+    k_lo, k_hi = min(h, n), max(n - a + 1, 0)  # lo = 0 below k_lo; hi = n from k_hi on
+    s = np.empty(n)
+    s[:k_hi] = c[a : a + k_hi]
+    s[k_hi:] = c[n]
+    s[k_lo:] -= c[: n - k_lo]
+    s[:k_lo] -= c[0]
+    count = np.full(n, w)
+    count[:k_lo] -= np.arange(h, h - k_lo, -1)  # h - i samples before the record's start
+    if k_hi < n:
+        count[k_hi:] -= np.arange(k_hi + a - n, a)  # i + a - n samples past its end
+    s /= np.maximum(count, 1)
+    s += _EPS
+    np.log10(s, out=s)
+    s *= 10.0  # = 10 log10(mean + _EPS), in place
+    return s
 
 
 #: Blocks of the level over which :func:`noise_floor_db` takes medians, in smoothing widths.
@@ -535,14 +550,25 @@ def _rises(level_db: np.ndarray, w: int, hold: int, rise_db: float, threshold: f
     # window of the record's first samples
     m = minimum_filter1d(level_db, size=w, origin=(w - 1) // 2, mode="constant", cval=np.inf)  # min over [k - w + 1, k]
     prev_min[1:] = m[:-1]
-    prev_max = np.full(n, -np.inf)
+    cand = np.flatnonzero((level_db - prev_min >= rise_db) & (level_db >= threshold))
     span = min(hold - w, n)
-    if span > 0 and n > w:
-        mx = maximum_filter1d(
-            level_db, size=span, origin=(span - 1) // 2, mode="constant", cval=-np.inf
-        )  # max over [k - span + 1, k]
-        prev_max[w:] = mx[: n - w]
-    return np.flatnonzero((level_db - prev_min >= rise_db) & (level_db >= threshold) & (level_db >= prev_max + 3.0))
+    if not (span > 0 and n > w) or cand.size == 0:
+        return cand  # nothing precedes by more than w samples: the 3 dB test passes (-inf)
+    # the maximum over [k - w - span + 1, k - w] (-inf before k = w) at the candidates alone: the
+    # running maximum of each cluster of candidates (gaps <= span) over the samples its windows
+    # cover, the same numbers as over the whole level (a window never reaches past its cluster's)
+    prev_max = np.full(cand.size, -np.inf)
+    need = np.flatnonzero(cand >= w)
+    if need.size:
+        ks = cand[need]
+        cuts = np.flatnonzero(np.diff(ks) > span) + 1
+        for part, k_part in zip(np.split(need, cuts), np.split(ks, cuts)):
+            lo = max(0, int(k_part[0]) - w - span + 1)
+            mx = maximum_filter1d(
+                level_db[lo : int(k_part[-1]) - w + 1], size=span, origin=(span - 1) // 2, mode="constant", cval=-np.inf
+            )  # max over [j - span + 1, j], from lo
+            prev_max[part] = mx[k_part - w - lo]
+    return cand[level_db[cand] >= prev_max + 3.0]
 
 
 def _find_bounce(level_db, onset, window, rise, rise_db, end, settle=0) -> int | None:

@@ -84,16 +84,24 @@ def find_peaks(
     n = x.shape[0]
     if f_min_hz is None:
         f_min_hz = 3.0 * sample_rate / n
-    height = _peak_height(f, p_db, n, sample_rate, w2, min_prominence_db, noise_psd, noise_margin_db)
-    peaks = _sharp_peaks(f, p_db, height, min_prominence_db, f_min_hz, sample_rate)
+    # local maxima first, then the level each must reach at those bins alone (the rest never count)
+    inner = p_db[1:-1]
+    maxima = np.flatnonzero((inner > p_db[:-2]) & (inner >= p_db[2:])) + 1
+    height = _peak_height(f, p_db, n, sample_rate, w2, min_prominence_db, noise_psd, noise_margin_db, at=maxima)
+    peaks = _sharp_peaks(f, p_db, maxima[p_db[maxima] >= height], min_prominence_db, f_min_hz, sample_rate)
     if noise_psd is not None and broad:
         # the Welch estimate averaged over 9 of its bins: a short pre-trigger's estimate scatters
         # by ~1.5 dB per bin, as much as a broad peak's margin (as detect.smooth_density)
         pw = np.array(noise_psd[1][1:], dtype=np.float64)
         if pw.shape[0] > 10:
             pw = ndimage.uniform_filter1d(pw, 9, mode="nearest")
-        level_s = np.interp(f, noise_psd[0][1:], pw) * sample_rate * w2 / (2.0 * n * n)
-        peaks += _broad_peaks(f, 10.0 ** (p_db / 10.0), level_s, n, sample_rate, peaks)
+        level_s = np.interp(f, noise_psd[0][1:], pw)
+        level_s *= sample_rate
+        level_s *= w2
+        level_s /= 2.0 * n * n
+        power = p_db / 10.0
+        np.power(10.0, power, out=power)  # = 10 ** (p_db / 10), in place
+        peaks += _broad_peaks(f, power, level_s, n, sample_rate, peaks)
         peaks.sort(key=lambda p: p.f_hz)
     if max_peaks is not None and len(peaks) > max_peaks:
         peaks = sorted(peaks, key=lambda p: p.level_db, reverse=True)[:max_peaks]
@@ -109,10 +117,14 @@ def _peak_height(
     min_prominence_db: float,
     noise_psd: tuple[np.ndarray, np.ndarray] | None,
     noise_margin_db: float | None,
+    *,
+    at: np.ndarray,
 ) -> np.ndarray:
-    """The level (dB, one per bin of ``f``) a sharp peak of the spectrum ``p_db`` of ``n``
-    samples (taper energy ``w2``) must reach: ``min_prominence_db`` above the running median and,
-    with ``noise_psd``, ``noise_margin_db`` above the level noise alone gives (see :func:`find_peaks`)."""
+    """The level (dB, one per bin index of ``at``, (m,) ints into ``f``) a sharp peak of the
+    spectrum ``p_db`` of ``n`` samples (taper energy ``w2``) must reach: ``min_prominence_db``
+    above the running median and, with ``noise_psd``, ``noise_margin_db`` above the level noise
+    alone gives (see :func:`find_peaks`). Each bin's value is the one the whole array would hold
+    there (``numpy.interp`` and ``log10`` work element by element)."""
     from scipy import ndimage
 
     # running median over 1/8 of the band, on at most ~4096 evenly spaced bins (then
@@ -120,35 +132,40 @@ def _peak_height(
     step = max(1, f.shape[0] // 4096)
     coarse = p_db[::step]
     width = max(9, (coarse.shape[0] // 8) | 1)
-    floor = np.interp(
-        np.arange(f.shape[0]), np.arange(0, f.shape[0], step), ndimage.median_filter(coarse, size=width, mode="nearest")
-    )
+    floor = np.interp(at, np.arange(0, f.shape[0], step), ndimage.median_filter(coarse, size=width, mode="nearest"))
     height = floor + min_prominence_db
     if noise_psd is not None:
         # E|X_k|^2 / n^2 of windowed noise = S(f) fs sum(w^2) / (2 n^2) for one-sided density S
         # the Welch DC bin is emptied by its detrending: hold the first real bin's level below it
-        level = np.interp(f, noise_psd[0][1:], noise_psd[1][1:]) * sample_rate * w2 / (2.0 * n * n)
+        level = np.interp(f[at], noise_psd[0][1:], noise_psd[1][1:])
+        level *= sample_rate
+        level *= w2
+        level /= 2.0 * n * n
         if noise_margin_db is None:
             # periodogram bins of noise are exponentially distributed about their mean: the chance
             # that any of the m bins exceeds (ln m + 7) times the mean is about e^-7 = 1e-3
             # [derived]; 2 dB more for the scatter of the Welch estimate of that mean
             noise_margin_db = 10.0 * math.log10(math.log(f.shape[0]) + 7.0) + 2.0
-        height = np.maximum(height, 10.0 * np.log10(level + 1e-300) + noise_margin_db)
+        # height = max(height, 10 log10(level + 1e-300) + noise_margin_db), in place
+        level += 1e-300
+        np.log10(level, out=level)
+        level *= 10.0
+        level += noise_margin_db
+        np.maximum(height, level, out=height)
     return height
 
 
 def _sharp_peaks(
-    f: np.ndarray, p_db: np.ndarray, height: np.ndarray, min_prominence_db: float, f_min_hz: float, sample_rate: float
+    f: np.ndarray, p_db: np.ndarray, cand: np.ndarray, min_prominence_db: float, f_min_hz: float, sample_rate: float
 ) -> list[Peak]:
-    """The local maxima of ``p_db`` (dB over the bins ``f``, Hz) that reach ``height`` and stand
-    ``min_prominence_db`` out, between ``f_min_hz`` and 0.98 Nyquist, each interpolated
-    (parabola through three bins) and given its half-power width."""
+    """The local maxima ``cand`` (bin indices, ascending) of ``p_db`` (dB over the bins ``f``,
+    Hz), each reaching its height (:func:`_peak_height`), that stand ``min_prominence_db`` out,
+    between ``f_min_hz`` and 0.98 Nyquist, each interpolated (parabola through three bins) and
+    given its half-power width."""
     from scipy import signal
 
     df = f[1] - f[0]
     # local maxima above the height first, then the (costlier) prominence of those alone
-    inner = p_db[1:-1]
-    cand = np.flatnonzero((inner > p_db[:-2]) & (inner >= p_db[2:]) & (inner >= height[1:-1])) + 1
     prominences = signal.peak_prominences(p_db, cand)[0] if cand.size else np.empty(0)
     keep = prominences >= min_prominence_db
     peaks: list[Peak] = []
@@ -222,14 +239,18 @@ def _broad_peaks(
         cells = max(f.shape[0] / k, 2.0)
         # 2 dB more for the scatter of the Welch estimate of the noise level, as in find_peaks
         margin = (1.0 + (math.log(cells / 1e-3) + 3.0 * math.sqrt(m)) / m) * 10**0.2
-        db = 10.0 * np.log10(ps + 1e-300)
+        # above the noise's margin and at least 10 cycles over the segment (as detect.MIN_CYCLES:
+        # below, drift removal and DC leave humps that are no modes): only those bins' maxima get
+        # a prominence (the rest still bound their walks); no such bin, no peak at this scale
+        wanted = (ps > margin * ns) & (f >= 10.0 * sample_rate / n) & (f <= 0.98 * sample_rate / 2)
+        if not wanted.any():
+            continue
+        db = ps + 1e-300
+        np.log10(db, out=db)
+        db *= 10.0  # = 10 log10(ps + 1e-300), in place
         # = signal.find_peaks(db, prominence=BROAD_PROMINENCE_DB) without walking from each of the
         # ~10^4 ripple maxima of a smoothed spectrum (base._prominence)
-        for i, prom in zip(*prominent_peaks(db, BROAD_PROMINENCE_DB)):
-            # at least 10 cycles over the segment (as detect.MIN_CYCLES: below, drift removal and
-            # DC leave humps that are no modes)
-            if not (ps[i] > margin * ns[i]) or f[i] < 10.0 * sample_rate / n or f[i] > 0.98 * sample_rate / 2:
-                continue
+        for i, prom in zip(*prominent_peaks(db, BROAD_PROMINENCE_DB, where=wanted)):
             width_bins = _half_power_bins(db, i)
             if width_bins < 0.5 * k:
                 continue
@@ -263,9 +284,18 @@ def _spectrum(x: np.ndarray, sample_rate: float):
     q = max(n // 4, 1)
     w[n - q :] = 0.5 * (1 + np.cos(np.pi * np.arange(q) / q))
     nfft = 1 << int(math.ceil(math.log2(n)))
-    spec = np.fft.rfft(x * w, nfft)
-    p = (np.abs(spec) / n) ** 2
-    return np.fft.rfftfreq(nfft, 1.0 / sample_rate), 10.0 * np.log10(p + 1e-300), float(np.sum(w * w))
+    # x * w zero-padded to nfft, written into one buffer (w is 1 before the taper), and the dB
+    # spectrum computed in place: the same numbers as rfft(x * w, nfft) and 10 log10(|.|^2 / n^2)
+    buf = np.zeros(nfft)
+    buf[:n] = x
+    buf[n - q : n] *= w[n - q :]
+    p = np.abs(np.fft.rfft(buf))
+    p /= n
+    np.square(p, out=p)
+    p += 1e-300
+    np.log10(p, out=p)
+    p *= 10.0
+    return np.fft.rfftfreq(nfft, 1.0 / sample_rate), p, float(np.sum(w * w))
 
 
 def group_bands(

@@ -1035,8 +1035,8 @@ def _subtract_poles(
     z = (np.exp(np.outer(np.arange(nb) * b, p))[:, None, :] * np.exp(np.outer(np.arange(b), p))[None, :, :]).reshape(
         nb * b, p.shape[0]
     )[:n]
-    phi = np.empty((n, 2 * p.shape[0]))
-    phi[:, 0::2], phi[:, 1::2] = z.real, z.imag
+    # columns Re z_0, Im z_0, Re z_1, ...: the complex array's own memory read as floats (no copy)
+    phi = z.view(np.float64)
     gram = phi.T @ phi
     d = 1.0 / np.sqrt(np.maximum(np.diag(gram), 1e-300))
     gram_s = gram * np.outer(d, d)

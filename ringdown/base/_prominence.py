@@ -15,8 +15,9 @@ out (most ripple maxima: one of their neighbours is higher and the dip between t
 For the rest, the nearest higher maximum on each side comes from binary lifting on a sparse
 table of range maxima and the base from one range-minimum query (sparse tables: Bender &
 Farach-Colton, "The LCA problem revisited", LATIN 2000 [from memory]): O(n + m log m) for m
-maxima. The result equals scipy's bit for bit (the same minima, the same subtraction;
-``tests/test_fast_paths.py``).
+maxima; when at most :data:`_DIRECT_WALKS` peaks are left (a caller's ``where`` leaves few), each
+walks the maxima directly instead, O(m) apiece. The result equals scipy's bit for bit (the same
+minima, the same subtraction; ``tests/test_fast_paths.py``).
 """
 
 from __future__ import annotations
@@ -24,6 +25,11 @@ from __future__ import annotations
 import numpy as np
 
 __all__ = ["prominent_peaks"]
+
+
+#: At most this many peaks left after the neighbour test are walked directly; more take the
+#: sparse tables (their build, ~2 log2(m) passes over the m maxima, outweighs a few O(m) walks).
+_DIRECT_WALKS = 8
 
 
 def _tables(a: np.ndarray, op) -> list[np.ndarray]:
@@ -47,7 +53,9 @@ def _range_min(t: list[np.ndarray], lo: np.ndarray, hi: np.ndarray) -> np.ndarra
     return out
 
 
-def prominent_peaks(x: np.ndarray, min_prominence: float) -> tuple[np.ndarray, np.ndarray]:
+def prominent_peaks(
+    x: np.ndarray, min_prominence: float, *, where: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray]:
     """Local maxima of ``x`` with a prominence of at least ``min_prominence``, and those prominences.
 
     Equals ``idx, props = scipy.signal.find_peaks(x, prominence=min_prominence)`` with
@@ -60,6 +68,10 @@ def prominent_peaks(x: np.ndarray, min_prominence: float) -> tuple[np.ndarray, n
     ----------
     x : (n,) array_like of float, finite
     min_prominence : float, units of ``x``
+    where : (n,) ndarray of bool, optional
+        Report only the peaks at samples where this is True (the others still bound their
+        neighbours' walks, so each prominence is the one without ``where``); a caller that
+        drops most peaks by another test passes it to skip their walks.
 
     Returns
     -------
@@ -85,9 +97,22 @@ def prominent_peaks(x: np.ndarray, min_prominence: float) -> tuple[np.ndarray, n
     left_end = np.r_[True, v[:-1] > v[1:]]
     right_end = np.r_[v[1:] > v[:-1], True]
     out = (left_end & (v - gap[:-1] < min_prominence)) | (right_end & (v - gap[1:] < min_prominence))
+    if where is not None:
+        out |= ~np.asarray(where, dtype=bool)[idx]
     live = np.flatnonzero(~out)
     if live.size == 0:
         return idx[:0], np.empty(0)
+    if live.size <= _DIRECT_WALKS:
+        # a few peaks: walk each directly over the maxima (O(m) apiece), no tables
+        prom = np.empty(live.size)
+        for a, i in enumerate(live):
+            higher_l = np.flatnonzero(v[:i] > v[i])
+            higher_r = np.flatnonzero(v[i + 1 :] > v[i])
+            jl = int(higher_l[-1]) if higher_l.size else -1
+            jr = i + 1 + int(higher_r[0]) if higher_r.size else m
+            prom[a] = v[i] - max(np.min(gap[jl + 1 : i + 1]), np.min(gap[i + 1 : jr + 1]))
+        keep = prom >= min_prominence
+        return idx[live[keep]], prom[keep]
     # the rest: the nearest higher maximum on each side by binary lifting on the range maxima
     # of v, and the lowest gap on the way by one range-minimum query
     vmax, gmin = _tables(v, np.maximum), _tables(gap, np.minimum)
