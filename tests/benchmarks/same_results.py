@@ -7,7 +7,7 @@ Runs ``ringdown.analyze_file`` on every WAV and CSV file under ``example_signals
 from before the change, it compares the two text for text and names the analyses that differ
 (with the first place where they do). Deterministic: two runs of the same code give the same file.
 
-Run: ``python tools/same_results.py AFTER.json [--against BEFORE.json] [--records N] [--noise M]``
+Run: ``python tests/benchmarks/same_results.py AFTER.json [--against BEFORE.json] [--records N] [--noise M]``
 (default 60 records and 40 noise records per seed; about a minute on a loaded 2-core machine).
 Exit status 1 when an analysis differs.
 """
@@ -20,7 +20,7 @@ import os
 import sys
 from pathlib import Path
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 
 
 def _text(fn, *args) -> str:
