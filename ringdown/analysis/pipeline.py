@@ -871,7 +871,9 @@ def _with_residual(
     the ``retry`` candidates it did not find either are named in ``rejected`` now, as the first
     pass would have (against the first pass's modes only: a residual-search mode far from one is
     not its pair)."""
-    more, more_rejected = _residual_round(hctx, start, modes, tried, deferred, broad=broad)
+    more, more_rejected = _residual_round(
+        hctx, start, modes, tried, deferred, broad=broad, broad_round=int(bool(retry))
+    )
     rejected.extend(more_rejected)
     first, unmatched = _match_candidates(modes, [c for c in retry if not any(_near(m, c) for m in more)], False)
     rejected.extend(unmatched)
@@ -1056,6 +1058,7 @@ def _residual_round(
     deferred: Sequence[Candidate] = (),
     *,
     broad: bool = True,
+    broad_round: int = 0,
 ):
     """Modes the first search could not see beside stronger ones: subtract every measured mode
     from the decay (CLEAN, Hogbom 1974 [from memory]: successive cancellation of the strongest
@@ -1064,9 +1067,12 @@ def _residual_round(
     has room, else on the record itself jointly with the measured modes (a broad, fast decay: raw
     fit, :func:`_measure_raw`). The ``deferred`` candidates (too broad for a band) are fitted so
     after the first round. Broad peaks
-    (``find_peaks(broad=True)``) are looked for in the first residual only, where the sharp
-    modes and their skirts are gone; later rounds look for sharp peaks only, since subtracting a
-    strong broad mode leaves a broadband remnant. Returns ``(modes, rejected)``."""
+    (``find_peaks(broad=True)``) are looked for in one residual only, where the sharp
+    modes and their skirts are gone: the first, or round ``broad_round`` (1 when the first pass
+    left candidates for the residual search to look for again, whose modes, measured in the
+    first round, would hide broad humps beside them until subtracted); other rounds look for
+    sharp peaks only, since subtracting a strong broad mode leaves a broadband remnant. Returns
+    ``(modes, rejected)``."""
     ctx = hctx.record
     fs, x = ctx.fs, ctx.x
     seg_end = hctx.seg_end - ctx.i0
@@ -1084,13 +1090,13 @@ def _residual_round(
     # round finds a mode there (a row of real modes, each sharp enough once the others are gone)
     row: list[Rejected] = []
     row_cands: list[Candidate] = []
-    for round_ in range(RESIDUAL_ROUNDS):
+    for round_ in range(RESIDUAL_ROUNDS + broad_round):
         resid = _subtract_modes(decay, fs, known)
-        # broad peaks in the first residual only: after a strong broad mode is subtracted, its
+        # broad peaks in one residual only: after a strong broad mode is subtracted, its
         # broadband remnant makes humps a smoothed search would take for modes
-        peaks = find_peaks(resid, fs, noise_psd=(ctx.noise_f, ctx.noise_p), broad=broad and round_ == 0)
+        peaks = find_peaks(resid, fs, noise_psd=(ctx.noise_f, ctx.noise_p), broad=broad and round_ == broad_round)
         fresh = _fresh_peaks(peaks, known, tried, res_hz)
-        if not fresh:
+        if not fresh and round_ >= broad_round:
             break
         tried += [(p.f_hz, max(p.width_hz, res_hz)) for p in fresh]
         found_round: list[Mode] = []
@@ -1116,7 +1122,7 @@ def _residual_round(
         # the row's humps may be looked at again by the next (sharp) round
         gone = {(c.f_hz, c.width_hz) for c in row_cands[n_row:]}
         tried = [t for t in tried if t not in gone]
-        if not found_round and len(row_cands) == n_row:
+        if not found_round and len(row_cands) == n_row and round_ >= broad_round:
             break
         known += found_round
         new_modes += found_round
