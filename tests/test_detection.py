@@ -278,6 +278,60 @@ def test_unresolved_envelope_fallback_is_not_a_mode(detection):
     )
 
 
+def _found_and_within(a, tr, k_u: float = 3.0):
+    """The reported mode paired with the true mode ``tr`` by the benchmark's rule (within
+    ``max(3 beta / pi, 3 u(f_d), 0.2 %)`` of its frequency: tests/benchmarks/detection.py),
+    checked against the truth within ``k_u`` standard uncertainties in f_d and beta (3 u: a
+    miss 1 time in 370 for an honest Gaussian u, common practice, no source)."""
+    near = [
+        m
+        for m in a.modes
+        if abs(m.f_d_hz - tr["f"]) <= max(3 * m.beta_per_s / math.pi, 3 * m.f_d_hz_u, 0.002 * tr["f"])
+    ]
+    assert near, (tr["f"], [round(m.f_d_hz, 2) for m in a.modes])
+    m = min(near, key=lambda m: abs(m.f_d_hz - tr["f"]))
+    assert abs(m.f_d_hz - tr["f"]) <= k_u * m.f_d_hz_u, (tr["f"], m.f_d_hz, m.f_d_hz_u)
+    assert abs(m.beta_per_s - tr["beta"]) <= k_u * m.beta_per_s_u, (tr["beta"], m.beta_per_s, m.beta_per_s_u)
+    return m
+
+
+def test_broad_mode_beside_a_retried_one_is_found(detection):
+    """Record 35 of the benchmark (48 kHz, 7 modes; exact truth: the stated parameters): the
+    0 dB mode at 2066 Hz (Q 16) is not measured by the first pass (its band fit left it out) and
+    is looked for again by the residual search, whose first round measures it; the 3482 Hz mode
+    (Q 12, 15 dB down, 1.5 half-power widths of the first away) was hidden under the first
+    mode's hump in that round's broad search and never looked for again (later rounds look for
+    sharp peaks only). The broad search now runs on the residual of the round after the retried
+    candidates are measured, and finds it."""
+    if detection == "model":
+        pytest.skip("the residual search belongs to the default search")
+    x, fs, truth = _benchmark_record(35)
+    a = analyze(x, fs)
+    (tr,) = [t for t in truth if abs(t["f"] - 3482.116) < 1.0]
+    m = _found_and_within(a, tr)
+    assert m.fit_path == "raw"
+    for m in a.modes:
+        assert min(abs(m.f_d_hz - t["f"]) for t in truth) <= max(3 * m.beta_per_s / math.pi, 0.002 * m.f_d_hz)
+
+
+def test_short_raw_fit_holds_the_poles_of_slow_modes(detection):
+    """Record 45 of the second benchmark population (seed 7, 16 kHz; exact truth: the stated
+    parameters): two broad modes (3609 Hz, Q 16 at 0 dB; 4979 Hz, Q 18) fill a raw-fit window
+    of 5.5 ms, in which the measured modes at 383 and 446 Hz complete about two cycles. Carried
+    as free poles they wandered (to 0 Hz, and to 404 Hz growing), the covariance came out
+    indefinite and both targets were dropped ("no decaying mode was fitted in its band"), and
+    with them the 1652 Hz mode 42 dB down. A measured mode with fewer than
+    ``detect.MIN_CYCLES`` cycles in the window is now subtracted with its pole held; every
+    clearly detectable mode of the record is found within 3 u."""
+    if detection == "model":
+        pytest.skip("the raw fits of the residual search belong to the default search")
+    x, fs, truth = _benchmark_record(45, seed=7)
+    a = analyze(x, fs)
+    for tr in truth:
+        if tr["clear"]:
+            _found_and_within(a, tr)
+
+
 def test_growing_fit_is_named_growing(detection):
     """A 437 Hz component whose amplitude grows as exp(+1 t) (exact: the stated signal) is not a
     decay: every candidate is rejected as fit_failed, and the reason says the fitted pole grows

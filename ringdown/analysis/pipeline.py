@@ -1535,31 +1535,54 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
         if c.snr is None or c.snr * share >= thr:
             ranked.append((c.snr * share if c.snr is not None else float("inf"), c))
     others = [c for _, c in sorted(ranked, key=lambda o: -o[0])][:MAX_RAW_NUISANCE]
-    poles = [(c.f_hz, beta_of(c)) for c in targets + others]
-    # every other measured mode is subtracted with its pole held (amplitudes fitted over the
-    # window at the full rate): left in, it would alias into the thinned samples of the fit
-    fixed = [c for c in cands if c.source == "measured" and c not in targets and c not in others]
-    fit_seg = seg
-    if fixed:
-        n_win = min(seg.shape[0], max(int(round(dur * fs)), 1))
-        fit_seg = np.array(seg, dtype=np.float64)
-        fit_seg[:n_win] = _subtract_poles(
-            seg[:n_win], fs, [(c.f_hz, beta_of(c)) for c in fixed], keep=[(c.f_hz, beta_of(c)) for c in others]
-        )
 
-    def fit(duration_s: float) -> list[Estimate]:
-        return estimate_real(
-            fit_seg,
-            fs,
-            t0_s=(start + ctx.i0) / fs,
-            poles=poles,
-            n_targets=len(targets),
-            duration_s=duration_s,
-            noise_f=ctx.noise_f,
-            noise_p=ctx.noise_p,
-        )
+    def fit_with(carried: list[Candidate], joint: bool = False) -> Callable[[float], list[Estimate]]:
+        """The fit over a window (s) with ``carried`` modes' poles free. Every other measured
+        mode is subtracted with its pole held (amplitudes fitted over the window at the full
+        rate, jointly with the carried poles, and with the targets' too when ``joint``): left
+        in, it would alias into the thinned samples of the fit."""
+        poles = [(c.f_hz, beta_of(c)) for c in targets + carried]
+        fixed = [c for c in cands if c.source == "measured" and c not in targets and c not in carried]
+        fit_seg = seg
+        if fixed:
+            n_win = min(seg.shape[0], max(int(round(dur * fs)), 1))
+            fit_seg = np.array(seg, dtype=np.float64)
+            fit_seg[:n_win] = _subtract_poles(
+                seg[:n_win],
+                fs,
+                [(c.f_hz, beta_of(c)) for c in fixed],
+                keep=[(c.f_hz, beta_of(c)) for c in (targets if joint else []) + carried],
+            )
 
-    ests = fit(dur)
+        def fit(duration_s: float) -> list[Estimate]:
+            return estimate_real(
+                fit_seg,
+                fs,
+                t0_s=(start + ctx.i0) / fs,
+                poles=poles,
+                n_targets=len(targets),
+                duration_s=duration_s,
+                noise_f=ctx.noise_f,
+                noise_p=ctx.noise_p,
+            )
+
+        return fit
+
+    fit = fit_with(others)
+    slow = [c for c in others if c.source == "measured" and c.f_hz * dur < detect.MIN_CYCLES]
+    try:
+        ests = fit(dur)
+    except FitError:
+        if not slow:
+            raise
+        ests = []
+    if not ests and slow:
+        # no target came out decaying with a credible covariance: a carried mode with fewer than
+        # detect.MIN_CYCLES cycles in the window cannot have its pole refined there, and free it
+        # wandered (to 0 Hz, or growing) and made the covariance indefinite. Its pole is held
+        # (measured over its whole decay) and its amplitude fitted jointly with the targets'
+        fit = fit_with([c for c in others if c not in slow], joint=True)
+        ests = fit(dur)
     try:
         half = fit(0.5 * dur)
     except FitError:
