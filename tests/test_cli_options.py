@@ -62,8 +62,13 @@ def test_every_reading_command_takes_the_same_reader_options():
         for flag in flags.values():
             assert flag in opts, f"{name} lacks {flag}"
             p = opts[flag]
-            sig = (p.name, p.help, str(p.display_type), p.default)
+            sig = (p.name, p.help, _type_text(p), p.default)
             assert seen.setdefault(flag, sig) == sig, f"{name} {flag} differs from the shared definition"
+
+
+def _type_text(param) -> str:
+    # typer 0.29 keeps an option's type as `display_type`, typer 0.28 (click's way) as `type`
+    return str(getattr(param, "display_type", None) or param.type)
 
 
 def test_every_windowed_command_takes_the_same_time_window():
@@ -73,7 +78,7 @@ def test_every_windowed_command_takes_the_same_time_window():
         for flag in ("--start", "--end"):
             assert flag in opts, f"{name} lacks {flag}"
     sigs = {
-        (p.name, p.help, str(p.display_type))
+        (p.name, p.help, _type_text(p))
         for name in ("analyze", "compare", "limits learn", "check")
         for flag in ("--start", "--end")
         for p in [_options(READING[name])[flag]]

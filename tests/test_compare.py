@@ -391,7 +391,7 @@ def test_plot_and_html_escape():
     from matplotlib.figure import Figure
 
     from ringdown.render.compare_plot import plot_comparison
-    from ringdown.render.report import comparison_html, render_comparison_report
+    from ringdown.render.report_compare import comparison_html, render_comparison_report
 
     rng = np.random.default_rng(14)
     b = make_analysis(repeats([300.0, 800.0], [0.002, 0.003], 3, rng), path="bare <1>&.wav")

@@ -450,7 +450,8 @@ def test_to_dict_keys_do_not_depend_on_the_inputs():
 
 
 def test_report_section_escapes_and_lists_the_budget():
-    from ringdown.render.report import moduli_section, render_report
+    from ringdown.render.report import render_report
+    from ringdown.render.report_moduli import moduli_section
 
     bar, ff, ft = _steel_bar()
     bar = RectangularBar(bar.length_m, bar.width_m, bar.thickness_m, bar.mass_kg, 1e-5, 1e-5, 5e-6, 1e-6)

@@ -366,7 +366,7 @@ def _cells_with_class(text: str, css: str) -> list[str]:
 
 def test_check_report_verdicts_header_and_signoff():
     from ringdown.inspection.limits_file import parse_limits
-    from ringdown.render.report import render_check_report
+    from ringdown.render.report_check import render_check_report
 
     lim = parse_limits("[[modes]]\nf_hz = [1400.0, 1500.0]\n", source="lim.toml")
     rows = [

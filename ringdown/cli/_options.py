@@ -173,11 +173,17 @@ Band = Annotated[
     ),
 ]
 MaxModes = Annotated[Optional[int], typer.Option("--max-modes", help="Keep at most this many modes (the strongest).")]
-_MIN_SNR = typer.Option("--min-snr-db", help="Fits end where a mode is this far above its band noise, dB.")
+_MIN_SNR = typer.Option(
+    "--min-snr-db",
+    help="Fits end where a mode is this far above its band noise, dB (10: the margin ISO 3382-2 keeps above the noise).",
+)
 MinSnrDb = Annotated[float, _MIN_SNR]
 MinSnrDbIfGiven = Annotated[Optional[float], _MIN_SNR]
 MinHitSnrDb = Annotated[
-    float, typer.Option("--min-hit-snr-db", help="A hit must rise this far above the noise floor, dB.")
+    float,
+    typer.Option(
+        "--min-hit-snr-db", help="A hit must rise this far above the noise floor, dB (20: common practice, no source)."
+    ),
 ]
 
 

@@ -84,7 +84,7 @@ def format_table(comparison: Comparison) -> str:
         "p",
         "verdict",
     )
-    from ..render.report import comparison_cells
+    from ..render.report_compare import comparison_cells
 
     rows = [(*comparison_cells(m, times="x", digits=4, missing="-"), m.damping.verdict) for m in comparison.modes]
     widths = [max(len(r[k]) for r in [head, *rows]) for k in range(len(head))]
@@ -137,7 +137,7 @@ def _write_plot(comparison, out_dir: Path) -> Path:
 
 def _write_report(comparison, out: Path, header: dict) -> None:
     from ..io.outputs import atomic_write
-    from ..render.report import render_comparison_report
+    from ..render.report_compare import render_comparison_report
 
     text = render_comparison_report(comparison, **header)
     with atomic_write(out, what="report") as fh:  # renamed into place: never half a report

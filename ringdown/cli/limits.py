@@ -148,7 +148,8 @@ def _write_report(rows: list[dict], limits, path: str, options: dict, header: di
     in this process, because a batch keeps no samples (the verdicts come from the batch)."""
     from ..analysis.pipeline import analyze_file
     from ..analysis.results import Analysis
-    from ..render.report import Section, _write, html_table, render_check_report
+    from ..render.report import Section, _write, html_table
+    from ..render.report_check import render_check_report
 
     opts = {**limits.analysis_options(), **options}
     analyses: list[Analysis | None] = []

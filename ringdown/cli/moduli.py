@@ -146,7 +146,8 @@ def _write_csv(result, out: Path) -> None:
 
 
 def _write_report(result, out: Path, settings: dict, header: dict) -> None:
-    from ..render.report import moduli_section, write_report
+    from ..render.report import write_report
+    from ..render.report_moduli import moduli_section
 
     header = {**header, "title": header.get("title") or "Elastic moduli from a tap"}
     write_report(list(result.analyses), out, settings=settings, extra_sections=[moduli_section(result)], **header)
