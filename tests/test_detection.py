@@ -314,6 +314,23 @@ def test_broad_mode_beside_a_retried_one_is_found(detection):
         assert min(abs(m.f_d_hz - t["f"]) for t in truth) <= max(3 * m.beta_per_s / math.pi, 0.002 * m.f_d_hz)
 
 
+def test_broad_peak_within_a_widened_u_is_not_taken_for_a_remnant(detection):
+    """Record 31 of the benchmark (48 kHz, two taps; exact truth: the stated parameters): the
+    modes at 84, 95 and 102 Hz share a band, their cross-checks disagree, and their u are
+    widened to 17-34 Hz (``methods_disagree``). A 16 Hz wide peak of the residual at 152 Hz
+    (the mode of Q 9.7, 20 dB down) lay within 3 u of them and was taken for their remnant. A
+    remnant of a subtracted mode is as narrow as the mode (beta / pi, or the resolution:
+    Lorentzian line, FIELD.md section 1); the peak is now measured, within 3 u of the truth."""
+    if detection == "model":
+        pytest.skip("the residual search belongs to the default search")
+    x, fs, truth = _benchmark_record(31)
+    a = analyze(x, fs)
+    (tr,) = [t for t in truth if abs(t["f"] - 151.915) < 0.5]
+    _found_and_within(a, tr)
+    for m in a.modes:
+        assert min(abs(m.f_d_hz - t["f"]) for t in truth) <= max(3 * m.beta_per_s / math.pi, 0.002 * m.f_d_hz)
+
+
 def test_short_raw_fit_holds_the_poles_of_slow_modes(detection):
     """Record 45 of the second benchmark population (seed 7, 16 kHz; exact truth: the stated
     parameters): two broad modes (3609 Hz, Q 16 at 0 dB; 4979 Hz, Q 18) fill a raw-fit window

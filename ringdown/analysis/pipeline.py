@@ -1153,13 +1153,25 @@ def _fresh_peaks(
 ) -> list[Peak]:
     """The peaks of a residual not near a mode measured so far (within twice its half-power
     width, three resolutions or three standard uncertainties) nor near a candidate already tried
-    (``(f_hz, width_hz)``, within its width or two resolutions)."""
+    (``(f_hz, width_hz)``, within its width or two resolutions).
+
+    The three uncertainties count only for a peak that could be the mode's remnant: one at most
+    ``WIDTH_MISMATCH`` times as wide as the mode's half-power width ``beta / pi`` or the
+    resolution. A mode subtracted with a slightly wrong pole leaves a line of its own width
+    (Lorentzian, FIELD.md section 1); a far broader hump within a u that the disagreement of
+    cross-checks widened (tens of Hz for a lightly damped mode of a crowded band) is another
+    mode."""
+
+    def near(p: Peak, m: Mode) -> bool:
+        d = abs(p.f_hz - m.f_d_hz)
+        if d <= max(2.0 * m.beta_per_s / math.pi, 3.0 * res_hz):
+            return True
+        remnant = p.width_hz <= WIDTH_MISMATCH * max(m.beta_per_s / math.pi, res_hz)
+        return remnant and d <= 3.0 * (m.f_d_hz_u or 0.0)
+
     fresh = []
     for p in peaks:
-        near_mode = any(
-            abs(p.f_hz - m.f_d_hz) <= max(2.0 * m.beta_per_s / math.pi, 3.0 * res_hz, 3.0 * (m.f_d_hz_u or 0.0))
-            for m in known
-        )
+        near_mode = any(near(p, m) for m in known)
         near_cand = any(abs(p.f_hz - f) <= max(w, 2.0 * res_hz) for f, w in tried)
         if not (near_mode or near_cand):
             fresh.append(p)
