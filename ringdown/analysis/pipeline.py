@@ -1236,7 +1236,8 @@ WIDTH_MISMATCH = 4.0
 
 def _resolved_raw(got: list[Mode], rejected: list[Rejected], cands: Sequence[Candidate] = ()) -> list[Mode]:
     """Raw-fit modes of the residual search whose decay is resolved (beta above 3 standard
-    uncertainties) and, for a broad candidate, explains its hump's width (``WIDTH_MISMATCH``):
+    uncertainties) and explains the width of the peak it was fitted to (neither ``WIDTH_MISMATCH``
+    times narrower nor that many times wider than it or the resolution):
     a broad hump in the residual is a heavily damped mode only then; the others are named
     ``near_noise`` (no decay resolved) or ``unresolved`` (a remnant of a subtracted mode)."""
     out = []
@@ -1267,6 +1268,18 @@ def _resolved_raw(got: list[Mode], rejected: list[Rejected], cands: Sequence[Can
                     f"fitted half-power width {m.beta_per_s / math.pi:.3g} Hz is far narrower than "
                     f"the {c.width_hz:.3g} Hz hump it was fitted to: a remnant of a subtracted "
                     "mode, not a heavily damped one",
+                )
+            )
+        elif c is not None and m.beta_per_s / math.pi > WIDTH_MISMATCH * max(c.width_hz, c.resolution_hz):
+            rejected.append(
+                Rejected(
+                    m.f_d_hz,
+                    m.beta_per_s,
+                    None,
+                    "unresolved",
+                    f"fitted half-power width {m.beta_per_s / math.pi:.3g} Hz is far wider than "
+                    f"the {c.width_hz:.3g} Hz peak it was fitted to: the fit modelled something "
+                    "else (a remnant of the subtracted modes), not this peak",
                 )
             )
         else:
