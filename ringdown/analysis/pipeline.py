@@ -1138,8 +1138,17 @@ def _round_groups(fresh: list, fs: float, res_hz: float, tones: tuple, known: li
     the record itself (:func:`_measure_raw`).
     """
     barriers = tones + tuple(m.f_d_hz for m in known)
+    sharp, broad = [p for p in fresh if not p.broad], [p for p in fresh if p.broad]
+    # the sharp peaks and the smoothed search's broad humps are banded apart: a broad hump needs
+    # a band many of its widths wide, and one grouped with a sharp peak took it into its raw fit,
+    # whose short window cannot resolve a lightly damped decay (the sharp peak was then lost as
+    # decaying less than 6 dB); a sharp peak's band stops short of a hump's centre
+    parts = [
+        group_bands(sharp, sample_rate=fs, resolution_hz=res_hz, barriers_hz=barriers + tuple(p.f_hz for p in broad)),
+        group_bands(broad, sample_rate=fs, resolution_hz=res_hz, barriers_hz=barriers),
+    ]
     groups = []
-    for g, lo, hi in group_bands(fresh, sample_rate=fs, resolution_hz=res_hz, barriers_hz=barriers):
+    for g, lo, hi in (grp for part in parts for grp in part):
         gc = [
             Candidate(p.f_hz, math.pi * p.width_hz, max(p.width_hz, res_hz), None, None, "residual", -2, res_hz)
             for p in g
