@@ -1113,8 +1113,17 @@ def _residual_round(
                     got = _measure_group(hctx, g, lo, hi, [])
             except FitError as exc:
                 reason = "near_noise" if "above its band noise" in str(exc) else "fit_failed"
-                rejected.extend(_rejection(c, reason, str(exc)) for c in gc)
-                continue
+                got = None
+                if not raw and reason == "near_noise":
+                    # the band's settling ate the decay (a fast decay, or a band bounded by its
+                    # neighbours): the record itself from the decay's first sample holds it all
+                    try:
+                        got = _measure_raw(hctx, gc, gc + _as_candidates(known + found_round, res_hz), start)
+                    except FitError:
+                        got = None
+                if not got:
+                    rejected.extend(_rejection(c, reason, str(exc)) for c in gc)
+                    continue
             got = _resolved_raw(_new_near(got, gc, known + found_round, res_hz), rejected, gc)
             got, unmatched = _match_candidates(got, gc, False)
             rejected.extend(unmatched)
