@@ -1113,14 +1113,14 @@ def _residual_round(
                     got = _measure_group(hctx, g, lo, hi, [])
             except FitError as exc:
                 reason = "near_noise" if "above its band noise" in str(exc) else "fit_failed"
-                got = None
+                got = []
                 if not raw and reason == "near_noise":
                     # the band's settling ate the decay (a fast decay, or a band bounded by its
                     # neighbours): the record itself from the decay's first sample holds it all
                     try:
                         got = _measure_raw(hctx, gc, gc + _as_candidates(known + found_round, res_hz), start)
                     except FitError:
-                        got = None
+                        got = []
                 if not got:
                     rejected.extend(_rejection(c, reason, str(exc)) for c in gc)
                     continue
