@@ -168,10 +168,10 @@ def test_close_pair_one_half_power_bandwidth_apart():
 
 @pytest.mark.xfail(
     strict=True,
-    reason="16 of the 20 modes are found by the default search (1045, 1269, 1541 and 2273 Hz, Q 20-67 "
-    "and 23-38 dB down, are missed: the residual search's first round sees 481-1544 Hz as a row of "
-    "five broad humps, too many for one raw fit, and the sharp round after it finds only 481 and "
-    "861 Hz there) and 16 by the model search",
+    reason="19 of the 20 modes are found by the default search (2273 Hz, Q 20 and 23 dB down, is "
+    "missed: no search proposes it; the raw fit of a remnant hump at 509 Hz wanders to it, 2275 Hz "
+    "and beta 352 1/s against the true 357, and is dropped as far from its candidate) and 16 by the "
+    "model search",
 )
 def test_twenty_modes_40_db_apart():
     rng = np.random.default_rng(1)
@@ -276,6 +276,127 @@ def test_unresolved_envelope_fallback_is_not_a_mode(detection):
         r.reason == "fit_failed" and "not resolved from the noise" in r.detail and 3000 < r.f_hz < 3600
         for r in a.rejected
     )
+
+
+def _found_and_within(a, tr, k_u: float = 3.0):
+    """The reported mode paired with the true mode ``tr`` by the benchmark's rule (within
+    ``max(3 beta / pi, 3 u(f_d), 0.2 %)`` of its frequency: tests/benchmarks/detection.py),
+    checked against the truth within ``k_u`` standard uncertainties in f_d and beta (3 u: a
+    miss 1 time in 370 for an honest Gaussian u, common practice, no source)."""
+    near = [
+        m
+        for m in a.modes
+        if abs(m.f_d_hz - tr["f"]) <= max(3 * m.beta_per_s / math.pi, 3 * m.f_d_hz_u, 0.002 * tr["f"])
+    ]
+    assert near, (tr["f"], [round(m.f_d_hz, 2) for m in a.modes])
+    m = min(near, key=lambda m: abs(m.f_d_hz - tr["f"]))
+    assert abs(m.f_d_hz - tr["f"]) <= k_u * m.f_d_hz_u, (tr["f"], m.f_d_hz, m.f_d_hz_u)
+    assert abs(m.beta_per_s - tr["beta"]) <= k_u * m.beta_per_s_u, (tr["beta"], m.beta_per_s, m.beta_per_s_u)
+    return m
+
+
+def test_broad_mode_beside_a_retried_one_is_found(detection):
+    """Record 35 of the benchmark (48 kHz, 7 modes; exact truth: the stated parameters): the
+    0 dB mode at 2066 Hz (Q 16) is not measured by the first pass (its band fit left it out) and
+    is looked for again by the residual search, whose first round measures it; the 3482 Hz mode
+    (Q 12, 15 dB down, 1.5 half-power widths of the first away) was hidden under the first
+    mode's hump in that round's broad search and never looked for again (later rounds look for
+    sharp peaks only). The broad search now runs on the residual of the round after the retried
+    candidates are measured, and finds it."""
+    if detection == "model":
+        pytest.skip("the residual search belongs to the default search")
+    x, fs, truth = _benchmark_record(35)
+    a = analyze(x, fs)
+    (tr,) = [t for t in truth if abs(t["f"] - 3482.116) < 1.0]
+    m = _found_and_within(a, tr)
+    assert m.fit_path == "raw"
+    for m in a.modes:
+        assert min(abs(m.f_d_hz - t["f"]) for t in truth) <= max(3 * m.beta_per_s / math.pi, 0.002 * m.f_d_hz)
+
+
+def test_broad_peak_within_a_widened_u_is_not_taken_for_a_remnant(detection):
+    """Record 31 of the benchmark (48 kHz, two taps; exact truth: the stated parameters): the
+    modes at 84, 95 and 102 Hz share a band, their cross-checks disagree, and their u are
+    widened to 17-34 Hz (``methods_disagree``). A 16 Hz wide peak of the residual at 152 Hz
+    (the mode of Q 9.7, 20 dB down) lay within 3 u of them and was taken for their remnant. A
+    remnant of a subtracted mode is as narrow as the mode (beta / pi, or the resolution:
+    Lorentzian line, FIELD.md section 1); the peak is now measured, within 3 u of the truth."""
+    if detection == "model":
+        pytest.skip("the residual search belongs to the default search")
+    x, fs, truth = _benchmark_record(31)
+    a = analyze(x, fs)
+    (tr,) = [t for t in truth if abs(t["f"] - 151.915) < 0.5]
+    _found_and_within(a, tr)
+    for m in a.modes:
+        assert min(abs(m.f_d_hz - t["f"]) for t in truth) <= max(3 * m.beta_per_s / math.pi, 0.002 * m.f_d_hz)
+
+
+@pytest.mark.parametrize("seed, index, f_true", [(7, 47, 538.029), (20261201, 42, 41.628)])
+def test_sharp_residual_peak_is_not_fitted_with_a_broad_hump(detection, seed, index, f_true):
+    """Benchmark records (exact truth: the stated parameters) where the residual search finds a
+    sharp peak of a lightly damped mode (538 Hz, Q 76 000, 46 dB down; 41.6 Hz, Q 890, 48 dB
+    down) and, in the same round, a broad hump thousands of Hz away (5.7 kHz, Q 7; 261 Hz, Q 3.4).
+    The hump's band, many of its widths wide, took the sharp peak into its raw fit, whose short
+    window (tens to hundreds of ms) cannot resolve a decay of a few dB per second; the fit was
+    dropped as decaying less than 6 dB and the candidate named "fitted as one mode" with the
+    hump. Sharp peaks and broad humps are now banded apart: the sharp one is measured in its own
+    band, within 3 u of the truth."""
+    if detection == "model":
+        pytest.skip("the residual search belongs to the default search")
+    x, fs, truth = _benchmark_record(index, seed=seed)
+    a = analyze(x, fs)
+    (tr,) = [t for t in truth if abs(t["f"] - f_true) < 0.01]
+    assert _found_and_within(a, tr).fit_path == "band"
+    for m in a.modes:
+        assert min(abs(m.f_d_hz - t["f"]) for t in truth) <= max(3 * m.beta_per_s / math.pi, 0.002 * m.f_d_hz)
+
+
+def test_raw_fit_far_wider_than_its_peak_is_not_a_mode(detection):
+    """Record 18 of the benchmark (48 kHz; exact truth: the stated parameters, no mode above
+    10.2 kHz): a 15 Hz wide residual peak at 17.7 kHz, left by the subtraction of the strong
+    modes, was fitted on the record as a decay of half-power width 105 Hz (beta 330 1/s) and
+    reported as a mode at 17.8 kHz. A decay explains a peak only with about its width (beta / pi,
+    Lorentzian line: FIELD.md section 1); a fit ``WIDTH_MISMATCH`` times wider is now named
+    ``unresolved`` with that reason, and every reported mode is a true one."""
+    if detection == "model":
+        pytest.skip("the residual search belongs to the default search")
+    x, fs, truth = _benchmark_record(18)
+    a = analyze(x, fs)
+    for m in a.modes:
+        assert min(abs(m.f_d_hz - t["f"]) for t in truth) <= max(3 * m.beta_per_s / math.pi, 0.002 * m.f_d_hz)
+    assert any(r.reason == "unresolved" and "far wider than" in r.detail and 17000 < r.f_hz < 18500 for r in a.rejected)
+
+
+def test_band_fit_lost_to_settling_is_refitted_on_the_record(detection):
+    """Record 8 of the benchmark (16 kHz; exact truth: the stated parameters): the residual
+    search finds the mode at 2387 Hz (Q 12, 32 dB down, beta 629 1/s), but its band filter
+    settles when the mode is 11.5 dB above the band noise and the band fit fails (``near_noise``).
+    The fit is repeated on the record from the decay's first sample, which holds the whole
+    decay, and the mode is found within 3 u of the truth."""
+    if detection == "model":
+        pytest.skip("the residual search belongs to the default search")
+    x, fs, truth = _benchmark_record(8)
+    a = analyze(x, fs)
+    (tr,) = [t for t in truth if abs(t["f"] - 2386.89) < 0.1]
+    assert _found_and_within(a, tr).fit_path == "raw"
+
+
+def test_short_raw_fit_holds_the_poles_of_slow_modes(detection):
+    """Record 45 of the second benchmark population (seed 7, 16 kHz; exact truth: the stated
+    parameters): two broad modes (3609 Hz, Q 16 at 0 dB; 4979 Hz, Q 18) fill a raw-fit window
+    of 5.5 ms, in which the measured modes at 383 and 446 Hz complete about two cycles. Carried
+    as free poles they wandered (to 0 Hz, and to 404 Hz growing), the covariance came out
+    indefinite and both targets were dropped ("no decaying mode was fitted in its band"), and
+    with them the 1652 Hz mode 42 dB down. A measured mode with fewer than
+    ``detect.MIN_CYCLES`` cycles in the window is now subtracted with its pole held; every
+    clearly detectable mode of the record is found within 3 u."""
+    if detection == "model":
+        pytest.skip("the raw fits of the residual search belong to the default search")
+    x, fs, truth = _benchmark_record(45, seed=7)
+    a = analyze(x, fs)
+    for tr in truth:
+        if tr["clear"]:
+            _found_and_within(a, tr)
 
 
 def test_growing_fit_is_named_growing(detection):

@@ -504,10 +504,19 @@ def _span_at(
     stop = min(end, onset + rules.hold + rules.bw)
     if stop <= onset:
         return None  # a rise in the record's last samples leaves no decay to measure
-    peak = onset + int(np.argmax(level_db[onset:stop]))
     bounce = _find_bounce(level_db, k, rules.bw, rules.w, rules.bounce_rise_db, end, sm + rules.w)
     if bounce is not None and slow_level_db is not None and not _energy_step(slow_level_db, k, bounce, sm):
         bounce = None
+    # the peak: the level's maximum (after a bounce, the one after it). Free decays only fall
+    # once the force has ended, so with no bounce a later maximum within half power (3 dB) of
+    # the first is the ripple or beating of lightly damped modes: it put the peak at the
+    # record's end and left no decay to measure. The peak is then the largest level within the
+    # smoothing width plus the rise window (as for the bounce search) of the first sample that
+    # reaches half the maximum's power (as the onset is timed on the ramp's half power).
+    peak = onset + int(np.argmax(level_db[onset:stop]))
+    if bounce is None:
+        first = onset + int(np.flatnonzero(level_db[onset : peak + 1] >= level_db[peak] - 3.0103)[0])
+        peak = first + int(np.argmax(level_db[first : min(peak, first + sm + rules.w) + 1]))
     return HitSpan(onset=onset, peak=peak, end=end, bounce=bounce, from_innovation=ref is not level_db)
 
 

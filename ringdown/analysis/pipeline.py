@@ -871,7 +871,9 @@ def _with_residual(
     the ``retry`` candidates it did not find either are named in ``rejected`` now, as the first
     pass would have (against the first pass's modes only: a residual-search mode far from one is
     not its pair)."""
-    more, more_rejected = _residual_round(hctx, start, modes, tried, deferred, broad=broad)
+    more, more_rejected = _residual_round(
+        hctx, start, modes, tried, deferred, broad=broad, broad_round=int(bool(retry))
+    )
     rejected.extend(more_rejected)
     first, unmatched = _match_candidates(modes, [c for c in retry if not any(_near(m, c) for m in more)], False)
     rejected.extend(unmatched)
@@ -1056,6 +1058,7 @@ def _residual_round(
     deferred: Sequence[Candidate] = (),
     *,
     broad: bool = True,
+    broad_round: int = 0,
 ):
     """Modes the first search could not see beside stronger ones: subtract every measured mode
     from the decay (CLEAN, Hogbom 1974 [from memory]: successive cancellation of the strongest
@@ -1064,9 +1067,12 @@ def _residual_round(
     has room, else on the record itself jointly with the measured modes (a broad, fast decay: raw
     fit, :func:`_measure_raw`). The ``deferred`` candidates (too broad for a band) are fitted so
     after the first round. Broad peaks
-    (``find_peaks(broad=True)``) are looked for in the first residual only, where the sharp
-    modes and their skirts are gone; later rounds look for sharp peaks only, since subtracting a
-    strong broad mode leaves a broadband remnant. Returns ``(modes, rejected)``."""
+    (``find_peaks(broad=True)``) are looked for in one residual only, where the sharp
+    modes and their skirts are gone: the first, or round ``broad_round`` (1 when the first pass
+    left candidates for the residual search to look for again, whose modes, measured in the
+    first round, would hide broad humps beside them until subtracted); other rounds look for
+    sharp peaks only, since subtracting a strong broad mode leaves a broadband remnant. Returns
+    ``(modes, rejected)``."""
     ctx = hctx.record
     fs, x = ctx.fs, ctx.x
     seg_end = hctx.seg_end - ctx.i0
@@ -1084,13 +1090,13 @@ def _residual_round(
     # round finds a mode there (a row of real modes, each sharp enough once the others are gone)
     row: list[Rejected] = []
     row_cands: list[Candidate] = []
-    for round_ in range(RESIDUAL_ROUNDS):
+    for round_ in range(RESIDUAL_ROUNDS + broad_round):
         resid = _subtract_modes(decay, fs, known)
-        # broad peaks in the first residual only: after a strong broad mode is subtracted, its
+        # broad peaks in one residual only: after a strong broad mode is subtracted, its
         # broadband remnant makes humps a smoothed search would take for modes
-        peaks = find_peaks(resid, fs, noise_psd=(ctx.noise_f, ctx.noise_p), broad=broad and round_ == 0)
+        peaks = find_peaks(resid, fs, noise_psd=(ctx.noise_f, ctx.noise_p), broad=broad and round_ == broad_round)
         fresh = _fresh_peaks(peaks, known, tried, res_hz)
-        if not fresh:
+        if not fresh and round_ >= broad_round:
             break
         tried += [(p.f_hz, max(p.width_hz, res_hz)) for p in fresh]
         found_round: list[Mode] = []
@@ -1107,8 +1113,17 @@ def _residual_round(
                     got = _measure_group(hctx, g, lo, hi, [])
             except FitError as exc:
                 reason = "near_noise" if "above its band noise" in str(exc) else "fit_failed"
-                rejected.extend(_rejection(c, reason, str(exc)) for c in gc)
-                continue
+                got = []
+                if not raw and reason == "near_noise":
+                    # the band's settling ate the decay (a fast decay, or a band bounded by its
+                    # neighbours): the record itself from the decay's first sample holds it all
+                    try:
+                        got = _measure_raw(hctx, gc, gc + _as_candidates(known + found_round, res_hz), start)
+                    except FitError:
+                        got = []
+                if not got:
+                    rejected.extend(_rejection(c, reason, str(exc)) for c in gc)
+                    continue
             got = _resolved_raw(_new_near(got, gc, known + found_round, res_hz), rejected, gc)
             got, unmatched = _match_candidates(got, gc, False)
             rejected.extend(unmatched)
@@ -1116,7 +1131,7 @@ def _residual_round(
         # the row's humps may be looked at again by the next (sharp) round
         gone = {(c.f_hz, c.width_hz) for c in row_cands[n_row:]}
         tried = [t for t in tried if t not in gone]
-        if not found_round and len(row_cands) == n_row:
+        if not found_round and len(row_cands) == n_row and round_ >= broad_round:
             break
         known += found_round
         new_modes += found_round
@@ -1132,8 +1147,17 @@ def _round_groups(fresh: list, fs: float, res_hz: float, tones: tuple, known: li
     the record itself (:func:`_measure_raw`).
     """
     barriers = tones + tuple(m.f_d_hz for m in known)
+    sharp, broad = [p for p in fresh if not p.broad], [p for p in fresh if p.broad]
+    # the sharp peaks and the smoothed search's broad humps are banded apart: a broad hump needs
+    # a band many of its widths wide, and one grouped with a sharp peak took it into its raw fit,
+    # whose short window cannot resolve a lightly damped decay (the sharp peak was then lost as
+    # decaying less than 6 dB); a sharp peak's band stops short of a hump's centre
+    parts = [
+        group_bands(sharp, sample_rate=fs, resolution_hz=res_hz, barriers_hz=barriers + tuple(p.f_hz for p in broad)),
+        group_bands(broad, sample_rate=fs, resolution_hz=res_hz, barriers_hz=barriers),
+    ]
     groups = []
-    for g, lo, hi in group_bands(fresh, sample_rate=fs, resolution_hz=res_hz, barriers_hz=barriers):
+    for g, lo, hi in (grp for part in parts for grp in part):
         gc = [
             Candidate(p.f_hz, math.pi * p.width_hz, max(p.width_hz, res_hz), None, None, "residual", -2, res_hz)
             for p in g
@@ -1147,13 +1171,25 @@ def _fresh_peaks(
 ) -> list[Peak]:
     """The peaks of a residual not near a mode measured so far (within twice its half-power
     width, three resolutions or three standard uncertainties) nor near a candidate already tried
-    (``(f_hz, width_hz)``, within its width or two resolutions)."""
+    (``(f_hz, width_hz)``, within its width or two resolutions).
+
+    The three uncertainties count only for a peak that could be the mode's remnant: one at most
+    ``WIDTH_MISMATCH`` times as wide as the mode's half-power width ``beta / pi`` or the
+    resolution. A mode subtracted with a slightly wrong pole leaves a line of its own width
+    (Lorentzian, FIELD.md section 1); a far broader hump within a u that the disagreement of
+    cross-checks widened (tens of Hz for a lightly damped mode of a crowded band) is another
+    mode."""
+
+    def near(p: Peak, m: Mode) -> bool:
+        d = abs(p.f_hz - m.f_d_hz)
+        if d <= max(2.0 * m.beta_per_s / math.pi, 3.0 * res_hz):
+            return True
+        remnant = p.width_hz <= WIDTH_MISMATCH * max(m.beta_per_s / math.pi, res_hz)
+        return remnant and d <= 3.0 * (m.f_d_hz_u or 0.0)
+
     fresh = []
     for p in peaks:
-        near_mode = any(
-            abs(p.f_hz - m.f_d_hz) <= max(2.0 * m.beta_per_s / math.pi, 3.0 * res_hz, 3.0 * (m.f_d_hz_u or 0.0))
-            for m in known
-        )
+        near_mode = any(near(p, m) for m in known)
         near_cand = any(abs(p.f_hz - f) <= max(w, 2.0 * res_hz) for f, w in tried)
         if not (near_mode or near_cand):
             fresh.append(p)
@@ -1218,7 +1254,8 @@ WIDTH_MISMATCH = 4.0
 
 def _resolved_raw(got: list[Mode], rejected: list[Rejected], cands: Sequence[Candidate] = ()) -> list[Mode]:
     """Raw-fit modes of the residual search whose decay is resolved (beta above 3 standard
-    uncertainties) and, for a broad candidate, explains its hump's width (``WIDTH_MISMATCH``):
+    uncertainties) and explains the width of the peak it was fitted to (neither ``WIDTH_MISMATCH``
+    times narrower nor that many times wider than it or the resolution):
     a broad hump in the residual is a heavily damped mode only then; the others are named
     ``near_noise`` (no decay resolved) or ``unresolved`` (a remnant of a subtracted mode)."""
     out = []
@@ -1249,6 +1286,18 @@ def _resolved_raw(got: list[Mode], rejected: list[Rejected], cands: Sequence[Can
                     f"fitted half-power width {m.beta_per_s / math.pi:.3g} Hz is far narrower than "
                     f"the {c.width_hz:.3g} Hz hump it was fitted to: a remnant of a subtracted "
                     "mode, not a heavily damped one",
+                )
+            )
+        elif c is not None and m.beta_per_s / math.pi > WIDTH_MISMATCH * max(c.width_hz, c.resolution_hz):
+            rejected.append(
+                Rejected(
+                    m.f_d_hz,
+                    m.beta_per_s,
+                    None,
+                    "unresolved",
+                    f"fitted half-power width {m.beta_per_s / math.pi:.3g} Hz is far wider than "
+                    f"the {c.width_hz:.3g} Hz peak it was fitted to: the fit modelled something "
+                    "else (a remnant of the subtracted modes), not this peak",
                 )
             )
         else:
@@ -1529,31 +1578,54 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
         if c.snr is None or c.snr * share >= thr:
             ranked.append((c.snr * share if c.snr is not None else float("inf"), c))
     others = [c for _, c in sorted(ranked, key=lambda o: -o[0])][:MAX_RAW_NUISANCE]
-    poles = [(c.f_hz, beta_of(c)) for c in targets + others]
-    # every other measured mode is subtracted with its pole held (amplitudes fitted over the
-    # window at the full rate): left in, it would alias into the thinned samples of the fit
-    fixed = [c for c in cands if c.source == "measured" and c not in targets and c not in others]
-    fit_seg = seg
-    if fixed:
-        n_win = min(seg.shape[0], max(int(round(dur * fs)), 1))
-        fit_seg = np.array(seg, dtype=np.float64)
-        fit_seg[:n_win] = _subtract_poles(
-            seg[:n_win], fs, [(c.f_hz, beta_of(c)) for c in fixed], keep=[(c.f_hz, beta_of(c)) for c in others]
-        )
 
-    def fit(duration_s: float) -> list[Estimate]:
-        return estimate_real(
-            fit_seg,
-            fs,
-            t0_s=(start + ctx.i0) / fs,
-            poles=poles,
-            n_targets=len(targets),
-            duration_s=duration_s,
-            noise_f=ctx.noise_f,
-            noise_p=ctx.noise_p,
-        )
+    def fit_with(carried: list[Candidate], joint: bool = False) -> Callable[[float], list[Estimate]]:
+        """The fit over a window (s) with ``carried`` modes' poles free. Every other measured
+        mode is subtracted with its pole held (amplitudes fitted over the window at the full
+        rate, jointly with the carried poles, and with the targets' too when ``joint``): left
+        in, it would alias into the thinned samples of the fit."""
+        poles = [(c.f_hz, beta_of(c)) for c in targets + carried]
+        fixed = [c for c in cands if c.source == "measured" and c not in targets and c not in carried]
+        fit_seg = seg
+        if fixed:
+            n_win = min(seg.shape[0], max(int(round(dur * fs)), 1))
+            fit_seg = np.array(seg, dtype=np.float64)
+            fit_seg[:n_win] = _subtract_poles(
+                seg[:n_win],
+                fs,
+                [(c.f_hz, beta_of(c)) for c in fixed],
+                keep=[(c.f_hz, beta_of(c)) for c in (targets if joint else []) + carried],
+            )
 
-    ests = fit(dur)
+        def fit(duration_s: float) -> list[Estimate]:
+            return estimate_real(
+                fit_seg,
+                fs,
+                t0_s=(start + ctx.i0) / fs,
+                poles=poles,
+                n_targets=len(targets),
+                duration_s=duration_s,
+                noise_f=ctx.noise_f,
+                noise_p=ctx.noise_p,
+            )
+
+        return fit
+
+    fit = fit_with(others)
+    slow = [c for c in others if c.source == "measured" and c.f_hz * dur < detect.MIN_CYCLES]
+    try:
+        ests = fit(dur)
+    except FitError:
+        if not slow:
+            raise
+        ests = []
+    if not ests and slow:
+        # no target came out decaying with a credible covariance: a carried mode with fewer than
+        # detect.MIN_CYCLES cycles in the window cannot have its pole refined there, and free it
+        # wandered (to 0 Hz, or growing) and made the covariance indefinite. Its pole is held
+        # (measured over its whole decay) and its amplitude fitted jointly with the targets'
+        fit = fit_with([c for c in others if c not in slow], joint=True)
+        ests = fit(dur)
     try:
         half = fit(0.5 * dur)
     except FitError:
