@@ -51,6 +51,9 @@ __all__ = ["estimate_real", "MAX_SAMPLES"]
 
 #: Most samples one fit uses (thinned beyond): keeps the least squares at a few tens of ms.
 MAX_SAMPLES = 1024
+#: Largest decay a trial pole may take per thinned sample (natural log units: e^20 ~ 170 dB),
+#: as the growth is capped at e^20 over the window; beyond it the basis underflows to zero.
+MAX_DECAY_PER_SAMPLE = 20.0
 
 
 def _basis(beta: np.ndarray, omega: np.ndarray, t: np.ndarray) -> np.ndarray:
@@ -77,9 +80,14 @@ class _RealProjection:
 
     Parameters ``x`` are ``(beta_k dt, omega_k dt)`` interleaved (O(1) steps, ``dt`` the thinned
     sample spacing in s); the decay rate is held at or above ``floor`` (1/s, growth of at most
-    e^20 over the window). The residual ``r = P_perp y`` (``P_perp = I - Phi Phi^+``, the linear
-    amplitudes of :func:`_basis` solved inside) has the Jacobian of Golub & Pereyra (1973) [from
-    memory]::
+    e^20 over the window) and at or below ``MAX_DECAY_PER_SAMPLE / dt`` (a fall of e^20 from
+    one thinned sample to the next: such a mode is gone after its first sample, and a trial
+    step far beyond that underflows its two basis columns to zero, a rank-deficient basis from
+    which MINPACK's next step came out NaN and LAPACK printed to the terminal). A non-finite
+    trial step is refused with a :class:`FitError` before any LAPACK call.
+
+    The residual ``r = P_perp y`` (``P_perp = I - Phi Phi^+``, the linear amplitudes of
+    :func:`_basis` solved inside) has the Jacobian of Golub & Pereyra (1973) [from memory]::
 
         dr/dx_j = -(P_perp dPhi/dx_j c + (Phi^+)^T (dPhi/dx_j)^T r)
 
@@ -96,14 +104,24 @@ class _RealProjection:
 
     def unpack(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """(beta_k in 1/s, omega_k in rad/s) of the parameters ``x``."""
-        return np.maximum(x[0::2] / self.dt, self.floor), x[1::2] / self.dt
+        beta = np.clip(x[0::2] / self.dt, self.floor, MAX_DECAY_PER_SAMPLE / self.dt)
+        return beta, x[1::2] / self.dt
+
+    def _live(self, x: np.ndarray) -> np.ndarray:
+        """``d beta / d x`` per mode (1/s per unit of ``x``): ``1 / dt``, 0 where beta is held."""
+        b = x[0::2] / self.dt
+        return ((b > self.floor) & (b < MAX_DECAY_PER_SAMPLE / self.dt)).astype(float) / self.dt
 
     def _at(self, x: np.ndarray) -> None:
         # basis, QR, amplitudes and residual at x, kept for the Jacobian at the same x
         if self._x is not None and np.array_equal(self._x, x):
             return
+        if not np.all(np.isfinite(x)):
+            raise FitError("the raw fit stepped to non-finite poles")
         beta, omega = self.unpack(x)
         phi = _basis(beta, omega, self.t)
+        if not np.all(np.isfinite(phi)):
+            raise FitError("the raw fit stepped to poles whose basis is not finite")
         q_full, r_tri = np.linalg.qr(phi)
         q: np.ndarray | None = q_full
         c = None
@@ -125,7 +143,7 @@ class _RealProjection:
         k = (phi.shape[1] - 2) // 2
         ec, es = phi[:, :k], phi[:, k : 2 * k]
         a, b = c[:k], c[k : 2 * k]
-        live = (x[0::2] / self.dt > self.floor).astype(float) / self.dt  # d beta / d x; 0 where held
+        live = self._live(x)
         v = np.empty((t.shape[0], 2 * k))
         v[:, 0::2] = -t[:, None] * (ec * a + es * b) * live
         v[:, 1::2] = t[:, None] * (es * -a + ec * b) / self.dt
@@ -363,6 +381,8 @@ def _fit(y: np.ndarray, dt: float, poles: list[tuple[float, float]], t0_s: float
             gtol=1e-12,
             maxfev=10 * (2 * k + 1),
         )
+    except FitError:
+        raise
     except (np.linalg.LinAlgError, ValueError, TypeError) as exc:  # TypeError: MINPACK's improper input
         raise FitError(f"the fit of the record from {t0_s:.4g} s failed ({exc})") from exc
     beta, omega = prob.unpack(x)
