@@ -41,11 +41,10 @@ import numpy as np
 from ...base._lazy import lazy_module
 from ...base.errors import FitError
 from ..results import Estimate
-from ._fit import GROWING_WHY, growing_text
+from ._fit import GROWING_WHY, growing_text, residual_excess_acf
 
 scipy_linalg = lazy_module("scipy.linalg")
 scipy_optimize = lazy_module("scipy.optimize")
-scipy_stats = lazy_module("scipy.stats")
 
 __all__ = ["estimate_real", "MAX_SAMPLES"]
 
@@ -391,49 +390,6 @@ def _fit(y: np.ndarray, dt: float, poles: list[tuple[float, float]], t0_s: float
     return beta, omega, c, ier in (1, 2, 3, 4)  # MINPACK's codes of convergence
 
 
-#: Independent periodogram bins the residual's spectrum is averaged over (chi-square with twice
-#: as many degrees of freedom; common practice, no source).
-EXCESS_BINS = 9
-#: Chance that noise alone gives a significant excess anywhere in one fit's residual spectrum
-#: (the threshold is corrected for the number of independent averages looked at).
-EXCESS_FALSE_ALARM = 0.01
-
-
-def _residual_excess_acf(r: np.ndarray, model_acf: np.ndarray, dof: int) -> np.ndarray | None:
-    """Autocovariance (n lags) of the part of the residual ``r`` (n,) that the noise model of
-    autocovariance ``model_acf`` (n,) does not explain, or None where there is none.
-
-    Both spectra are taken on the same grid (2n points and more): the residual's periodogram
-    ``|FFT r|^2 / n`` and its expectation under the model, ``sum_k (1 - |k|/n) R(k) e^{-i w k}``
-    (Bartlett-weighted: exact for the periodogram's mean), each averaged over ``EXCESS_BINS``
-    independent bins. Where the averaged periodogram exceeds the model by more than the
-    chi-square quantile of ``2 EXCESS_BINS`` degrees of freedom at ``1 - EXCESS_FALSE_ALARM``
-    divided by the number of independent averages (a per-fit family-wise false alarm), the
-    difference is kept; its inverse transform is returned (Wiener-Khinchin)."""
-    n = r.shape[0]
-    if n < 4 * EXCESS_BINS or dof < 4 * EXCESS_BINS:
-        return None
-    m = 1 << int(math.ceil(math.log2(2 * n)))
-    per_bin = m / n  # grid points per independent periodogram bin
-    lags = np.arange(n)
-    taper = model_acf * (1.0 - lags / n)
-    seq = np.zeros(m)
-    seq[:n] = taper
-    seq[m - n + 1 :] = taper[1:][::-1]
-    s_model = np.maximum(np.real(np.fft.rfft(seq)), 0.0)
-    s_resid = np.abs(np.fft.rfft(r, m)) ** 2 / n
-    width = max(int(round(EXCESS_BINS * per_bin)), 1)
-    kernel = np.ones(width) / width
-    p_avg = np.convolve(s_resid, kernel, mode="same")
-    m_avg = np.convolve(s_model, kernel, mode="same")
-    looks = max(n / (2.0 * EXCESS_BINS), 1.0)
-    q = float(scipy_stats.chi2.ppf(1.0 - EXCESS_FALSE_ALARM / looks, 2 * EXCESS_BINS)) / (2 * EXCESS_BINS)
-    excess = np.where(p_avg > q * m_avg, p_avg - m_avg, 0.0)
-    if not np.any(excess > 0.0):
-        return None
-    return np.fft.irfft(excess, m)[:n]
-
-
 def _covariance(y, t, beta, omega, c, acf) -> tuple[np.ndarray, float]:
     """Covariance and residual variance of the fit: returns ``(cov, s2)``.
 
@@ -441,7 +397,7 @@ def _covariance(y, t, beta, omega, c, acf) -> tuple[np.ndarray, float]:
     and the line; sandwich form ``A^-1 B A^-1`` with ``A = J^T J`` and ``B = s2 J^T R J`` for
     noise of normalised autocorrelation ``acf`` (n,) at the thinned lags (Kay 1993, ch. 8 [from
     memory]), plus ``J^T R_x J`` for the part of the residual's spectrum that stands
-    significantly above that noise (:func:`_residual_excess_acf`): what the model leaves out (a
+    significantly above that noise (:func:`residual_excess_acf`): what the model leaves out (a
     neighbour not found, a mode subtracted with a slightly wrong pole) acts on the estimates as
     noise of its own spectrum would, and the variance of a frequency estimate follows the
     noise density at that frequency (Hannan 1973 [from memory]), so the residual's own
@@ -466,7 +422,7 @@ def _covariance(y, t, beta, omega, c, acf) -> tuple[np.ndarray, float]:
     amat = jac.T @ jac
     rj = scipy_linalg.matmul_toeplitz((acf, acf), jac)
     bmat = s2 * (jac.T @ rj)
-    excess = _residual_excess_acf(r, s2 * acf, dof)
+    excess = residual_excess_acf(r, s2 * acf, dof)
     if excess is not None:
         bmat = bmat + jac.T @ scipy_linalg.matmul_toeplitz((excess, excess), jac)
     try:
