@@ -186,8 +186,12 @@ def test_raw_fit_u_widened_by_a_later_start_beside_a_faster_mode_left_out():
     # (15 ms) the fast mode has fallen by e^-12, so the fit started there is near the truth, and
     # the contrast of the two (Hausman 1978 [from memory], _with_model_error) widens u so that
     # the truth lies within 2 u. Invented signal.
+    from scipy import stats
+
     from ringdown.analysis.estimators.real import estimate_real
-    from ringdown.analysis.pipeline import _with_model_error
+    from ringdown.analysis.pipeline import HAUSMAN_CHI2_95, _with_model_error
+
+    assert HAUSMAN_CHI2_95 == pytest.approx(stats.chi2.ppf(0.95, 2), abs=1e-3)
 
     fs = 44100.0
     t = np.arange(int(0.2 * fs)) / fs
@@ -204,9 +208,9 @@ def test_raw_fit_u_widened_by_a_later_start_beside_a_faster_mode_left_out():
     k = int(round(fs / b1))
     late = estimate_real(x[k:], fs, t0_s=k / fs, duration_s=dur - k / fs, **kw)
     assert abs(e.f_d_hz - f1) > 3 * e.f_d_hz_u  # the problem: confidently wrong
-    w = _with_model_error(e, [("first half", half), ("later start", late)])
+    w = _with_model_error(e, [("first half", half, False), ("later start", late, True)])
     assert abs(w.f_d_hz - f1) <= 2 * w.f_d_hz_u
     assert abs(w.beta_per_s - b1) <= 2 * w.beta_per_s_u
     assert "model_error" in [n.code for n in w.warnings]
     # the first half alone does not see it: the fast mode biases both windows alike
-    assert abs(e.f_d_hz - f1) > 3 * _with_model_error(e, [("first half", half)]).f_d_hz_u
+    assert abs(e.f_d_hz - f1) > 3 * _with_model_error(e, [("first half", half, False)]).f_d_hz_u
