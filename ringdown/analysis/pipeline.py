@@ -1579,7 +1579,7 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
             ranked.append((c.snr * share if c.snr is not None else float("inf"), c))
     others = [c for _, c in sorted(ranked, key=lambda o: -o[0])][:MAX_RAW_NUISANCE]
 
-    def fit_with(carried: list[Candidate], joint: bool = False) -> Callable[[float], list[Estimate]]:
+    def fit_with(carried: list[Candidate], joint: bool = False) -> Callable[..., list[Estimate]]:
         """The fit over a window (s) with ``carried`` modes' poles free. Every other measured
         mode is subtracted with its pole held (amplitudes fitted over the window at the full
         rate, jointly with the carried poles, and with the targets' too when ``joint``): left
