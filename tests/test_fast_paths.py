@@ -331,3 +331,31 @@ def test_thinned_fit_mirror_image_is_moved_back_to_its_start():
     # started near the mirror image itself, or not thinned at all: left as it is
     assert _unaliased([e], [17790.0], 48000.0, 4)[0].f_d_hz == 17793.0
     assert _unaliased([e], [6210.0], 48000.0, 1)[0].f_d_hz == 17793.0
+
+
+def test_real_fit_holds_a_vanishing_trial_pole_and_refuses_a_non_finite_step(capfd):
+    # A trial step to beta dt = 700 underflows exp(-beta t) to zero after the first sample
+    # (exp(-700) ~ 1e-304, below it denormal/zero), which once made MINPACK's next step NaN and
+    # LAPACK print "DLASCL parameter 4" to the terminal. The decay is held at 20 per sample
+    # (MAX_DECAY_PER_SAMPLE), with no derivative there, and a NaN step is a FitError before
+    # any LAPACK call: nothing reaches the file descriptors (capfd).
+    from ringdown.analysis.estimators.real import MAX_DECAY_PER_SAMPLE, _RealProjection
+    from ringdown.base.errors import FitError
+
+    x, fs, truth = _heavily_damped_record()
+    dt = 2.0 / fs
+    y = x[::2]
+    t = np.arange(y.shape[0]) * dt
+    prob = _RealProjection(y, t, dt, -20.0 / t[-1])
+    x0 = np.array([truth[0][1] * dt, 2 * np.pi * truth[0][0] * dt, 700.0, 711.0])
+    beta, _ = prob.unpack(x0)
+    assert beta[0] == pytest.approx(truth[0][1], rel=1e-12)
+    assert beta[1] == MAX_DECAY_PER_SAMPLE / dt
+    assert np.all(np.isfinite(prob.resid(x0)))
+    jac = prob.jac(x0)
+    assert np.all(np.isfinite(jac))
+    assert np.all(jac[:, 2] == 0.0)  # the held decay rate moves nothing
+    with pytest.raises(FitError, match="non-finite"):
+        prob.resid(np.array([np.nan, 0.1, 0.2, 0.3]))
+    out, err = capfd.readouterr()
+    assert out == "" and err == ""

@@ -2,9 +2,14 @@
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
+from ...base._lazy import lazy_module
 from ...base.errors import FitError
+
+scipy_stats = lazy_module("scipy.stats")
 
 
 def growing_text(poles: list[tuple[float, float]]) -> str:
@@ -55,3 +60,60 @@ def weighted_line(t: np.ndarray, y: np.ndarray, w: np.ndarray, *, inflation: flo
     coef0 = J @ coef
     cov0 = J @ cov @ J.T
     return float(coef0[0]), float(coef0[1]), cov0, float(np.sqrt(np.mean(r**2)))
+
+
+#: Independent periodogram bins the residual's spectrum is averaged over (chi-square with twice
+#: as many degrees of freedom; common practice, no source).
+EXCESS_BINS = 9
+#: Chance that noise alone gives a significant excess anywhere in one fit's residual spectrum
+#: (the threshold is corrected for the number of independent averages looked at).
+EXCESS_FALSE_ALARM = 0.01
+
+
+def residual_excess_acf(r: np.ndarray, model_acf: np.ndarray, dof: float) -> np.ndarray | None:
+    """Autocovariance (n lags) of the part of the residual ``r`` (n,) that the noise model of
+    autocovariance ``model_acf`` (n,) does not explain, or None where there is none.
+
+    ``r`` real (the raw fit) or complex (a band's envelope, :mod:`.pencil`; ``model_acf`` then
+    ``E[w_{j+k} w_j^*]``, the spectrum two-sided). Both spectra are taken on the same grid (2n
+    points and more): the residual's periodogram ``|FFT r|^2 / n`` and its expectation under
+    the model, ``sum_k (1 - |k|/n) R(k) e^{-i w k}`` (Bartlett-weighted: exact for the
+    periodogram's mean), each averaged over ``EXCESS_BINS`` independent bins. Where the averaged
+    periodogram exceeds the model by more than the chi-square quantile of ``2 EXCESS_BINS``
+    degrees of freedom at ``1 - EXCESS_FALSE_ALARM`` divided by the number of independent
+    averages (a per-fit family-wise false alarm), the difference is kept; its inverse transform
+    is returned (Wiener-Khinchin)."""
+    n = r.shape[0]
+    if n < 4 * EXCESS_BINS or dof < 4 * EXCESS_BINS:
+        return None
+    cplx = np.iscomplexobj(r) or np.iscomplexobj(model_acf)
+    m = 1 << int(math.ceil(math.log2(2 * n)))
+    per_bin = m / n  # grid points per independent periodogram bin
+    lags = np.arange(n)
+    taper = model_acf * (1.0 - lags / n)
+    seq = np.zeros(m, dtype=complex if cplx else float)
+    seq[:n] = taper
+    seq[m - n + 1 :] = np.conj(taper[1:])[::-1]
+    if cplx:
+        s_model = np.maximum(np.real(np.fft.fft(seq)), 0.0)
+        s_resid = np.abs(np.fft.fft(r, m)) ** 2 / n
+    else:
+        s_model = np.maximum(np.real(np.fft.rfft(seq)), 0.0)
+        s_resid = np.abs(np.fft.rfft(r, m)) ** 2 / n
+    width = max(int(round(EXCESS_BINS * per_bin)), 1)
+    kernel = np.ones(width) / width
+    if cplx:  # the two-sided spectrum is circular: average across its wrap too
+        pad = width // 2 + 1
+        p_avg = np.convolve(np.r_[s_resid[-pad:], s_resid, s_resid[:pad]], kernel, mode="same")[pad:-pad]
+        m_avg = np.convolve(np.r_[s_model[-pad:], s_model, s_model[:pad]], kernel, mode="same")[pad:-pad]
+    else:
+        p_avg = np.convolve(s_resid, kernel, mode="same")
+        m_avg = np.convolve(s_model, kernel, mode="same")
+    looks = max(n / (EXCESS_BINS if cplx else 2.0 * EXCESS_BINS), 1.0)
+    q = float(scipy_stats.chi2.ppf(1.0 - EXCESS_FALSE_ALARM / looks, 2 * EXCESS_BINS)) / (2 * EXCESS_BINS)
+    excess = np.where(p_avg > q * m_avg, p_avg - m_avg, 0.0)
+    if not np.any(excess > 0.0):
+        return None
+    if cplx:
+        return np.fft.ifft(excess)[:n]
+    return np.fft.irfft(excess, m)[:n]

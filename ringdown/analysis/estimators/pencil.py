@@ -71,7 +71,7 @@ from ...base._lazy import lazy_module
 from ...base.errors import FitError
 from ..bands import Band
 from ..results import Estimate, ModeTrace, Notice
-from ._fit import GROWING_WHY, growing_text
+from ._fit import GROWING_WHY, growing_text, residual_excess_acf
 from .base import Window
 
 scipy_linalg = lazy_module("scipy.linalg")
@@ -276,6 +276,13 @@ def _covariance(zd, t, poles, c, r_acf, g):
     """Covariance of (beta_k, f_k, Re c_k, Im c_k) per mode, sandwich form for correlated noise.
 
     Returns ``(cov, resid, cond)`` with ``cov`` of shape (4K, 4K) in units (1/s, Hz, -, -).
+    ``A^-1 B A^-1`` (Kay 1993, ch. 8 [from memory]) with ``B`` from the band's noise (the mask's
+    spectrum scaled to the residual variance) plus the part of the residual's own spectrum that
+    stands significantly above it (:func:`._fit.residual_excess_acf`): the mask's spectrum
+    assumes a flat noise density across the band, while the record's (pink, or with a
+    neighbour's leftover) can be several times higher at the mode's frequency, and a frequency
+    estimate's variance follows the density there (Hannan 1973 [from memory]), as in the raw
+    fit (:func:`.real._covariance`).
     """
     k = poles.shape[0]
     n = t.shape[0]
@@ -297,6 +304,9 @@ def _covariance(zd, t, poles, c, r_acf, g):
     s2 = float(np.sum(np.abs(resid) ** 2)) / dof
     rj = scipy_linalg.matmul_toeplitz((r_acf, r_acf.conj()), jc)
     b = 0.5 * s2 * (jc.conj().T @ rj).real
+    excess = residual_excess_acf(resid, s2 * r_acf, dof)
+    if excess is not None:
+        b = b + 0.5 * (jc.conj().T @ scipy_linalg.matmul_toeplitz((excess, excess.conj()), jc)).real
     cond = float(np.linalg.cond(a))
     try:
         ainv = np.linalg.inv(a)

@@ -41,16 +41,18 @@ import numpy as np
 from ...base._lazy import lazy_module
 from ...base.errors import FitError
 from ..results import Estimate
-from ._fit import GROWING_WHY, growing_text
+from ._fit import GROWING_WHY, growing_text, residual_excess_acf
 
 scipy_linalg = lazy_module("scipy.linalg")
 scipy_optimize = lazy_module("scipy.optimize")
-scipy_stats = lazy_module("scipy.stats")
 
 __all__ = ["estimate_real", "MAX_SAMPLES"]
 
 #: Most samples one fit uses (thinned beyond): keeps the least squares at a few tens of ms.
 MAX_SAMPLES = 1024
+#: Largest decay a trial pole may take per thinned sample (natural log units: e^20 ~ 170 dB),
+#: as the growth is capped at e^20 over the window; beyond it the basis underflows to zero.
+MAX_DECAY_PER_SAMPLE = 20.0
 
 
 def _basis(beta: np.ndarray, omega: np.ndarray, t: np.ndarray) -> np.ndarray:
@@ -77,9 +79,14 @@ class _RealProjection:
 
     Parameters ``x`` are ``(beta_k dt, omega_k dt)`` interleaved (O(1) steps, ``dt`` the thinned
     sample spacing in s); the decay rate is held at or above ``floor`` (1/s, growth of at most
-    e^20 over the window). The residual ``r = P_perp y`` (``P_perp = I - Phi Phi^+``, the linear
-    amplitudes of :func:`_basis` solved inside) has the Jacobian of Golub & Pereyra (1973) [from
-    memory]::
+    e^20 over the window) and at or below ``MAX_DECAY_PER_SAMPLE / dt`` (a fall of e^20 from
+    one thinned sample to the next: such a mode is gone after its first sample, and a trial
+    step far beyond that underflows its two basis columns to zero, a rank-deficient basis from
+    which MINPACK's next step came out NaN and LAPACK printed to the terminal). A non-finite
+    trial step is refused with a :class:`FitError` before any LAPACK call.
+
+    The residual ``r = P_perp y`` (``P_perp = I - Phi Phi^+``, the linear amplitudes of
+    :func:`_basis` solved inside) has the Jacobian of Golub & Pereyra (1973) [from memory]::
 
         dr/dx_j = -(P_perp dPhi/dx_j c + (Phi^+)^T (dPhi/dx_j)^T r)
 
@@ -96,14 +103,24 @@ class _RealProjection:
 
     def unpack(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """(beta_k in 1/s, omega_k in rad/s) of the parameters ``x``."""
-        return np.maximum(x[0::2] / self.dt, self.floor), x[1::2] / self.dt
+        beta = np.clip(x[0::2] / self.dt, self.floor, MAX_DECAY_PER_SAMPLE / self.dt)
+        return beta, x[1::2] / self.dt
+
+    def _live(self, x: np.ndarray) -> np.ndarray:
+        """``d beta / d x`` per mode (1/s per unit of ``x``): ``1 / dt``, 0 where beta is held."""
+        b = x[0::2] / self.dt
+        return ((b > self.floor) & (b < MAX_DECAY_PER_SAMPLE / self.dt)).astype(float) / self.dt
 
     def _at(self, x: np.ndarray) -> None:
         # basis, QR, amplitudes and residual at x, kept for the Jacobian at the same x
         if self._x is not None and np.array_equal(self._x, x):
             return
+        if not np.all(np.isfinite(x)):
+            raise FitError("the raw fit stepped to non-finite poles")
         beta, omega = self.unpack(x)
         phi = _basis(beta, omega, self.t)
+        if not np.all(np.isfinite(phi)):
+            raise FitError("the raw fit stepped to poles whose basis is not finite")
         q_full, r_tri = np.linalg.qr(phi)
         q: np.ndarray | None = q_full
         c = None
@@ -125,7 +142,7 @@ class _RealProjection:
         k = (phi.shape[1] - 2) // 2
         ec, es = phi[:, :k], phi[:, k : 2 * k]
         a, b = c[:k], c[k : 2 * k]
-        live = (x[0::2] / self.dt > self.floor).astype(float) / self.dt  # d beta / d x; 0 where held
+        live = self._live(x)
         v = np.empty((t.shape[0], 2 * k))
         v[:, 0::2] = -t[:, None] * (ec * a + es * b) * live
         v[:, 1::2] = t[:, None] * (es * -a + ec * b) / self.dt
@@ -363,55 +380,14 @@ def _fit(y: np.ndarray, dt: float, poles: list[tuple[float, float]], t0_s: float
             gtol=1e-12,
             maxfev=10 * (2 * k + 1),
         )
+    except FitError:
+        raise
     except (np.linalg.LinAlgError, ValueError, TypeError) as exc:  # TypeError: MINPACK's improper input
         raise FitError(f"the fit of the record from {t0_s:.4g} s failed ({exc})") from exc
     beta, omega = prob.unpack(x)
     phi = _basis(beta, omega, t)
     c, *_ = np.linalg.lstsq(phi, y, rcond=None)
     return beta, omega, c, ier in (1, 2, 3, 4)  # MINPACK's codes of convergence
-
-
-#: Independent periodogram bins the residual's spectrum is averaged over (chi-square with twice
-#: as many degrees of freedom; common practice, no source).
-EXCESS_BINS = 9
-#: Chance that noise alone gives a significant excess anywhere in one fit's residual spectrum
-#: (the threshold is corrected for the number of independent averages looked at).
-EXCESS_FALSE_ALARM = 0.01
-
-
-def _residual_excess_acf(r: np.ndarray, model_acf: np.ndarray, dof: int) -> np.ndarray | None:
-    """Autocovariance (n lags) of the part of the residual ``r`` (n,) that the noise model of
-    autocovariance ``model_acf`` (n,) does not explain, or None where there is none.
-
-    Both spectra are taken on the same grid (2n points and more): the residual's periodogram
-    ``|FFT r|^2 / n`` and its expectation under the model, ``sum_k (1 - |k|/n) R(k) e^{-i w k}``
-    (Bartlett-weighted: exact for the periodogram's mean), each averaged over ``EXCESS_BINS``
-    independent bins. Where the averaged periodogram exceeds the model by more than the
-    chi-square quantile of ``2 EXCESS_BINS`` degrees of freedom at ``1 - EXCESS_FALSE_ALARM``
-    divided by the number of independent averages (a per-fit family-wise false alarm), the
-    difference is kept; its inverse transform is returned (Wiener-Khinchin)."""
-    n = r.shape[0]
-    if n < 4 * EXCESS_BINS or dof < 4 * EXCESS_BINS:
-        return None
-    m = 1 << int(math.ceil(math.log2(2 * n)))
-    per_bin = m / n  # grid points per independent periodogram bin
-    lags = np.arange(n)
-    taper = model_acf * (1.0 - lags / n)
-    seq = np.zeros(m)
-    seq[:n] = taper
-    seq[m - n + 1 :] = taper[1:][::-1]
-    s_model = np.maximum(np.real(np.fft.rfft(seq)), 0.0)
-    s_resid = np.abs(np.fft.rfft(r, m)) ** 2 / n
-    width = max(int(round(EXCESS_BINS * per_bin)), 1)
-    kernel = np.ones(width) / width
-    p_avg = np.convolve(s_resid, kernel, mode="same")
-    m_avg = np.convolve(s_model, kernel, mode="same")
-    looks = max(n / (2.0 * EXCESS_BINS), 1.0)
-    q = float(scipy_stats.chi2.ppf(1.0 - EXCESS_FALSE_ALARM / looks, 2 * EXCESS_BINS)) / (2 * EXCESS_BINS)
-    excess = np.where(p_avg > q * m_avg, p_avg - m_avg, 0.0)
-    if not np.any(excess > 0.0):
-        return None
-    return np.fft.irfft(excess, m)[:n]
 
 
 def _covariance(y, t, beta, omega, c, acf) -> tuple[np.ndarray, float]:
@@ -421,7 +397,7 @@ def _covariance(y, t, beta, omega, c, acf) -> tuple[np.ndarray, float]:
     and the line; sandwich form ``A^-1 B A^-1`` with ``A = J^T J`` and ``B = s2 J^T R J`` for
     noise of normalised autocorrelation ``acf`` (n,) at the thinned lags (Kay 1993, ch. 8 [from
     memory]), plus ``J^T R_x J`` for the part of the residual's spectrum that stands
-    significantly above that noise (:func:`_residual_excess_acf`): what the model leaves out (a
+    significantly above that noise (:func:`residual_excess_acf`): what the model leaves out (a
     neighbour not found, a mode subtracted with a slightly wrong pole) acts on the estimates as
     noise of its own spectrum would, and the variance of a frequency estimate follows the
     noise density at that frequency (Hannan 1973 [from memory]), so the residual's own
@@ -446,7 +422,7 @@ def _covariance(y, t, beta, omega, c, acf) -> tuple[np.ndarray, float]:
     amat = jac.T @ jac
     rj = scipy_linalg.matmul_toeplitz((acf, acf), jac)
     bmat = s2 * (jac.T @ rj)
-    excess = _residual_excess_acf(r, s2 * acf, dof)
+    excess = residual_excess_acf(r, s2 * acf, dof)
     if excess is not None:
         bmat = bmat + jac.T @ scipy_linalg.matmul_toeplitz((excess, excess), jac)
     try:
