@@ -1265,44 +1265,38 @@ def _resolved_raw(got: list[Mode], rejected: list[Rejected], cands: Sequence[Can
             continue
         broad = [c for c in cands if c.source in ("spectrum", "residual") and c.beta_per_s is not None]
         c = min(broad, key=lambda c: abs(c.f_hz - m.f_d_hz), default=None)
-        if not _decay_resolved(m):
-            rejected.append(
-                Rejected(
-                    m.f_d_hz,
-                    m.beta_per_s,
-                    None,
-                    "near_noise",
-                    f"fitted decay {m.beta_per_s:.3g} +- {m.beta_per_s_u or float('nan'):.2g} 1/s "
-                    "is not resolved: noise, not a heavily damped mode",
-                )
-            )
-        elif c is not None and WIDTH_MISMATCH * m.beta_per_s / math.pi < c.width_hz:
-            rejected.append(
-                Rejected(
-                    m.f_d_hz,
-                    m.beta_per_s,
-                    None,
-                    "unresolved",
-                    f"fitted half-power width {m.beta_per_s / math.pi:.3g} Hz is far narrower than "
-                    f"the {c.width_hz:.3g} Hz hump it was fitted to: a remnant of a subtracted "
-                    "mode, not a heavily damped one",
-                )
-            )
-        elif c is not None and m.beta_per_s / math.pi > WIDTH_MISMATCH * max(c.width_hz, c.resolution_hz):
-            rejected.append(
-                Rejected(
-                    m.f_d_hz,
-                    m.beta_per_s,
-                    None,
-                    "unresolved",
-                    f"fitted half-power width {m.beta_per_s / math.pi:.3g} Hz is far wider than "
-                    f"the {c.width_hz:.3g} Hz peak it was fitted to: the fit modelled something "
-                    "else (a remnant of the subtracted modes), not this peak",
-                )
-            )
-        else:
+        doubt = _raw_doubt(m, c)
+        if doubt is None:
             out.append(m)
+        else:
+            rejected.append(Rejected(m.f_d_hz, m.beta_per_s, None, *doubt))
     return out
+
+
+def _raw_doubt(m: Mode, c: Candidate | None) -> tuple[str, str] | None:
+    """``(reason, detail)`` when the raw-fit mode ``m`` is not a mode of the peak ``c`` it was
+    fitted to (see :func:`_resolved_raw`), else ``None``."""
+    width = m.beta_per_s / math.pi  # half-power width, Hz
+    if not _decay_resolved(m):
+        return (
+            "near_noise",
+            f"fitted decay {m.beta_per_s:.3g} +- {m.beta_per_s_u or float('nan'):.2g} 1/s "
+            "is not resolved: noise, not a heavily damped mode",
+        )
+    if c is not None and WIDTH_MISMATCH * width < c.width_hz:
+        return (
+            "unresolved",
+            f"fitted half-power width {width:.3g} Hz is far narrower than the {c.width_hz:.3g} Hz "
+            "hump it was fitted to: a remnant of a subtracted mode, not a heavily damped one",
+        )
+    if c is not None and width > WIDTH_MISMATCH * max(c.width_hz, c.resolution_hz):
+        return (
+            "unresolved",
+            f"fitted half-power width {width:.3g} Hz is far wider than the {c.width_hz:.3g} Hz "
+            "peak it was fitted to: the fit modelled something else (a remnant of the subtracted "
+            "modes), not this peak",
+        )
+    return None
 
 
 #: Most candidates one raw fit of the residual search takes on (each adds four parameters to the
