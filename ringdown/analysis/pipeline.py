@@ -1774,22 +1774,17 @@ def _make_raw_mode(est: Estimate, noise_rms: float, seg: np.ndarray, fs: float, 
     )
 
 
-def _window_for(
-    band: Band,
-    onset_s: float,
-    clip_end,
-    seg_end: int,
-    fs: float,
-    min_snr_db: float,
-    beta_hint: float = 0.0,
-    lag_s: float = 0.0,
-) -> Window:
-    """The fit window of one band: from ``onset_s`` (s) plus the filter's settling time (and
-    after clipping, ``clip_end`` a sample index), never before the band envelope's maximum
-    within ``lag_s`` (s, how much later than ``onset_s`` the decay may start) plus the settling
-    time after the onset, to where the smoothed envelope falls to ``min_snr_db`` above the band
-    noise (``end_s``) and to the noise itself (``model_end_s``), before ``seg_end`` (a sample
-    index at rate ``fs``). Raises :class:`FitError` when fewer than 5 samples remain."""
+def _window_for(band: Band, hctx: _HitContext, beta_hint: float = 0.0) -> Window:
+    """The fit window of one band of the hit ``hctx``: from its onset (``onset_s``, s) plus the
+    filter's settling time for a decay of ``beta_hint`` (1/s; and after clipping, after
+    ``clip_end``, a sample index), never before the band envelope's maximum within
+    ``onset_lag_s`` (s, how much later than the onset the decay may start) plus the settling
+    time after the onset, to where the smoothed envelope falls to the options' ``min_snr_db``
+    above the band noise (``end_s``) and to the noise itself (``model_end_s``), before the hit's
+    ``seg_end`` (a sample index at the record's rate). Raises :class:`FitError` when fewer than
+    5 samples remain."""
+    onset_s, clip_end, seg_end, lag_s = hctx.onset_s, hctx.clip_end, hctx.seg_end, hctx.onset_lag_s
+    fs, min_snr_db = hctx.record.fs, hctx.record.opts.min_snr_db
     env = np.abs(band.z)
     if band.noise_rms is None:
         raise FitError("band noise level unknown")
@@ -1843,15 +1838,14 @@ def _measure_group(
     """The modes of one band ``lo``-``hi`` Hz holding the spectral peaks ``peaks_g`` (none when
     the band was given by the user); warnings about the hit are appended to ``hit_warnings``."""
     ctx = hctx.record
-    opts, fs, noise_f, noise_p = ctx.opts, ctx.fs, ctx.noise_f, ctx.noise_p
-    spec, onset_s, clip_end, seg_end = hctx.spec, hctx.onset_s, hctx.clip_end, hctx.seg_end
+    opts, noise_f, noise_p = ctx.opts, ctx.noise_f, ctx.noise_p
     primary = opts.primary
-    group_band = _extract(spec, lo, hi, noise_f, noise_p)
+    group_band = _extract(hctx.spec, lo, hi, noise_f, noise_p)
     # first guess of the decay rate from the spectral peaks' half-power width (beta ~ pi width)
     beta_hint = max((math.pi * p.width_hz for p in peaks_g), default=0.0)
     if _steady_group(hctx, group_band, peaks_g, beta_hint, hit_warnings):
         return []
-    group_window = _window_for(group_band, onset_s, clip_end, seg_end, fs, opts.min_snr_db, beta_hint, hctx.onset_lag_s)
+    group_window = _window_for(group_band, hctx, beta_hint)
     subs = _sub_bands(hctx, peaks_g, lo, hi, beta_hint) if len(peaks_g) > 1 else [(group_band, group_window)]
     cross: list[tuple[float, dict[str, Estimate], Band, Window]] = []
     joint: list[Estimate] | None = None  # every mode a multi-mode method found in the group band
@@ -1936,9 +1930,7 @@ def _sub_bands(
     for a, b in zip(edges, edges[1:]):
         sb = _extract(hctx.spec, a, b, ctx.noise_f, ctx.noise_p)
         try:
-            window = _window_for(
-                sb, hctx.onset_s, hctx.clip_end, hctx.seg_end, ctx.fs, ctx.opts.min_snr_db, beta_hint, hctx.onset_lag_s
-            )
+            window = _window_for(sb, hctx, beta_hint)
         except FitError:
             continue
         subs.append((sb, window))
