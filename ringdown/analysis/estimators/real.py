@@ -419,14 +419,21 @@ def _covariance(y, t, beta, omega, c, acf) -> tuple[np.ndarray, float]:
     jac[:, 4 * k :] = phi[:, 2 * k :]
     dof = n - 4 * k - 2
     s2 = float(np.sum(r * r)) / max(dof, 1)
-    amat = jac.T @ jac
-    rj = scipy_linalg.matmul_toeplitz((acf, acf), jac)
-    bmat = s2 * (jac.T @ rj)
+    # A^-1 J^T from the SVD of the column-scaled Jacobian, J D^-1 = U S V^T: A^-1 J^T = D^-1 V S^-1 U^T,
+    # and the sandwich is D^-1 V S^-1 (U^T M U) S^-1 V^T D^-1 with M = s2 R + R_x. Formed this way
+    # it stays symmetric positive semi-definite when slow carried modes (a few cycles in the
+    # window) make J^T J near-singular, where inverting J^T J gave negative variances
+    # (Golub & Van Loan, Matrix Computations, sec. 5.3 [from memory]).
+    scale = np.linalg.norm(jac, axis=0)
+    scale[scale == 0.0] = 1.0
+    u, sv, vt = np.linalg.svd(jac / scale, full_matrices=False)
+    mu = s2 * scipy_linalg.matmul_toeplitz((acf, acf), u)
     excess = residual_excess_acf(r, s2 * acf, dof)
     if excess is not None:
-        bmat = bmat + jac.T @ scipy_linalg.matmul_toeplitz((excess, excess), jac)
-    try:
-        ainv = np.linalg.inv(amat)
-    except np.linalg.LinAlgError:
-        ainv = np.linalg.pinv(amat)
-    return ainv @ bmat @ ainv, s2
+        mu = mu + scipy_linalg.matmul_toeplitz((excess, excess), u)
+    w = u.T @ mu
+    w = 0.5 * (w + w.T)
+    tol = sv[0] * max(jac.shape) * np.finfo(float).eps
+    inv_sv = np.where(sv > tol, 1.0 / np.where(sv > tol, sv, 1.0), 0.0)
+    g = (vt.T * inv_sv) / scale[:, None]
+    return g @ w @ g.T, s2
