@@ -974,6 +974,12 @@ def _measure_groups(
             else:
                 found = _measure_group(hctx, peaks_g, lo, hi, warnings)
         except FitError as exc:
+            if residual and not raw and "above its band noise" in str(exc):
+                # the band's settling ate the decay (a fast decay beside a strong neighbour):
+                # fitted on the record from the decay's first sample once every other mode is
+                # subtracted, as the residual search does with such a band (``_residual_round``)
+                deferred.extend(group_cands)
+                continue
             failed.append(f"{lo:.1f}-{hi:.1f} Hz ({exc})")
             rejected.extend(_rejection(c, "fit_failed", str(exc)) for c in group_cands)
             continue
