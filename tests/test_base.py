@@ -77,3 +77,22 @@ def test_one_error_for_an_output_that_cannot_be_written(tmp_path):
     # no module defines an error class of its own for it any more
     for name, text in _sources():
         assert not re.search(r"class _?\w*OutputError\(", text) or name == "base/errors.py", name
+
+
+def test_a_fit_error_keeps_its_reason_across_processes():
+    import pickle
+
+    from ringdown.base.errors import FitError
+
+    # the pipeline branches on ``reason`` (not on the message's text), and batch runs raise in
+    # worker processes: the reason must survive pickling (Python docs, object.__reduce__)
+    err = pickle.loads(pickle.dumps(FitError("the mode is 3.0 dB above its band noise", reason="near_noise")))
+    assert isinstance(err, FitError) and err.reason == "near_noise"
+    assert str(err) == "the mode is 3.0 dB above its band noise"
+    assert FitError("did not converge").reason == "fit_failed"
+    # the only raise that words its message about band noise says so in its reason too
+    src = (Path(ringdown.__file__).parent / "analysis" / "pipeline.py").read_text()
+    assert "in str(exc)" not in src
+    for m in re.finditer(r"raise FitError\((.*?)\n        \)", src, re.S):
+        if "band noise" in m.group(1):
+            assert 'reason="near_noise"' in m.group(1)

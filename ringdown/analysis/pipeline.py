@@ -974,7 +974,7 @@ def _measure_groups(
             else:
                 found = _measure_group(hctx, peaks_g, lo, hi, warnings)
         except FitError as exc:
-            if residual and not raw and "above its band noise" in str(exc):
+            if residual and not raw and exc.reason == "near_noise":
                 # the band's settling ate the decay (a fast decay beside a strong neighbour):
                 # fitted on the record from the decay's first sample once every other mode is
                 # subtracted, as the residual search does with such a band (``_residual_round``)
@@ -1118,7 +1118,7 @@ def _residual_round(
                 else:
                     got = _measure_group(hctx, g, lo, hi, [])
             except FitError as exc:
-                reason = "near_noise" if "above its band noise" in str(exc) else "fit_failed"
+                reason = exc.reason
                 got = []
                 if not raw and reason == "near_noise":
                     # the band's settling ate the decay (a fast decay, or a band bounded by its
@@ -1822,7 +1822,8 @@ def _window_for(band: Band, hctx: _HitContext, beta_hint: float = 0.0) -> Window
         snr = 20 * math.log10(max(env[i0], 1e-300) / band.noise_rms)
         raise FitError(
             f"the mode is {snr:.1f} dB above its band noise after the filter settles; "
-            f"a fit needs {min_snr_db:g} dB over several samples"
+            f"a fit needs {min_snr_db:g} dB over several samples",
+            reason="near_noise",
         )
     return Window(
         start_s=float(band.t_s[i0]),

@@ -69,9 +69,25 @@ class OutputError(ParameterError):
 
 
 class FitError(RingdownError, RuntimeError):
-    """A fit that did not converge or gave no usable result."""
+    """A fit that did not converge or gave no usable result.
+
+    ``reason`` says why, in the words of a rejected candidate's reason (``"fit_failed"``, the
+    default; ``"near_noise"``: the mode stands too little above its band noise over its fit
+    window), so a caller branches on it rather than on the message's text.
+    """
 
     code = "fit"
+
+    def __init__(self, message: str = "", *, reason: str = "fit_failed") -> None:
+        super().__init__(message)
+        self.reason = reason
+
+    def __reduce__(self):  # the reason survives a trip to and from a worker process
+        return (_fit_error, (str(self), self.reason))
+
+
+def _fit_error(message: str, reason: str) -> FitError:
+    return FitError(message, reason=reason)
 
 
 class LimitsError(RingdownError, ValueError):
