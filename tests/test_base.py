@@ -93,6 +93,12 @@ def test_a_fit_error_keeps_its_reason_across_processes():
     # the only raise that words its message about band noise says so in its reason too
     src = (Path(ringdown.__file__).parent / "analysis" / "pipeline.py").read_text()
     assert "in str(exc)" not in src
-    for m in re.finditer(r"raise FitError\((.*?)\n        \)", src, re.S):
-        if "band noise" in m.group(1):
-            assert 'reason="near_noise"' in m.group(1)
+    calls = []
+    for m in re.finditer(r"raise FitError\(", src):
+        depth, i = 1, m.end()
+        while depth:  # to the call's closing parenthesis
+            depth += {"(": 1, ")": -1}.get(src[i], 0)
+            i += 1
+        calls.append(src[m.end() : i])
+    noisy = [c for c in calls if "band noise" in c]
+    assert noisy and all('reason="near_noise"' in c for c in noisy)
