@@ -100,5 +100,5 @@ def test_a_fit_error_keeps_its_reason_across_processes():
             depth += {"(": 1, ")": -1}.get(src[i], 0)
             i += 1
         calls.append(src[m.end() : i])
-    noisy = [c for c in calls if "band noise" in c]
+    noisy = [c for c in calls if "above its band noise" in c]
     assert noisy and all('reason="near_noise"' in c for c in noisy)
