@@ -9,8 +9,8 @@ that cannot be analysed gives an ``Analysis`` whose ``error`` is set; the others
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Iterable, Iterator, Sequence
-from dataclasses import dataclass, replace
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -724,6 +724,9 @@ class _HitContext:
     pre_rms: float | None = None  #: RMS of the samples before the hit's rise (None: too few), recording units
     earlier: tuple = ()  #: (f_hz, width_hz) of modes measured in earlier hits of the record
     pre: np.ndarray | None = None  #: (n_pre,) the samples before the hit's rise (None: too few)
+    #: Candidate -> (reason, detail) for each raw-fit target the fit reached but did not keep
+    #: (:func:`_measure_raw`), so that its rejection says why (:func:`_match_candidates`)
+    drops: dict = field(default_factory=dict)
 
     def new_above(self, f_hz: float) -> float | None:
         """Amplitude (recording units) above which a component at ``f_hz`` was not there before
@@ -875,7 +878,9 @@ def _with_residual(
         hctx, start, modes, tried, deferred, broad=broad, broad_round=int(bool(retry))
     )
     rejected.extend(more_rejected)
-    first, unmatched = _match_candidates(modes, [c for c in retry if not any(_near(m, c) for m in more)], False)
+    first, unmatched = _match_candidates(
+        modes, [c for c in retry if not any(_near(m, c) for m in more)], False, why=hctx.drops
+    )
     rejected.extend(unmatched)
     return first + more
 
@@ -984,7 +989,7 @@ def _measure_groups(
             rejected.extend(_rejection(c, "fit_failed", str(exc)) for c in group_cands)
             continue
         steady = any(w.code == "stationary_tone" for w in warnings[n_warn:])
-        found, unmatched = _match_candidates(found, group_cands, steady, retry if residual else None)
+        found, unmatched = _match_candidates(found, group_cands, steady, retry if residual else None, hctx.drops)
         rejected.extend(unmatched)
         modes.extend(found)
     return modes, failed, deferred, retry
@@ -1131,7 +1136,7 @@ def _residual_round(
                     rejected.extend(_rejection(c, reason, str(exc)) for c in gc)
                     continue
             got = _resolved_raw(_new_near(got, gc, known + found_round, res_hz), rejected, gc)
-            got, unmatched = _match_candidates(got, gc, False)
+            got, unmatched = _match_candidates(got, gc, False, why=hctx.drops)
             rejected.extend(unmatched)
             found_round.extend(got)
         # the row's humps may be looked at again by the next (sharp) round
@@ -1229,7 +1234,7 @@ def _fit_deferred(
             rejected.extend(_rejection(c, "fit_failed", str(exc)) for c in gc)
             continue
         got = _resolved_raw(_new_near(got, gc, have, res_hz), rejected, gc)
-        got, unmatched = _match_candidates(got, gc, False)
+        got, unmatched = _match_candidates(got, gc, False, why=hctx.drops)
         rejected.extend(unmatched)
         found += got
     return found
@@ -1517,10 +1522,18 @@ def _near(m: Mode, c: Candidate, k: float = 0.5) -> bool:
     return abs(m.f_d_hz - c.f_hz) <= tol
 
 
-def _match_candidates(modes: list[Mode], cands: list[Candidate], steady: bool, retry: list[Candidate] | None = None):
+def _match_candidates(
+    modes: list[Mode],
+    cands: list[Candidate],
+    steady: bool,
+    retry: list[Candidate] | None = None,
+    why: Mapping[Candidate, tuple[str, str]] | None = None,
+):
     """Pair a group's candidates with the modes measured there. A candidate no mode lies near
     (within half the larger half-power width, three standard uncertainties or the search's
-    resolution) is a rejection: ``steady_tone`` when the group was a steady tone, ``unresolved``
+    resolution) is a rejection: ``steady_tone`` when the group was a steady tone, the raw fit's
+    own ``(reason, detail)`` from ``why`` when it reached the candidate and did not keep it
+    (:func:`_measure_raw`: growing, a degenerate covariance, too little decay), ``unresolved``
     (with a warning on the nearest mode naming the pair) when another mode took its place,
     ``fit_failed`` when the fit found nothing. With a ``retry`` list, a candidate whose band fit
     found nothing, or only modes more than two half-power widths away (a joint fit that missed
@@ -1535,6 +1548,8 @@ def _match_candidates(modes: list[Mode], cands: list[Candidate], steady: bool, r
             out.append(_rejection(c, "steady_tone", "its band held it before the hit"))
         elif retry is not None and not any(_near(m, c, 2.0) for m in modes):
             retry.append(c)
+        elif why and c in why:
+            out.append(_rejection(c, *why[c]))
         elif modes:
             j = min(range(len(modes)), key=lambda i: abs(modes[i].f_d_hz - c.f_hz))
             m = modes[j]
@@ -1597,7 +1612,7 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
                 keep=[(c.f_hz, beta_of(c)) for c in (targets if joint else []) + carried],
             )
 
-        def fit(duration_s: float, skip_s: float = 0.0) -> list[Estimate]:
+        def fit(duration_s: float, skip_s: float = 0.0, dropped: list | None = None) -> list[Estimate]:
             k = int(round(skip_s * fs))
             return estimate_real(
                 fit_seg[k:],
@@ -1608,14 +1623,16 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
                 duration_s=duration_s - k / fs,
                 noise_f=ctx.noise_f,
                 noise_p=ctx.noise_p,
+                dropped=dropped,
             )
 
         return fit
 
     fit = fit_with(others)
     slow = [c for c in others if c.source == "measured" and c.f_hz * dur < detect.MIN_CYCLES]
+    dropped: list[tuple[int, str]] = []  # (target index, why) of targets the fit reached, not kept
     try:
-        ests = fit(dur)
+        ests = fit(dur, dropped=dropped)
     except FitError:
         if not slow:
             raise
@@ -1626,7 +1643,11 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
         # wandered (to 0 Hz, or growing) and made the covariance indefinite. Its pole is held
         # (measured over its whole decay) and its amplitude fitted jointly with the targets'
         fit = fit_with([c for c in others if c not in slow], joint=True)
-        ests = fit(dur)
+        dropped = []
+        ests = fit(dur, dropped=dropped)
+    for i, why in dropped:
+        hctx.drops[targets[i]] = ("fit_failed", why)
+    kept = [i for i in range(len(targets)) if i not in {d[0] for d in dropped}]  # ests' targets, in order
     try:
         half = fit(0.5 * dur)
     except FitError:
@@ -1639,9 +1660,15 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
     except FitError:
         late = []
     modes = []
-    for est in (_with_model_error(e, [("first half", half, False), ("later start", late, True)]) for e in ests):
+    for i, e in zip(kept, ests):
+        est = _with_model_error(e, [("first half", half, False), ("later start", late, True)])
         if DB_PER_NEPER * est.beta_per_s * t_rest < 6.0:
             # decays less than 6 dB over the whole hit: a steady tone, as in _is_stationary
+            hctx.drops[targets[i]] = (
+                "steady_tone",
+                f"the raw fit from {(start + ctx.i0) / fs:.4g} s gave {est.f_d_hz:.2f} Hz, beta "
+                f"{est.beta_per_s:.3g} 1/s: less than 6 dB of decay over the hit's {t_rest:.3g} s",
+            )
             continue
         density = float(detect.noise_density(est.f_d_hz, ctx.noise_f, ctx.noise_p))
         # band noise over the mode's own half-power bandwidth beta / pi (as |z| of a band that wide)

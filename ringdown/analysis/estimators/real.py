@@ -193,6 +193,7 @@ def estimate_real(
     duration_s: float,
     noise_f: np.ndarray,
     noise_p: np.ndarray,
+    dropped: list[tuple[int, str]] | None = None,
 ) -> list[Estimate]:
     """Fit real damped cosines to the record from its decay start.
 
@@ -211,6 +212,10 @@ def estimate_real(
         Length of the fit window from ``seg[0]``, s.
     noise_f, noise_p : (k,) ndarray of float
         Measured one-sided noise PSD (Hz, units^2/Hz).
+    dropped : list, optional
+        Appended with ``(i, why)`` for each target ``i`` (index into ``poles``) the fit converged
+        to but that is not returned, ``why`` in plain words (growing, outside 0 to fs/2, or a
+        degenerate covariance), so that the caller names it rather than dropping it silently.
 
     Returns
     -------
@@ -238,10 +243,22 @@ def estimate_real(
     cov, s2 = _covariance(y, t, beta, omega, c, _noise_acf(noise_f, noise_p, fs, step, y.shape[0], averaged=averaged))
     out = []
     for i in range(n_targets):
-        if not (beta[i] > 0 and omega[i] > 0 and omega[i] / (2 * math.pi) < fs / 2.0):
+        f_i = float(omega[i]) / (2 * math.pi)
+        why = None
+        if not beta[i] > 0:
+            why = f"the raw fit from {t0_s:.4g} s found it growing ({growing_text([(f_i, float(beta[i]))])})"
+        elif not (omega[i] > 0 and f_i < fs / 2.0):
+            why = f"the raw fit from {t0_s:.4g} s moved it to {f_i:.4g} Hz, outside 0 to fs/2"
+        elif not (cov[4 * i, 4 * i] > 0.0 and cov[4 * i + 1, 4 * i + 1] > 0.0):
+            # a degenerate covariance: no credible uncertainty, not an estimate
+            why = (
+                f"the raw fit from {t0_s:.4g} s gave {f_i:.2f} Hz, beta {float(beta[i]):.3g} 1/s "
+                "with a degenerate covariance (no credible uncertainty)"
+            )
+        if why is not None:
+            if dropped is not None:
+                dropped.append((i, why))
             continue
-        if not (cov[4 * i, 4 * i] > 0.0 and cov[4 * i + 1, 4 * i + 1] > 0.0):
-            continue  # a degenerate covariance: no credible uncertainty, not an estimate
         gain = abs(_boxcar_gain(complex(-beta[i], omega[i]), fs, step)) if averaged else 1.0
         out.append(
             Estimate(
