@@ -101,7 +101,9 @@ def find_peaks(
         level_s /= 2.0 * n * n
         power = p_db / 10.0
         np.power(10.0, power, out=power)  # = 10 ** (p_db / 10), in place
-        peaks += _broad_peaks(f, power, level_s, n, sample_rate, peaks)
+        broad_found, spikes = _broad_peaks(f, power, level_s, n, sample_rate, peaks)
+        gone = {id(q) for q in spikes}
+        peaks = [q for q in peaks if id(q) not in gone] + broad_found
         peaks.sort(key=lambda p: p.f_hz)
     if max_peaks is not None and len(peaks) > max_peaks:
         peaks = sorted(peaks, key=lambda p: p.level_db, reverse=True)[:max_peaks]
@@ -207,11 +209,14 @@ BROAD_SCALES = (8, 32, 128)
 #: higher neighbour, dB: four standard deviations of the smoothed noise spectrum at the finest
 #: scale (4.34 / sqrt(8) dB each) [derived], a plain dip in a strong mode's skirt being smooth.
 BROAD_PROMINENCE_DB = 6.0
+#: A sharp peak is the noise's largest bin on a broad hump (not a mode of its own) only if the hump
+#: is this many times wider than it (as pipeline.WIDTH_MISMATCH; common practice, no source).
+SPIKE_WIDTH_RATIO = 4.0
 
 
 def _broad_peaks(
     f: np.ndarray, p: np.ndarray, noise: np.ndarray, n: int, sample_rate: float, sharp: list[Peak]
-) -> list[Peak]:
+) -> tuple[list[Peak], list[Peak]]:
     """Peaks many bins wide (heavily damped modes, Q down to ~3) that the bin-by-bin search
     misses: the running median it compares with sits on a hump that wide.
 
@@ -222,14 +227,22 @@ def _broad_peaks(
     chi-square average with ``2 m`` degrees of freedom reaches with probability 1e-3 (``ln`` of
     cells over 1e-3, over ``m``, plus the Welch scatter: [derived]), stands
     :data:`BROAD_PROMINENCE_DB` above its surroundings, is at least half the scale wide (else the
-    sharper search owns it), and no sharp peak lies within its half-power width.
+    sharper search owns it), and no narrower peak (sharp, or broad at a finer scale) lies within
+    its half-power width, unless each such peak is a ripple of the hump itself (:func:`_ripple_of`,
+    then dropped: the hump is the mode), or one sharp line stands out on a hump too wide for
+    that line to have made (both kept: a lightly damped mode on a heavily damped one).
+
+    Returns ``(broad, ripples)``: the broad peaks, and the peaks of ``sharp`` that are ripples of
+    one of them (for the caller to drop).
     """
     from scipy import ndimage
 
     pad = f.shape[0] / max(n / 2.0, 1.0)  # padded bins per unpadded (independent) bin
     df = f[1] - f[0]
     out: list[Peak] = []
+    ripples: list[Peak] = []
     found = list(sharp)
+    scale_of = {id(q): 1 for q in sharp}  # bins each peak's level was averaged over
     for m in BROAD_SCALES:
         k = int(math.ceil(m * pad))
         if 8 * k > f.shape[0]:
@@ -238,7 +251,7 @@ def _broad_peaks(
         ns = ndimage.uniform_filter1d(noise, k, mode="nearest")
         cells = max(f.shape[0] / k, 2.0)
         # 2 dB more for the scatter of the Welch estimate of the noise level, as in find_peaks
-        margin = (1.0 + (math.log(cells / 1e-3) + 3.0 * math.sqrt(m)) / m) * 10**0.2
+        margin = _largest_cell(m, cells) * 10**0.2
         # above the noise's margin and at least 10 cycles over the segment (as detect.MIN_CYCLES:
         # below, drift removal and DC leave humps that are no modes): only those bins' maxima get
         # a prominence (the rest still bound their walks); no such bin, no peak at this scale
@@ -256,14 +269,57 @@ def _broad_peaks(
                 continue
             # the averaging widens a peak: take its own width out in quadrature
             width_hz = math.sqrt(max(width_bins**2 - k**2 / 3.0, (0.5 * k) ** 2)) * df
-            if any(abs(q.f_hz - f[i]) <= max(0.5 * width_hz, q.width_hz) for q in found):
+            inside = [q for q in found if abs(q.f_hz - f[i]) <= max(0.5 * width_hz, q.width_hz)]
+            wide = width_bins >= 2 * k and all(SPIKE_WIDTH_RATIO * q.width_hz <= width_hz for q in inside)
+            ripple = [q for q in inside if wide and _ripple_of(q, scale_of[id(q)], ps, ns, f, width_bins, pad)]
+            lines = [q for q in inside if q not in ripple]
+            if lines and not (wide and len(lines) == 1 and id(lines[0]) in {id(q) for q in sharp}):
                 continue
+            gone = {id(q) for q in ripple}
+            ripples += [q for q in ripple if scale_of[id(q)] == 1]
+            out = [q for q in out if id(q) not in gone]
+            found = [q for q in found if id(q) not in gone]
             pk = Peak(
                 f_hz=float(f[i]), level_db=float(db[i]), prominence_db=float(prom), width_hz=float(width_hz), broad=True
             )
             out.append(pk)
             found.append(pk)
-    return out
+            scale_of[id(pk)] = m
+    return out, ripples
+
+
+def _largest_cell(m: int, cells: float) -> float:
+    """Level, over their mean, that the largest of ``cells`` independent averages of ``m``
+    exponentially distributed noise bins (chi-square with ``2 m`` degrees of freedom, over
+    ``2 m``) stays below with probability 1 - 1e-3: ``1 + (ln(cells / 1e-3) + 3 sqrt(m)) / m``
+    [derived: the Chernoff bound of the upper tail, with a Gaussian allowance of three standard
+    deviations of the average]."""
+    return 1.0 + (math.log(cells / 1e-3) + 3.0 * math.sqrt(m)) / m
+
+
+def _ripple_of(q: Peak, m_q: int, ps: np.ndarray, ns: np.ndarray, f: np.ndarray, width_bins: int, pad: float) -> bool:
+    """Whether the narrower peak ``q`` (its level averaged over ``m_q`` bins: 1 for a sharp peak)
+    is a noise ripple on a broad hump, not a mode of its own. ``ps`` and ``ns`` are the power
+    spectrum and the noise's expected level averaged at the hump's scale over the bins ``f``;
+    the hump is ``width_bins`` bins wide at half power; ``pad`` padded bins per independent bin.
+
+    A hump whose periodogram is noisy has a tallest bin that the bin-by-bin search takes for a
+    sharp peak one bin wide, and a finer smoothing leaves ripples on it that stand out as narrower
+    broad peaks. A bin is the hump's spectrum ``S`` plus noise ``N``: ``|S + N|^2 = |S|^2 +
+    2 Re(S N*) + |N|^2`` (the Rice distribution of a line in noise), so over the hump's ``M``
+    independent cells, averaged over ``m_q`` bins, it stays with probability 1 - 1e-3 below
+    ``|S|^2 + 2 |S| sigma z / sqrt(m_q) + sigma^2 c``, with ``sigma^2`` the noise level, ``z =
+    sqrt(2 ln(M / 1e-3))`` (the largest of ``M`` Gaussian deviates) and ``c`` the largest of ``M``
+    chi-square averages (:func:`_largest_cell`) [derived]. ``q`` is a ripple when it stays below
+    that bound with ``|S|^2`` taken as the averaged level at ``q`` (noise included, which only
+    widens the bound); a line standing higher is a mode on the hump. The caller checks first
+    that the hump is too wide for ``q`` to have made.
+    """
+    j = int(np.clip(np.searchsorted(f, q.f_hz), 0, f.shape[0] - 1))
+    cells = max(width_bins / pad / m_q, 1.0)
+    z = math.sqrt(2.0 * math.log(cells / 1e-3))
+    bound = ps[j] + 2.0 * math.sqrt(ps[j] * ns[j] / m_q) * z + ns[j] * _largest_cell(m_q, cells)
+    return 10 ** (q.level_db / 10) <= bound
 
 
 def spectrum_db(x: np.ndarray, sample_rate: float) -> tuple[np.ndarray, np.ndarray]:
