@@ -581,3 +581,68 @@ def test_unresolved_decay_fitted_growing_is_reported_not_failed(detection, seed,
     assert used
     m = _found_and_within(a, {"f": f, "beta": beta})
     assert m.beta_per_s > 0 and any(w.code == "decay_unresolved" for w in m.warnings)
+
+
+_NOT_YET = pytest.mark.xfail(
+    strict=True,
+    reason="the second-tap statistic's empirical null (retap.REFERENCES) is raised beside this "
+    "mode by what the model lacks, and the change stays below RETAP_ALPHA (DEVELOPERS.md, Known gaps)",
+)
+
+
+@pytest.mark.parametrize(
+    "seed, index, f_true",
+    [
+        pytest.param(20261201, 6, 40.446, marks=_NOT_YET),
+        (20261201, 26, 79.538),
+        pytest.param(20261201, 26, 53.656, marks=_NOT_YET),
+        pytest.param(7, 41, 133.090, marks=_NOT_YET),
+    ],
+)
+def test_lightly_damped_mode_a_second_tap_changed_is_not_a_steady_tone(detection, seed, index, f_true):
+    """Records of the benchmark with two taps (exact truth: the stated parameters): seed
+    20261201 record 6 (40.446 Hz, Q 8.8e4, 37 dB below the strongest), record 26 (79.538 Hz,
+    Q 3.2e4, and 53.656 Hz, Q 1.2e4) and seed 7 record 41 (133.090 Hz, Q 3.7e3). Their decay is
+    not resolved in the record, and the bound the short pre-trigger sets on a tone at their
+    frequency lies above their amplitude, so they were named steady tones. The second tap changes
+    their amplitude and phase, which no steady tone does (a linear structure's response to a tap
+    is free decays at its modes): they are modes, within 3 u of the truth, with decay_unresolved,
+    and no reported mode is invented. Record 26's 79.538 Hz mode passes the test now; the others
+    are still named steady tones (xfail: the test's empirical null is too wide beside them)."""
+    x, fs, truth = _benchmark_record(index, seed)
+    a = analyze(x, fs)
+    (tr,) = [t for t in truth if abs(t["f"] - f_true) < 0.01]
+    m = _found_and_within(a, tr)
+    assert any(w.code == "decay_unresolved" for w in m.warnings)
+    _all_true(a, truth)
+
+
+def test_hum_through_two_taps_stays_a_steady_tone(detection, monkeypatch):
+    """A 50 Hz hum from the record's first sample, 40 dB below a 440 Hz tap repeated 1 s later
+    (invented: Q 50, the second tap at 0.6 of the first's amplitude and another phase; pink-free
+    white noise 60 dB below the tap). The hum is tested by the second-tap test (it is named a
+    steady tone by its fit in the first hit) and the second tap does not change it: no mode at
+    50 Hz, and the tap's mode is exact (beta = pi f / Q) within 3 u."""
+    from ringdown.analysis import retap
+
+    tested = []
+    real = retap.phasor_changes
+
+    def spy(x, fs, onsets, skip, comps, held):
+        tested.extend(f for f, _ in comps)
+        return real(x, fs, onsets, skip, comps, held)
+
+    monkeypatch.setattr(retap, "phasor_changes", spy)
+    fs, q, f = 8000.0, 50.0, 440.0
+    beta = math.pi * f / q
+    x = ringdown_modes([(f, beta, 1.0)], sample_rate=fs, duration_s=2.0, pre_s=0.3, snr_db=60.0, seed=31)
+    n2 = int(1.3 * fs)
+    t = np.arange(x.size) / fs
+    x[n2:] += 0.6 * np.exp(-beta * (t[n2:] - t[n2])) * np.cos(2 * math.pi * f * (t[n2:] - t[n2]) + 2.0)
+    x += 0.01 * np.sin(2 * math.pi * 50.0 * t + 0.4)
+    a = analyze(x, fs)
+    assert len([h for h in a.hits if h.used]) == 2
+    assert not [m for m in a.modes if abs(m.f_d_hz - 50.0) < 5.0], a.modes
+    assert any(w.code == "stationary_tone" for w in a.warnings)
+    (m,) = [m for m in a.modes if abs(m.f_d_hz - f) < 5.0]
+    assert abs(m.beta_per_s - beta) <= 3 * m.beta_per_s_u
