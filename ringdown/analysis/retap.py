@@ -22,13 +22,17 @@ damped cosine:
   pole off by its u left a residual spread over ~1/T around it, which the steps of a component
   near it took, and the statistic of components without any change came out at twice its
   expectation in a record whose strongest mode stood 80 dB above the noise);
-* a constant.
+* no constant: the data and every column are differenced once (an exact linear model still),
+  which takes out the offset and the record's slow wander; left in, the wander leaked into the
+  steps through their edges at t_k, and the statistic of frequencies where nothing was came out
+  at 2-3 times its expectation below 100 Hz in a record of pink noise.
 
 A steady tone has every ``s_k = 0``. With the white-noise equivalent ``sigma^2 = S(f) fs / 2``
 of the residual's own density near ``f`` (a least-squares sinusoid coefficient's variance follows
 the noise density at its frequency: Hannan 1973 [from memory]), the Wald statistic
 ``s^T C^{-1} s`` (``C`` the least-squares covariance of the steps) is chi-square with ``2 (K - 1)``
-degrees of freedom under that hypothesis (Wald 1943; K taps). Samples of each tap's force (its
+degrees of freedom under that hypothesis (Wald 1943; K taps); :func:`phasor_changes` divides it
+by an empirical null measured beside each tested frequency. Samples of each tap's force (its
 burst and one smoothing width) are left out: the force is in no model.
 """
 
