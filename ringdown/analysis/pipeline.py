@@ -1643,9 +1643,23 @@ def _measure_raw(hctx: _HitContext, targets: list[Candidate], cands: list[Candid
     def beta_of(c: Candidate) -> float:
         return c.beta_per_s if c.beta_per_s is not None else math.pi * c.width_hz
 
-    # the window: until the slowest target's remaining matched-filter SNR falls to 1
-    dur = max(math.log(max(c.snr or math.e**2, math.e**2)) / (2.0 * beta_of(c)) for c in targets)
-    dur = min(max(dur, 20.0 / min(c.f_hz for c in targets)), t_rest)
+    def unknown(c: Candidate) -> bool:
+        """A sharp spectral peak whose width, within ``WIDTH_MISMATCH`` resolutions, is the
+        resolution's rather than the decay's, and whose SNR the search did not measure: its decay
+        rate is only an upper bound, and a window from it too short (benchmark seed 7, record 37:
+        123.7 Hz, Q 302 was given 0.24 s of its 0.78 s decay time)."""
+        return c.snr is None and c.width_hz <= WIDTH_MISMATCH * c.resolution_hz
+
+    # the window: until the slowest target's remaining matched-filter SNR falls to 1, from the
+    # targets that give one; targets that are all ``unknown`` get the rest of the hit (one that
+    # joins a fast decay does not: thinned to MAX_SAMPLES over the whole hit, the fast one's
+    # decay falls between the samples kept)
+    known_t = [c for c in targets if not unknown(c)]
+    if known_t:
+        dur = max(math.log(max(c.snr or math.e**2, math.e**2)) / (2.0 * beta_of(c)) for c in known_t)
+        dur = min(max(dur, 20.0 / min(c.f_hz for c in targets)), t_rest)
+    else:
+        dur = t_rest
     thr = detect.snr_threshold(seg.shape[0], fs)
     ranked: list[tuple[float, Candidate]] = []
     for c in cands:
