@@ -1082,8 +1082,10 @@ def _residual_round(
     modes and their skirts are gone: the first, or round ``broad_round`` (1 when the first pass
     left candidates for the residual search to look for again, whose modes, measured in the
     first round, would hide broad humps beside them until subtracted); other rounds look for
-    sharp peaks only, since subtracting a strong broad mode leaves a broadband remnant. Returns
-    ``(modes, rejected)``."""
+    sharp peaks only, since subtracting a strong broad mode leaves a broadband remnant, except
+    the round after the first that found modes (from ``broad_round`` on), once: a hump under a
+    mode just found shows only when it is subtracted, and one under a broad raw-fit mode is then
+    fitted jointly with it (:func:`_pair_refit`). Returns ``(modes, rejected)``."""
     ctx = hctx.record
     fs, x = ctx.fs, ctx.x
     seg_end = hctx.seg_end - ctx.i0
@@ -1101,14 +1103,14 @@ def _residual_round(
     # round finds a mode there (a row of real modes, each sharp enough once the others are gone)
     row: list[Rejected] = []
     row_cands: list[Candidate] = []
-    unveil: int | None = None  # the round after the one that fitted the first broad mode on the record
+    unveil: int | None = None  # the round after the first (from broad_round on) that found modes
     for round_ in range(RESIDUAL_ROUNDS + broad_round + 1):
         if round_ >= RESIDUAL_ROUNDS + broad_round and unveil != round_:
             break
         resid = _subtract_modes(decay, fs, known)
-        # broad peaks in one residual only: after a strong broad mode is subtracted, its
-        # broadband remnant makes humps a smoothed search would take for modes; but the first
-        # broad mode fitted on the record may have hidden a broader or weaker one under its hump
+        # broad peaks in few residuals only: after a strong broad mode is subtracted, its
+        # broadband remnant makes humps a smoothed search would take for modes; but the modes
+        # the broad round found may have hidden a broader or weaker one under their skirts
         # (benchmark record 2: 5819 Hz, Q 3.7 beside 3239 Hz, Q 4.7), looked for once more
         peaks = find_peaks(
             resid, fs, noise_psd=(ctx.noise_f, ctx.noise_p), broad=broad and round_ in (broad_round, unveil)
@@ -1154,7 +1156,7 @@ def _residual_round(
         tried = [t for t in tried if t not in gone]
         if not found_round and len(row_cands) == n_row and round_ >= broad_round:
             break
-        if unveil is None and round_ >= broad_round and any(m.fit_path == "raw" for m in found_round):
+        if unveil is None and round_ >= broad_round and found_round:
             unveil = round_ + 1
         known += found_round
         new_modes += found_round
