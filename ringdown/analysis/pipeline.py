@@ -1121,12 +1121,12 @@ def _residual_round(
         tried += [(p.f_hz, max(p.width_hz, res_hz)) for p in fresh]
         found_round: list[Mode] = []
         # band fits first: a raw fit then carries (or subtracts) every mode measured in this round too
-        n_row = len(row_cands)
+        n_row, n_rejected = len(row_cands), len(rejected)
         for g, lo, hi, gc, raw in _round_groups(fresh, fs, res_hz, tuple(ctx.tones), known):
             if raw and _too_many(gc, row):
                 row_cands += gc
                 continue
-            olds = _hidden_under(gc, new_modes) if raw and round_ == unveil else []
+            olds = _hidden_under(gc, new_modes, raw=True) if raw and round_ == unveil else []
             try:
                 if olds:
                     got = _pair_refit(hctx, gc, olds, known, found_round, new_modes, res_hz, start)
@@ -1156,7 +1156,14 @@ def _residual_round(
         tried = [t for t in tried if t not in gone]
         if not found_round and len(row_cands) == n_row and round_ >= broad_round:
             break
-        if unveil is None and round_ >= broad_round and found_round:
+        if (
+            unveil is None
+            and round_ >= broad_round
+            and found_round
+            and len(found_round) >= len(rejected) - n_rejected + len(row)
+        ):
+            # not after a round that rejected more candidates than it found modes: its residual
+            # is a field of remnants (over a hundred humps in a crowded record), the next one too
             unveil = round_ + 1
         known += found_round
         new_modes += found_round
@@ -1170,13 +1177,13 @@ def _residual_round(
 OVERLAP_WIDTHS = 2.0
 
 
-def _hidden_under(cands: list[Candidate], modes: list[Mode]) -> list[Mode]:
-    """The raw-fit modes of ``modes`` whose hump overlaps one of ``cands``' (within
-    ``OVERLAP_WIDTHS`` times the sum of their half-power widths)."""
+def _hidden_under(cands: list[Candidate], modes: list[Mode], raw: bool = False) -> list[Mode]:
+    """The modes of ``modes`` (with ``raw``, the raw-fit ones only) whose hump overlaps one of
+    ``cands``' (within ``OVERLAP_WIDTHS`` times the sum of their half-power widths)."""
     return [
         m
         for m in modes
-        if m.fit_path == "raw"
+        if (m.fit_path == "raw" or not raw)
         and any(abs(m.f_d_hz - c.f_hz) <= OVERLAP_WIDTHS * (c.width_hz + m.beta_per_s / math.pi) for c in cands)
     ]
 
@@ -1234,12 +1241,15 @@ def _round_groups(fresh: list, fs: float, res_hz: float, tones: tuple, known: li
     ]
     groups = []
     for g, lo, hi in (grp for part in parts for grp in part):
-        gc = [
-            Candidate(p.f_hz, math.pi * p.width_hz, max(p.width_hz, res_hz), None, None, "residual", -2, res_hz)
-            for p in g
-        ]
+        gc = [_peak_candidate(p, res_hz) for p in g]
         groups.append((g, lo, hi, gc, _needs_raw_fit(gc, lo, hi) or any(lo < m.f_d_hz < hi for m in known)))
     return sorted(groups, key=lambda r: r[4])
+
+
+def _peak_candidate(p: Peak, res_hz: float) -> Candidate:
+    """A residual peak as a candidate (source ``"residual"``): decay rate ``pi`` times its
+    half-power width, at least the resolution ``res_hz`` wide."""
+    return Candidate(p.f_hz, math.pi * p.width_hz, max(p.width_hz, res_hz), None, None, "residual", -2, res_hz)
 
 
 def _fresh_peaks(
