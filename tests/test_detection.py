@@ -304,6 +304,20 @@ def _found_and_within(a, tr, k_u: float = 3.0):
     return m
 
 
+def _record_mode_found(detection, index, f_true, *, seed=20261201, tol=0.01, part="the residual search"):
+    """Benchmark record ``index`` analysed: its true mode at ``f_true`` (within ``tol`` Hz) is
+    found within 3 u (:func:`_found_and_within`) and every reported mode is a true one
+    (:func:`_all_true`); returns the mode. Skipped for the model search, which ``part`` is not of."""
+    if detection == "model":
+        pytest.skip(f"{part} belongs to the default search")
+    x, fs, truth = _benchmark_record(index, seed=seed)
+    a = analyze(x, fs)
+    (tr,) = [t for t in truth if abs(t["f"] - f_true) < tol]
+    m = _found_and_within(a, tr)
+    _all_true(a, truth)
+    return m
+
+
 def test_broad_mode_beside_a_retried_one_is_found(detection):
     """Record 35 of the benchmark (48 kHz, 7 modes; exact truth: the stated parameters): the
     0 dB mode at 2066 Hz (Q 16) is not measured by the first pass (its band fit left it out) and
@@ -312,14 +326,7 @@ def test_broad_mode_beside_a_retried_one_is_found(detection):
     mode's hump in that round's broad search and never looked for again (later rounds look for
     sharp peaks only). The broad search now runs on the residual of the round after the retried
     candidates are measured, and finds it."""
-    if detection == "model":
-        pytest.skip("the residual search belongs to the default search")
-    x, fs, truth = _benchmark_record(35)
-    a = analyze(x, fs)
-    (tr,) = [t for t in truth if abs(t["f"] - 3482.116) < 1.0]
-    m = _found_and_within(a, tr)
-    assert m.fit_path == "raw"
-    _all_true(a, truth)
+    assert _record_mode_found(detection, 35, 3482.116, tol=1.0).fit_path == "raw"
 
 
 def test_broad_peak_within_a_widened_u_is_not_taken_for_a_remnant(detection):
@@ -329,13 +336,7 @@ def test_broad_peak_within_a_widened_u_is_not_taken_for_a_remnant(detection):
     (the mode of Q 9.7, 20 dB down) lay within 3 u of them and was taken for their remnant. A
     remnant of a subtracted mode is as narrow as the mode (beta / pi, or the resolution:
     Lorentzian line, FIELD.md section 1); the peak is now measured, within 3 u of the truth."""
-    if detection == "model":
-        pytest.skip("the residual search belongs to the default search")
-    x, fs, truth = _benchmark_record(31)
-    a = analyze(x, fs)
-    (tr,) = [t for t in truth if abs(t["f"] - 151.915) < 0.5]
-    _found_and_within(a, tr)
-    _all_true(a, truth)
+    _record_mode_found(detection, 31, 151.915, tol=0.5)
 
 
 @pytest.mark.parametrize("seed, index, f_true", [(7, 47, 538.029), (20261201, 42, 41.628)])
@@ -348,13 +349,7 @@ def test_sharp_residual_peak_is_not_fitted_with_a_broad_hump(detection, seed, in
     dropped as decaying less than 6 dB and the candidate named "fitted as one mode" with the
     hump. Sharp peaks and broad humps are now banded apart: the sharp one is measured in its own
     band, within 3 u of the truth."""
-    if detection == "model":
-        pytest.skip("the residual search belongs to the default search")
-    x, fs, truth = _benchmark_record(index, seed=seed)
-    a = analyze(x, fs)
-    (tr,) = [t for t in truth if abs(t["f"] - f_true) < 0.01]
-    assert _found_and_within(a, tr).fit_path == "band"
-    _all_true(a, truth)
+    assert _record_mode_found(detection, index, f_true, seed=seed).fit_path == "band"
 
 
 def test_raw_fit_far_wider_than_its_peak_is_not_a_mode(detection):
@@ -408,13 +403,7 @@ def test_first_pass_band_fit_lost_to_settling_is_fitted_on_the_record(detection)
     record from the decay's first sample once every other mode is subtracted (as the residual
     search does with a band lost to settling), and the mode is found within 3 u of the truth;
     no mode is invented."""
-    if detection == "model":
-        pytest.skip("the residual search belongs to the default search")
-    x, fs, truth = _benchmark_record(18)
-    a = analyze(x, fs)
-    (tr,) = [t for t in truth if abs(t["f"] - 279.65) < 0.1]
-    assert _found_and_within(a, tr).fit_path == "raw"
-    _all_true(a, truth)
+    assert _record_mode_found(detection, 18, 279.65, tol=0.1).fit_path == "raw"
 
 
 def test_short_raw_fit_holds_the_poles_of_slow_modes(detection):
@@ -481,14 +470,8 @@ def test_broad_mode_whose_tallest_bin_looks_sharp_is_found(detection):
     inside it, the sharp peak's 117 Hz band lost the decay to its settling and the raw fit that
     then found the mode (9621 Hz, beta 630 1/s) was dropped as "far wider than the peak". A sharp
     peak no taller over the hump than its largest noise bin is now taken as the hump's
-    (``peaks._spike_of``); the mode is found within 3 u and every reported mode is a true one."""
-    if detection == "model":
-        pytest.skip("the broad peaks feed the default search")
-    x, fs, truth = _benchmark_record(10)
-    a = analyze(x, fs)
-    (tr,) = [t for t in truth if abs(t["f"] - 9622.988) < 0.01]
-    _found_and_within(a, tr)
-    _all_true(a, truth)
+    (``peaks._ripple_of``); the mode is found within 3 u and every reported mode is a true one."""
+    _record_mode_found(detection, 10, 9622.988, part="the broad-peak search")
 
 
 def test_sharp_mode_on_a_broad_hump_keeps_its_own_peak(detection):
@@ -622,10 +605,4 @@ def test_sharp_peak_without_a_measured_snr_gets_the_rest_of_the_hit(detection):
     Q 2.4e4 mode. Its raw fit's window came from the sharp peak's width (1.35 Hz, the
     resolution's: beta 4.2 1/s) and no SNR: 0.24 s of a decay time of 0.78 s, beta 1.17 +- 1.18
     1/s, named ``near_noise``. Such a target alone now gets the rest of the hit: within 3 u."""
-    if detection == "model":
-        pytest.skip("the residual search belongs to the default search")
-    x, fs, truth = _benchmark_record(37, seed=7)
-    a = analyze(x, fs)
-    (tr,) = [t for t in truth if abs(t["f"] - 123.681) < 0.01]
-    _found_and_within(a, tr)
-    _all_true(a, truth)
+    _record_mode_found(detection, 37, 123.681, seed=7)
