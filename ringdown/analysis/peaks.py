@@ -318,7 +318,8 @@ def _ripple_of(q: Peak, m_q: int, ps: np.ndarray, ns: np.ndarray, f: np.ndarray,
     j = int(np.clip(np.searchsorted(f, q.f_hz), 0, f.shape[0] - 1))
     cells = max(width_bins / pad / m_q, 1.0)
     z = math.sqrt(2.0 * math.log(cells / 1e-3))
-    bound = ps[j] + 2.0 * math.sqrt(ps[j] * ns[j] / m_q) * z + ns[j] * _largest_cell(m_q, cells)
+    s2, n2 = max(float(ps[j]), 0.0), max(float(ns[j]), 0.0)  # running means can round below 0
+    bound = s2 + 2.0 * math.sqrt(s2 * n2 / m_q) * z + n2 * _largest_cell(m_q, cells)
     return 10 ** (q.level_db / 10) <= bound
 
 
