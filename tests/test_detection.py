@@ -567,6 +567,65 @@ def test_unresolved_decay_fitted_growing_is_reported_not_failed(detection, seed,
     assert m.beta_per_s > 0 and any(w.code == "decay_unresolved" for w in m.warnings)
 
 
+_NOT_YET = pytest.mark.xfail(
+    strict=True,
+    reason="the second-tap statistic's empirical null (retap.REFERENCES) is raised beside this "
+    "mode by what the model lacks, and the change stays below RETAP_ALPHA (DEVELOPERS.md, Known gaps)",
+)
+
+
+@pytest.mark.parametrize(
+    "seed, index, f_true",
+    [
+        pytest.param(20261201, 6, 40.446, marks=_NOT_YET),
+        (20261201, 26, 79.538),
+        pytest.param(20261201, 26, 53.656, marks=_NOT_YET),
+        pytest.param(7, 41, 133.090, marks=_NOT_YET),
+    ],
+)
+def test_lightly_damped_mode_a_second_tap_changed_is_not_a_steady_tone(detection, seed, index, f_true):
+    """Records of the benchmark with two taps (exact truth: the stated parameters): seed
+    20261201 record 6 (40.446 Hz, Q 8.8e4, 37 dB below the strongest), record 26 (79.538 Hz,
+    Q 3.2e4, and 53.656 Hz, Q 1.2e4) and seed 7 record 41 (133.090 Hz, Q 3.7e3). Their decay is
+    not resolved in the record, and the bound the short pre-trigger sets on a tone at their
+    frequency lies above their amplitude, so they were named steady tones. The second tap changes
+    their amplitude and phase, which no steady tone does (a linear structure's response to a tap
+    is free decays at its modes): they are modes, within 3 u of the truth, with decay_unresolved,
+    and no reported mode is invented. Record 26's 79.538 Hz mode passes the test now; the others
+    are still named steady tones (xfail: the test's empirical null is too wide beside them)."""
+    x, fs, truth = _benchmark_record(index, seed)
+    a = analyze(x, fs)
+    (tr,) = [t for t in truth if abs(t["f"] - f_true) < 0.01]
+    m = _found_and_within(a, tr)
+    assert any(w.code == "decay_unresolved" for w in m.warnings)
+    _all_true(a, truth)
+
+
+def test_hum_through_two_taps_stays_a_steady_tone(detection, monkeypatch):
+    """Record 6 of the benchmark (seed 20261201, two taps; exact truth: the stated parameters)
+    with a 60 Hz hum of amplitude 1e-3 added from its first sample (invented; 52 dB below the
+    strongest mode). The hum's fit names it a steady tone in the first hit, so the second-tap
+    test looks at it (the spy records it), and the second tap does not change it: no mode within
+    1 Hz of 60 Hz, and no reported mode is invented. An earlier form of the test, with no null
+    of its own, made it a mode."""
+    from ringdown.analysis import retap
+
+    tested = []
+    real = retap.phasor_changes
+
+    def spy(x, fs, onsets, skip, comps, held):
+        tested.extend(f for f, _ in comps)
+        return real(x, fs, onsets, skip, comps, held)
+
+    monkeypatch.setattr(retap, "phasor_changes", spy)
+    x, fs, truth = _benchmark_record(6)
+    t = np.arange(x.size) / fs
+    a = analyze(x + 1e-3 * np.cos(2 * math.pi * 60.0 * t + 0.4), fs)
+    assert any(abs(f - 60.0) < 0.1 for f in tested), tested
+    assert not [m for m in a.modes if abs(m.f_d_hz - 60.0) < 1.0], a.modes
+    _all_true(a, truth)
+
+
 def test_broad_mode_under_a_broad_mode_is_unveiled_and_fitted_as_a_pair(detection):
     """Record 2 of the benchmark (16 kHz; exact truth: the stated parameters): 3239 Hz, Q 4.7 at
     0 dB and 5819 Hz, Q 3.7, 7.8 dB down (76.8 dB matched-filter SNR). The second showed in the

@@ -546,18 +546,75 @@ def _measure_hits(ctx: _RecordContext, spans: list[condition.HitSpan], name: str
     """Every hit measured (:func:`_analyze_hit`, each knowing the modes of the hits before it);
     :class:`NoRingdownError` when none gives a usable mode. When every measurable hit is flagged
     (e.g. as a bounce), the flagged ones are used: better a flagged result than none."""
-    hits: list[Hit] = []
-    for j, span in enumerate(spans):
-        earlier = tuple(
-            (m.f_d_hz, max(m.beta_per_s / math.pi, 3.0 * (m.f_d_hz_u or 0.0))) for h in hits for m in h.modes
-        )
-        hits.append(_analyze_hit(ctx, span, prev_end=spans[j - 1].end if j > 0 else 0, earlier=earlier))
+    steady: list = []
+    hits = _hits_in_turn(ctx, spans, steady=steady)
+    retapped = _retapped(ctx, spans, hits, steady)
+    if retapped:
+        # components named steady tones that a later tap changed are modes: measured again
+        hits = _hits_in_turn(ctx, spans, retapped=retapped)
     if not any(h.used and h.modes for h in hits) and any(h.modes for h in hits):
         hits = [h if h.used or not h.modes else _keep(h) for h in hits]
     if not any(h.used and h.modes for h in hits):
         reasons = "; ".join(sorted({w.message for h in hits for w in h.warnings})) or "no mode stood above the noise"
         raise NoRingdownError(f"no mode could be measured in {name}: {reasons}")
     return hits
+
+
+def _hits_in_turn(ctx: _RecordContext, spans: list[condition.HitSpan], **kw) -> list[Hit]:
+    """Every hit measured in turn (:func:`_analyze_hit`, keywords ``kw`` passed on), each
+    knowing the modes of the hits before it."""
+    hits: list[Hit] = []
+    for j, span in enumerate(spans):
+        earlier = tuple(
+            (m.f_d_hz, max(m.beta_per_s / math.pi, 3.0 * (m.f_d_hz_u or 0.0))) for h in hits for m in h.modes
+        )
+        hits.append(_analyze_hit(ctx, span, prev_end=spans[j - 1].end if j > 0 else 0, earlier=earlier, **kw))
+    return hits
+
+
+#: False-alarm probability of :func:`_retapped`'s test per record, shared among the components
+#: it tests (Bonferroni): with 1e-3 per component, one of the nine high-frequency lines of benchmark
+#: record 29 (seed 20261201) came out at p = 7e-4 and was reported as a mode (common practice, no
+#: source).
+RETAP_ALPHA = 1e-3
+
+
+def _retapped(
+    ctx: _RecordContext, spans: list[condition.HitSpan], hits: list[Hit], steady: list
+) -> tuple[tuple[float, float], ...]:
+    """``(f_hz, tolerance_hz)`` of the components named steady tones by their fit (``steady``,
+    ``(f_hz, beta_per_s)``) whose amplitude and phase a later tap changed beyond what the noise
+    allows (:func:`ringdown.analysis.retap.phasor_changes`, false alarm ``RETAP_ALPHA`` per record).
+
+    A steady tone (hum, a running drive) is not changed by a tap, since a linear structure's
+    response to a tap adds free decays at its modes' frequencies; a lightly damped mode that the
+    first tap started, or that rang before it, is excited again, with a new amplitude and phase.
+    Only records whose hits are all taps (impulses) and that nothing clipped are tested: a drive
+    switched off changes its tone, and clipping changes every component. The tolerance is two
+    resolution bins of the record from the first tap on (components closer are one)."""
+    if len(spans) < 2 or not steady or any(sp.kind != "impulse" for sp in spans) or ctx.clipped.size:
+        return ()
+    from .retap import chi2_sf_even, phasor_changes
+
+    n0 = spans[0].onset
+    tol = 2.0 * ctx.fs / max(ctx.x.shape[0] - n0, 1)
+    tested: list[tuple[float, float]] = []
+    for f, beta in steady:
+        if all(abs(f - g) > tol for g, _ in tested):
+            tested.append((f, beta))
+    held = (
+        [
+            (m.f_d_hz, m.beta_per_s)
+            for m in _combine_hits([h for h in hits if h.modes])
+            if all(abs(m.f_d_hz - f) > tol for f, _ in tested)
+        ]
+        if any(h.modes for h in hits)
+        else []
+    )
+    stats = phasor_changes(ctx.x, ctx.fs, [sp.onset for sp in spans], ctx.burst + ctx.smoothing, tested, held)
+    # the false alarm is per record: shared among the components tested (Bonferroni)
+    alpha = RETAP_ALPHA / len(tested)
+    return tuple((f, tol) for (f, _), (w, dof) in zip(tested, stats) if chi2_sf_even(w, dof) < alpha)
 
 
 def _time_window(rec: Recording, opts: AnalysisOptions, name: str) -> tuple[np.ndarray, int]:
@@ -727,6 +784,16 @@ class _HitContext:
     #: Candidate -> (reason, detail) for each raw-fit target the fit reached but did not keep
     #: (:func:`_measure_raw`), so that its rejection says why (:func:`_match_candidates`)
     drops: dict = field(default_factory=dict)
+    #: (f_hz, tolerance_hz) of components a later tap changed (:func:`_retapped`): modes, not
+    #: steady tones, however little they decay or whatever their band held before this hit
+    retapped: tuple = ()
+    #: where the components named steady tones by their fit are collected, ``(f_hz,
+    #: beta_per_s)`` (None: not collected), for :func:`_retapped`
+    steady: list | None = None
+
+    def was_retapped(self, f_hz: float) -> bool:
+        """Whether a component at ``f_hz`` is one a later tap changed (``retapped``)."""
+        return any(abs(f_hz - f) <= tol for f, tol in self.retapped)
 
     def new_above(self, f_hz: float) -> float | None:
         """Amplitude (recording units) above which a component at ``f_hz`` was not there before
@@ -777,11 +844,21 @@ class _HitContext:
         return any(abs(f_hz - f) <= max(w, width_hz, 2.0 * self.spec.df_hz) for f, w in self.earlier)
 
 
-def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = ()) -> Hit:
+def _analyze_hit(
+    ctx: _RecordContext,
+    span,
+    *,
+    prev_end: int,
+    earlier: tuple = (),
+    retapped: tuple = (),
+    steady: list | None = None,
+) -> Hit:
     """Every mode of one hit (``span``, from :func:`condition.find_hits` and
     :func:`condition.free_decay_start`); ``prev_end`` is the sample where the previous hit's
     segment ended (0 for the first); ``earlier`` holds ``(f_hz, width_hz)`` of the modes of
-    earlier hits, which still ring when this hit comes. Indices are into ``ctx.x``; times are from the recording's
+    earlier hits, which still ring when this hit comes; ``retapped`` ``(f_hz, tolerance_hz)``
+    the components a later tap changed (:func:`_retapped`); the components named steady tones
+    by their fit are appended to ``steady`` as ``(f_hz, beta_per_s)`` when it is a list. Indices are into ``ctx.x``; times are from the recording's
     first sample (``ctx.i0`` samples before ``ctx.x[0]``)."""
     x, fs, opts = ctx.x, ctx.fs, ctx.opts
     i0 = ctx.i0
@@ -823,7 +900,9 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
 
     # the free decay's first sample: the smoothed level's onset can precede it (see _hit_context)
     free_start = _free_decay_start(ctx, span, clip_end) if span.kind == "impulse" else max(span.onset, clip_end or 0)
-    hctx = _hit_context(ctx, span, seg_start, prev_end, clip_end, earlier, free_start)
+    hctx = replace(
+        _hit_context(ctx, span, seg_start, prev_end, clip_end, earlier, free_start), retapped=retapped, steady=steady
+    )
     rejected: list[Rejected] = []
     cands: list[Candidate] = []
     start = decay_from
@@ -847,7 +926,7 @@ def _analyze_hit(ctx: _RecordContext, span, *, prev_end: int, earlier: tuple = (
         tried = [c for c in cands if c not in deferred and c not in retry]
         modes = _with_residual(hctx, resid_start, modes, tried, deferred, retry, rejected, broad=clip_end is None)
         modes = _raw_refits(hctx, resid_start, modes)
-    modes = _drop_driven(modes, onset_s, warnings)
+    modes = _drop_driven(modes, onset_s, warnings, hctx.was_retapped)
     if failed:
         shown = "; ".join(failed[:3]) + (f"; and {len(failed) - 3} more" if len(failed) > 3 else "")
         warnings.append(
@@ -2025,7 +2104,9 @@ def _steady_group(
     none of them rings from an earlier hit: a steady tone, named in ``hit_warnings`` unless the
     recording already named it (a tone of the pre-trigger within two Welch bins)."""
     ctx = hctx.record
-    ringing = bool(peaks_g) and all(hctx.rings_from_earlier(p.f_hz, p.width_hz) for p in peaks_g)
+    ringing = bool(peaks_g) and all(
+        hctx.rings_from_earlier(p.f_hz, p.width_hz) or hctx.was_retapped(p.f_hz) for p in peaks_g
+    )
     if not peaks_g or ringing or not _steady_before_onset(group_band, hctx.onset_s, beta_hint):
         return False
     near = 2.0 * (ctx.noise_f[1] - ctx.noise_f[0])  # two Welch bins
@@ -2087,7 +2168,16 @@ def _group_modes(
         unresolved_decay: list[Notice] = []
         pre_bound = hctx.new_above(est.f_d_hz)
         if not hctx.rings_from_earlier(est.f_d_hz) and _is_stationary(est, sb, sw, seg_end / fs, pre_bound=pre_bound):
-            if not _started_with_hit(est, pre_bound):
+            # an envelope fit standing in for a pencil fit that found nothing, with no decay
+            # resolved, is no mode even when a later tap changed the band (_unresolved_fallback)
+            retapped = hctx.was_retapped(est.f_d_hz) and not _unresolved_fallback(est, extra)
+            if retapped:
+                # a later tap changed it: a mode (:func:`_retapped`), its decay maybe unresolved
+                if not _decay_resolved(est):
+                    unresolved_decay.append(_decay_unresolved(est, retapped=True))
+            elif not _started_with_hit(est, pre_bound):
+                if hctx.steady is not None:
+                    hctx.steady.append((est.f_d_hz, est.beta_per_s))
                 hit_warnings.append(
                     Notice(
                         "stationary_tone",
@@ -2096,7 +2186,8 @@ def _group_modes(
                     )
                 )
                 continue
-            unresolved_decay.append(_decay_unresolved(est))
+            else:
+                unresolved_decay.append(_decay_unresolved(est))
         elif _unresolved_fallback(est, extra):
             unresolved_fits.append(
                 f"the envelope fit at {est.f_d_hz:.1f} Hz (the pencil found no decaying mode in its "
@@ -2135,17 +2226,21 @@ def _started_with_hit(est: Estimate, pre_bound: float | None) -> bool:
     return pre_bound is not None and est.amplitude is not None and est.amplitude > pre_bound
 
 
-def _decay_unresolved(est: Estimate) -> Notice:
-    """The warning on a mode that started with the hit but whose decay the record does not resolve."""
+def _decay_unresolved(est: Estimate, *, retapped: bool = False) -> Notice:
+    """The warning on a mode that started with the hit (or that a later tap changed:
+    ``retapped``, :func:`_retapped`) but whose decay the record does not resolve."""
     u = est.beta_per_s_u or 0.0
     f_n = math.hypot(est.f_d_hz, est.beta_per_s / (2.0 * math.pi))
     q_low = math.pi * f_n / max(est.beta_per_s + 2.0 * u, 1e-300)
+    why = (
+        "a later tap changed its amplitude and phase (a steady tone would not)" if retapped else "started with the hit"
+    )
     return Notice(
         "decay_unresolved",
-        f"mode at {est.f_d_hz:.6g} Hz started with the hit but decays too little in the record "
+        f"mode at {est.f_d_hz:.6g} Hz {why} but decays too little in the record "
         f"to measure: beta = {est.beta_per_s:.3g} +- {u:.2g} 1/s, Q above about {q_low:.3g} "
-        "(beta + 2u); record longer for its damping. Alone in a hit it is taken for a drive "
-        "switched on, not a mode",
+        "(beta + 2u); record longer for its damping"
+        + ("" if retapped else ". Alone in a hit it is taken for a drive switched on, not a mode"),
     )
 
 
@@ -2158,10 +2253,14 @@ FORCED_BANDWIDTHS = 3.0
 FORCED_LEVEL_DB = 10.0
 
 
-def _drop_driven(modes: list[Mode], onset_s: float, warnings: list[Notice]) -> list[Mode]:
+def _drop_driven(
+    modes: list[Mode], onset_s: float, warnings: list[Notice], retapped: Callable[[float], bool] = lambda f: False
+) -> list[Mode]:
     """The hit's modes less those whose decay is unresolved and that are a drive switched on
     (alone in the hit, or the forced response next to a resonance's start-up transient: see
-    ``FORCED_BANDWIDTHS``); each dropped one is named as a steady tone in ``warnings``."""
+    ``FORCED_BANDWIDTHS``); each dropped one is named as a steady tone in ``warnings``. A mode a
+    later tap changed (``retapped(f_hz)``, :func:`_retapped`) is no drive: a tap does not change
+    a forced response."""
 
     def unresolved(m: Mode) -> bool:
         return any(w.code == "decay_unresolved" for w in m.warnings)
@@ -2173,7 +2272,7 @@ def _drop_driven(modes: list[Mode], onset_s: float, warnings: list[Notice]) -> l
     decaying = [m for m in modes if not unresolved(m)]
     out = []
     for m in modes:
-        if unresolved(m):
+        if unresolved(m) and not retapped(m.f_d_hz):
             driven = not decaying or any(
                 abs(m.f_d_hz - d.f_d_hz) <= FORCED_BANDWIDTHS * d.beta_per_s / math.pi
                 and abs(20.0 * math.log10(max(at_onset(m), 1e-300) / max(at_onset(d), 1e-300))) <= FORCED_LEVEL_DB
