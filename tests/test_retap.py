@@ -79,3 +79,27 @@ def test_mode_a_second_tap_excited_is_changed():
     x = _record(rng, hum_amp=3.0)
     ((w, _),) = phasor_changes(x, FS, TAPS, 20, [MODE], [HUM])
     assert w > 30 * stats.chi2.isf(1e-3, 2), w
+
+
+def test_partial_regression_gives_the_full_fit_statistic():
+    # Frisch-Waugh-Lovell theorem (Frisch & Waugh 1933, Lovell 1963 [from memory]): the
+    # coefficients and covariance of a block in a least-squares fit equal those of the block
+    # fitted alone once the other columns are projected out of it and the data; the statistic
+    # phasor_changes takes from retap._Design must equal _wald's full fit to rounding
+    from ringdown.analysis.retap import _Design
+
+    rng = np.random.default_rng(5)
+    x = _record(rng, hum_amp=3.0)
+    tested = [HUM, (310.0, 0.0)]
+    full = _wald(x, FS, TAPS, 20, tested, [MODE])
+    fit = _Design(x, FS, TAPS, 20)
+    blocks = [fit.tested(f) for f, _ in tested]
+    lines = [f for f, _ in tested] + [MODE[0]]
+    fast = fit.wald(blocks, fit.basis([fit.held([MODE])]), [f for f, _ in tested], lines)
+    np.testing.assert_allclose(fast, full, rtol=1e-6)
+    # the reference fits: one component with the other projected out with the held mode
+    (ref_full,) = _wald(x, FS, TAPS, 20, [(62.0, 0.0), tested[1]], [MODE])[:1]
+    (ref_fast,) = fit.wald(
+        [fit.tested(62.0)], fit.basis([blocks[1]], prior=fit.basis([fit.held([MODE])])), [62.0], [62.0, 310.0, MODE[0]]
+    )
+    np.testing.assert_allclose(ref_fast, ref_full, rtol=1e-6)

@@ -101,7 +101,12 @@ def phasor_changes(
         ok = [g for g in cand if g > 2.0 * df and g < 0.5 * fs - 2.0 * df]
         ok = [g for g in ok if all(abs(g - h) > LINE_BINS * df for h in lines)]
         refs.append(sorted(ok, key=lambda g: abs(g - f))[:REFERENCES])
-    w_test = _wald(x, fs, onsets, skip, list(tested), held)
+    fit = _Design(x, fs, onsets, skip)
+    lines_all = [f for f, _ in tested] + [f for f, _ in held]
+    blocks = [fit.tested(f) for f, _ in tested]
+    held_cols = fit.held(held)
+    held_basis = fit.basis([held_cols])
+    w_test = fit.wald(blocks, held_basis, [f for f, _ in tested], lines_all)
     dof = 2 * (len(onsets) - 1)
     med = _chi2_median_even(dof)
     out = []
@@ -110,12 +115,115 @@ def phasor_changes(
             out.append((0.0, dof))
             continue
         # each reference in a fit of its own, in place of the tested component (the tested one
-        # and the other references, a few bins away, are not orthogonal to its columns)
+        # and the other references, a few bins away, are not orthogonal to its columns); the
+        # held modes and the other tested components are projected out once for all of them
+        basis = fit.basis([b for j, b in enumerate(blocks) if j != i], prior=held_basis)
         others = [c for j, c in enumerate(tested) if j != i]
-        w_ref = [_wald(x, fs, onsets, skip, [(g, 0.0)] + others, held)[0] for g in r]
+        lines = [f for f, _ in others] + [f for f, _ in held]
+        w_ref = [fit.wald([fit.tested(g)], basis, [g], [g] + lines)[0] for g in r]
         scale = max(1.0, float(np.median(w_ref)) / med)
         out.append((w_test[i] / scale, dof))
     return out
+
+
+class _Design:
+    """The columns of :func:`_wald`'s model for one record, built block by block, and its Wald
+    statistics computed by partial regression: the coefficients and covariance of the tested
+    blocks in a least-squares fit with further columns ``H`` equal those of a fit of the tested
+    blocks alone after ``H`` is projected out of them and of the data (Frisch & Waugh 1933,
+    Lovell 1963 [from memory]), so the held modes (and, for a reference frequency, the other
+    tested components) are projected out once for every fit that shares them. Same statistic
+    as :func:`_wald` (to rounding: ``tests/test_retap.py``), at a fraction of its cost: a record
+    with nine tested lines (benchmark seed 20261201, record 29) took 87 s there, 12 s here."""
+
+    def __init__(self, x: np.ndarray, fs: float, onsets: list[int], skip: int) -> None:
+        n0 = onsets[0]
+        y = np.asarray(x[n0:], dtype=float)
+        self.n = y.shape[0]
+        self.fs = fs
+        self.t = np.arange(self.n) / fs
+        self.starts = [(o - n0) / fs for o in onsets]
+        keep = np.ones(self.n, dtype=bool)
+        for o in onsets:
+            keep[o - n0 : o - n0 + skip] = False
+        self.keep = keep[DIFFERENCES:]
+        self.tau = self.t / self.t[-1] if self.n > 1 else self.t
+        self.y = np.diff(y, n=DIFFERENCES)[self.keep]
+        self.k_steps = 2 * (len(onsets) - 1)
+
+    def _prepared(self, cols: list[np.ndarray]) -> np.ndarray:
+        phi = np.diff(np.concatenate(cols, axis=1), n=DIFFERENCES, axis=0)[self.keep]
+        norm = np.sqrt(np.sum(phi * phi, axis=0))
+        norm[norm == 0.0] = 1.0
+        return phi / norm
+
+    def tested(self, f: float) -> np.ndarray:
+        """The steady phasor (times 1, t, t^2) and its steps at the later taps of a component at
+        ``f`` Hz, prepared (differenced, force samples left out, columns scaled); the steps are
+        the last ``k_steps`` columns."""
+        base = _columns(self.t, f, 0.0, 0.0)
+        cols = [base, base * self.tau[:, None], base * (self.tau * self.tau)[:, None]]
+        cols.extend(_columns(self.t, f, 0.0, s) for s in self.starts[1:])
+        return self._prepared(cols)
+
+    def held(self, held: list[tuple[float, float]]) -> np.ndarray | None:
+        """The held modes' columns (a phasor and its first-order pole correction per tap), prepared."""
+        cols = []
+        for f, beta in held:
+            for s in self.starts:
+                c = _columns(self.t, f, max(beta, 0.0), s)
+                cols.extend([c, c * np.maximum(self.tau - s / self.t[-1], 0.0)[:, None]])
+        return self._prepared(cols) if cols else None
+
+    def basis(self, blocks: list[np.ndarray | None], prior: np.ndarray | None = None) -> np.ndarray | None:
+        """Orthonormal basis (m, r) of the span of ``blocks`` and of the orthonormal ``prior``
+        (kept as its first columns: the blocks are projected off it and only what is left is
+        decomposed), from the left singular vectors whose singular values exceed 1e3 times
+        ``numpy.linalg.matrix_rank``'s tolerance relative to the blocks' largest column (what the
+        projection leaves of a column already in the prior's span is rounding, not a direction);
+        None when all are empty."""
+        mats = [b for b in blocks if b is not None and b.shape[1]]
+        if not mats:
+            return prior
+        a = np.concatenate(mats, axis=1)
+        scale = float(np.sqrt(np.max(np.sum(a * a, axis=0))))
+        if prior is not None:
+            a = a - prior @ (prior.T @ a)
+        u, sv, _ = np.linalg.svd(a, full_matrices=False)
+        tol = max(scale, sv.max(initial=0.0)) * max(a.shape) * np.finfo(float).eps * 1e3
+        u = u[:, sv > tol]
+        return u if prior is None else np.concatenate([prior, u], axis=1)
+
+    def wald(
+        self, blocks: list[np.ndarray], basis: np.ndarray | None, freqs: list[float], lines: list[float]
+    ) -> list[float]:
+        """The Wald statistic of each block's steps in one fit of ``blocks`` with the span of
+        ``basis`` (columns fitted and projected out); ``freqs`` the blocks' frequencies (Hz),
+        ``lines`` every frequency left out of the noise density."""
+        b = np.concatenate(blocks, axis=1)
+        y = self.y
+        if basis is not None:
+            b = b - basis @ (basis.T @ b)
+            y = y - basis @ (basis.T @ y)
+        coef, *_ = np.linalg.lstsq(b, y, rcond=None)
+        resid = np.zeros(self.n - DIFFERENCES)
+        resid[self.keep] = y - b @ coef
+        gram_inv = np.linalg.pinv(b.T @ b)
+        dens = _periodogram(resid, self.fs)
+        out = []
+        end = 0
+        for f, blk in zip(freqs, blocks):
+            end += blk.shape[1]
+            i = end - self.k_steps
+            sigma2 = _local_density(resid, self.fs, f, lines, p=dens) * self.fs / 2.0
+            s = coef[i:end]
+            cov = sigma2 * gram_inv[i:end, i:end]
+            try:
+                w = float(s @ np.linalg.solve(cov, s))
+            except np.linalg.LinAlgError:
+                w = 0.0
+            out.append(w)
+        return out
 
 
 def chi2_sf_even(w: float, dof: int) -> float:
@@ -200,13 +308,20 @@ def _wald(
     return out
 
 
-def _local_density(r: np.ndarray, fs: float, f_hz: float, lines: list[float]) -> float:
+def _periodogram(r: np.ndarray, fs: float) -> np.ndarray:
+    """One-sided Hann-windowed periodogram of ``r`` (n,), units^2/Hz, at the ``rfft`` bins."""
+    win = np.hanning(r.shape[0])
+    return 2.0 * np.abs(np.fft.rfft(r * win)) ** 2 / (fs * float(np.sum(win * win)))
+
+
+def _local_density(r: np.ndarray, fs: float, f_hz: float, lines: list[float], *, p: np.ndarray | None = None) -> float:
     """One-sided noise density of ``r`` near ``f_hz``, units^2/Hz: the median of its Hann-windowed
-    periodogram over ``DENSITY_BINS`` bins either side, over ln 2, leaving out ``LINE_BINS``
-    around ``f_hz`` and every frequency in ``lines``."""
+    periodogram (``p`` when already computed, :func:`_periodogram`) over ``DENSITY_BINS`` bins
+    either side, over ln 2, leaving out ``LINE_BINS`` around ``f_hz`` and every frequency in
+    ``lines``."""
     n = r.shape[0]
-    win = np.hanning(n)
-    p = 2.0 * np.abs(np.fft.rfft(r * win)) ** 2 / (fs * float(np.sum(win * win)))
+    if p is None:
+        p = _periodogram(r, fs)
     df = fs / n
     k = int(round(f_hz / df))
     idx = np.arange(max(k - DENSITY_BINS - LINE_BINS, 1), min(k + DENSITY_BINS + LINE_BINS + 1, p.shape[0]))
