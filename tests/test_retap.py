@@ -81,24 +81,65 @@ def test_mode_a_second_tap_excited_is_changed():
     assert w > 30 * stats.chi2.isf(1e-3, 2), w
 
 
+def _full_fit_wald(x, fs, onsets, skip, tested, held):
+    """Reference: the Wald statistic of each tested component's steps from one least-squares fit
+    of every column of the model (retap's module docstring) with numpy.linalg.lstsq, nothing
+    projected out, for the partial-regression test below."""
+    from ringdown.analysis.retap import DIFFERENCES, _columns, _local_density
+
+    n0 = onsets[0]
+    y = np.asarray(x[n0:], dtype=float)
+    t = np.arange(y.shape[0]) / fs
+    tau = t / t[-1]
+    starts = [(o - n0) / fs for o in onsets]
+    keep = np.ones(y.shape[0], dtype=bool)
+    for o in onsets:
+        keep[o - n0 : o - n0 + skip] = False
+    cols, step_at = [], []
+    for f, _ in tested:
+        base = _columns(t, f, 0.0, 0.0)
+        cols += [base, base * tau[:, None], base * (tau * tau)[:, None]]
+        step_at.append(sum(c.shape[1] for c in cols))
+        cols += [_columns(t, f, 0.0, s) for s in starts[1:]]
+    for f, beta in held:
+        for s in starts:
+            c = _columns(t, f, beta, s)
+            cols += [c, c * np.maximum(tau - s / t[-1], 0.0)[:, None]]
+    phi = np.diff(np.concatenate(cols, axis=1), n=DIFFERENCES, axis=0)[keep[DIFFERENCES:]]
+    phi /= np.sqrt(np.sum(phi * phi, axis=0))
+    yk = np.diff(y, n=DIFFERENCES)[keep[DIFFERENCES:]]
+    coef = np.linalg.lstsq(phi, yk, rcond=None)[0]
+    resid = np.zeros(y.shape[0] - DIFFERENCES)
+    resid[keep[DIFFERENCES:]] = yk - phi @ coef
+    g = np.linalg.pinv(phi.T @ phi)
+    lines = [f for f, _ in tested] + [f for f, _ in held]
+    k = 2 * (len(onsets) - 1)
+    out = []
+    for (f, _), i in zip(tested, step_at):
+        cov = _local_density(resid, fs, f, lines) * fs / 2.0 * g[i : i + k, i : i + k]
+        out.append(float(coef[i : i + k] @ np.linalg.solve(cov, coef[i : i + k])))
+    return out
+
+
 def test_partial_regression_gives_the_full_fit_statistic():
     # Frisch-Waugh-Lovell theorem (Frisch & Waugh 1933, Lovell 1963 [from memory]): the
     # coefficients and covariance of a block in a least-squares fit equal those of the block
     # fitted alone once the other columns are projected out of it and the data; the statistic
-    # phasor_changes takes from retap._Design must equal _wald's full fit to rounding
+    # phasor_changes takes from retap._Design must equal one full fit's (_full_fit_wald) to rounding
     from ringdown.analysis.retap import _Design
 
     rng = np.random.default_rng(5)
     x = _record(rng, hum_amp=3.0)
     tested = [HUM, (310.0, 0.0)]
-    full = _wald(x, FS, TAPS, 20, tested, [MODE])
+    full = _full_fit_wald(x, FS, TAPS, 20, tested, [MODE])
+    np.testing.assert_allclose(_wald(x, FS, TAPS, 20, tested, [MODE]), full, rtol=1e-6)
     fit = _Design(x, FS, TAPS, 20)
     blocks = [fit.tested(f) for f, _ in tested]
     lines = [f for f, _ in tested] + [MODE[0]]
     fast = fit.wald(blocks, fit.basis([fit.held([MODE])]), [f for f, _ in tested], lines)
     np.testing.assert_allclose(fast, full, rtol=1e-6)
     # the reference fits: one component with the other projected out with the held mode
-    (ref_full,) = _wald(x, FS, TAPS, 20, [(62.0, 0.0), tested[1]], [MODE])[:1]
+    (ref_full,) = _full_fit_wald(x, FS, TAPS, 20, [(62.0, 0.0), tested[1]], [MODE])[:1]
     (ref_fast,) = fit.wald(
         [fit.tested(62.0)], fit.basis([blocks[1]], prior=fit.basis([fit.held([MODE])])), [62.0], [62.0, 310.0, MODE[0]]
     )

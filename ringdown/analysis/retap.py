@@ -133,8 +133,9 @@ class _Design:
     blocks alone after ``H`` is projected out of them and of the data (Frisch & Waugh 1933,
     Lovell 1963 [from memory]), so the held modes (and, for a reference frequency, the other
     tested components) are projected out once for every fit that shares them. Same statistic
-    as :func:`_wald` (to rounding: ``tests/test_retap.py``), at a fraction of its cost: a record
-    with nine tested lines (benchmark seed 20261201, record 29) took 87 s there, 12 s here."""
+    as one least-squares fit of every column (to rounding: ``tests/test_retap.py``), at a fraction
+    of its cost: a record with nine tested lines (benchmark seed 20261201, record 29) took 87 s
+    with one full fit per statistic, 12 s here."""
 
     def __init__(self, x: np.ndarray, fs: float, onsets: list[int], skip: int) -> None:
         n0 = onsets[0]
@@ -256,56 +257,12 @@ def _wald(
     tested: list[tuple[float, float]],
     held: list[tuple[float, float]],
 ) -> list[float]:
-    """The Wald statistic of the steps of each tested component (module docstring), not yet
-    scaled by the empirical null (:func:`phasor_changes`)."""
-    n0 = onsets[0]
-    y = np.asarray(x[n0:], dtype=float)
-    n = y.shape[0]
-    t = np.arange(n) / fs
-    starts = [(o - n0) / fs for o in onsets]
-    keep = np.ones(n, dtype=bool)
-    for o in onsets:
-        keep[o - n0 : o - n0 + skip] = False
-    cols: list[np.ndarray] = []
-    step_at: list[int] = []
-    tau = t / t[-1] if n > 1 else t  # the record's time from 0 to 1: well-scaled powers
-    for f, _beta in tested:
-        # the steady hypothesis: a constant phasor (beta = 0, whatever the fit of one hit said)
-        base = _columns(t, f, 0.0, 0.0)
-        cols.extend([base, base * tau[:, None], base * (tau * tau)[:, None]])
-        step_at.append(sum(c.shape[1] for c in cols))
-        cols.extend(_columns(t, f, 0.0, s) for s in starts[1:])
-    for f, beta in held:
-        for s in starts:
-            c = _columns(t, f, max(beta, 0.0), s)
-            cols.extend([c, c * np.maximum(tau - s / t[-1], 0.0)[:, None]])
-    phi = np.concatenate(cols, axis=1)
-    # the same first difference of the data and of every column (an exact linear model still):
-    # it takes out the record's slow wander, which leaked into the steps through their edges
-    phi = np.diff(phi, n=DIFFERENCES, axis=0)[keep[DIFFERENCES:]]
-    yk = np.diff(y, n=DIFFERENCES)[keep[DIFFERENCES:]]
-    # scale the columns (decaying ones span decades): the covariance below is of the scaled
-    # coefficients, and the Wald statistic does not depend on the scaling
-    norm = np.sqrt(np.sum(phi * phi, axis=0))
-    norm[norm == 0.0] = 1.0
-    phi = phi / norm
-    coef, *_ = np.linalg.lstsq(phi, yk, rcond=None)
-    resid = np.zeros(n - DIFFERENCES)
-    resid[keep[DIFFERENCES:]] = yk - phi @ coef
-    gram_inv = np.linalg.pinv(phi.T @ phi)
+    """The Wald statistic of the steps of each tested component (module docstring) in one fit
+    with the ``held`` modes, not yet scaled by the empirical null (:func:`phasor_changes`)."""
+    fit = _Design(x, fs, onsets, skip)
     lines = [f for f, _ in tested] + [f for f, _ in held]
-    k_steps = 2 * (len(onsets) - 1)
-    out = []
-    for (f, _), i in zip(tested, step_at):
-        sigma2 = _local_density(resid, fs, f, lines) * fs / 2.0
-        s = coef[i : i + k_steps]
-        cov = sigma2 * gram_inv[i : i + k_steps, i : i + k_steps]
-        try:
-            w = float(s @ np.linalg.solve(cov, s))
-        except np.linalg.LinAlgError:
-            w = 0.0
-        out.append(w)
-    return out
+    blocks = [fit.tested(f) for f, _ in tested]
+    return fit.wald(blocks, fit.basis([fit.held(held)]), [f for f, _ in tested], lines)
 
 
 def _periodogram(r: np.ndarray, fs: float) -> np.ndarray:
