@@ -209,8 +209,9 @@ BROAD_SCALES = (8, 32, 128)
 #: higher neighbour, dB: four standard deviations of the smoothed noise spectrum at the finest
 #: scale (4.34 / sqrt(8) dB each) [derived], a plain dip in a strong mode's skirt being smooth.
 BROAD_PROMINENCE_DB = 6.0
-#: A sharp peak is the noise's largest bin on a broad hump (not a mode of its own) only if the hump
-#: is this many times wider than it (as pipeline.WIDTH_MISMATCH; common practice, no source).
+#: A narrower peak inside a broad hump can be a noise ripple of the hump (not a mode of its own)
+#: only if the hump is this many times wider than it (as pipeline.WIDTH_MISMATCH; common
+#: practice, no source).
 SPIKE_WIDTH_RATIO = 4.0
 
 
@@ -272,10 +273,10 @@ def _broad_peaks(
             inside = [q for q in found if abs(q.f_hz - f[i]) <= max(0.5 * width_hz, q.width_hz)]
             wide = width_bins >= 2 * k and all(SPIKE_WIDTH_RATIO * q.width_hz <= width_hz for q in inside)
             ripple = [q for q in inside if wide and _ripple_of(q, scale_of[id(q)], ps, ns, f, width_bins, pad)]
-            lines = [q for q in inside if q not in ripple]
-            if lines and not (wide and len(lines) == 1 and id(lines[0]) in {id(q) for q in sharp}):
-                continue
             gone = {id(q) for q in ripple}
+            lines = [q for q in inside if id(q) not in gone]
+            if lines and not (wide and len(lines) == 1 and scale_of[id(lines[0])] == 1):
+                continue
             ripples += [q for q in ripple if scale_of[id(q)] == 1]
             out = [q for q in out if id(q) not in gone]
             found = [q for q in found if id(q) not in gone]

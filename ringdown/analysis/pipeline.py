@@ -858,8 +858,9 @@ def _analyze_hit(
     segment ended (0 for the first); ``earlier`` holds ``(f_hz, width_hz)`` of the modes of
     earlier hits, which still ring when this hit comes; ``retapped`` ``(f_hz, tolerance_hz)``
     the components a later tap changed (:func:`_retapped`); the components named steady tones
-    by their fit are appended to ``steady`` as ``(f_hz, beta_per_s)`` when it is a list. Indices are into ``ctx.x``; times are from the recording's
-    first sample (``ctx.i0`` samples before ``ctx.x[0]``)."""
+    by their fit are appended to ``steady`` as ``(f_hz, beta_per_s)`` when it is a list.
+    Indices are into ``ctx.x``; times are from the recording's first sample (``ctx.i0`` samples
+    before ``ctx.x[0]``)."""
     x, fs, opts = ctx.x, ctx.fs, ctx.opts
     i0 = ctx.i0
     warnings: list[Notice] = []
@@ -1205,7 +1206,7 @@ def _residual_round(
             if raw and _too_many(gc, row):
                 row_cands += gc
                 continue
-            olds = _hidden_under(gc, new_modes, raw=True) if raw and round_ == unveil else []
+            olds = _hidden_under(gc, new_modes) if raw and round_ == unveil else []
             try:
                 if olds:
                     got = _pair_refit(hctx, gc, olds, known, found_round, new_modes, res_hz, start)
@@ -1256,13 +1257,13 @@ def _residual_round(
 OVERLAP_WIDTHS = 2.0
 
 
-def _hidden_under(cands: list[Candidate], modes: list[Mode], raw: bool = False) -> list[Mode]:
-    """The modes of ``modes`` (with ``raw``, the raw-fit ones only) whose hump overlaps one of
-    ``cands``' (within ``OVERLAP_WIDTHS`` times the sum of their half-power widths)."""
+def _hidden_under(cands: list[Candidate], modes: list[Mode]) -> list[Mode]:
+    """The raw-fit modes of ``modes`` whose hump overlaps one of ``cands``' (within
+    ``OVERLAP_WIDTHS`` times the sum of their half-power widths)."""
     return [
         m
         for m in modes
-        if (m.fit_path == "raw" or not raw)
+        if m.fit_path == "raw"
         and any(abs(m.f_d_hz - c.f_hz) <= OVERLAP_WIDTHS * (c.width_hz + m.beta_per_s / math.pi) for c in cands)
     ]
 
@@ -1280,9 +1281,10 @@ def _pair_refit(
     """A broad candidate unveiled by subtracting the broad modes ``olds`` (raw fits, members of
     ``new_modes``) fitted on the record jointly with them, all as targets: the first fit of
     ``olds`` had the unveiled mode in its residual, and the two humps' poles are correlated.
-    Returns the fit's modes near ``cands``; each of ``olds`` is replaced in ``new_modes`` and
-    ``known`` (in place) by its refit when the refit lies at it (:func:`_near`) with a credible u and the
-    unveiled mode is kept, so that the pair is reported from one joint model."""
+    Returns the fit's modes other than the refits; each of ``olds`` is replaced in ``new_modes``
+    and ``known`` (in place) by its refit when the refit lies at it (:func:`_near`) with a
+    credible u and an unveiled mode near ``cands`` has a resolved decay, so that the pair is
+    reported from one joint model."""
     old_c = _as_candidates(olds, res_hz)
     others = [m for m in known + found_round if all(m is not o for o in olds)]
     got = _measure_raw(hctx, cands + old_c, cands + old_c + _as_candidates(others, res_hz), start)
